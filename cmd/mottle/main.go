@@ -1,0 +1,130 @@
+// Command mottle measures full-field displacement, deformation gradient,
+// strain and rotation from speckle images of a loaded specimen.
+//
+// Usage:
+//
+//	mottle <command> [flags]
+//
+// Run "mottle help" for the list of commands and "mottle <command> --help"
+// for the flags of one.
+package main
+
+import (
+	"context"
+	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"os/signal"
+	"syscall"
+
+	"golang.org/x/term"
+)
+
+// env is what a command may touch of the outside world, so commands can be
+// run from tests with buffers in place of the terminal.
+type env struct {
+	stdout, stderr io.Writer
+	// tty is true when stderr is a terminal: progress bars are drawn only then.
+	tty bool
+}
+
+// command is one subcommand of mottle.
+type command struct {
+	name    string
+	summary string
+	run     func(ctx context.Context, e *env, args []string) error
+}
+
+func commands() []command {
+	return []command{
+		{"demo", "render the built-in demo specimen, analyse it and compare with the truth", runDemo},
+		{"synth", "render exact synthetic speckle images and their true motion", runSynth},
+		{"analyze", "correlate a reference and a deformed image and write a results folder", runAnalyze},
+		{"map", "re-render a PNG map of any quantity from a results folder", runMap},
+		{"series", "analyse a series of frames: curves, gauges, material properties, report", runSeries},
+		{"serve", "run the HTTP service and the browser preview", runServe},
+		{"version", "print the version", runVersion},
+	}
+}
+
+// errUsage marks an error already explained by a usage message.
+var errUsage = errors.New("usage")
+
+func main() {
+	ctx, stop := signal.NotifyContext(context.Background(), os.Interrupt, syscall.SIGTERM)
+	defer stop()
+	e := &env{stdout: os.Stdout, stderr: os.Stderr, tty: term.IsTerminal(int(os.Stderr.Fd()))}
+	os.Exit(run(ctx, e, os.Args[1:]))
+}
+
+// run dispatches to a subcommand and returns the process exit code:
+// 0 success, 1 failure, 2 usage error.
+func run(ctx context.Context, e *env, args []string) int {
+	if len(args) == 0 || args[0] == "help" || args[0] == "-h" || args[0] == "--help" {
+		if len(args) > 1 {
+			return run(ctx, e, []string{args[1], "--help"})
+		}
+		usage(e.stdout)
+		if len(args) == 0 {
+			return 2
+		}
+		return 0
+	}
+	for _, c := range commands() {
+		if c.name != args[0] {
+			continue
+		}
+		err := c.run(ctx, e, args[1:])
+		switch {
+		case err == nil, errors.Is(err, flag.ErrHelp):
+			return 0
+		case errors.Is(err, errUsage):
+			return 2
+		default:
+			fmt.Fprintf(e.stderr, "mottle %s: %v\n", c.name, err)
+			return 1
+		}
+	}
+	fmt.Fprintf(e.stderr, "mottle: unknown command %q\n\n", args[0])
+	usage(e.stderr)
+	return 2
+}
+
+func usage(w io.Writer) {
+	fmt.Fprintln(w, "Mottle: digital image correlation for materials testing.")
+	fmt.Fprintln(w, "\nUsage: mottle <command> [flags]\n\nCommands:")
+	for _, c := range commands() {
+		fmt.Fprintf(w, "  %-8s %s\n", c.name, c.summary)
+	}
+	fmt.Fprintln(w, "\nRun \"mottle <command> --help\" for the flags of a command.")
+}
+
+// newFlags returns a flag set whose --help prints the synopsis, a
+// description and the flags to e.stdout.
+func newFlags(e *env, name, synopsis, description string) *flag.FlagSet {
+	fs := flag.NewFlagSet("mottle "+name, flag.ContinueOnError)
+	fs.SetOutput(e.stderr)
+	fs.Usage = func() {
+		fmt.Fprintf(fs.Output(), "Usage: mottle %s %s\n\n%s\n\nFlags:\n", name, synopsis, description)
+		fs.PrintDefaults()
+	}
+	return fs
+}
+
+// parseFlags parses args, printing help to stdout for --help and turning
+// other parse errors into errUsage.
+func parseFlags(e *env, fs *flag.FlagSet, args []string) error {
+	for _, a := range args {
+		if a == "-h" || a == "-help" || a == "--help" {
+			fs.SetOutput(e.stdout)
+			fs.Usage()
+			return flag.ErrHelp
+		}
+	}
+	if err := fs.Parse(args); err != nil {
+		return errUsage
+	}
+	return nil
+}
