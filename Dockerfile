@@ -1,0 +1,18 @@
+# Multi-stage build of the mottle binary into a small runtime image that
+# runs the HTTP service as a non-root user with a data volume.
+#   docker build -t mottle .
+#   docker run -p 8080:8080 -v mottle-data:/data mottle
+FROM golang:1.26 AS build
+WORKDIR /src
+COPY go.mod go.sum ./
+RUN go mod download
+COPY . .
+RUN CGO_ENABLED=0 go build -trimpath -ldflags "-s -w" -o /out/mottle ./cmd/mottle
+
+FROM gcr.io/distroless/static-debian12:nonroot
+COPY --from=build /out/mottle /usr/local/bin/mottle
+USER nonroot:nonroot
+VOLUME ["/data"]
+EXPOSE 8080
+ENTRYPOINT ["/usr/local/bin/mottle"]
+CMD ["serve", "--addr", ":8080", "--data", "/data"]
