@@ -7,10 +7,12 @@ WORKDIR /src
 COPY go.mod go.sum ./
 RUN go mod download
 COPY . .
-RUN CGO_ENABLED=0 go build -trimpath -ldflags "-s -w" -o /out/mottle ./cmd/mottle
+RUN CGO_ENABLED=0 go build -trimpath -ldflags "-s -w" -o /out/mottle ./cmd/mottle && mkdir -p /out/data
 
 FROM gcr.io/distroless/static-debian12:nonroot
 COPY --from=build /out/mottle /usr/local/bin/mottle
+# The data directory must belong to the non-root user (uid 65532 in distroless).
+COPY --from=build --chown=65532:65532 /out/data /data
 USER nonroot:nonroot
 VOLUME ["/data"]
 EXPOSE 8080
