@@ -1,0 +1,98 @@
+package analysis
+
+import (
+	"errors"
+	"strings"
+	"testing"
+
+	"github.com/mottledic/mottle/pkg/roi"
+)
+
+func TestDefaultsValid(t *testing.T) {
+	p := Defaults()
+	if err := p.Validate(512, 512); err != nil {
+		t.Fatalf("defaults should be valid for a 512×512 image: %v", err)
+	}
+}
+
+// TestValidateNamesEveryProblem checks that each bad value is reported
+// against its own field, and that several problems are reported at once.
+func TestValidateNamesEveryProblem(t *testing.T) {
+	rect := [4]int{-5, 0, 100, 100}
+	cases := []struct {
+		name   string
+		edit   func(*Params)
+		w, h   int
+		fields []string
+	}{
+		{"even subset", func(p *Params) { p.Subset = 30 }, 256, 256, []string{"subset"}},
+		{"subset larger than image", func(p *Params) { p.Subset = 101 }, 64, 64, []string{"subset"}},
+		{"bad shape and fit", func(p *Params) { p.Shape = "third"; p.StrainFit = "cubic" }, 256, 256, []string{"shape", "strain_fit"}},
+		{"roi outside image", func(p *Params) { p.ROI = &roi.Spec{Rect: &rect} }, 256, 256, []string{"roi.rect"}},
+		{"seed at edge", func(p *Params) { p.Seeds = [][2]int{{2, 2}} }, 256, 256, []string{"seeds[0]"}},
+		{"even window", func(p *Params) { p.StrainWindow = 4 }, 256, 256, []string{"strain_window"}},
+		{"negative scale", func(p *Params) { p.MMPerPx = -1 }, 256, 256, []string{"mm_per_px"}},
+	}
+	for _, c := range cases {
+		t.Run(c.name, func(t *testing.T) {
+			p := Defaults()
+			c.edit(&p)
+			err := p.Validate(c.w, c.h)
+			var ve *ValidationError
+			if !errors.As(err, &ve) {
+				t.Fatalf("want a *ValidationError, got %v", err)
+			}
+			got := map[string]bool{}
+			for _, pr := range ve.Problems {
+				got[pr.Field] = true
+				if pr.Message == "" {
+					t.Errorf("field %s: empty message", pr.Field)
+				}
+			}
+			for _, f := range c.fields {
+				if !got[f] {
+					t.Errorf("no problem reported for %s; got %v", f, ve.Problems)
+				}
+			}
+			if len(ve.Problems) != len(c.fields) {
+				t.Errorf("got %d problems, want %d: %v", len(ve.Problems), len(c.fields), ve.Problems)
+			}
+		})
+	}
+}
+
+func TestParseJSON(t *testing.T) {
+	p, err := ParseJSONBytes([]byte(`{"subset": 21, "step": 5}`))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if p.Subset != 21 || p.Step != 5 || p.Shape != "first" {
+		t.Errorf("got %+v; want subset 21, step 5 and the default shape", p)
+	}
+	_, err = ParseJSONBytes([]byte(`{"subsett": 21}`))
+	var ve *ValidationError
+	if !errors.As(err, &ve) || ve.Problems[0].Field != "subsett" || !strings.Contains(ve.Problems[0].Message, "subset") {
+		t.Errorf("unknown field: want a problem naming it and listing known ones, got %v", err)
+	}
+	_, err = ParseJSONBytes([]byte(`{"subset": "big"}`))
+	if !errors.As(err, &ve) || ve.Problems[0].Field != "subset" {
+		t.Errorf("wrong type: want a problem on subset, got %v", err)
+	}
+	if _, err = ParseJSONBytes([]byte(`{"subset": 21`)); err == nil {
+		t.Error("truncated JSON accepted")
+	}
+}
+
+func FuzzParseJSON(f *testing.F) {
+	f.Add([]byte(`{"subset": 31, "roi": {"rect": [0, 0, 10, 10]}}`))
+	f.Add([]byte(`{"seeds": [[1, 2]], "scale_points": {"a": [0, 0], "b": [1, 1], "distance_mm": 0}}`))
+	f.Add([]byte(`{"roi": {"polygon": [[0, 0], [1e308, 1], [2, 2]], "holes": [[[1, 1]]]}}`))
+	f.Fuzz(func(t *testing.T, b []byte) {
+		p, err := ParseJSONBytes(b)
+		if err != nil {
+			return
+		}
+		_ = p.Validate(300, 200)
+		_ = p.Validate(0, 0)
+	})
+}
