@@ -1,0 +1,168 @@
+package maps
+
+import (
+	"fmt"
+	"image"
+	"image/color"
+	"math"
+	"strconv"
+	"strings"
+
+	"golang.org/x/image/draw"
+	"golang.org/x/image/font"
+	"golang.org/x/image/font/gofont/goregular"
+	"golang.org/x/image/font/opentype"
+	"golang.org/x/image/math/fixed"
+	"golang.org/x/image/vector"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+)
+
+// Drawing helpers shared by the map and vector renderers.
+
+var (
+	ink   = color.RGBA{R: 0x1a, G: 0x1a, B: 0x1a, A: 0xff}
+	paper = color.RGBA{R: 0xff, G: 0xff, B: 0xff, A: 0xff}
+	frame = color.RGBA{R: 0x55, G: 0x55, B: 0x55, A: 0xff}
+)
+
+// labelSize is the text size in pixels of every label.
+const labelSize = 13
+
+// newFace returns a fresh face of the Go Regular font (BSD licence, shipped
+// with golang.org/x/image). Faces cache glyphs and are not safe for
+// concurrent use, so every render makes its own.
+func newFace() (font.Face, error) {
+	f, err := opentype.Parse(goregular.TTF)
+	if err != nil {
+		return nil, fmt.Errorf("label font: %w", err)
+	}
+	face, err := opentype.NewFace(f, &opentype.FaceOptions{Size: labelSize, DPI: 72, Hinting: font.HintingFull})
+	if err != nil {
+		return nil, fmt.Errorf("label font: %w", err)
+	}
+	return face, nil
+}
+
+// textWidth returns the advance width of s in whole pixels.
+func textWidth(face font.Face, s string) int {
+	return font.MeasureString(face, s).Ceil()
+}
+
+// lineHeight returns the distance between baselines in whole pixels and the ascent.
+func lineHeight(face font.Face) (h, ascent int) {
+	m := face.Metrics()
+	return m.Height.Ceil(), m.Ascent.Ceil()
+}
+
+// drawText draws s with its baseline starting at (x, y).
+func drawText(dst draw.Image, face font.Face, x, y int, s string, c color.Color) {
+	d := font.Drawer{Dst: dst, Src: image.NewUniform(c), Face: face, Dot: fixed.P(x, y)}
+	d.DrawString(s)
+}
+
+// fillRect fills r with c.
+func fillRect(dst draw.Image, r image.Rectangle, c color.Color) {
+	draw.Draw(dst, r, image.NewUniform(c), image.Point{}, draw.Src)
+}
+
+// strokeRect draws a 1-pixel outline just outside r.
+func strokeRect(dst draw.Image, r image.Rectangle, c color.Color) {
+	o := r.Inset(-1)
+	fillRect(dst, image.Rect(o.Min.X, o.Min.Y, o.Max.X, o.Min.Y+1), c)
+	fillRect(dst, image.Rect(o.Min.X, o.Max.Y-1, o.Max.X, o.Max.Y), c)
+	fillRect(dst, image.Rect(o.Min.X, o.Min.Y, o.Min.X+1, o.Max.Y), c)
+	fillRect(dst, image.Rect(o.Max.X-1, o.Min.Y, o.Max.X, o.Max.Y), c)
+}
+
+// fillPolygon fills the closed polygon pts (pixel coordinates, pixel
+// centres at half-integers as in golang.org/x/image/vector) with c,
+// anti-aliased, onto dst.
+func fillPolygon(dst *image.RGBA, pts [][2]float64, c color.Color) {
+	if len(pts) < 3 {
+		return
+	}
+	b := dst.Bounds()
+	r := vector.NewRasterizer(b.Dx(), b.Dy())
+	r.DrawOp = draw.Over
+	r.MoveTo(float32(pts[0][0]-float64(b.Min.X)), float32(pts[0][1]-float64(b.Min.Y)))
+	for _, p := range pts[1:] {
+		r.LineTo(float32(p[0]-float64(b.Min.X)), float32(p[1]-float64(b.Min.Y)))
+	}
+	r.ClosePath()
+	r.Draw(dst, b, image.NewUniform(c), image.Point{})
+}
+
+// grayToImage converts g to 8-bit grey: the native scale 0..2^Bits−1 when
+// Bits is set, otherwise the image's own minimum..maximum.
+func grayToImage(g *imageio.Gray) *image.Gray {
+	out := image.NewGray(image.Rect(0, 0, g.W, g.H))
+	lo, hi := 0.0, 255.0
+	if g.Bits >= 1 && g.Bits <= 16 {
+		hi = float64(uint32(1)<<g.Bits - 1)
+	} else {
+		lo, hi = math.Inf(1), math.Inf(-1)
+		for y := 0; y < g.H; y++ {
+			for _, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
+				if f := float64(v); !math.IsNaN(f) {
+					lo, hi = math.Min(lo, f), math.Max(hi, f)
+				}
+			}
+		}
+		if !(hi > lo) {
+			lo, hi = 0, math.Max(hi, 1)
+		}
+	}
+	k := 255 / (hi - lo)
+	for y := 0; y < g.H; y++ {
+		row := g.Pix[y*g.Stride : y*g.Stride+g.W]
+		for x, v := range row {
+			f := (float64(v) - lo) * k
+			if math.IsNaN(f) {
+				f = 0
+			}
+			out.Pix[y*out.Stride+x] = uint8(math.Round(math.Max(0, math.Min(255, f))))
+		}
+	}
+	return out
+}
+
+// checkGray reports what is wrong with a background image, if anything.
+func checkGray(g *imageio.Gray) error {
+	if g == nil {
+		return nil
+	}
+	if g.W <= 0 || g.H <= 0 {
+		return fmt.Errorf("background image: size %d×%d; want a positive width and height", g.W, g.H)
+	}
+	if g.Stride < g.W || len(g.Pix) < (g.H-1)*g.Stride+g.W {
+		return fmt.Errorf("background image: %d pixels with stride %d do not cover %d×%d", len(g.Pix), g.Stride, g.W, g.H)
+	}
+	return nil
+}
+
+// formatNumber formats v compactly for labels (up to 4 significant
+// digits), with a true minus sign.
+func formatNumber(v float64) string {
+	if v == 0 {
+		return "0"
+	}
+	s := strconv.FormatFloat(v, 'g', 4, 64)
+	if strings.Contains(s, "e") {
+		m, e, _ := strings.Cut(s, "e")
+		n, _ := strconv.Atoi(e)
+		s = m + "e" + strconv.Itoa(n)
+	}
+	return strings.ReplaceAll(s, "-", "−")
+}
+
+// niceLength returns the largest 1, 2 or 5 × 10^k not above x (x > 0).
+func niceLength(x float64) float64 {
+	p := math.Pow(10, math.Floor(math.Log10(x)))
+	for _, m := range []float64{5, 2, 1} {
+		if m*p <= x {
+			return m * p
+		}
+	}
+	return p
+}

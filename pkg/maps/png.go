@@ -1,0 +1,30 @@
+package maps
+
+import (
+	"bytes"
+	"fmt"
+	"image"
+	"image/png"
+	"io"
+)
+
+// EncodePNG returns img encoded as PNG (default compression; the bytes are
+// the same for the same image).
+func EncodePNG(img image.Image) ([]byte, error) {
+	var b bytes.Buffer
+	if err := WritePNG(&b, img); err != nil {
+		return nil, err
+	}
+	return b.Bytes(), nil
+}
+
+// WritePNG writes img to w as PNG.
+func WritePNG(w io.Writer, img image.Image) error {
+	if img == nil {
+		return fmt.Errorf("encode PNG: nil image")
+	}
+	if err := png.Encode(w, img); err != nil {
+		return fmt.Errorf("encode PNG: %w", err)
+	}
+	return nil
+}
