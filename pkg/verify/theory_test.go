@@ -1,0 +1,68 @@
+package verify
+
+import (
+	"math"
+	"testing"
+)
+
+// The first-order attenuation must equal the Dirichlet-kernel closed form
+// derived in theory.go; its large-N limit is the box-filter sinc.
+func TestAttenuationClosedForm(t *testing.T) {
+	for _, n := range []int{5, 11, 31, 51} {
+		for _, p := range []float64{7.3, 20, 44, 150, 1000} {
+			got, err := Attenuation(n, 1, p)
+			if err != nil {
+				t.Fatal(err)
+			}
+			want := math.Sin(math.Pi*float64(n)/p) / (float64(n) * math.Sin(math.Pi/p))
+			if math.Abs(got-want) > 1e-9 {
+				t.Errorf("n=%d p=%g: least squares %v, Dirichlet kernel %v", n, p, got, want)
+			}
+		}
+	}
+}
+
+func TestTheoryPeriod(t *testing.T) {
+	// sin w / w = 0.9 at w = 0.786683 (solved independently with SciPy's
+	// brentq; from our run), so p₁₀ → πN/0.786683 = 3.99347·N as N grows.
+	const ratio = math.Pi / 0.786683
+	for _, tc := range []struct {
+		n      int
+		lo, hi float64 // band on p₁₀/N
+	}{
+		{11, 3.97, 3.99}, {21, 3.98, 3.995}, {51, 3.99, 3.995}, {501, ratio - 1e-3, ratio + 1e-4},
+	} {
+		p, err := TheoryPeriod(tc.n, 1, 0.9)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if r := p / float64(tc.n); r < tc.lo || r > tc.hi {
+			t.Errorf("first order n=%d: p10/N = %.5f, want in [%g, %g]", tc.n, r, tc.lo, tc.hi)
+		}
+		if a, _ := Attenuation(tc.n, 1, p); math.Abs(a-0.9) > 1e-6 {
+			t.Errorf("n=%d: attenuation at p10 = %v", tc.n, a)
+		}
+		// A second-order fit follows the crest: finer resolution.
+		p2, err := TheoryPeriod(tc.n, 2, 0.9)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !(p2 < 0.75*p) {
+			t.Errorf("n=%d: second-order p10 %.1f not clearly below first-order %.1f", tc.n, p2, p)
+		}
+	}
+}
+
+func TestAttenuationErrors(t *testing.T) {
+	for _, tc := range []struct {
+		n, order int
+		p        float64
+	}{{4, 1, 10}, {1, 1, 10}, {11, 3, 10}, {11, 1, 0}, {11, 1, math.NaN()}} {
+		if _, err := Attenuation(tc.n, tc.order, tc.p); err == nil {
+			t.Errorf("Attenuation(%d, %d, %v): no error", tc.n, tc.order, tc.p)
+		}
+	}
+	if _, err := TheoryPeriod(11, 1, 1.5); err == nil {
+		t.Error("TheoryPeriod level 1.5: no error")
+	}
+}
