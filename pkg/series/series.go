@@ -1,0 +1,279 @@
+// Package series analyses a test series: a reference image and a sequence
+// of frames taken while the specimen is loaded. It tracks the material
+// points of the reference grid through every frame, reads virtual
+// extensometers and gauges, combines them with time stamps and the load
+// signal into a curve, and derives material properties and a report.
+//
+// # Tracking
+//
+// Every frame is referred to the reference (total Lagrangian) and the
+// correlation of frame n starts from the solution of frame n−1. When the
+// correlation with the reference degrades (mean ZNCC or the fraction of
+// still-valid points below a threshold), the tracker switches to
+// incremental correlation: it correlates frame n−1 with frame n at the
+// current positions x_{n−1}(X) of the material points and composes the
+// mappings at the same material point,
+//
+//	x_n(X) = φ_n(x_{n−1}(X)),  F_n(X) = ∇φ_n(x_{n−1}(X))·F_{n−1}(X),
+//
+// so results stay referred to the reference configuration. Displacements of
+// different points are never added. Each frame's Summary says which mode
+// was used ("direct" or "incremental"); once switched, the tracker stays
+// incremental.
+//
+// # Use
+//
+// The engine runs frame by frame so that a server can drive it and survive
+// restarts:
+//
+//	t, err := series.New(ref, series.FrameMeta{Time: &t0}, p)
+//	for each frame {
+//		fr, err := t.Add(ctx, img, series.FrameMeta{Name: name, Time: &t, Load: &f})
+//		... fr.Summary, fr.Quantities ...
+//		st := t.State()          // JSON-serialisable; store it
+//	}
+//	t2, err := series.Restore(ref, lastFrame, st) // after a restart
+//	curve := t2.Curve()
+//
+// Results from an optical measurement carry uncertainty; where they feed
+// safety decisions, confirm them with a calibrated extensometer (ASTM E83,
+// ISO 9513) and defer to the applicable codes and a licensed engineer.
+package series
+
+import (
+	"errors"
+	"fmt"
+	"math"
+
+	"github.com/mottledic/mottle/pkg/analysis"
+)
+
+// Modes of correlating a frame, as reported in Summary.Mode.
+const (
+	// ModeReference marks the reference frame itself (row 0 of a curve).
+	ModeReference = "reference"
+	// ModeDirect: the frame was correlated with the reference image.
+	ModeDirect = "direct"
+	// ModeIncremental: the frame was correlated with the previous frame and
+	// the mapping composed with the previous one.
+	ModeIncremental = "incremental"
+)
+
+// Incremental policies for Params.Incremental.
+const (
+	// IncrementalAuto switches to incremental correlation when the direct
+	// correlation degrades (the default).
+	IncrementalAuto = "auto"
+	// IncrementalNever always correlates with the reference.
+	IncrementalNever = "never"
+	// IncrementalAlways correlates every frame with the previous one.
+	IncrementalAlways = "always"
+)
+
+// Params are the settings of a series analysis. JSON names are those of
+// the CLI flags and the HTTP API.
+type Params struct {
+	// Analysis are the correlation and strain parameters used for every
+	// frame (see pkg/analysis).
+	Analysis analysis.Params `json:"analysis"`
+	// Incremental is "auto" (default), "never" or "always".
+	Incremental string `json:"incremental"`
+	// SwitchZNCC: in auto mode, a direct frame whose mean ZNCC over the
+	// valid points falls below this is redone incrementally. Default 0.9.
+	SwitchZNCC float64 `json:"switch_zncc"`
+	// SwitchValid: in auto mode, a direct frame in which fewer than this
+	// fraction of the points valid in the first frame are still valid is
+	// redone incrementally. Default 0.9.
+	SwitchValid float64 `json:"switch_valid"`
+	// Units of extensometer and gauge coordinates and of lengths in the
+	// output: "px" (default) or "mm" (needs Analysis.MMPerPx).
+	Units string `json:"units"`
+	// Extensometers and Gauges are read in every frame.
+	Extensometers []Extensometer `json:"extensometers,omitempty"`
+	Gauges        []Gauge        `json:"gauges,omitempty"`
+	// Area is the specimen's initial cross-section in mm²; with loads in N
+	// it gives the engineering stress in MPa. 0 = no stress.
+	Area float64 `json:"area_mm2"`
+	// StaticFrames is the number of frames, after the reference, taken
+	// without load or motion; they give the noise floor. Default 0.
+	StaticFrames int `json:"static_frames"`
+	// Properties selects the material properties derived from the curve.
+	Properties PropsParams `json:"properties"`
+}
+
+// PropsParams select the curve data and ranges for material properties.
+// A property whose inputs are missing is skipped, with the reason listed in
+// Properties.Skipped.
+type PropsParams struct {
+	// Axial names the extensometer giving the axial engineering strain;
+	// default the first extensometer.
+	Axial string `json:"axial,omitempty"`
+	// Transverse names the extensometer across the specimen (width), used
+	// for Poisson's ratio and r; empty = none.
+	Transverse string `json:"transverse,omitempty"`
+	// ModulusRange is the axial strain range [lo, hi] of the modulus fit
+	// (ASTM E111); zero = no modulus, offset yield or Poisson's ratio.
+	ModulusRange [2]float64 `json:"modulus_range"`
+	// PoissonRange is the axial strain range for Poisson's ratio
+	// (ASTM E132); zero = ModulusRange.
+	PoissonRange [2]float64 `json:"poisson_range"`
+	// Offset of the offset yield strength as a strain; default 0.002.
+	Offset float64 `json:"offset"`
+	// RRange is the axial strain range for the r value (ISO 10113); zero =
+	// no r value.
+	RRange [2]float64 `json:"r_range"`
+}
+
+// FrameMeta describes one frame: its name (a file name, say), time stamp
+// in seconds and load in newtons, each optional.
+type FrameMeta struct {
+	Name string   `json:"name,omitempty"`
+	Time *float64 `json:"time_s,omitempty"`
+	Load *float64 `json:"load_N,omitempty"`
+}
+
+// Summary is one frame's row of the curve.
+type Summary struct {
+	// Index is 0 for the reference and 1, 2, … for the frames added.
+	Index int      `json:"index"`
+	Name  string   `json:"name,omitempty"`
+	Time  *float64 `json:"time_s,omitempty"`
+	Load  *float64 `json:"load_N,omitempty"`
+	// Stress is Load/Area in MPa, when both are known.
+	Stress *float64 `json:"stress_MPa,omitempty"`
+	// Mode is ModeReference, ModeDirect or ModeIncremental.
+	Mode string `json:"mode"`
+	// Static is true for the frames that make up the noise floor.
+	Static bool `json:"static,omitempty"`
+	// ValidFraction is the fraction of grid points with a valid result;
+	// Tracked the fraction of the points valid in the first frame that are
+	// still valid.
+	ValidFraction float64 `json:"valid_fraction"`
+	Tracked       float64 `json:"tracked_fraction"`
+	// MeanZNCC is the mean ZNCC over valid points; in incremental mode it
+	// is that of the last increment.
+	MeanZNCC float64 `json:"mean_zncc"`
+	// Mean holds the mean over valid points of u, v (in Units) and of the
+	// strain components E11, E22, E12, eps11, eps22, eps12, H11, H22, H12.
+	Mean map[string]float64 `json:"mean"`
+	// Extensometers and Gauges are the virtual instrument readings.
+	Extensometers []ExtReading   `json:"extensometers,omitempty"`
+	Gauges        []GaugeReading `json:"gauges,omitempty"`
+}
+
+// MeanNames lists the quantities averaged into Summary.Mean, in order.
+var MeanNames = []string{"u", "v", "E11", "E22", "E12", "eps11", "eps22", "eps12", "H11", "H22", "H12"}
+
+// withDefaults fills zero fields with their documented defaults.
+func (p Params) withDefaults() Params {
+	if p.Incremental == "" {
+		p.Incremental = IncrementalAuto
+	}
+	if p.SwitchZNCC == 0 {
+		p.SwitchZNCC = 0.9
+	}
+	if p.SwitchValid == 0 {
+		p.SwitchValid = 0.9
+	}
+	if p.Units == "" {
+		p.Units = "px"
+	}
+	if p.Properties.Offset == 0 {
+		p.Properties.Offset = 0.002
+	}
+	if p.Properties.PoissonRange == [2]float64{} {
+		p.Properties.PoissonRange = p.Properties.ModulusRange
+	}
+	if p.Properties.Axial == "" && len(p.Extensometers) > 0 {
+		p.Properties.Axial = p.Extensometers[0].Name
+	}
+	return p
+}
+
+// Defaults returns the series parameters used where none are set, with
+// the analysis defaults of pkg/analysis.
+func Defaults() Params {
+	return Params{Analysis: analysis.Defaults()}.withDefaults()
+}
+
+// Validate checks p (after defaults) for reference images of w×h px
+// (w, h ≤ 0 skips the size checks) and returns every problem at once.
+func (p Params) Validate(w, h int) error {
+	p = p.withDefaults()
+	var errs []error
+	if err := p.Analysis.Validate(w, h); err != nil {
+		errs = append(errs, fmt.Errorf("analysis: %w", err))
+	}
+	switch p.Incremental {
+	case IncrementalAuto, IncrementalNever, IncrementalAlways:
+	default:
+		errs = append(errs, fmt.Errorf("incremental %q: use auto, never or always", p.Incremental))
+	}
+	if !(p.SwitchZNCC > -1 && p.SwitchZNCC <= 1) {
+		errs = append(errs, fmt.Errorf("switch_zncc %g: use a value in (-1, 1], e.g. 0.9", p.SwitchZNCC))
+	}
+	if !(p.SwitchValid > 0 && p.SwitchValid <= 1) {
+		errs = append(errs, fmt.Errorf("switch_valid %g: use a fraction in (0, 1], e.g. 0.9", p.SwitchValid))
+	}
+	switch p.Units {
+	case "px":
+	case "mm":
+		if !(p.Analysis.MMPerPx > 0) && p.Analysis.ScalePoints == nil {
+			errs = append(errs, errors.New("units \"mm\": set analysis.mm_per_px or analysis.scale_points"))
+		}
+	default:
+		errs = append(errs, fmt.Errorf("units %q: use px or mm", p.Units))
+	}
+	if !finite(p.Area) || p.Area < 0 {
+		errs = append(errs, fmt.Errorf("area_mm2 %g: use 0 (no stress) or the positive cross-section in mm²", p.Area))
+	}
+	if p.StaticFrames < 0 {
+		errs = append(errs, fmt.Errorf("static_frames %d: use 0 or more", p.StaticFrames))
+	}
+	if err := validateGeometry(p.Extensometers, p.Gauges); err != nil {
+		errs = append(errs, err)
+	}
+	errs = append(errs, p.Properties.validate(p.Extensometers))
+	return errors.Join(errs...)
+}
+
+func (pp PropsParams) validate(ext []Extensometer) error {
+	var errs []error
+	has := func(n string) bool {
+		for _, e := range ext {
+			if e.Name == n {
+				return true
+			}
+		}
+		return false
+	}
+	if pp.Axial != "" && !has(pp.Axial) {
+		errs = append(errs, fmt.Errorf("properties.axial %q: no extensometer of that name", pp.Axial))
+	}
+	if pp.Transverse != "" && !has(pp.Transverse) {
+		errs = append(errs, fmt.Errorf("properties.transverse %q: no extensometer of that name", pp.Transverse))
+	}
+	for name, r := range map[string][2]float64{"modulus_range": pp.ModulusRange, "poisson_range": pp.PoissonRange, "r_range": pp.RRange} {
+		if r != [2]float64{} && (!finite(r[0], r[1]) || !(r[1] > r[0])) {
+			errs = append(errs, fmt.Errorf("properties.%s %v: give [lo, hi] with lo < hi, as strains (0.002, not 0.2 %%)", name, r))
+		}
+	}
+	if !(pp.Offset > 0 && pp.Offset < 0.1) {
+		errs = append(errs, fmt.Errorf("properties.offset %g: use a strain such as 0.002 (0.2 %%)", pp.Offset))
+	}
+	return errors.Join(errs...)
+}
+
+// lengthScale returns the factor from px to the output units.
+func (p Params) lengthScale() float64 {
+	if p.Units != "mm" {
+		return 1
+	}
+	if p.Analysis.MMPerPx > 0 {
+		return p.Analysis.MMPerPx
+	}
+	if s := p.Analysis.ScalePoints; s != nil {
+		return s.Distance / math.Hypot(s.B[0]-s.A[0], s.B[1]-s.A[1])
+	}
+	return 1
+}

@@ -1,0 +1,346 @@
+package series
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/kinematics"
+)
+
+// match is the correlation result at one point: the displacement and its
+// gradient there (from the subset shape function), ZNCC and predicted std.
+type match struct {
+	U, V, Ux, Uy, Vx, Vy float64
+	ZNCC                 float64
+	StdU, StdV           float64
+	OK                   bool
+}
+
+// guess is an initial guess of the displacement and its gradient at a
+// point; OK = false means "no guess, search".
+type guess struct {
+	U, V, Ux, Uy, Vx, Vy float64
+	OK                   bool
+}
+
+// correlator is the correlation step the tracker drives. The production
+// implementation sits on pkg/correlate; tests may use an exact one.
+type correlator interface {
+	// grid returns the lattice of material points in the reference image.
+	grid() lattice
+	// direct correlates the reference with def at every grid point
+	// (row-major), starting from the guesses.
+	direct(ctx context.Context, def *imageio.Gray, start []guess) ([]match, error)
+	// at correlates src with dst at the given points of src (any real
+	// coordinates), starting from the guesses; the match is evaluated at
+	// exactly those points.
+	at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float64, start []guess) ([]match, error)
+}
+
+// Frame is the result of one frame added to a Tracker.
+type Frame struct {
+	Summary Summary
+	// Grid is the reference grid of material points, px.
+	Grid kinematics.Grid
+	// Quantities are values on Grid, row-major: u and v (in the series'
+	// units, x − X), the names of kinematics.QuantityNames (F, strains,
+	// rotation, …), zncc, valid (1/0), and when time stamps allow, the
+	// Lagrangian velocity vel_u, vel_v (units/s), acceleration acc_u, acc_v
+	// (units/s²) at fixed X and the strain rates rate_E11, rate_E22,
+	// rate_E12 (1/s). Invalid points are NaN.
+	Quantities map[string][]float64
+	// Status per point: "ok" or the reason it has no value.
+	Status []string
+}
+
+// Tracker follows the material points of a reference grid through a
+// series of frames. It is not safe for concurrent use; Add frames in order.
+type Tracker struct {
+	ref  *imageio.Gray
+	prev *imageio.Gray
+	corr correlator
+	st   State
+}
+
+// ErrSize is returned by Add when a frame's size differs from the
+// reference image's.
+var ErrSize = errors.New("frame size differs from the reference image")
+
+// newTracker starts a series on ref with an explicit correlator.
+func newTracker(ref *imageio.Gray, meta FrameMeta, p Params, c correlator) (*Tracker, error) {
+	if ref == nil || ref.W < 1 || ref.H < 1 {
+		return nil, errors.New("series: reference image is empty")
+	}
+	p = p.withDefaults()
+	if err := p.Validate(ref.W, ref.H); err != nil {
+		return nil, fmt.Errorf("series parameters: %w", err)
+	}
+	g := c.grid()
+	n := g.Nx * g.Ny
+	if n == 0 {
+		return nil, errors.New("series: the region of interest holds no grid points; enlarge the ROI or reduce the step")
+	}
+	t := &Tracker{ref: ref, prev: ref, corr: c}
+	t.st = State{Version: stateVersion, Params: p, Grid: g, Points: make([]PointState, n)}
+	for j := range g.Ny {
+		for i := range g.Nx {
+			k := j*g.Nx + i
+			x, y := g.X0+float64(i)*g.Step, g.Y0+float64(j)*g.Step
+			t.st.Points[k] = PointState{X: x, Y: y, F: [4]float64{1, 0, 0, 1}, Valid: true, ZNCC: 1}
+		}
+	}
+	row := Summary{Index: 0, Name: meta.Name, Time: meta.Time, Load: meta.Load, Mode: ModeReference,
+		ValidFraction: 1, Tracked: 1, MeanZNCC: 1, Mean: map[string]float64{}}
+	row.Stress = t.stress(meta.Load)
+	for _, name := range MeanNames {
+		row.Mean[name] = 0
+	}
+	for _, e := range p.Extensometers {
+		L0 := math.Hypot(e.B[0]-e.A[0], e.B[1]-e.A[1])
+		row.Extensometers = append(row.Extensometers, ExtReading{Name: e.Name, L0: L0, L: L0, Stretch: 1, Valid: true})
+	}
+	for _, gg := range p.Gauges {
+		for _, c := range gg.components() {
+			v := 0.0
+			if c == "F11" || c == "F22" || c == "detF" {
+				v = 1
+			}
+			row.Gauges = append(row.Gauges, GaugeReading{Gauge: gg.Name, Component: c, Mean: v, Min: v, Max: v})
+		}
+	}
+	t.st.Curve = []Summary{row}
+	zero := make(nfloats, n)
+	t.st.History = []Snapshot{{Time: timeOr(meta.Time), HasTime: meta.Time != nil, U: zero, V: zero, E11: zero, E22: zero, E12: zero}}
+	return t, nil
+}
+
+func timeOr(t *float64) float64 {
+	if t == nil {
+		return 0
+	}
+	return *t
+}
+
+func (t *Tracker) stress(load *float64) *float64 {
+	if load == nil || !(t.st.Params.Area > 0) {
+		return nil
+	}
+	s := *load / t.st.Params.Area
+	return &s
+}
+
+// Params returns the tracker's parameters with defaults filled in.
+func (t *Tracker) Params() Params { return t.st.Params }
+
+// Len returns the number of frames added (the reference not counted).
+func (t *Tracker) Len() int { return len(t.st.Curve) - 1 }
+
+// Curve returns the curve so far: one Summary per frame, the reference
+// first. The slice is a copy.
+func (t *Tracker) Curve() Curve {
+	rows := append([]Summary(nil), t.st.Curve...)
+	return Curve{Rows: rows, Params: t.st.Params, Noise: t.NoiseFloor()}
+}
+
+// Add correlates the next frame, updates the tracked points and returns the
+// frame's results. A cancelled context returns its error and leaves the
+// tracker as it was, so the frame can be added again. Frames must have the
+// reference's size (ErrSize otherwise).
+func (t *Tracker) Add(ctx context.Context, img *imageio.Gray, meta FrameMeta) (*Frame, error) {
+	if img == nil || img.W != t.ref.W || img.H != t.ref.H {
+		w, h := 0, 0
+		if img != nil {
+			w, h = img.W, img.H
+		}
+		return nil, fmt.Errorf("frame %q is %d×%d px, reference %d×%d: %w", meta.Name, w, h, t.ref.W, t.ref.H, ErrSize)
+	}
+	if err := ctx.Err(); err != nil {
+		return nil, err
+	}
+	p := t.st.Params
+	index := len(t.st.Curve)
+	if meta.Time != nil {
+		last := t.st.History[len(t.st.History)-1]
+		if last.HasTime && !(*meta.Time > last.Time) {
+			return nil, fmt.Errorf("frame %q: time %g s is not after the previous frame's %g s; time stamps must increase", meta.Name, *meta.Time, last.Time)
+		}
+	}
+
+	var (
+		pts  []PointState
+		mode string
+		err  error
+	)
+	switched := t.st.Switched
+	switch {
+	case p.Incremental == IncrementalAlways:
+		mode = ModeIncremental
+		pts, err = t.incremental(ctx, img)
+	case p.Incremental == IncrementalAuto && switched:
+		mode = ModeIncremental
+		pts, err = t.incremental(ctx, img)
+	default:
+		mode = ModeDirect
+		pts, err = t.directStep(ctx, img)
+		if err == nil && p.Incremental == IncrementalAuto && index > 1 {
+			z, tracked := t.quality(pts)
+			if z < p.SwitchZNCC || tracked < p.SwitchValid {
+				mode, switched = ModeIncremental, true
+				pts, err = t.incremental(ctx, img)
+			}
+		}
+	}
+	if err != nil {
+		return nil, fmt.Errorf("frame %d %q (%s): %w", index, meta.Name, mode, err)
+	}
+
+	fr, snap, err := t.results(ctx, pts, meta, index, mode)
+	if err != nil {
+		return nil, fmt.Errorf("frame %d %q: %w", index, meta.Name, err)
+	}
+
+	// Commit only now, so a cancelled or failed frame leaves no trace.
+	if index == 1 {
+		t.st.FirstValid = countValid(pts)
+	}
+	fr.Summary.Tracked = t.trackedFraction(pts)
+	t.st.Points = pts
+	t.st.Switched = switched
+	t.st.History = append(t.st.History, snap)
+	if len(t.st.History) > 3 {
+		t.st.History = t.st.History[len(t.st.History)-3:]
+	}
+	if fr.Summary.Static {
+		t.st.Static = append(t.st.Static, staticStats(fr.Quantities))
+	}
+	t.st.Curve = append(t.st.Curve, fr.Summary)
+	t.prev = img
+	return fr, nil
+}
+
+func countValid(pts []PointState) int {
+	n := 0
+	for _, q := range pts {
+		if q.Valid {
+			n++
+		}
+	}
+	return n
+}
+
+func (t *Tracker) trackedFraction(pts []PointState) float64 {
+	first := t.st.FirstValid
+	if first == 0 {
+		first = countValid(pts)
+	}
+	if first == 0 {
+		return 0
+	}
+	return float64(countValid(pts)) / float64(first)
+}
+
+// quality returns the mean ZNCC over valid points and the tracked fraction.
+func (t *Tracker) quality(pts []PointState) (zncc, tracked float64) {
+	n := 0
+	for _, q := range pts {
+		if q.Valid {
+			zncc += q.ZNCC
+			n++
+		}
+	}
+	if n > 0 {
+		zncc /= float64(n)
+	}
+	return zncc, t.trackedFraction(pts)
+}
+
+// directStep correlates the reference with img, starting every point from
+// its previous solution.
+func (t *Tracker) directStep(ctx context.Context, img *imageio.Gray) ([]PointState, error) {
+	g := t.st.Grid
+	start := make([]guess, len(t.st.Points))
+	for k, q := range t.st.Points {
+		if q.Valid {
+			X, Y := g.pos(k)
+			start[k] = guess{U: q.X - X, V: q.Y - Y, Ux: q.F[0] - 1, Uy: q.F[1], Vx: q.F[2], Vy: q.F[3] - 1, OK: true}
+		}
+	}
+	ms, err := t.corr.direct(ctx, img, start)
+	if err != nil {
+		return nil, err
+	}
+	if len(ms) != len(start) {
+		return nil, fmt.Errorf("correlation returned %d points, want %d", len(ms), len(start))
+	}
+	out := make([]PointState, len(ms))
+	for k, m := range ms {
+		X, Y := g.pos(k)
+		out[k] = PointState{X: X + m.U, Y: Y + m.V, F: [4]float64{1 + m.Ux, m.Uy, m.Vx, 1 + m.Vy},
+			ZNCC: m.ZNCC, StdU: m.StdU, StdV: m.StdV, Valid: m.OK && finite(m.U, m.V, m.Ux, m.Uy, m.Vx, m.Vy)}
+	}
+	return out, nil
+}
+
+// incremental correlates the previous frame with img at the current
+// positions of the valid material points and composes the mappings there:
+// x_n = x_{n−1} + Δu(x_{n−1}), F_n = (I + ∇Δu)·F_{n−1}. Uncertainties add
+// in quadrature (the increments' errors are independent).
+func (t *Tracker) incremental(ctx context.Context, img *imageio.Gray) ([]PointState, error) {
+	var (
+		idx   []int
+		pts   [][2]float64
+		start []guess
+	)
+	h := t.st.History
+	for k, q := range t.st.Points {
+		if !q.Valid {
+			continue
+		}
+		idx = append(idx, k)
+		pts = append(pts, [2]float64{q.X, q.Y})
+		// Guess: the previous increment of this same material point.
+		gs := guess{OK: true}
+		if len(h) >= 2 {
+			a, b := h[len(h)-2], h[len(h)-1]
+			du, dv := b.U[k]-a.U[k], b.V[k]-a.V[k]
+			if finite(du, dv) {
+				gs.U, gs.V = du, dv
+			}
+		}
+		start = append(start, gs)
+	}
+	out := make([]PointState, len(t.st.Points))
+	for k, q := range t.st.Points {
+		out[k] = q
+		out[k].Valid = false
+	}
+	if len(idx) == 0 {
+		return out, nil
+	}
+	ms, err := t.corr.at(ctx, t.prev, img, pts, start)
+	if err != nil {
+		return nil, err
+	}
+	if len(ms) != len(idx) {
+		return nil, fmt.Errorf("correlation returned %d points, want %d", len(ms), len(idx))
+	}
+	for n, k := range idx {
+		m, q := ms[n], t.st.Points[k]
+		if !m.OK || !finite(m.U, m.V, m.Ux, m.Uy, m.Vx, m.Vy) {
+			out[k].ZNCC = m.ZNCC
+			continue
+		}
+		inc := kinematics.FromGradient(m.Ux, m.Uy, m.Vx, m.Vy)
+		F := inc.Mul(kinematics.Tensor{{q.F[0], q.F[1]}, {q.F[2], q.F[3]}})
+		out[k] = PointState{
+			X: q.X + m.U, Y: q.Y + m.V,
+			F:    [4]float64{F[0][0], F[0][1], F[1][0], F[1][1]},
+			ZNCC: m.ZNCC, StdU: math.Hypot(q.StdU, m.StdU), StdV: math.Hypot(q.StdV, m.StdV),
+			Valid: true,
+		}
+	}
+	return out, nil
+}
