@@ -88,6 +88,9 @@ const (
 	// Phase is scikit-image phase_cross_correlation with upsampling, a
 	// translation-only model (scripts/ref_skimage.py).
 	Phase Method = "phase"
+	// PhaseHann is Phase with a Hann window on both subsets
+	// (scripts/ref_skimage.py).
+	PhaseHann Method = "phase_hann"
 )
 
 // Script returns the driver file that implements m.
@@ -95,10 +98,10 @@ func (m Method) Script() (string, error) {
 	switch m {
 	case ECC, Template:
 		return "ref_opencv.py", nil
-	case Phase:
+	case Phase, PhaseHann:
 		return "ref_skimage.py", nil
 	}
-	return "", fmt.Errorf("reference method %q unknown; use %q, %q or %q", string(m), ECC, Template, Phase)
+	return "", fmt.Errorf("reference method %q unknown; use %q, %q, %q or %q", string(m), ECC, Template, Phase, PhaseHann)
 }
 
 // Label returns a short human name of the method and its library.
@@ -110,6 +113,8 @@ func (m Method) Label() string {
 		return "OpenCV matchTemplate"
 	case Phase:
 		return "skimage phase corr."
+	case PhaseHann:
+		return "skimage phase corr. + Hann"
 	}
 	return string(m)
 }
