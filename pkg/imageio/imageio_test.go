@@ -1,0 +1,313 @@
+package imageio
+
+import (
+	"bytes"
+	"encoding/binary"
+	"errors"
+	"hash/crc32"
+	"image"
+	"image/color"
+	"image/jpeg"
+	"image/png"
+	"math/rand/v2"
+	"os"
+	"path/filepath"
+	"testing"
+
+	"golang.org/x/image/bmp"
+	"golang.org/x/image/tiff"
+)
+
+func encodePNG(t *testing.T, m image.Image) []byte {
+	t.Helper()
+	var b bytes.Buffer
+	if err := png.Encode(&b, m); err != nil {
+		t.Fatal(err)
+	}
+	return b.Bytes()
+}
+
+// TestRamp16: a 16-bit ramp keeps all 65,536 levels through PNG and TIFF
+// (float32 represents every integer below 2²⁴ exactly, IEEE 754).
+func TestRamp16(t *testing.T) {
+	m := image.NewGray16(image.Rect(0, 0, 256, 256))
+	for i := 0; i < 65536; i++ {
+		m.SetGray16(i%256, i/256, color.Gray16{Y: uint16(i)})
+	}
+	var tb bytes.Buffer
+	if err := tiff.Encode(&tb, m, nil); err != nil {
+		t.Fatal(err)
+	}
+	for name, data := range map[string][]byte{"png": encodePNG(t, m), "tiff": tb.Bytes()} {
+		g, err := Decode(bytes.NewReader(data), Limits{})
+		if err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		if g.Bits != 16 {
+			t.Errorf("%s: Bits = %d, want 16", name, g.Bits)
+		}
+		seen := map[float32]bool{}
+		for i, v := range g.Pix {
+			if v != float32(i) {
+				t.Fatalf("%s: pixel %d = %g, want %d", name, i, v, i)
+			}
+			seen[v] = true
+		}
+		if len(seen) != 65536 {
+			t.Errorf("%s: %d distinct levels, want 65536", name, len(seen))
+		}
+	}
+}
+
+// TestColourLuma: colour converts with the ITU-R BT.601 luma weights
+// 0.299, 0.587, 0.114 (ITU-R BT.601-7, also JFIF 1.02), for 8- and 16-bit
+// PNG, and BMP.
+func TestColourLuma(t *testing.T) {
+	m8 := image.NewNRGBA(image.Rect(0, 0, 3, 1))
+	m8.Set(0, 0, color.NRGBA{255, 0, 0, 255})
+	m8.Set(1, 0, color.NRGBA{0, 255, 0, 255})
+	m8.Set(2, 0, color.NRGBA{10, 20, 200, 255})
+	want8 := []float64{0.299 * 255, 0.587 * 255, 0.299*10 + 0.587*20 + 0.114*200}
+	m16 := image.NewRGBA64(image.Rect(0, 0, 1, 1))
+	m16.Set(0, 0, color.RGBA64{1000, 60000, 30000, 65535})
+	want16 := []float64{0.299*1000 + 0.587*60000 + 0.114*30000}
+	var bb bytes.Buffer
+	if err := bmp.Encode(&bb, m8); err != nil {
+		t.Fatal(err)
+	}
+	for _, tc := range []struct {
+		name string
+		data []byte
+		want []float64
+		bits int
+	}{{"png8", encodePNG(t, m8), want8, 8}, {"png16", encodePNG(t, m16), want16, 16}, {"bmp", bb.Bytes(), want8, 8}} {
+		g, err := Decode(bytes.NewReader(tc.data), Limits{})
+		if err != nil {
+			t.Fatalf("%s: %v", tc.name, err)
+		}
+		if g.Bits != tc.bits {
+			t.Errorf("%s: Bits %d, want %d", tc.name, g.Bits, tc.bits)
+		}
+		for i, w := range tc.want {
+			if d := float64(g.Pix[i]) - w; d > 1e-3*w || d < -1e-3*w {
+				t.Errorf("%s pixel %d: %g, want %g", tc.name, i, g.Pix[i], w)
+			}
+		}
+	}
+}
+
+// TestJPEG: a grey JPEG decodes to its Y channel.
+func TestJPEG(t *testing.T) {
+	m := image.NewGray(image.Rect(0, 0, 16, 16))
+	for i := range m.Pix {
+		m.Pix[i] = 128
+	}
+	var b bytes.Buffer
+	if err := jpeg.Encode(&b, m, &jpeg.Options{Quality: 95}); err != nil {
+		t.Fatal(err)
+	}
+	g, err := Decode(&b, Limits{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if g.W != 16 || g.H != 16 || g.At(5, 5) < 126 || g.At(5, 5) > 130 {
+		t.Errorf("jpeg: %d×%d, pixel %g", g.W, g.H, g.At(5, 5))
+	}
+}
+
+// pngBomb returns a valid PNG signature and IHDR declaring w×h px, and no
+// image data.
+func pngBomb(w, h uint32) []byte {
+	var b bytes.Buffer
+	b.WriteString("\x89PNG\r\n\x1a\n")
+	ihdr := make([]byte, 13)
+	binary.BigEndian.PutUint32(ihdr[0:], w)
+	binary.BigEndian.PutUint32(ihdr[4:], h)
+	ihdr[8], ihdr[9] = 8, 0 // 8-bit greyscale
+	chunk := append([]byte("IHDR"), ihdr...)
+	binary.Write(&b, binary.BigEndian, uint32(13))
+	b.Write(chunk)
+	binary.Write(&b, binary.BigEndian, crc32.ChecksumIEEE(chunk))
+	return b.Bytes()
+}
+
+// tiffBomb returns a little-endian TIFF header with one IFD declaring w×h px.
+func tiffBomb(w, h uint32) []byte {
+	var b bytes.Buffer
+	le := binary.LittleEndian
+	b.WriteString("II*\x00")
+	binary.Write(&b, le, uint32(8))
+	entries := [][3]uint32{ // tag, type LONG = 4 or SHORT = 3, value
+		{256, 4, w}, {257, 4, h}, {258, 3, 8}, {259, 3, 1}, {262, 3, 1},
+		{273, 4, 200}, {277, 3, 1}, {278, 4, h}, {279, 4, w * h},
+	}
+	binary.Write(&b, le, uint16(len(entries)))
+	for _, e := range entries {
+		binary.Write(&b, le, uint16(e[0]))
+		binary.Write(&b, le, uint16(e[1]))
+		binary.Write(&b, le, uint32(1))
+		if e[1] == 3 {
+			binary.Write(&b, le, uint16(e[2]))
+			binary.Write(&b, le, uint16(0))
+		} else {
+			binary.Write(&b, le, e[2])
+		}
+	}
+	binary.Write(&b, le, uint32(0))
+	return b.Bytes()
+}
+
+// TestErrors: each kind of bad input gives its sentinel error, never a panic.
+func TestErrors(t *testing.T) {
+	good := encodePNG(t, image.NewGray(image.Rect(0, 0, 64, 64)))
+	for _, tc := range []struct {
+		name string
+		data []byte
+		lim  Limits
+		want error
+	}{
+		{"empty", nil, Limits{}, ErrFormat},
+		{"text", []byte("hello, this is not an image at all"), Limits{}, ErrFormat},
+		{"gif-like", []byte("GIF89a\x01\x00\x01\x00"), Limits{}, ErrFormat},
+		{"truncated png", good[:len(good)/2], Limits{}, ErrCorrupt},
+		{"header only", good[:20], Limits{}, ErrCorrupt},
+		{"png bomb", pngBomb(100000, 100000), Limits{}, ErrTooLarge},
+		{"tiff bomb", tiffBomb(100000, 100000), Limits{}, ErrTooLarge},
+		{"pixel limit", good, Limits{MaxPixels: 1000}, ErrTooLarge},
+		{"byte limit", good, Limits{MaxBytes: 30}, ErrTooLarge},
+	} {
+		_, err := Decode(bytes.NewReader(tc.data), tc.lim)
+		if !errors.Is(err, tc.want) {
+			t.Errorf("%s: error %v, want %v", tc.name, err, tc.want)
+		}
+	}
+	if _, err := ReadFile(filepath.Join(t.TempDir(), "missing.png"), Limits{}); !errors.Is(err, os.ErrNotExist) {
+		t.Errorf("missing file: %v", err)
+	}
+}
+
+// TestRoundTrip: PNG and TIFF at 8, 12 and 16 bits write and read back the
+// same integer levels; 12-bit levels are stored unscaled in 16-bit samples.
+func TestRoundTrip(t *testing.T) {
+	dir := t.TempDir()
+	for _, bits := range []int{8, 12, 16} {
+		max, _ := MaxLevel(bits)
+		g := NewGray(37, 23)
+		for i := range g.Pix {
+			g.Pix[i] = float32(float64(i*7919%int(max+1)) + 0.3)
+		}
+		g.Pix[0], g.Pix[1] = -5, float32(max+100) // clipped
+		for _, ext := range []string{".png", ".tif"} {
+			path := filepath.Join(dir, "img"+ext)
+			if err := WriteFile(path, g, bits); err != nil {
+				t.Fatal(err)
+			}
+			r, err := ReadFile(path, Limits{})
+			if err != nil {
+				t.Fatal(err)
+			}
+			if r.W != g.W || r.H != g.H {
+				t.Fatalf("%d-bit %s: size %d×%d", bits, ext, r.W, r.H)
+			}
+			for i, v := range r.Pix {
+				want := clipRound(float64(g.Pix[i]), max)
+				if float64(v) != want {
+					t.Fatalf("%d-bit %s pixel %d: %g, want %g", bits, ext, i, v, want)
+				}
+			}
+		}
+	}
+	if err := WriteFile(filepath.Join(dir, "x.jpg"), NewGray(2, 2), 8); !errors.Is(err, ErrFormat) {
+		t.Errorf("jpg output: %v, want ErrFormat", err)
+	}
+	if err := WriteFile(filepath.Join(dir, "x.png"), NewGray(2, 2), 10); !errors.Is(err, ErrBits) {
+		t.Errorf("10 bits: %v, want ErrBits", err)
+	}
+}
+
+func speckleLike(w, h int) *Gray {
+	g := NewGray(w, h)
+	for i := range g.Pix {
+		g.Pix[i] = float32((i*2654435761)%251) + 2
+	}
+	return g
+}
+
+func TestCheckPair(t *testing.T) {
+	flat := NewGray(64, 64)
+	for i := range flat.Pix {
+		flat.Pix[i] = 100
+	}
+	a, b := speckleLike(64, 64), speckleLike(64, 64)
+	for _, tc := range []struct {
+		name     string
+		ref, def *Gray
+		subset   int
+		want     []error
+	}{
+		{"ok", a, b, 31, nil},
+		{"size mismatch", a, speckleLike(63, 64), 31, []error{ErrSizeMismatch}},
+		{"too small", speckleLike(20, 64), speckleLike(20, 64), 31, []error{ErrTooSmall}},
+		{"zero contrast", a, flat, 31, []error{ErrNoContrast}},
+		{"nil", nil, b, 31, []error{ErrTooSmall}},
+		{"several", speckleLike(20, 20), flat, 31, []error{ErrTooSmall, ErrNoContrast, ErrSizeMismatch}},
+	} {
+		err := CheckPair(tc.ref, tc.def, tc.subset)
+		if tc.want == nil && err != nil {
+			t.Errorf("%s: %v", tc.name, err)
+		}
+		if tc.want != nil && err == nil {
+			t.Errorf("%s: no error", tc.name)
+		}
+		for _, w := range tc.want {
+			if !errors.Is(err, w) {
+				t.Errorf("%s: %v does not wrap %v", tc.name, err, w)
+			}
+		}
+	}
+}
+
+// TestAutocorrelation: the FFT autocorrelation equals the direct sum of
+// its definition, ρ(h) = C(h)/C(0) with C(h) the mean of (g(x) − ḡ)(g(x+h) − ḡ)
+// over the overlapping pixel pairs.
+func TestAutocorrelation(t *testing.T) {
+	rng := rand.New(rand.NewPCG(1, 1))
+	g := NewGray(41, 30)
+	for i := range g.Pix {
+		g.Pix[i] = float32(rng.NormFloat64()*20 + 100)
+	}
+	// Add some correlation along x so the lags are not all zero.
+	for y := 0; y < g.H; y++ {
+		for x := g.W - 1; x > 0; x-- {
+			g.Pix[y*g.W+x] += g.Pix[y*g.W+x-1]
+		}
+	}
+	mean, _, _, _ := Stats(g)
+	direct := func(hx, hy int) float64 {
+		var s float64
+		n := 0
+		for y := 0; y+hy < g.H; y++ {
+			for x := 0; x+hx < g.W; x++ {
+				s += (float64(g.At(x, y)) - mean) * (float64(g.At(x+hx, y+hy)) - mean)
+				n++
+			}
+		}
+		return s / float64(n)
+	}
+	ax, ay, err := Autocorrelation(g, 10)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c0 := direct(0, 0)
+	for h := 0; h <= 10; h++ {
+		if d := ax[h] - direct(h, 0)/c0; d > 1e-9 || d < -1e-9 {
+			t.Errorf("x lag %d: FFT %g, direct %g", h, ax[h], direct(h, 0)/c0)
+		}
+		if d := ay[h] - direct(0, h)/c0; d > 1e-9 || d < -1e-9 {
+			t.Errorf("y lag %d: FFT %g, direct %g", h, ay[h], direct(0, h)/c0)
+		}
+	}
+	if _, err := SpeckleSize(NewGray(64, 64)); !errors.Is(err, ErrNoContrast) {
+		t.Errorf("uniform image: %v", err)
+	}
+}
