@@ -1,0 +1,209 @@
+package field
+
+import (
+	"bufio"
+	"bytes"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"math"
+	"strconv"
+)
+
+// WriteJSON writes f as a self-describing JSON document (field.json):
+//
+//	{"format": "mottle-field", "version": 1, "params": {…},
+//	 "grid": {"nx", "ny", "step", "subset", "x": […], "y": […]},
+//	 "units": {name: unit}, "meta": {…},
+//	 "names": [quantity names in canonical order],
+//	 "descriptions": {name: text},
+//	 "quantities": {name: [one value per point, row-major]},
+//	 "status": [one string per point]}
+//
+// Invalid (NaN or infinite) values are written as null. Numbers use the
+// shortest representation that reads back to the same float64, so
+// [ReadJSON] recovers the field exactly. It returns an error if f does not
+// pass [Field.Validate].
+func WriteJSON(w io.Writer, f *Field) error {
+	if err := f.Validate(); err != nil {
+		return fmt.Errorf("field.json: %w", err)
+	}
+	bw := bufio.NewWriterSize(w, 1<<16)
+	names := f.Names()
+	put := func(key string, v any, last bool) error {
+		b, err := json.Marshal(v)
+		if err != nil {
+			return fmt.Errorf("field.json %s: %w", key, err)
+		}
+		fmt.Fprintf(bw, "  %q: ", key)
+		bw.Write(b)
+		if !last {
+			bw.WriteString(",")
+		}
+		bw.WriteString("\n")
+		return nil
+	}
+	bw.WriteString("{\n")
+	params := f.Params
+	if params == nil {
+		params = json.RawMessage("null")
+	}
+	units := map[string]string{}
+	desc := map[string]string{}
+	for _, n := range names {
+		if u, ok := f.Units[n]; ok {
+			units[n] = u
+		}
+		if d := Describe(n); d != "" {
+			desc[n] = d
+		}
+	}
+	var compact bytes.Buffer
+	if err := json.Compact(&compact, params); err != nil {
+		return fmt.Errorf("field.json params: %w", err)
+	}
+	for _, kv := range []struct {
+		k string
+		v any
+	}{
+		{"format", FormatName}, {"version", f.Version}, {"params", json.RawMessage(compact.Bytes())},
+		{"units", units}, {"meta", f.Meta}, {"names", names}, {"descriptions", desc},
+	} {
+		if err := put(kv.k, kv.v, false); err != nil {
+			return err
+		}
+	}
+	g := f.Grid
+	fmt.Fprintf(bw, "  \"grid\": {\"nx\": %d, \"ny\": %d, \"step\": %d, \"subset\": %d,\n    \"x\": ", g.Nx, g.Ny, g.Step, g.Subset)
+	writeFloats(bw, g.X)
+	bw.WriteString(",\n    \"y\": ")
+	writeFloats(bw, g.Y)
+	bw.WriteString("},\n  \"quantities\": {")
+	for k, n := range names {
+		if k > 0 {
+			bw.WriteString(",")
+		}
+		fmt.Fprintf(bw, "\n    %q: ", n)
+		writeFloats(bw, f.Quantities[n])
+	}
+	bw.WriteString("\n  },\n")
+	status := f.Status
+	if status == nil {
+		status = []string{}
+	}
+	if err := put("status", status, true); err != nil {
+		return err
+	}
+	bw.WriteString("}\n")
+	if err := bw.Flush(); err != nil {
+		return fmt.Errorf("field.json: %w", err)
+	}
+	return nil
+}
+
+func writeFloats(w *bufio.Writer, x []float64) {
+	var buf []byte
+	w.WriteByte('[')
+	for k, a := range x {
+		if k > 0 {
+			w.WriteByte(',')
+		}
+		if !finite(a) {
+			w.WriteString("null")
+			continue
+		}
+		buf = strconv.AppendFloat(buf[:0], a, 'g', -1, 64)
+		w.Write(buf)
+	}
+	w.WriteByte(']')
+}
+
+// nullFloats is a JSON array of numbers in which null stands for NaN.
+type nullFloats []float64
+
+// UnmarshalJSON parses an array of numbers and nulls.
+func (n *nullFloats) UnmarshalJSON(b []byte) error {
+	b = bytes.TrimSpace(b)
+	if bytes.Equal(b, []byte("null")) {
+		*n = nil
+		return nil
+	}
+	if len(b) < 2 || b[0] != '[' || b[len(b)-1] != ']' {
+		return errors.New("want an array of numbers")
+	}
+	body := bytes.TrimSpace(b[1 : len(b)-1])
+	out := make([]float64, 0, bytes.Count(body, []byte(","))+1)
+	if len(body) == 0 {
+		*n = out
+		return nil
+	}
+	for k, tok := range bytes.Split(body, []byte(",")) {
+		tok = bytes.TrimSpace(tok)
+		if bytes.Equal(tok, []byte("null")) {
+			out = append(out, math.NaN())
+			continue
+		}
+		x, err := strconv.ParseFloat(string(tok), 64)
+		if err != nil {
+			return fmt.Errorf("element %d: %q is not a number or null", k, tok)
+		}
+		out = append(out, x)
+	}
+	*n = out
+	return nil
+}
+
+type jsonField struct {
+	Format  string          `json:"format"`
+	Version int             `json:"version"`
+	Params  json.RawMessage `json:"params"`
+	Grid    struct {
+		Nx     int        `json:"nx"`
+		Ny     int        `json:"ny"`
+		Step   int        `json:"step"`
+		Subset int        `json:"subset"`
+		X      nullFloats `json:"x"`
+		Y      nullFloats `json:"y"`
+	} `json:"grid"`
+	Units      map[string]string     `json:"units"`
+	Meta       Meta                  `json:"meta"`
+	Quantities map[string]nullFloats `json:"quantities"`
+	Status     []string              `json:"status"`
+}
+
+// ReadJSON reads a field written by [WriteJSON]; null values become NaN.
+// It returns an error for a document of another format or a newer version,
+// and for a field that fails [Field.Validate].
+func ReadJSON(r io.Reader) (*Field, error) {
+	var j jsonField
+	dec := json.NewDecoder(r)
+	if err := dec.Decode(&j); err != nil {
+		return nil, fmt.Errorf("field.json: %w", err)
+	}
+	if j.Format != FormatName {
+		return nil, fmt.Errorf("field.json: format %q, want %q", j.Format, FormatName)
+	}
+	if j.Version < 1 || j.Version > Version {
+		return nil, fmt.Errorf("field.json: version %d, this program reads versions 1 to %d", j.Version, Version)
+	}
+	f := &Field{
+		Version: j.Version,
+		Grid:    Grid{Nx: j.Grid.Nx, Ny: j.Grid.Ny, Step: j.Grid.Step, Subset: j.Grid.Subset, X: j.Grid.X, Y: j.Grid.Y},
+		Units:   j.Units, Meta: j.Meta, Status: j.Status,
+		Quantities: make(map[string][]float64, len(j.Quantities)),
+	}
+	if f.Units == nil {
+		f.Units = map[string]string{}
+	}
+	if len(j.Params) > 0 && !bytes.Equal(j.Params, []byte("null")) {
+		f.Params = j.Params
+	}
+	for n, q := range j.Quantities {
+		f.Quantities[n] = q
+	}
+	if err := f.Validate(); err != nil {
+		return nil, fmt.Errorf("field.json: %w", err)
+	}
+	return f, nil
+}
