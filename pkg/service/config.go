@@ -1,0 +1,127 @@
+package service
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"io/fs"
+	"log/slog"
+	"runtime"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+// Config configures a Server. Zero fields take the documented defaults.
+type Config struct {
+	// Backend keeps jobs; required (see package embedded for the default).
+	Backend *jobs.Backend
+	// Analyzer computes analyses; required (Pipeline for the real one).
+	Analyzer Analyzer
+	// Logger receives JSON logs; default slog to stderr.
+	Logger *slog.Logger
+
+	// Workers is the number of jobs computed at once; default the number
+	// of CPUs.
+	Workers int
+	// JobThreads is the thread count each job uses; default 1, so that
+	// Workers jobs keep the cores busy without oversubscribing them.
+	// Results never depend on it.
+	JobThreads int
+	// MaxAttempts is how many times a job is started before it is failed
+	// (a job that crashes the process is not retried for ever); default 3.
+	MaxAttempts int
+
+	// MaxBodyBytes limits a request body; default 256 MiB.
+	MaxBodyBytes int64
+	// MaxPixels limits each image, checked from its header before
+	// decoding; default 64 Mpx.
+	MaxPixels int64
+	// MaxPoints limits the grid points of one job (about W·H/step²);
+	// default 1 000 000.
+	MaxPoints int
+
+	// ReadHeaderTimeout, ReadTimeout, WriteTimeout and IdleTimeout are
+	// those of http.Server; defaults 10 s, 2 min, 2 min, 2 min. Event
+	// streams and ?wait=true requests lift the write deadline for as
+	// long as they need (waits are bounded by JobTimeout).
+	ReadHeaderTimeout, ReadTimeout, WriteTimeout, IdleTimeout time.Duration
+	// JobTimeout bounds the compute time of one job; default 30 min.
+	JobTimeout time.Duration
+	// ShutdownGrace is how long running jobs may go on after shutdown
+	// begins before they are stopped and put back in the queue; default 30 s.
+	ShutdownGrace time.Duration
+	// Retention removes finished analyses, and series not updated, after
+	// this long; 0 keeps everything.
+	Retention time.Duration
+
+	// Tokens, when not empty, are the bearer tokens accepted on every
+	// route except /healthz, /readyz and the browser page's static files.
+	Tokens []string
+	// CORSOrigins lists the origins allowed to call the API from a
+	// browser ("*" for any); empty sends no CORS headers.
+	CORSOrigins []string
+	// UI, if not nil, is served at / (the browser preview's files, with
+	// index.html at the root).
+	UI fs.FS
+	// Demo, if not nil, renders the built-in demo pair for POST /v1/demo,
+	// with the parameters to analyse it.
+	Demo func(ctx context.Context) (ref, def *imageio.Gray, p analysis.Params, err error)
+}
+
+func (c *Config) defaults() {
+	if c.Logger == nil {
+		c.Logger = slog.Default()
+	}
+	if c.Workers <= 0 {
+		c.Workers = runtime.NumCPU()
+	}
+	if c.JobThreads <= 0 {
+		c.JobThreads = 1
+	}
+	if c.MaxAttempts <= 0 {
+		c.MaxAttempts = 3
+	}
+	if c.MaxBodyBytes <= 0 {
+		c.MaxBodyBytes = 256 << 20
+	}
+	if c.MaxPixels <= 0 {
+		c.MaxPixels = imageio.DefaultMaxPixels
+	}
+	if c.MaxPoints <= 0 {
+		c.MaxPoints = 1_000_000
+	}
+	def := func(d *time.Duration, v time.Duration) {
+		if *d <= 0 {
+			*d = v
+		}
+	}
+	def(&c.ReadHeaderTimeout, 10*time.Second)
+	def(&c.ReadTimeout, 2*time.Minute)
+	def(&c.WriteTimeout, 2*time.Minute)
+	def(&c.IdleTimeout, 2*time.Minute)
+	def(&c.JobTimeout, 30*time.Minute)
+	def(&c.ShutdownGrace, 30*time.Second)
+}
+
+// Validate reports every problem with the configuration at once.
+func (c *Config) Validate() error {
+	var errs []error
+	if c.Backend == nil || c.Backend.Store == nil || c.Backend.Blobs == nil || c.Backend.Queue == nil {
+		errs = append(errs, errors.New("config: Backend with Store, Blobs and Queue is required"))
+	}
+	if c.Analyzer == nil {
+		errs = append(errs, errors.New("config: Analyzer is required"))
+	}
+	if c.Retention < 0 {
+		errs = append(errs, fmt.Errorf("config: Retention is %v; use 0 (keep everything) or a positive duration", c.Retention))
+	}
+	for i, t := range c.Tokens {
+		if len(t) < 16 {
+			errs = append(errs, fmt.Errorf("config: token %d is %d characters; use at least 16 random characters", i+1, len(t)))
+		}
+	}
+	return errors.Join(errs...)
+}

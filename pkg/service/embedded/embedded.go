@@ -1,0 +1,63 @@
+package embedded
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"os"
+	"path/filepath"
+
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+// Open opens the embedded backend in dataDir (created if needed) with a
+// queue of the given capacity. Its Recover re-enqueues every job whose
+// record is queued or running (a running record means the process that ran
+// it stopped before finishing), oldest first.
+func Open(dataDir string, queueCap int) (*jobs.Backend, error) {
+	if err := os.MkdirAll(dataDir, 0o750); err != nil {
+		return nil, fmt.Errorf("data directory %s: %w", dataDir, err)
+	}
+	st, err := OpenStore(filepath.Join(dataDir, "mottle.db"))
+	if err != nil {
+		return nil, err
+	}
+	bl, err := OpenBlobs(filepath.Join(dataDir, "blobs"))
+	if err != nil {
+		st.Close()
+		return nil, err
+	}
+	q := NewQueue(queueCap)
+	return &jobs.Backend{
+		Store:   st,
+		Blobs:   bl,
+		Queue:   q,
+		Recover: func(ctx context.Context) (int, error) { return recoverJobs(ctx, st, q) },
+		Close:   st.Close,
+	}, nil
+}
+
+func recoverJobs(ctx context.Context, st *Store, q *Queue) (int, error) {
+	list, err := st.Jobs(ctx, jobs.Filter{States: []jobs.State{jobs.Queued, jobs.Running}})
+	if err != nil {
+		return 0, fmt.Errorf("recover jobs: %w", err)
+	}
+	var errs []error
+	n := 0
+	for _, j := range list {
+		if j.State == jobs.Running {
+			_, err := st.UpdateJob(ctx, j.ID, func(j *jobs.Job) error {
+				j.State = jobs.Queued
+				j.Progress = jobs.Progress{}
+				return nil
+			})
+			if err != nil {
+				errs = append(errs, err)
+				continue
+			}
+		}
+		q.push(j.ID)
+		n++
+	}
+	return n, errors.Join(errs...)
+}

@@ -1,0 +1,396 @@
+// Package embedded is the default backend of the Mottle service: job and
+// series records in a bbolt database, images and results as files, and an
+// in-memory queue that is rebuilt from the records when the service starts,
+// so an accepted job survives a crash or a restart.
+//
+// Layout of the data directory:
+//
+//	mottle.db     bbolt database: buckets "jobs" and "series", JSON records
+//	blobs/...     one file per blob key, written to a temporary file and renamed
+package embedded
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"sort"
+	"sync"
+	"time"
+
+	bolt "go.etcd.io/bbolt"
+
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+var (
+	bucketJobs   = []byte("jobs")
+	bucketSeries = []byte("series")
+)
+
+// Store is a jobs.Store on a bbolt database. Progress is kept in memory
+// only (it changes often and is worthless after a crash); everything else is
+// committed, and fsynced, before a method returns.
+type Store struct {
+	db *bolt.DB
+
+	mu       sync.Mutex
+	progress map[string]jobs.Progress
+	subs     map[string]map[*sub]struct{}
+	closed   bool
+}
+
+// sub is one Watch subscriber.
+type sub struct {
+	ch chan *jobs.Job
+}
+
+// OpenStore opens (creating if needed) the bbolt database at path. It fails
+// after one second if another process holds the database.
+func OpenStore(path string) (*Store, error) {
+	db, err := bolt.Open(path, 0o600, &bolt.Options{Timeout: time.Second})
+	if err != nil {
+		return nil, fmt.Errorf("open job database %s: %w (is another mottle serve using this data directory?)", path, err)
+	}
+	err = db.Update(func(tx *bolt.Tx) error {
+		for _, b := range [][]byte{bucketJobs, bucketSeries} {
+			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
+				return err
+			}
+		}
+		return nil
+	})
+	if err != nil {
+		db.Close()
+		return nil, fmt.Errorf("initialise job database %s: %w", path, err)
+	}
+	return &Store{db: db, progress: map[string]jobs.Progress{}, subs: map[string]map[*sub]struct{}{}}, nil
+}
+
+// Close closes the database and ends every watch.
+func (s *Store) Close() error {
+	s.mu.Lock()
+	s.closed = true
+	s.mu.Unlock()
+	return s.db.Close()
+}
+
+func (s *Store) create(bucket []byte, id string, v any) error {
+	data, err := json.Marshal(v)
+	if err != nil {
+		return err
+	}
+	return s.db.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bucket)
+		if b.Get([]byte(id)) != nil {
+			return fmt.Errorf("%s %s: %w", bucket, id, jobs.ErrExists)
+		}
+		return b.Put([]byte(id), data)
+	})
+}
+
+func (s *Store) get(bucket []byte, id string, v any) error {
+	return s.db.View(func(tx *bolt.Tx) error {
+		data := tx.Bucket(bucket).Get([]byte(id))
+		if data == nil {
+			return fmt.Errorf("%s %s: %w", bucket, id, jobs.ErrNotFound)
+		}
+		return json.Unmarshal(data, v)
+	})
+}
+
+func (s *Store) del(bucket []byte, id string) error {
+	return s.db.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bucket)
+		if b.Get([]byte(id)) == nil {
+			return fmt.Errorf("%s %s: %w", bucket, id, jobs.ErrNotFound)
+		}
+		return b.Delete([]byte(id))
+	})
+}
+
+// CreateJob implements jobs.Store.
+func (s *Store) CreateJob(ctx context.Context, j *jobs.Job) error {
+	if err := jobs.CheckID("job", j.ID); err != nil {
+		return err
+	}
+	if err := s.create(bucketJobs, j.ID, j); err != nil {
+		return err
+	}
+	s.publish(j)
+	return nil
+}
+
+// Job implements jobs.Store.
+func (s *Store) Job(ctx context.Context, id string) (*jobs.Job, error) {
+	var j jobs.Job
+	if err := s.get(bucketJobs, id, &j); err != nil {
+		return nil, err
+	}
+	s.overlay(&j)
+	return &j, nil
+}
+
+// overlay adds the in-memory progress of a running job.
+func (s *Store) overlay(j *jobs.Job) {
+	if j.State != jobs.Running {
+		return
+	}
+	s.mu.Lock()
+	if p, ok := s.progress[j.ID]; ok {
+		j.Progress = p
+	}
+	s.mu.Unlock()
+}
+
+// UpdateJob implements jobs.Store.
+func (s *Store) UpdateJob(ctx context.Context, id string, fn func(*jobs.Job) error) (*jobs.Job, error) {
+	var j jobs.Job
+	err := s.db.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bucketJobs)
+		data := b.Get([]byte(id))
+		if data == nil {
+			return fmt.Errorf("job %s: %w", id, jobs.ErrNotFound)
+		}
+		if err := json.Unmarshal(data, &j); err != nil {
+			return fmt.Errorf("job %s: corrupt record: %w", id, err)
+		}
+		s.overlay(&j)
+		if err := fn(&j); err != nil {
+			return err
+		}
+		if j.ID != id {
+			return fmt.Errorf("job %s: update changed the id to %s", id, j.ID)
+		}
+		out, err := json.Marshal(&j)
+		if err != nil {
+			return err
+		}
+		return b.Put([]byte(id), out)
+	})
+	if err != nil {
+		return nil, err
+	}
+	if j.State != jobs.Running {
+		s.mu.Lock()
+		delete(s.progress, id)
+		s.mu.Unlock()
+	}
+	s.publish(&j)
+	return &j, nil
+}
+
+// SetProgress implements jobs.Store; progress is kept in memory.
+func (s *Store) SetProgress(ctx context.Context, id string, p jobs.Progress) error {
+	var j jobs.Job
+	if err := s.get(bucketJobs, id, &j); err != nil {
+		return err
+	}
+	if j.State != jobs.Running {
+		return nil
+	}
+	s.mu.Lock()
+	s.progress[id] = p
+	s.mu.Unlock()
+	j.Progress = p
+	s.publish(&j)
+	return nil
+}
+
+// DeleteJob implements jobs.Store.
+func (s *Store) DeleteJob(ctx context.Context, id string) error {
+	if err := s.del(bucketJobs, id); err != nil {
+		return err
+	}
+	s.mu.Lock()
+	delete(s.progress, id)
+	s.mu.Unlock()
+	return nil
+}
+
+// Jobs implements jobs.Store.
+func (s *Store) Jobs(ctx context.Context, f jobs.Filter) ([]*jobs.Job, error) {
+	var out []*jobs.Job
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return tx.Bucket(bucketJobs).ForEach(func(k, v []byte) error {
+			var j jobs.Job
+			if err := json.Unmarshal(v, &j); err != nil {
+				return fmt.Errorf("job %s: corrupt record: %w", k, err)
+			}
+			if f.Match(&j) {
+				out = append(out, &j)
+			}
+			return nil
+		})
+	})
+	if err != nil {
+		return nil, err
+	}
+	sort.SliceStable(out, func(a, b int) bool {
+		if !out[a].Created.Equal(out[b].Created) {
+			return out[a].Created.Before(out[b].Created)
+		}
+		return out[a].ID < out[b].ID
+	})
+	if f.Limit > 0 && len(out) > f.Limit {
+		out = out[:f.Limit]
+	}
+	for _, j := range out {
+		s.overlay(j)
+	}
+	return out, nil
+}
+
+// Counts implements jobs.Store.
+func (s *Store) Counts(ctx context.Context) (map[jobs.State]int, error) {
+	counts := map[jobs.State]int{}
+	for _, st := range jobs.States() {
+		counts[st] = 0
+	}
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return tx.Bucket(bucketJobs).ForEach(func(k, v []byte) error {
+			var j struct {
+				State jobs.State `json:"state"`
+			}
+			if err := json.Unmarshal(v, &j); err != nil {
+				return fmt.Errorf("job %s: corrupt record: %w", k, err)
+			}
+			counts[j.State]++
+			return nil
+		})
+	})
+	return counts, err
+}
+
+// CreateSeries implements jobs.Store.
+func (s *Store) CreateSeries(ctx context.Context, sr *jobs.Series) error {
+	if err := jobs.CheckID("series", sr.ID); err != nil {
+		return err
+	}
+	return s.create(bucketSeries, sr.ID, sr)
+}
+
+// Series implements jobs.Store.
+func (s *Store) Series(ctx context.Context, id string) (*jobs.Series, error) {
+	var sr jobs.Series
+	if err := s.get(bucketSeries, id, &sr); err != nil {
+		return nil, err
+	}
+	return &sr, nil
+}
+
+// UpdateSeries implements jobs.Store.
+func (s *Store) UpdateSeries(ctx context.Context, id string, fn func(*jobs.Series) error) (*jobs.Series, error) {
+	var sr jobs.Series
+	err := s.db.Update(func(tx *bolt.Tx) error {
+		b := tx.Bucket(bucketSeries)
+		data := b.Get([]byte(id))
+		if data == nil {
+			return fmt.Errorf("series %s: %w", id, jobs.ErrNotFound)
+		}
+		if err := json.Unmarshal(data, &sr); err != nil {
+			return fmt.Errorf("series %s: corrupt record: %w", id, err)
+		}
+		if err := fn(&sr); err != nil {
+			return err
+		}
+		if sr.ID != id {
+			return fmt.Errorf("series %s: update changed the id to %s", id, sr.ID)
+		}
+		out, err := json.Marshal(&sr)
+		if err != nil {
+			return err
+		}
+		return b.Put([]byte(id), out)
+	})
+	if err != nil {
+		return nil, err
+	}
+	return &sr, nil
+}
+
+// DeleteSeries implements jobs.Store.
+func (s *Store) DeleteSeries(ctx context.Context, id string) error {
+	return s.del(bucketSeries, id)
+}
+
+// AllSeries implements jobs.Store.
+func (s *Store) AllSeries(ctx context.Context) ([]*jobs.Series, error) {
+	var out []*jobs.Series
+	err := s.db.View(func(tx *bolt.Tx) error {
+		return tx.Bucket(bucketSeries).ForEach(func(k, v []byte) error {
+			var sr jobs.Series
+			if err := json.Unmarshal(v, &sr); err != nil {
+				return fmt.Errorf("series %s: corrupt record: %w", k, err)
+			}
+			out = append(out, &sr)
+			return nil
+		})
+	})
+	sort.SliceStable(out, func(a, b int) bool { return out[a].Created.Before(out[b].Created) })
+	return out, err
+}
+
+// Watch implements jobs.Store.
+func (s *Store) Watch(ctx context.Context, topic string) (<-chan *jobs.Job, error) {
+	var first *jobs.Job
+	if j, err := s.Job(ctx, topic); err == nil {
+		first = j
+	} else if !errors.Is(err, jobs.ErrNotFound) {
+		return nil, err
+	} else if _, err := s.Series(ctx, topic); err != nil {
+		return nil, fmt.Errorf("watch %s: %w", topic, jobs.ErrNotFound)
+	}
+	sb := &sub{ch: make(chan *jobs.Job, 16)}
+	s.mu.Lock()
+	if s.closed {
+		s.mu.Unlock()
+		return nil, jobs.ErrClosed
+	}
+	if s.subs[topic] == nil {
+		s.subs[topic] = map[*sub]struct{}{}
+	}
+	s.subs[topic][sb] = struct{}{}
+	if first != nil {
+		sb.ch <- first
+	}
+	s.mu.Unlock()
+	go func() {
+		<-ctx.Done()
+		s.mu.Lock()
+		delete(s.subs[topic], sb)
+		if len(s.subs[topic]) == 0 {
+			delete(s.subs, topic)
+		}
+		close(sb.ch)
+		s.mu.Unlock()
+	}()
+	return sb.ch, nil
+}
+
+// publish sends a copy of j to the watchers of its id and of its series.
+func (s *Store) publish(j *jobs.Job) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	for _, topic := range []string{j.ID, j.Series} {
+		if topic == "" {
+			continue
+		}
+		for sb := range s.subs[topic] {
+			c := *j
+			for {
+				select {
+				case sb.ch <- &c:
+				default:
+					// Full: drop the oldest so the latest always arrives.
+					select {
+					case <-sb.ch:
+					default:
+					}
+					continue
+				}
+				break
+			}
+		}
+	}
+}

@@ -1,0 +1,289 @@
+package service_test
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"image"
+	"image/color"
+	"image/png"
+	"io"
+	"log/slog"
+	"math"
+	"math/rand/v2"
+	"mime/multipart"
+	"net/http"
+	"net/http/httptest"
+	"net/textproto"
+	"sync/atomic"
+	"testing"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/service"
+	"github.com/mottledic/mottle/pkg/service/embedded"
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+// speckle renders a w×h 8-bit speckle pattern of Gaussian dots translated
+// by (dx, dy): pixel (x, y) shows the pattern point (x − dx, y − dy), so
+// the true displacement is u = dx, v = dy exactly (invented test data).
+func speckle(w, h int, dx, dy float64, seed uint64) *image.Gray {
+	r := rand.New(rand.NewPCG(seed, 7))
+	type dot struct{ x, y, s float64 }
+	dots := make([]dot, w*h/12)
+	for i := range dots {
+		dots[i] = dot{r.Float64()*float64(w+20) - 10, r.Float64()*float64(h+20) - 10, 1.2 + r.Float64()}
+	}
+	img := image.NewGray(image.Rect(0, 0, w, h))
+	for y := 0; y < h; y++ {
+		for x := 0; x < w; x++ {
+			X, Y := float64(x)-dx, float64(y)-dy
+			v := 0.0
+			for _, d := range dots {
+				ddx, ddy := X-d.x, Y-d.y
+				if ddx*ddx+ddy*ddy < 25 {
+					v += math.Exp(-(ddx*ddx + ddy*ddy) / (2 * d.s * d.s))
+				}
+			}
+			img.SetGray(x, y, color.Gray{uint8(math.Min(255, 30+180*v))})
+		}
+	}
+	return img
+}
+
+func encodePNG(t testing.TB, img image.Image) []byte {
+	var b bytes.Buffer
+	if err := png.Encode(&b, img); err != nil {
+		t.Fatal(err)
+	}
+	return b.Bytes()
+}
+
+// pair returns PNG bytes of a reference and a deformed image shifted by (dx, dy).
+func pair(t testing.TB, w, h, dx, dy int, seed uint64) (ref, def []byte) {
+	return encodePNG(t, speckle(w, h, 0, 0, seed)), encodePNG(t, speckle(w, h, float64(dx), float64(dy), seed))
+}
+
+// fakeAnalyzer measures the integer translation between the images by an
+// exhaustive search of the sum of squared differences over ±4 px in the
+// central region: a real, checkable computation, cheap enough for many jobs.
+type fakeAnalyzer struct {
+	delay time.Duration // sleep per job, honouring the context
+	runs  atomic.Int64
+}
+
+func (f *fakeAnalyzer) Run(ctx context.Context, in service.Input, progress func(done, total int)) (*service.Result, error) {
+	f.runs.Add(1)
+	const R = 4
+	steps := 10
+	for i := 0; i < steps; i++ {
+		select {
+		case <-ctx.Done():
+			return nil, ctx.Err()
+		case <-time.After(f.delay / time.Duration(steps)):
+		}
+		progress(i, steps)
+	}
+	best, bu, bv := math.Inf(1), 0, 0
+	for v := -R; v <= R; v++ {
+		for u := -R; u <= R; u++ {
+			ssd := 0.0
+			for y := R; y < in.Ref.H-R; y++ {
+				for x := R; x < in.Ref.W-R; x++ {
+					d := float64(in.Def.At(x+u, y+v) - in.Ref.At(x, y))
+					ssd += d * d
+				}
+			}
+			if ssd < best {
+				best, bu, bv = ssd, u, v
+			}
+		}
+	}
+	progress(steps, steps)
+	field, _ := json.Marshal(map[string]any{"u": bu, "v": bv, "subset": in.Params.Subset})
+	return &service.Result{
+		Files: map[string][]byte{
+			"field.json":     field,
+			"field.csv":      []byte(fmt.Sprintf("x,y,u,v\n0,0,%d,%d\n", bu, bv)),
+			"field.vts":      []byte("<VTKFile/>"),
+			"field.npz":      []byte("PK"),
+			"arrays/u.npy":   []byte("\x93NUMPY"),
+			"arrays/E11.npy": []byte("\x93NUMPY"),
+		},
+		Summary: jobs.Summary{Points: 1, Valid: 1, ValidFraction: 1, Mean: map[string]float64{"u": float64(bu), "v": float64(bv)}},
+	}, nil
+}
+
+func (f *fakeAnalyzer) Map(ctx context.Context, open func(string) (io.ReadCloser, error), req service.MapRequest, bg *imageio.Gray) ([]byte, error) {
+	if req.Quantity != "u" && req.Quantity != "E11" {
+		return nil, &service.FieldError{Field: "quantity", Detail: "unknown quantity " + req.Quantity, Status: http.StatusBadRequest}
+	}
+	rc, err := open("field.json")
+	if err != nil {
+		return nil, err
+	}
+	rc.Close()
+	img := image.NewGray(image.Rect(0, 0, bg.W, bg.H))
+	for i := range img.Pix {
+		img.Pix[i] = uint8(bg.Pix[i])
+	}
+	var b bytes.Buffer
+	png.Encode(&b, img)
+	return b.Bytes(), nil
+}
+
+type testServer struct {
+	*httptest.Server
+	srv   *service.Server
+	fake  *fakeAnalyzer
+	token string
+	stop  func()
+}
+
+// newServer starts a service on the embedded backend in a temporary
+// directory, on 127.0.0.1, with the options changed by mod.
+func newServer(t testing.TB, mod func(*service.Config)) *testServer {
+	t.Helper()
+	be, err := embedded.Open(t.TempDir(), 64)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fake := &fakeAnalyzer{}
+	cfg := service.Config{Backend: be, Analyzer: fake, Workers: 2,
+		Logger: slog.New(slog.NewJSONHandler(io.Discard, nil)), ShutdownGrace: 5 * time.Second}
+	if mod != nil {
+		mod(&cfg)
+	}
+	s, err := service.New(cfg)
+	if err != nil {
+		t.Fatal(err)
+	}
+	stop, err := s.Start(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	ts := httptest.NewServer(s.Handler())
+	t.Cleanup(func() {
+		ts.Close()
+		stop()
+		be.Close()
+	})
+	tok := ""
+	if len(cfg.Tokens) > 0 {
+		tok = cfg.Tokens[0]
+	}
+	return &testServer{Server: ts, srv: s, fake: fake, token: tok, stop: stop}
+}
+
+// part is one multipart part.
+type part struct {
+	name, filename, ctype string
+	data                  []byte
+}
+
+func multipartBody(t testing.TB, parts ...part) (string, []byte) {
+	var b bytes.Buffer
+	mw := multipart.NewWriter(&b)
+	for _, p := range parts {
+		h := textproto.MIMEHeader{}
+		cd := fmt.Sprintf(`form-data; name=%q`, p.name)
+		if p.filename != "" {
+			cd += fmt.Sprintf(`; filename=%q`, p.filename)
+		}
+		h.Set("Content-Disposition", cd)
+		if p.ctype != "" {
+			h.Set("Content-Type", p.ctype)
+		}
+		w, err := mw.CreatePart(h)
+		if err != nil {
+			t.Fatal(err)
+		}
+		w.Write(p.data)
+	}
+	mw.Close()
+	return mw.FormDataContentType(), b.Bytes()
+}
+
+func analysisParts(ref, def []byte, params string) []part {
+	ps := []part{{"reference", "ref.png", "image/png", ref}, {"deformed", "def.png", "image/png", def}}
+	if params != "" {
+		ps = append(ps, part{"params", "", "application/json", []byte(params)})
+	}
+	return ps
+}
+
+// do sends a request and returns the response with its body read.
+func (ts *testServer) do(t testing.TB, method, path, ctype string, body []byte) (*http.Response, []byte) {
+	t.Helper()
+	req, err := http.NewRequest(method, ts.URL+path, bytes.NewReader(body))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if ctype != "" {
+		req.Header.Set("Content-Type", ctype)
+	}
+	if ts.token != "" {
+		req.Header.Set("Authorization", "Bearer "+ts.token)
+	}
+	resp, err := ts.Client().Do(req)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer resp.Body.Close()
+	b, err := io.ReadAll(resp.Body)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return resp, b
+}
+
+type jobDoc struct {
+	ID       string            `json:"id"`
+	State    string            `json:"state"`
+	Frame    int               `json:"frame"`
+	Summary  *jobs.Summary     `json:"summary"`
+	Error    *jobs.Failure     `json:"error"`
+	Links    map[string]string `json:"links"`
+	Field    json.RawMessage   `json:"field"`
+	Progress jobs.Progress     `json:"progress"`
+}
+
+func decodeJSON[T any](t testing.TB, b []byte) T {
+	t.Helper()
+	var v T
+	if err := json.Unmarshal(b, &v); err != nil {
+		t.Fatalf("decode %s: %v", b, err)
+	}
+	return v
+}
+
+// waitDone polls a job until it is finished.
+func (ts *testServer) waitDone(t testing.TB, path string) jobDoc {
+	t.Helper()
+	deadline := time.Now().Add(60 * time.Second)
+	for time.Now().Before(deadline) {
+		resp, b := ts.do(t, "GET", path, "", nil)
+		if resp.StatusCode != 200 {
+			t.Fatalf("GET %s: %d %s", path, resp.StatusCode, b)
+		}
+		j := decodeJSON[jobDoc](t, b)
+		if j.State == "succeeded" || j.State == "failed" || j.State == "canceled" {
+			return j
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	t.Fatalf("%s did not finish", path)
+	return jobDoc{}
+}
+
+type problemDoc struct {
+	Type   string                 `json:"type"`
+	Title  string                 `json:"title"`
+	Status int                    `json:"status"`
+	Detail string                 `json:"detail"`
+	Errors []service.FieldProblem `json:"errors"`
+}
+
+func embeddedQueue(n int) jobs.Queue { return embedded.NewQueue(n) }

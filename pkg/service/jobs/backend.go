@@ -1,0 +1,145 @@
+package jobs
+
+import (
+	"context"
+	"io"
+	"time"
+)
+
+// Store keeps job and series records. Every method is safe for concurrent
+// use. Updates are atomic read-modify-write: a key-value backend implements
+// them with compare-and-swap on the record's revision and retries.
+type Store interface {
+	// CreateJob stores a new job; ErrExists if the id is taken.
+	CreateJob(ctx context.Context, j *Job) error
+	// Job returns the job with that id, or ErrNotFound.
+	Job(ctx context.Context, id string) (*Job, error)
+	// UpdateJob applies fn to the current record and stores the result
+	// atomically; if fn returns an error nothing is stored and that error is
+	// returned. It returns the stored record. ErrNotFound if absent.
+	UpdateJob(ctx context.Context, id string, fn func(*Job) error) (*Job, error)
+	// SetProgress records the progress of a running job. It may be kept
+	// only in memory or written lazily: progress is advisory and may be
+	// lost on a crash. Watchers of the job see it.
+	SetProgress(ctx context.Context, id string, p Progress) error
+	// DeleteJob removes the record; ErrNotFound if absent.
+	DeleteJob(ctx context.Context, id string) error
+	// Jobs returns the records that match f, oldest first.
+	Jobs(ctx context.Context, f Filter) ([]*Job, error)
+	// Counts returns the number of jobs in each state.
+	Counts(ctx context.Context) (map[State]int, error)
+
+	// CreateSeries stores a new series; ErrExists if the id is taken.
+	CreateSeries(ctx context.Context, s *Series) error
+	// Series returns the series with that id, or ErrNotFound.
+	Series(ctx context.Context, id string) (*Series, error)
+	// UpdateSeries is the series counterpart of UpdateJob.
+	UpdateSeries(ctx context.Context, id string, fn func(*Series) error) (*Series, error)
+	// DeleteSeries removes the series record (not its frame jobs).
+	DeleteSeries(ctx context.Context, id string) error
+	// AllSeries returns every series, oldest first.
+	AllSeries(ctx context.Context) ([]*Series, error)
+
+	// Watch sends the record of job id each time it changes, starting with
+	// the current one; for topic a series id it sends every change of that
+	// series' frame jobs. The channel is closed when ctx is done. Slow
+	// receivers may miss intermediate records but always get the latest.
+	Watch(ctx context.Context, topic string) (<-chan *Job, error)
+
+	// Close releases the store.
+	Close() error
+}
+
+// Filter selects jobs in Store.Jobs. Zero fields match everything.
+type Filter struct {
+	Kind   Kind
+	States []State
+	Series string
+	// FinishedBefore selects terminal jobs that finished before this time.
+	FinishedBefore time.Time
+	// Limit caps the number returned (0 = no cap).
+	Limit int
+}
+
+// Match reports whether j passes the filter.
+func (f Filter) Match(j *Job) bool {
+	if f.Kind != "" && j.Kind != f.Kind {
+		return false
+	}
+	if f.Series != "" && j.Series != f.Series {
+		return false
+	}
+	if len(f.States) > 0 {
+		ok := false
+		for _, s := range f.States {
+			ok = ok || j.State == s
+		}
+		if !ok {
+			return false
+		}
+	}
+	if !f.FinishedBefore.IsZero() && (j.Finished == nil || !j.Finished.Before(f.FinishedBefore)) {
+		return false
+	}
+	return true
+}
+
+// Blobs keeps images and result files under slash-separated keys (see
+// InputKey, ResultKey, SeriesKey). Put is atomic: a reader sees either the
+// old contents or the whole new contents, never a part.
+type Blobs interface {
+	// Put stores the contents of r under key, replacing any old contents.
+	Put(ctx context.Context, key string, r io.Reader) error
+	// Get opens the blob under key; ErrNotFound if absent.
+	Get(ctx context.Context, key string) (io.ReadCloser, error)
+	// Delete removes every blob whose key is prefix or starts with
+	// prefix + "/". Deleting nothing is not an error.
+	Delete(ctx context.Context, prefix string) error
+}
+
+// Queue hands job ids to workers. A delivered id must be acknowledged
+// (done, success or failure recorded in the Store) or negatively
+// acknowledged (put back for another attempt). An id delivered and never
+// acknowledged, because its worker died, is delivered again: by the
+// stream's redelivery in a distributed backend, or on restart from the
+// records in the embedded one.
+type Queue interface {
+	// Enqueue adds a job id. It returns ErrQueueFull when the number of
+	// waiting ids has reached the capacity; the caller must then not
+	// consider the job accepted.
+	Enqueue(ctx context.Context, id string) error
+	// Dequeue blocks until an id is available or ctx is done.
+	Dequeue(ctx context.Context) (Delivery, error)
+	// Len is the number of ids waiting (not counting ones being worked on).
+	Len() int
+	// Cap is the capacity, the largest Len that Enqueue accepts.
+	Cap() int
+}
+
+// Delivery is one job id handed to a worker.
+type Delivery interface {
+	// ID is the job id.
+	ID() string
+	// Ack marks the delivery done: it will not be delivered again.
+	Ack() error
+	// Nak puts the id back for another delivery (for a job interrupted
+	// by shutdown).
+	Nak() error
+	// InProgress tells the queue the worker is still busy, extending the
+	// redelivery deadline of a long job. A backend without deadlines
+	// returns nil.
+	InProgress() error
+}
+
+// Backend bundles the three parts of a job model implementation.
+type Backend struct {
+	Store Store
+	Blobs Blobs
+	Queue Queue
+	// Recover, if non-nil, is called once when the service starts, before
+	// any worker runs: the embedded backend re-enqueues the jobs its
+	// records show as queued or running. It returns the number requeued.
+	Recover func(ctx context.Context) (int, error)
+	// Close releases everything.
+	Close func() error
+}

@@ -1,0 +1,146 @@
+// Package jobs is the job model of the Mottle service: the records of
+// analyses, series and frames, and the three interfaces a backend provides
+// to keep them: a Store for records, Blobs for images and results, and a
+// Queue that hands job ids to workers with explicit acknowledgement.
+//
+// The embedded backend (package embedded) keeps records in bbolt, blobs in
+// files and the queue in memory, rebuilt from the records on start. A
+// distributed backend maps the same interfaces onto a key-value bucket, an
+// object store and a work-queue stream.
+package jobs
+
+import (
+	"encoding/json"
+	"errors"
+	"time"
+)
+
+// Kind says what a job computes.
+type Kind string
+
+const (
+	// Analysis correlates one uploaded reference and deformed image.
+	Analysis Kind = "analysis"
+	// Frame correlates one frame of a series against the series reference.
+	Frame Kind = "frame"
+)
+
+// State is where a job is in its life.
+type State string
+
+const (
+	// Queued: accepted and waiting for a worker.
+	Queued State = "queued"
+	// Running: a worker is computing it.
+	Running State = "running"
+	// Succeeded: results are stored.
+	Succeeded State = "succeeded"
+	// Failed: the job stopped with an error, kept in Job.Error.
+	Failed State = "failed"
+	// Canceled: canceled by a client before it finished.
+	Canceled State = "canceled"
+)
+
+// States lists every state, in life order.
+func States() []State { return []State{Queued, Running, Succeeded, Failed, Canceled} }
+
+// Terminal reports whether s is a final state.
+func (s State) Terminal() bool { return s == Succeeded || s == Failed || s == Canceled }
+
+// Progress counts finished work units (grid points) of a running job.
+type Progress struct {
+	Done  int `json:"done"`
+	Total int `json:"total"`
+}
+
+// Summary is the short result of a job: what a frame append answers with and
+// what one row of a series curve holds.
+type Summary struct {
+	// Points is the number of grid points; Valid the number measured.
+	Points int `json:"points"`
+	Valid  int `json:"valid"`
+	// ValidFraction is Valid/Points, 0 when there are no points.
+	ValidFraction float64 `json:"valid_fraction"`
+	// Mean holds the mean over valid points of each scalar quantity
+	// (u, v, E11, E22, E12, …).
+	Mean map[string]float64 `json:"mean,omitempty"`
+	// Gauges holds named gauge values (extensometers, virtual gauges) when
+	// the engine computes them.
+	Gauges map[string]float64 `json:"gauges,omitempty"`
+	// Seconds is the compute time of the job.
+	Seconds float64 `json:"seconds"`
+}
+
+// Failure is why a job failed, phrased for the caller.
+type Failure struct {
+	// Title is a short summary ("analysis failed", "job timeout").
+	Title string `json:"title"`
+	// Detail says what went wrong and, where possible, what to change.
+	Detail string `json:"detail"`
+	// Field names the input at fault, when one is ("params.subset").
+	Field string `json:"field,omitempty"`
+}
+
+// Job is the record of one unit of work. Inputs live in Blobs under
+// InputKey(ID, name); results under ResultKey(ID, name).
+type Job struct {
+	ID    string `json:"id"`
+	Kind  Kind   `json:"kind"`
+	State State  `json:"state"`
+	// Params is the normalised parameter document (defaults applied).
+	Params json.RawMessage `json:"params"`
+	// Width and Height are the image size in pixels.
+	Width  int `json:"width"`
+	Height int `json:"height"`
+	// HasMask is true when a mask image was uploaded (InputKey(ID, "mask")).
+	HasMask bool `json:"has_mask,omitempty"`
+
+	// Series and FrameIndex identify a frame job; Time and Load are the
+	// values given with the frame, if any.
+	Series     string   `json:"series,omitempty"`
+	FrameIndex int      `json:"frame,omitempty"`
+	Time       *float64 `json:"time,omitempty"`
+	Load       *float64 `json:"load,omitempty"`
+
+	Created  time.Time  `json:"created"`
+	Started  *time.Time `json:"started,omitempty"`
+	Finished *time.Time `json:"finished,omitempty"`
+	// Attempts counts how many times a worker started the job.
+	Attempts int `json:"attempts"`
+	// CancelRequested is set when a client asks to cancel a running job;
+	// the worker that runs it stops and marks it Canceled.
+	CancelRequested bool `json:"cancel_requested,omitempty"`
+
+	Progress Progress `json:"progress"`
+	Summary  *Summary `json:"summary,omitempty"`
+	Error    *Failure `json:"error,omitempty"`
+	// Results lists the names of the stored result files.
+	Results []string `json:"results,omitempty"`
+}
+
+// Series is the record of a test series: a reference image (in Blobs under
+// SeriesKey(ID, "reference")), parameters, and its frames in order.
+type Series struct {
+	ID     string          `json:"id"`
+	Params json.RawMessage `json:"params"`
+	Width  int             `json:"width"`
+	Height int             `json:"height"`
+	// HasMask is true when a mask was uploaded (SeriesKey(ID, "mask")).
+	HasMask bool      `json:"has_mask,omitempty"`
+	Created time.Time `json:"created"`
+	Updated time.Time `json:"updated"`
+	// Frames holds the job id of each frame, by frame index.
+	Frames []string `json:"frames"`
+}
+
+// Errors a backend returns; callers test them with errors.Is.
+var (
+	// ErrNotFound: no record or blob under that id or key.
+	ErrNotFound = errors.New("not found")
+	// ErrExists: a record with that id already exists.
+	ErrExists = errors.New("already exists")
+	// ErrQueueFull: the queue is at capacity; try again later.
+	ErrQueueFull = errors.New("queue full")
+	// ErrClosed: the backend has been closed.
+	ErrClosed = errors.New("backend closed")
+)

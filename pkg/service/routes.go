@@ -1,0 +1,110 @@
+package service
+
+import (
+	"context"
+	"encoding/json"
+	"net/http"
+
+	"github.com/go-chi/chi/v5"
+
+	"github.com/mottledic/mottle/api"
+)
+
+// Route prefixes of a job's resources: an analysis, or a frame of a series.
+const (
+	analysisPath = "/v1/analyses/{id}"
+	framePath    = "/v1/series/{id}/frames/{n}"
+)
+
+func (s *Server) routes() http.Handler {
+	r := chi.NewRouter()
+	r.Use(s.observe, s.cors)
+	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
+		writeProblem(w, r, problem(http.StatusNotFound, "not-found", "Not found", "no route matches "+r.URL.Path+"; see /v1/openapi.json"))
+	})
+	r.MethodNotAllowed(func(w http.ResponseWriter, r *http.Request) {
+		writeProblem(w, r, problem(http.StatusMethodNotAllowed, "method-not-allowed", "Method not allowed", r.Method+" is not allowed on "+r.URL.Path+"; see /v1/openapi.json"))
+	})
+	r.Get("/healthz", s.healthz)
+	r.Get("/readyz", s.readyz)
+	if s.cfg.UI != nil {
+		fs := http.FileServerFS(s.cfg.UI)
+		r.Handle("/*", fs)
+	}
+	r.Group(func(r chi.Router) {
+		r.Use(s.auth)
+		r.Get("/metrics", s.getMetrics)
+		r.Get("/v1/openapi.json", s.openapi)
+
+		r.Post("/v1/analyses", s.postAnalysis)
+		r.Get("/v1/analyses", s.listAnalyses)
+		r.Post("/v1/demo", s.postDemo)
+		r.Delete(analysisPath, s.analysis(s.deleteAnalysis))
+		r.Post(analysisPath+"/cancel", s.analysis(s.cancelAnalysis))
+
+		r.Post("/v1/series", s.postSeries)
+		r.Get("/v1/series", s.listSeries)
+		r.Get("/v1/series/{id}", s.series(s.getSeries))
+		r.Delete("/v1/series/{id}", s.series(s.deleteSeriesH))
+		r.Post("/v1/series/{id}/frames", s.series(s.postFrame))
+		r.Get("/v1/series/{id}/frames", s.series(s.listFrames))
+		r.Get("/v1/series/{id}/curve.json", s.series(s.curveJSON))
+		r.Get("/v1/series/{id}/curve.csv", s.series(s.curveCSV))
+		r.Get("/v1/series/{id}/events", s.series(s.seriesEvents))
+
+		for _, p := range []struct {
+			path string
+			wrap func(jobHandler) http.HandlerFunc
+		}{{analysisPath, s.analysis}, {framePath, s.frame}} {
+			r.Get(p.path, p.wrap(s.getJob))
+			r.Get(p.path+"/events", p.wrap(s.jobEvents))
+			for _, name := range resultFiles {
+				r.Get(p.path+"/"+name, p.wrap(s.resultFile(name)))
+			}
+			r.Get(p.path+"/arrays/{quantity}.npy", p.wrap(s.array))
+			r.Get(p.path+"/map.png", p.wrap(s.mapPNG))
+			r.Get(p.path+"/images/reference.png", p.wrap(s.image("reference")))
+			r.Get(p.path+"/images/deformed.png", p.wrap(s.image("deformed")))
+		}
+	})
+	return r
+}
+
+func (s *Server) healthz(w http.ResponseWriter, r *http.Request) {
+	writeJSON(w, http.StatusOK, map[string]string{"status": "ok"})
+}
+
+func (s *Server) readyz(w http.ResponseWriter, r *http.Request) {
+	if s.draining.Load() {
+		writeProblem(w, r, problem(http.StatusServiceUnavailable, "draining", "Shutting down", "the server is shutting down and takes no new work"))
+		return
+	}
+	ctx, cancel := context.WithTimeout(r.Context(), 2*1e9)
+	defer cancel()
+	if _, err := s.store.Counts(ctx); err != nil {
+		writeProblem(w, r, problem(http.StatusServiceUnavailable, "store-unavailable", "Store unavailable", err.Error()))
+		return
+	}
+	writeJSON(w, http.StatusOK, map[string]any{"status": "ready", "queue": s.queue.Len(), "capacity": s.queue.Cap(), "workers": s.cfg.Workers})
+}
+
+func (s *Server) getMetrics(w http.ResponseWriter, r *http.Request) {
+	w.Header().Set("Content-Type", "text/plain; version=0.0.4; charset=utf-8")
+	if err := s.writeMetrics(r.Context(), w); err != nil {
+		writeProblem(w, r, asProblem(err, ""))
+	}
+}
+
+func (s *Server) openapi(w http.ResponseWriter, r *http.Request) {
+	w.Header().Set("Content-Type", "application/json")
+	w.Header().Set("Cache-Control", "no-cache")
+	_, _ = w.Write(api.OpenAPI())
+}
+
+func writeJSON(w http.ResponseWriter, status int, v any) {
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(status)
+	enc := json.NewEncoder(w)
+	enc.SetIndent("", "  ")
+	_ = enc.Encode(v)
+}

@@ -1,0 +1,176 @@
+package service
+
+import (
+	"bytes"
+	"errors"
+	"fmt"
+	"io"
+	"mime"
+	"net/http"
+	"strings"
+
+	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/imageio"
+)
+
+// maxParamsBytes limits the params part.
+const maxParamsBytes = 1 << 20
+
+// upload is a parsed multipart submission.
+type upload struct {
+	raw     map[string][]byte        // encoded images by part name
+	img     map[string]*imageio.Gray // decoded images by part name
+	params  []byte
+	hasJSON bool
+}
+
+// imageTypes are the media types accepted for images. An empty type or
+// application/octet-stream leaves the format to the decoder's sniffing.
+var imageTypes = map[string]bool{
+	"image/png": true, "image/tiff": true, "image/tif": true, "image/jpeg": true, "image/jpg": true,
+	"image/bmp": true, "image/x-ms-bmp": true, "image/x-bmp": true, "application/octet-stream": true, "": true,
+}
+
+func checkImageType(field, ct string) error {
+	mt := ""
+	if ct != "" {
+		var err error
+		if mt, _, err = mime.ParseMediaType(ct); err != nil {
+			mt = ct
+		}
+	}
+	if !imageTypes[strings.ToLower(mt)] {
+		return problem(http.StatusUnsupportedMediaType, "unsupported-media-type", "Unsupported media type",
+			fmt.Sprintf("%s has Content-Type %q; send image/png, image/tiff, image/jpeg, image/bmp or application/octet-stream", field, ct),
+			FieldProblem{field, fmt.Sprintf("Content-Type %q is not an image type", ct)})
+	}
+	return nil
+}
+
+// readMultipart reads a multipart/form-data body with the image parts
+// images (required unless listed in optional) and an optional "params"
+// part, decoding every image with the pixel limit checked from its header.
+func (s *Server) readMultipart(w http.ResponseWriter, r *http.Request, images []string, optional ...string) (*upload, error) {
+	mt, _, err := mime.ParseMediaType(r.Header.Get("Content-Type"))
+	if err != nil || mt != "multipart/form-data" {
+		return nil, problem(http.StatusUnsupportedMediaType, "unsupported-media-type", "Unsupported media type",
+			fmt.Sprintf("the body has Content-Type %q; send multipart/form-data with the parts %s and an optional params part (JSON), e.g. curl -F %s=@ref.png",
+				r.Header.Get("Content-Type"), strings.Join(append(images, optional...), ", "), images[0]),
+			FieldProblem{"Content-Type", "use multipart/form-data"})
+	}
+	r.Body = http.MaxBytesReader(w, r.Body, s.cfg.MaxBodyBytes)
+	mr, err := r.MultipartReader()
+	if err != nil {
+		return nil, problem(http.StatusBadRequest, "bad-multipart", "Malformed multipart body", err.Error())
+	}
+	want := map[string]bool{}
+	for _, n := range images {
+		want[n] = true
+	}
+	for _, n := range optional {
+		want[n] = true
+	}
+	u := &upload{raw: map[string][]byte{}, img: map[string]*imageio.Gray{}}
+	for {
+		part, err := mr.NextPart()
+		if errors.Is(err, io.EOF) {
+			break
+		}
+		if err != nil {
+			return nil, bodyErr(err, "body")
+		}
+		name := part.FormName()
+		switch {
+		case name == "params":
+			if u.hasJSON {
+				return nil, problem(http.StatusBadRequest, "duplicate-part", "Duplicate part", "params given twice", FieldProblem{"params", "give it once"})
+			}
+			b, err := io.ReadAll(io.LimitReader(part, maxParamsBytes+1))
+			if err != nil {
+				return nil, bodyErr(err, "params")
+			}
+			if len(b) > maxParamsBytes {
+				return nil, problem(http.StatusRequestEntityTooLarge, "params-too-large", "Parameters too large",
+					fmt.Sprintf("the params part exceeds %d bytes", maxParamsBytes), FieldProblem{"params", "too large"})
+			}
+			u.params, u.hasJSON = b, true
+		case want[name]:
+			if _, dup := u.raw[name]; dup {
+				return nil, problem(http.StatusBadRequest, "duplicate-part", "Duplicate part", name+" given twice", FieldProblem{name, "give it once"})
+			}
+			if err := checkImageType(name, part.Header.Get("Content-Type")); err != nil {
+				return nil, err
+			}
+			b, err := io.ReadAll(part)
+			if err != nil {
+				return nil, bodyErr(err, name)
+			}
+			u.raw[name] = b
+		default:
+			return nil, problem(http.StatusBadRequest, "unknown-part", "Unknown part",
+				fmt.Sprintf("the part %q is not one this endpoint reads; send %s and params", name, strings.Join(append(images, optional...), ", ")),
+				FieldProblem{name, "unknown part"})
+		}
+		part.Close()
+	}
+	var missing []FieldProblem
+	for _, n := range images {
+		if _, ok := u.raw[n]; !ok {
+			missing = append(missing, FieldProblem{n, "required image part is missing"})
+		}
+	}
+	if len(missing) > 0 {
+		return nil, problem(http.StatusBadRequest, "missing-part", "Missing part", "required parts are missing; see errors", missing...)
+	}
+	for name, b := range u.raw {
+		g, err := s.decode(name, b)
+		if err != nil {
+			return nil, err
+		}
+		u.img[name] = g
+	}
+	return u, nil
+}
+
+// decode decodes an uploaded image; errors are problems naming field.
+func (s *Server) decode(field string, b []byte) (*imageio.Gray, error) {
+	g, err := imageio.Decode(bytes.NewReader(b), s.limits())
+	if err != nil {
+		p := asProblem(err, field)
+		p.Detail = field + ": " + p.Detail
+		return nil, p
+	}
+	return g, nil
+}
+
+func bodyErr(err error, field string) error {
+	var mbe *http.MaxBytesError
+	if errors.As(err, &mbe) {
+		return asProblem(err, field)
+	}
+	return problem(http.StatusBadRequest, "bad-body", "Unreadable body", fmt.Sprintf("%s: %v", field, err), FieldProblem{field, "could not be read"})
+}
+
+// checkParams parses the params JSON over the defaults and checks it
+// against an image of w×h pixels and the server's limits.
+func (s *Server) checkParams(raw []byte, w, h int) (analysis.Params, error) {
+	p, err := analysis.ParseJSONBytes(raw)
+	if err != nil {
+		var ve *analysis.ValidationError
+		if errors.As(err, &ve) {
+			return p, err
+		}
+		return p, problem(http.StatusBadRequest, "bad-params", "Malformed parameters", err.Error(),
+			FieldProblem{"params", "send a JSON object such as {\"subset\": 31, \"step\": 8}"})
+	}
+	if err := p.Validate(w, h); err != nil {
+		return p, err
+	}
+	if p.Step > 0 {
+		if n := (w/p.Step + 1) * (h/p.Step + 1); n > s.cfg.MaxPoints {
+			return p, &analysis.ValidationError{Problems: []analysis.Problem{{Field: "step",
+				Message: fmt.Sprintf("is %d px, giving about %d grid points on the %d×%d image, over the server limit of %d; use a larger step or a smaller ROI", p.Step, n, w, h, s.cfg.MaxPoints)}}}
+		}
+	}
+	return p, nil
+}

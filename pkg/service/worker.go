@@ -1,0 +1,377 @@
+package service
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"io"
+	"sort"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+// work takes jobs from the queue until dequeueCtx is done. Jobs run under
+// jobCtx, which is canceled (cause errShutdown) when the shutdown grace
+// period is over.
+func (s *Server) work(dequeueCtx, jobCtx context.Context) {
+	for {
+		d, err := s.queue.Dequeue(dequeueCtx)
+		if err != nil {
+			if dequeueCtx.Err() != nil {
+				return
+			}
+			s.log.Error("dequeue", "error", err)
+			select {
+			case <-dequeueCtx.Done():
+				return
+			case <-time.After(time.Second):
+			}
+			continue
+		}
+		s.runJob(jobCtx, d)
+	}
+}
+
+var errSkip = errors.New("skip")
+
+// runJob computes one delivered job and records the outcome.
+func (s *Server) runJob(base context.Context, d jobs.Delivery) {
+	id := d.ID()
+	ctx := context.Background()
+	l := s.log.With("job", id)
+	now := time.Now().UTC()
+	j, err := s.store.UpdateJob(ctx, id, func(j *jobs.Job) error {
+		if j.State != jobs.Queued {
+			return errSkip
+		}
+		if j.Attempts >= s.cfg.MaxAttempts {
+			j.State = jobs.Failed
+			j.Finished = &now
+			j.Error = &jobs.Failure{Title: "Too many attempts",
+				Detail: fmt.Sprintf("the job was started %d times without finishing (the server stopped each time); check the server logs, then submit it again, perhaps with a larger step", j.Attempts)}
+			return nil
+		}
+		j.State = jobs.Running
+		j.Started = &now
+		j.Attempts++
+		j.Progress = jobs.Progress{}
+		return nil
+	})
+	switch {
+	case errors.Is(err, jobs.ErrNotFound), errors.Is(err, errSkip):
+		_ = d.Ack()
+		return
+	case err != nil:
+		l.Error("start job", "error", err)
+		time.Sleep(time.Second)
+		_ = d.Nak()
+		return
+	case j.State != jobs.Running:
+		s.metrics.jobDone(j.State, 0, 0)
+		_ = d.Ack()
+		return
+	}
+
+	jctx, cancel := context.WithCancelCause(base)
+	jctx, cancelT := context.WithTimeoutCause(jctx, s.cfg.JobTimeout, errJobTimeout)
+	s.mu.Lock()
+	s.running[id] = cancel
+	s.mu.Unlock()
+	s.metrics.setBusy(1)
+	defer func() {
+		s.metrics.setBusy(-1)
+		s.mu.Lock()
+		delete(s.running, id)
+		s.mu.Unlock()
+		cancelT()
+		cancel(nil)
+	}()
+	l.Info("job started", "kind", j.Kind, "attempt", j.Attempts, "width", j.Width, "height", j.Height)
+
+	start := time.Now()
+	res, err := s.compute(jctx, j, d)
+	secs := time.Since(start).Seconds()
+	var names []string
+	if err == nil {
+		names, err = s.storeResults(ctx, j.ID, res)
+	}
+	cause := context.Cause(jctx)
+	if err != nil && jctx.Err() == nil {
+		cause = nil // failed on its own, not because it was stopped
+	}
+	fin := time.Now().UTC()
+	var final jobs.State
+	switch {
+	case err == nil:
+		final = jobs.Succeeded
+		sum := res.Summary
+		sum.Seconds = secs
+		_, err = s.store.UpdateJob(ctx, id, func(j *jobs.Job) error {
+			j.State, j.Finished, j.Summary, j.Results = jobs.Succeeded, &fin, &sum, names
+			j.Progress = jobs.Progress{Done: sum.Points, Total: sum.Points}
+			return nil
+		})
+		s.metrics.jobDone(final, sum.Points, secs)
+	case errors.Is(cause, errShutdown):
+		l.Info("job interrupted by shutdown: back in the queue")
+		_, err = s.store.UpdateJob(ctx, id, func(j *jobs.Job) error {
+			j.State, j.Started, j.Progress = jobs.Queued, nil, jobs.Progress{}
+			j.Attempts-- // an interruption by shutdown is not the job's fault
+			return nil
+		})
+		if err != nil {
+			l.Error("requeue job", "error", err)
+		}
+		_ = d.Nak()
+		return
+	case errors.Is(cause, errCanceled):
+		final = jobs.Canceled
+		_, err = s.store.UpdateJob(ctx, id, func(j *jobs.Job) error {
+			j.State, j.Finished = jobs.Canceled, &fin
+			return nil
+		})
+		s.metrics.jobDone(final, 0, secs)
+	default:
+		final = jobs.Failed
+		f := failureFor(err, cause, s.cfg.JobTimeout)
+		_, err = s.store.UpdateJob(ctx, id, func(j *jobs.Job) error {
+			j.State, j.Finished, j.Error = jobs.Failed, &fin, f
+			return nil
+		})
+		s.metrics.jobDone(final, 0, secs)
+	}
+	if err != nil {
+		l.Error("record job outcome", "state", final, "error", err)
+	}
+	l.Info("job finished", "state", final, "seconds", secs)
+	_ = d.Ack()
+}
+
+func failureFor(err, cause error, timeout time.Duration) *jobs.Failure {
+	if errors.Is(cause, errJobTimeout) {
+		return &jobs.Failure{Title: "Job timeout", Detail: fmt.Sprintf(
+			"the job ran longer than the %v limit; use a larger step or a smaller ROI, or ask the operator for a longer --job-timeout", timeout)}
+	}
+	var fe *FieldError
+	if errors.As(err, &fe) {
+		return &jobs.Failure{Title: "Invalid input", Detail: fe.Detail, Field: fe.Field}
+	}
+	var ve *analysis.ValidationError
+	if errors.As(err, &ve) && len(ve.Problems) > 0 {
+		return &jobs.Failure{Title: "Invalid parameters", Detail: ve.Error(), Field: "params." + ve.Problems[0].Field}
+	}
+	return &jobs.Failure{Title: "Analysis failed", Detail: err.Error()}
+}
+
+// compute loads the inputs of j and runs the analyzer.
+func (s *Server) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Result, error) {
+	var in Input
+	if err := json.Unmarshal(j.Params, &in.Params); err != nil {
+		return nil, fmt.Errorf("stored parameters: %w", err)
+	}
+	in.Params.Threads = s.cfg.JobThreads
+	refKey, maskKey := jobs.InputKey(j.ID, "reference"), jobs.InputKey(j.ID, "mask")
+	if j.Kind == jobs.Frame {
+		refKey, maskKey = jobs.SeriesKey(j.Series, "reference"), jobs.SeriesKey(j.Series, "mask")
+	}
+	var err error
+	if in.Ref, err = s.loadImage(ctx, refKey); err != nil {
+		return nil, err
+	}
+	if in.Def, err = s.loadImage(ctx, jobs.InputKey(j.ID, "deformed")); err != nil {
+		return nil, err
+	}
+	if j.HasMask {
+		if in.Mask, err = s.loadImage(ctx, maskKey); err != nil {
+			return nil, err
+		}
+	}
+	var last, beat time.Time
+	progress := func(done, total int) {
+		now := time.Now()
+		if now.Sub(last) < 200*time.Millisecond && done < total {
+			return
+		}
+		last = now
+		_ = s.store.SetProgress(context.Background(), j.ID, jobs.Progress{Done: done, Total: total})
+		if now.Sub(beat) > 5*time.Second {
+			beat = now
+			_ = d.InProgress()
+		}
+	}
+	return s.cfg.Analyzer.Run(ctx, in, progress)
+}
+
+// loadImage decodes the stored image under key.
+func (s *Server) loadImage(ctx context.Context, key string) (*imageio.Gray, error) {
+	rc, err := s.blobs.Get(ctx, key)
+	if err != nil {
+		return nil, fmt.Errorf("stored image: %w", err)
+	}
+	defer rc.Close()
+	g, err := imageio.Decode(rc, s.limits())
+	if err != nil {
+		return nil, fmt.Errorf("stored image %s: %w", key, err)
+	}
+	return g, nil
+}
+
+func (s *Server) limits() imageio.Limits {
+	return imageio.Limits{MaxPixels: s.cfg.MaxPixels, MaxBytes: s.cfg.MaxBodyBytes}
+}
+
+// storeResults puts every result file in the blob store and returns the
+// sorted names.
+func (s *Server) storeResults(ctx context.Context, id string, res *Result) ([]string, error) {
+	names := make([]string, 0, len(res.Files))
+	for name := range res.Files {
+		if !jobs.ValidKey(name) {
+			return nil, fmt.Errorf("analyzer returned a result file with an invalid name %q", name)
+		}
+		names = append(names, name)
+	}
+	sort.Strings(names)
+	for _, name := range names {
+		if err := s.blobs.Put(ctx, jobs.ResultKey(id, name), bytes.NewReader(res.Files[name])); err != nil {
+			return nil, err
+		}
+	}
+	return names, nil
+}
+
+// cancelJob cancels a queued job at once, or asks the worker running it to
+// stop. Finished jobs are left as they are.
+func (s *Server) cancelJob(ctx context.Context, id string) (*jobs.Job, error) {
+	now := time.Now().UTC()
+	j, err := s.store.UpdateJob(ctx, id, func(j *jobs.Job) error {
+		switch j.State {
+		case jobs.Queued:
+			j.State, j.Finished = jobs.Canceled, &now
+		case jobs.Running:
+			j.CancelRequested = true
+		}
+		return nil
+	})
+	if err != nil {
+		return nil, err
+	}
+	if j.State == jobs.Running {
+		s.mu.Lock()
+		if c := s.running[id]; c != nil {
+			c(errCanceled)
+		}
+		s.mu.Unlock()
+	}
+	return j, nil
+}
+
+// deleteJob cancels the job if needed and removes its record and blobs.
+func (s *Server) deleteJob(ctx context.Context, id string) error {
+	if _, err := s.cancelJob(ctx, id); err != nil {
+		return err
+	}
+	if err := s.blobs.Delete(ctx, jobs.JobKey(id)); err != nil {
+		return err
+	}
+	if err := s.store.DeleteJob(ctx, id); err != nil && !errors.Is(err, jobs.ErrNotFound) {
+		return err
+	}
+	return nil
+}
+
+// janitor applies the retention setting periodically.
+func (s *Server) janitor(ctx context.Context) {
+	every := min(max(s.cfg.Retention/4, time.Second), 10*time.Minute)
+	t := time.NewTicker(every)
+	defer t.Stop()
+	for {
+		if n, err := s.sweep(ctx, time.Now().Add(-s.cfg.Retention)); err != nil {
+			s.log.Error("retention sweep", "error", err)
+		} else if n > 0 {
+			s.log.Info("retention sweep", "removed", n)
+		}
+		select {
+		case <-ctx.Done():
+			return
+		case <-t.C:
+		}
+	}
+}
+
+// sweep removes analyses finished before t and series last updated before
+// t whose frames are all finished. It returns the number of records removed.
+func (s *Server) sweep(ctx context.Context, t time.Time) (int, error) {
+	n := 0
+	old, err := s.store.Jobs(ctx, jobs.Filter{Kind: jobs.Analysis, FinishedBefore: t})
+	if err != nil {
+		return 0, err
+	}
+	var errs []error
+	for _, j := range old {
+		if err := s.deleteJob(ctx, j.ID); err != nil {
+			errs = append(errs, err)
+			continue
+		}
+		n++
+	}
+	all, err := s.store.AllSeries(ctx)
+	if err != nil {
+		return n, errors.Join(append(errs, err)...)
+	}
+	for _, sr := range all {
+		if !sr.Updated.Before(t) {
+			continue
+		}
+		m, err := s.deleteSeries(ctx, sr.ID, true)
+		n += m
+		if err != nil {
+			errs = append(errs, err)
+		}
+	}
+	return n, errors.Join(errs...)
+}
+
+// deleteSeries removes a series, its frames and their blobs. With
+// onlyIdle, a series with an unfinished frame is left alone.
+func (s *Server) deleteSeries(ctx context.Context, id string, onlyIdle bool) (int, error) {
+	frames, err := s.store.Jobs(ctx, jobs.Filter{Series: id})
+	if err != nil {
+		return 0, err
+	}
+	if onlyIdle {
+		for _, f := range frames {
+			if !f.State.Terminal() {
+				return 0, nil
+			}
+		}
+	}
+	n := 0
+	for _, f := range frames {
+		if err := s.deleteJob(ctx, f.ID); err != nil {
+			return n, err
+		}
+		n++
+	}
+	if err := s.blobs.Delete(ctx, jobs.SeriesKey(id, "")); err != nil {
+		return n, err
+	}
+	if err := s.store.DeleteSeries(ctx, id); err != nil && !errors.Is(err, jobs.ErrNotFound) {
+		return n, err
+	}
+	return n + 1, nil
+}
+
+// readAll reads a result blob fully.
+func (s *Server) readBlob(ctx context.Context, key string) ([]byte, error) {
+	rc, err := s.blobs.Get(ctx, key)
+	if err != nil {
+		return nil, err
+	}
+	defer rc.Close()
+	return io.ReadAll(rc)
+}
