@@ -17,3 +17,5 @@
 // numbers from the data files, and state the measurement uncertainty with
 // any value taken from a map.
 package maps
+
+//go:generate sh -c "/usr/bin/python3 gen_tables.py > tables.go && gofmt -w tables.go"

@@ -224,6 +224,9 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 	defer face.Close()
 
 	w, h := pictureSize(l.X, l.Y, l.Values, bg)
+	if err := checkSize(w, h); err != nil {
+		return nil, fmt.Errorf("render map: %w", err)
+	}
 	ticks := barTicks(lo, hi)
 	header := opt.Quantity
 	if opt.Unit != "" {
@@ -254,12 +257,7 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 	lay.drawBackground(dst, bg)
 
 	// Field: values per output pixel, then colours, then composite.
-	vals := rasterize(l, lay)
-	field := image.NewNRGBA(image.Rect(0, 0, lay.pic.Dx(), lay.pic.Dy()))
-	for i, v := range vals {
-		c := cm.At(norm.T(v))
-		field.Pix[4*i], field.Pix[4*i+1], field.Pix[4*i+2], field.Pix[4*i+3] = c.R, c.G, c.B, c.A
-	}
+	field := colorize(rasterize(l, lay), lay.pic.Dx(), lay.pic.Dy(), cm, norm)
 	draw.DrawMask(dst, lay.pic, field, image.Point{}, image.NewUniform(color.Alpha{A: uint8(math.Round(opacity * 255))}), image.Point{}, draw.Over)
 
 	// Title.
@@ -381,7 +379,8 @@ func (l *layout) drawFooter(dst *image.RGBA, face font.Face, sb ScaleBar, w int,
 }
 
 // pictureSize returns the background size, or for no background the
-// extent of the valid points plus one pixel.
+// extent of the valid points plus one pixel (saturating far beyond the
+// size limits).
 func pictureSize(xs, ys, vals []float64, bg *imageio.Gray) (w, h int) {
 	if bg != nil {
 		return bg.W, bg.H
@@ -392,7 +391,62 @@ func pictureSize(xs, ys, vals []float64, bg *imageio.Gray) (w, h int) {
 			mx, my = math.Max(mx, xs[k]), math.Max(my, ys[k])
 		}
 	}
-	return int(math.Ceil(mx)) + 1, int(math.Ceil(my)) + 1
+	const big = 1 << 30
+	return int(math.Min(math.Ceil(mx), big)) + 1, int(math.Min(math.Ceil(my), big)) + 1
+}
+
+// Overlay returns the field alone as a w×h image at the resolution of the
+// background image (one output pixel per image pixel): the colours of
+// Render where the field is defined and fully transparent elsewhere, for
+// layering in a viewer that sets its own opacity. Opacity, titles, scale
+// bar and width limit in opt are ignored; the range and colour map are
+// chosen as in Render and returned with the image.
+func Overlay(l Layer, w, h int, opt Options) (img *image.NRGBA, lo, hi float64, err error) {
+	if err := errors.Join(l.Validate(), opt.Validate()); err != nil {
+		return nil, 0, 0, fmt.Errorf("overlay: %w", err)
+	}
+	if w < 1 || h < 1 {
+		return nil, 0, 0, fmt.Errorf("overlay: size %d×%d; want a positive width and height", w, h)
+	}
+	if err := checkSize(w, h); err != nil {
+		return nil, 0, 0, fmt.Errorf("overlay: %w", err)
+	}
+	cm := opt.colormap()
+	lo, hi = opt.Range[0], opt.Range[1]
+	if opt.Range == [2]float64{} {
+		if lo, hi, err = AutoRange(l.Values, cm.Diverging); err != nil {
+			return nil, 0, 0, fmt.Errorf("overlay of %q: %w", opt.Quantity, err)
+		}
+	}
+	norm := Norm{Lo: lo, Hi: hi, Diverging: cm.Diverging}
+	lay := &layout{w: w, h: h, sx: 1, sy: 1, pic: image.Rect(0, 0, w, h)}
+	return colorize(rasterize(l, lay), w, h, cm, norm), lo, hi, nil
+}
+
+// colorize turns per-pixel values (NaN = none) into colours, transparent
+// where there is no value.
+func colorize(vals []float64, w, h int, cm Colormap, norm Norm) *image.NRGBA {
+	img := image.NewNRGBA(image.Rect(0, 0, w, h))
+	for i, v := range vals {
+		c := cm.At(norm.T(v))
+		img.Pix[4*i], img.Pix[4*i+1], img.Pix[4*i+2], img.Pix[4*i+3] = c.R, c.G, c.B, c.A
+	}
+	return img
+}
+
+// MaxPictureSide and MaxPicturePixels bound the picture a map is drawn
+// on, so that positions far outside any image cannot make a render run out
+// of memory.
+const (
+	MaxPictureSide   = 1 << 15
+	MaxPicturePixels = 1 << 27
+)
+
+func checkSize(w, h int) error {
+	if w > MaxPictureSide || h > MaxPictureSide || w*h > MaxPicturePixels {
+		return fmt.Errorf("picture %d×%d px exceeds the limit of %d px a side and %d pixels; check the point positions or pass the background image", w, h, MaxPictureSide, MaxPicturePixels)
+	}
+	return nil
 }
 
 // barTicks returns the labelled ticks of gonum/plot's default tick

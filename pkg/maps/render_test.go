@@ -284,3 +284,66 @@ func TestGrayScale(t *testing.T) {
 		t.Errorf("computed → %v; want [0 255]", out.Pix)
 	}
 }
+
+// TestOverlay checks the field-only image: same colours as Render at image
+// resolution, transparent where a corner is invalid.
+func TestOverlay(t *testing.T) {
+	f := func(x, y float64) float64 { return 0.01 * (x - 30) }
+	l := linearLayer(6, 6, 5, 5, 10, f, func(x, y float64) bool { return x == 55 && y == 55 })
+	img, lo, hi, err := Overlay(l, 64, 64, Options{Quantity: "E22"})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if lo != -hi || hi <= 0 {
+		t.Errorf("auto range %v, %v; want symmetric about zero for a strain", lo, hi)
+	}
+	norm := Norm{Lo: lo, Hi: hi, Diverging: true}
+	if got, want := img.NRGBAAt(17, 22), CoolWarm().At(norm.T(f(17, 22))); got != want {
+		t.Errorf("overlay (17, 22) = %v; want %v", got, want)
+	}
+	for _, p := range [][2]int{{50, 50}, {2, 2}, {60, 10}} {
+		if a := img.NRGBAAt(p[0], p[1]).A; a != 0 {
+			t.Errorf("overlay %v alpha %d; want transparent", p, a)
+		}
+	}
+	if _, _, _, err := Overlay(l, 0, 10, Options{}); err == nil {
+		t.Error("Overlay of size 0×10 succeeded")
+	}
+}
+
+// TestSizeLimit checks that positions far outside any image give an error
+// instead of a huge allocation.
+func TestSizeLimit(t *testing.T) {
+	l := Layer{Nx: 2, Ny: 1, X: []float64{0, 1e12}, Y: []float64{0, 0}, Values: []float64{1, 2}}
+	if _, err := Render(l, nil, Options{}); err == nil || !strings.Contains(err.Error(), "exceeds") {
+		t.Errorf("Render with a point at x = 1e12: %v; want a size-limit error", err)
+	}
+}
+
+// BenchmarkRender renders a 2048×1536 map of a 200×150 grid, scaled to
+// 1200 px wide.
+func BenchmarkRender(b *testing.B) {
+	bg := flatGray(2048, 1536, 100)
+	l := linearLayer(200, 150, 30, 30, 10, func(x, y float64) float64 { return 1e-5 * (x - y) }, nil)
+	for k := range l.X {
+		l.X[k] += 0.02 * l.Y[k] // deformed positions: sheared cells
+	}
+	b.ResetTimer()
+	for range b.N {
+		if _, err := Render(l, bg, Options{Quantity: "E12", MaxWidth: 1200}); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
+
+// BenchmarkRenderFull renders the same map at full resolution.
+func BenchmarkRenderFull(b *testing.B) {
+	bg := flatGray(2048, 1536, 100)
+	l := linearLayer(200, 150, 30, 30, 10, func(x, y float64) float64 { return 1e-5 * (x - y) }, nil)
+	b.ResetTimer()
+	for range b.N {
+		if _, err := Render(l, bg, Options{Quantity: "E12"}); err != nil {
+			b.Fatal(err)
+		}
+	}
+}

@@ -155,6 +155,9 @@ func RenderVectors(v Vectors, bg *imageio.Gray, opt VectorOptions) (*VectorMap, 
 		}
 	}
 	w, h := pictureSize(v.X, v.Y, mags, bg)
+	if err := checkSize(w, h); err != nil {
+		return nil, fmt.Errorf("render vectors: %w", err)
+	}
 	const legendW = 120
 	fixedW := pad + barGap + legendW + pad
 	lay, err := newLayout(w, h, fixedW, opt.MaxWidth, face, true)
