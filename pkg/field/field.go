@@ -336,3 +336,17 @@ func (f *Field) StatusCounts() map[string]int {
 	}
 	return c
 }
+
+// DefaultUnit returns the unit of a standard quantity when lengths are in
+// length ("px" or "mm"): length for u, v, std_u, std_v; "deg" for
+// rotation_deg and principal_angle_deg; "1" (dimensionless) for everything
+// else, including F, every strain, detF, zncc and valid.
+func DefaultUnit(name, length string) string {
+	switch name {
+	case "u", "v", "std_u", "std_v":
+		return length
+	case "rotation_deg", "principal_angle_deg":
+		return "deg"
+	}
+	return "1"
+}
