@@ -27,7 +27,7 @@ func TestKirschHole(t *testing.T) {
 		cy   = 100.0
 		half = 60 // grid half-size in px
 	)
-	mu := 1 / (2 * (1 + nu))  // shear modulus over E
+	mu := 1 / (2 * (1 + nu))   // shear modulus over E
 	kap := (3 - nu) / (1 + nu) // plane stress
 	S := SE                    // work in units of E = 1
 	disp := func(x, y float64) (ux, uy float64) {
