@@ -130,7 +130,10 @@ func WriteFile(path string, g *Gray, bits int) error {
 		return fmt.Errorf("image %q: %w", path, err)
 	}
 	tmp := f.Name()
-	err = enc(f, g, bits)
+	err = f.Chmod(0o644)
+	if err == nil {
+		err = enc(f, g, bits)
+	}
 	if cerr := f.Close(); err == nil {
 		err = cerr
 	}

@@ -52,6 +52,10 @@ type RenderOptions struct {
 	Workers int `json:"-"`
 }
 
+// WithDefaults returns o with zero fields replaced by their defaults (the
+// values Render uses).
+func (o RenderOptions) WithDefaults() RenderOptions { return o.withDefaults() }
+
 func (o RenderOptions) withDefaults() RenderOptions {
 	if o.Supersample == 0 {
 		o.Supersample = 4

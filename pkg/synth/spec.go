@@ -272,6 +272,9 @@ type reference struct {
 
 func (r reference) Material(X, Y float64) bool { return r.body.Material(X, Y) }
 
+// Scale returns r: the reference state does not change with load.
+func (r reference) Scale(float64) Motion { return r }
+
 func (r reference) Inverse(x, y float64) (float64, float64, error) {
 	if !r.body.Material(x, y) {
 		return x, y, fmt.Errorf("%w: (%g, %g)", ErrNoMaterial, x, y)
