@@ -212,6 +212,9 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 			return nil, fmt.Errorf("render map of %q: %w", opt.Quantity, err)
 		}
 	}
+	if !finite(hi - lo) {
+		return nil, fmt.Errorf("render map of %q: range [%v, %v] is too wide to draw; give a narrower range", opt.Quantity, lo, hi)
+	}
 	norm := Norm{Lo: lo, Hi: hi, Diverging: cm.Diverging}
 	opacity := opt.Opacity
 	if opacity == 0 {
@@ -252,7 +255,12 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 	if err != nil {
 		return nil, fmt.Errorf("render map: %w", err)
 	}
-	m := &Map{Image: lay.canvas(fixedW), Picture: lay.pic, ScaleX: lay.sx, ScaleY: lay.sy, Range: [2]float64{lo, hi}, AutoRange: auto, Colormap: cm}
+	title := opt.Title
+	if title == "" {
+		title = opt.Quantity
+	}
+	textW := max(textWidth(face, title), textWidth(face, opt.Note))
+	m := &Map{Image: lay.canvas(fixedW, textW, opt.MaxWidth), Picture: lay.pic, ScaleX: lay.sx, ScaleY: lay.sy, Range: [2]float64{lo, hi}, AutoRange: auto, Colormap: cm}
 	dst := m.Image
 	lay.drawBackground(dst, bg)
 
@@ -261,10 +269,6 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 	draw.DrawMask(dst, lay.pic, field, image.Point{}, image.NewUniform(color.Alpha{A: uint8(math.Round(opacity * 255))}), image.Point{}, draw.Over)
 
 	// Title.
-	title := opt.Title
-	if title == "" {
-		title = opt.Quantity
-	}
 	lh, asc := lineHeight(face)
 	if title != "" {
 		drawText(dst, face, pad, pad+asc, title, ink)
@@ -329,8 +333,13 @@ func newLayout(w, h, fixedW, maxWidth int, face font.Face, title bool) (*layout,
 }
 
 // canvas returns the white output image.
-func (l *layout) canvas(fixedW int) *image.RGBA {
-	W := l.pic.Max.X + fixedW - pad
+// The width grows to fit text lines of width textW (title, note) up to
+// maxWidth when that is set.
+func (l *layout) canvas(fixedW, textW, maxWidth int) *image.RGBA {
+	W := max(l.pic.Max.X+fixedW-pad, pad+textW+pad)
+	if maxWidth > 0 {
+		W = min(W, max(maxWidth, l.pic.Max.X+fixedW-pad))
+	}
 	H := l.top + l.contentH + l.footH + pad
 	img := image.NewRGBA(image.Rect(0, 0, W, H))
 	fillRect(img, img.Bounds(), paper)
@@ -417,6 +426,9 @@ func Overlay(l Layer, w, h int, opt Options) (img *image.NRGBA, lo, hi float64, 
 		if lo, hi, err = AutoRange(l.Values, cm.Diverging); err != nil {
 			return nil, 0, 0, fmt.Errorf("overlay of %q: %w", opt.Quantity, err)
 		}
+	}
+	if !finite(hi - lo) {
+		return nil, 0, 0, fmt.Errorf("overlay of %q: range [%v, %v] is too wide to draw; give a narrower range", opt.Quantity, lo, hi)
 	}
 	norm := Norm{Lo: lo, Hi: hi, Diverging: cm.Diverging}
 	lay := &layout{w: w, h: h, sx: 1, sy: 1, pic: image.Rect(0, 0, w, h)}

@@ -252,6 +252,7 @@ func TestRenderErrors(t *testing.T) {
 		{"no values", allNaN, nil, Options{}, []string{"no finite values"}},
 		{"bad background", good, &imageio.Gray{W: 10, H: 10, Stride: 10}, Options{}, []string{"background image"}},
 		{"narrow", good, nil, Options{MaxWidth: 50}, []string{"max width"}},
+		{"too wide", Layer{Nx: 2, Ny: 1, X: []float64{0, 1}, Y: []float64{0, 0}, Values: []float64{-1e308, 1e308}}, nil, Options{Quantity: "E11"}, []string{"too wide"}},
 		{"inf", linearLayer(2, 2, 0, 0, 1, func(x, y float64) float64 { return math.Inf(1) }, nil), nil, Options{}, []string{"NaN"}},
 	}
 	for _, tt := range tests {

@@ -190,7 +190,8 @@ func RenderVectors(v Vectors, bg *imageio.Gray, opt VectorOptions) (*VectorMap, 
 			}
 		}
 	}
-	m := &VectorMap{Image: lay.canvas(fixedW), Picture: lay.pic, ScaleX: lay.sx, ScaleY: lay.sy, Scale: scale, Every: every}
+	textW := max(textWidth(face, title), textWidth(face, opt.Note))
+	m := &VectorMap{Image: lay.canvas(fixedW, textW, opt.MaxWidth), Picture: lay.pic, ScaleX: lay.sx, ScaleY: lay.sy, Scale: scale, Every: every}
 	dst := m.Image
 	lay.drawBackground(dst, bg)
 	// Clip arrows to the picture.
