@@ -1,0 +1,446 @@
+// Mottle preview: wires the page to the HTTP API.
+
+import { ApiError, absolute, describe, getJSON, request } from './api.js';
+import { parseField } from './field.js';
+import { fmt, linePlot } from './plot.js';
+import { RoiEditor } from './roi.js';
+import { advice, speckleSize } from './speckle.js';
+import { MapView } from './viewer.js';
+
+const $ = id => document.getElementById(id);
+const API = '/v1';
+const resultFormats = ['field.json', 'field.csv', 'field.vts', 'field.npz'];
+
+const state = {
+  files: { reference: null, deformed: null },
+  bitmaps: { reference: null, deformed: null },
+  size: null,      // [w, h] of the reference image, when the browser could decode it
+  speckle: null,
+  job: null,       // current analysis record
+  base: null,      // URL prefix of the shown result (…/analyses/{id} or …/frames/{n})
+  tracking: null,  // {id, stop()}
+  series: null,
+  curve: null,
+};
+
+// ---- messages -------------------------------------------------------------
+
+function showError(err) {
+  const box = $('error-box');
+  const d = describe(err);
+  box.textContent = '';
+  const h = document.createElement('h2'); h.textContent = d.title; box.appendChild(h);
+  if (d.detail) { const p = document.createElement('p'); p.className = 'detail'; p.textContent = d.detail; box.appendChild(p); }
+  if (d.items.length) {
+    const ul = document.createElement('ul');
+    for (const it of d.items) {
+      const li = document.createElement('li');
+      if (it.field) { const c = document.createElement('code'); c.textContent = it.field; li.append(c, ': '); }
+      li.append(it.message);
+      ul.appendChild(li);
+    }
+    box.appendChild(ul);
+  }
+  const b = document.createElement('button'); b.type = 'button'; b.textContent = 'Dismiss';
+  b.addEventListener('click', clearError); box.appendChild(b);
+  box.hidden = false;
+  box.scrollIntoView({ block: 'nearest' });
+}
+
+function clearError() { $('error-box').hidden = true; $('error-box').textContent = ''; }
+
+function say(text) { $('status-region').textContent = text; }
+
+// ---- images ----------------------------------------------------------------
+
+async function decode(file) {
+  try {
+    return await createImageBitmap(file);
+  } catch {
+    return null; // TIFF and 16-bit files: the server decodes them.
+  }
+}
+
+function greyOf(bitmap) {
+  const c = new OffscreenCanvas(bitmap.width, bitmap.height);
+  const ctx = c.getContext('2d', { willReadFrequently: true });
+  ctx.drawImage(bitmap, 0, 0);
+  const d = ctx.getImageData(0, 0, bitmap.width, bitmap.height).data;
+  const g = new Float32Array(bitmap.width * bitmap.height);
+  for (let i = 0; i < g.length; i++) g[i] = 0.2126 * d[4 * i] + 0.7152 * d[4 * i + 1] + 0.0722 * d[4 * i + 2];
+  return g;
+}
+
+async function setFile(role, file) {
+  state.files[role] = file;
+  const info = $(`info-${role}`);
+  if (!file) { info.textContent = 'none chosen'; return; }
+  const bm = await decode(file);
+  state.bitmaps[role] = bm;
+  info.textContent = `${file.name}, ${(file.size / 1024).toFixed(1)} kB` + (bm ? `, ${bm.width} × ${bm.height} px` : ' (no preview in the browser; the service will read it)');
+  if (role === 'reference') {
+    state.size = bm ? [bm.width, bm.height] : null;
+    $('roi-placeholder').hidden = !!bm;
+    if (bm) {
+      editor.setImage(bm, bm.width, bm.height, $('roi-wrap').clientWidth || 640);
+      const s = speckleSize(greyOf(bm), bm.width, bm.height);
+      state.speckle = s ? s.size : null;
+    } else state.speckle = null;
+    updateAdvice();
+  }
+}
+
+function wireDrop(role) {
+  const zone = $(`drop-${role}`), input = $(`file-${role}`);
+  input.addEventListener('change', () => setFile(role, input.files[0] || null));
+  zone.addEventListener('dragover', e => { e.preventDefault(); zone.classList.add('over'); });
+  zone.addEventListener('dragleave', () => zone.classList.remove('over'));
+  zone.addEventListener('drop', e => {
+    e.preventDefault(); zone.classList.remove('over');
+    const f = e.dataTransfer.files[0];
+    if (f) setFile(role, f);
+  });
+}
+
+// ---- parameters and advice ----------------------------------------------------
+
+function intOf(id) { return parseInt($(id).value, 10); }
+
+function params() {
+  const p = {
+    subset: intOf('p-subset'),
+    step: intOf('p-step'),
+    shape: $('p-shape').value,
+    strain_window: intOf('p-window'),
+  };
+  const mm = parseFloat($('p-scale').value);
+  if (mm > 0) p.mm_per_px = mm;
+  const v = editor.value();
+  if (v.roi) p.roi = v.roi;
+  if (v.seeds.length) p.seeds = v.seeds;
+  return p;
+}
+
+function updateAdvice() {
+  const subset = intOf('p-subset'), step = intOf('p-step'), win = intOf('p-window');
+  const a = advice(state.speckle, subset, step, win);
+  const set = (id, text, ok) => { const e = $(id); e.textContent = text; e.classList.toggle('warn', ok === false); };
+  if (state.speckle) {
+    set('adv-speckle', `${fmt(state.speckle)} px (width at half height of the autocorrelation peak) — ${a.speckleNote}`, a.speckleOK);
+    set('adv-subset', `at least ${a.subsetMin} px for 3 speckles across; about ${a.subsetPitch} px counting the gaps between them. Yours: ${subset} px`, a.subsetOK);
+  } else {
+    set('adv-speckle', state.files.reference ? 'not measured (the browser cannot read this file type)' : '— choose a reference image');
+    set('adv-subset', '— needs a speckle size');
+  }
+  set('adv-step', `${a.stepLo}–${a.stepHi} px for a ${subset} px subset (common practice). Yours: ${step} px`, a.stepOK);
+  set('adv-vsg', Number.isFinite(a.vsg) ? `(${win} − 1) · ${step} + ${subset} = ${a.vsg} px` : '—');
+}
+
+function syncRoiJSON(v) {
+  const doc = {};
+  if (v.roi) Object.assign(doc, v.roi);
+  if (v.seeds.length) doc.seeds = v.seeds;
+  $('roi-json').value = JSON.stringify(doc);
+  $('roi-json-msg').textContent = v.roi ? '' : 'No region drawn: the whole image is used.';
+}
+
+// ---- running ------------------------------------------------------------------
+
+function idFromLocation(resp, body) {
+  const loc = resp.headers.get('Location');
+  if (loc) return absolute(loc).replace(/\/+$/, '').split('/').pop();
+  if (body && body.id) return body.id;
+  throw new Error('the service accepted the job but gave no Location header or id');
+}
+
+async function submit(kind) {
+  clearError();
+  stopTracking();
+  let resp;
+  try {
+    if (kind === 'demo') {
+      resp = await request(`${API}/demo`, { method: 'POST' });
+    } else {
+      if (!state.files.reference || !state.files.deformed) {
+        showError({ problem: { title: 'Two images needed', detail: 'Choose a reference and a deformed image, or run the demo.', errors: [
+          ...(state.files.reference ? [] : [{ field: 'reference', message: 'no file chosen' }]),
+          ...(state.files.deformed ? [] : [{ field: 'deformed', message: 'no file chosen' }]),
+        ] } });
+        return;
+      }
+      const fd = new FormData();
+      fd.append('reference', state.files.reference, state.files.reference.name);
+      fd.append('deformed', state.files.deformed, state.files.deformed.name);
+      fd.append('params', new Blob([JSON.stringify(params())], { type: 'application/json' }), 'params.json');
+      resp = await request(`${API}/analyses`, { method: 'POST', body: fd });
+    }
+  } catch (err) { showError(err); return; }
+  let body = null;
+  try { body = await resp.json(); } catch { /* empty body */ }
+  let id;
+  try { id = idFromLocation(resp, body); } catch (err) { showError(err); return; }
+  state.fromUpload = kind !== 'demo';
+  say(`Analysis ${id} accepted.`);
+  track(id, body);
+}
+
+function setProgress(job) {
+  const p = job.progress || {};
+  const bar = $('progress'), txt = $('progress-text');
+  if (p.total > 0) { bar.max = p.total; bar.value = p.done || 0; } else if (job.state === 'succeeded') { bar.max = 1; bar.value = 1; } else bar.removeAttribute('value');
+  const pct = p.total > 0 ? ` ${Math.round(100 * (p.done || 0) / p.total)} % (${p.done} of ${p.total} points)` : '';
+  txt.textContent = `${job.state || 'waiting'}${pct}`;
+}
+
+function stopTracking() {
+  if (state.tracking) state.tracking.stop();
+  state.tracking = null;
+}
+
+function track(id, first) {
+  const url = `${API}/analyses/${encodeURIComponent(id)}`;
+  let done = false, es = null, timer = 0;
+  $('btn-cancel').disabled = false;
+  $('btn-run').disabled = true; $('btn-demo').disabled = true;
+  const stop = () => { done = true; if (es) es.close(); clearTimeout(timer); };
+  state.tracking = { id, stop };
+  const finish = async () => {
+    if (done) return;
+    stop();
+    state.tracking = null;
+    $('btn-cancel').disabled = true; $('btn-run').disabled = false; $('btn-demo').disabled = false;
+    let job;
+    try { job = await getJSON(url); } catch (err) { showError(err); return; }
+    setProgress(job);
+    if (job.state === 'succeeded') {
+      say(`Analysis ${id} finished.`);
+      await openResult(`${API}/analyses/${encodeURIComponent(id)}`, job, `analysis ${id}`);
+    } else if (job.state === 'canceled') {
+      say(`Analysis ${id} was canceled.`);
+    } else {
+      const e = job.error || {};
+      showError({ problem: { title: e.title || 'The analysis failed', detail: e.detail || '', errors: e.field ? [{ field: e.field, message: e.detail || e.title }] : [] } });
+    }
+  };
+  const seen = job => {
+    if (!job || done) return;
+    if (job.job) job = job.job;
+    setProgress(job);
+    if (job.state && ['succeeded', 'failed', 'canceled'].includes(job.state)) finish();
+  };
+  if (first && first.state) seen(first);
+  try {
+    es = new EventSource(`${url}/events`);
+    const onEvent = ev => { try { seen(JSON.parse(ev.data)); } catch { /* not JSON */ } };
+    es.onmessage = onEvent;
+    for (const name of ['progress', 'state', 'status', 'done', 'end', 'succeeded', 'failed', 'canceled']) es.addEventListener(name, onEvent);
+    es.onerror = () => { if (es) es.close(); es = null; };
+  } catch { es = null; }
+  // Poll as well, slowly while events arrive and faster without them.
+  const poll = async () => {
+    if (done) return;
+    try { seen(await getJSON(url)); } catch (err) { if (err instanceof ApiError && err.status === 404) { stop(); showError(err); return; } }
+    if (!done) timer = setTimeout(poll, es ? 1500 : 400);
+  };
+  timer = setTimeout(poll, 300);
+}
+
+async function cancel() {
+  if (!state.tracking) return;
+  const id = state.tracking.id;
+  try {
+    await request(`${API}/analyses/${encodeURIComponent(id)}/cancel`, { method: 'POST' });
+    say(`Cancel requested for ${id}.`);
+  } catch (err) { showError(err); }
+}
+
+// ---- results --------------------------------------------------------------------
+
+async function loadImage(url) {
+  try {
+    const resp = await fetch(url);
+    if (!resp.ok) return null;
+    return await createImageBitmap(await resp.blob());
+  } catch { return null; }
+}
+
+async function openResult(base, job, label) {
+  let doc;
+  try { doc = await getJSON(`${base}/field.json`); } catch (err) { showError(err); return; }
+  let field;
+  try { field = parseField(doc); } catch (err) { showError(err); return; }
+  const images = {
+    reference: await loadImage(`${base}/images/reference.png`),
+    deformed: await loadImage(`${base}/images/deformed.png`),
+  };
+  if (state.fromUpload && base.includes('/analyses/')) {
+    images.reference = images.reference || state.bitmaps.reference;
+    images.deformed = images.deformed || state.bitmaps.deformed;
+  }
+  state.base = base; state.job = job; state.field = field;
+  const sel = $('q-select');
+  const prev = sel.value;
+  sel.textContent = '';
+  for (const n of field.names()) { const o = document.createElement('option'); o.value = n; o.textContent = `${n}${field.unit(n) && field.unit(n) !== '–' ? ' (' + field.unit(n) + ')' : ''}`; sel.appendChild(o); }
+  sel.disabled = false;
+  if (field.q.has(prev)) view.opts.quantity = prev;
+  const w = (job && job.width) || (images.reference && images.reference.width) || 0;
+  const h = (job && job.height) || (images.reference && images.reference.height) || 0;
+  view.show(field, images, w, h);
+  sel.value = view.opts.quantity;
+  $('results-source').textContent = `— ${label}, ${field.n} points`;
+  updateDownloads();
+  document.body.dataset.result = 'ready';
+}
+
+function updateDownloads() {
+  const ul = $('downloads');
+  ul.textContent = '';
+  if (!state.base) return;
+  const names = state.job && Array.isArray(state.job.results) && state.job.results.length ? state.job.results : resultFormats;
+  const add = (href, text) => {
+    const li = document.createElement('li');
+    const a = document.createElement('a'); a.href = href; a.textContent = text; a.setAttribute('download', '');
+    li.appendChild(a); ul.appendChild(li);
+  };
+  for (const n of names) add(`${state.base}/${n}`, n);
+  const o = view.opts;
+  const q = new URLSearchParams({ quantity: o.quantity, range: `${o.lo},${o.hi}`, on: o.on });
+  add(`${state.base}/map.png?${q}`, `map.png (${o.quantity})`);
+}
+
+// ---- series -------------------------------------------------------------------
+
+function flatten(row, out = {}, prefix = '') {
+  for (const [k, v] of Object.entries(row || {})) {
+    const key = prefix ? `${prefix} ${k}` : k;
+    if (typeof v === 'number') out[key] = v;
+    else if (v === null) out[key] = NaN;
+    else if (v && typeof v === 'object' && !Array.isArray(v)) flatten(v, out, prefix || k === 'gauges' || k === 'summary' ? prefix : k);
+  }
+  return out;
+}
+
+async function openSeries(id) {
+  clearError();
+  id = id.trim();
+  if (!id) return;
+  const base = `${API}/series/${encodeURIComponent(id)}`;
+  let rec;
+  try { rec = await getJSON(base); } catch (err) { showError(err); return; }
+  const frames = Array.isArray(rec.frames) ? rec.frames.length : (rec.frame_count || 0);
+  state.series = { id, base, rec, frames };
+  $('series-body').hidden = false;
+  const sl = $('frame-slider');
+  sl.max = String(Math.max(0, frames - 1));
+  sl.value = String(Math.max(0, frames - 1));
+  $('frame-out').textContent = sl.value;
+  await loadCurve();
+  if (frames > 0) await showFrame(+sl.value);
+}
+
+async function loadCurve() {
+  const s = state.series;
+  let doc;
+  try { doc = await getJSON(`${s.base}/curve.json`); } catch (err) { showError(err); return; }
+  const rows = (Array.isArray(doc) ? doc : doc.rows || doc.frames || doc.curve || doc.points || []).map(r => flatten(r));
+  state.curve = rows;
+  const keys = new Set();
+  for (const r of rows) for (const k of Object.keys(r)) if (!['frame', 'time', 'load', 'index'].includes(k)) keys.add(k);
+  const sel = $('curve-y'), prev = sel.value;
+  sel.textContent = '';
+  for (const k of keys) { const o = document.createElement('option'); o.value = k; o.textContent = k; sel.appendChild(o); }
+  if (keys.has(prev)) sel.value = prev;
+  drawCurve();
+}
+
+function drawCurve() {
+  const rows = state.curve || [];
+  const xk = $('curve-x').value, yk = $('curve-y').value;
+  const xs = rows.map((r, i) => xk === 'frame' ? (r.frame ?? r.index ?? i) : (r[xk] ?? NaN));
+  const ys = rows.map(r => r[yk] ?? NaN);
+  const frame = +$('frame-slider').value;
+  const n = linePlot($('curve-canvas'), xs, ys, { xlabel: xk, ylabel: yk, points: true, marker: xs[frame] });
+  $('curve-text').textContent = n ? `${yk} against ${xk}: ${n} of ${rows.length} frames have values.` : `No frame has both ${xk} and ${yk}.`;
+}
+
+async function showFrame(n) {
+  const s = state.series;
+  if (!s) return;
+  $('frame-out').textContent = String(n);
+  drawCurve();
+  const base = `${s.base}/frames/${n}`;
+  let job = null;
+  try { job = await getJSON(base); } catch { /* the frame record is optional */ }
+  state.fromUpload = false;
+  await openResult(base, job || { width: s.rec.width, height: s.rec.height }, `series ${s.id}, frame ${n}`);
+}
+
+// ---- wiring ---------------------------------------------------------------------
+
+const editor = new RoiEditor($('roi-canvas'), v => syncRoiJSON(v));
+const view = new MapView({
+  canvas: $('map-canvas'), colorbar: $('colorbar'), readout: $('readout'), where: $('readout-where'),
+  profile: $('profile-canvas'), profileText: $('profile-text'),
+  onRange: (lo, hi) => { $('r-min').value = fmt(lo); $('r-max').value = fmt(hi); },
+  onLine: L => { $('pr-x0').value = fmt(L.x0); $('pr-y0').value = fmt(L.y0); $('pr-x1').value = fmt(L.x1); $('pr-y1').value = fmt(L.y1); },
+});
+
+wireDrop('reference');
+wireDrop('deformed');
+$('btn-demo').addEventListener('click', () => submit('demo'));
+$('btn-run').addEventListener('click', () => submit('upload'));
+$('btn-cancel').addEventListener('click', cancel);
+for (const id of ['p-subset', 'p-step', 'p-window']) $(id).addEventListener('input', updateAdvice);
+for (const r of document.querySelectorAll('input[name=roi-mode]')) r.addEventListener('change', () => editor.setMode(r.value));
+$('btn-roi-clear').addEventListener('click', () => editor.clear());
+$('roi-json').addEventListener('change', () => {
+  try {
+    const doc = JSON.parse($('roi-json').value || '{}');
+    const { seeds, ...roi } = doc;
+    editor.setValue({ roi, seeds });
+    $('roi-json-msg').textContent = 'Region updated.';
+  } catch (err) { $('roi-json-msg').textContent = `Not used: ${err.message}`; }
+});
+$('q-select').addEventListener('change', e => { view.set({ quantity: e.target.value }); view.setHover(view.hover); updateDownloads(); });
+for (const r of document.querySelectorAll('input[name=on]')) r.addEventListener('change', () => { view.set({ on: r.value }); updateDownloads(); });
+$('cmap-select').addEventListener('change', e => { view.set({ cmap: e.target.value }); updateDownloads(); });
+const rangeChanged = () => {
+  const lo = parseFloat($('r-min').value), hi = parseFloat($('r-max').value);
+  if (Number.isFinite(lo) && Number.isFinite(hi) && hi > lo) { view.set({ lo, hi }); updateDownloads(); }
+};
+$('r-min').addEventListener('change', rangeChanged);
+$('r-max').addEventListener('change', rangeChanged);
+$('btn-autorange').addEventListener('click', () => { view.autoRange(); view.render(); updateDownloads(); });
+$('opacity').addEventListener('input', e => { $('opacity-out').textContent = e.target.value; view.set({ opacity: +e.target.value }); });
+for (const r of document.querySelectorAll('input[name=tool]')) r.addEventListener('change', () => view.set({ tool: r.value }));
+$('vectors').addEventListener('change', e => view.set({ vectors: e.target.checked }));
+$('vec-scale').addEventListener('input', e => { $('vec-scale-out').textContent = `${e.target.value}×`; view.set({ vecScale: +e.target.value }); });
+$('btn-profile').addEventListener('click', () => {
+  const v = ['pr-x0', 'pr-y0', 'pr-x1', 'pr-y1'].map(id => parseFloat($(id).value));
+  if (!view.field) return;
+  if (v.some(x => !Number.isFinite(x))) { $('profile-text').textContent = 'Give both end points of the line.'; return; }
+  const prevOn = view.opts.on;
+  view.opts.on = 'reference'; // typed coordinates are reference pixels
+  view.setLine({ x0: v[0], y0: v[1], x1: v[2], y1: v[3] });
+  view.opts.on = prevOn;
+  view.profile();
+});
+$('btn-series').addEventListener('click', () => openSeries($('series-id').value));
+$('series-id').addEventListener('keydown', e => { if (e.key === 'Enter') openSeries($('series-id').value); });
+$('frame-slider').addEventListener('change', e => showFrame(+e.target.value));
+$('frame-slider').addEventListener('input', e => { $('frame-out').textContent = e.target.value; drawCurve(); });
+$('curve-x').addEventListener('change', drawCurve);
+$('curve-y').addEventListener('change', drawCurve);
+window.addEventListener('resize', () => { if (view.field) { view.fit(); view.render(); } });
+updateAdvice();
+syncRoiJSON(editor.value());
+
+// Open a result or a series named in the address: ?analysis=ID or ?series=ID.
+const qs = new URLSearchParams(location.search);
+if (qs.get('analysis')) track(qs.get('analysis'));
+if (qs.get('series')) { $('series-id').value = qs.get('series'); openSeries(qs.get('series')); }
+
+// A small hook for the browser tests and for scripting the page.
+window.mottlePreview = { view, editor, state, toClient: (x, y) => view.toClient(x, y) };
+document.body.dataset.ready = 'true';

@@ -1,0 +1,87 @@
+// Small canvas line plots: profiles and series curves.
+
+/** niceTicks returns about n round tick values covering [lo, hi]. */
+export function niceTicks(lo, hi, n = 5) {
+  if (!(hi > lo)) { const d = Math.abs(lo) || 1; lo -= d * 0.5; hi += d * 0.5; }
+  const raw = (hi - lo) / n;
+  const mag = 10 ** Math.floor(Math.log10(raw));
+  const step = [1, 2, 2.5, 5, 10].map(f => f * mag).find(s => s >= raw) || 10 * mag;
+  const out = [];
+  for (let t = Math.ceil(lo / step) * step; t <= hi + step * 1e-9; t += step) out.push(Math.abs(t) < step * 1e-9 ? 0 : t);
+  return out;
+}
+
+/** fmt formats a number with about 4 significant digits. */
+export function fmt(v) {
+  if (!Number.isFinite(v)) return '—';
+  if (v === 0) return '0';
+  const a = Math.abs(v);
+  if (a >= 1e5 || a < 1e-3) return v.toExponential(3);
+  return Number(v.toPrecision(4)).toString();
+}
+
+/**
+ * linePlot draws ys against xs on canvas (NaN leaves a gap), with labelled
+ * axes. opts: {xlabel, ylabel, marker: x value to mark, points: draw dots}.
+ * It returns the number of finite points drawn.
+ */
+export function linePlot(canvas, xs, ys, opts = {}) {
+  const ctx = canvas.getContext('2d');
+  const W = canvas.width, H = canvas.height;
+  const m = { l: 70, r: 14, t: 12, b: 42 };
+  ctx.clearRect(0, 0, W, H);
+  ctx.fillStyle = '#fff'; ctx.fillRect(0, 0, W, H);
+  const fin = [];
+  for (let i = 0; i < xs.length; i++) if (Number.isFinite(xs[i]) && Number.isFinite(ys[i])) fin.push(i);
+  ctx.fillStyle = '#1b2229'; ctx.font = '12px system-ui, sans-serif';
+  if (!fin.length) {
+    ctx.fillText('no valid values along this path', m.l, H / 2);
+    return 0;
+  }
+  let x0 = Infinity, x1 = -Infinity, y0 = Infinity, y1 = -Infinity;
+  for (const i of fin) { x0 = Math.min(x0, xs[i]); x1 = Math.max(x1, xs[i]); y0 = Math.min(y0, ys[i]); y1 = Math.max(y1, ys[i]); }
+  if (y1 - y0 < 1e-12 * Math.max(1, Math.abs(y0))) { const d = Math.abs(y0) * 0.05 || 1e-6; y0 -= d; y1 += d; }
+  const pad = (y1 - y0) * 0.06; y0 -= pad; y1 += pad;
+  if (!(x1 > x0)) { x0 -= 0.5; x1 += 0.5; }
+  const px = x => m.l + (x - x0) / (x1 - x0) * (W - m.l - m.r);
+  const py = y => H - m.b - (y - y0) / (y1 - y0) * (H - m.t - m.b);
+  ctx.strokeStyle = '#d9d4c9'; ctx.lineWidth = 1;
+  ctx.textAlign = 'right'; ctx.textBaseline = 'middle';
+  for (const t of niceTicks(y0, y1)) {
+    if (t < y0 || t > y1) continue;
+    ctx.beginPath(); ctx.moveTo(m.l, py(t)); ctx.lineTo(W - m.r, py(t)); ctx.stroke();
+    ctx.fillText(fmt(t), m.l - 6, py(t));
+  }
+  ctx.textAlign = 'center'; ctx.textBaseline = 'top';
+  for (const t of niceTicks(x0, x1, 6)) {
+    if (t < x0 || t > x1) continue;
+    ctx.beginPath(); ctx.moveTo(px(t), m.t); ctx.lineTo(px(t), H - m.b); ctx.stroke();
+    ctx.fillText(fmt(t), px(t), H - m.b + 4);
+  }
+  ctx.strokeStyle = '#1b2229';
+  ctx.strokeRect(m.l, m.t, W - m.l - m.r, H - m.t - m.b);
+  if (opts.xlabel) ctx.fillText(opts.xlabel, (m.l + W - m.r) / 2, H - 18);
+  if (opts.ylabel) {
+    ctx.save(); ctx.translate(14, (m.t + H - m.b) / 2); ctx.rotate(-Math.PI / 2);
+    ctx.textBaseline = 'middle'; ctx.fillText(opts.ylabel, 0, 0); ctx.restore();
+  }
+  ctx.strokeStyle = '#0b5d66'; ctx.lineWidth = 2;
+  ctx.beginPath();
+  let pen = false;
+  for (let i = 0; i < xs.length; i++) {
+    if (!Number.isFinite(xs[i]) || !Number.isFinite(ys[i])) { pen = false; continue; }
+    if (pen) ctx.lineTo(px(xs[i]), py(ys[i])); else ctx.moveTo(px(xs[i]), py(ys[i]));
+    pen = true;
+  }
+  ctx.stroke();
+  if (opts.points) {
+    ctx.fillStyle = '#0b5d66';
+    for (const i of fin) { ctx.beginPath(); ctx.arc(px(xs[i]), py(ys[i]), 3, 0, 2 * Math.PI); ctx.fill(); }
+  }
+  if (Number.isFinite(opts.marker)) {
+    ctx.strokeStyle = '#c26a00'; ctx.setLineDash([4, 3]); ctx.lineWidth = 1.5;
+    ctx.beginPath(); ctx.moveTo(px(opts.marker), m.t); ctx.lineTo(px(opts.marker), H - m.b); ctx.stroke();
+    ctx.setLineDash([]);
+  }
+  return fin.length;
+}
