@@ -2,10 +2,572 @@ package main
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"path/filepath"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+	"unicode"
+
+	"github.com/mottledic/mottle/pkg/field"
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/roi"
+	"github.com/mottledic/mottle/pkg/series"
 )
 
-// runSeries is a placeholder until the series command lands.
+// listFlag collects a repeatable string flag.
+type listFlag []string
+
+func (l *listFlag) String() string     { return strings.Join(*l, " ") }
+func (l *listFlag) Set(s string) error { *l = append(*l, s); return nil }
+
+// parseFloats parses n comma-separated numbers.
+func parseFloats(s string, n int, what string) ([]float64, error) {
+	parts := strings.Split(s, ",")
+	if len(parts) != n {
+		return nil, fmt.Errorf("%s %q: want %d comma-separated numbers", what, s, n)
+	}
+	out := make([]float64, n)
+	for i, p := range parts {
+		v, err := strconv.ParseFloat(strings.TrimSpace(p), 64)
+		if err != nil {
+			return nil, fmt.Errorf("%s %q: %q is not a number", what, s, p)
+		}
+		out[i] = v
+	}
+	return out, nil
+}
+
+// naturalLess orders names so that "f2" comes before "f10".
+func naturalLess(a, b string) bool {
+	for a != "" && b != "" {
+		if unicode.IsDigit(rune(a[0])) && unicode.IsDigit(rune(b[0])) {
+			i, j := 0, 0
+			for i < len(a) && unicode.IsDigit(rune(a[i])) {
+				i++
+			}
+			for j < len(b) && unicode.IsDigit(rune(b[j])) {
+				j++
+			}
+			na, nb := strings.TrimLeft(a[:i], "0"), strings.TrimLeft(b[:j], "0")
+			if len(na) != len(nb) {
+				return len(na) < len(nb)
+			}
+			if na != nb {
+				return na < nb
+			}
+			a, b = a[i:], b[j:]
+			continue
+		}
+		if a[0] != b[0] {
+			return a[0] < b[0]
+		}
+		a, b = a[1:], b[1:]
+	}
+	return len(a) < len(b)
+}
+
+var imageExt = map[string]bool{".png": true, ".tif": true, ".tiff": true, ".jpg": true, ".jpeg": true, ".bmp": true}
+
+// frameList expands the arguments (a folder, globs or files) into image
+// paths in natural order.
+func frameList(args []string) ([]string, error) {
+	var out []string
+	for _, a := range args {
+		if st, err := os.Stat(a); err == nil && st.IsDir() {
+			ents, err := os.ReadDir(a)
+			if err != nil {
+				return nil, err
+			}
+			var names []string
+			for _, e := range ents {
+				if !e.IsDir() && imageExt[strings.ToLower(filepath.Ext(e.Name()))] {
+					names = append(names, filepath.Join(a, e.Name()))
+				}
+			}
+			sort.Slice(names, func(i, j int) bool { return naturalLess(names[i], names[j]) })
+			out = append(out, names...)
+			continue
+		}
+		if strings.ContainsAny(a, "*?[") {
+			m, err := filepath.Glob(a)
+			if err != nil {
+				return nil, fmt.Errorf("pattern %q: %w", a, err)
+			}
+			sort.Slice(m, func(i, j int) bool { return naturalLess(m[i], m[j]) })
+			out = append(out, m...)
+			continue
+		}
+		out = append(out, a)
+	}
+	return out, nil
+}
+
+// progress draws a one-line progress bar on a terminal.
+type progress struct {
+	w     io.Writer
+	on    bool
+	total int
+	t0    time.Time
+	done0 int
+}
+
+func (p *progress) show(done int, note string) {
+	if !p.on {
+		return
+	}
+	const width = 28
+	frac := float64(done) / float64(max(p.total, 1))
+	n := int(frac * width)
+	bar := strings.Repeat("#", n) + strings.Repeat(".", width-n)
+	el := time.Since(p.t0).Seconds()
+	rate, left := 0.0, "--:--"
+	if d := done - p.done0; d > 0 && el > 0 {
+		rate = float64(d) / el
+		rem := time.Duration(float64(p.total-done) / rate * float64(time.Second)).Round(time.Second)
+		left = rem.String()
+	}
+	fmt.Fprintf(p.w, "\r[%s] %d/%d frames  %.2f frames/s  %s left  %-14s", bar, done, p.total, rate, left, note)
+}
+
+func (p *progress) end() {
+	if p.on {
+		fmt.Fprintln(p.w)
+	}
+}
+
 func runSeries(ctx context.Context, e *env, args []string) error {
-	return errors.New("not built yet")
+	fs := newFlags(e, "series", "[flags] <folder | glob | frames...>",
+		"Analyses a test series: every frame is correlated with the reference (the first frame\n"+
+			"unless --ref is given), switching to incremental correlation when that degrades. Writes\n"+
+			"a results folder per frame, curve.csv/json, curve plots, state.json and report.html.")
+	var (
+		ref        = fs.String("ref", "", "reference image (default: the first frame)")
+		out        = fs.String("out", "series_results", "output folder")
+		paramsFile = fs.String("params", "", "series parameters as JSON (flags below override it)")
+		subset     = fs.Int("subset", 0, "subset side in px, odd (default 31)")
+		step       = fs.Int("step", 0, "grid step in px (default 8)")
+		window     = fs.Int("strain-window", 0, "strain window in grid points, odd (default 5)")
+		roiRect    = fs.String("roi", "", "region of interest x0,y0,x1,y1 in px")
+		mmPerPx    = fs.Float64("mm-per-px", 0, "scale in mm per px (0 = px)")
+		units      = fs.String("units", "", "units of extensometer and gauge coordinates: px or mm")
+		incr       = fs.String("incremental", "", "auto (default), never or always")
+		swZ        = fs.Float64("switch-zncc", 0, "mean ZNCC below which auto mode goes incremental (default 0.9)")
+		swV        = fs.Float64("switch-valid", 0, "tracked fraction below which auto mode goes incremental (default 0.9)")
+		table      = fs.String("table", "", "CSV of frame (index or name) or time against load and/or time (see docs)")
+		timePat    = fs.String("time-pattern", "", "regexp whose first group is the time stamp in each file name, e.g. _t([0-9.]+)s")
+		timeScale  = fs.Float64("time-scale", 1, "factor from the --time-pattern number to seconds")
+		fps        = fs.Float64("fps", 0, "frame rate: time = index/fps")
+		fileTimes  = fs.Bool("file-times", false, "use the files' modification times as time stamps")
+		area       = fs.Float64("area", 0, "initial cross-section in mm² (gives stress in MPa from load in N)")
+		static     = fs.Int("static", 0, "number of frames after the reference taken without load (noise floor)")
+		staticPair = fs.String("static-pair", "", "two images a,b of the unloaded specimen for the noise floor")
+		axial      = fs.String("axial", "", "extensometer giving the axial strain (default the first)")
+		transverse = fs.String("transverse", "", "extensometer across the specimen (Poisson, r)")
+		modRange   = fs.String("modulus-range", "", "axial strain range lo,hi of the modulus fit (ASTM E111)")
+		poisRange  = fs.String("poisson-range", "", "axial strain range lo,hi for Poisson's ratio (default the modulus range)")
+		rRange     = fs.String("r-range", "", "axial strain range lo,hi for the r value (ISO 10113)")
+		offset     = fs.Float64("offset", 0, "offset of the yield strength as a strain (default 0.002)")
+		mapQ       = fs.String("maps", "E11,E22", "quantities drawn as maps for the selected frames")
+		mapEvery   = fs.Int("map-every", 0, "draw maps every N frames (default: about five frames spread over the series, and the last)")
+		resume     = fs.Bool("resume", false, "continue a series stopped earlier, from <out>/state.json (its parameters are used)")
+		exts, gs   listFlag
+	)
+	fs.Var(&exts, "ext", "virtual extensometer name:xA,yA,xB,yB (repeatable)")
+	fs.Var(&gs, "gauge", "virtual gauge name:x0,y0,x1,y1 rectangle, or name:poly:x1,y1,x2,y2,... (repeatable)")
+	if err := parseFlags(e, fs, args); err != nil {
+		return err
+	}
+	frames, err := frameList(fs.Args())
+	if err != nil {
+		return err
+	}
+	if *ref == "" {
+		if len(frames) < 2 {
+			fmt.Fprintln(e.stderr, "mottle series: give at least two frames (the first is the reference), or --ref and one frame")
+			return errUsage
+		}
+		*ref, frames = frames[0], frames[1:]
+	}
+	if len(frames) == 0 {
+		fmt.Fprintln(e.stderr, "mottle series: no frames to analyse")
+		return errUsage
+	}
+
+	// Parameters: defaults, then the JSON file, then flags.
+	p := series.Defaults()
+	if *paramsFile != "" {
+		b, err := os.ReadFile(*paramsFile)
+		if err != nil {
+			return err
+		}
+		dec := json.NewDecoder(strings.NewReader(string(b)))
+		dec.DisallowUnknownFields()
+		if err := dec.Decode(&p); err != nil {
+			return fmt.Errorf("parameters %s: %w", *paramsFile, err)
+		}
+	}
+	set := map[string]bool{}
+	fs.Visit(func(f *flagT) { set[f.Name] = true })
+	var errs []error
+	if set["subset"] {
+		p.Analysis.Subset = *subset
+	}
+	if set["step"] {
+		p.Analysis.Step = *step
+	}
+	if set["strain-window"] {
+		p.Analysis.StrainWindow = *window
+	}
+	if set["mm-per-px"] {
+		p.Analysis.MMPerPx = *mmPerPx
+	}
+	if *roiRect != "" {
+		v, err := parseFloats(*roiRect, 4, "--roi")
+		if err != nil {
+			errs = append(errs, err)
+		} else {
+			r := [4]int{int(v[0]), int(v[1]), int(v[2]), int(v[3])}
+			p.Analysis.ROI = &roi.Spec{Rect: &r}
+		}
+	}
+	if *units != "" {
+		p.Units = *units
+	}
+	if *incr != "" {
+		p.Incremental = *incr
+	}
+	if set["switch-zncc"] {
+		p.SwitchZNCC = *swZ
+	}
+	if set["switch-valid"] {
+		p.SwitchValid = *swV
+	}
+	if set["area"] {
+		p.Area = *area
+	}
+	if set["static"] {
+		p.StaticFrames = *static
+	}
+	for _, s := range exts {
+		name, rest, ok := strings.Cut(s, ":")
+		v, err := parseFloats(rest, 4, "--ext "+name)
+		if !ok || err != nil {
+			errs = append(errs, fmt.Errorf("--ext %q: want name:xA,yA,xB,yB", s))
+			continue
+		}
+		p.Extensometers = append(p.Extensometers, series.Extensometer{Name: name, A: [2]float64{v[0], v[1]}, B: [2]float64{v[2], v[3]}})
+	}
+	for _, s := range gs {
+		name, rest, ok := strings.Cut(s, ":")
+		if !ok {
+			errs = append(errs, fmt.Errorf("--gauge %q: want name:x0,y0,x1,y1 or name:poly:x1,y1,…", s))
+			continue
+		}
+		if poly, isPoly := strings.CutPrefix(rest, "poly:"); isPoly {
+			n := strings.Count(poly, ",") + 1
+			v, err := parseFloats(poly, n, "--gauge "+name)
+			if err != nil || n%2 != 0 {
+				errs = append(errs, fmt.Errorf("--gauge %q: polygon needs pairs x,y", s))
+				continue
+			}
+			g := series.Gauge{Name: name}
+			for i := 0; i < n; i += 2 {
+				g.Polygon = append(g.Polygon, [2]float64{v[i], v[i+1]})
+			}
+			p.Gauges = append(p.Gauges, g)
+			continue
+		}
+		v, err := parseFloats(rest, 4, "--gauge "+name)
+		if err != nil {
+			errs = append(errs, err)
+			continue
+		}
+		p.Gauges = append(p.Gauges, series.Gauge{Name: name, Rect: &[4]float64{v[0], v[1], v[2], v[3]}})
+	}
+	pp := &p.Properties
+	if *axial != "" {
+		pp.Axial = *axial
+	}
+	if *transverse != "" {
+		pp.Transverse = *transverse
+	}
+	for _, r := range []struct {
+		s   string
+		dst *[2]float64
+		n   string
+	}{{*modRange, &pp.ModulusRange, "--modulus-range"}, {*poisRange, &pp.PoissonRange, "--poisson-range"}, {*rRange, &pp.RRange, "--r-range"}} {
+		if r.s == "" {
+			continue
+		}
+		v, err := parseFloats(r.s, 2, r.n)
+		if err != nil {
+			errs = append(errs, err)
+			continue
+		}
+		*r.dst = [2]float64{v[0], v[1]}
+	}
+	if set["offset"] {
+		pp.Offset = *offset
+	}
+	if err := errors.Join(errs...); err != nil {
+		fmt.Fprintln(e.stderr, "mottle series:", err)
+		return errUsage
+	}
+
+	lim := imageio.DefaultLimits()
+	refImg, err := imageio.ReadFile(*ref, lim)
+	if err != nil {
+		return err
+	}
+	if err := p.Validate(refImg.W, refImg.H); err != nil {
+		return err
+	}
+
+	// Time stamps and loads.
+	names := append([]string{*ref}, frames...)
+	times := make([]*float64, len(names))
+	switch {
+	case *timePat != "":
+		ts, err := series.TimesFromNames(names, *timePat, *timeScale)
+		if err != nil {
+			return err
+		}
+		for i := range ts {
+			times[i] = &ts[i]
+		}
+	case *fps > 0:
+		for i := range names {
+			t := float64(i) / *fps
+			times[i] = &t
+		}
+	case *fileTimes:
+		var t0 time.Time
+		for i, n := range names {
+			st, err := os.Stat(n)
+			if err != nil {
+				return err
+			}
+			if i == 0 {
+				t0 = st.ModTime()
+			}
+			t := st.ModTime().Sub(t0).Seconds()
+			times[i] = &t
+		}
+	}
+	var tbl *series.Table
+	if *table != "" {
+		f, err := os.Open(*table)
+		if err != nil {
+			return err
+		}
+		tbl, err = series.ReadTable(f, *table)
+		f.Close()
+		if err != nil {
+			return err
+		}
+	}
+	metas := make([]series.FrameMeta, len(names))
+	for i, n := range names {
+		m := series.FrameMeta{Name: filepath.Base(n), Time: times[i]}
+		if tbl != nil {
+			tm, load, err := tbl.Lookup(i, n, m.Time)
+			if err != nil {
+				return err
+			}
+			if tm != nil && m.Time == nil {
+				m.Time = tm
+			}
+			m.Load = load
+		}
+		metas[i] = m
+	}
+	if times[0] != nil || metas[0].Time != nil {
+		var ts []float64
+		for _, m := range metas {
+			if m.Time == nil {
+				return fmt.Errorf("frame %q has no time stamp while others do", m.Name)
+			}
+			ts = append(ts, *m.Time)
+		}
+		if err := series.CheckTimes(names, ts); err != nil {
+			return err
+		}
+	}
+
+	if err := os.MkdirAll(filepath.Join(*out, "frames"), 0o755); err != nil {
+		return err
+	}
+	statePath := filepath.Join(*out, "state.json")
+	var tr *series.Tracker
+	first := 0
+	if *resume {
+		b, err := os.ReadFile(statePath)
+		if err != nil {
+			return fmt.Errorf("--resume: %w", err)
+		}
+		var st series.State
+		if err := json.Unmarshal(b, &st); err != nil {
+			return fmt.Errorf("--resume %s: %w", statePath, err)
+		}
+		done := len(st.Curve) - 1
+		if done > len(frames) {
+			return fmt.Errorf("--resume: the state has %d frames but only %d are given", done, len(frames))
+		}
+		var last *imageio.Gray
+		if done > 0 {
+			if last, err = imageio.ReadFile(frames[done-1], lim); err != nil {
+				return err
+			}
+		}
+		if tr, err = series.Restore(refImg, last, st); err != nil {
+			return err
+		}
+		p, first = tr.Params(), done
+	} else if tr, err = series.New(refImg, metas[0], p); err != nil {
+		return err
+	}
+
+	var noise *series.NoiseFloor
+	if *staticPair != "" {
+		a, b, ok := strings.Cut(*staticPair, ",")
+		if !ok {
+			fmt.Fprintln(e.stderr, "mottle series: --static-pair wants two images a,b")
+			return errUsage
+		}
+		if noise, err = staticPairNoise(ctx, a, b, p, lim); err != nil {
+			return fmt.Errorf("static pair: %w", err)
+		}
+	}
+
+	quantities := strings.Split(*mapQ, ",")
+	if *mapQ == "" {
+		quantities = nil
+	}
+	every := *mapEvery
+	if every <= 0 {
+		every = max(1, (len(frames)+4)/5)
+	}
+	pr := &progress{w: e.stderr, on: e.tty, total: len(frames), t0: time.Now(), done0: first}
+	var reportMaps []series.ReportMap
+	var runErr error
+	for i := first; i < len(frames); i++ {
+		pr.show(i, metas[i+1].Name)
+		img, err := imageio.ReadFile(frames[i], lim)
+		if err != nil {
+			runErr = err
+			break
+		}
+		fr, err := tr.Add(ctx, img, metas[i+1])
+		if err != nil {
+			runErr = err
+			break
+		}
+		dir := filepath.Join(*out, "frames", fmt.Sprintf("%04d", i+1))
+		var mq []string
+		if (i+1)%every == 0 || i == len(frames)-1 {
+			mq = quantities
+		}
+		if _, err := series.WriteFrame(dir, fr, p, filepath.Base(*ref), metas[i+1], img, mq); err != nil {
+			runErr = err
+			break
+		}
+		for _, q := range mq {
+			reportMaps = append(reportMaps, series.ReportMap{
+				Path:    filepath.ToSlash(filepath.Join("frames", fmt.Sprintf("%04d", i+1), "map_"+q+".png")),
+				Caption: fmt.Sprintf("%s, frame %d %s (%s)", q, i+1, metas[i+1].Name, fr.Summary.Mode)})
+		}
+		if err := writeState(statePath, tr); err != nil {
+			runErr = err
+			break
+		}
+	}
+	pr.show(tr.Len(), "")
+	pr.end()
+
+	c := tr.Curve()
+	if noise != nil && c.Noise == nil {
+		c.Noise = noise
+	}
+	if err := writeSeriesOutputs(*out, c, reportMaps); err != nil {
+		return errors.Join(runErr, err)
+	}
+	if runErr != nil {
+		if ctx.Err() != nil {
+			return fmt.Errorf("stopped after %d of %d frames; finished frames and the report are in %s (continue with --resume)", tr.Len(), len(frames), *out)
+		}
+		return fmt.Errorf("after %d of %d frames: %w (finished frames kept in %s)", tr.Len(), len(frames), runErr, *out)
+	}
+	m := c.Modes()
+	fmt.Fprintf(e.stdout, "%d frames: %d direct, %d incremental. Results in %s (report.html).\n",
+		tr.Len(), len(m[series.ModeDirect]), len(m[series.ModeIncremental]), *out)
+	for _, l := range c.Properties().Lines() {
+		fmt.Fprintf(e.stdout, "  %s: %s\n", l[0], l[1])
+	}
+	return nil
+}
+
+// flagT is the flag type Visit passes.
+type flagT = flag.Flag
+
+func writeState(path string, tr *series.Tracker) error {
+	b, err := json.Marshal(tr.State())
+	if err != nil {
+		return err
+	}
+	return field.WriteFileAtomic(path, 0o644, func(w io.Writer) error { _, err := w.Write(b); return err })
+}
+
+// writeSeriesOutputs writes the curve files, plots and the report.
+func writeSeriesOutputs(out string, c series.Curve, maps []series.ReportMap) error {
+	if _, err := series.WriteCurve(out, c); err != nil {
+		return err
+	}
+	plotDir := filepath.Join(out, "plots")
+	if err := os.MkdirAll(plotDir, 0o755); err != nil {
+		return err
+	}
+	plots, err := series.WritePlots(plotDir, c, c.Properties())
+	if err != nil {
+		return err
+	}
+	for i, p := range plots {
+		rel, err := filepath.Rel(out, p)
+		if err != nil {
+			return err
+		}
+		plots[i] = filepath.ToSlash(rel)
+	}
+	return field.WriteFileAtomic(filepath.Join(out, "report.html"), 0o644, func(w io.Writer) error {
+		return series.WriteReport(w, series.ReportInput{Title: "Test series report", Software: "mottle series", Created: time.Now(), Curve: c, Plots: plots, Maps: maps})
+	})
+}
+
+// staticPairNoise analyses two images of the unloaded specimen and
+// returns their noise floor.
+func staticPairNoise(ctx context.Context, a, b string, p series.Params, lim imageio.Limits) (*series.NoiseFloor, error) {
+	ia, err := imageio.ReadFile(a, lim)
+	if err != nil {
+		return nil, err
+	}
+	ib, err := imageio.ReadFile(b, lim)
+	if err != nil {
+		return nil, err
+	}
+	p.Extensometers, p.Gauges, p.Properties = nil, nil, series.PropsParams{}
+	p.StaticFrames = 1
+	tr, err := series.New(ia, series.FrameMeta{Name: filepath.Base(a)}, p)
+	if err != nil {
+		return nil, err
+	}
+	if _, err := tr.Add(ctx, ib, series.FrameMeta{Name: filepath.Base(b)}); err != nil {
+		return nil, err
+	}
+	return tr.NoiseFloor(), nil
 }
