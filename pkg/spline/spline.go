@@ -524,3 +524,57 @@ func (s *Image) SampleGradients(ctx context.Context, threads int) (gx, gy []floa
 	}
 	return gx, gy, nil
 }
+
+// Line evaluates the interpolant at the len(out) points (x + k·dx, y + k·dy),
+// k = 0, 1, …, writing the values to out. Every point must satisfy
+// −1 ≤ x ≤ W and −1 ≤ y ≤ H (Line panics otherwise); callers check the two
+// end points, which bound the segment. It is the correlation hot path.
+func (s *Image) Line(x, y, dx, dy float64, out []float64) {
+	if s.order != Cubic {
+		for k := range out {
+			out[k] = s.atQuintic(x+float64(k)*dx, y+float64(k)*dy)
+		}
+		return
+	}
+	cs := s.cs
+	c := s.c
+	for k := range out {
+		px, py := x+float64(k)*dx, y+float64(k)*dy
+		ix, iy := floorInt(px), floorInt(py)
+		tx, ty := px-float64(ix), py-float64(iy)
+		ux, uy := 1-tx, 1-ty
+		tx2, ty2 := tx*tx, ty*ty
+		wx0 := ux * ux * ux / 6
+		wx1 := (3*tx2*tx - 6*tx2 + 4) / 6
+		wx3 := tx2 * tx / 6
+		wx2 := 1 - wx0 - wx1 - wx3
+		wy0 := uy * uy * uy / 6
+		wy1 := (3*ty2*ty - 6*ty2 + 4) / 6
+		wy3 := ty2 * ty / 6
+		wy2 := 1 - wy0 - wy1 - wy3
+		base := (iy+pad-1)*cs + ix + pad - 1
+		r0 := c[base : base+4]
+		r1 := c[base+cs : base+cs+4]
+		r2 := c[base+2*cs : base+2*cs+4]
+		r3 := c[base+3*cs : base+3*cs+4]
+		out[k] = wy0*(wx0*r0[0]+wx1*r0[1]+wx2*r0[2]+wx3*r0[3]) +
+			wy1*(wx0*r1[0]+wx1*r1[1]+wx2*r1[2]+wx3*r1[3]) +
+			wy2*(wx0*r2[0]+wx1*r2[1]+wx2*r2[2]+wx3*r2[3]) +
+			wy3*(wx0*r3[0]+wx1*r3[1]+wx2*r3[2]+wx3*r3[3])
+	}
+}
+
+// Points evaluates the interpolant at (xs[k], ys[k]) into out[k]. The
+// points must satisfy −1 ≤ x ≤ W and −1 ≤ y ≤ H (Points panics otherwise).
+func (s *Image) Points(xs, ys, out []float64) {
+	xs, ys = xs[:len(out)], ys[:len(out)]
+	if s.order != Cubic {
+		for k := range out {
+			out[k] = s.atQuintic(xs[k], ys[k])
+		}
+		return
+	}
+	for k := range out {
+		out[k] = s.atCubic(xs[k], ys[k])
+	}
+}

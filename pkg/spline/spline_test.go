@@ -351,3 +351,36 @@ func benchAt(b *testing.B, o Order) {
 	}
 	_ = sum
 }
+
+func TestLineAndPointsMatchAt(t *testing.T) {
+	g := randomImage(50, 40, 4)
+	for _, order := range []Order{Cubic, Quintic} {
+		s, _ := New(g, order)
+		out := make([]float64, 31)
+		s.Line(3.7, 5.2, 1.03, 0.21, out)
+		xs, ys := make([]float64, 31), make([]float64, 31)
+		for k := range out {
+			xs[k], ys[k] = 3.7+float64(k)*1.03, 5.2+float64(k)*0.21
+			if d := math.Abs(out[k] - s.At(xs[k], ys[k])); d > 1e-9 {
+				t.Fatalf("%v: Line[%d] = %v, At = %v", order, k, out[k], s.At(xs[k], ys[k]))
+			}
+		}
+		pts := make([]float64, 31)
+		s.Points(xs, ys, pts)
+		for k := range pts {
+			if pts[k] != s.At(xs[k], ys[k]) {
+				t.Fatalf("%v: Points[%d] = %v, At = %v", order, k, pts[k], s.At(xs[k], ys[k]))
+			}
+		}
+	}
+}
+
+func BenchmarkLineCubic(b *testing.B) {
+	s, _ := New(randomImage(256, 256, 1), Cubic)
+	out := make([]float64, 31)
+	b.ReportAllocs()
+	for b.Loop() {
+		s.Line(10.3, 20.7, 1.01, 0.02, out)
+	}
+	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N*len(out)), "ns/sample")
+}

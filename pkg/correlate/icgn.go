@@ -1,0 +1,531 @@
+package correlate
+
+import (
+	"math"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/spline"
+)
+
+// The inverse compositional Gauss–Newton (IC-GN) subset solver: Baker &
+// Matthews 2004, "Lucas-Kanade 20 years on: a unifying framework", IJCV
+// 56(3):221, with the ZNSSD criterion as in Pan, Li & Tong 2013, "Fast,
+// robust and accurate digital image correlation calculation without
+// redundant computations", Exp. Mech. 53:1277.
+//
+// With f̃ = f − f̄ over the reference subset, g̃ = g − ḡ over the warped
+// deformed subset, Δf = ‖f̃‖, Δg = ‖g̃‖ and J the steepest-descent images
+// ∇f·∂W/∂p, each iteration solves
+//
+//	Δp = −H⁻¹ Σ Jᵀ (f̃ − (Δf/Δg)·g̃),   H = Σ JᵀJ,
+//
+// and composes W(p) ← W(p) ∘ W(Δp)⁻¹. H, ΣJ and ΣJf̃ depend on the reference
+// only and are computed once per point. Because Σ J g̃ = Σ J g − ḡ Σ J, one
+// pass over the subset per iteration suffices.
+
+// solver holds the images and the per-point reference-subset data. One
+// solver belongs to one goroutine; it does not allocate after newSolver.
+type solver struct {
+	ref    *imageio.Gray // reference samples
+	gx, gy []float32     // reference gradients at pixel centres
+	refSp  *spline.Image // reference spline, for centres off the pixel grid (may be nil)
+	def    *spline.Image // deformed-image spline
+	lo     float64       // smallest allowed warped coordinate (edge margin)
+	defW   float64       // largest allowed warped x: W−1 − margin
+	defH   float64       // largest allowed warped y: H−1 − margin
+	shape  Shape         // First or Second
+	np     int           // number of parameters, 6 or 12
+	m      int           // subset half-width
+	n      int           // pixels per subset, (2m+1)²
+	maxIt  int           // iteration cap
+	tol    float64       // convergence threshold, px
+	minStd float64       // subsets with a smaller grey-level std are LowContrast
+	f      []float64     // f − f̄
+	fx, fy []float64     // reference gradients over the subset
+	gbuf   []float64     // interpolated deformed values, one row
+	xs, ys []float64     // warped positions, one row (second order)
+	xc, yc float64       // subset centre
+	fmean  float64       // f̄
+	df     float64       // ‖f − f̄‖
+	chol   [12 * 12]float64
+	b0, sj [12]float64 // Σ J f̃ and Σ J
+	hUU    float64     // (H⁻¹)[U][U], for the predicted std
+	hVV    float64
+	sssig  float64 // min(Σfx², Σfy²), sum of squared subset intensity gradients
+}
+
+func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, opt *Options, minStd float64) *solver {
+	m := opt.Subset / 2
+	side := 2*m + 1
+	// Near the edges the mirror extension of the spline is a guess, and
+	// its error decays like |z₁|^d with the distance d from the edge
+	// (z₁ = √3 − 2 for the cubic spline): keep warped subsets a few
+	// pixels inside.
+	edge := 2.0
+	if opt.Interp == spline.Quintic {
+		edge = 3
+	}
+	s := &solver{
+		ref: ref, gx: gx, gy: gy, refSp: refSp, def: def,
+		lo: edge, defW: float64(def.W-1) - edge, defH: float64(def.H-1) - edge,
+		shape: opt.Shape, np: 6, m: m, n: side * side,
+		maxIt: opt.MaxIter, tol: opt.Tol, minStd: minStd,
+		gbuf: make([]float64, side), xs: make([]float64, side), ys: make([]float64, side),
+	}
+	if s.shape == Second {
+		s.np = 12
+	}
+	s.f = make([]float64, s.n)
+	s.fx = make([]float64, s.n)
+	s.fy = make([]float64, s.n)
+	return s
+}
+
+// jacobian writes the steepest-descent vector of one pixel at offset (ξ, η).
+func (s *solver) jacobian(fx, fy, xi, eta float64, j *[12]float64) {
+	j[U], j[Ux], j[Uy] = fx, fx*xi, fx*eta
+	j[V], j[Vx], j[Vy] = fy, fy*xi, fy*eta
+	if s.np == 12 {
+		xx, xy, yy := xi*xi/2, xi*eta, eta*eta/2
+		j[Uxx], j[Uxy], j[Uyy] = fx*xx, fx*xy, fx*yy
+		j[Vxx], j[Vxy], j[Vyy] = fy*xx, fy*xy, fy*yy
+	}
+}
+
+// prepare loads the reference subset centred at (xc, yc) and computes the
+// Hessian and its Cholesky factor. It returns OK, Outside (the subset leaves
+// the reference image) or LowContrast.
+func (s *solver) prepare(xc, yc float64) Status {
+	m := s.m
+	s.xc, s.yc = xc, yc
+	ix, iy := int(xc), int(yc)
+	onGrid := float64(ix) == xc && float64(iy) == yc
+	if xc-float64(m) < 0 || yc-float64(m) < 0 || xc+float64(m) > float64(s.ref.W-1) || yc+float64(m) > float64(s.ref.H-1) {
+		return Outside
+	}
+	if !onGrid && s.refSp == nil {
+		return Outside
+	}
+	var sum float64
+	k := 0
+	for j := -m; j <= m; j++ {
+		for i := -m; i <= m; i++ {
+			var v, gx, gy float64
+			if onGrid {
+				o := (iy+j)*s.ref.W + ix + i
+				v = float64(s.ref.Pix[(iy+j)*s.ref.Stride+ix+i])
+				gx, gy = float64(s.gx[o]), float64(s.gy[o])
+			} else {
+				v, gx, gy = s.refSp.Grad(xc+float64(i), yc+float64(j))
+			}
+			s.f[k], s.fx[k], s.fy[k] = v, gx, gy
+			sum += v
+			k++
+		}
+	}
+	s.fmean = sum / float64(s.n)
+	var ss float64
+	for k := range s.f {
+		s.f[k] -= s.fmean
+		ss += s.f[k] * s.f[k]
+	}
+	s.df = math.Sqrt(ss)
+	if !(s.df > 0) || s.df/math.Sqrt(float64(s.n)) < s.minStd {
+		return LowContrast
+	}
+	np := s.np
+	var h [12 * 12]float64
+	var jv [12]float64
+	s.b0, s.sj = [12]float64{}, [12]float64{}
+	var sxx, syy float64
+	k = 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		for i := -m; i <= m; i++ {
+			fx, fy := s.fx[k], s.fy[k]
+			sxx += fx * fx
+			syy += fy * fy
+			s.jacobian(fx, fy, float64(i), eta, &jv)
+			f := s.f[k]
+			for a := 0; a < np; a++ {
+				ja := jv[a]
+				s.b0[a] += ja * f
+				s.sj[a] += ja
+				row := h[a*12 : a*12+np]
+				for b := a; b < np; b++ {
+					row[b] += ja * jv[b]
+				}
+			}
+			k++
+		}
+	}
+	s.sssig = math.Min(sxx, syy)
+	if !cholesky(&h, np, &s.chol) {
+		return LowContrast
+	}
+	var e [12]float64
+	e[U] = 1
+	cholSolve(&s.chol, np, &e)
+	s.hUU = e[U]
+	e = [12]float64{}
+	e[V] = 1
+	cholSolve(&s.chol, np, &e)
+	s.hVV = e[V]
+	return OK
+}
+
+// result of one IC-GN attempt.
+type attempt struct {
+	p         [12]float64
+	zncc      float64
+	iter      int
+	converged bool
+	status    Status // OK or Diverged (ZNCC threshold applied by the caller)
+}
+
+// solve runs IC-GN from p0 on the prepared subset.
+func (s *solver) solve(p0 [12]float64) attempt {
+	p := p0
+	if s.np == 6 {
+		for k := Uxx; k <= Vyy; k++ {
+			p[k] = 0
+		}
+	}
+	n := float64(s.n)
+	m := float64(s.m)
+	var a attempt
+	for it := 1; it <= s.maxIt; it++ {
+		a.iter = it
+		var sg, sgg, sfg float64
+		var sjg [12]float64
+		var ok bool
+		if s.np == 6 {
+			ok = s.pass1(&p, &sg, &sgg, &sfg, &sjg)
+		} else {
+			ok = s.pass2(&p, &sg, &sgg, &sfg, &sjg)
+		}
+		if !ok {
+			a.p, a.status = p, Diverged
+			return a
+		}
+		gm := sg / n
+		dg2 := sgg - n*gm*gm
+		if !(dg2 > 0) {
+			a.p, a.status = p, Diverged
+			return a
+		}
+		dg := math.Sqrt(dg2)
+		a.zncc = sfg / (s.df * dg)
+		scale := s.df / dg
+		var dp [12]float64
+		for k := 0; k < s.np; k++ {
+			dp[k] = -(s.b0[k] - scale*(sjg[k]-gm*s.sj[k]))
+		}
+		cholSolve(&s.chol, s.np, &dp)
+		norm := dp[U]*dp[U] + dp[V]*dp[V] + m*m*(dp[Ux]*dp[Ux]+dp[Uy]*dp[Uy]+dp[Vx]*dp[Vx]+dp[Vy]*dp[Vy])
+		if s.np == 12 {
+			h := m * m / 2
+			norm += h*h*(dp[Uxx]*dp[Uxx]+dp[Uyy]*dp[Uyy]+dp[Vxx]*dp[Vxx]+dp[Vyy]*dp[Vyy]) +
+				m*m*m*m*(dp[Uxy]*dp[Uxy]+dp[Vxy]*dp[Vxy])
+		}
+		if math.IsNaN(norm) || norm > 4*m*m {
+			a.p, a.status = p, Diverged
+			return a
+		}
+		var ok2 bool
+		if s.np == 6 {
+			ok2 = compose1(&p, &dp)
+		} else {
+			ok2 = compose2(&p, &dp)
+		}
+		if !ok2 {
+			a.p, a.status = p, Diverged
+			return a
+		}
+		if norm < s.tol*s.tol {
+			a.p, a.converged, a.status = p, true, OK
+			return a
+		}
+	}
+	a.p, a.status = p, Diverged
+	return a
+}
+
+// pass1 interpolates the deformed subset under the first-order warp p and
+// accumulates Σg, Σg², Σf̃g and ΣJg (g offset by f̄ to limit cancellation).
+// It reports false if the warped subset leaves the deformed image.
+func (s *solver) pass1(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
+	m := s.m
+	fm := float64(m)
+	a11, a12, a21, a22 := 1+p[Ux], p[Uy], p[Vx], 1+p[Vy]
+	cx, cy := s.xc+p[U], s.yc+p[V]
+	// The warp is affine: the corners bound the warped subset.
+	for _, c := range [4][2]float64{{-fm, -fm}, {fm, -fm}, {-fm, fm}, {fm, fm}} {
+		x := cx + a11*c[0] + a12*c[1]
+		y := cy + a21*c[0] + a22*c[1]
+		if !(x >= s.lo && x <= s.defW && y >= s.lo && y <= s.defH) {
+			return false
+		}
+	}
+	side := 2*m + 1
+	g := s.gbuf[:side]
+	var tg, tgg, tfg, tx0, tx1, tx2, ty0, ty1, ty2 float64
+	fmean := s.fmean
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		s.def.Line(cx-a11*fm+a12*eta, cy-a21*fm+a22*eta, a11, a21, g)
+		f := s.f[k : k+side]
+		fx := s.fx[k : k+side]
+		fy := s.fy[k : k+side]
+		var rx0, rx1, ry0, ry1 float64
+		xi := -fm
+		for i := range g {
+			v := g[i] - fmean
+			tg += v
+			tgg += v * v
+			tfg += f[i] * v
+			a, b := fx[i]*v, fy[i]*v
+			rx0 += a
+			rx1 += a * xi
+			ry0 += b
+			ry1 += b * xi
+			xi++
+		}
+		tx0 += rx0
+		tx1 += rx1
+		tx2 += rx0 * eta
+		ty0 += ry0
+		ty1 += ry1
+		ty2 += ry0 * eta
+		k += side
+	}
+	*sg, *sgg, *sfg = tg, tgg, tfg
+	sjg[U], sjg[Ux], sjg[Uy] = tx0, tx1, tx2
+	sjg[V], sjg[Vx], sjg[Vy] = ty0, ty1, ty2
+	return true
+}
+
+// pass2 is pass1 for the second-order warp.
+func (s *solver) pass2(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
+	m := s.m
+	fm := float64(m)
+	side := 2*m + 1
+	g := s.gbuf[:side]
+	xs, ys := s.xs[:side], s.ys[:side]
+	var tg, tgg, tfg float64
+	var acc [12]float64
+	fmean := s.fmean
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		xi := -fm
+		for i := range xs {
+			du, dv := Displacement(p, xi, eta)
+			x, y := s.xc+xi+du, s.yc+eta+dv
+			if !(x >= s.lo && x <= s.defW && y >= s.lo && y <= s.defH) {
+				return false
+			}
+			xs[i], ys[i] = x, y
+			xi++
+		}
+		s.def.Points(xs, ys, g)
+		f := s.f[k : k+side]
+		fx := s.fx[k : k+side]
+		fy := s.fy[k : k+side]
+		var rx0, rx1, rx2, ry0, ry1, ry2 float64
+		xi = -fm
+		for i := range g {
+			v := g[i] - fmean
+			tg += v
+			tgg += v * v
+			tfg += f[i] * v
+			a, b := fx[i]*v, fy[i]*v
+			rx0 += a
+			rx1 += a * xi
+			rx2 += a * xi * xi
+			ry0 += b
+			ry1 += b * xi
+			ry2 += b * xi * xi
+			xi++
+		}
+		acc[U] += rx0
+		acc[Ux] += rx1
+		acc[Uy] += rx0 * eta
+		acc[Uxx] += rx2 / 2
+		acc[Uxy] += rx1 * eta
+		acc[Uyy] += rx0 * eta * eta / 2
+		acc[V] += ry0
+		acc[Vx] += ry1
+		acc[Vy] += ry0 * eta
+		acc[Vxx] += ry2 / 2
+		acc[Vxy] += ry1 * eta
+		acc[Vyy] += ry0 * eta * eta / 2
+		k += side
+	}
+	*sg, *sgg, *sfg = tg, tgg, tfg
+	*sjg = acc
+	return true
+}
+
+// compose1 sets p ← p ∘ dp⁻¹ for first-order (affine) warps in homogeneous
+// form [[1+ux, uy, u], [vx, 1+vy, v], [0, 0, 1]].
+func compose1(p, dp *[12]float64) bool {
+	a11, a12, a21, a22 := 1+dp[Ux], dp[Uy], dp[Vx], 1+dp[Vy]
+	det := a11*a22 - a12*a21
+	if !(math.Abs(det) > 1e-12) {
+		return false
+	}
+	// Inverse of the increment.
+	i11, i12, i21, i22 := a22/det, -a12/det, -a21/det, a11/det
+	it0 := -(i11*dp[U] + i12*dp[V])
+	it1 := -(i21*dp[U] + i22*dp[V])
+	b11, b12, b21, b22 := 1+p[Ux], p[Uy], p[Vx], 1+p[Vy]
+	p[U] = b11*it0 + b12*it1 + p[U]
+	p[V] = b21*it0 + b22*it1 + p[V]
+	p[Ux] = b11*i11 + b12*i21 - 1
+	p[Uy] = b11*i12 + b12*i22
+	p[Vx] = b21*i11 + b22*i21
+	p[Vy] = b21*i12 + b22*i22 - 1
+	return true
+}
+
+// warpMatrix builds the 6×6 matrix that maps the monomials
+// [ξ², ξη, η², ξ, η, 1] of a point to those of its image under the
+// second-order warp p, truncated at degree two (Gao, Cheng, Su & Xu 2015,
+// "High-efficiency and high-accuracy digital image correlation for
+// three-dimensional measurement", Opt. Lasers Eng. 65:73, from memory; the
+// tests check composition against direct evaluation).
+func warpMatrix(p *[12]float64, w *[36]float64) {
+	a0, a1, a2 := p[U], 1+p[Ux], p[Uy]
+	a3, a4, a5 := p[Uxx]/2, p[Uxy], p[Uyy]/2
+	b0, b1, b2 := p[V], p[Vx], 1+p[Vy]
+	b3, b4, b5 := p[Vxx]/2, p[Vxy], p[Vyy]/2
+	*w = [36]float64{
+		// ξ'²
+		a1*a1 + 2*a0*a3, 2*a1*a2 + 2*a0*a4, a2*a2 + 2*a0*a5, 2 * a0 * a1, 2 * a0 * a2, a0 * a0,
+		// ξ'η'
+		a1*b1 + a0*b3 + a3*b0, a1*b2 + a2*b1 + a0*b4 + a4*b0, a2*b2 + a0*b5 + a5*b0, a0*b1 + a1*b0, a0*b2 + a2*b0, a0 * b0,
+		// η'²
+		b1*b1 + 2*b0*b3, 2*b1*b2 + 2*b0*b4, b2*b2 + 2*b0*b5, 2 * b0 * b1, 2 * b0 * b2, b0 * b0,
+		// ξ'
+		a3, a4, a5, a1, a2, a0,
+		// η'
+		b3, b4, b5, b1, b2, b0,
+		// 1
+		0, 0, 0, 0, 0, 1,
+	}
+}
+
+// compose2 sets p ← p ∘ dp⁻¹ for second-order warps through warpMatrix.
+func compose2(p, dp *[12]float64) bool {
+	var wp, wd, inv [36]float64
+	warpMatrix(p, &wp)
+	warpMatrix(dp, &wd)
+	if !invert6(&wd, &inv) {
+		return false
+	}
+	var r [2][6]float64 // rows ξ' and η' of wp·inv
+	for i := 0; i < 2; i++ {
+		for j := 0; j < 6; j++ {
+			var s float64
+			for k := 0; k < 6; k++ {
+				s += wp[(3+i)*6+k] * inv[k*6+j]
+			}
+			r[i][j] = s
+		}
+	}
+	p[Uxx], p[Uxy], p[Uyy], p[Ux], p[Uy], p[U] = 2*r[0][0], r[0][1], 2*r[0][2], r[0][3]-1, r[0][4], r[0][5]
+	p[Vxx], p[Vxy], p[Vyy], p[Vx], p[Vy], p[V] = 2*r[1][0], r[1][1], 2*r[1][2], r[1][3], r[1][4]-1, r[1][5]
+	return true
+}
+
+// invert6 inverts a 6×6 matrix by Gauss–Jordan elimination with partial
+// pivoting, reporting false if it is singular.
+func invert6(a, inv *[36]float64) bool {
+	m := *a
+	*inv = [36]float64{}
+	for i := 0; i < 6; i++ {
+		inv[i*6+i] = 1
+	}
+	for c := 0; c < 6; c++ {
+		piv, best := c, math.Abs(m[c*6+c])
+		for r := c + 1; r < 6; r++ {
+			if v := math.Abs(m[r*6+c]); v > best {
+				piv, best = r, v
+			}
+		}
+		if !(best > 1e-14) {
+			return false
+		}
+		if piv != c {
+			for k := 0; k < 6; k++ {
+				m[c*6+k], m[piv*6+k] = m[piv*6+k], m[c*6+k]
+				inv[c*6+k], inv[piv*6+k] = inv[piv*6+k], inv[c*6+k]
+			}
+		}
+		d := 1 / m[c*6+c]
+		for k := 0; k < 6; k++ {
+			m[c*6+k] *= d
+			inv[c*6+k] *= d
+		}
+		for r := 0; r < 6; r++ {
+			if r == c {
+				continue
+			}
+			f := m[r*6+c]
+			if f == 0 {
+				continue
+			}
+			for k := 0; k < 6; k++ {
+				m[r*6+k] -= f * m[c*6+k]
+				inv[r*6+k] -= f * inv[c*6+k]
+			}
+		}
+	}
+	return true
+}
+
+// cholesky factors the symmetric positive definite n×n matrix whose upper
+// triangle is in a (row stride 12) as L·Lᵀ, L stored lower-triangular in l.
+// It reports false if a is not numerically positive definite.
+func cholesky(a *[144]float64, n int, l *[144]float64) bool {
+	*l = [144]float64{}
+	for j := 0; j < n; j++ {
+		d := a[j*12+j]
+		for k := 0; k < j; k++ {
+			d -= l[j*12+k] * l[j*12+k]
+		}
+		if !(d > 1e-12*a[j*12+j]) {
+			return false
+		}
+		d = math.Sqrt(d)
+		l[j*12+j] = d
+		for i := j + 1; i < n; i++ {
+			s := a[j*12+i] // upper triangle: a[j][i] = a[i][j]
+			for k := 0; k < j; k++ {
+				s -= l[i*12+k] * l[j*12+k]
+			}
+			l[i*12+j] = s / d
+		}
+	}
+	return true
+}
+
+// cholSolve solves L·Lᵀ x = b in place.
+func cholSolve(l *[144]float64, n int, b *[12]float64) {
+	for i := 0; i < n; i++ {
+		s := b[i]
+		for k := 0; k < i; k++ {
+			s -= l[i*12+k] * b[k]
+		}
+		b[i] = s / l[i*12+i]
+	}
+	for i := n - 1; i >= 0; i-- {
+		s := b[i]
+		for k := i + 1; k < n; k++ {
+			s -= l[k*12+i] * b[k]
+		}
+		b[i] = s / l[i*12+i]
+	}
+}
