@@ -142,7 +142,7 @@ func TestEvents(t *testing.T) {
 	ct, body := multipartBody(t, analysisParts(ref, def, `{"subset": 15}`)...)
 	_, b := ts.do(t, "POST", "/v1/analyses", ct, body)
 	id := decodeJSON[jobDoc](t, b).ID
-	resp, err := ts.Client().Get(ts.URL + "/v1/analyses/" + id + "/events")
+	resp, err := ts.client().Get(ts.URL + "/v1/analyses/" + id + "/events")
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -190,7 +190,7 @@ func TestConcurrentClients(t *testing.T) {
 				for try := 0; try < 200 && id == ""; try++ {
 					req, _ := http.NewRequest("POST", ts.URL+"/v1/analyses", bytes.NewReader(body))
 					req.Header.Set("Content-Type", ct)
-					resp, err := ts.Client().Do(req)
+					resp, err := ts.client().Do(req)
 					if err != nil {
 						errs <- err
 						return

@@ -227,7 +227,7 @@ func (ts *testServer) do(t testing.TB, method, path, ctype string, body []byte) 
 	if ts.token != "" {
 		req.Header.Set("Authorization", "Bearer "+ts.token)
 	}
-	resp, err := ts.Client().Do(req)
+	resp, err := ts.client().Do(req)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -287,3 +287,38 @@ type problemDoc struct {
 }
 
 func embeddedQueue(n int) jobs.Queue { return embedded.NewQueue(n) }
+
+func (ts *testServer) srv2Backend(t testing.TB) *jobs.Backend {
+	be, err := embedded.Open(t.TempDir(), 4)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { be.Close() })
+	return be
+}
+
+// newClientOnly wraps a base URL of a server in another process.
+func newClientOnly(url string) *httptest.Server {
+	return &httptest.Server{URL: url, Config: &http.Server{}}
+}
+
+// waitState polls a job until it reaches state.
+func (ts *testServer) waitState(t testing.TB, path, state string) {
+	t.Helper()
+	deadline := time.Now().Add(20 * time.Second)
+	for time.Now().Before(deadline) {
+		_, b := ts.do(t, "GET", path, "", nil)
+		if decodeJSON[jobDoc](t, b).State == state {
+			return
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	t.Fatalf("%s never reached %s", path, state)
+}
+
+func (ts *testServer) client() *http.Client {
+	if c := ts.Server.Client(); c != nil {
+		return c
+	}
+	return http.DefaultClient
+}

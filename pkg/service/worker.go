@@ -19,7 +19,7 @@ import (
 // jobCtx, which is canceled (cause errShutdown) when the shutdown grace
 // period is over.
 func (s *Server) work(dequeueCtx, jobCtx context.Context) {
-	for {
+	for dequeueCtx.Err() == nil {
 		d, err := s.queue.Dequeue(dequeueCtx)
 		if err != nil {
 			if dequeueCtx.Err() != nil {
@@ -32,6 +32,10 @@ func (s *Server) work(dequeueCtx, jobCtx context.Context) {
 			case <-time.After(time.Second):
 			}
 			continue
+		}
+		if dequeueCtx.Err() != nil {
+			_ = d.Nak() // shutdown began while waiting: leave it for the next run
+			return
 		}
 		s.runJob(jobCtx, d)
 	}

@@ -57,6 +57,9 @@ func (q *Queue) signal() {
 // Dequeue implements jobs.Queue.
 func (q *Queue) Dequeue(ctx context.Context) (jobs.Delivery, error) {
 	for {
+		if err := ctx.Err(); err != nil {
+			return nil, err
+		}
 		q.mu.Lock()
 		if len(q.ids) > 0 {
 			id := q.ids[0]
