@@ -1,13 +1,15 @@
 package field
 
 import (
-	"encoding/csv"
+	"bufio"
 	"fmt"
 	"io"
 	"strconv"
+	"strings"
 )
 
-// WriteCSV writes f as comma-separated values (RFC 4180): a header line
+// WriteCSV writes f as comma-separated values (RFC 4180, lines ending in
+// \n): a header line
 //
 //	i,j,x,y,status,<quantity names in the order of Field.Names>
 //
@@ -23,41 +25,59 @@ func WriteCSV(w io.Writer, f *Field) error {
 		return fmt.Errorf("field.csv: %w", err)
 	}
 	names := f.Names()
-	cw := csv.NewWriter(w)
-	rec := append([]string{"i", "j", "x", "y", "status"}, names...)
-	if err := cw.Write(rec); err != nil {
-		return fmt.Errorf("field.csv: %w", err)
+	bw := bufio.NewWriterSize(w, 1<<16)
+	var line []byte
+	for k, n := range append([]string{"i", "j", "x", "y", "status"}, names...) {
+		if k > 0 {
+			line = append(line, ',')
+		}
+		line = appendCSVField(line, n)
 	}
+	bw.Write(append(line, '\n'))
 	cols := make([][]float64, len(names))
 	for k, n := range names {
 		cols[k] = f.Quantities[n]
 	}
 	g := f.Grid
-	var buf []byte
-	format := func(x float64) string {
+	num := func(b []byte, x float64) []byte {
 		if !finite(x) {
-			return ""
+			return b
 		}
-		buf = strconv.AppendFloat(buf[:0], x, 'g', -1, 64)
-		return string(buf)
+		return strconv.AppendFloat(b, x, 'g', -1, 64)
 	}
 	for p := range g.Len() {
-		rec = rec[:0]
-		st := ""
+		line = strconv.AppendInt(line[:0], int64(p%g.Nx), 10)
+		line = append(line, ',')
+		line = strconv.AppendInt(line, int64(p/g.Nx), 10)
+		line = append(line, ',')
+		line = num(line, g.X[p])
+		line = append(line, ',')
+		line = num(line, g.Y[p])
+		line = append(line, ',')
 		if f.Status != nil {
-			st = f.Status[p]
+			line = appendCSVField(line, f.Status[p])
 		}
-		rec = append(rec, strconv.Itoa(p%g.Nx), strconv.Itoa(p/g.Nx), format(g.X[p]), format(g.Y[p]), st)
 		for _, c := range cols {
-			rec = append(rec, format(c[p]))
+			line = append(line, ',')
+			line = num(line, c[p])
 		}
-		if err := cw.Write(rec); err != nil {
+		if _, err := bw.Write(append(line, '\n')); err != nil {
 			return fmt.Errorf("field.csv row %d: %w", p, err)
 		}
 	}
-	cw.Flush()
-	if err := cw.Error(); err != nil {
+	if err := bw.Flush(); err != nil {
 		return fmt.Errorf("field.csv: %w", err)
 	}
 	return nil
+}
+
+// appendCSVField appends s to b, quoted as RFC 4180 requires when it holds
+// a comma, a quote, a line break or leading or trailing space.
+func appendCSVField(b []byte, s string) []byte {
+	if s == "" || !strings.ContainsAny(s, ",\"\r\n") && s[0] != ' ' && s[len(s)-1] != ' ' {
+		return append(b, s...)
+	}
+	b = append(b, '"')
+	b = append(b, strings.ReplaceAll(s, `"`, `""`)...)
+	return append(b, '"')
 }

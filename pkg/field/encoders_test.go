@@ -120,6 +120,7 @@ func TestReadJSONErrors(t *testing.T) {
 // the columns, invalid cells are empty, and values read back exactly.
 func TestCSV(t *testing.T) {
 	f := sample(t)
+	f.Status[1] = `odd, "quoted"` // must survive RFC 4180 quoting
 	var buf bytes.Buffer
 	if err := WriteCSV(&buf, f); err != nil {
 		t.Fatal(err)

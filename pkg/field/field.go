@@ -111,7 +111,7 @@ func CanonicalNames() []string {
 		"eps11", "eps22", "eps12",
 		"rotation_deg", "e1", "e2", "principal_angle_deg", "von_mises", "detF",
 		"zncc", "std_u", "std_v", "valid",
-		"std_E11", "std_E22", "std_E12",
+		"std_E11", "std_E22", "std_E12", "eps_valid",
 	}
 }
 

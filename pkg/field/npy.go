@@ -188,10 +188,10 @@ func ReadNPY(r io.Reader, maxBytes int64) ([]float64, []int, error) {
 }
 
 // WriteNPZ writes every quantity of f as an .npz archive (a zip of .npy
-// files, as numpy.savez writes): "<name>.npy" of shape (Ny, Nx) for each
-// quantity, "grid_x.npy" and "grid_y.npy" with the reference coordinates, and
-// "status.npy" with the status strings (unicode, shape (Ny, Nx)). numpy.load
-// opens it without allow_pickle.
+// files, stored uncompressed as numpy.savez writes them): "<name>.npy" of
+// shape (Ny, Nx) for each quantity, "grid_x.npy" and "grid_y.npy" with the
+// reference coordinates, and "status.npy" with the status strings (unicode,
+// shape (Ny, Nx)). numpy.load opens it without allow_pickle.
 func WriteNPZ(w io.Writer, f *Field) error {
 	if err := f.Validate(); err != nil {
 		return fmt.Errorf("field.npz: %w", err)
@@ -199,7 +199,7 @@ func WriteNPZ(w io.Writer, f *Field) error {
 	zw := zip.NewWriter(w)
 	g := f.Grid
 	add := func(name string, data []float64) error {
-		e, err := zw.CreateHeader(&zip.FileHeader{Name: name + ".npy", Method: zip.Deflate})
+		e, err := zw.CreateHeader(&zip.FileHeader{Name: name + ".npy", Method: zip.Store})
 		if err != nil {
 			return err
 		}
@@ -214,7 +214,7 @@ func WriteNPZ(w io.Writer, f *Field) error {
 		return fmt.Errorf("field.npz grid: %w", err)
 	}
 	if f.Status != nil {
-		e, err := zw.CreateHeader(&zip.FileHeader{Name: "status.npy", Method: zip.Deflate})
+		e, err := zw.CreateHeader(&zip.FileHeader{Name: "status.npy", Method: zip.Store})
 		if err == nil {
 			err = writeNPYStrings(e, f.Status, g.Ny, g.Nx)
 		}

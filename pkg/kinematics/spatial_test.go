@@ -140,3 +140,17 @@ func TestQuantities(t *testing.T) {
 		t.Errorf("failed fit: F11 = %v, want NaN", q["F11"][3])
 	}
 }
+
+func BenchmarkToDeformed(b *testing.B) {
+	ref := Grid{X0: 16, Y0: 16, Step: 4, Nx: 120, Ny: 120}
+	u, v := fillField(ref, func(x, y float64) float64 { return 0.02*x + 1 }, func(x, y float64) float64 { return -0.01 * y })
+	q := make([]float64, ref.Len())
+	out := Grid{Step: 1, Nx: 512, Ny: 512}
+	b.ReportAllocs()
+	for b.Loop() {
+		if _, err := ToDeformed(ref, u, v, [][]float64{q}, out); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64(out.Len())*float64(b.N)/b.Elapsed().Seconds(), "pixels/s")
+}

@@ -1,0 +1,38 @@
+package field
+
+import (
+	"io"
+	"math"
+	"testing"
+)
+
+// benchField returns a 300×300-point field with every canonical quantity.
+func benchField() *Field {
+	f := New(300, 300, 0, 0, 4, 21)
+	for k, n := range CanonicalNames() {
+		q := make([]float64, f.Grid.Len())
+		for p := range q {
+			q[p] = math.Sin(float64(p*(k+1))) * 1e-3
+		}
+		f.Set(n, DefaultUnit(n, "px"), q)
+	}
+	return f
+}
+
+func BenchmarkEncoders(b *testing.B) {
+	f := benchField()
+	for _, c := range []struct {
+		name string
+		fn   func(io.Writer, *Field) error
+	}{{"json", WriteJSON}, {"csv", WriteCSV}, {"vts", WriteVTS}, {"npz", WriteNPZ}} {
+		b.Run(c.name, func(b *testing.B) {
+			b.ReportAllocs()
+			for b.Loop() {
+				if err := c.fn(io.Discard, f); err != nil {
+					b.Fatal(err)
+				}
+			}
+			b.ReportMetric(float64(f.Grid.Len())*float64(b.N)/b.Elapsed().Seconds(), "points/s")
+		})
+	}
+}
