@@ -1,0 +1,244 @@
+package analysis
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/correlate"
+	"github.com/mottledic/mottle/pkg/field"
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/kinematics"
+	"github.com/mottledic/mottle/pkg/roi"
+	"github.com/mottledic/mottle/pkg/spline"
+)
+
+// Software names the program in the metadata of every result.
+const Software = "mottle 0.1"
+
+// Job is one analysis: the two images and everything that is not a
+// serialisable parameter.
+type Job struct {
+	Ref, Def *imageio.Gray
+	// RefName and DefName name the images in the metadata (file names).
+	RefName, DefName string
+	// Mask is an optional ROI mask image, intersected with Params.ROI.
+	Mask *imageio.Gray
+	// Params are the analysis parameters.
+	Params Params
+	// Start is an optional starting guess per grid point (an earlier result
+	// on the same grid), used by series to start from the previous frame.
+	Start []correlate.Point
+	// Progress, if not nil, receives the correlation progress.
+	Progress func(done, total int)
+}
+
+// Output is the result of an analysis: the field and the correlation result
+// it was computed from.
+type Output struct {
+	Field       *field.Field
+	Correlation *correlate.Result
+	// Elapsed is the wall time of correlation and kinematics.
+	Elapsed time.Duration
+}
+
+// Run analyses a reference and a deformed image with parameters p and
+// returns the result field. progress may be nil. Errors name the image or
+// parameter at fault; parameter problems come as a *ValidationError.
+func Run(ctx context.Context, ref, def *imageio.Gray, p Params, progress func(done, total int)) (*field.Field, error) {
+	out, err := RunJob(ctx, Job{Ref: ref, Def: def, Params: p, Progress: progress})
+	if err != nil {
+		return nil, err
+	}
+	return out.Field, nil
+}
+
+// RunJob is Run with the full set of inputs of a Job.
+func RunJob(ctx context.Context, j Job) (*Output, error) {
+	start := time.Now()
+	if j.Ref == nil || j.Def == nil {
+		return nil, errors.New("analysis needs both a reference and a deformed image")
+	}
+	p := j.Params
+	if err := p.Validate(j.Ref.W, j.Ref.H); err != nil {
+		return nil, err
+	}
+	if err := imageio.CheckPair(j.Ref, j.Def, p.Subset); err != nil {
+		return nil, err
+	}
+	opt, err := correlationOptions(p, j)
+	if err != nil {
+		return nil, err
+	}
+	res, err := correlate.Run(ctx, j.Ref, j.Def, opt)
+	if err != nil {
+		return nil, fmt.Errorf("correlation: %w", err)
+	}
+	f, err := Kinematics(ctx, res, p)
+	if err != nil {
+		return nil, err
+	}
+	f.Meta.Reference, f.Meta.Deformed = j.RefName, j.DefName
+	f.Meta.ImageWidth, f.Meta.ImageHeight = j.Ref.W, j.Ref.H
+	elapsed := time.Since(start)
+	f.Meta.Extra["elapsed_s"] = math.Round(elapsed.Seconds()*1000) / 1000
+	if s := elapsed.Seconds(); s > 0 {
+		f.Meta.Extra["points_per_second"] = math.Round(float64(res.Grid.Len()) / s)
+	}
+	return &Output{Field: f, Correlation: res, Elapsed: elapsed}, nil
+}
+
+// correlationOptions turns the parameters into correlator options,
+// building the ROI mask from the Spec and the optional mask image.
+func correlationOptions(p Params, j Job) (correlate.Options, error) {
+	opt := correlate.Defaults()
+	opt.Subset, opt.Step = p.Subset, p.Step
+	opt.Shape = correlate.First
+	if p.Shape == "second" {
+		opt.Shape = correlate.Second
+	}
+	order, err := spline.ParseOrder(p.Interpolation)
+	if err != nil {
+		return opt, &ValidationError{[]Problem{{Field: "interpolation", Message: err.Error()}}}
+	}
+	opt.Interp = order
+	opt.Prefilter = p.Prefilter
+	opt.Seeds = p.Seeds
+	opt.Search = p.Search
+	opt.MinZNCC = p.MinZNCC
+	opt.MaxIter = p.MaxIter
+	opt.Tol = p.Tolerance
+	opt.Threads = p.Threads
+	opt.Noise = p.Noise
+	opt.Start = j.Start
+	opt.Progress = j.Progress
+	w, h := j.Ref.W, j.Ref.H
+	var mask *roi.Mask
+	if p.ROI != nil {
+		if mask, err = p.ROI.Mask(w, h); err != nil {
+			return opt, &ValidationError{[]Problem{{Field: "roi", Message: err.Error()}}}
+		}
+	}
+	if j.Mask != nil {
+		m, err := roi.FromImage(j.Mask, w, h)
+		if err != nil {
+			return opt, fmt.Errorf("mask image: %w", err)
+		}
+		if mask == nil {
+			mask = m
+		} else if mask, err = mask.Intersect(m); err != nil {
+			return opt, fmt.Errorf("mask image: %w", err)
+		}
+	}
+	opt.Mask = mask
+	if err := opt.Validate(); err != nil {
+		return opt, fmt.Errorf("correlation options: %w", err)
+	}
+	return opt, nil
+}
+
+// Kinematics derives the result field from a correlation result: the
+// displacement gradient by the strain-window fit, every strain measure,
+// rotation and principal values, with the propagated uncertainty. Lengths
+// are converted to mm when p sets a scale.
+func Kinematics(ctx context.Context, res *correlate.Result, p Params) (*field.Field, error) {
+	g := res.Grid
+	n := g.Len()
+	f := field.New(g.Nx, g.Ny, g.X0, g.Y0, g.Step, p.Subset)
+	u, v := make([]float64, n), make([]float64, n)
+	su, sv := make([]float64, n), make([]float64, n)
+	zncc, valid, iters := make([]float64, n), make([]float64, n), make([]float64, n)
+	for k, pt := range res.Points {
+		zncc[k], iters[k] = nan, nan
+		if pt.Status != correlate.OK {
+			u[k], v[k], su[k], sv[k] = nan, nan, nan, nan
+			if pt.Converged {
+				zncc[k] = pt.ZNCC
+			}
+			f.Status[k] = pt.Status.String()
+			continue
+		}
+		u[k], v[k] = pt.P[correlate.U], pt.P[correlate.V]
+		su[k], sv[k] = pt.StdU, pt.StdV
+		zncc[k], valid[k], iters[k] = pt.ZNCC, 1, float64(pt.Iter)
+	}
+	fit, err := kinematics.ParseFit(p.StrainFit)
+	if err != nil {
+		return nil, &ValidationError{[]Problem{{Field: "strain_fit", Message: err.Error()}}}
+	}
+	kg := kinematics.Grid{X0: float64(g.X0), Y0: float64(g.Y0), Step: float64(g.Step), Nx: g.Nx, Ny: g.Ny}
+	grads, err := kinematics.Gradients(ctx, kg, u, v, su, sv, kinematics.GradientOptions{Window: p.StrainWindow, Fit: fit, Threads: p.Threads})
+	if err != nil {
+		return nil, fmt.Errorf("strain fit: %w", err)
+	}
+	qs, status := kinematics.Quantities(grads, kinematics.GreenLagrangeMeasure)
+	for k := range status {
+		if f.Status[k] == "ok" {
+			f.Status[k] = status[k]
+		}
+	}
+	scale, length := 1.0, "px"
+	if mm := p.scale(); mm > 0 {
+		scale, length = mm, "mm"
+	}
+	for _, q := range [][]float64{u, v, su, sv} {
+		for k := range q {
+			q[k] *= scale
+		}
+	}
+	set := func(name string, vals []float64) error { return f.Set(name, field.DefaultUnit(name, length), vals) }
+	for _, q := range []struct {
+		name string
+		vals []float64
+	}{{"u", u}, {"v", v}, {"zncc", zncc}, {"std_u", su}, {"std_v", sv}, {"valid", valid}, {"iterations", iters}} {
+		if err := set(q.name, q.vals); err != nil {
+			return nil, err
+		}
+	}
+	for _, name := range kinematics.QuantityNames() {
+		if err := set(name, qs[name]); err != nil {
+			return nil, err
+		}
+	}
+	params, err := json.Marshal(p)
+	if err != nil {
+		return nil, fmt.Errorf("parameters: %w", err)
+	}
+	f.Params = params
+	f.Meta = field.Meta{
+		Software:     Software,
+		Created:      time.Now().UTC().Truncate(time.Second),
+		NoiseSigma:   res.Noise,
+		VSG:          kinematics.VSG(p.StrainWindow, float64(p.Step), float64(p.Subset)),
+		StrainWindow: p.StrainWindow,
+		StrainFit:    fit.String(),
+		PrincipalOf:  "green_lagrange",
+		MMPerPx:      p.scale(),
+		Cautions:     field.Cautions(),
+		Extra: map[string]any{
+			"noise_source": res.NoiseSource,
+			"seeds":        res.Seeds,
+			"stats":        res.Stats,
+		},
+	}
+	return f, nil
+}
+
+var nan = math.NaN()
+
+// scale returns the image scale in mm per px set by MMPerPx or ScalePoints,
+// or 0 when the results stay in px.
+func (p Params) scale() float64 {
+	if p.MMPerPx > 0 {
+		return p.MMPerPx
+	}
+	if s := p.ScalePoints; s != nil {
+		if d := math.Hypot(s.B[0]-s.A[0], s.B[1]-s.A[1]); d > 0 {
+			return s.Distance / d
+		}
+	}
+	return 0
+}
