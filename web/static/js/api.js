@@ -12,11 +12,32 @@ export class ApiError extends Error {
   }
 }
 
+const tokenKey = 'mottle-token';
+
+/** token returns the bearer token the user entered for this tab ('' for none). */
+export function token() {
+  try { return sessionStorage.getItem(tokenKey) || ''; } catch { return ''; }
+}
+
+/** setToken keeps t for the rest of the tab's session ('' removes it). */
+export function setToken(t) {
+  try { if (t) sessionStorage.setItem(tokenKey, t); else sessionStorage.removeItem(tokenKey); } catch { /* storage off */ }
+}
+
+/** withAuth adds the bearer token, if any, to fetch options. */
+export function withAuth(opts = {}) {
+  const t = token();
+  if (!t) return opts;
+  const headers = new Headers(opts.headers || {});
+  headers.set('Authorization', `Bearer ${t}`);
+  return { ...opts, headers };
+}
+
 /** request fetches url and throws ApiError for any status outside 2xx. */
 export async function request(url, opts = {}) {
   let resp;
   try {
-    resp = await fetch(url, opts);
+    resp = await fetch(url, withAuth(opts));
   } catch (err) {
     throw new ApiError(0, {
       title: 'The service did not answer',
@@ -65,6 +86,8 @@ export function describe(err) {
       });
     }
   }
+  if (err instanceof ApiError && err.status === 401 && !p.detail) p.detail = 'This server asks for an access token.';
+  if (err instanceof ApiError && err.status === 401) items.push({ field: 'token', message: 'enter the access token under “Connection” at the top of the page' });
   let title = p.title || 'Request failed';
   if (err instanceof ApiError && err.status) title += ` (HTTP ${err.status})`;
   return { title, detail: p.detail || '', items };

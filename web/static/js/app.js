@@ -1,6 +1,6 @@
 // Mottle preview: wires the page to the HTTP API.
 
-import { ApiError, absolute, describe, getJSON, request } from './api.js';
+import { ApiError, absolute, describe, getJSON, request, setToken, token, withAuth } from './api.js';
 import { parseField } from './field.js';
 import { fmt, linePlot } from './plot.js';
 import { RoiEditor } from './roi.js';
@@ -230,6 +230,8 @@ function track(id, first) {
   };
   if (first && first.state) seen(first);
   try {
+    // EventSource cannot send a bearer token: with one, polling alone.
+    if (token()) throw new Error('token');
     es = new EventSource(`${url}/events`);
     const onEvent = ev => { try { seen(JSON.parse(ev.data)); } catch { /* not JSON */ } };
     es.onmessage = onEvent;
@@ -258,7 +260,7 @@ async function cancel() {
 
 async function loadImage(url) {
   try {
-    const resp = await fetch(url);
+    const resp = await fetch(url, withAuth());
     if (!resp.ok) return null;
     return await createImageBitmap(await resp.blob());
   } catch { return null; }
@@ -277,6 +279,8 @@ async function openResult(base, job, label) {
     images.reference = images.reference || state.bitmaps.reference;
     images.deformed = images.deformed || state.bitmaps.deformed;
   }
+  if (!base.includes('/frames/')) { view.line = null; view.lineRef = null; $('profile-text').textContent = 'No profile yet.'; delete $('profile-text').dataset.count;
+    const pc = $('profile-canvas'); pc.getContext('2d').clearRect(0, 0, pc.width, pc.height); }
   state.base = base; state.job = job; state.field = field;
   const sel = $('q-select');
   const prev = sel.value;
@@ -301,12 +305,25 @@ function updateDownloads() {
   const add = (href, text) => {
     const li = document.createElement('li');
     const a = document.createElement('a'); a.href = href; a.textContent = text; a.setAttribute('download', '');
+    a.addEventListener('click', e => { if (token()) { e.preventDefault(); downloadWithToken(href); } });
     li.appendChild(a); ul.appendChild(li);
   };
   for (const n of names) add(`${state.base}/${n}`, n);
   const o = view.opts;
   const q = new URLSearchParams({ quantity: o.quantity, range: `${o.lo},${o.hi}`, on: o.on });
   add(`${state.base}/map.png?${q}`, `map.png (${o.quantity})`);
+}
+
+// A link cannot carry a bearer token: fetch the file and save it from memory.
+async function downloadWithToken(href) {
+  try {
+    const resp = await request(href);
+    const url = URL.createObjectURL(await resp.blob());
+    const a = document.createElement('a');
+    a.href = url; a.download = href.split('?')[0].split('/').pop();
+    document.body.appendChild(a); a.click(); a.remove();
+    setTimeout(() => URL.revokeObjectURL(url), 10000);
+  } catch (err) { showError(err); }
 }
 
 // ---- series -------------------------------------------------------------------
@@ -316,7 +333,11 @@ function flatten(row, out = {}, prefix = '') {
     const key = prefix ? `${prefix} ${k}` : k;
     if (typeof v === 'number') out[key] = v;
     else if (v === null) out[key] = NaN;
-    else if (v && typeof v === 'object' && !Array.isArray(v)) flatten(v, out, prefix || k === 'gauges' || k === 'summary' ? prefix : k);
+    else if (v && typeof v === 'object' && !Array.isArray(v)) {
+      // Gauges keep their own names; other groups prefix theirs ("mean E11").
+      const inner = k === 'gauges' || k === 'summary' ? prefix : key;
+      flatten(v, out, inner);
+    }
   }
   return out;
 }
@@ -337,6 +358,35 @@ async function openSeries(id) {
   $('frame-out').textContent = sl.value;
   await loadCurve();
   if (frames > 0) await showFrame(+sl.value);
+  watchSeries();
+}
+
+// watchSeries follows new and finished frames of the open series.
+function watchSeries() {
+  const s = state.series;
+  if (s.events) s.events.close();
+  if (token()) return; // EventSource cannot send a bearer token
+  let timer = 0;
+  const refresh = () => {
+    clearTimeout(timer);
+    timer = setTimeout(async () => {
+      try {
+        const rec = await getJSON(s.base);
+        s.rec = rec;
+        s.frames = Array.isArray(rec.frames) ? rec.frames.length : (rec.frame_count || 0);
+        const sl = $('frame-slider');
+        const atEnd = +sl.value >= +sl.max;
+        sl.max = String(Math.max(0, s.frames - 1));
+        if (atEnd) { sl.value = sl.max; $('frame-out').textContent = sl.value; }
+        await loadCurve();
+      } catch { /* keep the last curve */ }
+    }, 500);
+  };
+  try {
+    s.events = new EventSource(`${s.base}/events`);
+    s.events.addEventListener('frame', refresh);
+    s.events.onerror = () => { s.events.close(); };
+  } catch { /* no live updates */ }
 }
 
 async function loadCurve() {
@@ -372,6 +422,11 @@ async function showFrame(n) {
   const base = `${s.base}/frames/${n}`;
   let job = null;
   try { job = await getJSON(base); } catch { /* the frame record is optional */ }
+  if (job && job.state && job.state !== 'succeeded') {
+    const e = job.error || {};
+    $('curve-text').textContent = `Frame ${n} is ${job.state}${e.detail ? ': ' + e.detail : ''}; its map appears once it has succeeded.`;
+    return;
+  }
   state.fromUpload = false;
   await openResult(base, job || { width: s.rec.width, height: s.rec.height }, `series ${s.id}, frame ${n}`);
 }
@@ -386,6 +441,8 @@ const view = new MapView({
   onLine: L => { $('pr-x0').value = fmt(L.x0); $('pr-y0').value = fmt(L.y0); $('pr-x1').value = fmt(L.x1); $('pr-y1').value = fmt(L.y1); },
 });
 
+$('token').value = token();
+$('token').addEventListener('change', e => setToken(e.target.value.trim()));
 wireDrop('reference');
 wireDrop('deformed');
 $('btn-demo').addEventListener('click', () => submit('demo'));
@@ -442,5 +499,12 @@ if (qs.get('analysis')) track(qs.get('analysis'));
 if (qs.get('series')) { $('series-id').value = qs.get('series'); openSeries(qs.get('series')); }
 
 // A small hook for the browser tests and for scripting the page.
-window.mottlePreview = { view, editor, state, toClient: (x, y) => view.toClient(x, y) };
+window.mottlePreview = {
+  view, editor, state,
+  toClient: (x, y) => view.toClient(x, y),
+  roiToClient: (x, y) => {
+    const c = editor.canvas, r = c.getBoundingClientRect();
+    return [r.left + x * editor.s * r.width / c.width, r.top + y * editor.s * r.height / c.height];
+  },
+};
 document.body.dataset.ready = 'true';
