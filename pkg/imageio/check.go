@@ -62,7 +62,7 @@ func CheckContrast(g *Gray) error {
 // CheckPair checks that a reference and a deformed image can be
 // correlated with square subsets of side subset px: both present, the
 // same size, each at least one subset wide and high, and each with
-// contrast. All problems are returned together (errors.Join); each names
+// contrast (subset ≤ 0 skips the subset check). All problems are returned together (errors.Join); each names
 // the image, what is wrong and what would work, and wraps ErrSizeMismatch,
 // ErrTooSmall or ErrNoContrast.
 func CheckPair(ref, def *Gray, subset int) error {
@@ -75,7 +75,7 @@ func CheckPair(ref, def *Gray, subset int) error {
 			errs = append(errs, fmt.Errorf("%s image: %w: it is empty", im.name, ErrTooSmall))
 			continue
 		}
-		if im.g.W < subset || im.g.H < subset {
+		if subset > 0 && (im.g.W < subset || im.g.H < subset) {
 			errs = append(errs, fmt.Errorf("%s image: %w: %d×%d px is smaller than one %d×%d px subset; "+
 				"use a subset of at most %d px or a larger image",
 				im.name, ErrTooSmall, im.g.W, im.g.H, subset, subset, min(im.g.W, im.g.H)))

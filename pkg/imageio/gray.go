@@ -26,3 +26,16 @@ func (g *Gray) At(x, y int) float32 { return g.Pix[y*g.Stride+x] }
 
 // Set sets the grey level at (x, y).
 func (g *Gray) Set(x, y int, v float32) { g.Pix[y*g.Stride+x] = v }
+
+// Sub returns the w×h window of g whose top-left pixel is (x0, y0),
+// sharing g's pixels. The window is clipped to g; it may be empty.
+func (g *Gray) Sub(x0, y0, w, h int) *Gray {
+	x1, y1 := min(x0+w, g.W), min(y0+h, g.H)
+	x0, y0 = max(x0, 0), max(y0, 0)
+	if x1 <= x0 || y1 <= y0 {
+		return &Gray{Stride: g.Stride, Bits: g.Bits}
+	}
+	off := y0*g.Stride + x0
+	end := (y1-1)*g.Stride + x1
+	return &Gray{Pix: g.Pix[off:end:end], Stride: g.Stride, W: x1 - x0, H: y1 - y0, Bits: g.Bits}
+}

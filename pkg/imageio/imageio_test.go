@@ -9,6 +9,7 @@ import (
 	"image/color"
 	"image/jpeg"
 	"image/png"
+	"math"
 	"math/rand/v2"
 	"os"
 	"path/filepath"
@@ -309,5 +310,62 @@ func TestAutocorrelation(t *testing.T) {
 	}
 	if _, err := SpeckleSize(NewGray(64, 64)); !errors.Is(err, ErrNoContrast) {
 		t.Errorf("uniform image: %v", err)
+	}
+}
+
+func TestSub(t *testing.T) {
+	g := NewGray(10, 8)
+	for i := range g.Pix {
+		g.Pix[i] = float32(i)
+	}
+	s := g.Sub(3, 2, 4, 5)
+	if s.W != 4 || s.H != 5 || s.At(0, 0) != g.At(3, 2) || s.At(3, 4) != g.At(6, 6) {
+		t.Errorf("Sub: %d×%d, corners %g %g", s.W, s.H, s.At(0, 0), s.At(3, 4))
+	}
+	if c := g.Sub(8, 6, 10, 10); c.W != 2 || c.H != 2 || c.At(1, 1) != g.At(9, 7) {
+		t.Errorf("clipped Sub: %d×%d", c.W, c.H)
+	}
+	if e := g.Sub(20, 0, 3, 3); e.W != 0 || e.H != 0 {
+		t.Errorf("empty Sub: %d×%d", e.W, e.H)
+	}
+	// Stats and the speckle estimator honour the stride of a window.
+	_, _, mn, mx := Stats(s)
+	if mn != float64(g.At(3, 2)) || mx != float64(g.At(6, 6)) {
+		t.Errorf("Stats of window: min %g max %g", mn, mx)
+	}
+}
+
+// TestColourTIFFAndJPEG: 16-bit RGB TIFF keeps 16-bit luma; a colour
+// JPEG decodes to its Y channel (JFIF: Y is BT.601 luma).
+func TestColourTIFFAndJPEG(t *testing.T) {
+	m := image.NewRGBA64(image.Rect(0, 0, 2, 1))
+	m.Set(0, 0, color.RGBA64{40000, 40000, 40000, 65535})
+	m.Set(1, 0, color.RGBA64{65535, 0, 0, 65535})
+	var b bytes.Buffer
+	if err := tiff.Encode(&b, m, nil); err != nil {
+		t.Fatal(err)
+	}
+	g, err := Decode(&b, Limits{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if g.Bits != 16 || g.At(0, 0) != 40000 || math.Abs(float64(g.At(1, 0))-0.299*65535) > 0.01 {
+		t.Errorf("tiff16 rgb: bits %d, pixels %g %g", g.Bits, g.At(0, 0), g.At(1, 0))
+	}
+	c := image.NewRGBA(image.Rect(0, 0, 16, 16))
+	for i := 0; i < len(c.Pix); i += 4 {
+		c.Pix[i], c.Pix[i+1], c.Pix[i+2], c.Pix[i+3] = 200, 100, 50, 255
+	}
+	b.Reset()
+	if err := jpeg.Encode(&b, c, &jpeg.Options{Quality: 100}); err != nil {
+		t.Fatal(err)
+	}
+	g, err = Decode(&b, Limits{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := 0.299*200 + 0.587*100 + 0.114*50
+	if math.Abs(float64(g.At(8, 8))-want) > 2 {
+		t.Errorf("colour jpeg: %g, want about %g", g.At(8, 8), want)
 	}
 }

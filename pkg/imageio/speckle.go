@@ -92,11 +92,24 @@ func fastLen(n int) int {
 	}
 }
 
+// MaxSpeckleWindow is the side of the centred window that HWHM and
+// SpeckleSize analyse in larger images, to bound time and memory.
+const MaxSpeckleWindow = 512
+
 // HWHM returns the half width at half maximum of the image autocorrelation
 // along x and along y, in px: the lag at which ρ first falls to ½, linearly
-// interpolated between integer lags. Image noise lowers ρ at every non-zero
-// lag and so shortens the estimate slightly.
+// interpolated between integer lags. Images larger than
+// MaxSpeckleWindow px in either direction are analysed in a centred window
+// of that size. Image noise lowers ρ at every non-zero lag and so shortens
+// the estimate slightly.
 func HWHM(g *Gray) (hx, hy float64, err error) {
+	if g == nil {
+		return 0, 0, fmt.Errorf("%w: no image", ErrTooSmall)
+	}
+	if g.W > MaxSpeckleWindow || g.H > MaxSpeckleWindow {
+		w, h := min(g.W, MaxSpeckleWindow), min(g.H, MaxSpeckleWindow)
+		g = g.Sub((g.W-w)/2, (g.H-h)/2, w, h)
+	}
 	maxLag := min(64, g.W/4, g.H/4)
 	ax, ay, err := Autocorrelation(g, maxLag)
 	if err != nil {

@@ -131,9 +131,15 @@ func (h Hole) inverseFrom(x, y, X, Y float64) (float64, float64, error) {
 // u_θ: in the polar basis ∇u = [[∂u_r/∂r, (∂u_r/∂θ − u_θ)/r],
 // [∂u_θ/∂r, (∂u_θ/∂θ + u_r)/r]], rotated to x, y.
 func (h Hole) Gradient(X, Y float64) [2][2]float64 {
+	_, _, F := h.mapGrad(X, Y)
+	return F
+}
+
+// mapGrad returns κ(X) and F(X), sharing the polar coordinates.
+func (h Hole) mapGrad(X, Y float64) (float64, float64, [2][2]float64) {
 	r, c, s, c2, s2 := h.polar(X, Y)
 	if r == 0 {
-		return [2][2]float64{{1, 0}, {0, 1}}
+		return X, Y, [2][2]float64{{1, 0}, {0, 1}}
 	}
 	k, kap := h.constants()
 	a2 := h.Radius * h.Radius
@@ -157,7 +163,7 @@ func (h Hole) Gradient(X, Y float64) [2][2]float64 {
 	t01 := q00*g01 + q01*g11
 	t10 := q10*g00 + q11*g10
 	t11 := q10*g01 + q11*g11
-	return [2][2]float64{
+	return X + ur*c - ut*s, Y + ur*s + ut*c, [2][2]float64{
 		{1 + t00*q00 + t01*q01, t00*q10 + t01*q11},
 		{t10*q00 + t11*q01, 1 + t10*q10 + t11*q11},
 	}

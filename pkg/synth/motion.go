@@ -56,17 +56,31 @@ const (
 	newtonMaxIter = 60
 )
 
+// mapGradienter is implemented by motions that compute κ(X) and F(X)
+// faster together than apart.
+type mapGradienter interface {
+	mapGrad(X, Y float64) (x, y float64, F [2][2]float64)
+}
+
+// mapGrad returns κ(X) and F(X) of any motion.
+func mapGrad(m Motion, X, Y float64) (float64, float64, [2][2]float64) {
+	if mg, ok := m.(mapGradienter); ok {
+		return mg.mapGrad(X, Y)
+	}
+	x, y := m.Map(X, Y)
+	return x, y, m.Gradient(X, Y)
+}
+
 // newton solves κ(X) = x for X from the starting guess (X, Y), with
 // step halving when a full step increases the residual.
 func newton(m Motion, x, y, X, Y float64) (float64, float64, error) {
-	mx, my := m.Map(X, Y)
+	mx, my, F := mapGrad(m, X, Y)
 	rx, ry := mx-x, my-y
-	res := math.Hypot(rx, ry)
+	res2 := rx*rx + ry*ry
 	for it := 0; it < newtonMaxIter; it++ {
-		if res < newtonTol {
+		if res2 < newtonTol*newtonTol {
 			return X, Y, nil
 		}
-		F := m.Gradient(X, Y)
 		det := F[0][0]*F[1][1] - F[0][1]*F[1][0]
 		if !(det > 0) {
 			return X, Y, fmt.Errorf("%w at x = (%g, %g): det F = %g at X = (%g, %g)", ErrNoInverse, x, y, det, X, Y)
@@ -75,19 +89,19 @@ func newton(m Motion, x, y, X, Y float64) (float64, float64, error) {
 		dY := (-F[1][0]*rx + F[0][0]*ry) / det
 		for t := 1.0; ; t /= 2 {
 			nX, nY := X-t*dX, Y-t*dY
-			mx, my = m.Map(nX, nY)
-			nrx, nry := mx-x, my-y
-			nres := math.Hypot(nrx, nry)
-			if nres < res || t < 1e-3 {
-				X, Y, rx, ry, res = nX, nY, nrx, nry, nres
+			nmx, nmy, nF := mapGrad(m, nX, nY)
+			nrx, nry := nmx-x, nmy-y
+			nres2 := nrx*nrx + nry*nry
+			if nres2 < res2 || t < 1e-3 {
+				X, Y, rx, ry, res2, F = nX, nY, nrx, nry, nres2, nF
 				break
 			}
 		}
 	}
-	if res < newtonAccept {
+	if res2 < newtonAccept*newtonAccept {
 		return X, Y, nil
 	}
-	return X, Y, fmt.Errorf("%w at x = (%g, %g): residual %.3g px after %d iterations", ErrNoInverse, x, y, res, newtonMaxIter)
+	return X, Y, fmt.Errorf("%w at x = (%g, %g): residual %.3g px after %d iterations", ErrNoInverse, x, y, math.Sqrt(res2), newtonMaxIter)
 }
 
 // Identity is the motion that does nothing.
@@ -356,13 +370,15 @@ func (s Star) V(X, Y float64) float64 {
 // Map returns (X, Y + v(X, Y)).
 func (s Star) Map(X, Y float64) (float64, float64) { return X, Y + s.V(X, Y) }
 
-// Inverse returns (x, Y) with Y + v(x, Y) = y.
+// Inverse returns (x, Y) with Y + v(x, Y) = y, by Halley iteration
+// (cubically convergent) safeguarded by bisection on the bracket
+// [y − |A|, y + |A|], which holds the root because |v| ≤ |A|.
 func (s Star) Inverse(x, y float64) (float64, float64, error) {
 	p, _ := s.Period(x)
 	k := 2 * math.Pi / p
 	a := math.Abs(s.Amplitude)
-	lo, hi := y-a, y+a // the root is bracketed because |v| ≤ A
-	Y := y - s.V(x, y)
+	lo, hi := y-a, y+a
+	Y := y - s.Amplitude*math.Cos(k*(y-s.Y0))
 	for it := 0; it < newtonMaxIter; it++ {
 		sn, cs := math.Sincos(k * (Y - s.Y0))
 		g := Y + s.Amplitude*cs - y
@@ -374,8 +390,9 @@ func (s Star) Inverse(x, y float64) (float64, float64, error) {
 		} else {
 			lo = math.Max(lo, Y)
 		}
-		d := 1 - s.Amplitude*k*sn
-		n := Y - g/d
+		d1 := 1 - s.Amplitude*k*sn
+		d2 := -s.Amplitude * k * k * cs
+		n := Y - 2*g*d1/(2*d1*d1-g*d2)
 		if !(n > lo && n < hi) {
 			n = (lo + hi) / 2
 		}
