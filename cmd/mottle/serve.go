@@ -3,9 +3,146 @@ package main
 import (
 	"context"
 	"errors"
+	"fmt"
+	"log/slog"
+	"net"
+	"os"
+	"runtime"
+	"strings"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/service"
+	"github.com/mottledic/mottle/pkg/service/embedded"
+	"github.com/mottledic/mottle/pkg/synth"
+	"github.com/mottledic/mottle/web"
 )
 
-// runServe is a placeholder until the serve command lands.
+// runServe runs the HTTP service and the browser preview until SIGINT or
+// SIGTERM, then shuts down gracefully.
 func runServe(ctx context.Context, e *env, args []string) error {
-	return errors.New("not built yet")
+	fs := newFlags(e, "serve", "[flags]",
+		"Run the Mottle HTTP service (API under /v1, see /v1/openapi.json) and the browser preview at /.\n"+
+			"Jobs and results are kept in the data directory and survive a restart.\n\n"+
+			"Environment: MOTTLE_TOKENS holds comma-separated bearer tokens (or use --token-file);\n"+
+			"with tokens set, every route but /healthz, /readyz and the preview's static files needs one.")
+	addr := fs.String("addr", "127.0.0.1:8080", "listen address (host:port)")
+	data := fs.String("data", envOr("MOTTLE_DATA", "mottle-data"), "data directory for the job database, images and results (env MOTTLE_DATA)")
+	backend := fs.String("backend", "embedded", "job backend: embedded (bbolt and files in --data)")
+	workers := fs.Int("workers", runtime.NumCPU(), "jobs computed at once")
+	queue := fs.Int("queue", 64, "jobs that may wait for a worker; more are answered 429 with Retry-After")
+	maxBody := fs.Int64("max-body-mb", 256, "largest request body, MiB")
+	maxPixels := fs.Int64("max-pixels", imageio.DefaultMaxPixels, "largest image, pixels (checked from the header before decoding)")
+	maxPoints := fs.Int("max-points", 1_000_000, "largest number of grid points of one job")
+	jobTimeout := fs.Duration("job-timeout", 30*time.Minute, "longest compute time of one job")
+	readTimeout := fs.Duration("read-timeout", 2*time.Minute, "longest time to read a request")
+	writeTimeout := fs.Duration("write-timeout", 2*time.Minute, "longest time to write a response (event streams and waits are exempt)")
+	grace := fs.Duration("shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish before they are put back in the queue")
+	retention := fs.Duration("retention", 0, "remove finished analyses and idle series after this long, e.g. 168h (0 keeps everything)")
+	tokenFile := fs.String("token-file", "", "file with bearer tokens, one a line (# starts a comment)")
+	cors := fs.String("cors", "", "comma-separated origins allowed to call the API from a browser (\"*\" for any); empty = no CORS")
+	noUI := fs.Bool("no-ui", false, "do not serve the browser preview")
+	if err := parseFlags(e, fs, args); err != nil {
+		return err
+	}
+	if fs.NArg() > 0 {
+		fmt.Fprintf(e.stderr, "mottle serve: unexpected arguments %q\n", fs.Args())
+		return errUsage
+	}
+	if *backend != "embedded" {
+		return fmt.Errorf("--backend %q: only \"embedded\" is available in this build", *backend)
+	}
+	tokens, err := loadTokens(os.Getenv("MOTTLE_TOKENS"), *tokenFile)
+	if err != nil {
+		return err
+	}
+	log := slog.New(slog.NewJSONHandler(e.stderr, nil))
+	be, err := embedded.Open(*data, *queue)
+	if err != nil {
+		return err
+	}
+	defer be.Close()
+	cfg := service.Config{
+		Backend: be, Analyzer: service.Pipeline{}, Logger: log,
+		Workers: *workers, MaxBodyBytes: *maxBody << 20, MaxPixels: *maxPixels, MaxPoints: *maxPoints,
+		JobTimeout: *jobTimeout, ReadTimeout: *readTimeout, WriteTimeout: *writeTimeout,
+		ShutdownGrace: *grace, Retention: *retention, Tokens: tokens, Demo: demoPair,
+	}
+	if *cors != "" {
+		for _, o := range strings.Split(*cors, ",") {
+			if o = strings.TrimSpace(o); o != "" {
+				cfg.CORSOrigins = append(cfg.CORSOrigins, o)
+			}
+		}
+	}
+	if !*noUI {
+		cfg.UI = web.Assets()
+	}
+	srv, err := service.New(cfg)
+	if err != nil {
+		return err
+	}
+	ln, err := net.Listen("tcp", *addr)
+	if err != nil {
+		return fmt.Errorf("listen on %s: %w", *addr, err)
+	}
+	if len(tokens) == 0 && !isLoopback(ln.Addr()) {
+		log.Warn("serving without bearer tokens on a non-loopback address; set MOTTLE_TOKENS or --token-file")
+	}
+	fmt.Fprintf(e.stderr, "mottle serve: listening on http://%s (data in %s)\n", ln.Addr(), *data)
+	return srv.Serve(ctx, ln)
+}
+
+func envOr(name, def string) string {
+	if v := os.Getenv(name); v != "" {
+		return v
+	}
+	return def
+}
+
+// loadTokens collects bearer tokens from a comma-separated list and from a
+// file with one token a line.
+func loadTokens(list, file string) ([]string, error) {
+	var out []string
+	for _, t := range strings.Split(list, ",") {
+		if t = strings.TrimSpace(t); t != "" {
+			out = append(out, t)
+		}
+	}
+	if file != "" {
+		b, err := os.ReadFile(file)
+		if err != nil {
+			return nil, fmt.Errorf("--token-file: %w", err)
+		}
+		for _, line := range strings.Split(string(b), "\n") {
+			if line = strings.TrimSpace(line); line != "" && !strings.HasPrefix(line, "#") {
+				out = append(out, line)
+			}
+		}
+		if len(out) == 0 {
+			return nil, fmt.Errorf("--token-file %s holds no token", file)
+		}
+	}
+	return out, nil
+}
+
+func isLoopback(a net.Addr) bool {
+	tcp, ok := a.(*net.TCPAddr)
+	return ok && tcp.IP.IsLoopback()
+}
+
+// demoPair renders the built-in demo for POST /v1/demo: an invented
+// Brackwater Materials Lab coupon, 256×256 px, stretched 0.5 % along x with
+// a lateral contraction of 0.15 % and shifted by (2.3, −1.1) px.
+func demoPair(ctx context.Context) (ref, def *imageio.Gray, p analysis.Params, err error) {
+	m := synth.Affine{F: [2][2]float64{{1.005, 0}, {0, 0.9985}}, CX: 128, CY: 128, U: 2.3, V: -1.1}
+	ref, def, err = synth.Pair(synth.PatternOptions{Diameter: 4, Seed: 2026}, m,
+		synth.RenderOptions{W: 256, H: 256, Bits: 8, Noise: 1, Seed: 7})
+	if err != nil {
+		return nil, nil, p, errors.Join(errors.New("render demo pair"), err)
+	}
+	p = analysis.Defaults()
+	p.Subset, p.Step = 25, 8
+	return ref, def, p, nil
 }

@@ -1,0 +1,150 @@
+package service
+
+import (
+	"bytes"
+	"context"
+	"fmt"
+	"io"
+	"math"
+	"sort"
+	"strings"
+
+	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/field"
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/maps"
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+// Pipeline is the Analyzer of the real pipeline: pkg/analysis computes the
+// field, pkg/field encodes it and pkg/maps draws the maps.
+type Pipeline struct{}
+
+// summaryQuantities are the quantities whose means a Summary carries.
+var summaryQuantities = []string{"u", "v", "E11", "E22", "E12", "eps11", "eps22", "eps12",
+	"H11", "H22", "H12", "rotation_deg", "e1", "e2", "von_mises", "zncc", "std_u", "std_v"}
+
+// Run implements Analyzer.
+func (Pipeline) Run(ctx context.Context, in Input, progress func(done, total int)) (*Result, error) {
+	out, err := analysis.RunJob(ctx, analysis.Job{Ref: in.Ref, Def: in.Def, RefName: "reference", DefName: "deformed",
+		Mask: in.Mask, Params: in.Params, Progress: progress})
+	if err != nil {
+		return nil, err
+	}
+	return Encode(out.Field)
+}
+
+// Encode encodes a field into the result files a job serves (field.json,
+// field.csv, field.vts, field.npz, arrays/<quantity>.npy with shape
+// (Ny, Nx), including grid_x and grid_y) and its summary.
+func Encode(f *field.Field) (*Result, error) {
+	files := map[string][]byte{}
+	put := func(name string, write func(io.Writer) error) error {
+		var b bytes.Buffer
+		if err := write(&b); err != nil {
+			return fmt.Errorf("encode %s: %w", name, err)
+		}
+		files[name] = b.Bytes()
+		return nil
+	}
+	g := f.Grid
+	enc := []struct {
+		name  string
+		write func(io.Writer) error
+	}{
+		{"field.json", func(w io.Writer) error { return field.WriteJSON(w, f) }},
+		{"field.csv", func(w io.Writer) error { return field.WriteCSV(w, f) }},
+		{"field.vts", func(w io.Writer) error { return field.WriteVTS(w, f) }},
+		{"field.npz", func(w io.Writer) error { return field.WriteNPZ(w, f) }},
+		{"arrays/grid_x.npy", func(w io.Writer) error { return field.WriteNPY(w, g.X, g.Ny, g.Nx) }},
+		{"arrays/grid_y.npy", func(w io.Writer) error { return field.WriteNPY(w, g.Y, g.Ny, g.Nx) }},
+	}
+	for _, e := range enc {
+		if err := put(e.name, e.write); err != nil {
+			return nil, err
+		}
+	}
+	for _, n := range f.Names() {
+		if !jobs.ValidName(n + ".npy") {
+			continue
+		}
+		data := f.Quantities[n]
+		if err := put("arrays/"+n+".npy", func(w io.Writer) error { return field.WriteNPY(w, data, g.Ny, g.Nx) }); err != nil {
+			return nil, err
+		}
+	}
+	sum := jobs.Summary{Points: g.Len(), Mean: map[string]float64{}}
+	for _, st := range f.Status {
+		if st == "ok" {
+			sum.Valid++
+		}
+	}
+	if sum.Points > 0 {
+		sum.ValidFraction = float64(sum.Valid) / float64(sum.Points)
+	}
+	for _, q := range summaryQuantities {
+		if s, err := f.Summary(q); err == nil && s.Count > 0 && !math.IsNaN(s.Mean) {
+			sum.Mean[q] = s.Mean
+		}
+	}
+	return &Result{Files: files, Summary: sum}, nil
+}
+
+// Map implements Analyzer: it reads field.json and renders req.Quantity
+// with pkg/maps over bg. Over the deformed image each point is drawn at
+// x = X + u, converting u from mm to px when the field is scaled.
+func (Pipeline) Map(ctx context.Context, open func(name string) (io.ReadCloser, error), req MapRequest, bg *imageio.Gray) ([]byte, error) {
+	rc, err := open("field.json")
+	if err != nil {
+		return nil, err
+	}
+	f, err := field.ReadJSON(rc)
+	rc.Close()
+	if err != nil {
+		return nil, fmt.Errorf("stored field.json: %w", err)
+	}
+	return RenderMap(f, req, bg)
+}
+
+// RenderMap draws the PNG map that Pipeline.Map serves.
+func RenderMap(f *field.Field, req MapRequest, bg *imageio.Gray) ([]byte, error) {
+	vals, ok := f.Get(req.Quantity)
+	if !ok {
+		names := f.Names()
+		sort.Strings(names)
+		return nil, &FieldError{Field: "quantity", Status: 400,
+			Detail: fmt.Sprintf("the field has no quantity %q; use one of %s", req.Quantity, strings.Join(names, ", "))}
+	}
+	g := f.Grid
+	l := maps.Layer{Nx: g.Nx, Ny: g.Ny, X: g.X, Y: g.Y, Values: vals, Step: float64(g.Step)}
+	if req.On == "deformed" {
+		u, okU := f.Get("u")
+		v, okV := f.Get("v")
+		if !okU || !okV {
+			return nil, &FieldError{Field: "on", Status: 400, Detail: "the field has no displacement to place points on the deformed image; use on=reference"}
+		}
+		scale := 1.0
+		if f.Meta.MMPerPx > 0 && f.Units["u"] == "mm" {
+			scale = 1 / f.Meta.MMPerPx
+		}
+		l.X, l.Y = make([]float64, len(g.X)), make([]float64, len(g.Y))
+		vals2 := append([]float64(nil), vals...)
+		for k := range g.X {
+			l.X[k], l.Y[k] = g.X[k]+u[k]*scale, g.Y[k]+v[k]*scale
+			if math.IsNaN(l.X[k]) || math.IsNaN(l.Y[k]) {
+				l.X[k], l.Y[k], vals2[k] = g.X[k], g.Y[k], math.NaN()
+			}
+		}
+		l.Values = vals2
+	}
+	o := maps.Options{Quantity: req.Quantity, Unit: f.Units[req.Quantity]}
+	o.ScaleBar.MMPerPx = f.Meta.MMPerPx
+	if req.Range != nil {
+		o.Range = *req.Range
+	}
+	m, err := maps.Render(l, bg, o)
+	if err != nil {
+		return nil, &FieldError{Field: "range", Status: 400, Detail: err.Error()}
+	}
+	return maps.EncodePNG(m.Image)
+}
