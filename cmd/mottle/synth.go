@@ -70,6 +70,7 @@ func runSynth(ctx context.Context, e *env, args []string) error {
 
 	var ro synth.RenderOptions
 	fs.IntVar(&ro.Supersample, "supersample", 4, "samples per pixel side for pixel integration")
+	fs.BoolVar(&ro.Midpoint, "midpoint", false, "integrate pixels with a regular sample grid instead of Gauss–Legendre nodes (bit-exact integer shifts, less accurate)")
 	fs.Float64Var(&ro.Fill, "fill", 1, "pixel fill factor: light-sensitive fraction of the pixel side, in (0, 1]")
 	fs.Float64Var(&ro.Blur, "blur", 0, "Gaussian lens blur σ in px (0 = none)")
 	fs.Float64Var(&ro.Noise, "noise", 0, "Gaussian sensor noise σ in grey levels (0 = none)")

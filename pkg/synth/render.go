@@ -9,6 +9,8 @@ import (
 	"sync"
 	"sync/atomic"
 
+	"gonum.org/v1/gonum/integrate/quad"
+
 	"github.com/mottledic/mottle/pkg/imageio"
 )
 
@@ -18,9 +20,16 @@ type RenderOptions struct {
 	// W, H are the image size in px. Required.
 	W, H int `json:"-"`
 	// Supersample is the number of samples per pixel side used to
-	// integrate the pattern over the pixel (n×n samples on a regular
-	// grid). Default 4.
+	// integrate the pattern over the pixel: an n×n Gauss–Legendre product
+	// rule, or an n×n regular grid (the midpoint rule) when Midpoint is
+	// set. Default 4.
 	Supersample int `json:"supersample"`
+	// Midpoint selects the midpoint rule for pixel integration. Its sample
+	// offsets are dyadic fractions when Supersample is a power of two, so
+	// an integer translation reproduces the reference bit for bit, but
+	// it is less accurate: with the default pattern its error is about
+	// 0.4 grey levels RMS (8-bit) at n = 4, against 0.05 for Gauss–Legendre.
+	Midpoint bool `json:"midpoint,omitempty"`
 	// Fill is the fill factor: the side of the light-sensitive square of
 	// a pixel as a fraction of the pixel pitch, in (0, 1]. Default 1.
 	Fill float64 `json:"fill_factor"`
@@ -136,8 +145,9 @@ type nearInverse interface {
 
 // Render renders the w×h image that a camera sees when the pattern p has
 // moved by m (nil means the identity: the reference image). Each pixel is
-// the mean of Supersample² samples of the pattern at X = κ⁻¹(x), for x on
-// a regular grid over the light-sensitive part of the pixel; then lens blur,
+// the integral of the pattern at X = κ⁻¹(x) over the light-sensitive part
+// of the pixel, by a Supersample×Supersample product rule (Gauss–Legendre,
+// or the midpoint rule; see RenderOptions.Midpoint); then lens blur,
 // then noise, then grey = Offset + Gain·value, quantisation and clipping.
 // Blur acts on the image before noise because it is an optical effect.
 //
@@ -174,11 +184,18 @@ func Render(p *Pattern, m Motion, o RenderOptions) (*imageio.Gray, Report, error
 	canvas := make([]float64, cw*ch)
 
 	n := o.Supersample
-	offs := make([]float64, n)
-	for i := range offs {
-		offs[i] = o.Fill * ((float64(i)+0.5)/float64(n) - 0.5)
+	offs, wts := make([]float64, n), make([]float64, n)
+	if o.Midpoint {
+		for i := range offs {
+			offs[i] = o.Fill * ((float64(i)+0.5)/float64(n) - 0.5)
+			wts[i] = 1 / float64(n)
+		}
+	} else {
+		quad.Legendre{}.FixedLocations(offs, wts, -o.Fill/2, o.Fill/2)
+		for i := range wts {
+			wts[i] /= o.Fill
+		}
 	}
-	inv := 1 / float64(n*n)
 	near, hasNear := m.(nearInverse)
 	_, isIdentity := m.(Identity)
 
@@ -197,10 +214,11 @@ func Render(p *Pattern, m Motion, o RenderOptions) (*imageio.Gray, Report, error
 			pxc := float64(x - margin)
 			var sum float64
 			bad := false
-			for _, oy := range offs {
+			for iy, oy := range offs {
 				sy := py + oy
-				for _, ox := range offs {
+				for ix, ox := range offs {
 					sx := pxc + ox
+					w := wts[iy] * wts[ix]
 					var X, Y float64
 					var err error
 					switch {
@@ -219,14 +237,14 @@ func Render(p *Pattern, m Motion, o RenderOptions) (*imageio.Gray, Report, error
 							st.failed++
 							bad = true
 						}
-						sum += o.Void
+						sum += w * o.Void
 						continue
 					}
 					pX, pY, px0, py0, have = X, Y, sx, sy, true
-					sum += p.Value(X, Y)
+					sum += w * p.Value(X, Y)
 				}
 			}
-			line[x] = sum * inv
+			line[x] = sum
 			if bad && x >= margin && x < margin+o.W && y >= margin && y < margin+o.H && len(st.pixels) < maxFailedList {
 				st.pixels = append(st.pixels, [2]int{x - margin, y - margin})
 			}
