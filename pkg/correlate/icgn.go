@@ -135,10 +135,117 @@ func (s *solver) prepare(xc, yc float64) Status {
 	}
 	np := s.np
 	var h [12 * 12]float64
-	var jv [12]float64
 	s.b0, s.sj = [12]float64{}, [12]float64{}
+	if np == 6 {
+		s.hessian1(&h)
+	} else {
+		s.hessian2(&h)
+	}
+	if !cholesky(&h, np, &s.chol) {
+		return LowContrast
+	}
+	var e [12]float64
+	e[U] = 1
+	cholSolve(&s.chol, np, &e)
+	s.hUU = e[U]
+	e = [12]float64{}
+	e[V] = 1
+	cholSolve(&s.chol, np, &e)
+	s.hVV = e[V]
+	return OK
+}
+
+// hessian1 accumulates the upper triangle of H = Σ JᵀJ, Σ J f̃ and Σ J for
+// the first-order warp. Every entry is a sum of w·ξ^a·η^b with w one of
+// fx², fx·fy, fy² (or fx f̃, fy f̃, fx, fy), so rows are summed over ξ first
+// and weighted by η afterwards.
+func (s *solver) hessian1(h *[144]float64) {
+	m := s.m
+	side := 2*m + 1
+	// sums[q][a][b] = Σ w_q ξ^a η^b for q = xx, xy, yy, a+b ≤ 2.
+	var hxx, hxy, hyy [3][3]float64
+	var bx, by, jx, jy [2][2]float64 // a+b ≤ 1
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		f := s.f[k : k+side]
+		fx := s.fx[k : k+side]
+		fy := s.fy[k : k+side]
+		var r [3][3]float64 // r[q][a] = Σ_row w_q ξ^a
+		var rb [4][2]float64
+		xi := float64(-m)
+		for i := range f {
+			gx, gy := fx[i], fy[i]
+			xx, xy, yy := gx*gx, gx*gy, gy*gy
+			x2 := xi * xi
+			r[0][0] += xx
+			r[0][1] += xx * xi
+			r[0][2] += xx * x2
+			r[1][0] += xy
+			r[1][1] += xy * xi
+			r[1][2] += xy * x2
+			r[2][0] += yy
+			r[2][1] += yy * xi
+			r[2][2] += yy * x2
+			fv := f[i]
+			rb[0][0] += gx * fv
+			rb[0][1] += gx * fv * xi
+			rb[1][0] += gy * fv
+			rb[1][1] += gy * fv * xi
+			rb[2][0] += gx
+			rb[2][1] += gx * xi
+			rb[3][0] += gy
+			rb[3][1] += gy * xi
+			xi++
+		}
+		e2 := eta * eta
+		for q, dst := range []*[3][3]float64{&hxx, &hxy, &hyy} {
+			dst[0][0] += r[q][0]
+			dst[1][0] += r[q][1]
+			dst[2][0] += r[q][2]
+			dst[0][1] += r[q][0] * eta
+			dst[1][1] += r[q][1] * eta
+			dst[0][2] += r[q][0] * e2
+		}
+		for q, dst := range []*[2][2]float64{&bx, &by, &jx, &jy} {
+			dst[0][0] += rb[q][0]
+			dst[1][0] += rb[q][1]
+			dst[0][1] += rb[q][0] * eta
+		}
+		k += side
+	}
+	// J = [fx, fx ξ, fx η, fy, fy ξ, fy η]: entry (a, b) is Σ w ξ^(pa+pb) η^(qa+qb).
+	pw := [6][2]int{{0, 0}, {1, 0}, {0, 1}, {0, 0}, {1, 0}, {0, 1}}
+	for a := 0; a < 6; a++ {
+		for b := a; b < 6; b++ {
+			src := &hxx
+			switch {
+			case a < 3 && b >= 3:
+				src = &hxy
+			case a >= 3:
+				src = &hyy
+			}
+			h[a*12+b] = src[pw[a][0]+pw[b][0]][pw[a][1]+pw[b][1]]
+		}
+	}
+	for a := 0; a < 6; a++ {
+		bb, jj := &bx, &jx
+		if a >= 3 {
+			bb, jj = &by, &jy
+		}
+		s.b0[a] = bb[pw[a][0]][pw[a][1]]
+		s.sj[a] = jj[pw[a][0]][pw[a][1]]
+	}
+	s.sssig = math.Min(hxx[0][0], hyy[0][0])
+}
+
+// hessian2 is hessian1 for the second-order warp, by explicit outer products.
+func (s *solver) hessian2(h *[144]float64) {
+	m := s.m
+	np := s.np
+	var jv [12]float64
 	var sxx, syy float64
-	k = 0
+	k := 0
 	for j := -m; j <= m; j++ {
 		eta := float64(j)
 		for i := -m; i <= m; i++ {
@@ -160,18 +267,6 @@ func (s *solver) prepare(xc, yc float64) Status {
 		}
 	}
 	s.sssig = math.Min(sxx, syy)
-	if !cholesky(&h, np, &s.chol) {
-		return LowContrast
-	}
-	var e [12]float64
-	e[U] = 1
-	cholSolve(&s.chol, np, &e)
-	s.hUU = e[U]
-	e = [12]float64{}
-	e[V] = 1
-	cholSolve(&s.chol, np, &e)
-	s.hVV = e[V]
-	return OK
 }
 
 // result of one IC-GN attempt.

@@ -1,0 +1,122 @@
+package correlate
+
+import (
+	"context"
+	"runtime"
+	"runtime/metrics"
+	"sync"
+	"syscall"
+	"testing"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/synth"
+)
+
+var benchPair struct {
+	once     sync.Once
+	ref, def *imageio.Gray
+}
+
+// benchImages renders the 1024×1024 benchmark pair once: 8-bit, noise σ = 1
+// grey level, a small homogeneous strain with a translation.
+func benchImages(b *testing.B) (ref, def *imageio.Gray) {
+	benchPair.once.Do(func() {
+		m := synth.Affine{F: [2][2]float64{{1.005, 0.002}, {-0.001, 0.997}}, CX: 512, CY: 512, U: 4.3, V: -2.6}
+		benchPair.ref, benchPair.def = pair(b, m, 1024, 1024, 8, 1, 7)
+	})
+	return benchPair.ref, benchPair.def
+}
+
+// peakHeap samples the live heap every millisecond until stop is closed
+// and returns the largest value seen.
+func peakHeap(stop <-chan struct{}) <-chan uint64 {
+	out := make(chan uint64, 1)
+	go func() {
+		s := []metrics.Sample{{Name: "/memory/classes/heap/objects:bytes"}}
+		var peak uint64
+		t := time.NewTicker(time.Millisecond)
+		defer t.Stop()
+		for {
+			metrics.Read(s)
+			peak = max(peak, s[0].Value.Uint64())
+			select {
+			case <-stop:
+				out <- peak
+				return
+			case <-t.C:
+			}
+		}
+	}()
+	return out
+}
+
+// BenchmarkRun1024 is the reference benchmark of the project: a 1024×1024
+// pair, subset 31, step 8, first order (about 15,600 grid points).
+// It reports points/s, IC-GN iterations per point, allocations per point
+// and the peak heap in bytes per image pixel (above the two input images,
+// and in total).
+func BenchmarkRun1024(b *testing.B) { benchRun(b, First) }
+
+// BenchmarkRun1024Second is BenchmarkRun1024 with the second-order shape function.
+func BenchmarkRun1024Second(b *testing.B) { benchRun(b, Second) }
+
+func benchRun(b *testing.B, shape Shape) {
+	ref, def := benchImages(b)
+	opt := Options{Subset: 31, Step: 8, Shape: shape}
+	runtime.GC()
+	var ms runtime.MemStats
+	runtime.ReadMemStats(&ms)
+	base := ms.HeapAlloc
+	inputs := uint64(len(ref.Pix)+len(def.Pix)) * 4
+	b.ReportAllocs()
+	b.ResetTimer()
+	var points, iters, okPts int
+	var peak uint64
+	var mallocs uint64
+	var cpu time.Duration
+	for b.Loop() {
+		c0 := cpuTime()
+		runtime.ReadMemStats(&ms)
+		m0 := ms.Mallocs
+		stop := make(chan struct{})
+		pk := peakHeap(stop)
+		res, err := Run(context.Background(), ref, def, opt)
+		close(stop)
+		cpu += cpuTime() - c0
+		if err != nil {
+			b.Fatal(err)
+		}
+		runtime.ReadMemStats(&ms)
+		mallocs += ms.Mallocs - m0
+		peak = max(peak, <-pk)
+		for _, p := range res.Points {
+			if p.Status != Outside {
+				points++
+			}
+			if p.Status == OK {
+				okPts++
+				iters += p.Iter
+			}
+		}
+	}
+	b.StopTimer()
+	px := float64(ref.W * ref.H)
+	b.ReportMetric(float64(points)/b.Elapsed().Seconds(), "points/s")
+	b.ReportMetric(float64(points)/cpu.Seconds(), "points/cpu-s")
+	b.ReportMetric(float64(iters)/float64(okPts), "iter/point")
+	b.ReportMetric(float64(mallocs)/float64(points), "allocs/point")
+	b.ReportMetric(float64(peak-min(peak, base))/px, "peakB/px")
+	b.ReportMetric(float64(peak-min(peak, base)+inputs)/px, "peakB/px+inputs")
+}
+
+// cpuTime returns the user plus system CPU time of the process. On a
+// shared machine wall-clock points/s depend on the load; points per CPU
+// second times the core count is the uncontended estimate.
+func cpuTime() time.Duration {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return 0
+	}
+	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
+}
