@@ -37,10 +37,12 @@ type ChallengeOptions struct {
 	// Step is the spacing in px of the points along the crest row and of
 	// the noise grid. Default 2 along the row, 8 for the noise grid.
 	Step, NoiseStep int
-	// Smooth is the width, in points, of the moving average applied to the
-	// measured amplitude along the row before the crossing is located
-	// (odd; default 5). It damps noise without moving a crossing on a
-	// slowly varying attenuation curve.
+	// Smooth is the width, in points, of the running median and then the
+	// moving average applied to the measured amplitude along the row before
+	// the crossing is located, and the number of consecutive points that
+	// must stay below Level for a crossing to count (odd; default 9). It
+	// damps noise and outliers without moving a crossing much on a slowly
+	// varying attenuation curve.
 	Smooth int
 	// Level is the attenuation that defines the spatial resolution: the
 	// period where the measured amplitude is Level·A. Default 0.9 (10 %).
@@ -64,7 +66,7 @@ func (o ChallengeOptions) withDefaults() ChallengeOptions {
 		o.NoiseStep = 8
 	}
 	if o.Smooth == 0 {
-		o.Smooth = 5
+		o.Smooth = 9
 	}
 	if o.Level == 0 {
 		o.Level = 0.9
@@ -136,9 +138,10 @@ type SubsetResult struct {
 //  1. noise: track the static pair on a grid; σ_u, σ_v are the sample
 //     standard deviations of u and v;
 //  2. resolution: track the star pair along the crest row y = Y0; the
-//     measured amplitude v/A, smoothed along x, is scanned from the longest
-//     period towards the shortest, and the period where it first drops to
-//     Level (0.9) is located by linear interpolation;
+//     measured amplitude v/A, smoothed along x (running median, then
+//     moving average), is scanned from the longest period towards the
+//     shortest, and the period where it first drops below Level (0.9) and
+//     stays below is located by linear interpolation;
 //  3. metrological efficiency indicator MEI = σ_v × resolution (px²): the
 //     product of displacement noise and spatial resolution, lower is better.
 //     This definition is from memory of Reu et al. 2022 and of Grédiac,
@@ -212,9 +215,9 @@ func Challenge(ctx context.Context, set StarSet, track Tracker, opts ChallengeOp
 			}
 		}
 		r.Valid = len(ps)
-		as = movingAverage(as, opts.Smooth)
+		as = movingAverage(movingMedian(as, opts.Smooth), opts.Smooth)
 		r.Periods, r.Amplitudes = ps, as
-		res, note := crossing(ps, as, opts.Level)
+		res, note := crossing(ps, as, opts.Level, opts.Smooth)
 		r.Resolution, r.Note = res, note
 		r.MEI = r.NoiseV * r.Resolution
 		out = append(out, r)
@@ -297,6 +300,26 @@ func PredictNoise(ref *imageio.Gray, pts [][2]int, n int, sigma float64) float64
 	return math.Sqrt(sum / float64(cnt))
 }
 
+// movingMedian returns the centred running median of a over w points,
+// shrinking the window at the ends.
+func movingMedian(a []float64, w int) []float64 {
+	out := make([]float64, len(a))
+	h := w / 2
+	buf := make([]float64, 0, w)
+	for i := range a {
+		lo, hi := max(0, i-h), min(len(a)-1, i+h)
+		buf = append(buf[:0], a[lo:hi+1]...)
+		sort.Float64s(buf)
+		n := len(buf)
+		if n%2 == 1 {
+			out[i] = buf[n/2]
+		} else {
+			out[i] = (buf[n/2-1] + buf[n/2]) / 2
+		}
+	}
+	return out
+}
+
 // movingAverage returns the centred moving average of a over w points,
 // shrinking the window at the ends.
 func movingAverage(a []float64, w int) []float64 {
@@ -314,9 +337,11 @@ func movingAverage(a []float64, w int) []float64 {
 }
 
 // crossing scans the profile (p, a) in order of decreasing p and returns
-// the period where a first falls below level, interpolated linearly between
-// the last point above and the first below. The note says why it is NaN.
-func crossing(p, a []float64, level float64) (float64, string) {
+// the period where a first falls below level and stays below it for hold
+// consecutive points (so an isolated noisy dip is not taken for the
+// attenuation), interpolated linearly between the last point above and the
+// first below. The note says why it is NaN.
+func crossing(p, a []float64, level float64, hold int) (float64, string) {
 	if len(p) < 2 {
 		return math.NaN(), "fewer than 2 valid points on the crest row"
 	}
@@ -331,6 +356,15 @@ func crossing(p, a []float64, level float64) (float64, string) {
 	for k := 1; k < len(idx); k++ {
 		i0, i1 := idx[k-1], idx[k]
 		if a[i1] < level {
+			sustained := true
+			for j := k + 1; j < min(k+hold, len(idx)); j++ {
+				if a[idx[j]] >= level {
+					sustained = false
+				}
+			}
+			if !sustained {
+				continue
+			}
 			if a[i0] == a[i1] {
 				return p[i1], ""
 			}

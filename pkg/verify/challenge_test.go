@@ -81,13 +81,17 @@ func TestCrossing(t *testing.T) {
 	for _, tc := range []struct {
 		a    []float64
 		want float64
+		hold int
 	}{
-		{[]float64{0.1, 0.5, 0.8, 0.95, 1}, 40 - 10*(0.95-0.9)/(0.95-0.8)},
-		{[]float64{0.1, 0.5, 0.9, 0.95, 1}, 30}, // a = level is not below it
-		{[]float64{0.95, 0.96, 0.97, 0.98, 0.99}, math.NaN()},
-		{[]float64{0.1, 0.2, 0.3, 0.4, 0.5}, math.NaN()},
+		{[]float64{0.1, 0.5, 0.8, 0.95, 1}, 40 - 10*(0.95-0.9)/(0.95-0.8), 1},
+		{[]float64{0.1, 0.5, 0.9, 0.95, 1}, 30, 1}, // a = level is not below it
+		{[]float64{0.95, 0.96, 0.97, 0.98, 0.99}, math.NaN(), 1},
+		{[]float64{0.1, 0.2, 0.3, 0.4, 0.5}, math.NaN(), 1},
+		// An isolated dip counts with hold 1 and is skipped with hold 2.
+		{[]float64{0.1, 0.5, 0.95, 0.85, 1}, 50 - 10*(1-0.9)/(1-0.85), 1},
+		{[]float64{0.1, 0.5, 0.95, 0.85, 1}, 30 - 10*(0.95-0.9)/(0.95-0.5), 2},
 	} {
-		got, note := crossing(p, tc.a, 0.9)
+		got, note := crossing(p, tc.a, 0.9, tc.hold)
 		if math.IsNaN(tc.want) != math.IsNaN(got) || (!math.IsNaN(got) && math.Abs(got-tc.want) > 1e-9) {
 			t.Errorf("crossing(%v) = %v (%s), want %v", tc.a, got, note, tc.want)
 		}
