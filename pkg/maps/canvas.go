@@ -77,20 +77,38 @@ func strokeRect(dst draw.Image, r image.Rectangle, c color.Color) {
 
 // fillPolygon fills the closed polygon pts (pixel coordinates, pixel
 // centres at half-integers as in golang.org/x/image/vector) with c,
-// anti-aliased, onto dst.
+// anti-aliased, onto dst. Only the polygon's bounding box is rasterised.
 func fillPolygon(dst *image.RGBA, pts [][2]float64, c color.Color) {
 	if len(pts) < 3 {
 		return
 	}
+	x0, y0, x1, y1 := math.Inf(1), math.Inf(1), math.Inf(-1), math.Inf(-1)
+	for _, p := range pts {
+		if !finite(p[0]) || !finite(p[1]) {
+			return
+		}
+		x0, y0 = math.Min(x0, p[0]), math.Min(y0, p[1])
+		x1, y1 = math.Max(x1, p[0]), math.Max(y1, p[1])
+	}
 	b := dst.Bounds()
-	r := vector.NewRasterizer(b.Dx(), b.Dy())
+	// Clip the box in float before converting, so far-away points cannot overflow.
+	fx0 := math.Max(math.Floor(x0), float64(b.Min.X))
+	fy0 := math.Max(math.Floor(y0), float64(b.Min.Y))
+	fx1 := math.Min(math.Ceil(x1), float64(b.Max.X))
+	fy1 := math.Min(math.Ceil(y1), float64(b.Max.Y))
+	if fx1 <= fx0 || fy1 <= fy0 {
+		return
+	}
+	box := image.Rect(int(fx0), int(fy0), int(fx1), int(fy1))
+	r := vector.NewRasterizer(box.Dx(), box.Dy())
 	r.DrawOp = draw.Over
-	r.MoveTo(float32(pts[0][0]-float64(b.Min.X)), float32(pts[0][1]-float64(b.Min.Y)))
+	ox, oy := float64(box.Min.X), float64(box.Min.Y)
+	r.MoveTo(float32(pts[0][0]-ox), float32(pts[0][1]-oy))
 	for _, p := range pts[1:] {
-		r.LineTo(float32(p[0]-float64(b.Min.X)), float32(p[1]-float64(b.Min.Y)))
+		r.LineTo(float32(p[0]-ox), float32(p[1]-oy))
 	}
 	r.ClosePath()
-	r.Draw(dst, b, image.NewUniform(c), image.Point{})
+	r.Draw(dst, box, image.NewUniform(c), image.Point{})
 }
 
 // grayToImage converts g to 8-bit grey: the native scale 0..2^Bits−1 when

@@ -123,3 +123,22 @@ func TestVectorErrors(t *testing.T) {
 		}
 	}
 }
+
+// BenchmarkRenderVectors draws about 1900 arrows on a 2048×1536 image.
+func BenchmarkRenderVectors(b *testing.B) {
+	nx, ny := 100, 75
+	v := Vectors{Nx: nx, Ny: ny, Step: 20}
+	for j := 0; j < ny; j++ {
+		for i := 0; i < nx; i++ {
+			x, y := 24+20*float64(i), 24+20*float64(j)
+			v.X, v.Y, v.U, v.V = append(v.X, x), append(v.Y, y), append(v.U, 0.01*(x-1000)), append(v.V, 0.005*(y-700))
+		}
+	}
+	bg := flatGray(2048, 1536, 100)
+	b.ResetTimer()
+	for range b.N {
+		if _, err := RenderVectors(v, bg, VectorOptions{Every: 2}); err != nil {
+			b.Fatal(err)
+		}
+	}
+}
