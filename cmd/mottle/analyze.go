@@ -2,10 +2,250 @@ package main
 
 import (
 	"context"
-	"errors"
+	"encoding/json"
+	"flag"
+	"fmt"
+	"io"
+	"os"
+	"sort"
+	"strconv"
+	"strings"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/field"
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/roi"
 )
 
-// runAnalyze is a placeholder until the analyze command lands.
+// paramFlags registers the analysis parameters on fs and returns a function
+// that applies the flags the user set over p (a --params file first, then
+// individual flags).
+func paramFlags(fs *flag.FlagSet) func(p *analysis.Params) error {
+	d := analysis.Defaults()
+	file := fs.String("params", "", "JSON `file` of analysis parameters (the names of field.json's params); flags override it")
+	subset := fs.Int("subset", d.Subset, "subset side in `px`, odd; at least 3 speckles across (iDICs Good Practices Guide 2018)")
+	step := fs.Int("step", d.Step, "grid spacing in `px`; smaller costs time (points grow as 1/step²) and adds no independent data below subset/2")
+	shape := fs.String("shape", d.Shape, "shape function: first (affine) or second (quadratic, for strain gradients)")
+	interp := fs.String("interp", d.Interpolation, "interpolation: cubic or quintic B-spline")
+	prefilter := fs.Float64("prefilter", d.Prefilter, "Gaussian prefilter σ in `px` (0 = off; 0.5–1 lowers interpolation bias)")
+	roiFlag := fs.String("roi", "", "region of interest: x0,y0,x1,y1 in px, or @file.json with {\"rect\":…, \"polygon\":…, \"holes\":…}")
+	var seeds seedList
+	fs.Var(&seeds, "seed", "seed point `x,y` in px (repeatable); default: a well-textured point near the ROI centre")
+	search := fs.Int("search", d.Search, "integer search radius in `px` around the seeds: the largest displacement at a seed")
+	minZNCC := fs.Float64("min-zncc", d.MinZNCC, "reject points whose ZNCC is below this")
+	maxIter := fs.Int("max-iter", d.MaxIter, "IC-GN iteration cap per point")
+	tol := fs.Float64("tol", d.Tolerance, "IC-GN convergence tolerance in `px`")
+	threads := fs.Int("threads", 0, "worker goroutines (0 = all cores); results do not depend on it")
+	noise := fs.Float64("noise", 0, "known image noise σ in grey levels (0 = estimate from the residuals)")
+	window := fs.Int("strain-window", d.StrainWindow, "strain window side in grid points, odd; VSG = (window−1)·step + subset")
+	fit := fs.String("strain-fit", d.StrainFit, "local fit of the strain window: plane or quadratic")
+	mmpp := fs.Float64("mm-per-px", 0, "image scale in mm per px (0 = results in px)")
+	scalePts := fs.String("scale-points", "", "scale from two points and their distance: `x1,y1,x2,y2,mm`")
+	return func(p *analysis.Params) error {
+		if *file != "" {
+			b, err := os.ReadFile(*file)
+			if err != nil {
+				return fmt.Errorf("--params: %w", err)
+			}
+			q, err := analysis.ParseJSONBytes(b)
+			if err != nil {
+				return fmt.Errorf("--params %s: %w", *file, err)
+			}
+			*p = q
+		}
+		set := map[string]bool{}
+		fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
+		apply := map[string]func() error{
+			"subset":        func() error { p.Subset = *subset; return nil },
+			"step":          func() error { p.Step = *step; return nil },
+			"shape":         func() error { p.Shape = *shape; return nil },
+			"interp":        func() error { p.Interpolation = *interp; return nil },
+			"prefilter":     func() error { p.Prefilter = *prefilter; return nil },
+			"search":        func() error { p.Search = *search; return nil },
+			"min-zncc":      func() error { p.MinZNCC = *minZNCC; return nil },
+			"max-iter":      func() error { p.MaxIter = *maxIter; return nil },
+			"tol":           func() error { p.Tolerance = *tol; return nil },
+			"threads":       func() error { p.Threads = *threads; return nil },
+			"noise":         func() error { p.Noise = *noise; return nil },
+			"strain-window": func() error { p.StrainWindow = *window; return nil },
+			"strain-fit":    func() error { p.StrainFit = *fit; return nil },
+			"mm-per-px":     func() error { p.MMPerPx = *mmpp; return nil },
+			"seed":          func() error { p.Seeds = seeds; return nil },
+			"roi": func() error {
+				s, err := parseROI(*roiFlag)
+				p.ROI = s
+				return err
+			},
+			"scale-points": func() error {
+				v, err := floats(*scalePts, 5)
+				if err != nil {
+					return fmt.Errorf("--scale-points: %w", err)
+				}
+				p.ScalePoints = &analysis.ScaleRef{A: [2]float64{v[0], v[1]}, B: [2]float64{v[2], v[3]}, Distance: v[4]}
+				return nil
+			},
+		}
+		for name, f := range apply {
+			if set[name] {
+				if err := f(); err != nil {
+					return err
+				}
+			}
+		}
+		return nil
+	}
+}
+
+type seedList [][2]int
+
+func (s *seedList) String() string { return fmt.Sprint([][2]int(*s)) }
+func (s *seedList) Set(v string) error {
+	f, err := floats(v, 2)
+	if err != nil {
+		return err
+	}
+	*s = append(*s, [2]int{int(f[0]), int(f[1])})
+	return nil
+}
+
+// floats parses n comma-separated numbers.
+func floats(s string, n int) ([]float64, error) {
+	parts := strings.Split(s, ",")
+	if len(parts) != n {
+		return nil, fmt.Errorf("%q: want %d comma-separated numbers", s, n)
+	}
+	out := make([]float64, n)
+	for i, p := range parts {
+		v, err := strconv.ParseFloat(strings.TrimSpace(p), 64)
+		if err != nil {
+			return nil, fmt.Errorf("%q: %q is not a number", s, p)
+		}
+		out[i] = v
+	}
+	return out, nil
+}
+
+func parseROI(s string) (*roi.Spec, error) {
+	if name, ok := strings.CutPrefix(s, "@"); ok {
+		b, err := os.ReadFile(name)
+		if err != nil {
+			return nil, fmt.Errorf("--roi: %w", err)
+		}
+		var spec roi.Spec
+		dec := json.NewDecoder(strings.NewReader(string(b)))
+		dec.DisallowUnknownFields()
+		if err := dec.Decode(&spec); err != nil {
+			return nil, fmt.Errorf("--roi %s: %w (want {\"rect\": [x0,y0,x1,y1], \"polygon\": [[x,y],…], \"holes\": [[[x,y],…]]})", name, err)
+		}
+		return &spec, nil
+	}
+	v, err := floats(s, 4)
+	if err != nil {
+		return nil, fmt.Errorf("--roi: %w (or @file.json)", err)
+	}
+	r := [4]int{int(v[0]), int(v[1]), int(v[2]), int(v[3])}
+	return &roi.Spec{Rect: &r}, nil
+}
+
 func runAnalyze(ctx context.Context, e *env, args []string) error {
-	return errors.New("not built yet")
+	fs := newFlags(e, "analyze", "--ref REF --def DEF [flags]",
+		"Correlate a reference and a deformed speckle image and write a results folder: field.json,\n"+
+			"field.csv, field.vts, field.npz, npy/, and PNG maps under maps/. Displacements are referred\n"+
+			"to the reference image (Lagrangian). Prints a one-screen summary.")
+	ref := fs.String("ref", "", "reference image `file` (PNG, TIFF, JPEG or BMP)")
+	def := fs.String("def", "", "deformed image `file`")
+	out := fs.String("out", "mottle-results", "results `folder`")
+	maxPix := fs.Int64("max-pixels", imageio.DefaultLimits().MaxPixels, "refuse images with more pixels than this")
+	maskFile := fs.String("mask", "", "mask image `file`: pixels brighter than half the maximum are inside the ROI")
+	apply := paramFlags(fs)
+	if err := parseFlags(e, fs, args); err != nil {
+		return err
+	}
+	if *ref == "" || *def == "" {
+		fmt.Fprintln(e.stderr, "mottle analyze: both --ref and --def are required")
+		fs.Usage()
+		return errUsage
+	}
+	p := analysis.Defaults()
+	if err := apply(&p); err != nil {
+		return err
+	}
+	lim := imageio.DefaultLimits()
+	lim.MaxPixels = *maxPix
+	r, err := imageio.ReadFile(*ref, lim)
+	if err != nil {
+		return fmt.Errorf("reference image: %w", err)
+	}
+	d, err := imageio.ReadFile(*def, lim)
+	if err != nil {
+		return fmt.Errorf("deformed image: %w", err)
+	}
+	job := analysis.Job{Ref: r, Def: d, RefName: *ref, DefName: *def, Params: p}
+	if *maskFile != "" {
+		if job.Mask, err = imageio.ReadFile(*maskFile, lim); err != nil {
+			return fmt.Errorf("mask image: %w", err)
+		}
+	}
+	pb := newBar(e, "correlating")
+	job.Progress = pb.update
+	res, err := analysis.RunJob(ctx, job)
+	pb.done()
+	if err != nil {
+		return err
+	}
+	if _, err := analysis.Write(*out, res.Field, r, d); err != nil {
+		return err
+	}
+	printSummary(e.stdout, res.Field, res.Elapsed)
+	fmt.Fprintf(e.stdout, "results: %s/ (field.json, field.csv, field.vts, field.npz, npy/, maps/)\n", *out)
+	return nil
+}
+
+// printSummary writes the one-screen summary of a result field.
+func printSummary(w io.Writer, f *field.Field, elapsed time.Duration) {
+	n := f.Grid.Len()
+	counts := f.StatusCounts()
+	valid := 0
+	if vals, ok := f.Get("valid"); ok {
+		for _, v := range vals {
+			if v == 1 {
+				valid++
+			}
+		}
+	}
+	fmt.Fprintf(w, "grid: %d×%d = %d points, subset %d px, step %d px; %d valid (%.1f %%)\n",
+		f.Grid.Nx, f.Grid.Ny, n, f.Grid.Subset, f.Grid.Step, valid, 100*float64(valid)/float64(max(n, 1)))
+	var keys []string
+	for k := range counts {
+		if k != "ok" {
+			keys = append(keys, k)
+		}
+	}
+	sort.Strings(keys)
+	if len(keys) > 0 {
+		parts := make([]string, len(keys))
+		for i, k := range keys {
+			parts[i] = fmt.Sprintf("%s %d", k, counts[k])
+		}
+		fmt.Fprintf(w, "not measured or no strain: %s\n", strings.Join(parts, ", "))
+	}
+	fmt.Fprintf(w, "strain window %d points (%s fit), virtual strain gauge %.0f px", f.Meta.StrainWindow, f.Meta.StrainFit, f.Meta.VSG)
+	if f.Meta.MMPerPx > 0 {
+		fmt.Fprintf(w, " = %.3f mm", f.Meta.VSG*f.Meta.MMPerPx)
+	}
+	fmt.Fprintf(w, "; image noise σ %.2f grey levels (%v)\n", f.Meta.NoiseSigma, f.Meta.Extra["noise_source"])
+	fmt.Fprintf(w, "  %-14s %12s %12s %12s %12s %10s\n", "quantity", "mean", "std", "min", "max", "unit")
+	for _, q := range []string{"u", "v", "E11", "E22", "E12", "e1", "e2", "rotation_deg", "von_mises", "zncc", "std_u", "std_v", "std_E11"} {
+		s, err := f.Summary(q)
+		if err != nil || s.Count == 0 {
+			continue
+		}
+		fmt.Fprintf(w, "  %-14s %12.4g %12.4g %12.4g %12.4g %10s\n", q, s.Mean, s.Std, s.Min, s.Max, f.Units[q])
+	}
+	if elapsed > 0 {
+		fmt.Fprintf(w, "time %.2f s (%.0f points/s)\n", elapsed.Seconds(), float64(n)/elapsed.Seconds())
+	}
+	fmt.Fprintln(w, "caution: every value carries a measurement uncertainty (std_*); confirm critical strains with a")
+	fmt.Fprintln(w, "calibrated extensometer (ASTM E83 / ISO 9513) and leave safety decisions to local codes and licensed engineers.")
 }

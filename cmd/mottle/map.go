@@ -2,10 +2,100 @@ package main
 
 import (
 	"context"
-	"errors"
+	"fmt"
+	"os"
+	"path/filepath"
+
+	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/field"
+	"github.com/mottledic/mottle/pkg/imageio"
 )
 
-// runMap is a placeholder until the map command lands.
 func runMap(ctx context.Context, e *env, args []string) error {
-	return errors.New("not built yet")
+	fs := newFlags(e, "map", "DIR --quantity NAME [flags]",
+		"Re-render a PNG map of any quantity from a results folder written by analyze, demo or series.\n"+
+			"The background is DIR/reference.png (or DIR/deformed.png with --on deformed).")
+	q := fs.String("quantity", "E11", "quantity to draw (any name in field.json, e.g. u, v, E11, H22, e1, rotation_deg, zncc)")
+	on := fs.String("on", "reference", "background: reference (points at X) or deformed (points at x = X + u)")
+	rng := fs.String("range", "", "colour-bar range `lo,hi` (default: 1st–99th percentile, symmetric for signed strain)")
+	opacity := fs.Float64("opacity", 1, "opacity of the colours over the image, (0, 1]")
+	out := fs.String("out", "", "output PNG `file` (default DIR/maps/QUANTITY[_deformed].png)")
+	vectors := fs.Bool("vectors", false, "draw a displacement vector plot instead of a map")
+	// Flags may come after the folder: parse the folder out first.
+	var dir string
+	if len(args) > 0 && len(args[0]) > 0 && args[0][0] != '-' {
+		dir, args = args[0], args[1:]
+	}
+	if err := parseFlags(e, fs, args); err != nil {
+		return err
+	}
+	if dir == "" && fs.NArg() > 0 {
+		dir = fs.Arg(0)
+	}
+	if dir == "" {
+		fmt.Fprintln(e.stderr, "mottle map: give the results folder")
+		fs.Usage()
+		return errUsage
+	}
+	req := analysis.MapRequest{Quantity: *q, Opacity: *opacity}
+	switch *on {
+	case "reference":
+	case "deformed":
+		req.OnDeformed = true
+	default:
+		return fmt.Errorf("--on %q: use reference or deformed", *on)
+	}
+	if *rng != "" {
+		v, err := floats(*rng, 2)
+		if err != nil {
+			return fmt.Errorf("--range: %w", err)
+		}
+		if !(v[0] < v[1]) {
+			return fmt.Errorf("--range %s: lo must be below hi", *rng)
+		}
+		req.Range = [2]float64{v[0], v[1]}
+	}
+	fh, err := os.Open(filepath.Join(dir, "field.json"))
+	if err != nil {
+		return fmt.Errorf("results folder %s: %w", dir, err)
+	}
+	f, err := field.ReadJSON(fh)
+	fh.Close()
+	if err != nil {
+		return fmt.Errorf("%s: %w", filepath.Join(dir, "field.json"), err)
+	}
+	bgName := "reference.png"
+	if req.OnDeformed {
+		bgName = "deformed.png"
+	}
+	bg, err := imageio.ReadFile(filepath.Join(dir, bgName), imageio.DefaultLimits())
+	if err != nil {
+		return fmt.Errorf("background image: %w", err)
+	}
+	var png []byte
+	name := *q
+	if *vectors {
+		png, err = analysis.RenderVectors(f, bg, 0)
+		name = "vectors"
+	} else {
+		png, err = analysis.RenderMap(f, bg, req)
+		if req.OnDeformed {
+			name += "_deformed"
+		}
+	}
+	if err != nil {
+		return err
+	}
+	path := *out
+	if path == "" {
+		path = filepath.Join(dir, "maps", name+".png")
+		if err := os.MkdirAll(filepath.Dir(path), 0o755); err != nil {
+			return err
+		}
+	}
+	if err := os.WriteFile(path, png, 0o644); err != nil {
+		return err
+	}
+	fmt.Fprintf(e.stdout, "wrote %s\n", path)
+	return nil
 }
