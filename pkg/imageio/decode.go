@@ -57,6 +57,7 @@ type countingReader struct {
 	max int64
 }
 
+// Read reads from the source, stopping one byte past the limit.
 func (c *countingReader) Read(p []byte) (int, error) {
 	if c.over() {
 		return 0, c.err()

@@ -112,13 +112,27 @@ func (h Hole) Inverse(x, y float64) (float64, float64, error) {
 
 func (h Hole) inverseFrom(x, y, X, Y float64) (float64, float64, error) {
 	dx, dy := x-h.CX, y-h.CY
+	r2 := dx*dx + dy*dy
+	a2 := h.Radius * h.Radius
 	// Displacements near the hole are at most a few times 3S/E·r ≪ a/2,
 	// so a current point this deep inside the hole has no material.
-	if dx*dx+dy*dy < h.Radius*h.Radius/4 {
+	if r2 < a2/4 {
 		return 0, 0, fmt.Errorf("%w: x = (%g, %g) is inside the hole", ErrNoMaterial, x, y)
+	}
+	// Start on the material: a guess inside the hole is pushed out to the
+	// edge, where the field is tame (inside, the a⁴/r³ terms grow fast).
+	if gx, gy := X-h.CX, Y-h.CY; gx*gx+gy*gy < a2 {
+		if r := math.Hypot(gx, gy); r > 0 {
+			X, Y = h.CX+gx*h.Radius/r, h.CY+gy*h.Radius/r
+		}
 	}
 	X, Y, err := newton(h, x, y, X, Y)
 	if err != nil {
+		if r2 < a2 {
+			// Newton wandered into the hole's analytic continuation and
+			// failed; near the edge it converges, so x is in the hole.
+			return X, Y, fmt.Errorf("%w: x = (%g, %g) is inside the hole", ErrNoMaterial, x, y)
+		}
 		return X, Y, err
 	}
 	if !h.Material(X, Y) {

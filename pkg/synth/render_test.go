@@ -190,7 +190,15 @@ func TestSpeckleSize(t *testing.T) {
 // TestHoleRender: the reference and deformed images of a plate with a hole
 // show the hole in the Void grey, and no inverse fails.
 func TestHoleRender(t *testing.T) {
-	m := Hole{E: 70000, Nu: 0.3, Radius: 20, Stress: 300, MMPerPx: 0.01, CX: 64, CY: 64}
+	for _, m := range []Hole{
+		{E: 70000, Nu: 0.3, Radius: 20, Stress: 300, MMPerPx: 0.01, CX: 64, CY: 64},
+		{E: 1000, Nu: 0.5, Radius: 25, Stress: 16, MMPerPx: 0.01, CX: 63.5, CY: 64.5}, // peak strain 4.8 %
+	} {
+		testHoleRender(t, m)
+	}
+}
+
+func testHoleRender(t *testing.T, m Hole) {
 	p, err := PatternFor(PatternOptions{Seed: 1}, m, 128, 128)
 	if err != nil {
 		t.Fatal(err)

@@ -270,11 +270,13 @@ type reference struct {
 	body Body
 }
 
+// Material reports whether X is material in the body.
 func (r reference) Material(X, Y float64) bool { return r.body.Material(X, Y) }
 
 // Scale returns r: the reference state does not change with load.
 func (r reference) Scale(float64) Motion { return r }
 
+// Inverse returns x, or ErrNoMaterial outside the body.
 func (r reference) Inverse(x, y float64) (float64, float64, error) {
 	if !r.body.Material(x, y) {
 		return x, y, fmt.Errorf("%w: (%g, %g)", ErrNoMaterial, x, y)
