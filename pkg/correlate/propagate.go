@@ -115,6 +115,7 @@ type run struct {
 	hVV     []float64
 	s2      []float64 // per-point residual noise variance estimate
 	seedLog []Seed
+	minStd  float64 // subsets with a smaller grey-level std are LowContrast
 	comp    []int32 // connected component of each computable point, −1 outside
 	compN   []int   // size of each component
 	solvers []*solver
@@ -218,6 +219,7 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options) (*run, err
 		return nil, err
 	}
 	minStd := 0.01 * maskStd(r.ref, r.mask)
+	r.minStd = minStd
 	r.solvers = make([]*solver, r.threads)
 	r.tmpl = make([][]float64, r.threads)
 	for i := range r.solvers {
@@ -388,15 +390,23 @@ func (r *run) setupGrid() error {
 		return fmt.Errorf("correlate: Start has %d points but the grid has %d (%d×%d): it must come from a run with the same images size, subset, step and ROI", len(r.opt.Start), n, g.Nx, g.Ny)
 	}
 	r.alloc(n)
+	lc := newMoments(r.ref)
 	for j := 0; j < g.Ny; j++ {
 		for i := 0; i < g.Nx; i++ {
 			x, y := g.At(i, j)
 			k := g.Index(i, j)
 			r.pts[k].X, r.pts[k].Y = float64(x), float64(y)
-			if r.mask.RectInside(x-m, y-m, x+m, y+m) {
-				r.state[k] = stPending
-			} else {
+			switch {
+			case !r.mask.RectInside(x-m, y-m, x+m, y+m):
 				r.pts[k].Status = Outside
+			case lc.std(x-m, y-m, x+m, y+m) < r.minStd:
+				// Low contrast is a property of the reference subset
+				// alone: flag it now, so that blank areas are reported
+				// as such rather than as unreached.
+				r.pts[k].Status = LowContrast
+				r.state[k] = stFailed
+			default:
+				r.state[k] = stPending
 			}
 		}
 	}
@@ -750,6 +760,8 @@ func (r *run) propagateAll(ctx context.Context, seeds []int) error {
 			r.pts[k].Status = Unreached
 		}
 	}
+	done = total
+	progress()
 	return nil
 }
 
@@ -815,4 +827,38 @@ func median(v []float64) float64 {
 		return v[h]
 	}
 	return (v[h-1] + v[h]) / 2
+}
+
+// moments holds summed-area tables of an image and its square, for the
+// grey-level standard deviation of any rectangle in O(1).
+type moments struct {
+	w      int
+	s1, s2 []float64
+}
+
+func newMoments(g *imageio.Gray) *moments {
+	w := g.W + 1
+	m := &moments{w: w, s1: make([]float64, w*(g.H+1)), s2: make([]float64, w*(g.H+1))}
+	for y := 0; y < g.H; y++ {
+		var a, b float64
+		for x := 0; x < g.W; x++ {
+			v := float64(g.Pix[y*g.Stride+x])
+			a += v
+			b += v * v
+			m.s1[(y+1)*w+x+1] = m.s1[y*w+x+1] + a
+			m.s2[(y+1)*w+x+1] = m.s2[y*w+x+1] + b
+		}
+	}
+	return m
+}
+
+// std returns the grey-level standard deviation over x0 ≤ x ≤ x1, y0 ≤ y ≤ y1.
+func (m *moments) std(x0, y0, x1, y1 int) float64 {
+	w := m.w
+	box := func(s []float64) float64 {
+		return s[(y1+1)*w+x1+1] - s[y0*w+x1+1] - s[(y1+1)*w+x0] + s[y0*w+x0]
+	}
+	n := float64((x1 - x0 + 1) * (y1 - y0 + 1))
+	mean := box(m.s1) / n
+	return math.Sqrt(math.Max(box(m.s2)/n-mean*mean, 0))
 }
