@@ -146,7 +146,13 @@ type testServer struct {
 // directory, on 127.0.0.1, with the options changed by mod.
 func newServer(t testing.TB, mod func(*service.Config)) *testServer {
 	t.Helper()
-	be, err := embedded.Open(t.TempDir(), 64)
+	return newServerWith(t, false, mod)
+}
+
+// newServerWith is newServer; noSync turns off fsync (for fuzzing only).
+func newServerWith(t testing.TB, noSync bool, mod func(*service.Config)) *testServer {
+	t.Helper()
+	be, err := embedded.OpenWith(t.TempDir(), embedded.Options{QueueCap: 64, NoSync: noSync})
 	if err != nil {
 		t.Fatal(err)
 	}

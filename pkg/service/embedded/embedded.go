@@ -15,6 +15,21 @@ import (
 // record is queued or running (a running record means the process that ran
 // it stopped before finishing), oldest first.
 func Open(dataDir string, queueCap int) (*jobs.Backend, error) {
+	return OpenWith(dataDir, Options{QueueCap: queueCap})
+}
+
+// Options configure OpenWith.
+type Options struct {
+	// QueueCap is the queue capacity (at least 1).
+	QueueCap int
+	// NoSync skips fsync on every write. It is for tests and benchmarks
+	// only: a crash may then lose or corrupt accepted jobs.
+	NoSync bool
+}
+
+// OpenWith is Open with options.
+func OpenWith(dataDir string, o Options) (*jobs.Backend, error) {
+	queueCap := o.QueueCap
 	if err := os.MkdirAll(dataDir, 0o750); err != nil {
 		return nil, fmt.Errorf("data directory %s: %w", dataDir, err)
 	}
@@ -22,11 +37,13 @@ func Open(dataDir string, queueCap int) (*jobs.Backend, error) {
 	if err != nil {
 		return nil, err
 	}
+	st.db.NoSync = o.NoSync
 	bl, err := OpenBlobs(filepath.Join(dataDir, "blobs"))
 	if err != nil {
 		st.Close()
 		return nil, err
 	}
+	bl.noSync = o.NoSync
 	q := NewQueue(queueCap)
 	return &jobs.Backend{
 		Store:   st,
