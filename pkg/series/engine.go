@@ -1,9 +1,15 @@
 package series
 
 import (
+	"context"
 	"errors"
+	"fmt"
 
+	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/correlate"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/roi"
+	"github.com/mottledic/mottle/pkg/spline"
 )
 
 // New starts a series on the reference image ref, whose own time stamp and
@@ -11,6 +17,12 @@ import (
 // defaults of Defaults). It validates p against the image and returns every
 // problem at once.
 func New(ref *imageio.Gray, meta FrameMeta, p Params) (*Tracker, error) {
+	if ref == nil || ref.W < 1 || ref.H < 1 {
+		return nil, errors.New("series: reference image is empty")
+	}
+	if err := p.Validate(ref.W, ref.H); err != nil {
+		return nil, fmt.Errorf("series parameters: %w", err)
+	}
 	c, err := newCorrelator(ref, p.withDefaults())
 	if err != nil {
 		return nil, err
@@ -18,7 +30,126 @@ func New(ref *imageio.Gray, meta FrameMeta, p Params) (*Tracker, error) {
 	return newTracker(ref, meta, p, c)
 }
 
-// newCorrelator builds the production correlator on pkg/correlate.
+// engine is the production correlator on pkg/correlate.
+type engine struct {
+	ref *imageio.Gray
+	opt correlate.Options // direct correlation, with the ROI mask
+	inc correlate.Options // incremental correlation: whole image
+	lat lattice
+	cg  correlate.Grid
+}
+
+// correlationOptions turns analysis parameters into correlator options
+// for images of w×h px.
+func correlationOptions(p analysis.Params, w, h int) (correlate.Options, error) {
+	opt := correlate.Defaults()
+	opt.Subset, opt.Step = p.Subset, p.Step
+	opt.Shape = correlate.First
+	if p.Shape == "second" {
+		opt.Shape = correlate.Second
+	}
+	opt.Interp = spline.Cubic
+	if p.Interpolation == "quintic" {
+		opt.Interp = spline.Quintic
+	}
+	opt.Prefilter = p.Prefilter
+	opt.Seeds = p.Seeds
+	opt.Search = p.Search
+	opt.MinZNCC = p.MinZNCC
+	opt.MaxIter = p.MaxIter
+	opt.Tol = p.Tolerance
+	opt.Threads = p.Threads
+	opt.Noise = p.Noise
+	if p.ROI != nil {
+		m, err := p.ROI.Mask(w, h)
+		if err != nil {
+			return opt, fmt.Errorf("roi: %w", err)
+		}
+		opt.Mask = m
+	}
+	if err := opt.Validate(); err != nil {
+		return opt, err
+	}
+	return opt, nil
+}
+
+// newCorrelator builds the production correlator and the grid of material
+// points: subset centres from half a subset inside the ROI's bounding box,
+// every Step px, as pkg/correlate lays them out (checked on the first
+// frame).
 func newCorrelator(ref *imageio.Gray, p Params) (correlator, error) {
-	return nil, errors.New("series: the correlation engine (pkg/correlate) is not wired in yet")
+	opt, err := correlationOptions(p.Analysis, ref.W, ref.H)
+	if err != nil {
+		return nil, fmt.Errorf("series: %w", err)
+	}
+	mask := opt.Mask
+	if mask == nil {
+		mask = roi.Full(ref.W, ref.H)
+	}
+	m := opt.Subset / 2
+	bx0, by0, bx1, by1 := mask.Bounds()
+	g := correlate.Grid{X0: bx0 + m, Y0: by0 + m, Step: opt.Step}
+	if bx1-1-m < g.X0 || by1-1-m < g.Y0 {
+		return nil, fmt.Errorf("series: the region of interest (%d×%d px) is smaller than the %d px subset", bx1-bx0, by1-by0, opt.Subset)
+	}
+	g.Nx = (bx1-1-m-g.X0)/opt.Step + 1
+	g.Ny = (by1-1-m-g.Y0)/opt.Step + 1
+	inc := opt
+	inc.Mask, inc.Seeds = nil, nil
+	return &engine{ref: ref, opt: opt, inc: inc, cg: g,
+		lat: lattice{X0: float64(g.X0), Y0: float64(g.Y0), Step: float64(g.Step), Nx: g.Nx, Ny: g.Ny}}, nil
+}
+
+func (e *engine) grid() lattice { return e.lat }
+
+func fromPoint(pt correlate.Point) match {
+	return match{U: pt.P[correlate.U], V: pt.P[correlate.V],
+		Ux: pt.P[correlate.Ux], Uy: pt.P[correlate.Uy], Vx: pt.P[correlate.Vx], Vy: pt.P[correlate.Vy],
+		ZNCC: pt.ZNCC, StdU: pt.StdU, StdV: pt.StdV, OK: pt.Status == correlate.OK, Reason: pt.Status.String()}
+}
+
+func (e *engine) direct(ctx context.Context, def *imageio.Gray, start []guess) ([]match, error) {
+	opt := e.opt
+	if start != nil {
+		opt.Start = make([]correlate.Point, len(start))
+		for k, s := range start {
+			if !s.OK {
+				opt.Start[k].Status = correlate.Unreached
+				continue
+			}
+			var P [12]float64
+			P[correlate.U], P[correlate.V] = s.U, s.V
+			P[correlate.Ux], P[correlate.Uy], P[correlate.Vx], P[correlate.Vy] = s.Ux, s.Uy, s.Vx, s.Vy
+			opt.Start[k] = correlate.Point{P: P, Status: correlate.OK}
+		}
+	}
+	res, err := correlate.Run(ctx, e.ref, def, opt)
+	if err != nil {
+		return nil, err
+	}
+	if res.Grid != e.cg {
+		return nil, fmt.Errorf("series: correlation grid %+v differs from the series grid %+v", res.Grid, e.cg)
+	}
+	out := make([]match, len(res.Points))
+	for k, pt := range res.Points {
+		out[k] = fromPoint(pt)
+	}
+	return out, nil
+}
+
+func (e *engine) at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float64, start []guess) ([]match, error) {
+	g := make([][12]float64, len(pts))
+	for k, s := range start {
+		g[k][correlate.U], g[k][correlate.V] = s.U, s.V
+		g[k][correlate.Ux], g[k][correlate.Uy], g[k][correlate.Vx], g[k][correlate.Vy] = s.Ux, s.Uy, s.Vx, s.Vy
+	}
+	res, err := correlate.RunPoints(ctx, src, dst, pts, g, e.inc)
+	if err != nil {
+		return nil, err
+	}
+	out := make([]match, len(res.Points))
+	for k, pt := range res.Points {
+		out[k] = fromPoint(pt)
+	}
+	return out, nil
 }

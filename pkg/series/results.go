@@ -65,7 +65,10 @@ func (t *Tracker) results(ctx context.Context, pts []PointState, meta FrameMeta,
 		if valid[k] {
 			vf[k] = 1
 		} else {
-			status[k] = "not_tracked"
+			status[k] = pts[k].Reason
+			if status[k] == "" || status[k] == "ok" {
+				status[k] = "not_tracked"
+			}
 			zn[k] = nan
 		}
 	}

@@ -46,6 +46,8 @@ type PointState struct {
 	ZNCC       float64
 	StdU, StdV float64
 	Valid      bool
+	// Reason says why an invalid point has no value (not saved in State).
+	Reason string
 }
 
 // Snapshot is one frame's displacement (px) and Green–Lagrange strain at

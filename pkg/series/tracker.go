@@ -17,6 +17,8 @@ type match struct {
 	ZNCC                 float64
 	StdU, StdV           float64
 	OK                   bool
+	// Reason is the status name when not OK ("diverged", "low_zncc", …).
+	Reason string
 }
 
 // guess is an initial guess of the displacement and its gradient at a
@@ -279,7 +281,7 @@ func (t *Tracker) directStep(ctx context.Context, img *imageio.Gray) ([]PointSta
 	for k, m := range ms {
 		X, Y := g.pos(k)
 		out[k] = PointState{X: X + m.U, Y: Y + m.V, F: [4]float64{1 + m.Ux, m.Uy, m.Vx, 1 + m.Vy},
-			ZNCC: m.ZNCC, StdU: m.StdU, StdV: m.StdV, Valid: m.OK && finite(m.U, m.V, m.Ux, m.Uy, m.Vx, m.Vy)}
+			ZNCC: m.ZNCC, StdU: m.StdU, StdV: m.StdV, Valid: m.OK && finite(m.U, m.V, m.Ux, m.Uy, m.Vx, m.Vy), Reason: m.Reason}
 	}
 	return out, nil
 }
@@ -316,6 +318,9 @@ func (t *Tracker) incremental(ctx context.Context, img *imageio.Gray) ([]PointSt
 	for k, q := range t.st.Points {
 		out[k] = q
 		out[k].Valid = false
+		if q.Valid {
+			out[k].Reason = "lost"
+		}
 	}
 	if len(idx) == 0 {
 		return out, nil
@@ -330,7 +335,7 @@ func (t *Tracker) incremental(ctx context.Context, img *imageio.Gray) ([]PointSt
 	for n, k := range idx {
 		m, q := ms[n], t.st.Points[k]
 		if !m.OK || !finite(m.U, m.V, m.Ux, m.Uy, m.Vx, m.Vy) {
-			out[k].ZNCC = m.ZNCC
+			out[k].ZNCC, out[k].Reason = m.ZNCC, m.Reason
 			continue
 		}
 		inc := kinematics.FromGradient(m.Ux, m.Uy, m.Vx, m.Vy)
