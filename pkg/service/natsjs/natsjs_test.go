@@ -1,0 +1,549 @@
+package natsjs
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"io"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/nats-io/nats-server/v2/server"
+
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+// runServer starts an in-process single-node JetStream server.
+func runServer(t testing.TB) string {
+	t.Helper()
+	opts := &server.Options{Host: "127.0.0.1", Port: -1, JetStream: true, StoreDir: t.TempDir(), NoLog: true, NoSigs: true}
+	s, err := server.NewServer(opts)
+	if err != nil {
+		t.Fatal(err)
+	}
+	go s.Start()
+	if !s.ReadyForConnections(10 * time.Second) {
+		t.Fatal("nats server not ready")
+	}
+	t.Cleanup(s.Shutdown)
+	return s.ClientURL()
+}
+
+func open(t testing.TB, url string, mod func(*Options)) *Backend {
+	t.Helper()
+	o := Options{Servers: []string{url}, AckWait: 300 * time.Millisecond, Work: true}
+	if mod != nil {
+		mod(&o)
+	}
+	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
+	defer cancel()
+	b, err := Open(ctx, o)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(func() { b.Close() })
+	return b
+}
+
+func newJob(kind jobs.Kind, series string, frame int) *jobs.Job {
+	return &jobs.Job{ID: jobs.NewID(), Kind: kind, State: jobs.Queued, Series: series, FrameIndex: frame,
+		Params: []byte(`{}`), Created: time.Now().UTC()}
+}
+
+func TestParseURL(t *testing.T) {
+	cases := []struct {
+		spec    string
+		servers int
+		ok      bool
+		check   func(Options) bool
+	}{
+		{"nats://127.0.0.1:4222", 1, true, func(o Options) bool { return o.Prefix == "" && o.Replicas == 0 }},
+		{"nats://a:4222,nats://b:4222,c:4222?prefix=lab2&replicas=3&ack_wait=5s&max_deliver=4&queue=9&order=series", 3, true,
+			func(o Options) bool {
+				return o.Prefix == "lab2" && o.Replicas == 3 && o.AckWait == 5*time.Second && o.MaxDeliver == 4 &&
+					o.QueueCap == 9 && o.Order == OrderSeries && o.Servers[2] == "nats://c:4222"
+			}},
+		{"nats://a:4222?replicas=seven", 1, false, nil},
+		{"nats://a:4222?ack_wait=soon", 1, false, nil},
+		{"nats://a:4222?color=blue", 1, false, nil},
+		{"nats://a:4222?order=random", 1, false, nil},
+		{"nats://a:4222?replicas=9", 1, false, nil},
+		{"nats://a:4222?max_deliver=1", 1, false, nil},
+		{"nats://a:4222?prefix=a.b", 1, false, nil},
+		{"http://a:4222", 1, false, nil},
+		{"", 0, false, nil},
+	}
+	for _, c := range cases {
+		o, err := ParseURL(c.spec)
+		if (err == nil) != c.ok {
+			t.Errorf("ParseURL(%q): err = %v, want ok = %v", c.spec, err, c.ok)
+			continue
+		}
+		if len(o.Servers) != c.servers {
+			t.Errorf("ParseURL(%q): %d servers, want %d", c.spec, len(o.Servers), c.servers)
+		}
+		if c.check != nil && !c.check(o) {
+			t.Errorf("ParseURL(%q) = %+v", c.spec, o)
+		}
+	}
+}
+
+func TestStore(t *testing.T) {
+	url := runServer(t)
+	b := open(t, url, nil)
+	other := open(t, url, nil) // a second process on the same bucket
+	ctx := context.Background()
+	st, st2 := b.Store(), other.Store()
+
+	sr := &jobs.Series{ID: jobs.NewID(), Params: []byte(`{}`), Created: time.Now().UTC(), Frames: []string{}}
+	if err := st.CreateSeries(ctx, sr); err != nil {
+		t.Fatal(err)
+	}
+	if err := st.CreateSeries(ctx, sr); !errors.Is(err, jobs.ErrExists) {
+		t.Fatalf("second CreateSeries: %v, want ErrExists", err)
+	}
+	a := newJob(jobs.Analysis, "", 0)
+	if err := st.CreateJob(ctx, a); err != nil {
+		t.Fatal(err)
+	}
+	if err := st.CreateJob(ctx, a); !errors.Is(err, jobs.ErrExists) {
+		t.Fatalf("second CreateJob: %v, want ErrExists", err)
+	}
+	if _, err := st.Job(ctx, jobs.NewID()); !errors.Is(err, jobs.ErrNotFound) {
+		t.Fatalf("Job(unknown): %v, want ErrNotFound", err)
+	}
+	if _, err := st.Job(ctx, "../../etc"); !errors.Is(err, jobs.ErrNotFound) {
+		t.Fatalf("Job(forged): %v, want ErrNotFound", err)
+	}
+
+	// Concurrent read-modify-writes from two connections: compare-and-swap
+	// must not lose any.
+	var wg sync.WaitGroup
+	const n = 24
+	for i := 0; i < n; i++ {
+		wg.Add(1)
+		go func(s *Store) {
+			defer wg.Done()
+			if _, err := s.UpdateJob(ctx, a.ID, func(j *jobs.Job) error { j.Attempts++; return nil }); err != nil {
+				t.Error(err)
+			}
+		}([]*Store{st, st2}[i%2])
+	}
+	for i := 0; i < 6; i++ {
+		f := newJob(jobs.Frame, sr.ID, i)
+		wg.Add(1)
+		go func() {
+			defer wg.Done()
+			if _, err := st2.UpdateSeries(ctx, sr.ID, func(s *jobs.Series) error { s.Frames = append(s.Frames, f.ID); return nil }); err != nil {
+				t.Error(err)
+			}
+			if err := st2.CreateJob(ctx, f); err != nil {
+				t.Error(err)
+			}
+		}()
+	}
+	wg.Wait()
+	got, err := st.Job(ctx, a.ID)
+	if err != nil || got.Attempts != n {
+		t.Fatalf("after %d concurrent updates: attempts %d, err %v", n, got.Attempts, err)
+	}
+	s2, err := st.Series(ctx, sr.ID)
+	if err != nil || len(s2.Frames) != 6 {
+		t.Fatalf("series frames %v, err %v; want 6", s2.Frames, err)
+	}
+
+	// A failing fn stores nothing.
+	boom := errors.New("boom")
+	if _, err := st.UpdateJob(ctx, a.ID, func(j *jobs.Job) error { j.Attempts = -1; return boom }); !errors.Is(err, boom) {
+		t.Fatalf("UpdateJob with failing fn: %v", err)
+	}
+
+	// A succeeded record is final: a second success keeps the first.
+	fin := time.Now().UTC()
+	first := &jobs.Summary{Points: 10, Valid: 10, Seconds: 1}
+	if _, err := st.UpdateJob(ctx, a.ID, func(j *jobs.Job) error {
+		j.State, j.Finished, j.Summary = jobs.Succeeded, &fin, first
+		return nil
+	}); err != nil {
+		t.Fatal(err)
+	}
+	again, err := st2.UpdateJob(ctx, a.ID, func(j *jobs.Job) error {
+		j.State, j.Summary = jobs.Succeeded, &jobs.Summary{Points: 10, Valid: 10, Seconds: 7}
+		return nil
+	})
+	if err != nil || again.Summary.Seconds != 1 {
+		t.Fatalf("second success: %+v, %v; want the first summary kept", again.Summary, err)
+	}
+
+	// Listings come from the mirror, which follows writes of other processes.
+	deadline := time.Now().Add(5 * time.Second)
+	for {
+		list, err := st.Jobs(ctx, jobs.Filter{Series: sr.ID})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(list) == 6 {
+			break
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("mirror holds %d frames of the series, want 6", len(list))
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	counts, err := st.Counts(ctx)
+	if err != nil || counts[jobs.Queued] != 6 || counts[jobs.Succeeded] != 1 {
+		t.Fatalf("counts %v, %v; want 6 queued, 1 succeeded", counts, err)
+	}
+	all, err := st2.AllSeries(ctx)
+	if err != nil || len(all) != 1 || all[0].ID != sr.ID {
+		t.Fatalf("AllSeries = %v, %v", all, err)
+	}
+	if list, _ := st.Jobs(ctx, jobs.Filter{States: []jobs.State{jobs.Succeeded}, Limit: 5}); len(list) != 1 || list[0].ID != a.ID {
+		t.Fatalf("Jobs(succeeded) = %v", list)
+	}
+
+	// Watch a series from one process while another updates a frame and
+	// publishes its progress.
+	wctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	ch, err := st.Watch(wctx, sr.ID)
+	if err != nil {
+		t.Fatal(err)
+	}
+	fid := s2.Frames[0]
+	if _, err := st2.UpdateJob(ctx, fid, func(j *jobs.Job) error { j.State = jobs.Running; return nil }); err != nil {
+		t.Fatal(err)
+	}
+	sawRunning, sawProgress := false, false
+	timeout := time.After(5 * time.Second)
+	for !sawProgress {
+		select {
+		case j := <-ch:
+			if j.ID != fid {
+				continue
+			}
+			if j.State == jobs.Running && !sawRunning {
+				sawRunning = true
+				if err := st2.SetProgress(ctx, fid, jobs.Progress{Done: 3, Total: 9}); err != nil {
+					t.Fatal(err)
+				}
+			}
+			if sawRunning && j.Progress.Done == 3 {
+				sawProgress = true
+			}
+		case <-timeout:
+			t.Fatalf("watch: running %v, progress %v", sawRunning, sawProgress)
+		}
+	}
+	if j, _ := st.Job(ctx, fid); j.Progress.Done != 3 {
+		t.Errorf("Job on the watching process: progress %+v, want 3/9", j.Progress)
+	}
+	cancel()
+	for range ch { // closed when the context ends
+	}
+
+	if err := st.DeleteJob(ctx, a.ID); err != nil {
+		t.Fatal(err)
+	}
+	if err := st.DeleteJob(ctx, a.ID); !errors.Is(err, jobs.ErrNotFound) {
+		t.Fatalf("second DeleteJob: %v", err)
+	}
+	if err := st.DeleteSeries(ctx, sr.ID); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := st2.Series(ctx, sr.ID); !errors.Is(err, jobs.ErrNotFound) {
+		t.Fatalf("Series after delete: %v", err)
+	}
+}
+
+func TestBlobs(t *testing.T) {
+	b := open(t, runServer(t), nil)
+	bl := b.Blobs()
+	ctx := context.Background()
+	id := jobs.NewID()
+	read := func(key string) string {
+		t.Helper()
+		rc, err := bl.Get(ctx, key)
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer rc.Close()
+		data, err := io.ReadAll(rc)
+		if err != nil {
+			t.Fatal(err)
+		}
+		return string(data)
+	}
+	in := jobs.InputKey(id, "reference")
+	big := strings.Repeat("speckle ", 40000) // several object chunks
+	if err := bl.Put(ctx, in, strings.NewReader(big)); err != nil {
+		t.Fatal(err)
+	}
+	if read(in) != big {
+		t.Fatal("input read back differs")
+	}
+	info1, _ := b.blobs.obj.GetInfo(ctx, in)
+	// The same contents again: nothing is written (same object NUID).
+	if err := bl.Put(ctx, in, strings.NewReader(big)); err != nil {
+		t.Fatal(err)
+	}
+	if info2, _ := b.blobs.obj.GetInfo(ctx, in); info2.NUID != info1.NUID {
+		t.Error("a Put of identical contents rewrote the object")
+	}
+	// Inputs may be replaced.
+	if err := bl.Put(ctx, in, strings.NewReader("new")); err != nil || read(in) != "new" {
+		t.Fatalf("replace input: %v, %q", err, read(in))
+	}
+	// Results are written once: the first answer stays.
+	out := jobs.ResultKey(id, "field.json")
+	if err := bl.Put(ctx, out, strings.NewReader(`{"a":1}`)); err != nil {
+		t.Fatal(err)
+	}
+	if err := bl.Put(ctx, out, bytes.NewReader([]byte(`{"a":2}`))); err != nil {
+		t.Fatal(err)
+	}
+	if got := read(out); got != `{"a":1}` {
+		t.Errorf("result after a second Put = %s, want the first", got)
+	}
+	if err := bl.Put(ctx, jobs.ResultKey(id, "arrays/u.npy"), strings.NewReader("u")); err != nil {
+		t.Fatal(err)
+	}
+	keys, err := bl.Keys(ctx, jobs.JobKey(id))
+	if err != nil || len(keys) != 3 {
+		t.Fatalf("keys %v, %v; want 3", keys, err)
+	}
+	if err := bl.Put(ctx, "../x", strings.NewReader("x")); err == nil {
+		t.Error("Put with key ../x: no error")
+	}
+	if _, err := bl.Get(ctx, jobs.InputKey(jobs.NewID(), "reference")); !errors.Is(err, jobs.ErrNotFound) {
+		t.Errorf("Get(missing): %v", err)
+	}
+	if err := bl.Delete(ctx, jobs.JobKey(id)); err != nil {
+		t.Fatal(err)
+	}
+	if keys, _ := bl.Keys(ctx, ""); len(keys) != 0 {
+		t.Errorf("after Delete: %v", keys)
+	}
+	if err := bl.Delete(ctx, jobs.JobKey(id)); err != nil {
+		t.Errorf("Delete of nothing: %v", err)
+	}
+}
+
+// dequeue pulls one delivery within d, or returns nil.
+func dequeue(t *testing.T, q *Queue, d time.Duration) jobs.Delivery {
+	t.Helper()
+	ctx, cancel := context.WithTimeout(context.Background(), d)
+	defer cancel()
+	dl, err := q.Dequeue(ctx)
+	if err != nil {
+		if ctx.Err() == nil {
+			t.Fatal(err)
+		}
+		return nil
+	}
+	return dl
+}
+
+func TestQueueHeartbeatAndRedelivery(t *testing.T) {
+	url := runServer(t)
+	api := open(t, url, func(o *Options) { o.Work = false })
+	w1 := open(t, url, nil)
+	w2 := open(t, url, nil)
+	ctx := context.Background()
+	j := newJob(jobs.Analysis, "", 0)
+	if err := api.Store().CreateJob(ctx, j); err != nil {
+		t.Fatal(err)
+	}
+	if err := api.Queue().Enqueue(ctx, j.ID); err != nil {
+		t.Fatal(err)
+	}
+	// A repeated publish of the same id is stored once.
+	if err := api.Queue().Enqueue(ctx, j.ID); err != nil {
+		t.Fatal(err)
+	}
+	if n, _ := api.Pending(ctx); n != 1 {
+		t.Fatalf("stream holds %d messages after a duplicate enqueue, want 1", n)
+	}
+	// The API node never takes jobs.
+	if d := dequeue(t, api.Queue(), 300*time.Millisecond); d != nil {
+		t.Fatal("API node dequeued a job")
+	}
+	d1 := dequeue(t, w1.Queue(), 5*time.Second)
+	if d1 == nil || d1.ID() != j.ID {
+		t.Fatalf("worker 1 got %v", d1)
+	}
+	if _, err := w1.Store().UpdateJob(ctx, j.ID, func(j *jobs.Job) error { j.State = jobs.Running; j.Attempts++; return nil }); err != nil {
+		t.Fatal(err)
+	}
+	// Heartbeats keep the job with worker 1 well past AckWait (300 ms).
+	if d := dequeue(t, w2.Queue(), 1200*time.Millisecond); d != nil {
+		t.Fatal("job redelivered while its worker was sending heartbeats")
+	}
+	// Worker 1 dies: no more heartbeats, the job goes to worker 2 with its
+	// record back to queued.
+	w1.Conn().Close()
+	d2 := dequeue(t, w2.Queue(), 5*time.Second)
+	if d2 == nil || d2.ID() != j.ID {
+		t.Fatalf("worker 2 got %v after worker 1 died", d2)
+	}
+	got, _ := w2.Store().Job(ctx, j.ID)
+	if got.State != jobs.Queued || got.Attempts != 1 {
+		t.Fatalf("redelivered record: state %s attempts %d, want queued, 1", got.State, got.Attempts)
+	}
+	if err := d2.Ack(); err != nil {
+		t.Fatal(err)
+	}
+	if n, _ := api.Pending(ctx); n != 0 {
+		t.Fatalf("stream holds %d messages after the ack, want 0", n)
+	}
+	if dl, _ := api.DeadLetters(ctx); len(dl) != 0 {
+		t.Fatalf("dead letters %v, want none", dl)
+	}
+}
+
+func TestQueueDeadLetters(t *testing.T) {
+	url := runServer(t)
+	mod := func(o *Options) { o.MaxDeliver = 2 }
+	w1 := open(t, url, mod)
+	w2 := open(t, url, mod)
+	ctx := context.Background()
+
+	// A job whose record says failed is dead-lettered with its reason.
+	bad := newJob(jobs.Analysis, "", 0)
+	w2.Store().CreateJob(ctx, bad)
+	w2.Queue().Enqueue(ctx, bad.ID)
+	d := dequeue(t, w2.Queue(), 5*time.Second)
+	fin := time.Now().UTC()
+	w2.Store().UpdateJob(ctx, bad.ID, func(j *jobs.Job) error {
+		j.State, j.Finished = jobs.Failed, &fin
+		j.Error = &jobs.Failure{Title: "Invalid parameters", Detail: "subset 99 is larger than the image", Field: "params.subset"}
+		return nil
+	})
+	if err := d.Ack(); err != nil {
+		t.Fatal(err)
+	}
+
+	// A job whose worker dies on every delivery is failed on the last one.
+	j := newJob(jobs.Frame, jobs.NewID(), 3)
+	w1.Store().CreateJob(ctx, j)
+	w1.Queue().Enqueue(ctx, j.ID)
+	if d := dequeue(t, w1.Queue(), 5*time.Second); d == nil {
+		t.Fatal("no delivery")
+	}
+	w1.Conn().Close()
+	if d := dequeue(t, w2.Queue(), 2*time.Second); d != nil {
+		t.Fatalf("delivery %d handed out beyond MaxDeliver", 2)
+	}
+	got, _ := w2.Store().Job(ctx, j.ID)
+	if got.State != jobs.Failed || got.Error == nil || !strings.Contains(got.Error.Detail, "delivered 2 times") {
+		t.Fatalf("record after the last delivery: %+v %+v", got, got.Error)
+	}
+	dls, err := w2.DeadLetters(ctx)
+	if err != nil || len(dls) != 2 {
+		t.Fatalf("dead letters %+v, %v; want 2", dls, err)
+	}
+	if dls[0].Job != bad.ID || dls[0].Error.Field != "params.subset" || dls[1].Job != j.ID || dls[1].Kind != jobs.Frame || dls[1].Deliveries != 2 {
+		t.Errorf("dead letters %+v %+v", dls[0], dls[1])
+	}
+	if n, _ := w2.Pending(ctx); n != 0 {
+		t.Errorf("stream holds %d messages, want 0", n)
+	}
+}
+
+func TestQueueFull(t *testing.T) {
+	b := open(t, runServer(t), func(o *Options) { o.QueueCap = 2; o.Work = false })
+	ctx := context.Background()
+	for i := 0; i < 3; i++ {
+		j := newJob(jobs.Analysis, "", 0)
+		b.Store().CreateJob(ctx, j)
+		err := b.Queue().Enqueue(ctx, j.ID)
+		if want := i == 2; errors.Is(err, jobs.ErrQueueFull) != want {
+			t.Fatalf("enqueue %d: %v", i, err)
+		}
+	}
+	time.Sleep(300 * time.Millisecond)
+	if n := b.Queue().Len(); n != 2 {
+		t.Errorf("Len = %d, want 2", n)
+	}
+}
+
+// TestQueueSeriesOrder: with OrderSeries, two workers never hold frame
+// n+1 while frame n is unfinished, and different series go in parallel.
+func TestQueueSeriesOrder(t *testing.T) {
+	url := runServer(t)
+	mod := func(o *Options) { o.Order = OrderSeries; o.AckWait = 2 * time.Second }
+	api := open(t, url, func(o *Options) { mod(o); o.Work = false })
+	ws := []*Backend{open(t, url, mod), open(t, url, mod)}
+	ctx := context.Background()
+	const frames = 4
+	var all []*jobs.Job
+	for s := 0; s < 2; s++ {
+		sr := &jobs.Series{ID: jobs.NewID(), Created: time.Now().UTC()}
+		api.Store().CreateSeries(ctx, sr)
+		for i := 0; i < frames; i++ {
+			j := newJob(jobs.Frame, sr.ID, i)
+			api.Store().UpdateSeries(ctx, sr.ID, func(s *jobs.Series) error { s.Frames = append(s.Frames, j.ID); return nil })
+			api.Store().CreateJob(ctx, j)
+			all = append(all, j)
+		}
+	}
+	for _, j := range all { // enqueue series interleaved
+		if err := api.Queue().Enqueue(ctx, j.ID); err != nil {
+			t.Fatal(err)
+		}
+	}
+	var mu sync.Mutex
+	done := map[string]bool{}
+	var order []string
+	var wg sync.WaitGroup
+	for _, w := range ws {
+		wg.Add(1)
+		go func(w *Backend) {
+			defer wg.Done()
+			for {
+				mu.Lock()
+				finished := len(done) == len(all)
+				mu.Unlock()
+				if finished {
+					return
+				}
+				d := dequeue(t, w.Queue(), 300*time.Millisecond)
+				if d == nil {
+					continue
+				}
+				j, _ := w.Store().Job(ctx, d.ID())
+				mu.Lock()
+				if j.FrameIndex > 0 {
+					prev := all[indexOf(all, j.ID)-1]
+					if !done[prev.ID] {
+						t.Errorf("frame %d of series %s handed out before frame %d finished", j.FrameIndex, j.Series[:6], j.FrameIndex-1)
+					}
+				}
+				order = append(order, j.ID)
+				mu.Unlock()
+				time.Sleep(30 * time.Millisecond) // compute
+				now := time.Now().UTC()
+				w.Store().UpdateJob(ctx, j.ID, func(j *jobs.Job) error { j.State, j.Finished = jobs.Succeeded, &now; return nil })
+				mu.Lock()
+				done[j.ID] = true
+				mu.Unlock()
+				d.Ack()
+			}
+		}(w)
+	}
+	wg.Wait()
+	if len(order) != len(all) {
+		t.Fatalf("%d deliveries, want %d", len(order), len(all))
+	}
+}
+
+func indexOf(list []*jobs.Job, id string) int {
+	for i, j := range list {
+		if j.ID == id {
+			return i
+		}
+	}
+	return -1
+}

@@ -1,0 +1,660 @@
+package natsjs
+
+import (
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"log/slog"
+	"sort"
+	"strings"
+	"sync"
+	"time"
+
+	"github.com/nats-io/nats.go"
+	"github.com/nats-io/nats.go/jetstream"
+
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+// Store is a jobs.Store on a JetStream key-value bucket. Records are JSON
+// under job.<id> and series.<id>; updates are compare-and-swap on the
+// key's revision, retried on conflict.
+//
+// Reads of one record go to the bucket. Listings (Jobs, Counts, AllSeries)
+// and Watch are answered from a mirror of the bucket kept up to date by a
+// key-value watch, started on first use; a process that only computes jobs
+// never starts it. Progress travels on core NATS subjects and is kept in
+// memory by the processes that watch.
+type Store struct {
+	nc  *nats.Conn
+	kv  jetstream.KeyValue
+	n   names
+	log *slog.Logger
+
+	// routes remembers the kind and series of jobs created here, so
+	// Enqueue can pick the subject without reading the record back.
+	routes sync.Map // id → route
+
+	startOnce sync.Once
+	startErr  error
+	ready     chan struct{}
+	stop      context.CancelFunc
+
+	mu       sync.Mutex
+	jobs     map[string]jobEntry
+	series   map[string]seriesEntry
+	progress map[string]jobs.Progress
+	subs     map[string]map[*sub]struct{}
+	closed   bool
+}
+
+type route struct {
+	kind   jobs.Kind
+	series string
+}
+
+type jobEntry struct {
+	rev uint64
+	j   *jobs.Job
+}
+
+type seriesEntry struct {
+	rev uint64
+	s   *jobs.Series
+}
+
+type sub struct{ ch chan *jobs.Job }
+
+func newStore(nc *nats.Conn, kv jetstream.KeyValue, n names, log *slog.Logger) *Store {
+	return &Store{nc: nc, kv: kv, n: n, log: log, ready: make(chan struct{}),
+		jobs: map[string]jobEntry{}, series: map[string]seriesEntry{},
+		progress: map[string]jobs.Progress{}, subs: map[string]map[*sub]struct{}{}}
+}
+
+func jobKey(id string) string    { return "job." + id }
+func seriesKey(id string) string { return "series." + id }
+
+// mapErr turns JetStream errors into the jobs sentinel errors.
+func mapErr(what string, err error) error {
+	switch {
+	case err == nil:
+		return nil
+	case errors.Is(err, jetstream.ErrKeyNotFound), errors.Is(err, jetstream.ErrKeyDeleted):
+		return fmt.Errorf("%s: %w", what, jobs.ErrNotFound)
+	case errors.Is(err, nats.ErrConnectionClosed):
+		return fmt.Errorf("%s: %w", what, jobs.ErrClosed)
+	}
+	return fmt.Errorf("%s: %w", what, err)
+}
+
+// CreateJob implements jobs.Store.
+func (s *Store) CreateJob(ctx context.Context, j *jobs.Job) error {
+	if err := jobs.CheckID("job", j.ID); err != nil {
+		return err
+	}
+	data, err := json.Marshal(j)
+	if err != nil {
+		return err
+	}
+	rev, err := s.kv.Create(ctx, jobKey(j.ID), data)
+	if errors.Is(err, jetstream.ErrKeyExists) {
+		return fmt.Errorf("job %s: %w", j.ID, jobs.ErrExists)
+	}
+	if err != nil {
+		return mapErr("create job "+j.ID, err)
+	}
+	s.routes.Store(j.ID, route{j.Kind, j.Series})
+	c := *j
+	s.applyJob(rev, j.ID, &c)
+	return nil
+}
+
+// getJob reads a record and its revision from the bucket.
+func (s *Store) getJob(ctx context.Context, id string) (*jobs.Job, uint64, error) {
+	if !jobs.ValidID(id) {
+		return nil, 0, fmt.Errorf("job %s: %w", id, jobs.ErrNotFound)
+	}
+	e, err := s.kv.Get(ctx, jobKey(id))
+	if err != nil {
+		return nil, 0, mapErr("job "+id, err)
+	}
+	var j jobs.Job
+	if err := json.Unmarshal(e.Value(), &j); err != nil {
+		return nil, 0, fmt.Errorf("job %s: corrupt record: %w", id, err)
+	}
+	return &j, e.Revision(), nil
+}
+
+// Job implements jobs.Store.
+func (s *Store) Job(ctx context.Context, id string) (*jobs.Job, error) {
+	j, _, err := s.getJob(ctx, id)
+	if err != nil {
+		return nil, err
+	}
+	s.overlay(j)
+	return j, nil
+}
+
+func (s *Store) overlay(j *jobs.Job) {
+	if j.State != jobs.Running {
+		return
+	}
+	s.mu.Lock()
+	if p, ok := s.progress[j.ID]; ok {
+		j.Progress = p
+	}
+	s.mu.Unlock()
+}
+
+// UpdateJob implements jobs.Store by compare-and-swap. A succeeded record
+// is final: an update that would store another success over it (a job
+// computed twice after a redelivery) is dropped and the stored record
+// returned, so the first answer stays.
+func (s *Store) UpdateJob(ctx context.Context, id string, fn func(*jobs.Job) error) (*jobs.Job, error) {
+	for {
+		j, rev, err := s.getJob(ctx, id)
+		if err != nil {
+			return nil, err
+		}
+		was := j.State
+		s.overlay(j)
+		if err := fn(j); err != nil {
+			return nil, err
+		}
+		if j.ID != id {
+			return nil, fmt.Errorf("job %s: update changed the id to %s", id, j.ID)
+		}
+		if was == jobs.Succeeded && j.State == jobs.Succeeded {
+			cur, _, err := s.getJob(ctx, id)
+			if err != nil {
+				return nil, err
+			}
+			return cur, nil
+		}
+		data, err := json.Marshal(j)
+		if err != nil {
+			return nil, err
+		}
+		nrev, err := s.kv.Update(ctx, jobKey(id), data, rev)
+		if errors.Is(err, jetstream.ErrKeyRevisionMismatch) || errors.Is(err, jetstream.ErrKeyExists) {
+			continue // changed meanwhile: apply fn to the new record
+		}
+		if err != nil {
+			return nil, mapErr("update job "+id, err)
+		}
+		if j.State != jobs.Running {
+			s.mu.Lock()
+			delete(s.progress, id)
+			s.mu.Unlock()
+		}
+		c := *j
+		s.applyJob(nrev, id, &c)
+		return j, nil
+	}
+}
+
+// progressMsg is the body of a progress message.
+type progressMsg struct {
+	ID       string        `json:"id"`
+	Progress jobs.Progress `json:"progress"`
+}
+
+// SetProgress implements jobs.Store: progress is published on
+// <prefix>.progress.<id> and kept in memory by watching processes; it is
+// not stored.
+func (s *Store) SetProgress(ctx context.Context, id string, p jobs.Progress) error {
+	data, _ := json.Marshal(progressMsg{ID: id, Progress: p})
+	s.onProgress(id, p)
+	if err := s.nc.Publish(s.n.progressSubject(id), data); err != nil {
+		return mapErr("progress of job "+id, err)
+	}
+	return nil
+}
+
+// onProgress records progress and tells the watchers of the job and its
+// series.
+func (s *Store) onProgress(id string, p jobs.Progress) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	e, ok := s.jobs[id]
+	if !ok || e.j.State != jobs.Running {
+		return // not mirrored here (a worker), or no longer running
+	}
+	s.progress[id] = p
+	c := *e.j
+	c.Progress = p
+	s.publishLocked(&c)
+}
+
+// DeleteJob implements jobs.Store.
+func (s *Store) DeleteJob(ctx context.Context, id string) error {
+	if _, _, err := s.getJob(ctx, id); err != nil {
+		return err
+	}
+	if err := s.kv.Delete(ctx, jobKey(id)); err != nil {
+		return mapErr("delete job "+id, err)
+	}
+	s.mu.Lock()
+	delete(s.jobs, id)
+	delete(s.progress, id)
+	s.mu.Unlock()
+	s.routes.Delete(id)
+	return nil
+}
+
+// Jobs implements jobs.Store from the mirror.
+func (s *Store) Jobs(ctx context.Context, f jobs.Filter) ([]*jobs.Job, error) {
+	if err := s.start(ctx); err != nil {
+		return nil, err
+	}
+	s.mu.Lock()
+	var out []*jobs.Job
+	for _, e := range s.jobs {
+		if f.Match(e.j) {
+			c := *e.j
+			if p, ok := s.progress[c.ID]; ok && c.State == jobs.Running {
+				c.Progress = p
+			}
+			out = append(out, &c)
+		}
+	}
+	s.mu.Unlock()
+	sort.Slice(out, func(a, b int) bool {
+		if !out[a].Created.Equal(out[b].Created) {
+			return out[a].Created.Before(out[b].Created)
+		}
+		return out[a].ID < out[b].ID
+	})
+	if f.Limit > 0 && len(out) > f.Limit {
+		out = out[:f.Limit]
+	}
+	return out, nil
+}
+
+// Counts implements jobs.Store from the mirror.
+func (s *Store) Counts(ctx context.Context) (map[jobs.State]int, error) {
+	if err := s.start(ctx); err != nil {
+		return nil, err
+	}
+	counts := map[jobs.State]int{}
+	for _, st := range jobs.States() {
+		counts[st] = 0
+	}
+	s.mu.Lock()
+	for _, e := range s.jobs {
+		counts[e.j.State]++
+	}
+	s.mu.Unlock()
+	return counts, nil
+}
+
+// CreateSeries implements jobs.Store.
+func (s *Store) CreateSeries(ctx context.Context, sr *jobs.Series) error {
+	if err := jobs.CheckID("series", sr.ID); err != nil {
+		return err
+	}
+	data, err := json.Marshal(sr)
+	if err != nil {
+		return err
+	}
+	rev, err := s.kv.Create(ctx, seriesKey(sr.ID), data)
+	if errors.Is(err, jetstream.ErrKeyExists) {
+		return fmt.Errorf("series %s: %w", sr.ID, jobs.ErrExists)
+	}
+	if err != nil {
+		return mapErr("create series "+sr.ID, err)
+	}
+	c := *sr
+	s.applySeries(rev, sr.ID, &c)
+	return nil
+}
+
+func (s *Store) getSeries(ctx context.Context, id string) (*jobs.Series, uint64, error) {
+	if !jobs.ValidID(id) {
+		return nil, 0, fmt.Errorf("series %s: %w", id, jobs.ErrNotFound)
+	}
+	e, err := s.kv.Get(ctx, seriesKey(id))
+	if err != nil {
+		return nil, 0, mapErr("series "+id, err)
+	}
+	var sr jobs.Series
+	if err := json.Unmarshal(e.Value(), &sr); err != nil {
+		return nil, 0, fmt.Errorf("series %s: corrupt record: %w", id, err)
+	}
+	return &sr, e.Revision(), nil
+}
+
+// Series implements jobs.Store.
+func (s *Store) Series(ctx context.Context, id string) (*jobs.Series, error) {
+	sr, _, err := s.getSeries(ctx, id)
+	return sr, err
+}
+
+// UpdateSeries implements jobs.Store by compare-and-swap.
+func (s *Store) UpdateSeries(ctx context.Context, id string, fn func(*jobs.Series) error) (*jobs.Series, error) {
+	for {
+		sr, rev, err := s.getSeries(ctx, id)
+		if err != nil {
+			return nil, err
+		}
+		if err := fn(sr); err != nil {
+			return nil, err
+		}
+		if sr.ID != id {
+			return nil, fmt.Errorf("series %s: update changed the id to %s", id, sr.ID)
+		}
+		data, err := json.Marshal(sr)
+		if err != nil {
+			return nil, err
+		}
+		nrev, err := s.kv.Update(ctx, seriesKey(id), data, rev)
+		if errors.Is(err, jetstream.ErrKeyRevisionMismatch) || errors.Is(err, jetstream.ErrKeyExists) {
+			continue
+		}
+		if err != nil {
+			return nil, mapErr("update series "+id, err)
+		}
+		c := *sr
+		s.applySeries(nrev, id, &c)
+		return sr, nil
+	}
+}
+
+// DeleteSeries implements jobs.Store.
+func (s *Store) DeleteSeries(ctx context.Context, id string) error {
+	if _, _, err := s.getSeries(ctx, id); err != nil {
+		return err
+	}
+	if err := s.kv.Delete(ctx, seriesKey(id)); err != nil {
+		return mapErr("delete series "+id, err)
+	}
+	s.mu.Lock()
+	delete(s.series, id)
+	s.mu.Unlock()
+	return nil
+}
+
+// AllSeries implements jobs.Store from the mirror.
+func (s *Store) AllSeries(ctx context.Context) ([]*jobs.Series, error) {
+	if err := s.start(ctx); err != nil {
+		return nil, err
+	}
+	s.mu.Lock()
+	out := make([]*jobs.Series, 0, len(s.series))
+	for _, e := range s.series {
+		c := *e.s
+		out = append(out, &c)
+	}
+	s.mu.Unlock()
+	sort.Slice(out, func(a, b int) bool {
+		if !out[a].Created.Equal(out[b].Created) {
+			return out[a].Created.Before(out[b].Created)
+		}
+		return out[a].ID < out[b].ID
+	})
+	return out, nil
+}
+
+// Watch implements jobs.Store from the mirror.
+func (s *Store) Watch(ctx context.Context, topic string) (<-chan *jobs.Job, error) {
+	if err := s.start(ctx); err != nil {
+		return nil, err
+	}
+	var first *jobs.Job
+	if j, err := s.Job(ctx, topic); err == nil {
+		first = j
+	} else if !errors.Is(err, jobs.ErrNotFound) {
+		return nil, err
+	} else if _, err := s.Series(ctx, topic); err != nil {
+		return nil, fmt.Errorf("watch %s: %w", topic, jobs.ErrNotFound)
+	}
+	sb := &sub{ch: make(chan *jobs.Job, 16)}
+	s.mu.Lock()
+	if s.closed {
+		s.mu.Unlock()
+		return nil, jobs.ErrClosed
+	}
+	if s.subs[topic] == nil {
+		s.subs[topic] = map[*sub]struct{}{}
+	}
+	s.subs[topic][sb] = struct{}{}
+	if first != nil {
+		sb.ch <- first
+	}
+	s.mu.Unlock()
+	go func() {
+		<-ctx.Done()
+		s.mu.Lock()
+		if _, ok := s.subs[topic][sb]; ok {
+			delete(s.subs[topic], sb)
+			if len(s.subs[topic]) == 0 {
+				delete(s.subs, topic)
+			}
+			close(sb.ch)
+		}
+		s.mu.Unlock()
+	}()
+	return sb.ch, nil
+}
+
+// Close ends the mirror and every watch.
+func (s *Store) Close() error {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.closed {
+		return nil
+	}
+	s.closed = true
+	if s.stop != nil {
+		s.stop()
+	}
+	for topic, set := range s.subs {
+		for sb := range set {
+			close(sb.ch)
+		}
+		delete(s.subs, topic)
+	}
+	return nil
+}
+
+// start starts the mirror once and waits until it holds every record.
+func (s *Store) start(ctx context.Context) error {
+	s.startOnce.Do(func() {
+		wctx, stop := context.WithCancel(context.Background())
+		s.mu.Lock()
+		if s.closed {
+			s.mu.Unlock()
+			stop()
+			s.startErr = jobs.ErrClosed
+			close(s.ready)
+			return
+		}
+		s.stop = stop
+		s.mu.Unlock()
+		psub, err := s.nc.Subscribe(s.n.prefix+".progress.*", func(m *nats.Msg) {
+			var pm progressMsg
+			if json.Unmarshal(m.Data, &pm) == nil && jobs.ValidID(pm.ID) {
+				s.onProgress(pm.ID, pm.Progress)
+			}
+		})
+		if err != nil {
+			stop()
+			s.startErr = mapErr("subscribe to progress", err)
+			close(s.ready)
+			return
+		}
+		go func() {
+			<-wctx.Done()
+			psub.Unsubscribe()
+		}()
+		go s.mirror(wctx)
+	})
+	select {
+	case <-s.ready:
+		return s.startErr
+	case <-ctx.Done():
+		return ctx.Err()
+	}
+}
+
+// mirror keeps s.jobs and s.series in step with the bucket, restarting
+// the watch when it breaks (a node stopped, a reconnection).
+func (s *Store) mirror(ctx context.Context) {
+	readyOnce := sync.Once{}
+	markReady := func() { readyOnce.Do(func() { close(s.ready) }) }
+	for ctx.Err() == nil {
+		w, err := s.kv.WatchAll(ctx)
+		if err != nil {
+			s.log.Warn("watch job records", "error", err)
+			select {
+			case <-ctx.Done():
+				return
+			case <-time.After(500 * time.Millisecond):
+			}
+			continue
+		}
+		seen := map[string]bool{}
+		initial := true
+	loop:
+		for {
+			select {
+			case <-ctx.Done():
+				w.Stop()
+				return
+			case e, ok := <-w.Updates():
+				if !ok {
+					break loop
+				}
+				if e == nil {
+					if initial {
+						s.dropUnseen(seen)
+						initial = false
+						markReady()
+					}
+					continue
+				}
+				if initial {
+					seen[e.Key()] = true
+				}
+				s.applyEntry(e)
+			}
+		}
+		w.Stop()
+	}
+}
+
+// dropUnseen removes records that vanished while the watch was down.
+func (s *Store) dropUnseen(seen map[string]bool) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	for id := range s.jobs {
+		if !seen[jobKey(id)] {
+			delete(s.jobs, id)
+		}
+	}
+	for id := range s.series {
+		if !seen[seriesKey(id)] {
+			delete(s.series, id)
+		}
+	}
+}
+
+func (s *Store) applyEntry(e jetstream.KeyValueEntry) {
+	key := e.Key()
+	del := e.Operation() != jetstream.KeyValuePut
+	switch {
+	case strings.HasPrefix(key, "job."):
+		id := key[len("job."):]
+		if del {
+			s.mu.Lock()
+			if cur, ok := s.jobs[id]; ok && cur.rev < e.Revision() {
+				delete(s.jobs, id)
+				delete(s.progress, id)
+			}
+			s.mu.Unlock()
+			return
+		}
+		var j jobs.Job
+		if json.Unmarshal(e.Value(), &j) != nil {
+			s.log.Warn("corrupt job record", "key", key)
+			return
+		}
+		s.applyJob(e.Revision(), id, &j)
+	case strings.HasPrefix(key, "series."):
+		id := key[len("series."):]
+		if del {
+			s.mu.Lock()
+			if cur, ok := s.series[id]; ok && cur.rev < e.Revision() {
+				delete(s.series, id)
+			}
+			s.mu.Unlock()
+			return
+		}
+		var sr jobs.Series
+		if json.Unmarshal(e.Value(), &sr) != nil {
+			s.log.Warn("corrupt series record", "key", key)
+			return
+		}
+		s.applySeries(e.Revision(), id, &sr)
+	}
+}
+
+// applyJob stores j (owned by the mirror from now on) when rev is newer
+// than what the mirror holds, and tells the watchers.
+func (s *Store) applyJob(rev uint64, id string, j *jobs.Job) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.stop == nil {
+		return // no mirror in this process
+	}
+	if cur, ok := s.jobs[id]; ok && cur.rev >= rev {
+		return
+	}
+	s.jobs[id] = jobEntry{rev, j}
+	if j.State != jobs.Running {
+		delete(s.progress, id)
+	}
+	c := *j
+	if p, ok := s.progress[id]; ok && c.State == jobs.Running {
+		c.Progress = p
+	}
+	s.publishLocked(&c)
+}
+
+func (s *Store) applySeries(rev uint64, id string, sr *jobs.Series) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	if s.stop == nil {
+		return
+	}
+	if cur, ok := s.series[id]; ok && cur.rev >= rev {
+		return
+	}
+	s.series[id] = seriesEntry{rev, sr}
+}
+
+// publishLocked sends a copy of j to the watchers of its id and its
+// series; a full channel drops its oldest record so the latest arrives.
+func (s *Store) publishLocked(j *jobs.Job) {
+	for _, topic := range []string{j.ID, j.Series} {
+		if topic == "" {
+			continue
+		}
+		for sb := range s.subs[topic] {
+			c := *j
+			for {
+				select {
+				case sb.ch <- &c:
+				default:
+					select {
+					case <-sb.ch:
+					default:
+					}
+					continue
+				}
+				break
+			}
+		}
+	}
+}
