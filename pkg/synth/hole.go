@@ -110,14 +110,21 @@ func (h Hole) Inverse(x, y float64) (float64, float64, error) {
 	return h.inverseFrom(x, y, x-u, y-v)
 }
 
+// errInHole is returned for current points inside the deformed hole. It is
+// a fixed value so the renderer's hot loop does not allocate.
+var errInHole = fmt.Errorf("%w: the point is inside the hole", ErrNoMaterial)
+
 func (h Hole) inverseFrom(x, y, X, Y float64) (float64, float64, error) {
 	dx, dy := x-h.CX, y-h.CY
 	r2 := dx*dx + dy*dy
 	a2 := h.Radius * h.Radius
-	// Displacements near the hole are at most a few times 3S/E·r ≪ a/2,
-	// so a current point this deep inside the hole has no material.
-	if r2 < a2/4 {
-		return 0, 0, fmt.Errorf("%w: x = (%g, %g) is inside the hole", ErrNoMaterial, x, y)
+	// On the edge r = a, u_r = (S/E)·a·(1 + 2cos 2θ) and
+	// u_θ = −2(S/E)·a·sin 2θ (from the formulas above, with
+	// S/(8μ)·(κ + 1) = S/(2E)), so |u| ≤ 3a|S|/E there: the deformed edge
+	// stays outside the disc of radius a(1 − 3|S|/E) and every point inside
+	// that disc is in the hole.
+	if in := h.Radius * (1 - 3.01*math.Abs(h.Stress)/h.E); r2 < in*in {
+		return x, y, errInHole
 	}
 	// Start on the material: a guess inside the hole is pushed out to the
 	// edge, where the field is tame (inside, the a⁴/r³ terms grow fast).
@@ -131,12 +138,12 @@ func (h Hole) inverseFrom(x, y, X, Y float64) (float64, float64, error) {
 		if r2 < a2 {
 			// Newton wandered into the hole's analytic continuation and
 			// failed; near the edge it converges, so x is in the hole.
-			return X, Y, fmt.Errorf("%w: x = (%g, %g) is inside the hole", ErrNoMaterial, x, y)
+			return X, Y, errInHole
 		}
 		return X, Y, err
 	}
 	if !h.Material(X, Y) {
-		return X, Y, fmt.Errorf("%w: x = (%g, %g) is inside the hole", ErrNoMaterial, x, y)
+		return X, Y, errInHole
 	}
 	return X, Y, nil
 }

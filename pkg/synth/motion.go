@@ -56,25 +56,18 @@ const (
 	newtonMaxIter = 60
 )
 
-// mapGradienter is implemented by motions that compute κ(X) and F(X)
-// faster together than apart.
+// mapGradienter is implemented by motions whose inverse is found by
+// newton: κ(X) and F(X) together, sharing work.
 type mapGradienter interface {
 	mapGrad(X, Y float64) (x, y float64, F [2][2]float64)
 }
 
-// mapGrad returns κ(X) and F(X) of any motion.
-func mapGrad(m Motion, X, Y float64) (float64, float64, [2][2]float64) {
-	if mg, ok := m.(mapGradienter); ok {
-		return mg.mapGrad(X, Y)
-	}
-	x, y := m.Map(X, Y)
-	return x, y, m.Gradient(X, Y)
-}
-
 // newton solves κ(X) = x for X from the starting guess (X, Y), with
 // step halving when a full step increases the residual.
-func newton(m Motion, x, y, X, Y float64) (float64, float64, error) {
-	mx, my, F := mapGrad(m, X, Y)
+//
+// It is generic so that calling it on a motion value does not allocate.
+func newton[M mapGradienter](m M, x, y, X, Y float64) (float64, float64, error) {
+	mx, my, F := m.mapGrad(X, Y)
 	rx, ry := mx-x, my-y
 	res2 := rx*rx + ry*ry
 	for it := 0; it < newtonMaxIter; it++ {
@@ -89,7 +82,7 @@ func newton(m Motion, x, y, X, Y float64) (float64, float64, error) {
 		dY := (-F[1][0]*rx + F[0][0]*ry) / det
 		for t := 1.0; ; t /= 2 {
 			nX, nY := X-t*dX, Y-t*dY
-			nmx, nmy, nF := mapGrad(m, nX, nY)
+			nmx, nmy, nF := m.mapGrad(nX, nY)
 			nrx, nry := nmx-x, nmy-y
 			nres2 := nrx*nrx + nry*nry
 			if nres2 < res2 || t < 1e-3 {
@@ -434,4 +427,9 @@ func (s Star) Scale(f float64) Motion {
 
 func (q Quadratic) inverseFrom(x, y, X0, Y0 float64) (float64, float64, error) {
 	return newton(q, x, y, X0, Y0)
+}
+
+func (q Quadratic) mapGrad(X, Y float64) (float64, float64, [2][2]float64) {
+	x, y := q.Map(X, Y)
+	return x, y, q.Gradient(X, Y)
 }

@@ -202,3 +202,22 @@ func TestHoleInverse(t *testing.T) {
 		t.Errorf("At inside the hole reports material: %+v", tr)
 	}
 }
+
+// TestHoleEdgeBound: on the hole edge |u| ≤ 3a|S|/E, the bound the inverse
+// uses to classify points deep inside the hole without iterating (derived
+// from the displacement form; its maximum 3aS/E at θ = 0 is the classical
+// hoop strain 3S/E times a, Kirsch 1898).
+func TestHoleEdgeBound(t *testing.T) {
+	for _, h := range []Hole{testMotions()["hole"].(Hole), testMotions()["holeTight"].(Hole)} {
+		bound := 3 * h.Radius * math.Abs(h.Stress) / h.E
+		worst := 0.0
+		for deg := 0.0; deg < 360; deg += 0.5 {
+			th := deg * math.Pi / 180
+			u, v := h.Displacement(h.CX+h.Radius*math.Cos(th), h.CY+h.Radius*math.Sin(th))
+			worst = math.Max(worst, math.Hypot(u, v))
+		}
+		if worst > bound*(1+1e-12) || worst < bound*0.999 {
+			t.Errorf("%+v: max |u| on the edge %g, bound 3aS/E = %g", h, worst, bound)
+		}
+	}
+}
