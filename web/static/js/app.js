@@ -292,26 +292,48 @@ async function openResult(base, job, label) {
   const h = (job && job.height) || (images.reference && images.reference.height) || 0;
   view.show(field, images, w, h);
   sel.value = view.opts.quantity;
-  $('results-source').textContent = `— ${label}, ${field.n} points`;
+  $('results-source').textContent = `— ${label}`;
+  describeResult(field, job);
   updateDownloads();
   document.body.dataset.result = 'ready';
+}
+
+// describeResult lists how the field was made and the cautions that come with it.
+function describeResult(field, job) {
+  const p = Object.assign({}, field.meta.params || {}, (job && job.params) || {});
+  const m = field.meta;
+  const valid = field.ok.reduce((a, v) => a + v, 0);
+  const parts = [`${valid} of ${field.n} points measured (${fmt(100 * valid / (field.n || 1))} %)`];
+  if (p.subset) parts.push(`subset ${p.subset} px`);
+  if (p.step) parts.push(`step ${p.step} px`);
+  if (p.shape) parts.push(`${p.shape}-order shape function`);
+  if (p.strain_window) parts.push(`strain window ${p.strain_window} points`);
+  const vsg = m.vsg_px || (p.subset && p.step && p.strain_window ? (p.strain_window - 1) * p.step + p.subset : 0);
+  if (vsg) parts.push(`VSG ${fmt(vsg)} px`);
+  if (m.noise_sigma) parts.push(`image noise σ ≈ ${fmt(m.noise_sigma)} grey levels`);
+  if (m.mm_per_px) parts.push(`scale ${fmt(m.mm_per_px)} mm/px`);
+  $('result-info').textContent = parts.join(' · ') + '.';
+  const ul = $('result-cautions');
+  ul.textContent = '';
+  for (const c of Array.isArray(m.cautions) ? m.cautions : []) { const li = document.createElement('li'); li.textContent = c; ul.appendChild(li); }
 }
 
 function updateDownloads() {
   const ul = $('downloads');
   ul.textContent = '';
   if (!state.base) return;
-  const names = state.job && Array.isArray(state.job.results) && state.job.results.length ? state.job.results : resultFormats;
   const add = (href, text) => {
     const li = document.createElement('li');
     const a = document.createElement('a'); a.href = href; a.textContent = text; a.setAttribute('download', '');
     a.addEventListener('click', e => { if (token()) { e.preventDefault(); downloadWithToken(href); } });
     li.appendChild(a); ul.appendChild(li);
   };
-  for (const n of names) add(`${state.base}/${n}`, n);
+  for (const n of resultFormats) add(`${state.base}/${n}`, n);
   const o = view.opts;
+  add(`${state.base}/arrays/${encodeURIComponent(o.quantity)}.npy`, `${o.quantity}.npy`);
   const q = new URLSearchParams({ quantity: o.quantity, range: `${o.lo},${o.hi}`, on: o.on });
-  add(`${state.base}/map.png?${q}`, `map.png (${o.quantity})`);
+  add(`${state.base}/map.png?${q}`, `map.png (${o.quantity}, over ${o.on})`);
+  if (state.series) add(`${state.series.base}/curve.csv`, 'curve.csv (series)');
 }
 
 // A link cannot carry a bearer token: fetch the file and save it from memory.

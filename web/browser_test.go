@@ -1,0 +1,702 @@
+package web_test
+
+// Browser tests of the preview: the real `mottle serve` binary on
+// 127.0.0.1 with a temporary data directory, driven through Debian's
+// Chromium with chromedp.
+//
+// Screenshots are written to $MOTTLE_ARTIFACTS (default: a temporary
+// directory), whose path the test logs. Set MOTTLE_PREVIEW_URL to run the
+// test against a server that is already running instead of building one.
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"errors"
+	"fmt"
+	"math"
+	"mime/multipart"
+	"net"
+	"net/http"
+	"net/textproto"
+	"os"
+	"os/exec"
+	"path/filepath"
+	"strings"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/chromedp/cdproto/input"
+	"github.com/chromedp/chromedp"
+	"github.com/chromedp/chromedp/kb"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/synth"
+)
+
+// chromium is Debian's Chromium, installed by .ci/run.
+const chromium = "/usr/bin/chromium"
+
+func TestBrowserPreview(t *testing.T) {
+	if _, err := os.Stat(chromium); err != nil {
+		t.Fatalf("the browser tests need Debian's chromium at %s; install it with `apt-get install chromium` (%v)", chromium, err)
+	}
+	art := artifacts(t)
+	base := os.Getenv("MOTTLE_PREVIEW_URL")
+	if base == "" {
+		base = startServer(t)
+	}
+	ctx := newBrowser(t)
+	b := &browser{t: t, ctx: ctx, art: art}
+
+	// Each step below depends on the one before, so they run in order on
+	// one page and the first failure stops the test.
+	b.run("load the page", chromedp.Navigate(base+"/"), chromedp.WaitVisible(chromedp.ID("btn-demo")))
+	b.wait(`document.body.dataset.ready === "true"`, 10*time.Second, "the page's script did not start")
+
+	t.Log("run the demo")
+	b.run("click the demo button", chromedp.Click(chromedp.ID("btn-demo")))
+	b.waitResult(90 * time.Second)
+	b.shot("demo-page.png", "")
+	b.shot("demo-map.png", "#map-canvas")
+	checkMapDrawn(b)
+
+	t.Log("hover read-out on the demo field")
+	k := b.centrePoint()
+	vals := b.hover(k)
+	if len(vals) < 5 {
+		t.Fatalf("hover read-out shows %d numeric quantities, want every quantity of the field: %v", len(vals), vals)
+	}
+	for _, q := range []string{"u", "v"} {
+		want := b.number(fmt.Sprintf(`mottlePreview.view.field.value(%q, %d)`, q, k))
+		if got, ok := vals[q]; !ok || math.Abs(got-want) > 1e-9*math.Max(1, math.Abs(want)) {
+			t.Errorf("read-out %s = %v (present %v), field.json has %v at point %d", q, got, ok, want, k)
+		}
+	}
+	t.Logf("demo read-out at point %d: u = %.4g px, v = %.4g px, E11 = %.4g, E22 = %.4g", k, vals["u"], vals["v"], vals["E11"], vals["E22"])
+
+	t.Log("keyboard: arrow keys step the read-out between grid points")
+	b.run("press the right arrow on the map", chromedp.Focus(chromedp.ID("map-canvas")), chromedp.KeyEvent(kb.ArrowRight))
+	if next := int(b.number(`+document.getElementById("readout-where").dataset.k`)); next != k+1 {
+		t.Errorf("after the right arrow the read-out is at point %d, want %d", next, k+1)
+	}
+
+	t.Log("every control has a label")
+	if missing := b.str(`[...document.querySelectorAll("input, select, textarea, button")].filter(e => e.type !== "hidden" && !(e.labels && e.labels.length) && !e.getAttribute("aria-label") && !(e.tagName === "BUTTON" && e.textContent.trim())).map(e => e.id || e.name || e.tagName).join(", ")`); missing != "" {
+		t.Errorf("controls without a label: %s", missing)
+	}
+
+	t.Log("draw a profile with the line tool")
+	b.run("choose the line tool", chromedp.Click(chromedp.CSS(`input[name=tool][value=line]`)))
+	x0, y0, x1, y1 := b.fieldSpan()
+	b.drag(x0, y0, x1, y1)
+	b.wait(`+document.getElementById("profile-text").dataset.count > 10`, 10*time.Second, "no profile was plotted after dragging a line across the map")
+	if n := b.number(`distinctColours(document.getElementById("profile-canvas"))`); n < 3 {
+		t.Errorf("profile plot has %v colours, want a drawn plot", n)
+	}
+	b.shot("profile.png", ".profile")
+	b.run("back to the read tool", chromedp.Click(chromedp.CSS(`input[name=tool][value=read]`)))
+
+	t.Log("vectors over the deformed image")
+	b.run("show vectors on the deformed image",
+		chromedp.Click(chromedp.CSS(`input[name=on][value=deformed]`)),
+		chromedp.Click(chromedp.ID("vectors")))
+	checkMapDrawn(b)
+	b.shot("demo-deformed-vectors.png", "#map-canvas")
+	b.run("back to the reference view",
+		chromedp.Click(chromedp.CSS(`input[name=on][value=reference]`)),
+		chromedp.Click(chromedp.ID("vectors")))
+
+	t.Log("upload a pair with a known homogeneous stretch")
+	checkKnownStretch(b)
+
+	t.Log("a bad upload shows a readable error")
+	checkBadUpload(b)
+
+	t.Log("a series: frame slider and curve")
+	checkSeries(b, base)
+}
+
+// checkSeries creates a series through the API, appends three frames of a
+// growing homogeneous stretch with time and load, opens it in the page and
+// checks the curve and the frame slider. The mean E11 of a frame with
+// F11 = 1 + a is a + a²/2 (Green–Lagrange; Holzapfel 2000).
+func checkSeries(b *browser, base string) {
+	t := b.t
+	t.Helper()
+	const w, h = 160, 128
+	po := synth.PatternOptions{Diameter: 4, Seed: 11, Bounds: synth.ImageRect(w, h, 30)}
+	pat, err := synth.NewPattern(po)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ro := synth.RenderOptions{W: w, H: h, Bits: 8}
+	png := func(m synth.Motion) []byte {
+		g, _, err := synth.Render(pat, m, ro)
+		if err != nil {
+			t.Fatalf("render: %v", err)
+		}
+		var buf bytes.Buffer
+		if err := imageio.WritePNG(&buf, g, 8); err != nil {
+			t.Fatal(err)
+		}
+		return buf.Bytes()
+	}
+	var body bytes.Buffer
+	mw := multipart.NewWriter(&body)
+	part, _ := mw.CreatePart(textproto.MIMEHeader{
+		"Content-Disposition": {`form-data; name="reference"; filename="ref.png"`},
+		"Content-Type":        {"image/png"}})
+	part.Write(png(synth.Identity{}))
+	pp, _ := mw.CreateFormField("params")
+	pp.Write([]byte(`{"subset": 21, "step": 10}`))
+	mw.Close()
+	resp, err := http.Post(base+"/v1/series", mw.FormDataContentType(), &body)
+	if err != nil {
+		t.Fatalf("create a series: %v", err)
+	}
+	var sr struct {
+		ID string `json:"id"`
+	}
+	err = json.NewDecoder(resp.Body).Decode(&sr)
+	resp.Body.Close()
+	if err != nil || resp.StatusCode != http.StatusCreated || sr.ID == "" {
+		t.Fatalf("create a series: %s, id %q, %v", resp.Status, sr.ID, err)
+	}
+	strains := []float64{0.002, 0.004, 0.006}
+	for i, a := range strains {
+		m := synth.Affine{F: [2][2]float64{{1 + a, 0}, {0, 1}}, CX: w / 2, CY: h / 2}
+		url := fmt.Sprintf("%s/v1/series/%s/frames?time=%d&load=%g", base, sr.ID, 10*(i+1), 1000*a)
+		resp, err := http.Post(url, "image/png", bytes.NewReader(png(m)))
+		if err != nil {
+			t.Fatalf("append frame %d: %v", i, err)
+		}
+		resp.Body.Close()
+		if resp.StatusCode/100 != 2 {
+			t.Fatalf("append frame %d: %s", i, resp.Status)
+		}
+	}
+	b.run("open the series", setValue("#series-id", sr.ID), chromedp.Click(chromedp.ID("btn-series")))
+	b.wait(`/frame \d/.test(document.getElementById("results-source").textContent) && document.getElementById("curve-y").options.length > 0`, 30*time.Second, "the series did not open")
+	b.run("plot mean E11 against load", setValue("#curve-y", "mean E11"), setValue("#curve-x", "load"))
+	if got := b.text("#curve-text"); !strings.Contains(got, "3 of 3 frames") {
+		t.Errorf("curve text %q, want all 3 frames plotted", got)
+	}
+	if n := b.number(`distinctColours(document.getElementById("curve-canvas"))`); n < 3 {
+		t.Errorf("curve plot has %v colours, want a drawn plot", n)
+	}
+	for i, a := range strains {
+		got := b.number(fmt.Sprintf(`mottlePreview.state.curve[%d]["mean E11"]`, i))
+		if want := a + a*a/2; math.Abs(got-want) > 5e-4 {
+			t.Errorf("curve: frame %d mean E11 = %.5g, truth %.5g", i, got, want)
+		}
+	}
+	b.shot("series.png", "#series")
+	b.run("go to the first frame", setValue("#frame-slider", "0"))
+	b.wait(`/frame 0/.test(document.getElementById("results-source").textContent)`, 10*time.Second, "the slider did not show frame 0")
+	checkMapDrawn(b)
+}
+
+// checkMapDrawn asserts that the map canvas holds the colour-mapped field
+// over an image, not a blank or flat canvas.
+func checkMapDrawn(b *browser) {
+	b.t.Helper()
+	n := b.number(`mottlePreview.view.distinctColours()`)
+	if n < 50 {
+		b.t.Fatalf("map canvas has %v distinct colours, want a drawn map (≥ 50)", n)
+	}
+	// Inside the field, the overlay must differ from the bare image: the
+	// canvas pixel at a valid point is not grey.
+	chroma := b.number(`(() => {
+		const v = mottlePreview.view, f = v.field, c = v.canvas.getContext('2d');
+		let sum = 0, m = 0;
+		for (let k = 0; k < f.n; k += 7) {
+			if (!f.ok[k]) continue;
+			const x = Math.round((f.X[k] + 0.5) * v.s), y = Math.round((f.Y[k] + 0.5) * v.s);
+			const d = c.getImageData(x, y, 1, 1).data;
+			sum += Math.max(d[0], d[1], d[2]) - Math.min(d[0], d[1], d[2]); m++;
+		}
+		return m ? sum / m : 0;
+	})()`)
+	if chroma < 10 {
+		b.t.Fatalf("map overlay mean chroma %.1f over valid points: the colour map was not drawn", chroma)
+	}
+}
+
+// checkKnownStretch uploads a pair rendered by pkg/synth with a homogeneous
+// stretch and compares the hover read-out with the exact answer: for
+// x = C + F·(X − C) with F = diag(1 + a, 1 + b), u = a·(X − Cx) and the
+// Green–Lagrange strain E11 = a + a²/2 (E = ½(FᵀF − I); Holzapfel 2000,
+// "Nonlinear Solid Mechanics", ch. 2).
+func checkKnownStretch(b *browser) {
+	t := b.t
+	t.Helper()
+	const w, h = 192, 160
+	const a, bb = 0.01, -0.004
+	cx, cy := float64(w-1)/2, float64(h-1)/2
+	m := synth.Affine{F: [2][2]float64{{1 + a, 0}, {0, 1 + bb}}, CX: cx, CY: cy}
+	ref, def, err := synth.Pair(synth.PatternOptions{Diameter: 4, Seed: 7}, m, synth.RenderOptions{W: w, H: h, Bits: 8})
+	if err != nil {
+		t.Fatalf("render the stretch pair: %v", err)
+	}
+	dir := t.TempDir()
+	refPath, defPath := filepath.Join(dir, "stretch_ref.png"), filepath.Join(dir, "stretch_def.png")
+	for p, g := range map[string]*imageio.Gray{refPath: ref, defPath: def} {
+		if err := imageio.WriteFile(p, g, 8); err != nil {
+			t.Fatal(err)
+		}
+	}
+	b.run("choose the stretch pair",
+		chromedp.SetUploadFiles(chromedp.ID("file-reference"), []string{refPath}),
+		chromedp.SetUploadFiles(chromedp.ID("file-deformed"), []string{defPath}))
+	b.wait(`/192 × 160 px/.test(document.getElementById("info-deformed").textContent) && /192 × 160 px/.test(document.getElementById("info-reference").textContent)`, 10*time.Second, "the chosen files were not read")
+	// The speckle size is measured in the browser from the autocorrelation;
+	// for discs at 50 % cover its half-height width is 0.6–0.85 of the disc
+	// diameter (derived from the overlap area of two discs), so accept a
+	// generous band around the rendered 4 px.
+	speckle := b.number(`mottlePreview.state.speckle`)
+	t.Logf("measured speckle size %.2f px for rendered 4 px discs", speckle)
+	if !(speckle > 2 && speckle < 5) {
+		t.Errorf("measured speckle size %.2f px, want 2–5 px for 4 px discs", speckle)
+	}
+	b.run("scroll to the region editor", eval(`document.getElementById("roi-canvas").scrollIntoView({block: "center"})`))
+	at := func(x, y float64) (float64, float64) {
+		p := value[[]float64](b, fmt.Sprintf(`mottlePreview.roiToClient(%g, %g)`, x, y))
+		return p[0], p[1]
+	}
+	click := func(x, y float64) chromedp.Action[chromedp.Void] {
+		cx, cy := at(x, y)
+		return chromedp.MouseClickXY(cx, cy)
+	}
+	roiJSON := func() string { return b.str(`document.getElementById("roi-json").value`) }
+	// A polygon closed with Enter and a hole closed with a double-click.
+	b.run("draw a polygon", chromedp.Click(chromedp.CSS(`input[name=roi-mode][value=polygon]`)),
+		click(30, 30), click(150, 30), click(90, 130), chromedp.KeyEvent(kb.Enter))
+	b.run("draw a hole", chromedp.Click(chromedp.CSS(`input[name=roi-mode][value=hole]`)),
+		click(80, 50), click(100, 50), click(90, 70))
+	hx, hy := at(90, 70)
+	b.run("close the hole", chromedp.MouseClickXY(hx, hy, chromedp.ClickCount(2)))
+	if got, want := roiJSON(), `{"polygon":[[30,30],[150,30],[90,130]],"holes":[[[80,50],[100,50],[90,70]]]}`; got != want {
+		t.Errorf("drawn polygon and hole give the region %s, want %s", got, want)
+	}
+	b.shot("roi-polygon.png", "#roi-canvas")
+	b.run("clear the region", chromedp.Click(chromedp.ID("btn-roi-clear")))
+	if got := roiJSON(); got != "{}" {
+		t.Errorf("after clearing, the region is %s, want {}", got)
+	}
+	// The region of the run: a rectangle dragged with the mouse, and a seed.
+	roi := [4]float64{24, 20, 168, 140}
+	x0, y0 := at(roi[0], roi[1])
+	x1, y1 := at(roi[2], roi[3])
+	b.run("rectangle tool", chromedp.Click(chromedp.CSS(`input[name=roi-mode][value=rect]`)))
+	b.drag(x0, y0, x1, y1)
+	b.run("place a seed", chromedp.Click(chromedp.CSS(`input[name=roi-mode][value=seed]`)), click(96, 80))
+	if got, want := roiJSON(), `{"rect":[24,20,168,140],"seeds":[[96,80]]}`; got != want {
+		t.Errorf("drawn rectangle and seed give the region %s, want %s", got, want)
+	}
+	b.shot("stretch-roi.png", "#roi-canvas")
+	b.run("set the parameters",
+		setValue("#p-subset", "21"), setValue("#p-step", "8"), setValue("#p-window", "5"))
+	b.run("run", eval(`document.body.dataset.result = ""`), chromedp.Click(chromedp.ID("btn-run")))
+	b.waitResult(60 * time.Second)
+	b.shot("stretch-map.png", "#map-canvas")
+	// Every measured point's subset must lie inside the drawn rectangle,
+	// so the region reached the service.
+	outside := b.number(fmt.Sprintf(`(() => {
+		const f = mottlePreview.view.field, h = 10; let n = 0;
+		for (let k = 0; k < f.n; k++) if (f.ok[k] && (f.X[k] - h < %g || f.X[k] + h >= %g || f.Y[k] - h < %g || f.Y[k] + h >= %g)) n++;
+		return n;
+	})()`, roi[0], roi[2], roi[1], roi[3]))
+	if outside > 0 {
+		t.Errorf("%v measured points have subsets outside the drawn region", outside)
+	}
+	k := b.centrePoint()
+	vals := b.hover(k)
+	X := b.number(fmt.Sprintf(`mottlePreview.view.field.X[%d]`, k))
+	Y := b.number(fmt.Sprintf(`mottlePreview.view.field.Y[%d]`, k))
+	tr := synth.At(m, X, Y)
+	checks := []struct {
+		q         string
+		want, tol float64
+	}{
+		{"u", tr.U, 0.05},
+		{"v", tr.V, 0.05},
+		{"E11", a + a*a/2, 1e-3},
+		{"E22", bb + bb*bb/2, 1e-3},
+		{"E12", 0, 1e-3},
+	}
+	for _, c := range checks {
+		got, ok := vals[c.q]
+		if !ok {
+			t.Errorf("read-out at (%g, %g) has no number for %s: %v", X, Y, c.q, vals)
+			continue
+		}
+		t.Logf("read-out %s at (%g, %g): %.5g, truth %.5g", c.q, X, Y, got, c.want)
+		if math.Abs(got-c.want) > c.tol {
+			t.Errorf("read-out %s at (%g, %g) = %.5g, truth %.5g (tolerance %g)", c.q, X, Y, got, c.want, c.tol)
+		}
+	}
+}
+
+// checkBadUpload uploads a file that is not an image and expects the
+// service's problem document to be shown: a title and a field-level line.
+func checkBadUpload(b *browser) {
+	t := b.t
+	t.Helper()
+	dir := t.TempDir()
+	bad := filepath.Join(dir, "not_an_image.png")
+	if err := os.WriteFile(bad, []byte("this is a text file, not a PNG image\n"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	b.run("choose a broken reference", chromedp.SetUploadFiles(chromedp.ID("file-reference"), []string{bad}))
+	b.wait(`/not_an_image/.test(document.getElementById("info-reference").textContent)`, 10*time.Second, "the broken file was not taken")
+	b.run("run", chromedp.Click(chromedp.ID("btn-run")))
+	b.wait(`!document.getElementById("error-box").hidden`, 20*time.Second, "no error was shown for a broken upload")
+	title := b.text("#error-box h2")
+	text := b.text("#error-box")
+	b.shot("bad-upload.png", "#error-box")
+	t.Logf("error shown: %q", text)
+	if strings.TrimSpace(title) == "" || strings.Contains(text, "[object") || strings.Contains(text, "{\"") {
+		t.Errorf("error box is not readable: %q", text)
+	}
+	if !strings.Contains(text, "reference") {
+		t.Errorf("error box does not name the part at fault (reference): %q", text)
+	}
+}
+
+// browser drives one page and stops the test on the first failure.
+type browser struct {
+	t   *testing.T
+	ctx context.Context
+	art string
+	n   int
+}
+
+func (b *browser) run(what string, actions ...chromedp.Action[chromedp.Void]) {
+	b.t.Helper()
+	ctx, cancel := context.WithTimeout(b.ctx, 30*time.Second)
+	defer cancel()
+	if err := chromedp.Do(ctx, actions...); err != nil {
+		b.shot("failure.png", "")
+		b.t.Fatalf("%s: %v", what, err)
+	}
+}
+
+// wait polls the JavaScript condition cond until it is true.
+func (b *browser) wait(cond string, d time.Duration, msg string) {
+	b.t.Helper()
+	ctx, cancel := context.WithTimeout(b.ctx, d)
+	defer cancel()
+	_, err := chromedp.Run(ctx, chromedp.Poll[bool](cond, chromedp.WithPollingInterval(100*time.Millisecond)))
+	if err != nil {
+		errText, _ := chromedp.Run(b.ctx, chromedp.Evaluate[string](`document.getElementById("error-box").innerText + " | " + document.getElementById("progress-text").textContent`))
+		b.shot("failure.png", "")
+		b.t.Fatalf("%s after %v (%v); page says: %q", msg, d, err, errText)
+	}
+}
+
+// waitResult waits until a result is shown, failing early on an error box.
+func (b *browser) waitResult(d time.Duration) {
+	b.t.Helper()
+	b.wait(`document.body.dataset.result === "ready" || !document.getElementById("error-box").hidden`, d, "no result shown")
+	errText := b.str(`document.getElementById("error-box").hidden ? "" : document.getElementById("error-box").innerText`)
+	if errText != "" {
+		b.shot("failure.png", "")
+		b.t.Fatalf("the page shows an error instead of a result: %q", errText)
+	}
+}
+
+// value evaluates expr in the page and decodes its JSON value.
+func value[T any](b *browser, expr string) T {
+	b.t.Helper()
+	ctx, cancel := context.WithTimeout(b.ctx, 30*time.Second)
+	defer cancel()
+	v, err := chromedp.Run(ctx, chromedp.Evaluate[T](helpers+expr))
+	if err != nil {
+		b.shot("failure.png", "")
+		b.t.Fatalf("evaluate %s: %v", expr, err)
+	}
+	return v
+}
+
+func (b *browser) number(expr string) float64 { b.t.Helper(); return value[float64](b, expr) }
+
+func (b *browser) str(expr string) string { b.t.Helper(); return value[string](b, expr) }
+
+// text returns the rendered text of the element sel.
+func (b *browser) text(sel string) string {
+	b.t.Helper()
+	return b.str(fmt.Sprintf(`document.querySelector(%q).innerText`, sel))
+}
+
+// eval is an action that evaluates a statement and ignores its value.
+func eval(js string) chromedp.Action[chromedp.Void] {
+	return chromedp.Func(func(ctx context.Context, t *chromedp.Target) error {
+		_, err := chromedp.Evaluate[any](js)(ctx, t)
+		return err
+	})
+}
+
+// helpers are page-side functions the checks use.
+const helpers = `var distinctColours = c => { const d = c.getContext('2d').getImageData(0, 0, c.width, c.height).data; const s = new Set(); for (let p = 0; p < d.length; p += 20) s.add((d[p] << 16) | (d[p+1] << 8) | d[p+2]); return s.size; };
+`
+
+// centrePoint returns the index of the valid grid point nearest the centre
+// of the field.
+func (b *browser) centrePoint() int {
+	return int(b.number(`(() => {
+		const f = mottlePreview.view.field;
+		const cx = (f.xs[0] + f.xs[f.nx - 1]) / 2, cy = (f.ys[0] + f.ys[f.ny - 1]) / 2;
+		let best = -1, bd = Infinity;
+		for (let k = 0; k < f.n; k++) {
+			if (!f.ok[k]) continue;
+			const d = (f.X[k] - cx) ** 2 + (f.Y[k] - cy) ** 2;
+			if (d < bd) { bd = d; best = k; }
+		}
+		return best;
+	})()`))
+}
+
+// fieldSpan returns a horizontal line across the middle of the field, in
+// client coordinates.
+func (b *browser) fieldSpan() (x0, y0, x1, y1 float64) {
+	b.run("scroll to the map", eval(`document.getElementById("map-canvas").scrollIntoView({block: "center"})`))
+	p := value[[]float64](b, `(() => {
+		const f = mottlePreview.view.field;
+		const y = f.ys[Math.floor(f.ny / 2)];
+		return [...mottlePreview.toClient(f.xs[1], y), ...mottlePreview.toClient(f.xs[f.nx - 2], y)];
+	})()`)
+	return p[0], p[1], p[2], p[3]
+}
+
+// hover moves the mouse over grid point k and returns the read-out.
+func (b *browser) hover(k int) map[string]float64 {
+	b.t.Helper()
+	if k < 0 {
+		b.t.Fatal("the field has no valid point")
+	}
+	b.run("scroll to the map", eval(`document.getElementById("map-canvas").scrollIntoView({block: "center"})`))
+	p := value[[]float64](b, fmt.Sprintf(`(() => { const f = mottlePreview.view.field; return mottlePreview.toClient(f.X[%d], f.Y[%d]); })()`, k, k))
+	b.run("hover", chromedp.MouseEvent(input.DispatchMouseEventTypeMouseMoved, p[0]-3, p[1]-3), chromedp.MouseEvent(input.DispatchMouseEventTypeMouseMoved, p[0], p[1]))
+	b.wait(fmt.Sprintf(`document.getElementById("readout-where").dataset.k === "%d"`, k), 5*time.Second, "the read-out did not follow the pointer")
+	rows := value[[][]string](b, `[...document.querySelectorAll("#readout tbody tr")].map(r => [r.dataset.q, r.cells[1].textContent, r.cells[1].dataset.value])`)
+	out := map[string]float64{}
+	for _, r := range rows {
+		if len(r) != 3 || r[2] == "" {
+			continue
+		}
+		var v float64
+		if _, err := fmt.Sscan(r[1], &v); err != nil {
+			b.t.Errorf("read-out of %s shows %q, not a number", r[0], r[1])
+			continue
+		}
+		var exact float64
+		fmt.Sscan(r[2], &exact)
+		// The shown text is rounded to 4 significant digits.
+		if math.Abs(v-exact) > 1e-3*math.Abs(exact)+1e-12 {
+			b.t.Errorf("read-out of %s shows %q for the value %v", r[0], r[1], exact)
+		}
+		out[r[0]] = exact
+	}
+	return out
+}
+
+// drag presses the mouse at (x0, y0), moves to (x1, y1) and releases.
+func (b *browser) drag(x0, y0, x1, y1 float64) {
+	acts := []chromedp.Action[chromedp.Void]{chromedp.MouseEvent(input.DispatchMouseEventTypeMouseMoved, x0, y0),
+		chromedp.MouseEvent(input.DispatchMouseEventTypeMousePressed, x0, y0, chromedp.ButtonLeft, chromedp.ClickCount(1))}
+	for i := 1; i <= 8; i++ {
+		f := float64(i) / 8
+		acts = append(acts, chromedp.MouseEvent(input.DispatchMouseEventTypeMouseMoved, x0+f*(x1-x0), y0+f*(y1-y0), chromedp.ButtonLeft))
+	}
+	acts = append(acts, chromedp.MouseEvent(input.DispatchMouseEventTypeMouseReleased, x1, y1, chromedp.ButtonLeft, chromedp.ClickCount(1)))
+	b.run("drag a line", acts...)
+}
+
+// shot saves a screenshot of the element sel (the whole page when sel is
+// empty) into the artefacts directory.
+func (b *browser) shot(name, sel string) {
+	ctx, cancel := context.WithTimeout(b.ctx, 15*time.Second)
+	defer cancel()
+	var buf []byte
+	var err error
+	if sel == "" {
+		buf, err = chromedp.Run(ctx, chromedp.FullScreenshot(100))
+	} else {
+		buf, err = chromedp.Run(ctx, chromedp.Screenshot(chromedp.CSS(sel)))
+	}
+	if err != nil {
+		b.t.Logf("screenshot %s: %v", name, err)
+		return
+	}
+	b.n++
+	p := filepath.Join(b.art, fmt.Sprintf("%02d-%s", b.n, name))
+	if err := os.WriteFile(p, buf, 0o644); err != nil {
+		b.t.Logf("screenshot %s: %v", name, err)
+	}
+}
+
+func setValue(sel, v string) chromedp.Action[chromedp.Void] {
+	return eval(fmt.Sprintf(`(() => { const e = document.querySelector(%q); e.value = %q; e.dispatchEvent(new Event('input', {bubbles: true})); e.dispatchEvent(new Event('change', {bubbles: true})); })()`, sel, v))
+}
+
+func artifacts(t *testing.T) string {
+	dir := os.Getenv("MOTTLE_ARTIFACTS")
+	if dir == "" {
+		dir = t.TempDir()
+	} else {
+		dir = filepath.Join(dir, "browser")
+		if err := os.MkdirAll(dir, 0o755); err != nil {
+			t.Fatalf("artefacts directory: %v", err)
+		}
+	}
+	t.Logf("screenshots go to %s", dir)
+	return dir
+}
+
+// newBrowser starts a headless Chromium with a fresh profile. The flags
+// keep it off the network: without them it tries to reach update and sync
+// services and can stall in a closed network.
+func newBrowser(t *testing.T) context.Context {
+	opts := []chromedp.ExecAllocatorOption{
+		chromedp.ExecPath(chromium),
+		chromedp.Flag("headless", true),
+		chromedp.NoSandbox,
+		chromedp.DisableGPU,
+		chromedp.NoFirstRun,
+		chromedp.NoDefaultBrowserCheck,
+		chromedp.Flag("disable-quic", true),
+		chromedp.Flag("disable-background-networking", true),
+		chromedp.Flag("disable-component-update", true),
+		chromedp.Flag("disable-sync", true),
+		chromedp.Flag("disable-extensions", true),
+		chromedp.Flag("disable-dev-shm-usage", true),
+		chromedp.Flag("metrics-recording-only", true),
+		chromedp.UserDataDir(t.TempDir()),
+		chromedp.WindowSize(1280, 1100),
+	}
+	actx, cancelA := chromedp.NewExecAllocator(context.Background(), opts...)
+	ctx, cancelC := chromedp.NewContext(actx)
+	t.Cleanup(func() { cancelC(); cancelA() })
+	// Start the browser with a context without a timeout: a timeout on the
+	// first run would stop the browser when it ends.
+	if err := chromedp.Do(ctx); err != nil {
+		t.Fatalf("start %s: %v", chromium, err)
+	}
+	// Uncaught exceptions fail the test; console errors are logged.
+	msgs := chromedp.Console(ctx)
+	done := make(chan struct{})
+	var mu sync.Mutex
+	var exceptions []string
+	go func() {
+		defer close(done)
+		for m, err := range msgs {
+			if err != nil {
+				return
+			}
+			mu.Lock()
+			if m.IsException() || m.Type == chromedp.ConsoleError {
+				exceptions = append(exceptions, m.String())
+			}
+			mu.Unlock()
+		}
+	}()
+	t.Cleanup(func() {
+		mu.Lock()
+		defer mu.Unlock()
+		for _, e := range exceptions {
+			if strings.HasPrefix(e, string(chromedp.ConsoleException)) {
+				t.Errorf("JavaScript %s", e)
+			} else {
+				t.Logf("JavaScript %s", e)
+			}
+		}
+	})
+	return ctx
+}
+
+// startServer builds cmd/mottle, starts `mottle serve` on a free port of
+// 127.0.0.1 with a fresh data directory, waits until /readyz answers and
+// returns the base URL. The server is stopped at the end of the test.
+func startServer(t *testing.T) string {
+	t.Helper()
+	bin := filepath.Join(t.TempDir(), "mottle")
+	build := exec.Command("go", "build", "-o", bin, "./cmd/mottle")
+	build.Dir = ".."
+	if out, err := build.CombinedOutput(); err != nil {
+		t.Fatalf("build mottle: %v\n%s", err, out)
+	}
+	l, err := net.Listen("tcp", "127.0.0.1:0")
+	if err != nil {
+		t.Fatal(err)
+	}
+	addr := l.Addr().String()
+	l.Close()
+	logs := &syncBuffer{}
+	cmd := exec.Command(bin, "serve", "--addr", addr, "--data", t.TempDir())
+	cmd.Stdout, cmd.Stderr = logs, logs
+	if err := cmd.Start(); err != nil {
+		t.Fatalf("start mottle serve: %v", err)
+	}
+	exited := make(chan error, 1)
+	go func() { exited <- cmd.Wait() }()
+	t.Cleanup(func() {
+		_ = cmd.Process.Signal(os.Interrupt)
+		select {
+		case <-exited:
+		case <-time.After(10 * time.Second):
+			_ = cmd.Process.Kill()
+			<-exited
+		}
+		if t.Failed() {
+			t.Logf("server log:\n%s", tail(logs.String(), 4000))
+		}
+	})
+	base := "http://" + addr
+	deadline := time.Now().Add(30 * time.Second)
+	for {
+		select {
+		case err := <-exited:
+			t.Fatalf("mottle serve exited: %v\n%s", err, logs.String())
+		default:
+		}
+		resp, err := http.Get(base + "/readyz")
+		if err == nil {
+			resp.Body.Close()
+			if resp.StatusCode == http.StatusOK {
+				return base
+			}
+			err = errors.New(resp.Status)
+		}
+		if time.Now().After(deadline) {
+			t.Fatalf("mottle serve not ready at %s after 30 s: %v\n%s", base, err, logs.String())
+		}
+		time.Sleep(100 * time.Millisecond)
+	}
+}
+
+// syncBuffer collects the server's output from the goroutines of os/exec.
+type syncBuffer struct {
+	mu  sync.Mutex
+	buf bytes.Buffer
+}
+
+func (b *syncBuffer) Write(p []byte) (int, error) {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	return b.buf.Write(p)
+}
+
+func (b *syncBuffer) String() string {
+	b.mu.Lock()
+	defer b.mu.Unlock()
+	return b.buf.String()
+}
+
+func tail(s string, n int) string {
+	if len(s) > n {
+		return "…" + s[len(s)-n:]
+	}
+	return s
+}
