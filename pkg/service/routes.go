@@ -4,6 +4,7 @@ import (
 	"context"
 	"encoding/json"
 	"net/http"
+	"strings"
 
 	"github.com/go-chi/chi/v5"
 
@@ -19,17 +20,26 @@ const (
 func (s *Server) routes() http.Handler {
 	r := chi.NewRouter()
 	r.Use(s.observe, s.cors)
-	r.NotFound(func(w http.ResponseWriter, r *http.Request) {
+	notFound := func(w http.ResponseWriter, r *http.Request) {
 		writeProblem(w, r, problem(http.StatusNotFound, "not-found", "Not found", "no route matches "+r.URL.Path+"; see /v1/openapi.json"))
-	})
+	}
+	r.NotFound(notFound)
 	r.MethodNotAllowed(func(w http.ResponseWriter, r *http.Request) {
 		writeProblem(w, r, problem(http.StatusMethodNotAllowed, "method-not-allowed", "Method not allowed", r.Method+" is not allowed on "+r.URL.Path+"; see /v1/openapi.json"))
 	})
 	r.Get("/healthz", s.healthz)
 	r.Get("/readyz", s.readyz)
 	if s.cfg.UI != nil {
+		// The preview's static files: no data, so no token (a browser
+		// cannot send one on navigation). API paths never fall through to it.
 		fs := http.FileServerFS(s.cfg.UI)
-		r.Handle("/*", fs)
+		r.Handle("/*", http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+			if p := r.URL.Path; p == "/v1" || strings.HasPrefix(p, "/v1/") || p == "/metrics" {
+				notFound(w, r)
+				return
+			}
+			fs.ServeHTTP(w, r)
+		}))
 	}
 	r.Group(func(r chi.Router) {
 		r.Use(s.auth)

@@ -2,14 +2,17 @@ package service_test
 
 import (
 	"encoding/json"
+	"io"
 	"net/http"
 	"sort"
 	"strings"
 	"testing"
+	"testing/fstest"
 
 	"github.com/go-chi/chi/v5"
 
 	"github.com/mottledic/mottle/api"
+	"github.com/mottledic/mottle/pkg/service"
 )
 
 // TestRoutesMatchOpenAPI checks that every route of the router is in the
@@ -85,5 +88,31 @@ func TestOpenAPIServed(t *testing.T) {
 	}
 	if string(b) != string(api.OpenAPI()) {
 		t.Error("served document differs from the embedded one")
+	}
+}
+
+// TestUI serves the preview's files at / without a token, and keeps
+// unknown API paths answered by the API.
+func TestUI(t *testing.T) {
+	ui := fstest.MapFS{"index.html": {Data: []byte("<!doctype html><title>Mottle</title>")}}
+	ts := newServer(t, func(c *service.Config) { c.UI = ui; c.Tokens = []string{"ui-test-token-0123456789"} })
+	resp, err := ts.client().Get(ts.URL + "/")
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, _ := io.ReadAll(resp.Body)
+	resp.Body.Close()
+	if resp.StatusCode != 200 || !strings.Contains(string(b), "Mottle") {
+		t.Errorf("GET /: %d %s", resp.StatusCode, b)
+	}
+	for _, p := range []string{"/v1/nothing", "/v1/analyses/x/y/z"} {
+		resp, err := ts.client().Get(ts.URL + p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		resp.Body.Close()
+		if resp.StatusCode != 401 && resp.StatusCode != 404 || resp.Header.Get("Content-Type") != "application/problem+json" {
+			t.Errorf("GET %s: %d %s, want a 401/404 problem", p, resp.StatusCode, resp.Header.Get("Content-Type"))
+		}
 	}
 }
