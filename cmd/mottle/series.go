@@ -430,8 +430,13 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 			return err
 		}
 		p, first = tr.Params(), done
-	} else if tr, err = series.New(refImg, metas[0], p); err != nil {
-		return err
+	} else {
+		if tr, err = series.New(refImg, metas[0], p); err != nil {
+			return err
+		}
+		if err := writeState(statePath, tr); err != nil {
+			return err
+		}
 	}
 
 	var noise *series.NoiseFloor

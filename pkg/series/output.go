@@ -166,7 +166,7 @@ func WriteCurve(dir string, c Curve) ([]string, error) {
 // Cautions are shown with every series result.
 func Cautions() []string {
 	return []string{
-		"Every value here comes from an optical measurement with its own uncertainty; the noise floor above is a lower bound on it, not the whole of it.",
+		"Every value here comes from an optical measurement with its own uncertainty; the noise floor reported with them is a lower bound on it, not the whole of it.",
 		"Confirm strains and properties used for acceptance, design or safety with a calibrated extensometer of a suitable class (ASTM E83, ISO 9513) and a standard test (ASTM E8/E8M, ISO 6892-1, ASTM E111, ASTM E132, ISO 10113).",
 		"Decisions on safety and design belong to the applicable local codes and a licensed engineer.",
 	}

@@ -190,10 +190,19 @@ func (p Params) withDefaults() Params {
 	return p
 }
 
-// Defaults returns the series parameters used where none are set, with
-// the analysis defaults of pkg/analysis.
+// Defaults returns the series parameters used where none are set: the
+// analysis defaults of pkg/analysis, except quintic B-spline interpolation
+// on images prefiltered with a Gaussian of σ = 0.8 px. Elastic strains of
+// a tensile test move points by tenths of a pixel, where the interpolation
+// bias is nearly proportional to the shift: on rendered 4 px speckles it
+// is a gain error of 1–3 % with cubic splines and about 0.2 % with these
+// settings (measured; prefiltering against bias: Pan 2013, Opt. Lasers
+// Eng. 51:1161, reference from memory). They cost about twice the time.
 func Defaults() Params {
-	return Params{Analysis: analysis.Defaults()}.withDefaults()
+	a := analysis.Defaults()
+	a.Interpolation = "quintic"
+	a.Prefilter = 0.8
+	return Params{Analysis: a}.withDefaults()
 }
 
 // Validate checks p (after defaults) for reference images of w×h px

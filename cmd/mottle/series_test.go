@@ -1,0 +1,91 @@
+package main
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"math"
+	"os"
+	"path/filepath"
+	"strings"
+	"testing"
+
+	"github.com/mottledic/mottle/pkg/series"
+)
+
+// TestSeriesCommand renders a four-frame uniaxial series with the synth
+// command (demo data), then runs the series command over the folder with a
+// load table, extensometers, a gauge and properties, and checks the files
+// and that the last extensometer reading matches the rendered stretch.
+func TestSeriesCommand(t *testing.T) {
+	dir := t.TempDir()
+	if code, _, errs := runSynthArgs(t, "--out", dir, "--size", "128x96", "--motion", "affine:F11=1.02,F22=0.994",
+		"--frames", "4", "--full-load", "600", "--bits", "16"); code != 0 {
+		t.Fatalf("synth: exit %d: %s", code, errs)
+	}
+	csv := "frame,time_s,load_N\n0,0,0\n1,1,150\n2,2,300\n3,3,450\n4,4,600\n"
+	if err := os.WriteFile(filepath.Join(dir, "loads.csv"), []byte(csv), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	out := filepath.Join(t.TempDir(), "res")
+	args := []string{"series", "--out", out, "--subset", "21", "--step", "8", "--table", filepath.Join(dir, "loads.csv"),
+		"--ext", "axial:24,48,104,48", "--ext", "width:64,20,64,76", "--gauge", "mid:40,30,88,66",
+		"--area", "10", "--transverse", "width", "--modulus-range", "0.001,0.03",
+		"--ref", filepath.Join(dir, "reference.png"), filepath.Join(dir, "frame_*.png")}
+	var stdout, stderr bytes.Buffer
+	if code := run(context.Background(), &env{stdout: &stdout, stderr: &stderr}, args); code != 0 {
+		t.Fatalf("series: exit %d: %s", code, stderr.String())
+	}
+	if !strings.Contains(stdout.String(), "4 frames") || !strings.Contains(stdout.String(), "Young's modulus") {
+		t.Errorf("stdout: %s", stdout.String())
+	}
+	for _, f := range []string{"report.html", "curve.csv", "curve.json", "state.json", "plots/stress_strain.png",
+		"frames/0004/field.json", "frames/0004/map_E11.png"} {
+		if _, err := os.Stat(filepath.Join(out, f)); err != nil {
+			t.Error(err)
+		}
+	}
+	var st series.State
+	b, err := os.ReadFile(filepath.Join(out, "state.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if err := json.Unmarshal(b, &st); err != nil {
+		t.Fatal(err)
+	}
+	last := st.Curve[len(st.Curve)-1]
+	if math.Abs(last.Extensometers[0].Stretch-1.02) > 2e-4 || math.Abs(last.Extensometers[1].Stretch-0.994) > 2e-4 {
+		t.Errorf("last stretches %g, %g; rendered 1.02, 0.994", last.Extensometers[0].Stretch, last.Extensometers[1].Stretch)
+	}
+	if last.Stress == nil || *last.Stress != 60 {
+		t.Errorf("last stress %v, want 600 N / 10 mm² = 60 MPa", last.Stress)
+	}
+
+	// A cancelled run stops cleanly, keeps what it has and says how to go on.
+	ctx, cancel := context.WithCancel(context.Background())
+	cancel()
+	out2 := filepath.Join(t.TempDir(), "res")
+	args[2] = out2
+	stderr.Reset()
+	if code := run(ctx, &env{stdout: &stdout, stderr: &stderr}, args); code != 1 || !strings.Contains(stderr.String(), "--resume") {
+		t.Errorf("cancelled run: exit %d, stderr %q", code, stderr.String())
+	}
+	if _, err := os.Stat(filepath.Join(out2, "report.html")); err != nil {
+		t.Error(err)
+	}
+	// --resume continues and finishes.
+	stderr.Reset()
+	if code := run(context.Background(), &env{stdout: &stdout, stderr: &stderr}, append(args[:1:1], append([]string{"--resume"}, args[1:]...)...)); code != 0 {
+		t.Errorf("resume: exit %d: %s", code, stderr.String())
+	}
+}
+
+func TestSeriesCommandUsage(t *testing.T) {
+	var stdout, stderr bytes.Buffer
+	if code := run(context.Background(), &env{stdout: &stdout, stderr: &stderr}, []string{"series", "--ext", "bad", "a.png", "b.png"}); code != 2 {
+		t.Errorf("bad --ext: exit %d, want 2 (%s)", code, stderr.String())
+	}
+	if code := run(context.Background(), &env{stdout: &stdout, stderr: &stderr}, []string{"series", "one.png"}); code != 2 {
+		t.Errorf("one frame: exit %d, want 2", code)
+	}
+}
