@@ -76,6 +76,9 @@ func benchRun(b *testing.B, shape Shape) {
 	var mallocs uint64
 	var cpu time.Duration
 	for b.Loop() {
+		b.StopTimer()
+		runtime.GC() // peak below counts this run's memory, not earlier garbage
+		b.StartTimer()
 		c0 := cpuTime()
 		runtime.ReadMemStats(&ms)
 		m0 := ms.Mallocs

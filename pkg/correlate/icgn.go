@@ -61,10 +61,7 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 	// its error decays like |z₁|^d with the distance d from the edge
 	// (z₁ = √3 − 2 for the cubic spline): keep warped subsets a few
 	// pixels inside.
-	edge := 2.0
-	if opt.Interp == spline.Quintic {
-		edge = 3
-	}
+	edge := edgeMargin(opt.Interp)
 	s := &solver{
 		ref: ref, gx: gx, gy: gy, refSp: refSp, def: def,
 		lo: edge, defW: float64(def.W-1) - edge, defH: float64(def.H-1) - edge,
@@ -79,6 +76,15 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 	s.fx = make([]float64, s.n)
 	s.fy = make([]float64, s.n)
 	return s
+}
+
+// edgeMargin is the distance in pixels that warped subsets keep from the
+// image edges for the given spline order.
+func edgeMargin(o spline.Order) float64 {
+	if o == spline.Quintic {
+		return 3
+	}
+	return 2
 }
 
 // jacobian writes the steepest-descent vector of one pixel at offset (ξ, η).

@@ -378,6 +378,11 @@ func (r *run) compute(s *solver, w int, it *item) {
 func (r *run) setupGrid() error {
 	m, step := r.m, r.opt.Step
 	bx0, by0, bx1, by1 := r.mask.Bounds()
+	// Keep subsets the interpolation edge margin inside the image, so that
+	// a point near the border is not rejected for any small motion.
+	e := int(edgeMargin(r.opt.Interp))
+	bx0, by0 = max(bx0, e), max(by0, e)
+	bx1, by1 = min(bx1, r.ref.W-e), min(by1, r.ref.H-e)
 	g := Grid{X0: bx0 + m, Y0: by0 + m, Step: step}
 	if bx1-1-m < g.X0 || by1-1-m < g.Y0 {
 		return fmt.Errorf("correlate: the region of interest (%d×%d px bounding box) is smaller than the %d px subset", bx1-bx0, by1-by0, r.opt.Subset)
@@ -390,7 +395,6 @@ func (r *run) setupGrid() error {
 		return fmt.Errorf("correlate: Start has %d points but the grid has %d (%d×%d): it must come from a run with the same images size, subset, step and ROI", len(r.opt.Start), n, g.Nx, g.Ny)
 	}
 	r.alloc(n)
-	lc := newMoments(r.ref)
 	for j := 0; j < g.Ny; j++ {
 		for i := 0; i < g.Nx; i++ {
 			x, y := g.At(i, j)
@@ -399,7 +403,7 @@ func (r *run) setupGrid() error {
 			switch {
 			case !r.mask.RectInside(x-m, y-m, x+m, y+m):
 				r.pts[k].Status = Outside
-			case lc.std(x-m, y-m, x+m, y+m) < r.minStd:
+			case subsetStd(r.ref, x, y, m) < r.minStd:
 				// Low contrast is a property of the reference subset
 				// alone: flag it now, so that blank areas are reported
 				// as such rather than as unreached.
@@ -829,36 +833,18 @@ func median(v []float64) float64 {
 	return (v[h-1] + v[h]) / 2
 }
 
-// moments holds summed-area tables of an image and its square, for the
-// grey-level standard deviation of any rectangle in O(1).
-type moments struct {
-	w      int
-	s1, s2 []float64
-}
-
-func newMoments(g *imageio.Gray) *moments {
-	w := g.W + 1
-	m := &moments{w: w, s1: make([]float64, w*(g.H+1)), s2: make([]float64, w*(g.H+1))}
-	for y := 0; y < g.H; y++ {
-		var a, b float64
-		for x := 0; x < g.W; x++ {
-			v := float64(g.Pix[y*g.Stride+x])
-			a += v
-			b += v * v
-			m.s1[(y+1)*w+x+1] = m.s1[y*w+x+1] + a
-			m.s2[(y+1)*w+x+1] = m.s2[y*w+x+1] + b
+// subsetStd returns the grey-level standard deviation of the subset of
+// half-width m centred at pixel (x, y), which must lie inside g.
+func subsetStd(g *imageio.Gray, x, y, m int) float64 {
+	var s, ss float64
+	for j := y - m; j <= y+m; j++ {
+		for _, v := range g.Pix[j*g.Stride+x-m : j*g.Stride+x+m+1] {
+			f := float64(v)
+			s += f
+			ss += f * f
 		}
 	}
-	return m
-}
-
-// std returns the grey-level standard deviation over x0 ≤ x ≤ x1, y0 ≤ y ≤ y1.
-func (m *moments) std(x0, y0, x1, y1 int) float64 {
-	w := m.w
-	box := func(s []float64) float64 {
-		return s[(y1+1)*w+x1+1] - s[y0*w+x1+1] - s[(y1+1)*w+x0] + s[y0*w+x0]
-	}
-	n := float64((x1 - x0 + 1) * (y1 - y0 + 1))
-	mean := box(m.s1) / n
-	return math.Sqrt(math.Max(box(m.s2)/n-mean*mean, 0))
+	n := float64((2*m + 1) * (2*m + 1))
+	mean := s / n
+	return math.Sqrt(math.Max(ss/n-mean*mean, 0))
 }

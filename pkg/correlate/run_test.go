@@ -165,9 +165,14 @@ func TestStartGuessesAndRunPoints(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	opt.Start = nil
+	fresh, err := Run(context.Background(), imgs[0], imgs[2], opt)
+	if err != nil {
+		t.Fatal(err)
+	}
 	rms, _, n := truthErrors(r1, m1)
-	if len(r1.Seeds) != 0 || n < r0.Stats.OK || rms > 0.002 {
-		t.Errorf("from Start: %d seeds, %d points (previous %d), RMS %.4f px", len(r1.Seeds), n, r0.Stats.OK, rms)
+	if len(r1.Seeds) != 0 || n != fresh.Stats.OK || rms > 0.002 {
+		t.Errorf("from Start: %d seeds, %d points (without Start %d), RMS %.4f px", len(r1.Seeds), n, fresh.Stats.OK, rms)
 	}
 	pts := [][2]float64{{60.25, 70.5}, {120.7, 99.1}, {150, 40.3}, {3, 3}}
 	var guesses [][12]float64

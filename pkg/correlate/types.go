@@ -1,7 +1,3 @@
-// Package correlate tracks speckle subsets from a reference image into a
-// deformed image: integer ZNCC search from seed points, subpixel inverse
-// compositional Gauss–Newton (IC-GN) refinement with first- or second-order
-// shape functions, and reliability-guided propagation over a grid.
 package correlate
 
 import (
