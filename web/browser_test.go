@@ -111,6 +111,9 @@ func TestBrowserPreview(t *testing.T) {
 	t.Log("upload a pair with a known homogeneous stretch")
 	checkKnownStretch(b)
 
+	t.Log("progress from server-sent events, and cancel")
+	checkCancel(b)
+
 	t.Log("a bad upload shows a readable error")
 	checkBadUpload(b)
 
@@ -337,6 +340,43 @@ func checkKnownStretch(b *browser) {
 			t.Errorf("read-out %s at (%g, %g) = %.5g, truth %.5g (tolerance %g)", c.q, X, Y, got, c.want, c.tol)
 		}
 	}
+}
+
+// checkCancel starts an analysis large enough to run for a few seconds,
+// waits for progress to arrive as server-sent events and cancels it.
+func checkCancel(b *browser) {
+	t := b.t
+	t.Helper()
+	const w, h = 384, 384
+	m := synth.Affine{F: [2][2]float64{{1.002, 0}, {0, 1}}, CX: w / 2, CY: h / 2}
+	ref, def, err := synth.Pair(synth.PatternOptions{Diameter: 4, Seed: 3}, m, synth.RenderOptions{W: w, H: h, Bits: 8, Supersample: 2})
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	refPath, defPath := filepath.Join(dir, "big_ref.png"), filepath.Join(dir, "big_def.png")
+	for p, g := range map[string]*imageio.Gray{refPath: ref, defPath: def} {
+		if err := imageio.WriteFile(p, g, 8); err != nil {
+			t.Fatal(err)
+		}
+	}
+	b.run("choose a large pair",
+		chromedp.SetUploadFiles(chromedp.ID("file-reference"), []string{refPath}),
+		chromedp.SetUploadFiles(chromedp.ID("file-deformed"), []string{defPath}))
+	b.wait(`/384 × 384 px/.test(document.getElementById("info-deformed").textContent) && /384 × 384 px/.test(document.getElementById("info-reference").textContent)`, 10*time.Second, "the chosen files were not read")
+	b.run("dense grid, whole image, and run",
+		chromedp.Click(chromedp.ID("btn-roi-clear")),
+		setValue("#p-subset", "21"), setValue("#p-step", "1"),
+		eval(`mottlePreview.state.events = 0`),
+		chromedp.Click(chromedp.ID("btn-run")))
+	b.wait(`mottlePreview.state.events > 0 && /running .*\([1-9][0-9]* of/.test(document.getElementById("progress-text").textContent)`, 30*time.Second, "no progress arrived as server-sent events")
+	b.shot("progress.png", ".run-row + .progress-row")
+	b.run("cancel", chromedp.Click(chromedp.ID("btn-cancel")))
+	b.wait(`/^canceled/.test(document.getElementById("progress-text").textContent)`, 30*time.Second, "the analysis was not canceled")
+	if ok := b.str(`document.getElementById("btn-run").disabled ? "disabled" : "enabled"`); ok != "enabled" {
+		t.Errorf("after cancel the run button is %s", ok)
+	}
+	b.run("back to a sparse grid", setValue("#p-step", "8"))
 }
 
 // checkBadUpload uploads a file that is not an image and expects the

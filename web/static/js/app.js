@@ -233,7 +233,10 @@ function track(id, first) {
     // EventSource cannot send a bearer token: with one, polling alone.
     if (token()) throw new Error('token');
     es = new EventSource(`${url}/events`);
-    const onEvent = ev => { try { seen(JSON.parse(ev.data)); } catch { /* not JSON */ } };
+    const onEvent = ev => {
+      state.events = (state.events || 0) + 1;
+      try { seen(JSON.parse(ev.data)); } catch { /* not JSON */ }
+    };
     es.onmessage = onEvent;
     for (const name of ['progress', 'state', 'status', 'done', 'end', 'succeeded', 'failed', 'canceled']) es.addEventListener(name, onEvent);
     es.onerror = () => { if (es) es.close(); es = null; };
