@@ -25,10 +25,11 @@ type Case struct {
 	Noise  float64 // image noise σ, grey levels (8-bit images)
 	Seed   int64   // speckle pattern seed
 	// Applies lists the reference methods whose motion model covers this
-	// case (translation for Phase, affine for ECC). The check fails if
+	// case (translation for Phase and PhaseHann, affine for ECC and
+	// ECCDefault). The check fails if
 	// Mottle's RMS error is larger than the best of these.
 	Applies []Method
-	// Methods are the reference methods to run; nil = all four.
+	// Methods are the reference methods to run; nil = all five.
 	Methods []Method
 }
 
@@ -114,7 +115,7 @@ func CrossCheck(ctx context.Context, c Case, r Runner, track Tracker, dir string
 
 	methods := c.Methods
 	if methods == nil {
-		methods = []Method{Template, ECC, Phase, PhaseHann}
+		methods = []Method{Template, ECC, ECCDefault, Phase, PhaseHann}
 	}
 	const search = 4
 	var guess [][2]float64 // from Template, for Phase
@@ -173,7 +174,7 @@ func CrossCheckTable(rs []*CaseResult) string {
 				r.Case.Name, r.Case.Subset, len(r.Points), name, e.RMS, e.Max, e.MeanU, e.MeanV, e.Failed, agree, applies)
 		}
 		row("**Mottle IC-GN**", r.MottleErr, "–", "")
-		for _, m := range []Method{ECC, Phase, PhaseHann, Template} {
+		for _, m := range []Method{ECC, ECCDefault, Phase, PhaseHann, Template} {
 			e, ok := r.RefErr[m]
 			if !ok {
 				continue

@@ -82,7 +82,7 @@ func TestDriversIntegerShift(t *testing.T) {
 	}
 	pts := [][2]int{{30, 30}, {48, 50}, {64, 40}, {20, 70}}
 	var guess [][2]float64
-	for _, m := range []Method{Template, ECC, Phase, PhaseHann} {
+	for _, m := range []Method{Template, ECC, ECCDefault, Phase, PhaseHann} {
 		// Phase correlation has no search of its own: it starts from the
 		// integer search result, as in the cross-checks.
 		resp, err := r.Run(context.Background(), Request{Reference: rp, Deformed: dp, Method: m, Subset: 21, Search: 5, Points: pts, Guess: guess})

@@ -54,7 +54,7 @@ type Series struct {
 func PlotChallenge(path, title string, series ...Series) error {
 	p := plot.New()
 	p.Title.Text = title
-	p.X.Label.Text = "spatial resolution p₁₀: period at 10 % attenuation (px)"
+	p.X.Label.Text = "spatial resolution: period at 10 % attenuation (px)"
 	p.Y.Label.Text = "displacement noise σ_v (px)"
 	p.Add(plotter.NewGrid())
 	colours := []color.Color{
