@@ -281,4 +281,3 @@ func machine() string {
 	}
 	return fmt.Sprintf("%s, %d cores, %s/%s, %s", cpu, runtime.NumCPU(), runtime.GOOS, runtime.GOARCH, runtime.Version())
 }
-

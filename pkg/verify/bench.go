@@ -176,4 +176,6 @@ func SpeedRatio(rows []BenchRow, method string) float64 {
 	return geoMean(rs)
 }
 
-func sameCase(a, b BenchCase) bool { return a.Name == b.Name && a.Subset == b.Subset && a.Size == b.Size }
+func sameCase(a, b BenchCase) bool {
+	return a.Name == b.Name && a.Subset == b.Subset && a.Size == b.Size
+}
