@@ -111,6 +111,15 @@ func TestBrowserPreview(t *testing.T) {
 	t.Log("upload a pair with a known homogeneous stretch")
 	checkKnownStretch(b)
 
+	t.Log("drag and drop a file onto the deformed-image zone")
+	b.run("drop a file", eval(`(async () => {
+		const c = new OffscreenCanvas(40, 30); c.getContext('2d').fillRect(5, 5, 10, 10);
+		const file = new File([await c.convertToBlob({type: 'image/png'})], 'dropped.png', {type: 'image/png'});
+		const dt = new DataTransfer(); dt.items.add(file);
+		document.getElementById('drop-deformed').dispatchEvent(new DragEvent('drop', {dataTransfer: dt, bubbles: true, cancelable: true}));
+	})()`))
+	b.wait(`/dropped\.png.*40 × 30 px/.test(document.getElementById("info-deformed").textContent)`, 10*time.Second, "the dropped file was not taken")
+
 	t.Log("progress from server-sent events, and cancel")
 	checkCancel(b)
 

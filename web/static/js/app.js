@@ -322,7 +322,7 @@ function describeResult(field, job) {
 }
 
 function updateDownloads() {
-  const ul = $('downloads');
+  const ul = $('downloads'), base = state.base || '';
   ul.textContent = '';
   if (!state.base) return;
   const add = (href, text) => {
@@ -336,7 +336,10 @@ function updateDownloads() {
   add(`${state.base}/arrays/${encodeURIComponent(o.quantity)}.npy`, `${o.quantity}.npy`);
   const q = new URLSearchParams({ quantity: o.quantity, range: `${o.lo},${o.hi}`, on: o.on });
   add(`${state.base}/map.png?${q}`, `map.png (${o.quantity}, over ${o.on})`);
-  if (state.series) add(`${state.series.base}/curve.csv`, 'curve.csv (series)');
+  if (state.series && base.startsWith(state.series.base)) {
+    add(`${state.series.base}/curve.csv`, 'curve.csv (series)');
+    add(`${state.series.base}/curve.json`, 'curve.json (series)');
+  }
 }
 
 // A link cannot carry a bearer token: fetch the file and save it from memory.
@@ -460,7 +463,7 @@ async function showFrame(n) {
 
 const editor = new RoiEditor($('roi-canvas'), v => syncRoiJSON(v));
 const view = new MapView({
-  canvas: $('map-canvas'), colorbar: $('colorbar'), readout: $('readout'), where: $('readout-where'),
+  canvas: $('map-canvas'), colorbar: $('colorbar'), readout: $('readout'), where: $('readout-where'), announce: $('readout-announce'),
   profile: $('profile-canvas'), profileText: $('profile-text'),
   onRange: (lo, hi) => { $('r-min').value = fmt(lo); $('r-max').value = fmt(hi); },
   onLine: L => { $('pr-x0').value = fmt(L.x0); $('pr-y0').value = fmt(L.y0); $('pr-x1').value = fmt(L.x1); $('pr-y1').value = fmt(L.y1); },

@@ -280,7 +280,13 @@ export class MapView {
     if (this.hover >= 0) { i += m[0] * step; j += m[1] * step; }
     i = Math.max(0, Math.min(f.nx - 1, i)); j = Math.max(0, Math.min(f.ny - 1, j));
     const k = f.at(i, j);
-    if (k >= 0) this.setHover(k);
+    if (k < 0) return;
+    this.setHover(k);
+    // Tell screen-reader users where they are and what the map shows there.
+    if (this.el.announce) {
+      const q = this.opts.quantity, u = f.unit(q);
+      this.el.announce.textContent = `${this.el.where.textContent}. ${q} = ${fmt(f.value(q, k))}${u && u !== '–' ? ' ' + u : ''}`;
+    }
   }
 
   /** setLine sets the profile line in image coordinates of the current view and plots it. */
