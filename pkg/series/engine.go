@@ -8,7 +8,6 @@ import (
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/correlate"
 	"github.com/mottledic/mottle/pkg/imageio"
-	"github.com/mottledic/mottle/pkg/roi"
 	"github.com/mottledic/mottle/pkg/spline"
 )
 
@@ -73,27 +72,23 @@ func correlationOptions(p analysis.Params, w, h int) (correlate.Options, error) 
 	return opt, nil
 }
 
-// newCorrelator builds the production correlator and the grid of material
-// points: subset centres from half a subset inside the ROI's bounding box,
-// every Step px, as pkg/correlate lays them out (checked on the first
-// frame).
+// newCorrelator builds the production correlator. The grid of material
+// points is the one pkg/correlate lays out for the reference and the ROI;
+// it is taken from a correlation of the reference with itself, capped at
+// two iterations per point (zero motion converges at once), which also
+// checks that the reference can be correlated at all.
 func newCorrelator(ref *imageio.Gray, p Params) (correlator, error) {
 	opt, err := correlationOptions(p.Analysis, ref.W, ref.H)
 	if err != nil {
 		return nil, fmt.Errorf("series: %w", err)
 	}
-	mask := opt.Mask
-	if mask == nil {
-		mask = roi.Full(ref.W, ref.H)
+	self := opt
+	self.MaxIter, self.Progress, self.Start = 2, nil, nil
+	res, err := correlate.Run(context.Background(), ref, ref, self)
+	if err != nil {
+		return nil, fmt.Errorf("series: reference image: %w", err)
 	}
-	m := opt.Subset / 2
-	bx0, by0, bx1, by1 := mask.Bounds()
-	g := correlate.Grid{X0: bx0 + m, Y0: by0 + m, Step: opt.Step}
-	if bx1-1-m < g.X0 || by1-1-m < g.Y0 {
-		return nil, fmt.Errorf("series: the region of interest (%d×%d px) is smaller than the %d px subset", bx1-bx0, by1-by0, opt.Subset)
-	}
-	g.Nx = (bx1-1-m-g.X0)/opt.Step + 1
-	g.Ny = (by1-1-m-g.Y0)/opt.Step + 1
+	g := res.Grid
 	inc := opt
 	inc.Mask, inc.Seeds = nil, nil
 	return &engine{ref: ref, opt: opt, inc: inc, cg: g,

@@ -269,3 +269,63 @@ func TestVelocityRendered(t *testing.T) {
 }
 
 func roiRect(r [4]int) *roi.Spec { return &roi.Spec{Rect: &r} }
+
+// TestNoiseFloorStatic: three static frames of a rendered specimen with
+// sensor noise (σ = 3 grey levels, 8 bit) give a noise floor (the
+// stationary-image approach of the iDICs Good Practices Guide 2018) with a
+// near-zero mean and a displacement std close to the random error the
+// correlator predicts from the image gradients, σ_u ≈ √2·σ/√Σ(∂f/∂x)²
+// (Wang, Li, Tong & Ruan 2007, Exp. Mech. 47:701): within a factor 1.5.
+func TestNoiseFloorStatic(t *testing.T) {
+	const W, H = 128, 128
+	frames := synth.StaticSeries(nil, 4, 1, 0)
+	pat, err := synth.NewPattern(synth.PatternOptions{Diameter: 4, Seed: 5, Bounds: synth.ImageRect(W, H, 12)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var imgs []*imageio.Gray
+	err = synth.RenderSeries(context.Background(), pat, frames, synth.RenderOptions{W: W, H: H, Noise: 3, Seed: 1},
+		func(_ synth.Frame, g *imageio.Gray, _ synth.Report) error {
+			imgs = append(imgs, g)
+			return nil
+		})
+	if err != nil {
+		t.Fatal(err)
+	}
+	// Without prefilter: the prediction assumes white noise, which a
+	// Gaussian prefilter would correlate.
+	p := Defaults()
+	p.Analysis = analysis.Defaults()
+	p.Analysis.Subset, p.Analysis.Step = 21, 8
+	p.StaticFrames = 3
+	tr, err := New(imgs[0], FrameMeta{}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var pred []float64
+	for _, im := range imgs[1:] {
+		fr, err := tr.Add(context.Background(), im, FrameMeta{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		ok := make([]bool, len(fr.Status))
+		for k := range ok {
+			ok[k] = fr.Quantities["valid"][k] == 1
+		}
+		m, _, _, _, _ := Stats(fr.Quantities["std_u"], ok)
+		pred = append(pred, m)
+	}
+	nf := tr.Curve().Noise
+	if nf == nil || nf.Frames != 3 {
+		t.Fatalf("noise floor %+v, want 3 static frames", nf)
+	}
+	predU := (pred[0] + pred[1] + pred[2]) / 3
+	t.Logf("noise floor: std u %.4f px (predicted %.4f), v %.4f px, E11 %.2e, E22 %.2e; mean u %.1e px",
+		nf.Std["u"], predU, nf.Std["v"], nf.Std["E11"], nf.Std["E22"], nf.Mean["u"])
+	if r := nf.Std["u"] / predU; !(r > 1/1.5 && r < 1.5) {
+		t.Errorf("noise floor std u %.4f px is %.2f× the predicted %.4f px", nf.Std["u"], r, predU)
+	}
+	if math.Abs(nf.Mean["u"]) > 3*nf.Std["u"] || nf.Std["E11"] <= 0 {
+		t.Errorf("noise floor mean u %.2e, std E11 %.2e", nf.Mean["u"], nf.Std["E11"])
+	}
+}
