@@ -208,6 +208,26 @@ func TestNoisePrediction(t *testing.T) {
 	if math.Abs(res.Noise/2-1) > 0.25 {
 		t.Errorf("noise estimated from the residual %.3f, rendered σ = 2", res.Noise)
 	}
+	// With a Gaussian prefilter the noise is no longer white; the engine
+	// propagates it through the smoothing (Var = 2σ²‖G·J·H⁻¹e‖²) and reports
+	// the σ of the recorded images.
+	res, err = Run(context.Background(), noisy[0], noisy[1], Options{Subset: sub, Step: sub, Prefilter: 0.8})
+	if err != nil {
+		t.Fatal(err)
+	}
+	eu, pu, n = 0, 0, 0
+	for _, p := range res.Points {
+		if p.Status == OK {
+			eu += (p.P[U] - 3) * (p.P[U] - 3)
+			pu += p.StdU * p.StdU
+			n++
+		}
+	}
+	mu, pred := math.Sqrt(eu/float64(n)), math.Sqrt(pu/float64(n))
+	t.Logf("prefilter σ = 0.8 px: measured std u %.4f px, engine prediction %.4f, noise %.3f", mu, pred, res.Noise)
+	if math.Abs(pred/mu-1) > 0.25 || math.Abs(res.Noise/2-1) > 0.25 {
+		t.Errorf("with prefilter: predicted std %.4f against measured %.4f, noise %.3f against 2", pred, mu, res.Noise)
+	}
 }
 
 // A quadratic displacement field: the second-order shape function must

@@ -51,7 +51,10 @@ type solver struct {
 	b0, sj [12]float64 // Σ J f̃ and Σ J
 	hUU    float64     // (H⁻¹)[U][U], for the predicted std
 	hVV    float64
-	sssig  float64 // min(Σfx², Σfy²), sum of squared subset intensity gradients
+	sssig  float64   // min(Σfx², Σfy²), sum of squared subset intensity gradients
+	kern   []float64 // Gaussian prefilter kernel, nil when off
+	wpad   []float64 // scratch for smoothedVar
+	wtmp   []float64
 }
 
 func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, opt *Options, minStd float64) *solver {
@@ -71,6 +74,12 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 	}
 	if s.shape == Second {
 		s.np = 12
+	}
+	if opt.Prefilter > 0 {
+		s.kern = spline.GaussianKernel(opt.Prefilter)
+		ext := side + len(s.kern) - 1
+		s.wpad = make([]float64, ext*ext)
+		s.wtmp = make([]float64, ext*ext)
 	}
 	s.f = make([]float64, s.n)
 	s.fx = make([]float64, s.n)
@@ -154,11 +163,73 @@ func (s *solver) prepare(xc, yc float64) Status {
 	e[U] = 1
 	cholSolve(&s.chol, np, &e)
 	s.hUU = e[U]
+	if s.kern != nil {
+		s.hUU = s.smoothedVar(&e)
+	}
 	e = [12]float64{}
 	e[V] = 1
 	cholSolve(&s.chol, np, &e)
 	s.hVV = e[V]
+	if s.kern != nil {
+		s.hVV = s.smoothedVar(&e)
+	}
 	return OK
+}
+
+// smoothedVar returns Var(hᵀΔp)/(2σ²) when both images were smoothed by
+// the separable kernel s.kern before correlation, σ being the noise of the
+// unsmoothed images. The linearised IC-GN update is Δp = H⁻¹ Jᵀ G(n₁ − n₂)
+// with G the smoothing, so the variance of the combination c = H⁻¹h-weighted
+// steepest-descent image w = J·c is 2σ²‖Gw‖² (G symmetric). Without
+// smoothing this reduces to hᵀH⁻¹h, the usual (H⁻¹)_uu.
+func (s *solver) smoothedVar(c *[12]float64) float64 {
+	m := s.m
+	side := 2*m + 1
+	r := len(s.kern) / 2
+	ext := side + 2*r
+	w := s.wpad[:ext*ext]
+	for k := range w {
+		w[k] = 0
+	}
+	var jv [12]float64
+	k := 0
+	for j := -m; j <= m; j++ {
+		for i := -m; i <= m; i++ {
+			s.jacobian(s.fx[k], s.fy[k], float64(i), float64(j), &jv)
+			var v float64
+			for a := 0; a < s.np; a++ {
+				v += jv[a] * c[a]
+			}
+			w[(j+m+r)*ext+i+m+r] = v
+			k++
+		}
+	}
+	// Horizontal then vertical convolution over the extended square.
+	t := s.wtmp[:ext*ext]
+	for y := 0; y < ext; y++ {
+		for x := 0; x < ext; x++ {
+			var v float64
+			for q, kv := range s.kern {
+				if xx := x + q - r; xx >= 0 && xx < ext {
+					v += kv * w[y*ext+xx]
+				}
+			}
+			t[y*ext+x] = v
+		}
+	}
+	var sum float64
+	for y := 0; y < ext; y++ {
+		for x := 0; x < ext; x++ {
+			var v float64
+			for q, kv := range s.kern {
+				if yy := y + q - r; yy >= 0 && yy < ext {
+					v += kv * t[yy*ext+x]
+				}
+			}
+			sum += v * v
+		}
+	}
+	return sum
 }
 
 // hessian1 accumulates the upper triangle of H = Σ JᵀJ, Σ J f̃ and Σ J for

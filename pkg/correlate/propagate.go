@@ -782,7 +782,14 @@ func (r *run) finish(res *Result) {
 	case r.opt.Noise > 0:
 		res.Noise, res.NoiseSource = r.opt.Noise, "given"
 	case len(s2) > 0:
-		res.Noise, res.NoiseSource = math.Sqrt(median(s2)), "residual"
+		// With a Gaussian prefilter the residual holds smoothed noise, of
+		// standard deviation σ·Σg² for white noise σ and 1-D kernel g;
+		// report σ of the images as recorded.
+		var g2 float64
+		for _, g := range spline.GaussianKernel(r.opt.Prefilter) {
+			g2 += g * g
+		}
+		res.Noise, res.NoiseSource = math.Sqrt(median(s2))/g2, "residual"
 	default:
 		res.NoiseSource = "none"
 	}

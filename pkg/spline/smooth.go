@@ -31,17 +31,8 @@ func Smooth(g *imageio.Gray, sigma float64) (*imageio.Gray, error) {
 		}
 		return out, nil
 	}
-	r := int(math.Ceil(3 * sigma))
-	k := make([]float64, 2*r+1)
-	var sum float64
-	for i := range k {
-		d := float64(i - r)
-		k[i] = math.Exp(-d * d / (2 * sigma * sigma))
-		sum += k[i]
-	}
-	for i := range k {
-		k[i] /= sum
-	}
+	k := GaussianKernel(sigma)
+	r := len(k) / 2
 	tmp := make([]float64, w*h)
 	for y := 0; y < h; y++ {
 		src := g.Pix[y*g.Stride:]
@@ -63,4 +54,25 @@ func Smooth(g *imageio.Gray, sigma float64) (*imageio.Gray, error) {
 		}
 	}
 	return out, nil
+}
+
+// GaussianKernel returns the normalised 1-D kernel that Smooth applies
+// along each axis: exp(−d²/2σ²) for |d| ≤ ⌈3σ⌉, summing to 1. It returns
+// [1] for sigma ≤ 0.
+func GaussianKernel(sigma float64) []float64 {
+	if !(sigma > 0) {
+		return []float64{1}
+	}
+	r := int(math.Ceil(3 * sigma))
+	k := make([]float64, 2*r+1)
+	var sum float64
+	for i := range k {
+		d := float64(i - r)
+		k[i] = math.Exp(-d * d / (2 * sigma * sigma))
+		sum += k[i]
+	}
+	for i := range k {
+		k[i] /= sum
+	}
+	return k
 }
