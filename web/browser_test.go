@@ -48,21 +48,21 @@ func TestBrowserPreview(t *testing.T) {
 		base = startServer(t)
 	}
 	ctx := newBrowser(t)
-	b := &browser{t: t, ctx: ctx, art: art}
+	b := &browser{t: t, ctx: ctx, art: art, start: time.Now()}
 
 	// Each step below depends on the one before, so they run in order on
 	// one page and the first failure stops the test.
 	b.run("load the page", chromedp.Navigate(base+"/"), chromedp.WaitVisible(chromedp.ID("btn-demo")))
 	b.wait(`document.body.dataset.ready === "true"`, 10*time.Second, "the page's script did not start")
 
-	t.Log("run the demo")
+	b.step("run the demo")
 	b.run("click the demo button", chromedp.Click(chromedp.ID("btn-demo")))
 	b.waitResult(90 * time.Second)
 	b.shot("demo-page.png", "")
 	b.shot("demo-map.png", "#map-canvas")
 	checkMapDrawn(b)
 
-	t.Log("hover read-out on the demo field")
+	b.step("hover read-out on the demo field")
 	k := b.centrePoint()
 	vals := b.hover(k)
 	if len(vals) < 5 {
@@ -76,18 +76,18 @@ func TestBrowserPreview(t *testing.T) {
 	}
 	t.Logf("demo read-out at point %d: u = %.4g px, v = %.4g px, E11 = %.4g, E22 = %.4g", k, vals["u"], vals["v"], vals["E11"], vals["E22"])
 
-	t.Log("keyboard: arrow keys step the read-out between grid points")
+	b.step("keyboard: arrow keys step the read-out between grid points")
 	b.run("press the right arrow on the map", chromedp.Focus(chromedp.ID("map-canvas")), chromedp.KeyEvent(kb.ArrowRight))
 	if next := int(b.number(`+document.getElementById("readout-where").dataset.k`)); next != k+1 {
 		t.Errorf("after the right arrow the read-out is at point %d, want %d", next, k+1)
 	}
 
-	t.Log("every control has a label")
+	b.step("every control has a label")
 	if missing := b.str(`[...document.querySelectorAll("input, select, textarea, button")].filter(e => e.type !== "hidden" && !(e.labels && e.labels.length) && !e.getAttribute("aria-label") && !(e.tagName === "BUTTON" && e.textContent.trim())).map(e => e.id || e.name || e.tagName).join(", ")`); missing != "" {
 		t.Errorf("controls without a label: %s", missing)
 	}
 
-	t.Log("draw a profile with the line tool")
+	b.step("draw a profile with the line tool")
 	b.run("choose the line tool", chromedp.Click(chromedp.CSS(`input[name=tool][value=line]`)))
 	x0, y0, x1, y1 := b.fieldSpan()
 	b.drag(x0, y0, x1, y1)
@@ -98,7 +98,7 @@ func TestBrowserPreview(t *testing.T) {
 	b.shot("profile.png", ".profile")
 	b.run("back to the read tool", chromedp.Click(chromedp.CSS(`input[name=tool][value=read]`)))
 
-	t.Log("vectors over the deformed image")
+	b.step("vectors over the deformed image")
 	b.run("show vectors on the deformed image",
 		chromedp.Click(chromedp.CSS(`input[name=on][value=deformed]`)),
 		chromedp.Click(chromedp.ID("vectors")))
@@ -108,10 +108,10 @@ func TestBrowserPreview(t *testing.T) {
 		chromedp.Click(chromedp.CSS(`input[name=on][value=reference]`)),
 		chromedp.Click(chromedp.ID("vectors")))
 
-	t.Log("upload a pair with a known homogeneous stretch")
+	b.step("upload a pair with a known homogeneous stretch")
 	checkKnownStretch(b)
 
-	t.Log("drag and drop a file onto the deformed-image zone")
+	b.step("drag and drop a file onto the deformed-image zone")
 	b.run("drop a file", eval(`(async () => {
 		const c = new OffscreenCanvas(40, 30); c.getContext('2d').fillRect(5, 5, 10, 10);
 		const file = new File([await c.convertToBlob({type: 'image/png'})], 'dropped.png', {type: 'image/png'});
@@ -120,13 +120,20 @@ func TestBrowserPreview(t *testing.T) {
 	})()`))
 	b.wait(`/dropped\.png.*40 × 30 px/.test(document.getElementById("info-deformed").textContent)`, 10*time.Second, "the dropped file was not taken")
 
-	t.Log("progress from server-sent events, and cancel")
+	b.step("progress from server-sent events, and cancel")
 	checkCancel(b)
 
-	t.Log("a bad upload shows a readable error")
+	b.step("a bad upload shows a readable error")
 	checkBadUpload(b)
 
-	t.Log("a series: frame slider and curve")
+	b.step("reopen an earlier result from the list")
+	b.wait(`document.getElementById("recent").options.length >= 3`, 10*time.Second, "the earlier results are not listed")
+	b.run("open the newest earlier result", eval(`document.body.dataset.result = ""`),
+		setValue("#recent", b.str(`document.getElementById("recent").options[1].value`)))
+	b.waitResult(20 * time.Second)
+	checkMapDrawn(b)
+
+	b.step("a series: frame slider and curve")
 	checkSeries(b, base)
 }
 
@@ -164,6 +171,7 @@ func checkSeries(b *browser, base string) {
 	pp, _ := mw.CreateFormField("params")
 	pp.Write([]byte(`{"subset": 21, "step": 10}`))
 	mw.Close()
+	b.step("series: reference rendered")
 	resp, err := http.Post(base+"/v1/series", mw.FormDataContentType(), &body)
 	if err != nil {
 		t.Fatalf("create a series: %v", err)
@@ -188,9 +196,12 @@ func checkSeries(b *browser, base string) {
 		if resp.StatusCode/100 != 2 {
 			t.Fatalf("append frame %d: %s", i, resp.Status)
 		}
+		b.step(fmt.Sprintf("series: frame %d appended", i))
 	}
+	b.step("series: frames appended")
 	b.run("open the series", setValue("#series-id", sr.ID), chromedp.Click(chromedp.ID("btn-series")))
 	b.wait(`/frame \d/.test(document.getElementById("results-source").textContent) && document.getElementById("curve-y").options.length > 0`, 30*time.Second, "the series did not open")
+	b.step("series: opened")
 	b.run("plot mean E11 against load", setValue("#curve-y", "mean E11"), setValue("#curve-x", "load"))
 	if got := b.text("#curve-text"); !strings.Contains(got, "3 of 3 frames") {
 		t.Errorf("curve text %q, want all 3 frames plotted", got)
@@ -205,6 +216,7 @@ func checkSeries(b *browser, base string) {
 		}
 	}
 	b.shot("series.png", "#series")
+	b.step("series: curve checked")
 	b.run("go to the first frame", setValue("#frame-slider", "0"))
 	b.wait(`/frame 0/.test(document.getElementById("results-source").textContent)`, 10*time.Second, "the slider did not show frame 0")
 	checkMapDrawn(b)
@@ -416,10 +428,17 @@ func checkBadUpload(b *browser) {
 
 // browser drives one page and stops the test on the first failure.
 type browser struct {
-	t   *testing.T
-	ctx context.Context
-	art string
-	n   int
+	t     *testing.T
+	ctx   context.Context
+	art   string
+	n     int
+	start time.Time
+}
+
+// step logs the start of a step with the time since the test began.
+func (b *browser) step(what string) {
+	b.t.Helper()
+	b.t.Logf("%5.1f s  %s", time.Since(b.start).Seconds(), what)
 }
 
 func (b *browser) run(what string, actions ...chromedp.Action[chromedp.Void]) {

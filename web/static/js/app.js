@@ -215,6 +215,7 @@ function track(id, first) {
     if (job.state === 'succeeded') {
       say(`Analysis ${id} finished.`);
       await openResult(`${API}/analyses/${encodeURIComponent(id)}`, job, `analysis ${id}`);
+      refreshLists();
     } else if (job.state === 'canceled') {
       say(`Analysis ${id} was canceled.`);
     } else {
@@ -352,6 +353,32 @@ async function downloadWithToken(href) {
     document.body.appendChild(a); a.click(); a.remove();
     setTimeout(() => URL.revokeObjectURL(url), 10000);
   } catch (err) { showError(err); }
+}
+
+// refreshLists offers the finished analyses and the series the server keeps.
+async function refreshLists() {
+  const when = t => { const d = new Date(t); return Number.isNaN(+d) ? '' : d.toLocaleString(); };
+  const newest = (a, b) => String(b.created || '').localeCompare(String(a.created || ''));
+  try {
+    const d = await getJSON(`${API}/analyses?state=succeeded&limit=50`);
+    const list = (d.analyses || []).slice().sort(newest).slice(0, 30);
+    const sel = $('recent'), keep = sel.value;
+    sel.textContent = '';
+    sel.appendChild(new Option(list.length ? 'choose one to open it' : 'none yet', ''));
+    for (const j of list) {
+      const p = j.params || {};
+      sel.appendChild(new Option(`${when(j.created)} · ${j.width}×${j.height} px · subset ${p.subset}, step ${p.step} · ${j.id.slice(0, 8)}`, j.id));
+    }
+    sel.value = keep;
+  } catch { /* the list is a convenience */ }
+  try {
+    const d = await getJSON(`${API}/series`);
+    const dl = $('series-list');
+    dl.textContent = '';
+    for (const sr of (d.series || []).slice().sort(newest)) {
+      dl.appendChild(new Option(`${when(sr.created)} · ${(sr.frames || []).length} frames`, sr.id));
+    }
+  } catch { /* the list is a convenience */ }
 }
 
 // ---- series -------------------------------------------------------------------
@@ -511,6 +538,8 @@ $('btn-profile').addEventListener('click', () => {
   view.opts.on = prevOn;
   view.profile();
 });
+$('recent').addEventListener('change', e => { if (e.target.value) { clearError(); state.fromUpload = false; track(e.target.value); } });
+$('token').addEventListener('change', refreshLists);
 $('btn-series').addEventListener('click', () => openSeries($('series-id').value));
 $('series-id').addEventListener('keydown', e => { if (e.key === 'Enter') openSeries($('series-id').value); });
 $('frame-slider').addEventListener('change', e => showFrame(+e.target.value));
@@ -520,6 +549,7 @@ $('curve-y').addEventListener('change', drawCurve);
 window.addEventListener('resize', () => { if (view.field) { view.fit(); view.render(); } });
 updateAdvice();
 syncRoiJSON(editor.value());
+refreshLists();
 
 // Open a result or a series named in the address: ?analysis=ID or ?series=ID.
 const qs = new URLSearchParams(location.search);
