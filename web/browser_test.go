@@ -104,9 +104,19 @@ func TestBrowserPreview(t *testing.T) {
 		chromedp.Click(chromedp.ID("vectors")))
 	checkMapDrawn(b)
 	b.shot("demo-deformed-vectors.png", "#map-canvas")
+	b.run("vectors relative to the mean", chromedp.Click(chromedp.ID("vec-relative")))
+	if got := b.text("#vec-info"); !strings.Contains(got, "after removing the mean") {
+		t.Errorf("vector note %q does not say the mean was removed", got)
+	}
+	b.shot("demo-relative-vectors.png", "#map-canvas")
+	b.run("absolute vectors", chromedp.Click(chromedp.ID("vec-relative")))
 	b.run("back to the reference view",
 		chromedp.Click(chromedp.CSS(`input[name=on][value=reference]`)),
 		chromedp.Click(chromedp.ID("vectors")))
+	b.run("smooth map", chromedp.Click(chromedp.ID("smooth")))
+	checkMapDrawn(b)
+	b.shot("demo-smooth.png", "#map-canvas")
+	b.run("cell map", chromedp.Click(chromedp.ID("smooth")))
 
 	b.step("upload a pair with a known homogeneous stretch")
 	checkKnownStretch(b)

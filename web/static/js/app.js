@@ -132,7 +132,8 @@ function updateAdvice() {
     set('adv-speckle', state.files.reference ? 'not measured (the browser cannot read this file type)' : '— choose a reference image');
     set('adv-subset', '— needs a speckle size');
   }
-  set('adv-step', `${a.stepLo}–${a.stepHi} px for a ${subset} px subset (common practice). Yours: ${step} px`, a.stepOK);
+  set('adv-step', `${a.stepLo}–${a.stepHi} px for a ${subset} px subset (common practice). Yours: ${step} px` +
+    (a.stepOK ? '' : step < a.stepLo ? ' — finer: more points, more time, neighbours share pixels' : ' — coarser: fewer points, features between them can be missed'));
   set('adv-vsg', Number.isFinite(a.vsg) ? `(${win} − 1) · ${step} + ${subset} = ${a.vsg} px` : '—');
 }
 
@@ -493,6 +494,9 @@ const view = new MapView({
   canvas: $('map-canvas'), colorbar: $('colorbar'), readout: $('readout'), where: $('readout-where'), announce: $('readout-announce'),
   profile: $('profile-canvas'), profileText: $('profile-text'),
   onRange: (lo, hi) => { $('r-min').value = fmt(lo); $('r-max').value = fmt(hi); },
+  onVectors: (k, mean) => {
+    $('vec-info').textContent = `Arrows are ${fmt(k)} × the displacement` + (mean ? `, after removing the mean (${fmt(mean[0])}, ${fmt(mean[1])}) px.` : '.');
+  },
   onLine: L => { $('pr-x0').value = fmt(L.x0); $('pr-y0').value = fmt(L.y0); $('pr-x1').value = fmt(L.x1); $('pr-y1').value = fmt(L.y1); },
 });
 
@@ -527,6 +531,8 @@ $('btn-autorange').addEventListener('click', () => { view.autoRange(); view.rend
 $('opacity').addEventListener('input', e => { $('opacity-out').textContent = e.target.value; view.set({ opacity: +e.target.value }); });
 for (const r of document.querySelectorAll('input[name=tool]')) r.addEventListener('change', () => view.set({ tool: r.value }));
 $('vectors').addEventListener('change', e => view.set({ vectors: e.target.checked }));
+$('vec-relative').addEventListener('change', e => view.set({ vecRelative: e.target.checked }));
+$('smooth').addEventListener('change', e => view.set({ smooth: e.target.checked }));
 $('vec-scale').addEventListener('input', e => { $('vec-scale-out').textContent = `${e.target.value}×`; view.set({ vecScale: +e.target.value }); });
 $('btn-profile').addEventListener('click', () => {
   const v = ['pr-x0', 'pr-y0', 'pr-x1', 'pr-y1'].map(id => parseFloat($(id).value));

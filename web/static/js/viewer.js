@@ -13,7 +13,7 @@ export class MapView {
     this.el = els; // {canvas, colorbar, readout, where, profile, profileText, onLine, onChange}
     this.canvas = els.canvas; this.ctx = this.canvas.getContext('2d');
     this.field = null; this.images = {}; this.W = 0; this.H = 0;
-    this.opts = { quantity: '', on: 'reference', cmap: 'auto', lo: NaN, hi: NaN, opacity: 0.8, vectors: false, vecScale: 1, tool: 'read' };
+    this.opts = { quantity: '', on: 'reference', cmap: 'auto', lo: NaN, hi: NaN, opacity: 0.8, vectors: false, vecScale: 1, tool: 'read', smooth: false };
     this.line = null; this.lineRef = null; this.drag = null; this.hover = -1;
     this.tables = {};
     const c = this.canvas;
@@ -99,7 +99,25 @@ export class MapView {
     const lut = this.table();
     const a = f.q.get(o.quantity);
     ctx.globalAlpha = o.opacity;
-    if (a && o.on === 'reference') {
+    if (a && o.on === 'reference' && o.smooth) {
+      // Bilinear between measured grid points only: r×r samples per cell.
+      const r = Math.max(1, Math.min(8, Math.floor(1024 / Math.max(f.nx, f.ny))));
+      const W = f.nx * r, H = f.ny * r;
+      const img = new ImageData(W, H);
+      for (let y = 0; y < H; y++) {
+        const Y = f.y0 - f.dy / 2 + (y + 0.5) * f.dy / r;
+        for (let x = 0; x < W; x++) {
+          const v = f.sample(o.quantity, f.x0 - f.dx / 2 + (x + 0.5) * f.dx / r, Y);
+          if (!Number.isFinite(v)) continue;
+          const c = cmap.index(v, o.lo, o.hi), p = 4 * (y * W + x);
+          img.data[p] = lut[3 * c]; img.data[p + 1] = lut[3 * c + 1]; img.data[p + 2] = lut[3 * c + 2]; img.data[p + 3] = 255;
+        }
+      }
+      const off = new OffscreenCanvas(W, H);
+      off.getContext('2d').putImageData(img, 0, 0);
+      ctx.imageSmoothingEnabled = false;
+      ctx.drawImage(off, f.x0 - f.dx / 2, f.y0 - f.dy / 2, f.nx * f.dx, f.ny * f.dy);
+    } else if (a && o.on === 'reference') {
       const img = new ImageData(f.nx, f.ny);
       for (let j = 0; j < f.ny; j++) for (let i = 0; i < f.nx; i++) {
         const k = f.at(i, j), p = 4 * (j * f.nx + i);
@@ -150,13 +168,22 @@ export class MapView {
   drawVectors() {
     const f = this.field, ctx = this.ctx, s = this.s;
     const stride = Math.max(1, Math.ceil(28 / (f.dx * s)));
+    // Optionally relative to the mean displacement, which removes the rigid
+    // translation and shows the deformation.
+    let mu = 0, mv = 0, cnt = 0;
+    if (this.opts.vecRelative) {
+      for (let k = 0; k < f.n; k++) if (f.ok[k]) { const [u, v] = f.displacementPx(k); if (Number.isFinite(u) && Number.isFinite(v)) { mu += u; mv += v; cnt++; } }
+      if (cnt) { mu /= cnt; mv /= cnt; }
+    }
+    const disp = k => { const [u, v] = f.displacementPx(k); return [u - mu, v - mv]; };
     const mags = [];
-    for (let k = 0; k < f.n; k++) if (f.ok[k]) { const [u, v] = f.displacementPx(k); if (Number.isFinite(u)) mags.push(Math.hypot(u, v)); }
+    for (let k = 0; k < f.n; k++) if (f.ok[k]) { const [u, v] = disp(k); if (Number.isFinite(u)) mags.push(Math.hypot(u, v)); }
     if (!mags.length) return;
     mags.sort((p, q) => p - q);
     const big = mags[Math.floor(0.98 * (mags.length - 1))] || 1e-9;
     const k0 = (stride * f.dx * 0.9) / big * this.opts.vecScale;
     this.vectorScale = k0;
+    if (this.el.onVectors) this.el.onVectors(k0, cnt ? [mu, mv] : null);
     ctx.lineCap = 'round';
     for (const [col, w] of [['rgba(255,255,255,0.9)', 3.5], ['#111417', 1.5]]) {
       ctx.strokeStyle = col; ctx.lineWidth = w / s;
@@ -164,10 +191,10 @@ export class MapView {
       for (let j = 0; j < f.ny; j += stride) for (let i = 0; i < f.nx; i += stride) {
         const k = f.at(i, j);
         if (k < 0 || !f.ok[k]) continue;
-        const [u, v] = f.displacementPx(k);
+        const [u, v] = disp(k);
         if (!Number.isFinite(u) || !Number.isFinite(v)) continue;
         let x = f.X[k], y = f.Y[k];
-        if (this.opts.on === 'deformed') { x += u; y += v; }
+        if (this.opts.on === 'deformed') { const [du, dv] = f.displacementPx(k); x += du; y += dv; }
         const ex = x + u * k0, ey = y + v * k0;
         const L = Math.hypot(ex - x, ey - y);
         ctx.moveTo(x, y); ctx.lineTo(ex, ey);
@@ -216,7 +243,7 @@ export class MapView {
     ctx.fillText(o.quantity, 4, 2);
     ctx.font = '11px system-ui, sans-serif';
     const unit = this.field.unit(o.quantity);
-    ctx.fillText(unit ? `unit: ${unit}` : 'no unit', 4, 17);
+    ctx.fillText(unit && unit !== '–' ? `unit: ${unit}` : 'dimensionless', 4, 17);
   }
 
   setHover(k) {
