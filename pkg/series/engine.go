@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"math"
 
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/correlate"
@@ -132,18 +133,27 @@ func (e *engine) direct(ctx context.Context, def *imageio.Gray, start []guess) (
 	return out, nil
 }
 
+// at correlates src with dst at the whole-pixel positions nearest to pts
+// (the subsets then use the sampled image and its gradients, with no
+// interpolation of the reference subset) and carries each solution to the
+// exact point with correlate.Recentre: the mapping is evaluated at the
+// material point's current position, not at the rounded one.
 func (e *engine) at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float64, start []guess) ([]match, error) {
 	g := make([][12]float64, len(pts))
-	for k, s := range start {
+	centres := make([][2]float64, len(pts))
+	for k, p := range pts {
+		centres[k] = [2]float64{math.Round(p[0]), math.Round(p[1])}
+		s := start[k]
 		g[k][correlate.U], g[k][correlate.V] = s.U, s.V
 		g[k][correlate.Ux], g[k][correlate.Uy], g[k][correlate.Vx], g[k][correlate.Vy] = s.Ux, s.Uy, s.Vx, s.Vy
 	}
-	res, err := correlate.RunPoints(ctx, src, dst, pts, g, e.inc)
+	res, err := correlate.RunPoints(ctx, src, dst, centres, g, e.inc)
 	if err != nil {
 		return nil, err
 	}
 	out := make([]match, len(res.Points))
 	for k, pt := range res.Points {
+		pt.P = correlate.Recentre(pt.P, pts[k][0]-centres[k][0], pts[k][1]-centres[k][1])
 		out[k] = fromPoint(pt)
 	}
 	return out, nil

@@ -51,7 +51,7 @@ func lawWidth(e float64) float64 {
 // as when a thinning specimen drifts out of the focal plane, so that late
 // frames look less and less like the reference while consecutive frames
 // stay alike.
-func renderFrames(t *testing.T, w, h int, diameter float64, ms []synth.Motion, defocus float64) (*imageio.Gray, []*imageio.Gray) {
+func renderFrames(t testing.TB, w, h int, diameter float64, ms []synth.Motion, defocus float64) (*imageio.Gray, []*imageio.Gray) {
 	t.Helper()
 	all := append([]synth.Motion{synth.Identity{}}, ms...)
 	var fr []synth.Frame
@@ -146,19 +146,19 @@ func TestMaterialLawSeries(t *testing.T) {
 	}
 }
 
-// TestIncrementalLargeStretch stretches a strip to λ = 1.4 in 20 frames
+// TestIncrementalLargeStretch stretches a strip to λ = 1.4 in 10 frames
 // (with λ₂ = 1/√λ across) while the image goes gradually out of focus, to
-// a Gaussian blur of σ = 1.8 px on 3 px speckles in the last frame (an
+// a Gaussian blur of σ = 1.6 px on 3 px speckles in the last frame (an
 // invented scenario: a thinning specimen drifting out of the focal plane).
 // Correlation with the sharp reference degrades and finally fails, the
 // tracker goes incremental, every frame stays valid and the final
 // Green–Lagrange strains E11 = ½(λ² − 1) = 0.48 and E22 = ½(λ₂² − 1) are
 // met within 5e-4.
 func TestIncrementalLargeStretch(t *testing.T) {
-	const W, H, cx, cy = 224, 96, 112.0, 48.0
-	const frames = 20
+	const W, H, cx, cy = 256, 128, 128.0, 64.0
+	const frames = 10
 	lam := func(n int) (float64, float64) {
-		l := 1 + 0.4*float64(n)/frames
+		l := 1 + 0.4*float64(n)/float64(frames)
 		return l, 1 / math.Sqrt(l) // area-preserving in 3D with equal lateral strains
 	}
 	var ms []synth.Motion
@@ -166,20 +166,21 @@ func TestIncrementalLargeStretch(t *testing.T) {
 		l1, l2 := lam(n)
 		ms = append(ms, synth.Affine{F: [2][2]float64{{l1, 0}, {0, l2}}, CX: cx, CY: cy})
 	}
-	ref, imgs := renderFrames(t, W, H, 3, ms, 1.8)
+	ref, imgs := renderFrames(t, W, H, 3, ms, 1.6)
 
 	// The correlation settings of pkg/analysis (cubic, no prefilter): the
 	// defocus low-passes the frames anyway. With the series defaults
 	// (quintic, prefilter) direct correlation copes with more blur, so the
-	// switch comes later (frame 17 instead of 12) and the blur-dependent
-	// bias of the direct frames leaves E11 off by 4.9e-4 (measured).
+	// switch comes later and more of the blur-dependent bias of the direct
+	// frames is carried into the composed result. Over pattern seeds 11–14
+	// the final errors measured up to 3.7e-4 in E11 and 1.8e-4 in E22.
 	p := Defaults()
 	p.Analysis = analysis.Defaults()
 	p.Analysis.Subset, p.Analysis.Step = 21, 6
-	r := [4]int{int(cx) - 50, int(cy) - 30, int(cx) + 50, int(cy) + 30}
+	r := [4]int{int(cx) - 60, int(cy) - 44, int(cx) + 60, int(cy) + 44}
 	p.Analysis.ROI = roiRect(r)
-	p.Gauges = []Gauge{{Name: "centre", Rect: &[4]float64{cx - 30, cy - 12, cx + 30, cy + 12}, Components: []string{"E11", "E22"}}}
-	p.Extensometers = []Extensometer{{Name: "axial", A: [2]float64{cx - 36, cy}, B: [2]float64{cx + 36, cy}}}
+	p.Gauges = []Gauge{{Name: "centre", Rect: &[4]float64{cx - 42, cy - 26, cx + 42, cy + 26}, Components: []string{"E11", "E22"}}}
+	p.Extensometers = []Extensometer{{Name: "axial", A: [2]float64{cx - 44, cy}, B: [2]float64{cx + 44, cy}}}
 	tr, err := New(ref, FrameMeta{}, p)
 	if err != nil {
 		t.Fatal(err)
@@ -218,7 +219,9 @@ func TestIncrementalLargeStretch(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if z, tracked := tr.quality(d); tracked > 0.5 && z > p.SwitchZNCC {
+	z, tracked := tr.quality(d)
+	t.Logf("direct correlation of the last frame: tracked %.2f, mean ZNCC %.3f", tracked, z)
+	if tracked > 0.5 && z > p.SwitchZNCC {
 		t.Errorf("direct correlation of the last frame still works (tracked %.2f, ZNCC %.3f); the test does not exercise the incremental path", tracked, z)
 	}
 }
