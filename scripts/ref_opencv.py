@@ -75,13 +75,16 @@ def ecc(ref, dfm, x, y, h, iu, iv, crit):
     """Returns (u, v, rho) from an affine ECC fit started at integer (iu, iv)."""
     H, W = dfm.shape
     n = 2 * h + 1
-    m = MARGIN
-    ox, oy = x + iu - h - m, y + iv - h - m
-    if ox < 0 or oy < 0 or ox + n + 2 * m > W or oy + n + 2 * m > H:
-        raise ValueError("ECC window outside the deformed image")
+    # Window: the subset at its start position plus MARGIN px, clipped to
+    # the image (ECC masks warped pixels that fall outside its input).
+    sx, sy = x + iu - h, y + iv - h  # start position of the template's corner
+    if sx < 0 or sy < 0 or sx + n > W or sy + n > H:
+        raise ValueError("deformed subset outside the image")
+    ox, oy = max(0, sx - MARGIN), max(0, sy - MARGIN)
+    ex, ey = min(W, sx + n + MARGIN), min(H, sy + n + MARGIN)
     tmpl = ref[y - h:y + h + 1, x - h:x + h + 1]
-    win = dfm[oy:oy + n + 2 * m, ox:ox + n + 2 * m]
-    warp = np.array([[1, 0, m], [0, 1, m]], dtype=np.float32)
+    win = dfm[oy:ey, ox:ex]
+    warp = np.array([[1, 0, sx - ox], [0, 1, sy - oy]], dtype=np.float32)
     rho, warp = cv2.findTransformECC(tmpl, win, warp, cv2.MOTION_AFFINE,
                                      crit, None, GAUSS)
     # Template pixel (i, j) maps to window point warp·(i, j, 1); the subset

@@ -135,6 +135,7 @@ func run(ctx context.Context, args []string, stdout io.Writer) error {
 	}
 	var ct strings.Builder
 	fmt.Fprintf(&ct, "Rendered star images: 2000×128 px, 8-bit, noise σ = 2 grey levels, A = 0.5 px, period 10→300 px linear in x.\n\n")
+	fmt.Fprintf(&ct, "%s\n\n", verify.ChallengeNotes)
 	fmt.Fprintf(&ct, "First-order subsets:\n\n%s\n\nSecond-order subsets:\n\n%s\n", verify.ChallengeTable(first), verify.ChallengeTable(second))
 	series := []verify.Series{{Label: "Mottle, first order (rendered)", Results: first}, {Label: "Mottle, second order (rendered)", Results: second}}
 	if dir := os.Getenv(verify.ChallengeEnv); dir != "" {

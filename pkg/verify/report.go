@@ -100,3 +100,10 @@ func PlotChallenge(path, title string, series ...Series) error {
 	}
 	return nil
 }
+
+// ChallengeNotes explains the columns of ChallengeTable, for reports.
+const ChallengeNotes = `Columns: σ_u, σ_v are the standard deviations of u and v over a grid on a static pair (same state, independent noise). ` +
+	`"σ_v predicted" is √2·σ/√(Σ g_y²) over the subset (Wang, Li, Tong & Ruan 2007, Exp. Mech. 47:701). ` +
+	`Resolution p₁₀ is the period of the star displacement v = A·cos(2π(y − y₀)/p(x)) at which the measured amplitude on the crest row, smoothed along x, first stays below 0.9·A (DIC Challenge 2.0, Reu et al. 2022, Exp. Mech. 62:639; protocol details from memory). ` +
+	`"Theory p₁₀" is the least-squares filter response of the subset's shape function: first order gives the Dirichlet kernel sin(πN/p)/(N·sin(π/p)) = 0.9 at p ≈ 3.99·N, second order p ≈ 1.3·N (derived in pkg/verify/theory.go). ` +
+	`MEI, the metrological efficiency indicator, is taken here as σ_v × p₁₀ in px² (lower is better); the definition is from memory of Reu et al. 2022 and Grédiac, Blaysat & Sur 2017 (Exp. Mech. 57:871), and some authors also divide by the image noise σ.`
