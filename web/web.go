@@ -3,7 +3,28 @@
 // preview works offline. The service mounts Assets at "/".
 //
 // The page talks only to the HTTP API under /v1 (see api/); it loads no
-// script, font or style from any other origin.
+// script, font or style from any other origin. It uploads a pair (or runs
+// the built-in demo), lets the user draw the region of interest and seeds,
+// shows the speckle size measured from the image autocorrelation with the
+// subset and step it suggests and the virtual strain gauge, follows the job
+// through server-sent events, and draws every quantity of field.json over
+// the reference or deformed image, with a colour bar, hover read-out, line
+// profiles, displacement vectors and, for a series, the curve of any gauge.
+//
+// The modules under static/js:
+//
+//	api.js       requests, bearer token, RFC 9457 problem documents
+//	field.js     field.json parsing, nearest point, bilinear samples
+//	colormap.js  OKLab sequential, diverging and grey colour maps
+//	speckle.js   speckle size by FFT autocorrelation, parameter advice
+//	roi.js       region editor (rectangle, polygon, holes, seeds)
+//	viewer.js    the map, colour bar, read-out, profile and vectors
+//	plot.js      canvas line plots
+//	app.js       wiring of the page to the API
+//
+// The browser test (browser_test.go) builds cmd/mottle, starts `mottle
+// serve` on 127.0.0.1 and drives Debian's Chromium (/usr/bin/chromium)
+// with chromedp; screenshots go to $MOTTLE_ARTIFACTS.
 package web
 
 import (
