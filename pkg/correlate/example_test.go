@@ -23,9 +23,9 @@ func ExampleRun() {
 		panic(err)
 	}
 	p := res.Points[res.Grid.Index(res.Grid.Nx/2, res.Grid.Ny/2)]
-	fmt.Printf("%d of %d points ok, %d diverged\n", res.Stats.OK, res.Stats.Total, res.Stats.Diverged)
+	fmt.Printf("%d of %d points ok, %d left the image, %d diverged\n", res.Stats.OK, res.Stats.Total, res.Stats.LeftImage, res.Stats.Diverged)
 	fmt.Printf("at (%.0f, %.0f): u = %.2f px, du/dx = %.4f, status %v\n", p.X, p.Y, p.P[correlate.U], p.P[correlate.Ux], p.Status)
 	// Output:
-	// 93 of 100 points ok, 7 diverged
+	// 93 of 100 points ok, 7 left the image, 0 diverged
 	// at (97, 97): u = 1.51 px, du/dx = 0.0050, status ok
 }

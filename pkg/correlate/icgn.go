@@ -352,7 +352,7 @@ type attempt struct {
 	zncc      float64
 	iter      int
 	converged bool
-	status    Status // OK or Diverged (ZNCC threshold applied by the caller)
+	status    Status // OK, LeftImage or Diverged (ZNCC threshold applied by the caller)
 }
 
 // solve runs IC-GN from p0 on the prepared subset.
@@ -377,7 +377,9 @@ func (s *solver) solve(p0 [12]float64) attempt {
 			ok = s.pass2(&p, &sg, &sgg, &sfg, &sjg)
 		}
 		if !ok {
-			a.p, a.status = p, Diverged
+			// The warped subset reaches past the usable area of the
+			// deformed image: the point is outside, not a failed solve.
+			a.p, a.status = p, LeftImage
 			return a
 		}
 		gm := sg / n

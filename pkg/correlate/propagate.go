@@ -77,9 +77,10 @@ type Stats struct {
 	OK          int     // accepted points
 	Outside     int     // subset not wholly inside the ROI
 	LowContrast int     // too little texture
-	Diverged    int     // IC-GN failed or left the image
+	Diverged    int     // IC-GN failed to converge
 	LowZNCC     int     // converged below the threshold
 	Unreached   int     // not connected to a seed
+	LeftImage   int     // warped subset left the deformed image
 	MeanIter    float64 // mean IC-GN iterations of the accepted points
 	MeanZNCC    float64 // mean ZNCC of the accepted points
 	MedianStdU  float64 // median predicted std of u over the accepted points, px
@@ -817,6 +818,8 @@ func (r *run) finish(res *Result) {
 			st.LowZNCC++
 		case Unreached:
 			st.Unreached++
+		case LeftImage:
+			st.LeftImage++
 		}
 	}
 	if st.OK > 0 {

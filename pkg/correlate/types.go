@@ -47,12 +47,16 @@ const (
 	Outside
 	// LowContrast: the reference subset has too little intensity variation.
 	LowContrast
-	// Diverged: IC-GN did not converge or left the image.
+	// Diverged: IC-GN did not converge.
 	Diverged
 	// LowZNCC: converged, but the match is below the ZNCC threshold.
 	LowZNCC
 	// Unreached: inside the ROI but not connected to any seed by propagation.
 	Unreached
+	// LeftImage: the warped subset reaches past the usable area of the
+	// deformed image (typically near the image border, where material has
+	// moved out of view).
+	LeftImage
 )
 
 // Point is the result at one grid point. Its subset centre (X, Y) is in
@@ -83,10 +87,11 @@ var statusNames = [...]string{
 	Diverged:    "diverged",
 	LowZNCC:     "low_zncc",
 	Unreached:   "unreached",
+	LeftImage:   "left_image",
 }
 
 // String returns the status name used in result files: "ok", "outside",
-// "low_contrast", "diverged", "low_zncc" or "unreached".
+// "low_contrast", "diverged", "low_zncc", "unreached" or "left_image".
 func (s Status) String() string {
 	if int(s) < len(statusNames) {
 		return statusNames[s]
@@ -110,7 +115,7 @@ func (s *Status) UnmarshalText(b []byte) error {
 			return nil
 		}
 	}
-	return fmt.Errorf("correlate: unknown status %q: want one of ok, outside, low_contrast, diverged, low_zncc, unreached", b)
+	return fmt.Errorf("correlate: unknown status %q: want one of ok, outside, low_contrast, diverged, low_zncc, unreached, left_image", b)
 }
 
 // Len returns the number of grid points, Nx·Ny.
