@@ -2,6 +2,8 @@ package series
 
 import (
 	"fmt"
+	"math"
+	"strings"
 
 	"github.com/mottledic/mottle/pkg/series/props"
 )
@@ -24,11 +26,43 @@ type Properties struct {
 	Skipped map[string]string `json:"skipped,omitempty"`
 }
 
-// extColumn returns the engineering strain of the named extensometer for
-// every row (NaN where invalid).
+// extColumn returns, for every row, the engineering strain of a strain
+// source (see PropsParams.Axial): an extensometer's l/L − 1, or a gauge's
+// mean component converted to the engineering strain of a stretch along
+// that axis without shear: √(1 + 2E) − 1 for Green–Lagrange, e^H − 1 for
+// Hencky, ε for small strain. NaN where invalid.
 func (c Curve) extColumn(name string) []float64 {
-	return c.Column("ext_" + name + "_eng")
+	g, comp, ok := gaugeSource(name)
+	if !ok {
+		return c.Column("ext_" + name + "_eng")
+	}
+	col := c.Column("gauge_" + g + "_" + comp + "_mean")
+	for i, v := range col {
+		switch comp[0] {
+		case 'E':
+			col[i] = math.Sqrt(1+2*v) - 1
+		case 'H':
+			col[i] = math.Expm1(v)
+		}
+	}
+	return col
 }
+
+// gaugeSource splits a strain source "gauge:NAME:COMPONENT".
+func gaugeSource(s string) (gauge, comp string, ok bool) {
+	rest, ok := strings.CutPrefix(s, "gauge:")
+	if !ok {
+		return "", "", false
+	}
+	i := strings.LastIndex(rest, ":")
+	if i <= 0 {
+		return "", "", false
+	}
+	return rest[:i], rest[i+1:], true
+}
+
+// sourceComponents are the gauge components a strain source may use.
+var sourceComponents = map[string]bool{"E11": true, "E22": true, "H11": true, "H22": true, "eps11": true, "eps22": true}
 
 // Properties computes the material properties selected by the curve's
 // Params.Properties. Rows without a stress or an axial strain are left out.

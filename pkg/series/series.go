@@ -105,11 +105,14 @@ type Params struct {
 // A property whose inputs are missing is skipped, with the reason listed in
 // Properties.Skipped.
 type PropsParams struct {
-	// Axial names the extensometer giving the axial engineering strain;
-	// default the first extensometer.
+	// Axial names the source of the axial engineering strain: an
+	// extensometer, or "gauge:NAME:COMPONENT" for the mean of a gauge's
+	// E11, E22, H11, H22, eps11 or eps22 converted to engineering strain
+	// (more points, less random error than two end points). Default the
+	// first extensometer.
 	Axial string `json:"axial,omitempty"`
-	// Transverse names the extensometer across the specimen (width), used
-	// for Poisson's ratio and r; empty = none.
+	// Transverse names the source across the specimen (width), as Axial,
+	// used for Poisson's ratio and r; empty = none.
 	Transverse string `json:"transverse,omitempty"`
 	// ModulusRange is the axial strain range [lo, hi] of the modulus fit
 	// (ASTM E111); zero = no modulus, offset yield or Poisson's ratio.
@@ -242,25 +245,41 @@ func (p Params) Validate(w, h int) error {
 	if err := validateGeometry(p.Extensometers, p.Gauges); err != nil {
 		errs = append(errs, err)
 	}
-	errs = append(errs, p.Properties.validate(p.Extensometers))
+	errs = append(errs, p.Properties.validate(p.Extensometers, p.Gauges))
 	return errors.Join(errs...)
 }
 
-func (pp PropsParams) validate(ext []Extensometer) error {
+func (pp PropsParams) validate(ext []Extensometer, gs []Gauge) error {
 	var errs []error
-	has := func(n string) bool {
+	check := func(field, n string) {
+		if g, comp, ok := gaugeSource(n); ok {
+			for _, gg := range gs {
+				if gg.Name != g {
+					continue
+				}
+				for _, c := range gg.components() {
+					if c == comp && sourceComponents[c] {
+						return
+					}
+				}
+				errs = append(errs, fmt.Errorf("properties.%s %q: gauge %q has no component %q among E11, E22, H11, H22, eps11, eps22", field, n, g, comp))
+				return
+			}
+			errs = append(errs, fmt.Errorf("properties.%s %q: no gauge named %q", field, n, g))
+			return
+		}
 		for _, e := range ext {
 			if e.Name == n {
-				return true
+				return
 			}
 		}
-		return false
+		errs = append(errs, fmt.Errorf("properties.%s %q: no extensometer of that name (or give gauge:NAME:E11)", field, n))
 	}
-	if pp.Axial != "" && !has(pp.Axial) {
-		errs = append(errs, fmt.Errorf("properties.axial %q: no extensometer of that name", pp.Axial))
+	if pp.Axial != "" {
+		check("axial", pp.Axial)
 	}
-	if pp.Transverse != "" && !has(pp.Transverse) {
-		errs = append(errs, fmt.Errorf("properties.transverse %q: no extensometer of that name", pp.Transverse))
+	if pp.Transverse != "" {
+		check("transverse", pp.Transverse)
 	}
 	for name, r := range map[string][2]float64{"modulus_range": pp.ModulusRange, "poisson_range": pp.PoissonRange, "r_range": pp.RRange} {
 		if r != [2]float64{} && (!finite(r[0], r[1]) || !(r[1] > r[0])) {
