@@ -55,6 +55,9 @@ func TestBrowserPreview(t *testing.T) {
 	b.run("load the page", chromedp.Navigate(base+"/"), chromedp.WaitVisible(chromedp.ID("btn-demo")))
 	b.wait(`document.body.dataset.ready === "true"`, 10*time.Second, "the page's script did not start")
 
+	b.step("colour maps against CIELAB and CIEDE2000 (scikit-image)")
+	checkColourMaps(b)
+
 	b.step("run the demo")
 	b.run("click the demo button", chromedp.Click(chromedp.ID("btn-demo")))
 	b.waitResult(90 * time.Second)
@@ -330,6 +333,7 @@ func checkKnownStretch(b *browser) {
 		t.Errorf("drawn rectangle and seed give the region %s, want %s", got, want)
 	}
 	b.shot("stretch-roi.png", "#roi-canvas")
+	checkSpeckleAgainstSciPy(b, refPath, speckle)
 	b.run("set the parameters",
 		setValue("#p-subset", "21"), setValue("#p-step", "8"), setValue("#p-window", "5"))
 	b.run("run", eval(`document.body.dataset.result = ""`), chromedp.Click(chromedp.ID("btn-run")))
@@ -408,6 +412,141 @@ func checkCancel(b *browser) {
 		t.Errorf("after cancel the run button is %s", ok)
 	}
 	b.run("back to a sparse grid", setValue("#p-step", "8"))
+}
+
+// checkColourMaps takes the page's colour tables and checks them with
+// scikit-image: CIELAB lightness L* must rise steadily along the sequential
+// and grey maps and fall symmetrically from the centre of the diverging one,
+// and the CIEDE2000 colour difference between entries 16 apart must stay
+// within a factor of 2 along each branch, so no part of a map hides or
+// exaggerates differences. CIELAB and CIEDE2000: Sharma, Wu & Dalal 2005,
+// "The CIEDE2000 color-difference formula: implementation notes,
+// supplementary test data, and mathematical observations", Color Res. Appl.
+// 30(1):21.
+func checkColourMaps(b *browser) {
+	t := b.t
+	t.Helper()
+	tables, err := chromedp.Run(b.ctx, chromedp.Evaluate[map[string][]int](
+		`import('./js/colormap.js').then(m => Object.fromEntries(m.names.map(n => [n, Array.from(m.table(n))])))`,
+		chromedp.EvalAwaitPromise))
+	if err != nil {
+		t.Fatalf("read the colour tables: %v", err)
+	}
+	const script = `
+import sys, json, numpy as np
+from skimage import color
+tables = json.load(sys.stdin)
+out = {}
+for name, flat in tables.items():
+    rgb = np.array(flat, dtype=float).reshape(1, -1, 3) / 255
+    lab = color.rgb2lab(rgb)[0]
+    d = color.deltaE_ciede2000(lab[:-16:16], lab[16::16])
+    out[name] = {"L": lab[:, 0].tolist(), "dE": d.tolist()}
+json.dump(out, sys.stdout)
+`
+	in, _ := json.Marshal(tables)
+	cmd := exec.Command("/usr/bin/python3", "-c", script)
+	cmd.Stdin = bytes.NewReader(in)
+	raw, err := cmd.Output()
+	if err != nil {
+		t.Fatalf("scikit-image reference for the colour maps (needs Debian's python3-skimage): %v", err)
+	}
+	var res map[string]struct {
+		L  []float64 `json:"L"`
+		DE []float64 `json:"dE"`
+	}
+	if err := json.Unmarshal(raw, &res); err != nil {
+		t.Fatalf("scikit-image output: %v", err)
+	}
+	for _, name := range []string{"sequential", "diverging", "grey"} {
+		r, ok := res[name]
+		if !ok || len(r.L) != 256 {
+			t.Errorf("colour map %s: no table from the page", name)
+			continue
+		}
+		branches := [][2]int{{0, 255}}
+		if name == "diverging" {
+			branches = [][2]int{{0, 127}, {128, 255}}
+			for i := 0; i < 128; i++ {
+				if d := math.Abs(r.L[i] - r.L[255-i]); d > 2 {
+					t.Errorf("diverging map: L* %.1f at %d and %.1f at %d, want a symmetric lightness", r.L[i], i, r.L[255-i], 255-i)
+					break
+				}
+			}
+		}
+		for _, br := range branches {
+			sign := 1.0
+			if name == "diverging" && br[0] == 128 {
+				sign = -1
+			}
+			// Neighbouring entries may share a colour after rounding to
+			// 8 bits; entries 4 apart must differ in the right direction.
+			for i := br[0]; i <= br[1]; i++ {
+				if i > br[0] && sign*(r.L[i]-r.L[i-1]) < 0 {
+					t.Errorf("colour map %s: L* falls back at %d (%.2f then %.2f)", name, i, r.L[i-1], r.L[i])
+					break
+				}
+				if i+4 <= br[1] && sign*(r.L[i+4]-r.L[i]) <= 0 {
+					t.Errorf("colour map %s: L* flat from %d to %d (%.2f, %.2f)", name, i, i+4, r.L[i], r.L[i+4])
+					break
+				}
+			}
+		}
+		lo, hi := math.Inf(1), 0.0
+		for i, d := range r.DE {
+			if name == "diverging" && i == 7 { // the step across the centre
+				continue
+			}
+			lo, hi = math.Min(lo, d), math.Max(hi, d)
+		}
+		t.Logf("colour map %s: L* %.1f … %.1f, CIEDE2000 per 16 entries %.2f … %.2f", name, r.L[0], r.L[255], lo, hi)
+		if hi > 2*lo {
+			t.Errorf("colour map %s: CIEDE2000 steps range from %.2f to %.2f, want within a factor of 2", name, lo, hi)
+		}
+	}
+}
+
+// checkSpeckleAgainstSciPy recomputes the speckle size of the image at path
+// as the page defines it (width at half height of the normalised
+// autocorrelation of the centre crop, averaged over x and y) with SciPy's
+// signal.correlate as the reference implementation of the autocorrelation.
+func checkSpeckleAgainstSciPy(b *browser, path string, got float64) {
+	t := b.t
+	t.Helper()
+	const script = `
+import sys, numpy as np, cv2
+from scipy import signal
+g = cv2.imread(sys.argv[1], cv2.IMREAD_UNCHANGED).astype(float)
+h, w = g.shape
+c = 1
+while c * 2 <= min(w, h, 256): c *= 2
+ox, oy = (w - c) // 2, (h - c) // 2
+a = g[oy:oy + c, ox:ox + c]; a = a - a.mean()
+r = signal.correlate(a, a, mode='full', method='fft')
+n = c - np.abs(np.arange(-(c - 1), c))
+r = r / np.outer(n, n); r = r / r[c - 1, c - 1]
+def half(p):
+    prev = 1.0
+    for s in range(1, c // 2):
+        if p[s] <= 0.5: return 2 * (s - 1 + (prev - 0.5) / (prev - p[s]))
+        prev = p[s]
+    return float('nan')
+sx = half((r[c - 1, c - 1:] + r[c - 1, c - 1::-1]) / 2)
+sy = half((r[c - 1:, c - 1] + r[c - 1::-1, c - 1]) / 2)
+print((sx + sy) / 2)
+`
+	out, err := exec.Command("/usr/bin/python3", "-c", script, path).CombinedOutput()
+	if err != nil {
+		t.Fatalf("SciPy reference for the speckle size (needs Debian's python3-scipy and python3-opencv): %v\n%s", err, out)
+	}
+	var want float64
+	if _, err := fmt.Sscan(string(out), &want); err != nil {
+		t.Fatalf("SciPy reference printed %q", out)
+	}
+	t.Logf("speckle size: page %.4f px, SciPy reference %.4f px", got, want)
+	if math.Abs(got-want) > 0.01 {
+		t.Errorf("speckle size in the page %.4f px, SciPy reference %.4f px", got, want)
+	}
 }
 
 // checkBadUpload uploads a file that is not an image and expects the

@@ -54,14 +54,14 @@ const builders = {
   sequential(t) {
     const [a0, b0] = polar(0.11, 260);
     const [a1, b1] = polar(0.16, 100);
-    return lab(0.28 + 0.65 * t, a0 + (a1 - a0) * t, b0 + (b1 - b0) * t);
+    return lab(0.32 + 0.62 * t, a0 + (a1 - a0) * t, b0 + (b1 - b0) * t);
   },
   diverging(t) {
     const s = 2 * t - 1, m = Math.abs(s);
     const [a, b] = s < 0 ? polar(0.14 * m ** 0.85, 255) : polar(0.15 * m ** 0.85, 52);
     return lab(0.965 - 0.5 * m, a, b);
   },
-  grey(t) { return lab(0.15 + 0.82 * t, 0, 0); },
+  grey(t) { return lab(0.25 + 0.72 * t, 0, 0); },
 };
 
 /** names lists the available colour maps. */
