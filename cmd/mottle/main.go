@@ -45,6 +45,7 @@ func commands() []command {
 		{"map", "re-render a PNG map of any quantity from a results folder", runMap},
 		{"series", "analyse a series of frames: curves, gauges, material properties, report", runSeries},
 		{"serve", "run the HTTP service and the browser preview", runServe},
+		{"worker", "compute jobs from a NATS JetStream backend shared with mottle serve", runWorker},
 		{"version", "print the version", runVersion},
 	}
 }

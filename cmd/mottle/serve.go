@@ -14,7 +14,7 @@ import (
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/service"
-	"github.com/mottledic/mottle/pkg/service/embedded"
+	"github.com/mottledic/mottle/pkg/service/natsjs"
 	"github.com/mottledic/mottle/pkg/synth"
 	"github.com/mottledic/mottle/web"
 )
@@ -29,7 +29,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 			"with tokens set, every route but /healthz, /readyz and the preview's static files needs one.")
 	addr := fs.String("addr", "127.0.0.1:8080", "listen address (host:port)")
 	data := fs.String("data", envOr("MOTTLE_DATA", "mottle-data"), "data directory for the job database, images and results (env MOTTLE_DATA)")
-	backend := fs.String("backend", "embedded", "job backend: embedded (bbolt and files in --data)")
+	backend := fs.String("backend", "embedded", backendHelp+" (with nats://, jobs are computed only when --workers is given)")
 	workers := fs.Int("workers", runtime.NumCPU(), "jobs computed at once")
 	queue := fs.Int("queue", 64, "jobs that may wait for a worker; more are answered 429 with Retry-After")
 	maxBody := fs.Int64("max-body-mb", 256, "largest request body, MiB")
@@ -50,15 +50,12 @@ func runServe(ctx context.Context, e *env, args []string) error {
 		fmt.Fprintf(e.stderr, "mottle serve: unexpected arguments %q\n", fs.Args())
 		return errUsage
 	}
-	if *backend != "embedded" {
-		return fmt.Errorf("--backend %q: only \"embedded\" is available in this build", *backend)
-	}
 	tokens, err := loadTokens(os.Getenv("MOTTLE_TOKENS"), *tokenFile)
 	if err != nil {
 		return err
 	}
 	log := slog.New(slog.NewJSONHandler(e.stderr, nil))
-	be, err := embedded.Open(*data, *queue)
+	be, err := openBackend(ctx, log, *backend, *data, *queue, !natsjs.IsURL(*backend) || flagGiven(fs, "workers"))
 	if err != nil {
 		return err
 	}

@@ -10,6 +10,7 @@ import (
 	"io"
 	"sort"
 	"strings"
+	"time"
 
 	"github.com/nats-io/nats.go/jetstream"
 
@@ -39,58 +40,61 @@ func writeOnce(key string) bool {
 	return strings.Contains(key, "/out/")
 }
 
-// Put implements jobs.Blobs.
+// Put implements jobs.Blobs. The contents are read into memory first, so
+// that the write can be retried through a node failure.
 func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
 	if !jobs.ValidKey(key) {
 		return fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", key)
-	}
-	info, err := b.obj.GetInfo(ctx, key)
-	switch {
-	case errors.Is(err, jetstream.ErrObjectNotFound):
-		info = nil
-	case err != nil:
-		return fmt.Errorf("blob %s: %w", key, err)
-	}
-	if info != nil && writeOnce(key) {
-		// Drain r so a caller streaming into it is not blocked.
-		_, _ = io.Copy(io.Discard, r)
-		return nil
-	}
-	if info == nil {
-		if _, err := b.obj.Put(ctx, jetstream.ObjectMeta{Name: key}, r); err != nil {
-			return fmt.Errorf("blob %s: %w", key, err)
-		}
-		return nil
 	}
 	data, err := io.ReadAll(r)
 	if err != nil {
 		return fmt.Errorf("blob %s: %w", key, err)
 	}
 	sum := sha256.Sum256(data)
-	if info.Digest == digest(sum[:]) {
-		return nil
-	}
-	if _, err := b.obj.Put(ctx, jetstream.ObjectMeta{Name: key}, bytes.NewReader(data)); err != nil {
+	err = retry(ctx, func(ctx context.Context) error {
+		info, err := b.obj.GetInfo(ctx, key)
+		switch {
+		case errors.Is(err, jetstream.ErrObjectNotFound):
+		case err != nil:
+			return err
+		case writeOnce(key) || info.Digest == digest(sum[:]):
+			return nil // written before: keep the first answer
+		}
+		_, err = b.obj.Put(ctx, jetstream.ObjectMeta{Name: key}, bytes.NewReader(data))
+		return err
+	})
+	if err != nil {
 		return fmt.Errorf("blob %s: %w", key, err)
 	}
 	return nil
 }
 
-// Get implements jobs.Blobs. The reader checks the content hash at the
-// end and fails with an error if the contents were corrupted.
+// Get implements jobs.Blobs. The object is read whole, within a time
+// limit, and the read retried if a node stops in the middle, so a reader
+// never waits on a stalled transfer; the object store checks the content
+// hash at the end of each read.
 func (b *Blobs) Get(ctx context.Context, key string) (io.ReadCloser, error) {
 	if !jobs.ValidKey(key) {
 		return nil, fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", key)
 	}
-	res, err := b.obj.Get(ctx, key)
+	var data []byte
+	err := retryWithin(ctx, getTimeout, func(ctx context.Context) error {
+		var err error
+		data, err = b.obj.GetBytes(ctx, key)
+		return err
+	})
 	if errors.Is(err, jetstream.ErrObjectNotFound) {
 		return nil, fmt.Errorf("blob %s: %w", key, jobs.ErrNotFound)
 	}
 	if err != nil {
 		return nil, fmt.Errorf("blob %s: %w", key, err)
 	}
-	return res, nil
+	return io.NopCloser(bytes.NewReader(data)), nil
 }
+
+// getTimeout bounds one read of an object (at least 20 MB/s for the
+// largest images the service accepts).
+const getTimeout = 15 * time.Second
 
 // Delete implements jobs.Blobs. It lists the store to find the keys under
 // prefix, so its cost grows with the number of objects.
@@ -98,7 +102,7 @@ func (b *Blobs) Delete(ctx context.Context, prefix string) error {
 	if !jobs.ValidKey(prefix) {
 		return fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", prefix)
 	}
-	list, err := b.obj.List(ctx)
+	list, err := b.list(ctx)
 	if errors.Is(err, jetstream.ErrNoObjectsFound) {
 		return nil
 	}
@@ -108,7 +112,9 @@ func (b *Blobs) Delete(ctx context.Context, prefix string) error {
 	var errs []error
 	for _, info := range list {
 		if info.Name == prefix || strings.HasPrefix(info.Name, prefix+"/") {
-			if err := b.obj.Delete(ctx, info.Name); err != nil && !errors.Is(err, jetstream.ErrObjectNotFound) {
+			name := info.Name
+			err := retry(ctx, func(ctx context.Context) error { return b.obj.Delete(ctx, name) })
+			if err != nil && !errors.Is(err, jetstream.ErrObjectNotFound) {
 				errs = append(errs, fmt.Errorf("delete blob %s: %w", info.Name, err))
 			}
 		}
@@ -118,7 +124,7 @@ func (b *Blobs) Delete(ctx context.Context, prefix string) error {
 
 // Keys returns the keys under prefix, sorted (for inspection and tests).
 func (b *Blobs) Keys(ctx context.Context, prefix string) ([]string, error) {
-	list, err := b.obj.List(ctx)
+	list, err := b.list(ctx)
 	if errors.Is(err, jetstream.ErrNoObjectsFound) {
 		return nil, nil
 	}
@@ -133,4 +139,14 @@ func (b *Blobs) Keys(ctx context.Context, prefix string) ([]string, error) {
 	}
 	sort.Strings(out)
 	return out, nil
+}
+
+func (b *Blobs) list(ctx context.Context) ([]*jetstream.ObjectInfo, error) {
+	var list []*jetstream.ObjectInfo
+	err := retry(ctx, func(ctx context.Context) error {
+		var err error
+		list, err = b.obj.List(ctx)
+		return err
+	})
+	return list, err
 }

@@ -82,11 +82,17 @@ func (q *Queue) Enqueue(ctx context.Context, id string) error {
 	m := &nats.Msg{Subject: subj, Data: []byte(id), Header: nats.Header{}}
 	m.Header.Set(HeaderJob, id)
 	m.Header.Set(HeaderKind, string(rt.kind))
-	_, err := q.b.js.PublishMsg(ctx, m, jetstream.WithMsgID(id))
-	if err != nil {
-		if strings.Contains(err.Error(), "maximum messages") {
+	err := retry(ctx, func(ctx context.Context) error {
+		_, err := q.b.js.PublishMsg(ctx, m, jetstream.WithMsgID(id))
+		if err != nil && strings.Contains(err.Error(), "maximum messages") {
 			return jobs.ErrQueueFull
 		}
+		return err
+	})
+	if errors.Is(err, jobs.ErrQueueFull) {
+		return err
+	}
+	if err != nil {
 		return fmt.Errorf("enqueue job %s on %s: %w", id, subj, err)
 	}
 	q.mu.Lock()
@@ -291,7 +297,7 @@ func (d *delivery) settle(fn func() error) error {
 // The acknowledgement waits for the server's confirmation.
 func (d *delivery) Ack() error {
 	return d.settle(func() error {
-		ctx, cancel := context.WithTimeout(context.Background(), 10*time.Second)
+		ctx, cancel := context.WithTimeout(context.Background(), retryFor)
 		defer cancel()
 		if j, _, err := d.q.b.store.getJob(ctx, d.id); err == nil && j.State == jobs.Failed && (j.Finished == nil || !j.Finished.Before(d.at)) {
 			if err := d.q.deadLetter(ctx, j, d.delivered); err != nil {
@@ -336,7 +342,10 @@ func (q *Queue) deadLetter(ctx context.Context, j *jobs.Job, delivered uint64) e
 		reason += ": " + dl.Error.Detail
 	}
 	m.Header.Set(HeaderReason, reason)
-	_, err = q.b.js.PublishMsg(ctx, m, jetstream.WithMsgID("dead-"+j.ID))
+	err = retry(ctx, func(ctx context.Context) error {
+		_, err := q.b.js.PublishMsg(ctx, m, jetstream.WithMsgID("dead-"+j.ID))
+		return err
+	})
 	if err == nil {
 		q.b.opt.Logger.Warn("job dead-lettered", "job", j.ID, "kind", j.Kind, "reason", reason)
 	}

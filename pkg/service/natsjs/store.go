@@ -1,6 +1,7 @@
 package natsjs
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
@@ -75,6 +76,56 @@ func newStore(nc *nats.Conn, kv jetstream.KeyValue, n names, log *slog.Logger) *
 func jobKey(id string) string    { return "job." + id }
 func seriesKey(id string) string { return "series." + id }
 
+// get reads key, retrying through transient failures.
+func (s *Store) get(ctx context.Context, key string) (jetstream.KeyValueEntry, error) {
+	var e jetstream.KeyValueEntry
+	err := retry(ctx, func(ctx context.Context) error {
+		var err error
+		e, err = s.kv.Get(ctx, key)
+		return err
+	})
+	return e, err
+}
+
+// create creates key, retrying through transient failures. When a retry
+// finds the key holding exactly data, the lost answer was a success.
+func (s *Store) create(ctx context.Context, key string, data []byte) (uint64, error) {
+	var rev uint64
+	tries := 0
+	err := retry(ctx, func(ctx context.Context) error {
+		tries++
+		var err error
+		rev, err = s.kv.Create(ctx, key, data)
+		if tries > 1 && errors.Is(err, jetstream.ErrKeyExists) {
+			if e, gerr := s.kv.Get(ctx, key); gerr == nil && bytes.Equal(e.Value(), data) {
+				rev, err = e.Revision(), nil
+			}
+		}
+		return err
+	})
+	return rev, err
+}
+
+// update stores data under key if its revision is still rev, retrying
+// through transient failures. When a retry finds the key holding exactly
+// data, the lost answer was a success.
+func (s *Store) update(ctx context.Context, key string, data []byte, rev uint64) (uint64, error) {
+	var nrev uint64
+	tries := 0
+	err := retry(ctx, func(ctx context.Context) error {
+		tries++
+		var err error
+		nrev, err = s.kv.Update(ctx, key, data, rev)
+		if tries > 1 && (errors.Is(err, jetstream.ErrKeyRevisionMismatch) || errors.Is(err, jetstream.ErrKeyExists)) {
+			if e, gerr := s.kv.Get(ctx, key); gerr == nil && bytes.Equal(e.Value(), data) {
+				nrev, err = e.Revision(), nil
+			}
+		}
+		return err
+	})
+	return nrev, err
+}
+
 // mapErr turns JetStream errors into the jobs sentinel errors.
 func mapErr(what string, err error) error {
 	switch {
@@ -97,7 +148,7 @@ func (s *Store) CreateJob(ctx context.Context, j *jobs.Job) error {
 	if err != nil {
 		return err
 	}
-	rev, err := s.kv.Create(ctx, jobKey(j.ID), data)
+	rev, err := s.create(ctx, jobKey(j.ID), data)
 	if errors.Is(err, jetstream.ErrKeyExists) {
 		return fmt.Errorf("job %s: %w", j.ID, jobs.ErrExists)
 	}
@@ -115,7 +166,7 @@ func (s *Store) getJob(ctx context.Context, id string) (*jobs.Job, uint64, error
 	if !jobs.ValidID(id) {
 		return nil, 0, fmt.Errorf("job %s: %w", id, jobs.ErrNotFound)
 	}
-	e, err := s.kv.Get(ctx, jobKey(id))
+	e, err := s.get(ctx, jobKey(id))
 	if err != nil {
 		return nil, 0, mapErr("job "+id, err)
 	}
@@ -176,7 +227,7 @@ func (s *Store) UpdateJob(ctx context.Context, id string, fn func(*jobs.Job) err
 		if err != nil {
 			return nil, err
 		}
-		nrev, err := s.kv.Update(ctx, jobKey(id), data, rev)
+		nrev, err := s.update(ctx, jobKey(id), data, rev)
 		if errors.Is(err, jetstream.ErrKeyRevisionMismatch) || errors.Is(err, jetstream.ErrKeyExists) {
 			continue // changed meanwhile: apply fn to the new record
 		}
@@ -232,7 +283,7 @@ func (s *Store) DeleteJob(ctx context.Context, id string) error {
 	if _, _, err := s.getJob(ctx, id); err != nil {
 		return err
 	}
-	if err := s.kv.Delete(ctx, jobKey(id)); err != nil {
+	if err := retry(ctx, func(ctx context.Context) error { return s.kv.Delete(ctx, jobKey(id)) }); err != nil {
 		return mapErr("delete job "+id, err)
 	}
 	s.mu.Lock()
@@ -298,7 +349,7 @@ func (s *Store) CreateSeries(ctx context.Context, sr *jobs.Series) error {
 	if err != nil {
 		return err
 	}
-	rev, err := s.kv.Create(ctx, seriesKey(sr.ID), data)
+	rev, err := s.create(ctx, seriesKey(sr.ID), data)
 	if errors.Is(err, jetstream.ErrKeyExists) {
 		return fmt.Errorf("series %s: %w", sr.ID, jobs.ErrExists)
 	}
@@ -314,7 +365,7 @@ func (s *Store) getSeries(ctx context.Context, id string) (*jobs.Series, uint64,
 	if !jobs.ValidID(id) {
 		return nil, 0, fmt.Errorf("series %s: %w", id, jobs.ErrNotFound)
 	}
-	e, err := s.kv.Get(ctx, seriesKey(id))
+	e, err := s.get(ctx, seriesKey(id))
 	if err != nil {
 		return nil, 0, mapErr("series "+id, err)
 	}
@@ -348,7 +399,7 @@ func (s *Store) UpdateSeries(ctx context.Context, id string, fn func(*jobs.Serie
 		if err != nil {
 			return nil, err
 		}
-		nrev, err := s.kv.Update(ctx, seriesKey(id), data, rev)
+		nrev, err := s.update(ctx, seriesKey(id), data, rev)
 		if errors.Is(err, jetstream.ErrKeyRevisionMismatch) || errors.Is(err, jetstream.ErrKeyExists) {
 			continue
 		}
@@ -366,7 +417,7 @@ func (s *Store) DeleteSeries(ctx context.Context, id string) error {
 	if _, _, err := s.getSeries(ctx, id); err != nil {
 		return err
 	}
-	if err := s.kv.Delete(ctx, seriesKey(id)); err != nil {
+	if err := retry(ctx, func(ctx context.Context) error { return s.kv.Delete(ctx, seriesKey(id)) }); err != nil {
 		return mapErr("delete series "+id, err)
 	}
 	s.mu.Lock()
