@@ -187,7 +187,7 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 			return fmt.Errorf("mask image: %w", err)
 		}
 	}
-	pb := newBar(e, "correlating")
+	pb := newBar(e, "correlating", "points")
 	job.Progress = pb.update
 	res, err := analysis.RunJob(ctx, job)
 	pb.done()

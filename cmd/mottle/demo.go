@@ -31,7 +31,7 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 	}
 	p := s.Params()
 	p.Threads = *threads
-	pb := newBar(e, "correlating")
+	pb := newBar(e, "correlating", "points")
 	res, err := analysis.RunJob(ctx, analysis.Job{Ref: ref, Def: def, RefName: "demo reference", DefName: "demo deformed", Params: p, Progress: pb.update})
 	pb.done()
 	if err != nil {

@@ -109,39 +109,6 @@ func frameList(args []string) ([]string, error) {
 	return out, nil
 }
 
-// progress draws a one-line progress bar on a terminal.
-type progress struct {
-	w     io.Writer
-	on    bool
-	total int
-	t0    time.Time
-	done0 int
-}
-
-func (p *progress) show(done int, note string) {
-	if !p.on {
-		return
-	}
-	const width = 28
-	frac := float64(done) / float64(max(p.total, 1))
-	n := int(frac * width)
-	bar := strings.Repeat("#", n) + strings.Repeat(".", width-n)
-	el := time.Since(p.t0).Seconds()
-	rate, left := 0.0, "--:--"
-	if d := done - p.done0; d > 0 && el > 0 {
-		rate = float64(d) / el
-		rem := time.Duration(float64(p.total-done) / rate * float64(time.Second)).Round(time.Second)
-		left = rem.String()
-	}
-	fmt.Fprintf(p.w, "\r[%s] %d/%d frames  %.2f frames/s  %s left  %-14s", bar, done, p.total, rate, left, note)
-}
-
-func (p *progress) end() {
-	if p.on {
-		fmt.Fprintln(p.w)
-	}
-}
-
 func runSeries(ctx context.Context, e *env, args []string) error {
 	fs := newFlags(e, "series", "[flags] <folder | glob | frames...>",
 		"Analyses a test series: every frame is correlated with the reference (the first frame\n"+
@@ -459,11 +426,12 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	if every <= 0 {
 		every = max(1, (len(frames)+4)/5)
 	}
-	pr := &progress{w: e.stderr, on: e.tty, total: len(frames), t0: time.Now(), done0: first}
+	pr := newBar(e, "", "frames")
+	pr.done0 = first
 	var reportMaps []series.ReportMap
 	var runErr error
 	for i := first; i < len(frames); i++ {
-		pr.show(i, metas[i+1].Name)
+		pr.show(i, len(frames), metas[i+1].Name)
 		img, err := imageio.ReadFile(frames[i], lim)
 		if err != nil {
 			runErr = err
@@ -493,8 +461,8 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 			break
 		}
 	}
-	pr.show(tr.Len(), "")
-	pr.end()
+	pr.show(tr.Len(), len(frames), "")
+	pr.done()
 
 	c := tr.Curve()
 	if noise != nil && c.Noise == nil {
