@@ -46,7 +46,7 @@ func (p *bar) show(done, total int, note string) {
 	rate, left := 0.0, "--"
 	if d, el := done-p.done0, now.Sub(p.start).Seconds(); d > 0 && el > 0 {
 		rate = float64(d) / el
-		left = time.Duration(float64(total-done)/rate*float64(time.Second)).Round(time.Second).String()
+		left = time.Duration(float64(total-done) / rate * float64(time.Second)).Round(time.Second).String()
 	}
 	prefix := ""
 	if p.label != "" {
