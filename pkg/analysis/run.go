@@ -69,10 +69,11 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 	if err := imageio.CheckPair(j.Ref, j.Def, p.Subset); err != nil {
 		return nil, err
 	}
-	opt, err := correlationOptions(p, j)
+	opt, err := CorrelationOptions(p, j.Ref.W, j.Ref.H, j.Mask)
 	if err != nil {
 		return nil, err
 	}
+	opt.Start, opt.Progress = j.Start, j.Progress
 	res, err := correlate.Run(ctx, j.Ref, j.Def, opt)
 	if err != nil {
 		return nil, fmt.Errorf("correlation: %w", err)
@@ -91,9 +92,10 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 	return &Output{Field: f, Correlation: res, Elapsed: elapsed}, nil
 }
 
-// correlationOptions turns the parameters into correlator options,
-// building the ROI mask from the Spec and the optional mask image.
-func correlationOptions(p Params, j Job) (correlate.Options, error) {
+// CorrelationOptions turns the parameters into correlator options for
+// w×h images, building the ROI mask from p.ROI intersected with the
+// optional mask image. Start and Progress are left for the caller.
+func CorrelationOptions(p Params, w, h int, maskImage *imageio.Gray) (correlate.Options, error) {
 	opt := correlate.Defaults()
 	opt.Subset, opt.Step = p.Subset, p.Step
 	opt.Shape = correlate.First
@@ -113,17 +115,14 @@ func correlationOptions(p Params, j Job) (correlate.Options, error) {
 	opt.Tol = p.Tolerance
 	opt.Threads = p.Threads
 	opt.Noise = p.Noise
-	opt.Start = j.Start
-	opt.Progress = j.Progress
-	w, h := j.Ref.W, j.Ref.H
 	var mask *roi.Mask
 	if p.ROI != nil {
 		if mask, err = p.ROI.Mask(w, h); err != nil {
 			return opt, &ValidationError{[]Problem{{Field: "roi", Message: err.Error()}}}
 		}
 	}
-	if j.Mask != nil {
-		m, err := roi.FromImage(j.Mask, w, h)
+	if maskImage != nil {
+		m, err := roi.FromImage(maskImage, w, h)
 		if err != nil {
 			return opt, fmt.Errorf("mask image: %w", err)
 		}

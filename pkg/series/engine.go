@@ -9,7 +9,6 @@ import (
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/correlate"
 	"github.com/mottledic/mottle/pkg/imageio"
-	"github.com/mottledic/mottle/pkg/spline"
 )
 
 // New starts a series on the reference image ref, whose own time stamp and
@@ -39,47 +38,13 @@ type engine struct {
 	cg  correlate.Grid
 }
 
-// correlationOptions turns analysis parameters into correlator options
-// for images of w×h px.
-func correlationOptions(p analysis.Params, w, h int) (correlate.Options, error) {
-	opt := correlate.Defaults()
-	opt.Subset, opt.Step = p.Subset, p.Step
-	opt.Shape = correlate.First
-	if p.Shape == "second" {
-		opt.Shape = correlate.Second
-	}
-	opt.Interp = spline.Cubic
-	if p.Interpolation == "quintic" {
-		opt.Interp = spline.Quintic
-	}
-	opt.Prefilter = p.Prefilter
-	opt.Seeds = p.Seeds
-	opt.Search = p.Search
-	opt.MinZNCC = p.MinZNCC
-	opt.MaxIter = p.MaxIter
-	opt.Tol = p.Tolerance
-	opt.Threads = p.Threads
-	opt.Noise = p.Noise
-	if p.ROI != nil {
-		m, err := p.ROI.Mask(w, h)
-		if err != nil {
-			return opt, fmt.Errorf("roi: %w", err)
-		}
-		opt.Mask = m
-	}
-	if err := opt.Validate(); err != nil {
-		return opt, err
-	}
-	return opt, nil
-}
-
 // newCorrelator builds the production correlator. The grid of material
 // points is the one pkg/correlate lays out for the reference and the ROI;
 // it is taken from a correlation of the reference with itself, capped at
 // two iterations per point (zero motion converges at once), which also
 // checks that the reference can be correlated at all.
 func newCorrelator(ref *imageio.Gray, p Params) (correlator, error) {
-	opt, err := correlationOptions(p.Analysis, ref.W, ref.H)
+	opt, err := analysis.CorrelationOptions(p.Analysis, ref.W, ref.H, nil)
 	if err != nil {
 		return nil, fmt.Errorf("series: %w", err)
 	}
