@@ -45,6 +45,7 @@ func problem(status int, slug, title, detail string, fields ...FieldProblem) *Pr
 	return &Problem{Type: "urn:mottle:problem:" + slug, Title: title, Status: status, Detail: detail, Errors: fields}
 }
 
+// Error returns "title: detail", so a Problem can travel as an error.
 func (p *Problem) Error() string { return p.Title + ": " + p.Detail }
 
 // writeProblem answers with p, filling in the instance and request id.
