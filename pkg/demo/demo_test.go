@@ -14,8 +14,8 @@ import (
 // pkg/synth. Bounds: the displacement error is set by the camera noise
 // (σ = 1.5 grey levels on 8-bit images: the predicted std of u is about
 // 0.003 px, Wang et al. 2007), so an RMS error of 0.01 px leaves room for
-// interpolation bias; the strain error against the truth passed through the
-// same strain window is the correlation's own, noise over a 63 px gauge,
+// interpolation bias; the strain error against the truth seen through the
+// same subset and strain window is the correlation's own, noise over a 63 px gauge,
 // bounded at 3e-4. The measured peak on the ligament must show the
 // concentration: above 1.4× the remote strain S/E.
 func TestDemoAgainstKirsch(t *testing.T) {
@@ -53,7 +53,24 @@ func TestDemoAgainstKirsch(t *testing.T) {
 	if remote := s.Stress / s.E; !(peak.Measured > 1.4*remote) {
 		t.Errorf("peak E11 on the ligament %.5f, want a concentration above 1.4·S/E = %.5f", peak.Measured, 1.4*remote)
 	}
-	if math.Abs(peak.Measured-peak.Windowed) > 1e-3 {
-		t.Errorf("peak E11 %.5f, windowed truth %.5f", peak.Measured, peak.Windowed)
+	// Along the ligament (θ = 90°) the Kirsch concentration must be found
+	// to within the smoothing that the subset and the strain window imply:
+	// the measurement must agree with the exact field seen through them
+	// (its subset mean, then the same plane fit) to within the noise, taken
+	// as the larger of 3e-4 and 4 predicted std of E11 (one-sided windows at
+	// the ROI edge have several times the noise of full ones); and its
+	// distance to the exact point value may exceed that smoothing only by
+	// the same noise bound.
+	if len(c.Ligament) < 10 {
+		t.Fatalf("only %d ligament points", len(c.Ligament))
+	}
+	for _, lp := range c.Ligament {
+		tol := math.Max(3e-4, 4*lp.Std)
+		if d := math.Abs(lp.Measured - lp.Windowed); d > tol {
+			t.Errorf("ligament r = %.1f px: E11 %.5f, ideal through subset and window %.5f (|Δ| %.1e > %.1e)", lp.R, lp.Measured, lp.Windowed, d, tol)
+		}
+		if d, smooth := math.Abs(lp.Measured-lp.Truth), math.Abs(lp.Windowed-lp.Truth); d > smooth+tol {
+			t.Errorf("ligament r = %.1f px: E11 %.5f, Kirsch %.5f: off by %.1e, more than the smoothing %.1e plus %.1e", lp.R, lp.Measured, lp.Truth, d, smooth, tol)
+		}
 	}
 }
