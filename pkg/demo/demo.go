@@ -257,7 +257,8 @@ func sq(x float64) float64 { return x * x }
 // a field over a symmetric subset has the field's mean as its constant term,
 // so a subset smooths the displacement like a box filter of its size
 // (Schreier & Sutton 2002, "Systematic errors in digital image correlation
-// due to undermatched subset shape functions", Exp. Mech. 42:303).
+// due to undermatched subset shape functions", Exp. Mech. 42:303; citation
+// from memory, the mean property is derived here).
 func subsetMean(m synth.Motion, X, Y float64, half int) (u, v float64) {
 	var n float64
 	for dy := -half; dy <= half; dy++ {
