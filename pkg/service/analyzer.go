@@ -2,6 +2,7 @@ package service
 
 import (
 	"context"
+	"encoding/json"
 	"fmt"
 	"io"
 
@@ -42,6 +43,40 @@ type Result struct {
 	// quantity. The service serves them as they are.
 	Files   map[string][]byte
 	Summary jobs.Summary
+	// State is the series engine's state after a frame (FrameAnalyzer
+	// only): an opaque document the service stores and hands back with the
+	// next frame.
+	State []byte
+}
+
+// FrameAnalyzer is an Analyzer that also tracks the frames of a series
+// with a stateful series engine. The service runs the frames of one series
+// one at a time, in order, and keeps the state between them; an Analyzer
+// without this method gets every frame as an independent pair with the
+// series reference.
+type FrameAnalyzer interface {
+	Analyzer
+	// Frame adds in.Def to the series whose state after the previous
+	// frame is in.State (nil for the first frame) and returns the frame's
+	// result files, its summary and the new state in Result.State. It
+	// stops early with ctx.Err() when ctx is done.
+	Frame(ctx context.Context, in FrameInput) (*Result, error)
+}
+
+// FrameInput is what one series frame is computed from.
+type FrameInput struct {
+	// Ref is the series reference; Last the last frame added before this
+	// one (nil for the first frame); Def the frame itself.
+	Ref, Last, Def *imageio.Gray
+	// Params is the series' stored parameter document.
+	Params json.RawMessage
+	// State is the engine state after Last, nil for the first frame.
+	State []byte
+	// Name, Time and Load describe the frame.
+	Name       string
+	Time, Load *float64
+	// Threads caps the worker goroutines of the correlation (0 = all cores).
+	Threads int
 }
 
 // MapRequest asks for a PNG map of one quantity.
@@ -63,4 +98,5 @@ type FieldError struct {
 	Status int
 }
 
+// Error returns "field: detail".
 func (e *FieldError) Error() string { return fmt.Sprintf("%s: %s", e.Field, e.Detail) }

@@ -42,7 +42,11 @@ func serveForTest() error {
 		return err
 	}
 	defer be.Close()
-	s, err := service.New(service.Config{Backend: be, Analyzer: &fakeAnalyzer{delay: delay}, Workers: 2,
+	var an service.Analyzer = &fakeAnalyzer{delay: delay}
+	if os.Getenv("MOTTLE_TEST_ANALYZER") == "pipeline" {
+		an = service.Pipeline{}
+	}
+	s, err := service.New(service.Config{Backend: be, Analyzer: an, Workers: 2,
 		ShutdownGrace: grace, Logger: slog.New(slog.NewJSONHandler(os.Stderr, nil))})
 	if err != nil {
 		return err

@@ -3,6 +3,7 @@ package service
 import (
 	"bytes"
 	"context"
+	"encoding/json"
 	"fmt"
 	"io"
 	"math"
@@ -13,6 +14,7 @@ import (
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/maps"
+	"github.com/mottledic/mottle/pkg/series"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
@@ -147,4 +149,87 @@ func RenderMap(f *field.Field, req MapRequest, bg *imageio.Gray) ([]byte, error)
 		return nil, &FieldError{Field: "range", Status: 400, Detail: err.Error()}
 	}
 	return maps.EncodePNG(m.Image)
+}
+
+// Frame implements FrameAnalyzer with the series engine pkg/series: the
+// tracker is created on the reference (first frame) or restored from the
+// state and the last frame, the frame is added, and its results are
+// encoded like an analysis, with the tracker's summary (mean strains,
+// gauge and extensometer readings, valid fraction, mode).
+func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
+	var tr *series.Tracker
+	var err error
+	if in.State == nil {
+		var p series.Params
+		if p, err = decodeSeriesParams(in.Params); err != nil {
+			return nil, err
+		}
+		p.Analysis.Threads = in.Threads
+		tr, err = series.New(in.Ref, series.FrameMeta{Name: "reference"}, p)
+	} else {
+		var st series.State
+		if err = json.Unmarshal(in.State, &st); err != nil {
+			return nil, fmt.Errorf("stored series state: %w", err)
+		}
+		st.Params.Analysis.Threads = in.Threads
+		tr, err = series.Restore(in.Ref, in.Last, st)
+	}
+	if err != nil {
+		return nil, err
+	}
+	meta := series.FrameMeta{Name: in.Name, Time: in.Time, Load: in.Load}
+	fr, err := tr.Add(ctx, in.Def, meta)
+	if err != nil {
+		return nil, err
+	}
+	f, err := series.FrameField(fr, tr.Params(), "reference", meta, in.Def.W, in.Def.H)
+	if err != nil {
+		return nil, err
+	}
+	res, err := Encode(f)
+	if err != nil {
+		return nil, err
+	}
+	st := tr.State()
+	st.Params.Analysis.Threads = 0 // a setting of the server, not of the series
+	if res.State, err = json.Marshal(st); err != nil {
+		return nil, fmt.Errorf("encode series state: %w", err)
+	}
+	res.Summary = frameSummary(res.Summary, fr.Summary)
+	return res, nil
+}
+
+// frameSummary fills a job summary from the tracker's summary of a frame;
+// the point counts come from the encoded field.
+func frameSummary(base jobs.Summary, sm series.Summary) jobs.Summary {
+	out := jobs.Summary{Points: base.Points, Valid: base.Valid, ValidFraction: sm.ValidFraction,
+		Mean: map[string]float64{}, Mode: sm.Mode}
+	for k, v := range sm.Mean {
+		if !math.IsNaN(v) {
+			out.Mean[k] = v
+		}
+	}
+	for _, q := range []string{"rotation_deg", "e1", "e2", "von_mises", "zncc", "std_u", "std_v"} {
+		if v, ok := base.Mean[q]; ok {
+			out.Mean[q] = v
+		}
+	}
+	z, tk := sm.MeanZNCC, sm.Tracked
+	out.MeanZNCC, out.Tracked = &z, &tk
+	g := map[string]float64{}
+	for _, e := range sm.Extensometers {
+		if e.Valid {
+			g["ext_"+e.Name+"_eng"], g["ext_"+e.Name+"_true"], g["ext_"+e.Name+"_stretch"] = e.Eng, e.True, e.Stretch
+		}
+	}
+	for _, r := range sm.Gauges {
+		if r.N > 0 && !math.IsNaN(r.Mean) {
+			k := "gauge_" + r.Gauge + "_" + r.Component
+			g[k+"_mean"], g[k+"_std"] = r.Mean, r.Std
+		}
+	}
+	if len(g) > 0 {
+		out.Gauges = g
+	}
+	return out
 }

@@ -4,7 +4,6 @@ import (
 	"bytes"
 	"context"
 	"encoding/csv"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -71,15 +70,18 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	ref := u.img["reference"]
-	p, err := s.checkParams(u.params, ref.W, ref.H)
+	p, err := s.parseSeriesParams(u.params, ref.W, ref.H)
 	if m := u.img["mask"]; err == nil && m != nil && (m.W != ref.W || m.H != ref.H) {
 		err = &FieldError{Field: "mask", Detail: fmt.Sprintf("is %d×%d px but the reference is %d×%d px; the mask must match the reference", m.W, m.H, ref.W, ref.H)}
+	}
+	var params []byte
+	if err == nil {
+		params, err = flatSeriesParams(p)
 	}
 	if err != nil {
 		writeProblem(w, r, asProblem(err, "params"))
 		return
 	}
-	params, _ := json.Marshal(p)
 	now := time.Now().UTC()
 	sr := &jobs.Series{ID: jobs.NewID(), Params: params, Width: ref.W, Height: ref.H, HasMask: u.raw["mask"] != nil,
 		Created: now, Updated: now, Frames: []string{}}
@@ -241,13 +243,16 @@ func (s *Server) frames(ctx context.Context, sr *jobs.Series) ([]*jobs.Job, erro
 
 // curveRow is one frame of a series curve.
 type curveRow struct {
-	Frame         int                `json:"frame"`
-	Time          *float64           `json:"time"`
-	Load          *float64           `json:"load"`
-	State         jobs.State         `json:"state"`
-	ValidFraction *float64           `json:"valid_fraction"`
-	Mean          map[string]float64 `json:"mean,omitempty"`
-	Gauges        map[string]float64 `json:"gauges,omitempty"`
+	Frame         int        `json:"frame"`
+	Time          *float64   `json:"time"`
+	Load          *float64   `json:"load"`
+	State         jobs.State `json:"state"`
+	ValidFraction *float64   `json:"valid_fraction"`
+	// Mode is how the series engine correlated the frame (direct or
+	// incremental), when it did.
+	Mode   string             `json:"mode,omitempty"`
+	Mean   map[string]float64 `json:"mean,omitempty"`
+	Gauges map[string]float64 `json:"gauges,omitempty"`
 }
 
 func (s *Server) curve(ctx context.Context, sr *jobs.Series) ([]curveRow, []string, []string, error) {
@@ -261,7 +266,7 @@ func (s *Server) curve(ctx context.Context, sr *jobs.Series) ([]curveRow, []stri
 		row := curveRow{Frame: j.FrameIndex, Time: j.Time, Load: j.Load, State: j.State}
 		if sm := j.Summary; sm != nil {
 			vf := sm.ValidFraction
-			row.ValidFraction, row.Mean, row.Gauges = &vf, sm.Mean, sm.Gauges
+			row.ValidFraction, row.Mode, row.Mean, row.Gauges = &vf, sm.Mode, sm.Mean, sm.Gauges
 			for k := range sm.Mean {
 				means[k] = true
 			}
@@ -301,12 +306,24 @@ func (s *Server) curveCSV(w http.ResponseWriter, r *http.Request, sr *jobs.Serie
 	w.Header().Set("Content-Type", "text/csv; charset=utf-8")
 	w.Header().Set("Content-Disposition", `attachment; filename="curve.csv"`)
 	cw := csv.NewWriter(w)
+	modes := false
+	for _, row := range rows {
+		modes = modes || row.Mode != ""
+	}
 	head := []string{"frame", "time", "load", "state", "valid_fraction"}
+	if modes {
+		head = append(head, "mode")
+	}
 	for _, k := range means {
 		head = append(head, "mean_"+k)
 	}
 	for _, k := range gauges {
-		head = append(head, "gauge_"+k)
+		// The series engine names its readings like the columns of its
+		// own curve (gauge_<name>_<component>_mean, ext_<name>_eng).
+		if !strings.HasPrefix(k, "gauge_") && !strings.HasPrefix(k, "ext_") {
+			k = "gauge_" + k
+		}
+		head = append(head, k)
 	}
 	_ = cw.Write(head)
 	num := func(p *float64) string {
@@ -317,6 +334,9 @@ func (s *Server) curveCSV(w http.ResponseWriter, r *http.Request, sr *jobs.Serie
 	}
 	for _, row := range rows {
 		rec := []string{strconv.Itoa(row.Frame), num(row.Time), num(row.Load), string(row.State), num(row.ValidFraction)}
+		if modes {
+			rec = append(rec, row.Mode)
+		}
 		for _, k := range means {
 			if v, ok := row.Mean[k]; ok {
 				rec = append(rec, num(&v))

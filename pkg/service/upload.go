@@ -166,11 +166,17 @@ func (s *Server) checkParams(raw []byte, w, h int) (analysis.Params, error) {
 	if err := p.Validate(w, h); err != nil {
 		return p, err
 	}
+	return p, s.checkPoints(p, w, h)
+}
+
+// checkPoints checks the number of grid points p gives on a w×h image
+// against the server limit.
+func (s *Server) checkPoints(p analysis.Params, w, h int) error {
 	if p.Step > 0 {
 		if n := (w/p.Step + 1) * (h/p.Step + 1); n > s.cfg.MaxPoints {
-			return p, &analysis.ValidationError{Problems: []analysis.Problem{{Field: "step",
+			return &analysis.ValidationError{Problems: []analysis.Problem{{Field: "step",
 				Message: fmt.Sprintf("is %d px, giving about %d grid points on the %d×%d image, over the server limit of %d; use a larger step or a smaller ROI", p.Step, n, w, h, s.cfg.MaxPoints)}}}
 		}
 	}
-	return p, nil
+	return nil
 }

@@ -48,6 +48,12 @@ func (s *Server) runJob(base context.Context, d jobs.Delivery) {
 	id := d.ID()
 	ctx := context.Background()
 	l := s.log.With("job", id)
+	if !s.waitPrevious(base, id, d) {
+		// Frame n of a series needs frame n−1's tracker state: put it back
+		// until the previous frame has finished.
+		_ = d.Nak()
+		return
+	}
 	now := time.Now().UTC()
 	j, err := s.store.UpdateJob(ctx, id, func(j *jobs.Job) error {
 		if j.State != jobs.Queued {
@@ -104,6 +110,12 @@ func (s *Server) runJob(base context.Context, d jobs.Delivery) {
 	if err == nil {
 		names, err = s.storeResults(ctx, j.ID, res)
 	}
+	if err == nil && res.State != nil {
+		// The new state goes in before the frame counts as done; the state
+		// it was made from is kept until then, so a crash in between
+		// repeats the frame from the same start.
+		err = s.blobs.Put(ctx, stateKey(j.Series, j.FrameIndex), bytes.NewReader(res.State))
+	}
 	cause := context.Cause(jctx)
 	if err != nil && jctx.Err() == nil {
 		cause = nil // failed on its own, not because it was stopped
@@ -121,6 +133,9 @@ func (s *Server) runJob(base context.Context, d jobs.Delivery) {
 			return nil
 		})
 		s.metrics.jobDone(final, sum.Points, secs)
+		if err == nil && res.State != nil {
+			s.dropOldState(ctx, j)
+		}
 	case errors.Is(cause, errShutdown):
 		l.Info("job interrupted by shutdown: back in the queue")
 		_, err = s.store.UpdateJob(ctx, id, func(j *jobs.Job) error {
@@ -172,8 +187,130 @@ func failureFor(err, cause error, timeout time.Duration) *jobs.Failure {
 	return &jobs.Failure{Title: "Analysis failed", Detail: err.Error()}
 }
 
+// frameWait is how long a worker holds a frame whose predecessor has not
+// finished before putting it back in the queue. Waiting in place rather
+// than putting it back at once spares the deliveries of a backend that
+// counts them; the limit frees the worker if the predecessor is still
+// queued behind it.
+const frameWait = 10 * time.Second
+
+// waitPrevious waits, for at most frameWait, until job id may run (see
+// frameReady), telling the queue from time to time that the delivery is
+// still held. It reports whether it may.
+func (s *Server) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
+	deadline := time.Now().Add(frameWait)
+	beat := time.Now()
+	for wait := 10 * time.Millisecond; ; wait = min(2*wait, 250*time.Millisecond) {
+		if s.frameReady(context.Background(), id) {
+			return true
+		}
+		if time.Now().After(deadline) {
+			return false
+		}
+		if time.Since(beat) > 2*time.Second {
+			beat = time.Now()
+			_ = d.InProgress()
+		}
+		select {
+		case <-ctx.Done():
+			return false
+		case <-time.After(wait):
+		}
+	}
+}
+
+// missingFrameWait is how long a frame waits for the record of its
+// predecessor to appear (its index is reserved before the record is
+// written); after that the predecessor counts as never accepted.
+const missingFrameWait = time.Minute
+
+// frameReady reports whether job id may run now: anything but a series
+// frame may; frame n of a series may once frame n−1 has finished
+// (succeeded, failed or canceled), so that the frames of one series run
+// one at a time and in order while different series run in parallel.
+func (s *Server) frameReady(ctx context.Context, id string) bool {
+	j, err := s.store.Job(ctx, id)
+	if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
+		return true // the normal path deals with it
+	}
+	sr, err := s.store.Series(ctx, j.Series)
+	if err != nil || j.FrameIndex > len(sr.Frames) {
+		return true
+	}
+	prev, err := s.store.Job(ctx, sr.Frames[j.FrameIndex-1])
+	switch {
+	case errors.Is(err, jobs.ErrNotFound):
+		return time.Since(j.Created) > missingFrameWait
+	case err != nil:
+		return false
+	}
+	return prev.State.Terminal()
+}
+
+// stateKey is the blob key of a series' tracker state after frame n.
+func stateKey(seriesID string, n int) string {
+	return jobs.SeriesKey(seriesID, fmt.Sprintf("state/%06d.json", n))
+}
+
+// lastDone returns the last succeeded frame of j's series before j, or nil
+// when there is none: the frame whose tracker state j continues from.
+func (s *Server) lastDone(ctx context.Context, j *jobs.Job) (*jobs.Job, error) {
+	list, err := s.frames(ctx, &jobs.Series{ID: j.Series})
+	if err != nil {
+		return nil, err
+	}
+	var last *jobs.Job
+	for _, f := range list {
+		if f.FrameIndex < j.FrameIndex && f.State == jobs.Succeeded {
+			last = f
+		}
+	}
+	return last, nil
+}
+
+// dropOldState removes the tracker state j was computed from, now that
+// j's own state is stored and j is recorded as done.
+func (s *Server) dropOldState(ctx context.Context, j *jobs.Job) {
+	last, err := s.lastDone(ctx, j)
+	if err == nil && last != nil {
+		err = s.blobs.Delete(ctx, stateKey(j.Series, last.FrameIndex))
+	}
+	if err != nil {
+		s.log.Warn("remove old series state", "job", j.ID, "error", err)
+	}
+}
+
+// computeFrame runs series frame j through the series engine, from the
+// state after the last frame that succeeded before it.
+func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer) (*Result, error) {
+	in := FrameInput{Params: j.Params, Name: fmt.Sprintf("frame_%d", j.FrameIndex), Time: j.Time, Load: j.Load, Threads: s.cfg.JobThreads}
+	var err error
+	if in.Ref, err = s.loadImage(ctx, jobs.SeriesKey(j.Series, "reference")); err != nil {
+		return nil, err
+	}
+	if in.Def, err = s.loadImage(ctx, jobs.InputKey(j.ID, "deformed")); err != nil {
+		return nil, err
+	}
+	last, err := s.lastDone(ctx, j)
+	if err != nil {
+		return nil, err
+	}
+	if last != nil {
+		if in.State, err = s.readBlob(ctx, stateKey(j.Series, last.FrameIndex)); err != nil {
+			return nil, fmt.Errorf("series state after frame %d: %w; the series cannot continue, start a new series", last.FrameIndex, err)
+		}
+		if in.Last, err = s.loadImage(ctx, jobs.InputKey(last.ID, "deformed")); err != nil {
+			return nil, err
+		}
+	}
+	return fa.Frame(ctx, in)
+}
+
 // compute loads the inputs of j and runs the analyzer.
 func (s *Server) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Result, error) {
+	if fa, ok := s.cfg.Analyzer.(FrameAnalyzer); ok && j.Kind == jobs.Frame && !j.HasMask {
+		return s.computeFrame(ctx, j, fa)
+	}
 	var in Input
 	if err := json.Unmarshal(j.Params, &in.Params); err != nil {
 		return nil, fmt.Errorf("stored parameters: %w", err)

@@ -65,8 +65,20 @@ type Summary struct {
 	// (u, v, E11, E22, E12, …).
 	Mean map[string]float64 `json:"mean,omitempty"`
 	// Gauges holds named gauge values (extensometers, virtual gauges) when
-	// the engine computes them.
+	// the engine computes them, under the column names of a series curve:
+	// "ext_<name>_eng", "ext_<name>_true", "ext_<name>_stretch",
+	// "gauge_<name>_<component>_mean" and "_std".
 	Gauges map[string]float64 `json:"gauges,omitempty"`
+	// Mode says how the series engine correlated a frame: "direct" (with
+	// the reference) or "incremental" (with the previous frame, composed).
+	// Empty for analyses.
+	Mode string `json:"mode,omitempty"`
+	// MeanZNCC is the mean ZNCC over the valid points (of the last
+	// increment in incremental mode); Tracked the fraction of the points
+	// valid in a series' first frame that are still valid. Series frames
+	// only.
+	MeanZNCC *float64 `json:"mean_zncc,omitempty"`
+	Tracked  *float64 `json:"tracked_fraction,omitempty"`
 	// Seconds is the compute time of the job.
 	Seconds float64 `json:"seconds"`
 }
