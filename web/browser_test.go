@@ -613,6 +613,14 @@ func (b *browser) wait(cond string, d time.Duration, msg string) {
 	}
 }
 
+// tryWait reports whether cond becomes true within d.
+func (b *browser) tryWait(cond string, d time.Duration) bool {
+	ctx, cancel := context.WithTimeout(b.ctx, d)
+	defer cancel()
+	_, err := chromedp.Run(ctx, chromedp.Poll[bool](cond, chromedp.WithPollingInterval(100*time.Millisecond)))
+	return err == nil
+}
+
 // waitResult waits until a result is shown, failing early on an error box.
 func (b *browser) waitResult(d time.Duration) {
 	b.t.Helper()
@@ -666,8 +674,16 @@ func (b *browser) centrePoint() int {
 		const f = mottlePreview.view.field;
 		const cx = (f.xs[0] + f.xs[f.nx - 1]) / 2, cy = (f.ys[0] + f.ys[f.ny - 1]) / 2;
 		let best = -1, bd = Infinity;
+		// A valid point whose eight neighbours are valid too, so that the
+		// point is inside the measured area even where the field has holes.
+		const inner = k => {
+			const i = k % f.nx, j = Math.floor(k / f.nx);
+			if (i < 1 || j < 1 || i > f.nx - 2 || j > f.ny - 2) return false;
+			for (let dj = -1; dj <= 1; dj++) for (let di = -1; di <= 1; di++) if (!f.ok[k + dj * f.nx + di]) return false;
+			return true;
+		};
 		for (let k = 0; k < f.n; k++) {
-			if (!f.ok[k]) continue;
+			if (!inner(k)) continue;
 			const d = (f.X[k] - cx) ** 2 + (f.Y[k] - cy) ** 2;
 			if (d < bd) { bd = d; best = k; }
 		}
@@ -693,10 +709,22 @@ func (b *browser) hover(k int) map[string]float64 {
 	if k < 0 {
 		b.t.Fatal("the field has no valid point")
 	}
-	b.run("scroll to the map", eval(`document.getElementById("map-canvas").scrollIntoView({block: "center"})`))
-	p := value[[]float64](b, fmt.Sprintf(`(() => { const f = mottlePreview.view.field; return mottlePreview.toClient(f.X[%d], f.Y[%d]); })()`, k, k))
-	b.run("hover", chromedp.MouseEvent(input.DispatchMouseEventTypeMouseMoved, p[0]-3, p[1]-3), chromedp.MouseEvent(input.DispatchMouseEventTypeMouseMoved, p[0], p[1]))
-	b.wait(fmt.Sprintf(`document.getElementById("readout-where").dataset.k === "%d"`, k), 5*time.Second, "the read-out did not follow the pointer")
+	// The page may still be laying itself out (lists of earlier results
+	// arrive after the map), so the pointer position is recomputed and the
+	// move repeated a few times before the read-out is declared stuck.
+	want := fmt.Sprintf(`document.getElementById("readout-where").dataset.k === "%d"`, k)
+	for attempt := 0; ; attempt++ {
+		b.run("scroll to the map", eval(`document.getElementById("map-canvas").scrollIntoView({block: "center"})`))
+		p := value[[]float64](b, fmt.Sprintf(`(() => { const f = mottlePreview.view.field; return mottlePreview.toClient(f.X[%d], f.Y[%d]); })()`, k, k))
+		b.run("hover", chromedp.MouseEvent(input.DispatchMouseEventTypeMouseMoved, p[0]-3, p[1]-3), chromedp.MouseEvent(input.DispatchMouseEventTypeMouseMoved, p[0], p[1]))
+		if attempt == 2 {
+			b.wait(want, 5*time.Second, "the read-out did not follow the pointer")
+			break
+		}
+		if b.tryWait(want, time.Second) {
+			break
+		}
+	}
 	rows := value[[][]string](b, `[...document.querySelectorAll("#readout tbody tr")].map(r => [r.dataset.q, r.cells[1].textContent, r.cells[1].dataset.value])`)
 	out := map[string]float64{}
 	for _, r := range rows {

@@ -2,7 +2,6 @@ package main
 
 import (
 	"context"
-	"errors"
 	"fmt"
 	"log/slog"
 	"net"
@@ -11,11 +10,10 @@ import (
 	"strings"
 	"time"
 
-	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/demo"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/service"
 	"github.com/mottledic/mottle/pkg/service/natsjs"
-	"github.com/mottledic/mottle/pkg/synth"
 	"github.com/mottledic/mottle/web"
 )
 
@@ -64,7 +62,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 		Backend: be, Analyzer: service.Pipeline{}, Logger: log,
 		Workers: *workers, MaxBodyBytes: *maxBody << 20, MaxPixels: *maxPixels, MaxPoints: *maxPoints,
 		JobTimeout: *jobTimeout, ReadTimeout: *readTimeout, WriteTimeout: *writeTimeout,
-		ShutdownGrace: *grace, Retention: *retention, Tokens: tokens, Demo: demoPair,
+		ShutdownGrace: *grace, Retention: *retention, Tokens: tokens, Demo: demo.Pair,
 	}
 	if *cors != "" {
 		for _, o := range strings.Split(*cors, ",") {
@@ -127,19 +125,4 @@ func loadTokens(list, file string) ([]string, error) {
 func isLoopback(a net.Addr) bool {
 	tcp, ok := a.(*net.TCPAddr)
 	return ok && tcp.IP.IsLoopback()
-}
-
-// demoPair renders the built-in demo for POST /v1/demo: an invented
-// Brackwater Materials Lab coupon, 256×256 px, stretched 0.5 % along x with
-// a lateral contraction of 0.15 % and shifted by (2.3, −1.1) px.
-func demoPair(ctx context.Context) (ref, def *imageio.Gray, p analysis.Params, err error) {
-	m := synth.Affine{F: [2][2]float64{{1.005, 0}, {0, 0.9985}}, CX: 128, CY: 128, U: 2.3, V: -1.1}
-	ref, def, err = synth.Pair(synth.PatternOptions{Diameter: 4, Seed: 2026}, m,
-		synth.RenderOptions{W: 256, H: 256, Bits: 8, Noise: 1, Seed: 7})
-	if err != nil {
-		return nil, nil, p, errors.Join(errors.New("render demo pair"), err)
-	}
-	p = analysis.Defaults()
-	p.Subset, p.Step = 25, 8
-	return ref, def, p, nil
 }
