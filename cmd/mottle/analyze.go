@@ -199,6 +199,9 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	}
 	printSummary(e.stdout, res.Field, res.Elapsed)
 	fmt.Fprintf(e.stdout, "results: %s/ (field.json, field.csv, field.vts, field.npz, npy/, maps/)\n", *out)
+	if res.Correlation.Stats.OK == 0 {
+		return fmt.Errorf("no point could be matched (%d seed attempts failed): if the specimen moved more than --search %d px at the seed, raise --search, or give a --seed x,y on well-textured speckles; check that --ref and --def show the same specimen", len(res.Correlation.Seeds), p.Search)
+	}
 	return nil
 }
 
