@@ -12,6 +12,7 @@ import (
 	"strings"
 	"syscall"
 	"testing"
+	"time"
 
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/service"
@@ -155,12 +156,21 @@ func TestSeriesTracker(t *testing.T) {
 	// together: the second must still start from the first's state.
 	var last jobDoc
 	for n, img := range frames {
-		j := postFrame(t, ts, sid, n, factors[n], img, n < 3)
-		if n >= 3 {
-			j = ts.waitDone(t, fmt.Sprintf("/v1/series/%s/frames/%d", sid, n))
+		if j := postFrame(t, ts, sid, n, factors[n], img, n < 3); n < 3 {
+			checkFrame(t, n, factors[n], j)
 		}
-		checkFrame(t, n, factors[n], j)
-		last = j
+	}
+	for n := 3; n < len(frames); n++ {
+		last = ts.waitDone(t, fmt.Sprintf("/v1/series/%s/frames/%d", sid, n))
+		checkFrame(t, n, factors[n], last)
+	}
+	// Frames 3 and 4 were queued together for two workers: frame 4 must
+	// have started only after frame 3 finished.
+	type times struct{ Started, Finished time.Time }
+	_, b3 := ts.do(t, "GET", "/v1/series/"+sid+"/frames/3", "", nil)
+	_, b4 := ts.do(t, "GET", "/v1/series/"+sid+"/frames/4", "", nil)
+	if t3, t4 := decodeJSON[times](t, b3), decodeJSON[times](t, b4); t4.Started.Before(t3.Finished) {
+		t.Errorf("frame 4 started at %v, before frame 3 finished at %v", t4.Started, t3.Finished)
 	}
 	resp, b := ts.do(t, "GET", "/v1/series/"+sid+"/curve.csv", "", nil)
 	if resp.StatusCode != 200 {
