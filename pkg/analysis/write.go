@@ -140,7 +140,9 @@ func DeformedPositions(f *field.Field) (xs, ys []float64, err error) {
 }
 
 // Write writes the results folder dir: the field in every format (see
-// field.WriteDir), the reference and deformed images as PNG, PNG maps of
+// field.WriteDir), its spatial (Eulerian) view on a regular grid of the
+// deformed image as spatial.npz and spatial.vts (see Spatial), the
+// reference and deformed images as PNG, PNG maps of
 // the DefaultMaps over the reference image, E11 and E22 over the deformed
 // image, and a displacement vector plot under maps/. It returns the paths
 // written. Maps of quantities the field lacks (or with no valid value) are
@@ -153,6 +155,19 @@ func Write(dir string, f *field.Field, ref, def *imageio.Gray) ([]string, error)
 	}
 	if ref == nil || def == nil {
 		return paths, nil
+	}
+	if hasFinite(f, "u") && f.Grid.Nx > 1 && f.Grid.Ny > 1 {
+		sp, err := Spatial(f, def.W, def.H)
+		if err != nil {
+			return paths, fmt.Errorf("results folder: %w", err)
+		}
+		for name, enc := range map[string]func(io.Writer, *field.Field) error{"spatial.npz": field.WriteNPZ, "spatial.vts": field.WriteVTS} {
+			p := filepath.Join(dir, name)
+			if err := field.WriteFileAtomic(p, 0o644, func(w io.Writer) error { return enc(w, sp) }); err != nil {
+				return paths, fmt.Errorf("results folder: %w", err)
+			}
+			paths = append(paths, p)
+		}
 	}
 	for name, g := range map[string]*imageio.Gray{"reference.png": ref, "deformed.png": def} {
 		p := filepath.Join(dir, name)
