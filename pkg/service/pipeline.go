@@ -76,9 +76,20 @@ func Encode(f *field.Field) (*Result, error) {
 		}
 	}
 	sum := jobs.Summary{Points: g.Len(), Mean: map[string]float64{}}
-	for _, st := range f.Status {
-		if st == "ok" {
-			sum.Valid++
+	// Valid counts the measured points (a displacement), as the field's
+	// "valid" quantity does; points without a strain value are still
+	// measured.
+	if vals, ok := f.Get("valid"); ok {
+		for _, v := range vals {
+			if v == 1 {
+				sum.Valid++
+			}
+		}
+	} else {
+		for _, st := range f.Status {
+			if st == "ok" {
+				sum.Valid++
+			}
 		}
 	}
 	if sum.Points > 0 {
