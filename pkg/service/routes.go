@@ -49,6 +49,7 @@ func (s *Server) routes() http.Handler {
 		r.Post("/v1/analyses", s.postAnalysis)
 		r.Get("/v1/analyses", s.listAnalyses)
 		r.Post("/v1/demo", s.postDemo)
+		r.Post("/v1/images/inspect", s.inspect)
 		r.Delete(analysisPath, s.analysis(s.deleteAnalysis))
 		r.Post(analysisPath+"/cancel", s.analysis(s.cancelAnalysis))
 

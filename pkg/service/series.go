@@ -6,8 +6,6 @@ import (
 	"encoding/csv"
 	"errors"
 	"fmt"
-	"io"
-	"mime"
 	"net/http"
 	"sort"
 	"strconv"
@@ -134,17 +132,6 @@ func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 	if s.queueFull(w, r) {
 		return
 	}
-	ct := r.Header.Get("Content-Type")
-	if mt, _, _ := mime.ParseMediaType(ct); ct == "" || strings.HasPrefix(mt, "multipart/") {
-		writeProblem(w, r, problem(http.StatusUnsupportedMediaType, "unsupported-media-type", "Unsupported media type",
-			fmt.Sprintf("the frame has Content-Type %q; send the image file as the raw body with its type, e.g. curl --data-binary @frame.tif -H 'Content-Type: image/tiff'", ct),
-			FieldProblem{"Content-Type", "use image/png, image/tiff, image/jpeg, image/bmp or application/octet-stream"}))
-		return
-	}
-	if err := checkImageType("body", ct); err != nil {
-		writeProblem(w, r, err.(*Problem))
-		return
-	}
 	var opts struct {
 		time, load *float64
 		wait       bool
@@ -159,14 +146,9 @@ func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 		writeProblem(w, r, err.(*Problem))
 		return
 	}
-	body, err := io.ReadAll(http.MaxBytesReader(w, r.Body, s.cfg.MaxBodyBytes))
+	body, g, err := s.readRawImage(w, r, "the frame")
 	if err != nil {
-		writeProblem(w, r, asProblem(bodyErr(err, "body"), "body"))
-		return
-	}
-	g, err := s.decode("body", body)
-	if err != nil {
-		writeProblem(w, r, err.(*Problem))
+		writeProblem(w, r, asProblem(err, "body"))
 		return
 	}
 	if g.W != sr.Width || g.H != sr.Height {

@@ -1,0 +1,169 @@
+package service
+
+import (
+	"bytes"
+	"encoding/base64"
+	"fmt"
+	"math"
+	"mime"
+	"net/http"
+	"strings"
+
+	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/imageio"
+)
+
+// Inspection is the answer of POST /v1/images/inspect: what the server
+// reads from one image, for a client that cannot decode the file itself
+// (TIFF, 16-bit PNG).
+type Inspection struct {
+	// Width and Height are the image size in px.
+	Width  int `json:"width"`
+	Height int `json:"height"`
+	// Bits is the sample depth as decoded: 8 or 16 (a 12-bit camera image
+	// in a 16-bit container reads as 16, with levels 0–4095).
+	Bits int `json:"bits"`
+	// Grey holds the grey-level statistics over every pixel, in the
+	// image's native scale.
+	Grey GreyStats `json:"grey"`
+	// SpeckleSizePx is the autocorrelation speckle size in px
+	// (imageio.SpeckleSize), or nil when it cannot be measured; then
+	// SpeckleError says why.
+	SpeckleSizePx *float64 `json:"speckle_size_px"`
+	// SpeckleError explains a missing speckle size.
+	SpeckleError string `json:"speckle_error,omitempty"`
+	// Advice is the subset and step suggested for the speckle size, or
+	// nil without one.
+	Advice *Advice `json:"advice,omitempty"`
+	// PreviewPNG is a data URL of an 8-bit grey PNG of the whole image at
+	// full size, its grey range stretched from min → 0 to max → 255.
+	PreviewPNG string `json:"preview_png"`
+}
+
+// GreyStats are grey-level statistics of an image; Std is the population
+// standard deviation.
+type GreyStats struct {
+	Mean float64 `json:"mean"`
+	Std  float64 `json:"std"`
+	Min  float64 `json:"min"`
+	Max  float64 `json:"max"`
+}
+
+// Advice is the parameter advice that follows from a speckle size s: at
+// least 3 speckles across a subset (iDICs, "A Good Practices Guide for
+// Digital Image Correlation", Jones & Iadicola (eds.), 2018; from memory),
+// counting the gaps between speckles of about equal dark and light area a
+// pitch of about 2 s (common practice), and a step of a third to a half of
+// the subset (common practice). It follows the browser page's advice in
+// web/static/js/speckle.js.
+type Advice struct {
+	// MinSubsetPx is the smallest odd subset that holds 3 speckles across:
+	// 3 s rounded up to odd.
+	MinSubsetPx int `json:"min_subset_px"`
+	// SubsetPx is the suggested subset: 3 speckle pitches, 6 s rounded up
+	// to odd.
+	SubsetPx int `json:"subset_px"`
+	// StepMinPx and StepMaxPx bound the suggested step for SubsetPx: a
+	// third and a half of it, rounded.
+	StepMinPx int `json:"step_min_px"`
+	StepMaxPx int `json:"step_max_px"`
+}
+
+// advise returns the advice for speckle size s px; subsets are kept within
+// the analysis limits (odd, 7 … analysis.MaxSubset).
+func advise(s float64) *Advice {
+	odd := func(v float64) int {
+		n := int(math.Ceil(v))
+		if n%2 == 0 {
+			n++
+		}
+		return min(max(n, 7), analysis.MaxSubset)
+	}
+	a := &Advice{MinSubsetPx: odd(3 * s), SubsetPx: odd(6 * s)}
+	a.StepMinPx = max(1, int(math.Round(float64(a.SubsetPx)/3)))
+	a.StepMaxPx = max(1, int(math.Round(float64(a.SubsetPx)/2)))
+	return a
+}
+
+// inspect answers POST /v1/images/inspect: the raw body is one image,
+// under the same body and pixel limits as uploads.
+func (s *Server) inspect(w http.ResponseWriter, r *http.Request) {
+	_, g, err := s.readRawImage(w, r, "the image")
+	if err != nil {
+		writeProblem(w, r, asProblem(err, "body"))
+		return
+	}
+	res, err := inspectImage(g)
+	if err != nil {
+		writeProblem(w, r, asProblem(err, "body"))
+		return
+	}
+	w.Header().Set("Cache-Control", "no-store")
+	writeJSON(w, http.StatusOK, res)
+}
+
+// inspectImage measures g and renders its stretched preview.
+func inspectImage(g *imageio.Gray) (*Inspection, error) {
+	mean, std, lo, hi := imageio.Stats(g)
+	res := &Inspection{Width: g.W, Height: g.H, Bits: g.Bits, Grey: GreyStats{mean, std, lo, hi}}
+	if sz, err := imageio.SpeckleSize(g); err != nil {
+		res.SpeckleError = err.Error()
+	} else {
+		res.SpeckleSizePx = &sz
+		res.Advice = advise(sz)
+	}
+	// The preview: min → 0, max → 255, so 12- and 16-bit images with a
+	// narrow range are visible; a flat image is black.
+	p := imageio.NewGray(g.W, g.H)
+	scale := 0.0
+	if hi > lo {
+		scale = 255 / (hi - lo)
+	}
+	for y := 0; y < g.H; y++ {
+		src, dst := g.Pix[y*g.Stride:y*g.Stride+g.W], p.Pix[y*p.Stride:y*p.Stride+g.W]
+		for x, v := range src {
+			dst[x] = float32((float64(v) - lo) * scale)
+		}
+	}
+	var buf bytes.Buffer
+	if err := imageio.WritePNG(&buf, p, 8); err != nil {
+		return nil, fmt.Errorf("encode the preview of the %d×%d px image: %w", g.W, g.H, err)
+	}
+	res.PreviewPNG = "data:image/png;base64," + base64.StdEncoding.EncodeToString(buf.Bytes())
+	return res, nil
+}
+
+// readRawImage reads a request whose raw body is one image file (not
+// multipart), checking its Content-Type, the body limit and, from the
+// image header before decoding, the pixel limit. what names the body in
+// the messages ("the frame", "the image"). Errors are problems.
+func (s *Server) readRawImage(w http.ResponseWriter, r *http.Request, what string) ([]byte, *imageio.Gray, error) {
+	ct := r.Header.Get("Content-Type")
+	if mt, _, _ := mime.ParseMediaType(ct); ct == "" || strings.HasPrefix(mt, "multipart/") {
+		return nil, nil, problem(http.StatusUnsupportedMediaType, "unsupported-media-type", "Unsupported media type",
+			fmt.Sprintf("%s has Content-Type %q; send the image file as the raw body with its type, e.g. curl --data-binary @frame.tif -H 'Content-Type: image/tiff'", what, ct),
+			FieldProblem{"Content-Type", "use image/png, image/tiff, image/jpeg, image/bmp or application/octet-stream"})
+	}
+	if err := checkImageType("body", ct); err != nil {
+		return nil, nil, err
+	}
+	body, err := readAllLimited(w, r, s.cfg.MaxBodyBytes)
+	if err != nil {
+		return nil, nil, asProblem(bodyErr(err, "body"), "body")
+	}
+	g, err := s.decode("body", body)
+	if err != nil {
+		return nil, nil, err
+	}
+	return body, g, nil
+}
+
+// readAllLimited reads the whole request body, at most limit bytes.
+func readAllLimited(w http.ResponseWriter, r *http.Request, limit int64) ([]byte, error) {
+	var buf bytes.Buffer
+	if r.ContentLength > 0 && r.ContentLength <= limit {
+		buf.Grow(int(r.ContentLength))
+	}
+	_, err := buf.ReadFrom(http.MaxBytesReader(w, r.Body, limit))
+	return buf.Bytes(), err
+}
