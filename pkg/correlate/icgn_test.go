@@ -46,7 +46,10 @@ func newTestSolver(t *testing.T, ref, def *imageio.Gray, opt Options) *solver {
 	return newSolver(ref, gx, gy, rs, ds, &opt, 0)
 }
 
-// The factorised first-order Hessian equals the explicit Σ JᵀJ.
+// The factorised first-order Hessian equals the explicit Σ JᵀJ of the
+// inverse compositional Gauss–Newton method (Baker & Matthews 2004, "Lucas-
+// Kanade 20 years on: a unifying framework", IJCV 56(3):221; Pan, Li & Tong
+// 2013, Exp. Mech. 53:1277).
 func TestHessian1MatchesExplicit(t *testing.T) {
 	id := func(x, y float64) (float64, float64) { return x, y }
 	img := gaussImage(60, 60, 1, id)
@@ -71,8 +74,10 @@ func TestHessian1MatchesExplicit(t *testing.T) {
 	}
 }
 
-// IC-GN recovers an exactly known affine map of an analytic image, for
-// both shape functions and both spline orders, from a guess 1.5 px off.
+// IC-GN (Baker & Matthews 2004; Pan, Li & Tong 2013) recovers an exactly
+// known affine map of an analytic image (Gaussian spots evaluated in closed
+// form, no renderer involved), for both shape functions and both spline
+// orders, from a guess 1.5 px off.
 func TestSolveAnalytic(t *testing.T) {
 	// def(x) = ref(X) with x = X + u(X): sample the spots at X = A⁻¹(x − c) + c − t.
 	a := [2][2]float64{{1.02, 0.01}, {-0.015, 0.99}}
@@ -112,7 +117,10 @@ func TestSolveAnalytic(t *testing.T) {
 }
 
 // compose2 must agree with composing the two quadratic maps directly, up
-// to the truncated third- and fourth-order terms, which vanish as dp → 0.
+// to the truncated third- and fourth-order terms, which vanish as dp → 0
+// (the inverse compositional update W(p) ← W(p) ∘ W(Δp)⁻¹ of Baker &
+// Matthews 2004; for first-order warps the composition is the exact
+// product of affine maps).
 func TestCompose2(t *testing.T) {
 	p := [12]float64{1.2, 0.02, -0.01, -0.7, 0.015, 0.03, 1e-3, -5e-4, 2e-4, -3e-4, 4e-4, 1e-4}
 	dp := [12]float64{0.05, 1e-3, -2e-3, 0.03, 1.5e-3, -1e-3, 2e-5, -1e-5, 3e-5, 1e-5, -2e-5, 1e-5}
@@ -144,7 +152,8 @@ func TestCompose2(t *testing.T) {
 }
 
 // Recentre keeps the displacement field: the recentred shape function
-// evaluated at offset (x − d) gives the original at x.
+// evaluated at offset (x − d) gives the original at x (a Taylor polynomial
+// re-expanded about another point; common practice).
 func TestRecentre(t *testing.T) {
 	P := [12]float64{1, 0.01, -0.02, 2, 0.03, 0.005, 1e-3, 2e-3, -1e-3, 4e-4, -5e-4, 6e-4}
 	q := Recentre(P, 8, -5)

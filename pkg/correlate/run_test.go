@@ -148,8 +148,8 @@ func TestBadInputs(t *testing.T) {
 }
 
 // Starting from a previous result (as a series does frame to frame) gives
-// an accurate answer without a seed search; RunPoints
-// at off-grid positions agrees with the truth.
+// an accurate answer without a seed search; RunPoints at off-grid positions
+// agrees with the closed-form displacement of the applied affine map.
 func TestStartGuessesAndRunPoints(t *testing.T) {
 	m0 := synth.Affine{F: [2][2]float64{{1.004, 0.001}, {0, 0.998}}, CX: 100, CY: 100, U: 2.2, V: 1.1}
 	m1 := synth.Affine{F: [2][2]float64{{1.006, 0.001}, {0, 0.997}}, CX: 100, CY: 100, U: 2.6, V: 1.3}

@@ -10,13 +10,15 @@ import (
 
 // TestDemoAgainstKirsch analyses the built-in demo and compares it with
 // its exact truth: the Kirsch plate-with-a-hole field (Kirsch 1898; stresses
-// as in Timoshenko & Goodier, Theory of Elasticity), rendered exactly by
-// pkg/synth. Bounds: the displacement error is set by the camera noise
+// as in Timoshenko & Goodier, Theory of Elasticity; the displacement form is
+// from memory and checked against those stresses by pkg/synth TestKirsch),
+// rendered exactly by pkg/synth. Bounds: the displacement error is set by the camera noise
 // (σ = 1.5 grey levels on 8-bit images: the predicted std of u is about
 // 0.003 px, Wang et al. 2007), so an RMS error of 0.01 px leaves room for
 // interpolation bias; the strain error against the truth seen through the
-// same subset and strain window is the correlation's own, noise over a 63 px gauge,
-// bounded at 3e-4. The measured peak on the ligament must show the
+// same subset and strain window is the correlation's own, noise over a 63 px
+// gauge (VSG = (window − 1)·step + subset, form from memory), bounded at
+// 3e-4. The measured peak on the ligament must show the
 // concentration: above 1.4× the remote strain S/E.
 func TestDemoAgainstKirsch(t *testing.T) {
 	ctx := context.Background()

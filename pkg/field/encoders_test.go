@@ -342,11 +342,12 @@ func TestNPZ(t *testing.T) {
 // Cross-check with NumPy itself (numpy.load through Debian's
 // /usr/bin/python3; .ci/run installs python3-numpy): every .npy and the .npz
 // load with the right shape and values, compared against field.json read by
-// Python's own json module.
+// Python's own json module. A missing NumPy fails the test (it never
+// skips), naming the Debian package to install.
 func TestFilesWithNumPy(t *testing.T) {
 	py := "/usr/bin/python3"
 	if err := exec.Command(py, "-c", "import numpy").Run(); err != nil {
-		t.Skipf("%s with numpy not available: %v", py, err)
+		t.Fatalf("%s with numpy not available (apt-get install python3-numpy): %v", py, err)
 	}
 	dir := t.TempDir()
 	f := sample(t)

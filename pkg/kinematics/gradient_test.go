@@ -102,7 +102,9 @@ func TestGradientsExact(t *testing.T) {
 	}
 }
 
-// Neighbour counts at a corner, an edge and beside a hole.
+// Neighbour counts at a corner, an edge and beside a hole, counted by hand
+// on the 5×5 window (3×3 = 9 at a corner, 3×5 = 15 on an edge, 25 − 1 next
+// to the one invalid point).
 func TestGradientsCounts(t *testing.T) {
 	g := Grid{Step: 5, Nx: 10, Ny: 10}
 	u, v := fillField(g, func(x, y float64) float64 { return 0.01 * x }, func(x, y float64) float64 { return 0 })
@@ -304,7 +306,7 @@ func TestGradientStdMonteCarlo(t *testing.T) {
 	}
 }
 
-// Results do not depend on the number of goroutines.
+// Results do not depend on the number of goroutines (project rule).
 func TestGradientsDeterministic(t *testing.T) {
 	g := Grid{Step: 3, Nx: 31, Ny: 23}
 	r := rand.New(rand.NewPCG(9, 9))
@@ -357,7 +359,10 @@ func TestGradientsErrors(t *testing.T) {
 	}
 }
 
-// VSG = (window − 1)·step + subset (iDICs Good Practices Guide 2018).
+// VSG = (window − 1)·step + subset (iDICs, "A Good Practices Guide for
+// Digital Image Correlation", Jones & Iadicola (eds.), 2018; form from
+// memory, see shared REFERENCES.md). Worked by hand: (5 − 1)·8 + 31 = 63 and
+// (15 − 1)·2 + 21 = 49.
 func TestVSG(t *testing.T) {
 	if got := VSG(5, 8, 31); got != 63 {
 		t.Errorf("VSG(5, 8, 31) = %v, want 63", got)

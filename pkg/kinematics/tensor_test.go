@@ -107,6 +107,9 @@ func TestRotationSign(t *testing.T) {
 	}
 }
 
+// For det F ≤ 0 there is no polar decomposition, hence no Hencky strain,
+// rotation or F⁻¹ (Holzapfel 2000: F must have det F > 0); those results
+// must be NaN and flagged, while E = ½(FᵀF − I) is still defined.
 func TestNonInvertible(t *testing.T) {
 	for _, F := range []Tensor{{{-1, 0}, {0, 1}}, {{1, 2}, {0.5, 1}}, {{0, 0}, {0, 0}}} {
 		m := Compute(F, HenckyMeasure)
@@ -222,7 +225,8 @@ func TestPolarAgainstGonum(t *testing.T) {
 }
 
 // Hencky strain near the isotropic case (equal eigenvalues) stays accurate:
-// F = λR gives H = ln λ·I exactly.
+// F = λR gives U = λI and so H = ln U = ln λ·I exactly (definition of the
+// Hencky strain; Holzapfel 2000, Nonlinear Solid Mechanics).
 func TestHenckyIsotropic(t *testing.T) {
 	for _, lam := range []float64{0.9, 1, 1 + 1e-9, 1.2} {
 		F := Rotation(0.4).Scale(lam)
@@ -231,6 +235,9 @@ func TestHenckyIsotropic(t *testing.T) {
 	}
 }
 
+// A diagonal tensor rotated by Q(θ) has the same principal values and its
+// major principal direction at θ (eigen-decomposition S = Q·diag·Qᵀ; common
+// practice).
 func TestPrincipalAngle(t *testing.T) {
 	for _, deg := range []float64{0, 10, 45, 89, 90, -30, -89} {
 		Q := Rotation(deg * math.Pi / 180)

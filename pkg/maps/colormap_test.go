@@ -26,7 +26,8 @@ func TestSequentialLightness(t *testing.T) {
 }
 
 // TestCoolWarmSymmetric checks Moreland's design rule for the diverging map
-// (Moreland 2009, sections 3–5): lightness symmetric about the centre, rising
+// (Moreland 2009, "Diverging color maps for scientific visualization",
+// ISVC 2009, sections 3–5; section numbers from memory): lightness symmetric about the centre, rising
 // to the centre and falling after it, with both halves of equal strength.
 func TestCoolWarmSymmetric(t *testing.T) {
 	c := CoolWarm()

@@ -62,8 +62,8 @@ func near(c color.Color, want color.NRGBA, tol int) bool {
 // TestRenderLinearField renders a known linear field over the reference
 // image and checks the colour at chosen pixels against the colour map at the
 // value the field has there. A linear field is reproduced exactly by
-// bilinear interpolation, so any difference beyond 8-bit rounding is an
-// error in placement or interpolation.
+// bilinear interpolation (common practice), so any difference beyond 8-bit
+// rounding is an error in placement or interpolation.
 func TestRenderLinearField(t *testing.T) {
 	f := func(x, y float64) float64 { return 1e-3*(x-80) - 5e-4*(y-60) }
 	hole := func(x, y float64) bool { return math.Hypot(x-100, y-70) < 12 }
@@ -218,7 +218,9 @@ func TestRenderDeterministic(t *testing.T) {
 	}
 }
 
-// TestOpacity checks source-over compositing: c·α + background·(1 − α).
+// TestOpacity checks source-over compositing: c·α + background·(1 − α)
+// (Porter & Duff 1984, "Compositing digital images", Computer Graphics
+// 18(3):253; reference from memory).
 func TestOpacity(t *testing.T) {
 	l := linearLayer(3, 3, 10, 10, 10, func(x, y float64) float64 { return 1 }, nil)
 	m, err := Render(l, flatGray(40, 40, 200), Options{Colormap: "viridis", Range: [2]float64{0, 1}, Opacity: 0.5})

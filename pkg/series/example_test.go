@@ -58,6 +58,9 @@ func Example() {
 	for _, r := range tr.Curve().Rows {
 		fmt.Printf("frame %d %-9s axial strain %.4f\n", r.Index, r.Mode, r.Extensometers[0].Eng)
 	}
+	// Rate is the true (logarithmic) strain rate d ln(1 + e)/dt: at a
+	// constant engineering rate of 0.01 /s it is 0.01/(1 + e) = 0.0097 /s
+	// at e = 0.03 (derived from the definition of true strain).
 	fmt.Printf("strain rate %.4f /s\n", *fr.Summary.Extensometers[0].Rate)
 	// Output:
 	// frame 0 reference axial strain 0.0000

@@ -161,8 +161,9 @@ func booleanHWHM(d, c float64) float64 {
 }
 
 // TestSpeckleSize: the speckle size measured from the image
-// autocorrelation (half width at half maximum, the measure the iDICs Good
-// Practices Guide 2018 suggests) is within 15 % of the requested one. The
+// autocorrelation (half width at half maximum; that the iDICs Good
+// Practices Guide 2018 suggests this measure is from memory) is within 15 %
+// of the requested one. The
 // requested size is turned into the autocorrelation that hard discs of
 // the requested diameter and coverage must show (booleanHWHM).
 func TestSpeckleSize(t *testing.T) {
@@ -188,7 +189,9 @@ func TestSpeckleSize(t *testing.T) {
 }
 
 // TestHoleRender: the reference and deformed images of a plate with a hole
-// show the hole in the Void grey, and no inverse fails.
+// show the hole in the Void grey, and no inverse fails (the Kirsch field
+// itself is checked in TestKirsch). Peak strain of the second case: 3S/E =
+// 3·16/1000 = 4.8 % at the hole edge (Kirsch 1898).
 func TestHoleRender(t *testing.T) {
 	for _, m := range []Hole{
 		{E: 70000, Nu: 0.3, Radius: 20, Stress: 300, MMPerPx: 0.01, CX: 64, CY: 64},

@@ -14,7 +14,10 @@ import (
 
 // TestChallengeMottle runs the DIC Challenge 2.0 protocol (Reu et al.
 // 2022, Exp. Mech. 62:639) on rendered star images with Mottle's first-
-// and second-order subsets and checks it against outside predictions:
+// and second-order subsets and checks it against outside predictions.
+// The star form v = A·cos(2π(y − y₀)/p(x)), A = 0.5 px, p from about 10 to
+// about 300 px, the 10 % attenuation criterion and the MEI definition used
+// here (σ_v × p₁₀, px²) are all from memory (see shared REFERENCES.md):
 //   - trends: a larger subset has lower noise and a coarser resolution;
 //   - the measured 10 % attenuation period lies in a band around the
 //     least-squares filter theory of theory.go (3.99·N for first order);
@@ -24,8 +27,9 @@ import (
 //     subsets;
 //   - the static-pair noise agrees with σ_v ≈ √2·σ/√(Σ g_y²) (Wang, Li,
 //     Tong & Ruan 2007, Exp. Mech. 47:701) within the band below;
-//   - σ_v·p₁₀ (the MEI) is nearly the same for every first-order subset,
-//     since σ ∝ 1/N and p₁₀ ∝ N for a least-squares subset estimate.
+//   - σ_v·p₁₀ (the MEI, definition from memory) is nearly the same for
+//     every first-order subset, since σ ∝ 1/N and p₁₀ ∝ N for a
+//     least-squares subset estimate.
 func TestChallengeMottle(t *testing.T) {
 	set, err := StarRender{Seed: 7}.Render()
 	if err != nil {
@@ -96,9 +100,11 @@ func checkTrends(t *testing.T, name string, rs []SubsetResult) {
 
 // TestChallengeRealImages runs the same protocol on real DIC Challenge 2.0
 // star images when MOTTLE_CHALLENGE_DIR names a folder with a
-// challenge.json (see LoadChallengeDir); otherwise it reports "not run".
-// With real images only the trends are asserted: their truth and noise are
-// the publishers'.
+// challenge.json (see LoadChallengeDir); otherwise it reports "not run"
+// and asserts nothing (the published images are not shipped with the
+// project; the same protocol is asserted on rendered star images by
+// TestChallengeMottle). With real images only the trends are asserted:
+// their truth and noise are the publishers'.
 func TestChallengeRealImages(t *testing.T) {
 	dir := os.Getenv(ChallengeEnv)
 	if dir == "" {

@@ -37,6 +37,11 @@ func idealTracker(set StarSet, sigma0 float64) Tracker {
 	}
 }
 
+// TestChallengeProtocolIdeal runs the challenge protocol (Reu et al. 2022,
+// Exp. Mech. 62:639; star form and MEI definition from memory, see shared
+// REFERENCES.md) on an ideal box-filter tracker, whose resolution has the
+// closed form of theory.go (Dirichlet kernel) and whose noise is σ₀/N, so
+// the protocol's crossing search and MEI can be checked exactly.
 func TestChallengeProtocolIdeal(t *testing.T) {
 	img := imageio.NewGray(1200, 120)
 	st := imageio.NewGray(200, 200)
@@ -76,6 +81,9 @@ func TestChallengeProtocolIdeal(t *testing.T) {
 	}
 }
 
+// crossing finds where the attenuation first falls below the level, by
+// linear interpolation between the bracketing periods (values worked by
+// hand in the table).
 func TestCrossing(t *testing.T) {
 	p := []float64{10, 20, 30, 40, 50}
 	for _, tc := range []struct {

@@ -23,8 +23,9 @@ func TestAttenuationClosedForm(t *testing.T) {
 }
 
 func TestTheoryPeriod(t *testing.T) {
-	// sin w / w = 0.9 at w = 0.786683 (solved independently with SciPy's
-	// brentq; from our run), so p₁₀ → πN/0.786683 = 3.99347·N as N grows.
+	// sin w / w = 0.9 at w = 0.786683 (scipy.optimize.brentq, SciPy 1.10
+	// via /usr/bin/python3, gives 0.78668307), so p₁₀ → πN/0.786683 =
+	// 3.99347·N as N grows (large-N limit of the Dirichlet kernel).
 	const ratio = math.Pi / 0.786683
 	for _, tc := range []struct {
 		n      int
