@@ -98,31 +98,6 @@ func checkTrends(t *testing.T, name string, rs []SubsetResult) {
 	}
 }
 
-// TestChallengeRealImages runs the same protocol on real DIC Challenge 2.0
-// star images when MOTTLE_CHALLENGE_DIR names a folder with a
-// challenge.json (see LoadChallengeDir); otherwise it reports "not run"
-// and asserts nothing (the published images are not shipped with the
-// project; the same protocol is asserted on rendered star images by
-// TestChallengeMottle). With real images only the trends are asserted:
-// their truth and noise are the publishers'.
-func TestChallengeRealImages(t *testing.T) {
-	dir := os.Getenv(ChallengeEnv)
-	if dir == "" {
-		t.Logf("real DIC Challenge 2.0 images: not run (%s is not set)", ChallengeEnv)
-		return
-	}
-	set, noise, err := LoadChallengeDir(dir)
-	if err != nil {
-		t.Fatal(err)
-	}
-	rs, err := Challenge(context.Background(), set, MottleTracker(correlate.Options{}), ChallengeOptions{ImageNoise: noise})
-	if err != nil {
-		t.Fatal(err)
-	}
-	t.Log("real images, first-order subsets\n" + ChallengeTable(rs))
-	checkTrends(t, "real images", rs)
-}
-
 // The loader must read a folder laid out as documented and name what is
 // wrong with a bad one.
 func TestLoadChallengeDir(t *testing.T) {
