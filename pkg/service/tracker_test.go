@@ -88,8 +88,9 @@ func postFrame(t *testing.T, ts *testServer, sid string, n int, f float64, img [
 
 // checkFrame checks a frame summary against the truth of the homogeneous
 // stretch scaled by f. The Green–Lagrange strain of F11 = 1 + a is
-// E11 = a + a²/2 (Holzapfel 2000, Nonlinear Solid Mechanics, the Green–Lagrange strain E = ½(FᵀF − I); equation number not given, from memory,
-// E = ½(FᵀF − I)); the extensometer's engineering strain is a itself.
+// E11 = a + a²/2 (the Green–Lagrange strain E = ½(FᵀF − I); Holzapfel
+// 2000, Nonlinear Solid Mechanics); the extensometer's engineering strain
+// is a itself.
 // Tolerance 1e-4 (0.5 % of the final strain): the series defaults (quintic
 // B-splines on images prefiltered with σ = 0.8 px) leave a gain error of
 // about 0.2 % on rendered 4 px speckles (measured, see series.Defaults),
