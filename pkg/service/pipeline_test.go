@@ -73,7 +73,10 @@ func TestPipeline(t *testing.T) {
 	if du, dv := j.Summary.Mean["u"]-u, j.Summary.Mean["v"]-v; math.Abs(du) > 0.02 || math.Abs(dv) > 0.02 {
 		t.Errorf("mean u, v = %.4f, %.4f; truth %.1f, %.1f", j.Summary.Mean["u"], j.Summary.Mean["v"], u, v)
 	}
-	if math.Abs(j.Summary.Mean["E11"]) > 1e-3 {
+	// A rigid translation has no strain (common practice); the mean over
+	// the grid of a noise-free pair is within interpolation bias, a few
+	// 1e-5 here, so 2e-4 fails on any real strain error.
+	if math.Abs(j.Summary.Mean["E11"]) > 2e-4 {
 		t.Errorf("mean E11 of a translation = %g, want ≈ 0", j.Summary.Mean["E11"])
 	}
 	if len(j.Field) == 0 {
