@@ -124,6 +124,9 @@ func TestBrowserPreview(t *testing.T) {
 	b.step("upload a pair with a known homogeneous stretch")
 	checkKnownStretch(b)
 
+	b.step("upload a 16-bit TIFF pair: preview and speckle size from the service")
+	checkTIFFPair(b)
+
 	b.step("drag and drop a file onto the deformed-image zone")
 	b.run("drop a file", eval(`(async () => {
 		const c = new OffscreenCanvas(40, 30); c.getContext('2d').fillRect(5, 5, 10, 10);
@@ -374,6 +377,83 @@ func checkKnownStretch(b *browser) {
 		if math.Abs(got-c.want) > c.tol {
 			t.Errorf("read-out %s at (%g, %g) = %.5g, truth %.5g (tolerance %g)", c.q, X, Y, got, c.want, c.tol)
 		}
+	}
+}
+
+// checkTIFFPair uploads a 16-bit TIFF pair (12-bit levels, as most
+// machine-vision cameras store them) rendered by pkg/synth with a
+// homogeneous stretch. The browser cannot decode TIFF, so the page must
+// show the service's stretched preview, its speckle size (within 15 % of
+// imageio.SpeckleSize of the rendered image, the autocorrelation measure
+// of the iDICs Good Practices Guide 2018) and run the analysis on the
+// files themselves. For F = diag(1 + a, 1 + b) the Green–Lagrange strain
+// is E11 = a + a²/2 (E = ½(FᵀF − I); Holzapfel 2000, "Nonlinear Solid
+// Mechanics", ch. 2).
+func checkTIFFPair(b *browser) {
+	t := b.t
+	t.Helper()
+	const w, h = 176, 144
+	const a, bb = 0.008, -0.003
+	m := synth.Affine{F: [2][2]float64{{1 + a, 0}, {0, 1 + bb}}, CX: float64(w-1) / 2, CY: float64(h-1) / 2}
+	ref, def, err := synth.Pair(synth.PatternOptions{Diameter: 5, Seed: 21}, m, synth.RenderOptions{W: w, H: h, Bits: 12, Noise: 4, Supersample: 2})
+	if err != nil {
+		t.Fatalf("render the TIFF pair: %v", err)
+	}
+	want, err := imageio.SpeckleSize(ref)
+	if err != nil {
+		t.Fatal(err)
+	}
+	dir := t.TempDir()
+	refPath, defPath := filepath.Join(dir, "stretch16_ref.tif"), filepath.Join(dir, "stretch16_def.tif")
+	for p, g := range map[string]*imageio.Gray{refPath: ref, defPath: def} {
+		if err := imageio.WriteFile(p, g, 16); err != nil {
+			t.Fatal(err)
+		}
+	}
+	b.run("choose the TIFF pair",
+		chromedp.SetUploadFiles(chromedp.ID("file-reference"), []string{refPath}),
+		chromedp.SetUploadFiles(chromedp.ID("file-deformed"), []string{defPath}))
+	b.wait(`/stretch16_def.*176 × 144 px/.test(document.getElementById("info-deformed").textContent) && /stretch16_ref.*176 × 144 px.*16-bit/.test(document.getElementById("info-reference").textContent)`,
+		15*time.Second, "the TIFF files were not previewed")
+	// The preview: a 12-bit image shown unstretched would be nearly black
+	// (levels up to 4095 of 65535); stretched it spans the grey range.
+	b.run("scroll to the region editor", eval(`document.getElementById("roi-canvas").scrollIntoView({block: "center"})`))
+	if n := b.number(`distinctColours(document.getElementById("roi-canvas"))`); n < 50 {
+		t.Errorf("region editor shows %v distinct colours for the TIFF reference, want a visible preview (≥ 50)", n)
+	}
+	if l := b.number(`(() => { const c = document.getElementById("roi-canvas"), d = c.getContext('2d').getImageData(0, 0, c.width, c.height).data; let s = 0; for (let p = 0; p < d.length; p += 4) s += d[p + 1]; return s / (d.length / 4); })()`); l < 40 {
+		t.Errorf("the TIFF preview has mean level %.1f of 255: not stretched", l)
+	}
+	b.shot("tiff-preview.png", "#roi-canvas")
+	shown := b.text("#adv-speckle")
+	var got float64
+	if _, err := fmt.Sscan(shown, &got); err != nil {
+		t.Fatalf("speckle size shown as %q, not a number", shown)
+	}
+	t.Logf("TIFF pair: the page shows a speckle size of %q; imageio.SpeckleSize %.3f px", shown, want)
+	if math.Abs(got-want) > 0.15*want {
+		t.Errorf("the page shows a speckle size of %.3f px, imageio.SpeckleSize gives %.3f px", got, want)
+	}
+	if !strings.Contains(shown, "measured by the service") {
+		t.Errorf("the speckle size shown for the TIFF does not say it came from the service: %q", shown)
+	}
+	if !strings.Contains(b.text("#adv-subset"), "3 speckles across") {
+		t.Errorf("no subset advice for the TIFF: %q", b.text("#adv-subset"))
+	}
+	b.run("whole image, and run", chromedp.Click(chromedp.ID("btn-roi-clear")),
+		setValue("#p-subset", "21"), setValue("#p-step", "8"), setValue("#p-window", "5"),
+		eval(`document.body.dataset.result = ""`), chromedp.Click(chromedp.ID("btn-run")))
+	b.waitResult(60 * time.Second)
+	checkMapDrawn(b)
+	b.shot("tiff-map.png", "#map-canvas")
+	if wh := b.str(`mottlePreview.state.job.width + "x" + mottlePreview.state.job.height`); wh != "176x144" {
+		t.Errorf("the analysis ran on a %s image, want the 176×144 TIFF", wh)
+	}
+	k := b.centrePoint()
+	e11 := b.number(fmt.Sprintf(`mottlePreview.view.field.value("E11", %d)`, k))
+	t.Logf("TIFF pair: E11 at the centre %.5g, truth %.5g", e11, a+a*a/2)
+	if math.Abs(e11-(a+a*a/2)) > 1e-3 {
+		t.Errorf("TIFF pair: E11 at the centre %.5g, truth %.5g (tolerance 1e-3)", e11, a+a*a/2)
 	}
 }
 

@@ -14,6 +14,8 @@ const resultFormats = ['field.json', 'field.csv', 'field.vts', 'field.npz'];
 const state = {
   files: { reference: null, deformed: null },
   bitmaps: { reference: null, deformed: null },
+  inspect: { reference: null, deformed: null }, // the service's answers for files the browser cannot show
+  fileSeq: { reference: 0, deformed: 0 },
   size: null,      // [w, h] of the reference image, when the browser could decode it
   speckle: null,
   job: null,       // current analysis record
@@ -57,8 +59,32 @@ async function decode(file) {
   try {
     return await createImageBitmap(file);
   } catch {
-    return null; // TIFF and 16-bit files: the server decodes them.
+    return null; // not a format the browser reads: the service decodes it.
   }
+}
+
+// needsService reports whether the browser cannot show file faithfully:
+// TIFF (no browser decodes it) and 16-bit PNG (decoded to 8 bits without
+// stretching, so a 12-bit camera image looks black). Both are recognised
+// from the first bytes, whatever the file name says.
+async function needsService(file) {
+  const b = new Uint8Array(await file.slice(0, 32).arrayBuffer());
+  const tiff = (b[0] === 0x49 && b[1] === 0x49 && b[2] === 42 && b[3] === 0) || (b[0] === 0x4d && b[1] === 0x4d && b[2] === 0 && b[3] === 42);
+  const png = b[0] === 0x89 && b[1] === 0x50 && b[2] === 0x4e && b[3] === 0x47;
+  return tiff || (png && b.length > 24 && b[24] === 16);
+}
+
+// inspect sends file to the service, which answers its size, bit depth,
+// speckle size and an 8-bit preview with the grey range stretched.
+async function inspect(file) {
+  const type = /^image\/(png|tiff|jpeg|bmp)$/.test(file.type) ? file.type : 'application/octet-stream';
+  const resp = await request(`${API}/images/inspect`, { method: 'POST', body: file, headers: { 'Content-Type': type } });
+  const doc = await resp.json();
+  const b64 = String(doc.preview_png || '').replace(/^data:image\/png;base64,/, '');
+  const bin = atob(b64), bytes = new Uint8Array(bin.length);
+  for (let i = 0; i < bin.length; i++) bytes[i] = bin.charCodeAt(i);
+  doc.bitmap = await createImageBitmap(new Blob([bytes], { type: 'image/png' }));
+  return doc;
 }
 
 function greyOf(bitmap) {
@@ -71,23 +97,56 @@ function greyOf(bitmap) {
   return g;
 }
 
+// setFile takes a chosen or dropped file. The file itself is what the
+// analysis uploads; for display the page uses the browser's decoding or,
+// for TIFF, 16-bit PNG and anything the browser cannot read, the service's
+// stretched preview and its speckle size measured on the full-precision image.
 async function setFile(role, file) {
   state.files[role] = file;
+  const seq = state.fileSeq[role] = (state.fileSeq[role] || 0) + 1;
   const info = $(`info-${role}`);
   if (!file) { info.textContent = 'none chosen'; return; }
-  const bm = await decode(file);
+  const kB = `${file.name}, ${(file.size / 1024).toFixed(1)} kB`;
+  let bm = null, insp = null, failure = null;
+  try {
+    bm = (await needsService(file)) ? null : await decode(file);
+    if (!bm) {
+      info.textContent = `${kB} (asking the service for a preview…)`;
+      insp = await inspect(file);
+      bm = insp.bitmap;
+    }
+  } catch (err) { failure = err; bm = null; insp = null; }
+  if (seq !== state.fileSeq[role]) return; // a newer file was chosen meanwhile
   state.bitmaps[role] = bm;
-  info.textContent = `${file.name}, ${(file.size / 1024).toFixed(1)} kB` + (bm ? `, ${bm.width} × ${bm.height} px` : ' (no preview in the browser; the service will read it)');
+  state.inspect[role] = insp;
   if (role === 'reference') {
     state.size = bm ? [bm.width, bm.height] : null;
     $('roi-placeholder').hidden = !!bm;
-    if (bm) {
-      editor.setImage(bm, bm.width, bm.height, $('roi-wrap').clientWidth || 640);
+    if (insp) {
+      state.speckle = insp.speckle_size_px ?? null;
+      state.speckleSource = 'service';
+      state.speckleError = insp.speckle_error || '';
+    } else if (bm) {
       const s = speckleSize(greyOf(bm), bm.width, bm.height);
       state.speckle = s ? s.size : null;
-    } else state.speckle = null;
+      state.speckleSource = 'browser';
+      state.speckleError = '';
+    } else { state.speckle = null; state.speckleSource = ''; state.speckleError = ''; }
+    if (bm) editor.setImage(bm, bm.width, bm.height, $('roi-wrap').clientWidth || 640);
     updateAdvice();
   }
+  if (failure) {
+    const d = describe(failure);
+    info.textContent = `${kB} (no preview: ${d.title})`;
+    const p = failure instanceof ApiError ? failure.problem : { title: d.title, detail: d.detail };
+    showError({ problem: {
+      title: `The ${role} image cannot be read: ${p.title || d.title}`,
+      detail: p.detail || d.detail,
+      errors: (p.errors || []).map(e => ({ field: e.field === 'body' ? role : e.field, message: e.detail || e.message || '' })),
+    } });
+    return;
+  }
+  info.textContent = `${kB}, ${bm.width} × ${bm.height} px` + (insp ? `, ${insp.bits}-bit, grey ${fmt(insp.grey.min)}–${fmt(insp.grey.max)}; preview stretched to full contrast by the service` : '');
 }
 
 function wireDrop(role) {
@@ -126,10 +185,12 @@ function updateAdvice() {
   const a = advice(state.speckle, subset, step, win);
   const set = (id, text, ok) => { const e = $(id); e.textContent = text; e.classList.toggle('warn', ok === false); };
   if (state.speckle) {
-    set('adv-speckle', `${fmt(state.speckle)} px (width at half height of the autocorrelation peak) — ${a.speckleNote}`, a.speckleOK);
+    const by = state.speckleSource === 'service' ? ', measured by the service on the full-precision image' : '';
+    set('adv-speckle', `${fmt(state.speckle)} px (width at half height of the autocorrelation peak${by}) — ${a.speckleNote}`, a.speckleOK);
     set('adv-subset', `at least ${a.subsetMin} px for 3 speckles across; about ${a.subsetPitch} px counting the gaps between them. Yours: ${subset} px`, a.subsetOK);
   } else {
-    set('adv-speckle', state.files.reference ? 'not measured (the browser cannot read this file type)' : '— choose a reference image');
+    set('adv-speckle', !state.files.reference ? '— choose a reference image'
+      : state.speckleError ? `not measured: ${state.speckleError}` : 'not measured (the image could not be read)');
     set('adv-subset', '— needs a speckle size');
   }
   set('adv-step', `${a.stepLo}–${a.stepHi} px for a ${subset} px subset (common practice). Yours: ${step} px` +
@@ -281,8 +342,11 @@ async function openResult(base, job, label) {
     deformed: await loadImage(`${base}/images/deformed.png`),
   };
   if (state.fromUpload && base.includes('/analyses/')) {
-    images.reference = images.reference || state.bitmaps.reference;
-    images.deformed = images.deformed || state.bitmaps.deformed;
+    // The service's images keep the native grey scale, so a 12-bit TIFF
+    // looks black: show its stretched preview instead.
+    for (const role of ['reference', 'deformed']) {
+      images[role] = (state.inspect[role] && state.bitmaps[role]) || images[role] || state.bitmaps[role];
+    }
   }
   if (!base.includes('/frames/')) { view.line = null; view.lineRef = null; $('profile-text').textContent = 'No profile yet.'; delete $('profile-text').dataset.count;
     const pc = $('profile-canvas'); pc.getContext('2d').clearRect(0, 0, pc.width, pc.height); }
