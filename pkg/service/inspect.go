@@ -88,6 +88,15 @@ func advise(s float64) *Advice {
 // inspect answers POST /v1/images/inspect: the raw body is one image,
 // under the same body and pixel limits as uploads.
 func (s *Server) inspect(w http.ResponseWriter, r *http.Request) {
+	select {
+	case s.inspecting <- struct{}{}:
+		defer func() { <-s.inspecting }()
+	default:
+		w.Header().Set("Retry-After", "1")
+		writeProblem(w, r, problem(http.StatusTooManyRequests, "busy", "Too many inspections",
+			fmt.Sprintf("%d image inspections are running, as many as the server has workers; retry in a second", cap(s.inspecting))))
+		return
+	}
 	_, g, err := s.readRawImage(w, r, "the image")
 	if err != nil {
 		writeProblem(w, r, asProblem(err, "body"))

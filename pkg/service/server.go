@@ -34,6 +34,10 @@ type Server struct {
 
 	mu      sync.Mutex
 	running map[string]context.CancelCauseFunc
+
+	// inspecting bounds the image inspections computed at once (they run
+	// on the request goroutine, outside the job queue).
+	inspecting chan struct{}
 }
 
 // New checks cfg and returns a server. It starts nothing: call Serve, or
@@ -52,6 +56,8 @@ func New(cfg Config) (*Server, error) {
 		metrics:  newMetrics(),
 		stopping: make(chan struct{}),
 		running:  map[string]context.CancelCauseFunc{},
+
+		inspecting: make(chan struct{}, cfg.Workers),
 	}
 	for _, t := range cfg.Tokens {
 		s.tokens = append(s.tokens, sha256.Sum256([]byte(strings.TrimSpace(t))))
