@@ -80,7 +80,7 @@ func paramFlags(fs *flag.FlagSet) func(p *analysis.Params) error {
 			"scale-points": func() error {
 				v, err := floats(*scalePts, 5)
 				if err != nil {
-					return fmt.Errorf("--scale-points: %w", err)
+					return usagef("--scale-points: %w; give x1,y1,x2,y2,mm, e.g. 100,200,900,200,40", err)
 				}
 				p.ScalePoints = &analysis.ScaleRef{A: [2]float64{v[0], v[1]}, B: [2]float64{v[2], v[3]}, Distance: v[4]}
 				return nil
@@ -142,7 +142,7 @@ func parseROI(s string) (*roi.Spec, error) {
 	}
 	v, err := floats(s, 4)
 	if err != nil {
-		return nil, fmt.Errorf("--roi: %w (or @file.json)", err)
+		return nil, usagef("--roi: %w; give x0,y0,x1,y1 in px, e.g. 40,30,350,230, or @file.json", err)
 	}
 	r := [4]int{int(v[0]), int(v[1]), int(v[2]), int(v[3])}
 	return &roi.Spec{Rect: &r}, nil
@@ -159,7 +159,7 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	maxPix := fs.Int64("max-pixels", imageio.DefaultLimits().MaxPixels, "refuse images with more pixels than this")
 	maskFile := fs.String("mask", "", "mask image `file`: pixels brighter than half the maximum are inside the ROI")
 	apply := paramFlags(fs)
-	if err := parseFlags(e, fs, args); err != nil {
+	if err := noArgs(e, fs, "analyze", args); err != nil {
 		return err
 	}
 	if *ref == "" || *def == "" {

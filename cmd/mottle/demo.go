@@ -16,7 +16,7 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 			"beside the known truth. The specimen, lab and material are invented.")
 	out := fs.String("out", "mottle-demo", "results `folder`")
 	threads := fs.Int("threads", 0, "worker goroutines (0 = all cores)")
-	if err := parseFlags(e, fs, args); err != nil {
+	if err := noArgs(e, fs, "demo", args); err != nil {
 		return err
 	}
 	s := demo.Default()

@@ -83,6 +83,9 @@ func run(ctx context.Context, e *env, args []string) int {
 			return 0
 		case errors.Is(err, errUsage):
 			return 2
+		case errors.As(err, new(usageError)):
+			fmt.Fprintf(e.stderr, "mottle %s: %v\n", c.name, err)
+			return 2
 		default:
 			fmt.Fprintf(e.stderr, "mottle %s: %v\n", c.name, err)
 			return 1
@@ -129,3 +132,55 @@ func parseFlags(e *env, fs *flag.FlagSet, args []string) error {
 	}
 	return nil
 }
+
+// parseArgs is parseFlags for commands that take positional arguments: flags
+// may come before, between or after them (as in "mottle series DIR --ext
+// …"), and "--" ends the flags. It returns the positional arguments in
+// order.
+func parseArgs(e *env, fs *flag.FlagSet, args []string) ([]string, error) {
+	var pos []string
+	for i, a := range args {
+		if a == "--" {
+			break
+		}
+		if a == "-h" || a == "-help" || a == "--help" {
+			return nil, parseFlags(e, fs, args[i:i+1])
+		}
+	}
+	for {
+		if err := fs.Parse(args); err != nil {
+			return nil, errUsage
+		}
+		rest := fs.Args()
+		if used := len(args) - len(rest); used > 0 && args[used-1] == "--" {
+			return append(pos, rest...), nil
+		}
+		if len(rest) == 0 {
+			return pos, nil
+		}
+		pos, args = append(pos, rest[0]), rest[1:]
+	}
+}
+
+// noArgs parses flags for a command that takes no positional argument and
+// refuses stray ones, which would otherwise hide the flags after them.
+func noArgs(e *env, fs *flag.FlagSet, name string, args []string) error {
+	pos, err := parseArgs(e, fs, args)
+	if err != nil {
+		return err
+	}
+	if len(pos) > 0 {
+		fmt.Fprintf(e.stderr, "mottle %s: unexpected argument %q (every input is given by a flag; run \"mottle %s --help\")\n", name, pos[0], name)
+		return errUsage
+	}
+	return nil
+}
+
+// usageError is a malformed command line: run prints it and exits 2.
+type usageError struct{ err error }
+
+func (u usageError) Error() string { return u.err.Error() }
+func (u usageError) Unwrap() error { return u.err }
+
+// usagef returns a usageError with a formatted message.
+func usagef(format string, a ...any) error { return usageError{fmt.Errorf(format, a...)} }

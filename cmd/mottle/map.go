@@ -21,37 +21,36 @@ func runMap(ctx context.Context, e *env, args []string) error {
 	opacity := fs.Float64("opacity", 1, "opacity of the colours over the image, (0, 1]")
 	out := fs.String("out", "", "output PNG `file` (default DIR/maps/QUANTITY[_deformed].png)")
 	vectors := fs.Bool("vectors", false, "draw a displacement vector plot instead of a map")
-	// Flags may come after the folder: parse the folder out first.
-	var dir string
-	if len(args) > 0 && len(args[0]) > 0 && args[0][0] != '-' {
-		dir, args = args[0], args[1:]
-	}
-	if err := parseFlags(e, fs, args); err != nil {
+	// Flags may come before or after the folder.
+	pos, err := parseArgs(e, fs, args)
+	if err != nil {
 		return err
 	}
-	if dir == "" && fs.NArg() > 0 {
-		dir = fs.Arg(0)
-	}
-	if dir == "" {
-		fmt.Fprintln(e.stderr, "mottle map: give the results folder")
+	if len(pos) != 1 {
+		if len(pos) == 0 {
+			fmt.Fprintln(e.stderr, "mottle map: give the results folder")
+		} else {
+			fmt.Fprintf(e.stderr, "mottle map: one results folder at a time; got %q\n", pos)
+		}
 		fs.Usage()
 		return errUsage
 	}
+	dir := pos[0]
 	req := analysis.MapRequest{Quantity: *q, Opacity: *opacity}
 	switch *on {
 	case "reference":
 	case "deformed":
 		req.OnDeformed = true
 	default:
-		return fmt.Errorf("--on %q: use reference or deformed", *on)
+		return usagef("--on %q: use reference or deformed", *on)
 	}
 	if *rng != "" {
 		v, err := floats(*rng, 2)
 		if err != nil {
-			return fmt.Errorf("--range: %w", err)
+			return usagef("--range: %w (lo,hi, e.g. -0.002,0.002)", err)
 		}
 		if !(v[0] < v[1]) {
-			return fmt.Errorf("--range %s: lo must be below hi", *rng)
+			return usagef("--range %s: lo must be below hi, e.g. -0.002,0.002", *rng)
 		}
 		req.Range = [2]float64{v[0], v[1]}
 	}
@@ -94,7 +93,7 @@ func runMap(ctx context.Context, e *env, args []string) error {
 		}
 	}
 	if err := os.WriteFile(path, png, 0o644); err != nil {
-		return err
+		return fmt.Errorf("--out: %w", err)
 	}
 	fmt.Fprintf(e.stdout, "wrote %s\n", path)
 	return nil

@@ -9,6 +9,7 @@ import (
 	"io"
 	"os"
 	"path/filepath"
+	"slices"
 	"sort"
 	"strconv"
 	"strings"
@@ -76,7 +77,9 @@ func naturalLess(a, b string) bool {
 var imageExt = map[string]bool{".png": true, ".tif": true, ".tiff": true, ".jpg": true, ".jpeg": true, ".bmp": true}
 
 // frameList expands the arguments (a folder, globs or files) into image
-// paths in natural order.
+// paths in natural order. In a folder, an image named reference.* (as
+// mottle synth writes) comes first, so that it is the reference. A pattern
+// must match something; see checkFrames for the files themselves.
 func frameList(args []string) ([]string, error) {
 	var out []string
 	for _, a := range args {
@@ -91,7 +94,16 @@ func frameList(args []string) ([]string, error) {
 					names = append(names, filepath.Join(a, e.Name()))
 				}
 			}
-			sort.Slice(names, func(i, j int) bool { return naturalLess(names[i], names[j]) })
+			if len(names) == 0 {
+				return nil, fmt.Errorf("folder %s holds no PNG, TIFF, JPEG or BMP image", a)
+			}
+			sort.Slice(names, func(i, j int) bool {
+				ri, rj := isReferenceName(names[i]), isReferenceName(names[j])
+				if ri != rj {
+					return ri
+				}
+				return naturalLess(names[i], names[j])
+			})
 			out = append(out, names...)
 			continue
 		}
@@ -100,6 +112,9 @@ func frameList(args []string) ([]string, error) {
 			if err != nil {
 				return nil, fmt.Errorf("pattern %q: %w", a, err)
 			}
+			if len(m) == 0 {
+				return nil, fmt.Errorf("pattern %q matches no file", a)
+			}
 			sort.Slice(m, func(i, j int) bool { return naturalLess(m[i], m[j]) })
 			out = append(out, m...)
 			continue
@@ -107,6 +122,24 @@ func frameList(args []string) ([]string, error) {
 		out = append(out, a)
 	}
 	return out, nil
+}
+
+// checkFrames makes sure every frame is a file before any is analysed.
+func checkFrames(paths []string) error {
+	for _, a := range paths {
+		if st, err := os.Stat(a); err != nil {
+			return fmt.Errorf("frame %q: %w (give a folder, a glob such as 'frames/*.tif' or image files; flags may come before or after them)", a, err)
+		} else if !st.Mode().IsRegular() {
+			return fmt.Errorf("frame %q is not a regular file", a)
+		}
+	}
+	return nil
+}
+
+// isReferenceName reports whether path is named reference.<image ext>.
+func isReferenceName(path string) bool {
+	b := strings.ToLower(filepath.Base(path))
+	return strings.TrimSuffix(b, filepath.Ext(b)) == "reference"
 }
 
 func runSeries(ctx context.Context, e *env, args []string) error {
@@ -127,7 +160,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		incr       = fs.String("incremental", "", "auto (default), never or always")
 		swZ        = fs.Float64("switch-zncc", 0, "mean ZNCC below which auto mode goes incremental (default 0.9)")
 		swV        = fs.Float64("switch-valid", 0, "tracked fraction below which auto mode goes incremental (default 0.9)")
-		table      = fs.String("table", "", "CSV of frame (index or name) or time against load and/or time (see docs)")
+		table      = fs.String("table", "", "CSV with a header row: a key column frame (0 = reference), name or time_s, then time_s or time_ms and/or load_N or load_kN, e.g. \"frame,time_s,load_N\"")
 		timePat    = fs.String("time-pattern", "", "regexp whose first group is the time stamp in each file name, e.g. _t([0-9.]+)s")
 		timeScale  = fs.Float64("time-scale", 1, "factor from the --time-pattern number to seconds")
 		fps        = fs.Float64("fps", 0, "frame rate: time = index/fps")
@@ -148,12 +181,17 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	)
 	fs.Var(&exts, "ext", "virtual extensometer name:xA,yA,xB,yB (repeatable)")
 	fs.Var(&gs, "gauge", "virtual gauge name:x0,y0,x1,y1 rectangle, or name:poly:x1,y1,x2,y2,... (repeatable)")
-	if err := parseFlags(e, fs, args); err != nil {
-		return err
-	}
-	frames, err := frameList(fs.Args())
+	pos, err := parseArgs(e, fs, args)
 	if err != nil {
 		return err
+	}
+	frames, err := frameList(pos)
+	if err != nil {
+		return err
+	}
+	if *ref != "" {
+		// A folder or glob that holds the reference lists it too.
+		frames = slices.DeleteFunc(frames, func(f string) bool { return filepath.Clean(f) == filepath.Clean(*ref) })
 	}
 	if *ref == "" {
 		if len(frames) < 2 {
@@ -172,12 +210,12 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	if *paramsFile != "" {
 		b, err := os.ReadFile(*paramsFile)
 		if err != nil {
-			return err
+			return fmt.Errorf("--params: %w", err)
 		}
 		dec := json.NewDecoder(strings.NewReader(string(b)))
 		dec.DisallowUnknownFields()
 		if err := dec.Decode(&p); err != nil {
-			return fmt.Errorf("parameters %s: %w", *paramsFile, err)
+			return fmt.Errorf("--params %s: %w (series parameters hold the analysis ones under \"analysis\", e.g. {\"analysis\": {\"subset\": 31}, \"area_mm2\": 10}; the Settings of a report.html show every name)", *paramsFile, err)
 		}
 	}
 	set := map[string]bool{}
@@ -283,9 +321,17 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	if set["offset"] {
 		pp.Offset = *offset
 	}
+	if *staticPair != "" {
+		if a, b, ok := strings.Cut(*staticPair, ","); !ok || a == "" || b == "" || strings.Contains(b, ",") {
+			errs = append(errs, fmt.Errorf("--static-pair %q: want two images a,b of the unloaded specimen", *staticPair))
+		}
+	}
 	if err := errors.Join(errs...); err != nil {
 		fmt.Fprintln(e.stderr, "mottle series:", err)
 		return errUsage
+	}
+	if err := checkFrames(frames); err != nil {
+		return err
 	}
 
 	lim := imageio.DefaultLimits()
@@ -332,7 +378,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	if *table != "" {
 		f, err := os.Open(*table)
 		if err != nil {
-			return err
+			return fmt.Errorf("--table: %w", err)
 		}
 		tbl, err = series.ReadTable(f, *table)
 		f.Close()
@@ -408,11 +454,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 
 	var noise *series.NoiseFloor
 	if *staticPair != "" {
-		a, b, ok := strings.Cut(*staticPair, ",")
-		if !ok {
-			fmt.Fprintln(e.stderr, "mottle series: --static-pair wants two images a,b")
-			return errUsage
-		}
+		a, b, _ := strings.Cut(*staticPair, ",")
 		if noise, err = staticPairNoise(ctx, a, b, p, lim); err != nil {
 			return fmt.Errorf("static pair: %w", err)
 		}
@@ -480,10 +522,37 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	m := c.Modes()
 	fmt.Fprintf(e.stdout, "%d frames: %d direct, %d incremental. Results in %s (report.html).\n",
 		tr.Len(), len(m[series.ModeDirect]), len(m[series.ModeIncremental]), *out)
-	for _, l := range c.Properties().Lines() {
+	props := c.Properties()
+	for _, l := range props.Lines() {
 		fmt.Fprintf(e.stdout, "  %s: %s\n", l[0], l[1])
 	}
+	printSkipped(e.stdout, props.Skipped)
 	return nil
+}
+
+// skipHints names the flag that supplies what a skipped property lacks.
+var skipHints = map[string]string{
+	"youngs_modulus": "set --modulus-range lo,hi, with --area and a load --table",
+	"poissons_ratio": "set --transverse and --poisson-range lo,hi or --modulus-range",
+	"r_value":        "set --transverse and --r-range lo,hi",
+	"offset_yield":   "needs the modulus: set --modulus-range lo,hi",
+}
+
+// printSkipped lists the material properties that were not computed, why,
+// and which flags would supply them.
+func printSkipped(w io.Writer, skipped map[string]string) {
+	keys := make([]string, 0, len(skipped))
+	for k := range skipped {
+		keys = append(keys, k)
+	}
+	sort.Strings(keys)
+	for _, k := range keys {
+		fmt.Fprintf(w, "  not computed: %s: %s", k, skipped[k])
+		if h, ok := skipHints[k]; ok && (strings.Contains(skipped[k], "not set") || strings.HasPrefix(skipped[k], "needs") || strings.Contains(skipped[k], "no transverse")) {
+			fmt.Fprintf(w, "; %s", h)
+		}
+		fmt.Fprintln(w)
+	}
 }
 
 // flagT is the flag type Visit passes.

@@ -85,12 +85,8 @@ func runSynth(ctx context.Context, e *env, args []string) error {
 	static := fs.Int("static", 0, "render this many frames of the reference state with fresh noise (noise-floor series); ignores --motion")
 	dt := fs.Float64("dt", 1, "time between frames in s")
 	fullLoad := fs.Float64("full-load", 1, "load value recorded at load factor 1 (any unit, e.g. N)")
-	if err := parseFlags(e, fs, args); err != nil {
+	if err := noArgs(e, fs, "synth", args); err != nil {
 		return err
-	}
-	if fs.NArg() > 0 {
-		fmt.Fprintf(e.stderr, "mottle synth: unexpected argument %q\n", fs.Arg(0))
-		return errUsage
 	}
 
 	var errs []error

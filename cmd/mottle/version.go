@@ -12,7 +12,7 @@ var version = "0.1.0-dev"
 
 func runVersion(ctx context.Context, e *env, args []string) error {
 	fs := newFlags(e, "version", "", "Print Mottle's version, the Go version and the VCS revision it was built from.")
-	if err := parseFlags(e, fs, args); err != nil {
+	if err := noArgs(e, fs, "version", args); err != nil {
 		return err
 	}
 	rev := "unknown"
