@@ -119,6 +119,9 @@ func Decode(r io.Reader, lim Limits) (*Gray, error) {
 	if cr.over() {
 		return nil, cr.err()
 	}
+	if n == 0 {
+		return nil, fmt.Errorf("%w: the file is empty (0 bytes); give a PNG, TIFF, JPEG or BMP image", ErrFormat)
+	}
 	format := sniff(sig[:n])
 	if format == "" {
 		return nil, fmt.Errorf("%w: the data does not start like PNG, TIFF, JPEG or BMP", ErrFormat)
@@ -170,6 +173,9 @@ func ReadFile(path string, lim Limits) (*Gray, error) {
 		return nil, fmt.Errorf("image %q: %w", path, err)
 	}
 	defer f.Close()
+	if st, err := f.Stat(); err == nil && st.IsDir() {
+		return nil, fmt.Errorf("image %q: %w: it is a folder; give an image file (PNG, TIFF, JPEG or BMP) inside it", path, ErrFormat)
+	}
 	g, err := Decode(f, lim)
 	if err != nil {
 		return nil, fmt.Errorf("image %q: %w", path, err)

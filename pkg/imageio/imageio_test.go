@@ -13,6 +13,7 @@ import (
 	"math/rand/v2"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"golang.org/x/image/bmp"
@@ -184,6 +185,37 @@ func TestErrors(t *testing.T) {
 	}
 	if _, err := ReadFile(filepath.Join(t.TempDir(), "missing.png"), Limits{}); !errors.Is(err, os.ErrNotExist) {
 		t.Errorf("missing file: %v", err)
+	}
+}
+
+// TestReadFileMessages: a folder, an empty file and a text file renamed
+// .png are each refused with ErrFormat and a message that names the file
+// and says what is wrong with it.
+func TestReadFileMessages(t *testing.T) {
+	dir := t.TempDir()
+	empty := filepath.Join(dir, "empty.png")
+	text := filepath.Join(dir, "notes.png")
+	if err := os.WriteFile(empty, nil, 0o644); err != nil {
+		t.Fatal(err)
+	}
+	if err := os.WriteFile(text, []byte("frame list, not an image"), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	for _, tc := range []struct {
+		path, want string
+	}{
+		{dir, "it is a folder"},
+		{empty, "the file is empty"},
+		{text, "does not start like PNG"},
+	} {
+		_, err := ReadFile(tc.path, Limits{})
+		if !errors.Is(err, ErrFormat) {
+			t.Errorf("%s: error %v, want ErrFormat", tc.path, err)
+			continue
+		}
+		if msg := err.Error(); !strings.Contains(msg, tc.path) || !strings.Contains(msg, tc.want) {
+			t.Errorf("%s: message %q, want the path and %q", tc.path, msg, tc.want)
+		}
 	}
 }
 
