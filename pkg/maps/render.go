@@ -235,13 +235,7 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 	if opt.Unit != "" {
 		header += " [" + opt.Unit + "]"
 	}
-	rangeKind := "fixed range"
-	if auto {
-		rangeKind = "auto: 1st–99th pct"
-		if cm.Diverging {
-			rangeKind = "auto: ±99th pct |v|"
-		}
-	}
+	rangeKind := rangeNote(opt.Quantity, auto, cm.Diverging)
 	rangeLine := formatNumber(lo) + " … " + formatNumber(hi)
 	rightW := barWidth + tickLen + 4
 	tw := 0
@@ -297,6 +291,22 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 
 	lay.drawFooter(dst, face, opt.ScaleBar, w, opt.Note)
 	return m, nil
+}
+
+// rangeNote is the line under the colour bar that says how its range was
+// chosen. A symmetric automatic range names the quantity, so that "|u|"
+// cannot be read as another quantity's magnitude.
+func rangeNote(quantity string, auto, diverging bool) string {
+	switch {
+	case !auto:
+		return "fixed range"
+	case !diverging:
+		return "auto: 1st–99th pct"
+	case quantity == "":
+		return "auto: ±99th pct of |value|"
+	default:
+		return "auto: ±99th pct of |" + quantity + "|"
+	}
 }
 
 // layout places the picture and the text bands of an output image.

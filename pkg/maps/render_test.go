@@ -350,3 +350,24 @@ func BenchmarkRenderFull(b *testing.B) {
 		}
 	}
 }
+
+// TestRangeNote: the note under the colour bar names the quantity whose
+// magnitude set a symmetric automatic range. It used to read "|v|" on every
+// map, which on an E11 map reads as the magnitude of the displacement v.
+func TestRangeNote(t *testing.T) {
+	for _, tc := range []struct {
+		q               string
+		auto, diverging bool
+		want            string
+	}{
+		{"E11", true, true, "auto: ±99th pct of |E11|"},
+		{"u", true, true, "auto: ±99th pct of |u|"},
+		{"", true, true, "auto: ±99th pct of |value|"},
+		{"zncc", true, false, "auto: 1st–99th pct"},
+		{"E11", false, true, "fixed range"},
+	} {
+		if got := rangeNote(tc.q, tc.auto, tc.diverging); got != tc.want {
+			t.Errorf("rangeNote(%q, %v, %v) = %q, want %q", tc.q, tc.auto, tc.diverging, got, tc.want)
+		}
+	}
+}
