@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"math"
+	"reflect"
 	"sort"
 	"strings"
 )
@@ -62,6 +63,32 @@ const (
 	MaxThreads      = 1024
 )
 
+// jsonKind names what JSON value a Go type takes, for error messages read
+// by people who write JSON, not Go ("a whole number", not "int").
+func jsonKind(t reflect.Type) string {
+	if t == nil {
+		return "another value"
+	}
+	switch t.Kind() {
+	case reflect.Int, reflect.Int8, reflect.Int16, reflect.Int32, reflect.Int64,
+		reflect.Uint, reflect.Uint8, reflect.Uint16, reflect.Uint32, reflect.Uint64:
+		return "a whole number"
+	case reflect.Float32, reflect.Float64:
+		return "a number"
+	case reflect.String:
+		return "a string"
+	case reflect.Bool:
+		return "true or false"
+	case reflect.Slice, reflect.Array:
+		return "a list ([…])"
+	case reflect.Struct, reflect.Map:
+		return "an object ({…})"
+	case reflect.Pointer:
+		return jsonKind(t.Elem())
+	}
+	return "another value"
+}
+
 // ParseJSON reads parameters from JSON over the defaults: fields not given
 // keep their default values, unknown fields are an error that names them.
 func ParseJSON(r io.Reader) (Params, error) {
@@ -74,7 +101,7 @@ func ParseJSON(r io.Reader) (Params, error) {
 		}
 		var ute *json.UnmarshalTypeError
 		if errors.As(err, &ute) {
-			return p, &ValidationError{[]Problem{{Field: ute.Field, Message: fmt.Sprintf("expected a %s, got a JSON %s", ute.Type, ute.Value)}}}
+			return p, &ValidationError{[]Problem{{Field: ute.Field, Message: fmt.Sprintf("expected %s, got a JSON %s", jsonKind(ute.Type), ute.Value)}}}
 		}
 		msg := err.Error()
 		if f, ok := strings.CutPrefix(msg, "json: unknown field "); ok {

@@ -74,9 +74,18 @@ func TestParseJSON(t *testing.T) {
 	if !errors.As(err, &ve) || ve.Problems[0].Field != "subsett" || !strings.Contains(ve.Problems[0].Message, "subset") {
 		t.Errorf("unknown field: want a problem naming it and listing known ones, got %v", err)
 	}
-	_, err = ParseJSONBytes([]byte(`{"subset": "big"}`))
-	if !errors.As(err, &ve) || ve.Problems[0].Field != "subset" {
-		t.Errorf("wrong type: want a problem on subset, got %v", err)
+	// A value of the wrong JSON type names the field and the JSON kind
+	// wanted, not a Go type (it said "expected a int").
+	for _, tc := range []struct{ in, field, want string }{
+		{`{"subset": "big"}`, "subset", "expected a whole number, got a JSON string"},
+		{`{"min_zncc": "high"}`, "min_zncc", "expected a number, got a JSON string"},
+		{`{"shape": 2}`, "shape", "expected a string, got a JSON number"},
+		{`{"seeds": 5}`, "seeds", "expected a list ([…]), got a JSON number"},
+	} {
+		_, err = ParseJSONBytes([]byte(tc.in))
+		if !errors.As(err, &ve) || ve.Problems[0].Field != tc.field || ve.Problems[0].Message != tc.want {
+			t.Errorf("%s: got %v; want a problem on %s saying %q", tc.in, err, tc.field, tc.want)
+		}
 	}
 	if _, err = ParseJSONBytes([]byte(`{"subset": 21`)); err == nil {
 		t.Error("truncated JSON accepted")
