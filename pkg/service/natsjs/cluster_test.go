@@ -149,7 +149,12 @@ func startProc(t testing.TB, name string, env []string, bin string, args ...stri
 		p.signal(syscall.SIGKILL)
 		<-p.done
 		if t.Failed() {
-			t.Logf("--- output of %s (last 3000 bytes):\n%s", name, tail(p.out.String(), 3000))
+			f, err := os.CreateTemp("", "natsjs-"+name+"-*.log")
+			if err == nil {
+				f.WriteString(p.out.String())
+				f.Close()
+			}
+			t.Logf("--- output of %s in %s, last 1500 bytes:\n%s", name, f.Name(), tail(p.out.String(), 1500))
 		}
 	})
 	return p
@@ -303,7 +308,7 @@ func render(t testing.TB, n, w int) *scenario {
 		t.Fatal(err)
 	}
 	sc.slowRef, sc.slowDef = pngBytes(t, sr), pngBytes(t, sd)
-	sc.slowPar = []byte(`{"subset":21,"step":2}`)
+	sc.slowPar = []byte(`{"subset":21,"step":3}`)
 	return sc
 }
 

@@ -30,12 +30,19 @@
 // redelivered job therefore never produces a duplicate or a different
 // answer.
 //
-// Frames of a series are independent jobs in the service's job model: each
-// is correlated with the series reference from a fresh search, so they
-// run in parallel across workers and series. Options.Order = OrderSeries
-// adds a per-series sequence check for analyzers that start a frame from
-// the previous frame's solution: a frame is started only once the frame
-// before it has finished.
+// Series order: frame n of a series starts from the tracker state after
+// frame n−1, and the service holds a frame back (and puts it back in the
+// queue) until the frame before it has finished. Frames are published on
+// one subject per series; a job put back is published again at the end of
+// the queue rather than negatively acknowledged, so that holding a frame
+// back for its turn never uses up its deliveries and the jobs behind it,
+// of other series, get theirs. Series therefore run in parallel, each in
+// order, and analyses run in parallel with everything.
+//
+// Reads: the key-value and object streams answer reads from their leader
+// only (direct reads from replicas are turned off), and listings wait for
+// the mirror to catch up with the bucket's last revision, so every read
+// sees every write acknowledged before it began.
 package natsjs
 
 import (
@@ -52,15 +59,6 @@ import (
 	"github.com/nats-io/nats.go/jetstream"
 
 	"github.com/mottledic/mottle/pkg/service/jobs"
-)
-
-// Orders of frame jobs within a series, for Options.Order.
-const (
-	// OrderNone starts frames in any order, in parallel (the default).
-	OrderNone = "none"
-	// OrderSeries starts frame n of a series only after frame n−1 has
-	// finished.
-	OrderSeries = "series"
 )
 
 // Options configure the backend. Zero fields take the documented defaults.
@@ -91,12 +89,11 @@ type Options struct {
 	// before it is delivered to another worker; a running job sends a
 	// heartbeat every AckWait/3. Default 30 s.
 	AckWait time.Duration
-	// MaxDeliver is the largest number of deliveries of one job. On the
-	// last one a job that has not finished is failed and dead-lettered
-	// instead of started. Default 10, at least 2.
+	// MaxDeliver is the largest number of deliveries of one job (a job
+	// put back by its worker is published anew and starts again from 1).
+	// On the last one a job that has not finished is failed and
+	// dead-lettered instead of started. Default 10, at least 2.
 	MaxDeliver int
-	// Order is OrderNone (default) or OrderSeries.
-	Order string
 	// Work is true in a process that computes jobs. When false (an API
 	// node) Dequeue blocks until its context ends, so the service's
 	// worker pool stays idle.
@@ -121,9 +118,6 @@ func (o *Options) defaults() {
 	}
 	if o.MaxDeliver == 0 {
 		o.MaxDeliver = 10
-	}
-	if o.Order == "" {
-		o.Order = OrderNone
 	}
 	if o.Logger == nil {
 		o.Logger = slog.Default()
@@ -156,9 +150,6 @@ func (o Options) Validate() error {
 	if o.MaxDeliver < 2 {
 		errs = append(errs, fmt.Errorf("nats backend: max deliver %d: use at least 2, so a job can be redelivered once", o.MaxDeliver))
 	}
-	if o.Order != OrderNone && o.Order != OrderSeries {
-		errs = append(errs, fmt.Errorf("nats backend: order %q: use %q or %q", o.Order, OrderNone, OrderSeries))
-	}
 	return errors.Join(errs...)
 }
 
@@ -180,8 +171,8 @@ func validPrefix(s string) bool {
 //	nats://host1:4222,nats://host2:4222,nats://host3:4222?prefix=mottle&replicas=3
 //
 // Query parameters (all optional): prefix, replicas, queue (QueueCap),
-// ack_wait (a Go duration such as 30s), max_deliver, order (none or
-// series), creds (a credentials file). The servers may also be given
+// ack_wait (a Go duration such as 30s), max_deliver, creds (a
+// credentials file). The servers may also be given
 // without a scheme after the first ("nats://h1:4222,h2:4222").
 func ParseURL(spec string) (Options, error) {
 	var o Options
@@ -212,13 +203,12 @@ func ParseURL(spec string) (Options, error) {
 	}
 	for name := range q {
 		switch name {
-		case "prefix", "replicas", "queue", "ack_wait", "max_deliver", "order", "creds":
+		case "prefix", "replicas", "queue", "ack_wait", "max_deliver", "creds":
 		default:
-			errs = append(errs, fmt.Errorf("nats backend: unknown parameter %q; use prefix, replicas, queue, ack_wait, max_deliver, order or creds", name))
+			errs = append(errs, fmt.Errorf("nats backend: unknown parameter %q; use prefix, replicas, queue, ack_wait, max_deliver or creds", name))
 		}
 	}
 	o.Prefix = q.Get("prefix")
-	o.Order = q.Get("order")
 	o.Credentials = q.Get("creds")
 	num("replicas", &o.Replicas)
 	num("queue", &o.QueueCap)
@@ -391,28 +381,62 @@ func (b *Backend) setupOnce(ctx context.Context) error {
 	if err != nil {
 		return fmt.Errorf("consumer %s on %s: %w", n.consumer, n.jobStream, err)
 	}
-	kv, err := js.CreateOrUpdateKeyValue(rctx, jetstream.KeyValueConfig{
-		Bucket:      n.kv,
-		Description: "Mottle job and series records",
-		History:     1,
-		Storage:     jetstream.FileStorage,
-		Replicas:    r,
-	})
+	// The buckets are created once and then only bound, and their streams
+	// set to answer reads from the leader only: a read then sees every
+	// acknowledged write, which direct reads from a lagging replica do not
+	// promise (a worker must see the series state another just stored).
+	kvCfg := jetstream.KeyValueConfig{Bucket: n.kv, Description: "Mottle job and series records",
+		History: 1, Storage: jetstream.FileStorage, Replicas: r}
+	if _, err := js.KeyValue(rctx, n.kv); errors.Is(err, jetstream.ErrBucketNotFound) {
+		if _, err := js.CreateKeyValue(rctx, kvCfg); err != nil && !errors.Is(err, jetstream.ErrBucketExists) {
+			return fmt.Errorf("key-value bucket %s: %w", n.kv, err)
+		}
+	} else if err != nil {
+		return fmt.Errorf("key-value bucket %s: %w", n.kv, err)
+	}
+	objCfg := jetstream.ObjectStoreConfig{Bucket: n.objects, Description: "Mottle images and results",
+		Storage: jetstream.FileStorage, Replicas: r}
+	if _, err := js.ObjectStore(rctx, n.objects); errors.Is(err, jetstream.ErrBucketNotFound) {
+		if _, err := js.CreateObjectStore(rctx, objCfg); err != nil && !errors.Is(err, jetstream.ErrBucketExists) {
+			return fmt.Errorf("object store %s: %w", n.objects, err)
+		}
+	} else if err != nil {
+		return fmt.Errorf("object store %s: %w", n.objects, err)
+	}
+	for _, name := range []string{"KV_" + n.kv, "OBJ_" + n.objects} {
+		if err := b.leaderReads(rctx, name); err != nil {
+			return err
+		}
+	}
+	kv, err := js.KeyValue(rctx, n.kv)
 	if err != nil {
 		return fmt.Errorf("key-value bucket %s: %w", n.kv, err)
 	}
-	obj, err := js.CreateOrUpdateObjectStore(rctx, jetstream.ObjectStoreConfig{
-		Bucket:      n.objects,
-		Description: "Mottle images and results",
-		Storage:     jetstream.FileStorage,
-		Replicas:    r,
-	})
+	obj, err := js.ObjectStore(rctx, n.objects)
 	if err != nil {
 		return fmt.Errorf("object store %s: %w", n.objects, err)
 	}
 	b.store = newStore(b.nc, kv, n, o.Logger)
 	b.blobs = &Blobs{obj: obj}
 	b.queue = &Queue{b: b, cons: cons}
+	return nil
+}
+
+// leaderReads turns off direct reads (answered by any replica) on stream
+// name, so that the clients bound afterwards read from its leader.
+func (b *Backend) leaderReads(ctx context.Context, name string) error {
+	st, err := b.js.Stream(ctx, name)
+	if err != nil {
+		return fmt.Errorf("stream %s: %w", name, err)
+	}
+	cfg := st.CachedInfo().Config
+	if !cfg.AllowDirect {
+		return nil
+	}
+	cfg.AllowDirect = false
+	if _, err := b.js.UpdateStream(ctx, cfg); err != nil {
+		return fmt.Errorf("stream %s: turn off direct reads: %w", name, err)
+	}
 	return nil
 }
 

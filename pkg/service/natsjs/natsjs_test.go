@@ -60,15 +60,14 @@ func TestParseURL(t *testing.T) {
 		check   func(Options) bool
 	}{
 		{"nats://127.0.0.1:4222", 1, true, func(o Options) bool { return o.Prefix == "" && o.Replicas == 0 }},
-		{"nats://a:4222,nats://b:4222,c:4222?prefix=lab2&replicas=3&ack_wait=5s&max_deliver=4&queue=9&order=series", 3, true,
+		{"nats://a:4222,nats://b:4222,c:4222?prefix=lab2&replicas=3&ack_wait=5s&max_deliver=4&queue=9", 3, true,
 			func(o Options) bool {
 				return o.Prefix == "lab2" && o.Replicas == 3 && o.AckWait == 5*time.Second && o.MaxDeliver == 4 &&
-					o.QueueCap == 9 && o.Order == OrderSeries && o.Servers[2] == "nats://c:4222"
+					o.QueueCap == 9 && o.Servers[2] == "nats://c:4222"
 			}},
 		{"nats://a:4222?replicas=seven", 1, false, nil},
 		{"nats://a:4222?ack_wait=soon", 1, false, nil},
 		{"nats://a:4222?color=blue", 1, false, nil},
-		{"nats://a:4222?order=random", 1, false, nil},
 		{"nats://a:4222?replicas=9", 1, false, nil},
 		{"nats://a:4222?max_deliver=1", 1, false, nil},
 		{"nats://a:4222?prefix=a.b", 1, false, nil},
@@ -469,81 +468,39 @@ func TestQueueFull(t *testing.T) {
 	}
 }
 
-// TestQueueSeriesOrder: with OrderSeries, two workers never hold frame
-// n+1 while frame n is unfinished, and different series go in parallel.
-func TestQueueSeriesOrder(t *testing.T) {
+// TestQueueNak: a job put back is delivered again without using up its
+// deliveries, after the jobs queued behind it.
+func TestQueueNak(t *testing.T) {
 	url := runServer(t)
-	mod := func(o *Options) { o.Order = OrderSeries; o.AckWait = 2 * time.Second }
-	api := open(t, url, func(o *Options) { mod(o); o.Work = false })
-	ws := []*Backend{open(t, url, mod), open(t, url, mod)}
+	w := open(t, url, func(o *Options) { o.MaxDeliver = 2 })
 	ctx := context.Background()
-	const frames = 4
-	var all []*jobs.Job
-	for s := 0; s < 2; s++ {
-		sr := &jobs.Series{ID: jobs.NewID(), Created: time.Now().UTC()}
-		api.Store().CreateSeries(ctx, sr)
-		for i := 0; i < frames; i++ {
-			j := newJob(jobs.Frame, sr.ID, i)
-			api.Store().UpdateSeries(ctx, sr.ID, func(s *jobs.Series) error { s.Frames = append(s.Frames, j.ID); return nil })
-			api.Store().CreateJob(ctx, j)
-			all = append(all, j)
-		}
-	}
-	for _, j := range all { // enqueue series interleaved
-		if err := api.Queue().Enqueue(ctx, j.ID); err != nil {
+	a, b := newJob(jobs.Analysis, "", 0), newJob(jobs.Frame, jobs.NewID(), 0)
+	for _, j := range []*jobs.Job{a, b} {
+		w.Store().CreateJob(ctx, j)
+		if err := w.Queue().Enqueue(ctx, j.ID); err != nil {
 			t.Fatal(err)
 		}
 	}
-	var mu sync.Mutex
-	done := map[string]bool{}
 	var order []string
-	var wg sync.WaitGroup
-	for _, w := range ws {
-		wg.Add(1)
-		go func(w *Backend) {
-			defer wg.Done()
-			for {
-				mu.Lock()
-				finished := len(done) == len(all)
-				mu.Unlock()
-				if finished {
-					return
-				}
-				d := dequeue(t, w.Queue(), 300*time.Millisecond)
-				if d == nil {
-					continue
-				}
-				j, _ := w.Store().Job(ctx, d.ID())
-				mu.Lock()
-				if j.FrameIndex > 0 {
-					prev := all[indexOf(all, j.ID)-1]
-					if !done[prev.ID] {
-						t.Errorf("frame %d of series %s handed out before frame %d finished", j.FrameIndex, j.Series[:6], j.FrameIndex-1)
-					}
-				}
-				order = append(order, j.ID)
-				mu.Unlock()
-				time.Sleep(30 * time.Millisecond) // compute
-				now := time.Now().UTC()
-				w.Store().UpdateJob(ctx, j.ID, func(j *jobs.Job) error { j.State, j.Finished = jobs.Succeeded, &now; return nil })
-				mu.Lock()
-				done[j.ID] = true
-				mu.Unlock()
-				d.Ack()
-			}
-		}(w)
-	}
-	wg.Wait()
-	if len(order) != len(all) {
-		t.Fatalf("%d deliveries, want %d", len(order), len(all))
-	}
-}
-
-func indexOf(list []*jobs.Job, id string) int {
-	for i, j := range list {
-		if j.ID == id {
-			return i
+	for i := 0; i < 6; i++ {
+		d := dequeue(t, w.Queue(), 5*time.Second)
+		if d == nil {
+			t.Fatalf("delivery %d: none", i)
+		}
+		order = append(order, d.ID())
+		if err := d.Nak(); err != nil {
+			t.Fatal(err)
 		}
 	}
-	return -1
+	for i, id := range order {
+		if want := []string{a.ID, b.ID}[i%2]; id != want {
+			t.Fatalf("delivery %d was %s, want %s: put-back jobs must go behind the others", i, id[:6], want[:6])
+		}
+	}
+	if got, _ := w.Store().Job(ctx, a.ID); got.State != jobs.Queued {
+		t.Fatalf("after 3 put-backs with MaxDeliver 2: state %s, want still queued", got.State)
+	}
+	if n, _ := w.Pending(ctx); n != 2 {
+		t.Fatalf("%d messages in the stream, want 2", n)
+	}
 }

@@ -212,45 +212,10 @@ func (q *Queue) accept(ctx context.Context, msg jetstream.Msg) jobs.Delivery {
 		_ = d.Ack()
 		return nil
 	}
-	if o.Order == OrderSeries && strings.HasPrefix(msg.Subject(), q.b.n.prefix+".jobs.frame.") {
-		if !q.waitPrevious(ctx, d) {
-			d.settle(func() error { return msg.NakWithDelay(o.AckWait) })
-			return nil
-		}
-	}
 	return d
 }
 
 var errUnchanged = errors.New("record unchanged")
-
-// waitPrevious waits, for at most 2·AckWait, until the frame before the
-// delivered one has finished. It reports whether it has.
-func (q *Queue) waitPrevious(ctx context.Context, d *delivery) bool {
-	st := q.b.store
-	j, _, err := st.getJob(ctx, d.id)
-	if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 {
-		return true
-	}
-	deadline := time.Now().Add(2 * q.b.opt.AckWait)
-	for wait := 20 * time.Millisecond; ; wait = min(2*wait, 500*time.Millisecond) {
-		sr, _, err := st.getSeries(ctx, j.Series)
-		if err != nil || j.FrameIndex > len(sr.Frames) {
-			return true // nothing to wait for
-		}
-		prev, _, err := st.getJob(ctx, sr.Frames[j.FrameIndex-1])
-		if errors.Is(err, jobs.ErrNotFound) || (err == nil && prev.State.Terminal()) {
-			return true
-		}
-		if time.Now().After(deadline) {
-			return false
-		}
-		select {
-		case <-ctx.Done():
-			return false
-		case <-time.After(wait):
-		}
-	}
-}
 
 // delivery is one job message held by a worker.
 type delivery struct {
@@ -313,8 +278,35 @@ func (d *delivery) Ack() error {
 	})
 }
 
-// Nak implements jobs.Delivery: the job is delivered again at once.
-func (d *delivery) Nak() error { return d.settle(d.msg.Nak) }
+// Nak implements jobs.Delivery. The job is published again at the end of
+// the queue and this delivery acknowledged, so a job put back (a frame
+// waiting for its turn, a job interrupted by shutdown) keeps its delivery
+// count at 1 and lets the jobs behind it go first. A crash between the two
+// steps leaves two messages for the job; the second finds it started or
+// finished and is dropped. If the publish fails the message is negatively
+// acknowledged instead.
+func (d *delivery) Nak() error {
+	return d.settle(func() error {
+		ctx, cancel := context.WithTimeout(context.Background(), retryFor)
+		defer cancel()
+		m := &nats.Msg{Subject: d.msg.Subject(), Data: []byte(d.id), Header: nats.Header{}}
+		m.Header.Set(HeaderJob, d.id)
+		if h := d.msg.Headers(); h != nil {
+			m.Header.Set(HeaderKind, h.Get(HeaderKind))
+		}
+		err := retry(ctx, func(ctx context.Context) error {
+			_, err := d.q.b.js.PublishMsg(ctx, m)
+			return err
+		})
+		if err != nil {
+			return d.msg.Nak()
+		}
+		if err := d.msg.DoubleAck(ctx); err != nil {
+			return fmt.Errorf("put back job %s: %w", d.id, err)
+		}
+		return nil
+	})
+}
 
 // InProgress implements jobs.Delivery.
 func (d *delivery) InProgress() error { return d.msg.InProgress() }

@@ -48,6 +48,9 @@ type Store struct {
 	progress map[string]jobs.Progress
 	subs     map[string]map[*sub]struct{}
 	closed   bool
+	// watched is the highest bucket revision the mirror's watch has
+	// delivered: the mirror holds every write up to it.
+	watched uint64
 }
 
 type route struct {
@@ -295,20 +298,39 @@ func (s *Store) DeleteJob(ctx context.Context, id string) error {
 }
 
 // Jobs implements jobs.Store from the mirror.
+// It first waits for the mirror to hold every write made before the call;
+// if the mirror cannot catch up within a few seconds (its watch is being
+// re-established after a node stopped) it reads the records from the
+// bucket instead.
 func (s *Store) Jobs(ctx context.Context, f jobs.Filter) ([]*jobs.Job, error) {
 	if err := s.start(ctx); err != nil {
 		return nil, err
 	}
-	s.mu.Lock()
 	var out []*jobs.Job
-	for _, e := range s.jobs {
-		if f.Match(e.j) {
-			c := *e.j
-			if p, ok := s.progress[c.ID]; ok && c.State == jobs.Running {
-				c.Progress = p
-			}
-			out = append(out, &c)
+	if err := s.sync(ctx); err != nil {
+		if ctx.Err() != nil {
+			return nil, ctx.Err()
 		}
+		s.log.Warn("job listing: mirror behind, reading the bucket", "error", err)
+		if out, err = s.scan(ctx, f); err != nil {
+			return nil, err
+		}
+	} else {
+		s.mu.Lock()
+		for _, e := range s.jobs {
+			if f.Match(e.j) {
+				out = append(out, e.j)
+			}
+		}
+		s.mu.Unlock()
+	}
+	s.mu.Lock()
+	for i, j := range out {
+		c := *j
+		if p, ok := s.progress[c.ID]; ok && c.State == jobs.Running {
+			c.Progress = p
+		}
+		out[i] = &c
 	}
 	s.mu.Unlock()
 	sort.Slice(out, func(a, b int) bool {
@@ -319,6 +341,94 @@ func (s *Store) Jobs(ctx context.Context, f jobs.Filter) ([]*jobs.Job, error) {
 	})
 	if f.Limit > 0 && len(out) > f.Limit {
 		out = out[:f.Limit]
+	}
+	return out, nil
+}
+
+// syncWait bounds how long a listing waits for the mirror.
+const syncWait = 3 * time.Second
+
+// sync waits until the mirror holds every write acknowledged before the
+// call: until its watch has delivered the bucket's last revision.
+func (s *Store) sync(ctx context.Context) error {
+	var last uint64
+	err := retry(ctx, func(ctx context.Context) error {
+		st, err := s.kv.Status(ctx)
+		if err != nil {
+			return err
+		}
+		ks, ok := st.(*jetstream.KeyValueBucketStatus)
+		if !ok {
+			return errors.New("unexpected key-value status type")
+		}
+		last = ks.StreamInfo().State.LastSeq
+		return nil
+	})
+	if err != nil {
+		return err
+	}
+	deadline := time.Now().Add(syncWait)
+	for {
+		s.mu.Lock()
+		w := s.watched
+		s.mu.Unlock()
+		if w >= last {
+			return nil
+		}
+		if time.Now().After(deadline) {
+			return fmt.Errorf("mirror at revision %d, bucket at %d", w, last)
+		}
+		select {
+		case <-ctx.Done():
+			return ctx.Err()
+		case <-time.After(2 * time.Millisecond):
+		}
+	}
+}
+
+// scan reads the records matching f from the bucket: the frames of
+// f.Series from the series record, or every job.
+func (s *Store) scan(ctx context.Context, f jobs.Filter) ([]*jobs.Job, error) {
+	var ids []string
+	if f.Series != "" {
+		sr, _, err := s.getSeries(ctx, f.Series)
+		if errors.Is(err, jobs.ErrNotFound) {
+			return nil, nil
+		}
+		if err != nil {
+			return nil, err
+		}
+		ids = sr.Frames
+	} else {
+		err := retry(ctx, func(ctx context.Context) error {
+			ids = ids[:0]
+			kl, err := s.kv.ListKeys(ctx)
+			if err != nil {
+				return err
+			}
+			for k := range kl.Keys() {
+				if id, ok := strings.CutPrefix(k, "job."); ok {
+					ids = append(ids, id)
+				}
+			}
+			return nil
+		})
+		if err != nil && !errors.Is(err, jetstream.ErrNoKeysFound) {
+			return nil, fmt.Errorf("list jobs: %w", err)
+		}
+	}
+	var out []*jobs.Job
+	for _, id := range ids {
+		j, _, err := s.getJob(ctx, id)
+		if errors.Is(err, jobs.ErrNotFound) {
+			continue
+		}
+		if err != nil {
+			return nil, err
+		}
+		if f.Match(j) {
+			out = append(out, j)
+		}
 	}
 	return out, nil
 }
@@ -430,6 +540,9 @@ func (s *Store) DeleteSeries(ctx context.Context, id string) error {
 func (s *Store) AllSeries(ctx context.Context) ([]*jobs.Series, error) {
 	if err := s.start(ctx); err != nil {
 		return nil, err
+	}
+	if err := s.sync(ctx); err != nil && ctx.Err() != nil {
+		return nil, ctx.Err()
 	}
 	s.mu.Lock()
 	out := make([]*jobs.Series, 0, len(s.series))
@@ -612,6 +725,9 @@ func (s *Store) dropUnseen(seen map[string]bool) {
 }
 
 func (s *Store) applyEntry(e jetstream.KeyValueEntry) {
+	s.mu.Lock()
+	s.watched = max(s.watched, e.Revision())
+	s.mu.Unlock()
 	key := e.Key()
 	del := e.Operation() != jetstream.KeyValuePut
 	switch {
