@@ -237,7 +237,15 @@ func printSummary(w io.Writer, f *field.Field, elapsed time.Duration) {
 	if f.Meta.MMPerPx > 0 {
 		fmt.Fprintf(w, " = %.3f mm", f.Meta.VSG*f.Meta.MMPerPx)
 	}
-	fmt.Fprintf(w, "; image noise σ %.2f grey levels (%v)\n", f.Meta.NoiseSigma, f.Meta.Extra["noise_source"])
+	switch src := f.Meta.Extra["noise_source"]; src {
+	case "residual":
+		// The residual holds the image noise and whatever the subset's
+		// shape function and the interpolation leave unmatched; on clean
+		// images it is mostly the latter.
+		fmt.Fprintf(w, "; residual σ %.2f grey levels (image noise plus unmatched pattern; give --noise if known)\n", f.Meta.NoiseSigma)
+	default:
+		fmt.Fprintf(w, "; image noise σ %.2f grey levels (%v)\n", f.Meta.NoiseSigma, src)
+	}
 	fmt.Fprintf(w, "  %-14s %12s %12s %12s %12s %10s\n", "quantity", "mean", "std", "min", "max", "unit")
 	for _, q := range []string{"u", "v", "E11", "E22", "E12", "e1", "e2", "rotation_deg", "von_mises", "zncc", "std_u", "std_v", "std_E11"} {
 		s, err := f.Summary(q)

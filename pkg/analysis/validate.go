@@ -63,9 +63,9 @@ const (
 	MaxThreads      = 1024
 )
 
-// jsonKind names what JSON value a Go type takes, for error messages read
+// JSONKind names what JSON value a Go type takes, for error messages read
 // by people who write JSON, not Go ("a whole number", not "int").
-func jsonKind(t reflect.Type) string {
+func JSONKind(t reflect.Type) string {
 	if t == nil {
 		return "another value"
 	}
@@ -84,7 +84,7 @@ func jsonKind(t reflect.Type) string {
 	case reflect.Struct, reflect.Map:
 		return "an object ({…})"
 	case reflect.Pointer:
-		return jsonKind(t.Elem())
+		return JSONKind(t.Elem())
 	}
 	return "another value"
 }
@@ -101,7 +101,7 @@ func ParseJSON(r io.Reader) (Params, error) {
 		}
 		var ute *json.UnmarshalTypeError
 		if errors.As(err, &ute) {
-			return p, &ValidationError{[]Problem{{Field: ute.Field, Message: fmt.Sprintf("expected %s, got a JSON %s", jsonKind(ute.Type), ute.Value)}}}
+			return p, &ValidationError{[]Problem{{Field: ute.Field, Message: fmt.Sprintf("expected %s, got a JSON %s", JSONKind(ute.Type), ute.Value)}}}
 		}
 		msg := err.Error()
 		if f, ok := strings.CutPrefix(msg, "json: unknown field "); ok {

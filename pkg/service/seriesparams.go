@@ -80,7 +80,7 @@ func (s *Server) parseSeriesParams(raw []byte, w, h int) (series.Params, error) 
 	if err := dec.Decode(&p); err != nil {
 		var ute *json.UnmarshalTypeError
 		if errors.As(err, &ute) {
-			return p, &FieldError{Field: "params." + ute.Field, Detail: fmt.Sprintf("expected a %s, got a JSON %s", ute.Type, ute.Value)}
+			return p, &FieldError{Field: "params." + ute.Field, Detail: fmt.Sprintf("expected %s, got a JSON %s", analysis.JSONKind(ute.Type), ute.Value)}
 		}
 		return p, &FieldError{Field: "params", Detail: err.Error()}
 	}
