@@ -180,8 +180,17 @@ func (p Properties) Lines() [][2]string {
 		if u.AtEnd {
 			note = " (maximum at the last frame: the test may have stopped before necking; lower bound)"
 		}
-		add("Ultimate strength, uniform elongation (ISO 6892-1)", "Rm = %.4g MPa at frame row %d; Agt = %.4g %%, Ag = %.4g %%%s",
-			u.Stress, u.Index, 100*u.StrainAtMax, 100*u.PlasticStrainAtMax, note)
+		ag := fmt.Sprintf("Ag = %.4g %%", 100*u.PlasticStrainAtMax)
+		switch {
+		case p.Modulus == nil:
+			ag = "Ag not computed (Ag = Agt − Rm/E needs Young's modulus: set the modulus range)"
+		case u.PlasticStrainAtMax <= 0:
+			// Ag = Agt − Rm/E: a curve that stayed elastic has none, and a
+			// small negative value is measurement noise, not a contraction.
+			ag = fmt.Sprintf("Ag = 0 %% (computed %.2g %%: the curve stayed elastic up to Rm, within the noise)", 100*u.PlasticStrainAtMax)
+		}
+		add("Ultimate strength, uniform elongation (ISO 6892-1)", "Rm = %.4g MPa at curve row %d; Agt = %.4g %%, %s%s",
+			u.Stress, u.Index, 100*u.StrainAtMax, ag, note)
 	}
 	if n := p.Poisson; n != nil {
 		add("Poisson's ratio (ASTM E132)", "ν = %.4f from %d points, axial strain %.4g–%.4g; R² = %.6f, slope CV %.3g %%",
