@@ -36,13 +36,7 @@ type Store struct {
 
 	mu       sync.Mutex
 	progress map[string]jobs.Progress
-	subs     map[string]map[*sub]struct{}
-	closed   bool
-}
-
-// sub is one Watch subscriber.
-type sub struct {
-	ch chan *jobs.Job
+	watchers jobs.Watchers
 }
 
 // OpenStore opens (creating if needed) the bbolt database at path. It fails
@@ -64,14 +58,12 @@ func OpenStore(path string) (*Store, error) {
 		db.Close()
 		return nil, fmt.Errorf("initialise job database %s: %w", path, err)
 	}
-	return &Store{db: db, progress: map[string]jobs.Progress{}, subs: map[string]map[*sub]struct{}{}}, nil
+	return &Store{db: db, progress: map[string]jobs.Progress{}}, nil
 }
 
 // Close closes the database and ends every watch.
 func (s *Store) Close() error {
-	s.mu.Lock()
-	s.closed = true
-	s.mu.Unlock()
+	s.watchers.Close()
 	return s.db.Close()
 }
 
@@ -341,56 +333,8 @@ func (s *Store) Watch(ctx context.Context, topic string) (<-chan *jobs.Job, erro
 	} else if _, err := s.Series(ctx, topic); err != nil {
 		return nil, fmt.Errorf("watch %s: %w", topic, jobs.ErrNotFound)
 	}
-	sb := &sub{ch: make(chan *jobs.Job, 16)}
-	s.mu.Lock()
-	if s.closed {
-		s.mu.Unlock()
-		return nil, jobs.ErrClosed
-	}
-	if s.subs[topic] == nil {
-		s.subs[topic] = map[*sub]struct{}{}
-	}
-	s.subs[topic][sb] = struct{}{}
-	if first != nil {
-		sb.ch <- first
-	}
-	s.mu.Unlock()
-	go func() {
-		<-ctx.Done()
-		s.mu.Lock()
-		delete(s.subs[topic], sb)
-		if len(s.subs[topic]) == 0 {
-			delete(s.subs, topic)
-		}
-		close(sb.ch)
-		s.mu.Unlock()
-	}()
-	return sb.ch, nil
+	return s.watchers.Add(ctx, topic, first)
 }
 
 // publish sends a copy of j to the watchers of its id and of its series.
-func (s *Store) publish(j *jobs.Job) {
-	s.mu.Lock()
-	defer s.mu.Unlock()
-	for _, topic := range []string{j.ID, j.Series} {
-		if topic == "" {
-			continue
-		}
-		for sb := range s.subs[topic] {
-			c := *j
-			for {
-				select {
-				case sb.ch <- &c:
-				default:
-					// Full: drop the oldest so the latest always arrives.
-					select {
-					case <-sb.ch:
-					default:
-					}
-					continue
-				}
-				break
-			}
-		}
-	}
-}
+func (s *Store) publish(j *jobs.Job) { s.watchers.Publish(j) }

@@ -46,7 +46,7 @@ type Store struct {
 	jobs     map[string]jobEntry
 	series   map[string]seriesEntry
 	progress map[string]jobs.Progress
-	subs     map[string]map[*sub]struct{}
+	watchers jobs.Watchers
 	closed   bool
 	// watched is the highest bucket revision the mirror's watch has
 	// delivered: the mirror holds every write up to it.
@@ -68,12 +68,10 @@ type seriesEntry struct {
 	s   *jobs.Series
 }
 
-type sub struct{ ch chan *jobs.Job }
-
 func newStore(nc *nats.Conn, kv jetstream.KeyValue, n names, log *slog.Logger) *Store {
 	return &Store{nc: nc, kv: kv, n: n, log: log, ready: make(chan struct{}),
 		jobs: map[string]jobEntry{}, series: map[string]seriesEntry{},
-		progress: map[string]jobs.Progress{}, subs: map[string]map[*sub]struct{}{}}
+		progress: map[string]jobs.Progress{}}
 }
 
 func jobKey(id string) string    { return "job." + id }
@@ -573,33 +571,7 @@ func (s *Store) Watch(ctx context.Context, topic string) (<-chan *jobs.Job, erro
 	} else if _, err := s.Series(ctx, topic); err != nil {
 		return nil, fmt.Errorf("watch %s: %w", topic, jobs.ErrNotFound)
 	}
-	sb := &sub{ch: make(chan *jobs.Job, 16)}
-	s.mu.Lock()
-	if s.closed {
-		s.mu.Unlock()
-		return nil, jobs.ErrClosed
-	}
-	if s.subs[topic] == nil {
-		s.subs[topic] = map[*sub]struct{}{}
-	}
-	s.subs[topic][sb] = struct{}{}
-	if first != nil {
-		sb.ch <- first
-	}
-	s.mu.Unlock()
-	go func() {
-		<-ctx.Done()
-		s.mu.Lock()
-		if _, ok := s.subs[topic][sb]; ok {
-			delete(s.subs[topic], sb)
-			if len(s.subs[topic]) == 0 {
-				delete(s.subs, topic)
-			}
-			close(sb.ch)
-		}
-		s.mu.Unlock()
-	}()
-	return sb.ch, nil
+	return s.watchers.Add(ctx, topic, first)
 }
 
 // Close ends the mirror and every watch.
@@ -613,12 +585,7 @@ func (s *Store) Close() error {
 	if s.stop != nil {
 		s.stop()
 	}
-	for topic, set := range s.subs {
-		for sb := range set {
-			close(sb.ch)
-		}
-		delete(s.subs, topic)
-	}
+	s.watchers.Close()
 	return nil
 }
 
@@ -802,26 +769,5 @@ func (s *Store) applySeries(rev uint64, id string, sr *jobs.Series) {
 }
 
 // publishLocked sends a copy of j to the watchers of its id and its
-// series; a full channel drops its oldest record so the latest arrives.
-func (s *Store) publishLocked(j *jobs.Job) {
-	for _, topic := range []string{j.ID, j.Series} {
-		if topic == "" {
-			continue
-		}
-		for sb := range s.subs[topic] {
-			c := *j
-			for {
-				select {
-				case sb.ch <- &c:
-				default:
-					select {
-					case <-sb.ch:
-					default:
-					}
-					continue
-				}
-				break
-			}
-		}
-	}
-}
+// series (called with s.mu held, which orders the updates).
+func (s *Store) publishLocked(j *jobs.Job) { s.watchers.Publish(j) }
