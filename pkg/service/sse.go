@@ -46,32 +46,12 @@ func (s *Server) jobEvents(w http.ResponseWriter, r *http.Request, j *jobs.Job) 
 		writeProblem(w, r, asProblem(err, "id"))
 		return
 	}
-	send := startEvents(w)
-	t := time.NewTicker(keepAlive)
-	defer t.Stop()
-	for {
-		select {
-		case j, ok := <-ch:
-			if !ok {
-				return
-			}
-			ev := "status"
-			if j.State.Terminal() {
-				ev = "done"
-			}
-			if send(ev, viewJob(j)) != nil || ev == "done" {
-				return
-			}
-		case <-t.C:
-			if send("", nil) != nil {
-				return
-			}
-		case <-s.stopping:
-			return
-		case <-r.Context().Done():
-			return
+	s.pump(r, ch, startEvents(w), func(j *jobs.Job) (string, bool) {
+		if j.State.Terminal() {
+			return "done", true
 		}
-	}
+		return "status", false
+	})
 }
 
 // seriesEvents streams a series: "series" with the series first, then
@@ -87,6 +67,13 @@ func (s *Server) seriesEvents(w http.ResponseWriter, r *http.Request, sr *jobs.S
 	if send("series", s.viewSeries(r.Context(), sr, true)) != nil {
 		return
 	}
+	s.pump(r, ch, send, func(*jobs.Job) (string, bool) { return "frame", false })
+}
+
+// pump sends every job record from ch as an event named by name, with a
+// keep-alive comment between records, until name says the record was the
+// last, the channel closes, the client goes away or the server stops.
+func (s *Server) pump(r *http.Request, ch <-chan *jobs.Job, send func(event string, v any) error, name func(*jobs.Job) (event string, last bool)) {
 	t := time.NewTicker(keepAlive)
 	defer t.Stop()
 	for {
@@ -95,7 +82,8 @@ func (s *Server) seriesEvents(w http.ResponseWriter, r *http.Request, sr *jobs.S
 			if !ok {
 				return
 			}
-			if send("frame", viewJob(j)) != nil {
+			ev, last := name(j)
+			if send(ev, viewJob(j)) != nil || last {
 				return
 			}
 		case <-t.C:
