@@ -521,10 +521,24 @@ func (s *Server) image(which string) jobHandler {
 		if which == "reference" && j.Kind == jobs.Frame {
 			key = jobs.SeriesKey(j.Series, "reference")
 		}
+		stretch := false
+		switch v := r.URL.Query().Get("stretch"); v {
+		case "", "false":
+		case "true":
+			stretch = true
+		default:
+			writeProblem(w, r, problem(http.StatusBadRequest, "bad-query", "Bad query", "stretch must be true or false",
+				FieldProblem{Field: "stretch", Detail: fmt.Sprintf("is %q; use true for an 8-bit preview with the grey range stretched to 0–255, or false for the image's own levels", v)}))
+			return
+		}
 		g, err := s.loadImage(r.Context(), key)
 		if err != nil {
 			writeProblem(w, r, asProblem(err, which))
 			return
+		}
+		if stretch {
+			_, _, lo, hi := imageio.Stats(g)
+			g = stretched(g, lo, hi)
 		}
 		var b bytes.Buffer
 		if err := imageio.WritePNG(&b, g, pngBits(g)); err != nil {

@@ -121,8 +121,18 @@ func inspectImage(g *imageio.Gray) (*Inspection, error) {
 		res.SpeckleSizePx = &sz
 		res.Advice = advise(sz)
 	}
-	// The preview: min → 0, max → 255, so 12- and 16-bit images with a
-	// narrow range are visible; a flat image is black.
+	var buf bytes.Buffer
+	if err := imageio.WritePNG(&buf, stretched(g, lo, hi), 8); err != nil {
+		return nil, fmt.Errorf("encode the preview of the %d×%d px image: %w", g.W, g.H, err)
+	}
+	res.PreviewPNG = "data:image/png;base64," + base64.StdEncoding.EncodeToString(buf.Bytes())
+	return res, nil
+}
+
+// stretched returns g with its grey range lo…hi mapped to 0…255, so that
+// 12- and 16-bit images with a narrow range are visible in an 8-bit
+// preview; a flat image is black.
+func stretched(g *imageio.Gray, lo, hi float64) *imageio.Gray {
 	p := imageio.NewGray(g.W, g.H)
 	scale := 0.0
 	if hi > lo {
@@ -134,12 +144,8 @@ func inspectImage(g *imageio.Gray) (*Inspection, error) {
 			dst[x] = float32((float64(v) - lo) * scale)
 		}
 	}
-	var buf bytes.Buffer
-	if err := imageio.WritePNG(&buf, p, 8); err != nil {
-		return nil, fmt.Errorf("encode the preview of the %d×%d px image: %w", g.W, g.H, err)
-	}
-	res.PreviewPNG = "data:image/png;base64," + base64.StdEncoding.EncodeToString(buf.Bytes())
-	return res, nil
+	p.Bits = 8
+	return p
 }
 
 // readRawImage reads a request whose raw body is one image file (not

@@ -241,7 +241,6 @@ async function submit(kind) {
   try { body = await resp.json(); } catch { /* empty body */ }
   let id;
   try { id = idFromLocation(resp, body); } catch (err) { showError(err); return; }
-  state.fromUpload = kind !== 'demo';
   say(`Analysis ${id} accepted.`);
   track(id, body);
 }
@@ -338,16 +337,11 @@ async function openResult(base, job, label) {
   let field;
   try { field = parseField(doc); } catch (err) { showError(err); return; }
   const images = {
-    reference: await loadImage(`${base}/images/reference.png`),
-    deformed: await loadImage(`${base}/images/deformed.png`),
+    // Stretched to 0–255 by the service, so that 12- and 16-bit images are
+    // visible whether they were just uploaded or reopened later.
+    reference: await loadImage(`${base}/images/reference.png?stretch=true`),
+    deformed: await loadImage(`${base}/images/deformed.png?stretch=true`),
   };
-  if (state.fromUpload && base.includes('/analyses/')) {
-    // The service's images keep the native grey scale, so a 12-bit TIFF
-    // looks black: show its stretched preview instead.
-    for (const role of ['reference', 'deformed']) {
-      images[role] = (state.inspect[role] && state.bitmaps[role]) || images[role] || state.bitmaps[role];
-    }
-  }
   if (!base.includes('/frames/')) { view.line = null; view.lineRef = null; $('profile-text').textContent = 'No profile yet.'; delete $('profile-text').dataset.count;
     const pc = $('profile-canvas'); pc.getContext('2d').clearRect(0, 0, pc.width, pc.height); }
   state.base = base; state.job = job; state.field = field;
@@ -547,7 +541,6 @@ async function showFrame(n) {
     $('curve-text').textContent = `Frame ${n} is ${job.state}${e.detail ? ': ' + e.detail : ''}; its map appears once it has succeeded.`;
     return;
   }
-  state.fromUpload = false;
   await openResult(base, job || { width: s.rec.width, height: s.rec.height }, `series ${s.id}, frame ${n}`);
 }
 
@@ -608,7 +601,7 @@ $('btn-profile').addEventListener('click', () => {
   view.opts.on = prevOn;
   view.profile();
 });
-$('recent').addEventListener('change', e => { if (e.target.value) { clearError(); state.fromUpload = false; track(e.target.value); } });
+$('recent').addEventListener('change', e => { if (e.target.value) { clearError(); track(e.target.value); } });
 $('token').addEventListener('change', refreshLists);
 $('btn-series').addEventListener('click', () => openSeries($('series-id').value));
 $('series-id').addEventListener('keydown', e => { if (e.key === 'Enter') openSeries($('series-id').value); });
