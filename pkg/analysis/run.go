@@ -174,6 +174,12 @@ func Kinematics(ctx context.Context, res *correlate.Result, p Params) (*field.Fi
 		return nil, fmt.Errorf("strain fit: %w", err)
 	}
 	qs, status := kinematics.Quantities(grads, kinematics.GreenLagrangeMeasure)
+	// How many valid points each strain fit used: fewer than the full
+	// window near edges and holes, where the fit is one-sided and noisier.
+	npts := make([]float64, n)
+	for k, g := range grads {
+		npts[k] = float64(g.N)
+	}
 	for k := range status {
 		if f.Status[k] == "ok" {
 			f.Status[k] = status[k]
@@ -192,7 +198,7 @@ func Kinematics(ctx context.Context, res *correlate.Result, p Params) (*field.Fi
 	for _, q := range []struct {
 		name string
 		vals []float64
-	}{{"u", u}, {"v", v}, {"zncc", zncc}, {"std_u", su}, {"std_v", sv}, {"valid", valid}, {"iterations", iters}} {
+	}{{"u", u}, {"v", v}, {"zncc", zncc}, {"std_u", su}, {"std_v", sv}, {"valid", valid}, {"iterations", iters}, {"strain_points", npts}} {
 		if err := set(q.name, q.vals); err != nil {
 			return nil, err
 		}

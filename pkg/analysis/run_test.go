@@ -55,6 +55,22 @@ func TestRunHomogeneousStretchAndRotation(t *testing.T) {
 	if frac := float64(valid) / float64(3*f.Grid.Len()); frac < 0.7 {
 		t.Errorf("only %.0f %% of the grid has strains", 100*frac)
 	}
+	// Every fit says how many points it used: a full 5×5 window in the
+	// middle of the grid, fewer where the window meets the edge (counted
+	// by hand: at most 3×5 in the first column).
+	np, ok := f.Get("strain_points")
+	if !ok {
+		t.Fatal("no strain_points quantity")
+	}
+	mid := (f.Grid.Ny/2)*f.Grid.Nx + f.Grid.Nx/2
+	if np[mid] != 25 {
+		t.Errorf("strain fit in the middle used %v points, want 25", np[mid])
+	}
+	for j := 0; j < f.Grid.Ny; j++ {
+		if k := j * f.Grid.Nx; np[k] > 15 {
+			t.Errorf("strain fit at the left edge (point %d) used %v points, at most 15 exist", k, np[k])
+		}
+	}
 	rot, _ := f.Summary("rotation_deg")
 	if math.Abs(rot.Mean-10) > 0.05 {
 		t.Errorf("mean rotation %.4f°, truth 10°", rot.Mean)
