@@ -11,39 +11,15 @@ import (
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
-// The material law below is INVENTED demo data (a fictitious sheet of the
-// invented Brackwater Materials Lab), not a real material: linear elastic
-// with E = 10 GPa and ν = 0.30 up to σ_y = 100 MPa, then linear hardening
-// H = 500 MPa in engineering terms, with a plastic strain ratio r = 0.80.
-const (
-	lawE      = 10000.0 // MPa
-	lawNu     = 0.30
-	lawSy     = 100.0 // MPa
-	lawH      = 500.0 // MPa
-	lawR      = 0.80
-	lawArea   = 20.0 // mm², an invented 10 mm × 2 mm strip
-	lawOff    = 0.002
-	lawYieldE = lawSy / lawE
-)
+// The material law is INVENTED demo data (a fictitious sheet of the
+// invented Brackwater Materials Lab), not a real material: synth's demo
+// tensile law (synth.DemoTensileLaw, the one "mottle synth --test tensile"
+// renders), linear elastic with E = 10 GPa and ν = 0.30 up to
+// σ_y = 100 MPa, then linear hardening H = 500 MPa in engineering terms,
+// with a plastic strain ratio r = 0.80 on a 20 mm² cross-section.
+var law = synth.DemoTensileLaw()
 
-// lawStress is the engineering stress at axial engineering strain e.
-func lawStress(e float64) float64 {
-	if e <= lawYieldE {
-		return lawE * e
-	}
-	return lawSy + lawH*(e-lawYieldE)
-}
-
-// lawWidth is the width engineering strain at axial strain e: −νe in the
-// elastic range; beyond it the true plastic strains follow
-// ε_w^p = −r/(1+r)·ε_l^p, with the elastic stretches 1 + σ/E and 1 − νσ/E
-// taken out multiplicatively (the definition props.PlasticStrains uses).
-func lawWidth(e float64) float64 {
-	s := lawStress(e)
-	elp := math.Log1p(e) - math.Log1p(s/lawE)
-	ew := math.Log1p(-lawNu*s/lawE) - lawR/(1+lawR)*elp
-	return math.Expm1(ew)
-}
+const lawOff = 0.002
 
 // renderFrames renders the reference and one frame per motion, all of the
 // same speckle pattern of the given mean speckle diameter (px). With defocus > 0 the lens blur grows linearly from
@@ -87,13 +63,13 @@ func TestMaterialLawSeries(t *testing.T) {
 	const W, H, cx, cy = 192, 128, 96.0, 64.0
 	var ms []synth.Motion
 	for _, e := range strains {
-		ms = append(ms, synth.Affine{F: [2][2]float64{{1 + e, 0}, {0, 1 + lawWidth(e)}}, CX: cx, CY: cy})
+		ms = append(ms, law.Motion(e, cx, cy))
 	}
 	ref, imgs := renderFrames(t, W, H, 4, ms, 0)
 
 	p := Defaults()
 	p.Analysis.Subset, p.Analysis.Step = 21, 8
-	p.Area = lawArea
+	p.Area = law.Area
 	// Elastic displacements here are tenths of a pixel, where the
 	// interpolation bias is nearly proportional to the shift (a gain error
 	// of 1–3 % with cubic splines on these images, measured). Quintic
@@ -122,18 +98,17 @@ func TestMaterialLawSeries(t *testing.T) {
 		t.Fatal(err)
 	}
 	for n, im := range imgs {
-		load := lawStress(strains[n]) * lawArea
+		load := law.Stress(strains[n]) * law.Area
 		fr, err := tr.Add(context.Background(), im, FrameMeta{Load: &load})
 		if err != nil {
 			t.Fatal(err)
 		}
 		ex := fr.Summary.Extensometers
 		t.Logf("frame %2d %-11s axial %.6f (true %.6f, err %+.1e)  width %.6f (true %.6f, err %+.1e)  zncc %.4f",
-			n+1, fr.Summary.Mode, ex[0].Eng, strains[n], ex[0].Eng-strains[n], ex[1].Eng, lawWidth(strains[n]), ex[1].Eng-lawWidth(strains[n]), fr.Summary.MeanZNCC)
+			n+1, fr.Summary.Mode, ex[0].Eng, strains[n], ex[0].Eng-strains[n], ex[1].Eng, law.Width(strains[n]), ex[1].Eng-law.Width(strains[n]), fr.Summary.MeanZNCC)
 	}
 	c := tr.Curve()
-	eStar := (lawSy - lawH*lawYieldE + lawOff*lawE) / (lawE - lawH)
-	wantYield := lawE * (eStar - lawOff)
+	wantYield := law.OffsetYield(lawOff)
 	check := func(source string, pr Properties, tol float64) {
 		if pr.Modulus == nil || pr.Poisson == nil || pr.Yield == nil || pr.R == nil {
 			t.Fatalf("%s: properties missing: %+v", source, pr.Skipped)
@@ -144,10 +119,10 @@ func TestMaterialLawSeries(t *testing.T) {
 				t.Errorf("%s: %s = %.5g, want %.5g within %.0f %%", source, name, got, want, 100*tol)
 			}
 		}
-		rel("E", pr.Modulus.E, lawE, tol)
-		rel("nu", pr.Poisson.Nu, lawNu, tol)
+		rel("E", pr.Modulus.E, law.E, tol)
+		rel("nu", pr.Poisson.Nu, law.Nu, tol)
 		rel("Rp0.2", pr.Yield.Stress, wantYield, tol)
-		rel("r", pr.R.R, lawR, 2*tol)
+		rel("r", pr.R.R, law.R, 2*tol)
 		for _, l := range pr.Lines() {
 			t.Logf("%s: %s: %s", source, l[0], l[1])
 		}

@@ -74,4 +74,7 @@ type TruthFile struct {
 	Grid      GridSpec       `json:"grid"`
 	Frames    []TruthFrame   `json:"frames"`
 	Notes     []string       `json:"notes,omitempty"`
+	// Tensile is the truth of an invented tensile test (mottle synth
+	// --test tensile): its law, true properties and per-frame strains.
+	Tensile *TensileTruth `json:"tensile_test,omitempty"`
 }
