@@ -4,9 +4,13 @@ import (
 	"context"
 	"encoding/json"
 	"errors"
+	"flag"
 	"fmt"
+	"io"
+	"math"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -47,7 +51,22 @@ Examples:
   mottle synth --motion hole:stress_MPa=300,radius_px=40 --bits 16 --format tiff
   mottle synth --motion star --size 1000x300 --grid-step 4
   mottle synth --motion hole --frames 10 --full-load 12000   # loading series
-  mottle synth --static 20 --noise 2                          # noise-floor series`)
+  mottle synth --static 20 --noise 2                          # noise-floor series
+
+A whole invented tensile test (--test tensile): an INVENTED coupon (demo
+data, not a real material) loaded along x past yield, with a linear-elastic
+then linear-hardening law (--modulus, --poisson, --yield, --hardening,
+--r-value, --area). The gauge section, which fills the image, deforms
+homogeneously: axial engineering strain e, width strain −νe while elastic;
+beyond yield the true plastic strains keep the volume with
+r = ε_width/ε_thickness (ISO 10113), after the elastic stretches 1 + σ/E
+and 1 − νσ/E are taken out. --frames loading frames (default 19): half of
+them evenly to the yield strain, the rest evenly to --max-strain. Besides
+the images it writes load.csv (frame,time_s,load_N, as "mottle series
+--table" reads it) and the true E, ν, Rp0.2, r and per-frame strains under
+"tensile_test" in truth.json, and prints a "mottle series" command to try.
+Unless set, --size is 384x256 and --bits 12 for this test.
+  mottle synth --test tensile --out coupon`)
 	return b.String()
 }
 
@@ -85,11 +104,50 @@ func runSynth(ctx context.Context, e *env, args []string) error {
 	static := fs.Int("static", 0, "render this many frames of the reference state with fresh noise (noise-floor series); ignores --motion")
 	dt := fs.Float64("dt", 1, "time between frames in s")
 	fullLoad := fs.Float64("full-load", 1, "load value recorded at load factor 1 (any unit, e.g. N)")
+	test := fs.String("test", "", "render a whole invented test instead of --motion: tensile (see above)")
+	law := synth.DemoTensileLaw()
+	fs.Float64Var(&law.E, "modulus", law.E, "--test tensile: Young's modulus E in MPa (invented law)")
+	fs.Float64Var(&law.Nu, "poisson", law.Nu, "--test tensile: Poisson's ratio ν")
+	fs.Float64Var(&law.Yield, "yield", law.Yield, "--test tensile: yield stress σ_y in MPa where the linear range ends")
+	fs.Float64Var(&law.Hardening, "hardening", law.Hardening, "--test tensile: hardening modulus H = dσ/de beyond yield in MPa (engineering stress and strain), below E")
+	fs.Float64Var(&law.R, "r-value", law.R, "--test tensile: plastic strain ratio r = ε_width/ε_thickness (ISO 10113)")
+	fs.Float64Var(&law.Area, "area", law.Area, "--test tensile: initial cross-section in mm² (load in N = stress in MPa × area)")
+	maxStrain := fs.Float64("max-strain", 0.06, "--test tensile: axial engineering strain of the last frame (past the yield strain σ_y/E)")
 	if err := noArgs(e, fs, "synth", args); err != nil {
 		return err
 	}
 
+	set := map[string]bool{}
+	fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
 	var errs []error
+	tensile := false
+	switch strings.ToLower(*test) {
+	case "":
+		for _, n := range []string{"modulus", "poisson", "yield", "hardening", "r-value", "area", "max-strain"} {
+			if set[n] {
+				errs = append(errs, fmt.Errorf("--%s belongs to --test tensile; add --test tensile or leave it out", n))
+			}
+		}
+	case "tensile":
+		tensile = true
+		if set["motion"] || set["static"] || set["full-load"] {
+			errs = append(errs, errors.New("--test tensile makes its own motion and loads: leave out --motion, --static and --full-load"))
+		}
+		if !set["size"] {
+			*size = "384x256"
+		}
+		if !set["bits"] {
+			ro.Bits = 12
+		}
+		if !set["frames"] {
+			*frames = 19
+		}
+		if err := law.Validate(); err != nil {
+			errs = append(errs, err)
+		}
+	default:
+		errs = append(errs, fmt.Errorf("--test %q: the one test is tensile", *test))
+	}
 	var w, h int
 	if _, err := fmt.Sscanf(strings.ToLower(*size), "%dx%d", &w, &h); err != nil || w <= 0 || h <= 0 {
 		errs = append(errs, fmt.Errorf("--size %q: use WxH with positive integers, e.g. 512x384", *size))
@@ -122,7 +180,15 @@ func runSynth(ctx context.Context, e *env, args []string) error {
 		errs = append(errs, fmt.Errorf("--grid-step %g: use a spacing ≥ 0 px", *gridStep))
 	}
 	var m synth.Motion
-	if *static > 0 {
+	var strains []float64
+	if tensile {
+		m = synth.Identity{}
+		if *frames > 0 && law.Validate() == nil {
+			if strains, err = law.Schedule(*frames, *maxStrain); err != nil {
+				errs = append(errs, fmt.Errorf("--frames, --max-strain: %w", err))
+			}
+		}
+	} else if *static > 0 {
 		m = synth.Identity{}
 	} else if w > 0 && h > 0 {
 		m, err = synth.ParseMotion(*motion, w, h)
@@ -140,6 +206,12 @@ func runSynth(ctx context.Context, e *env, args []string) error {
 
 	var series []synth.Frame
 	switch {
+	case tensile:
+		cx, cy := float64(w-1)/2, float64(h-1)/2
+		for i, st := range strains {
+			series = append(series, synth.Frame{Index: i + 1, Time: float64(i+1) * *dt, Factor: st / *maxStrain,
+				Load: law.Stress(st) * law.Area, Motion: law.Motion(st, cx, cy)})
+		}
 	case *static > 0:
 		series = synth.StaticSeries(m, *static, *dt, 0)
 	case *frames > 0:
@@ -229,13 +301,80 @@ func runSynth(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	if tensile {
+		states := []synth.TensileState{law.State(0)}
+		states[0].File = tf.Reference
+		for i, f := range tf.Frames {
+			st := law.State(strains[i])
+			st.Frame, st.File, st.Time = f.Index, f.File, f.Time
+			states = append(states, st)
+		}
+		tt := law.Truth(states)
+		tf.Tensile = &tt
+		tf.Notes = append(tf.Notes,
+			"tensile_test: an INVENTED coupon and material law (demo data, not a real material); the images show the middle of the gauge section, loaded along x.",
+			"tensile_test: loads in load.csv are stress × initial area; strains are exact (the images are rendered from the motion, nothing is interpolated).")
+		if err := writeLoadCSV(filepath.Join(*out, "load.csv"), states); err != nil {
+			return err
+		}
+	}
 	if err := synthWriteJSON(filepath.Join(*out, "truth.json"), tf); err != nil {
 		return err
 	}
 	sz, _ := imageio.SpeckleSize(ref)
 	fmt.Fprintf(e.stdout, "wrote %s: %s and %d deformed image(s), %d×%d px, %d-bit; %d speckles, measured speckle size %.2f px (2×autocorrelation HWHM); truth on %d×%d points\n",
 		*out, tf.Reference, len(tf.Frames), w, h, ro.Bits, p.Count(), sz, grid.NX, grid.NY)
+	if tensile {
+		printTensile(e.stdout, *out, law, strains, w, h)
+	}
 	return nil
+}
+
+// writeLoadCSV writes the per-frame time and load of a tensile test in
+// the format of "mottle series --table" (series.ReadTable).
+func writeLoadCSV(path string, states []synth.TensileState) error {
+	var b strings.Builder
+	b.WriteString("# invented tensile test (demo data): load = stress × initial area\nframe,time_s,load_N\n")
+	for _, s := range states {
+		fmt.Fprintf(&b, "%d,%s,%s\n", s.Frame, strconv.FormatFloat(s.Time, 'g', -1, 64), strconv.FormatFloat(s.Load, 'g', 10, 64))
+	}
+	return os.WriteFile(path, []byte(b.String()), 0o644)
+}
+
+// tensileSeriesArgs returns the "mottle series" arguments that measure the
+// properties of a rendered tensile test in folder dir: a gauge over the
+// middle two thirds of the image, the modulus (and Poisson) range inside
+// the linear part of the schedule, the r range from twice the yield
+// strain (or mid-way to the end) to past the last frame.
+func tensileSeriesArgs(dir string, law synth.TensileLaw, strains []float64, w, h int) []string {
+	ey := law.YieldStrain()
+	ne := 0
+	for _, s := range strains {
+		if s <= ey {
+			ne++
+		}
+	}
+	last := strains[len(strains)-1]
+	lo, hi := ey/float64(2*ne), ey*(1-1/float64(2*ne))
+	rlo := math.Min(2*ey, (ey+last)/2)
+	rhi := last * 1.02
+	g := func(v float64) string { return strconv.FormatFloat(v, 'g', 4, 64) }
+	x0, x1 := w/6, w-w/6
+	y0, y1 := h/6, h-h/6
+	return []string{dir, "--table", filepath.Join(dir, "load.csv"), "--area", g(law.Area),
+		"--gauge", fmt.Sprintf("mid:%d,%d,%d,%d", x0, y0, x1, y1), "--axial", "gauge:mid:E11", "--transverse", "gauge:mid:E22",
+		"--modulus-range", g(lo) + "," + g(hi), "--r-range", g(rlo) + "," + g(rhi), "--out", dir + "-results"}
+}
+
+// printTensile prints the true properties of a rendered tensile test and
+// the series command that measures them.
+func printTensile(w io.Writer, dir string, law synth.TensileLaw, strains []float64, width, height int) {
+	fmt.Fprintf(w, "INVENTED tensile coupon (demo data, not a real material): E = %g MPa, ν = %g, σ_y = %g MPa, H = %g MPa, r = %g, area %g mm²\n",
+		law.E, law.Nu, law.Yield, law.Hardening, law.R, law.Area)
+	fmt.Fprintf(w, "true properties: E = %g MPa, ν = %g, Rp0.2 = %.5g MPa, r = %g; %d frames to axial strain %g (yield strain %g); loads in %s\n",
+		law.E, law.Nu, law.OffsetYield(0.002), law.R, len(strains), strains[len(strains)-1], law.YieldStrain(), filepath.Join(dir, "load.csv"))
+	args := tensileSeriesArgs(dir, law, strains, width, height)
+	fmt.Fprintf(w, "measure them with:\n  mottle series %s\n", strings.Join(args, " "))
 }
 
 // synthWriteJSON writes v as indented JSON to path via a temporary file.
