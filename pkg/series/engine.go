@@ -14,19 +14,46 @@ import (
 // New starts a series on the reference image ref, whose own time stamp and
 // load (usually zero) are in meta, with parameters p (zero fields take the
 // defaults of Defaults). It validates p against the image and returns every
-// problem at once.
+// problem at once. It is NewWith with no Options.
 func New(ref *imageio.Gray, meta FrameMeta, p Params) (*Tracker, error) {
+	return NewWith(ref, meta, p, Options{})
+}
+
+// Options are the inputs of a series that are not parameters: they do not
+// travel as JSON. The zero value is valid.
+type Options struct {
+	// Mask, if not nil, is an ROI mask image of the reference's size:
+	// pixels brighter than half its maximum are inside (roi.FromImage). It
+	// is intersected with Params.Analysis.ROI. The mask is saved with the
+	// State, so Restore does not need it again.
+	Mask *imageio.Gray
+}
+
+// NewWith is New with options: an ROI mask image.
+func NewWith(ref *imageio.Gray, meta FrameMeta, p Params, opt Options) (*Tracker, error) {
 	if ref == nil || ref.W < 1 || ref.H < 1 {
 		return nil, errors.New("series: reference image is empty")
 	}
 	if err := p.Validate(ref.W, ref.H); err != nil {
 		return nil, fmt.Errorf("series parameters: %w", err)
 	}
-	c, err := newCorrelator(ref, p.withDefaults())
+	var pm *packedMask
+	if opt.Mask != nil {
+		var err error
+		if pm, err = packMask(opt.Mask, ref.W, ref.H); err != nil {
+			return nil, fmt.Errorf("series: %w", err)
+		}
+	}
+	c, err := newCorrelator(ref, p.withDefaults(), pm)
 	if err != nil {
 		return nil, err
 	}
-	return newTracker(ref, meta, p, c)
+	t, err := newTracker(ref, meta, p, c)
+	if err != nil {
+		return nil, err
+	}
+	t.st.Mask = pm
+	return t, nil
 }
 
 // engine is the production correlator on pkg/correlate.
@@ -43,8 +70,15 @@ type engine struct {
 // it is taken from a correlation of the reference with itself, capped at
 // two iterations per point (zero motion converges at once), which also
 // checks that the reference can be correlated at all.
-func newCorrelator(ref *imageio.Gray, p Params) (correlator, error) {
-	opt, err := analysis.CorrelationOptions(p.Analysis, ref.W, ref.H, nil)
+func newCorrelator(ref *imageio.Gray, p Params, mask *packedMask) (correlator, error) {
+	var mi *imageio.Gray
+	if mask != nil {
+		var err error
+		if mi, err = mask.image(ref.W, ref.H); err != nil {
+			return nil, fmt.Errorf("series: %w", err)
+		}
+	}
+	opt, err := analysis.CorrelationOptions(p.Analysis, ref.W, ref.H, mi)
 	if err != nil {
 		return nil, fmt.Errorf("series: %w", err)
 	}
@@ -69,8 +103,9 @@ func fromPoint(pt correlate.Point) match {
 		ZNCC: pt.ZNCC, StdU: pt.StdU, StdV: pt.StdV, OK: pt.Status == correlate.OK, Reason: pt.Status.String()}
 }
 
-func (e *engine) direct(ctx context.Context, def *imageio.Gray, start []guess) ([]match, error) {
+func (e *engine) direct(ctx context.Context, def *imageio.Gray, start []guess, progress func(done, total int)) ([]match, error) {
 	opt := e.opt
+	opt.Progress = progress
 	if start != nil {
 		opt.Start = make([]correlate.Point, len(start))
 		for k, s := range start {
@@ -103,7 +138,7 @@ func (e *engine) direct(ctx context.Context, def *imageio.Gray, start []guess) (
 // interpolation of the reference subset) and carries each solution to the
 // exact point with correlate.Recentre: the mapping is evaluated at the
 // material point's current position, not at the rounded one.
-func (e *engine) at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float64, start []guess) ([]match, error) {
+func (e *engine) at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float64, start []guess, progress func(done, total int)) ([]match, error) {
 	g := make([][12]float64, len(pts))
 	centres := make([][2]float64, len(pts))
 	for k, p := range pts {
@@ -112,7 +147,9 @@ func (e *engine) at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float6
 		g[k][correlate.U], g[k][correlate.V] = s.U, s.V
 		g[k][correlate.Ux], g[k][correlate.Uy], g[k][correlate.Vx], g[k][correlate.Vy] = s.Ux, s.Uy, s.Vx, s.Vy
 	}
-	res, err := correlate.RunPoints(ctx, src, dst, centres, g, e.inc)
+	opt := e.inc
+	opt.Progress = progress
+	res, err := correlate.RunPoints(ctx, src, dst, centres, g, opt)
 	if err != nil {
 		return nil, err
 	}

@@ -201,7 +201,7 @@ func TestIncrementalLargeStretch(t *testing.T) {
 	}
 	// Direct correlation of the last frame with the reference, even from
 	// the tracked solution, fails: that is why the incremental path exists.
-	d, err := tr.directStep(context.Background(), imgs[frames-1])
+	d, err := tr.directStep(context.Background(), imgs[frames-1], tr.st.Points, &progress{})
 	if err != nil {
 		t.Fatal(err)
 	}

@@ -18,8 +18,18 @@
 //
 // so results stay referred to the reference configuration. Displacements of
 // different points are never added. Each frame's Summary says which mode
-// was used ("direct" or "incremental"); once switched, the tracker stays
-// incremental.
+// was used ("direct" or "incremental").
+//
+// Once switched, the tracker stays incremental unless Params.ReturnDirect
+// is set: then each incremental frame is also correlated with the
+// reference, starting from the composed mapping, and the tracker returns
+// to direct correlation when that meets the switch thresholds. Points lost
+// in an incremental frame (an occlusion, a glare spot) are re-acquired
+// when their neighbours are still tracked: the point's position in the
+// previous frame is predicted from the neighbours' mappings, x ≈ x_j +
+// F_j·(X − X_j), and it is correlated from there, so it continues from
+// where the material is rather than staying lost. Summary.Reacquired counts
+// them.
 //
 // # Use
 //
@@ -85,6 +95,14 @@ type Params struct {
 	// fraction of the points valid in the first frame are still valid is
 	// redone incrementally. Default 0.9.
 	SwitchValid float64 `json:"switch_valid"`
+	// ReturnDirect: in auto mode, once incremental, also correlate each
+	// frame with the reference, starting from the composed solution, and
+	// return to direct correlation when that meets SwitchZNCC and
+	// SwitchValid. Direct frames carry no error from earlier frames, while
+	// the errors of an incremental chain add up like a random walk (common
+	// practice). It costs one more correlation per incremental frame.
+	// Default false.
+	ReturnDirect bool `json:"return_direct,omitempty"`
 	// Units of extensometer and gauge coordinates and of lengths in the
 	// output: "px" (default) or "mm" (needs Analysis.MMPerPx).
 	Units string `json:"units"`
@@ -128,11 +146,19 @@ type PropsParams struct {
 }
 
 // FrameMeta describes one frame: its name (a file name, say), time stamp
-// in seconds and load in newtons, each optional.
+// in seconds and load in newtons, each optional, and where Add reports its
+// progress.
 type FrameMeta struct {
 	Name string   `json:"name,omitempty"`
 	Time *float64 `json:"time_s,omitempty"`
 	Load *float64 `json:"load_N,omitempty"`
+	// Progress, if not nil, is called by Add from the calling goroutine
+	// with the number of point correlations done and the number known so
+	// far. A frame can take several passes (direct, then incremental, then
+	// re-acquisition or a check against the reference), each adding its
+	// points to the total when it starts, so done never decreases but
+	// total may grow; the last call has done == total.
+	Progress func(done, total int) `json:"-"`
 }
 
 // Summary is one frame's row of the curve.
@@ -146,6 +172,14 @@ type Summary struct {
 	Stress *float64 `json:"stress_MPa,omitempty"`
 	// Mode is ModeReference, ModeDirect or ModeIncremental.
 	Mode string `json:"mode"`
+	// ReturnedDirect is true for a frame that was first done incrementally
+	// and then, checked against the reference (Params.ReturnDirect),
+	// returned to direct correlation.
+	ReturnedDirect bool `json:"returned_to_direct,omitempty"`
+	// Reacquired is the number of points that were lost before this
+	// incremental frame, or in it, and were found again from their
+	// neighbours' mappings.
+	Reacquired int `json:"reacquired,omitempty"`
 	// Static is true for the frames that make up the noise floor.
 	Static bool `json:"static,omitempty"`
 	// ValidFraction is the fraction of grid points with a valid result;

@@ -25,6 +25,13 @@ type State struct {
 	Switched bool `json:"switched"`
 	// FirstValid is the number of points valid in frame 1.
 	FirstValid int `json:"first_valid"`
+	// Initial marks the points valid in frame 1, row-major on Grid: the
+	// points the tracked fraction counts and the only ones re-acquired
+	// after they were lost. Empty before frame 1 (and in states written
+	// before it existed: no re-acquisition then).
+	Initial bits `json:"initial,omitempty"`
+	// Mask is the ROI mask image the series was started with, if any.
+	Mask *packedMask `json:"mask,omitempty"`
 	// Points hold each material point's current state, row-major on Grid.
 	Points []PointState `json:"points"`
 	// History holds the last (up to three) frames' displacements and
@@ -80,6 +87,40 @@ func (l *lattice) UnmarshalJSON(b []byte) error {
 		return err
 	}
 	*l = lattice{s.X0, s.Y0, s.Step, s.Nx, s.Ny}
+	return nil
+}
+
+// bits is a boolean slice that encodes to JSON as a string of 0 and 1.
+type bits []bool
+
+// MarshalJSON writes the flags as a string such as "0110".
+func (b bits) MarshalJSON() ([]byte, error) {
+	s := make([]byte, len(b))
+	for i, v := range b {
+		s[i] = '0'
+		if v {
+			s[i] = '1'
+		}
+	}
+	return json.Marshal(string(s))
+}
+
+// UnmarshalJSON reads the form written by MarshalJSON.
+func (b *bits) UnmarshalJSON(j []byte) error {
+	var s string
+	if err := json.Unmarshal(j, &s); err != nil {
+		return err
+	}
+	*b = make(bits, len(s))
+	for i := range len(s) {
+		switch s[i] {
+		case '0':
+		case '1':
+			(*b)[i] = true
+		default:
+			return fmt.Errorf("flag string has %q at %d; want only 0 and 1", s[i], i)
+		}
+	}
 	return nil
 }
 
@@ -164,6 +205,9 @@ func (s State) check() error {
 	if len(s.Points) != n {
 		errs = append(errs, fmt.Errorf("state has %d points for a %d-point grid", len(s.Points), n))
 	}
+	if len(s.Initial) != 0 && len(s.Initial) != n {
+		errs = append(errs, fmt.Errorf("state marks %d initial points for a %d-point grid", len(s.Initial), n))
+	}
 	if len(s.Curve) == 0 {
 		errs = append(errs, errors.New("state has no curve rows (the reference row is missing)"))
 	}
@@ -181,12 +225,15 @@ func (s State) check() error {
 // Restore continues a series from a saved State. ref is the reference
 // image and last the last frame added (ignored, and may be nil, when no
 // frame has been added yet); both must be the images the state was made
-// with. The parameters come from the state.
+// with. The parameters and the ROI mask image, if any, come from the state.
 func Restore(ref, last *imageio.Gray, s State) (*Tracker, error) {
 	if err := s.check(); err != nil {
 		return nil, fmt.Errorf("restore series: %w", err)
 	}
-	c, err := newCorrelator(ref, s.Params)
+	if ref == nil || ref.W < 1 || ref.H < 1 {
+		return nil, errors.New("restore series: reference image is empty")
+	}
+	c, err := newCorrelator(ref, s.Params, s.Mask)
 	if err != nil {
 		return nil, fmt.Errorf("restore series: %w", err)
 	}

@@ -34,12 +34,13 @@ type correlator interface {
 	// grid returns the lattice of material points in the reference image.
 	grid() lattice
 	// direct correlates the reference with def at every grid point
-	// (row-major), starting from the guesses.
-	direct(ctx context.Context, def *imageio.Gray, start []guess) ([]match, error)
+	// (row-major), starting from the guesses. progress (may be nil) is
+	// called as correlate.Options.Progress is.
+	direct(ctx context.Context, def *imageio.Gray, start []guess, progress func(done, total int)) ([]match, error)
 	// at correlates src with dst at the given points of src (any real
 	// coordinates), starting from the guesses; the match is evaluated at
-	// exactly those points.
-	at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float64, start []guess) ([]match, error)
+	// exactly those points. progress as for direct.
+	at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float64, start []guess, progress func(done, total int)) ([]match, error)
 }
 
 // Frame is the result of one frame added to a Tracker.
@@ -172,32 +173,49 @@ func (t *Tracker) Add(ctx context.Context, img *imageio.Gray, meta FrameMeta) (*
 	}
 
 	var (
-		pts  []PointState
-		mode string
-		err  error
+		pts      []PointState
+		mode     string
+		err      error
+		reacq    int
+		returned bool
 	)
+	prog := &progress{f: meta.Progress}
 	switched := t.st.Switched
+	incremental := func() {
+		mode = ModeIncremental
+		if pts, err = t.incremental(ctx, img, prog); err == nil {
+			reacq, err = t.reacquire(ctx, img, pts, prog)
+		}
+	}
 	switch {
 	case p.Incremental == IncrementalAlways:
-		mode = ModeIncremental
-		pts, err = t.incremental(ctx, img)
+		incremental()
 	case p.Incremental == IncrementalAuto && switched:
-		mode = ModeIncremental
-		pts, err = t.incremental(ctx, img)
+		incremental()
+		if err == nil && p.ReturnDirect {
+			// Check against the reference from the composed mapping.
+			var d []PointState
+			if d, err = t.directStep(ctx, img, pts, prog); err == nil {
+				if z, tracked := t.quality(d); z >= p.SwitchZNCC && tracked >= p.SwitchValid {
+					pts, mode, switched, returned, reacq = d, ModeDirect, false, true, 0
+				}
+			}
+		}
 	default:
 		mode = ModeDirect
-		pts, err = t.directStep(ctx, img)
+		pts, err = t.directStep(ctx, img, t.st.Points, prog)
 		if err == nil && p.Incremental == IncrementalAuto && index > 1 {
 			z, tracked := t.quality(pts)
 			if z < p.SwitchZNCC || tracked < p.SwitchValid {
-				mode, switched = ModeIncremental, true
-				pts, err = t.incremental(ctx, img)
+				switched = true
+				incremental()
 			}
 		}
 	}
 	if err != nil {
 		return nil, fmt.Errorf("frame %d %q (%s): %w", index, meta.Name, mode, err)
 	}
+	prog.finish()
 
 	fr, snap, err := t.results(ctx, pts, meta, index, mode)
 	if err != nil {
@@ -207,8 +225,13 @@ func (t *Tracker) Add(ctx context.Context, img *imageio.Gray, meta FrameMeta) (*
 	// Commit only now, so a cancelled or failed frame leaves no trace.
 	if index == 1 {
 		t.st.FirstValid = countValid(pts)
+		t.st.Initial = make(bits, len(pts))
+		for k, q := range pts {
+			t.st.Initial[k] = q.Valid
+		}
 	}
 	fr.Summary.Tracked = t.trackedFraction(pts)
+	fr.Summary.Reacquired, fr.Summary.ReturnedDirect = reacq, returned
 	t.st.Points = pts
 	t.st.Switched = switched
 	t.st.History = append(t.st.History, snap)
@@ -260,17 +283,18 @@ func (t *Tracker) quality(pts []PointState) (zncc, tracked float64) {
 }
 
 // directStep correlates the reference with img, starting every point from
-// its previous solution.
-func (t *Tracker) directStep(ctx context.Context, img *imageio.Gray) ([]PointState, error) {
+// its solution in from (the previous frame's, or this frame's composed
+// one); points not valid there are reached by propagation.
+func (t *Tracker) directStep(ctx context.Context, img *imageio.Gray, from []PointState, prog *progress) ([]PointState, error) {
 	g := t.st.Grid
-	start := make([]guess, len(t.st.Points))
-	for k, q := range t.st.Points {
+	start := make([]guess, len(from))
+	for k, q := range from {
 		if q.Valid {
 			X, Y := g.pos(k)
 			start[k] = guess{U: q.X - X, V: q.Y - Y, Ux: q.F[0] - 1, Uy: q.F[1], Vx: q.F[2], Vy: q.F[3] - 1, OK: true}
 		}
 	}
-	ms, err := t.corr.direct(ctx, img, start)
+	ms, err := t.corr.direct(ctx, img, start, prog.pass())
 	if err != nil {
 		return nil, err
 	}
@@ -290,7 +314,7 @@ func (t *Tracker) directStep(ctx context.Context, img *imageio.Gray) ([]PointSta
 // positions of the valid material points and composes the mappings there:
 // x_n = x_{n−1} + Δu(x_{n−1}), F_n = (I + ∇Δu)·F_{n−1}. Uncertainties add
 // in quadrature (the increments' errors are independent).
-func (t *Tracker) incremental(ctx context.Context, img *imageio.Gray) ([]PointState, error) {
+func (t *Tracker) incremental(ctx context.Context, img *imageio.Gray, prog *progress) ([]PointState, error) {
 	var (
 		idx   []int
 		pts   [][2]float64
@@ -325,7 +349,7 @@ func (t *Tracker) incremental(ctx context.Context, img *imageio.Gray) ([]PointSt
 	if len(idx) == 0 {
 		return out, nil
 	}
-	ms, err := t.corr.at(ctx, t.prev, img, pts, start)
+	ms, err := t.corr.at(ctx, t.prev, img, pts, start, prog.pass())
 	if err != nil {
 		return nil, err
 	}

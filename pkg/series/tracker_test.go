@@ -55,8 +55,11 @@ type fake struct {
 
 func (f *fake) grid() lattice { return f.g }
 
-func (f *fake) direct(ctx context.Context, def *imageio.Gray, start []guess) ([]match, error) {
+func (f *fake) direct(ctx context.Context, def *imageio.Gray, start []guess, progress func(done, total int)) ([]match, error) {
 	f.nDir++
+	if progress != nil {
+		progress(len(start), len(start))
+	}
 	m := f.mot[def]
 	out := make([]match, f.g.Nx*f.g.Ny)
 	for k := range out {
@@ -68,8 +71,11 @@ func (f *fake) direct(ctx context.Context, def *imageio.Gray, start []guess) ([]
 	return out, nil
 }
 
-func (f *fake) at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float64, start []guess) ([]match, error) {
+func (f *fake) at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float64, start []guess, progress func(done, total int)) ([]match, error) {
 	f.nInc++
+	if progress != nil {
+		progress(len(pts), len(pts))
+	}
 	ms, md := f.mot[src], f.mot[dst]
 	out := make([]match, len(pts))
 	for k, p := range pts {
