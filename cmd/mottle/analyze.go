@@ -3,9 +3,11 @@ package main
 import (
 	"context"
 	"encoding/json"
+	"errors"
 	"flag"
 	"fmt"
 	"io"
+	"math"
 	"os"
 	"sort"
 	"strconv"
@@ -29,7 +31,7 @@ func paramFlags(fs *flag.FlagSet) func(p *analysis.Params) error {
 	shape := fs.String("shape", d.Shape, "shape function: first (affine) or second (quadratic, for strain gradients)")
 	interp := fs.String("interp", d.Interpolation, "interpolation: cubic or quintic B-spline")
 	prefilter := fs.Float64("prefilter", d.Prefilter, "Gaussian prefilter σ in `px` (0 = off; 0.5–1 lowers interpolation bias)")
-	roiFlag := fs.String("roi", "", "region of interest: x0,y0,x1,y1 in px, or @file.json with {\"rect\":…, \"polygon\":…, \"holes\":…}")
+	roiFlag := fs.String("roi", "", roiHelp)
 	var seeds seedList
 	fs.Var(&seeds, "seed", "seed point `x,y` in px (repeatable); default: a well-textured point near the ROI centre")
 	search := fs.Int("search", d.Search, "integer search radius in `px` around the seeds: the largest displacement at a seed")
@@ -144,8 +146,41 @@ func parseROI(s string) (*roi.Spec, error) {
 	if err != nil {
 		return nil, usagef("--roi: %w; give x0,y0,x1,y1 in px, e.g. 40,30,350,230, or @file.json", err)
 	}
-	r := [4]int{int(v[0]), int(v[1]), int(v[2]), int(v[3])}
+	var r [4]int
+	for i, f := range v {
+		if f != math.Trunc(f) || math.Abs(f) > 1<<30 {
+			return nil, usagef("--roi %q: %s = %v is not a whole pixel; the rectangle holds the pixels x0 ≤ x < x1, y0 ≤ y < y1 on whole-pixel bounds (x1, y1 exclusive), e.g. 40,30,350,230", s, [4]string{"x0", "y0", "x1", "y1"}[i], f)
+		}
+		r[i] = int(f)
+	}
 	return &roi.Spec{Rect: &r}, nil
+}
+
+// roiHelp is the help text of --roi.
+const roiHelp = "region of interest: x0,y0,x1,y1 in whole px, the pixels x0 ≤ x < x1, y0 ≤ y < y1 (x1, y1 exclusive), or @file.json with {\"rect\":…, \"polygon\":…, \"holes\":…}"
+
+// limitHint adds to an image error that went over the pixel limit how to
+// raise it with --max-pixels.
+func limitHint(err error, limit int64) error {
+	if errors.Is(err, imageio.ErrTooLarge) && strings.Contains(err.Error(), fmt.Sprintf("limit of %d px", limit)) {
+		return fmt.Errorf("%w with --max-pixels N (at least the image's width × height)", err)
+	}
+	return err
+}
+
+// checkWritable creates the folder dir if needed and makes sure a file can
+// be written in it, so that a long run does not fail only at the end.
+func checkWritable(dir string) error {
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		return fmt.Errorf("--out %s: cannot create the results folder (%w); choose a folder you may write to", dir, err)
+	}
+	f, err := os.CreateTemp(dir, ".mottle-write-check-*")
+	if err != nil {
+		return fmt.Errorf("--out %s: cannot write in the results folder (%w); choose a folder you may write to", dir, err)
+	}
+	name := f.Name()
+	f.Close()
+	return os.Remove(name)
 }
 
 func runAnalyze(ctx context.Context, e *env, args []string) error {
@@ -156,7 +191,7 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	ref := fs.String("ref", "", "reference image `file` (PNG, TIFF, JPEG or BMP)")
 	def := fs.String("def", "", "deformed image `file`")
 	out := fs.String("out", "mottle-results", "results `folder`")
-	maxPix := fs.Int64("max-pixels", imageio.DefaultLimits().MaxPixels, "refuse images with more pixels than this")
+	maxPix := fs.Int64("max-pixels", imageio.DefaultLimits().MaxPixels, "refuse images with more pixels than this (width × height)")
 	maskFile := fs.String("mask", "", "mask image `file`: pixels brighter than half the maximum are inside the ROI")
 	apply := paramFlags(fs)
 	if err := noArgs(e, fs, "analyze", args); err != nil {
@@ -175,17 +210,20 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	lim.MaxPixels = *maxPix
 	r, err := imageio.ReadFile(*ref, lim)
 	if err != nil {
-		return fmt.Errorf("reference image: %w", err)
+		return fmt.Errorf("reference image: %w", limitHint(err, lim.MaxPixels))
 	}
 	d, err := imageio.ReadFile(*def, lim)
 	if err != nil {
-		return fmt.Errorf("deformed image: %w", err)
+		return fmt.Errorf("deformed image: %w", limitHint(err, lim.MaxPixels))
 	}
 	job := analysis.Job{Ref: r, Def: d, RefName: *ref, DefName: *def, Params: p}
 	if *maskFile != "" {
 		if job.Mask, err = imageio.ReadFile(*maskFile, lim); err != nil {
-			return fmt.Errorf("mask image: %w", err)
+			return fmt.Errorf("mask image: %w", limitHint(err, lim.MaxPixels))
 		}
+	}
+	if err := checkWritable(*out); err != nil {
+		return err
 	}
 	pb := newBar(e, "correlating", "points")
 	job.Progress = pb.update

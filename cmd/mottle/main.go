@@ -17,6 +17,7 @@ import (
 	"io"
 	"os"
 	"os/signal"
+	"strings"
 	"syscall"
 
 	"golang.org/x/term"
@@ -106,13 +107,20 @@ func usage(w io.Writer) {
 }
 
 // newFlags returns a flag set whose --help prints the synopsis, a
-// description and the flags to e.stdout.
+// description and the flags to e.stdout; a command without flags gets no
+// "Flags:" heading, and an empty synopsis leaves no trailing space.
 func newFlags(e *env, name, synopsis, description string) *flag.FlagSet {
 	fs := flag.NewFlagSet("mottle "+name, flag.ContinueOnError)
 	fs.SetOutput(e.stderr)
 	fs.Usage = func() {
-		fmt.Fprintf(fs.Output(), "Usage: mottle %s %s\n\n%s\n\nFlags:\n", name, synopsis, description)
-		fs.PrintDefaults()
+		line := strings.TrimSpace("mottle " + name + " " + synopsis)
+		fmt.Fprintf(fs.Output(), "Usage: %s\n\n%s\n", line, description)
+		n := 0
+		fs.VisitAll(func(*flag.Flag) { n++ })
+		if n > 0 {
+			fmt.Fprint(fs.Output(), "\nFlags:\n")
+			fs.PrintDefaults()
+		}
 	}
 	return fs
 }

@@ -18,7 +18,6 @@ import (
 
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
-	"github.com/mottledic/mottle/pkg/roi"
 	"github.com/mottledic/mottle/pkg/series"
 )
 
@@ -154,7 +153,8 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		subset     = fs.Int("subset", 0, "subset side in px, odd (default 31)")
 		step       = fs.Int("step", 0, "grid step in px (default 8)")
 		window     = fs.Int("strain-window", 0, "strain window in grid points, odd (default 5)")
-		roiRect    = fs.String("roi", "", "region of interest x0,y0,x1,y1 in px")
+		roiRect    = fs.String("roi", "", roiHelp)
+		maxPix     = fs.Int64("max-pixels", imageio.DefaultMaxPixels, "refuse images with more pixels than this (width × height)")
 		mmPerPx    = fs.Float64("mm-per-px", 0, "scale in mm per px (0 = px)")
 		units      = fs.String("units", "", "units of extensometer and gauge coordinates: px or mm")
 		incr       = fs.String("incremental", "", "auto (default), never or always")
@@ -234,12 +234,10 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		p.Analysis.MMPerPx = *mmPerPx
 	}
 	if *roiRect != "" {
-		v, err := parseFloats(*roiRect, 4, "--roi")
-		if err != nil {
+		if spec, err := parseROI(*roiRect); err != nil {
 			errs = append(errs, err)
 		} else {
-			r := [4]int{int(v[0]), int(v[1]), int(v[2]), int(v[3])}
-			p.Analysis.ROI = &roi.Spec{Rect: &r}
+			p.Analysis.ROI = spec
 		}
 	}
 	if *units != "" {
@@ -335,9 +333,12 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	}
 
 	lim := imageio.DefaultLimits()
+	if *maxPix > 0 {
+		lim.MaxPixels = *maxPix
+	}
 	refImg, err := imageio.ReadFile(*ref, lim)
 	if err != nil {
-		return err
+		return limitHint(err, lim.MaxPixels)
 	}
 	if err := p.Validate(refImg.W, refImg.H); err != nil {
 		return err
@@ -436,7 +437,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		var last *imageio.Gray
 		if done > 0 {
 			if last, err = imageio.ReadFile(frames[done-1], lim); err != nil {
-				return err
+				return limitHint(err, lim.MaxPixels)
 			}
 		}
 		if tr, err = series.Restore(refImg, last, st); err != nil {
@@ -476,7 +477,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		pr.show(i, len(frames), metas[i+1].Name)
 		img, err := imageio.ReadFile(frames[i], lim)
 		if err != nil {
-			runErr = err
+			runErr = limitHint(err, lim.MaxPixels)
 			break
 		}
 		fr, err := tr.Add(ctx, img, metas[i+1])
@@ -596,11 +597,11 @@ func writeSeriesOutputs(out string, c series.Curve, maps []series.ReportMap) err
 func staticPairNoise(ctx context.Context, a, b string, p series.Params, lim imageio.Limits) (*series.NoiseFloor, error) {
 	ia, err := imageio.ReadFile(a, lim)
 	if err != nil {
-		return nil, err
+		return nil, limitHint(err, lim.MaxPixels)
 	}
 	ib, err := imageio.ReadFile(b, lim)
 	if err != nil {
-		return nil, err
+		return nil, limitHint(err, lim.MaxPixels)
 	}
 	p.Extensometers, p.Gauges, p.Properties = nil, nil, series.PropsParams{}
 	p.StaticFrames = 1
