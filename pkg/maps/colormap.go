@@ -92,11 +92,23 @@ var signedQuantities = map[string]bool{
 	"A11": true, "A22": true, "A12": true,
 	"eps11": true, "eps22": true, "eps12": true,
 	"e1": true, "e2": true, "rotation_deg": true,
+	// The principal direction is a signed angle in (−90°, 90°]; centred
+	// on 0 (along x) the two ends both mean "along y", since −90° and 90°
+	// are the same direction.
+	"principal_angle_deg": true,
 }
+
+// binaryQuantities are the result quantities that are 1 or 0 (yes or no).
+var binaryQuantities = map[string]bool{"valid": true, "eps_valid": true}
+
+// Binary reports whether a result quantity takes only the values 0 and 1
+// (valid, eps_valid). Render draws such quantities as sharp steps with the
+// range [0, 1] (see Options.Steps).
+func Binary(name string) bool { return binaryQuantities[name] }
 
 // ForQuantity returns the default colour map for a result quantity: the
 // diverging CoolWarm for signed quantities (displacements, strains,
-// rotation, off-diagonal F), the sequential Viridis for everything else
+// rotation, principal angle, off-diagonal F), the sequential Viridis for everything else
 // (magnitudes, zncc, standard deviations, F11, F22, detF).
 func ForQuantity(name string) Colormap {
 	if signedQuantities[name] {

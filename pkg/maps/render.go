@@ -120,6 +120,24 @@ type Options struct {
 	// MaxWidth limits the width of the whole output image in pixels by
 	// scaling the picture down; 0 means no limit.
 	MaxWidth int
+	// Steps fills every cell with the value of the grid point nearest in
+	// the cell (sharp steps half-way between points) instead of
+	// interpolating bilinearly, for quantities whose in-between values mean
+	// nothing. Render and Overlay also do this, with the automatic range
+	// [0, 1], for the quantities where Binary(Quantity) is true.
+	Steps bool
+}
+
+// steps reports whether the map is drawn as nearest-point steps.
+func (o Options) steps() bool { return o.Steps || Binary(o.Quantity) }
+
+// autoRange returns the automatic range of values for the options: [0, 1]
+// for a binary quantity, else AutoRange.
+func (o Options) autoRange(values []float64, symmetric bool) (lo, hi float64, err error) {
+	if Binary(o.Quantity) {
+		return 0, 1, nil
+	}
+	return AutoRange(values, symmetric)
 }
 
 // Validate reports every problem with the options at once.
@@ -207,7 +225,7 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 	auto := opt.Range == [2]float64{}
 	if auto {
 		var err error
-		lo, hi, err = AutoRange(l.Values, cm.Diverging)
+		lo, hi, err = opt.autoRange(l.Values, cm.Diverging)
 		if err != nil {
 			return nil, fmt.Errorf("render map of %q: %w", opt.Quantity, err)
 		}
@@ -235,7 +253,10 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 	if opt.Unit != "" {
 		header += " [" + opt.Unit + "]"
 	}
-	rangeKind := rangeNote(opt.Quantity, auto, cm.Diverging)
+	rangeKind := rangeNote(opt.Quantity, auto && !Binary(opt.Quantity), cm.Diverging)
+	if auto && Binary(opt.Quantity) {
+		rangeKind = "1 = yes, 0 = no"
+	}
 	rangeLine := formatNumber(lo) + " … " + formatNumber(hi)
 	rightW := barWidth + tickLen + 4
 	tw := 0
@@ -259,7 +280,7 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 	lay.drawBackground(dst, bg)
 
 	// Field: values per output pixel, then colours, then composite.
-	field := colorize(rasterize(l, lay), lay.pic.Dx(), lay.pic.Dy(), cm, norm)
+	field := colorize(rasterize(l, lay, opt.steps()), lay.pic.Dx(), lay.pic.Dy(), cm, norm)
 	draw.DrawMask(dst, lay.pic, field, image.Point{}, image.NewUniform(color.Alpha{A: uint8(math.Round(opacity * 255))}), image.Point{}, draw.Over)
 
 	// Title.
@@ -433,7 +454,7 @@ func Overlay(l Layer, w, h int, opt Options) (img *image.NRGBA, lo, hi float64, 
 	cm := opt.colormap()
 	lo, hi = opt.Range[0], opt.Range[1]
 	if opt.Range == [2]float64{} {
-		if lo, hi, err = AutoRange(l.Values, cm.Diverging); err != nil {
+		if lo, hi, err = opt.autoRange(l.Values, cm.Diverging); err != nil {
 			return nil, 0, 0, fmt.Errorf("overlay of %q: %w", opt.Quantity, err)
 		}
 	}
@@ -442,7 +463,7 @@ func Overlay(l Layer, w, h int, opt Options) (img *image.NRGBA, lo, hi float64, 
 	}
 	norm := Norm{Lo: lo, Hi: hi, Diverging: cm.Diverging}
 	lay := &layout{w: w, h: h, sx: 1, sy: 1, pic: image.Rect(0, 0, w, h)}
-	return colorize(rasterize(l, lay), w, h, cm, norm), lo, hi, nil
+	return colorize(rasterize(l, lay, opt.steps()), w, h, cm, norm), lo, hi, nil
 }
 
 // colorize turns per-pixel values (NaN = none) into colours, transparent
@@ -487,8 +508,9 @@ func barTicks(lo, hi float64) []plot.Tick {
 }
 
 // rasterize returns the field value at the centre of every picture pixel
-// (row-major, NaN outside the valid cells).
-func rasterize(l Layer, lay *layout) []float64 {
+// (row-major, NaN outside the valid cells): interpolated bilinearly, or
+// with steps the value of the nearest corner of the cell.
+func rasterize(l Layer, lay *layout, steps bool) []float64 {
 	pw, ph := lay.pic.Dx(), lay.pic.Dy()
 	vals := make([]float64, pw*ph)
 	for i := range vals {
@@ -510,7 +532,7 @@ func rasterize(l Layer, lay *layout) []float64 {
 				}
 			}
 			if ok {
-				fillCell(vals, pw, ph, q, v)
+				fillCell(vals, pw, ph, q, v, steps)
 			}
 		}
 	}
@@ -520,7 +542,10 @@ func rasterize(l Layer, lay *layout) []float64 {
 // fillCell writes bilinearly interpolated values into the pixels whose
 // centres lie in the quadrilateral q (corners in order (0,0), (1,0), (1,1),
 // (0,1) of the cell's parameters), leaving pixels already written alone.
-func fillCell(vals []float64, pw, ph int, q [4][2]float64, v [4]float64) {
+// With steps each pixel takes the value of the corner nearest in the
+// cell's parameters (a, b), so values change in a sharp step half-way
+// between grid points.
+func fillCell(vals []float64, pw, ph int, q [4][2]float64, v [4]float64, steps bool) {
 	xs := []float64{q[0][0], q[1][0], q[2][0], q[3][0]}
 	ys := []float64{q[0][1], q[1][1], q[2][1], q[3][1]}
 	x0 := max(0, int(math.Ceil(slices.Min(xs)-1e-9)))
@@ -535,6 +560,10 @@ func fillCell(vals []float64, pw, ph int, q [4][2]float64, v [4]float64) {
 			}
 			a, b, ok := inverseBilinear(q, float64(px), float64(py))
 			if !ok {
+				continue
+			}
+			if steps {
+				vals[idx] = v[[2][2]int{{0, 3}, {1, 2}}[int(math.Round(a))][int(math.Round(b))]]
 				continue
 			}
 			vals[idx] = (1-a)*(1-b)*v[0] + a*(1-b)*v[1] + a*b*v[2] + (1-a)*b*v[3]
