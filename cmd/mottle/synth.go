@@ -27,7 +27,8 @@ point of every sample (pixel integration by supersampling), never by
 resampling a pixel image, so truth.json is exact. Writes to --out:
   reference.<ext>       the reference image
   deformed.<ext>        the deformed image (one pair), or
-  frame_NNN.<ext>       the frames of a series (--frames or --static)
+  frame_NNN.<ext>       the frames of a series (--frames, --static or --test)
+  load.csv              frame, time and load of a --test (for series --table)
   truth.json            how the images were made, and the exact u, v and F
                         at the reference points of a grid (--grid-step)
 
@@ -100,7 +101,7 @@ func runSynth(ctx context.Context, e *env, args []string) error {
 
 	gridStep := fs.Float64("grid-step", 16, "spacing in px of the reference points in truth.json (0 = none)")
 	gridOffset := fs.Float64("grid-offset", 0, "position in px of the first grid point in x and y")
-	frames := fs.Int("frames", 0, "render a loading series of this many frames after the reference, load factor rising linearly to 1 (0 = one deformed image)")
+	frames := fs.Int("frames", 0, "render a loading series of this many frames after the reference, load factor rising linearly to 1 (0 = one deformed image; 19 with --test tensile)")
 	static := fs.Int("static", 0, "render this many frames of the reference state with fresh noise (noise-floor series); ignores --motion")
 	dt := fs.Float64("dt", 1, "time between frames in s")
 	fullLoad := fs.Float64("full-load", 1, "load value recorded at load factor 1 (any unit, e.g. N)")
