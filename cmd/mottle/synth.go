@@ -184,7 +184,7 @@ func runSynth(ctx context.Context, e *env, args []string) error {
 	var strains []float64
 	if tensile {
 		m = synth.Identity{}
-		if *frames > 0 && law.Validate() == nil {
+		if law.Validate() == nil {
 			if strains, err = law.Schedule(*frames, *maxStrain); err != nil {
 				errs = append(errs, fmt.Errorf("--frames, --max-strain: %w", err))
 			}

@@ -170,6 +170,7 @@ func TestTensileUsage(t *testing.T) {
 		{[]string{"--test", "tensile", "--hardening", "20000"}, "below E"},
 		{[]string{"--test", "tensile", "--max-strain", "0.005"}, "yield strain"},
 		{[]string{"--test", "tensile", "--frames", "1"}, "at least 2"},
+		{[]string{"--test", "tensile", "--frames", "0"}, "at least 2"},
 	} {
 		code, _, errs := runSynthArgs(t, append(c.args, "--out", t.TempDir())...)
 		if code != 2 || !strings.Contains(errs, c.want) {
