@@ -160,6 +160,8 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		incr       = fs.String("incremental", "", "auto (default), never or always")
 		swZ        = fs.Float64("switch-zncc", 0, "mean ZNCC below which auto mode goes incremental (default 0.9)")
 		swV        = fs.Float64("switch-valid", 0, "tracked fraction below which auto mode goes incremental (default 0.9)")
+		retDirect  = fs.Bool("return-direct", false, "in auto mode, check each incremental frame against the reference and return to direct correlation when it passes the switch thresholds")
+		maskFile   = fs.String("mask", "", "mask image `file` of the reference's size: pixels brighter than half the maximum are inside the ROI")
 		table      = fs.String("table", "", "CSV with a header row: a key column frame (0 = reference), name or time_s, then time_s or time_ms and/or load_N or load_kN, e.g. \"frame,time_s,load_N\"")
 		timePat    = fs.String("time-pattern", "", "regexp whose first group is the time stamp in each file name, e.g. _t([0-9.]+)s")
 		timeScale  = fs.Float64("time-scale", 1, "factor from the --time-pattern number to seconds")
@@ -251,6 +253,9 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	}
 	if set["switch-valid"] {
 		p.SwitchValid = *swV
+	}
+	if set["return-direct"] {
+		p.ReturnDirect = *retDirect
 	}
 	if set["area"] {
 		p.Area = *area
@@ -422,6 +427,9 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	var tr *series.Tracker
 	first := 0
 	if *resume {
+		if *maskFile != "" {
+			return fmt.Errorf("--mask with --resume: the saved state already holds the series' mask; leave --mask out")
+		}
 		b, err := os.ReadFile(statePath)
 		if err != nil {
 			return fmt.Errorf("--resume: %w", err)
@@ -445,7 +453,13 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		}
 		p, first = tr.Params(), done
 	} else {
-		if tr, err = series.New(refImg, metas[0], p); err != nil {
+		var opt series.Options
+		if *maskFile != "" {
+			if opt.Mask, err = imageio.ReadFile(*maskFile, lim); err != nil {
+				return fmt.Errorf("--mask: %w", err)
+			}
+		}
+		if tr, err = series.NewWith(refImg, metas[0], p, opt); err != nil {
 			return err
 		}
 		if err := writeState(statePath, tr); err != nil {
@@ -480,7 +494,11 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 			runErr = limitHint(err, lim.MaxPixels)
 			break
 		}
-		fr, err := tr.Add(ctx, img, metas[i+1])
+		meta := metas[i+1]
+		meta.Progress = func(done, total int) {
+			pr.show(i, len(frames), fmt.Sprintf("%s %d/%d points", metas[i+1].Name, done, total))
+		}
+		fr, err := tr.Add(ctx, img, meta)
 		if err != nil {
 			runErr = err
 			break
@@ -521,8 +539,19 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		return fmt.Errorf("after %d of %d frames: %w (finished frames kept in %s)", tr.Len(), len(frames), runErr, *out)
 	}
 	m := c.Modes()
-	fmt.Fprintf(e.stdout, "%d frames: %d direct, %d incremental. Results in %s (report.html).\n",
-		tr.Len(), len(m[series.ModeDirect]), len(m[series.ModeIncremental]), *out)
+	returned, reacq := 0, 0
+	for _, r := range c.Rows {
+		reacq += r.Reacquired
+		if r.ReturnedDirect {
+			returned++
+		}
+	}
+	extra := ""
+	if returned > 0 || reacq > 0 {
+		extra = fmt.Sprintf(" (%d returned to direct, %d points re-acquired)", returned, reacq)
+	}
+	fmt.Fprintf(e.stdout, "%d frames: %d direct, %d incremental%s. Results in %s (report.html).\n",
+		tr.Len(), len(m[series.ModeDirect]), len(m[series.ModeIncremental]), extra, *out)
 	props := c.Properties()
 	for _, l := range props.Lines() {
 		fmt.Fprintf(e.stdout, "  %s: %s\n", l[0], l[1])

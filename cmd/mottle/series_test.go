@@ -10,6 +10,7 @@ import (
 	"strings"
 	"testing"
 
+	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/series"
 )
 
@@ -87,5 +88,55 @@ func TestSeriesCommandUsage(t *testing.T) {
 	}
 	if code := run(context.Background(), &env{stdout: &stdout, stderr: &stderr}, []string{"series", "one.png"}); code != 2 {
 		t.Errorf("one frame: exit %d, want 2", code)
+	}
+}
+
+// TestSeriesCommandMask runs the series command with a mask image that
+// leaves out the bottom of the frame: the state keeps the mask, no point
+// whose subset reaches into the masked rows is measured, and the gauge
+// above them still reads the rendered stretch.
+func TestSeriesCommandMask(t *testing.T) {
+	dir := t.TempDir()
+	if code, _, errs := runSynthArgs(t, "--out", dir, "--size", "128x96", "--motion", "affine:F11=1.02,F22=0.994",
+		"--frames", "2", "--bits", "8"); code != 0 {
+		t.Fatalf("synth: exit %d: %s", code, errs)
+	}
+	m := imageio.NewGray(128, 96)
+	for y := range 60 {
+		for x := range 128 {
+			m.Pix[y*m.Stride+x] = 255
+		}
+	}
+	maskPath := filepath.Join(dir, "mask.png")
+	if err := imageio.WriteFile(maskPath, m, 8); err != nil {
+		t.Fatal(err)
+	}
+	out := filepath.Join(t.TempDir(), "res")
+	args := []string{"series", "--out", out, "--subset", "21", "--step", "8", "--mask", maskPath,
+		"--gauge", "top:30,20,98,40", "--ref", filepath.Join(dir, "reference.png"), filepath.Join(dir, "frame_*.png")}
+	var stdout, stderr bytes.Buffer
+	if code := run(context.Background(), &env{stdout: &stdout, stderr: &stderr}, args); code != 0 {
+		t.Fatalf("series: exit %d: %s", code, stderr.String())
+	}
+	b, err := os.ReadFile(filepath.Join(out, "state.json"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var st series.State
+	if err := json.Unmarshal(b, &st); err != nil {
+		t.Fatal(err)
+	}
+	if st.Mask == nil {
+		t.Fatal("state.json holds no mask")
+	}
+	for k, q := range st.Points {
+		if Y := st.Grid.Y0 + float64(k/st.Grid.Nx)*st.Grid.Step; q.Valid && Y+10 > 59.5 {
+			t.Fatalf("point %d at Y = %g measured although its subset reaches the masked rows", k, Y)
+		}
+	}
+	last := st.Curve[len(st.Curve)-1]
+	// E11 of F11 = 1.02 is ½(1.02² − 1) = 0.0202 (Green–Lagrange).
+	if g := last.Gauges[0]; g.N == 0 || math.Abs(g.Mean-0.0202) > 2e-4 {
+		t.Errorf("gauge %s %s = %g over %d points, want 0.0202", g.Gauge, g.Component, g.Mean, g.N)
 	}
 }

@@ -77,6 +77,14 @@ type FrameInput struct {
 	Time, Load *float64
 	// Threads caps the worker goroutines of the correlation (0 = all cores).
 	Threads int
+	// Mask, if not nil, is the series' ROI mask image (non-zero = inside,
+	// intersected with the parameters' ROI). The engine needs it for the
+	// first frame; later frames find it in State.
+	Mask *imageio.Gray
+	// Progress, if not nil, is called with the point correlations done and
+	// the number known so far (the total may grow when a frame takes
+	// another pass; done never decreases).
+	Progress func(done, total int)
 }
 
 // MapRequest asks for a PNG map of one quantity.

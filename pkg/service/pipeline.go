@@ -176,7 +176,7 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 			return nil, err
 		}
 		p.Analysis.Threads = in.Threads
-		tr, err = series.New(in.Ref, series.FrameMeta{Name: "reference"}, p)
+		tr, err = series.NewWith(in.Ref, series.FrameMeta{Name: "reference"}, p, series.Options{Mask: in.Mask})
 	} else {
 		var st series.State
 		if err = json.Unmarshal(in.State, &st); err != nil {
@@ -188,8 +188,9 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
-	meta := series.FrameMeta{Name: in.Name, Time: in.Time, Load: in.Load}
+	meta := series.FrameMeta{Name: in.Name, Time: in.Time, Load: in.Load, Progress: in.Progress}
 	fr, err := tr.Add(ctx, in.Def, meta)
+	meta.Progress = nil
 	if err != nil {
 		return nil, err
 	}
@@ -227,6 +228,7 @@ func frameSummary(base jobs.Summary, sm series.Summary) jobs.Summary {
 	}
 	z, tk := sm.MeanZNCC, sm.Tracked
 	out.MeanZNCC, out.Tracked = &z, &tk
+	out.Reacquired, out.ReturnedDirect = sm.Reacquired, sm.ReturnedDirect
 	g := map[string]float64{}
 	for _, e := range sm.Extensometers {
 		if e.Valid {

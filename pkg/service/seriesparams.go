@@ -18,7 +18,7 @@ import (
 // the top level; the CLI's nested form {"analysis": {...}, ...} is accepted
 // too.
 var seriesKeys = map[string]bool{
-	"incremental": true, "switch_zncc": true, "switch_valid": true, "units": true,
+	"incremental": true, "switch_zncc": true, "switch_valid": true, "return_direct": true, "units": true,
 	"extensometers": true, "gauges": true, "area_mm2": true, "static_frames": true, "properties": true,
 }
 

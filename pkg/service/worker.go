@@ -282,8 +282,9 @@ func (s *Server) dropOldState(ctx context.Context, j *jobs.Job) {
 
 // computeFrame runs series frame j through the series engine, from the
 // state after the last frame that succeeded before it.
-func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer) (*Result, error) {
-	in := FrameInput{Params: j.Params, Name: fmt.Sprintf("frame_%d", j.FrameIndex), Time: j.Time, Load: j.Load, Threads: s.cfg.JobThreads}
+func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer, progress func(done, total int)) (*Result, error) {
+	in := FrameInput{Params: j.Params, Name: fmt.Sprintf("frame_%d", j.FrameIndex), Time: j.Time, Load: j.Load,
+		Threads: s.cfg.JobThreads, Progress: progress}
 	var err error
 	if in.Ref, err = s.loadImage(ctx, jobs.SeriesKey(j.Series, "reference")); err != nil {
 		return nil, err
@@ -294,6 +295,12 @@ func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 	last, err := s.lastDone(ctx, j)
 	if err != nil {
 		return nil, err
+	}
+	if last == nil && j.HasMask {
+		// The engine keeps the mask in its state after the first frame.
+		if in.Mask, err = s.loadImage(ctx, jobs.SeriesKey(j.Series, "mask")); err != nil {
+			return nil, err
+		}
 	}
 	if last != nil {
 		if in.State, err = s.readBlob(ctx, stateKey(j.Series, last.FrameIndex)); err != nil {
@@ -308,8 +315,21 @@ func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 
 // compute loads the inputs of j and runs the analyzer.
 func (s *Server) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Result, error) {
-	if fa, ok := s.cfg.Analyzer.(FrameAnalyzer); ok && j.Kind == jobs.Frame && !j.HasMask {
-		return s.computeFrame(ctx, j, fa)
+	var last, beat time.Time
+	progress := func(done, total int) {
+		now := time.Now()
+		if now.Sub(last) < 200*time.Millisecond && done < total {
+			return
+		}
+		last = now
+		_ = s.store.SetProgress(context.Background(), j.ID, jobs.Progress{Done: done, Total: total})
+		if now.Sub(beat) > 5*time.Second {
+			beat = now
+			_ = d.InProgress()
+		}
+	}
+	if fa, ok := s.cfg.Analyzer.(FrameAnalyzer); ok && j.Kind == jobs.Frame {
+		return s.computeFrame(ctx, j, fa, progress)
 	}
 	var in Input
 	if err := json.Unmarshal(j.Params, &in.Params); err != nil {
@@ -330,19 +350,6 @@ func (s *Server) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 	if j.HasMask {
 		if in.Mask, err = s.loadImage(ctx, maskKey); err != nil {
 			return nil, err
-		}
-	}
-	var last, beat time.Time
-	progress := func(done, total int) {
-		now := time.Now()
-		if now.Sub(last) < 200*time.Millisecond && done < total {
-			return
-		}
-		last = now
-		_ = s.store.SetProgress(context.Background(), j.ID, jobs.Progress{Done: done, Total: total})
-		if now.Sub(beat) > 5*time.Second {
-			beat = now
-			_ = d.InProgress()
 		}
 	}
 	return s.cfg.Analyzer.Run(ctx, in, progress)

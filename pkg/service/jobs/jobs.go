@@ -79,6 +79,12 @@ type Summary struct {
 	// only.
 	MeanZNCC *float64 `json:"mean_zncc,omitempty"`
 	Tracked  *float64 `json:"tracked_fraction,omitempty"`
+	// Reacquired counts the points of an incremental series frame that
+	// had been lost and were found again; ReturnedDirect is true for a
+	// frame that went back to direct correlation after a check against
+	// the reference. Series frames only.
+	Reacquired     int  `json:"reacquired,omitempty"`
+	ReturnedDirect bool `json:"returned_to_direct,omitempty"`
 	// Seconds is the compute time of the job.
 	Seconds float64 `json:"seconds"`
 }
