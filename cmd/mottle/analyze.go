@@ -107,6 +107,11 @@ func (s *seedList) Set(v string) error {
 	if err != nil {
 		return err
 	}
+	for i, c := range f {
+		if c != math.Trunc(c) {
+			return fmt.Errorf("%q: %s = %v is not a whole pixel; a seed is the pixel (x, y) at a subset centre, e.g. 256,192", v, [2]string{"x", "y"}[i], c)
+		}
+	}
 	*s = append(*s, [2]int{int(f[0]), int(f[1])})
 	return nil
 }

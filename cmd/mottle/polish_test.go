@@ -111,3 +111,12 @@ func TestHelpWithoutFlags(t *testing.T) {
 		t.Errorf("analyze --help lost its Flags section: %q", firstLine(out.String()))
 	}
 }
+
+// TestSeedWholePixels: --seed refuses fractional coordinates instead of
+// truncating them.
+func TestSeedWholePixels(t *testing.T) {
+	e, _, stderr := testEnv()
+	if code := run(context.Background(), e, []string{"analyze", "--ref", "a.png", "--def", "b.png", "--seed", "100,40.5"}); code != 2 || !strings.Contains(stderr.String(), "y = 40.5 is not a whole pixel") {
+		t.Errorf("exit %d, stderr %q; want exit 2 naming y", code, stderr.String())
+	}
+}
