@@ -85,7 +85,11 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	if len(tokens) == 0 && !isLoopback(ln.Addr()) {
 		log.Warn("serving without bearer tokens on a non-loopback address; set MOTTLE_TOKENS or --token-file")
 	}
-	fmt.Fprintf(e.stderr, "mottle serve: listening on http://%s (data in %s)\n", ln.Addr(), *data)
+	where := "data in " + *data
+	if natsjs.IsURL(*backend) {
+		where = "jobs and results on " + *backend
+	}
+	fmt.Fprintf(e.stderr, "mottle serve: listening on http://%s (%s)\n", ln.Addr(), where)
 	return srv.Serve(ctx, ln)
 }
 
