@@ -120,3 +120,17 @@ func TestSeedWholePixels(t *testing.T) {
 		t.Errorf("exit %d, stderr %q; want exit 2 naming y", code, stderr.String())
 	}
 }
+
+// TestRedactURL: the serve banner names the NATS servers without the user
+// names, passwords or query options of the backend URL.
+func TestRedactURL(t *testing.T) {
+	for in, want := range map[string]string{
+		"nats://a:4222": "nats://a:4222",
+		"nats://u:secret@a:4222,b:4222?replicas=3":   "nats://a:4222,b:4222",
+		"tls://tok@a:4222,tls://u:p@b:4222?creds=/x": "tls://a:4222,tls://b:4222",
+	} {
+		if got := redactURL(in); got != want || strings.Contains(got, "secret") {
+			t.Errorf("redactURL(%q) = %q, want %q", in, got, want)
+		}
+	}
+}

@@ -87,7 +87,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	}
 	where := "data in " + *data
 	if natsjs.IsURL(*backend) {
-		where = "jobs and results on " + *backend
+		where = "jobs and results on NATS " + redactURL(*backend)
 	}
 	fmt.Fprintf(e.stderr, "mottle serve: listening on http://%s (%s)\n", ln.Addr(), where)
 	return srv.Serve(ctx, ln)
@@ -129,4 +129,25 @@ func loadTokens(list, file string) ([]string, error) {
 func isLoopback(a net.Addr) bool {
 	tcp, ok := a.(*net.TCPAddr)
 	return ok && tcp.IP.IsLoopback()
+}
+
+// redactURL drops user names and passwords from the servers of a backend
+// URL, so that a log line does not carry credentials.
+func redactURL(spec string) string {
+	base, _, _ := strings.Cut(spec, "?")
+	parts := strings.Split(base, ",")
+	for i, p := range parts {
+		scheme, rest, ok := strings.Cut(p, "://")
+		if !ok {
+			scheme, rest = "", p
+		}
+		if at := strings.LastIndex(rest, "@"); at >= 0 {
+			rest = rest[at+1:]
+		}
+		if scheme != "" {
+			rest = scheme + "://" + rest
+		}
+		parts[i] = rest
+	}
+	return strings.Join(parts, ",")
 }
