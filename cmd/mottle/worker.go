@@ -6,7 +6,6 @@ import (
 	"fmt"
 	"log/slog"
 	"runtime"
-	"strings"
 	"time"
 
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -67,7 +66,7 @@ func runWorker(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	fmt.Fprintf(e.stderr, "mottle worker: computing up to %d jobs at once from %s\n", *workers, redactBackend(*backend))
+	fmt.Fprintf(e.stderr, "mottle worker: computing up to %d jobs at once from %s\n", *workers, redactURL(*backend))
 	<-ctx.Done()
 	log.Info("worker stopping")
 	stop()
@@ -111,17 +110,3 @@ func flagGiven(fs *flag.FlagSet, name string) bool {
 	return given
 }
 
-// redactBackend drops credentials from a backend URL for printing.
-func redactBackend(spec string) string {
-	servers, _, _ := strings.Cut(spec, "?")
-	var out []string
-	for _, s := range strings.Split(servers, ",") {
-		if at := strings.LastIndex(s, "@"); at >= 0 {
-			if i := strings.Index(s, "://"); i >= 0 && i < at {
-				s = s[:i+3] + "***" + s[at:]
-			}
-		}
-		out = append(out, s)
-	}
-	return strings.Join(out, ",")
-}
