@@ -109,4 +109,3 @@ func flagGiven(fs *flag.FlagSet, name string) bool {
 	fs.Visit(func(f *flag.Flag) { given = given || f.Name == name })
 	return given
 }
-
