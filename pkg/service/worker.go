@@ -51,7 +51,8 @@ func (s *Server) runJob(base context.Context, d jobs.Delivery) {
 	if !s.waitPrevious(base, id, d) {
 		// Frame n of a series needs frame n−1's tracker state: put it back
 		// until the previous frame has finished.
-		_ = d.Nak()
+		l.Debug("frame held back: the previous frame has not finished")
+		_ = d.Nak() // the backend logs a failure
 		return
 	}
 	now := time.Now().UTC()
@@ -187,28 +188,47 @@ func failureFor(err, cause error, timeout time.Duration) *jobs.Failure {
 	return &jobs.Failure{Title: "Analysis failed", Detail: err.Error()}
 }
 
-// frameWait is how long a worker holds a frame whose predecessor has not
-// finished before putting it back in the queue. Waiting in place rather
-// than putting it back at once spares the deliveries of a backend that
-// counts them; the limit frees the worker if the predecessor is still
-// queued behind it.
-const frameWait = 10 * time.Second
+// frameWait bounds how long a worker holds a frame whose predecessor is
+// running before putting it back in the queue. Holding the frame keeps
+// its place: put back, it goes behind the later frames of its series,
+// and each of those then waits in its turn before it is put back too.
+// The bound frees the worker in case the predecessor's worker died and
+// the record still says running until the queue delivers it again.
+const frameWait = time.Minute
 
-// waitPrevious waits, for at most frameWait, until job id may run (see
-// frameReady), telling the queue from time to time that the delivery is
-// still held. It reports whether it may.
+// frameQueuedWait is how long a worker holds a frame whose predecessor
+// has not started (it is in the queue, perhaps behind this frame, or held
+// by another worker that is about to start it) before putting it back. It
+// is short, so that the frames of a series put out of order by a put-back
+// come round again quickly; it is longer than the poll interval of
+// waitPrevious, so that a predecessor another worker is just starting is
+// seen running.
+const frameQueuedWait = time.Second
+
+// waitPrevious waits until job id may run (see frameReady): for at most
+// frameQueuedWait while the previous frame of its series has not started,
+// and frameWait in all, telling the queue from time to time that the
+// delivery is still held. It reports whether the job may run.
 func (s *Server) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
-	deadline := time.Now().Add(frameWait)
-	beat := time.Now()
+	start := time.Now()
+	beat := start
+	var idle time.Time // since when the previous frame has been seen not running
 	for wait := 10 * time.Millisecond; ; wait = min(2*wait, 250*time.Millisecond) {
-		if s.frameReady(context.Background(), id) {
+		g := s.frameReady(context.Background(), id)
+		now := time.Now()
+		switch {
+		case g == gateOpen:
 			return true
+		case g == gateRunning:
+			idle = time.Time{}
+		case idle.IsZero():
+			idle = now
 		}
-		if time.Now().After(deadline) {
+		if now.Sub(start) > frameWait || !idle.IsZero() && now.Sub(idle) > frameQueuedWait {
 			return false
 		}
-		if time.Since(beat) > 2*time.Second {
-			beat = time.Now()
+		if now.Sub(beat) > 2*time.Second {
+			beat = now
 			_ = d.InProgress()
 		}
 		select {
@@ -224,27 +244,46 @@ func (s *Server) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 // written); after that the predecessor counts as never accepted.
 const missingFrameWait = time.Minute
 
+// gate is the answer of frameReady.
+type gate int
+
+const (
+	gateOpen    gate = iota // the job may run
+	gateRunning             // the previous frame is running (or its record cannot be read now)
+	gateQueued              // the previous frame has not started
+)
+
 // frameReady reports whether job id may run now: anything but a series
 // frame may; frame n of a series may once frame n−1 has finished
 // (succeeded, failed or canceled), so that the frames of one series run
 // one at a time and in order while different series run in parallel.
-func (s *Server) frameReady(ctx context.Context, id string) bool {
+// If it may not, it tells whether frame n−1 is running.
+func (s *Server) frameReady(ctx context.Context, id string) gate {
 	j, err := s.store.Job(ctx, id)
 	if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
-		return true // the normal path deals with it
+		return gateOpen // the normal path deals with it
 	}
 	sr, err := s.store.Series(ctx, j.Series)
 	if err != nil || j.FrameIndex > len(sr.Frames) {
-		return true
+		return gateOpen
 	}
 	prev, err := s.store.Job(ctx, sr.Frames[j.FrameIndex-1])
 	switch {
 	case errors.Is(err, jobs.ErrNotFound):
-		return time.Since(j.Created) > missingFrameWait
+		if time.Since(j.Created) > missingFrameWait {
+			return gateOpen
+		}
+		return gateQueued
 	case err != nil:
-		return false
+		// A store switching over: wait in place, as a put-back would
+		// likely fail too.
+		return gateRunning
+	case prev.State.Terminal():
+		return gateOpen
+	case prev.State == jobs.Running:
+		return gateRunning
 	}
-	return prev.State.Terminal()
+	return gateQueued
 }
 
 // stateKey is the blob key of a series' tracker state after frame n.

@@ -614,6 +614,12 @@ func TestCluster(t *testing.T) {
 					t.Logf("unfinished: %s %s frame %d state %s attempts %d", j.ID, j.Kind, j.FrameIndex, j.State, j.Attempts)
 				}
 			}
+			if ci, err := obs.queue.cons.Info(ctx); err == nil {
+				t.Logf("consumer: pending %d, ack pending %d, redelivered %d, waiting pulls %d, leader %s",
+					ci.NumPending, ci.NumAckPending, ci.NumRedelivered, ci.NumWaiting, ci.Cluster.Leader)
+			} else {
+				t.Logf("consumer info: %v", err)
+			}
 			n, err := obs.Pending(ctx)
 			t.Fatalf("timed out waiting for every job to finish; %d messages in the job stream (%v)", n, err)
 		}

@@ -98,7 +98,8 @@ type Options struct {
 	// node) Dequeue blocks until its context ends, so the service's
 	// worker pool stays idle.
 	Work bool
-	// Logger receives warnings (connection changes, dead letters);
+	// Logger receives warnings (connection changes, dead letters, pulls
+	// and put-backs that keep failing, at most one per 10 s of each);
 	// default slog.Default().
 	Logger *slog.Logger
 }

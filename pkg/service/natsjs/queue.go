@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"log/slog"
 	"strings"
 	"sync"
 	"time"
@@ -38,6 +39,38 @@ type Queue struct {
 	mu    sync.Mutex
 	lenAt time.Time
 	n     int
+
+	// Warnings of repeated failures, at most one per warnEvery each.
+	pullWarn, putBackWarn warnLimit
+}
+
+// warnEvery is the least time between two warnings of one kind of
+// repeated failure (pulling jobs, putting jobs back).
+const warnEvery = 10 * time.Second
+
+// warnLimit rate-limits the warnings of one kind of repeated failure:
+// the first failure is logged, then at most one per warnEvery with the
+// number of failures since the last warning.
+type warnLimit struct {
+	mu     sync.Mutex
+	last   time.Time
+	missed int
+}
+
+// warn logs msg with err, unless a warning was logged less than
+// warnEvery ago.
+func (w *warnLimit) warn(log *slog.Logger, msg string, err error, args ...any) {
+	w.mu.Lock()
+	now := time.Now()
+	if !w.last.IsZero() && now.Sub(w.last) < warnEvery {
+		w.missed++
+		w.mu.Unlock()
+		return
+	}
+	n := w.missed + 1
+	w.last, w.missed = now, 0
+	w.mu.Unlock()
+	log.Warn(msg, append(args, "error", err, "failures", n)...)
 }
 
 // DeadLetter is the body of a message on the dead-letter subject
@@ -144,7 +177,9 @@ func (q *Queue) Dequeue(ctx context.Context) (jobs.Delivery, error) {
 			}
 			if !errors.Is(err, context.DeadlineExceeded) && !errors.Is(err, nats.ErrTimeout) && !errors.Is(err, jetstream.ErrNoMessages) {
 				// A node stopped or the connection is switching over:
-				// wait a little and pull again.
+				// wait a little and pull again. A failure that goes on
+				// shows in the log, so an idle worker is explained.
+				q.pullWarn.warn(o.Logger, "pull jobs: retrying", err, "consumer", q.b.n.consumer, "stream", q.b.n.jobStream)
 				select {
 				case <-ctx.Done():
 					return nil, ctx.Err()
@@ -298,10 +333,20 @@ func (d *delivery) Nak() error {
 			_, err := d.q.b.js.PublishMsg(ctx, m)
 			return err
 		})
+		log := d.q.b.opt.Logger
 		if err != nil {
-			return d.msg.Nak()
+			d.q.putBackWarn.warn(log, "put back job: publish failed, negatively acknowledged instead", err, "job", d.id)
+			if err := d.msg.Nak(); err != nil {
+				return fmt.Errorf("put back job %s: %w", d.id, err)
+			}
+			return nil
 		}
 		if err := d.msg.DoubleAck(ctx); err != nil {
+			// Published again but not acknowledged: the old message is
+			// delivered again after AckWait, and of the job's two
+			// messages the second to arrive finds it started or
+			// finished and is dropped.
+			d.q.putBackWarn.warn(log, "put back job: acknowledge failed", err, "job", d.id)
 			return fmt.Errorf("put back job %s: %w", d.id, err)
 		}
 		return nil
