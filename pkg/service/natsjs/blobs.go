@@ -10,7 +10,6 @@ import (
 	"io"
 	"sort"
 	"strings"
-	"time"
 
 	"github.com/nats-io/nats.go/jetstream"
 
@@ -27,7 +26,9 @@ import (
 // same key, from a job computed again after a redelivery, is dropped and
 // the first answer kept.
 type Blobs struct {
-	obj jetstream.ObjectStore
+	obj    jetstream.ObjectStore
+	stream jetstream.Stream // the store's stream, bound with leader reads
+	bucket string
 }
 
 // digest formats a SHA-256 sum as the object store does.
@@ -42,6 +43,13 @@ func writeOnce(key string) bool {
 
 // Put implements jobs.Blobs. The contents are read into memory first, so
 // that the write can be retried through a node failure.
+//
+// An object found already written is kept only if it reads back whole:
+// every chunk present, with the size and digest its metadata names. The
+// object store's Put publishes the metadata before every chunk's
+// acknowledgement has come back; when one then fails (a node stopped), it
+// purges the chunks and reports the error, but the metadata may have been
+// stored. Such an object is written again, under a result key too.
 func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
 	if !jobs.ValidKey(key) {
 		return fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", key)
@@ -58,7 +66,16 @@ func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
 		case err != nil:
 			return err
 		case writeOnce(key) || info.Digest == digest(sum[:]):
-			return nil // written before: keep the first answer
+			// Written before: keep the first answer, if it is whole.
+			_, err := b.readChunks(ctx, info)
+			if err == nil {
+				return nil
+			}
+			if !errors.Is(err, errChanged) {
+				return err
+			}
+			// Metadata without all its chunks (see Put's doc comment) is
+			// no answer: write the object again.
 		}
 		_, err = b.obj.Put(ctx, jetstream.ObjectMeta{Name: key}, bytes.NewReader(data))
 		return err
@@ -69,22 +86,42 @@ func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
 	return nil
 }
 
-// Get implements jobs.Blobs. The object is read whole, within a time
-// limit, and the read retried if a node stops in the middle, so a reader
-// never waits on a stalled transfer; the object store checks the content
-// hash at the end of each read.
+// Get implements jobs.Blobs. The object is read whole: its metadata,
+// then each chunk by a message get (answered by the stream's leader),
+// each request retried through a node failure, and the result checked
+// against the object's size and SHA-256 digest. An object replaced while
+// it is read is read again.
+//
+// Get does not use the object store's own reader: that one creates an
+// ephemeral ordered push consumer for every read, a request the JetStream
+// meta leader must place on a replica and the replica answer. After a node
+// stops, such requests can go unanswered for many seconds (the consumer is
+// never created), so every read waited out its whole time limit while
+// key-value reads, plain requests to the stream leader, went on working.
+// Chunk reads here are such plain requests too (see readChunks).
 func (b *Blobs) Get(ctx context.Context, key string) (io.ReadCloser, error) {
 	if !jobs.ValidKey(key) {
 		return nil, fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", key)
 	}
 	var data []byte
-	err := retryWithin(ctx, getTimeout, func(ctx context.Context) error {
-		var err error
-		data, err = b.obj.GetBytes(ctx, key)
-		return err
-	})
-	if errors.Is(err, jetstream.ErrObjectNotFound) {
-		return nil, fmt.Errorf("blob %s: %w", key, jobs.ErrNotFound)
+	var err error
+	for range maxRereads {
+		var info *jetstream.ObjectInfo
+		err = retry(ctx, func(ctx context.Context) error {
+			var err error
+			info, err = b.obj.GetInfo(ctx, key)
+			return err
+		})
+		if errors.Is(err, jetstream.ErrObjectNotFound) {
+			return nil, fmt.Errorf("blob %s: %w", key, jobs.ErrNotFound)
+		}
+		if err != nil {
+			return nil, fmt.Errorf("blob %s: %w", key, err)
+		}
+		data, err = b.readChunks(ctx, info)
+		if !errors.Is(err, errChanged) {
+			break
+		}
 	}
 	if err != nil {
 		return nil, fmt.Errorf("blob %s: %w", key, err)
@@ -92,9 +129,50 @@ func (b *Blobs) Get(ctx context.Context, key string) (io.ReadCloser, error) {
 	return io.NopCloser(bytes.NewReader(data)), nil
 }
 
-// getTimeout bounds one read of an object (at least 20 MB/s for the
-// largest images the service accepts).
-const getTimeout = 15 * time.Second
+// maxRereads bounds how often Get starts again on an object replaced
+// while it was read.
+const maxRereads = 3
+
+// errChanged reports an object replaced or deleted during a read.
+var errChanged = errors.New("object changed while it was read")
+
+// readChunks reads the chunks of the object described by info. Each
+// chunk is fetched with a stream message get for the next message on the
+// object's chunk subject at or after the sequence following the previous
+// chunk: a request and its answer, retried as any other, so a read goes
+// on after a reconnect exactly as key-value reads do.
+func (b *Blobs) readChunks(ctx context.Context, info *jetstream.ObjectInfo) ([]byte, error) {
+	if info.NUID == "" || info.Opts != nil && info.Opts.Link != nil {
+		// The service writes neither empty metadata nor links.
+		return nil, jetstream.ErrBadObjectMeta
+	}
+	subject := "$O." + b.bucket + ".C." + info.NUID
+	data := make([]byte, 0, info.Size)
+	h := sha256.New()
+	seq := uint64(1)
+	for range info.Chunks {
+		var m *jetstream.RawStreamMsg
+		err := retry(ctx, func(ctx context.Context) error {
+			var err error
+			m, err = b.stream.GetMsg(ctx, seq, jetstream.WithGetMsgSubject(subject))
+			return err
+		})
+		if errors.Is(err, jetstream.ErrMsgNotFound) {
+			return nil, errChanged // purged: the object was replaced or deleted
+		}
+		if err != nil {
+			return nil, fmt.Errorf("chunk after sequence %d: %w", seq-1, err)
+		}
+		data = append(data, m.Data...)
+		h.Write(m.Data)
+		seq = m.Sequence + 1
+	}
+	if uint64(len(data)) != info.Size || digest(h.Sum(nil)) != info.Digest {
+		return nil, fmt.Errorf("%w: %d bytes in %d chunks, digest %s; metadata says %d bytes, digest %s",
+			errChanged, len(data), info.Chunks, digest(h.Sum(nil)), info.Size, info.Digest)
+	}
+	return data, nil
+}
 
 // Delete implements jobs.Blobs. It lists the store to find the keys under
 // prefix, so its cost grows with the number of objects.

@@ -417,8 +417,12 @@ func (b *Backend) setupOnce(ctx context.Context) error {
 	if err != nil {
 		return fmt.Errorf("object store %s: %w", n.objects, err)
 	}
+	objStream, err := js.Stream(rctx, "OBJ_"+n.objects)
+	if err != nil {
+		return fmt.Errorf("object store %s: %w", n.objects, err)
+	}
 	b.store = newStore(b.nc, kv, n, o.Logger)
-	b.blobs = &Blobs{obj: obj}
+	b.blobs = &Blobs{obj: obj, stream: objStream, bucket: n.objects}
 	b.queue = &Queue{b: b, cons: cons}
 	return nil
 }
