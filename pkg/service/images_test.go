@@ -2,17 +2,12 @@ package service_test
 
 import (
 	"bytes"
-	"context"
 	"image"
 	"image/png"
-	"io"
-	"log/slog"
-	"net/http/httptest"
 	"testing"
 
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/service"
-	"github.com/mottledic/mottle/pkg/service/embedded"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
@@ -21,21 +16,7 @@ import (
 // back (16-bit, at most 4095), with stretch=true an 8-bit PNG whose grey
 // range spans exactly 0–255, and a bad value is a 400 naming the query.
 func TestImageStretch(t *testing.T) {
-	be, err := embedded.Open(t.TempDir(), 16)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer be.Close()
-	s, err := service.New(service.Config{Backend: be, Analyzer: service.Pipeline{}, Workers: 1,
-		Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
-	if err != nil {
-		t.Fatal(err)
-	}
-	stop, _ := s.Start(context.Background())
-	defer stop()
-	hs := httptest.NewServer(s.Handler())
-	defer hs.Close()
-	ts := &testServer{Server: hs}
+	ts := newServer(t, func(c *service.Config) { c.Analyzer, c.Workers = service.Pipeline{}, 1 })
 
 	r, d, err := synth.Pair(synth.PatternOptions{Diameter: 4, Seed: 5}, synth.Translation{U: 0.4},
 		synth.RenderOptions{W: 96, H: 96, Bits: 16, Gain: 4095})

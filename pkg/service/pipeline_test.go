@@ -2,18 +2,13 @@ package service_test
 
 import (
 	"bytes"
-	"context"
 	"image/png"
-	"io"
-	"log/slog"
 	"math"
-	"net/http/httptest"
 	"strings"
 	"testing"
 
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/service"
-	"github.com/mottledic/mottle/pkg/service/embedded"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
@@ -43,21 +38,7 @@ func realPair(t testing.TB, size int, u, v float64) (ref, def []byte) {
 // errors are a few hundredths of a pixel at most, Schreier, Braasch &
 // Sutton 2000), and every result format and a map must be served.
 func TestPipeline(t *testing.T) {
-	be, err := embedded.Open(t.TempDir(), 16)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer be.Close()
-	s, err := service.New(service.Config{Backend: be, Analyzer: service.Pipeline{}, Workers: 2,
-		Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
-	if err != nil {
-		t.Fatal(err)
-	}
-	stop, _ := s.Start(context.Background())
-	defer stop()
-	hs := httptest.NewServer(s.Handler())
-	defer hs.Close()
-	ts := &testServer{Server: hs}
+	ts := newServer(t, func(c *service.Config) { c.Analyzer, c.Workers = service.Pipeline{}, 2 })
 
 	const u, v = 1.3, -0.6
 	ref, def := realPair(t, 128, u, v)

@@ -5,10 +5,7 @@ import (
 	"context"
 	"encoding/csv"
 	"fmt"
-	"io"
-	"log/slog"
 	"math"
-	"net/http/httptest"
 	"strings"
 	"syscall"
 	"testing"
@@ -16,7 +13,6 @@ import (
 
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/service"
-	"github.com/mottledic/mottle/pkg/service/embedded"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
@@ -136,21 +132,7 @@ func has(m map[string]float64, k string) bool { _, ok := m[k]; return ok }
 // and the strains match the truth. The curve serves the same readings.
 func TestSeriesTracker(t *testing.T) {
 	ref, frames, factors := loadSeriesPNG(t)
-	be, err := embedded.Open(t.TempDir(), 16)
-	if err != nil {
-		t.Fatal(err)
-	}
-	defer be.Close()
-	s, err := service.New(service.Config{Backend: be, Analyzer: service.Pipeline{}, Workers: 2,
-		Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
-	if err != nil {
-		t.Fatal(err)
-	}
-	stop, _ := s.Start(context.Background())
-	defer stop()
-	hs := httptest.NewServer(s.Handler())
-	defer hs.Close()
-	ts := &testServer{Server: hs}
+	ts := newServer(t, func(c *service.Config) { c.Analyzer, c.Workers = service.Pipeline{}, 2 })
 
 	sid := createSeries(t, ts, ref, trackerParams)
 	// The last two frames are sent without waiting, so that both are queued
