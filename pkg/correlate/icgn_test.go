@@ -77,7 +77,11 @@ func TestHessian1MatchesExplicit(t *testing.T) {
 // IC-GN (Baker & Matthews 2004; Pan, Li & Tong 2013) recovers an exactly
 // known affine map of an analytic image (Gaussian spots evaluated in closed
 // form, no renderer involved), for both shape functions and both spline
-// orders, from a guess 1.5 px off.
+// orders, from a guess 1.5 px off. Over eight spot patterns, the worst
+// displacement and F errors must stay within about 1.5× of those measured
+// when the bounds were set (2026-12-01, worst of either shape function:
+// cubic 0.0012 px and 1.2e-4, quintic 1.6e-4 px and 1.7e-5; 1 − ZNCC at
+// most 4.1e-6).
 func TestSolveAnalytic(t *testing.T) {
 	// def(x) = ref(X) with x = X + u(X): sample the spots at X = A⁻¹(x − c) + c − t.
 	a := [2][2]float64{{1.02, 0.01}, {-0.015, 0.99}}
@@ -88,29 +92,33 @@ func TestSolveAnalytic(t *testing.T) {
 		dx, dy := x-c-tu, y-c-tv
 		return c + (a[1][1]*dx-a[0][1]*dy)/det, c + (-a[1][0]*dx+a[0][0]*dy)/det
 	}
-	ref := gaussImage(80, 80, 2, func(x, y float64) (float64, float64) { return x, y })
-	def := gaussImage(80, 80, 2, inv)
-	for _, sh := range []Shape{First, Second} {
-		for _, o := range []spline.Order{spline.Cubic, spline.Quintic} {
-			s := newTestSolver(t, ref, def, Options{Subset: 25, Shape: sh, Interp: o, Tol: 1e-6})
-			X, Y := 38.0, 41.0
-			if st := s.prepare(X, Y); st != OK {
-				t.Fatal(st)
-			}
-			// True u at (X, Y): x − X with x = c + A(X − c) + t.
-			wu := c + a[0][0]*(X-c) + a[0][1]*(Y-c) + tu - X
-			wv := c + a[1][0]*(X-c) + a[1][1]*(Y-c) + tv - Y
-			var p0 [12]float64
-			p0[U], p0[V] = wu+1.5, wv-1.0
-			r := s.solve(p0)
-			if r.status != OK || !r.converged {
-				t.Fatalf("shape %d %v: status %v", sh, o, r.status)
-			}
-			errU, errV := r.p[U]-wu, r.p[V]-wv
-			errF := math.Max(math.Abs(r.p[Ux]-(a[0][0]-1)), math.Abs(r.p[Vy]-(a[1][1]-1)))
-			errF = math.Max(errF, math.Max(math.Abs(r.p[Uy]-a[0][1]), math.Abs(r.p[Vx]-a[1][0])))
-			if math.Hypot(errU, errV) > 0.01 || errF > 1e-3 || r.zncc < 0.999 {
-				t.Errorf("shape %d %v: error (%.4f, %.4f) px, F error %.2g, ZNCC %.6f", sh, o, errU, errV, errF, r.zncc)
+	bounds := map[spline.Order]struct{ u, f float64 }{spline.Cubic: {0.0018, 1.8e-4}, spline.Quintic: {2.4e-4, 2.6e-5}}
+	for seed := uint64(1); seed <= 8; seed++ {
+		ref := gaussImage(80, 80, seed+1, func(x, y float64) (float64, float64) { return x, y })
+		def := gaussImage(80, 80, seed+1, inv)
+		for _, sh := range []Shape{First, Second} {
+			for _, o := range []spline.Order{spline.Cubic, spline.Quintic} {
+				s := newTestSolver(t, ref, def, Options{Subset: 25, Shape: sh, Interp: o, Tol: 1e-6})
+				X, Y := 38.0, 41.0
+				if st := s.prepare(X, Y); st != OK {
+					t.Fatal(st)
+				}
+				// True u at (X, Y): x − X with x = c + A(X − c) + t.
+				wu := c + a[0][0]*(X-c) + a[0][1]*(Y-c) + tu - X
+				wv := c + a[1][0]*(X-c) + a[1][1]*(Y-c) + tv - Y
+				var p0 [12]float64
+				p0[U], p0[V] = wu+1.5, wv-1.0
+				r := s.solve(p0)
+				if r.status != OK || !r.converged {
+					t.Fatalf("seed %d shape %d %v: status %v", seed, sh, o, r.status)
+				}
+				errU := math.Hypot(r.p[U]-wu, r.p[V]-wv)
+				errF := math.Max(math.Abs(r.p[Ux]-(a[0][0]-1)), math.Abs(r.p[Vy]-(a[1][1]-1)))
+				errF = math.Max(errF, math.Max(math.Abs(r.p[Uy]-a[0][1]), math.Abs(r.p[Vx]-a[1][0])))
+				t.Logf("seed %d shape %d %v: error %.2g px, F error %.2g, ZNCC %.8f", seed, sh, o, errU, errF, r.zncc)
+				if b := bounds[o]; errU > b.u || errF > b.f || 1-r.zncc > 6e-6 {
+					t.Errorf("seed %d shape %d %v: error %.2g px, F error %.2g, ZNCC %.8f: want ≤ %.2g px, ≤ %.2g, 1 − ZNCC ≤ 6e-6", seed, sh, o, errU, errF, r.zncc, b.u, b.f)
+				}
 			}
 		}
 	}

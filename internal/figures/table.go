@@ -1,0 +1,91 @@
+package figures
+
+// README rows, by the start of their "check" cell.
+const (
+	rowHomogeneous = "homogeneous F"
+	rowDiscs       = "the same on default discs"
+	rowSweep       = "subpixel translation sweep"
+	rowNoise       = "noise σ = 2"
+	rowQuadratic   = "quadratic displacement field"
+	rowStretchRot  = "12 % stretch with 15° rotation"
+	rowRotation    = "30° rigid rotation"
+)
+
+// up is a figure with an upper bound; row "" means asserted but not quoted.
+func up(name, row string, value, max float64) Figure {
+	return Figure{Name: name, Row: row, Value: value, Max: max}
+}
+
+// in is a figure that must stay between min and max.
+func in(name, row string, value, min, max float64) Figure {
+	return Figure{Name: name, Row: row, Value: value, Min: min, Max: max}
+}
+
+// All returns every accuracy figure, in README order. Values were measured
+// on 2026-12-01 (mean and worst of 8 pattern seeds unless the name says
+// otherwise); bounds are about 1.5× the value.
+func All() []Figure {
+	return []Figure{
+		// pkg/correlate TestHomogeneousAffine
+		up("homogeneous/first/rms/mean", rowHomogeneous, 0.00034, 0.0005),
+		up("homogeneous/first/rms/worst", rowHomogeneous, 0.00037, 0.00055),
+		up("homogeneous/second/rms/mean", rowHomogeneous, 0.00041, 0.0006),
+		up("homogeneous/second/rms/worst", rowHomogeneous, 0.00045, 0.00068),
+		up("homogeneous/F/mean", rowHomogeneous, 4.9e-5, 7.4e-5),
+		up("homogeneous/F/worst", rowHomogeneous, 6.1e-5, 9.2e-5),
+		up("homogeneous/discs/rms/mean", rowDiscs, 0.0059, 0.0088),
+		up("homogeneous/discs/rms/worst", rowDiscs, 0.0067, 0.01),
+
+		// pkg/correlate TestSubpixelBiasSweep: peak of the mean bias over 0…1 px.
+		up("sweep/cubic/mean", rowSweep, 0.0023, 0.0035),
+		up("sweep/cubic/worst", rowSweep, 0.0025, 0.0038),
+		up("sweep/quintic/mean", rowSweep, 0.00053, 0.0008),
+		up("sweep/quintic/worst", rowSweep, 0.00059, 0.00089),
+		up("sweep/prefilter-ratio/mean", rowSweep, 0.37, 0.56),
+		up("sweep/prefilter-ratio/worst", rowSweep, 0.41, 0.61),
+
+		// pkg/correlate TestNoisePrediction: std pooled over the seeds, its
+		// ratio to the closed-form prediction, and the worst seed's
+		// deviation |ratio − 1| (u or v).
+		up("noise/first/std", rowNoise, 0.0036, 0.0055),
+		in("noise/first/ratio", rowNoise, 1.07, 0.9, 1.15),
+		in("noise/first/engine-ratio", rowNoise, 0.97, 0.85, 1.15),
+		up("noise/first/deviation/mean", "", 0.092, 0.14),
+		up("noise/first/deviation/worst", rowNoise, 0.17, 0.25),
+		up("noise/first/engine-deviation/mean", "", 0.061, 0.092),
+		up("noise/first/engine-deviation/worst", "", 0.11, 0.17),
+		up("noise/second/std", rowNoise, 0.0070, 0.0105),
+		in("noise/second/ratio", rowNoise, 1.03, 0.9, 1.12),
+		in("noise/second/engine-ratio", rowNoise, 0.97, 0.85, 1.15),
+		up("noise/second/deviation/mean", "", 0.074, 0.11),
+		up("noise/second/deviation/worst", rowNoise, 0.14, 0.21),
+		up("noise/second/engine-deviation/mean", "", 0.068, 0.1),
+		up("noise/second/engine-deviation/worst", "", 0.12, 0.18),
+
+		// pkg/correlate TestQuadraticFieldSecondOrderWins
+		up("quadratic/first/rms/mean", rowQuadratic, 0.054, 0.08),
+		up("quadratic/first/rms/worst", rowQuadratic, 0.054, 0.081),
+		up("quadratic/first/closed-form-deviation/mean", "", 0.0067, 0.01),
+		up("quadratic/first/closed-form-deviation/worst", rowQuadratic, 0.019, 0.028),
+		up("quadratic/second/rms/mean", rowQuadratic, 0.00041, 0.0006),
+		up("quadratic/second/rms/worst", rowQuadratic, 0.00042, 0.00063),
+
+		// pkg/correlate TestLargeDeformationNoHints
+		up("stretch-rotation/first/rms/mean", rowStretchRot, 0.0039, 0.0059),
+		up("stretch-rotation/first/rms/worst", rowStretchRot, 0.0047, 0.0071),
+		up("stretch-rotation/first/F/mean", "", 0.001, 0.0016),
+		up("stretch-rotation/first/F/worst", "", 0.0012, 0.0018),
+		up("stretch-rotation/second/rms/mean", rowStretchRot, 0.0076, 0.011),
+		up("stretch-rotation/second/rms/worst", rowStretchRot, 0.0084, 0.013),
+		up("stretch-rotation/second/F/mean", "", 0.0013, 0.0019),
+		up("stretch-rotation/second/F/worst", "", 0.0017, 0.0025),
+		up("rotation/first/rms/mean", rowRotation, 0.0038, 0.0057),
+		up("rotation/first/rms/worst", rowRotation, 0.0047, 0.007),
+		up("rotation/first/F/mean", "", 0.0011, 0.0017),
+		up("rotation/first/F/worst", "", 0.0013, 0.002),
+		up("rotation/second/rms/mean", rowRotation, 0.0075, 0.011),
+		up("rotation/second/rms/worst", rowRotation, 0.0082, 0.012),
+		up("rotation/second/F/mean", "", 0.0012, 0.0018),
+		up("rotation/second/F/worst", "", 0.0015, 0.0023),
+	}
+}
