@@ -69,6 +69,15 @@ type Config struct {
 	// Demo, if not nil, renders the built-in demo pair for POST /v1/demo,
 	// with the parameters to analyse it.
 	Demo func(ctx context.Context) (ref, def *imageio.Gray, p analysis.Params, err error)
+
+	// BeforeCompute, if not nil, is called by a worker after it has
+	// recorded job j as running and before it loads the inputs and
+	// computes, with the job's context (canceled when the job is canceled,
+	// times out or is stopped by shutdown); the job waits until it
+	// returns. It is a test hook: a test holds a job running until it
+	// releases it, instead of hoping a slow job is still running. Leave it
+	// nil in production.
+	BeforeCompute func(ctx context.Context, j jobs.Job)
 }
 
 func (c *Config) defaults() {

@@ -17,6 +17,7 @@ import (
 
 	"github.com/mottledic/mottle/pkg/service"
 	"github.com/mottledic/mottle/pkg/service/embedded"
+	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
 // TestMain lets the test binary act as a server process for the crash
@@ -35,18 +36,23 @@ func TestMain(m *testing.M) {
 
 func serveForTest() error {
 	dir := os.Getenv("MOTTLE_TEST_DIR")
-	delay, _ := time.ParseDuration(os.Getenv("MOTTLE_TEST_DELAY"))
 	grace, _ := time.ParseDuration(os.Getenv("MOTTLE_TEST_GRACE"))
 	be, err := embedded.Open(dir, 64)
 	if err != nil {
 		return err
 	}
 	defer be.Close()
-	var an service.Analyzer = &fakeAnalyzer{delay: delay}
+	var an service.Analyzer = &fakeAnalyzer{}
 	if os.Getenv("MOTTLE_TEST_ANALYZER") == "pipeline" {
 		an = service.Pipeline{}
 	}
-	s, err := service.New(service.Config{Backend: be, Analyzer: an, Workers: 2,
+	var hold func(context.Context, jobs.Job)
+	if os.Getenv("MOTTLE_TEST_HOLD") == "1" {
+		// Every job stays running until the process is killed or its
+		// shutdown grace is over.
+		hold = func(ctx context.Context, _ jobs.Job) { <-ctx.Done() }
+	}
+	s, err := service.New(service.Config{Backend: be, Analyzer: an, Workers: 2, BeforeCompute: hold,
 		ShutdownGrace: grace, Logger: slog.New(slog.NewJSONHandler(os.Stderr, nil))})
 	if err != nil {
 		return err
@@ -72,15 +78,22 @@ type proc struct {
 	cmd  *exec.Cmd
 	ts   *testServer
 	done chan error
+	log  string // its log file
 }
 
-func startProc(t *testing.T, dir string, delay, grace time.Duration) *proc {
+// startProc starts a server subprocess on dir; with hold, every job it
+// starts stays running until the process is killed or its shutdown grace
+// is over.
+func startProc(t *testing.T, dir string, hold bool, grace time.Duration) *proc {
 	t.Helper()
 	os.Remove(filepath.Join(dir, "addr"))
 	cmd := exec.Command(os.Args[0], "-test.run=^$")
-	cmd.Env = append(os.Environ(), "MOTTLE_TEST_SERVER=1", "MOTTLE_TEST_DIR="+dir,
-		"MOTTLE_TEST_DELAY="+delay.String(), "MOTTLE_TEST_GRACE="+grace.String())
-	logf, err := os.Create(filepath.Join(dir, "log-"+strconv.FormatInt(time.Now().UnixNano(), 10)))
+	cmd.Env = append(os.Environ(), "MOTTLE_TEST_SERVER=1", "MOTTLE_TEST_DIR="+dir, "MOTTLE_TEST_GRACE="+grace.String())
+	if hold {
+		cmd.Env = append(cmd.Env, "MOTTLE_TEST_HOLD=1")
+	}
+	logName := filepath.Join(dir, "log-"+strconv.FormatInt(time.Now().UnixNano(), 10))
+	logf, err := os.Create(logName)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -88,13 +101,13 @@ func startProc(t *testing.T, dir string, delay, grace time.Duration) *proc {
 	if err := cmd.Start(); err != nil {
 		t.Fatal(err)
 	}
-	p := &proc{cmd: cmd, done: make(chan error, 1)}
+	p := &proc{cmd: cmd, done: make(chan error, 1), log: logName}
 	go func() { p.done <- cmd.Wait(); logf.Close() }()
 	t.Cleanup(func() {
 		cmd.Process.Kill()
 		<-p.done
 	})
-	deadline := time.Now().Add(20 * time.Second)
+	ctx := testCtx(t)
 	for {
 		b, err := os.ReadFile(filepath.Join(dir, "addr"))
 		if err == nil {
@@ -105,20 +118,19 @@ func startProc(t *testing.T, dir string, delay, grace time.Duration) *proc {
 		select {
 		case err := <-p.done:
 			t.Fatalf("server exited at start: %v", err)
-		case <-time.After(20 * time.Millisecond):
-		}
-		if time.Now().After(deadline) {
+		case <-ctx.Done():
 			t.Fatal("server did not start")
+		case <-time.After(20 * time.Millisecond):
 		}
 	}
 }
 
-// TestSIGKILLRecovery kills the server with jobs queued and running, starts
-// it again on the same data directory, and checks that all of them
-// complete with the right results.
+// TestSIGKILLRecovery kills the server with jobs queued and running (two
+// held running by the test hook), starts it again on the same data
+// directory, and checks that all of them complete with the right results.
 func TestSIGKILLRecovery(t *testing.T) {
 	dir := t.TempDir()
-	p := startProc(t, dir, 3*time.Second, time.Second)
+	p := startProc(t, dir, true, time.Second)
 	type sub struct {
 		id     string
 		dx, dy int
@@ -134,18 +146,11 @@ func TestSIGKILLRecovery(t *testing.T) {
 		}
 		subs = append(subs, sub{decodeJSON[jobDoc](t, b).ID, dx, dy})
 	}
-	// Wait until two are running, then kill.
-	deadline := time.Now().Add(10 * time.Second)
-	for {
+	// Wait until both workers hold a job, then kill.
+	poll(t, "two jobs running", func() bool {
 		_, b := p.ts.do(t, "GET", "/v1/analyses?state=running", "", nil)
-		if strings.Count(string(b), `"state": "running"`) == 2 {
-			break
-		}
-		if time.Now().After(deadline) {
-			t.Fatalf("jobs did not start: %s", b)
-		}
-		time.Sleep(20 * time.Millisecond)
-	}
+		return strings.Count(string(b), `"state": "running"`) == 2
+	})
 	if err := p.cmd.Process.Signal(syscall.SIGKILL); err != nil {
 		t.Fatal(err)
 	}
@@ -154,7 +159,7 @@ func TestSIGKILLRecovery(t *testing.T) {
 	}
 	p.done <- nil // for the cleanup
 
-	p2 := startProc(t, dir, 50*time.Millisecond, time.Second)
+	p2 := startProc(t, dir, false, time.Second)
 	running := 0
 	for _, s := range subs {
 		j := p2.ts.waitDone(t, "/v1/analyses/"+s.id)
@@ -175,12 +180,14 @@ func TestSIGKILLRecovery(t *testing.T) {
 	}
 }
 
-// TestSIGTERMRequeues stops the server gracefully while jobs run longer
-// than the shutdown grace: it exits cleanly, the interrupted jobs go back
-// in the queue, and a restart completes them.
+// TestSIGTERMRequeues stops the server gracefully while jobs are held
+// running past the shutdown grace (they would never end by themselves):
+// it exits cleanly, which it can only do by stopping them when the grace
+// is over, the interrupted jobs go back in the queue, and a restart
+// completes them.
 func TestSIGTERMRequeues(t *testing.T) {
 	dir := t.TempDir()
-	p := startProc(t, dir, 20*time.Second, 300*time.Millisecond)
+	p := startProc(t, dir, true, 300*time.Millisecond)
 	var ids []string
 	for i := 0; i < 3; i++ {
 		ref, def := pair(t, 32, 32, 1, -1, uint64(60+i))
@@ -192,7 +199,6 @@ func TestSIGTERMRequeues(t *testing.T) {
 		ids = append(ids, decodeJSON[jobDoc](t, b).ID)
 	}
 	p.ts.waitState(t, "/v1/analyses/"+ids[0], "running")
-	start := time.Now()
 	p.cmd.Process.Signal(syscall.SIGTERM)
 	select {
 	case err := <-p.done:
@@ -200,13 +206,19 @@ func TestSIGTERMRequeues(t *testing.T) {
 			t.Fatalf("server exit after SIGTERM: %v", err)
 		}
 		p.done <- nil
-	case <-time.After(15 * time.Second):
-		t.Fatal("server did not stop after SIGTERM")
+	case <-testCtx(t).Done():
+		t.Fatal("server did not stop after SIGTERM: held jobs were not stopped at the end of the grace")
 	}
-	if d := time.Since(start); d > 10*time.Second {
-		t.Errorf("shutdown took %v", d)
+	log, err := os.ReadFile(p.log)
+	if err != nil {
+		t.Fatal(err)
 	}
-	p2 := startProc(t, dir, 10*time.Millisecond, time.Second)
+	for _, want := range []string{"shutdown grace over", "job interrupted by shutdown"} {
+		if !strings.Contains(string(log), want) {
+			t.Errorf("server log lacks %q:\n%s", want, log)
+		}
+	}
+	p2 := startProc(t, dir, false, time.Second)
 	for _, id := range ids {
 		j := p2.ts.waitDone(t, "/v1/analyses/"+id)
 		if j.State != "succeeded" || j.Summary.Mean["u"] != 1 {

@@ -4,6 +4,8 @@ import (
 	"context"
 	"io"
 	"log/slog"
+	"sync"
+	"sync/atomic"
 	"testing"
 	"time"
 
@@ -12,13 +14,51 @@ import (
 )
 
 // heldDelivery is a delivery held by the frame gate; the gate only
-// sends it heartbeats.
-type heldDelivery struct{ id string }
+// sends it heartbeats, which it counts.
+type heldDelivery struct {
+	id    string
+	beats *atomic.Int64
+}
 
 func (d heldDelivery) ID() string        { return d.id }
 func (d heldDelivery) Ack() error        { return nil }
 func (d heldDelivery) Nak() error        { return nil }
-func (d heldDelivery) InProgress() error { return nil }
+func (d heldDelivery) InProgress() error { d.beats.Add(1); return nil }
+
+// stepClock is a clock the test moves: each After call is handed to the
+// test on waits (the caller blocks until then), and fire moves the time
+// on by the wait and ends it. The gate's waits are thus checked step by
+// step, without sleeping and whatever the speed of the machine.
+type stepClock struct {
+	mu    sync.Mutex
+	now   time.Time
+	waits chan stepWait
+}
+
+type stepWait struct {
+	d time.Duration
+	c chan time.Time
+}
+
+func (c *stepClock) Now() time.Time {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	return c.now
+}
+
+func (c *stepClock) After(d time.Duration) <-chan time.Time {
+	ch := make(chan time.Time, 1)
+	c.waits <- stepWait{d, ch}
+	return ch
+}
+
+func (c *stepClock) fire(w stepWait) {
+	c.mu.Lock()
+	c.now = c.now.Add(w.d)
+	t := c.now
+	c.mu.Unlock()
+	w.c <- t
+}
 
 // TestFrameGate checks the series order gate: a frame whose predecessor
 // runs is held in place until the predecessor finishes, also past
@@ -37,6 +77,8 @@ func TestFrameGate(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	clk := &stepClock{now: time.Now(), waits: make(chan stepWait)}
+	s.clock = clk
 	ctx := context.Background()
 	now := time.Now().UTC()
 	ser := &jobs.Series{ID: jobs.NewID(), Params: []byte(`{}`), Width: 8, Height: 8, Created: now, Updated: now}
@@ -78,27 +120,59 @@ func TestFrameGate(t *testing.T) {
 		t.Errorf("frame 0 succeeded: gate of frame 1 = %d, want open", g)
 	}
 
-	// Predecessor not started: put back, long before frameWait.
+	// wait runs waitPrevious for frame 2, moving the clock on at each of
+	// its waits until it returns or stop says so; it returns the clock
+	// time spent, and the result (nil when it has not returned).
+	beats := &atomic.Int64{}
+	res := make(chan bool, 1)
+	wait := func(stop func(elapsed time.Duration) bool) (time.Duration, *bool) {
+		t0 := clk.Now()
+		for {
+			select {
+			case ok := <-res:
+				return clk.Now().Sub(t0), &ok
+			case w := <-clk.waits:
+				if stop(clk.Now().Sub(t0)) {
+					// Leave this wait pending: the gate stays blocked in it.
+					go func() { clk.waits <- w }()
+					return clk.Now().Sub(t0), nil
+				}
+				clk.fire(w)
+			}
+		}
+	}
+	never := func(time.Duration) bool { return false }
+
+	// Predecessor not started: put back after frameQueuedWait, long
+	// before frameWait.
 	setState(ids[1], jobs.Queued)
-	wctx, cancel := context.WithTimeout(ctx, frameWait/2)
-	defer cancel()
-	if s.waitPrevious(wctx, ids[2], heldDelivery{ids[2]}) || wctx.Err() != nil {
-		t.Errorf("frame 1 queued: waitPrevious held frame 2 until %v (ctx %v), want put back after %v", frameWait/2, wctx.Err(), frameQueuedWait)
+	go func() { res <- s.waitPrevious(ctx, ids[2], heldDelivery{ids[2], beats}) }()
+	el, ok := wait(never)
+	if ok == nil || *ok || el <= frameQueuedWait || el > frameQueuedWait+time.Second {
+		t.Errorf("frame 1 queued: waitPrevious returned %v after %v, want false just after %v", ok, el, frameQueuedWait)
 	}
 
-	// Predecessor running for longer than frameQueuedWait: held until it
-	// finishes.
+	// Predecessor running for longer than frameQueuedWait (three times
+	// it): held, with heartbeats, until it finishes.
 	setState(ids[1], jobs.Running)
-	res := make(chan bool, 1)
-	go func() { res <- s.waitPrevious(ctx, ids[2], heldDelivery{ids[2]}) }()
-	time.Sleep(frameQueuedWait + frameQueuedWait/2)
-	select {
-	case ok := <-res:
-		t.Fatalf("frame 1 running: waitPrevious returned %v before frame 1 finished", ok)
-	default:
+	go func() { res <- s.waitPrevious(ctx, ids[2], heldDelivery{ids[2], beats}) }()
+	el, ok = wait(func(el time.Duration) bool { return el > 3*frameQueuedWait })
+	if ok != nil {
+		t.Fatalf("frame 1 running: waitPrevious returned %v after %v, before frame 1 finished", *ok, el)
+	}
+	if n := beats.Load(); n < 1 {
+		t.Errorf("frame 1 running: %d heartbeats in %v of holding, want at least one", n, el)
 	}
 	setState(ids[1], jobs.Succeeded)
-	if !<-res {
+	if _, ok := wait(never); ok == nil || !*ok {
 		t.Error("frame 1 finished: waitPrevious put frame 2 back, want it to run")
+	}
+
+	// Predecessor running past frameWait (its worker may have died): put
+	// back then.
+	setState(ids[1], jobs.Running)
+	go func() { res <- s.waitPrevious(ctx, ids[2], heldDelivery{ids[2], beats}) }()
+	if el, ok := wait(never); ok == nil || *ok || el <= frameWait || el > frameWait+time.Second {
+		t.Errorf("frame 1 running for ever: waitPrevious returned %v after %v, want false just after %v", ok, el, frameWait)
 	}
 }

@@ -16,6 +16,7 @@ import (
 	"net/http"
 	"net/http/httptest"
 	"net/textproto"
+	"sync"
 	"sync/atomic"
 	"testing"
 	"time"
@@ -70,21 +71,23 @@ func pair(t testing.TB, w, h, dx, dy int, seed uint64) (ref, def []byte) {
 // exhaustive search of the sum of squared differences over ±4 px in the
 // central region: a real, checkable computation, cheap enough for many jobs.
 type fakeAnalyzer struct {
-	delay time.Duration // sleep per job, honouring the context
-	runs  atomic.Int64
+	// midway, if not nil, is called once a job has reported progress 1 of
+	// 10; the job goes on when it returns (TestEvents holds a job there
+	// until its event stream has shown that progress).
+	midway func(ctx context.Context)
+	runs   atomic.Int64
 }
 
 func (f *fakeAnalyzer) Run(ctx context.Context, in service.Input, progress func(done, total int)) (*service.Result, error) {
 	f.runs.Add(1)
 	const R = 4
-	steps := 10
-	for i := 0; i < steps; i++ {
-		select {
-		case <-ctx.Done():
-			return nil, ctx.Err()
-		case <-time.After(f.delay / time.Duration(steps)):
-		}
-		progress(i, steps)
+	const steps = 10
+	progress(1, steps)
+	if f.midway != nil {
+		f.midway(ctx)
+	}
+	if err := ctx.Err(); err != nil {
+		return nil, err
 	}
 	best, bu, bv := math.Inf(1), 0, 0
 	for v := -R; v <= R; v++ {
@@ -268,20 +271,89 @@ func decodeJSON[T any](t testing.TB, b []byte) T {
 // waitDone polls a job until it is finished.
 func (ts *testServer) waitDone(t testing.TB, path string) jobDoc {
 	t.Helper()
-	deadline := time.Now().Add(60 * time.Second)
-	for time.Now().Before(deadline) {
+	var j jobDoc
+	poll(t, path+" to finish", func() bool {
 		resp, b := ts.do(t, "GET", path, "", nil)
 		if resp.StatusCode != 200 {
 			t.Fatalf("GET %s: %d %s", path, resp.StatusCode, b)
 		}
-		j := decodeJSON[jobDoc](t, b)
-		if j.State == "succeeded" || j.State == "failed" || j.State == "canceled" {
-			return j
+		j = decodeJSON[jobDoc](t, b)
+		return j.State == "succeeded" || j.State == "failed" || j.State == "canceled"
+	})
+	return j
+}
+
+// testCtx returns a context that ends a little before the test binary's
+// -timeout would stop it (after 10 minutes when there is none). Tests
+// wait for events, never for a time: this bound only turns a hang into a
+// failure with a message, and is never reached because the machine is
+// slow.
+func testCtx(t testing.TB) context.Context {
+	end := time.Now().Add(10 * time.Minute)
+	if dt, ok := t.(interface{ Deadline() (time.Time, bool) }); ok {
+		if d, ok := dt.Deadline(); ok {
+			end = d.Add(-time.Until(d) / 20) // leave time to report
 		}
-		time.Sleep(20 * time.Millisecond)
 	}
-	t.Fatalf("%s did not finish", path)
-	return jobDoc{}
+	ctx, cancel := context.WithDeadline(context.Background(), end)
+	t.Cleanup(cancel)
+	return ctx
+}
+
+// poll checks cond every 20 ms until it holds; it fails the test only
+// when testCtx ends.
+func poll(t testing.TB, what string, cond func() bool) {
+	t.Helper()
+	ctx := testCtx(t)
+	for !cond() {
+		select {
+		case <-ctx.Done():
+			t.Fatalf("gave up waiting for %s at the end of the test's time", what)
+		case <-time.After(20 * time.Millisecond):
+		}
+	}
+}
+
+// holder holds jobs as Config.BeforeCompute: each job it is given stays
+// running (reported on started) until release is called or the job's
+// context ends. Tests use it to act on a running job without depending
+// on how long the job would take.
+type holder struct {
+	started chan string  // IDs of the jobs given to the hook, in order
+	free    atomic.Int64 // how many jobs, from now, to let through without holding
+	open    chan struct{}
+	once    sync.Once
+}
+
+func newHolder() *holder {
+	return &holder{started: make(chan string, 256), open: make(chan struct{})}
+}
+
+// hook is the Config.BeforeCompute function.
+func (h *holder) hook(ctx context.Context, j jobs.Job) {
+	h.started <- j.ID
+	if h.free.Add(-1) >= 0 {
+		return
+	}
+	select {
+	case <-h.open:
+	case <-ctx.Done():
+	}
+}
+
+// release lets every held job, and every later one, go on.
+func (h *holder) release() { h.once.Do(func() { close(h.open) }) }
+
+// next returns the ID of the next job that the holder holds.
+func (h *holder) next(t testing.TB) string {
+	t.Helper()
+	select {
+	case id := <-h.started:
+		return id
+	case <-testCtx(t).Done():
+		t.Fatal("no job started")
+		return ""
+	}
 }
 
 type problemDoc struct {
@@ -311,15 +383,10 @@ func newClientOnly(url string) *httptest.Server {
 // waitState polls a job until it reaches state.
 func (ts *testServer) waitState(t testing.TB, path, state string) {
 	t.Helper()
-	deadline := time.Now().Add(20 * time.Second)
-	for time.Now().Before(deadline) {
+	poll(t, path+" to be "+state, func() bool {
 		_, b := ts.do(t, "GET", path, "", nil)
-		if decodeJSON[jobDoc](t, b).State == state {
-			return
-		}
-		time.Sleep(20 * time.Millisecond)
-	}
-	t.Fatalf("%s never reached %s", path, state)
+		return decodeJSON[jobDoc](t, b).State == state
+	})
 }
 
 func (ts *testServer) client() *http.Client {

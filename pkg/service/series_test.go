@@ -132,7 +132,7 @@ func TestSeries(t *testing.T) {
 	}
 
 	n := 0
-	timeout := time.After(5 * time.Second)
+	timeout := testCtx(t).Done()
 	for n < 5 {
 		select {
 		case ev, ok := <-frames:
@@ -157,29 +157,30 @@ func TestSeries(t *testing.T) {
 }
 
 // TestRetention removes finished analyses after the retention period and
-// keeps unfinished ones.
+// keeps unfinished ones: the second job is held running until the first
+// has been removed.
 func TestRetention(t *testing.T) {
-	ts := newServer(t, func(c *service.Config) { c.Retention = 300 * time.Millisecond; c.Workers = 1 })
+	h := newHolder()
+	ts := newServer(t, func(c *service.Config) {
+		c.Retention = 300 * time.Millisecond
+		c.Workers = 1
+		c.BeforeCompute = h.hook
+	})
 	ref, def := pair(t, 32, 32, 1, 0, 12)
 	ct, body := multipartBody(t, analysisParts(ref, def, `{"subset": 15}`)...)
+	h.free.Store(1) // the first job runs through, the second is held
 	_, b := ts.do(t, "POST", "/v1/analyses?wait=true", ct, body)
 	done := decodeJSON[jobDoc](t, b).ID
-	ts.fake.delay = 1500 * time.Millisecond
+	h.next(t)
 	_, b = ts.do(t, "POST", "/v1/analyses", ct, body)
-	slow := decodeJSON[jobDoc](t, b).ID
-	deadline := time.Now().Add(10 * time.Second)
-	for {
+	running := decodeJSON[jobDoc](t, b).ID
+	h.next(t)
+	poll(t, "retention to remove the finished analysis", func() bool {
 		resp, _ := ts.do(t, "GET", "/v1/analyses/"+done, "", nil)
-		if resp.StatusCode == 404 {
-			break
-		}
-		if time.Now().After(deadline) {
-			t.Fatal("finished analysis not removed by retention")
-		}
-		time.Sleep(50 * time.Millisecond)
-	}
-	if resp, _ := ts.do(t, "GET", "/v1/analyses/"+slow, "", nil); resp.StatusCode != 200 {
-		t.Errorf("running analysis removed: %d", resp.StatusCode)
+		return resp.StatusCode == 404
+	})
+	if resp, b := ts.do(t, "GET", "/v1/analyses/"+running, "", nil); resp.StatusCode != 200 || decodeJSON[jobDoc](t, b).State != "running" {
+		t.Errorf("running analysis removed or finished: %d %s", resp.StatusCode, b)
 	}
 }
 

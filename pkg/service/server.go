@@ -35,6 +35,8 @@ type Server struct {
 	mu      sync.Mutex
 	running map[string]context.CancelCauseFunc
 
+	clock clock // of the frame gate; wallClock except in its test
+
 	// inspecting bounds the image inspections computed at once (they run
 	// on the request goroutine, outside the job queue).
 	inspecting chan struct{}
@@ -56,6 +58,7 @@ func New(cfg Config) (*Server, error) {
 		metrics:  newMetrics(),
 		stopping: make(chan struct{}),
 		running:  map[string]context.CancelCauseFunc{},
+		clock:    wallClock{},
 
 		inspecting: make(chan struct{}, cfg.Workers),
 	}

@@ -207,7 +207,7 @@ func TestSeriesTrackerSIGKILL(t *testing.T) {
 	ref, frames, factors := loadSeriesPNG(t)
 	t.Setenv("MOTTLE_TEST_ANALYZER", "pipeline")
 	dir := t.TempDir()
-	p := startProc(t, dir, 0, 0)
+	p := startProc(t, dir, false, 0)
 	sid := createSeries(t, p.ts, ref, trackerParams)
 	for n := 0; n < 2; n++ {
 		checkFrame(t, n, factors[n], postFrame(t, p.ts, sid, n, factors[n], frames[n], true))
@@ -221,7 +221,7 @@ func TestSeriesTrackerSIGKILL(t *testing.T) {
 	}
 	p.done <- nil // for the cleanup
 
-	p2 := startProc(t, dir, 0, 0)
+	p2 := startProc(t, dir, false, 0)
 	checkFrame(t, 2, factors[2], p2.ts.waitDone(t, fmt.Sprintf("/v1/series/%s/frames/2", sid)))
 	var last jobDoc
 	for n := 3; n < len(frames); n++ {

@@ -105,7 +105,14 @@ func (s *Server) runJob(base context.Context, d jobs.Delivery) {
 	l.Info("job started", "kind", j.Kind, "attempt", j.Attempts, "width", j.Width, "height", j.Height)
 
 	start := time.Now()
-	res, err := s.compute(jctx, j, d)
+	var res *Result
+	if h := s.cfg.BeforeCompute; h != nil {
+		h(jctx, *j)
+		err = jctx.Err() // a hold ended by cancellation, timeout or shutdown
+	}
+	if err == nil {
+		res, err = s.compute(jctx, j, d)
+	}
 	secs := time.Since(start).Seconds()
 	var names []string
 	if err == nil {
@@ -210,12 +217,12 @@ const frameQueuedWait = time.Second
 // and frameWait in all, telling the queue from time to time that the
 // delivery is still held. It reports whether the job may run.
 func (s *Server) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
-	start := time.Now()
+	start := s.clock.Now()
 	beat := start
 	var idle time.Time // since when the previous frame has been seen not running
 	for wait := 10 * time.Millisecond; ; wait = min(2*wait, 250*time.Millisecond) {
 		g := s.frameReady(context.Background(), id)
-		now := time.Now()
+		now := s.clock.Now()
 		switch {
 		case g == gateOpen:
 			return true
@@ -234,7 +241,7 @@ func (s *Server) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 		select {
 		case <-ctx.Done():
 			return false
-		case <-time.After(wait):
+		case <-s.clock.After(wait):
 		}
 	}
 }
@@ -270,7 +277,7 @@ func (s *Server) frameReady(ctx context.Context, id string) gate {
 	prev, err := s.store.Job(ctx, sr.Frames[j.FrameIndex-1])
 	switch {
 	case errors.Is(err, jobs.ErrNotFound):
-		if time.Since(j.Created) > missingFrameWait {
+		if s.clock.Now().Sub(j.Created) > missingFrameWait {
 			return gateOpen
 		}
 		return gateQueued
@@ -285,6 +292,20 @@ func (s *Server) frameReady(ctx context.Context, id string) gate {
 	}
 	return gateQueued
 }
+
+// clock is the time source of the frame gate (waitPrevious, frameReady):
+// the wall clock in production; the gate's test replaces it with one it
+// advances itself, so that the waits are checked without sleeping.
+type clock interface {
+	Now() time.Time
+	After(d time.Duration) <-chan time.Time
+}
+
+// wallClock is the real time.
+type wallClock struct{}
+
+func (wallClock) Now() time.Time                         { return time.Now() }
+func (wallClock) After(d time.Duration) <-chan time.Time { return time.After(d) }
 
 // stateKey is the blob key of a series' tracker state after frame n.
 func stateKey(seriesID string, n int) string {
