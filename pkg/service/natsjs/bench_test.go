@@ -34,7 +34,7 @@ func BenchmarkClusterFrames(b *testing.B) {
 			api := startProc(b, "api", nil, bin, "serve", "--backend", backend, "--addr", fmt.Sprintf("127.0.0.1:%d", port),
 				"--no-ui", "--data", b.TempDir(), "--queue", "256")
 			base := fmt.Sprintf("http://127.0.0.1:%d", port)
-			waitFor(b, 30*time.Second, "API ready", func() bool {
+			waitFor(b, "API ready", func() bool {
 				res, err := http.Get(base + "/readyz")
 				if err == nil {
 					res.Body.Close()
@@ -44,7 +44,7 @@ func BenchmarkClusterFrames(b *testing.B) {
 			var ws []*proc
 			for i := 0; i < nw; i++ {
 				w := startProc(b, fmt.Sprintf("worker-%d", i), nil, bin, "worker", "--backend", backend, "--workers", "1", "--threads", "1")
-				waitFor(b, 30*time.Second, "worker ready", func() bool { return strings.Contains(w.out.String(), "computing up to") })
+				waitFor(b, "worker ready", func() bool { return strings.Contains(w.out.String(), "computing up to") })
 				ws = append(ws, w)
 			}
 			hc := client{b, base}
@@ -63,7 +63,7 @@ func BenchmarkClusterFrames(b *testing.B) {
 					}
 				}
 				for _, id := range ids {
-					waitFor(b, 5*time.Minute, "the series", func() bool {
+					waitFor(b, "the series", func() bool {
 						sr, err := obs.Store().Series(ctx, id)
 						if err != nil || len(sr.Frames) != frames {
 							return false

@@ -2,8 +2,11 @@ package natsjs
 
 // The cluster test runs everything as real processes: three JetStream
 // nodes (this test binary re-executed as a NATS server), one API node
-// (mottle serve --backend nats://…) and two workers (mottle worker), all
-// on 127.0.0.1. The mottle binary is built from ./cmd/mottle once per run.
+// (mottle serve --backend nats://…) and workers, all on 127.0.0.1: two
+// that hold the first attempt of an analysis until they are killed (this
+// test binary re-executed as a worker with service.Config.BeforeCompute
+// set), and one mottle worker. The mottle binary is built from
+// ./cmd/mottle once per run.
 
 import (
 	"bufio"
@@ -41,8 +44,12 @@ import (
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
-// nodeEnv holds the JSON configuration of a NATS node process.
-const nodeEnv = "NATSJS_TEST_NODE"
+// nodeEnv holds the JSON configuration of a NATS node process; workerEnv
+// the backend URL of a holding worker process.
+const (
+	nodeEnv   = "NATSJS_TEST_NODE"
+	workerEnv = "NATSJS_TEST_WORKER"
+)
 
 type nodeConfig struct {
 	Name        string `json:"name"`
@@ -56,7 +63,55 @@ func TestMain(m *testing.M) {
 	if cfg := os.Getenv(nodeEnv); cfg != "" {
 		os.Exit(runNode(cfg))
 	}
+	if url := os.Getenv(workerEnv); url != "" {
+		os.Exit(runHoldingWorker(url))
+	}
 	os.Exit(m.Run())
+}
+
+// runHoldingWorker computes jobs from the backend at url, one at a time,
+// as mottle worker does, until SIGTERM, except that it holds the first
+// attempt of an analysis running until the process is killed: the test
+// kills it with that job certainly in the middle, whatever the speed of
+// the machine.
+func runHoldingWorker(url string) int {
+	o, err := ParseURL(url)
+	if err != nil {
+		fmt.Fprintln(os.Stderr, "worker:", err)
+		return 2
+	}
+	log := slog.New(slog.NewJSONHandler(os.Stderr, nil))
+	o.Work, o.Logger = true, log
+	ctx, stop := signal.NotifyContext(context.Background(), syscall.SIGTERM, os.Interrupt)
+	defer stop()
+	octx, cancel := context.WithTimeout(ctx, time.Minute)
+	b, err := Open(octx, o)
+	cancel()
+	if err != nil {
+		fmt.Fprintln(os.Stderr, "worker:", err)
+		return 1
+	}
+	defer b.Close()
+	hold := func(ctx context.Context, j jobs.Job) {
+		if j.Kind == jobs.Analysis && j.Attempts == 1 {
+			<-ctx.Done()
+		}
+	}
+	srv, err := service.New(service.Config{Backend: b.Jobs(), Analyzer: service.Pipeline{}, Logger: log,
+		Workers: 1, BeforeCompute: hold})
+	if err != nil {
+		fmt.Fprintln(os.Stderr, "worker:", err)
+		return 1
+	}
+	stopWork, err := srv.Start(ctx)
+	if err != nil {
+		fmt.Fprintln(os.Stderr, "worker:", err)
+		return 1
+	}
+	fmt.Fprintln(os.Stderr, "holding worker: computing up to 1 jobs at once")
+	<-ctx.Done()
+	stopWork()
+	return 0
 }
 
 // runNode runs one NATS server with JetStream in a cluster until SIGTERM.
@@ -175,15 +230,34 @@ func tail(s string, n int) string {
 	return s
 }
 
-// waitFor polls cond every 20 ms until it holds or d passes.
-func waitFor(t testing.TB, d time.Duration, what string, cond func() bool) {
-	t.Helper()
-	deadline := time.Now().Add(d)
-	for !cond() {
-		if time.Now().After(deadline) {
-			t.Fatalf("timed out after %v waiting for %s", d, what)
+// testCtx returns a context that ends a little before the test binary's
+// -timeout would stop it (after 10 minutes when there is none). Tests
+// wait for events, never for a time: this bound only turns a hang into a
+// failure with a message, and is never reached because the machine is
+// slow.
+func testCtx(t testing.TB) context.Context {
+	end := time.Now().Add(10 * time.Minute)
+	if dt, ok := t.(interface{ Deadline() (time.Time, bool) }); ok {
+		if d, ok := dt.Deadline(); ok {
+			end = d.Add(-time.Until(d) / 20) // leave time to report
 		}
-		time.Sleep(20 * time.Millisecond)
+	}
+	ctx, cancel := context.WithDeadline(context.Background(), end)
+	t.Cleanup(cancel)
+	return ctx
+}
+
+// waitFor checks cond every 20 ms until it holds; it fails the test only
+// when testCtx ends.
+func waitFor(t testing.TB, what string, cond func() bool) {
+	t.Helper()
+	ctx := testCtx(t)
+	for !cond() {
+		select {
+		case <-ctx.Done():
+			t.Fatalf("gave up waiting for %s at the end of the test's time", what)
+		case <-time.After(20 * time.Millisecond):
+		}
 	}
 }
 
@@ -251,7 +325,7 @@ func startCluster(t testing.TB) *cluster {
 			os.Args[0], "-test.run=^$"))
 	}
 	for _, n := range c.nodes {
-		waitFor(t, 20*time.Second, n.name+" ready", func() bool { return strings.Contains(n.out.String(), "ready") })
+		waitFor(t, n.name+" ready", func() bool { return strings.Contains(n.out.String(), "ready") })
 	}
 	return c
 }
@@ -261,7 +335,7 @@ type scenario struct {
 	params    []byte // series parameters
 	reference []byte
 	frames    [][]byte
-	slowRef   []byte // a larger pair analysed with a dense grid, so it runs long enough to be killed
+	slowRef   []byte // a larger pair analysed with a dense grid (its first attempt is held and killed)
 	slowDef   []byte
 	slowPar   []byte
 }
@@ -511,7 +585,7 @@ func embeddedRun(t testing.TB, sc *scenario) *outcome {
 	hs := httptest.NewServer(srv.Handler())
 	defer hs.Close()
 	s := submit(client{t, hs.URL}, sc, nil)
-	waitFor(t, 2*time.Minute, "embedded run", func() bool { return done(context.Background(), be.Store, s, len(sc.frames)) })
+	waitFor(t, "embedded run", func() bool { return done(context.Background(), be.Store, s, len(sc.frames)) })
 	keys := func(prefix string) []string {
 		var out []string
 		root := filepath.Join(dir, "blobs")
@@ -528,10 +602,10 @@ func embeddedRun(t testing.TB, sc *scenario) *outcome {
 }
 
 // TestCluster: three JetStream nodes, one API node and two workers as
-// real processes. A worker is killed (SIGKILL) in the middle of a job and
-// one NATS node is stopped while frames are arriving; every job still
-// completes exactly once and the results are identical to those of the
-// embedded backend.
+// real processes. The worker holding the analysis is killed (SIGKILL) in
+// the middle of it and replaced by a mottle worker, and one NATS node is
+// stopped while frames are arriving; every job still completes exactly
+// once and the results are identical to those of the embedded backend.
 func TestCluster(t *testing.T) {
 	frames := 40
 	if testing.Short() {
@@ -556,7 +630,7 @@ func TestCluster(t *testing.T) {
 	api := startProc(t, "api", nil, bin, "serve", "--backend", backend, "--addr", fmt.Sprintf("127.0.0.1:%d", port),
 		"--no-ui", "--data", t.TempDir())
 	base := fmt.Sprintf("http://127.0.0.1:%d", port)
-	waitFor(t, 30*time.Second, "API ready", func() bool {
+	waitFor(t, "API ready", func() bool {
 		res, err := http.Get(base + "/readyz")
 		if err == nil {
 			res.Body.Close()
@@ -566,17 +640,20 @@ func TestCluster(t *testing.T) {
 	worker := func(name string) *proc {
 		return startProc(t, name, nil, bin, "worker", "--backend", backend, "--workers", "1")
 	}
-	workers := []*proc{worker("worker-a"), worker("worker-b")}
+	holding := func(name string) *proc {
+		return startProc(t, name, []string{workerEnv + "=" + backend}, os.Args[0], "-test.run=^$")
+	}
+	workers := []*proc{holding("worker-a"), holding("worker-b")}
 	for _, w := range workers {
-		waitFor(t, 30*time.Second, w.name+" ready", func() bool { return strings.Contains(w.out.String(), "computing up to") })
+		waitFor(t, w.name+" ready", func() bool { return strings.Contains(w.out.String(), "computing up to") })
 	}
 	c := client{t, base}
 
 	var s submission
 	var killed *proc
 	s.analysis = c.multipart("/v1/analyses", map[string][]byte{"reference": sc.slowRef, "deformed": sc.slowDef, "params": sc.slowPar}, http.StatusAccepted)
-	// Kill the worker that runs the analysis while it is running.
-	waitFor(t, 30*time.Second, "the analysis to start", func() bool {
+	// Kill the worker that holds the analysis running.
+	waitFor(t, "the analysis to start", func() bool {
 		for _, w := range workers {
 			if started(w.out.String(), s.analysis) {
 				killed = w
@@ -585,9 +662,8 @@ func TestCluster(t *testing.T) {
 		}
 		return false
 	})
-	time.Sleep(100 * time.Millisecond)
 	if j, err := obs.Store().Job(ctx, s.analysis); err != nil || j.State != jobs.Running {
-		t.Fatalf("analysis not running when its worker is killed (%v, %v): make it larger", j.State, err)
+		t.Fatalf("analysis not running when its worker is killed (%v, %v)", j.State, err)
 	}
 	killed.signal(syscall.SIGKILL)
 	<-killed.done
@@ -605,9 +681,9 @@ func TestCluster(t *testing.T) {
 		c.frame(s.series, f, i)
 	}
 	t.Logf("submitted at %v", time.Since(t0).Round(time.Millisecond))
-	deadline := time.Now().Add(2 * time.Minute)
+	tctx := testCtx(t)
 	for !done(ctx, obs.Store(), s, frames) {
-		if time.Now().After(deadline) {
+		if tctx.Err() != nil {
 			list, _ := obs.Store().Jobs(ctx, jobs.Filter{})
 			for _, j := range list {
 				if !j.State.Terminal() {
@@ -621,14 +697,17 @@ func TestCluster(t *testing.T) {
 				t.Logf("consumer info: %v", err)
 			}
 			n, err := obs.Pending(ctx)
-			t.Fatalf("timed out waiting for every job to finish; %d messages in the job stream (%v)", n, err)
+			t.Fatalf("gave up waiting for every job to finish at the end of the test's time; %d messages in the job stream (%v)", n, err)
 		}
-		time.Sleep(20 * time.Millisecond)
+		select {
+		case <-tctx.Done():
+		case <-time.After(20 * time.Millisecond):
+		}
 	}
 	t.Logf("every job finished at %v", time.Since(t0).Round(time.Millisecond))
 
 	// Nothing left in the queue, nothing dead-lettered.
-	waitFor(t, 10*time.Second, "the job stream to empty", func() bool { n, err := obs.Pending(ctx); return err == nil && n == 0 })
+	waitFor(t, "the job stream to empty", func() bool { n, err := obs.Pending(ctx); return err == nil && n == 0 })
 	if dl, err := obs.DeadLetters(ctx); err != nil || len(dl) != 0 {
 		t.Fatalf("dead letters %+v, %v; want none", dl, err)
 	}

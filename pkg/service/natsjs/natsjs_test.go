@@ -12,6 +12,7 @@ import (
 	"time"
 
 	"github.com/nats-io/nats-server/v2/server"
+	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
 
 	"github.com/mottledic/mottle/pkg/service/jobs"
@@ -179,20 +180,13 @@ func TestStore(t *testing.T) {
 	}
 
 	// Listings come from the mirror, which follows writes of other processes.
-	deadline := time.Now().Add(5 * time.Second)
-	for {
+	waitFor(t, "the mirror to hold the 6 frames of the series", func() bool {
 		list, err := st.Jobs(ctx, jobs.Filter{Series: sr.ID})
 		if err != nil {
 			t.Fatal(err)
 		}
-		if len(list) == 6 {
-			break
-		}
-		if time.Now().After(deadline) {
-			t.Fatalf("mirror holds %d frames of the series, want 6", len(list))
-		}
-		time.Sleep(20 * time.Millisecond)
-	}
+		return len(list) == 6
+	})
 	counts, err := st.Counts(ctx)
 	if err != nil || counts[jobs.Queued] != 6 || counts[jobs.Succeeded] != 1 {
 		t.Fatalf("counts %v, %v; want 6 queued, 1 succeeded", counts, err)
@@ -218,7 +212,7 @@ func TestStore(t *testing.T) {
 		t.Fatal(err)
 	}
 	sawRunning, sawProgress := false, false
-	timeout := time.After(5 * time.Second)
+	timeout := testCtx(t).Done()
 	for !sawProgress {
 		select {
 		case j := <-ch:
@@ -332,11 +326,9 @@ func TestBlobs(t *testing.T) {
 	}
 }
 
-// dequeue pulls one delivery within d, or returns nil.
-func dequeue(t *testing.T, q *Queue, d time.Duration) jobs.Delivery {
+// dequeue pulls one delivery before ctx ends, or returns nil.
+func dequeue(t *testing.T, ctx context.Context, q *Queue) jobs.Delivery {
 	t.Helper()
-	ctx, cancel := context.WithTimeout(context.Background(), d)
-	defer cancel()
 	dl, err := q.Dequeue(ctx)
 	if err != nil {
 		if ctx.Err() == nil {
@@ -347,11 +339,53 @@ func dequeue(t *testing.T, q *Queue, d time.Duration) jobs.Delivery {
 	return dl
 }
 
+// mustDequeue waits for a delivery (until testCtx ends).
+func mustDequeue(t *testing.T, q *Queue, what string) jobs.Delivery {
+	t.Helper()
+	d := dequeue(t, testCtx(t), q)
+	if d == nil {
+		t.Fatalf("no delivery: %s", what)
+	}
+	return d
+}
+
+// heartbeats counts the in-progress acknowledgements ("+WPI") that
+// clients send to the server at url.
+func heartbeats(t *testing.T, url string) <-chan struct{} {
+	t.Helper()
+	nc, err := nats.Connect(url)
+	if err != nil {
+		t.Fatal(err)
+	}
+	t.Cleanup(nc.Close)
+	ch := make(chan struct{}, 1024)
+	if _, err := nc.Subscribe("$JS.ACK.>", func(m *nats.Msg) {
+		if string(m.Data) == "+WPI" {
+			ch <- struct{}{}
+		}
+	}); err != nil {
+		t.Fatal(err)
+	}
+	if err := nc.Flush(); err != nil {
+		t.Fatal(err)
+	}
+	return ch
+}
+
+// TestQueueHeartbeatAndRedelivery: a worker's heartbeats keep its job
+// past AckWait; when it dies the job goes to another. The test counts the
+// heartbeats on the wire instead of sleeping: it waits for four of them
+// (one every AckWait/3, so more than AckWait after the delivery) while
+// the second worker is asking for a job. The server's redelivery timer is
+// wall-clock time, so AckWait is 3 s here: only a heartbeat 2 s late
+// could make the job go early.
 func TestQueueHeartbeatAndRedelivery(t *testing.T) {
 	url := runServer(t)
+	beats := heartbeats(t, url)
+	slow := func(o *Options) { o.AckWait = 3 * time.Second }
 	api := open(t, url, func(o *Options) { o.Work = false })
-	w1 := open(t, url, nil)
-	w2 := open(t, url, nil)
+	w1 := open(t, url, slow)
+	w2 := open(t, url, slow)
 	ctx := context.Background()
 	j := newJob(jobs.Analysis, "", 0)
 	if err := api.Store().CreateJob(ctx, j); err != nil {
@@ -367,27 +401,45 @@ func TestQueueHeartbeatAndRedelivery(t *testing.T) {
 	if n, _ := api.Pending(ctx); n != 1 {
 		t.Fatalf("stream holds %d messages after a duplicate enqueue, want 1", n)
 	}
-	// The API node never takes jobs.
-	if d := dequeue(t, api.Queue(), 300*time.Millisecond); d != nil {
+	// The API node never takes jobs (its Dequeue only waits for the
+	// context to end).
+	actx, cancel := context.WithTimeout(ctx, 100*time.Millisecond)
+	defer cancel()
+	if d := dequeue(t, actx, api.Queue()); d != nil {
 		t.Fatal("API node dequeued a job")
 	}
-	d1 := dequeue(t, w1.Queue(), 5*time.Second)
-	if d1 == nil || d1.ID() != j.ID {
-		t.Fatalf("worker 1 got %v", d1)
+	d1 := mustDequeue(t, w1.Queue(), "worker 1")
+	if d1.ID() != j.ID {
+		t.Fatalf("worker 1 got %s, want %s", d1.ID(), j.ID)
 	}
 	if _, err := w1.Store().UpdateJob(ctx, j.ID, func(j *jobs.Job) error { j.State = jobs.Running; j.Attempts++; return nil }); err != nil {
 		t.Fatal(err)
 	}
-	// Heartbeats keep the job with worker 1 well past AckWait (300 ms).
-	if d := dequeue(t, w2.Queue(), 1200*time.Millisecond); d != nil {
+	// Heartbeats keep the job with worker 1 past AckWait while worker 2
+	// asks for a job.
+	wctx, stopW2 := context.WithCancel(ctx)
+	early := make(chan jobs.Delivery, 1)
+	go func() { d, _ := w2.Queue().Dequeue(wctx); early <- d }()
+	tctx := testCtx(t)
+	for n := 0; n < 4; n++ {
+		select {
+		case <-beats:
+		case d := <-early:
+			t.Fatalf("job redelivered to worker 2 (%v) after %d heartbeats of worker 1", d != nil, n)
+		case <-tctx.Done():
+			t.Fatalf("only %d heartbeats from worker 1", n)
+		}
+	}
+	stopW2()
+	if d := <-early; d != nil {
 		t.Fatal("job redelivered while its worker was sending heartbeats")
 	}
 	// Worker 1 dies: no more heartbeats, the job goes to worker 2 with its
 	// record back to queued.
 	w1.Conn().Close()
-	d2 := dequeue(t, w2.Queue(), 5*time.Second)
-	if d2 == nil || d2.ID() != j.ID {
-		t.Fatalf("worker 2 got %v after worker 1 died", d2)
+	d2 := mustDequeue(t, w2.Queue(), "worker 2 after worker 1 died")
+	if d2.ID() != j.ID {
+		t.Fatalf("worker 2 got %s after worker 1 died, want %s", d2.ID(), j.ID)
 	}
 	got, _ := w2.Store().Job(ctx, j.ID)
 	if got.State != jobs.Queued || got.Attempts != 1 {
@@ -415,7 +467,7 @@ func TestQueueDeadLetters(t *testing.T) {
 	bad := newJob(jobs.Analysis, "", 0)
 	w2.Store().CreateJob(ctx, bad)
 	w2.Queue().Enqueue(ctx, bad.ID)
-	d := dequeue(t, w2.Queue(), 5*time.Second)
+	d := mustDequeue(t, w2.Queue(), "the bad job")
 	fin := time.Now().UTC()
 	w2.Store().UpdateJob(ctx, bad.ID, func(j *jobs.Job) error {
 		j.State, j.Finished = jobs.Failed, &fin
@@ -430,14 +482,22 @@ func TestQueueDeadLetters(t *testing.T) {
 	j := newJob(jobs.Frame, jobs.NewID(), 3)
 	w1.Store().CreateJob(ctx, j)
 	w1.Queue().Enqueue(ctx, j.ID)
-	if d := dequeue(t, w1.Queue(), 5*time.Second); d == nil {
-		t.Fatal("no delivery")
-	}
+	mustDequeue(t, w1.Queue(), "the frame")
 	w1.Conn().Close()
-	if d := dequeue(t, w2.Queue(), 2*time.Second); d != nil {
+	// The last delivery is not handed out: worker 2's Dequeue fails the
+	// record and dead-letters it. Ask until the record says so.
+	wctx, stopW2 := context.WithCancel(ctx)
+	handed := make(chan jobs.Delivery, 1)
+	go func() { d, _ := w2.Queue().Dequeue(wctx); handed <- d }()
+	var got *jobs.Job
+	waitFor(t, "the frame to be failed on its last delivery", func() bool {
+		got, _ = w2.Store().Job(ctx, j.ID)
+		return got != nil && got.State.Terminal()
+	})
+	stopW2()
+	if d := <-handed; d != nil {
 		t.Fatalf("delivery %d handed out beyond MaxDeliver", 2)
 	}
-	got, _ := w2.Store().Job(ctx, j.ID)
 	if got.State != jobs.Failed || got.Error == nil || !strings.Contains(got.Error.Detail, "delivered 2 times") {
 		t.Fatalf("record after the last delivery: %+v %+v", got, got.Error)
 	}
@@ -464,10 +524,8 @@ func TestQueueFull(t *testing.T) {
 			t.Fatalf("enqueue %d: %v", i, err)
 		}
 	}
-	time.Sleep(300 * time.Millisecond)
-	if n := b.Queue().Len(); n != 2 {
-		t.Errorf("Len = %d, want 2", n)
-	}
+	// Len is cached for a moment; wait until it is read again.
+	waitFor(t, "Len to say 2", func() bool { return b.Queue().Len() == 2 })
 }
 
 // TestQueueNak: a job put back is delivered again without using up its
@@ -485,10 +543,7 @@ func TestQueueNak(t *testing.T) {
 	}
 	var order []string
 	for i := 0; i < 6; i++ {
-		d := dequeue(t, w.Queue(), 5*time.Second)
-		if d == nil {
-			t.Fatalf("delivery %d: none", i)
-		}
+		d := mustDequeue(t, w.Queue(), fmt.Sprintf("delivery %d", i))
 		order = append(order, d.ID())
 		if err := d.Nak(); err != nil {
 			t.Fatal(err)
@@ -574,11 +629,23 @@ func TestBlobsAfterNodeStops(t *testing.T) {
 	}
 	lead.Shutdown()
 	lead.WaitForShutdown()
+	// Wait for the event the reads depend on, a new leader of the object
+	// stream, so that the bound below covers only the reads and not the
+	// election (whose length depends on the machine).
+	waitFor(t, "a new leader of the object stream", func() bool {
+		ictx, cancel := context.WithTimeout(ctx, time.Second)
+		defer cancel()
+		si, err := b.js.Stream(ictx, "OBJ_"+b.n.objects)
+		if err != nil {
+			return false
+		}
+		l := si.CachedInfo().Cluster
+		return l != nil && l.Leader != "" && l.Leader != leader
+	})
 	for key, w := range want {
 		// Less than one 15 s attempt of the object store's own reader,
 		// which stalled here (about one run in two) because the ordered
-		// consumer it creates per read was never created; a leader
-		// election takes a few seconds.
+		// consumer it creates per read was never created.
 		rctx, cancel := context.WithTimeout(ctx, 12*time.Second)
 		rc, err := b.Blobs().Get(rctx, key)
 		cancel()
