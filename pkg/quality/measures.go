@@ -262,41 +262,41 @@ func insideR(mask *roi.Mask, w, h, x, y, r int) bool {
 
 // sobelStats returns the mean and the 99th percentile of the Sobel
 // gradient magnitude (kernel divided by 8) over the pixels whose 3×3
-// neighbourhood is measured; NaN, 0 if there is none.
+// neighbourhood is measured; NaN, 0 if there is none. Two passes (the
+// second fills a histogram up to the largest magnitude) keep the memory
+// independent of the image size.
 func sobelStats(g *imageio.Gray, mask *roi.Mask) (mean, p99 float64) {
 	if g.W < 3 || g.H < 3 {
 		return math.NaN(), 0
 	}
-	mag := make([]float32, 0, (g.W-2)*(g.H-2))
-	var s, top float64
-	p := g.Pix
-	for y := 1; y < g.H-1; y++ {
-		for x := 1; x < g.W-1; x++ {
-			if !insideR(mask, g.W, g.H, x, y, 1) {
-				continue
+	p, st := g.Pix, g.Stride
+	each := func(f func(v float64)) {
+		for y := 1; y < g.H-1; y++ {
+			for x := 1; x < g.W-1; x++ {
+				if !insideR(mask, g.W, g.H, x, y, 1) {
+					continue
+				}
+				i := y*st + x
+				a, b, c := float64(p[i-st-1]), float64(p[i-st]), float64(p[i-st+1])
+				d, e := float64(p[i-1]), float64(p[i+1])
+				q, h, k := float64(p[i+st-1]), float64(p[i+st]), float64(p[i+st+1])
+				gx := (c + 2*e + k - a - 2*d - q) / 8
+				gy := (q + 2*h + k - a - 2*b - c) / 8
+				f(math.Hypot(gx, gy))
 			}
-			i := y*g.Stride + x
-			a, b, c := float64(p[i-g.Stride-1]), float64(p[i-g.Stride]), float64(p[i-g.Stride+1])
-			d, f := float64(p[i-1]), float64(p[i+1])
-			e, h, k := float64(p[i+g.Stride-1]), float64(p[i+g.Stride]), float64(p[i+g.Stride+1])
-			gx := (c + 2*f + k - a - 2*d - e) / 8
-			gy := (e + 2*h + k - a - 2*b - c) / 8
-			v := math.Hypot(gx, gy)
-			s += v
-			top = math.Max(top, v)
-			mag = append(mag, float32(v))
 		}
 	}
-	if len(mag) == 0 {
+	var s, top float64
+	n := 0
+	each(func(v float64) { s += v; top = math.Max(top, v); n++ })
+	if n == 0 {
 		return math.NaN(), 0
 	}
 	if top > 0 {
 		const nbin = 1 << 14
 		hist := make([]int, nbin)
-		for _, v := range mag {
-			hist[min(nbin-1, int(float64(v)/top*(nbin-1)+0.5))]++
-		}
-		p99 = float64(percentile(hist, len(mag), 0.99)) * top / (nbin - 1)
+		each(func(v float64) { hist[min(nbin-1, int(v/top*(nbin-1)+0.5))]++ })
+		p99 = float64(percentile(hist, n, 0.99)) * top / (nbin - 1)
 	}
-	return s / float64(len(mag)), p99
+	return s / float64(n), p99
 }

@@ -1,10 +1,8 @@
 package quality
 
 import (
-	"cmp"
 	"fmt"
 	"math"
-	"slices"
 
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/roi"
@@ -101,13 +99,31 @@ func NoiseFromImage(g *imageio.Gray, mask *roi.Mask) (float64, error) {
 	if len(r) < 50 {
 		return 0, fmt.Errorf("%w: noise estimate needs at least 50 measured pixels", ErrEmpty)
 	}
-	slices.SortFunc(r, func(a, b resp) int { return cmp.Compare(a.grad, b.grad) })
-	r = r[:len(r)/5]
-	var s float64
+	// The fifth with the smallest gradient, from a histogram of the
+	// gradient (a sort of millions of pixels would dominate the cost).
+	var top float64
 	for _, v := range r {
-		s += v.n
+		top = math.Max(top, v.grad)
 	}
-	return math.Sqrt(math.Pi/2) * s / float64(len(r)) / 6, nil
+	cut := math.Inf(1)
+	if top > 0 {
+		const nbin = 1 << 14
+		hist := make([]int, nbin)
+		for _, v := range r {
+			hist[min(nbin-1, int(v.grad/top*nbin))]++
+		}
+		b := percentile(hist, len(r), 0.2)
+		cut = float64(b+1) * top / nbin
+	}
+	var s float64
+	n := 0
+	for _, v := range r {
+		if v.grad < cut {
+			s += v.n
+			n++
+		}
+	}
+	return math.Sqrt(math.Pi/2) * s / float64(n) / 6, nil
 }
 
 // looksFullScale reports whether v is the top level of a 8-, 10-, 12-, 14-

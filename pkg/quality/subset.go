@@ -197,11 +197,24 @@ func ChooseSubset(ctx context.Context, ref *imageio.Gray, o SubsetOptions) (*Sub
 	}
 	c := &SubsetChoice{Target: o.Target, Noise: o.Noise, Fraction: o.Fraction, X0: r0, Y0: r0, Step: o.Step,
 		Nx: (ref.W-1-2*r0)/o.Step + 1, Ny: (ref.H-1-2*r0)/o.Step + 1}
-	gx, gy, err := Gradients(ctx, ref)
+	// Only the ROI's bounding box (and a margin, so the spline sees the
+	// real neighbours of its edge pixels) is needed.
+	ox, oy, ex, ey := 0, 0, ref.W, ref.H
+	if o.Mask != nil {
+		const margin = 4
+		bx0, by0, bx1, by1 := o.Mask.Bounds()
+		ox, oy = max(0, bx0-margin), max(0, by0-margin)
+		ex, ey = min(ref.W, bx1+margin), min(ref.H, by1+margin)
+		if ex <= ox || ey <= oy {
+			return nil, fmt.Errorf("%w: automatic subset: the ROI is empty", ErrEmpty)
+		}
+	}
+	crop := ref.Sub(ox, oy, ex-ox, ey-oy)
+	gx, gy, err := Gradients(ctx, crop)
 	if err != nil {
 		return nil, fmt.Errorf("automatic subset: gradients of the reference image: %w", err)
 	}
-	tx, ty := newSAT(gx, ref.W, ref.H), newSAT(gy, ref.W, ref.H)
+	tx, ty := newSAT(gx, crop.W, crop.H), newSAT(gy, crop.W, crop.H)
 	n := c.Nx * c.Ny
 	c.Required = make([]int, n)
 	for i := range c.Required {
@@ -221,7 +234,10 @@ func ChooseSubset(ctx context.Context, ref *imageio.Gray, o SubsetOptions) (*Sub
 				if x0 < 0 || y0 < 0 || x1 >= ref.W || y1 >= ref.H || (o.Mask != nil && !o.Mask.RectInside(x0, y0, x1, y1)) {
 					continue
 				}
-				su, sv := Predict(tx.sum(x0, y0, x1, y1), ty.sum(x0, y0, x1, y1), o.Noise)
+				if x0 < ox || y0 < oy || x1 >= ex || y1 >= ey {
+					continue
+				}
+				su, sv := Predict(tx.sum(x0-ox, y0-oy, x1-ox, y1-oy), ty.sum(x0-ox, y0-oy, x1-ox, y1-oy), o.Noise)
 				p := math.Max(su, sv)
 				pred = append(pred, p)
 				k := j*c.Nx + i
