@@ -9,6 +9,7 @@ const (
 	rowQuadratic   = "quadratic displacement field"
 	rowStretchRot  = "12 % stretch with 15° rotation"
 	rowRotation    = "30° rigid rotation"
+	rowPipeline    = "5 % stretch with 10° rotation, whole pipeline"
 )
 
 // up is a figure with an upper bound; row "" means asserted but not quoted.
@@ -87,5 +88,14 @@ func All() []Figure {
 		up("rotation/second/rms/worst", rowRotation, 0.0082, 0.012),
 		up("rotation/second/F/mean", "", 0.0012, 0.0018),
 		up("rotation/second/F/worst", "", 0.0015, 0.0023),
+
+		// pkg/analysis TestRunHomogeneousStretchAndRotation: Green–Lagrange
+		// E against the closed form, largest error at any point and RMS;
+		// error of the mean rotation, degrees.
+		up("pipeline/E/max/mean", rowPipeline, 0.00014, 0.00021),
+		up("pipeline/E/max/worst", rowPipeline, 0.00018, 0.00027),
+		up("pipeline/E/rms/mean", rowPipeline, 3.5e-5, 5.3e-5),
+		up("pipeline/E/rms/worst", rowPipeline, 3.9e-5, 5.9e-5),
+		up("pipeline/rotation/worst", rowPipeline, 0.00016, 0.00024),
 	}
 }
