@@ -10,6 +10,8 @@ const (
 	rowStretchRot  = "12 % stretch with 15° rotation"
 	rowRotation    = "30° rigid rotation"
 	rowPipeline    = "5 % stretch with 10° rotation, whole pipeline"
+	rowTensile     = "20-frame rendered tensile series"
+	rowIncremental = "40 % stretch series"
 )
 
 // up is a figure with an upper bound; row "" means asserted but not quoted.
@@ -97,5 +99,23 @@ func All() []Figure {
 		up("pipeline/E/rms/mean", rowPipeline, 3.5e-5, 5.3e-5),
 		up("pipeline/E/rms/worst", rowPipeline, 3.9e-5, 5.9e-5),
 		up("pipeline/rotation/worst", rowPipeline, 0.00016, 0.00024),
+
+		// pkg/series TestMaterialLawSeries: |relative error| in percent of
+		// the properties from the gauge strains against the invented law.
+		up("tensile/modulus/mean", rowTensile, 0.074, 0.11),
+		up("tensile/modulus/worst", rowTensile, 0.16, 0.24),
+		up("tensile/poisson/mean", rowTensile, 0.32, 0.48),
+		up("tensile/poisson/worst", rowTensile, 0.67, 1),
+		up("tensile/yield/mean", rowTensile, 0.0037, 0.0056),
+		up("tensile/yield/worst", rowTensile, 0.011, 0.017),
+		up("tensile/r/mean", rowTensile, 0.093, 0.14),
+		up("tensile/r/worst", rowTensile, 0.36, 0.54),
+
+		// pkg/series TestIncrementalLargeStretch: |error| of the final
+		// gauge strains against the closed form.
+		up("incremental/E11/mean", rowIncremental, 0.0002, 0.0003),
+		up("incremental/E11/worst", rowIncremental, 0.00055, 0.00082),
+		up("incremental/E22/mean", rowIncremental, 0.00013, 0.0002),
+		up("incremental/E22/worst", rowIncremental, 0.00038, 0.00057),
 	}
 }

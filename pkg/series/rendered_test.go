@@ -5,6 +5,7 @@ import (
 	"math"
 	"testing"
 
+	"github.com/mottledic/mottle/internal/figures"
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/roi"
@@ -29,13 +30,19 @@ const lawOff = 0.002
 // stay alike.
 func renderFrames(t testing.TB, w, h int, diameter float64, ms []synth.Motion, defocus float64) (*imageio.Gray, []*imageio.Gray) {
 	t.Helper()
+	return renderFramesSeed(t, w, h, diameter, ms, defocus, 11)
+}
+
+// renderFramesSeed is renderFrames with the speckle pattern's seed.
+func renderFramesSeed(t testing.TB, w, h int, diameter float64, ms []synth.Motion, defocus float64, seed int64) (*imageio.Gray, []*imageio.Gray) {
+	t.Helper()
 	all := append([]synth.Motion{synth.Identity{}}, ms...)
 	var fr []synth.Frame
 	for _, m := range all {
 		fr = append(fr, synth.Frame{Motion: m})
 	}
 	bounds := synth.BoundsForSeries(fr, w, h, 12)
-	p1, err := synth.NewPattern(synth.PatternOptions{Diameter: diameter, Seed: 11, Bounds: bounds})
+	p1, err := synth.NewPattern(synth.PatternOptions{Diameter: diameter, Seed: seed, Bounds: bounds})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -51,21 +58,43 @@ func renderFrames(t testing.TB, w, h int, diameter float64, ms []synth.Motion, d
 	return imgs[0], imgs[1:]
 }
 
-// TestMaterialLawSeries renders 20 frames (the reference and 19 loaded
-// frames) of a strip stretched along x by the invented law above and checks
-// the properties against the law: E (ASTM E111), ν (ASTM E132) and the
-// 0.2 % offset yield (ASTM E8/E8M) within 1 %, r (ISO 10113) within 2 %.
-// The offset-yield truth is the closed-form intersection of the offset line
-// σ = E(ε − 0.002) with the hardening branch σ = σ_y + H(ε − σ_y/E).
-func TestMaterialLawSeries(t *testing.T) {
-	strains := []float64{0.001, 0.002, 0.003, 0.004, 0.005, 0.006, 0.007, 0.008, 0.009, 0.010,
-		0.0125, 0.015, 0.02, 0.025, 0.03, 0.035, 0.04, 0.05, 0.06}
+// nSeeds is the number of speckle-pattern seeds of the published series
+// figures.
+const nSeeds = 8
+
+// spread is one figure over the seeds: mean and worst.
+type spread struct {
+	sum, worst float64
+	n          int
+}
+
+func (s *spread) add(v float64) {
+	s.sum += v
+	s.worst = math.Max(s.worst, v)
+	s.n++
+}
+
+// check asserts the mean and the worst seed against the figures
+// name+"/mean" and name+"/worst".
+func (s *spread) check(t *testing.T, name string) {
+	t.Helper()
+	if s.n != nSeeds {
+		t.Fatalf("%s: %d seeds measured, want %d", name, s.n, nSeeds)
+	}
+	figures.Check(t, name+"/mean", s.sum/float64(s.n))
+	figures.Check(t, name+"/worst", s.worst)
+}
+
+// tensileRun renders 20 frames (the reference and 19 loaded frames) of a
+// strip stretched along x by the invented law above, with the speckle
+// pattern of the given seed, and returns the tracked curve.
+func tensileRun(t *testing.T, seed int64, strains []float64) Curve {
 	const W, H, cx, cy = 192, 128, 96.0, 64.0
 	var ms []synth.Motion
 	for _, e := range strains {
 		ms = append(ms, law.Motion(e, cx, cy))
 	}
-	ref, imgs := renderFrames(t, W, H, 4, ms, 0)
+	ref, imgs := renderFramesSeed(t, W, H, 4, ms, 0, seed)
 
 	p := Defaults()
 	p.Analysis.Subset, p.Analysis.Step = 21, 8
@@ -103,43 +132,76 @@ func TestMaterialLawSeries(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		ex := fr.Summary.Extensometers
-		t.Logf("frame %2d %-11s axial %.6f (true %.6f, err %+.1e)  width %.6f (true %.6f, err %+.1e)  zncc %.4f",
-			n+1, fr.Summary.Mode, ex[0].Eng, strains[n], ex[0].Eng-strains[n], ex[1].Eng, law.Width(strains[n]), ex[1].Eng-law.Width(strains[n]), fr.Summary.MeanZNCC)
-	}
-	c := tr.Curve()
-	wantYield := law.OffsetYield(lawOff)
-	check := func(source string, pr Properties, tol float64) {
-		if pr.Modulus == nil || pr.Poisson == nil || pr.Yield == nil || pr.R == nil {
-			t.Fatalf("%s: properties missing: %+v", source, pr.Skipped)
+		if seed == 1 {
+			ex := fr.Summary.Extensometers
+			t.Logf("frame %2d %-11s axial %.6f (true %.6f, err %+.1e)  width %.6f (true %.6f, err %+.1e)  zncc %.4f",
+				n+1, fr.Summary.Mode, ex[0].Eng, strains[n], ex[0].Eng-strains[n], ex[1].Eng, law.Width(strains[n]), ex[1].Eng-law.Width(strains[n]), fr.Summary.MeanZNCC)
 		}
-		rel := func(name string, got, want, tol float64) {
-			t.Logf("%s: %s = %.5g, law %.5g (%+.3f %%)", source, name, got, want, 100*(got-want)/want)
-			if math.Abs(got-want) > tol*math.Abs(want) {
-				t.Errorf("%s: %s = %.5g, want %.5g within %.0f %%", source, name, got, want, 100*tol)
+	}
+	return tr.Curve()
+}
+
+// TestMaterialLawSeries tracks the rendered tensile series of tensileRun on
+// 8 speckle patterns and checks the properties against the law: E (ASTM
+// E111), ν (ASTM E132), the 0.2 % offset yield (ASTM E8/E8M) and r (ISO
+// 10113). The offset-yield truth is the closed-form intersection of the
+// offset line σ = E(ε − 0.002) with the hardening branch
+// σ = σ_y + H(ε − σ_y/E). The relative errors from the gauge strains,
+// mean and worst seed, are bounded at about 1.5× their measured values
+// (internal/figures); those from the two-point extensometers, which carry
+// the random error of the few points around their ends, within 2 % (4 %
+// for r), the project's earlier target.
+func TestMaterialLawSeries(t *testing.T) {
+	strains := []float64{0.001, 0.002, 0.003, 0.004, 0.005, 0.006, 0.007, 0.008, 0.009, 0.010,
+		0.0125, 0.015, 0.02, 0.025, 0.03, 0.035, 0.04, 0.05, 0.06}
+	wantYield := law.OffsetYield(lawOff)
+	var errs [4]spread
+	names := []string{"E", "nu", "Rp0.2", "r"}
+	for seed := int64(1); seed <= nSeeds; seed++ {
+		c := tensileRun(t, seed, strains)
+		props := func(source string) [4]float64 {
+			pr := c.Properties()
+			if pr.Modulus == nil || pr.Poisson == nil || pr.Yield == nil || pr.R == nil {
+				t.Fatalf("seed %d %s: properties missing: %+v", seed, source, pr.Skipped)
+			}
+			got := [4]float64{pr.Modulus.E, pr.Poisson.Nu, pr.Yield.Stress, pr.R.R}
+			want := [4]float64{law.E, law.Nu, wantYield, law.R}
+			var rel [4]float64
+			for i := range got {
+				rel[i] = (got[i] - want[i]) / want[i]
+				t.Logf("seed %d %s: %s = %.5g, law %.5g (%+.3f %%)", seed, source, names[i], got[i], want[i], 100*rel[i])
+			}
+			if seed == 1 {
+				for _, l := range pr.Lines() {
+					t.Logf("%s: %s: %s", source, l[0], l[1])
+				}
+			}
+			return rel
+		}
+		for i, r := range props("gauge") {
+			errs[i].add(100 * math.Abs(r))
+		}
+		c.Params.Properties.Axial, c.Params.Properties.Transverse = "axial", "width"
+		for i, r := range props("extensometers") {
+			if tol := map[bool]float64{false: 0.02, true: 0.04}[i == 3]; math.Abs(r) > tol {
+				t.Errorf("seed %d extensometers: %s off by %+.2f %%, want within %.0f %%", seed, names[i], 100*r, 100*tol)
 			}
 		}
-		rel("E", pr.Modulus.E, law.E, tol)
-		rel("nu", pr.Poisson.Nu, law.Nu, tol)
-		rel("Rp0.2", pr.Yield.Stress, wantYield, tol)
-		rel("r", pr.R.R, law.R, 2*tol)
-		for _, l := range pr.Lines() {
-			t.Logf("%s: %s: %s", source, l[0], l[1])
-		}
 	}
-	check("gauge", c.Properties(), 0.01)
-	c.Params.Properties.Axial, c.Params.Properties.Transverse = "axial", "width"
-	check("extensometers", c.Properties(), 0.02)
+	for i, n := range []string{"modulus", "poisson", "yield", "r"} {
+		errs[i].check(t, "tensile/"+n)
+	}
 }
 
 // TestIncrementalLargeStretch stretches a strip to λ = 1.4 in 10 frames
 // (with λ₂ = 1/√λ across) while the image goes gradually out of focus, to
 // a Gaussian blur of σ = 1.6 px on 3 px speckles in the last frame (an
-// invented scenario: a thinning specimen drifting out of the focal plane).
-// Correlation with the sharp reference degrades and finally fails, the
-// tracker goes incremental, every frame stays valid and the final
-// Green–Lagrange strains E11 = ½(λ² − 1) = 0.48 and E22 = ½(λ₂² − 1) are
-// met within 5e-4.
+// invented scenario: a thinning specimen drifting out of the focal plane),
+// on 8 speckle patterns. Correlation with the sharp reference degrades and
+// finally fails, the tracker goes incremental, every frame stays valid,
+// and the errors of the final Green–Lagrange strains against the closed
+// form E11 = ½(λ² − 1) = 0.48 and E22 = ½(λ₂² − 1), mean and worst seed,
+// are bounded at about 1.5× their measured values (internal/figures).
 func TestIncrementalLargeStretch(t *testing.T) {
 	const W, H, cx, cy = 256, 128, 128.0, 64.0
 	const frames = 10
@@ -152,64 +214,69 @@ func TestIncrementalLargeStretch(t *testing.T) {
 		l1, l2 := lam(n)
 		ms = append(ms, synth.Affine{F: [2][2]float64{{l1, 0}, {0, l2}}, CX: cx, CY: cy})
 	}
-	ref, imgs := renderFrames(t, W, H, 3, ms, 1.6)
+	var e11, e22 spread
+	for seed := int64(1); seed <= nSeeds; seed++ {
+		ref, imgs := renderFramesSeed(t, W, H, 3, ms, 1.6, seed+10)
 
-	// The correlation settings of pkg/analysis (cubic, no prefilter): the
-	// defocus low-passes the frames anyway. With the series defaults
-	// (quintic, prefilter) direct correlation copes with more blur, so the
-	// switch comes later and more of the blur-dependent bias of the direct
-	// frames is carried into the composed result. Over pattern seeds 11–14
-	// the final errors measured up to 3.7e-4 in E11 and 1.8e-4 in E22.
-	p := Defaults()
-	p.Analysis = analysis.Defaults()
-	p.Analysis.Subset, p.Analysis.Step = 21, 6
-	r := [4]int{int(cx) - 60, int(cy) - 44, int(cx) + 60, int(cy) + 44}
-	p.Analysis.ROI = roiRect(r)
-	p.Gauges = []Gauge{{Name: "centre", Rect: &[4]float64{cx - 42, cy - 26, cx + 42, cy + 26}, Components: []string{"E11", "E22"}}}
-	p.Extensometers = []Extensometer{{Name: "axial", A: [2]float64{cx - 44, cy}, B: [2]float64{cx + 44, cy}}}
-	tr, err := New(ref, FrameMeta{}, p)
-	if err != nil {
-		t.Fatal(err)
-	}
-	var last *Frame
-	switched := 0
-	for n, im := range imgs {
-		fr, err := tr.Add(context.Background(), im, FrameMeta{})
+		// The correlation settings of pkg/analysis (cubic, no prefilter):
+		// the defocus low-passes the frames anyway. With the series
+		// defaults (quintic, prefilter) direct correlation copes with more
+		// blur, so the switch comes later and more of the blur-dependent
+		// bias of the direct frames is carried into the composed result.
+		p := Defaults()
+		p.Analysis = analysis.Defaults()
+		p.Analysis.Subset, p.Analysis.Step = 21, 6
+		r := [4]int{int(cx) - 60, int(cy) - 44, int(cx) + 60, int(cy) + 44}
+		p.Analysis.ROI = roiRect(r)
+		p.Gauges = []Gauge{{Name: "centre", Rect: &[4]float64{cx - 42, cy - 26, cx + 42, cy + 26}, Components: []string{"E11", "E22"}}}
+		p.Extensometers = []Extensometer{{Name: "axial", A: [2]float64{cx - 44, cy}, B: [2]float64{cx + 44, cy}}}
+		tr, err := New(ref, FrameMeta{}, p)
 		if err != nil {
 			t.Fatal(err)
 		}
-		s := fr.Summary
-		l1, _ := lam(n + 1)
-		t.Logf("frame %2d %-11s tracked %.3f zncc %.4f E11 %.6f (true %.6f) ext %.6f", n+1, s.Mode, s.Tracked, s.MeanZNCC, s.Gauges[0].Mean, (l1*l1-1)/2, s.Extensometers[0].Stretch)
-		if s.Tracked < 0.98 || !s.Extensometers[0].Valid || s.Gauges[0].N == 0 {
-			t.Errorf("frame %d (%s): tracked %.3f, extensometer valid %v, gauge points %d", n+1, s.Mode, s.Tracked, s.Extensometers[0].Valid, s.Gauges[0].N)
+		var last *Frame
+		switched := 0
+		for n, im := range imgs {
+			fr, err := tr.Add(context.Background(), im, FrameMeta{})
+			if err != nil {
+				t.Fatal(err)
+			}
+			s := fr.Summary
+			if seed == 1 {
+				l1, _ := lam(n + 1)
+				t.Logf("frame %2d %-11s tracked %.3f zncc %.4f E11 %.6f (true %.6f) ext %.6f", n+1, s.Mode, s.Tracked, s.MeanZNCC, s.Gauges[0].Mean, (l1*l1-1)/2, s.Extensometers[0].Stretch)
+			}
+			if s.Tracked < 0.98 || !s.Extensometers[0].Valid || s.Gauges[0].N == 0 {
+				t.Errorf("seed %d frame %d (%s): tracked %.3f, extensometer valid %v, gauge points %d", seed, n+1, s.Mode, s.Tracked, s.Extensometers[0].Valid, s.Gauges[0].N)
+			}
+			if s.Mode == ModeIncremental && switched == 0 {
+				switched = n + 1
+			}
+			last = fr
 		}
-		if s.Mode == ModeIncremental && switched == 0 {
-			switched = n + 1
+		if switched == 0 {
+			t.Fatalf("seed %d: the tracker never went incremental", seed)
 		}
-		last = fr
+		l1, l2 := lam(frames)
+		want11, want22 := (l1*l1-1)/2, (l2*l2-1)/2
+		g := last.Summary.Gauges
+		t.Logf("seed %d: switched at frame %d; final E11 %.6f (true %.6f, %+.1e), E22 %.6f (true %.6f, %+.1e)", seed, switched, g[0].Mean, want11, g[0].Mean-want11, g[1].Mean, want22, g[1].Mean-want22)
+		e11.add(math.Abs(g[0].Mean - want11))
+		e22.add(math.Abs(g[1].Mean - want22))
+		// Direct correlation of the last frame with the reference, even
+		// from the tracked solution, fails: that is why the incremental
+		// path exists.
+		d, err := tr.directStep(context.Background(), imgs[frames-1], tr.st.Points, &progress{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		z, tracked := tr.quality(d)
+		if tracked > 0.5 && z > p.SwitchZNCC {
+			t.Errorf("seed %d: direct correlation of the last frame still works (tracked %.2f, ZNCC %.3f); the test does not exercise the incremental path", seed, tracked, z)
+		}
 	}
-	if switched == 0 {
-		t.Fatal("the tracker never went incremental")
-	}
-	l1, l2 := lam(frames)
-	want11, want22 := (l1*l1-1)/2, (l2*l2-1)/2
-	g := last.Summary.Gauges
-	t.Logf("switched at frame %d; final E11 %.6f (true %.6f, %+.1e), E22 %.6f (true %.6f, %+.1e)", switched, g[0].Mean, want11, g[0].Mean-want11, g[1].Mean, want22, g[1].Mean-want22)
-	if math.Abs(g[0].Mean-want11) > 5e-4 || math.Abs(g[1].Mean-want22) > 5e-4 {
-		t.Errorf("final strain E11 %.6f, E22 %.6f; want %.6f, %.6f within 5e-4", g[0].Mean, g[1].Mean, want11, want22)
-	}
-	// Direct correlation of the last frame with the reference, even from
-	// the tracked solution, fails: that is why the incremental path exists.
-	d, err := tr.directStep(context.Background(), imgs[frames-1], tr.st.Points, &progress{})
-	if err != nil {
-		t.Fatal(err)
-	}
-	z, tracked := tr.quality(d)
-	t.Logf("direct correlation of the last frame: tracked %.2f, mean ZNCC %.3f", tracked, z)
-	if tracked > 0.5 && z > p.SwitchZNCC {
-		t.Errorf("direct correlation of the last frame still works (tracked %.2f, ZNCC %.3f); the test does not exercise the incremental path", tracked, z)
-	}
+	e11.check(t, "incremental/E11")
+	e22.check(t, "incremental/E22")
 }
 
 // TestVelocityRendered: a rendered translation at constant velocity
