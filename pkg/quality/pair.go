@@ -1,0 +1,125 @@
+package quality
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"math"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/roi"
+)
+
+// AssessPair assesses a reference and a deformed image over mask (nil =
+// whole image): the reference on its own, the deformed image on its own and
+// against the reference. Errors are those of Measure, naming the image.
+func AssessPair(ref, def *imageio.Gray, mask *roi.Mask, t Thresholds) ([]Report, error) {
+	r, err := Assess(ref, mask, "reference", nil, t)
+	if err != nil {
+		return nil, err
+	}
+	m, err := Measure(ref, mask)
+	if err != nil {
+		return nil, fmt.Errorf("reference image: %w", err)
+	}
+	d, err := Assess(def, mask, "deformed", &m, t)
+	if err != nil {
+		return nil, err
+	}
+	return []Report{r, d}, nil
+}
+
+// Warnings returns the warnings of all reports, in order; an empty (not
+// nil) slice when there are none.
+func Warnings(rs []Report) []Warning {
+	ws := []Warning{}
+	for _, r := range rs {
+		ws = append(ws, r.Warnings...)
+	}
+	return ws
+}
+
+// Recommendation is the subset advice for one image: the automatic subset
+// for a target uncertainty, what it predicts and the spatial resolution it
+// gives.
+type Recommendation struct {
+	// TargetStd is the displacement standard deviation aimed at, px, and
+	// Fraction the share of points that must meet it.
+	TargetStd float64 `json:"target_std_px"`
+	Fraction  float64 `json:"fraction"`
+	// Noise is the noise σ used, grey levels, and NoiseSource where it came
+	// from: "given" or "image" (NoiseFromImage, a rougher estimate than a
+	// static pair).
+	Noise       float64 `json:"noise_sigma"`
+	NoiseSource string  `json:"noise_source"`
+	// SubsetPx is the recommended subset, 0 when the target cannot be met
+	// with a subset up to MaxSubsetPx; then Problem says what would work.
+	SubsetPx    int    `json:"subset_px"`
+	MaxSubsetPx int    `json:"max_subset_px"`
+	Problem     string `json:"problem,omitempty"`
+	// PredictedStdPx is the predicted displacement std reached by Fraction
+	// of the points with SubsetPx, MedianStdPx its median.
+	PredictedStdPx float64 `json:"predicted_std_px"`
+	MedianStdPx    float64 `json:"median_std_px"`
+	// StepPx is the step the spatial resolution is given for (a third of
+	// the subset unless one was asked for; common practice), StrainWindow
+	// the strain window in points, and VSGPx the virtual strain gauge
+	// (StrainWindow − 1)·StepPx + SubsetPx.
+	StepPx       int `json:"step_px"`
+	StrainWindow int `json:"strain_window"`
+	VSGPx        int `json:"vsg_px"`
+}
+
+// Recommend chooses the subset for g (the reference image) to meet target
+// px at fraction of the points (0 = DefaultFraction), with the noise σ
+// given or, when noise is 0, estimated from g alone. step (0 = a third of
+// the chosen subset) and window give the virtual strain gauge. An
+// unreachable target is not an error: the Recommendation says so in
+// Problem. Errors: invalid inputs, an image too small or flat, ctx
+// cancelled.
+func Recommend(ctx context.Context, g *imageio.Gray, mask *roi.Mask, target, noise, fraction float64, step, window int) (*Recommendation, error) {
+	if fraction == 0 {
+		fraction = DefaultFraction
+	}
+	if window < 1 || window%2 == 0 {
+		return nil, fmt.Errorf("automatic subset: strain window %d points: want an odd number ≥ 1 (5 is typical)", window)
+	}
+	r := &Recommendation{TargetStd: target, Fraction: fraction, Noise: noise, NoiseSource: "given",
+		MaxSubsetPx: DefaultMaxSub, StrainWindow: window}
+	if noise == 0 {
+		s, err := NoiseFromImage(g, mask)
+		if err != nil {
+			return nil, fmt.Errorf("automatic subset: %w", err)
+		}
+		if !(s > 0) {
+			return nil, fmt.Errorf("automatic subset: the image shows no noise (σ = %g); give the noise σ of the camera, e.g. from a static pair", s)
+		}
+		r.Noise, r.NoiseSource = s, "image"
+	}
+	c, err := ChooseSubset(ctx, g, SubsetOptions{Target: target, Noise: r.Noise, Fraction: fraction, Mask: mask,
+		Max: min(DefaultMaxSub, oddBelow(min(g.W, g.H)))})
+	switch {
+	case errors.Is(err, ErrUnreachable):
+		r.Problem = err.Error()
+		r.MaxSubsetPx = c.Sizes[len(c.Sizes)-1]
+		return r, nil
+	case err != nil:
+		return nil, err
+	}
+	r.MaxSubsetPx = c.Sizes[len(c.Sizes)-1]
+	r.SubsetPx, r.PredictedStdPx, r.MedianStdPx = c.Subset, c.Predicted, c.Median
+	r.StepPx = step
+	if step <= 0 {
+		r.StepPx = max(1, int(math.Round(float64(c.Subset)/3)))
+	}
+	r.VSGPx = VSG(r.SubsetPx, r.StepPx, window)
+	return r, nil
+}
+
+// oddBelow returns the largest odd number ≤ n, at least DefaultMinSub.
+func oddBelow(n int) int {
+	if n%2 == 0 {
+		n--
+	}
+	return max(n, DefaultMinSub)
+}
