@@ -4,6 +4,11 @@ package web_test
 // 127.0.0.1 with a temporary data directory, driven through Debian's
 // Chromium with chromedp.
 //
+// The cancel step runs in a second tab against a server in this process
+// whose analyzer holds the job until it is canceled (see checkCancel).
+// Every console error and failed request fails the test unless the
+// test's allow-list names it with a reason (previewAllowed).
+//
 // Screenshots are written to $MOTTLE_ARTIFACTS (default: a temporary
 // directory), whose path the test logs. Set MOTTLE_PREVIEW_URL to run the
 // test against a server that is already running instead of building one.
@@ -14,25 +19,35 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"io"
+	"log/slog"
 	"math"
 	"mime/multipart"
 	"net"
 	"net/http"
+	"net/http/httptest"
 	"net/textproto"
 	"os"
 	"os/exec"
 	"path/filepath"
+	"regexp"
 	"strings"
 	"sync"
 	"testing"
 	"time"
 
 	"github.com/chromedp/cdproto/input"
+	cdplog "github.com/chromedp/cdproto/log"
+	"github.com/chromedp/cdproto/network"
+	"github.com/chromedp/cdproto/runtime"
 	"github.com/chromedp/chromedp"
 	"github.com/chromedp/chromedp/kb"
 
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/service"
+	"github.com/mottledic/mottle/pkg/service/embedded"
 	"github.com/mottledic/mottle/pkg/synth"
+	"github.com/mottledic/mottle/web"
 )
 
 // chromium is Debian's Chromium, installed by .ci/run.
@@ -48,19 +63,19 @@ func TestBrowserPreview(t *testing.T) {
 		base = startServer(t)
 	}
 	ctx := newBrowser(t)
-	b := &browser{t: t, ctx: ctx, art: art, start: time.Now()}
+	b := newPage(t, ctx, art, previewAllowed)
 
 	// Each step below depends on the one before, so they run in order on
 	// one page and the first failure stops the test.
 	b.run("load the page", chromedp.Navigate(base+"/"), chromedp.WaitVisible(chromedp.ID("btn-demo")))
-	b.wait(`document.body.dataset.ready === "true"`, 10*time.Second, "the page's script did not start")
+	b.wait(`document.body.dataset.ready === "true"`, "the page's script did not start")
 
 	b.step("colour maps against CIELAB and CIEDE2000 (scikit-image)")
 	checkColourMaps(b)
 
 	b.step("run the demo")
 	b.run("click the demo button", chromedp.Click(chromedp.ID("btn-demo")))
-	b.waitResult(90 * time.Second)
+	b.waitResult()
 	b.shot("demo-page.png", "")
 	b.shot("demo-map.png", "#map-canvas")
 	checkMapDrawn(b)
@@ -94,7 +109,7 @@ func TestBrowserPreview(t *testing.T) {
 	b.run("choose the line tool", chromedp.Click(chromedp.CSS(`input[name=tool][value=line]`)))
 	x0, y0, x1, y1 := b.fieldSpan()
 	b.drag(x0, y0, x1, y1)
-	b.wait(`+document.getElementById("profile-text").dataset.count > 10`, 10*time.Second, "no profile was plotted after dragging a line across the map")
+	b.wait(`+document.getElementById("profile-text").dataset.count > 10`, "no profile was plotted after dragging a line across the map")
 	if n := b.number(`distinctColours(document.getElementById("profile-canvas"))`); n < 3 {
 		t.Errorf("profile plot has %v colours, want a drawn plot", n)
 	}
@@ -134,23 +149,35 @@ func TestBrowserPreview(t *testing.T) {
 		const dt = new DataTransfer(); dt.items.add(file);
 		document.getElementById('drop-deformed').dispatchEvent(new DragEvent('drop', {dataTransfer: dt, bubbles: true, cancelable: true}));
 	})()`))
-	b.wait(`/dropped\.png.*40 × 30 px/.test(document.getElementById("info-deformed").textContent)`, 10*time.Second, "the dropped file was not taken")
+	b.wait(`/dropped\.png.*40 × 30 px/.test(document.getElementById("info-deformed").textContent)`, "the dropped file was not taken")
 
 	b.step("progress from server-sent events, and cancel")
-	checkCancel(b)
+	checkCancel(b, startHoldingServer(t))
 
 	b.step("a bad upload shows a readable error")
 	checkBadUpload(b)
 
 	b.step("reopen an earlier result from the list")
-	b.wait(`document.getElementById("recent").options.length >= 3`, 10*time.Second, "the earlier results are not listed")
+	b.wait(`document.getElementById("recent").options.length >= 3`, "the earlier results are not listed")
 	b.run("open the newest earlier result", eval(`document.body.dataset.result = ""`),
 		setValue("#recent", b.str(`document.getElementById("recent").options[1].value`)))
-	b.waitResult(20 * time.Second)
+	b.waitResult()
 	checkMapDrawn(b)
 
 	b.step("a series: frame slider and curve")
 	checkSeries(b, base)
+	b.finish()
+}
+
+// previewAllowed are the console errors and failed requests that
+// TestBrowserPreview causes on purpose; any other fails the test.
+var previewAllowed = []allowance{
+	{regexp.MustCompile(`^request POST \S+/v1/images/inspect: 415 `),
+		"checkBadUpload chooses a text file as the reference: the page sends it for inspection (as it does every chosen file) and the service answers 415 with a problem document"},
+	{regexp.MustCompile(`^request POST \S+/v1/analyses: 415 `),
+		"checkBadUpload runs the text file: the service answers 415 with a problem document, which the page shows"},
+	{regexp.MustCompile(`^console error \(network\): Failed to load resource: the server responded with a status of 415 \(Unsupported Media Type\) \S+/v1/(images/inspect|analyses)$`),
+		"Chromium logs each of the two 415 answers of checkBadUpload as a failed resource"},
 }
 
 // checkSeries creates a series through the API, appends three frames of a
@@ -216,7 +243,7 @@ func checkSeries(b *browser, base string) {
 	}
 	b.step("series: frames appended")
 	b.run("open the series", setValue("#series-id", sr.ID), chromedp.Click(chromedp.ID("btn-series")))
-	b.wait(`/frame \d/.test(document.getElementById("results-source").textContent) && document.getElementById("curve-y").options.length > 0`, 30*time.Second, "the series did not open")
+	b.wait(`/frame \d/.test(document.getElementById("results-source").textContent) && document.getElementById("curve-y").options.length > 0`, "the series did not open")
 	b.step("series: opened")
 	b.run("plot mean E11 against load", setValue("#curve-y", "mean E11"), setValue("#curve-x", "load"))
 	if got := b.text("#curve-text"); !strings.Contains(got, "3 of 3 frames") {
@@ -234,7 +261,7 @@ func checkSeries(b *browser, base string) {
 	b.shot("series.png", "#series")
 	b.step("series: curve checked")
 	b.run("go to the first frame", setValue("#frame-slider", "0"))
-	b.wait(`/frame 0/.test(document.getElementById("results-source").textContent)`, 10*time.Second, "the slider did not show frame 0")
+	b.wait(`/frame 0/.test(document.getElementById("results-source").textContent)`, "the slider did not show frame 0")
 	checkMapDrawn(b)
 }
 
@@ -290,7 +317,7 @@ func checkKnownStretch(b *browser) {
 	b.run("choose the stretch pair",
 		chromedp.SetUploadFiles(chromedp.ID("file-reference"), []string{refPath}),
 		chromedp.SetUploadFiles(chromedp.ID("file-deformed"), []string{defPath}))
-	b.wait(`/192 × 160 px/.test(document.getElementById("info-deformed").textContent) && /192 × 160 px/.test(document.getElementById("info-reference").textContent)`, 10*time.Second, "the chosen files were not read")
+	b.wait(`/192 × 160 px/.test(document.getElementById("info-deformed").textContent) && /192 × 160 px/.test(document.getElementById("info-reference").textContent)`, "the chosen files were not read")
 	// The speckle size is measured in the browser from the autocorrelation;
 	// for discs at 50 % cover its half-height width is 0.6–0.85 of the disc
 	// diameter (derived from the overlap area of two discs), so accept a
@@ -340,7 +367,7 @@ func checkKnownStretch(b *browser) {
 	b.run("set the parameters",
 		setValue("#p-subset", "21"), setValue("#p-step", "8"), setValue("#p-window", "5"))
 	b.run("run", eval(`document.body.dataset.result = ""`), chromedp.Click(chromedp.ID("btn-run")))
-	b.waitResult(60 * time.Second)
+	b.waitResult()
 	b.shot("stretch-map.png", "#map-canvas")
 	// Every measured point's subset must lie inside the drawn rectangle,
 	// so the region reached the service.
@@ -413,8 +440,7 @@ func checkTIFFPair(b *browser) {
 	b.run("choose the TIFF pair",
 		chromedp.SetUploadFiles(chromedp.ID("file-reference"), []string{refPath}),
 		chromedp.SetUploadFiles(chromedp.ID("file-deformed"), []string{defPath}))
-	b.wait(`/stretch16_def.*176 × 144 px/.test(document.getElementById("info-deformed").textContent) && /stretch16_ref.*176 × 144 px.*16-bit/.test(document.getElementById("info-reference").textContent)`,
-		15*time.Second, "the TIFF files were not previewed")
+	b.wait(`/stretch16_def.*176 × 144 px/.test(document.getElementById("info-deformed").textContent) && /stretch16_ref.*176 × 144 px.*16-bit/.test(document.getElementById("info-reference").textContent)`, "the TIFF files were not previewed")
 	// The preview: a 12-bit image shown unstretched would be nearly black
 	// (levels up to 4095 of 65535); stretched it spans the grey range.
 	b.run("scroll to the region editor", eval(`document.getElementById("roi-canvas").scrollIntoView({block: "center"})`))
@@ -443,7 +469,7 @@ func checkTIFFPair(b *browser) {
 	b.run("whole image, and run", chromedp.Click(chromedp.ID("btn-roi-clear")),
 		setValue("#p-subset", "21"), setValue("#p-step", "8"), setValue("#p-window", "5"),
 		eval(`document.body.dataset.result = ""`), chromedp.Click(chromedp.ID("btn-run")))
-	b.waitResult(60 * time.Second)
+	b.waitResult()
 	checkMapDrawn(b)
 	b.shot("tiff-map.png", "#map-canvas")
 	if wh := b.str(`mottlePreview.state.job.width + "x" + mottlePreview.state.job.height`); wh != "176x144" {
@@ -457,12 +483,22 @@ func checkTIFFPair(b *browser) {
 	}
 }
 
-// checkCancel starts an analysis large enough to run for a few seconds,
-// waits for progress to arrive as server-sent events and cancels it.
-func checkCancel(b *browser) {
-	t := b.t
+// checkCancel starts an analysis in a second tab of the page, served by
+// a server in this process (base) that holds a 384×384 analysis after its
+// first progress report until it is canceled, waits for that progress to
+// arrive as server-sent events and cancels it. The job is certainly
+// running when the cancel button is pressed, however fast the machine.
+func checkCancel(b0 *browser, base string) {
+	t := b0.t
 	t.Helper()
-	const w, h = 384, 384
+	tab, closeTab := chromedp.NewContext(b0.ctx)
+	defer closeTab()
+	b := newPage(t, tab, b0.art, nil)
+	b.n = b0.n
+	defer func() { b0.n = b.n }()
+	b.run("open the page of the holding server", chromedp.Navigate(base+"/"), chromedp.WaitVisible(chromedp.ID("btn-run")))
+	b.wait(`document.body.dataset.ready === "true"`, "the page's script did not start")
+	const w, h = holdSize, holdSize
 	m := synth.Affine{F: [2][2]float64{{1.002, 0}, {0, 1}}, CX: w / 2, CY: h / 2}
 	ref, def, err := synth.Pair(synth.PatternOptions{Diameter: 4, Seed: 3}, m, synth.RenderOptions{W: w, H: h, Bits: 8, Supersample: 2})
 	if err != nil {
@@ -478,20 +514,71 @@ func checkCancel(b *browser) {
 	b.run("choose a large pair",
 		chromedp.SetUploadFiles(chromedp.ID("file-reference"), []string{refPath}),
 		chromedp.SetUploadFiles(chromedp.ID("file-deformed"), []string{defPath}))
-	b.wait(`/384 × 384 px/.test(document.getElementById("info-deformed").textContent) && /384 × 384 px/.test(document.getElementById("info-reference").textContent)`, 10*time.Second, "the chosen files were not read")
+	b.wait(`/384 × 384 px/.test(document.getElementById("info-deformed").textContent) && /384 × 384 px/.test(document.getElementById("info-reference").textContent)`, "the chosen files were not read")
 	b.run("dense grid, whole image, and run",
 		chromedp.Click(chromedp.ID("btn-roi-clear")),
 		setValue("#p-subset", "21"), setValue("#p-step", "1"),
 		eval(`mottlePreview.state.events = 0`),
 		chromedp.Click(chromedp.ID("btn-run")))
-	b.wait(`mottlePreview.state.events > 0 && /running .*\([1-9][0-9]* of/.test(document.getElementById("progress-text").textContent)`, 30*time.Second, "no progress arrived as server-sent events")
+	b.wait(`mottlePreview.state.events > 0 && /running .*\([1-9][0-9]* of/.test(document.getElementById("progress-text").textContent)`, "no progress arrived as server-sent events")
 	b.shot("progress.png", ".run-row + .progress-row")
 	b.run("cancel", chromedp.Click(chromedp.ID("btn-cancel")))
-	b.wait(`/^canceled/.test(document.getElementById("progress-text").textContent)`, 30*time.Second, "the analysis was not canceled")
+	b.wait(`/^canceled/.test(document.getElementById("progress-text").textContent)`, "the analysis was not canceled")
 	if ok := b.str(`document.getElementById("btn-run").disabled ? "disabled" : "enabled"`); ok != "enabled" {
 		t.Errorf("after cancel the run button is %s", ok)
 	}
-	b.run("back to a sparse grid", setValue("#p-step", "8"))
+	b.finish()
+}
+
+// holdSize is the width and height of the analysis that the holding
+// server of checkCancel holds.
+const holdSize = 384
+
+// holdingAnalyzer is the real pipeline, except that an analysis of a
+// holdSize×holdSize pair stops at its first progress report (done > 0)
+// until its context ends (the job is canceled). Progress reports of 0
+// done are not passed on, so that the report held is the one the service
+// records and sends.
+type holdingAnalyzer struct{ service.Pipeline }
+
+func (a holdingAnalyzer) Run(ctx context.Context, in service.Input, progress func(done, total int)) (*service.Result, error) {
+	if in.Ref.W != holdSize || in.Ref.H != holdSize {
+		return a.Pipeline.Run(ctx, in, progress)
+	}
+	var once sync.Once
+	return a.Pipeline.Run(ctx, in, func(done, total int) {
+		if done == 0 {
+			return
+		}
+		progress(done, total)
+		once.Do(func() { <-ctx.Done() })
+	})
+}
+
+// startHoldingServer serves the preview and the API from this process on
+// a fresh embedded backend with holdingAnalyzer, and returns its base URL.
+func startHoldingServer(t *testing.T) string {
+	t.Helper()
+	be, err := embedded.Open(t.TempDir(), 8)
+	if err != nil {
+		t.Fatal(err)
+	}
+	srv, err := service.New(service.Config{Backend: be, Analyzer: holdingAnalyzer{}, Workers: 1, UI: web.Assets(),
+		ShutdownGrace: time.Second, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	stop, err := srv.Start(context.Background())
+	if err != nil {
+		t.Fatal(err)
+	}
+	hs := httptest.NewServer(srv.Handler())
+	t.Cleanup(func() {
+		hs.Close()
+		stop()
+		be.Close()
+	})
+	return hs.URL
 }
 
 // checkColourMaps takes the page's colour tables and checks them with
@@ -640,9 +727,9 @@ func checkBadUpload(b *browser) {
 		t.Fatal(err)
 	}
 	b.run("choose a broken reference", chromedp.SetUploadFiles(chromedp.ID("file-reference"), []string{bad}))
-	b.wait(`/not_an_image/.test(document.getElementById("info-reference").textContent)`, 10*time.Second, "the broken file was not taken")
+	b.wait(`/not_an_image/.test(document.getElementById("info-reference").textContent)`, "the broken file was not taken")
 	b.run("run", chromedp.Click(chromedp.ID("btn-run")))
-	b.wait(`!document.getElementById("error-box").hidden`, 20*time.Second, "no error was shown for a broken upload")
+	b.wait(`!document.getElementById("error-box").hidden`, "no error was shown for a broken upload")
 	title := b.text("#error-box h2")
 	text := b.text("#error-box")
 	b.shot("bad-upload.png", "#error-box")
@@ -659,20 +746,67 @@ func checkBadUpload(b *browser) {
 type browser struct {
 	t     *testing.T
 	ctx   context.Context
+	end   time.Time // testDeadline: bounds every wait and action
 	art   string
 	n     int
 	start time.Time
+	w     *pageWatch
 }
 
-// step logs the start of a step with the time since the test began.
+// newPage returns a browser for the tab of ctx that fails the test on
+// any console error or failed request not in allow.
+func newPage(t *testing.T, ctx context.Context, art string, allow []allowance) *browser {
+	t.Helper()
+	w, err := watchPage(ctx, allow)
+	if err != nil {
+		t.Fatalf("listen to the page: %v", err)
+	}
+	return &browser{t: t, ctx: ctx, end: testDeadline(t), art: art, start: time.Now(), w: w}
+}
+
+// step logs the start of a step with the time since the test began,
+// after reporting the console errors and failed requests of the steps
+// before.
 func (b *browser) step(what string) {
 	b.t.Helper()
+	b.check()
 	b.t.Logf("%5.1f s  %s", time.Since(b.start).Seconds(), what)
+	b.w.setStep(what)
+}
+
+// check fails the test for every console error and failed request seen
+// so far that the allow-list does not explain. An evaluation in the page
+// first makes sure that the events the page sent before it have been read
+// (chromedp.Listen sees an event before the reply that follows it).
+func (b *browser) check() {
+	b.t.Helper()
+	ctx, cancel := context.WithDeadline(b.ctx, b.end)
+	defer cancel()
+	_, _ = chromedp.Run(ctx, chromedp.Evaluate[bool](`true`))
+	for _, p := range b.w.take() {
+		if p.allowed != nil {
+			b.t.Logf("expected in step %q: %s (%s)", p.step, p.text, p.allowed.reason)
+			continue
+		}
+		b.t.Errorf("unexpected in step %q: %s", p.step, p.text)
+	}
+}
+
+// finish checks the last step and that every allowance was used.
+func (b *browser) finish() {
+	b.t.Helper()
+	b.check()
+	if b.t.Failed() {
+		return
+	}
+	for _, a := range b.w.unused() {
+		b.t.Errorf("allow-list entry %q (%s) matched nothing: the page no longer does it, remove the entry", a.re, a.reason)
+	}
 }
 
 func (b *browser) run(what string, actions ...chromedp.Action[chromedp.Void]) {
 	b.t.Helper()
-	ctx, cancel := context.WithTimeout(b.ctx, 30*time.Second)
+	ctx, cancel := context.WithDeadline(b.ctx, b.end)
 	defer cancel()
 	if err := chromedp.Do(ctx, actions...); err != nil {
 		b.shot("failure.png", "")
@@ -680,20 +814,22 @@ func (b *browser) run(what string, actions ...chromedp.Action[chromedp.Void]) {
 	}
 }
 
-// wait polls the JavaScript condition cond until it is true.
-func (b *browser) wait(cond string, d time.Duration, msg string) {
+// wait polls the JavaScript condition cond until it is true (until the
+// end of the test's time at most).
+func (b *browser) wait(cond string, msg string) {
 	b.t.Helper()
-	ctx, cancel := context.WithTimeout(b.ctx, d)
+	ctx, cancel := context.WithDeadline(b.ctx, b.end)
 	defer cancel()
 	_, err := chromedp.Run(ctx, chromedp.Poll[bool](cond, chromedp.WithPollingInterval(100*time.Millisecond)))
 	if err != nil {
 		errText, _ := chromedp.Run(b.ctx, chromedp.Evaluate[string](`document.getElementById("error-box").innerText + " | " + document.getElementById("progress-text").textContent`))
 		b.shot("failure.png", "")
-		b.t.Fatalf("%s after %v (%v); page says: %q", msg, d, err, errText)
+		b.t.Fatalf("%s (%v); page says: %q", msg, err, errText)
 	}
 }
 
-// tryWait reports whether cond becomes true within d.
+// tryWait reports whether cond becomes true within d; it is only used to
+// decide whether to repeat an action, never to fail.
 func (b *browser) tryWait(cond string, d time.Duration) bool {
 	ctx, cancel := context.WithTimeout(b.ctx, d)
 	defer cancel()
@@ -702,9 +838,9 @@ func (b *browser) tryWait(cond string, d time.Duration) bool {
 }
 
 // waitResult waits until a result is shown, failing early on an error box.
-func (b *browser) waitResult(d time.Duration) {
+func (b *browser) waitResult() {
 	b.t.Helper()
-	b.wait(`document.body.dataset.result === "ready" || !document.getElementById("error-box").hidden`, d, "no result shown")
+	b.wait(`document.body.dataset.result === "ready" || !document.getElementById("error-box").hidden`, "no result shown")
 	errText := b.str(`document.getElementById("error-box").hidden ? "" : document.getElementById("error-box").innerText`)
 	if errText != "" {
 		b.shot("failure.png", "")
@@ -715,7 +851,7 @@ func (b *browser) waitResult(d time.Duration) {
 // value evaluates expr in the page and decodes its JSON value.
 func value[T any](b *browser, expr string) T {
 	b.t.Helper()
-	ctx, cancel := context.WithTimeout(b.ctx, 30*time.Second)
+	ctx, cancel := context.WithDeadline(b.ctx, b.end)
 	defer cancel()
 	v, err := chromedp.Run(ctx, chromedp.Evaluate[T](helpers+expr))
 	if err != nil {
@@ -798,7 +934,7 @@ func (b *browser) hover(k int) map[string]float64 {
 		p := value[[]float64](b, fmt.Sprintf(`(() => { const f = mottlePreview.view.field; return mottlePreview.toClient(f.X[%d], f.Y[%d]); })()`, k, k))
 		b.run("hover", chromedp.MouseEvent(input.DispatchMouseEventTypeMouseMoved, p[0]-3, p[1]-3), chromedp.MouseEvent(input.DispatchMouseEventTypeMouseMoved, p[0], p[1]))
 		if attempt == 2 {
-			b.wait(want, 5*time.Second, "the read-out did not follow the pointer")
+			b.wait(want, "the read-out did not follow the pointer")
 			break
 		}
 		if b.tryWait(want, time.Second) {
@@ -909,36 +1045,147 @@ func newBrowser(t *testing.T) context.Context {
 	if err := chromedp.Do(ctx); err != nil {
 		t.Fatalf("start %s: %v", chromium, err)
 	}
-	// Uncaught exceptions fail the test; console errors are logged.
-	msgs := chromedp.Console(ctx)
-	done := make(chan struct{})
-	var mu sync.Mutex
-	var exceptions []string
-	go func() {
-		defer close(done)
-		for m, err := range msgs {
-			if err != nil {
-				return
+	return ctx
+}
+
+// allowance is an entry of a test's allow-list: a console error or failed
+// request (matched on its text, see pageWatch) that the test causes on
+// purpose, with the reason.
+type allowance struct {
+	re     *regexp.Regexp
+	reason string
+}
+
+// pageProblem is a console error or failed request seen on a page.
+type pageProblem struct {
+	step, text string
+	allowed    *allowance
+}
+
+// pageWatch collects, for one tab, every uncaught exception, console
+// error (console.error and console.assert calls, and error entries of
+// the browser log) and failed request (an answer of status 400 or more,
+// or a request that failed without one, except those the page itself
+// aborted). Their texts read "exception: …", "console error (source): …"
+// and "request METHOD URL: status text" or "request METHOD URL: failed:
+// net error".
+type pageWatch struct {
+	allow []allowance
+
+	mu       sync.Mutex
+	step     string
+	problems []pageProblem
+	used     map[int]bool
+	requests map[network.RequestID]string // "METHOD URL" of each request
+}
+
+// watchPage starts collecting the problems of the tab of ctx.
+func watchPage(ctx context.Context, allow []allowance) (*pageWatch, error) {
+	w := &pageWatch{allow: allow, step: "open the page", used: map[int]bool{}, requests: map[network.RequestID]string{}}
+	err := chromedp.Listen(ctx, func(ev any) {
+		switch e := ev.(type) {
+		case *network.EventRequestWillBeSent:
+			w.mu.Lock()
+			w.requests[e.RequestID] = e.Request.Method + " " + e.Request.URL
+			w.mu.Unlock()
+		case *network.EventResponseReceived:
+			if e.Response.Status >= 400 {
+				w.add(fmt.Sprintf("request %s: %d %s", w.request(e.RequestID, e.Response.URL), e.Response.Status, e.Response.StatusText))
 			}
-			mu.Lock()
-			if m.IsException() || m.Type == chromedp.ConsoleError {
-				exceptions = append(exceptions, m.String())
+		case *network.EventLoadingFailed:
+			if !e.Canceled {
+				w.add(fmt.Sprintf("request %s: failed: %s", w.request(e.RequestID, ""), e.ErrorText))
 			}
-			mu.Unlock()
-		}
-	}()
-	t.Cleanup(func() {
-		mu.Lock()
-		defer mu.Unlock()
-		for _, e := range exceptions {
-			if strings.HasPrefix(e, string(chromedp.ConsoleException)) {
-				t.Errorf("JavaScript %s", e)
-			} else {
-				t.Logf("JavaScript %s", e)
+		case *runtime.EventExceptionThrown:
+			d := e.ExceptionDetails
+			text := d.Text
+			if d.Exception != nil {
+				text += " " + d.Exception.Description
+			}
+			w.add(fmt.Sprintf("exception: %s (%s:%d)", text, d.URL, d.LineNumber))
+		case *runtime.EventConsoleAPICalled:
+			if e.Type == runtime.ConsoleAPICalledTypeError || e.Type == runtime.ConsoleAPICalledTypeAssert {
+				var parts []string
+				for _, a := range e.Args {
+					if a.Description != "" {
+						parts = append(parts, a.Description)
+					} else {
+						parts = append(parts, strings.Trim(string(a.Value), `"`))
+					}
+				}
+				w.add(fmt.Sprintf("console %s: %s", e.Type, strings.Join(parts, " ")))
+			}
+		case *cdplog.EventEntryAdded:
+			if e.Entry.Level == cdplog.EntryLevelError {
+				w.add(fmt.Sprintf("console error (%s): %s %s", e.Entry.Source, e.Entry.Text, e.Entry.URL))
 			}
 		}
 	})
-	return ctx
+	return w, err
+}
+
+func (w *pageWatch) request(id network.RequestID, url string) string {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	if r, ok := w.requests[id]; ok {
+		return r
+	}
+	return "? " + url
+}
+
+func (w *pageWatch) add(text string) {
+	text = strings.TrimSpace(text)
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	p := pageProblem{step: w.step, text: text}
+	for i := range w.allow {
+		if w.allow[i].re.MatchString(text) {
+			p.allowed = &w.allow[i]
+			w.used[i] = true
+			break
+		}
+	}
+	w.problems = append(w.problems, p)
+}
+
+func (w *pageWatch) setStep(s string) {
+	w.mu.Lock()
+	w.step = s
+	w.mu.Unlock()
+}
+
+// take returns the problems seen since the last call.
+func (w *pageWatch) take() []pageProblem {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	p := w.problems
+	w.problems = nil
+	return p
+}
+
+// unused returns the allowances that matched nothing.
+func (w *pageWatch) unused() []allowance {
+	w.mu.Lock()
+	defer w.mu.Unlock()
+	var out []allowance
+	for i, a := range w.allow {
+		if !w.used[i] {
+			out = append(out, a)
+		}
+	}
+	return out
+}
+
+// testDeadline is a little before the test binary's -timeout would stop
+// the test (20 minutes from now when there is none). Waits are for events
+// in the page, never for a time: this bound only turns a hang into a
+// failure with a message, and is never reached because the machine is
+// slow.
+func testDeadline(t *testing.T) time.Time {
+	if d, ok := t.Deadline(); ok {
+		return d.Add(-time.Until(d) / 20)
+	}
+	return time.Now().Add(20 * time.Minute)
 }
 
 // startServer builds cmd/mottle, starts `mottle serve` on a free port of
@@ -979,7 +1226,8 @@ func startServer(t *testing.T) string {
 		}
 	})
 	base := "http://" + addr
-	deadline := time.Now().Add(30 * time.Second)
+	end, cancel := context.WithDeadline(context.Background(), testDeadline(t))
+	defer cancel()
 	for {
 		select {
 		case err := <-exited:
@@ -994,10 +1242,11 @@ func startServer(t *testing.T) string {
 			}
 			err = errors.New(resp.Status)
 		}
-		if time.Now().After(deadline) {
-			t.Fatalf("mottle serve not ready at %s after 30 s: %v\n%s", base, err, logs.String())
+		select {
+		case <-end.Done():
+			t.Fatalf("mottle serve not ready at %s at the end of the test's time: %v\n%s", base, err, logs.String())
+		case <-time.After(100 * time.Millisecond):
 		}
-		time.Sleep(100 * time.Millisecond)
 	}
 }
 

@@ -24,7 +24,10 @@
 //
 // The browser test (browser_test.go) builds cmd/mottle, starts `mottle
 // serve` on 127.0.0.1 and drives Debian's Chromium (/usr/bin/chromium)
-// with chromedp; screenshots go to $MOTTLE_ARTIFACTS.
+// with chromedp (the cancel step uses a server in the test process that
+// holds its job until it is canceled); screenshots go to
+// $MOTTLE_ARTIFACTS. Any console error or failed request that the test
+// does not list as expected fails it.
 package web
 
 import (
