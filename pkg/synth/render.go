@@ -158,13 +158,25 @@ func Render(p *Pattern, m Motion, o RenderOptions) (*imageio.Gray, Report, error
 	if p == nil {
 		return nil, Report{}, errors.New("render: nil pattern")
 	}
+	if m == nil {
+		m = Identity{}
+	}
+	return render(p, m, o)
+}
+
+// inverter is what render needs of a motion: the reference point seen at
+// an image point.
+type inverter interface {
+	Inverse(x, y float64) (X, Y float64, err error)
+}
+
+// render is Render for any surface and any inverse mapping (a motion, or a
+// camera view; see RenderView).
+func render(p Surface, m inverter, o RenderOptions) (*imageio.Gray, Report, error) {
 	if err := o.Validate(); err != nil {
 		return nil, Report{}, err
 	}
 	o = o.withDefaults()
-	if m == nil {
-		m = Identity{}
-	}
 	margin := 0
 	var kernel []float64
 	if o.Blur > 0 {
