@@ -233,6 +233,28 @@ func foreshortening(pts []Observation) (float64, error) {
 // not drawn toward pixel centres.
 const refineSigma = 1.5
 
+// gridTilt rejects a grid (grid positions → image positions) whose
+// foreshortening says it is tilted more than o.MaxTilt; the grid indices
+// stand in for plane coordinates, which only differ by a rotation and scale.
+func gridTilt(pos map[[2]int][2]float64, o DetectOptions) error {
+	if len(pos) < 4 {
+		return nil
+	}
+	var pts []Observation
+	for _, key := range sortedKeys(pos) {
+		p := pos[key]
+		pts = append(pts, Observation{Feature: Feature{X: float64(key[0]), Y: float64(key[1])}, Px: p[0], Py: p[1]})
+	}
+	tilt, err := foreshortening(pts)
+	if err != nil {
+		return err
+	}
+	if tilt > o.MaxTilt {
+		return reject(TooOblique, "the target is tilted about %.0f° from square-on; keep it within %.0f°", tilt, o.MaxTilt)
+	}
+	return nil
+}
+
 // candidate is a feature candidate: position and strength.
 type candidate struct {
 	x, y, s float64
@@ -314,6 +336,9 @@ func detectChecker(img gridImg, t *Target, o DetectOptions) (*Detection, error) 
 		if ok {
 			pos[key] = [2]float64{x, y}
 		}
+	}
+	if err := gridTilt(pos, o); err != nil {
+		return nil, err
 	}
 	// Marker cells: dark body, light centre.
 	type cell struct {

@@ -127,6 +127,13 @@ func detectDots(img gridImg, t *Target, o DetectOptions) (*Detection, error) {
 	if err != nil {
 		return nil, err
 	}
+	pos := map[[2]int][2]float64{}
+	for key, k := range grid {
+		pos[key] = [2]float64{cands[k].x, cands[k].y}
+	}
+	if err := gridTilt(pos, o); err != nil {
+		return nil, err
+	}
 	// Marker dots: area over 1.5 times the median of their grid neighbours.
 	var marks, markImg [][2]float64
 	for _, key := range sortedKeys(grid) {
@@ -165,4 +172,3 @@ func detectDots(img gridImg, t *Target, o DetectOptions) (*Detection, error) {
 	}
 	return d, nil
 }
-

@@ -4,6 +4,7 @@ import (
 	"fmt"
 	"math"
 	"testing"
+	"time"
 
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/synth"
@@ -80,3 +81,6 @@ func detectAll(tb testing.TB, t *Target, imgs []*imageio.Gray) []View {
 	}
 	return views
 }
+
+// testTime is the fixed creation time of files written by tests.
+var testTime = time.Date(2026, 3, 14, 9, 30, 0, 0, time.UTC)
