@@ -67,6 +67,9 @@ type Result struct {
 	// Cov = s²(JᵀJ)⁻¹ with s² the residual sum of squares over the degrees
 	// of freedom. Fixed parameters have 0.
 	Std [nIntr]float64
+	// Cov is the covariance of the camera parameters (same order), px and
+	// unitless; rows and columns of fixed parameters are 0.
+	Cov [nIntr][nIntr]float64
 	// RMS is the root mean square reprojection error length over all
 	// points, px.
 	RMS float64
@@ -442,9 +445,16 @@ func (f *fitter) result(p []float64, views []View, w, h, iters int, dots bool, o
 	if err := ch.InverseTo(&cov); err != nil {
 		return nil, fmt.Errorf("calibrate: covariance: %w", err)
 	}
+	s2 := res.Sigma * res.Sigma
 	for a, j := range idx {
-		if j < nIntr {
-			res.Std[j] = res.Sigma * math.Sqrt(cov.At(a, a))
+		if j >= nIntr {
+			continue
+		}
+		res.Std[j] = res.Sigma * math.Sqrt(cov.At(a, a))
+		for b, k := range idx {
+			if k < nIntr {
+				res.Cov[j][k] = s2 * cov.At(a, b)
+			}
 		}
 	}
 	_, off := f.rows()
