@@ -15,6 +15,7 @@ func TestLayering(t *testing.T) {
 	forbidden := map[string][]string{
 		"pkg/imageio":    {"pkg/"},
 		"pkg/quality":    {"pkg/correlate", "pkg/kinematics", "pkg/field", "pkg/maps", "pkg/analysis", "pkg/series", "pkg/service", "pkg/synth"},
+		"pkg/calib":      {"pkg/spline", "pkg/correlate", "pkg/kinematics", "pkg/field", "pkg/maps", "pkg/analysis", "pkg/series", "pkg/service", "pkg/synth"},
 		"pkg/spline":     {"pkg/correlate", "pkg/kinematics", "pkg/field", "pkg/maps", "pkg/analysis", "pkg/series", "pkg/service"},
 		"pkg/correlate":  {"pkg/kinematics", "pkg/field", "pkg/maps", "pkg/analysis", "pkg/series", "pkg/service", "pkg/synth"},
 		"pkg/kinematics": {"pkg/correlate", "pkg/field", "pkg/maps", "pkg/analysis", "pkg/series", "pkg/service"},

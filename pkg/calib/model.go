@@ -239,3 +239,9 @@ func (c Camera) PlanePoint(p Pose, px, py float64) (X, Y float64, err error) {
 	}
 	return X, Y, nil
 }
+
+// PoseFromMatrix returns the pose with rotation matrix R (which must be a
+// rotation) and translation T.
+func PoseFromMatrix(R [3][3]float64, T [3]float64) Pose {
+	return Pose{Rot: rotvec(R), T: T}
+}
