@@ -12,21 +12,10 @@ import (
 // describe the check rather than quote a figure.
 func context() map[string][]string {
 	return map[string][]string{
-		rowSweep:   {"0.5", "0.8", "0.3"},
-		rowTensile: {"0.2"},
-	}
-}
-
-// unguarded lists README rows (by the start of the check cell) whose
-// figures are not yet in this table, with the reason.
-func unguarded() map[string]string {
-	const later = "asserted in its own package; its figures move to internal/figures next"
-	return map[string]string{
-		"built-in demo":             later,
-		"against OpenCV":            later,
-		"DIC Challenge 2.0":         later,
-		"20-frame rendered tensile": later,
-		"40 % stretch series":       later,
+		rowSweep:     {"0.5", "0.8", "0.3"},
+		rowTensile:   {"0.2"},
+		rowCross:     {"1.2"},
+		rowChallenge: {"3.99"},
 	}
 }
 
@@ -128,17 +117,7 @@ func TestReadmeAgrees(t *testing.T) {
 	for i, r := range rows {
 		fs := byRow[i]
 		if len(fs) == 0 {
-			why := ""
-			for k, v := range unguarded() {
-				if strings.HasPrefix(r.check, k) {
-					why = v
-				}
-			}
-			if why == "" {
-				t.Errorf("README row %q: no figure in internal/figures guards it", r.check)
-			} else {
-				t.Logf("README row %q not in internal/figures: %s", r.check, why)
-			}
+			t.Errorf("README row %q: no figure in internal/figures guards it", r.check)
 			continue
 		}
 		res, bnd := numbers(r.result), numbers(r.bound)

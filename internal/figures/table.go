@@ -12,6 +12,9 @@ const (
 	rowPipeline    = "5 % stretch with 10° rotation, whole pipeline"
 	rowTensile     = "20-frame rendered tensile series"
 	rowIncremental = "40 % stretch series"
+	rowCross       = "against OpenCV"
+	rowChallenge   = "DIC Challenge 2.0"
+	rowDemo        = "built-in demo"
 )
 
 // up is a figure with an upper bound; row "" means asserted but not quoted.
@@ -29,6 +32,15 @@ func in(name, row string, value, min, max float64) Figure {
 // otherwise); bounds are about 1.5× the value.
 func All() []Figure {
 	return []Figure{
+		// pkg/demo TestDemoAgainstKirsch, the built-in demo's own images
+		// (one scenario): displacement RMS error in px, and strain RMS
+		// error against the exact field seen through subset and window.
+		up("demo/u", rowDemo, 0.0049, 0.0073),
+		up("demo/v", rowDemo, 0.0059, 0.0088),
+		up("demo/E11", rowDemo, 0.00017, 0.00025),
+		up("demo/E22", rowDemo, 0.00011, 0.00017),
+		up("demo/E12", rowDemo, 6.4e-5, 9.6e-5),
+
 		// pkg/correlate TestHomogeneousAffine
 		up("homogeneous/first/rms/mean", rowHomogeneous, 0.00034, 0.0005),
 		up("homogeneous/first/rms/worst", rowHomogeneous, 0.00037, 0.00055),
@@ -117,5 +129,26 @@ func All() []Figure {
 		up("incremental/E11/worst", rowIncremental, 0.00055, 0.00082),
 		up("incremental/E22/mean", rowIncremental, 0.00013, 0.0002),
 		up("incremental/E22/worst", rowIncremental, 0.00038, 0.00057),
+
+		// pkg/verify TestCrossCheckLibraries: RMS displacement error in px
+		// of Mottle on each case (one seed per case), and of the library
+		// results README quotes (held to [0.67, 1.5]× so that a broken
+		// library run cannot flatter Mottle).
+		up("crosscheck/translation 0.37, -1.62/mottle", rowCross, 0.0087, 0.013),
+		in("crosscheck/translation 0.37, -1.62/ecc_default", rowCross, 0.0125, 0.0084, 0.019),
+		in("crosscheck/translation 0.37, -1.62/phase_hann", rowCross, 0.05, 0.034, 0.075),
+		up("crosscheck/translation 2.25, 0.81 noise 2/mottle", "", 0.0094, 0.014),
+		up("crosscheck/translation 0.5, 0.5/mottle", "", 0.006, 0.009),
+		up("crosscheck/affine strain 1.2 %/mottle", rowCross, 0.0073, 0.011),
+		in("crosscheck/affine strain 1.2 %/ecc_default", rowCross, 0.0199, 0.013, 0.03),
+		up("crosscheck/affine strain 1.2 % noise 2/mottle", "", 0.0075, 0.011),
+		up("crosscheck/rotation 1.5 deg/mottle", "", 0.0074, 0.011),
+
+		// pkg/verify TestChallengeMottle, first-order subsets 11–51 on the
+		// rendered star: mean 10 % attenuation period per subset side,
+		// worst |p10/theory − 1| and largest MEI (px²).
+		in("challenge/first/p10-per-subset", rowChallenge, 3.8, 3.72, 4.26),
+		up("challenge/first/p10-deviation/worst", rowChallenge, 0.056, 0.084),
+		up("challenge/first/mei/worst", rowChallenge, 0.28, 0.42),
 	}
 }

@@ -5,6 +5,7 @@ import (
 	"math"
 	"testing"
 
+	"github.com/mottledic/mottle/internal/figures"
 	"github.com/mottledic/mottle/pkg/analysis"
 )
 
@@ -14,12 +15,13 @@ import (
 // from memory and checked against those stresses by pkg/synth TestKirsch),
 // rendered exactly by pkg/synth. Bounds: the displacement error is set by the camera noise
 // (σ = 1.5 grey levels on 8-bit images: the predicted std of u is about
-// 0.003 px, Wang et al. 2007), so an RMS error of 0.01 px leaves room for
-// interpolation bias; the strain error against the truth seen through the
-// same subset and strain window is the correlation's own, noise over a 63 px
-// gauge (VSG = (window − 1)·step + subset, form from memory), bounded at
-// 3e-4. The measured peak on the ligament must show the
-// concentration: above 1.4× the remote strain S/E.
+// 0.003 px, Wang et al. 2007) plus interpolation bias; the strain error
+// against the truth seen through the same subset and strain window is the
+// correlation's own, noise over a 63 px gauge (VSG = (window − 1)·step +
+// subset, form from memory). Both are bounded at about 1.5× the values
+// measured on the demo when the bounds were set (internal/figures; the
+// project's first targets were 0.01 px and 3e-4). The measured peak on the
+// ligament must show the concentration: above 1.4× the remote strain S/E.
 func TestDemoAgainstKirsch(t *testing.T) {
 	ctx := context.Background()
 	s := Default()
@@ -35,13 +37,12 @@ func TestDemoAgainstKirsch(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	if c.RMSU > 0.01 || c.RMSV > 0.01 {
-		t.Errorf("displacement RMS error u %.4f px, v %.4f px; want ≤ 0.01", c.RMSU, c.RMSV)
-	}
+	// The figures README quotes for the demo, each bounded at about 1.5×
+	// its value on the demo's own images (internal/figures).
+	figures.Check(t, "demo/u", c.RMSU)
+	figures.Check(t, "demo/v", c.RMSV)
 	for i, name := range []string{"E11", "E22", "E12"} {
-		if c.RMSWindowed[i] > 3e-4 {
-			t.Errorf("%s RMS error against the windowed truth %.2e; want ≤ 3e-4", name, c.RMSWindowed[i])
-		}
+		figures.Check(t, "demo/"+name, c.RMSWindowed[i])
 	}
 	if frac := float64(c.Valid) / float64(c.Points); frac < 0.75 {
 		t.Errorf("only %.0f %% of the points are valid", 100*frac)

@@ -5,6 +5,7 @@ import (
 	"math"
 	"testing"
 
+	"github.com/mottledic/mottle/internal/figures"
 	"github.com/mottledic/mottle/pkg/correlate"
 )
 
@@ -14,7 +15,14 @@ import (
 // upsampling, Guizar-Sicairos, Thurman & Fienup 2008, Opt. Lett. 33:156)
 // on the same rendered images and points, each against the exact truth of
 // pkg/synth. It fails if Mottle's RMS error is larger than the best error
-// of the libraries whose motion model applies to the case.
+// of the libraries whose motion model applies to the case, and, since a
+// library result is no absolute yardstick (OpenCV's ECC interpolates
+// bilinearly, so beating it is a low bar), if Mottle's RMS error exceeds
+// about 1.5× its value when the bounds were set (internal/figures, one
+// figure per case). The library errors that README quotes are held to
+// [0.67, 1.5]× their quoted values, so that a broken library run cannot
+// make Mottle look better than it is. With -short the grid is coarser and
+// only the comparison with the libraries applies.
 func TestCrossCheckLibraries(t *testing.T) {
 	r := requirePython(t)
 	track := MottleTracker(correlate.Options{})
@@ -30,6 +38,14 @@ func TestCrossCheckLibraries(t *testing.T) {
 		}
 		if m, best, ok := res.Best(); ok && res.MottleErr.RMS > best {
 			t.Errorf("%s: Mottle RMS error %.5f px is worse than %s's %.5f px", c.Name, res.MottleErr.RMS, m.Label(), best)
+		}
+		if !testing.Short() {
+			figures.Check(t, "crosscheck/"+c.Name+"/mottle", res.MottleErr.RMS)
+			for _, m := range []Method{ECCDefault, PhaseHann} {
+				if f, ok := figures.Lookup("crosscheck/" + c.Name + "/" + string(m)); ok {
+					figures.Check(t, f.Name, res.RefErr[m].RMS)
+				}
+			}
 		}
 		// Integer agreement with matchTemplate: away from half-pixel
 		// shifts the ZNCC peak is the nearest integer of the displacement.
