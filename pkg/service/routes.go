@@ -50,6 +50,7 @@ func (s *Server) routes() http.Handler {
 		r.Get("/v1/analyses", s.listAnalyses)
 		r.Post("/v1/demo", s.postDemo)
 		r.Post("/v1/images/inspect", s.inspect)
+		r.Post("/v1/calibrations", s.postCalibration)
 		r.Delete(analysisPath, s.analysis(s.deleteAnalysis))
 		r.Post(analysisPath+"/cancel", s.analysis(s.cancelAnalysis))
 
