@@ -17,6 +17,7 @@ import (
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/roi"
 )
 
@@ -190,14 +191,17 @@ func checkWritable(dir string) error {
 
 func runAnalyze(ctx context.Context, e *env, args []string) error {
 	fs := newFlags(e, "analyze", "--ref REF --def DEF [flags]",
-		"Correlate a reference and a deformed speckle image and write a results folder: field.json,\n"+
-			"field.csv, field.vts, field.npz, npy/, and PNG maps under maps/. Displacements are referred\n"+
-			"to the reference image (Lagrangian). Prints a one-screen summary.")
+		"Correlate a reference and a deformed speckle image and write a results folder: by default\n"+
+			"field.npz (the stored result: every quantity, float32) and PNG maps under maps/; --formats\n"+
+			"asks for more, and \"mottle export DIR --formats …\" writes any format later from field.npz.\n"+
+			"Displacements are referred to the reference image (Lagrangian). Prints a one-screen summary.\n\n"+
+			formatsHelp())
 	ref := fs.String("ref", "", "reference image `file` (PNG, TIFF, JPEG or BMP)")
 	def := fs.String("def", "", "deformed image `file`")
 	out := fs.String("out", "mottle-results", "results `folder`")
 	maxPix := fs.Int64("max-pixels", imageio.DefaultLimits().MaxPixels, "refuse images with more pixels than this (width × height)")
 	maskFile := fs.String("mask", "", "mask image `file`: pixels brighter than half the maximum are inside the ROI")
+	formats := fs.String("formats", results.DefaultFormats, "result `formats` to write, comma-separated (see above; \"all\" for every one)")
 	apply := paramFlags(fs)
 	if err := noArgs(e, fs, "analyze", args); err != nil {
 		return err
@@ -210,6 +214,10 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	p := analysis.Defaults()
 	if err := apply(&p); err != nil {
 		return err
+	}
+	set, err := results.ParseFormats(*formats)
+	if err != nil {
+		return usagef("--formats: %w", err)
 	}
 	lim := imageio.DefaultLimits()
 	lim.MaxPixels = *maxPix
@@ -237,11 +245,16 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	if _, err := analysis.Write(*out, res.Field, r, d); err != nil {
+	recordSources(res.Field, *ref, *def)
+	src, err := sources(set, r, d, *ref, *def)
+	if err != nil {
+		return err
+	}
+	if _, err := results.Write(ctx, *out, res.Field, src, set); err != nil {
 		return err
 	}
 	printSummary(e.stdout, res.Field, res.Elapsed)
-	fmt.Fprintf(e.stdout, "results: %s/ (field.json, field.csv, field.vts, field.npz, npy/, maps/)\n", *out)
+	fmt.Fprintf(e.stdout, "results: %s/ (%s; more with mottle export %s --formats …)\n", *out, set, *out)
 	if res.Correlation.Stats.OK == 0 {
 		return fmt.Errorf("no point could be matched (%d seed attempts failed): if the specimen moved more than --search %d px at the seed, raise --search, or give a --seed x,y on well-textured speckles; check that --ref and --def show the same specimen", len(res.Correlation.Seeds), p.Search)
 	}

@@ -7,6 +7,7 @@ import (
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/demo"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/results"
 )
 
 func runDemo(ctx context.Context, e *env, args []string) error {
@@ -16,8 +17,13 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 			"beside the known truth. The specimen, lab and material are invented.")
 	out := fs.String("out", "mottle-demo", "results `folder`")
 	threads := fs.Int("threads", 0, "worker goroutines (0 = all cores)")
+	formats := fs.String("formats", results.DefaultFormats+","+results.Images, "result `formats` to write, comma-separated (see mottle analyze --help)")
 	if err := noArgs(e, fs, "demo", args); err != nil {
 		return err
+	}
+	set, err := results.ParseFormats(*formats)
+	if err != nil {
+		return usagef("--formats: %w", err)
 	}
 	s := demo.Default()
 	fmt.Fprintln(e.stdout, "Mottle demo (invented scenario)")
@@ -37,7 +43,7 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	if _, err := analysis.Write(*out, res.Field, ref, def); err != nil {
+	if _, err := results.Write(ctx, *out, res.Field, results.Sources{Ref: ref, Def: def}, set); err != nil {
 		return err
 	}
 	printSummary(e.stdout, res.Field, res.Elapsed)
@@ -47,7 +53,7 @@ func runDemo(ctx context.Context, e *env, args []string) error {
 	}
 	fmt.Fprintln(e.stdout, "\nmeasured against the exact truth (Green–Lagrange strain):")
 	cmp.Print(e.stdout)
-	fmt.Fprintf(e.stdout, "\nresults: %s/ (field.json, field.csv, field.vts, field.npz, npy/, maps/*.png)\n", *out)
+	fmt.Fprintf(e.stdout, "\nresults: %s/ (%s; more with mottle export %s --formats csv,vts,…)\n", *out, set, *out)
 	fmt.Fprintf(e.stdout, "next: go run ./cmd/mottle map %s --quantity E22, or go run ./cmd/mottle serve and open http://127.0.0.1:8080/\n", *out)
 	return nil
 }

@@ -44,6 +44,7 @@ func commands() []command {
 		{"synth", "render exact synthetic speckle images and their true motion", runSynth},
 		{"analyze", "correlate a reference and a deformed image and write a results folder", runAnalyze},
 		{"map", "re-render a PNG map of any quantity from a results folder", runMap},
+		{"export", "write more result formats (CSV, VTS, JSON, …) from a results folder", runExport},
 		{"series", "analyse a series of frames: curves, gauges, material properties, report", runSeries},
 		{"target", "write a printable calibration target and its geometry", runTarget},
 		{"pattern", "write a printable random speckle pattern", runPattern},

@@ -8,8 +8,8 @@ import (
 	"strings"
 	"testing"
 
-	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
@@ -62,12 +62,7 @@ func TestAnalyzeAndMap(t *testing.T) {
 	if !strings.Contains(stdout.String(), "E11") || !strings.Contains(stdout.String(), "caution") {
 		t.Errorf("summary lacks E11 or the caution:\n%s", stdout.String())
 	}
-	fh, err := os.Open(filepath.Join(out, "field.json"))
-	if err != nil {
-		t.Fatal(err)
-	}
-	f, err := field.ReadJSON(fh)
-	fh.Close()
+	f, err := results.ReadStored(out)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -77,6 +72,15 @@ func TestAnalyzeAndMap(t *testing.T) {
 	}
 	if f.Units["u"] != "mm" {
 		t.Errorf("u unit %q, want mm", f.Units["u"])
+	}
+	// The default folder holds the stored result and the default maps.
+	for _, name := range []string{"field.npz", "maps/E11.png", "maps/E22.png"} {
+		if st, err := os.Stat(filepath.Join(out, name)); err != nil || st.Size() == 0 {
+			t.Errorf("default results folder lacks %s: %v", name, err)
+		}
+	}
+	if _, err := os.Stat(filepath.Join(out, "field.json")); err == nil {
+		t.Error("the default results folder holds field.json; it is written on request only")
 	}
 	e, _, stderr = testEnv()
 	if code := run(context.Background(), e, []string{"map", out, "--quantity", "E22", "--on", "deformed"}); code != 0 {

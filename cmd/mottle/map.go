@@ -6,15 +6,14 @@ import (
 	"os"
 	"path/filepath"
 
-	"github.com/mottledic/mottle/pkg/analysis"
-	"github.com/mottledic/mottle/pkg/field"
-	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/results"
 )
 
 func runMap(ctx context.Context, e *env, args []string) error {
 	fs := newFlags(e, "map", "DIR --quantity NAME [flags]",
 		"Re-render a PNG map of any quantity from a results folder written by analyze, demo or series.\n"+
-			"The background is DIR/reference.png (or DIR/deformed.png with --on deformed).")
+			"The background is DIR/reference.png (or DIR/deformed.png with --on deformed), or else the\n"+
+			"image file the analysis read.")
 	q := fs.String("quantity", "E11", "quantity to draw (any name in field.json, e.g. u, v, E11, H22, e1, rotation_deg, zncc)")
 	on := fs.String("on", "reference", "background: reference (points at X) or deformed (points at x = X + u)")
 	rng := fs.String("range", "", "colour-bar range `lo,hi` (default: 1st–99th percentile, symmetric for signed strain)")
@@ -36,7 +35,7 @@ func runMap(ctx context.Context, e *env, args []string) error {
 		return errUsage
 	}
 	dir := pos[0]
-	req := analysis.MapRequest{Quantity: *q, Opacity: *opacity}
+	req := results.MapRequest{Quantity: *q, Opacity: *opacity}
 	switch *on {
 	case "reference":
 	case "deformed":
@@ -54,30 +53,21 @@ func runMap(ctx context.Context, e *env, args []string) error {
 		}
 		req.Range = [2]float64{v[0], v[1]}
 	}
-	fh, err := os.Open(filepath.Join(dir, "field.json"))
+	f, err := results.ReadStored(dir)
 	if err != nil {
-		return fmt.Errorf("results folder %s: %w", dir, err)
+		return err
 	}
-	f, err := field.ReadJSON(fh)
-	fh.Close()
+	bg, err := background(dir, f, req.OnDeformed)
 	if err != nil {
-		return fmt.Errorf("%s: %w", filepath.Join(dir, "field.json"), err)
-	}
-	bgName := "reference.png"
-	if req.OnDeformed {
-		bgName = "deformed.png"
-	}
-	bg, err := imageio.ReadFile(filepath.Join(dir, bgName), imageio.DefaultLimits())
-	if err != nil {
-		return fmt.Errorf("background image: %w", err)
+		return err
 	}
 	var png []byte
 	name := *q
 	if *vectors {
-		png, err = analysis.RenderVectors(f, bg, 0)
+		png, err = results.RenderVectors(f, bg, 0)
 		name = "vectors"
 	} else {
-		png, err = analysis.RenderMap(f, bg, req)
+		png, err = results.RenderMap(f, bg, req)
 		if req.OnDeformed {
 			name += "_deformed"
 		}

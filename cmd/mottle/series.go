@@ -18,6 +18,7 @@ import (
 
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/series"
 )
 
@@ -177,6 +178,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		rRange     = fs.String("r-range", "", "axial strain range lo,hi for the r value (ISO 10113)")
 		offset     = fs.Float64("offset", 0, "offset of the yield strength as a strain (default 0.002)")
 		mapQ       = fs.String("maps", "E11,E22", "quantities drawn as maps for the selected frames")
+		formats    = fs.String("formats", series.FrameFormats, "result formats of each frame's folder, comma-separated (see mottle analyze --help); more later with mottle export")
 		mapEvery   = fs.Int("map-every", 0, "draw maps every N frames (default: about five frames spread over the series, and the last)")
 		resume     = fs.Bool("resume", false, "continue a series stopped earlier, from <out>/state.json (its parameters are used)")
 		exts, gs   listFlag
@@ -328,6 +330,10 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		if a, b, ok := strings.Cut(*staticPair, ","); !ok || a == "" || b == "" || strings.Contains(b, ",") {
 			errs = append(errs, fmt.Errorf("--static-pair %q: want two images a,b of the unloaded specimen", *staticPair))
 		}
+	}
+	set, ferr := results.ParseFormats(*formats)
+	if ferr != nil {
+		errs = append(errs, fmt.Errorf("--formats: %w", ferr))
 	}
 	if err := errors.Join(errs...); err != nil {
 		fmt.Fprintln(e.stderr, "mottle series:", err)
@@ -508,7 +514,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		if (i+1)%every == 0 || i == len(frames)-1 {
 			mq = quantities
 		}
-		if _, err := series.WriteFrame(dir, fr, p, filepath.Base(*ref), metas[i+1], img, mq); err != nil {
+		if _, err := series.WriteFrameFormats(ctx, dir, fr, p, filepath.Base(*ref), metas[i+1], img, set, mq); err != nil {
 			runErr = err
 			break
 		}

@@ -41,7 +41,7 @@ func TestSeriesCommand(t *testing.T) {
 		t.Errorf("stdout: %s", stdout.String())
 	}
 	for _, f := range []string{"report.html", "curve.csv", "curve.json", "state.json", "plots/stress_strain.png",
-		"frames/0004/field.json", "frames/0004/map_E11.png"} {
+		"frames/0004/field.npz", "frames/0004/map_E11.png"} {
 		if _, err := os.Stat(filepath.Join(out, f)); err != nil {
 			t.Error(err)
 		}

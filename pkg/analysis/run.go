@@ -12,6 +12,7 @@ import (
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/kinematics"
+	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/roi"
 	"github.com/mottledic/mottle/pkg/spline"
 )
@@ -139,104 +140,53 @@ func CorrelationOptions(p Params, w, h int, maskImage *imageio.Gray) (correlate.
 	return opt, nil
 }
 
-// Kinematics derives the result field from a correlation result: the
-// displacement gradient by the strain-window fit, every strain measure,
-// rotation and principal values, with the propagated uncertainty. Lengths
-// are converted to mm when p sets a scale.
+// Kinematics derives the result field from a correlation result with the
+// one field builder, results.Build: the displacement gradient by the
+// strain-window fit, every strain measure, rotation and principal values,
+// with the propagated uncertainty. Lengths are in mm when p sets a scale.
 func Kinematics(ctx context.Context, res *correlate.Result, p Params) (*field.Field, error) {
-	g := res.Grid
-	n := g.Len()
-	f := field.New(g.Nx, g.Ny, g.X0, g.Y0, g.Step, p.Subset)
-	u, v := make([]float64, n), make([]float64, n)
-	su, sv := make([]float64, n), make([]float64, n)
-	zncc, valid, iters := make([]float64, n), make([]float64, n), make([]float64, n)
-	for k, pt := range res.Points {
-		zncc[k], iters[k] = nan, nan
-		if pt.Status != correlate.OK {
-			u[k], v[k], su[k], sv[k] = nan, nan, nan, nan
-			if pt.Converged {
-				zncc[k] = pt.ZNCC
-			}
-			f.Status[k] = pt.Status.String()
-			continue
-		}
-		u[k], v[k] = pt.P[correlate.U], pt.P[correlate.V]
-		su[k], sv[k] = pt.StdU, pt.StdV
-		zncc[k], valid[k], iters[k] = pt.ZNCC, 1, float64(pt.Iter)
-	}
-	fit, err := kinematics.ParseFit(p.StrainFit)
-	if err != nil {
+	if _, err := kinematics.ParseFit(p.StrainFit); err != nil {
 		return nil, &ValidationError{[]Problem{{Field: "strain_fit", Message: err.Error()}}}
 	}
-	kg := kinematics.Grid{X0: float64(g.X0), Y0: float64(g.Y0), Step: float64(g.Step), Nx: g.Nx, Ny: g.Ny}
-	grads, err := kinematics.Gradients(ctx, kg, u, v, su, sv, kinematics.GradientOptions{Window: p.StrainWindow, Fit: fit, Threads: p.Threads})
+	f, err := results.Build(ctx, results.FromCorrelation(res, p.Subset), BuildOptions(p))
 	if err != nil {
-		return nil, fmt.Errorf("strain fit: %w", err)
+		return nil, err
 	}
-	qs, status := kinematics.Quantities(grads, kinematics.GreenLagrangeMeasure)
-	// How many valid points each strain fit used: fewer than the full
-	// window near edges and holes, where the fit is one-sided and noisier.
-	npts := make([]float64, n)
-	for k, g := range grads {
-		npts[k] = float64(g.N)
-	}
-	for k := range status {
-		if f.Status[k] == "ok" {
-			f.Status[k] = status[k]
-		}
-	}
-	scale, length := 1.0, "px"
-	if mm := p.scale(); mm > 0 {
-		scale, length = mm, "mm"
-	}
-	for _, q := range [][]float64{u, v, su, sv} {
-		for k := range q {
-			q[k] *= scale
-		}
-	}
-	set := func(name string, vals []float64) error { return f.Set(name, field.DefaultUnit(name, length), vals) }
-	for _, q := range []struct {
-		name string
-		vals []float64
-	}{{"u", u}, {"v", v}, {"zncc", zncc}, {"std_u", su}, {"std_v", sv}, {"valid", valid}, {"iterations", iters}, {"strain_points", npts}} {
-		if err := set(q.name, q.vals); err != nil {
-			return nil, err
-		}
-	}
-	for _, name := range kinematics.QuantityNames() {
-		if err := set(name, qs[name]); err != nil {
-			return nil, err
-		}
-	}
-	params, err := json.Marshal(p)
-	if err != nil {
-		return nil, fmt.Errorf("parameters: %w", err)
-	}
-	f.Params = params
-	f.Meta = field.Meta{
-		Software:     Software,
-		Created:      time.Now().UTC().Truncate(time.Second),
-		NoiseSigma:   res.Noise,
-		VSG:          kinematics.VSG(p.StrainWindow, float64(p.Step), float64(p.Subset)),
-		StrainWindow: p.StrainWindow,
-		StrainFit:    fit.String(),
-		PrincipalOf:  "green_lagrange",
-		MMPerPx:      p.scale(),
-		Cautions:     field.Cautions(),
-		Extra: map[string]any{
-			"noise_source": res.NoiseSource,
-			"seeds":        res.Seeds,
-			"stats":        res.Stats,
-		},
-	}
+	f.Meta.NoiseSigma = res.Noise
+	f.Meta.Extra["noise_source"] = res.NoiseSource
+	f.Meta.Extra["seeds"] = plain(res.Seeds)
+	f.Meta.Extra["stats"] = plain(res.Stats)
 	return f, nil
+}
+
+// plain returns v as the JSON value it encodes to (maps, slices, numbers),
+// so the metadata in memory is what a stored result reads back, key order
+// and all.
+func plain(v any) any {
+	b, err := json.Marshal(v)
+	if err != nil {
+		return v
+	}
+	var out any
+	if json.Unmarshal(b, &out) != nil {
+		return v
+	}
+	return out
+}
+
+// BuildOptions returns the field builder's options for parameters p: the
+// strain window and fit, the threads, the scale (lengths in mm whenever p
+// sets one) and p itself as the field's parameters.
+func BuildOptions(p Params) results.Options {
+	return results.Options{StrainWindow: p.StrainWindow, StrainFit: p.StrainFit, Threads: p.Threads,
+		MMPerPx: p.Scale(), Params: p, Software: Software}
 }
 
 var nan = math.NaN()
 
-// scale returns the image scale in mm per px set by MMPerPx or ScalePoints,
-// or 0 when the results stay in px.
-func (p Params) scale() float64 {
+// Scale returns the image scale in mm per px set by MMPerPx or
+// ScalePoints, or 0 when the results stay in px.
+func (p Params) Scale() float64 {
 	if p.MMPerPx > 0 {
 		return p.MMPerPx
 	}

@@ -17,7 +17,8 @@ import (
 // indices and x, y the reference-image position in px. An invalid (NaN or
 // infinite) value is written as an EMPTY cell, which spreadsheets show as
 // blank and pandas, R and numpy.genfromtxt read as missing. Numbers use the
-// shortest representation that reads back to the same float64. Units are not
+// shortest representation that reads back to the same float64 (float32
+// when Meta.Precision is [Float32]). Units are not
 // in the header (so that the names stay plain identifiers); they are in
 // field.json.
 func WriteCSV(w io.Writer, f *Field) error {
@@ -39,11 +40,15 @@ func WriteCSV(w io.Writer, f *Field) error {
 		cols[k] = f.Quantities[n]
 	}
 	g := f.Grid
+	single := f.single()
 	num := func(b []byte, x float64) []byte {
+		if single {
+			x = float64(float32(x))
+		}
 		if !finite(x) {
 			return b
 		}
-		return strconv.AppendFloat(b, x, 'g', -1, 64)
+		return appendNumber(b, x, single)
 	}
 	for p := range g.Len() {
 		line = strconv.AppendInt(line[:0], int64(p%g.Nx), 10)

@@ -312,7 +312,7 @@ func TestNPZ(t *testing.T) {
 	seen := map[string]bool{}
 	for _, e := range zr.File {
 		seen[e.Name] = true
-		if e.Name == "status.npy" {
+		if e.Name == "status.npy" || e.Name == NPZMeta {
 			continue
 		}
 		rc, err := e.Open()
@@ -339,6 +339,59 @@ func TestNPZ(t *testing.T) {
 	}
 }
 
+// round32 returns x rounded to the nearest float32 (beyond its range to
+// ±Inf).
+func round32(x []float64) []float64 {
+	y := append([]float64(nil), x...)
+	for k := range y {
+		y[k] = float64(float32(y[k]))
+	}
+	return y
+}
+
+// ReadNPZ gives back the field WriteNPZ wrote: every array (float64 bit
+// for bit, or rounded to float32 for a float32 field), the status, units,
+// parameters and metadata, and field.json written from either is the same
+// document.
+func TestNPZRoundTrip(t *testing.T) {
+	for _, precision := range []string{"", Float32} {
+		t.Run("precision="+precision, func(t *testing.T) {
+			f := sample(t)
+			f.Meta.Precision = precision
+			var buf bytes.Buffer
+			if err := WriteNPZ(&buf, f); err != nil {
+				t.Fatal(err)
+			}
+			g, err := ReadNPZ(bytes.NewReader(buf.Bytes()), int64(buf.Len()))
+			if err != nil {
+				t.Fatal(err)
+			}
+			want := func(x []float64) []float64 { return x }
+			if precision == Float32 {
+				want = round32
+			}
+			for _, n := range f.Names() {
+				if !sameFloats(g.Quantities[n], want(f.Quantities[n])) || g.Units[n] != f.Units[n] {
+					t.Errorf("%s: read %v %s, wrote %v %s", n, g.Quantities[n], g.Units[n], f.Quantities[n], f.Units[n])
+				}
+			}
+			if !reflect.DeepEqual(g.Names(), f.Names()) || !reflect.DeepEqual(g.Status, f.Status) || !sameFloats(g.Grid.X, f.Grid.X) || !sameFloats(g.Grid.Y, f.Grid.Y) {
+				t.Errorf("names, status or grid differ: %v %v", g.Names(), g.Status)
+			}
+			var a, b bytes.Buffer
+			if err := errors.Join(WriteJSON(&a, f), WriteJSON(&b, g)); err != nil {
+				t.Fatal(err)
+			}
+			if a.String() != b.String() {
+				t.Errorf("field.json from the npz differs from field.json of the field:\n%s\n%s", a.String(), b.String())
+			}
+		})
+	}
+	if _, err := ReadNPZ(bytes.NewReader([]byte("PK not a zip")), 12); err == nil {
+		t.Error("ReadNPZ of garbage: want an error")
+	}
+}
+
 // Cross-check with NumPy itself (numpy.load through Debian's
 // /usr/bin/python3; .ci/run installs python3-numpy): every .npy and the .npz
 // load with the right shape and values, compared against field.json read by
@@ -349,14 +402,35 @@ func TestFilesWithNumPy(t *testing.T) {
 	if err := exec.Command(py, "-c", "import numpy").Run(); err != nil {
 		t.Fatalf("%s with numpy not available (apt-get install python3-numpy): %v", py, err)
 	}
+	for _, precision := range []string{"", Float32} {
+		t.Run("precision="+precision, func(t *testing.T) { checkWithNumPy(t, py, precision) })
+	}
+}
+
+func checkWithNumPy(t *testing.T, py, precision string) {
 	dir := t.TempDir()
 	f := sample(t)
-	paths, err := WriteDir(dir, f)
-	if err != nil {
+	f.Meta.Precision = precision
+	if err := os.Mkdir(filepath.Join(dir, "npy"), 0o755); err != nil {
 		t.Fatal(err)
 	}
-	if len(paths) != 4+len(f.Names())+2 {
-		t.Errorf("wrote %d files: %v", len(paths), paths)
+	files := map[string]func(io.Writer) error{
+		"field.json": func(w io.Writer) error { return WriteJSON(w, f) },
+		"field.csv":  func(w io.Writer) error { return WriteCSV(w, f) },
+		"field.npz":  func(w io.Writer) error { return WriteNPZ(w, f) },
+	}
+	npy := WriteNPY
+	dtype := "float64"
+	if precision == Float32 {
+		npy, dtype = WriteNPY32, "float32"
+	}
+	for _, n := range f.Names() {
+		files["npy/"+n+".npy"] = func(w io.Writer) error { return npy(w, f.Quantities[n], f.Grid.Ny, f.Grid.Nx) }
+	}
+	for name, write := range files {
+		if err := WriteFileAtomic(filepath.Join(dir, name), 0o644, write); err != nil {
+			t.Fatal(err)
+		}
 	}
 	script := `
 import json, sys, numpy as np
@@ -369,20 +443,23 @@ def ref(vals):
 n = 0
 for name, vals in doc["quantities"].items():
     for a in (z[name], np.load(d + "/npy/" + name + ".npy")):
-        assert a.dtype == np.float64 and a.shape == (ny, nx), (name, a.dtype, a.shape)
+        assert a.dtype == np.dtype(sys.argv[2]) and a.shape == (ny, nx), (name, a.dtype, a.shape)
         r = ref(vals)
+        if a.dtype == np.float32:
+            r = np.where(np.abs(r) > np.finfo(np.float32).max, np.nan, r).astype(np.float32)
         fin = np.isfinite(r)
         assert np.array_equal(np.isfinite(a), fin), name
         assert np.array_equal(a[fin], r[fin]), name
         n += 1
 assert np.array_equal(z["grid_x"].ravel(), np.array(doc["grid"]["x"]))
 assert list(z["status"].ravel()) == doc["status"], z["status"]
+assert json.loads(z["meta.json"])["meta"] == doc["meta"]
 import csv
 rows = list(csv.reader(open(d + "/field.csv")))
 assert len(rows) == 1 + nx * ny
 print("ok", n)
 `
-	out, err := exec.Command(py, "-c", script, dir).CombinedOutput()
+	out, err := exec.Command(py, "-c", script, dir, dtype).CombinedOutput()
 	if err != nil {
 		t.Fatalf("numpy check failed: %v\n%s", err, out)
 	}

@@ -85,11 +85,51 @@ type Meta struct {
 	// von_mises are computed from, e.g. "green_lagrange".
 	PrincipalOf string  `json:"principal_of,omitempty"`
 	MMPerPx     float64 `json:"mm_per_px,omitempty"` // scale, 0 = uncalibrated
+	// Precision is the precision in which the quantities are written:
+	// [Float32] or "" (float64). See [Float32].
+	Precision string `json:"precision,omitempty"`
 	// Cautions are warnings to show with the results.
 	Cautions []string `json:"cautions,omitempty"`
 	// Extra holds further key–value metadata (JSON-encodable).
 	Extra map[string]any `json:"extra,omitempty"`
 }
+
+// Float32 is the value of [Meta.Precision] of a field whose quantities
+// are written as IEEE 754 single precision: JSON and CSV numbers are the
+// shortest text that reads back to the same float32, NPY arrays are '<f4'
+// and VTS arrays Float32. Grid coordinates are whole pixels and exact in
+// either precision. A field holds float32 precision when its inputs do: a
+// result correlated from float32 grey levels and float32 B-spline
+// coefficients resolves no more than float32's 24-bit mantissa (relative
+// 6e-8), far below the measurement uncertainty of every quantity (see the
+// std_* quantities). Values in memory stay float64; they are rounded to
+// nearest only when written.
+const Float32 = "float32"
+
+// Rounded returns f as its files hold it: for a [Float32] field a copy
+// whose quantities are rounded to the nearest float32 (beyond float32's
+// range to ±Inf), sharing the grid, status and metadata; else f itself.
+// Everything drawn or derived from a written field (maps, the spatial view)
+// starts from Rounded, so that it is the same whether it is made with the
+// analysis or later from the stored result.
+func (f *Field) Rounded() *Field {
+	if !f.single() {
+		return f
+	}
+	g := *f
+	g.Quantities = make(map[string][]float64, len(f.Quantities))
+	for n, q := range f.Quantities {
+		r := make([]float64, len(q))
+		for k, x := range q {
+			r[k] = float64(float32(x))
+		}
+		g.Quantities[n] = r
+	}
+	return &g
+}
+
+// single reports whether f is written in float32 precision.
+func (f *Field) single() bool { return f.Meta.Precision == Float32 }
 
 // Cautions returns the standard cautions to show with strain results.
 func Cautions() []string {
@@ -255,6 +295,9 @@ func (f *Field) Validate() error {
 	}
 	if !finite(f.Meta.NoiseSigma) || !finite(f.Meta.VSG) || !finite(f.Meta.MMPerPx) {
 		errs = append(errs, fmt.Errorf("meta: noise_sigma %v, vsg_px %v, mm_per_px %v: want finite numbers (0 = unknown)", f.Meta.NoiseSigma, f.Meta.VSG, f.Meta.MMPerPx))
+	}
+	if p := f.Meta.Precision; p != "" && p != Float32 {
+		errs = append(errs, fmt.Errorf("meta: precision %q: want %q or empty (float64)", p, Float32))
 	}
 	if f.Params != nil && !json.Valid(f.Params) {
 		errs = append(errs, errors.New("params: not valid JSON"))

@@ -4,7 +4,9 @@ import (
 	"archive/zip"
 	"bufio"
 	"bytes"
+	"compress/flate"
 	"encoding/binary"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -61,6 +63,16 @@ func writeNPYHeader(w io.Writer, descr string, shape []int) error {
 // len(data). NaN values are written as NaN. For a field quantity use the
 // shape (Ny, Nx): numpy.load then returns the map with rows along y.
 func WriteNPY(w io.Writer, data []float64, shape ...int) error {
+	return writeNPY(w, data, false, shape)
+}
+
+// WriteNPY32 is [WriteNPY] for float32 ('<f4') data: each value is rounded
+// to the nearest float32 (see [Float32]).
+func WriteNPY32(w io.Writer, data []float64, shape ...int) error {
+	return writeNPY(w, data, true, shape)
+}
+
+func writeNPY(w io.Writer, data []float64, single bool, shape []int) error {
 	n := 1
 	for _, s := range shape {
 		n *= s
@@ -68,16 +80,23 @@ func WriteNPY(w io.Writer, data []float64, shape ...int) error {
 	if n != len(data) {
 		return fmt.Errorf("npy: shape %v holds %d values, data has %d", shape, n, len(data))
 	}
-	if err := writeNPYHeader(w, "<f8", shape); err != nil {
+	descr := "<f8"
+	if single {
+		descr = "<f4"
+	}
+	if err := writeNPYHeader(w, descr, shape); err != nil {
 		return err
 	}
-	bw := bufio.NewWriterSize(w, 1<<16)
-	var b [8]byte
-	for _, x := range data {
-		binary.LittleEndian.PutUint64(b[:], math.Float64bits(x))
-		bw.Write(b[:])
+	buf := make([]byte, 0, 8*min(len(data), 8192))
+	for len(data) > 0 {
+		k := min(len(data), 8192)
+		buf = appendValues(buf[:0], data[:k], single)
+		if _, err := w.Write(buf); err != nil {
+			return err
+		}
+		data = data[k:]
 	}
-	return bw.Flush()
+	return nil
 }
 
 // writeNPYStrings writes s as a 1-D NumPy unicode array ('<U<n>', UTF-32LE,
@@ -113,8 +132,8 @@ var (
 )
 
 // ReadNPY reads a .npy file (format 1.0, 2.0 or 3.0) holding little-endian
-// float64 data in C order, as written by [WriteNPY], and returns the values
-// and the shape. Other dtypes and Fortran order are reported as errors, as
+// float64 or float32 data in C order, as written by [WriteNPY] and
+// [WriteNPY32], and returns the values and the shape. Other dtypes and Fortran order are reported as errors, as
 // are files larger than maxBytes (0 = no limit).
 func ReadNPY(r io.Reader, maxBytes int64) ([]float64, []int, error) {
 	var pre [8]byte
@@ -149,8 +168,13 @@ func ReadNPY(r io.Reader, maxBytes int64) ([]float64, []int, error) {
 		return nil, nil, fmt.Errorf("npy header: %w", err)
 	}
 	m := npyDescr.FindSubmatch(h)
-	if m == nil || (string(m[1]) != "<f8" && string(m[1]) != "f8") {
-		return nil, nil, fmt.Errorf("npy: header %q: want dtype '<f8' (little-endian float64)", bytes.TrimSpace(h))
+	size := 8
+	switch {
+	case m != nil && (string(m[1]) == "<f8" || string(m[1]) == "f8"):
+	case m != nil && string(m[1]) == "<f4":
+		size = 4
+	default:
+		return nil, nil, fmt.Errorf("npy: header %q: want dtype '<f8' or '<f4' (little-endian float64 or float32)", bytes.TrimSpace(h))
 	}
 	if m := npyOrder.FindSubmatch(h); m == nil || string(m[1]) != "False" {
 		return nil, nil, fmt.Errorf("npy: header %q: want C order (fortran_order False)", bytes.TrimSpace(h))
@@ -172,38 +196,64 @@ func ReadNPY(r io.Reader, maxBytes int64) ([]float64, []int, error) {
 		}
 		shape = append(shape, s)
 		n *= int64(s)
-		if n > math.MaxInt32 || (maxBytes > 0 && 8*n > maxBytes) {
+		if n > math.MaxInt32 || (maxBytes > 0 && int64(size)*n > maxBytes) {
 			return nil, nil, fmt.Errorf("npy: shape (%s) is too large", m[1])
 		}
 	}
-	raw := make([]byte, 8*n)
+	raw := make([]byte, int64(size)*n)
 	if _, err := io.ReadFull(r, raw); err != nil {
 		return nil, nil, fmt.Errorf("npy data: want %d values: %w", n, err)
 	}
 	data := make([]float64, n)
+	if size == 4 {
+		for k := range data {
+			data[k] = float64(math.Float32frombits(binary.LittleEndian.Uint32(raw[4*k:])))
+		}
+		return data, shape, nil
+	}
 	for k := range data {
 		data[k] = math.Float64frombits(binary.LittleEndian.Uint64(raw[8*k:]))
 	}
 	return data, shape, nil
 }
 
+// NPZMeta is the name of the member of an .npz archive written by
+// [WriteNPZ] that holds everything of the field but its arrays, as JSON:
+// the field.json document (see [WriteJSON]) without "grid.x", "grid.y",
+// "quantities" and "status". numpy.load returns it as bytes.
+const NPZMeta = "meta.json"
+
 // WriteNPZ writes every quantity of f as an .npz archive (a zip of .npy
-// files, stored uncompressed as numpy.savez writes them): "<name>.npy" of
-// shape (Ny, Nx) for each quantity, "grid_x.npy" and "grid_y.npy" with the
-// reference coordinates, and "status.npy" with the status strings (unicode,
-// shape (Ny, Nx)). numpy.load opens it without allow_pickle.
+// files, compressed with Deflate at its fastest level as
+// numpy.savez_compressed writes them): "<name>.npy" of shape (Ny, Nx) for
+// each quantity ('<f4' when Meta.Precision is [Float32], else '<f8'),
+// "grid_x.npy" and "grid_y.npy" with the reference coordinates, "status.npy"
+// with the status strings (unicode, shape (Ny, Nx)) and [NPZMeta] with the
+// parameters, units and metadata. numpy.load opens it without allow_pickle,
+// and [ReadNPZ] reads it back to the same field.
 func WriteNPZ(w io.Writer, f *Field) error {
 	if err := f.Validate(); err != nil {
 		return fmt.Errorf("field.npz: %w", err)
 	}
+	meta, err := headerJSON(f)
+	if err != nil {
+		return fmt.Errorf("field.npz: %w", err)
+	}
 	zw := zip.NewWriter(w)
+	zw.RegisterCompressor(zip.Deflate, func(out io.Writer) (io.WriteCloser, error) {
+		return flate.NewWriter(out, flate.BestSpeed)
+	})
 	g := f.Grid
+	single := f.single()
+	member := func(name string) (io.Writer, error) {
+		return zw.CreateHeader(&zip.FileHeader{Name: name, Method: zip.Deflate})
+	}
 	add := func(name string, data []float64) error {
-		e, err := zw.CreateHeader(&zip.FileHeader{Name: name + ".npy", Method: zip.Store})
+		e, err := member(name + ".npy")
 		if err != nil {
 			return err
 		}
-		return WriteNPY(e, data, g.Ny, g.Nx)
+		return writeNPY(e, data, single, []int{g.Ny, g.Nx})
 	}
 	for _, n := range f.Names() {
 		if err := add(n, f.Quantities[n]); err != nil {
@@ -214,7 +264,7 @@ func WriteNPZ(w io.Writer, f *Field) error {
 		return fmt.Errorf("field.npz grid: %w", err)
 	}
 	if f.Status != nil {
-		e, err := zw.CreateHeader(&zip.FileHeader{Name: "status.npy", Method: zip.Store})
+		e, err := member("status.npy")
 		if err == nil {
 			err = writeNPYStrings(e, f.Status, g.Ny, g.Nx)
 		}
@@ -222,8 +272,137 @@ func WriteNPZ(w io.Writer, f *Field) error {
 			return fmt.Errorf("field.npz status: %w", err)
 		}
 	}
+	e, err := member(NPZMeta)
+	if err == nil {
+		_, err = e.Write(meta)
+	}
+	if err != nil {
+		return fmt.Errorf("field.npz %s: %w", NPZMeta, err)
+	}
 	if err := zw.Close(); err != nil {
 		return fmt.Errorf("field.npz: %w", err)
 	}
 	return nil
+}
+
+// ReadNPZ reads a field from an .npz archive written by [WriteNPZ] (r is
+// the archive's bytes, size its length), checking it as [ReadJSON] does.
+// Values of float32 arrays come back as the float64 of the same value.
+func ReadNPZ(r io.ReaderAt, size int64) (*Field, error) {
+	zr, err := zip.NewReader(r, size)
+	if err != nil {
+		return nil, fmt.Errorf("field.npz: %w", err)
+	}
+	members := map[string]*zip.File{}
+	for _, m := range zr.File {
+		members[m.Name] = m
+	}
+	open := func(name string) (io.ReadCloser, error) {
+		m, ok := members[name]
+		if !ok {
+			return nil, fmt.Errorf("field.npz: no member %s; it was not written by this program's WriteNPZ (version 1 with metadata)", name)
+		}
+		return m.Open()
+	}
+	rc, err := open(NPZMeta)
+	if err != nil {
+		return nil, err
+	}
+	var j jsonField
+	err = json.NewDecoder(io.LimitReader(rc, 64<<20)).Decode(&j)
+	rc.Close()
+	if err != nil {
+		return nil, fmt.Errorf("field.npz %s: %w", NPZMeta, err)
+	}
+	f, err := j.field()
+	if err != nil {
+		return nil, fmt.Errorf("field.npz: %w", err)
+	}
+	n := j.Grid.Nx * j.Grid.Ny
+	if j.Grid.Nx < 1 || j.Grid.Ny < 1 || n > math.MaxInt32 {
+		return nil, fmt.Errorf("field.npz: grid %d×%d: want at least 1×1 points", j.Grid.Nx, j.Grid.Ny)
+	}
+	array := func(name string) ([]float64, error) {
+		rc, err := open(name + ".npy")
+		if err != nil {
+			return nil, err
+		}
+		defer rc.Close()
+		data, shape, err := ReadNPY(rc, 8*int64(n)+1)
+		if err != nil {
+			return nil, fmt.Errorf("field.npz %s: %w", name, err)
+		}
+		if len(shape) != 2 || shape[0] != j.Grid.Ny || shape[1] != j.Grid.Nx {
+			return nil, fmt.Errorf("field.npz %s: shape %v, want (%d, %d)", name, shape, j.Grid.Ny, j.Grid.Nx)
+		}
+		return data, nil
+	}
+	if f.Grid.X, err = array("grid_x"); err != nil {
+		return nil, err
+	}
+	if f.Grid.Y, err = array("grid_y"); err != nil {
+		return nil, err
+	}
+	for _, name := range j.Names {
+		if f.Quantities[name], err = array(name); err != nil {
+			return nil, err
+		}
+	}
+	if _, ok := members["status.npy"]; ok {
+		rc, err := open("status.npy")
+		if err != nil {
+			return nil, err
+		}
+		f.Status, err = readNPYStrings(rc, n)
+		rc.Close()
+		if err != nil {
+			return nil, fmt.Errorf("field.npz status: %w", err)
+		}
+	}
+	if err := f.Validate(); err != nil {
+		return nil, fmt.Errorf("field.npz: %w", err)
+	}
+	return f, nil
+}
+
+// readNPYStrings reads a unicode array ('<U<n>') of n strings written by
+// writeNPYStrings, trimming the zero padding.
+func readNPYStrings(r io.Reader, n int) ([]string, error) {
+	var pre [10]byte
+	if _, err := io.ReadFull(r, pre[:]); err != nil {
+		return nil, err
+	}
+	if string(pre[:6]) != npyMagic || pre[6] != 1 {
+		return nil, errors.New("not a .npy file of format 1.0")
+	}
+	h := make([]byte, binary.LittleEndian.Uint16(pre[8:]))
+	if _, err := io.ReadFull(r, h); err != nil {
+		return nil, err
+	}
+	m := npyDescr.FindSubmatch(h)
+	if m == nil || !bytes.HasPrefix(m[1], []byte("<U")) {
+		return nil, fmt.Errorf("header %q: want a unicode array '<U…'", bytes.TrimSpace(h))
+	}
+	width, err := strconv.Atoi(string(m[1][2:]))
+	if err != nil || width < 1 || width > 1024 {
+		return nil, fmt.Errorf("header %q: bad string width", bytes.TrimSpace(h))
+	}
+	raw := make([]byte, 4*width*n)
+	if _, err := io.ReadFull(r, raw); err != nil {
+		return nil, fmt.Errorf("want %d strings: %w", n, err)
+	}
+	out := make([]string, n)
+	rs := make([]rune, 0, width)
+	for k := range out {
+		rs = rs[:0]
+		for c := range width {
+			v := binary.LittleEndian.Uint32(raw[4*(k*width+c):])
+			if v == 0 {
+				break
+			}
+			rs = append(rs, rune(v))
+		}
+		out[k] = string(rs)
+	}
+	return out, nil
 }

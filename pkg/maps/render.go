@@ -552,13 +552,24 @@ func fillCell(vals []float64, pw, ph int, q [4][2]float64, v [4]float64, steps b
 	x1 := min(pw-1, int(math.Floor(slices.Max(xs)+1e-9)))
 	y0 := max(0, int(math.Ceil(slices.Min(ys)-1e-9)))
 	y1 := min(ph-1, int(math.Floor(slices.Max(ys)+1e-9)))
+	// An axis-aligned rectangle (every cell of a map over the reference
+	// image) inverts in closed form; other cells by Newton's method.
+	rect := q[0][1] == q[1][1] && q[3][1] == q[2][1] && q[0][0] == q[3][0] && q[1][0] == q[2][0] &&
+		q[1][0] > q[0][0] && q[3][1] > q[0][1]
 	for py := y0; py <= y1; py++ {
 		for px := x0; px <= x1; px++ {
 			idx := py*pw + px
 			if !math.IsNaN(vals[idx]) {
 				continue
 			}
-			a, b, ok := inverseBilinear(q, float64(px), float64(py))
+			var a, b float64
+			ok := true
+			if rect {
+				a = math.Max(0, math.Min(1, (float64(px)-q[0][0])/(q[1][0]-q[0][0])))
+				b = math.Max(0, math.Min(1, (float64(py)-q[0][1])/(q[3][1]-q[0][1])))
+			} else {
+				a, b, ok = inverseBilinear(q, float64(px), float64(py))
+			}
 			if !ok {
 				continue
 			}

@@ -1,18 +1,17 @@
 package series
 
 import (
+	"context"
 	"encoding/json"
 	"fmt"
 	"io"
 	"os"
 	"path/filepath"
 	"strings"
-	"time"
 
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
-	"github.com/mottledic/mottle/pkg/kinematics"
-	"github.com/mottledic/mottle/pkg/maps"
+	"github.com/mottledic/mottle/pkg/results"
 )
 
 // unitOf returns the unit of a frame quantity for the series' length unit.
@@ -32,72 +31,61 @@ func unitOf(name, length string) string {
 	return "1"
 }
 
-// FrameField packs a frame's results into a field.Field (for its results
-// folder or an HTTP response). ref names the reference image, meta the
-// frame. It returns an error if the grid is not integer-aligned.
+// FrameField returns a frame's result field (built by results.Build)
+// with the frame's metadata: ref names the reference image, meta the
+// frame, w×h is the image size. It returns an error for a frame without a
+// field.
 func FrameField(fr *Frame, p Params, ref string, meta FrameMeta, w, h int) (*field.Field, error) {
-	p = p.withDefaults()
-	g := fr.Grid
-	if g.X0 != float64(int(g.X0)) || g.Y0 != float64(int(g.Y0)) || g.Step != float64(int(g.Step)) {
-		return nil, fmt.Errorf("frame grid %+v is not on whole pixels", g)
+	if fr == nil || fr.Field == nil {
+		return nil, fmt.Errorf("frame has no result field")
 	}
-	f := field.New(g.Nx, g.Ny, int(g.X0), int(g.Y0), int(g.Step), p.Analysis.Subset)
-	for name, v := range fr.Quantities {
-		if err := f.Set(name, unitOf(name, p.Units), v); err != nil {
-			return nil, err
-		}
+	f := *fr.Field
+	f.Meta.Extra = map[string]any{"frame_index": fr.Summary.Index, "mode": fr.Summary.Mode}
+	for k, v := range fr.Field.Meta.Extra {
+		f.Meta.Extra[k] = v
 	}
-	copy(f.Status, fr.Status)
-	pj, err := json.Marshal(p)
-	if err != nil {
-		return nil, err
-	}
-	f.Params = pj
-	f.Meta = field.Meta{
-		Software:     "mottle series",
-		Created:      time.Now().UTC(),
-		Reference:    ref,
-		Deformed:     meta.Name,
-		ImageWidth:   w,
-		ImageHeight:  h,
-		VSG:          kinematics.VSG(p.Analysis.StrainWindow, g.Step, float64(p.Analysis.Subset)),
-		StrainWindow: p.Analysis.StrainWindow,
-		StrainFit:    p.Analysis.StrainFit,
-		PrincipalOf:  "green_lagrange",
-		Cautions:     field.Cautions(),
-		Extra: map[string]any{
-			"frame_index": fr.Summary.Index,
-			"mode":        fr.Summary.Mode,
-		},
-	}
-	if p.Units == "mm" {
-		f.Meta.MMPerPx = p.lengthScale()
-	}
+	f.Meta.Reference, f.Meta.Deformed = ref, meta.Name
+	f.Meta.ImageWidth, f.Meta.ImageHeight = w, h
 	if meta.Time != nil {
 		f.Meta.Extra["time_s"] = *meta.Time
 	}
 	if meta.Load != nil {
 		f.Meta.Extra["load_N"] = *meta.Load
 	}
-	return f, nil
+	return &f, nil
 }
 
-// WriteFrame writes a frame's results folder dir (field.json, CSV, VTS,
-// NPY, see field.WriteDir) and, for each name in mapQuantities, a PNG map
-// over img (the frame, with the field drawn at the deformed positions). It
-// returns the paths written.
+// FrameFormats are the result formats of a frame's folder in a series by
+// default: the stored result only, so a long series stays small; any
+// other format is exported from it later (mottle export).
+const FrameFormats = results.NPZ
+
+// WriteFrame writes a frame's results folder dir with every data format
+// (field.npz, field.json, CSV, VTS, NPY) and, for each name in
+// mapQuantities, a PNG map map_<name>.png over img (the frame, with the
+// field drawn at the deformed positions). It returns the paths written.
 func WriteFrame(dir string, fr *Frame, p Params, ref string, meta FrameMeta, img *imageio.Gray, mapQuantities []string) ([]string, error) {
+	set, err := results.ParseFormats("npz,json,csv,vts,npy")
+	if err != nil {
+		return nil, err
+	}
+	return WriteFrameFormats(context.Background(), dir, fr, p, ref, meta, img, set, mapQuantities)
+}
+
+// WriteFrameFormats is WriteFrame with the formats chosen by set (see
+// results.Formats).
+func WriteFrameFormats(ctx context.Context, dir string, fr *Frame, p Params, ref string, meta FrameMeta, img *imageio.Gray, set results.Set, mapQuantities []string) ([]string, error) {
 	f, err := FrameField(fr, p, ref, meta, img.W, img.H)
 	if err != nil {
 		return nil, fmt.Errorf("frame %d: %w", fr.Summary.Index, err)
 	}
-	paths, err := field.WriteDir(dir, f)
+	paths, err := results.Write(ctx, dir, f, results.Sources{Def: img}, set)
 	if err != nil {
-		return nil, err
+		return paths, err
 	}
 	for _, q := range mapQuantities {
 		path := filepath.Join(dir, "map_"+q+".png")
-		if err := writeMap(path, fr, p, img, q); err != nil {
+		if err := writeMap(path, f, img, q); err != nil {
 			return paths, fmt.Errorf("frame %d map %s: %w", fr.Summary.Index, q, err)
 		}
 		paths = append(paths, path)
@@ -105,36 +93,16 @@ func WriteFrame(dir string, fr *Frame, p Params, ref string, meta FrameMeta, img
 	return paths, nil
 }
 
-// writeMap draws quantity q of fr over img, at the deformed positions.
-func writeMap(path string, fr *Frame, p Params, img *imageio.Gray, q string) error {
-	vals, ok := fr.Quantities[q]
-	if !ok {
-		return fmt.Errorf("no quantity %q", q)
-	}
-	p = p.withDefaults()
-	g := fr.Grid
-	n := g.Nx * g.Ny
-	xs, ys := make([]float64, n), make([]float64, n)
-	s := p.lengthScale()
-	u, v := fr.Quantities["u"], fr.Quantities["v"]
-	for k := range n {
-		X := g.X0 + float64(k%g.Nx)*g.Step
-		Y := g.Y0 + float64(k/g.Nx)*g.Step
-		xs[k], ys[k] = X+u[k]/s, Y+v[k]/s
-	}
-	mm := 0.0
-	if p.Units == "mm" {
-		mm = s
-	}
-	title := fmt.Sprintf("%s, frame %d (%s)", q, fr.Summary.Index, fr.Summary.Mode)
-	m, err := maps.Render(maps.Layer{Nx: g.Nx, Ny: g.Ny, X: xs, Y: ys, Values: vals, Step: g.Step}, img, maps.Options{
-		Quantity: q, Unit: unitOf(q, p.Units), Title: title, ScaleBar: maps.ScaleBar{MMPerPx: mm}, MaxWidth: 900,
-		Note: "measurement uncertainty applies; see the noise floor in the report",
-	})
+// writeMap draws quantity q of the frame field f over img, at the deformed
+// positions, with the one map renderer.
+func writeMap(path string, f *field.Field, img *imageio.Gray, q string) error {
+	title := fmt.Sprintf("%s, frame %v (%v)", q, f.Meta.Extra["frame_index"], f.Meta.Extra["mode"])
+	b, err := results.RenderMap(f, img, results.MapRequest{Quantity: q, OnDeformed: true, MaxWidth: 900, Title: title,
+		Note: "measurement uncertainty applies; see the noise floor in the report"})
 	if err != nil {
 		return err
 	}
-	return field.WriteFileAtomic(path, 0o644, func(w io.Writer) error { return maps.WritePNG(w, m.Image) })
+	return field.WriteFileAtomic(path, 0o644, func(w io.Writer) error { _, err := w.Write(b); return err })
 }
 
 // WriteCurve writes curve.csv and curve.json into dir and returns their

@@ -3,8 +3,11 @@ package series
 import (
 	"context"
 	"math"
+	"sort"
 
+	"github.com/mottledic/mottle/pkg/correlate"
 	"github.com/mottledic/mottle/pkg/kinematics"
+	"github.com/mottledic/mottle/pkg/results"
 )
 
 // pos returns the reference position of grid point k.
@@ -16,74 +19,56 @@ func (l lattice) kin() kinematics.Grid {
 	return kinematics.Grid{X0: l.X0, Y0: l.Y0, Step: l.Step, Nx: l.Nx, Ny: l.Ny}
 }
 
-// results turns the tracked points of one frame into its quantities,
-// summary and history snapshot. It does not change the tracker.
+// results turns the tracked points of one frame into its field (with the
+// one field builder, results.Build), summary and history snapshot. It
+// does not change the tracker.
 func (t *Tracker) results(ctx context.Context, pts []PointState, meta FrameMeta, index int, mode string) (*Frame, Snapshot, error) {
 	p := t.st.Params
 	g := t.st.Grid
 	n := len(pts)
 	nan := math.NaN()
-	u := make([]float64, n)
-	v := make([]float64, n)
-	su := make([]float64, n)
-	sv := make([]float64, n)
+	in := results.Input{Grid: g.grid(), Subset: p.Analysis.Subset,
+		U: make([]float64, n), V: make([]float64, n), StdU: make([]float64, n), StdV: make([]float64, n),
+		ZNCC: make([]float64, n), Status: make([]string, n)}
 	valid := make([]bool, n)
 	hasStd := true
 	for k, q := range pts {
 		X, Y := g.pos(k)
 		if q.Valid {
-			u[k], v[k], valid[k] = q.X-X, q.Y-Y, true
-			su[k], sv[k] = q.StdU, q.StdV
+			in.U[k], in.V[k], valid[k] = q.X-X, q.Y-Y, true
+			in.StdU[k], in.StdV[k] = q.StdU, q.StdV
+			in.ZNCC[k], in.Status[k] = q.ZNCC, "ok"
 			if !(q.StdU > 0 && q.StdV > 0) {
 				hasStd = false
 			}
-		} else {
-			u[k], v[k], su[k], sv[k] = nan, nan, nan, nan
+			continue
+		}
+		in.U[k], in.V[k], in.StdU[k], in.StdV[k], in.ZNCC[k] = nan, nan, nan, nan, nan
+		in.Status[k] = q.Reason
+		if in.Status[k] == "" || in.Status[k] == "ok" {
+			in.Status[k] = "not_tracked"
 		}
 	}
 	if !hasStd {
-		su, sv = nil, nil
+		in.StdU, in.StdV = nil, nil
 	}
-	fit, err := kinematics.ParseFit(p.Analysis.StrainFit)
+	f, err := results.Build(ctx, in, p.buildOptions())
 	if err != nil {
 		return nil, Snapshot{}, err
 	}
-	grads, err := kinematics.Gradients(ctx, g.kin(), u, v, su, sv, kinematics.GradientOptions{
-		Window: p.Analysis.StrainWindow, Fit: fit, Threads: p.Analysis.Threads})
-	if err != nil {
-		return nil, Snapshot{}, err
-	}
-	q, status := kinematics.Quantities(grads, kinematics.GreenLagrangeMeasure)
-	scale := p.lengthScale()
-	us := make([]float64, n)
-	vs := make([]float64, n)
-	zn := make([]float64, n)
-	vf := make([]float64, n)
-	for k := range pts {
-		us[k], vs[k] = u[k]*scale, v[k]*scale
-		zn[k] = pts[k].ZNCC
-		if valid[k] {
-			vf[k] = 1
-		} else {
-			status[k] = pts[k].Reason
-			if status[k] == "" || status[k] == "ok" {
-				status[k] = "not_tracked"
-			}
-			zn[k] = nan
-		}
-	}
-	q["u"], q["v"], q["zncc"], q["valid"] = us, vs, zn, vf
-	if su != nil {
-		a, b := make([]float64, n), make([]float64, n)
-		for k := range su {
-			a[k], b[k] = su[k]*scale, sv[k]*scale
-		}
-		q["std_u"], q["std_v"] = a, b
-	}
+	q, status := f.Quantities, f.Status
+	scale := p.outScale()
 
 	snap := Snapshot{Time: timeOr(meta.Time), HasTime: meta.Time != nil,
-		U: u, V: v, E11: q["E11"], E22: q["E22"], E12: q["E12"]}
-	t.rates(q, snap, scale)
+		U: in.U, V: in.V, E11: q["E11"], E22: q["E22"], E12: q["E12"]}
+	rates := map[string][]float64{}
+	t.rates(rates, snap, scale)
+	length := p.outUnit()
+	for _, name := range sortedNames(rates) {
+		if err := f.Set(name, unitOf(name, length), rates[name]); err != nil {
+			return nil, Snapshot{}, err
+		}
+	}
 
 	s := Summary{Index: index, Name: meta.Name, Time: meta.Time, Load: meta.Load, Stress: t.stress(meta.Load),
 		Mode: mode, Static: index <= p.StaticFrames, Mean: map[string]float64{}}
@@ -105,26 +90,41 @@ func (t *Tracker) results(ctx context.Context, pts []PointState, meta FrameMeta,
 		}
 		s.Mean[name], _, _, _, _ = Stats(q[name], ok)
 	}
-	ls := 1 / scale // output units → px
+	ls := 1 / p.lengthScale() // coordinate units → px
 	for _, e := range p.Extensometers {
 		epx := Extensometer{Name: e.Name, A: [2]float64{e.A[0] * ls, e.A[1] * ls}, B: [2]float64{e.B[0] * ls, e.B[1] * ls}}
-		s.Extensometers = append(s.Extensometers, g.readExtensometer(epx, u, v, valid, scale))
+		s.Extensometers = append(s.Extensometers, g.readExtensometer(epx, in.U, in.V, valid, scale))
 	}
 	for _, gg := range p.Gauges {
 		gpx := gg.scaled(ls)
-		in := make([]bool, n)
-		for k := range in {
+		inside := make([]bool, n)
+		for k := range inside {
 			X, Y := g.pos(k)
-			in[k] = valid[k] && status[k] == "ok" && gpx.Contains(X, Y)
+			inside[k] = valid[k] && status[k] == "ok" && gpx.Contains(X, Y)
 		}
 		for _, c := range gg.components() {
 			r := GaugeReading{Gauge: gg.Name, Component: c}
-			r.Mean, r.Std, r.Min, r.Max, r.N = Stats(q[c], in)
+			r.Mean, r.Std, r.Min, r.Max, r.N = Stats(q[c], inside)
 			s.Gauges = append(s.Gauges, r)
 		}
 	}
 	t.curveRates(&s)
-	return &Frame{Summary: s, Grid: g.kin(), Quantities: q, Status: status}, snap, nil
+	return &Frame{Summary: s, Grid: g.kin(), Quantities: q, Status: status, Field: f}, snap, nil
+}
+
+// grid returns the lattice as a correlation grid (whole pixels, as every
+// lattice of a Tracker is).
+func (l lattice) grid() correlate.Grid {
+	return correlate.Grid{X0: int(l.X0), Y0: int(l.Y0), Step: int(l.Step), Nx: l.Nx, Ny: l.Ny}
+}
+
+func sortedNames(m map[string][]float64) []string {
+	out := make([]string, 0, len(m))
+	for k := range m {
+		out = append(out, k)
+	}
+	sort.Strings(out)
+	return out
 }
 
 // deriv returns the first and second derivative at t2 of the quadratic

@@ -56,6 +56,7 @@ import (
 	"math"
 
 	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/results"
 )
 
 // Modes of correlating a frame, as reported in Summary.Mode.
@@ -103,8 +104,10 @@ type Params struct {
 	// practice). It costs one more correlation per incremental frame.
 	// Default false.
 	ReturnDirect bool `json:"return_direct,omitempty"`
-	// Units of extensometer and gauge coordinates and of lengths in the
-	// output: "px" (default) or "mm" (needs Analysis.MMPerPx).
+	// Units of extensometer and gauge coordinates: "px" (default) or "mm"
+	// (needs Analysis.MMPerPx or ScalePoints). Output lengths (u, v,
+	// extensometer lengths, velocities) are in mm whenever the analysis
+	// sets a scale, and in px otherwise: the one unit rule of pkg/results.
 	Units string `json:"units"`
 	// Extensometers and Gauges are read in every frame.
 	Extensometers []Extensometer `json:"extensometers,omitempty"`
@@ -326,7 +329,34 @@ func (pp PropsParams) validate(ext []Extensometer, gs []Gauge) error {
 	return errors.Join(errs...)
 }
 
-// lengthScale returns the factor from px to the output units.
+// outScale returns the factor from px to the output lengths: the image
+// scale in mm per px whenever one is set (the one unit rule of
+// pkg/results), else 1.
+func (p Params) outScale() float64 {
+	if s := p.Analysis.Scale(); s > 0 {
+		return s
+	}
+	return 1
+}
+
+// outUnit returns the unit of output lengths, "mm" or "px".
+func (p Params) outUnit() string {
+	if p.Analysis.Scale() > 0 {
+		return "mm"
+	}
+	return "px"
+}
+
+// buildOptions returns the options of the field builder for the series'
+// frames.
+func (p Params) buildOptions() results.Options {
+	o := analysis.BuildOptions(p.Analysis)
+	o.Params, o.Software = p, "mottle series"
+	return o
+}
+
+// lengthScale returns the factor from the units of extensometer and gauge
+// coordinates (Units) to px.
 func (p Params) lengthScale() float64 {
 	if p.Units != "mm" {
 		return 1

@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"math"
 
+	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/kinematics"
 )
@@ -57,6 +58,10 @@ type Frame struct {
 	Quantities map[string][]float64
 	// Status per point: "ok" or the reason it has no value.
 	Status []string
+	// Field is the frame's result field, made by the one field builder
+	// (results.Build); Quantities and Status are its maps. FrameField adds
+	// the frame's metadata.
+	Field *field.Field
 }
 
 // Tracker follows the material points of a reference grid through a

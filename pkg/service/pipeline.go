@@ -1,19 +1,18 @@
 package service
 
 import (
-	"bytes"
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"io"
 	"math"
-	"sort"
 	"strings"
 
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
-	"github.com/mottledic/mottle/pkg/maps"
+	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/series"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
@@ -36,45 +35,35 @@ func (Pipeline) Run(ctx context.Context, in Input, progress func(done, total int
 	return Encode(out.Field)
 }
 
-// Encode encodes a field into the result files a job serves (field.json,
-// field.csv, field.vts, field.npz, arrays/<quantity>.npy with shape
-// (Ny, Nx), including grid_x and grid_y) and its summary.
+// storedFormats are the formats a job's results hold: every data format
+// of the table of result files (pkg/results).
+const storedFormats = "npz,json,csv,vts,npy"
+
+// Encode encodes a field into the result files a job serves, with the one
+// table of result files (results.Encode): field.npz, field.json,
+// field.csv, field.vts and arrays/<quantity>.npy with shape (Ny, Nx),
+// including grid_x and grid_y (the table's npy/ files, stored under the
+// name of their route), and its summary.
 func Encode(f *field.Field) (*Result, error) {
-	files := map[string][]byte{}
-	put := func(name string, write func(io.Writer) error) error {
-		var b bytes.Buffer
-		if err := write(&b); err != nil {
-			return fmt.Errorf("encode %s: %w", name, err)
+	set, err := results.ParseFormats(storedFormats)
+	if err != nil {
+		return nil, err
+	}
+	enc, err := results.Encode(context.Background(), f, results.Sources{}, set)
+	if err != nil {
+		return nil, err
+	}
+	files := make(map[string][]byte, len(enc))
+	for name, b := range enc {
+		if q, ok := strings.CutPrefix(name, "npy/"); ok {
+			if !jobs.ValidName(q) {
+				continue
+			}
+			name = "arrays/" + q
 		}
-		files[name] = b.Bytes()
-		return nil
+		files[name] = b
 	}
 	g := f.Grid
-	enc := []struct {
-		name  string
-		write func(io.Writer) error
-	}{
-		{"field.json", func(w io.Writer) error { return field.WriteJSON(w, f) }},
-		{"field.csv", func(w io.Writer) error { return field.WriteCSV(w, f) }},
-		{"field.vts", func(w io.Writer) error { return field.WriteVTS(w, f) }},
-		{"field.npz", func(w io.Writer) error { return field.WriteNPZ(w, f) }},
-		{"arrays/grid_x.npy", func(w io.Writer) error { return field.WriteNPY(w, g.X, g.Ny, g.Nx) }},
-		{"arrays/grid_y.npy", func(w io.Writer) error { return field.WriteNPY(w, g.Y, g.Ny, g.Nx) }},
-	}
-	for _, e := range enc {
-		if err := put(e.name, e.write); err != nil {
-			return nil, err
-		}
-	}
-	for _, n := range f.Names() {
-		if !jobs.ValidName(n + ".npy") {
-			continue
-		}
-		data := f.Quantities[n]
-		if err := put("arrays/"+n+".npy", func(w io.Writer) error { return field.WriteNPY(w, data, g.Ny, g.Nx) }); err != nil {
-			return nil, err
-		}
-	}
 	sum := jobs.Summary{Points: g.Len(), Mean: map[string]float64{}}
 	// Valid counts the measured points (a displacement), as the field's
 	// "valid" quantity does; points without a strain value are still
@@ -119,47 +108,29 @@ func (Pipeline) Map(ctx context.Context, open func(name string) (io.ReadCloser, 
 	return RenderMap(f, req, bg)
 }
 
-// RenderMap draws the PNG map that Pipeline.Map serves.
+// RenderMap draws the PNG map that Pipeline.Map serves, with the one map
+// renderer (results.RenderMap). An unknown quantity, a field without
+// displacement for on=deformed and an unusable range are *FieldErrors.
 func RenderMap(f *field.Field, req MapRequest, bg *imageio.Gray) ([]byte, error) {
-	vals, ok := f.Get(req.Quantity)
-	if !ok {
-		names := f.Names()
-		sort.Strings(names)
-		return nil, &FieldError{Field: "quantity", Status: 400,
-			Detail: fmt.Sprintf("the field has no quantity %q; use one of %s", req.Quantity, strings.Join(names, ", "))}
-	}
-	g := f.Grid
-	l := maps.Layer{Nx: g.Nx, Ny: g.Ny, X: g.X, Y: g.Y, Values: vals, Step: float64(g.Step)}
-	if req.On == "deformed" {
-		u, okU := f.Get("u")
-		v, okV := f.Get("v")
-		if !okU || !okV {
-			return nil, &FieldError{Field: "on", Status: 400, Detail: "the field has no displacement to place points on the deformed image; use on=reference"}
-		}
-		scale := 1.0
-		if f.Meta.MMPerPx > 0 && f.Units["u"] == "mm" {
-			scale = 1 / f.Meta.MMPerPx
-		}
-		l.X, l.Y = make([]float64, len(g.X)), make([]float64, len(g.Y))
-		vals2 := append([]float64(nil), vals...)
-		for k := range g.X {
-			l.X[k], l.Y[k] = g.X[k]+u[k]*scale, g.Y[k]+v[k]*scale
-			if math.IsNaN(l.X[k]) || math.IsNaN(l.Y[k]) {
-				l.X[k], l.Y[k], vals2[k] = g.X[k], g.Y[k], math.NaN()
-			}
-		}
-		l.Values = vals2
-	}
-	o := maps.Options{Quantity: req.Quantity, Unit: f.Units[req.Quantity]}
-	o.ScaleBar.MMPerPx = f.Meta.MMPerPx
+	r := results.MapRequest{Quantity: req.Quantity, OnDeformed: req.On == "deformed"}
 	if req.Range != nil {
-		o.Range = *req.Range
+		r.Range = *req.Range
 	}
-	m, err := maps.Render(l, bg, o)
-	if err != nil {
-		return nil, &FieldError{Field: "range", Status: 400, Detail: err.Error()}
+	b, err := results.RenderMap(f, bg, r)
+	var qe *results.QuantityError
+	var re *results.RangeError
+	switch {
+	case err == nil:
+		return b, nil
+	case errors.As(err, &qe):
+		return nil, &FieldError{Field: "quantity", Status: 400,
+			Detail: fmt.Sprintf("the field has no quantity %q; use one of %s", qe.Name, strings.Join(qe.Have, ", "))}
+	case errors.As(err, &re):
+		return nil, &FieldError{Field: "range", Status: 400, Detail: re.Error()}
+	case r.OnDeformed:
+		return nil, &FieldError{Field: "on", Status: 400, Detail: err.Error() + "; use on=reference"}
 	}
-	return maps.EncodePNG(m.Image)
+	return nil, err
 }
 
 // Frame implements FrameAnalyzer with the series engine pkg/series: the

@@ -1,4 +1,4 @@
-package analysis
+package results
 
 import (
 	"errors"
@@ -8,14 +8,14 @@ import (
 	"github.com/mottledic/mottle/pkg/kinematics"
 )
 
-// Spatial returns the spatial (Eulerian) view of f: every quantity placed
+// SpatialView returns the spatial (Eulerian) view of f: every quantity placed
 // at its point's deformed position x = X + u and resampled on a regular
 // grid of the deformed image with the same step as f (linear interpolation
 // over the deformed grid cells; see kinematics.ToDeformed). The result is a
 // field whose grid coordinates are deformed-image pixels; Meta.Extra
 // "configuration" is "spatial". Points of the deformed image that no
 // measured material covers are NaN with status "no_material".
-func Spatial(f *field.Field, w, h int) (*field.Field, error) {
+func SpatialView(f *field.Field, w, h int) (*field.Field, error) {
 	if w < 1 || h < 1 {
 		return nil, fmt.Errorf("spatial view: image size %d×%d", w, h)
 	}
