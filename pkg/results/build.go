@@ -51,15 +51,17 @@ type Input struct {
 }
 
 // Mapping maps image positions (px, pixel centres at integers, x right, y
-// down) to coordinates of the measurement plane, e.g. undistorted and
-// metric coordinates from a camera calibration. Reference maps positions
-// in the reference image, Deformed in the deformed one (the same camera
-// gives the same function for both). Both must be smooth: the builder
-// differentiates Reference numerically.
+// down) to coordinates of the measurement plane: undistorted pixels, or mm
+// in the specimen plane (a *calib.Mapping is one). Map returns an error
+// for a position it cannot map; that point then has no result. The
+// mapping must be smooth: the builder differentiates it numerically.
 type Mapping interface {
-	Reference(x, y float64) (X, Y float64)
-	Deformed(x, y float64) (X, Y float64)
+	Map(x, y float64) (X, Y float64, err error)
 }
+
+// StatusUnmapped is the status of a point whose reference or deformed
+// position the Mapping could not map.
+const StatusUnmapped = "unmapped"
 
 // Options are the settings of the field builder.
 type Options struct {
@@ -75,13 +77,17 @@ type Options struct {
 	// result.
 	MMPerPx float64
 	// Mapping, when not nil, maps image positions to the measurement
-	// plane before differencing: u = Deformed(X + u_px) − Reference(X), and
-	// the gradients are taken with respect to the plane coordinates of the
-	// reference points. MMPerPx must then be 0; Length names the plane's
-	// unit.
+	// plane before differencing: u = D(X + u_px) − M(X), with M = Mapping
+	// and D = DeformedMapping, and the gradients are taken with respect to
+	// the plane coordinates of the reference points. MMPerPx must then be
+	// 0. This is where a camera calibration enters the results.
 	Mapping Mapping
+	// DeformedMapping maps the deformed image's positions; nil means
+	// Mapping (one camera for both images).
+	DeformedMapping Mapping
 	// Length is the unit of lengths under a Mapping ("mm", or "px" for an
-	// undistortion that stays in pixels); default "px".
+	// undistortion that stays in pixels); "" takes the Mapping's Unit()
+	// when it has that method, else "px".
 	Length string
 	// Params are the analysis parameters, stored in the field as JSON.
 	Params any
@@ -165,10 +171,25 @@ func Build(ctx context.Context, in Input, opt Options) (*field.Field, error) {
 	var jinv [][4]float64
 	if opt.Mapping != nil {
 		length = opt.Length
+		if un, ok := opt.Mapping.(interface{ Unit() string }); ok && length == "" {
+			length = un.Unit()
+		}
 		if length == "" {
 			length = "px"
 		}
-		jinv = mapDisplacements(opt.Mapping, g, u, v, su, sv)
+		dm := opt.DeformedMapping
+		if dm == nil {
+			dm = opt.Mapping
+		}
+		jinv = mapDisplacements(opt.Mapping, dm, g, u, v, su, sv)
+		for k := range u {
+			if valid[k] == 1 && !(finite(u[k]) && finite(v[k])) {
+				valid[k], f.Status[k] = 0, StatusUnmapped
+				if su != nil {
+					su[k], sv[k] = nan, nan
+				}
+			}
+		}
 	}
 	kg := kinematics.Grid{X0: float64(g.X0), Y0: float64(g.Y0), Step: float64(g.Step), Nx: g.Nx, Ny: g.Ny}
 	grads, err := kinematics.Gradients(ctx, kg, u, v, su, sv, kinematics.GradientOptions{Window: opt.StrainWindow, Fit: fit, Threads: opt.Threads})
@@ -274,32 +295,54 @@ func FromCorrelation(res *correlate.Result, subset int) Input {
 }
 
 // mapDisplacements replaces the image displacements u, v (px) by those of
-// the measurement plane, Deformed(X + u) − Reference(X), scales their std
-// by the local Jacobian of Deformed, and returns per point the inverse
-// Jacobian of Reference, ∂X_image/∂X_plane, row-major [a b; c d].
-func mapDisplacements(m Mapping, g correlate.Grid, u, v, su, sv []float64) [][4]float64 {
+// the measurement plane, D(X + u) − M(X), scales their std by the local
+// Jacobian of D, and returns per point the inverse Jacobian of M,
+// ∂X_image/∂X_plane, row-major [a b; c d]. A point that cannot be mapped
+// gets NaN displacements (and a NaN inverse Jacobian, which the strain fit
+// never reads: the point is invalid).
+func mapDisplacements(m, dm Mapping, g correlate.Grid, u, v, su, sv []float64) [][4]float64 {
 	const h = 0.5 // px; central differences, exact for quadratic mappings
-	jac := func(f func(x, y float64) (float64, float64), x, y float64) [4]float64 {
-		x1, y1 := f(x+h, y)
-		x0, y0 := f(x-h, y)
-		x3, y3 := f(x, y+h)
-		x2, y2 := f(x, y-h)
-		return [4]float64{(x1 - x0) / (2 * h), (x3 - x2) / (2 * h), (y1 - y0) / (2 * h), (y3 - y2) / (2 * h)}
+	jac := func(f Mapping, x, y float64) ([4]float64, error) {
+		var p [4][2]float64
+		for i, d := range [4][2]float64{{h, 0}, {-h, 0}, {0, h}, {0, -h}} {
+			X, Y, err := f.Map(x+d[0], y+d[1])
+			if err != nil {
+				return [4]float64{}, err
+			}
+			p[i] = [2]float64{X, Y}
+		}
+		return [4]float64{(p[0][0] - p[1][0]) / (2 * h), (p[2][0] - p[3][0]) / (2 * h), (p[0][1] - p[1][1]) / (2 * h), (p[2][1] - p[3][1]) / (2 * h)}, nil
 	}
 	out := make([][4]float64, len(u))
+	fail := func(k int) {
+		u[k], v[k] = nan, nan
+		out[k] = [4]float64{nan, nan, nan, nan}
+	}
 	for k := range u {
 		X, Y := g.At(k%g.Nx, k/g.Nx)
 		px, py := float64(X), float64(Y)
-		j := jac(m.Reference, px, py)
+		j, err := jac(m, px, py)
 		det := j[0]*j[3] - j[1]*j[2]
+		if err != nil || !(math.Abs(det) > 0) {
+			fail(k)
+			continue
+		}
 		out[k] = [4]float64{j[3] / det, -j[1] / det, -j[2] / det, j[0] / det}
 		if !finite(u[k]) || !finite(v[k]) {
 			continue
 		}
-		rx, ry := m.Reference(px, py)
-		dx, dy := m.Deformed(px+u[k], py+v[k])
+		rx, ry, err1 := m.Map(px, py)
+		dx, dy, err2 := dm.Map(px+u[k], py+v[k])
+		if err1 != nil || err2 != nil {
+			fail(k)
+			continue
+		}
 		if su != nil {
-			jd := jac(m.Deformed, px+u[k], py+v[k])
+			jd, err := jac(dm, px+u[k], py+v[k])
+			if err != nil {
+				fail(k)
+				continue
+			}
 			a, b := su[k], sv[k]
 			su[k] = math.Hypot(jd[0]*a, jd[1]*b)
 			sv[k] = math.Hypot(jd[2]*a, jd[3]*b)

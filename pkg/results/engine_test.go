@@ -7,10 +7,15 @@ import (
 	"testing"
 
 	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/correlate"
 	"github.com/mottledic/mottle/pkg/series"
+	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/synth"
 )
+
+// A camera calibration's position mapping plugs into the field builder.
+var _ results.Mapping = (*calib.Mapping)(nil)
 
 // The series engine and mottle analyze build the same field from the same
 // pair through the one field builder: the same quantities, units, status

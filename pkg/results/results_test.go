@@ -35,8 +35,13 @@ func affineInput(F [2][2]float64, t [2]float64) Input {
 
 type scaleMapping struct{ a, b float64 }
 
-func (m scaleMapping) Reference(x, y float64) (float64, float64) { return m.a * x, m.b * y }
-func (m scaleMapping) Deformed(x, y float64) (float64, float64)  { return m.a * x, m.b * y }
+func (m scaleMapping) Map(x, y float64) (float64, float64, error) {
+	if x > 1000 {
+		return 0, 0, errors.New("outside the calibrated view")
+	}
+	return m.a * x, m.b * y, nil
+}
+func (m scaleMapping) Unit() string { return "mm" }
 
 // The builder's unit rule and its position mapping, against closed forms:
 // a homogeneous F gives E = ½(FᵀF − I) at every point with a full window
@@ -59,7 +64,7 @@ func TestBuild(t *testing.T) {
 	}{
 		{"px", Options{StrainWindow: 5, StrainFit: "plane"}, F, 1, 1, "px"},
 		{"mm_per_px", Options{StrainWindow: 5, StrainFit: "plane", MMPerPx: 0.02}, F, 0.02, 0.02, "mm"},
-		{"mapping", Options{StrainWindow: 5, StrainFit: "quadratic", Mapping: scaleMapping{a, b}, Length: "mm"}, Fp, a, b, "mm"},
+		{"mapping", Options{StrainWindow: 5, StrainFit: "quadratic", Mapping: scaleMapping{a, b}}, Fp, a, b, "mm"},
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
@@ -220,5 +225,30 @@ func TestEncodeDeterministic(t *testing.T) {
 				t.Errorf("%s differs between two encodings", name)
 			}
 		}
+	}
+}
+
+// A point the mapping cannot map has no result and says why.
+func TestBuildUnmapped(t *testing.T) {
+	in := affineInput([2][2]float64{{1, 0}, {0, 1}}, [2]float64{900, 0})
+	f, err := Build(context.Background(), in, Options{StrainWindow: 3, StrainFit: "plane", Mapping: scaleMapping{1, 1}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	u, _ := f.Get("u")
+	bad, good := 0, 0
+	for k := range u {
+		X, _ := in.Grid.At(k%in.Grid.Nx, k/in.Grid.Nx)
+		if float64(X)+in.U[k] > 1000 {
+			bad++
+			if !math.IsNaN(u[k]) || f.Status[k] != StatusUnmapped {
+				t.Fatalf("point %d maps outside the view: u %v, status %q", k, u[k], f.Status[k])
+			}
+		} else if !math.IsNaN(u[k]) {
+			good++
+		}
+	}
+	if bad == 0 || good == 0 {
+		t.Fatalf("%d unmapped and %d mapped points: the case tests nothing", bad, good)
 	}
 }
