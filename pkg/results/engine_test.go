@@ -9,8 +9,8 @@ import (
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/correlate"
-	"github.com/mottledic/mottle/pkg/series"
 	"github.com/mottledic/mottle/pkg/results"
+	"github.com/mottledic/mottle/pkg/series"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
