@@ -166,6 +166,9 @@ func TestBrowserPreview(t *testing.T) {
 
 	b.step("a series: frame slider and curve")
 	checkSeries(b, base)
+
+	b.step("camera calibration: per-view errors and the distortion plot")
+	checkCalibration(b)
 	b.finish()
 }
 
