@@ -9,15 +9,19 @@ import (
 	"encoding/json"
 	"encoding/xml"
 	"errors"
+	"fmt"
 	"io"
+	"maps"
 	"math"
 	"os"
 	"os/exec"
 	"path/filepath"
 	"reflect"
+	"slices"
 	"strconv"
 	"strings"
 	"testing"
+	"time"
 )
 
 func sameFloats(a, b []float64) bool {
@@ -496,6 +500,10 @@ func TestWriteFileAtomic(t *testing.T) {
 	}
 }
 
+// FuzzReadNPY: whatever ReadNPY accepts has as many values as its shape
+// says, and reads back unchanged (the same shape and the same float64
+// bits, NaN payloads included) after WriteNPY: read → write → read is
+// the identity, and write(read(b)) is a fixed point.
 func FuzzReadNPY(f *testing.F) {
 	var buf bytes.Buffer
 	WriteNPY(&buf, []float64{1, 2, 3, 4}, 2, 2)
@@ -513,9 +521,33 @@ func FuzzReadNPY(f *testing.F) {
 		if n != len(data) {
 			t.Fatalf("shape %v but %d values", shape, len(data))
 		}
+		var w1 bytes.Buffer
+		if err := WriteNPY(&w1, data, shape...); err != nil {
+			t.Fatalf("cannot write back an array of shape %v that was read: %v", shape, err)
+		}
+		data2, shape2, err := ReadNPY(bytes.NewReader(w1.Bytes()), 0)
+		if err != nil {
+			t.Fatalf("cannot read what WriteNPY wrote for shape %v: %v", shape, err)
+		}
+		if !slices.Equal(shape, shape2) || len(data) != len(data2) {
+			t.Fatalf("shape %v (%d values) read back as %v (%d values)", shape, len(data), shape2, len(data2))
+		}
+		for i := range data {
+			if math.Float64bits(data[i]) != math.Float64bits(data2[i]) {
+				t.Fatalf("value %d: %v (%#x) read back as %v (%#x)", i, data[i], math.Float64bits(data[i]), data2[i], math.Float64bits(data2[i]))
+			}
+		}
+		var w2 bytes.Buffer
+		if err := WriteNPY(&w2, data2, shape2...); err != nil || !bytes.Equal(w1.Bytes(), w2.Bytes()) {
+			t.Fatalf("writing the array read back gives other bytes (%v)", err)
+		}
 	})
 }
 
+// FuzzReadJSON: whatever ReadJSON accepts passes Validate, and reads back
+// equal after WriteJSON: the same grid, units, status and values (NaN
+// where NaN, otherwise the same float64), the same metadata, and
+// write(read(b)) is a fixed point.
 func FuzzReadJSON(f *testing.F) {
 	var buf bytes.Buffer
 	WriteJSON(&buf, sample(f))
@@ -529,8 +561,74 @@ func FuzzReadJSON(f *testing.F) {
 		if err := g.Validate(); err != nil {
 			t.Fatalf("ReadJSON returned a field that fails Validate: %v", err)
 		}
-		if err := WriteJSON(io.Discard, g); err != nil {
+		var w1 bytes.Buffer
+		if err := WriteJSON(&w1, g); err != nil {
 			t.Fatalf("cannot write back a field that was read: %v", err)
 		}
+		g2, err := ReadJSON(bytes.NewReader(w1.Bytes()))
+		if err != nil {
+			t.Fatalf("cannot read what WriteJSON wrote: %v\n%s", err, w1.Bytes())
+		}
+		if d := fieldDiff(g, g2); d != "" {
+			t.Fatalf("field read back differs: %s", d)
+		}
+		var w2 bytes.Buffer
+		if err := WriteJSON(&w2, g2); err != nil || !bytes.Equal(w1.Bytes(), w2.Bytes()) {
+			t.Fatalf("writing the field read back gives other bytes (%v)", err)
+		}
 	})
+}
+
+// fieldDiff describes the first difference between two fields, or returns
+// "". Values compare as float64 with NaN equal to NaN.
+func fieldDiff(a, b *Field) string {
+	same := func(x, y []float64) bool {
+		if len(x) != len(y) {
+			return false
+		}
+		for i := range x {
+			if x[i] != y[i] && !(math.IsNaN(x[i]) && math.IsNaN(y[i])) {
+				return false
+			}
+		}
+		return true
+	}
+	switch {
+	case a.Version != b.Version:
+		return fmt.Sprintf("version %d, %d", a.Version, b.Version)
+	case a.Grid.Nx != b.Grid.Nx || a.Grid.Ny != b.Grid.Ny || a.Grid.Step != b.Grid.Step || a.Grid.Subset != b.Grid.Subset:
+		return fmt.Sprintf("grid %d×%d step %d subset %d, %d×%d step %d subset %d", a.Grid.Nx, a.Grid.Ny, a.Grid.Step, a.Grid.Subset, b.Grid.Nx, b.Grid.Ny, b.Grid.Step, b.Grid.Subset)
+	case !same(a.Grid.X, b.Grid.X) || !same(a.Grid.Y, b.Grid.Y):
+		return "grid positions"
+	case !maps.Equal(a.Units, b.Units):
+		return fmt.Sprintf("units %v, %v", a.Units, b.Units)
+	case !slices.Equal(a.Status, b.Status):
+		return fmt.Sprintf("status %v, %v", a.Status, b.Status)
+	case len(a.Quantities) != len(b.Quantities):
+		return fmt.Sprintf("quantities %v, %v", a.Names(), b.Names())
+	case !a.Meta.Created.Equal(b.Meta.Created):
+		return fmt.Sprintf("created %v, %v", a.Meta.Created, b.Meta.Created)
+	}
+	for n, v := range a.Quantities {
+		if !same(v, b.Quantities[n]) {
+			return "values of " + n
+		}
+	}
+	ma, mb := a.Meta, b.Meta
+	ma.Created, mb.Created = time.Time{}, time.Time{}
+	if !reflect.DeepEqual(ma, mb) {
+		return fmt.Sprintf("meta %+v, %+v", ma, mb)
+	}
+	if !bytes.Equal(compactJSON(a.Params), compactJSON(b.Params)) {
+		return fmt.Sprintf("params %s, %s", a.Params, b.Params)
+	}
+	return ""
+}
+
+func compactJSON(b []byte) []byte {
+	var out bytes.Buffer
+	if json.Compact(&out, b) != nil {
+		return b
+	}
+	return out.Bytes()
 }
