@@ -1,7 +1,11 @@
 package analysis
 
 import (
+	"bytes"
+	"encoding/json"
 	"errors"
+	"fmt"
+	"reflect"
 	"strings"
 	"testing"
 
@@ -92,6 +96,11 @@ func TestParseJSON(t *testing.T) {
 	}
 }
 
+// FuzzParseJSON: parameters that ParseJSONBytes accepts are written back
+// as JSON (json.Marshal, as the service stores them) and parsed again to
+// the same parameters (empty lists are written as absent, so they come
+// back as nil), the JSON written is a fixed point, and Validate gives the
+// same verdict on both.
 func FuzzParseJSON(f *testing.F) {
 	f.Add([]byte(`{"subset": 31, "roi": {"rect": [0, 0, 10, 10]}}`))
 	f.Add([]byte(`{"seeds": [[1, 2]], "scale_points": {"a": [0, 0], "b": [1, 1], "distance_mm": 0}}`))
@@ -101,7 +110,44 @@ func FuzzParseJSON(f *testing.F) {
 		if err != nil {
 			return
 		}
-		_ = p.Validate(300, 200)
-		_ = p.Validate(0, 0)
+		w1, err := json.Marshal(p)
+		if err != nil {
+			t.Fatalf("cannot write back parameters that were read: %v", err)
+		}
+		p2, err := ParseJSONBytes(w1)
+		if err != nil {
+			t.Fatalf("cannot read the parameters written back: %v\n%s", err, w1)
+		}
+		if want := withoutEmptyLists(p); !reflect.DeepEqual(want, p2) {
+			t.Fatalf("parameters read back differ:\n%+v\n%+v\n(written %s)", want, p2, w1)
+		}
+		if w2, err := json.Marshal(p2); err != nil || !bytes.Equal(w1, w2) {
+			t.Fatalf("writing the parameters read back gives other JSON (%v):\n%s\n%s", err, w1, w2)
+		}
+		for _, size := range [][2]int{{300, 200}, {0, 0}} {
+			e1, e2 := p.Validate(size[0], size[1]), p2.Validate(size[0], size[1])
+			if fmt.Sprint(e1) != fmt.Sprint(e2) {
+				t.Fatalf("Validate(%d, %d) differs after the round trip: %v, then %v", size[0], size[1], e1, e2)
+			}
+		}
 	})
+}
+
+// withoutEmptyLists returns p with its empty (non-nil) lists set to nil:
+// json.Marshal leaves them out (omitempty), so they read back as nil.
+func withoutEmptyLists(p Params) Params {
+	if len(p.Seeds) == 0 {
+		p.Seeds = nil
+	}
+	if p.ROI != nil {
+		r := *p.ROI
+		if len(r.Polygon) == 0 {
+			r.Polygon = nil
+		}
+		if len(r.Holes) == 0 {
+			r.Holes = nil
+		}
+		p.ROI = &r
+	}
+	return p
 }
