@@ -2,11 +2,17 @@ package service_test
 
 import (
 	"bytes"
+	"encoding/json"
+	"image"
+	"image/color"
 	"net/http"
 	"net/http/httptest"
+	"strings"
 	"testing"
 	"time"
 
+	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/service"
 )
 
@@ -24,7 +30,12 @@ func checkAnswer(t *testing.T, rec *httptest.ResponseRecorder) {
 	}
 }
 
-// FuzzParams submits a valid pair with fuzzed parameter JSON.
+// FuzzParams submits a valid pair with fuzzed parameter JSON. The service
+// accepts exactly the parameters that analysis.ParseJSONBytes reads and
+// Validate passes for the 32×32 pair (every step gives fewer grid points
+// than the server's limit of 5000 there), and the parameters it records
+// and answers read back as the same parameters: the parameter JSON makes
+// the round trip request → record → answer unchanged.
 func FuzzParams(f *testing.F) {
 	for _, s := range []string{``, `{}`, `{"subset": 15}`, `{"subset": 15, "step": 4, "shape": "second"}`,
 		`{"roi": {"rect": [0, 0, 10, 10]}}`, `{"roi": {"polygon": [[1, 1], [30, 1], [20, 30]], "holes": [[[5, 5]]]}}`,
@@ -43,11 +54,51 @@ func FuzzParams(f *testing.F) {
 		rec := httptest.NewRecorder()
 		ts.srv.Handler().ServeHTTP(rec, req)
 		checkAnswer(t, rec)
+		if rec.Code == http.StatusTooManyRequests {
+			return // the queue is full of earlier inputs' jobs
+		}
+		if strings.Contains(params, "\r\n--") {
+			return // may end the part early: the server reads other params
+		}
+		p, err := analysis.ParseJSONBytes([]byte(params))
+		if err == nil {
+			err = p.Validate(32, 32)
+		}
+		if accepted := rec.Code == http.StatusAccepted; accepted != (err == nil) {
+			t.Fatalf("answer %d for parameters that read and validate with error %v: %s", rec.Code, err, rec.Body)
+		}
+		if err != nil {
+			return
+		}
+		var ans struct {
+			Params        json.RawMessage `json:"params"`
+			Width, Height int
+		}
+		if err := json.Unmarshal(rec.Body.Bytes(), &ans); err != nil {
+			t.Fatalf("answer: %v: %s", err, rec.Body)
+		}
+		back, err := analysis.ParseJSONBytes(ans.Params)
+		if err != nil {
+			t.Fatalf("the answered parameters %s do not read: %v", ans.Params, err)
+		}
+		want, _ := json.Marshal(p)
+		got, _ := json.Marshal(back)
+		if !bytes.Equal(want, got) {
+			t.Fatalf("parameters sent %s, recorded and answered as %s (%s)", want, got, ans.Params)
+		}
+		if ans.Width != 32 || ans.Height != 32 {
+			t.Fatalf("answered image size %d×%d, want 32×32", ans.Width, ans.Height)
+		}
 	})
 }
 
 // FuzzImage submits a fuzzed deformed image, through the multipart path
-// and as a raw series frame.
+// and as a raw series frame. An image that imageio.Decode reads must have
+// the size and bit depth its header declares, read by image.DecodeConfig
+// of the standard library and golang.org/x/image (16 bits for the 16-bit
+// colour models, 8 for the others), and grey levels within that depth;
+// the service accepts the image exactly when it decodes with the size of
+// the 32×32 reference.
 func FuzzImage(f *testing.F) {
 	ref, def := pair(f, 32, 32, 1, 0, 22)
 	f.Add(def)
@@ -55,7 +106,24 @@ func FuzzImage(f *testing.F) {
 	f.Add(hugeTIFF())
 	f.Add([]byte("BM\x00\x00"))
 	f.Add([]byte("\xff\xd8\xff\xe0"))
-	ts := newServerWith(f, true, func(c *service.Config) { c.MaxPixels = 1 << 16; c.JobTimeout = time.Second })
+	for _, bits := range []int{8, 16} {
+		g, err := imageio.Decode(bytes.NewReader(def), imageio.Limits{})
+		if err != nil {
+			f.Fatal(err)
+		}
+		var b bytes.Buffer
+		if err := imageio.WriteTIFF(&b, g, bits); err != nil {
+			f.Fatal(err)
+		}
+		f.Add(b.Bytes())
+		b.Reset()
+		if err := imageio.WritePNG(&b, g, bits); err != nil {
+			f.Fatal(err)
+		}
+		f.Add(b.Bytes())
+	}
+	lim := imageio.Limits{MaxPixels: 1 << 16}
+	ts := newServerWith(f, true, func(c *service.Config) { c.MaxPixels = lim.MaxPixels; c.JobTimeout = time.Second })
 	ct, body := multipartBody(f, part{"reference", "r.png", "image/png", ref}, part{"params", "", "", []byte(`{"subset": 15}`)})
 	req := httptest.NewRequest("POST", "/v1/series", bytes.NewReader(body))
 	req.Header.Set("Content-Type", ct)
@@ -65,18 +133,66 @@ func FuzzImage(f *testing.F) {
 		f.Fatalf("create series: %d %s", rec.Code, rec.Body)
 	}
 	sid := decodeJSON[struct{ ID string }](f, rec.Body.Bytes()).ID
+	refGray, err := imageio.Decode(bytes.NewReader(ref), lim)
+	if err != nil {
+		f.Fatal(err)
+	}
 	f.Fuzz(func(t *testing.T, img []byte) {
+		g, err := imageio.Decode(bytes.NewReader(img), lim)
+		if err == nil {
+			checkHeader(t, img, g)
+		}
+		// The service takes the image when it decodes to the reference's
+		// size and the pair is usable (imageio.CheckPair, as the service
+		// checks it).
+		usable := err == nil && g.W == 32 && g.H == 32 && imageio.CheckPair(refGray, g, 15) == nil
+
 		ct, body := multipartBody(t, analysisParts(ref, img, `{"subset": 15}`)...)
 		req := httptest.NewRequest("POST", "/v1/analyses", bytes.NewReader(body))
 		req.Header.Set("Content-Type", ct)
 		rec := httptest.NewRecorder()
 		ts.srv.Handler().ServeHTTP(rec, req)
 		checkAnswer(t, rec)
+		if rec.Code != http.StatusTooManyRequests && (rec.Code == http.StatusAccepted) != usable {
+			t.Fatalf("analysis: answer %d for an image that decodes with error %v: %s", rec.Code, err, rec.Body)
+		}
 
 		req = httptest.NewRequest("POST", "/v1/series/"+sid+"/frames?wait=false", bytes.NewReader(img))
 		req.Header.Set("Content-Type", "application/octet-stream")
 		rec = httptest.NewRecorder()
 		ts.srv.Handler().ServeHTTP(rec, req)
 		checkAnswer(t, rec)
+		if rec.Code == http.StatusAccepted && (err != nil || g.W != 32 || g.H != 32) {
+			t.Fatalf("frame: accepted an image that decodes with error %v: %s", err, rec.Body)
+		}
 	})
+}
+
+// checkHeader fails unless g, decoded from data, has the size and bit
+// depth that the header of data declares, and grey levels within it.
+func checkHeader(t *testing.T, data []byte, g *imageio.Gray) {
+	t.Helper()
+	cfg, format, err := image.DecodeConfig(bytes.NewReader(data))
+	if err != nil {
+		t.Fatalf("imageio.Decode read an image whose header image.DecodeConfig refuses: %v", err)
+	}
+	if g.W != cfg.Width || g.H != cfg.Height || len(g.Pix) < g.W*g.H {
+		t.Fatalf("%s: decoded %d×%d (%d values), header %d×%d", format, g.W, g.H, len(g.Pix), cfg.Width, cfg.Height)
+	}
+	bits := 8
+	switch cfg.ColorModel {
+	case color.Gray16Model, color.RGBA64Model, color.NRGBA64Model:
+		bits = 16
+	}
+	if g.Bits != bits {
+		t.Fatalf("%s: decoded with %d bits, the header's colour model %T has %d", format, g.Bits, cfg.ColorModel, bits)
+	}
+	top := float32(int(1)<<bits - 1)
+	for y := 0; y < g.H; y++ {
+		for x := 0; x < g.W; x++ {
+			if v := g.At(x, y); !(v >= 0 && v <= top) {
+				t.Fatalf("%s: grey level %v at (%d, %d) outside 0–%v of %d bits", format, v, x, y, top, bits)
+			}
+		}
+	}
 }
