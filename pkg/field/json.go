@@ -249,7 +249,8 @@ func header(f *Field) ([]entry, error) {
 	return out, nil
 }
 
-// ReadJSON reads a field written by [WriteJSON]; null values become NaN.
+// ReadJSON reads a field written by [WriteJSON]; null values become NaN,
+// and units of quantities the document does not hold are dropped.
 // It returns an error for a document of another format or a newer version,
 // and for a field that fails [Field.Validate].
 func ReadJSON(r io.Reader) (*Field, error) {
@@ -264,6 +265,14 @@ func ReadJSON(r io.Reader) (*Field, error) {
 	}
 	for n, q := range j.Quantities {
 		f.Quantities[n] = q
+	}
+	// Units belong to quantities: as WriteJSON writes only the units of
+	// the field's quantities, a unit naming no quantity is dropped here,
+	// so that a field reads back the same after it is written.
+	for n := range f.Units {
+		if _, ok := f.Quantities[n]; !ok {
+			delete(f.Units, n)
+		}
 	}
 	if err := f.Validate(); err != nil {
 		return nil, fmt.Errorf("field.json: %w", err)
