@@ -545,9 +545,9 @@ func NewRigFile(r *StereoResult, t *Target, rejected []Rejected, now time.Time) 
 	}
 	f := &RigFile{
 		Format: RigFormat, Created: now.UTC().Format(time.RFC3339), Model: Model,
-		Image: [2]int{r.Rig.W, r.Rig.H},
-		Left:  RigCamera{Camera: paramsOf(r.Rig.Left), Std: paramsFromStd(r.Std[:nIntr]), RMS: r.RMSLeft},
-		Right: RigCamera{Camera: paramsOf(r.Rig.Right), Std: paramsFromStd(r.Std[nIntr : 2*nIntr]), RMS: r.RMSRight},
+		Image:         [2]int{r.Rig.W, r.Rig.H},
+		Left:          RigCamera{Camera: paramsOf(r.Rig.Left), Std: paramsFromStd(r.Std[:nIntr]), RMS: r.RMSLeft},
+		Right:         RigCamera{Camera: paramsOf(r.Rig.Right), Std: paramsFromStd(r.Std[nIntr : 2*nIntr]), RMS: r.RMSRight},
 		RightFromLeft: RigPose{Rot: r.Rot, T: r.Rig.T},
 		Baseline:      r.Rig.Baseline(), Angle: r.Rig.Angle(), RMS: r.RMS, Sigma: r.Sigma,
 		Target: tc, Views: r.Views, Rejected: rejected, Caution: Caution,
