@@ -100,25 +100,9 @@ func newTracker(ref *imageio.Gray, meta FrameMeta, p Params, c correlator) (*Tra
 			t.st.Points[k] = PointState{X: x, Y: y, F: [4]float64{1, 0, 0, 1}, Valid: true, ZNCC: 1}
 		}
 	}
-	row := Summary{Index: 0, Name: meta.Name, Time: meta.Time, Load: meta.Load, Mode: ModeReference,
-		ValidFraction: 1, Tracked: 1, MeanZNCC: 1, Mean: map[string]float64{}}
+	row := ReferenceRow(meta.Name, p)
+	row.Time, row.Load = meta.Time, meta.Load
 	row.Stress = t.stress(meta.Load)
-	for _, name := range MeanNames {
-		row.Mean[name] = 0
-	}
-	for _, e := range p.Extensometers {
-		L0 := math.Hypot(e.B[0]-e.A[0], e.B[1]-e.A[1])
-		row.Extensometers = append(row.Extensometers, ExtReading{Name: e.Name, L0: L0, L: L0, Stretch: 1, Valid: true})
-	}
-	for _, gg := range p.Gauges {
-		for _, c := range gg.components() {
-			v := 0.0
-			if c == "F11" || c == "F22" || c == "detF" {
-				v = 1
-			}
-			row.Gauges = append(row.Gauges, GaugeReading{Gauge: gg.Name, Component: c, Mean: v, Min: v, Max: v})
-		}
-	}
 	t.st.Curve = []Summary{row}
 	zero := make(nfloats, n)
 	t.st.History = []Snapshot{{Time: timeOr(meta.Time), HasTime: meta.Time != nil, U: zero, V: zero, E11: zero, E22: zero, E12: zero}}
@@ -143,15 +127,44 @@ func (t *Tracker) stress(load *float64) *float64 {
 // Params returns the tracker's parameters with defaults filled in.
 func (t *Tracker) Params() Params { return t.st.Params }
 
+// ReferenceRow returns row 0 of a series' curve, the reference itself: no
+// motion, every point valid, extensometers at their length and gauges at
+// zero strain (p with defaults).
+func ReferenceRow(name string, p Params) Summary {
+	p = p.withDefaults()
+	row := Summary{Index: 0, Name: name, Mode: ModeReference,
+		ValidFraction: 1, Tracked: 1, MeanZNCC: 1, Mean: map[string]float64{}}
+	for _, name := range MeanNames {
+		row.Mean[name] = 0
+	}
+	for _, e := range p.Extensometers {
+		L0 := math.Hypot(e.B[0]-e.A[0], e.B[1]-e.A[1])
+		row.Extensometers = append(row.Extensometers, ExtReading{Name: e.Name, L0: L0, L: L0, Stretch: 1, Valid: true})
+	}
+	for _, gg := range p.Gauges {
+		for _, c := range gg.components() {
+			v := 0.0
+			if c == "F11" || c == "F22" || c == "detF" {
+				v = 1
+			}
+			row.Gauges = append(row.Gauges, GaugeReading{Gauge: gg.Name, Component: c, Mean: v, Min: v, Max: v})
+		}
+	}
+	return row
+}
+
+// CurveOf returns the curve a tracker in state st has made so far: the
+// one curve of a series, written by the CLI and served by the service.
+func CurveOf(st State) Curve {
+	return Curve{Rows: append([]Summary(nil), st.Curve...), Params: st.Params, Noise: NoiseFromFrames(st.Static)}
+}
+
 // Len returns the number of frames added (the reference not counted).
 func (t *Tracker) Len() int { return len(t.st.Curve) - 1 }
 
 // Curve returns the curve so far: one Summary per frame, the reference
 // first. The slice is a copy.
-func (t *Tracker) Curve() Curve {
-	rows := append([]Summary(nil), t.st.Curve...)
-	return Curve{Rows: rows, Params: t.st.Params, Noise: t.NoiseFloor()}
-}
+func (t *Tracker) Curve() Curve { return CurveOf(t.st) }
 
 // Add correlates the next frame, updates the tracked points and returns the
 // frame's results. A cancelled context returns its error and leaves the

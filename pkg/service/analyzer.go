@@ -72,9 +72,9 @@ type FrameInput struct {
 	Params json.RawMessage
 	// State is the engine state after Last, nil for the first frame.
 	State []byte
-	// Name, Time and Load describe the frame.
-	Name       string
-	Time, Load *float64
+	// Name, Time and Load describe the frame; RefName names the reference.
+	Name, RefName string
+	Time, Load    *float64
 	// Threads caps the worker goroutines of the correlation (0 = all cores).
 	Threads int
 	// Mask, if not nil, is the series' ROI mask image (non-zero = inside,

@@ -147,7 +147,11 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 			return nil, err
 		}
 		p.Analysis.Threads = in.Threads
-		tr, err = series.NewWith(in.Ref, series.FrameMeta{Name: "reference"}, p, series.Options{Mask: in.Mask})
+		ref := in.RefName
+		if ref == "" {
+			ref = "reference"
+		}
+		tr, err = series.NewWith(in.Ref, series.FrameMeta{Name: ref}, p, series.Options{Mask: in.Mask})
 	} else {
 		var st series.State
 		if err = json.Unmarshal(in.State, &st); err != nil {

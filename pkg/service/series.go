@@ -3,17 +3,17 @@ package service
 import (
 	"bytes"
 	"context"
-	"encoding/csv"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"net/http"
 	"sort"
-	"strconv"
 	"strings"
 	"time"
 
 	"github.com/go-chi/chi/v5"
 
+	"github.com/mottledic/mottle/pkg/series"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
@@ -82,7 +82,7 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 	}
 	now := time.Now().UTC()
 	sr := &jobs.Series{ID: jobs.NewID(), Params: params, Width: ref.W, Height: ref.H, HasMask: u.raw["mask"] != nil,
-		Created: now, Updated: now, Frames: []string{}}
+		ReferenceName: frameName(u.files["reference"], "reference"), Created: now, Updated: now, Frames: []string{}}
 	for name, b := range u.raw {
 		if err := s.blobs.Put(r.Context(), jobs.SeriesKey(sr.ID, name), bytes.NewReader(b)); err != nil {
 			s.blobs.Delete(r.Context(), jobs.SeriesKey(sr.ID, ""))
@@ -136,6 +136,12 @@ func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 		time, load *float64
 		wait       bool
 	}
+	name := r.URL.Query().Get("name")
+	if len(name) > 200 || strings.ContainsAny(name, "\r\n\x00/\\") {
+		writeProblem(w, r, problem(http.StatusBadRequest, "bad-query", "Invalid query", "name is too long or holds a line break, NUL or slash",
+			FieldProblem{"name", "give the frame's file name, e.g. name=frame_012.tif"}))
+		return
+	}
 	var err error
 	if opts.time, err = floatQuery(r, "time"); err == nil {
 		if opts.load, err = floatQuery(r, "load"); err == nil {
@@ -158,7 +164,7 @@ func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 		return
 	}
 	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Frame, State: jobs.Queued, Params: sr.Params, Width: g.W, Height: g.H,
-		HasMask: sr.HasMask, Series: sr.ID, Time: opts.time, Load: opts.load, Created: time.Now().UTC()}
+		HasMask: sr.HasMask, Series: sr.ID, Time: opts.time, Load: opts.load, Name: name, Created: time.Now().UTC()}
 	ctx := r.Context()
 	// Reserve the next frame index; give it back if the job is not accepted.
 	_, err = s.store.UpdateSeries(ctx, sr.ID, func(sr *jobs.Series) error {
@@ -279,61 +285,93 @@ func (s *Server) curveJSON(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 	writeJSON(w, http.StatusOK, map[string]any{"series": sr.ID, "frames": rows})
 }
 
-func (s *Server) curveCSV(w http.ResponseWriter, r *http.Request, sr *jobs.Series) {
-	rows, means, gauges, err := s.curve(r.Context(), sr)
+// frameName returns the base name of an uploaded file name, or def.
+func frameName(file, def string) string {
+	if i := strings.LastIndexAny(file, "/\\"); i >= 0 {
+		file = file[i+1:]
+	}
+	if file == "" {
+		return def
+	}
+	return file
+}
+
+// seriesCurve returns the curve of a series in the one curve format of
+// pkg/series: the series engine's own rows from the tracker state after
+// the last frame that succeeded, or, for an analyzer without a series
+// engine, rows made from the frames' summaries.
+func (s *Server) seriesCurve(ctx context.Context, sr *jobs.Series) (series.Curve, error) {
+	p, err := decodeSeriesParams(sr.Params)
 	if err != nil {
+		return series.Curve{}, err
+	}
+	list, err := s.frames(ctx, sr)
+	if err != nil {
+		return series.Curve{}, err
+	}
+	for i := len(list) - 1; i >= 0; i-- {
+		j := list[i]
+		if j.State != jobs.Succeeded {
+			continue
+		}
+		rc, err := s.blobs.Get(ctx, stateKey(sr.ID, j.FrameIndex))
+		if err != nil {
+			break
+		}
+		var st series.State
+		err = json.NewDecoder(rc).Decode(&st)
+		rc.Close()
+		if err != nil {
+			return series.Curve{}, fmt.Errorf("stored series state: %w", err)
+		}
+		return series.CurveOf(st), nil
+	}
+	ref := sr.ReferenceName
+	if ref == "" {
+		ref = "reference"
+	}
+	c := series.Curve{Params: p, Rows: []series.Summary{series.ReferenceRow(ref, p)}}
+	for _, j := range list {
+		sm := j.Summary
+		if j.State != jobs.Succeeded || sm == nil {
+			continue
+		}
+		row := series.Summary{Index: j.FrameIndex + 1, Name: j.Name, Time: j.Time, Load: j.Load, Mode: sm.Mode,
+			ValidFraction: sm.ValidFraction, Mean: map[string]float64{}}
+		if row.Name == "" {
+			row.Name = fmt.Sprintf("frame_%d", j.FrameIndex)
+		}
+		if row.Mode == "" {
+			row.Mode = series.ModeDirect
+		}
+		if sm.MeanZNCC != nil {
+			row.MeanZNCC = *sm.MeanZNCC
+		}
+		if sm.Tracked != nil {
+			row.Tracked = *sm.Tracked
+		}
+		for _, q := range series.MeanNames {
+			if v, ok := sm.Mean[q]; ok {
+				row.Mean[q] = v
+			}
+		}
+		c.Rows = append(c.Rows, row)
+	}
+	return c, nil
+}
+
+func (s *Server) curveCSV(w http.ResponseWriter, r *http.Request, sr *jobs.Series) {
+	c, err := s.seriesCurve(r.Context(), sr)
+	if err != nil {
+		writeProblem(w, r, asProblem(err, ""))
+		return
+	}
+	var b bytes.Buffer
+	if err := c.WriteCSV(&b); err != nil {
 		writeProblem(w, r, asProblem(err, ""))
 		return
 	}
 	w.Header().Set("Content-Type", "text/csv; charset=utf-8")
 	w.Header().Set("Content-Disposition", `attachment; filename="curve.csv"`)
-	cw := csv.NewWriter(w)
-	modes := false
-	for _, row := range rows {
-		modes = modes || row.Mode != ""
-	}
-	head := []string{"frame", "time", "load", "state", "valid_fraction"}
-	if modes {
-		head = append(head, "mode")
-	}
-	for _, k := range means {
-		head = append(head, "mean_"+k)
-	}
-	for _, k := range gauges {
-		// The series engine names its readings like the columns of its
-		// own curve (gauge_<name>_<component>_mean, ext_<name>_eng).
-		if !strings.HasPrefix(k, "gauge_") && !strings.HasPrefix(k, "ext_") {
-			k = "gauge_" + k
-		}
-		head = append(head, k)
-	}
-	_ = cw.Write(head)
-	num := func(p *float64) string {
-		if p == nil {
-			return ""
-		}
-		return strconv.FormatFloat(*p, 'g', -1, 64)
-	}
-	for _, row := range rows {
-		rec := []string{strconv.Itoa(row.Frame), num(row.Time), num(row.Load), string(row.State), num(row.ValidFraction)}
-		if modes {
-			rec = append(rec, row.Mode)
-		}
-		for _, k := range means {
-			if v, ok := row.Mean[k]; ok {
-				rec = append(rec, num(&v))
-			} else {
-				rec = append(rec, "")
-			}
-		}
-		for _, k := range gauges {
-			if v, ok := row.Gauges[k]; ok {
-				rec = append(rec, num(&v))
-			} else {
-				rec = append(rec, "")
-			}
-		}
-		_ = cw.Write(rec)
-	}
-	cw.Flush()
+	_, _ = w.Write(b.Bytes())
 }

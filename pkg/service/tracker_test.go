@@ -160,7 +160,7 @@ func TestSeriesTracker(t *testing.T) {
 		t.Fatalf("curve.csv: %d %s", resp.StatusCode, b)
 	}
 	rows, err := csv.NewReader(bytes.NewReader(b)).ReadAll()
-	if err != nil || len(rows) != len(frames)+1 {
+	if err != nil || len(rows) != len(frames)+2 { // header, reference, frames
 		t.Fatalf("curve.csv (%v):\n%s", err, b)
 	}
 	col := map[string]int{}

@@ -19,6 +19,7 @@ const maxParamsBytes = 1 << 20
 // upload is a parsed multipart submission.
 type upload struct {
 	raw     map[string][]byte        // encoded images by part name
+	files   map[string]string        // file names of the parts that gave one
 	img     map[string]*imageio.Gray // decoded images by part name
 	params  []byte
 	hasJSON bool
@@ -70,7 +71,7 @@ func (s *Server) readMultipart(w http.ResponseWriter, r *http.Request, images []
 	for _, n := range optional {
 		want[n] = true
 	}
-	u := &upload{raw: map[string][]byte{}, img: map[string]*imageio.Gray{}}
+	u := &upload{raw: map[string][]byte{}, img: map[string]*imageio.Gray{}, files: map[string]string{}}
 	for {
 		part, err := mr.NextPart()
 		if errors.Is(err, io.EOF) {
@@ -106,6 +107,9 @@ func (s *Server) readMultipart(w http.ResponseWriter, r *http.Request, images []
 				return nil, bodyErr(err, name)
 			}
 			u.raw[name] = b
+			if fn := part.FileName(); fn != "" {
+				u.files[name] = fn
+			}
 		default:
 			return nil, problem(http.StatusBadRequest, "unknown-part", "Unknown part",
 				fmt.Sprintf("the part %q is not one this endpoint reads; send %s and params", name, strings.Join(append(images, optional...), ", ")),

@@ -343,8 +343,14 @@ func (s *Server) dropOldState(ctx context.Context, j *jobs.Job) {
 // computeFrame runs series frame j through the series engine, from the
 // state after the last frame that succeeded before it.
 func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer, progress func(done, total int)) (*Result, error) {
-	in := FrameInput{Params: j.Params, Name: fmt.Sprintf("frame_%d", j.FrameIndex), Time: j.Time, Load: j.Load,
-		Threads: s.cfg.JobThreads, Progress: progress}
+	in := FrameInput{Params: j.Params, Name: j.Name, Time: j.Time, Load: j.Load,
+		Threads: s.cfg.JobThreads, Progress: progress, RefName: "reference"}
+	if in.Name == "" {
+		in.Name = fmt.Sprintf("frame_%d", j.FrameIndex)
+	}
+	if sr, err := s.store.Series(ctx, j.Series); err == nil && sr.ReferenceName != "" {
+		in.RefName = sr.ReferenceName
+	}
 	var err error
 	if in.Ref, err = s.loadImage(ctx, jobs.SeriesKey(j.Series, "reference")); err != nil {
 		return nil, err

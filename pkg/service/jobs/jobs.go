@@ -115,10 +115,12 @@ type Job struct {
 
 	// Series and FrameIndex identify a frame job; Time and Load are the
 	// values given with the frame, if any.
-	Series     string   `json:"series,omitempty"`
-	FrameIndex int      `json:"frame,omitempty"`
-	Time       *float64 `json:"time,omitempty"`
-	Load       *float64 `json:"load,omitempty"`
+	Series     string `json:"series,omitempty"`
+	FrameIndex int    `json:"frame,omitempty"`
+	// Name names a frame in its series' curve (default frame_<index>).
+	Name string   `json:"name,omitempty"`
+	Time *float64 `json:"time,omitempty"`
+	Load *float64 `json:"load,omitempty"`
 
 	Created  time.Time  `json:"created"`
 	Started  *time.Time `json:"started,omitempty"`
@@ -144,9 +146,12 @@ type Series struct {
 	Width  int             `json:"width"`
 	Height int             `json:"height"`
 	// HasMask is true when a mask was uploaded (SeriesKey(ID, "mask")).
-	HasMask bool      `json:"has_mask,omitempty"`
-	Created time.Time `json:"created"`
-	Updated time.Time `json:"updated"`
+	HasMask bool `json:"has_mask,omitempty"`
+	// ReferenceName names the reference in the curve: the file name of
+	// the uploaded part, or "reference".
+	ReferenceName string    `json:"reference_name,omitempty"`
+	Created       time.Time `json:"created"`
+	Updated       time.Time `json:"updated"`
 	// Frames holds the job id of each frame, by frame index.
 	Frames []string `json:"frames"`
 }
