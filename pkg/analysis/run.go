@@ -12,6 +12,7 @@ import (
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/kinematics"
+	"github.com/mottledic/mottle/pkg/quality"
 	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/roi"
 	"github.com/mottledic/mottle/pkg/spline"
@@ -35,6 +36,10 @@ type Job struct {
 	Start []correlate.Point
 	// Progress, if not nil, receives the correlation progress.
 	Progress func(done, total int)
+	// Quality, if not nil, is the image quality of Ref and Def already
+	// assessed by the caller (quality.AssessPair over the same ROI); nil =
+	// RunJob assesses it.
+	Quality []quality.Report
 }
 
 // Output is the result of an analysis: the field and the correlation result
@@ -42,6 +47,9 @@ type Job struct {
 type Output struct {
 	Field       *field.Field
 	Correlation *correlate.Result
+	// Quality holds the image quality of the reference and the deformed
+	// image (package quality), also stored in Field.Meta.Extra["image_quality"].
+	Quality []quality.Report
 	// Elapsed is the wall time of correlation and kinematics.
 	Elapsed time.Duration
 }
@@ -75,6 +83,12 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 		return nil, err
 	}
 	opt.Start, opt.Progress = j.Start, j.Progress
+	qual := j.Quality
+	if qual == nil {
+		if qual, err = quality.AssessPair(j.Ref, j.Def, opt.Mask, quality.Thresholds{}); err != nil {
+			return nil, err
+		}
+	}
 	res, err := correlate.Run(ctx, j.Ref, j.Def, opt)
 	if err != nil {
 		return nil, fmt.Errorf("correlation: %w", err)
@@ -85,12 +99,13 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 	}
 	f.Meta.Reference, f.Meta.Deformed = j.RefName, j.DefName
 	f.Meta.ImageWidth, f.Meta.ImageHeight = j.Ref.W, j.Ref.H
+	f.Meta.Extra["image_quality"] = plain(qual)
 	elapsed := time.Since(start)
 	f.Meta.Extra["elapsed_s"] = math.Round(elapsed.Seconds()*1000) / 1000
 	if s := elapsed.Seconds(); s > 0 {
 		f.Meta.Extra["points_per_second"] = math.Round(float64(res.Grid.Len()) / s)
 	}
-	return &Output{Field: f, Correlation: res, Elapsed: elapsed}, nil
+	return &Output{Field: f, Correlation: res, Quality: qual, Elapsed: elapsed}, nil
 }
 
 // CorrelationOptions turns the parameters into correlator options for

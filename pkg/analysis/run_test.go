@@ -172,3 +172,38 @@ func TestSpatialView(t *testing.T) {
 		t.Errorf("only %d of %d spatial points covered", n, s.Grid.Len())
 	}
 }
+
+// The image quality of both images is stored with the result: an
+// over-exposed deformed image (gain 1.4) warns of saturation and of the
+// brightness change against the reference, in the Output and in the
+// field's metadata; the reference warns of nothing.
+func TestRunStoresImageQuality(t *testing.T) {
+	po := synth.PatternOptions{Seed: 2, EdgeBlur: 1}
+	ref, _, err := synth.Pair(po, nil, synth.RenderOptions{W: 96, H: 96})
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, def, err := synth.Pair(po, synth.Translation{U: 0.5}, synth.RenderOptions{W: 96, H: 96, Gain: 1.4 * 255})
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := Defaults()
+	p.Subset, p.Step = 21, 12
+	out, err := RunJob(context.Background(), Job{Ref: ref, Def: def, Params: p})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(out.Quality) != 2 || len(out.Quality[0].Warnings) != 0 {
+		t.Fatalf("quality %+v", out.Quality)
+	}
+	var got []string
+	for _, w := range out.Quality[1].Warnings {
+		got = append(got, w.Code)
+	}
+	if fmt.Sprint(got) != "[saturated brightness_change]" {
+		t.Errorf("deformed image warnings %v, want [saturated brightness_change]", got)
+	}
+	if _, ok := out.Field.Meta.Extra["image_quality"]; !ok {
+		t.Error("field metadata has no image_quality")
+	}
+}

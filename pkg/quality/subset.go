@@ -103,12 +103,17 @@ type SubsetChoice struct {
 	// Met is the share of the points at which Subset meets the target.
 	Met float64 `json:"met_fraction"`
 	// Sizes are the subsets tried, and Quantile the predicted σ reached by
-	// Fraction of the points for each (NaN where no point fits).
+	// Fraction of the points for each (0 where no point fits, −1 where
+	// the pattern there is flat: no gradient at all).
 	Sizes    []int     `json:"sizes_px"`
 	Quantile []float64 `json:"quantile_std_px"`
 	// X0, Y0, Step, Nx and Ny define the grid of points: point (i, j) is at
 	// (X0 + i·Step, Y0 + j·Step), stored row-major.
-	X0, Y0, Step, Nx, Ny int
+	X0   int `json:"x0"`
+	Y0   int `json:"y0"`
+	Step int `json:"step_px"`
+	Nx   int `json:"nx"`
+	Ny   int `json:"ny"`
 	// Required is, per grid point, the smallest subset that meets the
 	// target there; 0 where even Max does not, −1 where not even Min fits
 	// in the image and ROI.
@@ -251,12 +256,16 @@ func ChooseSubset(ctx context.Context, ref *imageio.Gray, o SubsetOptions) (*Sub
 		}
 		c.Sizes = append(c.Sizes, s)
 		if len(pred) == 0 {
-			c.Quantile = append(c.Quantile, math.NaN())
+			c.Quantile = append(c.Quantile, 0)
 			continue
 		}
 		slices.Sort(pred)
 		q := pred[max(0, int(math.Ceil(o.Fraction*float64(len(pred))))-1)]
-		c.Quantile = append(c.Quantile, q)
+		if math.IsInf(q, 1) {
+			c.Quantile = append(c.Quantile, -1)
+		} else {
+			c.Quantile = append(c.Quantile, q)
+		}
 		if c.Subset == 0 && q <= o.Target {
 			c.Subset = s
 			c.Predicted, c.Median = q, pred[(len(pred)-1)/2]
@@ -265,14 +274,15 @@ func ChooseSubset(ctx context.Context, ref *imageio.Gray, o SubsetOptions) (*Sub
 		}
 	}
 	if c.Subset == 0 {
-		best := math.NaN()
-		for i := len(c.Quantile) - 1; i >= 0; i-- {
-			if !math.IsNaN(c.Quantile[i]) {
-				best = c.Quantile[i]
-				break
-			}
+		best := 0.0
+		for i := len(c.Quantile) - 1; i >= 0 && best == 0; i-- {
+			best = c.Quantile[i]
 		}
-		if math.IsNaN(best) {
+		if best == -1 {
+			return c, fmt.Errorf("%w: at %.0f %% of the points even a %d px subset holds no intensity gradient; the image shows no pattern there",
+				ErrUnreachable, 100*o.Fraction, o.Max)
+		}
+		if best == 0 {
 			return c, fmt.Errorf("%w: no subset from %d to %d px fits inside the image and ROI", ErrUnreachable, o.Min, o.Max)
 		}
 		return c, fmt.Errorf("%w: %.2g px at %.0f %% of the points needs a subset above %d px (there the prediction is %.2g px); "+

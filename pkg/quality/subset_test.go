@@ -2,6 +2,7 @@ package quality_test
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"math"
 	"testing"
@@ -137,9 +138,12 @@ func TestRequiredSubsetMap(t *testing.T) {
 		t.Errorf("the map says %d px already meets the target at %.3f of the points", c.Subset-2, share(c.Subset-2))
 	}
 	for i, s := range c.Sizes {
-		if s < c.Subset && !(c.Quantile[i] > o.Target) {
+		if s < c.Subset && !(c.Quantile[i] > o.Target || c.Quantile[i] == -1) {
 			t.Errorf("subset %d px predicts %.4g ≤ target but %d was chosen", s, c.Quantile[i], c.Subset)
 		}
+	}
+	if _, err := json.Marshal(c); err != nil {
+		t.Errorf("the choice does not encode as JSON: %v", err)
 	}
 	o.Target = 1e-5
 	c2, err := quality.ChooseSubset(context.Background(), ref, o)
