@@ -27,7 +27,9 @@ import (
 func paramFlags(fs *flag.FlagSet) func(p *analysis.Params) error {
 	d := analysis.Defaults()
 	file := fs.String("params", "", "JSON `file` of analysis parameters (the names of field.json's params); flags override it")
-	subset := fs.Int("subset", d.Subset, "subset side in `px`, odd; at least 3 speckles across (iDICs Good Practices Guide 2018)")
+	subset := &subsetFlag{n: d.Subset}
+	fs.Var(subset, "subset", "subset side in `px`, odd; at least 3 speckles across (iDICs Good Practices Guide 2018); "+
+		"or auto: the smallest subset that meets --target-std")
 	step := fs.Int("step", d.Step, "grid spacing in `px`; smaller costs time (points grow as 1/step²) and adds no independent data below subset/2")
 	shape := fs.String("shape", d.Shape, "shape function: first (affine) or second (quadratic, for strain gradients)")
 	interp := fs.String("interp", d.Interpolation, "interpolation: cubic or quintic B-spline")
@@ -60,7 +62,12 @@ func paramFlags(fs *flag.FlagSet) func(p *analysis.Params) error {
 		set := map[string]bool{}
 		fs.Visit(func(f *flag.Flag) { set[f.Name] = true })
 		apply := map[string]func() error{
-			"subset":        func() error { p.Subset = *subset; return nil },
+			"subset": func() error {
+				if !subset.auto {
+					p.Subset = subset.n
+				}
+				return nil
+			},
 			"step":          func() error { p.Step = *step; return nil },
 			"shape":         func() error { p.Shape = *shape; return nil },
 			"interp":        func() error { p.Interpolation = *interp; return nil },
@@ -203,6 +210,7 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	maskFile := fs.String("mask", "", "mask image `file`: pixels brighter than half the maximum are inside the ROI")
 	formats := fs.String("formats", results.DefaultFormats, "result `formats` to write, comma-separated (see above; \"all\" for every one)")
 	apply := paramFlags(fs)
+	auto := autoFlags(fs)
 	if err := noArgs(e, fs, "analyze", args); err != nil {
 		return err
 	}
@@ -238,6 +246,15 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	if err := checkWritable(*out); err != nil {
 		return err
 	}
+	if subsetAuto(fs) {
+		if err := chooseSubset(ctx, e.stdout, &job, auto, lim, *out); err != nil {
+			return err
+		}
+	}
+	if job.Quality, err = assessImages(job); err != nil {
+		return err
+	}
+	printQuality(e.stdout, job.Quality)
 	pb := newBar(e, "correlating", "points")
 	job.Progress = pb.update
 	res, err := analysis.RunJob(ctx, job)
