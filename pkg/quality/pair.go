@@ -70,14 +70,30 @@ type Recommendation struct {
 	VSGPx        int `json:"vsg_px"`
 }
 
+// MaxRecommendWindow is the side of the centred window that Recommend
+// analyses in larger images, to bound its time and memory (about 32 bytes
+// per analysed pixel).
+const MaxRecommendWindow = 1024
+
 // Recommend chooses the subset for g (the reference image) to meet target
 // px at fraction of the points (0 = DefaultFraction), with the noise σ
 // given or, when noise is 0, estimated from g alone. step (0 = a third of
 // the chosen subset) and window give the virtual strain gauge. An
 // unreachable target is not an error: the Recommendation says so in
-// Problem. Errors: invalid inputs, an image too small or flat, ctx
-// cancelled.
+// Problem. Images larger than MaxRecommendWindow in either direction are
+// analysed in a centred window of that size, and then mask must be nil.
+// Errors: invalid inputs, an image too small or flat, ctx cancelled.
 func Recommend(ctx context.Context, g *imageio.Gray, mask *roi.Mask, target, noise, fraction float64, step, window int) (*Recommendation, error) {
+	if g != nil && (g.W > MaxRecommendWindow || g.H > MaxRecommendWindow) {
+		if mask != nil {
+			return nil, fmt.Errorf("automatic subset: a %d×%d px image with an ROI: use ChooseSubset", g.W, g.H)
+		}
+		w, h := min(g.W, MaxRecommendWindow), min(g.H, MaxRecommendWindow)
+		g = g.Sub((g.W-w)/2, (g.H-h)/2, w, h)
+	}
+	if g == nil || g.W*g.H == 0 {
+		return nil, fmt.Errorf("%w: automatic subset: the image is empty", ErrEmpty)
+	}
 	if fraction == 0 {
 		fraction = DefaultFraction
 	}

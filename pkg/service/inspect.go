@@ -2,15 +2,19 @@ package service
 
 import (
 	"bytes"
+	"context"
 	"encoding/base64"
+	"errors"
 	"fmt"
 	"math"
 	"mime"
 	"net/http"
+	"strconv"
 	"strings"
 
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/quality"
 )
 
 // Inspection is the answer of POST /v1/images/inspect: what the server
@@ -35,6 +39,16 @@ type Inspection struct {
 	// Advice is the subset and step suggested for the speckle size, or
 	// nil without one.
 	Advice *Advice `json:"advice,omitempty"`
+	// Quality holds the image quality measures and the warnings, each with
+	// what to change at the bench (package quality).
+	Quality *quality.Report `json:"quality,omitempty"`
+	// Recommendation is the subset that meets the target displacement
+	// uncertainty (query target_std, default 0.01 px) at 95 % of the points,
+	// with the predicted noise and the virtual strain gauge (package
+	// quality), or nil when it cannot be computed; then RecommendationError
+	// says why.
+	Recommendation      *quality.Recommendation `json:"recommendation,omitempty"`
+	RecommendationError string                  `json:"recommendation_error,omitempty"`
 	// PreviewPNG is a data URL of an 8-bit grey PNG of the whole image at
 	// full size, its grey range stretched from min → 0 to max → 255.
 	PreviewPNG string `json:"preview_png"`
@@ -102,7 +116,15 @@ func (s *Server) inspect(w http.ResponseWriter, r *http.Request) {
 		writeProblem(w, r, asProblem(err, "body"))
 		return
 	}
+	q, prob := inspectQuery(r)
+	if prob != nil {
+		writeProblem(w, r, prob)
+		return
+	}
 	res, err := inspectImage(g)
+	if err == nil {
+		err = inspectQuality(r.Context(), res, g, q)
+	}
 	if err != nil {
 		writeProblem(w, r, asProblem(err, "body"))
 		return
@@ -181,4 +203,62 @@ func readAllLimited(w http.ResponseWriter, r *http.Request, limit int64) ([]byte
 	}
 	_, err := buf.ReadFrom(http.MaxBytesReader(w, r.Body, limit))
 	return buf.Bytes(), err
+}
+
+// inspectParams are the query parameters of the image check: the target
+// displacement std (px), the noise σ (0 = estimate from the image), the
+// step (0 = a third of the subset) and the strain window of the VSG.
+type inspectParams struct {
+	target, noise float64
+	step, window  int
+}
+
+// inspectQuery reads target_std, noise_sigma, step and strain_window; a
+// bad value is a 400 problem naming the parameter.
+func inspectQuery(r *http.Request) (inspectParams, *Problem) {
+	q := inspectParams{target: 0.01, window: analysis.Defaults().StrainWindow}
+	var fields []FieldProblem
+	num := func(name string, dst *float64, ok func(float64) bool, want string) {
+		if v := r.URL.Query().Get(name); v != "" {
+			f, err := strconv.ParseFloat(v, 64)
+			if err != nil || !ok(f) {
+				fields = append(fields, FieldProblem{name, fmt.Sprintf("%q: want %s", v, want)})
+				return
+			}
+			*dst = f
+		}
+	}
+	var step, window float64 = 0, float64(q.window)
+	num("target_std", &q.target, func(f float64) bool { return f > 0 && f < 10 }, "a displacement std in px, e.g. 0.01")
+	num("noise_sigma", &q.noise, func(f float64) bool { return f >= 0 && f < 1e6 }, "the noise σ in grey levels (0 = estimate from the image)")
+	num("step", &step, func(f float64) bool { return f >= 0 && f <= 1000 && f == math.Trunc(f) }, "a whole number of px, 0 = a third of the subset")
+	num("strain_window", &window, func(f float64) bool {
+		return f >= 1 && f <= analysis.MaxStrainWindow && f == math.Trunc(f) && int(f)%2 == 1
+	}, fmt.Sprintf("an odd number of grid points from 1 to %d", analysis.MaxStrainWindow))
+	if len(fields) > 0 {
+		return q, problem(http.StatusBadRequest, "invalid-query", "Invalid query parameters",
+			"the image check's query parameters are wrong; see errors", fields...)
+	}
+	q.step, q.window = int(step), int(window)
+	return q, nil
+}
+
+// inspectQuality adds the quality report and the subset recommendation to
+// res. Only a cancelled request is an error: a measure or recommendation
+// that cannot be made is reported in res.
+func inspectQuality(ctx context.Context, res *Inspection, g *imageio.Gray, q inspectParams) error {
+	rep, err := quality.Assess(g, nil, "image", nil, quality.Thresholds{})
+	if err == nil {
+		res.Quality = &rep
+	}
+	rec, err := quality.Recommend(ctx, g, nil, q.target, q.noise, 0, q.step, q.window)
+	switch {
+	case errors.Is(err, context.Canceled) || errors.Is(err, context.DeadlineExceeded):
+		return err
+	case err != nil:
+		res.RecommendationError = err.Error()
+	default:
+		res.Recommendation = rec
+	}
+	return nil
 }

@@ -12,6 +12,7 @@ import (
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/quality"
 	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/series"
 	"github.com/mottledic/mottle/pkg/service/jobs"
@@ -32,7 +33,14 @@ func (Pipeline) Run(ctx context.Context, in Input, progress func(done, total int
 	if err != nil {
 		return nil, err
 	}
-	return Encode(out.Field)
+	res, err := Encode(out.Field)
+	if err != nil {
+		return nil, err
+	}
+	if ws := quality.Warnings(out.Quality); len(ws) > 0 {
+		res.Summary.Warnings = ws
+	}
+	return res, nil
 }
 
 // storedFormats are the formats a job's results hold: every data format

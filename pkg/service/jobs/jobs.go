@@ -13,6 +13,8 @@ import (
 	"encoding/json"
 	"errors"
 	"time"
+
+	"github.com/mottledic/mottle/pkg/quality"
 )
 
 // Kind says what a job computes.
@@ -87,6 +89,10 @@ type Summary struct {
 	ReturnedDirect bool `json:"returned_to_direct,omitempty"`
 	// Seconds is the compute time of the job.
 	Seconds float64 `json:"seconds"`
+	// Warnings are the image quality warnings of the job's images (package
+	// quality), each with what to change at the bench; for a series frame,
+	// the frame's own and its change against the reference.
+	Warnings []quality.Warning `json:"warnings,omitempty"`
 }
 
 // Failure is why a job failed, phrased for the caller.
