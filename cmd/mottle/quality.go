@@ -15,6 +15,7 @@ import (
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/quality"
+	"github.com/mottledic/mottle/pkg/series"
 )
 
 // subsetFlag is the value of --subset: an odd size in px, or "auto" for the
@@ -180,4 +181,23 @@ func assessImages(job analysis.Job) ([]quality.Report, error) {
 		return nil, nil
 	}
 	return quality.AssessPair(job.Ref, job.Def, opt.Mask, quality.Thresholds{})
+}
+
+// printFlagged prints the frames of a series flagged for a drop of image
+// quality, with the first warning of each.
+func printFlagged(w io.Writer, c series.Curve) {
+	fl := c.Flagged()
+	if len(fl) == 0 {
+		return
+	}
+	fmt.Fprintf(w, "image quality: %d row(s) flagged (see report.html):\n", len(fl))
+	for _, i := range fl {
+		r := c.Rows[i]
+		x := r.Quality.Warnings[0]
+		more := ""
+		if n := len(r.Quality.Warnings); n > 1 {
+			more = fmt.Sprintf(" (+%d more)", n-1)
+		}
+		fmt.Fprintf(w, "  %d %s: %s%s; at the bench: %s\n", r.Index, r.Name, x.Message, more, x.Action)
+	}
 }

@@ -558,6 +558,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	}
 	fmt.Fprintf(e.stdout, "%d frames: %d direct, %d incremental%s. Results in %s (report.html).\n",
 		tr.Len(), len(m[series.ModeDirect]), len(m[series.ModeIncremental]), extra, *out)
+	printFlagged(e.stdout, c)
 	props := c.Properties()
 	for _, l := range props.Lines() {
 		fmt.Fprintf(e.stdout, "  %s: %s\n", l[0], l[1])

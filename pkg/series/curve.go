@@ -215,6 +215,17 @@ func (c Curve) columns() []column {
 				}})
 		}
 	}
+	// 1 when the frame's image quality is flagged (FrameQuality), 0 when
+	// not, empty when it was not measured.
+	cols = append(cols, column{"quality_flagged", func(s Summary) float64 {
+		switch {
+		case s.Quality == nil:
+			return math.NaN()
+		case s.Quality.Flagged:
+			return 1
+		}
+		return 0
+	}})
 	return cols
 }
 

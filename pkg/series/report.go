@@ -113,7 +113,14 @@ func WriteReport(w io.Writer, in ReportInput) error {
 		extNames = append(extNames, e.Name)
 	}
 	var rows []reportRow
+	var flagged [][2]string
 	for _, r := range c.Rows {
+		if r.Quality != nil && r.Quality.Flagged {
+			name := fmt.Sprintf("%d %s", r.Index, r.Name)
+			for _, w := range r.Quality.Warnings {
+				flagged = append(flagged, [2]string{name, w.Message + "; at the bench: " + w.Action + " (" + w.Source + ")"})
+			}
+		}
 		cells := []string{strconv.Itoa(r.Index), r.Name, fmtPtr(r.Time), fmtPtr(r.Load), fmtPtr(r.Stress), r.Mode,
 			fmtNum(r.ValidFraction), fmtNum(r.Tracked), fmtNum(r.MeanZNCC)}
 		if r.Static {
@@ -137,6 +144,7 @@ func WriteReport(w io.Writer, in ReportInput) error {
 		sw = "mottle"
 	}
 	data := map[string]any{
+		"Flagged":    flagged,
 		"Title":      title,
 		"Software":   sw,
 		"Created":    in.Created.UTC().Format(time.RFC3339),

@@ -199,6 +199,9 @@ type Summary struct {
 	// Extensometers and Gauges are the virtual instrument readings.
 	Extensometers []ExtReading   `json:"extensometers,omitempty"`
 	Gauges        []GaugeReading `json:"gauges,omitempty"`
+	// Quality is the frame's image quality and whether it is flagged for a
+	// drop against the reference; nil until measured.
+	Quality *FrameQuality `json:"quality,omitempty"`
 }
 
 // MeanNames lists the quantities averaged into Summary.Mean, in order.

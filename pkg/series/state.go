@@ -7,6 +7,7 @@ import (
 	"math"
 
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/quality"
 )
 
 // stateVersion is the version of the State layout; Restore refuses others.
@@ -41,6 +42,10 @@ type State struct {
 	Curve []Summary `json:"curve"`
 	// Static holds the statistics of each static frame (noise floor).
 	Static []map[string]QStat `json:"static,omitempty"`
+	// RefQuality is the image quality of the reference, measured when the
+	// first frame is added (absent in states written before it existed:
+	// then it is measured at the next frame).
+	RefQuality *quality.Report `json:"ref_quality,omitempty"`
 }
 
 // PointState is a material point's current position x(X) in the latest

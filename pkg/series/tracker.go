@@ -190,6 +190,15 @@ func (t *Tracker) Add(ctx context.Context, img *imageio.Gray, meta FrameMeta) (*
 		}
 	}
 
+	label := meta.Name
+	if label == "" {
+		label = fmt.Sprintf("frame %d", index)
+	}
+	fq, qerr := t.frameQuality(img, label)
+	if qerr != nil {
+		return nil, fmt.Errorf("frame %d %q: %w", index, meta.Name, qerr)
+	}
+
 	var (
 		pts      []PointState
 		mode     string
@@ -249,6 +258,7 @@ func (t *Tracker) Add(ctx context.Context, img *imageio.Gray, meta FrameMeta) (*
 		}
 	}
 	fr.Summary.Tracked = t.trackedFraction(pts)
+	fr.Summary.Quality = fq
 	fr.Summary.Reacquired, fr.Summary.ReturnedDirect = reacq, returned
 	t.st.Points = pts
 	t.st.Switched = switched

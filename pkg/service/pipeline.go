@@ -212,6 +212,9 @@ func frameSummary(base jobs.Summary, sm series.Summary) jobs.Summary {
 	z, tk := sm.MeanZNCC, sm.Tracked
 	out.MeanZNCC, out.Tracked = &z, &tk
 	out.Reacquired, out.ReturnedDirect = sm.Reacquired, sm.ReturnedDirect
+	if sm.Quality != nil && len(sm.Quality.Warnings) > 0 {
+		out.Warnings = sm.Quality.Warnings
+	}
 	g := map[string]float64{}
 	for _, e := range sm.Extensometers {
 		if e.Valid {
