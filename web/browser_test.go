@@ -367,6 +367,14 @@ func checkKnownStretch(b *browser) {
 	}
 	b.shot("stretch-roi.png", "#roi-canvas")
 	checkSpeckleAgainstSciPy(b, refPath, speckle)
+	// The service's image check of both images (pkg/quality): the rendered
+	// pair is well exposed, so no warning, and a subset for 0.01 px.
+	b.wait(`(() => { const t = document.getElementById("adv-quality").textContent;
+		return /reference: /.test(t) && /deformed: /.test(t) && !/checking/.test(t); })()`, "the image check did not finish")
+	b.shot("image-check.png", "#advice")
+	if q, a := b.text("#adv-quality"), b.text("#adv-auto"); !strings.Contains(q, "no problems found") || !strings.Contains(a, "px for σ ≤ 0.01 px") {
+		t.Errorf("image check shows %q and %q", q, a)
+	}
 	b.run("set the parameters",
 		setValue("#p-subset", "21"), setValue("#p-step", "8"), setValue("#p-window", "5"))
 	b.run("run", eval(`document.body.dataset.result = ""`), chromedp.Click(chromedp.ID("btn-run")))

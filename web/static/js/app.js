@@ -15,6 +15,7 @@ const state = {
   files: { reference: null, deformed: null },
   bitmaps: { reference: null, deformed: null },
   inspect: { reference: null, deformed: null }, // the service's answers for files the browser cannot show
+  check: { reference: null, deformed: null },   // the service's image check (quality, subset recommendation) per image
   fileSeq: { reference: 0, deformed: 0 },
   size: null,      // [w, h] of the reference image, when the browser could decode it
   speckle: null,
@@ -76,8 +77,19 @@ async function needsService(file) {
 
 // inspect sends file to the service, which answers its size, bit depth,
 // speckle size and an 8-bit preview with the grey range stretched.
-async function inspect(file) {
+// The service runs as many inspections at once as it has workers and
+// answers 429 beyond that, so the page sends its own one at a time.
+let inspectChain = Promise.resolve();
+function inspect(file) {
+  const p = inspectChain.then(() => inspectNow(file));
+  inspectChain = p.catch(() => {});
+  return p;
+}
+
+async function inspectNow(file) {
   const type = /^image\/(png|tiff|jpeg|bmp)$/.test(file.type) ? file.type : 'application/octet-stream';
+  // The service's defaults: a target of 0.01 px at 95 % of the points, a
+  // strain window of 5 points for the VSG.
   const resp = await request(`${API}/images/inspect`, { method: 'POST', body: file, headers: { 'Content-Type': type } });
   const doc = await resp.json();
   const b64 = String(doc.preview_png || '').replace(/^data:image\/png;base64,/, '');
@@ -119,6 +131,15 @@ async function setFile(role, file) {
   if (seq !== state.fileSeq[role]) return; // a newer file was chosen meanwhile
   state.bitmaps[role] = bm;
   state.inspect[role] = insp;
+  state.check[role] = insp;
+  if (!insp && bm) {
+    // The image check runs on the service for every image; the page works
+    // without it.
+    inspect(file).then(doc => {
+      if (seq === state.fileSeq[role]) { state.check[role] = doc; updateQuality(); }
+    }).catch(() => { if (seq === state.fileSeq[role]) { state.check[role] = { failed: true }; updateQuality(); } });
+  }
+  updateQuality();
   if (role === 'reference') {
     state.size = bm ? [bm.width, bm.height] : null;
     $('roi-placeholder').hidden = !!bm;
@@ -361,6 +382,38 @@ async function openResult(base, job, label) {
   document.body.dataset.result = 'ready';
 }
 
+// updateQuality shows the service's image check of both images: the
+// quality warnings with what to change at the bench, and the subset that
+// meets a 0.01 px target for the reference.
+function updateQuality() {
+  const dd = $('adv-quality'), auto = $('adv-auto');
+  const lines = [];
+  let any = false;
+  for (const role of ['reference', 'deformed']) {
+    const c = state.check[role];
+    if (!state.files[role]) continue;
+    if (!c) { lines.push(`${role}: checking…`); continue; }
+    if (c.failed || !c.quality) { lines.push(`${role}: not checked (the service did not answer)`); continue; }
+    const ws = c.quality.warnings || [];
+    if (!ws.length) lines.push(`${role}: no problems found`);
+    for (const w of ws) { any = true; lines.push(`${role}: ${w.message} — at the bench: ${w.action}`); }
+  }
+  dd.textContent = '';
+  if (!lines.length) dd.textContent = '— choose the images';
+  lines.forEach((l, i) => { if (i) dd.appendChild(document.createElement('br')); dd.append(l); });
+  dd.classList.toggle('warn', any);
+  const r = state.check.reference && state.check.reference.recommendation;
+  if (r && r.subset_px) {
+    auto.textContent = `${r.subset_px} px for σ ≤ ${fmt(r.target_std_px)} px at ${fmt(100 * r.fraction)} % of the points ` +
+      `(predicted ${fmt(r.predicted_std_px)} px; noise σ ≈ ${fmt(r.noise_sigma)} grey levels ${r.noise_source === 'image' ? 'estimated from the image' : 'as given'}); ` +
+      `VSG ${r.vsg_px} px with a ${r.step_px} px step and a ${r.strain_window}-point strain window`;
+  } else if (r && r.problem) {
+    auto.textContent = r.problem;
+  } else {
+    auto.textContent = state.check.reference && state.check.reference.recommendation_error ? state.check.reference.recommendation_error : '—';
+  }
+}
+
 // describeResult lists how the field was made and the cautions that come with it.
 function describeResult(field, job) {
   const p = Object.assign({}, field.meta.params || {}, (job && job.params) || {});
@@ -379,6 +432,16 @@ function describeResult(field, job) {
   const ul = $('result-cautions');
   ul.textContent = '';
   for (const c of Array.isArray(m.cautions) ? m.cautions : []) { const li = document.createElement('li'); li.textContent = c; ul.appendChild(li); }
+  // Image quality warnings of the job (its summary) or of the field's metadata.
+  let ws = (job && job.summary && job.summary.warnings) || [];
+  const iq = m.extra && m.extra.image_quality;
+  if (!ws.length && Array.isArray(iq)) ws = iq.flatMap(r => r.warnings || []);
+  for (const w of ws) {
+    const li = document.createElement('li');
+    li.className = 'warn';
+    li.textContent = `Image quality, ${w.image}: ${w.message} — at the bench: ${w.action}`;
+    ul.appendChild(li);
+  }
 }
 
 function updateDownloads() {
