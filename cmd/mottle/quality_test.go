@@ -50,7 +50,7 @@ func TestAnalyzeQualityAndAutoSubset(t *testing.T) {
 
 	e, stdout, stderr = testEnv()
 	if code := run(context.Background(), e, []string{"analyze", "--ref", p("ref.png"), "--def", p("static.png"),
-		"--subset", "auto", "--target-std", "0.01", "--static", p("static.png"), "--step", "16", "--out", p("r2")}); code != 0 {
+		"--subset", "auto", "--target-std", "0.01", "--static", p("static.png"), "--step", "16", "--formats", "json", "--out", p("r2")}); code != 0 {
 		t.Fatalf("analyze --subset auto: exit %d: %s", code, stderr.String())
 	}
 	if s := stdout.String(); !strings.Contains(s, "automatic subset") || !strings.Contains(s, "no warnings") {
