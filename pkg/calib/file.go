@@ -224,3 +224,27 @@ func (m *Mapping) Map(x, y float64) (float64, float64, error) {
 	}
 	return m.cam.UndistortPixel(x, y)
 }
+
+// Jacobian returns the corrected position of the image point (x, y) and the
+// derivative J[i][j] = ∂X_i/∂x_j of the mapping there, by central
+// differences over ±0.25 px (the mapping is smooth; the truncation error is
+// far below the calibration's own uncertainty).
+func (m *Mapping) Jacobian(x, y float64) (X, Y float64, J [2][2]float64, err error) {
+	const h = 0.25
+	if X, Y, err = m.Map(x, y); err != nil {
+		return 0, 0, J, err
+	}
+	var p [4][2]float64
+	for k, d := range [4][2]float64{{h, 0}, {-h, 0}, {0, h}, {0, -h}} {
+		a, b, err := m.Map(x+d[0], y+d[1])
+		if err != nil {
+			return 0, 0, J, err
+		}
+		p[k] = [2]float64{a, b}
+	}
+	for i := range 2 {
+		J[i][0] = (p[0][i] - p[1][i]) / (2 * h)
+		J[i][1] = (p[2][i] - p[3][i]) / (2 * h)
+	}
+	return X, Y, J, nil
+}
