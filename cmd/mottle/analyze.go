@@ -9,12 +9,14 @@ import (
 	"io"
 	"math"
 	"os"
+	"path/filepath"
 	"sort"
 	"strconv"
 	"strings"
 	"time"
 
 	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/results"
@@ -47,6 +49,7 @@ func paramFlags(fs *flag.FlagSet) func(p *analysis.Params) error {
 	fit := fs.String("strain-fit", d.StrainFit, "local fit of the strain window: plane or quadratic")
 	mmpp := fs.Float64("mm-per-px", 0, "image scale in mm per px (0 = results in px)")
 	scalePts := fs.String("scale-points", "", "scale from two points and their distance: `x1,y1,x2,y2,mm`")
+	calFile := fs.String("calibration", "", "camera calibration `file` from mottle calibrate: positions are undistorted before displacements and strains are formed, in mm in the specimen plane when the file has one (excludes --mm-per-px and --scale-points)")
 	return func(p *analysis.Params) error {
 		if *file != "" {
 			b, err := os.ReadFile(*file)
@@ -86,6 +89,14 @@ func paramFlags(fs *flag.FlagSet) func(p *analysis.Params) error {
 				s, err := parseROI(*roiFlag)
 				p.ROI = s
 				return err
+			},
+			"calibration": func() error {
+				c, err := calib.ReadFile(*calFile)
+				if err != nil {
+					return fmt.Errorf("--calibration: %w", err)
+				}
+				p.Calibration, p.CalibrationName = c.Compact(), filepath.Base(*calFile)
+				return nil
 			},
 			"scale-points": func() error {
 				v, err := floats(*scalePts, 5)
@@ -305,6 +316,9 @@ func printSummary(w io.Writer, f *field.Field, elapsed time.Duration) {
 			parts[i] = fmt.Sprintf("%s %d", k, counts[k])
 		}
 		fmt.Fprintf(w, "not measured or no strain: %s\n", strings.Join(parts, ", "))
+	}
+	if c, ok := f.Meta.Extra["calibration"].(map[string]any); ok {
+		fmt.Fprintf(w, "positions corrected with the calibration %v (reprojection RMS %.3g px); lengths in %v\n", c["name"], c["rms_px"], c["unit"])
 	}
 	fmt.Fprintf(w, "strain window %d points (%s fit), virtual strain gauge %.0f px", f.Meta.StrainWindow, f.Meta.StrainFit, f.Meta.VSG)
 	if f.Meta.MMPerPx > 0 {

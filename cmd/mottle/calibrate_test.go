@@ -157,3 +157,60 @@ func TestCalibrateCommand(t *testing.T) {
 		t.Errorf("no target: exit %d, %q", code, stderr)
 	}
 }
+
+// TestAnalyzeAndSeriesWithCalibration: --calibration on analyze and series
+// puts lengths in mm in the specimen plane (here a distortion-free camera
+// at 0.2 mm per px), says so, and refuses to be combined with a scale.
+func TestAnalyzeAndSeriesWithCalibration(t *testing.T) {
+	dir := t.TempDir()
+	const w, h = 128, 96
+	pat, err := synth.NewPattern(synth.PatternOptions{Diameter: 4, Seed: 5, Bounds: synth.ImageRect(w, h, 16)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var files []string
+	for k, e := range []float64{0, 0.01, 0.02} {
+		g, _, err := synth.Render(pat, synth.Affine{F: [2][2]float64{{1 + e, 0}, {0, 1}}, CX: 64, CY: 48}, synth.RenderOptions{W: w, H: h, Bits: 8})
+		if err != nil {
+			t.Fatal(err)
+		}
+		f := filepath.Join(dir, fmt.Sprintf("f%d.png", k))
+		if err := imageio.WriteFile(f, g, 8); err != nil {
+			t.Fatal(err)
+		}
+		files = append(files, f)
+	}
+	cal := &calib.File{Format: calib.FileFormat, Image: [2]int{w, h},
+		Camera: calib.Params{Fx: 500, Fy: 500, Cx: 63.5, Cy: 47.5},
+		Plane:  &calib.Plane{Image: "plane.png", Pose: calib.Pose{T: [3]float64{0, 0, 100}}}}
+	var b bytes.Buffer
+	if err := cal.Write(&b); err != nil {
+		t.Fatal(err)
+	}
+	cfile := filepath.Join(dir, "camera.json")
+	os.WriteFile(cfile, b.Bytes(), 0o644)
+	code, out, errs := runCmd(t, "analyze", "--ref", files[0], "--def", files[1], "--subset", "21", "--calibration", cfile, "--out", filepath.Join(dir, "a"))
+	if code != 0 {
+		t.Fatalf("analyze: exit %d: %s", code, errs)
+	}
+	if !strings.Contains(out, "corrected with the calibration camera.json") || !strings.Contains(out, "lengths in mm") {
+		t.Errorf("analyze summary does not say the calibration was used:\n%s", out)
+	}
+	code, _, errs = runCmd(t, "analyze", "--ref", files[0], "--def", files[1], "--calibration", cfile, "--mm-per-px", "0.1", "--out", filepath.Join(dir, "b"))
+	if code == 0 || !strings.Contains(errs, "calibration") || !strings.Contains(errs, "mm_per_px") {
+		t.Errorf("calibration with a scale: exit %d, %q", code, errs)
+	}
+	code, _, errs = runCmd(t, "analyze", "--ref", files[0], "--def", files[1], "--calibration", filepath.Join(dir, "missing.json"), "--out", filepath.Join(dir, "c"))
+	if code == 0 || !strings.Contains(errs, "missing.json") {
+		t.Errorf("missing calibration: exit %d, %q", code, errs)
+	}
+	sdir := filepath.Join(dir, "s")
+	code, _, errs = runCmd(t, append([]string{"series", "--subset", "21", "--calibration", cfile, "--ext", "ax:24,48,104,48", "--out", sdir}, files...)...)
+	if code != 0 {
+		t.Fatalf("series: exit %d: %s", code, errs)
+	}
+	st, err := os.ReadFile(filepath.Join(sdir, "state.json"))
+	if err != nil || !strings.Contains(string(st), `"calibration_name":"camera.json"`) && !strings.Contains(string(st), `"calibration_name": "camera.json"`) {
+		t.Errorf("series state does not record the calibration (%v)", err)
+	}
+}

@@ -16,6 +16,7 @@ import (
 	"time"
 	"unicode"
 
+	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/results"
@@ -157,6 +158,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		roiRect    = fs.String("roi", "", roiHelp)
 		maxPix     = fs.Int64("max-pixels", imageio.DefaultMaxPixels, "refuse images with more pixels than this (width × height)")
 		mmPerPx    = fs.Float64("mm-per-px", 0, "scale in mm per px (0 = px)")
+		calFile    = fs.String("calibration", "", "camera calibration `file` from mottle calibrate: positions undistorted, in mm in the specimen plane when the file has one (excludes --mm-per-px; extensometer and gauge coordinates stay reference-image px)")
 		units      = fs.String("units", "", "units of extensometer and gauge coordinates: px or mm")
 		incr       = fs.String("incremental", "", "auto (default), never or always")
 		swZ        = fs.Float64("switch-zncc", 0, "mean ZNCC below which auto mode goes incremental (default 0.9)")
@@ -236,6 +238,13 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	}
 	if set["mm-per-px"] {
 		p.Analysis.MMPerPx = *mmPerPx
+	}
+	if *calFile != "" {
+		if c, err := calib.ReadFile(*calFile); err != nil {
+			errs = append(errs, fmt.Errorf("--calibration: %w", err))
+		} else {
+			p.Analysis.Calibration, p.Analysis.CalibrationName = c.Compact(), filepath.Base(*calFile)
+		}
 	}
 	if *roiRect != "" {
 		if spec, err := parseROI(*roiRect); err != nil {

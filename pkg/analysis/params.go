@@ -3,7 +3,10 @@
 // with its metadata. The CLI, the service and the series engine all call it.
 package analysis
 
-import "github.com/mottledic/mottle/pkg/roi"
+import (
+	"github.com/mottledic/mottle/pkg/calib"
+	"github.com/mottledic/mottle/pkg/roi"
+)
 
 // Params are the user-facing parameters of one analysis. The JSON names are
 // the ones the CLI flags, the HTTP API and field.json use.
@@ -25,6 +28,15 @@ type Params struct {
 	StrainFit     string    `json:"strain_fit"`      // "plane" or "quadratic"; default "plane"
 	MMPerPx       float64   `json:"mm_per_px"`       // scale; 0 = results in px
 	ScalePoints   *ScaleRef `json:"scale_points,omitempty"`
+	// Calibration, when set, is the camera calibration (a mottle-camera/1
+	// file, see DEVELOPERS.md): reference and deformed positions are
+	// undistorted before displacements and strains are formed, and with a
+	// specimen plane in the file they are in mm in that plane. It excludes
+	// mm_per_px and scale_points. nil = positions stay image px.
+	Calibration *calib.File `json:"calibration,omitempty"`
+	// CalibrationName says where the calibration came from (its file
+	// name), for the results' metadata.
+	CalibrationName string `json:"calibration_name,omitempty"`
 }
 
 // ScaleRef sets the scale from two reference-image points a known distance apart.

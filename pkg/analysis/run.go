@@ -8,6 +8,7 @@ import (
 	"math"
 	"time"
 
+	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/correlate"
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -167,6 +168,7 @@ func Kinematics(ctx context.Context, res *correlate.Result, p Params) (*field.Fi
 	if err != nil {
 		return nil, err
 	}
+	SetCalibrationMeta(f, p)
 	f.Meta.NoiseSigma = res.Noise
 	f.Meta.Extra["noise_source"] = res.NoiseSource
 	f.Meta.Extra["seeds"] = plain(res.Seeds)
@@ -191,10 +193,58 @@ func plain(v any) any {
 
 // BuildOptions returns the field builder's options for parameters p: the
 // strain window and fit, the threads, the scale (lengths in mm whenever p
-// sets one) and p itself as the field's parameters.
+// sets one) or the calibration's position mapping, and p itself as the
+// field's parameters.
 func BuildOptions(p Params) results.Options {
-	return results.Options{StrainWindow: p.StrainWindow, StrainFit: p.StrainFit, Threads: p.Threads,
+	o := results.Options{StrainWindow: p.StrainWindow, StrainFit: p.StrainFit, Threads: p.Threads,
 		MMPerPx: p.Scale(), Params: p, Software: Software}
+	if m := p.Mapping(); m != nil {
+		o.Mapping, o.Length, o.MMPerPx = m, m.Unit(), 0
+	}
+	return o
+}
+
+// Mapping returns the position mapping of p's calibration, or nil without
+// one (or with an invalid one, which Validate reports).
+func (p Params) Mapping() *calib.Mapping {
+	if p.Calibration == nil {
+		return nil
+	}
+	m, err := p.Calibration.Mapping(p.CalibrationName)
+	if err != nil {
+		return nil
+	}
+	return m
+}
+
+// LengthUnit returns the unit of output lengths under p: "mm" with a scale
+// or a calibration with a specimen plane, else "px".
+func (p Params) LengthUnit() string {
+	if m := p.Mapping(); m != nil {
+		return m.Unit()
+	}
+	if p.Scale() > 0 {
+		return "mm"
+	}
+	return "px"
+}
+
+// SetCalibrationMeta records in f's metadata which calibration made its
+// positions (file name, date, reprojection RMS, unit, specimen-plane view)
+// and its caution; nothing without a calibration.
+func SetCalibrationMeta(f *field.Field, p Params) {
+	c := p.Calibration
+	if c == nil {
+		return
+	}
+	m := map[string]any{"name": p.CalibrationName, "created": c.Created, "rms_px": c.RMS,
+		"image_size_px": c.Image, "unit": p.LengthUnit(), "caution": calib.Caution}
+	if c.Plane != nil {
+		m["plane_image"] = c.Plane.Image
+	}
+	f.Meta.Extra["calibration"] = m
+	f.Meta.Cautions = append(f.Meta.Cautions, "Positions and displacements were corrected with the camera calibration "+p.CalibrationName+
+		"; its uncertainty adds to that of every result.")
 }
 
 var nan = math.NaN()

@@ -128,7 +128,7 @@ func paramNames() []string {
 	b, _ := json.Marshal(Params{ROI: nil})
 	var m map[string]any
 	_ = json.Unmarshal(b, &m)
-	names := []string{"roi", "seeds", "scale_points"}
+	names := []string{"roi", "seeds", "scale_points", "calibration", "calibration_name"}
 	for k := range m {
 		names = append(names, k)
 	}
@@ -209,6 +209,17 @@ func (p *Params) Validate(w, h int) error {
 		}
 		if math.Hypot(dx, dy) < 1 {
 			add("scale_points", "the two points are less than 1 px apart; pick points far apart on the specimen")
+		}
+	}
+	if c := p.Calibration; c != nil {
+		if err := c.Validate(); err != nil {
+			add("calibration", "%v", err)
+		} else if w > 0 && h > 0 && (c.Image[0] != w || c.Image[1] != h) {
+			add("calibration", "is for %d×%d px images but the images are %d×%d px; use the calibration of this camera at this image size, or calibrate at this size",
+				c.Image[0], c.Image[1], w, h)
+		}
+		if p.MMPerPx > 0 || p.ScalePoints != nil {
+			add("calibration", "given together with mm_per_px or scale_points; the calibration sets the units (mm with a specimen plane), so leave the scale out")
 		}
 	}
 	if len(p.Seeds) > MaxSeeds {

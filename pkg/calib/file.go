@@ -248,3 +248,21 @@ func (m *Mapping) Jacobian(x, y float64) (X, Y float64, J [2][2]float64, err err
 	}
 	return X, Y, J, nil
 }
+
+// Compact returns a copy of f without the per-point residuals and the
+// target's point list: what an analysis needs to carry along (camera,
+// uncertainty, image size, plane, per-view summary).
+func (f *File) Compact() *File {
+	c := *f
+	c.Views = make([]ViewResult, len(f.Views))
+	for k, v := range f.Views {
+		v.Residuals = nil
+		c.Views[k] = v
+	}
+	if f.Target != nil {
+		t := *f.Target
+		t.Points = nil
+		c.Target = &t
+	}
+	return &c
+}

@@ -80,7 +80,9 @@ type Options struct {
 	// plane before differencing: u = D(X + u_px) − M(X), with M = Mapping
 	// and D = DeformedMapping, and the gradients are taken with respect to
 	// the plane coordinates of the reference points. MMPerPx must then be
-	// 0. This is where a camera calibration enters the results.
+	// 0. This is where a camera calibration enters the results. The image
+	// displacements are kept as u_px and v_px (px), for maps over the
+	// images.
 	Mapping Mapping
 	// DeformedMapping maps the deformed image's positions; nil means
 	// Mapping (one camera for both images).
@@ -236,6 +238,23 @@ func Build(ctx context.Context, in Input, opt Options) (*field.Field, error) {
 	}
 	for _, name := range kinematics.QuantityNames() {
 		if err := set(name, qs[name]); err != nil {
+			return nil, err
+		}
+	}
+	if opt.Mapping != nil {
+		// The image displacements, px: maps over the images and vector
+		// plots place points with them (see pixelDisplacements).
+		upx, vpx := make([]float64, n), make([]float64, n)
+		for k := range n {
+			upx[k], vpx[k] = nan, nan
+			if valid[k] == 1 {
+				upx[k], vpx[k] = in.U[k], in.V[k]
+			}
+		}
+		if err := f.Set("u_px", "px", upx); err != nil {
+			return nil, err
+		}
+		if err := f.Set("v_px", "px", vpx); err != nil {
 			return nil, err
 		}
 	}

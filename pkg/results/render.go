@@ -142,6 +142,13 @@ func unitLabel(u string) string {
 
 // pixelDisplacements returns u and v of f in px, undoing the mm scale.
 func pixelDisplacements(f *field.Field) (u, v []float64, err error) {
+	if up, ok := f.Get("u_px"); ok {
+		// A field made through a position mapping (a camera calibration)
+		// keeps its image displacements in px beside the mapped u, v.
+		if vp, ok := f.Get("v_px"); ok {
+			return append([]float64(nil), up...), append([]float64(nil), vp...), nil
+		}
+	}
 	uu, ok1 := f.Get("u")
 	vv, ok2 := f.Get("v")
 	if !ok1 || !ok2 {

@@ -313,9 +313,17 @@ func solve3(a [3][3]float64, b [3]float64) ([3]float64, bool) {
 	return x, true
 }
 
+// positionMap maps image positions to the measurement plane (a
+// *calib.Mapping); nil means none.
+type positionMap interface {
+	Map(x, y float64) (X, Y float64, err error)
+}
+
 // readExtensometer evaluates e (already in px) on the grid displacement
 // values; scale converts px to the output units (1 for px, mm/px for mm).
-func (l lattice) readExtensometer(e Extensometer, u, v []float64, valid []bool, scale float64) ExtReading {
+// With a position map m, the lengths are those between the mapped end
+// points (and scale is not used).
+func (l lattice) readExtensometer(e Extensometer, u, v []float64, valid []bool, scale float64, m positionMap) ExtReading {
 	r := ExtReading{Name: e.Name}
 	L0 := math.Hypot(e.B[0]-e.A[0], e.B[1]-e.A[1])
 	r.L0 = L0 * scale
@@ -325,6 +333,21 @@ func (l lattice) readExtensometer(e Extensometer, u, v []float64, valid []bool, 
 		return r
 	}
 	L := math.Hypot(e.B[0]+ub-e.A[0]-ua, e.B[1]+vb-e.A[1]-va)
+	if m != nil {
+		// Under a calibration both lengths are measured between the mapped
+		// end points (undistorted, or mm in the specimen plane).
+		var p [4][2]float64
+		for i, q := range [4][2]float64{{e.A[0], e.A[1]}, {e.B[0], e.B[1]}, {e.A[0] + ua, e.A[1] + va}, {e.B[0] + ub, e.B[1] + vb}} {
+			x, y, err := m.Map(q[0], q[1])
+			if err != nil {
+				return r
+			}
+			p[i] = [2]float64{x, y}
+		}
+		L0 = math.Hypot(p[1][0]-p[0][0], p[1][1]-p[0][1])
+		L = math.Hypot(p[3][0]-p[2][0], p[3][1]-p[2][1])
+		r.L0, scale = L0, 1
+	}
 	r.L = L * scale
 	r.Stretch = L / L0
 	r.Eng = r.Stretch - 1

@@ -5,6 +5,7 @@ import (
 	"math"
 	"sort"
 
+	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/correlate"
 	"github.com/mottledic/mottle/pkg/kinematics"
 	"github.com/mottledic/mottle/pkg/results"
@@ -56,11 +57,21 @@ func (t *Tracker) results(ctx context.Context, pts []PointState, meta FrameMeta,
 	if err != nil {
 		return nil, Snapshot{}, err
 	}
+	analysis.SetCalibrationMeta(f, p.Analysis)
 	q, status := f.Quantities, f.Status
 	scale := p.outScale()
+	var mapping positionMap
+	if m := p.Analysis.Mapping(); m != nil {
+		mapping = m
+	}
 
 	snap := Snapshot{Time: timeOr(meta.Time), HasTime: meta.Time != nil,
 		U: in.U, V: in.V, E11: q["E11"], E22: q["E22"], E12: q["E12"]}
+	if mapping != nil {
+		// Under a calibration the field's u, v are already mapped (mm in
+		// the specimen plane, or undistorted px); rates take them as they are.
+		snap.U, snap.V, scale = q["u"], q["v"], 1
+	}
 	rates := map[string][]float64{}
 	t.rates(rates, snap, scale)
 	length := p.outUnit()
@@ -93,7 +104,7 @@ func (t *Tracker) results(ctx context.Context, pts []PointState, meta FrameMeta,
 	ls := 1 / p.lengthScale() // coordinate units → px
 	for _, e := range p.Extensometers {
 		epx := Extensometer{Name: e.Name, A: [2]float64{e.A[0] * ls, e.A[1] * ls}, B: [2]float64{e.B[0] * ls, e.B[1] * ls}}
-		s.Extensometers = append(s.Extensometers, g.readExtensometer(epx, in.U, in.V, valid, scale))
+		s.Extensometers = append(s.Extensometers, g.readExtensometer(epx, in.U, in.V, valid, scale, mapping))
 	}
 	for _, gg := range p.Gauges {
 		gpx := gg.scaled(ls)

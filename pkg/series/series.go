@@ -270,7 +270,9 @@ func (p Params) Validate(w, h int) error {
 	switch p.Units {
 	case "px":
 	case "mm":
-		if !(p.Analysis.MMPerPx > 0) && p.Analysis.ScalePoints == nil {
+		if p.Analysis.Calibration != nil {
+			errs = append(errs, errors.New("units \"mm\" with a calibration: give extensometer and gauge coordinates in reference-image px (units \"px\"); the calibration turns results into mm"))
+		} else if !(p.Analysis.MMPerPx > 0) && p.Analysis.ScalePoints == nil {
 			errs = append(errs, errors.New("units \"mm\": set analysis.mm_per_px or analysis.scale_points"))
 		}
 	default:
@@ -342,13 +344,9 @@ func (p Params) outScale() float64 {
 	return 1
 }
 
-// outUnit returns the unit of output lengths, "mm" or "px".
-func (p Params) outUnit() string {
-	if p.Analysis.Scale() > 0 {
-		return "mm"
-	}
-	return "px"
-}
+// outUnit returns the unit of output lengths, "mm" or "px" (the
+// calibration's unit under a calibration).
+func (p Params) outUnit() string { return p.Analysis.LengthUnit() }
 
 // buildOptions returns the options of the field builder for the series'
 // frames.

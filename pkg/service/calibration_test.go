@@ -2,6 +2,7 @@ package service_test
 
 import (
 	"bytes"
+	"encoding/json"
 	"fmt"
 	"math"
 	"strings"
@@ -9,6 +10,7 @@ import (
 
 	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/service"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
@@ -110,5 +112,74 @@ func TestCalibrationRoute(t *testing.T) {
 	}
 	if resp, _ := ts.do(t, "POST", "/v1/calibrations", "application/json", []byte("{}")); resp.StatusCode != 415 {
 		t.Errorf("JSON body: status %d, want 415", resp.StatusCode)
+	}
+}
+
+// planeCalibration returns a calibration file of a distortion-free camera
+// (f = 500 px) square-on to a plane 100 mm away, for w×h images: one pixel
+// is exactly 0.2 mm in the plane (pinhole projection, Zhang 2000 eq. 1).
+func planeCalibration(t *testing.T, w, h int) []byte {
+	t.Helper()
+	f := &calib.File{Format: calib.FileFormat, Image: [2]int{w, h},
+		Camera: calib.Params{Fx: 500, Fy: 500, Cx: float64(w-1) / 2, Cy: float64(h-1) / 2},
+		Plane:  &calib.Plane{Image: "plane.png", Pose: calib.Pose{T: [3]float64{-10, -10, 100}}}}
+	var b bytes.Buffer
+	if err := f.Write(&b); err != nil {
+		t.Fatal(err)
+	}
+	return b.Bytes()
+}
+
+// TestAnalysisWithCalibration: an analysis with a calibration part gives
+// displacements in mm in the specimen plane (0.2 mm per px for this
+// camera), says which calibration it used, and refuses a calibration of
+// another image size or one given with a scale.
+func TestAnalysisWithCalibration(t *testing.T) {
+	ts := newServer(t, func(c *service.Config) { c.Analyzer, c.Workers = service.Pipeline{}, 2 })
+	const u, v = 1.3, -0.6
+	ref, def := realPair(t, 128, u, v)
+	cal := part{"calibration", "bench-camera.json", "application/json", planeCalibration(t, 128, 128)}
+	ct, body := multipartBody(t, append(analysisParts(ref, def, `{"subset": 21, "step": 12}`), cal)...)
+	resp, b := ts.do(t, "POST", "/v1/analyses?wait=true", ct, body)
+	if resp.StatusCode != 200 {
+		t.Fatalf("POST: %d %s", resp.StatusCode, b)
+	}
+	j := decodeJSON[jobDoc](t, b)
+	if j.Summary == nil {
+		t.Fatalf("no summary: %s", b)
+	}
+	if du, dv := j.Summary.Mean["u"]-0.2*u, j.Summary.Mean["v"]-0.2*v; math.Abs(du) > 0.004 || math.Abs(dv) > 0.004 {
+		t.Errorf("mean u, v = %.5f, %.5f mm; want %.3f, %.3f (0.2 mm per px)", j.Summary.Mean["u"], j.Summary.Mean["v"], 0.2*u, 0.2*v)
+	}
+	var fld struct {
+		Units map[string]string `json:"units"`
+		Meta  struct {
+			Extra map[string]any `json:"extra"`
+		} `json:"meta"`
+	}
+	if resp, fb := ts.do(t, "GET", "/v1/analyses/"+j.ID+"/field.json", "", nil); resp.StatusCode != 200 || json.Unmarshal(fb, &fld) != nil {
+		t.Fatalf("field.json: %d", resp.StatusCode)
+	}
+	if fld.Units["u"] != "mm" {
+		t.Errorf("u unit %q, want mm", fld.Units["u"])
+	}
+	if c, ok := fld.Meta.Extra["calibration"].(map[string]any); !ok || c["name"] != "bench-camera.json" {
+		t.Errorf("field metadata does not name the calibration: %v", fld.Meta.Extra["calibration"])
+	}
+	for _, c := range []struct {
+		name   string
+		parts  []part
+		status int
+		want   string
+	}{
+		{"other size", append(analysisParts(ref, def, ""), part{"calibration", "c.json", "application/json", planeCalibration(t, 640, 480)}), 422, "640×480"},
+		{"with a scale", append(analysisParts(ref, def, `{"mm_per_px": 0.1}`), cal), 422, "mm_per_px"},
+		{"not a calibration", append(analysisParts(ref, def, ""), part{"calibration", "c.json", "application/json", []byte(`{"format":"x"}`)}), 422, "mottle-camera/1"},
+	} {
+		ct, body := multipartBody(t, c.parts...)
+		resp, b := ts.do(t, "POST", "/v1/analyses", ct, body)
+		if resp.StatusCode != c.status || !strings.Contains(string(b), c.want) || !strings.Contains(string(b), "calibration") {
+			t.Errorf("%s: %d %s; want %d naming the calibration and %q", c.name, resp.StatusCode, b, c.status, c.want)
+		}
 	}
 }

@@ -153,7 +153,12 @@ func (s *Server) postAnalysis(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	ref, def := u.img["reference"], u.img["deformed"]
-	p, err := s.checkParams(u.params, ref.W, ref.H)
+	raw, err := withCalibration(u.params, u)
+	if err != nil {
+		writeProblem(w, r, asProblem(err, "calibration"))
+		return
+	}
+	p, err := s.checkParams(raw, ref.W, ref.H)
 	if err == nil {
 		err = imageio.CheckPair(ref, def, p.Subset)
 	}

@@ -68,7 +68,12 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	ref := u.img["reference"]
-	p, err := s.parseSeriesParams(u.params, ref.W, ref.H)
+	raw, err := withCalibration(u.params, u)
+	if err != nil {
+		writeProblem(w, r, asProblem(err, "calibration"))
+		return
+	}
+	p, err := s.parseSeriesParams(raw, ref.W, ref.H)
 	if m := u.img["mask"]; err == nil && m != nil && (m.W != ref.W || m.H != ref.H) {
 		err = &FieldError{Field: "mask", Detail: fmt.Sprintf("is %d×%d px but the reference is %d×%d px; the mask must match the reference", m.W, m.H, ref.W, ref.H)}
 	}

@@ -2,6 +2,7 @@ package service
 
 import (
 	"bytes"
+	"encoding/json"
 	"errors"
 	"fmt"
 	"io"
@@ -10,11 +11,15 @@ import (
 	"strings"
 
 	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/imageio"
 )
 
 // maxParamsBytes limits the params part.
 const maxParamsBytes = 1 << 20
+
+// maxCalibrationBytes limits the calibration part.
+const maxCalibrationBytes = 8 << 20
 
 // upload is a parsed multipart submission.
 type upload struct {
@@ -23,6 +28,10 @@ type upload struct {
 	img     map[string]*imageio.Gray // decoded images by part name
 	params  []byte
 	hasJSON bool
+	// calibration is the optional "calibration" part (a mottle-camera/1
+	// file) and calName its file name.
+	calibration []byte
+	calName     string
 }
 
 // imageTypes are the media types accepted for images. An empty type or
@@ -95,6 +104,19 @@ func (s *Server) readMultipart(w http.ResponseWriter, r *http.Request, images []
 					fmt.Sprintf("the params part exceeds %d bytes", maxParamsBytes), FieldProblem{"params", "too large"})
 			}
 			u.params, u.hasJSON = b, true
+		case name == "calibration":
+			if u.calibration != nil {
+				return nil, problem(http.StatusBadRequest, "duplicate-part", "Duplicate part", "calibration given twice", FieldProblem{"calibration", "give it once"})
+			}
+			b, err := io.ReadAll(io.LimitReader(part, maxCalibrationBytes+1))
+			if err != nil {
+				return nil, bodyErr(err, "calibration")
+			}
+			if len(b) > maxCalibrationBytes {
+				return nil, problem(http.StatusRequestEntityTooLarge, "params-too-large", "Calibration too large",
+					fmt.Sprintf("the calibration part exceeds %d bytes", maxCalibrationBytes), FieldProblem{"calibration", "too large"})
+			}
+			u.calibration, u.calName = b, part.FileName()
 		case want[name]:
 			if _, dup := u.raw[name]; dup {
 				return nil, problem(http.StatusBadRequest, "duplicate-part", "Duplicate part", name+" given twice", FieldProblem{name, "give it once"})
@@ -112,7 +134,7 @@ func (s *Server) readMultipart(w http.ResponseWriter, r *http.Request, images []
 			}
 		default:
 			return nil, problem(http.StatusBadRequest, "unknown-part", "Unknown part",
-				fmt.Sprintf("the part %q is not one this endpoint reads; send %s and params", name, strings.Join(append(images, optional...), ", ")),
+				fmt.Sprintf("the part %q is not one this endpoint reads; send %s, params and optionally calibration", name, strings.Join(append(images, optional...), ", ")),
 				FieldProblem{name, "unknown part"})
 		}
 		part.Close()
@@ -183,4 +205,40 @@ func (s *Server) checkPoints(p analysis.Params, w, h int) error {
 		}
 	}
 	return nil
+}
+
+// withCalibration returns the params JSON with the calibration part of u
+// merged in (as "calibration", compacted, and "calibration_name"), or
+// params unchanged without one. Errors are problems naming the part.
+func withCalibration(params []byte, u *upload) ([]byte, error) {
+	if u.calibration == nil {
+		return params, nil
+	}
+	f, err := calib.Parse(u.calibration)
+	if err != nil {
+		return nil, problem(http.StatusUnprocessableEntity, "invalid-calibration", "Invalid calibration file", "calibration: "+err.Error(),
+			FieldProblem{"calibration", err.Error() + "; send the file written by mottle calibrate or POST /v1/calibrations"})
+	}
+	m := map[string]json.RawMessage{}
+	if len(bytes.TrimSpace(params)) > 0 {
+		if err := json.Unmarshal(params, &m); err != nil {
+			return nil, problem(http.StatusBadRequest, "bad-params", "Malformed parameters", "parameters are not a JSON object: "+err.Error(),
+				FieldProblem{"params", "send a JSON object"})
+		}
+	}
+	if _, dup := m["calibration"]; dup {
+		return nil, problem(http.StatusBadRequest, "duplicate-part", "Calibration given twice",
+			"the calibration is both a part and a parameter; give it once", FieldProblem{"calibration", "give it once"})
+	}
+	name := u.calName
+	if name == "" {
+		name = "calibration"
+	}
+	cb, err := json.Marshal(f.Compact())
+	if err != nil {
+		return nil, fmt.Errorf("calibration: %w", err)
+	}
+	nb, _ := json.Marshal(name)
+	m["calibration"], m["calibration_name"] = cb, nb
+	return json.Marshal(m)
 }

@@ -122,24 +122,47 @@ func TestFalseStrainCorrected(t *testing.T) {
 	p.Subset = 41
 	p.Prefilter = 0.8
 	p.StrainWindow = 11
-	f, err := analysis.Run(context.Background(), ref, def, p, nil)
+	out, err := analysis.RunJob(context.Background(), analysis.Job{Ref: ref, Def: def, Params: p})
 	if err != nil {
 		t.Fatal(err)
 	}
+	f := out.Field
 	raw := maxAbsStrain(t, f)
+	// With the calibration, through the pipeline's field builder (the
+	// correlation does not depend on it).
+	p.Calibration, p.CalibrationName = cal.Compact(), "camera.json"
+	if err := p.Validate(fsW, fsH); err != nil {
+		t.Fatal(err)
+	}
+	fc, err := analysis.Kinematics(context.Background(), out.Correlation, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if fc.Units["u"] != "mm" {
+		t.Errorf("calibrated u is in %q, want mm (the file has a specimen plane)", fc.Units["u"])
+	}
+	if c, ok := fc.Meta.Extra["calibration"].(map[string]any); !ok || c["name"] != "camera.json" {
+		t.Errorf("the field does not say which calibration made it: %v", fc.Meta.Extra["calibration"])
+	}
+	mapped := maxAbsStrain(t, fc)
 	// The same with the true lens and plane pose: what a perfect calibration
 	// would give, i.e. the correlation's own error.
-	tf := &calib.File{Format: calib.FileFormat, Image: [2]int{fsW, fsH},
+	p.Calibration = &calib.File{Format: calib.FileFormat, Image: [2]int{fsW, fsH},
 		Camera: calib.Params{Fx: fsLens.Fx, Fy: fsLens.Fy, Cx: fsLens.Cx, Cy: fsLens.Cy, K1: fsLens.K1, K2: fsLens.K2},
 		Plane:  &calib.Plane{Pose: calib.PoseFromMatrix(spec.R, spec.T)}}
-	tm, err := tf.Mapping("true camera")
+	ft, err := analysis.Kinematics(context.Background(), out.Correlation, p)
 	if err != nil {
 		t.Fatal(err)
 	}
-	perfect := mappedStrain(t, f, tm)
-	mapped := mappedStrain(t, f, m)
-	t.Logf("largest |strain| over %d points: without calibration %.3g, with calibration %.3g (bound 5e-5), with the true camera %.3g",
-		f.Grid.Len(), raw, mapped, perfect)
+	perfect := maxAbsStrain(t, ft)
+	// The test's own chain rule (Mapping.Jacobian, Gradient.Reparam) on the
+	// uncorrected field, as a check of the builder's.
+	own := mappedStrain(t, f, m)
+	t.Logf("largest |strain| over %d points: without calibration %.3g, with calibration %.3g (bound 5e-5), with the true camera %.3g; test's own chain rule %.3g",
+		f.Grid.Len(), raw, mapped, perfect, own)
+	if math.Abs(own-mapped) > 0.1*mapped {
+		t.Errorf("the builder's mapped strain %.3g and the test's own %.3g differ", mapped, own)
+	}
 	if raw < 5e-4 {
 		t.Errorf("without calibration the false strain is only %.3g; the test lens should give about 1e-3", raw)
 	}
