@@ -130,7 +130,7 @@ func surface(ref *Reference, st *State, k int, nb []int, s *Surface) {
 		return
 	}
 	n := [3]float64{V.At(0, 0), V.At(1, 0), V.At(2, 0)} // smallest eigenvalue first
-	if n[0]*c[0]+n[1]*c[1]+n[2]*c[2] > 0 {                 // face the left camera at the origin
+	if n[0]*c[0]+n[1]*c[1]+n[2]*c[2] > 0 {              // face the left camera at the origin
 		n = [3]float64{-n[0], -n[1], -n[2]}
 	}
 	e1 := [3]float64{1 - n[0]*n[0], -n[0] * n[1], -n[0] * n[2]} // x axis minus its normal part

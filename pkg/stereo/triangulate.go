@@ -174,7 +174,7 @@ func (t *Triangulator) Optimal(ul, ur [2]float64) (cl, cr [2]float64, d2 float64
 	q := padd(pmul(atb, atb), pscale(pmul(ctd, ctd), fp*fp))
 	g := pmul([]float64{0, 1}, pmul(q, q))
 	ft := []float64{1, 0, f * f}
-	g = padd(g, pscale(pmul(pmul(ft, ft), pmul(atb, ctd)), -(a*d - b*c)))
+	g = padd(g, pscale(pmul(pmul(ft, ft), pmul(atb, ctd)), -(a*d-b*c)))
 	cost := func(t float64) float64 {
 		u, v := a*t+b, c*t+d
 		return t*t/(1+f*f*t*t) + v*v/(u*u+fp*fp*v*v)
