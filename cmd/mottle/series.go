@@ -218,10 +218,8 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		if err != nil {
 			return fmt.Errorf("--params: %w", err)
 		}
-		dec := json.NewDecoder(strings.NewReader(string(b)))
-		dec.DisallowUnknownFields()
-		if err := dec.Decode(&p); err != nil {
-			return fmt.Errorf("--params %s: %w (series parameters hold the analysis ones under \"analysis\", e.g. {\"analysis\": {\"subset\": 31}, \"area_mm2\": 10}; the Settings of a report.html show every name)", *paramsFile, err)
+		if p, err = series.ParseParams(b); err != nil {
+			return fmt.Errorf("--params %s: %w (analysis parameters at the top level or under \"analysis\", e.g. {\"subset\": 31, \"area_mm2\": 10}; the Settings of a report.html show every name)", *paramsFile, err)
 		}
 	}
 	set := map[string]bool{}

@@ -1,10 +1,11 @@
 package series
 
 import (
-	"errors"
 	"fmt"
 	"math"
 	"sort"
+
+	"github.com/mottledic/mottle/pkg/analysis"
 )
 
 // Extensometer is a virtual extensometer: two material points A and B
@@ -62,56 +63,62 @@ type GaugeReading struct {
 	Rate *float64 `json:"rate,omitempty"`
 }
 
-// validateGeometry checks extensometers and gauges, returning every problem.
-func validateGeometry(ext []Extensometer, gs []Gauge) error {
-	var errs []error
+// validateGeometry checks extensometers and gauges, returning every
+// problem with the field it is about (extensometers[i], gauges[i]).
+func validateGeometry(ext []Extensometer, gs []Gauge) []analysis.Problem {
+	var ps []analysis.Problem
+	add := func(field, format string, a ...any) {
+		ps = append(ps, analysis.Problem{Field: field, Message: fmt.Sprintf(format, a...)})
+	}
 	names := map[string]bool{}
 	for i, e := range ext {
+		f := fmt.Sprintf("extensometers[%d]", i)
 		if e.Name == "" {
-			errs = append(errs, fmt.Errorf("extensometers[%d]: name is empty", i))
+			add(f, "name is empty")
 		} else if names["ext:"+e.Name] {
-			errs = append(errs, fmt.Errorf("extensometers[%d]: name %q used twice", i, e.Name))
+			add(f, "name %q used twice", e.Name)
 		}
 		names["ext:"+e.Name] = true
 		if !finite(e.A[0], e.A[1], e.B[0], e.B[1]) {
-			errs = append(errs, fmt.Errorf("extensometer %q: end points must be finite", e.Name))
+			add(f, "extensometer %q: end points must be finite", e.Name)
 		} else if e.A == e.B {
-			errs = append(errs, fmt.Errorf("extensometer %q: end points A and B coincide; give two distinct points", e.Name))
+			add(f, "extensometer %q: end points A and B coincide; give two distinct points", e.Name)
 		}
 	}
 	for i, g := range gs {
+		f := fmt.Sprintf("gauges[%d]", i)
 		if g.Name == "" {
-			errs = append(errs, fmt.Errorf("gauges[%d]: name is empty", i))
+			add(f, "name is empty")
 		} else if names["gauge:"+g.Name] {
-			errs = append(errs, fmt.Errorf("gauges[%d]: name %q used twice", i, g.Name))
+			add(f, "name %q used twice", g.Name)
 		}
 		names["gauge:"+g.Name] = true
 		switch {
 		case len(g.Polygon) > 0:
 			if len(g.Polygon) < 3 {
-				errs = append(errs, fmt.Errorf("gauge %q: polygon has %d vertices, need at least 3", g.Name, len(g.Polygon)))
+				add(f, "gauge %q: polygon has %d vertices, need at least 3", g.Name, len(g.Polygon))
 			}
 			for _, p := range g.Polygon {
 				if !finite(p[0], p[1]) {
-					errs = append(errs, fmt.Errorf("gauge %q: polygon vertex %v is not finite", g.Name, p))
+					add(f, "gauge %q: polygon vertex %v is not finite", g.Name, p)
 					break
 				}
 			}
 		case g.Rect != nil:
 			r := g.Rect
 			if !finite(r[0], r[1], r[2], r[3]) || !(r[2] > r[0] && r[3] > r[1]) {
-				errs = append(errs, fmt.Errorf("gauge %q: rect %v must be x0, y0, x1, y1 with x0 < x1 and y0 < y1", g.Name, *r))
+				add(f, "gauge %q: rect %v must be x0, y0, x1, y1 with x0 < x1 and y0 < y1", g.Name, *r)
 			}
 		default:
-			errs = append(errs, fmt.Errorf("gauge %q: give a rect or a polygon", g.Name))
+			add(f, "gauge %q: give a rect or a polygon", g.Name)
 		}
 		for _, c := range g.Components {
 			if !gaugeComponents[c] {
-				errs = append(errs, fmt.Errorf("gauge %q: component %q unknown; use one of %v", g.Name, c, sortedKeys(gaugeComponents)))
+				add(f, "gauge %q: component %q unknown; use one of %v", g.Name, c, sortedKeys(gaugeComponents))
 			}
 		}
 	}
-	return errors.Join(errs...)
+	return ps
 }
 
 // gaugeComponents are the quantities a gauge can average.

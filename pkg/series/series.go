@@ -249,50 +249,65 @@ func Defaults() Params {
 }
 
 // Validate checks p (after defaults) for reference images of w×h px
-// (w, h ≤ 0 skips the size checks) and returns every problem at once.
+// (w, h ≤ 0 skips the size checks) and returns every problem at once, as
+// an *analysis.ValidationError whose problems name their field: the
+// analysis parameters by their own names (subset, step, …), the series
+// ones by theirs (incremental, gauges[1], properties.axial, …).
 func (p Params) Validate(w, h int) error {
 	p = p.withDefaults()
-	var errs []error
+	var ps []analysis.Problem
+	add := func(field, format string, a ...any) {
+		ps = append(ps, analysis.Problem{Field: field, Message: fmt.Sprintf(format, a...)})
+	}
 	if err := p.Analysis.Validate(w, h); err != nil {
-		errs = append(errs, fmt.Errorf("analysis: %w", err))
+		var ve *analysis.ValidationError
+		if errors.As(err, &ve) {
+			ps = append(ps, ve.Problems...)
+		} else {
+			add("analysis", "%v", err)
+		}
 	}
 	switch p.Incremental {
 	case IncrementalAuto, IncrementalNever, IncrementalAlways:
 	default:
-		errs = append(errs, fmt.Errorf("incremental %q: use auto, never or always", p.Incremental))
+		add("incremental", "%q: use auto, never or always", p.Incremental)
 	}
 	if !(p.SwitchZNCC > -1 && p.SwitchZNCC <= 1) {
-		errs = append(errs, fmt.Errorf("switch_zncc %g: use a value in (-1, 1], e.g. 0.9", p.SwitchZNCC))
+		add("switch_zncc", "%g: use a value in (-1, 1], e.g. 0.9", p.SwitchZNCC)
 	}
 	if !(p.SwitchValid > 0 && p.SwitchValid <= 1) {
-		errs = append(errs, fmt.Errorf("switch_valid %g: use a fraction in (0, 1], e.g. 0.9", p.SwitchValid))
+		add("switch_valid", "%g: use a fraction in (0, 1], e.g. 0.9", p.SwitchValid)
 	}
 	switch p.Units {
 	case "px":
 	case "mm":
 		if p.Analysis.Calibration != nil {
-			errs = append(errs, errors.New("units \"mm\" with a calibration: give extensometer and gauge coordinates in reference-image px (units \"px\"); the calibration turns results into mm"))
+			add("units", "\"mm\" with a calibration: give extensometer and gauge coordinates in reference-image px (units \"px\"); the calibration turns results into mm")
 		} else if !(p.Analysis.MMPerPx > 0) && p.Analysis.ScalePoints == nil {
-			errs = append(errs, errors.New("units \"mm\": set analysis.mm_per_px or analysis.scale_points"))
+			add("units", "\"mm\": set analysis.mm_per_px or analysis.scale_points")
 		}
 	default:
-		errs = append(errs, fmt.Errorf("units %q: use px or mm", p.Units))
+		add("units", "%q: use px or mm", p.Units)
 	}
 	if !finite(p.Area) || p.Area < 0 {
-		errs = append(errs, fmt.Errorf("area_mm2 %g: use 0 (no stress) or the positive cross-section in mm²", p.Area))
+		add("area_mm2", "%g: use 0 (no stress) or the positive cross-section in mm²", p.Area)
 	}
 	if p.StaticFrames < 0 {
-		errs = append(errs, fmt.Errorf("static_frames %d: use 0 or more", p.StaticFrames))
+		add("static_frames", "%d: use 0 or more", p.StaticFrames)
 	}
-	if err := validateGeometry(p.Extensometers, p.Gauges); err != nil {
-		errs = append(errs, err)
+	ps = append(ps, validateGeometry(p.Extensometers, p.Gauges)...)
+	ps = append(ps, p.Properties.validate(p.Extensometers, p.Gauges)...)
+	if len(ps) > 0 {
+		return &analysis.ValidationError{Problems: ps}
 	}
-	errs = append(errs, p.Properties.validate(p.Extensometers, p.Gauges))
-	return errors.Join(errs...)
+	return nil
 }
 
-func (pp PropsParams) validate(ext []Extensometer, gs []Gauge) error {
-	var errs []error
+func (pp PropsParams) validate(ext []Extensometer, gs []Gauge) []analysis.Problem {
+	var ps []analysis.Problem
+	add := func(field, format string, a ...any) {
+		ps = append(ps, analysis.Problem{Field: "properties." + field, Message: fmt.Sprintf(format, a...)})
+	}
 	check := func(field, n string) {
 		if g, comp, ok := gaugeSource(n); ok {
 			for _, gg := range gs {
@@ -304,10 +319,10 @@ func (pp PropsParams) validate(ext []Extensometer, gs []Gauge) error {
 						return
 					}
 				}
-				errs = append(errs, fmt.Errorf("properties.%s %q: gauge %q has no component %q among E11, E22, H11, H22, eps11, eps22", field, n, g, comp))
+				add(field, "%q: gauge %q has no component %q among E11, E22, H11, H22, eps11, eps22", n, g, comp)
 				return
 			}
-			errs = append(errs, fmt.Errorf("properties.%s %q: no gauge named %q", field, n, g))
+			add(field, "%q: no gauge named %q", n, g)
 			return
 		}
 		for _, e := range ext {
@@ -315,7 +330,7 @@ func (pp PropsParams) validate(ext []Extensometer, gs []Gauge) error {
 				return
 			}
 		}
-		errs = append(errs, fmt.Errorf("properties.%s %q: no extensometer of that name (or give gauge:NAME:E11)", field, n))
+		add(field, "%q: no extensometer of that name (or give gauge:NAME:E11)", n)
 	}
 	if pp.Axial != "" {
 		check("axial", pp.Axial)
@@ -323,15 +338,18 @@ func (pp PropsParams) validate(ext []Extensometer, gs []Gauge) error {
 	if pp.Transverse != "" {
 		check("transverse", pp.Transverse)
 	}
-	for name, r := range map[string][2]float64{"modulus_range": pp.ModulusRange, "poisson_range": pp.PoissonRange, "r_range": pp.RRange} {
-		if r != [2]float64{} && (!finite(r[0], r[1]) || !(r[1] > r[0])) {
-			errs = append(errs, fmt.Errorf("properties.%s %v: give [lo, hi] with lo < hi, as strains (0.002, not 0.2 %%)", name, r))
+	for _, r := range []struct {
+		name string
+		v    [2]float64
+	}{{"modulus_range", pp.ModulusRange}, {"poisson_range", pp.PoissonRange}, {"r_range", pp.RRange}} {
+		if r.v != [2]float64{} && (!finite(r.v[0], r.v[1]) || !(r.v[1] > r.v[0])) {
+			add(r.name, "%v: give [lo, hi] with lo < hi, as strains (0.002, not 0.2 %%)", r.v)
 		}
 	}
 	if !(pp.Offset > 0 && pp.Offset < 0.1) {
-		errs = append(errs, fmt.Errorf("properties.offset %g: use a strain such as 0.002 (0.2 %%)", pp.Offset))
+		add("offset", "%g: use a strain such as 0.002 (0.2 %%)", pp.Offset)
 	}
-	return errors.Join(errs...)
+	return ps
 }
 
 // outScale returns the factor from px to the output lengths: the image
