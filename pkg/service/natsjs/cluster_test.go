@@ -134,7 +134,8 @@ func runNode(cfg string) int {
 	sig := make(chan os.Signal, 1)
 	signal.Notify(sig, syscall.SIGTERM, os.Interrupt)
 	go s.Start()
-	if !s.ReadyForConnections(20 * time.Second) {
+	// The test process gives up waiting for "ready" at its own deadline.
+	if !s.ReadyForConnections(10 * time.Minute) {
 		fmt.Fprintln(os.Stderr, "node not ready")
 		return 1
 	}
@@ -246,6 +247,12 @@ func testCtx(t testing.TB) context.Context {
 	ctx, cancel := context.WithDeadline(context.Background(), end)
 	t.Cleanup(cancel)
 	return ctx
+}
+
+// untilEnd is the time left until testCtx ends.
+func untilEnd(t testing.TB) time.Duration {
+	d, _ := testCtx(t).Deadline()
+	return time.Until(d)
 }
 
 // waitFor checks cond every 20 ms until it holds; it fails the test only

@@ -27,7 +27,7 @@ func runServer(t testing.TB) string {
 		t.Fatal(err)
 	}
 	go s.Start()
-	if !s.ReadyForConnections(10 * time.Second) {
+	if !s.ReadyForConnections(untilEnd(t)) {
 		t.Fatal("nats server not ready")
 	}
 	t.Cleanup(s.Shutdown)
@@ -40,9 +40,7 @@ func open(t testing.TB, url string, mod func(*Options)) *Backend {
 	if mod != nil {
 		mod(&o)
 	}
-	ctx, cancel := context.WithTimeout(context.Background(), 20*time.Second)
-	defer cancel()
-	b, err := Open(ctx, o)
+	b, err := Open(testCtx(t), o)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -585,7 +583,7 @@ func runCluster(t testing.TB) []*server.Server {
 		srvs = append(srvs, s)
 	}
 	for _, s := range srvs {
-		if !s.ReadyForConnections(10 * time.Second) {
+		if !s.ReadyForConnections(untilEnd(t)) {
 			t.Fatal("nats server not ready")
 		}
 	}
