@@ -34,10 +34,23 @@ specimen. Without it, positions are undistorted pixels.
 Caution: the uncertainty of the calibration adds to that of every
 measurement; confirm critical results with a calibrated extensometer.
 
+--stereo calibrates a pair of cameras (a rig for "mottle stereo"): the left
+images follow --stereo and the right images, taken at the same moments and
+in the same order, follow --right; both cameras and the pose of the right
+camera relative to the left are fitted together and written to --out
+(format "mottle-rig/1", default rig.json) with the baseline and the angle
+between the optical axes.
+
 Example:
-  mottle calibrate cal/*.png --target board.json --plane cal/specimen.png --out camera.json`
+  mottle calibrate cal/*.png --target board.json --plane cal/specimen.png --out camera.json
+  mottle calibrate --stereo cal/L*.png --right cal/R*.png --target board.json --out rig.json`
 
 func runCalibrate(ctx context.Context, e *env, args []string) error {
+	for _, a := range args {
+		if a == "--stereo" || a == "-stereo" {
+			return runCalibrateStereo(ctx, e, args)
+		}
+	}
 	fs := newFlags(e, "calibrate", "IMAGES... --target FILE.json [flags]", calibrateDescription)
 	target := fs.String("target", "", "target geometry `file` written by mottle target (required)")
 	out := fs.String("out", "camera.json", "calibration `file` to write")

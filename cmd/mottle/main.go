@@ -49,6 +49,7 @@ func commands() []command {
 		{"target", "write a printable calibration target and its geometry", runTarget},
 		{"pattern", "write a printable random speckle pattern", runPattern},
 		{"calibrate", "calibrate the camera and its lens distortion from target images", runCalibrate},
+		{"stereo", "measure 3D shape, displacement and surface strain with two calibrated cameras", runStereo},
 		{"serve", "run the HTTP service and the browser preview", runServe},
 		{"worker", "compute jobs from a NATS JetStream backend shared with mottle serve", runWorker},
 		{"version", "print the version", runVersion},

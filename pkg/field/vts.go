@@ -47,13 +47,13 @@ func WriteVTS(w io.Writer, f *Field) error {
 		writeVTKBinary(bw, f.Quantities[n], f.single())
 		fmt.Fprintf(bw, "\n        </DataArray>\n")
 	}
+	pts, hidden := vtsPoints(f)
+	if hidden != nil {
+		writeGhosts(bw, hidden)
+	}
 	fmt.Fprintf(bw, "      </PointData>\n")
 	fmt.Fprintf(bw, "      <Points>\n")
 	fmt.Fprintf(bw, "        <DataArray type=\"%s\" Name=\"Points\" NumberOfComponents=\"3\" format=\"binary\">\n          ", typ)
-	pts := make([]float64, 3*g.Len())
-	for p := range g.Len() {
-		pts[3*p], pts[3*p+1] = g.X[p], g.Y[p]
-	}
 	writeVTKBinary(bw, pts, f.single())
 	fmt.Fprintf(bw, "\n        </DataArray>\n")
 	fmt.Fprintf(bw, "      </Points>\n")
