@@ -94,6 +94,7 @@ func viewJob(j *jobs.Job) *jobView {
 		"map": p + "/map.png", "reference": p + "/images/reference.png", "deformed": p + "/images/deformed.png"}
 	if j.Kind == jobs.Analysis {
 		l["cancel"] = p + "/cancel"
+		l["thumb"] = p + "/thumb.png"
 	} else {
 		l["series"] = "/v1/series/" + j.Series
 	}
@@ -169,19 +170,24 @@ func (s *Server) postAnalysis(w http.ResponseWriter, r *http.Request) {
 		writeProblem(w, r, asProblem(err, "params"))
 		return
 	}
-	s.submit(w, r, p, ref, u.raw)
+	name, perr := nameQuery(r, frameName(u.files["reference"], "reference")+" → "+frameName(u.files["deformed"], "deformed"))
+	if perr != nil {
+		writeProblem(w, r, perr)
+		return
+	}
+	s.submit(w, r, p, ref, u.raw, name)
 }
 
 // submit stores the inputs and record of a new analysis, enqueues it and
 // answers 202 (or, with ?wait=true, the finished job).
-func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Params, ref *imageio.Gray, raw map[string][]byte) {
+func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Params, ref *imageio.Gray, raw map[string][]byte, name string) {
 	wait, err := boolQuery(r, "wait", false)
 	if err != nil {
 		writeProblem(w, r, err.(*Problem))
 		return
 	}
 	params, _ := json.Marshal(p)
-	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Analysis, State: jobs.Queued, Params: params,
+	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Analysis, State: jobs.Queued, Params: params, Name: name,
 		Width: ref.W, Height: ref.H, HasMask: raw["mask"] != nil, Created: time.Now().UTC()}
 	if err := s.accept(r.Context(), j, raw); err != nil {
 		s.answerAcceptErr(w, r, err)
@@ -380,7 +386,12 @@ func (s *Server) postDemo(w http.ResponseWriter, r *http.Request) {
 		}
 		raw[name] = b.Bytes()
 	}
-	s.submit(w, r, p, ref, raw)
+	name, perr := nameQuery(r, "Demo specimen")
+	if perr != nil {
+		writeProblem(w, r, perr)
+		return
+	}
+	s.submit(w, r, p, ref, raw, name)
 }
 
 func pngBits(g *imageio.Gray) int {

@@ -49,7 +49,8 @@ type seriesView struct {
 func (s *Server) viewSeries(ctx context.Context, sr *jobs.Series, counts bool) *seriesView {
 	p := "/v1/series/" + sr.ID
 	v := &seriesView{Series: sr, FrameCount: len(sr.Frames), Links: map[string]string{
-		"self": p, "frames": p + "/frames", "events": p + "/events", "curve.csv": p + "/curve.csv", "curve.json": p + "/curve.json"}}
+		"self": p, "frames": p + "/frames", "events": p + "/events", "curve.csv": p + "/curve.csv", "curve.json": p + "/curve.json",
+		"thumb": p + "/thumb.png", "properties": p + "/properties.json", "report": p + "/report.html"}}
 	if counts {
 		if list, err := s.store.Jobs(ctx, jobs.Filter{Series: sr.ID}); err == nil {
 			v.States = map[jobs.State]int{}
@@ -85,9 +86,15 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 		writeProblem(w, r, asProblem(err, "params"))
 		return
 	}
+	refName := frameName(u.files["reference"], "reference")
+	label, perr := nameQuery(r, refName)
+	if perr != nil {
+		writeProblem(w, r, perr)
+		return
+	}
 	now := time.Now().UTC()
-	sr := &jobs.Series{ID: jobs.NewID(), Params: params, Width: ref.W, Height: ref.H, HasMask: u.raw["mask"] != nil,
-		ReferenceName: frameName(u.files["reference"], "reference"), Created: now, Updated: now, Frames: []string{}}
+	sr := &jobs.Series{ID: jobs.NewID(), Name: label, Params: params, Width: ref.W, Height: ref.H, HasMask: u.raw["mask"] != nil,
+		ReferenceName: refName, Created: now, Updated: now, Frames: []string{}}
 	for name, b := range u.raw {
 		if err := s.blobs.Put(r.Context(), jobs.SeriesKey(sr.ID, name), bytes.NewReader(b)); err != nil {
 			s.blobs.Delete(r.Context(), jobs.SeriesKey(sr.ID, ""))

@@ -123,7 +123,9 @@ type Job struct {
 	// values given with the frame, if any.
 	Series     string `json:"series,omitempty"`
 	FrameIndex int    `json:"frame,omitempty"`
-	// Name names a frame in its series' curve (default frame_<index>).
+	// Name names a frame in its series' curve (default frame_<index>),
+	// or, for an analysis, is the label the user gave it (default from
+	// the file names).
 	Name string   `json:"name,omitempty"`
 	Time *float64 `json:"time,omitempty"`
 	Load *float64 `json:"load,omitempty"`
@@ -147,7 +149,10 @@ type Job struct {
 // Series is the record of a test series: a reference image (in Blobs under
 // SeriesKey(ID, "reference")), parameters, and its frames in order.
 type Series struct {
-	ID     string          `json:"id"`
+	ID string `json:"id"`
+	// Name is the label the user gave the series (default: the file name
+	// of the reference).
+	Name   string          `json:"name,omitempty"`
 	Params json.RawMessage `json:"params"`
 	Width  int             `json:"width"`
 	Height int             `json:"height"`
