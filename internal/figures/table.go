@@ -15,6 +15,9 @@ const (
 	rowCross       = "against OpenCV"
 	rowChallenge   = "DIC Challenge 2.0"
 	rowDemo        = "built-in demo"
+	rowCalib       = "camera calibration on 12 rendered views"
+	rowCalibCV     = "camera calibration against OpenCV"
+	rowFalseStrain = "false strain of a rigid translation"
 )
 
 // up is a figure with an upper bound; row "" means asserted but not quoted.
@@ -147,6 +150,33 @@ func All() []Figure {
 		// pkg/verify TestChallengeMottle, first-order subsets 11–51 on the
 		// rendered star: mean 10 % attenuation period per subset side,
 		// worst |p10/theory − 1| and largest MEI (px²).
+		// pkg/calib TestCalibrateRendered (one rendered set per target):
+		// reprojection RMS (px), the larger focal-length error (%), the
+		// larger principal-point error (px) and the k1 error (%) against
+		// the renderer's lens; bounds are the published limits.
+		up("calib/checkerboard/rms", rowCalib, 0.011, 0.05),
+		up("calib/checkerboard/focal", rowCalib, 0.0104, 0.1),
+		up("calib/checkerboard/principal", rowCalib, 0.018, 0.5),
+		up("calib/checkerboard/k1", rowCalib, 0.07, 2),
+		up("calib/dots/rms", rowCalib, 0.0057, 0.05),
+		up("calib/dots/focal", rowCalib, 0.0015, 0.1),
+		up("calib/dots/principal", rowCalib, 0.029, 0.5),
+		up("calib/dots/k1", rowCalib, 0.21, 2),
+
+		// pkg/calib TestOpenCV: largest |ours − OpenCV| over the nine
+		// parameters in units of our standard deviation; largest difference
+		// of undistorted points with the same camera, px.
+		up("calib/opencv/params-in-std", rowCalibCV, 0.0015, 1),
+		up("calib/opencv/undistort", rowCalibCV, 9.3e-11, 1e-6),
+
+		// pkg/verify TestFalseStrainCorrected: largest |E| of a rigid
+		// translation seen through a distorting lens, without calibration
+		// (held to [0.0005, 0.002] so the test keeps a real false strain to
+		// remove), with the calibration, and with the true lens and pose.
+		in("falsestrain/without", rowFalseStrain, 0.0012, 0.0005, 0.002),
+		up("falsestrain/with", rowFalseStrain, 3.8e-5, 5e-5),
+		up("falsestrain/true-lens", rowFalseStrain, 3.7e-5, 5e-5),
+
 		in("challenge/first/p10-per-subset", rowChallenge, 3.8, 3.72, 4.26),
 		up("challenge/first/p10-deviation/worst", rowChallenge, 0.056, 0.084),
 		up("challenge/first/mei/worst", rowChallenge, 0.28, 0.42),

@@ -9,6 +9,8 @@ import (
 	"os/exec"
 	"path/filepath"
 	"testing"
+
+	"github.com/mottledic/mottle/internal/figures"
 )
 
 // python is Debian's interpreter, which sees python3-opencv (another
@@ -97,8 +99,10 @@ func TestOpenCV(t *testing.T) {
 	ov := res.Camera.vector()
 	cvv := cv.Camera.Camera().vector()
 	cvs := cv.Std.Camera().vector()
+	var worst float64
 	for i, n := range names {
 		d := math.Abs(ov[i] - cvv[i])
+		worst = math.Max(worst, d/res.Std[i])
 		t.Logf("%s: ours %.8g ± %.3g, OpenCV %.8g ± %.3g, difference %.3g", n, ov[i], res.Std[i], cvv[i], cvs[i], d)
 		if d > res.Std[i] || d > cvs[i] {
 			t.Errorf("%s: ours %.8g and OpenCV's %.8g differ by %.3g, more than the standard deviations %.3g (ours), %.3g (OpenCV)",
@@ -122,9 +126,8 @@ func TestOpenCV(t *testing.T) {
 		maxRatio = math.Max(maxRatio, math.Max(math.Abs(x-fx)/sx, math.Abs(y-fy)/sy))
 	}
 	t.Logf("undistorted points: same camera max difference %.2e px; each fit's own camera max %.4f px, at most %.2f of its standard deviation", maxSame, maxFit, maxRatio)
-	if maxSame > 1e-6 {
-		t.Errorf("undistortion with the same camera differs from OpenCV by %.2e px", maxSame)
-	}
+	figures.Check(t, "calib/opencv/params-in-std", worst)
+	figures.Check(t, "calib/opencv/undistort", maxSame)
 	if maxRatio > 1 {
 		t.Errorf("undistorted points of the two fits differ by up to %.2f standard deviations", maxRatio)
 	}

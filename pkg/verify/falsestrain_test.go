@@ -4,13 +4,18 @@ import (
 	"context"
 	"fmt"
 	"math"
+	"os"
+	"path/filepath"
 	"testing"
 	"time"
 
+	"github.com/mottledic/mottle/internal/figures"
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/field"
+	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/kinematics"
+	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
@@ -145,6 +150,7 @@ func TestFalseStrainCorrected(t *testing.T) {
 		t.Errorf("the field does not say which calibration made it: %v", fc.Meta.Extra["calibration"])
 	}
 	mapped := maxAbsStrain(t, fc)
+	writeFalseStrainMaps(t, ref, f, fc)
 	// The same with the true lens and plane pose: what a perfect calibration
 	// would give, i.e. the correlation's own error.
 	p.Calibration = &calib.File{Format: calib.FileFormat, Image: [2]int{fsW, fsH},
@@ -163,12 +169,9 @@ func TestFalseStrainCorrected(t *testing.T) {
 	if math.Abs(own-mapped) > 0.1*mapped {
 		t.Errorf("the builder's mapped strain %.3g and the test's own %.3g differ", mapped, own)
 	}
-	if raw < 5e-4 {
-		t.Errorf("without calibration the false strain is only %.3g; the test lens should give about 1e-3", raw)
-	}
-	if mapped > 5e-5 {
-		t.Errorf("with calibration the largest strain is %.3g, over 5e-5", mapped)
-	}
+	figures.Check(t, "falsestrain/without", raw)
+	figures.Check(t, "falsestrain/with", mapped)
+	figures.Check(t, "falsestrain/true-lens", perfect)
 }
 
 // maxAbsStrain returns the largest |E11|, |E22|, |E12| of a field.
@@ -234,3 +237,32 @@ func mappedStrain(t *testing.T, f *field.Field, m *calib.Mapping) float64 {
 
 // fsTime is the fixed creation time of the test's calibration file.
 var fsTime = time.Date(2026, 3, 14, 9, 30, 0, 0, time.UTC)
+
+// writeFalseStrainMaps writes the E11 maps without and with the
+// calibration, on one colour range, to $MOTTLE_ARTIFACTS/falsestrain when
+// that is set (the README shows them).
+func writeFalseStrainMaps(t *testing.T, ref *imageio.Gray, raw, cal *field.Field) {
+	dir := os.Getenv("MOTTLE_ARTIFACTS")
+	if dir == "" {
+		return
+	}
+	dir = filepath.Join(dir, "falsestrain")
+	if err := os.MkdirAll(dir, 0o755); err != nil {
+		t.Fatal(err)
+	}
+	for _, m := range []struct {
+		name, title string
+		f           *field.Field
+	}{
+		{"E11-without-calibration.png", "E11 of a rigid translation, without calibration", raw},
+		{"E11-with-calibration.png", "E11 of the same translation, with the calibration", cal},
+	} {
+		b, err := results.RenderMap(m.f, ref, results.MapRequest{Quantity: "E11", Range: [2]float64{-1.2e-3, 1.2e-3}, Title: m.title})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := os.WriteFile(filepath.Join(dir, m.name), b, 0o644); err != nil {
+			t.Fatal(err)
+		}
+	}
+}
