@@ -98,6 +98,9 @@ func run(ctx context.Context, args []string, stdout io.Writer) error {
 	fmt.Fprintf(w, "Mottle (1 thread) / OpenCV ECC with its default stop (1 thread), geometric mean of points/s over the pairs: %.1f×; Mottle with all %d cores: %.1f×.\n",
 		verify.SpeedRatio(rows, mottleLabel(1)), runtime.NumCPU(), verify.SpeedRatio(rows, mottleLabel(0)))
 	fmt.Fprintln(w, "\npoints/s counts the per-point work only (Mottle: spline prefilter, seed search, IC-GN and propagation; OpenCV: matchTemplate ±4 px plus findTransformECC per subset, driven from Python; default stop = OpenCV's 50 iterations / Δρ < 1e-3, tight stop = 200 / 1e-8 as in the cross-checks); process wall and peak RSS are the whole child process (interpreter start, imports, image decoding). Each figure is one run on a shared machine: expect ±20 % run to run.")
+	if err := stereoSpeed(ctx, w, *quick); err != nil {
+		return err
+	}
 	if err := save(*out, "bench.md", report.String()); err != nil {
 		return err
 	}
