@@ -34,6 +34,9 @@ type Input struct {
 	// intersected with Params.ROI.
 	Mask   *imageio.Gray
 	Params analysis.Params
+	// Formats are the result formats to write (results.ParseFormats); ""
+	// means the service's default, the stored result alone.
+	Formats string
 }
 
 // Result is what an analysis produced.
@@ -72,6 +75,8 @@ type FrameInput struct {
 	Params json.RawMessage
 	// State is the engine state after Last, nil for the first frame.
 	State []byte
+	// Formats are the result formats to write, as for Input.
+	Formats string
 	// Name, Time and Load describe the frame; RefName names the reference.
 	Name, RefName string
 	Time, Load    *float64

@@ -17,6 +17,7 @@ import (
 
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
@@ -186,9 +187,14 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Param
 		writeProblem(w, r, err.(*Problem))
 		return
 	}
+	formats, err := ParseFormats(r.URL.Query().Get("formats"))
+	if err != nil {
+		writeProblem(w, r, asProblem(err, "formats"))
+		return
+	}
 	params, _ := json.Marshal(p)
 	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Analysis, State: jobs.Queued, Params: params, Name: name,
-		Width: ref.W, Height: ref.H, HasMask: raw["mask"] != nil, Created: time.Now().UTC()}
+		Width: ref.W, Height: ref.H, HasMask: raw["mask"] != nil, Formats: formats.String(), Created: time.Now().UTC()}
 	if err := s.accept(r.Context(), j, raw); err != nil {
 		s.answerAcceptErr(w, r, err)
 		return
@@ -421,6 +427,9 @@ func (s *Server) serveResult(w http.ResponseWriter, r *http.Request, j *jobs.Job
 		return
 	}
 	rc, err := s.blobs.Get(r.Context(), jobs.ResultKey(j.ID, name))
+	if errors.Is(err, jobs.ErrNotFound) {
+		rc, err = s.renderResult(r.Context(), j, name)
+	}
 	if err != nil {
 		writeProblem(w, r, asProblem(err, name))
 		return
@@ -448,12 +457,44 @@ func (s *Server) array(w http.ResponseWriter, r *http.Request, j *jobs.Job) {
 			FieldProblem{"quantity", "use a name such as u, v, E11, E22, E12"}))
 		return
 	}
-	if j.State == jobs.Succeeded && !hasResult(j, "arrays/"+q+".npy") {
+	// Arrays the job did not write are rendered from field.npz, unless it
+	// wrote arrays and this quantity is not among them.
+	if j.State == jobs.Succeeded && !hasResult(j, "arrays/"+q+".npy") && (len(arrayNames(j)) > 0 || !hasResult(j, "field.npz")) {
 		writeProblem(w, r, problem(http.StatusNotFound, "unknown-quantity", "Unknown quantity", "the results have no quantity "+strconv.Quote(q),
 			FieldProblem{"quantity", "use one of: " + strings.Join(arrayNames(j), ", ")}))
 		return
 	}
 	s.serveResult(w, r, j, "arrays/"+q+".npy", "application/octet-stream")
+}
+
+// renderResult renders a result file that the job did not write from its
+// stored result (field.npz) with the one table of result files, keeps it
+// in the blob store for later requests and returns it. A file of no
+// format, or of a quantity the field lacks, is jobs.ErrNotFound.
+func (s *Server) renderResult(ctx context.Context, j *jobs.Job, name string) (io.ReadCloser, error) {
+	format := formatOf(name)
+	if format == "" || !hasResult(j, "field.npz") {
+		return nil, jobs.ErrNotFound
+	}
+	f, err := readStored(func(n string) (io.ReadCloser, error) { return s.blobs.Get(ctx, jobs.ResultKey(j.ID, n)) })
+	if err != nil {
+		return nil, err
+	}
+	files, err := encodeFiles(f, results.Set{format: true})
+	if err != nil {
+		return nil, err
+	}
+	b, ok := files[name]
+	if !ok {
+		names := f.Names()
+		return nil, &FieldError{Field: "quantity", Status: http.StatusNotFound, Detail: fmt.Sprintf("the results have no %s; the field has %s", name, strings.Join(names, ", "))}
+	}
+	for n, data := range files {
+		if err := s.blobs.Put(ctx, jobs.ResultKey(j.ID, n), bytes.NewReader(data)); err != nil {
+			s.log.Warn("keep rendered result", "job", j.ID, "file", n, "error", err)
+		}
+	}
+	return io.NopCloser(bytes.NewReader(b)), nil
 }
 
 func hasResult(j *jobs.Job, name string) bool {

@@ -1,6 +1,7 @@
 package service
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"errors"
@@ -33,7 +34,7 @@ func (Pipeline) Run(ctx context.Context, in Input, progress func(done, total int
 	if err != nil {
 		return nil, err
 	}
-	res, err := Encode(out.Field)
+	res, err := EncodeFormats(out.Field, in.Formats)
 	if err != nil {
 		return nil, err
 	}
@@ -43,33 +44,59 @@ func (Pipeline) Run(ctx context.Context, in Input, progress func(done, total int
 	return res, nil
 }
 
-// storedFormats are the formats a job's results hold: every data format
-// of the table of result files (pkg/results).
-const storedFormats = "npz,json,csv,vts,npy"
+// allDataFormats are the formats Encode writes: every data format of the
+// table of result files (pkg/results).
+const allDataFormats = "npz,json,csv,vts,npy"
 
-// Encode encodes a field into the result files a job serves, with the one
-// table of result files (results.Encode): field.npz, field.json,
-// field.csv, field.vts and arrays/<quantity>.npy with shape (Ny, Nx),
-// including grid_x and grid_y (the table's npy/ files, stored under the
-// name of their route), and its summary.
-func Encode(f *field.Field) (*Result, error) {
-	set, err := results.ParseFormats(storedFormats)
-	if err != nil {
-		return nil, err
+// DefaultFormats are the formats a job writes when its request names none:
+// the stored result field.npz and field.json, which a ?wait=true answer
+// carries. Every other file of the download routes is rendered from
+// field.npz on first request and kept.
+const DefaultFormats = results.NPZ + "," + results.JSON
+
+// servedFormats are the formats the download routes serve.
+var servedFormats = map[string]bool{results.NPZ: true, results.JSON: true, results.CSV: true, results.VTS: true, results.NPY: true}
+
+// ParseFormats checks the formats of a request (a comma-separated list of
+// the data formats of pkg/results: npz, json, csv, vts, npy, or "all");
+// "" is DefaultFormats. An unknown or unserved name is a *FieldError.
+func ParseFormats(s string) (results.Set, error) {
+	switch strings.TrimSpace(s) {
+	case "all":
+		s = allDataFormats
+	case "":
+		s = DefaultFormats
 	}
-	enc, err := results.Encode(context.Background(), f, results.Sources{}, set)
+	set, err := results.ParseFormats(s)
 	if err != nil {
-		return nil, err
+		return nil, &FieldError{Field: "formats", Status: 400, Detail: err.Error()}
 	}
-	files := make(map[string][]byte, len(enc))
-	for name, b := range enc {
-		if q, ok := strings.CutPrefix(name, "npy/"); ok {
-			if !jobs.ValidName(q) {
-				continue
-			}
-			name = "arrays/" + q
+	for name := range set {
+		if !servedFormats[name] {
+			return nil, &FieldError{Field: "formats", Status: 400, Detail: fmt.Sprintf("%q is not served; use a comma-separated list of npz, json, csv, vts, npy, or all (maps come from map.png)", name)}
 		}
-		files[name] = b
+	}
+	return set, nil
+}
+
+// Encode encodes a field into every result file a job serves; see
+// EncodeFormats.
+func Encode(f *field.Field) (*Result, error) { return EncodeFormats(f, allDataFormats) }
+
+// EncodeFormats encodes a field into the result files of the formats
+// (ParseFormats) with the one table of result files (results.Encode):
+// field.npz (always), field.json, field.csv, field.vts and
+// arrays/<quantity>.npy with shape (Ny, Nx), including grid_x and grid_y
+// (the table's npy/ files, stored under the name of their route), and its
+// summary.
+func EncodeFormats(f *field.Field, formats string) (*Result, error) {
+	set, err := ParseFormats(formats)
+	if err != nil {
+		return nil, err
+	}
+	files, err := encodeFiles(f, set)
+	if err != nil {
+		return nil, err
 	}
 	g := f.Grid
 	sum := jobs.Summary{Points: g.Len(), Mean: map[string]float64{}}
@@ -100,20 +127,79 @@ func Encode(f *field.Field) (*Result, error) {
 	return &Result{Files: files, Summary: sum}, nil
 }
 
+// encodeFiles encodes the formats in set of f by the names the service
+// stores them under.
+func encodeFiles(f *field.Field, set results.Set) (map[string][]byte, error) {
+	enc, err := results.Encode(context.Background(), f, results.Sources{}, set)
+	if err != nil {
+		return nil, err
+	}
+	files := make(map[string][]byte, len(enc))
+	for name, b := range enc {
+		if q, ok := strings.CutPrefix(name, "npy/"); ok {
+			if !jobs.ValidName(q) {
+				continue
+			}
+			name = "arrays/" + q
+		}
+		files[name] = b
+	}
+	return files, nil
+}
+
+// formatOf returns the format of a stored result file name, or "".
+func formatOf(name string) string {
+	switch {
+	case name == "field.npz":
+		return results.NPZ
+	case name == "field.json":
+		return results.JSON
+	case name == "field.csv":
+		return results.CSV
+	case name == "field.vts":
+		return results.VTS
+	case strings.HasPrefix(name, "arrays/"):
+		return results.NPY
+	}
+	return ""
+}
+
 // Map implements Analyzer: it reads field.json and renders req.Quantity
 // with pkg/maps over bg. Over the deformed image each point is drawn at
 // x = X + u, converting u from mm to px when the field is scaled.
 func (Pipeline) Map(ctx context.Context, open func(name string) (io.ReadCloser, error), req MapRequest, bg *imageio.Gray) ([]byte, error) {
-	rc, err := open("field.json")
+	f, err := readStored(open)
 	if err != nil {
 		return nil, err
 	}
+	return RenderMap(f, req, bg)
+}
+
+// readStored reads a job's stored result: field.npz, or field.json for
+// results stored before field.npz held the metadata.
+func readStored(open func(name string) (io.ReadCloser, error)) (*field.Field, error) {
+	rc, err := open("field.npz")
+	if err == nil {
+		b, err := io.ReadAll(rc)
+		rc.Close()
+		if err != nil {
+			return nil, fmt.Errorf("stored field.npz: %w", err)
+		}
+		f, err := field.ReadNPZ(bytes.NewReader(b), int64(len(b)))
+		if err == nil {
+			return f, nil
+		}
+	}
+	rc, err = open("field.json")
+	if err != nil {
+		return nil, err
+	}
+	defer rc.Close()
 	f, err := field.ReadJSON(rc)
-	rc.Close()
 	if err != nil {
 		return nil, fmt.Errorf("stored field.json: %w", err)
 	}
-	return RenderMap(f, req, bg)
+	return f, nil
 }
 
 // RenderMap draws the PNG map that Pipeline.Map serves, with the one map
@@ -181,7 +267,7 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
-	res, err := Encode(f)
+	res, err := EncodeFormats(f, in.Formats)
 	if err != nil {
 		return nil, err
 	}

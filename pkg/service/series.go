@@ -13,6 +13,7 @@ import (
 
 	"github.com/go-chi/chi/v5"
 
+	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/series"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
@@ -82,6 +83,10 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 	if err == nil {
 		params, err = flatSeriesParams(p)
 	}
+	var formats results.Set
+	if err == nil {
+		formats, err = ParseFormats(r.URL.Query().Get("formats"))
+	}
 	if err != nil {
 		writeProblem(w, r, asProblem(err, "params"))
 		return
@@ -94,7 +99,7 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 	}
 	now := time.Now().UTC()
 	sr := &jobs.Series{ID: jobs.NewID(), Name: label, Params: params, Width: ref.W, Height: ref.H, HasMask: u.raw["mask"] != nil,
-		ReferenceName: refName, Created: now, Updated: now, Frames: []string{}}
+		ReferenceName: refName, Formats: formats.String(), Created: now, Updated: now, Frames: []string{}}
 	for name, b := range u.raw {
 		if err := s.blobs.Put(r.Context(), jobs.SeriesKey(sr.ID, name), bytes.NewReader(b)); err != nil {
 			s.blobs.Delete(r.Context(), jobs.SeriesKey(sr.ID, ""))
@@ -176,7 +181,7 @@ func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 		return
 	}
 	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Frame, State: jobs.Queued, Params: sr.Params, Width: g.W, Height: g.H,
-		HasMask: sr.HasMask, Series: sr.ID, Time: opts.time, Load: opts.load, Name: name, Created: time.Now().UTC()}
+		HasMask: sr.HasMask, Series: sr.ID, Time: opts.time, Load: opts.load, Name: name, Formats: sr.Formats, Created: time.Now().UTC()}
 	ctx := r.Context()
 	// Reserve the next frame index; give it back if the job is not accepted.
 	_, err = s.store.UpdateSeries(ctx, sr.ID, func(sr *jobs.Series) error {

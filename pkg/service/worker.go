@@ -343,7 +343,7 @@ func (s *Server) dropOldState(ctx context.Context, j *jobs.Job) {
 // computeFrame runs series frame j through the series engine, from the
 // state after the last frame that succeeded before it.
 func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer, progress func(done, total int)) (*Result, error) {
-	in := FrameInput{Params: j.Params, Name: j.Name, Time: j.Time, Load: j.Load,
+	in := FrameInput{Params: j.Params, Name: j.Name, Time: j.Time, Load: j.Load, Formats: j.Formats,
 		Threads: s.cfg.JobThreads, Progress: progress, RefName: "reference"}
 	if in.Name == "" {
 		in.Name = fmt.Sprintf("frame_%d", j.FrameIndex)
@@ -397,7 +397,7 @@ func (s *Server) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 	if fa, ok := s.cfg.Analyzer.(FrameAnalyzer); ok && j.Kind == jobs.Frame {
 		return s.computeFrame(ctx, j, fa, progress)
 	}
-	var in Input
+	in := Input{Formats: j.Formats}
 	if err := json.Unmarshal(j.Params, &in.Params); err != nil {
 		return nil, fmt.Errorf("stored parameters: %w", err)
 	}

@@ -126,9 +126,13 @@ type Job struct {
 	// Name names a frame in its series' curve (default frame_<index>),
 	// or, for an analysis, is the label the user gave it (default from
 	// the file names).
-	Name string   `json:"name,omitempty"`
-	Time *float64 `json:"time,omitempty"`
-	Load *float64 `json:"load,omitempty"`
+	Name string `json:"name,omitempty"`
+	// Formats lists the result formats written when the job ran (see
+	// pkg/results); others are rendered from field.npz on first request.
+	// Empty means the service's default.
+	Formats string   `json:"formats,omitempty"`
+	Time    *float64 `json:"time,omitempty"`
+	Load    *float64 `json:"load,omitempty"`
 
 	Created  time.Time  `json:"created"`
 	Started  *time.Time `json:"started,omitempty"`
@@ -160,9 +164,11 @@ type Series struct {
 	HasMask bool `json:"has_mask,omitempty"`
 	// ReferenceName names the reference in the curve: the file name of
 	// the uploaded part, or "reference".
-	ReferenceName string    `json:"reference_name,omitempty"`
-	Created       time.Time `json:"created"`
-	Updated       time.Time `json:"updated"`
+	ReferenceName string `json:"reference_name,omitempty"`
+	// Formats are the result formats each frame writes (see Job.Formats).
+	Formats string    `json:"formats,omitempty"`
+	Created time.Time `json:"created"`
+	Updated time.Time `json:"updated"`
 	// Frames holds the job id of each frame, by frame index.
 	Frames []string `json:"frames"`
 }
