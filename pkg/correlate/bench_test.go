@@ -56,12 +56,17 @@ func peakHeap(stop <-chan struct{}) <-chan uint64 {
 // It reports points/s, IC-GN iterations per point, allocations per point
 // and the peak heap in bytes per image pixel (above the two input images,
 // and in total).
-func BenchmarkRun1024(b *testing.B) { benchRun(b, First) }
+func BenchmarkRun1024(b *testing.B) { benchRun(b, First, tuning{}) }
 
 // BenchmarkRun1024Second is BenchmarkRun1024 with the second-order shape function.
-func BenchmarkRun1024Second(b *testing.B) { benchRun(b, Second) }
+func BenchmarkRun1024Second(b *testing.B) { benchRun(b, Second, tuning{}) }
 
-func benchRun(b *testing.B, shape Shape) {
+// BenchmarkRun1024Direct is BenchmarkRun1024 interpolating from the spline
+// coefficients instead of the coefficient table: the baseline of the table,
+// to be measured in the same run.
+func BenchmarkRun1024Direct(b *testing.B) { benchRun(b, First, tuning{direct: true}) }
+
+func benchRun(b *testing.B, shape Shape, tun tuning) {
 	ref, def := benchImages(b)
 	opt := Options{Subset: 31, Step: 8, Shape: shape}
 	runtime.GC()
@@ -84,7 +89,7 @@ func benchRun(b *testing.B, shape Shape) {
 		m0 := ms.Mallocs
 		stop := make(chan struct{})
 		pk := peakHeap(stop)
-		res, err := Run(context.Background(), ref, def, opt)
+		res, err := runWith(context.Background(), ref, def, opt, tun)
 		close(stop)
 		cpu += cpuTime() - c0
 		if err != nil {
@@ -122,4 +127,62 @@ func cpuTime() time.Duration {
 		return 0
 	}
 	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
+}
+
+// BenchmarkSolve times the per-point work alone (prepare and IC-GN from
+// the exact solution of the previous point of a row, as propagation does)
+// on the BenchmarkRun1024 pair, for each inner path: CPU ns per point and
+// per sample (one interpolated subset pixel of one iteration), one thread.
+func BenchmarkSolve(b *testing.B) {
+	ref, def := benchImages(b)
+	for _, c := range []struct {
+		name  string
+		shape Shape
+		tun   tuning
+	}{{"first", First, tuning{}}, {"first-direct", First, tuning{direct: true}}, {"second", Second, tuning{}}, {"second-direct", Second, tuning{direct: true}}} {
+		b.Run(c.name, func(b *testing.B) {
+			r, err := newRun(context.Background(), ref, def, Options{Subset: 31, Step: 8, Shape: c.shape, Threads: 1}, c.tun)
+			if err != nil {
+				b.Fatal(err)
+			}
+			defer r.stop()
+			if err := r.tabulate(context.Background(), 1<<30); err != nil {
+				b.Fatal(err)
+			}
+			s := r.solvers[0]
+			var pts [][2]float64
+			for y := 100.0; y <= 900; y += 40 {
+				for x := 100.0; x <= 900; x += 8 {
+					pts = append(pts, [2]float64{x, y})
+				}
+			}
+			var p [12]float64
+			var iters, n int
+			b.ResetTimer()
+			c0 := cpuTime()
+			for b.Loop() {
+				for k, pt := range pts {
+					if s.prepare(pt[0], pt[1]) != OK {
+						b.Fatal("prepare failed")
+					}
+					if k > 0 && pts[k-1][1] == pt[1] {
+						p = Recentre(p, 8, 0)
+					} else {
+						p = [12]float64{U: 4.3, V: -2.6}
+					}
+					a := s.solve(p)
+					if a.status != OK {
+						b.Fatal(a.status)
+					}
+					p = a.p
+					iters += a.iter
+					n++
+				}
+			}
+			ns := float64((cpuTime() - c0).Nanoseconds())
+			b.ReportMetric(ns/float64(n), "cpu-ns/point")
+			b.ReportMetric(ns/float64(iters*s.n), "cpu-ns/sample")
+			b.ReportMetric(float64(iters)/float64(n), "iter/point")
+		})
+	}
 }

@@ -29,7 +29,8 @@ type solver struct {
 	ref    *imageio.Gray // reference samples
 	gx, gy []float32     // reference gradients at pixel centres
 	refSp  *spline.Image // reference spline, for centres off the pixel grid (may be nil)
-	def    *spline.Image // deformed-image spline
+	def    *spline.Image // deformed-image spline (nil when tab is set)
+	tab    *spline.Table // deformed-image coefficient table, or nil
 	lo     float64       // smallest allowed warped coordinate (edge margin)
 	defW   float64       // largest allowed warped x: W−1 − margin
 	defH   float64       // largest allowed warped y: H−1 − margin
@@ -85,6 +86,12 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 	s.fx = make([]float64, s.n)
 	s.fy = make([]float64, s.n)
 	return s
+}
+
+// useTable makes the solver interpolate the deformed image from tab, the
+// table of the spline it was built with.
+func (s *solver) useTable(tab *spline.Table) {
+	s.tab, s.def = tab, nil
 }
 
 // edgeMargin is the distance in pixels that warped subsets keep from the
@@ -371,9 +378,14 @@ func (s *solver) solve(p0 [12]float64) attempt {
 		var sg, sgg, sfg float64
 		var sjg [12]float64
 		var ok bool
-		if s.np == 6 {
+		switch {
+		case s.tab != nil && s.np == 6:
+			ok = s.pass1t(&p, &sg, &sgg, &sfg, &sjg)
+		case s.tab != nil:
+			ok = s.pass2t(&p, &sg, &sgg, &sfg, &sjg)
+		case s.np == 6:
 			ok = s.pass1(&p, &sg, &sgg, &sfg, &sjg)
-		} else {
+		default:
 			ok = s.pass2(&p, &sg, &sgg, &sfg, &sjg)
 		}
 		if !ok {

@@ -38,7 +38,7 @@ func RunPoints(ctx context.Context, ref, def *imageio.Gray, pts [][2]float64, gu
 	if err := errors.Join(errs...); err != nil {
 		return nil, err
 	}
-	r, err := newRun(ctx, ref, def, opt)
+	r, err := newRun(ctx, ref, def, opt, tuning{})
 	if err != nil {
 		return nil, err
 	}
@@ -55,6 +55,9 @@ func RunPoints(ctx context.Context, ref, def *imageio.Gray, pts [][2]float64, gu
 		} else {
 			r.pts[i].Status = Outside
 		}
+	}
+	if err := r.tabulate(ctx, len(todo)); err != nil {
+		return nil, err
 	}
 	const chunk = 16 * batchSize
 	r.items = make([]item, 0, chunk)

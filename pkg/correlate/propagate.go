@@ -101,6 +101,7 @@ type item struct {
 // run is the state of one correlation.
 type run struct {
 	opt     Options
+	tun     tuning
 	threads int
 	m       int
 	ref     *imageio.Gray
@@ -135,12 +136,27 @@ type run struct {
 // when ctx is cancelled; points that cannot be measured are not errors but
 // are flagged in the Result.
 func Run(ctx context.Context, ref, def *imageio.Gray, opt Options) (*Result, error) {
-	r, err := newRun(ctx, ref, def, opt)
+	return runWith(ctx, ref, def, opt, tuning{})
+}
+
+// tuning selects alternative inner paths for tests and benchmarks that
+// compare them with the default in the same run; the zero value is what Run
+// uses.
+type tuning struct {
+	direct bool // interpolate from the B-spline coefficients even when a table would be used
+}
+
+// runWith is Run with the given tuning.
+func runWith(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning) (*Result, error) {
+	r, err := newRun(ctx, ref, def, opt, tun)
 	if err != nil {
 		return nil, err
 	}
 	defer r.stop()
 	if err := r.setupGrid(); err != nil {
+		return nil, err
+	}
+	if err := r.tabulate(ctx, r.grid.Len()); err != nil {
 		return nil, err
 	}
 	seeds, err := r.seedIndices()
@@ -181,7 +197,7 @@ func checkImages(ref, def *imageio.Gray, subset int) error {
 
 // newRun validates the inputs, prefilters the images, builds the splines
 // and gradients and starts the workers.
-func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options) (*run, error) {
+func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning) (*run, error) {
 	opt.fill()
 	if err := opt.Validate(); err != nil {
 		return nil, err
@@ -192,7 +208,7 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options) (*run, err
 	if opt.Mask != nil && (opt.Mask.W != ref.W || opt.Mask.H != ref.H) {
 		return nil, fmt.Errorf("correlate: ROI mask is %d×%d but the images are %d×%d", opt.Mask.W, opt.Mask.H, ref.W, ref.H)
 	}
-	r := &run{opt: opt, m: opt.Subset / 2, threads: opt.Threads, mask: opt.Mask}
+	r := &run{opt: opt, tun: tun, m: opt.Subset / 2, threads: opt.Threads, mask: opt.Mask}
 	if r.threads == 0 {
 		r.threads = runtime.GOMAXPROCS(0)
 	}
@@ -219,6 +235,7 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options) (*run, err
 	if r.gx, r.gy, err = r.refSp.SampleGradients(ctx, r.threads); err != nil {
 		return nil, err
 	}
+
 	minStd := 0.01 * maskStd(r.ref, r.mask)
 	r.minStd = minStd
 	r.solvers = make([]*solver, r.threads)
@@ -236,6 +253,27 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options) (*run, err
 		}
 	}
 	return r, nil
+}
+
+// tabulate replaces the cubic spline of the deformed image by its
+// coefficient table (spline.Table) in every solver when npts subsets are
+// to be computed: the table costs about as much to build as two or three
+// interpolations of every image pixel and then halves the cost of each, so
+// it is built only when the subsets cover the image about twice or more.
+// Quintic splines are never tabulated.
+func (r *run) tabulate(ctx context.Context, npts int) error {
+	if r.opt.Interp != spline.Cubic || r.tun.direct || npts*r.solvers[0].n < 2*r.def.W*r.def.H {
+		return nil
+	}
+	tab, err := spline.NewTable(ctx, r.defSp, r.threads)
+	if err != nil {
+		return fmt.Errorf("correlate: deformed image: %w", err)
+	}
+	for _, s := range r.solvers {
+		s.useTable(tab)
+	}
+	r.defSp = nil
+	return nil
 }
 
 // maskStd is the grey-level standard deviation of g inside the mask.

@@ -1,0 +1,151 @@
+package correlate
+
+// The IC-GN passes over the deformed subset when the deformed image is a
+// coefficient table (spline.Table): interpolation and accumulation fused in
+// one loop, warped coordinates advanced incrementally along each subset row
+// (exact for the first-order warp, by second differences for the
+// second-order one), the bicubic piece evaluated inline by Horner's rule in
+// float32 (the table's precision), the sums kept in float64.
+
+// pass1t is pass1 for a solver with a table.
+func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
+	m := s.m
+	fm := float64(m)
+	a11, a12, a21, a22 := 1+p[Ux], p[Uy], p[Vx], 1+p[Vy]
+	cx, cy := s.xc+p[U], s.yc+p[V]
+	// The warp is affine: the corners bound the warped subset.
+	for _, c := range [4][2]float64{{-fm, -fm}, {fm, -fm}, {-fm, fm}, {fm, fm}} {
+		x := cx + a11*c[0] + a12*c[1]
+		y := cy + a21*c[0] + a22*c[1]
+		if !(x >= s.lo && x <= s.defW && y >= s.lo && y <= s.defH) {
+			return false
+		}
+	}
+	side := 2*m + 1
+	tab := s.tab.Coefficients()
+	w := s.tab.W
+	var tg, tgg, tfg, tx0, tx1, tx2, ty0, ty1, ty2 float64
+	fmean := s.fmean
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		x := cx - a11*fm + a12*eta
+		y := cy - a21*fm + a22*eta
+		f := s.f[k : k+side]
+		fx := s.fx[k : k+side]
+		fy := s.fy[k : k+side]
+		fx, fy = fx[:len(f)], fy[:len(f)]
+		var rx0, rx1, ry0, ry1 float64
+		xi := -fm
+		for i := range f {
+			ix, iy := int(x), int(y)
+			tx, ty := float32(x-float64(ix)), float32(y-float64(iy))
+			o := 16 * (iy*w + ix)
+			c := (*[16]float32)(tab[o : o+16])
+			r0 := c[0] + tx*(c[1]+tx*(c[2]+tx*c[3]))
+			r1 := c[4] + tx*(c[5]+tx*(c[6]+tx*c[7]))
+			r2 := c[8] + tx*(c[9]+tx*(c[10]+tx*c[11]))
+			r3 := c[12] + tx*(c[13]+tx*(c[14]+tx*c[15]))
+			v := float64(r0+ty*(r1+ty*(r2+ty*r3))) - fmean
+			tg += v
+			tgg += v * v
+			tfg += f[i] * v
+			a, b := fx[i]*v, fy[i]*v
+			rx0 += a
+			rx1 += a * xi
+			ry0 += b
+			ry1 += b * xi
+			xi++
+			x += a11
+			y += a21
+		}
+		tx0 += rx0
+		tx1 += rx1
+		tx2 += rx0 * eta
+		ty0 += ry0
+		ty1 += ry1
+		ty2 += ry0 * eta
+		k += side
+	}
+	*sg, *sgg, *sfg = tg, tgg, tfg
+	sjg[U], sjg[Ux], sjg[Uy] = tx0, tx1, tx2
+	sjg[V], sjg[Vx], sjg[Vy] = ty0, ty1, ty2
+	return true
+}
+
+// pass2t is pass2 for a solver with a table. Along a subset row (η fixed)
+// the warped x is a quadratic in ξ: its first difference grows by Uxx per
+// pixel, and likewise for y with Vxx.
+func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
+	m := s.m
+	fm := float64(m)
+	side := 2*m + 1
+	tab := s.tab.Coefficients()
+	w := s.tab.W
+	lo, hx, hy := s.lo, s.defW, s.defH
+	var tg, tgg, tfg float64
+	var acc [12]float64
+	fmean := s.fmean
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		du, dv := Displacement(p, -fm, eta)
+		x, y := s.xc-fm+du, s.yc+eta+dv
+		// First differences at ξ = −m: u(ξ+1) − u(ξ) = Ux + Uxx(ξ + ½) + Uxy η.
+		dx := 1 + p[Ux] + p[Uxx]*(0.5-fm) + p[Uxy]*eta
+		dy := p[Vx] + p[Vxx]*(0.5-fm) + p[Vxy]*eta
+		ddx, ddy := p[Uxx], p[Vxx]
+		f := s.f[k : k+side]
+		fx := s.fx[k : k+side]
+		fy := s.fy[k : k+side]
+		fx, fy = fx[:len(f)], fy[:len(f)]
+		var rx0, rx1, rx2, ry0, ry1, ry2 float64
+		xi := -fm
+		for i := range f {
+			if !(x >= lo && x <= hx && y >= lo && y <= hy) {
+				return false
+			}
+			ix, iy := int(x), int(y)
+			tx, ty := float32(x-float64(ix)), float32(y-float64(iy))
+			o := 16 * (iy*w + ix)
+			c := (*[16]float32)(tab[o : o+16])
+			r0 := c[0] + tx*(c[1]+tx*(c[2]+tx*c[3]))
+			r1 := c[4] + tx*(c[5]+tx*(c[6]+tx*c[7]))
+			r2 := c[8] + tx*(c[9]+tx*(c[10]+tx*c[11]))
+			r3 := c[12] + tx*(c[13]+tx*(c[14]+tx*c[15]))
+			v := float64(r0+ty*(r1+ty*(r2+ty*r3))) - fmean
+			tg += v
+			tgg += v * v
+			tfg += f[i] * v
+			a, b := fx[i]*v, fy[i]*v
+			ax, bx := a*xi, b*xi
+			rx0 += a
+			rx1 += ax
+			rx2 += ax * xi
+			ry0 += b
+			ry1 += bx
+			ry2 += bx * xi
+			xi++
+			x += dx
+			y += dy
+			dx += ddx
+			dy += ddy
+		}
+		acc[U] += rx0
+		acc[Ux] += rx1
+		acc[Uy] += rx0 * eta
+		acc[Uxx] += rx2 / 2
+		acc[Uxy] += rx1 * eta
+		acc[Uyy] += rx0 * eta * eta / 2
+		acc[V] += ry0
+		acc[Vx] += ry1
+		acc[Vy] += ry0 * eta
+		acc[Vxx] += ry2 / 2
+		acc[Vxy] += ry1 * eta
+		acc[Vyy] += ry0 * eta * eta / 2
+		k += side
+	}
+	*sg, *sgg, *sfg = tg, tgg, tfg
+	*sjg = acc
+	return true
+}
