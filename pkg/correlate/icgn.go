@@ -56,6 +56,10 @@ type solver struct {
 	kern   []float64 // Gaussian prefilter kernel, nil when off
 	wpad   []float64 // scratch for smoothedVar
 	wtmp   []float64
+	trace  []float64 // step sizes, for tests, when not nil
+	// plainStop selects the stopping rule of earlier versions (paramNorm
+	// below Tol; no contraction estimate, no stall exit), for comparisons.
+	plainStop bool
 }
 
 func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, opt *Options, minStd float64) *solver {
@@ -161,7 +165,7 @@ func (s *solver) prepare(xc, yc float64) Status {
 	if np == 6 {
 		s.hessian1(&h)
 	} else {
-		s.hessian2(&h)
+		s.hessian2m(&h)
 	}
 	if !cholesky(&h, np, &s.chol) {
 		return LowContrast
@@ -373,6 +377,9 @@ func (s *solver) solve(p0 [12]float64) attempt {
 	n := float64(s.n)
 	m := float64(s.m)
 	var a attempt
+	var prev float64      // size of the previous step, px
+	bestZ := math.Inf(-1) // best ZNCC so far
+	stall := 0
 	for it := 1; it <= s.maxIt; it++ {
 		a.iter = it
 		var sg, sgg, sfg float64
@@ -408,13 +415,16 @@ func (s *solver) solve(p0 [12]float64) attempt {
 			dp[k] = -(s.b0[k] - scale*(sjg[k]-gm*s.sj[k]))
 		}
 		cholSolve(&s.chol, s.np, &dp)
-		norm := dp[U]*dp[U] + dp[V]*dp[V] + m*m*(dp[Ux]*dp[Ux]+dp[Uy]*dp[Uy]+dp[Vx]*dp[Vx]+dp[Vy]*dp[Vy])
-		if s.np == 12 {
-			h := m * m / 2
-			norm += h*h*(dp[Uxx]*dp[Uxx]+dp[Uyy]*dp[Uyy]+dp[Vxx]*dp[Vxx]+dp[Vyy]*dp[Vyy]) +
-				m*m*m*m*(dp[Uxy]*dp[Uxy]+dp[Vxy]*dp[Vxy])
+		var d float64
+		if s.plainStop {
+			d = paramNorm(&dp, s.np, m)
+		} else {
+			d = edgeChange(&dp, s.np, m)
 		}
-		if math.IsNaN(norm) || norm > 4*m*m {
+		if s.trace != nil {
+			s.trace = append(s.trace, d)
+		}
+		if !(d <= 2*m) { // NaN, or a step larger than the subset
 			a.p, a.status = p, Diverged
 			return a
 		}
@@ -428,13 +438,71 @@ func (s *solver) solve(p0 [12]float64) attempt {
 			a.p, a.status = p, Diverged
 			return a
 		}
-		if norm < s.tol*s.tol {
+		if d < s.tol {
 			a.p, a.converged, a.status = p, true, OK
 			return a
 		}
+		if it > 1 && !s.plainStop {
+			// IC-GN converges linearly near the solution: with the
+			// contraction ρ of the last two steps, the distance from p
+			// to the limit is about ρ/(1−ρ) times the last step (the a
+			// posteriori bound of a contraction mapping). Trusted only
+			// while the steps shrink fast.
+			if rho := d / prev; rho < 0.5 && rho*d < (1-rho)*s.tol {
+				a.p, a.converged, a.status = p, true, OK
+				return a
+			}
+			// A residual that stalls (steps not shrinking, ZNCC not
+			// rising) for stallIters iterations will not converge.
+			if d >= 0.9*prev && a.zncc <= bestZ {
+				if stall++; stall >= stallIters {
+					a.p, a.status = p, Diverged
+					return a
+				}
+			} else {
+				stall = 0
+			}
+		}
+		prev = d
+		bestZ = max(bestZ, a.zncc)
 	}
 	a.p, a.status = p, Diverged
 	return a
+}
+
+// stallIters is the number of iterations without progress after which
+// solve gives up.
+const stallIters = 5
+
+// edgeChange is the largest displacement change, in px, that the update dp
+// makes on the boundary of the subset of half-width m: exactly over the
+// square for the first-order warp (its extremes are at the corners), at the
+// corners and edge midpoints for the second-order one.
+func edgeChange(dp *[12]float64, np int, m float64) float64 {
+	var d2 float64
+	pts := [8][2]float64{{-m, -m}, {m, -m}, {-m, m}, {m, m}, {0, -m}, {0, m}, {-m, 0}, {m, 0}}
+	n := 4
+	if np == 12 {
+		n = 8
+	}
+	for _, q := range pts[:n] {
+		du, dv := Displacement(dp, q[0], q[1])
+		d2 = max(d2, du*du+dv*dv)
+	}
+	return math.Sqrt(d2)
+}
+
+// paramNorm is the step size of earlier versions: the Euclidean norm of
+// the parameter update with gradients weighted by the half-width m and
+// second derivatives by m²/2 (m² for the cross terms).
+func paramNorm(dp *[12]float64, np int, m float64) float64 {
+	norm := dp[U]*dp[U] + dp[V]*dp[V] + m*m*(dp[Ux]*dp[Ux]+dp[Uy]*dp[Uy]+dp[Vx]*dp[Vx]+dp[Vy]*dp[Vy])
+	if np == 12 {
+		h := m * m / 2
+		norm += h*h*(dp[Uxx]*dp[Uxx]+dp[Uyy]*dp[Uyy]+dp[Vxx]*dp[Vxx]+dp[Vyy]*dp[Vyy]) +
+			m*m*m*m*(dp[Uxy]*dp[Uxy]+dp[Vxy]*dp[Vxy])
+	}
+	return math.Sqrt(norm)
 }
 
 // pass1 interpolates the deformed subset under the first-order warp p and

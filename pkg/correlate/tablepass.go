@@ -1,5 +1,7 @@
 package correlate
 
+import "math"
+
 // The IC-GN passes over the deformed subset when the deformed image is a
 // coefficient table (spline.Table): interpolation and accumulation fused in
 // one loop, warped coordinates advanced incrementally along each subset row
@@ -148,4 +150,90 @@ func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	*sg, *sgg, *sfg = tg, tgg, tfg
 	*sjg = acc
 	return true
+}
+
+// shapeMonomials lists, for each of the six shape-function terms of one
+// displacement component (in the order U, Ux, Uy, Uxx, Uxy, Uyy), its
+// powers of ξ and η and its factor: 1, ξ, η, ξ²/2, ξη, η²/2.
+var shapeMonomials = [6]struct {
+	a, b int
+	c    float64
+}{{0, 0, 1}, {1, 0, 1}, {0, 1, 1}, {2, 0, 0.5}, {1, 1, 1}, {0, 2, 0.5}}
+
+// paramTerm maps a parameter index to its component (0: u, 1: v) and its
+// term in shapeMonomials.
+var paramTerm = [12][2]int{
+	U: {0, 0}, Ux: {0, 1}, Uy: {0, 2}, V: {1, 0}, Vx: {1, 1}, Vy: {1, 2},
+	Uxx: {0, 3}, Uxy: {0, 4}, Uyy: {0, 5}, Vxx: {1, 3}, Vxy: {1, 4}, Vyy: {1, 5},
+}
+
+// hessian2m is hessian2 by moments: every entry of H = Σ JᵀJ is a sum of
+// w·ξ^a·η^b (a + b ≤ 4) with w one of fx², fx·fy, fy², and every entry of
+// Σ J f̃ and Σ J one of fx·f̃, fy·f̃, fx, fy times ξ^a·η^b (a + b ≤ 2), so each
+// subset row is summed over ξ once and weighted by powers of η afterwards:
+// 27 multiply-adds per pixel instead of the 90 of the explicit outer product.
+func (s *solver) hessian2m(h *[144]float64) {
+	m := s.m
+	side := 2*m + 1
+	var mw [3][5][5]float64 // mw[q][a][b] = Σ w_q ξ^a η^b, a + b ≤ 4
+	var mb [4][3][3]float64 // mb[q][a][b] for fx f̃, fy f̃, fx, fy, a + b ≤ 2
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		f := s.f[k : k+side]
+		fx := s.fx[k : k+side]
+		fy := s.fy[k : k+side]
+		fx, fy = fx[:len(f)], fy[:len(f)]
+		var r [3][5]float64 // Σ_row w_q ξ^a
+		var rb [4][3]float64
+		xi := float64(-m)
+		for i := range f {
+			gx, gy := fx[i], fy[i]
+			x2 := xi * xi
+			x3, x4 := x2*xi, x2*x2
+			for q, w := range [3]float64{gx * gx, gx * gy, gy * gy} {
+				r[q][0] += w
+				r[q][1] += w * xi
+				r[q][2] += w * x2
+				r[q][3] += w * x3
+				r[q][4] += w * x4
+			}
+			for q, w := range [4]float64{gx * f[i], gy * f[i], gx, gy} {
+				rb[q][0] += w
+				rb[q][1] += w * xi
+				rb[q][2] += w * x2
+			}
+			xi++
+		}
+		var ep [5]float64 // η^b
+		ep[0] = 1
+		for b := 1; b < 5; b++ {
+			ep[b] = ep[b-1] * eta
+		}
+		for q := range r {
+			for a := 0; a < 5; a++ {
+				for b := 0; a+b < 5; b++ {
+					mw[q][a][b] += r[q][a] * ep[b]
+				}
+			}
+		}
+		for q := range rb {
+			for a := 0; a < 3; a++ {
+				for b := 0; a+b < 3; b++ {
+					mb[q][a][b] += rb[q][a] * ep[b]
+				}
+			}
+		}
+		k += side
+	}
+	for p := 0; p < 12; p++ {
+		cp, tp := paramTerm[p][0], shapeMonomials[paramTerm[p][1]]
+		for q := p; q < 12; q++ {
+			cq, tq := paramTerm[q][0], shapeMonomials[paramTerm[q][1]]
+			h[p*12+q] = tp.c * tq.c * mw[cp+cq][tp.a+tq.a][tp.b+tq.b]
+		}
+		s.b0[p] = tp.c * mb[cp][tp.a][tp.b]
+		s.sj[p] = tp.c * mb[2+cp][tp.a][tp.b]
+	}
+	s.sssig = math.Min(mw[0][0][0], mw[2][0][0])
 }
