@@ -81,3 +81,28 @@ func TestHessian2MomentsMatchExplicit(t *testing.T) {
 		t.Errorf("SSSIG: moments %v, explicit %v", s.sssig, ss2)
 	}
 }
+
+// The unrolled window dot product of the integer search equals the plain
+// sum (ZNCC search of Pan, Xie & Wang 2010, Appl. Opt. 49:5501).
+func TestDotMatchesPlainSum(t *testing.T) {
+	for _, side := range []int{7, 8, 31} {
+		stride := side + 5
+		tm := make([]float64, side*side)
+		g := make([]float64, side*stride)
+		for k := range tm {
+			tm[k] = math.Sin(float64(k) * 0.37)
+		}
+		for k := range g {
+			g[k] = math.Cos(float64(k) * 0.11)
+		}
+		var want float64
+		for j := 0; j < side; j++ {
+			for i := 0; i < side; i++ {
+				want += tm[j*side+i] * g[j*stride+i]
+			}
+		}
+		if got := dot(tm, g, side, stride); math.Abs(got-want) > 1e-12*float64(side*side) {
+			t.Errorf("side %d: dot %v, plain sum %v", side, got, want)
+		}
+	}
+}

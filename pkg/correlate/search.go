@@ -68,14 +68,7 @@ func searchInteger(ctx context.Context, img *imageio.Gray, tmpl []float64, m, cx
 			b := searchResult{zncc: math.Inf(-1)}
 			for du := duLo; du <= duHi; du++ {
 				wx := cx + du - m - x0
-				var num float64
-				for j := 0; j < side; j++ {
-					t := tmpl[j*side : j*side+side]
-					g := reg[(wy+j)*rw+wx : (wy+j)*rw+wx+side]
-					for i, tv := range t {
-						num += tv * g[i]
-					}
-				}
+				num := dot(tmpl, reg[wy*rw+wx:], side, rw)
 				a := (rw + 1)
 				sum := s1[(wy+side)*a+wx+side] - s1[wy*a+wx+side] - s1[(wy+side)*a+wx] + s1[wy*a+wx]
 				sq := s2[(wy+side)*a+wx+side] - s2[wy*a+wx+side] - s2[(wy+side)*a+wx] + s2[wy*a+wx]
@@ -115,6 +108,28 @@ func searchInteger(ctx context.Context, img *imageio.Gray, tmpl []float64, m, cx
 		return searchResult{}
 	}
 	return res
+}
+
+// dot returns Σ t[j·side+i]·g[j·stride+i] over a side×side window, with
+// four partial sums so that the additions do not wait on each other.
+func dot(t, g []float64, side, stride int) float64 {
+	var s0, s1, s2, s3 float64
+	for j := 0; j < side; j++ {
+		tr := t[j*side : j*side+side]
+		gr := g[j*stride : j*stride+side]
+		gr = gr[:len(tr)]
+		i := 0
+		for ; i+4 <= len(tr); i += 4 {
+			s0 += tr[i] * gr[i]
+			s1 += tr[i+1] * gr[i+1]
+			s2 += tr[i+2] * gr[i+2]
+			s3 += tr[i+3] * gr[i+3]
+		}
+		for ; i < len(tr); i++ {
+			s0 += tr[i] * gr[i]
+		}
+	}
+	return (s0 + s1) + (s2 + s3)
 }
 
 // seedCandidates returns up to 25 pending grid points of component comp

@@ -3,11 +3,13 @@ package correlate
 import "math"
 
 // The IC-GN passes over the deformed subset when the deformed image is a
-// coefficient table (spline.Table): interpolation and accumulation fused in
-// one loop, warped coordinates advanced incrementally along each subset row
+// coefficient table (spline.Table): no per-sample function calls or spline
+// weights, warped coordinates advanced incrementally along each subset row
 // (exact for the first-order warp, by second differences for the
 // second-order one), the bicubic piece evaluated inline by Horner's rule in
-// float32 (the table's precision), the sums kept in float64.
+// float32 (the table's precision), the sums kept in float64. The first-order
+// pass interpolates a subset row and then accumulates it, in two loops that
+// each keep their variables in registers.
 
 // pass1t is pass1 for a solver with a table.
 func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
@@ -33,13 +35,10 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		eta := float64(j)
 		x := cx - a11*fm + a12*eta
 		y := cy - a21*fm + a22*eta
-		f := s.f[k : k+side]
-		fx := s.fx[k : k+side]
-		fy := s.fy[k : k+side]
-		fx, fy = fx[:len(f)], fy[:len(f)]
-		var rx0, rx1, ry0, ry1 float64
-		xi := -fm
-		for i := range f {
+		// Two loops per row, interpolation then accumulation, so that
+		// each keeps its variables in registers.
+		g := s.gbuf[:side]
+		for i := range g {
 			ix, iy := int(x), int(y)
 			tx, ty := float32(x-float64(ix)), float32(y-float64(iy))
 			o := 16 * (iy*w + ix)
@@ -48,7 +47,18 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 			r1 := c[4] + tx*(c[5]+tx*(c[6]+tx*c[7]))
 			r2 := c[8] + tx*(c[9]+tx*(c[10]+tx*c[11]))
 			r3 := c[12] + tx*(c[13]+tx*(c[14]+tx*c[15]))
-			v := float64(r0+ty*(r1+ty*(r2+ty*r3))) - fmean
+			g[i] = float64(r0 + ty*(r1+ty*(r2+ty*r3)))
+			x += a11
+			y += a21
+		}
+		f := s.f[k : k+side]
+		fx := s.fx[k : k+side]
+		fy := s.fy[k : k+side]
+		f, fx, fy = f[:len(g)], fx[:len(g)], fy[:len(g)]
+		var rx0, rx1, ry0, ry1 float64
+		xi := -fm
+		for i, gv := range g {
+			v := gv - fmean
 			tg += v
 			tgg += v * v
 			tfg += f[i] * v
@@ -58,8 +68,6 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 			ry0 += b
 			ry1 += b * xi
 			xi++
-			x += a11
-			y += a21
 		}
 		tx0 += rx0
 		tx1 += rx1
