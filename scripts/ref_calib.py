@@ -18,7 +18,8 @@ Response (JSON on stdout):
      "rms": <cv2 RMS reprojection error, px>,
      "camera": {...same names...}, "std": {...},
      "undistorted_given": [[x, y], ...],   # points undistorted with the given camera
-     "undistorted_fit":   [[x, y], ...]}   # ...and with OpenCV's own fit
+     "undistorted_fit":   [[x, y], ...],   # ...and with OpenCV's own fit
+     "seconds": <wall time of calibrateCameraExtended alone>}
 
 The fit is cv2.calibrateCameraExtended with the full five-term model (k1, k2,
 p1, p2, k3), zero skew, its own initialisation, and a tight stop. Points are
@@ -31,6 +32,7 @@ Run with Debian's /usr/bin/python3 and the python3-opencv package.
 
 import json
 import sys
+import time
 
 import numpy as np
 
@@ -72,8 +74,10 @@ def main(argv):
         obj.append(o)
         img.append(i)
     crit = (cv2.TERM_CRITERIA_COUNT | cv2.TERM_CRITERIA_EPS, 500, 1e-15)
+    t0 = time.perf_counter()
     rms, K, d, _, _, std_in, _, _ = cv2.calibrateCameraExtended(
         obj, img, (w, h), None, None, flags=0, criteria=crit)
+    seconds = time.perf_counter() - t0
     d = d.ravel()
     s = std_in.ravel()
     cam = {"fx_px": K[0, 0], "fy_px": K[1, 1], "cx_px": K[0, 2], "cy_px": K[1, 2],
@@ -83,7 +87,7 @@ def main(argv):
     und = req.get("undistort", {"camera": cam, "points": []})
     given = undistort(cv2, und["points"], camera_matrix(und["camera"]), dist_coeffs(und["camera"]))
     fit = undistort(cv2, und["points"], K, d)
-    json.dump({"library": "opencv", "version": cv2.__version__, "rms": rms,
+    json.dump({"library": "opencv", "version": cv2.__version__, "rms": rms, "seconds": seconds,
                "camera": {k: float(v) for k, v in cam.items()},
                "std": {k: float(v) for k, v in std.items()},
                "undistorted_given": given, "undistorted_fit": fit}, sys.stdout)

@@ -158,10 +158,10 @@ func All() []Figure {
 		up("calib/checkerboard/focal", rowCalib, 0.0104, 0.1),
 		up("calib/checkerboard/principal", rowCalib, 0.018, 0.5),
 		up("calib/checkerboard/k1", rowCalib, 0.07, 2),
-		up("calib/dots/rms", rowCalib, 0.0057, 0.05),
-		up("calib/dots/focal", rowCalib, 0.0015, 0.1),
-		up("calib/dots/principal", rowCalib, 0.029, 0.5),
-		up("calib/dots/k1", rowCalib, 0.21, 2),
+		up("calib/dots/rms", rowCalib, 0.0065, 0.05),
+		up("calib/dots/focal", rowCalib, 0.00047, 0.1),
+		up("calib/dots/principal", rowCalib, 0.011, 0.5),
+		up("calib/dots/k1", rowCalib, 0.13, 2),
 
 		// pkg/calib TestOpenCV: largest |ours − OpenCV| over the nine
 		// parameters in units of our standard deviation; largest difference

@@ -326,6 +326,49 @@ func TestDetectConditions(t *testing.T) {
 	}
 }
 
+// TestDetectConditionsDots: the dot grid seen partly outside the image and
+// under uneven light keeps every identified dot at its true place (dot
+// centroids compared after the circle-bias term of Heikkilä & Silvén 1997
+// computed with the true camera).
+func TestDetectConditionsDots(t *testing.T) {
+	tg := testTarget(t, Dots)
+	cx, cy := tg.centre()
+	base := testPoses(2, cx, cy)[1]
+	shifted := base
+	shifted.T[0] += 60
+	render := func(p synth.Pose) *imageio.Gray { return renderSet(t, tg, testLens, []synth.Pose{p})[0] }
+	uneven := render(base)
+	for y := range uneven.H {
+		for x := range uneven.W {
+			uneven.Pix[y*uneven.Stride+x] *= float32(0.45 + 0.55*float64(y)/float64(uneven.H))
+		}
+	}
+	for _, c := range []struct {
+		name string
+		img  *imageio.Gray
+		pose synth.Pose
+		min  int
+	}{{"partial view", render(shifted), shifted, 20}, {"uneven light", uneven, base, 63}} {
+		d, err := Detect(c.img, tg, DetectOptions{})
+		if err != nil {
+			t.Errorf("%s: %v", c.name, err)
+			continue
+		}
+		v := synth.View{Lens: testLens, Pose: c.pose}
+		ps := PoseFromMatrix(c.pose.R, c.pose.T)
+		var mx float64
+		for _, p := range d.Points {
+			x, y, _ := v.Project(p.X, p.Y)
+			bx, by := circleBias(trueCamera(), ps, p.X, p.Y, p.R)
+			mx = math.Max(mx, math.Hypot(p.Px-x-bx, p.Py-y-by))
+		}
+		t.Logf("%s: %d dots, largest error %.4f px", c.name, len(d.Points), mx)
+		if len(d.Points) < c.min || mx > 0.1 {
+			t.Errorf("%s: %d dots (want ≥ %d), largest error %.4f px (want ≤ 0.1; a wrong identity gives tens of px)", c.name, len(d.Points), c.min, mx)
+		}
+	}
+}
+
 // motionBlur averages n neighbouring pixels along x: the image of a camera
 // that moved n px during the exposure.
 func motionBlur(g *imageio.Gray, n int) *imageio.Gray {

@@ -88,14 +88,23 @@ func detectDots(img gridImg, t *Target, o DetectOptions) (*Detection, error) {
 		if wx0 < 0 || wy0 < 0 || wx1 >= w || wy1 >= h {
 			continue
 		}
-		var rim []float64
+		// Background: a plane a + b·x + c·y fitted to the window's rim
+		// (least squares, then again without the pixels far below it,
+		// which belong to neighbouring dots), so light that changes over
+		// the dot does not pull the centroid.
+		var rim [][3]float64
 		for x := wx0; x <= wx1; x++ {
-			rim = append(rim, img.p[wy0*w+x], img.p[wy1*w+x])
+			rim = append(rim, [3]float64{float64(x), float64(wy0), img.p[wy0*w+x]}, [3]float64{float64(x), float64(wy1), img.p[wy1*w+x]})
 		}
 		for y := wy0 + 1; y < wy1; y++ {
-			rim = append(rim, img.p[y*w+wx0], img.p[y*w+wx1])
+			rim = append(rim, [3]float64{float64(wx0), float64(y), img.p[y*w+wx0]}, [3]float64{float64(wx1), float64(y), img.p[y*w+wx1]})
 		}
-		bg := median(rim)
+		bg, ok := rimPlane(rim, float64(x0+x1)/2, float64(y0+y1)/2)
+		if !ok {
+			continue
+		}
+		// Ink weight 1 − I/background: the ink's reflectance contrast,
+		// the same over the whole dot whatever the light.
 		var sw, sx, sy float64
 		for y := wy0; y <= wy1; y++ {
 			for x := wx0; x <= wx1; x++ {
@@ -103,7 +112,11 @@ func detectDots(img gridImg, t *Target, o DetectOptions) (*Detection, error) {
 				if l != 0 && l != id {
 					continue // another blob reaching into the window
 				}
-				v := bg - img.p[y*w+x]
+				b := bg(float64(x), float64(y))
+				if !(b > 0) {
+					continue
+				}
+				v := 1 - img.p[y*w+x]/b
 				if v <= 0 {
 					continue
 				}
@@ -171,4 +184,49 @@ func detectDots(img gridImg, t *Target, o DetectOptions) (*Detection, error) {
 		d.Points = append(d.Points, Observation{Feature: f, Px: c.x, Py: c.y})
 	}
 	return d, nil
+}
+
+// rimPlane fits a plane to rim samples (x, y, grey) around (cx, cy) and
+// returns it as a function; a second fit leaves out samples more than 10 %
+// below the first (intrusions of dark neighbours). ok is false for a
+// degenerate rim.
+func rimPlane(rim [][3]float64, cx, cy float64) (func(x, y float64) float64, bool) {
+	fit := func(use func(q [3]float64) bool) (a, b, c float64, ok bool) {
+		var m [3][3]float64
+		var r [3]float64
+		for _, q := range rim {
+			if !use(q) {
+				continue
+			}
+			v := [3]float64{1, q[0] - cx, q[1] - cy}
+			for i := range 3 {
+				for j := range 3 {
+					m[i][j] += v[i] * v[j]
+				}
+				r[i] += v[i] * q[2]
+			}
+		}
+		d := det3(m)
+		if !(math.Abs(d) > 1e-9) {
+			return 0, 0, 0, false
+		}
+		var sol [3]float64
+		for k := range 3 {
+			mk := m
+			for i := range 3 {
+				mk[i][k] = r[i]
+			}
+			sol[k] = det3(mk) / d
+		}
+		return sol[0], sol[1], sol[2], true
+	}
+	a, b, c, ok := fit(func([3]float64) bool { return true })
+	if !ok {
+		return nil, false
+	}
+	a2, b2, c2, ok := fit(func(q [3]float64) bool { return q[2] >= 0.9*(a+b*(q[0]-cx)+c*(q[1]-cy)) })
+	if ok {
+		a, b, c = a2, b2, c2
+	}
+	return func(x, y float64) float64 { return a + b*(x-cx) + c*(y-cy) }, true
 }
