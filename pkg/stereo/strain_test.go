@@ -161,3 +161,59 @@ func TestTiltedStretchFigure(t *testing.T) {
 		t.Errorf("surface strain off the truth: E1 mean %.2e RMS %.2e, E2 mean %.2e RMS %.2e: want within 1e-4", m1, r1e, m2, r2e)
 	}
 }
+
+// TestBulgeFigure bulges the flat plate into the clamped-plate shape
+// w = W0 (1 − r²/A²)² (A = 40 mm, W0 = 2 mm; synth.Bulge), every material
+// point rising by w at its place. The closed-form surface strain is then
+// E = ½ ∇w ∇wᵀ in the plate's coordinates: principal E1 = ½|∇w|² (up to
+// 3.0e-3) and E2 = 0; the measured principal strains must follow it within
+// 2e-4 RMS, and the out-of-plane displacement w within 0.01 mm RMS.
+func TestBulgeFigure(t *testing.T) {
+	lc, _, rig := bench(figW, figH)
+	flat := synth.Placement{Shape: synth.Plane{}}
+	b := synth.Bulge{A: 40, W0: 2}
+	l0, r0 := cachedPair(t, "plane", flat, 1)
+	l1, r1 := cachedPair(t, "bulge", synth.Placement{Shape: b}, 9)
+	ctx := context.Background()
+	ref, err := Match(ctx, rig, l0, r0, figOptions())
+	if err != nil {
+		t.Fatal(err)
+	}
+	st, err := ref.Track(ctx, l0, r0, l1, r1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sf, err := Strain(ref, st, StrainOptions{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var d1, d2, dw []float64
+	var peak float64
+	for k, s := range sf {
+		if !s.OK {
+			continue
+		}
+		p := ref.Points[k]
+		X, Y, err := synth.SeenAt(flat, lc, p.X, p.Y)
+		if err != nil {
+			t.Fatal(err)
+		}
+		w, wx, wy := b.W(X, Y)
+		want := (wx*wx + wy*wy) / 2
+		peak = math.Max(peak, want)
+		d1 = append(d1, s.M.E1-want)
+		d2 = append(d2, s.M.E2)
+		dw = append(dw, s.W-w)
+	}
+	m1, r1e := stats(d1)
+	m2, r2e := stats(d2)
+	mw, rw := stats(dw)
+	t.Logf("bulge (peak E1 %.2e): %d points; E1 error mean %.2e RMS %.2e; E2 mean %.2e RMS %.2e; w error mean %.4f RMS %.4f mm",
+		peak, len(d1), m1, r1e, m2, r2e, mw, rw)
+	if len(d1) < len(sf)*7/10 {
+		t.Errorf("only %d of %d points with strain", len(d1), len(sf))
+	}
+	if r1e > 2e-4 || r2e > 2e-4 || rw > 0.01 {
+		t.Errorf("bulge: E1 RMS error %.2e, E2 RMS %.2e, w RMS error %.4f mm: want at most 2e-4, 2e-4, 0.01 mm", r1e, r2e, rw)
+	}
+}
