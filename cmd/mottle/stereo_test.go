@@ -131,3 +131,72 @@ func TestStereoCommand(t *testing.T) {
 		}
 	}
 }
+
+// TestCalibrateStereoCommand renders six simultaneous pairs of a
+// checkerboard seen by the bench at 400×300 px, calibrates the rig with
+// mottle calibrate --stereo (left images after --stereo, right after
+// --right, flags between and after them) and checks the rig file: the
+// bench's 25° between the axes and its 216.4 mm baseline.
+func TestCalibrateStereoCommand(t *testing.T) {
+	const w, h = 400, 300
+	dir := t.TempDir()
+	tg, err := calib.NewTarget(calib.Checkerboard, 9, 7, 7)
+	if err != nil {
+		t.Fatal(err)
+	}
+	var tb bytes.Buffer
+	if err := tg.Write(&tb); err != nil {
+		t.Fatal(err)
+	}
+	tfile := filepath.Join(dir, "board.json")
+	os.WriteFile(tfile, tb.Bytes(), 0o644)
+	surf := synth.Checkerboard{Cols: 9, Rows: 7, Square: 7, Edge: 0.5, Markers: tg.Marker[:], MarkerDiameter: tg.MarkerDiameter}
+	lc, rc := synth.BenchRig(w, h)
+	var left, right []string
+	for k := range 6 {
+		a := 2*math.Pi*float64(k)/6 + 0.4
+		tilt := (14 + 10*float64(k%2)) * math.Pi / 180
+		p := synth.PoseFromAngles(tilt*math.Cos(a), tilt*math.Sin(a), 0.2*math.Sin(float64(k)), [3]float64{})
+		for i := range 3 { // the sheet turned over to face the bench (+z)
+			p.R[i][1], p.R[i][2] = -p.R[i][1], -p.R[i][2]
+		}
+		for i := range 3 {
+			p.T[i] = -(p.R[i][0]*31.5 + p.R[i][1]*24.5)
+		}
+		for s, c := range []synth.Cam{lc, rc} {
+			g, _, err := synth.RenderSurface(surf, synth.Placement{Shape: synth.Plane{}, Pose: p}, c,
+				synth.RenderOptions{W: w, H: h, Supersample: 2, Blur: 0.6, Noise: 1, Seed: int64(2*k + s)})
+			if err != nil {
+				t.Fatal(err)
+			}
+			f := filepath.Join(dir, []string{"L", "R"}[s]+string(rune('0'+k))+".png")
+			if err := imageio.WriteFile(f, g, 8); err != nil {
+				t.Fatal(err)
+			}
+			if s == 0 {
+				left = append(left, f)
+			} else {
+				right = append(right, f)
+			}
+		}
+	}
+	out := filepath.Join(dir, "rig.json")
+	args := append(append(append([]string{"calibrate", "--target", tfile, "--stereo"}, left...), "--right"), right...)
+	args = append(args, "--fix-k3", "--out", out)
+	code, stdout, stderr := runCmd(t, args...)
+	if code != 0 {
+		t.Fatalf("calibrate --stereo: exit %d: %s", code, stderr)
+	}
+	t.Log(stdout)
+	f, err := calib.ReadRigFile(out)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if len(f.Views) != 6 || math.Abs(f.Angle-25) > 0.3 || math.Abs(f.Baseline-216.44) > 2 {
+		t.Errorf("rig file: %d views, angle %.3f°, baseline %.3f mm; want 6, 25°, 216.4 mm", len(f.Views), f.Angle, f.Baseline)
+	}
+	code, _, stderr = runCmd(t, "calibrate", "--target", tfile, "--stereo", left[0], left[1])
+	if code != 2 || !strings.Contains(stderr, "--right") {
+		t.Errorf("no right images: exit %d, %q", code, stderr)
+	}
+}
