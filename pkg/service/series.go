@@ -139,10 +139,36 @@ func (s *Server) deleteSeriesH(w http.ResponseWriter, r *http.Request, sr *jobs.
 		writeProblem(w, r, asProblem(err, "id"))
 		return
 	}
+	s.lives.Delete(sr.ID)
 	w.WriteHeader(http.StatusNoContent)
 }
 
 var errNotLast = errors.New("frame is not the last one")
+
+// errReserve wraps a failure to reserve a frame index in queueFrame.
+var errReserve = errors.New("reserving the frame index")
+
+// queueFrame appends a frame (its file body, already checked against the
+// series' size) as the next frame job of sr.
+func (s *Server) queueFrame(ctx context.Context, sr *jobs.Series, body []byte, name string, tm, load *float64) (*jobs.Job, error) {
+	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Frame, State: jobs.Queued, Params: sr.Params, Width: sr.Width, Height: sr.Height,
+		HasMask: sr.HasMask, Series: sr.ID, Time: tm, Load: load, Name: name, Formats: sr.Formats, Created: time.Now().UTC()}
+	// Reserve the next frame index; give it back if the job is not accepted.
+	_, err := s.store.UpdateSeries(ctx, sr.ID, func(sr *jobs.Series) error {
+		j.FrameIndex = len(sr.Frames)
+		sr.Frames = append(sr.Frames, j.ID)
+		sr.Updated = j.Created
+		return nil
+	})
+	if err != nil {
+		return nil, fmt.Errorf("%w: %w", errReserve, err)
+	}
+	if err := s.accept(ctx, j, map[string][]byte{"deformed": body}); err != nil {
+		s.releaseFrame(sr.ID, j)
+		return nil, err
+	}
+	return j, nil
+}
 
 // postFrame appends a frame sent as the raw body.
 func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Series) {
@@ -180,23 +206,14 @@ func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 			FieldProblem{"body", "send frames from the same camera at the same resolution and crop as the reference"}))
 		return
 	}
-	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Frame, State: jobs.Queued, Params: sr.Params, Width: g.W, Height: g.H,
-		HasMask: sr.HasMask, Series: sr.ID, Time: opts.time, Load: opts.load, Name: name, Formats: sr.Formats, Created: time.Now().UTC()}
 	ctx := r.Context()
-	// Reserve the next frame index; give it back if the job is not accepted.
-	_, err = s.store.UpdateSeries(ctx, sr.ID, func(sr *jobs.Series) error {
-		j.FrameIndex = len(sr.Frames)
-		sr.Frames = append(sr.Frames, j.ID)
-		sr.Updated = j.Created
-		return nil
-	})
+	j, err := s.queueFrame(ctx, sr, body, name, opts.time, opts.load)
 	if err != nil {
-		writeProblem(w, r, asProblem(err, "id"))
-		return
-	}
-	if err := s.accept(ctx, j, map[string][]byte{"deformed": body}); err != nil {
-		s.releaseFrame(sr.ID, j)
-		s.answerAcceptErr(w, r, err)
+		if errors.Is(err, errReserve) {
+			writeProblem(w, r, asProblem(err, "id"))
+		} else {
+			s.answerAcceptErr(w, r, err)
+		}
 		return
 	}
 	logger(ctx).Info("frame accepted", "series", sr.ID, "frame", j.FrameIndex, "job", j.ID)
@@ -341,7 +358,7 @@ func (s *Server) seriesCurve(ctx context.Context, sr *jobs.Series) (series.Curve
 		if err != nil {
 			return series.Curve{}, fmt.Errorf("stored series state: %w", err)
 		}
-		return series.CurveOf(st), nil
+		return s.withLive(sr, series.CurveOf(st)), nil
 	}
 	ref := sr.ReferenceName
 	if ref == "" {
@@ -374,7 +391,15 @@ func (s *Server) seriesCurve(ctx context.Context, sr *jobs.Series) (series.Curve
 		}
 		c.Rows = append(c.Rows, row)
 	}
-	return c, nil
+	return s.withLive(sr, c), nil
+}
+
+// withLive merges the series' live session, if any, into its curve.
+func (s *Server) withLive(sr *jobs.Series, c series.Curve) series.Curve {
+	if ls := s.liveSession(sr.ID); ls != nil {
+		return liveCurve(c, ls)
+	}
+	return c
 }
 
 func (s *Server) curveCSV(w http.ResponseWriter, r *http.Request, sr *jobs.Series) {

@@ -40,6 +40,9 @@ type Server struct {
 	// inspecting bounds the image inspections computed at once (they run
 	// on the request goroutine, outside the job queue).
 	inspecting chan struct{}
+
+	// lives holds the live sessions by series id (*liveSession).
+	lives sync.Map
 }
 
 // New checks cfg and returns a server. It starts nothing: call Serve, or

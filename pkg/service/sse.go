@@ -46,11 +46,11 @@ func (s *Server) jobEvents(w http.ResponseWriter, r *http.Request, j *jobs.Job) 
 		writeProblem(w, r, asProblem(err, "id"))
 		return
 	}
-	s.pump(r, ch, startEvents(w), func(j *jobs.Job) (string, bool) {
+	pump(s, r, ch, startEvents(w), func(j *jobs.Job) (string, any, bool) {
 		if j.State.Terminal() {
-			return "done", true
+			return "done", viewJob(j), true
 		}
-		return "status", false
+		return "status", viewJob(j), false
 	})
 }
 
@@ -67,13 +67,14 @@ func (s *Server) seriesEvents(w http.ResponseWriter, r *http.Request, sr *jobs.S
 	if send("series", s.viewSeries(r.Context(), sr, true)) != nil {
 		return
 	}
-	s.pump(r, ch, send, func(*jobs.Job) (string, bool) { return "frame", false })
+	pump(s, r, ch, send, func(j *jobs.Job) (string, any, bool) { return "frame", viewJob(j), false })
 }
 
-// pump sends every job record from ch as an event named by name, with a
-// keep-alive comment between records, until name says the record was the
-// last, the channel closes, the client goes away or the server stops.
-func (s *Server) pump(r *http.Request, ch <-chan *jobs.Job, send func(event string, v any) error, name func(*jobs.Job) (event string, last bool)) {
+// pump sends every record from ch (job records, live values) as the event
+// and data that name makes of it, with a keep-alive comment between
+// records, until name says the record was the last, the channel closes,
+// the client goes away or the server stops.
+func pump[T any](s *Server, r *http.Request, ch <-chan T, send func(event string, v any) error, name func(T) (event string, data any, last bool)) {
 	t := time.NewTicker(keepAlive)
 	defer t.Stop()
 	for {
@@ -82,8 +83,8 @@ func (s *Server) pump(r *http.Request, ch <-chan *jobs.Job, send func(event stri
 			if !ok {
 				return
 			}
-			ev, last := name(j)
-			if send(ev, viewJob(j)) != nil || last {
+			ev, data, last := name(j)
+			if send(ev, data) != nil || last {
 				return
 			}
 		case <-t.C:
