@@ -8,6 +8,8 @@ import (
 	"reflect"
 	"strings"
 	"testing"
+
+	"github.com/mottledic/mottle/pkg/series"
 )
 
 // TestParseArgs: flags may come before, between and after the positional
@@ -88,7 +90,7 @@ func TestFrameList(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	got, err := frameList([]string{dir})
+	got, err := series.ListFrames([]string{dir})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -108,9 +110,9 @@ func TestFrameList(t *testing.T) {
 		{[]string{t.TempDir()}, "holds no PNG"},
 		{[]string{dir, filepath.Join(dir, "gone.png")}, `gone.png": stat`},
 	} {
-		list, err := frameList(tc.args)
+		list, err := series.ListFrames(tc.args)
 		if err == nil {
-			err = checkFrames(list)
+			err = series.CheckFrames(list)
 		}
 		if err == nil || !strings.Contains(err.Error(), tc.want) {
 			t.Errorf("%q: error %v, want %q", tc.args, err, tc.want)

@@ -14,7 +14,6 @@ import (
 	"strconv"
 	"strings"
 	"time"
-	"unicode"
 
 	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/field"
@@ -44,103 +43,6 @@ func parseFloats(s string, n int, what string) ([]float64, error) {
 		out[i] = v
 	}
 	return out, nil
-}
-
-// naturalLess orders names so that "f2" comes before "f10".
-func naturalLess(a, b string) bool {
-	for a != "" && b != "" {
-		if unicode.IsDigit(rune(a[0])) && unicode.IsDigit(rune(b[0])) {
-			i, j := 0, 0
-			for i < len(a) && unicode.IsDigit(rune(a[i])) {
-				i++
-			}
-			for j < len(b) && unicode.IsDigit(rune(b[j])) {
-				j++
-			}
-			na, nb := strings.TrimLeft(a[:i], "0"), strings.TrimLeft(b[:j], "0")
-			if len(na) != len(nb) {
-				return len(na) < len(nb)
-			}
-			if na != nb {
-				return na < nb
-			}
-			a, b = a[i:], b[j:]
-			continue
-		}
-		if a[0] != b[0] {
-			return a[0] < b[0]
-		}
-		a, b = a[1:], b[1:]
-	}
-	return len(a) < len(b)
-}
-
-var imageExt = map[string]bool{".png": true, ".tif": true, ".tiff": true, ".jpg": true, ".jpeg": true, ".bmp": true}
-
-// frameList expands the arguments (a folder, globs or files) into image
-// paths in natural order. In a folder, an image named reference.* (as
-// mottle synth writes) comes first, so that it is the reference. A pattern
-// must match something; see checkFrames for the files themselves.
-func frameList(args []string) ([]string, error) {
-	var out []string
-	for _, a := range args {
-		if st, err := os.Stat(a); err == nil && st.IsDir() {
-			ents, err := os.ReadDir(a)
-			if err != nil {
-				return nil, err
-			}
-			var names []string
-			for _, e := range ents {
-				if !e.IsDir() && imageExt[strings.ToLower(filepath.Ext(e.Name()))] {
-					names = append(names, filepath.Join(a, e.Name()))
-				}
-			}
-			if len(names) == 0 {
-				return nil, fmt.Errorf("folder %s holds no PNG, TIFF, JPEG or BMP image", a)
-			}
-			sort.Slice(names, func(i, j int) bool {
-				ri, rj := isReferenceName(names[i]), isReferenceName(names[j])
-				if ri != rj {
-					return ri
-				}
-				return naturalLess(names[i], names[j])
-			})
-			out = append(out, names...)
-			continue
-		}
-		if strings.ContainsAny(a, "*?[") {
-			m, err := filepath.Glob(a)
-			if err != nil {
-				return nil, fmt.Errorf("pattern %q: %w", a, err)
-			}
-			if len(m) == 0 {
-				return nil, fmt.Errorf("pattern %q matches no file", a)
-			}
-			sort.Slice(m, func(i, j int) bool { return naturalLess(m[i], m[j]) })
-			out = append(out, m...)
-			continue
-		}
-		out = append(out, a)
-	}
-	return out, nil
-}
-
-// checkFrames makes sure every frame is a file before any is analysed.
-func checkFrames(paths []string) error {
-	for _, a := range paths {
-		if st, err := os.Stat(a); err != nil {
-			return fmt.Errorf("frame %q: %w (give a folder, a glob such as 'frames/*.tif' or image files; flags may come before or after them)", a, err)
-		} else if !st.Mode().IsRegular() {
-			return fmt.Errorf("frame %q is not a regular file", a)
-		}
-	}
-	return nil
-}
-
-// isReferenceName reports whether path is named reference.<image ext>.
-func isReferenceName(path string) bool {
-	b := strings.ToLower(filepath.Base(path))
-	return strings.TrimSuffix(b, filepath.Ext(b)) == "reference"
 }
 
 func runSeries(ctx context.Context, e *env, args []string) error {
@@ -191,7 +93,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	frames, err := frameList(pos)
+	frames, err := series.ListFrames(pos)
 	if err != nil {
 		return err
 	}
@@ -346,7 +248,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		fmt.Fprintln(e.stderr, "mottle series:", err)
 		return errUsage
 	}
-	if err := checkFrames(frames); err != nil {
+	if err := series.CheckFrames(frames); err != nil {
 		return err
 	}
 
@@ -364,35 +266,6 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 
 	// Time stamps and loads.
 	names := append([]string{*ref}, frames...)
-	times := make([]*float64, len(names))
-	switch {
-	case *timePat != "":
-		ts, err := series.TimesFromNames(names, *timePat, *timeScale)
-		if err != nil {
-			return err
-		}
-		for i := range ts {
-			times[i] = &ts[i]
-		}
-	case *fps > 0:
-		for i := range names {
-			t := float64(i) / *fps
-			times[i] = &t
-		}
-	case *fileTimes:
-		var t0 time.Time
-		for i, n := range names {
-			st, err := os.Stat(n)
-			if err != nil {
-				return err
-			}
-			if i == 0 {
-				t0 = st.ModTime()
-			}
-			t := st.ModTime().Sub(t0).Seconds()
-			times[i] = &t
-		}
-	}
 	var tbl *series.Table
 	if *table != "" {
 		f, err := os.Open(*table)
@@ -405,32 +278,9 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 			return err
 		}
 	}
-	metas := make([]series.FrameMeta, len(names))
-	for i, n := range names {
-		m := series.FrameMeta{Name: filepath.Base(n), Time: times[i]}
-		if tbl != nil {
-			tm, load, err := tbl.Lookup(i, n, m.Time)
-			if err != nil {
-				return err
-			}
-			if tm != nil && m.Time == nil {
-				m.Time = tm
-			}
-			m.Load = load
-		}
-		metas[i] = m
-	}
-	if times[0] != nil || metas[0].Time != nil {
-		var ts []float64
-		for _, m := range metas {
-			if m.Time == nil {
-				return fmt.Errorf("frame %q has no time stamp while others do", m.Name)
-			}
-			ts = append(ts, *m.Time)
-		}
-		if err := series.CheckTimes(names, ts); err != nil {
-			return err
-		}
+	metas, err := series.FrameMetas(names, series.TimeSource{Pattern: *timePat, Scale: *timeScale, FPS: *fps, FileTimes: *fileTimes}, tbl)
+	if err != nil {
+		return err
 	}
 
 	if err := os.MkdirAll(filepath.Join(*out, "frames"), 0o755); err != nil {
