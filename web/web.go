@@ -40,12 +40,13 @@ var files embed.FS
 
 // Assets returns the static files of the preview with index.html at the
 // root, ready for http.FileServerFS. The returned file system is read-only
-// and safe for concurrent use.
+// and safe for concurrent use. It includes js/cmaps.js, made from
+// pkg/maps (see ColormapsJS).
 func Assets() fs.FS {
 	sub, err := fs.Sub(files, "static")
 	if err != nil {
 		// fs.Sub fails only for an invalid path; "static" is a valid one.
 		panic("web: embedded assets: " + err.Error())
 	}
-	return sub
+	return withColormaps{FS: sub, js: ColormapsJS()}
 }

@@ -6,6 +6,8 @@ import { fmt, linePlot } from './plot.js';
 import { RoiEditor } from './roi.js';
 import { advice, speckleSize } from './speckle.js';
 import { MapView } from './viewer.js';
+import { Shelf } from './shelf.js';
+import { SeriesRunner } from './seriesrun.js';
 
 const $ = id => document.getElementById(id);
 const API = '/v1';
@@ -241,8 +243,10 @@ async function submit(kind) {
   stopTracking();
   let resp;
   try {
+    const name = $('job-name').value.trim();
+    const nq = name ? `?name=${encodeURIComponent(name)}` : '';
     if (kind === 'demo') {
-      resp = await request(`${API}/demo`, { method: 'POST' });
+      resp = await request(`${API}/demo${nq}`, { method: 'POST' });
     } else {
       if (!state.files.reference || !state.files.deformed) {
         showError({ problem: { title: 'Two images needed', detail: 'Choose a reference and a deformed image, or run the demo.', errors: [
@@ -255,15 +259,18 @@ async function submit(kind) {
       fd.append('reference', state.files.reference, state.files.reference.name);
       fd.append('deformed', state.files.deformed, state.files.deformed.name);
       fd.append('params', new Blob([JSON.stringify(params())], { type: 'application/json' }), 'params.json');
-      resp = await request(`${API}/analyses`, { method: 'POST', body: fd });
+      const cal = calibration('use-cal');
+      if (cal) fd.append('calibration', new Blob([JSON.stringify(cal)], { type: 'application/json' }), 'camera.json');
+      resp = await request(`${API}/analyses${nq}`, { method: 'POST', body: fd });
     }
   } catch (err) { showError(err); return; }
   let body = null;
   try { body = await resp.json(); } catch { /* empty body */ }
   let id;
   try { id = idFromLocation(resp, body); } catch (err) { showError(err); return; }
-  say(`Analysis ${id} accepted.`);
+  say(`Analysis ${(body && body.name) || id} accepted.`);
   track(id, body);
+  shelf.refresh();
 }
 
 function setProgress(job) {
@@ -295,8 +302,8 @@ function track(id, first) {
     try { job = await getJSON(url); } catch (err) { showError(err); return; }
     setProgress(job);
     if (job.state === 'succeeded') {
-      say(`Analysis ${id} finished.`);
-      await openResult(`${API}/analyses/${encodeURIComponent(id)}`, job, `analysis ${id}`);
+      say(`Analysis ${job.name || id} finished.`);
+      await openResult(`${API}/analyses/${encodeURIComponent(id)}`, job, `analysis “${job.name || id}”`);
       refreshLists();
     } else if (job.state === 'canceled') {
       say(`Analysis ${id} was canceled.`);
@@ -477,31 +484,14 @@ async function downloadWithToken(href) {
   } catch (err) { showError(err); }
 }
 
-// refreshLists offers the finished analyses and the series the server keeps.
-async function refreshLists() {
-  const when = t => { const d = new Date(t); return Number.isNaN(+d) ? '' : d.toLocaleString(); };
-  const newest = (a, b) => String(b.created || '').localeCompare(String(a.created || ''));
-  try {
-    const d = await getJSON(`${API}/analyses?state=succeeded&limit=50`);
-    const list = (d.analyses || []).slice().sort(newest).slice(0, 30);
-    const sel = $('recent'), keep = sel.value;
-    sel.textContent = '';
-    sel.appendChild(new Option(list.length ? 'choose one to open it' : 'none yet', ''));
-    for (const j of list) {
-      const p = j.params || {};
-      sel.appendChild(new Option(`${when(j.created)} · ${j.width}×${j.height} px · subset ${p.subset}, step ${p.step} · ${j.id.slice(0, 8)}`, j.id));
-    }
-    sel.value = keep;
-  } catch { /* the list is a convenience */ }
-  try {
-    const d = await getJSON(`${API}/series`);
-    const dl = $('series-list');
-    dl.textContent = '';
-    for (const sr of (d.series || []).slice().sort(newest)) {
-      dl.appendChild(new Option(`${when(sr.created)} · ${(sr.frames || []).length} frames`, sr.id));
-    }
-  } catch { /* the list is a convenience */ }
+// calibration returns the calibration shown in section 5 when the
+// checkbox id is ticked, else null.
+function calibration(id) {
+  const f = window.mottleCalibration && window.mottleCalibration.file;
+  return $(id) && $(id).checked && f ? f : null;
 }
+
+function refreshLists() { return shelf.refresh(); }
 
 // ---- series -------------------------------------------------------------------
 
@@ -521,14 +511,17 @@ function flatten(row, out = {}, prefix = '') {
 
 async function openSeries(id) {
   clearError();
-  id = id.trim();
+  id = String(id || '').trim();
   if (!id) return;
   const base = `${API}/series/${encodeURIComponent(id)}`;
   let rec;
   try { rec = await getJSON(base); } catch (err) { showError(err); return; }
   const frames = Array.isArray(rec.frames) ? rec.frames.length : (rec.frame_count || 0);
+  if (state.series && state.series.events) state.series.events.close();
   state.series = { id, base, rec, frames };
   $('series-body').hidden = false;
+  $('series-title').textContent = `Series “${rec.name || rec.reference_name || id}”: ${frames} frames`;
+  $('props').textContent = ''; $('report-links').textContent = '';
   const sl = $('frame-slider');
   sl.max = String(Math.max(0, frames - 1));
   sl.value = String(Math.max(0, frames - 1));
@@ -536,6 +529,49 @@ async function openSeries(id) {
   await loadCurve();
   if (frames > 0) await showFrame(+sl.value);
   watchSeries();
+  if (frames > 0) await loadProperties();
+}
+
+// frameDone follows a frame sent by the page: the curve grows, the slider
+// and the map move to the newest frame.
+async function frameDone() {
+  const s = state.series;
+  if (!s) return;
+  try { s.rec = await getJSON(s.base); } catch { return; }
+  s.frames = Array.isArray(s.rec.frames) ? s.rec.frames.length : (s.rec.frame_count || 0);
+  $('series-title').textContent = `Series “${s.rec.name || s.rec.reference_name || s.id}”: ${s.frames} frames`;
+  const sl = $('frame-slider');
+  sl.max = String(Math.max(0, s.frames - 1)); sl.value = sl.max; $('frame-out').textContent = sl.value;
+  await loadCurve();
+  await showFrame(+sl.value);
+}
+
+// loadProperties shows the material properties of the open series, each
+// with its fit range, fit quality and standard, and the report links.
+async function loadProperties() {
+  const s = state.series;
+  if (!s) return;
+  let d;
+  try { d = await getJSON(`${s.base}/properties.json`); } catch (err) { showError(err); return; }
+  const dl = $('props');
+  dl.textContent = '';
+  const add = (k, v, cls) => {
+    const dt = document.createElement('dt'); dt.textContent = k;
+    const dd = document.createElement('dd'); dd.textContent = v; if (cls) dd.className = cls;
+    dl.append(dt, dd); return dd;
+  };
+  for (const l of d.lines || []) add(l.property, l.text);
+  const pr = d.properties || {};
+  if (pr.youngs_modulus) { dl.dataset.modulus = String(pr.youngs_modulus.E); } else delete dl.dataset.modulus;
+  for (const [k, why] of Object.entries(pr.skipped || {})) add(k.replace(/_/g, ' '), `not computed: ${why}`, 'hint');
+  if (!dl.children.length) add('—', 'no property selected');
+  const links = $('report-links');
+  links.textContent = '';
+  const a = document.createElement('a'); a.href = `${s.base}/report.html`; a.target = '_blank'; a.rel = 'noopener'; a.id = 'report-open'; a.textContent = 'Open the report';
+  const b = document.createElement('a'); b.href = `${s.base}/report.html?download=true`; b.setAttribute('download', 'report.html'); b.id = 'report-download'; b.textContent = 'Download the report (HTML)';
+  for (const x of [a, b]) x.addEventListener('click', e => { if (token()) { e.preventDefault(); downloadWithToken(x.href); } });
+  links.append(a, ' · ', b);
+  document.body.dataset.props = 'ready';
 }
 
 // watchSeries follows new and finished frames of the open series.
@@ -604,11 +640,25 @@ async function showFrame(n) {
     $('curve-text').textContent = `Frame ${n} is ${job.state}${e.detail ? ': ' + e.detail : ''}; its map appears once it has succeeded.`;
     return;
   }
-  await openResult(base, job || { width: s.rec.width, height: s.rec.height }, `series ${s.id}, frame ${n}`);
+  await openResult(base, job || { width: s.rec.width, height: s.rec.height }, `series “${s.rec.name || s.id}”, frame ${n}`);
 }
 
 // ---- wiring ---------------------------------------------------------------------
 
+const shelf = new Shelf($('work-list'), {
+  open: (kind, id) => {
+    clearError();
+    if (kind === 'series') { openSeries(id).then(() => $('series').scrollIntoView({ block: 'start' })); return; }
+    stopTracking(); track(id); $('results').scrollIntoView({ block: 'start' });
+  },
+  onError: showError,
+  onDeleted: it => { say(`Deleted ${it.name || it.kind}.`); if (state.series && state.series.id === it.id) { $('series-body').hidden = true; state.series = null; } },
+});
+const runner = new SeriesRunner({
+  openSeries, showError, say, calibration, frameDone,
+  refresh: refreshLists,
+  seriesFinished: async () => { await frameDone(); await loadProperties(); },
+});
 const editor = new RoiEditor($('roi-canvas'), v => syncRoiJSON(v));
 const view = new MapView({
   canvas: $('map-canvas'), colorbar: $('colorbar'), readout: $('readout'), where: $('readout-where'), announce: $('readout-announce'),
@@ -664,10 +714,8 @@ $('btn-profile').addEventListener('click', () => {
   view.opts.on = prevOn;
   view.profile();
 });
-$('recent').addEventListener('change', e => { if (e.target.value) { clearError(); track(e.target.value); } });
 $('token').addEventListener('change', refreshLists);
-$('btn-series').addEventListener('click', () => openSeries($('series-id').value));
-$('series-id').addEventListener('keydown', e => { if (e.key === 'Enter') openSeries($('series-id').value); });
+$('shelf-refresh').addEventListener('click', refreshLists);
 $('frame-slider').addEventListener('change', e => showFrame(+e.target.value));
 $('frame-slider').addEventListener('input', e => { $('frame-out').textContent = e.target.value; drawCurve(); });
 $('curve-x').addEventListener('change', drawCurve);
@@ -680,11 +728,11 @@ refreshLists();
 // Open a result or a series named in the address: ?analysis=ID or ?series=ID.
 const qs = new URLSearchParams(location.search);
 if (qs.get('analysis')) track(qs.get('analysis'));
-if (qs.get('series')) { $('series-id').value = qs.get('series'); openSeries(qs.get('series')); }
+if (qs.get('series')) openSeries(qs.get('series'));
 
 // A small hook for the browser tests and for scripting the page.
 window.mottlePreview = {
-  view, editor, state,
+  view, editor, state, shelf, runner, openSeries,
   toClient: (x, y) => view.toClient(x, y),
   roiToClient: (x, y) => {
     const c = editor.canvas, r = c.getBoundingClientRect();

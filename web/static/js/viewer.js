@@ -6,7 +6,6 @@ import * as cmap from './colormap.js';
 import { fmt, linePlot, niceTicks } from './plot.js';
 import { isStrain } from './field.js';
 
-const signed = /^(u|v|E|H|A|eps|rotation|e1|e2|F12|F21|principal)/;
 
 export class MapView {
   constructor(els) {
@@ -39,7 +38,9 @@ export class MapView {
 
   fit() {
     const avail = Math.max(240, (this.canvas.parentElement.clientWidth || 800) - 90);
-    this.s = Math.min(avail / this.W, 620 / this.H, 6);
+    // Tall enough to be large, short enough that map and controls fit the window together.
+    const maxH = Math.max(240, Math.min(760, (window.innerHeight || 800) - 90));
+    this.s = Math.min(avail / this.W, maxH / this.H, 6);
     this.canvas.width = Math.round(this.W * this.s);
     this.canvas.height = Math.round(this.H * this.s);
     this.el.colorbar.height = Math.max(240, this.canvas.height);
@@ -56,19 +57,21 @@ export class MapView {
   /** mapName is the colour map used for the current quantity. */
   mapName() {
     if (this.opts.cmap !== 'auto') return this.opts.cmap;
-    const st = this.field ? this.field.stats(this.opts.quantity) : null;
-    return signed.test(this.opts.quantity) && st && st.lo < 0 && st.hi > 0 ? 'diverging' : 'sequential';
+    return cmap.forQuantity(this.opts.quantity);
   }
 
   autoRange() {
     if (!this.field) return;
     const st = this.field.stats(this.opts.quantity);
     let lo = st.lo, hi = st.hi;
-    if (this.mapName() === 'diverging') { const m = Math.max(Math.abs(lo), Math.abs(hi)); lo = -m; hi = m; }
+    if (cmap.diverging(this.mapName())) { const m = Math.max(Math.abs(lo), Math.abs(hi)); lo = -m; hi = m; }
     if (!(hi > lo)) { const d = Math.abs(lo) * 0.01 || 1e-6; lo -= d; hi += d; }
     this.opts.lo = lo; this.opts.hi = hi;
     if (this.el.onRange) this.el.onRange(lo, hi);
   }
+
+  /** div reports whether the current map is diverging. */
+  div() { return cmap.diverging(this.mapName()); }
 
   table() {
     const n = this.mapName();
@@ -109,7 +112,7 @@ export class MapView {
         for (let x = 0; x < W; x++) {
           const v = f.sample(o.quantity, f.x0 - f.dx / 2 + (x + 0.5) * f.dx / r, Y);
           if (!Number.isFinite(v)) continue;
-          const c = cmap.index(v, o.lo, o.hi), p = 4 * (y * W + x);
+          const c = cmap.index(v, o.lo, o.hi, this.div()), p = 4 * (y * W + x);
           img.data[p] = lut[3 * c]; img.data[p + 1] = lut[3 * c + 1]; img.data[p + 2] = lut[3 * c + 2]; img.data[p + 3] = 255;
         }
       }
@@ -122,7 +125,7 @@ export class MapView {
       for (let j = 0; j < f.ny; j++) for (let i = 0; i < f.nx; i++) {
         const k = f.at(i, j), p = 4 * (j * f.nx + i);
         if (k < 0 || !f.ok[k] || !Number.isFinite(a[k])) continue;
-        const c = cmap.index(a[k], o.lo, o.hi);
+        const c = cmap.index(a[k], o.lo, o.hi, this.div());
         img.data[p] = lut[3 * c]; img.data[p + 1] = lut[3 * c + 1]; img.data[p + 2] = lut[3 * c + 2]; img.data[p + 3] = 255;
       }
       const off = new OffscreenCanvas(f.nx, f.ny);
@@ -140,7 +143,7 @@ export class MapView {
         let f11 = 1, f12 = 0, f21 = 0, f22 = 1;
         if (F[0] && Number.isFinite(F[0][k])) { f11 = F[0][k]; f12 = F[1][k]; f21 = F[2][k]; f22 = F[3][k]; }
         const cx = f.X[k] + u, cy = f.Y[k] + v;
-        const c = cmap.index(a[k], o.lo, o.hi);
+        const c = cmap.index(a[k], o.lo, o.hi, this.div());
         ctx.fillStyle = `rgb(${lut[3 * c]},${lut[3 * c + 1]},${lut[3 * c + 2]})`;
         ctx.beginPath();
         for (const [sx, sy] of [[-1, -1], [1, -1], [1, 1], [-1, 1]]) {
@@ -226,7 +229,7 @@ export class MapView {
     const top = 34, bot = H - 14, x = 8, w = 18;
     const lut = this.table();
     for (let y = top; y < bot; y++) {
-      const c = Math.round((bot - 1 - y) / (bot - 1 - top) * 255);
+      const c = cmap.index(o.hi - (y - top + 0.5) / (bot - top) * (o.hi - o.lo), o.lo, o.hi, this.div());
       ctx.fillStyle = `rgb(${lut[3 * c]},${lut[3 * c + 1]},${lut[3 * c + 2]})`;
       ctx.fillRect(x, y, w, 1);
     }
