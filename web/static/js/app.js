@@ -652,7 +652,7 @@ const shelf = new Shelf($('work-list'), {
     stopTracking(); track(id); $('results').scrollIntoView({ block: 'start' });
   },
   onError: showError,
-  onDeleted: it => { say(`Deleted ${it.name || it.kind}.`); if (state.series && state.series.id === it.id) { $('series-body').hidden = true; state.series = null; } },
+  onDeleted: it => { say(`Deleted ${it.name || it.kind}.`); if (state.series && state.series.id === it.id) { if (state.series.events) state.series.events.close(); $('series-body').hidden = true; state.series = null; } },
 });
 const runner = new SeriesRunner({
   openSeries, showError, say, calibration, frameDone,

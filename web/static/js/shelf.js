@@ -27,7 +27,7 @@ export class Shelf {
     } catch (err) { this.ul.textContent = ''; this.note('The list could not be loaded.'); return; }
     const items = [
       ...an.map(j => ({ kind: 'analysis', id: j.id, name: j.name || '', created: j.created, state: j.state,
-        size: `${j.width} × ${j.height} px`, thumb: `${API}/analyses/${j.id}/thumb.png`, base: `${API}/analyses/${j.id}` })),
+        size: `${j.width} × ${j.height} px`, thumb: `${API}/analyses/${j.id}/thumb.png?state=${j.state}`, base: `${API}/analyses/${j.id}` })),
       ...sr.map(s => ({ kind: 'series', id: s.id, name: s.name || s.reference_name || '', created: s.created,
         state: `${s.frame_count ?? (s.frames || []).length} frames`, size: `${s.width} × ${s.height} px`,
         thumb: `${API}/series/${s.id}/thumb.png`, base: `${API}/series/${s.id}` })),
