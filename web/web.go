@@ -15,7 +15,10 @@
 //
 //	api.js       requests, bearer token, RFC 9457 problem documents
 //	field.js     field.json parsing, nearest point, bilinear samples
-//	colormap.js  OKLab sequential, diverging and grey colour maps
+//	colormap.js  the server's colour maps (js/cmaps.js, made from pkg/maps
+//	             by ColormapsJS), interpolated and normalised as pkg/maps does
+//	shelf.js     earlier work: list, thumbnails, open, rename, delete
+//	seriesrun.js a whole test series from dropped frames, with resume
 //	speckle.js   speckle size by FFT autocorrelation, parameter advice
 //	roi.js       region editor (rectangle, polygon, holes, seeds)
 //	viewer.js    the map, colour bar, read-out, profile and vectors

@@ -1,11 +1,15 @@
 package web_test
 
 import (
+	"fmt"
 	"io/fs"
+	"net/http"
+	"net/http/httptest"
 	"regexp"
 	"strings"
 	"testing"
 
+	"github.com/mottledic/mottle/pkg/maps"
 	"github.com/mottledic/mottle/web"
 )
 
@@ -75,4 +79,32 @@ func clean(p string) string {
 		}
 	}
 	return strings.Join(out, "/")
+}
+
+// TestColormapsServed checks that the page gets the server's colour maps:
+// js/cmaps.js is served as JavaScript, holds every map of pkg/maps with
+// its entries, and names the server's default map for each quantity.
+func TestColormapsServed(t *testing.T) {
+	rec := httptest.NewRecorder()
+	http.FileServerFS(web.Assets()).ServeHTTP(rec, httptest.NewRequest("GET", "/"+web.ColormapsPath, nil))
+	if rec.Code != 200 || !strings.Contains(rec.Header().Get("Content-Type"), "javascript") {
+		t.Fatalf("GET /%s: %d %s", web.ColormapsPath, rec.Code, rec.Header().Get("Content-Type"))
+	}
+	js := rec.Body.String()
+	for _, cm := range []maps.Colormap{maps.Viridis(), maps.Cividis(), maps.CoolWarm()} {
+		i := strings.Index(js, "  "+cm.Name+": {")
+		if i < 0 {
+			t.Errorf("cmaps.js lacks %s", cm.Name)
+			continue
+		}
+		line := js[i : i+strings.Index(js[i:], "\n")]
+		if n := strings.Count(line, ","); n < 3*1025-1 {
+			t.Errorf("%s: %d values, want 3 × 1025", cm.Name, n)
+		}
+	}
+	for _, q := range []string{"E11", "u", "zncc", "von_mises", "valid"} {
+		if want := fmt.Sprintf("%q: %q", q, maps.ForQuantity(q).Name); !strings.Contains(js, want) {
+			t.Errorf("cmaps.js does not say %s", want)
+		}
+	}
 }
