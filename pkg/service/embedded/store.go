@@ -26,6 +26,7 @@ import (
 var (
 	bucketJobs   = []byte("jobs")
 	bucketSeries = []byte("series")
+	bucketKeys   = []byte("keys")
 )
 
 // Store is a jobs.Store on a bbolt database. Progress is kept in memory
@@ -47,7 +48,7 @@ func OpenStore(path string) (*Store, error) {
 		return nil, fmt.Errorf("open job database %s: %w (is another mottle serve using this data directory?)", path, err)
 	}
 	err = db.Update(func(tx *bolt.Tx) error {
-		for _, b := range [][]byte{bucketJobs, bucketSeries} {
+		for _, b := range [][]byte{bucketJobs, bucketSeries, bucketKeys} {
 			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
 				return err
 			}
@@ -321,6 +322,37 @@ func (s *Store) AllSeries(ctx context.Context) ([]*jobs.Series, error) {
 	})
 	sort.SliceStable(out, func(a, b int) bool { return out[a].Created.Before(out[b].Created) })
 	return out, err
+}
+
+// CreateKey implements jobs.Store.
+func (s *Store) CreateKey(ctx context.Context, k *jobs.Key) error {
+	if !jobs.ValidKeyID(k.ID) {
+		return fmt.Errorf("idempotency key record %q: %w", k.ID, jobs.ErrNotFound)
+	}
+	return s.create(bucketKeys, k.ID, k)
+}
+
+// Key implements jobs.Store.
+func (s *Store) Key(ctx context.Context, id string) (*jobs.Key, error) {
+	var k jobs.Key
+	if err := s.get(bucketKeys, id, &k); err != nil {
+		return nil, err
+	}
+	return &k, nil
+}
+
+// PutKey implements jobs.Store.
+func (s *Store) PutKey(ctx context.Context, k *jobs.Key) error {
+	data, err := json.Marshal(k)
+	if err != nil {
+		return err
+	}
+	return s.db.Update(func(tx *bolt.Tx) error { return tx.Bucket(bucketKeys).Put([]byte(k.ID), data) })
+}
+
+// DeleteKey implements jobs.Store.
+func (s *Store) DeleteKey(ctx context.Context, id string) error {
+	return s.db.Update(func(tx *bolt.Tx) error { return tx.Bucket(bucketKeys).Delete([]byte(id)) })
 }
 
 // Watch implements jobs.Store.

@@ -40,6 +40,17 @@ type Store interface {
 	// AllSeries returns every series, oldest first.
 	AllSeries(ctx context.Context) ([]*Series, error)
 
+	// CreateKey stores a new idempotency key record; ErrExists if one
+	// with that id exists.
+	CreateKey(ctx context.Context, k *Key) error
+	// Key returns the idempotency key record with that id, or ErrNotFound.
+	Key(ctx context.Context, id string) (*Key, error)
+	// PutKey replaces an idempotency key record.
+	PutKey(ctx context.Context, k *Key) error
+	// DeleteKey removes an idempotency key record; deleting a missing one
+	// is not an error.
+	DeleteKey(ctx context.Context, id string) error
+
 	// Watch sends the record of job id each time it changes, starting with
 	// the current one; for topic a series id it sends every change of that
 	// series' frame jobs. The channel is closed when ctx is done. Slow
