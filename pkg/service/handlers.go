@@ -193,19 +193,28 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Param
 		return
 	}
 	params, _ := json.Marshal(p)
-	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Analysis, State: jobs.Queued, Params: params, Name: name,
+	j := &jobs.Job{ID: newID(r), Kind: jobs.Analysis, State: jobs.Queued, Params: params, Name: name,
 		Width: ref.W, Height: ref.H, HasMask: raw["mask"] != nil, Formats: formats.String(), Created: time.Now().UTC()}
-	if err := s.accept(r.Context(), j, raw); err != nil {
+	if err := s.accept(r.Context(), j, raw); errors.Is(err, jobs.ErrExists) {
+		// A repeat under an Idempotency-Key that another instance
+		// created meanwhile.
+		if j, err = s.store.Job(r.Context(), j.ID); err != nil {
+			writeProblem(w, r, asProblem(err, ""))
+			return
+		}
+	} else if err != nil {
 		s.answerAcceptErr(w, r, err)
 		return
 	}
+	created(r)
 	logger(r.Context()).Info("analysis accepted", "job", j.ID, "width", j.Width, "height", j.Height)
 	s.answerJob(w, r, j, wait)
 }
 
 // accept stores the inputs and the record and enqueues the job. If the
 // queue is full, everything is removed again and ErrQueueFull returned:
-// the job was not accepted.
+// the job was not accepted. ErrExists means a job with that id (chosen
+// under an Idempotency-Key) exists already, and is left as it is.
 func (s *Server) accept(ctx context.Context, j *jobs.Job, raw map[string][]byte) error {
 	for name, b := range raw {
 		if err := s.blobs.Put(ctx, jobs.InputKey(j.ID, name), bytes.NewReader(b)); err != nil {
@@ -213,7 +222,9 @@ func (s *Server) accept(ctx context.Context, j *jobs.Job, raw map[string][]byte)
 			return err
 		}
 	}
-	if err := s.store.CreateJob(ctx, j); err != nil {
+	if err := s.store.CreateJob(ctx, j); errors.Is(err, jobs.ErrExists) {
+		return err // the inputs are the existing job's
+	} else if err != nil {
 		s.blobs.Delete(ctx, jobs.JobKey(j.ID))
 		return err
 	}
@@ -335,6 +346,19 @@ func boolQuery(r *http.Request, name string, def bool) (bool, error) {
 			FieldProblem{name, "use true or false"})
 	}
 	return b, nil
+}
+
+func intQuery(r *http.Request, name string) (*int, error) {
+	v := r.URL.Query().Get(name)
+	if v == "" {
+		return nil, nil
+	}
+	n, err := strconv.Atoi(v)
+	if err != nil || n < 0 {
+		return nil, problem(http.StatusBadRequest, "bad-query", "Invalid query", name+" "+strconv.Quote(v)+" is not a whole number ≥ 0",
+			FieldProblem{name, "use the frame number the series gives this frame, counting from 0"})
+	}
+	return &n, nil
 }
 
 func floatQuery(r *http.Request, name string) (*float64, error) {

@@ -206,7 +206,7 @@ func ms(d time.Duration) float64 { return float64(d.Microseconds()) / 1000 }
 
 // queueLive appends live frame index as a frame job (ls.mu held).
 func (s *Server) queueLive(ctx context.Context, sr *jobs.Series, ls *liveSession, index int, f liveFrame) (*jobs.Job, error) {
-	j, err := s.queueFrame(ctx, sr, f.body, f.name, f.t, f.l)
+	j, _, err := s.queueFrame(ctx, sr, jobs.NewID(), nil, f.body, f.name, f.t, f.l)
 	if err != nil {
 		return nil, err
 	}

@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"net/http"
+	"slices"
 	"sort"
 	"strings"
 	"time"
@@ -98,7 +99,7 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	now := time.Now().UTC()
-	sr := &jobs.Series{ID: jobs.NewID(), Name: label, Params: params, Width: ref.W, Height: ref.H, HasMask: u.raw["mask"] != nil,
+	sr := &jobs.Series{ID: newID(r), Name: label, Params: params, Width: ref.W, Height: ref.H, HasMask: u.raw["mask"] != nil,
 		ReferenceName: refName, Formats: formats.String(), Created: now, Updated: now, Frames: []string{}}
 	for name, b := range u.raw {
 		if err := s.blobs.Put(r.Context(), jobs.SeriesKey(sr.ID, name), bytes.NewReader(b)); err != nil {
@@ -107,11 +108,19 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 			return
 		}
 	}
-	if err := s.store.CreateSeries(r.Context(), sr); err != nil {
+	if err := s.store.CreateSeries(r.Context(), sr); errors.Is(err, jobs.ErrExists) {
+		// A repeat under an Idempotency-Key that another instance
+		// created meanwhile: answer with that series.
+		if sr, err = s.store.Series(r.Context(), sr.ID); err != nil {
+			writeProblem(w, r, asProblem(err, ""))
+			return
+		}
+	} else if err != nil {
 		s.blobs.Delete(r.Context(), jobs.SeriesKey(sr.ID, ""))
 		writeProblem(w, r, asProblem(err, ""))
 		return
 	}
+	created(r)
 	logger(r.Context()).Info("series created", "series", sr.ID, "width", sr.Width, "height", sr.Height)
 	w.Header().Set("Location", "/v1/series/"+sr.ID)
 	writeJSON(w, http.StatusCreated, s.viewSeries(r.Context(), sr, false))
@@ -148,26 +157,44 @@ var errNotLast = errors.New("frame is not the last one")
 // errReserve wraps a failure to reserve a frame index in queueFrame.
 var errReserve = errors.New("reserving the frame index")
 
-// queueFrame appends a frame (its file body, already checked against the
-// series' size) as the next frame job of sr.
-func (s *Server) queueFrame(ctx context.Context, sr *jobs.Series, body []byte, name string, tm, load *float64) (*jobs.Job, error) {
-	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Frame, State: jobs.Queued, Params: sr.Params, Width: sr.Width, Height: sr.Height,
+// queueFrame reserves the next frame index of sr for a new frame job with
+// id (newID of the request), stores the job and enqueues it. With index
+// not nil the frame must get that index, else errIndex (and next, the
+// index that comes next). A job of that id already among the frames (a
+// repeat under an Idempotency-Key whose first request died after
+// reserving) keeps its index; one already stored is returned as it is.
+func (s *Server) queueFrame(ctx context.Context, sr *jobs.Series, id string, index *int, body []byte, name string, tm, load *float64) (j *jobs.Job, next int, err error) {
+	j = &jobs.Job{ID: id, Kind: jobs.Frame, State: jobs.Queued, Params: sr.Params, Width: sr.Width, Height: sr.Height,
 		HasMask: sr.HasMask, Series: sr.ID, Time: tm, Load: load, Name: name, Formats: sr.Formats, Created: time.Now().UTC()}
 	// Reserve the next frame index; give it back if the job is not accepted.
-	_, err := s.store.UpdateSeries(ctx, sr.ID, func(sr *jobs.Series) error {
+	_, err = s.store.UpdateSeries(ctx, sr.ID, func(sr *jobs.Series) error {
+		if i := slices.Index(sr.Frames, j.ID); i >= 0 {
+			j.FrameIndex = i
+			return nil
+		}
+		next = len(sr.Frames)
+		if index != nil && *index != next {
+			return errIndex
+		}
 		j.FrameIndex = len(sr.Frames)
 		sr.Frames = append(sr.Frames, j.ID)
 		sr.Updated = j.Created
 		return nil
 	})
+	if errors.Is(err, errIndex) {
+		return nil, next, err
+	}
 	if err != nil {
-		return nil, fmt.Errorf("%w: %w", errReserve, err)
+		return nil, 0, fmt.Errorf("%w: %w", errReserve, err)
 	}
-	if err := s.accept(ctx, j, map[string][]byte{"deformed": body}); err != nil {
+	if err := s.accept(ctx, j, map[string][]byte{"deformed": body}); errors.Is(err, jobs.ErrExists) {
+		j, err = s.store.Job(ctx, j.ID)
+		return j, 0, err
+	} else if err != nil {
 		s.releaseFrame(sr.ID, j)
-		return nil, err
+		return nil, 0, err
 	}
-	return j, nil
+	return j, 0, nil
 }
 
 // postFrame appends a frame sent as the raw body.
@@ -195,6 +222,11 @@ func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 		writeProblem(w, r, err.(*Problem))
 		return
 	}
+	index, err := intQuery(r, "index")
+	if err != nil {
+		writeProblem(w, r, err.(*Problem))
+		return
+	}
 	body, g, err := s.readRawImage(w, r, "the frame")
 	if err != nil {
 		writeProblem(w, r, asProblem(err, "body"))
@@ -207,17 +239,96 @@ func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 		return
 	}
 	ctx := r.Context()
-	j, err := s.queueFrame(ctx, sr, body, name, opts.time, opts.load)
-	if err != nil {
-		if errors.Is(err, errReserve) {
-			writeProblem(w, r, asProblem(err, "id"))
-		} else {
-			s.answerAcceptErr(w, r, err)
-		}
+	if index != nil && *index < len(sr.Frames) {
+		s.storedFrame(w, r, sr, *index, body, opts.wait)
 		return
 	}
+	if p := s.checkFrameTime(ctx, sr, opts.time); p != nil {
+		writeProblem(w, r, p)
+		return
+	}
+	j, next, err := s.queueFrame(ctx, sr, newID(r), index, body, name, opts.time, opts.load)
+	switch {
+	case errors.Is(err, errIndex) && *index < next: // another request stored it meanwhile
+		s.storedFrame(w, r, sr, *index, body, opts.wait)
+		return
+	case errors.Is(err, errIndex):
+		writeProblem(w, r, indexProblem(*index, next))
+		return
+	case errors.Is(err, errReserve):
+		writeProblem(w, r, asProblem(err, "id"))
+		return
+	case err != nil:
+		s.answerAcceptErr(w, r, err)
+		return
+	}
+	created(r)
 	logger(ctx).Info("frame accepted", "series", sr.ID, "frame", j.FrameIndex, "job", j.ID)
 	s.answerJob(w, r, j, opts.wait)
+}
+
+var errIndex = errors.New("frame index out of order")
+
+func indexProblem(index, next int) *Problem {
+	return problem(http.StatusConflict, "frame-index", "Frame index out of order",
+		fmt.Sprintf("index=%d does not come next: the series holds %d frames, so the next index is %d", index, next, next),
+		FieldProblem{"index", fmt.Sprintf("send frame %d next (index=%d), or leave index out", next, next)})
+}
+
+// storedFrame answers a frame sent with ?index= of a frame already stored:
+// with that frame if the image is the same (a repeat), else 409.
+func (s *Server) storedFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Series, index int, body []byte, wait bool) {
+	ctx := r.Context()
+	cur, err := s.store.Series(ctx, sr.ID)
+	if err != nil {
+		writeProblem(w, r, asProblem(err, "id"))
+		return
+	}
+	if index >= len(cur.Frames) {
+		writeProblem(w, r, indexProblem(index, len(cur.Frames)))
+		return
+	}
+	j, err := s.store.Job(ctx, cur.Frames[index])
+	var stored []byte
+	if err == nil {
+		stored, err = s.readBlob(ctx, jobs.InputKey(j.ID, "deformed"))
+	}
+	if err != nil {
+		// Reserved but not (yet) stored: not a frame to answer with.
+		writeProblem(w, r, indexProblem(index, len(cur.Frames)))
+		return
+	}
+	if !bytes.Equal(stored, body) {
+		p := indexProblem(index, len(cur.Frames))
+		p.Detail = fmt.Sprintf("frame %d is stored already with another image; the next index is %d", index, len(cur.Frames))
+		writeProblem(w, r, p)
+		return
+	}
+	s.answerJob(w, r, j, wait)
+}
+
+// checkFrameTime refuses, before anything is stored, a frame time that is
+// not after the time of the series' last frame still counted (not failed
+// or canceled): the series engine would fail the frame, and the refusal
+// would stay in the curve as a failed row.
+func (s *Server) checkFrameTime(ctx context.Context, sr *jobs.Series, t *float64) *Problem {
+	if t == nil {
+		return nil
+	}
+	for i := len(sr.Frames) - 1; i >= 0; i-- {
+		j, err := s.store.Job(ctx, sr.Frames[i])
+		if err != nil || j.State == jobs.Failed || j.State == jobs.Canceled {
+			continue
+		}
+		if j.Time == nil || *t > *j.Time {
+			return nil
+		}
+		return problem(http.StatusUnprocessableEntity, "frame-time", "Time stamps must increase",
+			fmt.Sprintf("time %g s is not after frame %d's %g s; nothing was stored. If this repeats a frame whose answer was lost, "+
+				"send it with the same Idempotency-Key or with ?index=%d to get the stored frame", *t, j.FrameIndex, *j.Time, j.FrameIndex),
+			FieldProblem{"time", "send the frame's own time, later than the previous frame's"})
+	}
+	return nil
 }
 
 // releaseFrame gives back a reserved frame index after the job was not

@@ -43,6 +43,9 @@ type Server struct {
 
 	// lives holds the live sessions by series id (*liveSession).
 	lives sync.Map
+
+	// keyLocks serialises requests of one Idempotency-Key.
+	keyLocks keyLocks
 }
 
 // New checks cfg and returns a server. It starts nothing: call Serve, or
