@@ -59,6 +59,7 @@ func TestBrowserWorkspace(t *testing.T) {
 	b.step("layout: map and controls together at 1280×800 and 1024×768")
 	checkLayout(b, 1280, 800)
 	checkLayout(b, 1024, 768)
+	checkTablet(b, 768, 1024)
 	b.run("back to 1280×800", chromedp.EmulateViewport(1280, 800))
 
 	files := seriesFiles(b)
@@ -275,6 +276,29 @@ func checkLayout(b *browser, w, h int64) {
 	if err != nil || int64(cfg.Width) != w || int64(cfg.Height) != h {
 		t.Errorf("screenshot %s: %v×%v (%v), want the %d×%d window", p, cfg.Width, cfg.Height, err, w, h)
 	}
+}
+
+// checkTablet sets an upright tablet window: nothing may stick out to the
+// side, the map must fill most of the width, and the controls follow
+// under it.
+func checkTablet(b *browser, w, h int64) {
+	t := b.t
+	t.Helper()
+	b.run(fmt.Sprintf("window %d×%d", w, h), chromedp.EmulateViewport(w, h, chromedp.EmulateTouch), eval(`window.dispatchEvent(new Event('resize'))`),
+		eval(`document.querySelector('#results .viewer-grid').scrollIntoView({block: 'start'})`))
+	out := value[[]string](b, `(() => {
+		const vw = innerWidth, bad = [];
+		if (document.scrollingElement.scrollWidth > vw + 1) bad.push('the page is ' + document.scrollingElement.scrollWidth + ' px wide');
+		const m = document.getElementById('map-canvas').getBoundingClientRect();
+		if (m.width < 0.6 * vw || m.right > vw) bad.push('map ' + JSON.stringify(m));
+		const q = document.getElementById('q-select').getBoundingClientRect();
+		if (q.top < m.bottom - 2 || q.right > vw) bad.push('quantity control not under the map ' + JSON.stringify(q));
+		return bad;
+	})()`)
+	for _, s := range out {
+		t.Errorf("%d×%d: %s", w, h, s)
+	}
+	b.shot(fmt.Sprintf("layout-tablet-%dx%d.png", w, h), "#results")
 }
 
 // wsFile is a frame file handed to the page.

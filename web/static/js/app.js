@@ -7,6 +7,7 @@ import { RoiEditor } from './roi.js';
 import { advice, speckleSize } from './speckle.js';
 import { MapView } from './viewer.js';
 import { Shelf } from './shelf.js';
+import { forQuantity } from './colormap.js';
 import { SeriesRunner } from './seriesrun.js';
 
 const $ = id => document.getElementById(id);
@@ -465,7 +466,9 @@ function updateDownloads() {
   const o = view.opts;
   add(`${state.base}/arrays/${encodeURIComponent(o.quantity)}.npy`, `${o.quantity}.npy`);
   const q = new URLSearchParams({ quantity: o.quantity, range: `${o.lo},${o.hi}`, on: o.on });
-  add(`${state.base}/map.png?${q}`, `map.png (${o.quantity}, over ${o.on})`);
+  // map.png is drawn in the server's map for the quantity (the automatic choice here).
+  const other = view.mapName() !== forQuantity(o.quantity) ? `, in ${forQuantity(o.quantity)} as the server draws it` : '';
+  add(`${state.base}/map.png?${q}`, `map.png (${o.quantity}, over ${o.on}${other})`);
   if (state.series && base.startsWith(state.series.base)) {
     add(`${state.series.base}/curve.csv`, 'curve.csv (series)');
     add(`${state.series.base}/curve.json`, 'curve.json (series)');
@@ -607,13 +610,24 @@ async function loadCurve() {
   let doc;
   try { doc = await getJSON(`${s.base}/curve.json`); } catch (err) { showError(err); return; }
   const rows = (Array.isArray(doc) ? doc : doc.rows || doc.frames || doc.curve || doc.points || []).map(r => flatten(r));
+  // Engineering stress from the load and the series' cross-section.
+  const p = (s.rec && s.rec.params) || {};
+  const area = +p.area_mm2 || 0;
+  if (area > 0) for (const r of rows) if (Number.isFinite(r.load)) r.stress_MPa = r.load / area;
   state.curve = rows;
   const keys = new Set();
   for (const r of rows) for (const k of Object.keys(r)) if (!['frame', 'time', 'load', 'index'].includes(k)) keys.add(k);
   const sel = $('curve-y'), prev = sel.value;
   sel.textContent = '';
   for (const k of keys) { const o = document.createElement('option'); o.value = k; o.textContent = k; sel.appendChild(o); }
-  if (keys.has(prev)) sel.value = prev;
+  // Strains can be the x axis too (a stress–strain curve).
+  const xs = $('curve-x'), prevX = xs.value;
+  xs.textContent = '';
+  for (const k of ['frame', 'time', 'load', ...[...keys].filter(k => /^ext_.*_eng$|^gauge_.*_mean$|^mean (E|H|eps)/.test(k))]) xs.appendChild(new Option(k, k));
+  const axial = p.properties && p.properties.axial ? `ext_${p.properties.axial}_eng` : '';
+  if (keys.has(prev)) { sel.value = prev; xs.value = [...xs.options].some(o => o.value === prevX) ? prevX : 'frame'; }
+  else if (keys.has('stress_MPa') && keys.has(axial)) { sel.value = 'stress_MPa'; xs.value = axial; }
+  else xs.value = [...xs.options].some(o => o.value === prevX) ? prevX : 'frame';
   drawCurve();
 }
 
