@@ -19,8 +19,22 @@ func benchField() *Field {
 	return f
 }
 
+// BenchmarkEncoders measures each encoder on a float64 field and on the
+// same field in float32 precision (what results.Build makes).
 func BenchmarkEncoders(b *testing.B) {
-	f := benchField()
+	f64 := benchField()
+	f32 := benchField()
+	f32.Meta.Precision = Float32
+	for _, f := range []*Field{f64, f32} {
+		prec := "float64"
+		if f.Meta.Precision == Float32 {
+			prec = "float32"
+		}
+		b.Run(prec, func(b *testing.B) { benchEncoders(b, f) })
+	}
+}
+
+func benchEncoders(b *testing.B, f *Field) {
 	for _, c := range []struct {
 		name string
 		fn   func(io.Writer, *Field) error

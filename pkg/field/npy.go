@@ -240,8 +240,17 @@ func WriteNPZ(w io.Writer, f *Field) error {
 		return fmt.Errorf("field.npz: %w", err)
 	}
 	zw := zip.NewWriter(w)
+	// Members are written one after the other, so one compressor serves
+	// them all (a new one per member allocates about a megabyte).
+	var fw *flate.Writer
 	zw.RegisterCompressor(zip.Deflate, func(out io.Writer) (io.WriteCloser, error) {
-		return flate.NewWriter(out, flate.BestSpeed)
+		if fw == nil {
+			var err error
+			fw, err = flate.NewWriter(out, flate.BestSpeed)
+			return fw, err
+		}
+		fw.Reset(out)
+		return fw, nil
 	})
 	g := f.Grid
 	single := f.single()
