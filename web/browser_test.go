@@ -16,6 +16,7 @@ package web_test
 import (
 	"bytes"
 	"context"
+	"encoding/base64"
 	"encoding/json"
 	"errors"
 	"fmt"
@@ -72,6 +73,9 @@ func TestBrowserPreview(t *testing.T) {
 
 	b.step("colour maps against CIELAB and CIEDE2000 (scikit-image)")
 	checkColourMaps(b)
+
+	b.step("the image check's preview of a 64-megapixel frame decodes in the browser")
+	checkLargePreview(b)
 
 	b.step("run the demo")
 	b.run("click the demo button", chromedp.Click(chromedp.ID("btn-demo")))
@@ -1291,4 +1295,33 @@ func tail(s string, n int) string {
 		return "…" + s[len(s)-n:]
 	}
 	return s
+}
+
+// checkLargePreview has the page decode the image check's preview of a
+// 64-megapixel (8000 × 8000 px) 16-bit frame, as app.js does with the
+// service's answer (createImageBitmap of the PNG), and checks that the
+// browser reads a bitmap of at most service.PreviewMaxPx a side.
+func checkLargePreview(b *browser) {
+	t := b.t
+	t.Helper()
+	g := imageio.NewGray(8000, 8000)
+	g.Bits = 16
+	for y := 0; y < g.H; y++ {
+		for x := 0; x < g.W; x++ {
+			g.Pix[y*g.Stride+x] = float32(1000 + 2000*((x/16+y/16)%2))
+		}
+	}
+	png, w, h, err := service.PreviewPNG(g, 1000, 3000)
+	if err != nil {
+		t.Fatal(err)
+	}
+	js := fmt.Sprintf(`fetch("data:image/png;base64,%s").then(r => r.blob()).then(createImageBitmap).then(bm => [bm.width, bm.height])`,
+		base64.StdEncoding.EncodeToString(png))
+	got, err := chromedp.Run(b.ctx, chromedp.Evaluate[[]int](js, chromedp.EvalAwaitPromise))
+	if err != nil {
+		t.Fatalf("the browser does not decode the preview: %v", err)
+	}
+	if len(got) != 2 || got[0] != w || got[1] != h || max(w, h) > service.PreviewMaxPx {
+		t.Errorf("the browser decodes the 64 Mpx preview as %v, want %d×%d within %d px", got, w, h, service.PreviewMaxPx)
+	}
 }

@@ -248,6 +248,10 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return fmt.Errorf("deformed image: %w", limitHint(err, lim.MaxPixels))
 	}
+	orient, err := orientPair(e.stdout, &r, &d, *def)
+	if err != nil {
+		return err
+	}
 	job := analysis.Job{Ref: r, Def: d, RefName: *ref, DefName: *def, Params: p}
 	if *maskFile != "" {
 		if job.Mask, err = imageio.ReadFile(*maskFile, lim); err != nil {
@@ -274,6 +278,9 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	recordSources(res.Field, *ref, *def)
+	if !orient.Upright() {
+		res.Field.Meta.Extra["orientation"] = orient.Meta()
+	}
 	src, err := sources(set, r, d, *ref, *def)
 	if err != nil {
 		return err

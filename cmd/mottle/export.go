@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"io"
 	"os"
 	"path/filepath"
 	"strings"
@@ -76,6 +77,14 @@ func backgroundFile(dir string, f *field.Field, deformed bool) (*imageio.Gray, [
 	g, err := imageio.ReadFile(path, lim)
 	if err != nil {
 		return nil, nil, fmt.Errorf("background image: %w", err)
+	}
+	if o := recordedOrientation(f); !o.Upright() {
+		// The field was measured on the image turned upright: draw
+		// over the same turn (and not over the file's own bytes).
+		if g, err = imageio.Orient(g, o); err != nil {
+			return nil, nil, fmt.Errorf("background image: %w", err)
+		}
+		return g, nil, nil
 	}
 	var raw []byte
 	if strings.EqualFold(filepath.Ext(path), ".png") {
@@ -154,4 +163,40 @@ func runExport(ctx context.Context, e *env, args []string) error {
 		fmt.Fprintf(e.stdout, "wrote %s\n", p)
 	}
 	return err
+}
+
+// orientPair turns the reference *r and the deformed image *d upright by
+// the reference's EXIF orientation (imageio.OrientSeries: the camera did
+// not turn between the two) and says so on w; it returns the orientation
+// applied.
+func orientPair(w io.Writer, r, d **imageio.Gray, defName string) (imageio.Orientation, error) {
+	o, imgs, differ, err := imageio.OrientSeries(*r, *d)
+	if err != nil {
+		return o, fmt.Errorf("orientation: %w", err)
+	}
+	own := (*d).Orientation
+	*r, *d = imgs[0], imgs[1]
+	if !o.Upright() {
+		fmt.Fprintf(w, "orientation: the reference's EXIF orientation %d (%s) applied to both images\n", int(o), o)
+	}
+	if len(differ) > 0 {
+		fmt.Fprintf(w, "orientation: %s carries EXIF orientation %d, the reference %d; the reference's is used (the camera is taken not to have turned)\n", defName, int(own), int(o))
+	}
+	return o, nil
+}
+
+// recordedOrientation returns the EXIF orientation a result was measured
+// under (field.json's extra "orientation"), 0 when none was applied.
+func recordedOrientation(f *field.Field) imageio.Orientation {
+	m, ok := f.Meta.Extra["orientation"].(map[string]any)
+	if !ok {
+		return 0
+	}
+	switch v := m["exif"].(type) {
+	case float64:
+		return imageio.Orientation(v)
+	case int:
+		return imageio.Orientation(v)
+	}
+	return 0
 }

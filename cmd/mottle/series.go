@@ -260,6 +260,29 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return limitHint(err, lim.MaxPixels)
 	}
+	// Every frame is turned by the reference's EXIF orientation: the
+	// camera is on a fixture and does not turn during the test.
+	orient := refImg.Orientation
+	if refImg, err = imageio.Orient(refImg, orient); err != nil {
+		return fmt.Errorf("reference %s: %w", *ref, err)
+	}
+	if !orient.Upright() {
+		fmt.Fprintf(e.stdout, "orientation: the reference's EXIF orientation %d (%s) applied to every frame\n", int(orient), orient)
+	}
+	readFrame := func(path string) (*imageio.Gray, error) {
+		g, err := imageio.ReadFile(path, lim)
+		if err != nil {
+			return nil, limitHint(err, lim.MaxPixels)
+		}
+		if g.Orientation != orient && !(g.Orientation.Upright() && orient.Upright()) {
+			fmt.Fprintf(e.stdout, "orientation: %s carries EXIF orientation %d, the reference %d; the reference's is used\n", filepath.Base(path), int(g.Orientation), int(orient))
+		}
+		t, err := imageio.Orient(g, orient)
+		if err != nil {
+			return nil, fmt.Errorf("frame %s: %w", path, err)
+		}
+		return t, nil
+	}
 	if err := p.Validate(refImg.W, refImg.H); err != nil {
 		return err
 	}
@@ -307,8 +330,8 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		}
 		var last *imageio.Gray
 		if done > 0 {
-			if last, err = imageio.ReadFile(frames[done-1], lim); err != nil {
-				return limitHint(err, lim.MaxPixels)
+			if last, err = readFrame(frames[done-1]); err != nil {
+				return err
 			}
 		}
 		if tr, err = series.Restore(refImg, last, st); err != nil {
@@ -352,12 +375,13 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	var runErr error
 	for i := first; i < len(frames); i++ {
 		pr.show(i, len(frames), metas[i+1].Name)
-		img, err := imageio.ReadFile(frames[i], lim)
+		img, err := readFrame(frames[i])
 		if err != nil {
-			runErr = limitHint(err, lim.MaxPixels)
+			runErr = err
 			break
 		}
 		meta := metas[i+1]
+		meta.Orientation = orient
 		meta.Progress = func(done, total int) {
 			pr.show(i, len(frames), fmt.Sprintf("%s %d/%d points", metas[i+1].Name, done, total))
 		}

@@ -107,6 +107,10 @@ func sniff(head []byte) string {
 // ignored. 16-bit samples keep their full precision (float32 holds every
 // integer up to 2²⁴ exactly).
 //
+// A JPEG's EXIF orientation is read into Gray.Orientation; the pixels are
+// left as stored (see Orient), so that every frame of a series can be
+// turned by the orientation of its reference.
+//
 // Errors wrap ErrFormat (not an image format Mottle reads), ErrCorrupt
 // (truncated or damaged data), ErrTooLarge or ErrTooSmall (empty image).
 func Decode(r io.Reader, lim Limits) (*Gray, error) {
@@ -140,6 +144,12 @@ func Decode(r io.Reader, lim Limits) (*Gray, error) {
 		return nil, fmt.Errorf("%w: %s header declares %d×%d = %d px, over the limit of %d px; "+
 			"crop or bin the image, or raise the pixel limit", ErrTooLarge, format, cfg.Width, cfg.Height, px, lim.MaxPixels)
 	}
+	var orient Orientation
+	if format == "jpeg" {
+		// DecodeConfig read the marker segments up to the frame header,
+		// which is where a camera puts its APP1 EXIF segment.
+		orient = exifOrientation(head.Bytes())
+	}
 	img, _, err := image.Decode(io.MultiReader(&head, cr))
 	if cr.over() {
 		return nil, cr.err()
@@ -152,7 +162,9 @@ func Decode(r io.Reader, lim Limits) (*Gray, error) {
 		return nil, fmt.Errorf("%w: %s header declares %d×%d px but the data holds %d×%d",
 			ErrCorrupt, format, cfg.Width, cfg.Height, b.Dx(), b.Dy())
 	}
-	return FromImage(img), nil
+	g := FromImage(img)
+	g.Orientation = orient
+	return g, nil
 }
 
 func decodeErr(err error, what string) error {

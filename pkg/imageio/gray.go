@@ -13,6 +13,10 @@ type Gray struct {
 	// Bits is the bit depth of the source samples (8, 12 or 16), or 0 when
 	// the image was computed rather than decoded.
 	Bits int
+	// Orientation is the EXIF orientation of the source file (camera
+	// JPEGs; 0 when it carries none). Decode reads it and leaves the pixels
+	// as stored; Orient applies it.
+	Orientation Orientation
 }
 
 // NewGray returns a zeroed w×h image with Stride w.

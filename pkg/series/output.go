@@ -49,6 +49,9 @@ func FrameField(fr *Frame, p Params, ref string, meta FrameMeta, w, h int) (*fie
 	if meta.Time != nil {
 		f.Meta.Extra["time_s"] = *meta.Time
 	}
+	if !meta.Orientation.Upright() {
+		f.Meta.Extra["orientation"] = meta.Orientation.Meta()
+	}
 	if meta.Load != nil {
 		f.Meta.Extra["load_N"] = *meta.Load
 	}

@@ -56,6 +56,7 @@ import (
 	"math"
 
 	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/results"
 )
 
@@ -155,6 +156,10 @@ type FrameMeta struct {
 	Name string   `json:"name,omitempty"`
 	Time *float64 `json:"time_s,omitempty"`
 	Load *float64 `json:"load_N,omitempty"`
+	// Orientation is the EXIF orientation the frame was turned by (the
+	// reference's, see imageio.OrientSeries); results record it when the
+	// frame was not used as stored.
+	Orientation imageio.Orientation `json:"orientation,omitempty"`
 	// Progress, if not nil, is called by Add from the calling goroutine
 	// with the number of point correlations done and the number known so
 	// far. A frame can take several passes (direct, then incremental, then

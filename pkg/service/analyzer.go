@@ -34,6 +34,9 @@ type Input struct {
 	// intersected with Params.ROI.
 	Mask   *imageio.Gray
 	Params analysis.Params
+	// Orientation is the EXIF orientation Ref and Def were turned by (the
+	// reference's); results record it when it is not upright.
+	Orientation imageio.Orientation
 	// Formats are the result formats to write (results.ParseFormats); ""
 	// means the service's default, the stored result alone.
 	Formats string
@@ -71,6 +74,9 @@ type FrameInput struct {
 	// Ref is the series reference; Last the last frame added before this
 	// one (nil for the first frame); Def the frame itself.
 	Ref, Last, Def *imageio.Gray
+	// Orientation is the EXIF orientation the images were turned by (the
+	// series reference's).
+	Orientation imageio.Orientation
 	// Params is the series' stored parameter document.
 	Params json.RawMessage
 	// State is the engine state after Last, nil for the first frame.

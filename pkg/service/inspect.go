@@ -6,11 +6,16 @@ import (
 	"encoding/base64"
 	"errors"
 	"fmt"
+	"image"
+	"image/draw"
+	"image/png"
 	"math"
 	"mime"
 	"net/http"
 	"strconv"
 	"strings"
+
+	"github.com/disintegration/imaging"
 
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -49,10 +54,20 @@ type Inspection struct {
 	// says why.
 	Recommendation      *quality.Recommendation `json:"recommendation,omitempty"`
 	RecommendationError string                  `json:"recommendation_error,omitempty"`
-	// PreviewPNG is a data URL of an 8-bit grey PNG of the whole image at
-	// full size, its grey range stretched from min → 0 to max → 255.
+	// PreviewPNG is a data URL of an 8-bit grey PNG of the whole image,
+	// its grey range stretched from min → 0 to max → 255, at full size up
+	// to PreviewMaxPx on the long side and reduced to fit it beyond (see
+	// preview). It is a display copy: analyses read the file itself.
 	PreviewPNG string `json:"preview_png"`
+	// PreviewWidth and PreviewHeight are the preview's size in px.
+	PreviewWidth  int `json:"preview_width"`
+	PreviewHeight int `json:"preview_height"`
 }
+
+// PreviewMaxPx bounds the long side of the image check's preview: a
+// 64-megapixel frame becomes a PNG of at most 1600 px a side that any
+// browser decodes at once, instead of a full-size data URL of tens of MB.
+const PreviewMaxPx = 1600
 
 // GreyStats are grey-level statistics of an image; Std is the population
 // standard deviation.
@@ -143,12 +158,51 @@ func inspectImage(g *imageio.Gray) (*Inspection, error) {
 		res.SpeckleSizePx = &sz
 		res.Advice = advise(sz)
 	}
-	var buf bytes.Buffer
-	if err := imageio.WritePNG(&buf, stretched(g, lo, hi), 8); err != nil {
-		return nil, fmt.Errorf("encode the preview of the %d×%d px image: %w", g.W, g.H, err)
+	b, w, h, err := PreviewPNG(g, lo, hi)
+	if err != nil {
+		return nil, err
 	}
-	res.PreviewPNG = "data:image/png;base64," + base64.StdEncoding.EncodeToString(buf.Bytes())
+	res.PreviewPNG = "data:image/png;base64," + base64.StdEncoding.EncodeToString(b)
+	res.PreviewWidth, res.PreviewHeight = w, h
 	return res, nil
+}
+
+// PreviewPNG encodes the image check's display copy of g (see preview)
+// as an 8-bit grey PNG, with g's grey range lo…hi stretched to 0…255 and
+// the long side at most PreviewMaxPx; it returns the PNG and its size.
+func PreviewPNG(g *imageio.Gray, lo, hi float64) ([]byte, int, int, error) {
+	p := preview(g, lo, hi, PreviewMaxPx)
+	var buf bytes.Buffer
+	if err := (&png.Encoder{CompressionLevel: png.BestSpeed}).Encode(&buf, p); err != nil {
+		return nil, 0, 0, fmt.Errorf("encode the preview of the %d×%d px image: %w", g.W, g.H, err)
+	}
+	return buf.Bytes(), p.Rect.Dx(), p.Rect.Dy(), nil
+}
+
+// preview returns the 8-bit display copy of g, its grey range lo…hi
+// stretched to 0…255, reduced with imaging's box filter (each preview
+// pixel the mean of the image pixels it covers, so speckle does not
+// alias into false texture) when the long side exceeds maxPx. Only the
+// display uses it; nothing measured is resampled.
+func preview(g *imageio.Gray, lo, hi float64, maxPx int) *image.Gray {
+	m := image.NewGray(image.Rect(0, 0, g.W, g.H))
+	scale := 0.0
+	if hi > lo {
+		scale = 255 / (hi - lo)
+	}
+	for y := 0; y < g.H; y++ {
+		src, dst := g.Pix[y*g.Stride:y*g.Stride+g.W], m.Pix[y*m.Stride:y*m.Stride+g.W]
+		for x, v := range src {
+			dst[x] = uint8(min(255, max(0, math.Round((float64(v)-lo)*scale))))
+		}
+	}
+	if max(g.W, g.H) <= maxPx {
+		return m
+	}
+	t := imaging.Fit(m, maxPx, maxPx, imaging.Box)
+	out := image.NewGray(t.Bounds())
+	draw.Draw(out, out.Rect, t, t.Bounds().Min, draw.Src) // imaging answers NRGBA; the preview stays one channel
+	return out
 }
 
 // stretched returns g with its grey range lo…hi mapped to 0…255, so that

@@ -204,3 +204,63 @@ func TestInspectAuth(t *testing.T) {
 		t.Errorf("with the token: %d %s, want 200", resp.StatusCode, b)
 	}
 }
+
+// TestPreviewOf64Megapixels: the image check's preview of a 64-megapixel
+// frame (8000 × 8000 px, a machine-vision camera's full sensor) is a
+// display copy of at most PreviewMaxPx = 1600 px on its long side that
+// decodes as an 8-bit grey PNG, keeps the aspect ratio, and is the box
+// mean of the stretched image (imaging.Box: each preview pixel the mean
+// of the 5 × 5 image pixels it covers). A 4000 × 1000 image keeps its 4:1
+// shape, and one at the bound is not reduced.
+func TestPreviewOf64Megapixels(t *testing.T) {
+	cases := []struct{ w, h, pw, ph int }{
+		{8000, 8000, 1600, 1600},
+		{4000, 1000, 1600, 400},
+		{1600, 900, 1600, 900},
+	}
+	for _, c := range cases {
+		g := imageio.NewGray(c.w, c.h)
+		g.Bits = 16
+		// 5 px squares alternating 1000 and 3000: the box mean over each
+		// 5 × 5 block of the 8000 px case is the square's own level.
+		for y := 0; y < c.h; y++ {
+			for x := 0; x < c.w; x++ {
+				if (x/5+y/5)%2 == 0 {
+					g.Pix[y*g.Stride+x] = 1000
+				} else {
+					g.Pix[y*g.Stride+x] = 3000
+				}
+			}
+		}
+		b, pw, ph, err := service.PreviewPNG(g, 1000, 3000)
+		if err != nil {
+			t.Fatal(err)
+		}
+		img, err := png.Decode(bytes.NewReader(b))
+		if err != nil {
+			t.Fatalf("%d×%d: the preview does not decode: %v", c.w, c.h, err)
+		}
+		pg, ok := img.(*image.Gray)
+		if !ok {
+			t.Fatalf("%d×%d: preview is %T, want 8-bit grey", c.w, c.h, img)
+		}
+		if r := pg.Bounds(); r.Dx() != c.pw || r.Dy() != c.ph || pw != c.pw || ph != c.ph {
+			t.Fatalf("%d×%d: preview %v (reported %d×%d), want %d×%d", c.w, c.h, r, pw, ph, c.pw, c.ph)
+		}
+		if max(pw, ph) > service.PreviewMaxPx {
+			t.Fatalf("%d×%d: preview long side %d > %d", c.w, c.h, max(pw, ph), service.PreviewMaxPx)
+		}
+		if c.w == 8000 {
+			for _, p := range [][2]int{{0, 0}, {1, 0}, {0, 1}, {800, 801}, {1599, 1599}} {
+				want := uint8(0)
+				if (p[0]+p[1])%2 == 1 {
+					want = 255
+				}
+				if v := pg.GrayAt(p[0], p[1]).Y; int(v)-int(want) > 1 || int(want)-int(v) > 1 {
+					t.Errorf("preview pixel %v = %d, the box mean of its 5 × 5 square is %d", p, v, want)
+				}
+			}
+			t.Logf("64 Mpx preview: %d×%d px, %d kB of PNG", pw, ph, len(b)/1024)
+		}
+	}
+}

@@ -34,6 +34,12 @@ func (Pipeline) Run(ctx context.Context, in Input, progress func(done, total int
 	if err != nil {
 		return nil, err
 	}
+	if !in.Orientation.Upright() {
+		if out.Field.Meta.Extra == nil {
+			out.Field.Meta.Extra = map[string]any{}
+		}
+		out.Field.Meta.Extra["orientation"] = in.Orientation.Meta()
+	}
 	res, err := EncodeFormats(out.Field, in.Formats)
 	if err != nil {
 		return nil, err
@@ -257,7 +263,7 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
-	meta := series.FrameMeta{Name: in.Name, Time: in.Time, Load: in.Load, Progress: in.Progress}
+	meta := series.FrameMeta{Name: in.Name, Time: in.Time, Load: in.Load, Progress: in.Progress, Orientation: in.Orientation}
 	fr, err := tr.Add(ctx, in.Def, meta)
 	meta.Progress = nil
 	if err != nil {

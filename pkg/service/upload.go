@@ -166,7 +166,7 @@ func (s *Server) decode(field string, b []byte) (*imageio.Gray, error) {
 		p.Detail = field + ": " + p.Detail
 		return nil, p
 	}
-	return g, nil
+	return upright(field, g, g.Orientation)
 }
 
 func bodyErr(err error, field string) error {

@@ -355,7 +355,8 @@ func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 	if in.Ref, err = s.loadImage(ctx, jobs.SeriesKey(j.Series, "reference")); err != nil {
 		return nil, err
 	}
-	if in.Def, err = s.loadImage(ctx, jobs.InputKey(j.ID, "deformed")); err != nil {
+	in.Orientation = in.Ref.Orientation
+	if in.Def, err = s.loadImageAs(ctx, jobs.InputKey(j.ID, "deformed"), in.Orientation); err != nil {
 		return nil, err
 	}
 	last, err := s.lastDone(ctx, j)
@@ -372,7 +373,7 @@ func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 		if in.State, err = s.readBlob(ctx, stateKey(j.Series, last.FrameIndex)); err != nil {
 			return nil, fmt.Errorf("series state after frame %d: %w; the series cannot continue, start a new series", last.FrameIndex, err)
 		}
-		if in.Last, err = s.loadImage(ctx, jobs.InputKey(last.ID, "deformed")); err != nil {
+		if in.Last, err = s.loadImageAs(ctx, jobs.InputKey(last.ID, "deformed"), in.Orientation); err != nil {
 			return nil, err
 		}
 	}
@@ -410,7 +411,8 @@ func (s *Server) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 	if in.Ref, err = s.loadImage(ctx, refKey); err != nil {
 		return nil, err
 	}
-	if in.Def, err = s.loadImage(ctx, jobs.InputKey(j.ID, "deformed")); err != nil {
+	in.Orientation = in.Ref.Orientation
+	if in.Def, err = s.loadImageAs(ctx, jobs.InputKey(j.ID, "deformed"), in.Orientation); err != nil {
 		return nil, err
 	}
 	if j.HasMask {
@@ -421,8 +423,30 @@ func (s *Server) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 	return s.cfg.Analyzer.Run(ctx, in, progress)
 }
 
-// loadImage decodes the stored image under key.
+// loadImage decodes the stored image under key, turned upright by its own
+// EXIF orientation (see upright).
 func (s *Server) loadImage(ctx context.Context, key string) (*imageio.Gray, error) {
+	g, err := s.loadStored(ctx, key)
+	if err != nil {
+		return nil, err
+	}
+	return upright(key, g, g.Orientation)
+}
+
+// loadImageAs decodes the stored image under key turned by o, the
+// orientation of its series or pair reference: the camera does not turn
+// during a test, so every frame takes the reference's turn whatever its
+// own tag says (imageio.OrientSeries).
+func (s *Server) loadImageAs(ctx context.Context, key string, o imageio.Orientation) (*imageio.Gray, error) {
+	g, err := s.loadStored(ctx, key)
+	if err != nil {
+		return nil, err
+	}
+	return upright(key, g, o)
+}
+
+// loadStored decodes the stored image under key as stored.
+func (s *Server) loadStored(ctx context.Context, key string) (*imageio.Gray, error) {
 	rc, err := s.blobs.Get(ctx, key)
 	if err != nil {
 		return nil, fmt.Errorf("stored image: %w", err)
@@ -433,6 +457,17 @@ func (s *Server) loadImage(ctx context.Context, key string) (*imageio.Gray, erro
 		return nil, fmt.Errorf("stored image %s: %w", key, err)
 	}
 	return g, nil
+}
+
+// upright turns g by the EXIF orientation o (an exact permutation of the
+// pixels, imageio.Orient), so that the service, like a browser, sees a
+// camera JPEG the way the camera meant it; what names g in errors.
+func upright(what string, g *imageio.Gray, o imageio.Orientation) (*imageio.Gray, error) {
+	t, err := imageio.Orient(g, o)
+	if err != nil {
+		return nil, asProblem(fmt.Errorf("%s: %w", what, err), what)
+	}
+	return t, nil
 }
 
 func (s *Server) limits() imageio.Limits {

@@ -1,7 +1,13 @@
 package verify
 
 import (
+	"encoding/csv"
+	"errors"
 	"math"
+	"os"
+	"path/filepath"
+	"strconv"
+	"strings"
 	"testing"
 )
 
@@ -65,5 +71,45 @@ func TestAttenuationErrors(t *testing.T) {
 	}
 	if _, err := TheoryPeriod(11, 1, 1.5); err == nil {
 		t.Error("TheoryPeriod level 1.5: no error")
+	}
+}
+
+// TestTheoryPeriodTable checks TheoryPeriod against the protocol's expected
+// table in testdata/protocol/resolution_p10.csv: the same p₁₀ computed
+// independently with NumPy's least squares and SciPy's brentq
+// (scripts/ref_resolution.py, Debian's python3-numpy and -scipy), for
+// first- and second-order subsets of 11–101 px.
+func TestTheoryPeriodTable(t *testing.T) {
+	f, err := os.Open(filepath.Join("..", "..", "testdata", "protocol", "resolution_p10.csv"))
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer f.Close()
+	r := csv.NewReader(f)
+	r.Comment = '#'
+	rows, err := r.ReadAll()
+	if err != nil {
+		t.Fatalf("resolution_p10.csv: %v", err)
+	}
+	if len(rows) < 2 || strings.Join(rows[0], ",") != "subset_px,order,p10_px" {
+		t.Fatalf("resolution_p10.csv: header %v", rows[:1])
+	}
+	for _, row := range rows[1:] {
+		n, err1 := strconv.Atoi(row[0])
+		order, err2 := strconv.Atoi(row[1])
+		want, err3 := strconv.ParseFloat(row[2], 64)
+		if err := errors.Join(err1, err2, err3); err != nil {
+			t.Fatalf("resolution_p10.csv row %v: %v", row, err)
+		}
+		got, err := TheoryPeriod(n, order, 0.9)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if math.Abs(got-want) > 1e-6*want {
+			t.Errorf("subset %d, order %d: p₁₀ %.8g px, NumPy/SciPy %.8g px", n, order, got, want)
+		}
+	}
+	if len(rows) != 13 {
+		t.Errorf("resolution_p10.csv has %d rows, want 12 and the header", len(rows))
 	}
 }

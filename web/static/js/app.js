@@ -143,8 +143,12 @@ async function setFile(role, file) {
     }).catch(() => { if (seq === state.fileSeq[role]) { state.check[role] = { failed: true }; updateQuality(); } });
   }
   updateQuality();
+  // The service's preview of a large image is a bounded-size display copy
+  // (at most preview_max_px on its long side); the image itself keeps its
+  // size, which is what the ROI editor and the analysis use.
+  const W = insp ? insp.width : bm && bm.width, H = insp ? insp.height : bm && bm.height;
   if (role === 'reference') {
-    state.size = bm ? [bm.width, bm.height] : null;
+    state.size = bm ? [W, H] : null;
     $('roi-placeholder').hidden = !!bm;
     if (insp) {
       state.speckle = insp.speckle_size_px ?? null;
@@ -156,7 +160,7 @@ async function setFile(role, file) {
       state.speckleSource = 'browser';
       state.speckleError = '';
     } else { state.speckle = null; state.speckleSource = ''; state.speckleError = ''; }
-    if (bm) editor.setImage(bm, bm.width, bm.height, $('roi-wrap').clientWidth || 640);
+    if (bm) editor.setImage(bm, W, H, $('roi-wrap').clientWidth || 640);
     updateAdvice();
   }
   if (failure) {
@@ -170,7 +174,7 @@ async function setFile(role, file) {
     } });
     return;
   }
-  info.textContent = `${kB}, ${bm.width} × ${bm.height} px` + (insp ? `, ${insp.bits}-bit, grey ${fmt(insp.grey.min)}–${fmt(insp.grey.max)}; preview stretched to full contrast by the service` : '');
+  info.textContent = `${kB}, ${W} × ${H} px` + (insp ? `, ${insp.bits}-bit, grey ${fmt(insp.grey.min)}–${fmt(insp.grey.max)}; preview stretched to full contrast by the service` + (bm.width !== W ? ` and reduced to ${bm.width} × ${bm.height} px for display` : '') : '');
 }
 
 function wireDrop(role) {
