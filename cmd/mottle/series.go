@@ -2,6 +2,7 @@ package main
 
 import (
 	"context"
+	"encoding/csv"
 	"encoding/json"
 	"errors"
 	"flag"
@@ -52,7 +53,7 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 			"a results folder per frame, curve.csv/json, curve plots, state.json and report.html.")
 	var (
 		ref        = fs.String("ref", "", "reference image (default: the first frame)")
-		out        = fs.String("out", "series_results", "output folder")
+		outDir     = fs.String("out", "series_results", "output folder")
 		paramsFile = fs.String("params", "", "series parameters as JSON (flags below override it)")
 		subset     = fs.Int("subset", 0, "subset side in px, odd (default 31)")
 		step       = fs.Int("step", 0, "grid step in px (default 8)")
@@ -85,6 +86,8 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		formats    = fs.String("formats", series.FrameFormats, "result formats of each frame's folder, comma-separated (see mottle analyze --help); more later with mottle export")
 		mapEvery   = fs.Int("map-every", 0, "draw maps every N frames (default: about five frames spread over the series, and the last)")
 		resume     = fs.Bool("resume", false, "continue a series stopped earlier, from <out>/state.json (its parameters are used)")
+		live       = fs.Bool("live", false, "live mode: print each frame's extensometer and gauge values as a CSV line on stdout as soon as they exist (only the points they need are correlated), while the full field of each frame is computed behind and the folder results written as usual")
+		liveJump   = fs.Float64("live-max-jump", 0, "with --live: a strain change from the last trusted value larger than this marks a reading untrusted (default 0.05; negative = no check)")
 		exts, gs   listFlag
 	)
 	fs.Var(&exts, "ext", "virtual extensometer name:xA,yA,xB,yB (repeatable)")
@@ -306,12 +309,16 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 
-	if err := os.MkdirAll(filepath.Join(*out, "frames"), 0o755); err != nil {
+	if err := os.MkdirAll(filepath.Join(*outDir, "frames"), 0o755); err != nil {
 		return err
 	}
-	statePath := filepath.Join(*out, "state.json")
+	statePath := filepath.Join(*outDir, "state.json")
 	var tr *series.Tracker
+	var lv *series.Live
 	first := 0
+	if *live && *resume {
+		return fmt.Errorf("--live with --resume: a live run starts from the reference; leave one out")
+	}
 	if *resume {
 		if *maskFile != "" {
 			return fmt.Errorf("--mask with --resume: the saved state already holds the series' mask; leave --mask out")
@@ -345,7 +352,12 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 				return fmt.Errorf("--mask: %w", err)
 			}
 		}
-		if tr, err = series.NewWith(refImg, metas[0], p, opt); err != nil {
+		if *live {
+			if lv, err = series.NewLive(refImg, metas[0], p, opt, series.LiveOptions{MaxJump: *liveJump}); err != nil {
+				return err
+			}
+			tr = lv.Tracker()
+		} else if tr, err = series.NewWith(refImg, metas[0], p, opt); err != nil {
 			return err
 		}
 		if err := writeState(statePath, tr); err != nil {
@@ -373,7 +385,23 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	pr.done0 = first
 	var reportMaps []series.ReportMap
 	var runErr error
+	var (
+		todo    <-chan int
+		liveErr <-chan error
+	)
+	liveCtx, stopLive := context.WithCancel(ctx)
+	defer stopLive()
+	if lv != nil {
+		todo, liveErr = liveFrames(liveCtx, e, lv, frames, metas, lim)
+	}
 	for i := first; i < len(frames); i++ {
+		if todo != nil {
+			n, ok := <-todo
+			if !ok {
+				break
+			}
+			i = n
+		}
 		pr.show(i, len(frames), metas[i+1].Name)
 		img, err := readFrame(frames[i])
 		if err != nil {
@@ -385,12 +413,17 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		meta.Progress = func(done, total int) {
 			pr.show(i, len(frames), fmt.Sprintf("%s %d/%d points", metas[i+1].Name, done, total))
 		}
-		fr, err := tr.Add(ctx, img, meta)
+		var fr *series.Frame
+		if lv != nil {
+			fr, err = lv.FullField(ctx, i+1, img)
+		} else {
+			fr, err = tr.Add(ctx, img, meta)
+		}
 		if err != nil {
 			runErr = err
 			break
 		}
-		dir := filepath.Join(*out, "frames", fmt.Sprintf("%04d", i+1))
+		dir := filepath.Join(*outDir, "frames", fmt.Sprintf("%04d", i+1))
 		var mq []string
 		if (i+1)%every == 0 || i == len(frames)-1 {
 			mq = quantities
@@ -411,19 +444,29 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	}
 	pr.show(tr.Len(), len(frames), "")
 	pr.done()
-
+	out := e.stdout
 	c := tr.Curve()
+	if lv != nil {
+		if runErr != nil {
+			stopLive()
+		}
+		if err := <-liveErr; err != nil && runErr == nil {
+			runErr = err
+		}
+		// stdout holds the live CSV lines only.
+		out, c = e.stderr, lv.Curve()
+	}
 	if noise != nil && c.Noise == nil {
 		c.Noise = noise
 	}
-	if err := writeSeriesOutputs(*out, c, reportMaps); err != nil {
+	if err := writeSeriesOutputs(*outDir, c, reportMaps); err != nil {
 		return errors.Join(runErr, err)
 	}
 	if runErr != nil {
 		if ctx.Err() != nil {
-			return fmt.Errorf("stopped after %d of %d frames; finished frames and the report are in %s (continue with --resume)", tr.Len(), len(frames), *out)
+			return fmt.Errorf("stopped after %d of %d frames; finished frames and the report are in %s (continue with --resume)", tr.Len(), len(frames), *outDir)
 		}
-		return fmt.Errorf("after %d of %d frames: %w (finished frames kept in %s)", tr.Len(), len(frames), runErr, *out)
+		return fmt.Errorf("after %d of %d frames: %w (finished frames kept in %s)", tr.Len(), len(frames), runErr, *outDir)
 	}
 	m := c.Modes()
 	returned, reacq := 0, 0
@@ -437,15 +480,65 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	if returned > 0 || reacq > 0 {
 		extra = fmt.Sprintf(" (%d returned to direct, %d points re-acquired)", returned, reacq)
 	}
-	fmt.Fprintf(e.stdout, "%d frames: %d direct, %d incremental%s. Results in %s (report.html).\n",
-		tr.Len(), len(m[series.ModeDirect]), len(m[series.ModeIncremental]), extra, *out)
-	printFlagged(e.stdout, c)
+	fmt.Fprintf(out, "%d frames: %d direct, %d incremental%s. Results in %s (report.html).\n",
+		tr.Len(), len(m[series.ModeDirect]), len(m[series.ModeIncremental]), extra, *outDir)
+	printFlagged(out, c)
 	props := c.Properties()
 	for _, l := range props.Lines() {
-		fmt.Fprintf(e.stdout, "  %s: %s\n", l[0], l[1])
+		fmt.Fprintf(out, "  %s: %s\n", l[0], l[1])
 	}
-	printSkipped(e.stdout, props.Skipped)
+	printSkipped(out, props.Skipped)
 	return nil
+}
+
+// liveFrames runs the live path of --live on its own goroutine: each
+// frame is read and its live values printed on stdout as a CSV line (a
+// header first), and its index is then sent on the channel for the full
+// field. The error channel gets one value (nil when every frame was done)
+// when it ends; the index channel is closed.
+func liveFrames(ctx context.Context, e *env, lv *series.Live, frames []string, metas []series.FrameMeta, lim imageio.Limits) (<-chan int, <-chan error) {
+	todo := make(chan int, len(frames))
+	errc := make(chan error, 1)
+	go func() {
+		defer close(todo)
+		w := csv.NewWriter(e.stdout)
+		write := func(rec []string) error {
+			if err := w.Write(rec); err != nil {
+				return err
+			}
+			w.Flush()
+			return w.Error()
+		}
+		if err := write(series.LiveCSVHeader(lv.Params())); err != nil {
+			errc <- fmt.Errorf("live output: %w", err)
+			return
+		}
+		for i, f := range frames {
+			img, err := imageio.ReadFile(f, lim)
+			if err != nil {
+				errc <- limitHint(err, lim.MaxPixels)
+				return
+			}
+			if err := ctx.Err(); err != nil {
+				errc <- err
+				return
+			}
+			v, err := lv.Frame(ctx, img, metas[i+1])
+			if err != nil {
+				errc <- err
+				return
+			}
+			if err := write(v.CSVRecord()); err != nil {
+				errc <- fmt.Errorf("live output: %w", err)
+				return
+			}
+			if v.Full {
+				todo <- i
+			}
+		}
+		errc <- nil
+	}()
+	return todo, errc
 }
 
 // skipHints names the flag that supplies what a skipped property lacks.

@@ -3,10 +3,12 @@ package main
 import (
 	"bytes"
 	"context"
+	"encoding/csv"
 	"encoding/json"
 	"math"
 	"os"
 	"path/filepath"
+	"strconv"
 	"strings"
 	"testing"
 
@@ -138,5 +140,64 @@ func TestSeriesCommandMask(t *testing.T) {
 	// E11 of F11 = 1.02 is ½(1.02² − 1) = 0.0202 (Green–Lagrange).
 	if g := last.Gauges[0]; g.N == 0 || math.Abs(g.Mean-0.0202) > 2e-4 {
 		t.Errorf("gauge %s %s = %g over %d points, want 0.0202", g.Gauge, g.Component, g.Mean, g.N)
+	}
+}
+
+// TestSeriesCommandLive runs the series of TestSeriesCommand with --live:
+// stdout holds a CSV header and one line per frame, in order, each with the
+// extensometer strain (the rendered 2 % stretch scaled by the frame's
+// load, within 5e-4, the two-point tolerance of the series tests), and the
+// folder's curve.csv is the one a run without --live writes.
+func TestSeriesCommandLive(t *testing.T) {
+	dir := t.TempDir()
+	if code, _, errs := runSynthArgs(t, "--out", dir, "--size", "128x96", "--motion", "affine:F11=1.02,F22=0.994",
+		"--frames", "4", "--full-load", "600", "--bits", "16"); code != 0 {
+		t.Fatalf("synth: exit %d: %s", code, errs)
+	}
+	csvText := "frame,time_s,load_N\n0,0,0\n1,1,150\n2,2,300\n3,3,450\n4,4,600\n"
+	if err := os.WriteFile(filepath.Join(dir, "loads.csv"), []byte(csvText), 0o644); err != nil {
+		t.Fatal(err)
+	}
+	curves := map[bool]string{}
+	for _, live := range []bool{false, true} {
+		out := filepath.Join(t.TempDir(), "res")
+		args := []string{"series", "--out", out, "--subset", "21", "--step", "8", "--table", filepath.Join(dir, "loads.csv"),
+			"--ext", "axial:24,48,104,48", "--gauge", "mid:40,30,88,66",
+			"--ref", filepath.Join(dir, "reference.png"), filepath.Join(dir, "frame_*.png")}
+		if live {
+			args = append(args[:1], append([]string{"--live"}, args[1:]...)...)
+		}
+		var stdout, stderr bytes.Buffer
+		if code := run(context.Background(), &env{stdout: &stdout, stderr: &stderr}, args); code != 0 {
+			t.Fatalf("series (live %v): exit %d: %s", live, code, stderr.String())
+		}
+		b, err := os.ReadFile(filepath.Join(out, "curve.csv"))
+		if err != nil {
+			t.Fatal(err)
+		}
+		curves[live] = string(b)
+		if !live {
+			continue
+		}
+		recs, err := csv.NewReader(&stdout).ReadAll()
+		if err != nil || len(recs) != 5 {
+			t.Fatalf("live stdout: %v, %d lines, want a header and 4:\n%s", err, len(recs), stdout.String())
+		}
+		if recs[0][0] != "index" || recs[0][5] != "ext_axial_eng" {
+			t.Errorf("live header %v", recs[0])
+		}
+		for n, r := range recs[1:] {
+			e, err := strconv.ParseFloat(r[5], 64)
+			want := 0.02 * float64(n+1) / 4
+			if r[0] != strconv.Itoa(n+1) || r[4] != "true" || err != nil || math.Abs(e-want) > 5e-4 {
+				t.Errorf("live line %d: %v; want index %d, trusted, ext_axial_eng %.4f", n+1, r, n+1, want)
+			}
+		}
+		if !strings.Contains(stderr.String(), "4 frames") {
+			t.Errorf("live stderr lacks the summary: %s", stderr.String())
+		}
+	}
+	if curves[true] != curves[false] {
+		t.Errorf("curve.csv with --live differs from the normal run's:\n%s\nvs\n%s", curves[true], curves[false])
 	}
 }
