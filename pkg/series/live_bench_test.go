@@ -100,7 +100,9 @@ func BenchmarkLive5MP(b *testing.B) {
 	}
 	b.StopTimer()
 	sort.Slice(lat, func(i, j int) bool { return lat[i] < lat[j] })
-	q := func(f float64) float64 { return float64(lat[min(int(f*float64(len(lat))), len(lat)-1)].Microseconds()) / 1000 }
+	q := func(f float64) float64 {
+		return float64(lat[min(int(f*float64(len(lat))), len(lat)-1)].Microseconds()) / 1000
+	}
 
 	// Baseline: the full field of one frame.
 	tr, err := New(ref, FrameMeta{}, p)
