@@ -50,6 +50,9 @@ import (
 const (
 	nodeEnv   = "NATSJS_TEST_NODE"
 	workerEnv = "NATSJS_TEST_WORKER"
+	// holdFramesEnv set to 1 makes a holding worker hold the first
+	// attempt of frames too.
+	holdFramesEnv = "NATSJS_TEST_HOLD_FRAMES"
 )
 
 type nodeConfig struct {
@@ -93,8 +96,9 @@ func runHoldingWorker(url string) int {
 		return 1
 	}
 	defer b.Close()
+	holdFrames := os.Getenv(holdFramesEnv) == "1"
 	hold := func(ctx context.Context, j jobs.Job) {
-		if j.Kind == jobs.Analysis && j.Attempts == 1 {
+		if (j.Kind == jobs.Analysis || holdFrames && j.Kind == jobs.Frame) && j.Attempts == 1 {
 			<-ctx.Done()
 		}
 	}
