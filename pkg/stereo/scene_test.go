@@ -64,7 +64,7 @@ func renderPair(t testing.TB, pl synth.Placement, seed int64) (l, r *imageio.Gra
 	lc, rc := synth.BenchRig(figW, figH)
 	var out [2]*imageio.Gray
 	for k, c := range []synth.Cam{lc, rc} {
-		g, _, err := synth.RenderSurface(pattern(t), pl, c, synth.RenderOptions{W: figW, H: figH, Supersample: 3, Noise: 0.5, Seed: seed + int64(k)})
+		g, _, err := synth.RenderSurface(pattern(t), pl, c, synth.RenderOptions{W: figW, H: figH, Supersample: 2, Noise: 0.5, Seed: seed + int64(k)})
 		if err != nil {
 			t.Fatal(err)
 		}
