@@ -152,7 +152,16 @@ func BenchmarkSolve(b *testing.B) {
 		name  string
 		shape Shape
 		tun   tuning
-	}{{"first", First, tuning{}}, {"first-direct", First, tuning{direct: true}}, {"second", Second, tuning{}}, {"second-direct", Second, tuning{direct: true}}} {
+	}{
+		{"first", First, tuning{}},
+		{"first-direct", First, tuning{direct: true}},
+		{"first-plainstop", First, tuning{plainStop: true}},
+		{"first-direct-plainstop", First, tuning{direct: true, plainStop: true}},
+		{"second", Second, tuning{}},
+		{"second-direct", Second, tuning{direct: true}},
+		{"second-plainstop", Second, tuning{plainStop: true}},
+		{"second-direct-plainstop", Second, tuning{direct: true, plainStop: true}},
+	} {
 		b.Run(c.name, func(b *testing.B) {
 			r, err := newRun(context.Background(), ref, def, Options{Subset: 31, Step: 8, Shape: c.shape, Threads: 1}, c.tun)
 			if err != nil {
