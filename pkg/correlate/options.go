@@ -62,9 +62,7 @@ type Options struct {
 	MaxIter int
 	// Tol is the convergence threshold of IC-GN, in pixels: a point has
 	// converged when the largest displacement change an update causes on
-	// the subset's boundary is below Tol, or when the distance to the limit
-	// estimated from the contraction ρ of the last two updates,
-	// ρ/(1−ρ) times the last one, is below Tol (ρ < ½). Default 1e-4.
+	// the subset's boundary is below Tol. Default 1e-4.
 	Tol float64
 	// Threads is the number of goroutines; 0 = runtime.GOMAXPROCS(0).
 	// Results do not depend on it.
