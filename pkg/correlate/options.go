@@ -60,9 +60,10 @@ type Options struct {
 	MinZNCC float64
 	// MaxIter caps the IC-GN iterations per attempt. Default 50.
 	MaxIter int
-	// Tol is the convergence threshold of IC-GN, in pixels: a point has
-	// converged when the largest displacement change an update causes on
-	// the subset's boundary is below Tol. Default 1e-4.
+	// Tol is the convergence threshold on the size of the IC-GN update, in
+	// pixels: the largest displacement change the update causes over the
+	// subset (translation plus gradient terms times the half-width).
+	// Default 1e-4.
 	Tol float64
 	// Threads is the number of goroutines; 0 = runtime.GOMAXPROCS(0).
 	// Results do not depend on it.

@@ -144,7 +144,7 @@ func Run(ctx context.Context, ref, def *imageio.Gray, opt Options) (*Result, err
 // uses.
 type tuning struct {
 	direct    bool // interpolate from the B-spline coefficients even when a table would be used
-	plainStop bool // the stopping rule of earlier versions (solver.plainStop)
+	plainStop bool // no stall exit, as in earlier versions (solver.plainStop)
 }
 
 // runWith is Run with the given tuning.
