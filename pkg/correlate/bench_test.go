@@ -155,12 +155,8 @@ func BenchmarkSolve(b *testing.B) {
 	}{
 		{"first", First, tuning{}},
 		{"first-direct", First, tuning{direct: true}},
-		{"first-plainstop", First, tuning{plainStop: true}},
-		{"first-direct-plainstop", First, tuning{direct: true, plainStop: true}},
 		{"second", Second, tuning{}},
 		{"second-direct", Second, tuning{direct: true}},
-		{"second-plainstop", Second, tuning{plainStop: true}},
-		{"second-direct-plainstop", Second, tuning{direct: true, plainStop: true}},
 	} {
 		b.Run(c.name, func(b *testing.B) {
 			r, err := newRun(context.Background(), ref, def, Options{Subset: 31, Step: 8, Shape: c.shape, Threads: 1}, c.tun)

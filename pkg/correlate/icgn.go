@@ -56,9 +56,6 @@ type solver struct {
 	kern   []float64 // Gaussian prefilter kernel, nil when off
 	wpad   []float64 // scratch for smoothedVar
 	wtmp   []float64
-	// plainStop disables the stall exit, for comparisons with earlier
-	// versions.
-	plainStop bool
 }
 
 func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, opt *Options, minStd float64) *solver {
@@ -376,9 +373,6 @@ func (s *solver) solve(p0 [12]float64) attempt {
 	n := float64(s.n)
 	m := float64(s.m)
 	var a attempt
-	var prev float64      // size of the previous step, px
-	bestZ := math.Inf(-1) // best ZNCC so far
-	stall := 0
 	for it := 1; it <= s.maxIt; it++ {
 		a.iter = it
 		var sg, sgg, sfg float64
@@ -433,35 +427,18 @@ func (s *solver) solve(p0 [12]float64) attempt {
 			a.p, a.converged, a.status = p, true, OK
 			return a
 		}
-		if it > 1 && !s.plainStop {
-			// (Two other rules were tried and dropped. An early stop on
-			// the contraction of the last two steps, ρ/(1−ρ) times the
-			// last step below Tol, left second-order points up to 3e-4 px
-			// from the limit (TestStoppingRuleWithinTol); the largest
-			// displacement change on the subset boundary as the step size
-			// is stricter than paramNorm and cost iterations: 2.70
-			// instead of 2.54 per point on BenchmarkRun1024.)
-			// A residual that stalls (steps not shrinking, ZNCC not
-			// rising) for stallIters iterations will not converge.
-			if d >= 0.9*prev && a.zncc <= bestZ {
-				if stall++; stall >= stallIters {
-					a.p, a.status = p, Diverged
-					return a
-				}
-			} else {
-				stall = 0
-			}
-		}
-		prev = d
-		bestZ = max(bestZ, a.zncc)
+		// (Three other rules were tried and dropped. An early stop on the
+		// contraction of the last two steps, ρ/(1−ρ) times the last step
+		// below Tol, left second-order points up to 3e-4 px from the
+		// limit (TestStoppingRuleWithinTol). The largest displacement
+		// change on the subset boundary as the step size is stricter than
+		// paramNorm and cost iterations: 2.70 instead of 2.54 per point
+		// on BenchmarkRun1024. An exit after five iterations without
+		// progress turned a few slowly converging points into Diverged.)
 	}
 	a.p, a.status = p, Diverged
 	return a
 }
-
-// stallIters is the number of iterations without progress after which
-// solve gives up.
-const stallIters = 5
 
 // paramNorm is the step size in px: the Euclidean norm of the parameter
 // update with gradients weighted by the half-width m and second

@@ -146,17 +146,7 @@ func TestStoppingRuleWithinTol(t *testing.T) {
 				if d > 1e-4 {
 					t.Errorf("shape %d X %v off %v: stopped after %d iterations %.2g px from the limit, want ≤ 1e-4", sh, X, off, got.iter, d)
 				}
-				plain := newTestSolver(t, ref, def, Options{Subset: 25, Shape: sh, Tol: 1e-4})
-				plain.plainStop = true
-				plain.prepare(X, 40)
-				old := plain.solve(p0)
-				var dOld float64
-				for _, q := range [][2]float64{{-12, -12}, {12, -12}, {-12, 12}, {12, 12}} {
-					u1, v1 := Displacement(&want.p, q[0], q[1])
-					u2, v2 := Displacement(&old.p, q[0], q[1])
-					dOld = math.Max(dOld, math.Hypot(u1-u2, v1-v2))
-				}
-				t.Logf("shape %d X %v off %v: rule %d it %.2g px, plain %d it %.2g px, tight %d it", sh, X, off, got.iter, d, old.iter, dOld, want.iter)
+				t.Logf("shape %d X %v off %v: stopped after %d iterations %.2g px from the limit (%d iterations)", sh, X, off, got.iter, d, want.iter)
 			}
 		}
 	}

@@ -143,8 +143,7 @@ func Run(ctx context.Context, ref, def *imageio.Gray, opt Options) (*Result, err
 // compare them with the default in the same run; the zero value is what Run
 // uses.
 type tuning struct {
-	direct    bool // interpolate from the B-spline coefficients even when a table would be used
-	plainStop bool // no stall exit, as in earlier versions (solver.plainStop)
+	direct bool // interpolate from the B-spline coefficients even when a table would be used
 }
 
 // runWith is Run with the given tuning.
@@ -243,7 +242,6 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning
 	r.tmpl = make([][]float64, r.threads)
 	for i := range r.solvers {
 		r.solvers[i] = newSolver(r.ref, r.gx, r.gy, r.refSp, r.defSp, &r.opt, minStd)
-		r.solvers[i].plainStop = tun.plainStop
 		r.tmpl[i] = make([]float64, r.solvers[i].n)
 	}
 	if r.threads > 1 {
