@@ -84,13 +84,29 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 		return nil, err
 	}
 	opt.Start, opt.Progress = j.Start, j.Progress
+	// The image quality is assessed while the images are correlated (it
+	// reads them only); a quality error stops the correlation and is the
+	// job's error.
 	qual := j.Quality
+	var qerr error
+	qdone := make(chan struct{})
+	cctx, cancel := context.WithCancel(ctx)
+	defer cancel()
 	if qual == nil {
-		if qual, err = quality.AssessPair(j.Ref, j.Def, opt.Mask, quality.Thresholds{}); err != nil {
-			return nil, err
-		}
+		go func() {
+			defer close(qdone)
+			if qual, qerr = quality.AssessPair(j.Ref, j.Def, opt.Mask, quality.Thresholds{}); qerr != nil {
+				cancel()
+			}
+		}()
+	} else {
+		close(qdone)
 	}
-	res, err := correlate.Run(ctx, j.Ref, j.Def, opt)
+	res, err := correlate.Run(cctx, j.Ref, j.Def, opt)
+	<-qdone
+	if qerr != nil {
+		return nil, qerr
+	}
 	if err != nil {
 		return nil, fmt.Errorf("correlation: %w", err)
 	}

@@ -13,18 +13,28 @@ import (
 // AssessPair assesses a reference and a deformed image over mask (nil =
 // whole image): the reference on its own, the deformed image on its own and
 // against the reference. Errors are those of Measure, naming the image.
+//
+// The two images are measured side by side (the deformed image in a second
+// goroutine); the reports are the same as from Assess on each in turn.
 func AssessPair(ref, def *imageio.Gray, mask *roi.Mask, t Thresholds) ([]Report, error) {
+	var dm Measures
+	var derr error
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		dm, derr = Measure(def, mask)
+	}()
 	r, err := Assess(ref, mask, "reference", nil, t)
+	<-done
 	if err != nil {
 		return nil, err
+	}
+	if derr != nil {
+		return nil, fmt.Errorf("deformed image: %w", derr)
 	}
 	// The report's measures are cleaned (NaN → 0); Compare treats a zero
 	// reference value as "no change", as it treats NaN.
-	d, err := Assess(def, mask, "deformed", &r.Measures, t)
-	if err != nil {
-		return nil, err
-	}
-	return []Report{r, d}, nil
+	return []Report{r, report(dm, "deformed", &r.Measures, t)}, nil
 }
 
 // Warnings returns the warnings of all reports, in order; an empty (not

@@ -278,6 +278,12 @@ func Assess(g *imageio.Gray, mask *roi.Mask, image string, ref *Measures, t Thre
 	if err != nil {
 		return Report{}, fmt.Errorf("%s image: %w", image, err)
 	}
+	return report(m, image, ref, t), nil
+}
+
+// report builds the Report of image from its measures m: its own warnings
+// and, when ref is given, the change against the reference's measures.
+func report(m Measures, image string, ref *Measures, t Thresholds) Report {
 	r := Report{Image: image, Measures: m.Clean(), Warnings: Check(m, image, t)}
 	if ref != nil {
 		c, ws := Compare(*ref, m, image, t)
@@ -287,5 +293,5 @@ func Assess(g *imageio.Gray, mask *roi.Mask, image string, ref *Measures, t Thre
 	if r.Warnings == nil {
 		r.Warnings = []Warning{}
 	}
-	return r, nil
+	return r
 }
