@@ -11,6 +11,7 @@ import (
 
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/service/access"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
@@ -60,6 +61,19 @@ type Config struct {
 	// Tokens, when not empty, are the bearer tokens accepted on every
 	// route except /healthz, /readyz and the browser page's static files.
 	Tokens []string
+	// TokenFile, if not nil, holds the tokens of named principals with
+	// roles in projects (package access); it is reread when it changes,
+	// so revocation needs no restart. Tokens and TokenFile may be used
+	// together; with neither, every request acts for one implicit
+	// principal with every role in every project.
+	TokenFile *access.File
+	// MaxQueuedPerPrincipal limits the jobs one principal may have
+	// waiting (0 = no limit beyond the queue's); RateLimit the requests a
+	// second of one principal, with bursts of RateBurst (default
+	// 2·RateLimit, at least 1); 0 = no limit. Both apply only when tokens
+	// are checked, and are answered 429 with Retry-After.
+	MaxQueuedPerPrincipal int
+	RateLimit, RateBurst  float64
 	// CORSOrigins lists the origins allowed to call the API from a
 	// browser ("*" for any); empty sends no CORS headers.
 	CORSOrigins []string
@@ -113,6 +127,9 @@ func (c *Config) defaults() {
 	def(&c.IdleTimeout, 2*time.Minute)
 	def(&c.JobTimeout, 30*time.Minute)
 	def(&c.ShutdownGrace, 30*time.Second)
+	if c.RateLimit > 0 && c.RateBurst < 1 {
+		c.RateBurst = max(1, 2*c.RateLimit)
+	}
 }
 
 // Validate reports every problem with the configuration at once.
@@ -123,6 +140,9 @@ func (c *Config) Validate() error {
 	}
 	if c.Analyzer == nil {
 		errs = append(errs, errors.New("config: Analyzer is required"))
+	}
+	if c.MaxQueuedPerPrincipal < 0 || c.RateLimit < 0 || c.RateBurst < 0 {
+		errs = append(errs, errors.New("config: MaxQueuedPerPrincipal, RateLimit and RateBurst must not be negative; 0 turns a limit off"))
 	}
 	if c.Retention < 0 {
 		errs = append(errs, fmt.Errorf("config: Retention is %v; use 0 (keep everything) or a positive duration", c.Retention))

@@ -50,6 +50,9 @@ func (s *Server) analysis(h jobHandler) http.HandlerFunc {
 			writeProblem(w, r, asProblem(err, "id"))
 			return
 		}
+		if !s.allowed(w, r, j.Project, j.Owner, "analysis "+id) {
+			return
+		}
 		h(w, r, j)
 	}
 }
@@ -140,6 +143,9 @@ func (s *Server) listAnalyses(w http.ResponseWriter, r *http.Request) {
 	}
 	out := []*jobView{}
 	for i := len(list) - 1; i >= 0 && len(out) < limit; i-- { // newest first
+		if !readable(r, list[i].Project) {
+			continue
+		}
 		out = append(out, viewJob(list[i]))
 	}
 	writeJSON(w, http.StatusOK, map[string]any{"analyses": out})
@@ -193,7 +199,8 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Param
 		return
 	}
 	params, _ := json.Marshal(p)
-	j := &jobs.Job{ID: newID(r), Kind: jobs.Analysis, State: jobs.Queued, Params: params, Name: name,
+	proj, _ := chosenProject(r, caller(r.Context())) // checked by authenticate
+	j := &jobs.Job{ID: newID(r), Kind: jobs.Analysis, State: jobs.Queued, Params: params, Name: name, Project: proj, Owner: caller(r.Context()).Name,
 		Width: ref.W, Height: ref.H, HasMask: raw["mask"] != nil, Formats: formats.String(), Created: time.Now().UTC()}
 	if err := s.accept(r.Context(), j, raw); errors.Is(err, jobs.ErrExists) {
 		// A repeat under an Idempotency-Key that another instance
@@ -252,7 +259,7 @@ func (s *Server) queueFull(w http.ResponseWriter, r *http.Request) bool {
 		return true
 	}
 	if s.queue.Len() < s.queue.Cap() {
-		return false
+		return s.ownerQueueFull(w, r)
 	}
 	s.answerAcceptErr(w, r, jobs.ErrQueueFull)
 	return true

@@ -242,11 +242,12 @@ func fingerprint(r *http.Request, body []byte) string {
 	return hex.EncodeToString(h.Sum(nil))
 }
 
-// keyScope is the client's credentials, as far as they tell clients apart:
-// keys of different tokens never meet.
+// keyScope is the client's credentials, as far as they tell clients apart,
+// and the project the request names: keys of different tokens, or of one
+// token in different projects, never meet.
 func keyScope(r *http.Request) string {
 	tok, _ := strings.CutPrefix(r.Header.Get("Authorization"), "Bearer ")
-	sum := sha256.Sum256([]byte(strings.TrimSpace(tok)))
+	sum := sha256.Sum256([]byte(strings.TrimSpace(tok) + "\x00" + requestedProject(r)))
 	return hex.EncodeToString(sum[:])
 }
 

@@ -14,7 +14,6 @@ import (
 	"net/http"
 	"runtime/debug"
 	"slices"
-	"strings"
 	"time"
 
 	"github.com/go-chi/chi/v5"
@@ -159,33 +158,15 @@ func (s *Server) cors(next http.Handler) http.Handler {
 	})
 }
 
-// auth requires one of the configured bearer tokens. Tokens are compared
-// through their SHA-256 digests with subtle.ConstantTimeCompare, against
-// every configured token, so the time taken says nothing about a token.
-func (s *Server) auth(next http.Handler) http.Handler {
-	if len(s.tokens) == 0 {
-		return next
+// legacyToken reports whether token is one of Config.Tokens. Tokens are
+// compared through their SHA-256 digests with subtle.ConstantTimeCompare,
+// against every configured token, so the time taken says nothing about a
+// token.
+func (s *Server) legacyToken(token string) bool {
+	sum := sha256.Sum256([]byte(token))
+	match := 0
+	for _, t := range s.tokens {
+		match |= subtle.ConstantTimeCompare(sum[:], t[:])
 	}
-	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
-		given, ok := strings.CutPrefix(r.Header.Get("Authorization"), "Bearer ")
-		if !ok {
-			given = ""
-		}
-		sum := sha256.Sum256([]byte(strings.TrimSpace(given)))
-		match := 0
-		for _, t := range s.tokens {
-			match |= subtle.ConstantTimeCompare(sum[:], t[:])
-		}
-		if !ok || match != 1 {
-			w.Header().Set("WWW-Authenticate", `Bearer realm="mottle"`)
-			detail := "send the header Authorization: Bearer <token> with a token the server was started with"
-			if ok {
-				detail = "the bearer token is not one the server accepts"
-			}
-			writeProblem(w, r, problem(http.StatusUnauthorized, "unauthorized", "Authentication required", detail,
-				FieldProblem{"Authorization", detail}))
-			return
-		}
-		next.ServeHTTP(w, r)
-	})
+	return match == 1
 }

@@ -42,8 +42,9 @@ func (s *Server) routes() http.Handler {
 		}))
 	}
 	r.Group(func(r chi.Router) {
-		r.Use(s.auth)
+		r.Use(s.authenticate)
 		r.Get("/metrics", s.getMetrics)
+		r.Post("/v1/stream-tickets", s.postStreamTicket)
 		r.Get("/v1/openapi.json", s.openapi)
 
 		r.Post("/v1/analyses", s.idempotent("analysis", s.postAnalysis))

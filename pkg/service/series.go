@@ -35,6 +35,9 @@ func (s *Server) series(h seriesHandler) http.HandlerFunc {
 			writeProblem(w, r, asProblem(err, "id"))
 			return
 		}
+		if !s.allowed(w, r, sr.Project, sr.Owner, "series "+id) {
+			return
+		}
 		h(w, r, sr)
 	}
 }
@@ -99,7 +102,8 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	now := time.Now().UTC()
-	sr := &jobs.Series{ID: newID(r), Name: label, Params: params, Width: ref.W, Height: ref.H, HasMask: u.raw["mask"] != nil,
+	proj, _ := chosenProject(r, caller(r.Context())) // checked by authenticate
+	sr := &jobs.Series{ID: newID(r), Name: label, Project: proj, Owner: caller(r.Context()).Name, Params: params, Width: ref.W, Height: ref.H, HasMask: u.raw["mask"] != nil,
 		ReferenceName: refName, Formats: formats.String(), Created: now, Updated: now, Frames: []string{}}
 	for name, b := range u.raw {
 		if err := s.blobs.Put(r.Context(), jobs.SeriesKey(sr.ID, name), bytes.NewReader(b)); err != nil {
@@ -134,6 +138,9 @@ func (s *Server) listSeries(w http.ResponseWriter, r *http.Request) {
 	}
 	out := []*seriesView{}
 	for i := len(all) - 1; i >= 0; i-- {
+		if !readable(r, all[i].Project) {
+			continue
+		}
 		out = append(out, s.viewSeries(r.Context(), all[i], false))
 	}
 	writeJSON(w, http.StatusOK, map[string]any{"series": out})
@@ -164,7 +171,7 @@ var errReserve = errors.New("reserving the frame index")
 // repeat under an Idempotency-Key whose first request died after
 // reserving) keeps its index; one already stored is returned as it is.
 func (s *Server) queueFrame(ctx context.Context, sr *jobs.Series, id string, index *int, body []byte, name string, tm, load *float64) (j *jobs.Job, next int, err error) {
-	j = &jobs.Job{ID: id, Kind: jobs.Frame, State: jobs.Queued, Params: sr.Params, Width: sr.Width, Height: sr.Height,
+	j = &jobs.Job{ID: id, Kind: jobs.Frame, State: jobs.Queued, Project: sr.Project, Owner: caller(ctx).Name, Params: sr.Params, Width: sr.Width, Height: sr.Height,
 		HasMask: sr.HasMask, Series: sr.ID, Time: tm, Load: load, Name: name, Formats: sr.Formats, Created: time.Now().UTC()}
 	// Reserve the next frame index; give it back if the job is not accepted.
 	_, err = s.store.UpdateSeries(ctx, sr.ID, func(sr *jobs.Series) error {

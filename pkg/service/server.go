@@ -24,6 +24,8 @@ type Server struct {
 	blobs   jobs.Blobs
 	queue   jobs.Queue
 	tokens  [][sha256.Size]byte
+	tickets tickets
+	rates   rates
 	metrics *metrics
 	handler http.Handler
 
@@ -71,6 +73,7 @@ func New(cfg Config) (*Server, error) {
 	for _, t := range cfg.Tokens {
 		s.tokens = append(s.tokens, sha256.Sum256([]byte(strings.TrimSpace(t))))
 	}
+	s.rates = rates{rate: cfg.RateLimit, burst: cfg.RateBurst}
 	s.handler = s.routes()
 	return s, nil
 }

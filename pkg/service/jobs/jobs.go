@@ -111,6 +111,11 @@ type Job struct {
 	ID    string `json:"id"`
 	Kind  Kind   `json:"kind"`
 	State State  `json:"state"`
+	// Project is the project the job belongs to (a frame: its series');
+	// Owner the principal that created it. Empty in records written
+	// before projects existed: the project "default".
+	Project string `json:"project,omitempty"`
+	Owner   string `json:"owner,omitempty"`
 	// Params is the normalised parameter document (defaults applied).
 	Params json.RawMessage `json:"params"`
 	// Width and Height are the image size in pixels.
@@ -154,6 +159,9 @@ type Job struct {
 // SeriesKey(ID, "reference")), parameters, and its frames in order.
 type Series struct {
 	ID string `json:"id"`
+	// Project and Owner are those of Job.
+	Project string `json:"project,omitempty"`
+	Owner   string `json:"owner,omitempty"`
 	// Name is the label the user gave the series (default: the file name
 	// of the reference).
 	Name   string          `json:"name,omitempty"`
