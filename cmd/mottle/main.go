@@ -51,6 +51,7 @@ func commands() []command {
 		{"calibrate", "calibrate the camera and its lens distortion from target images", runCalibrate},
 		{"stereo", "measure 3D shape, displacement and surface strain with two calibrated cameras", runStereo},
 		{"serve", "run the HTTP service and the browser preview", runServe},
+		{"token", "add, list and revoke the service's bearer tokens (principals, projects, roles)", runToken},
 		{"worker", "compute jobs from a NATS JetStream backend shared with mottle serve", runWorker},
 		{"version", "print the version", runVersion},
 	}

@@ -13,6 +13,7 @@ import (
 	"github.com/mottledic/mottle/pkg/demo"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/service"
+	"github.com/mottledic/mottle/pkg/service/access"
 	"github.com/mottledic/mottle/pkg/service/natsjs"
 	"github.com/mottledic/mottle/web"
 )
@@ -23,8 +24,10 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	fs := newFlags(e, "serve", "[flags]",
 		"Run the Mottle HTTP service (API under /v1, see /v1/openapi.json) and the browser preview at /.\n"+
 			"Jobs and results are kept in the data directory and survive a restart.\n\n"+
-			"Environment: MOTTLE_TOKENS holds comma-separated bearer tokens (or use --token-file);\n"+
-			"with tokens set, every route but /healthz, /readyz and the preview's static files needs one.")
+			"Environment: MOTTLE_TOKENS holds comma-separated bearer tokens with every role (or use --token-file,\n"+
+			"written by mottle token, for principals with roles in projects); with tokens set, every route but\n"+
+			"/healthz, /readyz and the preview's static files needs one. Without tokens a non-loopback address\n"+
+			"is refused unless --insecure-open is given.")
 	addr := fs.String("addr", "127.0.0.1:8080", "listen address (host:port)")
 	data := fs.String("data", envOr("MOTTLE_DATA", "mottle-data"), "data directory for the job database, images and results (env MOTTLE_DATA)")
 	backend := fs.String("backend", "embedded", backendHelp+" (with nats://, jobs are computed only when --workers is given)")
@@ -38,7 +41,10 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	writeTimeout := fs.Duration("write-timeout", 2*time.Minute, "longest time to write a response (event streams and waits are exempt)")
 	grace := fs.Duration("shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish before they are put back in the queue")
 	retention := fs.Duration("retention", 0, "remove finished analyses and idle series after this long, e.g. 168h (0 keeps everything)")
-	tokenFile := fs.String("token-file", "", "file with bearer tokens, one a line (# starts a comment)")
+	tokenFile := fs.String("token-file", envOr("MOTTLE_TOKEN_FILE", ""), "token file written by mottle token (principals with roles in projects; reread when it changes), or the older form with one plain token a line (env MOTTLE_TOKEN_FILE)")
+	open := fs.Bool("insecure-open", false, "serve a non-loopback address without tokens: anyone who reaches it may read, submit and delete everything")
+	maxQueued := fs.Int("principal-queued", 0, "jobs one principal may have waiting (0 = no limit beyond --queue); with tokens only")
+	rate := fs.Float64("principal-rate", 0, "requests a second one principal may send, bursts of twice that (0 = no limit); with tokens only")
 	cors := fs.String("cors", "", "comma-separated origins allowed to call the API from a browser (\"*\" for any); empty = no CORS")
 	noUI := fs.Bool("no-ui", false, "do not serve the browser preview")
 	if err := parseFlags(e, fs, args); err != nil {
@@ -48,7 +54,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 		fmt.Fprintf(e.stderr, "mottle serve: unexpected arguments %q\n", fs.Args())
 		return errUsage
 	}
-	tokens, err := loadTokens(os.Getenv("MOTTLE_TOKENS"), *tokenFile)
+	tokens, tf, err := loadTokens(os.Getenv("MOTTLE_TOKENS"), *tokenFile)
 	if err != nil {
 		return err
 	}
@@ -62,7 +68,8 @@ func runServe(ctx context.Context, e *env, args []string) error {
 		Backend: be, Analyzer: service.Pipeline{}, Logger: log,
 		Workers: *workers, MaxBodyBytes: *maxBody << 20, MaxPixels: *maxPixels, MaxPoints: *maxPoints,
 		JobTimeout: *jobTimeout, ReadTimeout: *readTimeout, WriteTimeout: *writeTimeout,
-		ShutdownGrace: *grace, Retention: *retention, Tokens: tokens, Demo: demo.Pair,
+		ShutdownGrace: *grace, Retention: *retention, Tokens: tokens, TokenFile: tf, Demo: demo.Pair,
+		MaxQueuedPerPrincipal: *maxQueued, RateLimit: *rate,
 	}
 	if *cors != "" {
 		for _, o := range strings.Split(*cors, ",") {
@@ -82,14 +89,23 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return fmt.Errorf("listen on %s: %w", *addr, err)
 	}
-	if len(tokens) == 0 && !isLoopback(ln.Addr()) {
-		log.Warn("serving without bearer tokens on a non-loopback address; set MOTTLE_TOKENS or --token-file")
+	who := "tokens required"
+	if len(tokens) == 0 && tf == nil {
+		who = "no tokens: one implicit principal with every role"
+		if !isLoopback(ln.Addr()) {
+			if !*open {
+				ln.Close()
+				return usageError{fmt.Errorf("refusing to serve %s without tokens: anyone who reaches it could read, submit and delete everything; create tokens with mottle token add and pass --token-file, or pass --insecure-open to serve it open anyway", ln.Addr())}
+			}
+			who = "OPEN TO EVERYONE WHO REACHES IT (--insecure-open, no tokens)"
+			log.Warn("serving without bearer tokens on a non-loopback address (--insecure-open)")
+		}
 	}
 	where := "data in " + *data
 	if natsjs.IsURL(*backend) {
 		where = "jobs and results on NATS " + redactURL(*backend)
 	}
-	fmt.Fprintf(e.stderr, "mottle serve: listening on http://%s (%s)\n", ln.Addr(), where)
+	fmt.Fprintf(e.stderr, "mottle serve: listening on http://%s (%s; %s)\n", ln.Addr(), where, who)
 	return srv.Serve(ctx, ln)
 }
 
@@ -100,30 +116,45 @@ func envOr(name, def string) string {
 	return def
 }
 
-// loadTokens collects bearer tokens from a comma-separated list and from a
-// file with one token a line.
-func loadTokens(list, file string) ([]string, error) {
+// loadTokens collects plain bearer tokens from a comma-separated list,
+// and reads the token file: one written by mottle token (JSON lines), or
+// the older form with one plain token a line.
+func loadTokens(list, file string) ([]string, *access.File, error) {
 	var out []string
 	for _, t := range strings.Split(list, ",") {
 		if t = strings.TrimSpace(t); t != "" {
 			out = append(out, t)
 		}
 	}
-	if file != "" {
-		b, err := os.ReadFile(file)
-		if err != nil {
-			return nil, fmt.Errorf("--token-file: %w", err)
-		}
-		for _, line := range strings.Split(string(b), "\n") {
-			if line = strings.TrimSpace(line); line != "" && !strings.HasPrefix(line, "#") {
-				out = append(out, line)
+	if file == "" {
+		return out, nil, nil
+	}
+	b, err := os.ReadFile(file)
+	if err != nil {
+		return nil, nil, fmt.Errorf("--token-file: %w", err)
+	}
+	var plain []string
+	for _, line := range strings.Split(string(b), "\n") {
+		if line = strings.TrimSpace(line); line != "" && !strings.HasPrefix(line, "#") {
+			if strings.HasPrefix(line, "{") {
+				tf, err := access.OpenFile(file)
+				if err != nil {
+					return nil, nil, fmt.Errorf("--token-file: %w", err)
+				}
+				return out, tf, nil
 			}
-		}
-		if len(out) == 0 {
-			return nil, fmt.Errorf("--token-file %s holds no token", file)
+			plain = append(plain, line)
 		}
 	}
-	return out, nil
+	if len(plain) == 0 {
+		// An empty file of mottle token: every token revoked, or none yet.
+		tf, err := access.OpenFile(file)
+		if err != nil {
+			return nil, nil, fmt.Errorf("--token-file: %w", err)
+		}
+		return out, tf, nil
+	}
+	return append(out, plain...), nil, nil
 }
 
 func isLoopback(a net.Addr) bool {
