@@ -49,24 +49,27 @@ type need struct {
 // caller needs. A route missing here is answered 500, and the route
 // matrix test fails for it.
 var routeNeeds = map[string]need{
-	"GET /metrics":                     {access.Read, scopeAny, false},
-	"GET /v1/openapi.json":             {access.Read, scopeAny, false},
-	"POST /v1/stream-tickets":          {access.Read, scopeAny, false},
-	"POST /v1/analyses":                {access.Submit, scopeCreate, false},
-	"GET /v1/analyses":                 {access.Read, scopeList, false},
-	"POST /v1/demo":                    {access.Submit, scopeCreate, false},
-	"POST /v1/images/inspect":          {access.Submit, scopeCreate, false},
-	"POST /v1/calibrations":            {access.Submit, scopeCreate, false},
-	"DELETE " + analysisPath:           {access.Manage, scopeResource, false},
-	"PATCH " + analysisPath:            {access.Manage, scopeResource, false},
-	"POST " + analysisPath + "/cancel": {access.Manage, scopeResource, true},
-	"POST /v1/series":                  {access.Submit, scopeCreate, false},
-	"GET /v1/series":                   {access.Read, scopeList, false},
-	"DELETE /v1/series/{id}":           {access.Manage, scopeResource, false},
-	"PATCH /v1/series/{id}":            {access.Manage, scopeResource, false},
-	"POST /v1/series/{id}/frames":      {access.Submit, scopeResource, false},
-	"GET /v1/audit":                    {access.Manage, scopeList, false},
-	"GET /v1/audit.jsonl":              {access.Manage, scopeList, false},
+	"GET /metrics":                              {access.Read, scopeAny, false},
+	"GET /v1/openapi.json":                      {access.Read, scopeAny, false},
+	"POST /v1/stream-tickets":                   {access.Read, scopeAny, false},
+	"POST /v1/analyses":                         {access.Submit, scopeCreate, false},
+	"GET /v1/analyses":                          {access.Read, scopeList, false},
+	"POST /v1/demo":                             {access.Submit, scopeCreate, false},
+	"POST /v1/images/inspect":                   {access.Submit, scopeCreate, false},
+	"POST /v1/calibrations":                     {access.Submit, scopeCreate, false},
+	"DELETE " + analysisPath:                    {access.Manage, scopeResource, false},
+	"PATCH " + analysisPath:                     {access.Manage, scopeResource, false},
+	"POST " + analysisPath + "/cancel":          {access.Manage, scopeResource, true},
+	"POST /v1/series":                           {access.Submit, scopeCreate, false},
+	"GET /v1/series":                            {access.Read, scopeList, false},
+	"DELETE /v1/series/{id}":                    {access.Manage, scopeResource, false},
+	"PATCH /v1/series/{id}":                     {access.Manage, scopeResource, false},
+	"POST /v1/series/{id}/frames":               {access.Submit, scopeResource, false},
+	"POST /v1/series/{id}/live":                 {access.Submit, scopeResource, false},
+	"POST /v1/series/{id}/live/frames":          {access.Submit, scopeResource, false},
+	"POST /v1/series/{id}/live/frames/{n}/full": {access.Submit, scopeResource, false},
+	"GET /v1/audit":                             {access.Manage, scopeList, false},
+	"GET /v1/audit.jsonl":                       {access.Manage, scopeList, false},
 }
 
 // needOf returns the declaration of the route pattern; GET routes under
@@ -225,13 +228,14 @@ func projectOf(p string) string {
 // allowed checks the caller's role on a resource of project proj created
 // by owner. It answers 404 when the caller has no role in the project
 // (ids of other projects do not leak), 403 when the role is too low.
-func (s *Server) allowed(w http.ResponseWriter, r *http.Request, proj, owner, what string) bool {
+func (s *Server) allowed(w http.ResponseWriter, r *http.Request, proj, owner string) bool {
 	p := caller(r.Context())
 	pattern := chi.RouteContext(r.Context()).RoutePattern()
 	n, _ := needOf(r.Method, pattern)
 	role := p.Role(projectOf(proj))
 	if role == access.None {
-		writeProblem(w, r, problem(http.StatusNotFound, "not-found", "Not found", what+" does not exist", FieldProblem{"id", "use an id returned to you by this server"}))
+		// The very answer of an id that does not exist.
+		writeProblem(w, r, asProblem(jobs.ErrNotFound, "id"))
 		return false
 	}
 	want := n.role

@@ -50,7 +50,7 @@ func (s *Server) analysis(h jobHandler) http.HandlerFunc {
 			writeProblem(w, r, asProblem(err, "id"))
 			return
 		}
-		if !s.allowed(w, r, j.Project, j.Owner, "analysis "+id) {
+		if !s.allowed(w, r, j.Project, j.Owner) {
 			return
 		}
 		h(w, r, j)

@@ -35,7 +35,7 @@ func (s *Server) series(h seriesHandler) http.HandlerFunc {
 			writeProblem(w, r, asProblem(err, "id"))
 			return
 		}
-		if !s.allowed(w, r, sr.Project, sr.Owner, "series "+id) {
+		if !s.allowed(w, r, sr.Project, sr.Owner) {
 			return
 		}
 		h(w, r, sr)
