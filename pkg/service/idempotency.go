@@ -247,7 +247,11 @@ func fingerprint(r *http.Request, body []byte) string {
 // token in different projects, never meet.
 func keyScope(r *http.Request) string {
 	tok, _ := strings.CutPrefix(r.Header.Get("Authorization"), "Bearer ")
-	sum := sha256.Sum256([]byte(strings.TrimSpace(tok) + "\x00" + requestedProject(r)))
+	scope := strings.TrimSpace(tok)
+	if p := requestedProject(r); p != "" {
+		scope += "\x00" + p
+	}
+	sum := sha256.Sum256([]byte(scope))
 	return hex.EncodeToString(sum[:])
 }
 
