@@ -1,6 +1,7 @@
 package maps
 
 import (
+	"errors"
 	"fmt"
 	"image"
 	"image/color"
@@ -41,7 +42,99 @@ func newFace() (font.Face, error) {
 	if err != nil {
 		return nil, fmt.Errorf("label font: %w", err)
 	}
-	return face, nil
+	small, err := opentype.NewFace(f, &opentype.FaceOptions{Size: labelSize * superScale, DPI: 72, Hinting: font.HintingFull})
+	if err != nil {
+		return nil, fmt.Errorf("label font: %w", err)
+	}
+	return &superFace{Face: face, small: small, raise: fixed.I(int(math.Round(labelSize * superRaise)))}, nil
+}
+
+// Superscripts the label font lacks are drawn as their base letter, smaller
+// and raised: superScale of the label size, raised by superRaise of it
+// (common typesetting proportions). Go Regular has ², ³, ⁻ and ¹ but not
+// ᵀ, which the transposes in quantity descriptions (FᵀF, F⁻ᵀ) use.
+const (
+	superScale = 0.7
+	superRaise = 0.38
+)
+
+// superBase returns the letter a superscript letter raises.
+func superBase(r rune) (rune, bool) {
+	switch r {
+	case 'ᵀ':
+		return 'T', true
+	case 'ᴴ':
+		return 'H', true
+	case 'ᵁ':
+		return 'U', true
+	case 'ᴵ':
+		return 'I', true
+	}
+	return 0, false
+}
+
+// superFace is the label face, drawing the superscripts it has no glyph
+// for (superscripts) with the smaller face, raised; every other rune is
+// the label face's own.
+type superFace struct {
+	font.Face
+	small font.Face
+	raise fixed.Int26_6
+}
+
+// fallback returns the base letter of r when the label face lacks r.
+func (f *superFace) fallback(r rune) (rune, bool) {
+	b, ok := superBase(r)
+	if !ok {
+		return 0, false
+	}
+	if _, has := f.Face.GlyphAdvance(r); has {
+		return 0, false
+	}
+	return b, true
+}
+
+// Glyph implements font.Face.
+func (f *superFace) Glyph(dot fixed.Point26_6, r rune) (image.Rectangle, image.Image, image.Point, fixed.Int26_6, bool) {
+	if b, ok := f.fallback(r); ok {
+		return f.small.Glyph(fixed.Point26_6{X: dot.X, Y: dot.Y - f.raise}, b)
+	}
+	return f.Face.Glyph(dot, r)
+}
+
+// GlyphBounds implements font.Face.
+func (f *superFace) GlyphBounds(r rune) (fixed.Rectangle26_6, fixed.Int26_6, bool) {
+	if b, ok := f.fallback(r); ok {
+		bounds, adv, ok := f.small.GlyphBounds(b)
+		bounds.Min.Y -= f.raise
+		bounds.Max.Y -= f.raise
+		return bounds, adv, ok
+	}
+	return f.Face.GlyphBounds(r)
+}
+
+// GlyphAdvance implements font.Face.
+func (f *superFace) GlyphAdvance(r rune) (fixed.Int26_6, bool) {
+	if b, ok := f.fallback(r); ok {
+		return f.small.GlyphAdvance(b)
+	}
+	return f.Face.GlyphAdvance(r)
+}
+
+// Kern implements font.Face; a raised letter is not kerned.
+func (f *superFace) Kern(r0, r1 rune) fixed.Int26_6 {
+	if _, ok := f.fallback(r0); ok {
+		return 0
+	}
+	if _, ok := f.fallback(r1); ok {
+		return 0
+	}
+	return f.Face.Kern(r0, r1)
+}
+
+// Close implements font.Face.
+func (f *superFace) Close() error {
+	return errors.Join(f.Face.Close(), f.small.Close())
 }
 
 // textWidth returns the advance width of s in whole pixels.

@@ -98,8 +98,6 @@ func RenderMap(f *field.Field, bg *imageio.Gray, r MapRequest) ([]byte, error) {
 			title = r.Quantity + ": " + d
 		}
 	}
-	// The label font has no superscripts.
-	title = strings.NewReplacer("ᵀ", "^T", "⁻¹", "^-1", "⁻ᵀ", "^-T", "²", "^2").Replace(title)
 	m, err := maps.Render(maps.Layer{Nx: f.Grid.Nx, Ny: f.Grid.Ny, X: xs, Y: ys, Values: vals, Step: float64(f.Grid.Step)}, bg, maps.Options{
 		Quantity: r.Quantity,
 		Unit:     unitLabel(f.Units[r.Quantity]),
