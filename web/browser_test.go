@@ -179,11 +179,11 @@ func TestBrowserPreview(t *testing.T) {
 // previewAllowed are the console errors and failed requests that
 // TestBrowserPreview causes on purpose; any other fails the test.
 var previewAllowed = []allowance{
-	{regexp.MustCompile(`^request POST \S+/v1/images/inspect: 415 `),
-		"checkBadUpload chooses a text file as the reference: the page sends it for inspection (as it does every chosen file) and the service answers 415 with a problem document"},
+	{regexp.MustCompile(`^request POST \S+/v1/images/check: 415 `),
+		"checkBadUpload chooses a text file as the reference: the page sends it for the image check (as it does every chosen file) and the service answers 415 with a problem document"},
 	{regexp.MustCompile(`^request POST \S+/v1/analyses: 415 `),
 		"checkBadUpload runs the text file: the service answers 415 with a problem document, which the page shows"},
-	{regexp.MustCompile(`^console error \(network\): Failed to load resource: the server responded with a status of 415 \(Unsupported Media Type\) \S+/v1/(images/inspect|analyses)$`),
+	{regexp.MustCompile(`^console error \(network\): Failed to load resource: the server responded with a status of 415 \(Unsupported Media Type\) \S+/v1/(images/check|analyses)$`),
 		"Chromium logs each of the two 415 answers of checkBadUpload as a failed resource"},
 }
 

@@ -341,7 +341,7 @@ func printSummary(w io.Writer, f *field.Field, elapsed time.Duration) {
 		fmt.Fprintf(w, "; image noise σ %.2f grey levels (%v)\n", f.Meta.NoiseSigma, src)
 	}
 	fmt.Fprintf(w, "  %-14s %12s %12s %12s %12s %10s\n", "quantity", "mean", "std", "min", "max", "unit")
-	for _, q := range []string{"u", "v", "E11", "E22", "E12", "e1", "e2", "rotation_deg", "von_mises", "zncc", "std_u", "std_v", "std_E11"} {
+	for _, q := range []string{"u", "v", "E11", "E22", "E12", "E_max", "E_min", "rotation_deg", "von_mises", "zncc", "std_u", "std_v", "std_E11"} {
 		s, err := f.Summary(q)
 		if err != nil || s.Count == 0 {
 			continue

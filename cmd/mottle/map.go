@@ -14,7 +14,7 @@ func runMap(ctx context.Context, e *env, args []string) error {
 		"Re-render a PNG map of any quantity from a results folder written by analyze, demo or series.\n"+
 			"The background is DIR/reference.png (or DIR/deformed.png with --on deformed), or else the\n"+
 			"image file the analysis read.")
-	q := fs.String("quantity", "E11", "quantity to draw (any name in field.json, e.g. u, v, E11, H22, e1, rotation_deg, zncc)")
+	q := fs.String("quantity", "E11", "quantity to draw (any name in field.json, e.g. u, v, E11, H22, E_max, rotation_deg, zncc)")
 	on := fs.String("on", "reference", "background: reference (points at X) or deformed (points at x = X + u)")
 	rng := fs.String("range", "", "colour-bar range `lo,hi` (default: 1st–99th percentile, symmetric for signed strain)")
 	opacity := fs.Float64("opacity", 1, "opacity of the colours over the image, (0, 1]")

@@ -136,7 +136,7 @@ func runStereo(ctx context.Context, e *env, args []string) error {
 }
 
 func printStereo(e *env, f *field.Field) {
-	for _, q := range []string{"z_mm", "std_z_mm", "u", "v", "w", "E11", "E22", "E12", "e1", "e2"} {
+	for _, q := range []string{"z_mm", "std_z_mm", "u", "v", "w", "E11", "E22", "E12", "E_max", "E_min"} {
 		if _, ok := f.Get(q); !ok {
 			continue
 		}

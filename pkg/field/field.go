@@ -81,7 +81,7 @@ type Meta struct {
 	VSG          float64   `json:"vsg_px,omitempty"`        // virtual strain gauge, px
 	StrainWindow int       `json:"strain_window,omitempty"` // grid points
 	StrainFit    string    `json:"strain_fit,omitempty"`    // "plane" or "quadratic"
-	// PrincipalOf names the strain tensor e1, e2, principal_angle_deg and
+	// PrincipalOf names the strain tensor E_max, E_min, E_max_angle_deg and
 	// von_mises are computed from, e.g. "green_lagrange".
 	PrincipalOf string  `json:"principal_of,omitempty"`
 	MMPerPx     float64 `json:"mm_per_px,omitempty"` // scale, 0 = uncalibrated
@@ -149,7 +149,7 @@ func CanonicalNames() []string {
 		"H11", "H22", "H12",
 		"A11", "A22", "A12",
 		"eps11", "eps22", "eps12",
-		"rotation_deg", "e1", "e2", "principal_angle_deg", "von_mises", "detF",
+		"rotation_deg", "E_max", "E_min", "E_max_angle_deg", "von_mises", "detF",
 		"zncc", "std_u", "std_v", "valid",
 		"std_E11", "std_E22", "std_E12", "eps_valid",
 	}
@@ -159,38 +159,38 @@ func CanonicalNames() []string {
 // an unknown name.
 func Describe(name string) string {
 	d := map[string]string{
-		"u":                   "displacement along x, x − X (Lagrangian, at the reference position)",
-		"v":                   "displacement along y (down), y − Y",
-		"F11":                 "deformation gradient ∂x/∂X",
-		"F12":                 "deformation gradient ∂x/∂Y",
-		"F21":                 "deformation gradient ∂y/∂X",
-		"F22":                 "deformation gradient ∂y/∂Y",
-		"E11":                 "Green–Lagrange strain E = ½(FᵀF − I), xx",
-		"E22":                 "Green–Lagrange strain, yy",
-		"E12":                 "Green–Lagrange strain, xy (tensor component, half the engineering shear)",
-		"H11":                 "Hencky (logarithmic) strain ln U, xx",
-		"H22":                 "Hencky strain, yy",
-		"H12":                 "Hencky strain, xy",
-		"A11":                 "Euler–Almansi strain A = ½(I − F⁻ᵀF⁻¹), xx",
-		"A22":                 "Euler–Almansi strain, yy",
-		"A12":                 "Euler–Almansi strain, xy",
-		"eps11":               "small strain ½(∇u + ∇uᵀ), xx; NaN where the rotation is too large for it",
-		"eps22":               "small strain, yy",
-		"eps12":               "small strain, xy",
-		"eps_valid":           "1 where the small strain is usable (rotation within the limit), else 0",
-		"rotation_deg":        "rotation of F = RU; positive turns +x toward +y (clockwise on screen)",
-		"e1":                  "major principal strain",
-		"e2":                  "minor principal strain",
-		"principal_angle_deg": "direction of e1 from +x toward +y (clockwise on screen)",
-		"von_mises":           "von Mises equivalent strain (2/√3)·√(e1² + e1·e2 + e2²)",
-		"detF":                "det F, the area ratio; ≤ 0 is non-physical",
-		"zncc":                "zero-normalised cross-correlation of the matched subset",
-		"std_u":               "predicted standard deviation of u",
-		"std_v":               "predicted standard deviation of v",
-		"valid":               "1 where the displacement is valid, else 0",
-		"std_E11":             "propagated standard deviation of E11",
-		"std_E22":             "propagated standard deviation of E22",
-		"std_E12":             "propagated standard deviation of E12",
+		"u":               "displacement along x, x − X (Lagrangian, at the reference position)",
+		"v":               "displacement along y (down), y − Y",
+		"F11":             "deformation gradient ∂x/∂X",
+		"F12":             "deformation gradient ∂x/∂Y",
+		"F21":             "deformation gradient ∂y/∂X",
+		"F22":             "deformation gradient ∂y/∂Y",
+		"E11":             "Green–Lagrange strain E = ½(FᵀF − I), xx",
+		"E22":             "Green–Lagrange strain, yy",
+		"E12":             "Green–Lagrange strain, xy (tensor component, half the engineering shear)",
+		"H11":             "Hencky (logarithmic) strain ln U, xx",
+		"H22":             "Hencky strain, yy",
+		"H12":             "Hencky strain, xy",
+		"A11":             "Euler–Almansi strain A = ½(I − F⁻ᵀF⁻¹), xx",
+		"A22":             "Euler–Almansi strain, yy",
+		"A12":             "Euler–Almansi strain, xy",
+		"eps11":           "small strain ½(∇u + ∇uᵀ), xx; NaN where the rotation is too large for it",
+		"eps22":           "small strain, yy",
+		"eps12":           "small strain, xy",
+		"eps_valid":       "1 where the small strain is usable (rotation within the limit), else 0",
+		"rotation_deg":    "rotation of F = RU; positive turns +x toward +y (clockwise on screen)",
+		"E_max":           "largest principal strain of the tensor that principal_of names (Green–Lagrange by default)",
+		"E_min":           "smallest principal strain of that tensor",
+		"E_max_angle_deg": "direction of E_max from +x toward +y (clockwise on screen)",
+		"von_mises":       "von Mises equivalent strain (2/√3)·√(E_max² + E_max·E_min + E_min²)",
+		"detF":            "det F, the area ratio; ≤ 0 is non-physical",
+		"zncc":            "zero-normalised cross-correlation of the matched subset",
+		"std_u":           "predicted standard deviation of u",
+		"std_v":           "predicted standard deviation of v",
+		"valid":           "1 where the displacement is valid, else 0",
+		"std_E11":         "propagated standard deviation of E11",
+		"std_E22":         "propagated standard deviation of E22",
+		"std_E12":         "propagated standard deviation of E12",
 	}
 	return d[name]
 }
@@ -382,13 +382,13 @@ func (f *Field) StatusCounts() map[string]int {
 
 // DefaultUnit returns the unit of a standard quantity when lengths are in
 // length ("px" or "mm"): length for u, v, std_u, std_v; "deg" for
-// rotation_deg and principal_angle_deg; "1" (dimensionless) for everything
+// rotation_deg and E_max_angle_deg; "1" (dimensionless) for everything
 // else, including F, every strain, detF, zncc and valid.
 func DefaultUnit(name, length string) string {
 	switch name {
 	case "u", "v", "std_u", "std_v":
 		return length
-	case "rotation_deg", "principal_angle_deg":
+	case "rotation_deg", "E_max_angle_deg":
 		return "deg"
 	}
 	return "1"

@@ -231,9 +231,9 @@ func TestTranslationInvariance(t *testing.T) {
 		for name, va := range qa {
 			for p := range va {
 				// Adding 13.25 px rounds u to its ulp (≈ 2e-15 px), which
-				// the principal angle amplifies where e1 ≈ e2.
+				// the principal angle amplifies where E_max ≈ E_min.
 				tol := 1e-12
-				if name == "principal_angle_deg" {
+				if name == "E_max_angle_deg" {
 					tol = 1e-8
 				}
 				if !(math.IsNaN(va[p]) && math.IsNaN(qb[name][p])) && !near(va[p], qb[name][p], tol) {

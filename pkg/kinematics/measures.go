@@ -73,10 +73,10 @@ type Measures struct {
 	R, U, V     Tensor  // polar decomposition F = RU = VR (NaN if det F ≤ 0)
 	RotationDeg float64 // rotation of R in degrees, positive from +x toward +y (clockwise on screen)
 
-	Basis             Measure // tensor that E1, E2, PrincipalAngleDeg and VonMises come from
-	E1, E2            float64 // principal strains of Basis, E1 ≥ E2
-	PrincipalAngleDeg float64 // direction of E1 from +x toward +y, degrees in (−90, 90]
-	VonMises          float64 // von Mises equivalent strain of E1, E2 (see [VonMises])
+	Basis        Measure // tensor that EMax, EMin, EMaxAngleDeg and VonMises come from
+	EMax, EMin   float64 // principal strains of Basis, EMax ≥ EMin
+	EMaxAngleDeg float64 // direction of EMax from +x toward +y, degrees in (−90, 90]
+	VonMises     float64 // von Mises equivalent strain of EMax, EMin (see [VonMises])
 
 	// Invertible is false when det F ≤ 0 (or F is not finite): the mapping
 	// folds or reverses orientation and is non-physical.
@@ -116,11 +116,11 @@ func Compute(F Tensor, basis Measure) Measures {
 		S = m.E
 	}
 	if S.IsFinite() {
-		m.E1, m.E2, m.PrincipalAngleDeg = Principal(S)
-		m.VonMises = VonMises(m.E1, m.E2)
+		m.EMax, m.EMin, m.EMaxAngleDeg = Principal(S)
+		m.VonMises = VonMises(m.EMax, m.EMin)
 	} else {
 		n := math.NaN()
-		m.E1, m.E2, m.PrincipalAngleDeg, m.VonMises = n, n, n, n
+		m.EMax, m.EMin, m.EMaxAngleDeg, m.VonMises = n, n, n, n
 	}
 	return m
 }

@@ -19,7 +19,7 @@ func QuantityNames() []string {
 		"H11", "H22", "H12",
 		"A11", "A22", "A12",
 		"eps11", "eps22", "eps12",
-		"rotation_deg", "e1", "e2", "principal_angle_deg", "von_mises", "detF",
+		"rotation_deg", "E_max", "E_min", "E_max_angle_deg", "von_mises", "detF",
 		"std_E11", "std_E22", "std_E12",
 		"eps_valid",
 	}
@@ -33,7 +33,7 @@ func QuantityNames() []string {
 // exceeds [SmallStrainMaxRotationDeg], and eps_valid is 1 where they are
 // usable and 0 where not. std_E11, std_E22, std_E12 are the propagated
 // standard deviations of the Green–Lagrange components (NaN when no std of u
-// and v was given). e1, e2, principal_angle_deg and von_mises come from the
+// and v was given). E_max, E_min, E_max_angle_deg and von_mises come from the
 // tensor selected by basis.
 //
 // The status is the fit's [GradStatus] string, or [StatusNonInvertible] where
@@ -74,7 +74,7 @@ func Quantities(grads []Gradient, basis Measure) (map[string][]float64, []string
 			m.H[0][0], m.H[1][1], m.H[0][1],
 			m.A[0][0], m.A[1][1], m.A[0][1],
 			e11, e22, e12,
-			m.RotationDeg, m.E1, m.E2, m.PrincipalAngleDeg, m.VonMises, m.DetF,
+			m.RotationDeg, m.EMax, m.EMin, m.EMaxAngleDeg, m.VonMises, m.DetF,
 			s11, s22, s12,
 			epsOK,
 		}

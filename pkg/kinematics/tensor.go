@@ -219,16 +219,16 @@ func Principal(S Tensor) (s1, s2, angleDeg float64) {
 }
 
 // VonMises returns the von Mises equivalent strain of a 2D strain with
-// principal values e1, e2, assuming the out-of-plane principal strain follows
-// from incompressibility, e3 = −(e1 + e2):
+// principal values E_max, E_min, assuming the out-of-plane principal strain follows
+// from incompressibility, e3 = −(E_max + E_min):
 //
-//	ε_vM = √(⅔(e1² + e2² + e3²)) = (2/√3)·√(e1² + e1·e2 + e2²).
+//	ε_vM = √(⅔(E_max² + E_min² + e3²)) = (2/√3)·√(E_max² + E_max·E_min + E_min²).
 //
 // This is the equivalent-strain definition ε_eq = √(⅔ ε′:ε′) for a
 // deviatoric (isochoric) strain, as used for sheet-metal and plasticity
 // measurements (common practice). It is exact for Hencky strain, where
 // volume constancy makes the logarithmic strains add to zero, and an
 // approximation for the other measures.
-func VonMises(e1, e2 float64) float64 {
-	return 2 / math.Sqrt(3) * math.Sqrt(e1*e1+e1*e2+e2*e2)
+func VonMises(eMax, eMin float64) float64 {
+	return 2 / math.Sqrt(3) * math.Sqrt(eMax*eMax+eMax*eMin+eMin*eMin)
 }

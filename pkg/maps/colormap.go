@@ -91,11 +91,11 @@ var signedQuantities = map[string]bool{
 	"H11": true, "H22": true, "H12": true,
 	"A11": true, "A22": true, "A12": true,
 	"eps11": true, "eps22": true, "eps12": true,
-	"e1": true, "e2": true, "rotation_deg": true,
+	"E_max": true, "E_min": true, "rotation_deg": true,
 	// The principal direction is a signed angle in (−90°, 90°]; centred
 	// on 0 (along x) the two ends both mean "along y", since −90° and 90°
 	// are the same direction.
-	"principal_angle_deg": true,
+	"E_max_angle_deg": true,
 }
 
 // binaryQuantities are the result quantities that are 1 or 0 (yes or no).

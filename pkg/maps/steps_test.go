@@ -78,16 +78,16 @@ func TestBinaryMapSteps(t *testing.T) {
 	}
 }
 
-// TestPrincipalAngleDiverging: principal_angle_deg, a signed angle in
+// TestPrincipalAngleDiverging: E_max_angle_deg, a signed angle in
 // (−90°, 90°], gets the diverging map centred on 0° (Moreland 2009): the
 // automatic range is symmetric and 0° takes the map's centre colour.
 func TestPrincipalAngleDiverging(t *testing.T) {
-	cm := ForQuantity("principal_angle_deg")
+	cm := ForQuantity("E_max_angle_deg")
 	if !cm.Diverging || cm.Name != NameCoolWarm {
-		t.Fatalf("principal_angle_deg colour map %q (diverging %v), want %q", cm.Name, cm.Diverging, NameCoolWarm)
+		t.Fatalf("E_max_angle_deg colour map %q (diverging %v), want %q", cm.Name, cm.Diverging, NameCoolWarm)
 	}
 	l := linearLayer(9, 6, 16, 16, 8, func(x, y float64) float64 { return (x - 48) * 2 }, nil) // −64° … 64°, 0° at X = 48
-	m, err := Render(l, flatGray(96, 72, 90), Options{Quantity: "principal_angle_deg"})
+	m, err := Render(l, flatGray(96, 72, 90), Options{Quantity: "E_max_angle_deg"})
 	if err != nil {
 		t.Fatal(err)
 	}

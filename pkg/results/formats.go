@@ -78,7 +78,7 @@ const DefaultFormats = NPZ + "," + Maps
 var defaultMaps = []string{"E11", "E22"}
 
 // allMaps are the quantities of the MapsAll format.
-var allMaps = []string{"u", "v", "E11", "E22", "E12", "e1", "e2", "rotation_deg", "von_mises", "zncc", "std_u"}
+var allMaps = []string{"u", "v", "E11", "E22", "E12", "E_max", "E_min", "rotation_deg", "von_mises", "zncc", "std_u"}
 
 // deformedMaps are the quantities of the MapsDef format.
 var deformedMaps = []string{"E11", "E22"}

@@ -31,8 +31,8 @@ type StereoInput struct {
 // y_mm, z_mm the reference position (the shape), std_z_mm its std along z;
 // with a state: u, v, w the 3D displacement and std_u, std_v, std_w, u_px
 // and v_px the left image displacement (for maps over the images),
-// E11, E22, E12 (Green–Lagrange), H11, H22, H12 (Hencky), e1, e2,
-// principal_angle_deg, von_mises, rotation_deg in the local tangent plane
+// E11, E22, E12 (Green–Lagrange), H11, H22, H12 (Hencky), E_max, E_min,
+// E_max_angle_deg, von_mises, rotation_deg in the local tangent plane
 // (axis 1 along the left image's x projected on the surface),
 // w_normal the displacement along the local surface normal,
 // normal_rotation_deg; zncc, gap_px (optimal correction of the pair) and
@@ -114,8 +114,8 @@ func BuildStereo(in StereoInput, params any, software string) (*field.Field, err
 		}
 	}
 	if sf := in.Surface; sf != nil {
-		names := []string{"E11", "E22", "E12", "H11", "H22", "H12", "e1", "e2", "principal_angle_deg", "von_mises", "rotation_deg", "w_normal", "normal_rotation_deg"}
-		unit := map[string]string{"principal_angle_deg": "deg", "rotation_deg": "deg", "normal_rotation_deg": "deg", "w_normal": "mm"}
+		names := []string{"E11", "E22", "E12", "H11", "H22", "H12", "E_max", "E_min", "E_max_angle_deg", "von_mises", "rotation_deg", "w_normal", "normal_rotation_deg"}
+		unit := map[string]string{"E_max_angle_deg": "deg", "rotation_deg": "deg", "normal_rotation_deg": "deg", "w_normal": "mm"}
 		cols := map[string][]float64{}
 		for _, nm := range names {
 			u := unit[nm]
@@ -133,8 +133,8 @@ func BuildStereo(in StereoInput, params any, software string) (*field.Field, err
 			}
 			m := s.M
 			vals := map[string]float64{"E11": m.E[0][0], "E22": m.E[1][1], "E12": m.E[0][1],
-				"H11": m.H[0][0], "H22": m.H[1][1], "H12": m.H[0][1], "e1": m.E1, "e2": m.E2,
-				"principal_angle_deg": m.PrincipalAngleDeg, "von_mises": m.VonMises, "rotation_deg": m.RotationDeg,
+				"H11": m.H[0][0], "H22": m.H[1][1], "H12": m.H[0][1], "E_max": m.EMax, "E_min": m.EMin,
+				"E_max_angle_deg": m.EMaxAngleDeg, "von_mises": m.VonMises, "rotation_deg": m.RotationDeg,
 				"w_normal": s.W, "normal_rotation_deg": s.NormalRotationDeg}
 			for nm, x := range vals {
 				cols[nm][k] = x

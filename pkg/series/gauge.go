@@ -129,7 +129,7 @@ var gaugeComponents = map[string]bool{
 	"H11": true, "H22": true, "H12": true,
 	"A11": true, "A22": true, "A12": true,
 	"eps11": true, "eps22": true, "eps12": true,
-	"rotation_deg": true, "e1": true, "e2": true, "von_mises": true, "detF": true,
+	"rotation_deg": true, "E_max": true, "E_min": true, "von_mises": true, "detF": true,
 }
 
 func sortedKeys(m map[string]bool) []string {

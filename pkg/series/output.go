@@ -22,7 +22,7 @@ func unitOf(name, length string) string {
 	case strings.HasPrefix(name, "vel_"):
 		return length + "/s"
 	case strings.HasPrefix(name, "acc_"):
-		return length + "/s^2"
+		return length + "/s²"
 	case strings.HasPrefix(name, "rate_"):
 		return "1/s"
 	case strings.HasSuffix(name, "_deg"):

@@ -55,7 +55,7 @@ var routeNeeds = map[string]need{
 	"POST /v1/analyses":                         {access.Submit, scopeCreate, false},
 	"GET /v1/analyses":                          {access.Read, scopeList, false},
 	"POST /v1/demo":                             {access.Submit, scopeCreate, false},
-	"POST /v1/images/inspect":                   {access.Submit, scopeCreate, false},
+	"POST /v1/images/check":                     {access.Submit, scopeCreate, false},
 	"POST /v1/calibrations":                     {access.Submit, scopeCreate, false},
 	"DELETE " + analysisPath:                    {access.Manage, scopeResource, false},
 	"PATCH " + analysisPath:                     {access.Manage, scopeResource, false},

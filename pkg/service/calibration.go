@@ -36,12 +36,12 @@ type CalibrationOptions struct {
 // (format mottle-camera/1). Nothing is stored.
 func (s *Server) postCalibration(w http.ResponseWriter, r *http.Request) {
 	select {
-	case s.inspecting <- struct{}{}:
-		defer func() { <-s.inspecting }()
+	case s.checking <- struct{}{}:
+		defer func() { <-s.checking }()
 	default:
 		w.Header().Set("Retry-After", "1")
 		writeProblem(w, r, problem(http.StatusTooManyRequests, "busy", "Too many requests being computed",
-			fmt.Sprintf("%d image inspections or calibrations are running, as many as the server has workers; retry in a second", cap(s.inspecting))))
+			fmt.Sprintf("%d image checks or calibrations are running, as many as the server has workers; retry in a second", cap(s.checking))))
 		return
 	}
 	f, err := s.calibrate(w, r)

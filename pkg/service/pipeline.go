@@ -25,7 +25,7 @@ type Pipeline struct{}
 
 // summaryQuantities are the quantities whose means a Summary carries.
 var summaryQuantities = []string{"u", "v", "E11", "E22", "E12", "eps11", "eps22", "eps12",
-	"H11", "H22", "H12", "rotation_deg", "e1", "e2", "von_mises", "zncc", "std_u", "std_v"}
+	"H11", "H22", "H12", "rotation_deg", "E_max", "E_min", "von_mises", "zncc", "std_u", "std_v"}
 
 // Run implements Analyzer.
 func (Pipeline) Run(ctx context.Context, in Input, progress func(done, total int)) (*Result, error) {
@@ -296,7 +296,7 @@ func frameSummary(base jobs.Summary, sm series.Summary) jobs.Summary {
 			out.Mean[k] = v
 		}
 	}
-	for _, q := range []string{"rotation_deg", "e1", "e2", "von_mises", "zncc", "std_u", "std_v"} {
+	for _, q := range []string{"rotation_deg", "E_max", "E_min", "von_mises", "zncc", "std_u", "std_v"} {
 		if v, ok := base.Mean[q]; ok {
 			out.Mean[q] = v
 		}

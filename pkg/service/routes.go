@@ -50,7 +50,7 @@ func (s *Server) routes() http.Handler {
 		r.Post("/v1/analyses", s.idempotent("analysis", s.postAnalysis))
 		r.Get("/v1/analyses", s.listAnalyses)
 		r.Post("/v1/demo", s.idempotent("analysis", s.postDemo))
-		r.Post("/v1/images/inspect", s.inspect)
+		r.Post("/v1/images/check", s.checkImage)
 		r.Post("/v1/calibrations", s.postCalibration)
 		r.Delete(analysisPath, s.analysis(s.deleteAnalysis))
 		r.Patch(analysisPath, s.analysis(s.renameAnalysis))

@@ -39,9 +39,9 @@ type Server struct {
 
 	clock clock // of the frame gate; wallClock except in its test
 
-	// inspecting bounds the image inspections computed at once (they run
+	// checking bounds the image checks computed at once (they run
 	// on the request goroutine, outside the job queue).
-	inspecting chan struct{}
+	checking chan struct{}
 
 	// lives holds the live sessions by series id (*liveSession).
 	lives sync.Map
@@ -68,7 +68,7 @@ func New(cfg Config) (*Server, error) {
 		running:  map[string]context.CancelCauseFunc{},
 		clock:    wallClock{},
 
-		inspecting: make(chan struct{}, cfg.Workers),
+		checking: make(chan struct{}, cfg.Workers),
 	}
 	for _, t := range cfg.Tokens {
 		s.tokens = append(s.tokens, sha256.Sum256([]byte(strings.TrimSpace(t))))

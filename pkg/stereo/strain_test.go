@@ -147,8 +147,8 @@ func TestTiltedStretchFigure(t *testing.T) {
 	var d1, d2 []float64
 	for _, s := range sf {
 		if s.OK {
-			d1 = append(d1, s.M.E1-want)
-			d2 = append(d2, s.M.E2)
+			d1 = append(d1, s.M.EMax-want)
+			d2 = append(d2, s.M.EMin)
 		}
 	}
 	m1, r1e := stats(d1)
@@ -201,8 +201,8 @@ func TestBulgeFigure(t *testing.T) {
 		w, wx, wy := b.W(X, Y)
 		want := (wx*wx + wy*wy) / 2
 		peak = math.Max(peak, want)
-		d1 = append(d1, s.M.E1-want)
-		d2 = append(d2, s.M.E2)
+		d1 = append(d1, s.M.EMax-want)
+		d2 = append(d2, s.M.EMin)
 		dw = append(dw, s.W-w)
 	}
 	m1, r1e := stats(d1)

@@ -17,7 +17,7 @@ const resultFormats = ['field.json', 'field.csv', 'field.vts', 'field.npz'];
 const state = {
   files: { reference: null, deformed: null },
   bitmaps: { reference: null, deformed: null },
-  inspect: { reference: null, deformed: null }, // the service's answers for files the browser cannot show
+  served: { reference: null, deformed: null }, // the service's answers for files the browser cannot show
   check: { reference: null, deformed: null },   // the service's image check (quality, subset recommendation) per image
   fileSeq: { reference: 0, deformed: 0 },
   size: null,      // [w, h] of the reference image, when the browser could decode it
@@ -78,22 +78,22 @@ async function needsService(file) {
   return tiff || (png && b.length > 24 && b[24] === 16);
 }
 
-// inspect sends file to the service, which answers its size, bit depth,
+// checkImage sends file to the service, which answers its size, bit depth,
 // speckle size and an 8-bit preview with the grey range stretched.
-// The service runs as many inspections at once as it has workers and
+// The service runs as many image checks at once as it has workers and
 // answers 429 beyond that, so the page sends its own one at a time.
-let inspectChain = Promise.resolve();
-function inspect(file) {
-  const p = inspectChain.then(() => inspectNow(file));
-  inspectChain = p.catch(() => {});
+let checkChain = Promise.resolve();
+function checkImage(file) {
+  const p = checkChain.then(() => checkNow(file));
+  checkChain = p.catch(() => {});
   return p;
 }
 
-async function inspectNow(file) {
+async function checkNow(file) {
   const type = /^image\/(png|tiff|jpeg|bmp)$/.test(file.type) ? file.type : 'application/octet-stream';
   // The service's defaults: a target of 0.01 px at 95 % of the points, a
   // strain window of 5 points for the VSG.
-  const resp = await request(`${API}/images/inspect`, { method: 'POST', body: file, headers: { 'Content-Type': type } });
+  const resp = await request(`${API}/images/check`, { method: 'POST', body: file, headers: { 'Content-Type': type } });
   const doc = await resp.json();
   const b64 = String(doc.preview_png || '').replace(/^data:image\/png;base64,/, '');
   const bin = atob(b64), bytes = new Uint8Array(bin.length);
@@ -122,23 +122,23 @@ async function setFile(role, file) {
   const info = $(`info-${role}`);
   if (!file) { info.textContent = 'none chosen'; return; }
   const kB = `${file.name}, ${(file.size / 1024).toFixed(1)} kB`;
-  let bm = null, insp = null, failure = null;
+  let bm = null, served = null, failure = null;
   try {
     bm = (await needsService(file)) ? null : await decode(file);
     if (!bm) {
       info.textContent = `${kB} (asking the service for a preview…)`;
-      insp = await inspect(file);
-      bm = insp.bitmap;
+      served = await checkImage(file);
+      bm = served.bitmap;
     }
-  } catch (err) { failure = err; bm = null; insp = null; }
+  } catch (err) { failure = err; bm = null; served = null; }
   if (seq !== state.fileSeq[role]) return; // a newer file was chosen meanwhile
   state.bitmaps[role] = bm;
-  state.inspect[role] = insp;
-  state.check[role] = insp;
-  if (!insp && bm) {
+  state.served[role] = served;
+  state.check[role] = served;
+  if (!served && bm) {
     // The image check runs on the service for every image; the page works
     // without it.
-    inspect(file).then(doc => {
+    checkImage(file).then(doc => {
       if (seq === state.fileSeq[role]) { state.check[role] = doc; updateQuality(); }
     }).catch(() => { if (seq === state.fileSeq[role]) { state.check[role] = { failed: true }; updateQuality(); } });
   }
@@ -146,14 +146,14 @@ async function setFile(role, file) {
   // The service's preview of a large image is a bounded-size display copy
   // (at most preview_max_px on its long side); the image itself keeps its
   // size, which is what the ROI editor and the analysis use.
-  const W = insp ? insp.width : bm && bm.width, H = insp ? insp.height : bm && bm.height;
+  const W = served ? served.width : bm && bm.width, H = served ? served.height : bm && bm.height;
   if (role === 'reference') {
     state.size = bm ? [W, H] : null;
     $('roi-placeholder').hidden = !!bm;
-    if (insp) {
-      state.speckle = insp.speckle_size_px ?? null;
+    if (served) {
+      state.speckle = served.speckle_size_px ?? null;
       state.speckleSource = 'service';
-      state.speckleError = insp.speckle_error || '';
+      state.speckleError = served.speckle_error || '';
     } else if (bm) {
       const s = speckleSize(greyOf(bm), bm.width, bm.height);
       state.speckle = s ? s.size : null;
@@ -174,7 +174,7 @@ async function setFile(role, file) {
     } });
     return;
   }
-  info.textContent = `${kB}, ${W} × ${H} px` + (insp ? `, ${insp.bits}-bit, grey ${fmt(insp.grey.min)}–${fmt(insp.grey.max)}; preview stretched to full contrast by the service` + (bm.width !== W ? ` and reduced to ${bm.width} × ${bm.height} px for display` : '') : '');
+  info.textContent = `${kB}, ${W} × ${H} px` + (served ? `, ${served.bits}-bit, grey ${fmt(served.grey.min)}–${fmt(served.grey.max)}; preview stretched to full contrast by the service` + (bm.width !== W ? ` and reduced to ${bm.width} × ${bm.height} px for display` : '') : '');
 }
 
 function wireDrop(role) {

@@ -17,7 +17,7 @@ import (
 // target uncertainty with its predicted noise and VSG, the same as
 // quality.Recommend on the decoded image; bad query values are 400
 // problems naming the parameter.
-func TestInspectQualityAndRecommendation(t *testing.T) {
+func TestImageCheckQualityAndRecommendation(t *testing.T) {
 	ts := newServer(t, nil)
 	g, _, err := synth.Pair(synth.PatternOptions{Seed: 2}, nil, synth.RenderOptions{W: 128, H: 128, Gain: 1.4 * 255, Noise: 1})
 	if err != nil {
@@ -27,11 +27,11 @@ func TestInspectQualityAndRecommendation(t *testing.T) {
 	if err := imageio.WritePNG(&file, g, 8); err != nil {
 		t.Fatal(err)
 	}
-	resp, b := ts.do(t, "POST", "/v1/images/inspect?target_std=0.02&step=6", "image/png", file.Bytes())
+	resp, b := ts.do(t, "POST", "/v1/images/check?target_std=0.02&step=6", "image/png", file.Bytes())
 	if resp.StatusCode != 200 {
-		t.Fatalf("inspect: %d %s", resp.StatusCode, b)
+		t.Fatalf("image check: %d %s", resp.StatusCode, b)
 	}
-	got := decodeJSON[service.Inspection](t, b)
+	got := decodeJSON[service.ImageCheck](t, b)
 	if got.Quality == nil || len(got.Quality.Warnings) == 0 || got.Quality.Warnings[0].Code != quality.Saturated ||
 		!strings.Contains(got.Quality.Warnings[0].Action, "exposure") {
 		t.Fatalf("quality %+v", got.Quality)
@@ -44,7 +44,7 @@ func TestInspectQualityAndRecommendation(t *testing.T) {
 	if r == nil || r.SubsetPx != want.SubsetPx || r.SubsetPx == 0 || r.PredictedStdPx > 0.02 || r.StepPx != 6 || r.VSGPx != 4*6+r.SubsetPx || r.NoiseSource != "image" {
 		t.Errorf("recommendation %+v, want subset %d (%s)", r, want.SubsetPx, got.RecommendationError)
 	}
-	resp, b = ts.do(t, "POST", "/v1/images/inspect?target_std=-1&strain_window=4", "image/png", file.Bytes())
+	resp, b = ts.do(t, "POST", "/v1/images/check?target_std=-1&strain_window=4", "image/png", file.Bytes())
 	if resp.StatusCode != 400 || !strings.Contains(string(b), "target_std") || !strings.Contains(string(b), "strain_window") {
 		t.Errorf("bad query: %d %s", resp.StatusCode, b)
 	}

@@ -16,7 +16,7 @@ import (
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
-// TestInspect posts 16-bit images the browser cannot show (a 16-bit PNG
+// TestImageCheck posts 16-bit images the browser cannot show (a 16-bit PNG
 // and a TIFF with 12-bit levels in 16-bit samples) and checks the answer
 // against the rendered image: size, depth, grey statistics (gonum stat),
 // the speckle size against imageio.SpeckleSize of the rendered image
@@ -24,7 +24,7 @@ import (
 // the advice (at least 3 speckles across a subset, iDICs 2018; step a
 // third to a half of the subset, common practice) and the preview, which
 // must be the image with its grey range mapped linearly onto 0–255.
-func TestInspect(t *testing.T) {
+func TestImageCheck(t *testing.T) {
 	ts := newServer(t, nil)
 	cases := []struct {
 		name, ctype string
@@ -50,13 +50,13 @@ func TestInspect(t *testing.T) {
 			if err := c.encode(&file, g); err != nil {
 				t.Fatal(err)
 			}
-			resp, b := ts.do(t, "POST", "/v1/images/inspect", c.ctype, file.Bytes())
+			resp, b := ts.do(t, "POST", "/v1/images/check", c.ctype, file.Bytes())
 			if resp.StatusCode != 200 {
-				t.Fatalf("inspect: %d %s", resp.StatusCode, b)
+				t.Fatalf("image check: %d %s", resp.StatusCode, b)
 			}
-			got := decodeJSON[service.Inspection](t, b)
+			got := decodeJSON[service.ImageCheck](t, b)
 			if got.Width != c.w || got.Height != c.h || got.Bits != 16 {
-				t.Errorf("inspect says %d×%d px, %d bits; want %d×%d px, 16 bits", got.Width, got.Height, got.Bits, c.w, c.h)
+				t.Errorf("the image check says %d×%d px, %d bits; want %d×%d px, 16 bits", got.Width, got.Height, got.Bits, c.w, c.h)
 			}
 
 			// Grey statistics against gonum (population standard deviation).
@@ -145,10 +145,10 @@ func TestInspect(t *testing.T) {
 	}
 }
 
-// TestInspectBadInput sends bodies the route must refuse with a problem
-// document, as the upload routes do; the server then still inspects a
+// TestImageCheckBadInput sends bodies the route must refuse with a problem
+// document, as the upload routes do; the server then still checks a
 // good image.
-func TestInspectBadInput(t *testing.T) {
+func TestImageCheckBadInput(t *testing.T) {
 	ts := newServer(t, func(c *service.Config) { c.MaxBodyBytes = 100 << 10 })
 	good := encodePNG(t, speckle(64, 48, 0, 0, 3))
 	cases := []struct {
@@ -168,7 +168,7 @@ func TestInspectBadInput(t *testing.T) {
 	}
 	for _, c := range cases {
 		t.Run(c.name, func(t *testing.T) {
-			resp, b := ts.do(t, "POST", "/v1/images/inspect", c.ctype, c.body)
+			resp, b := ts.do(t, "POST", "/v1/images/check", c.ctype, c.body)
 			if resp.StatusCode != c.status {
 				t.Fatalf("%d, want %d: %s", resp.StatusCode, c.status, b)
 			}
@@ -185,22 +185,22 @@ func TestInspectBadInput(t *testing.T) {
 			}
 		})
 	}
-	if resp, b := ts.do(t, "POST", "/v1/images/inspect", "image/png", good); resp.StatusCode != 200 {
+	if resp, b := ts.do(t, "POST", "/v1/images/check", "image/png", good); resp.StatusCode != 200 {
 		t.Errorf("a good image after bad ones: %d %s", resp.StatusCode, b)
 	}
 }
 
-// TestInspectAuth checks that the route needs the token like other /v1 routes.
-func TestInspectAuth(t *testing.T) {
+// TestImageCheckAuth checks that the route needs the token like other /v1 routes.
+func TestImageCheckAuth(t *testing.T) {
 	ts := newServer(t, func(c *service.Config) { c.Tokens = []string{"s3cret-token-for-tests"} })
 	good := encodePNG(t, speckle(64, 48, 0, 0, 3))
 	tok := ts.token
 	ts.token = ""
-	if resp, b := ts.do(t, "POST", "/v1/images/inspect", "image/png", good); resp.StatusCode != 401 {
+	if resp, b := ts.do(t, "POST", "/v1/images/check", "image/png", good); resp.StatusCode != 401 {
 		t.Errorf("without a token: %d %s, want 401", resp.StatusCode, b)
 	}
 	ts.token = tok
-	if resp, b := ts.do(t, "POST", "/v1/images/inspect", "image/png", good); resp.StatusCode != 200 {
+	if resp, b := ts.do(t, "POST", "/v1/images/check", "image/png", good); resp.StatusCode != 200 {
 		t.Errorf("with the token: %d %s, want 200", resp.StatusCode, b)
 	}
 }

@@ -12,10 +12,10 @@ import (
 	"github.com/mottledic/mottle/pkg/service/embedded"
 )
 
-// TestInspectBusy checks that inspections beyond the server's worker count
+// TestImageCheckBusy checks that image checks beyond the server's worker count
 // are answered 429 with Retry-After instead of piling up on request
 // goroutines (the same load rule as the job queue).
-func TestInspectBusy(t *testing.T) {
+func TestImageCheckBusy(t *testing.T) {
 	be, err := embedded.Open(t.TempDir(), 4)
 	if err != nil {
 		t.Fatal(err)
@@ -34,7 +34,7 @@ func TestInspectBusy(t *testing.T) {
 		t.Fatal(err)
 	}
 	post := func() *httptest.ResponseRecorder {
-		req := httptest.NewRequest("POST", "/v1/images/inspect", bytes.NewReader(png.Bytes()))
+		req := httptest.NewRequest("POST", "/v1/images/check", bytes.NewReader(png.Bytes()))
 		req.Header.Set("Content-Type", "image/png")
 		rec := httptest.NewRecorder()
 		s.Handler().ServeHTTP(rec, req)
@@ -43,13 +43,13 @@ func TestInspectBusy(t *testing.T) {
 	if rec := post(); rec.Code != http.StatusOK {
 		t.Fatalf("idle server: %d %s", rec.Code, rec.Body)
 	}
-	s.inspecting <- struct{}{}
-	s.inspecting <- struct{}{}
+	s.checking <- struct{}{}
+	s.checking <- struct{}{}
 	rec := post()
 	if rec.Code != http.StatusTooManyRequests || rec.Header().Get("Retry-After") == "" {
 		t.Errorf("busy server: %d, Retry-After %q; want 429 with Retry-After", rec.Code, rec.Header().Get("Retry-After"))
 	}
-	<-s.inspecting
+	<-s.checking
 	if rec := post(); rec.Code != http.StatusOK {
 		t.Errorf("after a slot freed: %d %s", rec.Code, rec.Body)
 	}

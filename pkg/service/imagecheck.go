@@ -22,10 +22,10 @@ import (
 	"github.com/mottledic/mottle/pkg/quality"
 )
 
-// Inspection is the answer of POST /v1/images/inspect: what the server
+// ImageCheck is the answer of POST /v1/images/check: what the server
 // reads from one image, for a client that cannot decode the file itself
 // (TIFF, 16-bit PNG).
-type Inspection struct {
+type ImageCheck struct {
 	// Width and Height are the image size in px.
 	Width  int `json:"width"`
 	Height int `json:"height"`
@@ -114,16 +114,16 @@ func advise(s float64) *Advice {
 	return a
 }
 
-// inspect answers POST /v1/images/inspect: the raw body is one image,
+// checkImage answers POST /v1/images/check: the raw body is one image,
 // under the same body and pixel limits as uploads.
-func (s *Server) inspect(w http.ResponseWriter, r *http.Request) {
+func (s *Server) checkImage(w http.ResponseWriter, r *http.Request) {
 	select {
-	case s.inspecting <- struct{}{}:
-		defer func() { <-s.inspecting }()
+	case s.checking <- struct{}{}:
+		defer func() { <-s.checking }()
 	default:
 		w.Header().Set("Retry-After", "1")
-		writeProblem(w, r, problem(http.StatusTooManyRequests, "busy", "Too many inspections",
-			fmt.Sprintf("%d image inspections are running, as many as the server has workers; retry in a second", cap(s.inspecting))))
+		writeProblem(w, r, problem(http.StatusTooManyRequests, "busy", "Too many image checks",
+			fmt.Sprintf("%d image checks are running, as many as the server has workers; retry in a second", cap(s.checking))))
 		return
 	}
 	_, g, err := s.readRawImage(w, r, "the image")
@@ -131,14 +131,14 @@ func (s *Server) inspect(w http.ResponseWriter, r *http.Request) {
 		writeProblem(w, r, asProblem(err, "body"))
 		return
 	}
-	q, prob := inspectQuery(r)
+	q, prob := checkQuery(r)
 	if prob != nil {
 		writeProblem(w, r, prob)
 		return
 	}
-	res, err := inspectImage(g)
+	res, err := measureImage(g)
 	if err == nil {
-		err = inspectQuality(r.Context(), res, g, q)
+		err = checkQuality(r.Context(), res, g, q)
 	}
 	if err != nil {
 		writeProblem(w, r, asProblem(err, "body"))
@@ -148,10 +148,10 @@ func (s *Server) inspect(w http.ResponseWriter, r *http.Request) {
 	writeJSON(w, http.StatusOK, res)
 }
 
-// inspectImage measures g and renders its stretched preview.
-func inspectImage(g *imageio.Gray) (*Inspection, error) {
+// measureImage measures g and renders its stretched preview.
+func measureImage(g *imageio.Gray) (*ImageCheck, error) {
 	mean, std, lo, hi := imageio.Stats(g)
-	res := &Inspection{Width: g.W, Height: g.H, Bits: g.Bits, Grey: GreyStats{mean, std, lo, hi}}
+	res := &ImageCheck{Width: g.W, Height: g.H, Bits: g.Bits, Grey: GreyStats{mean, std, lo, hi}}
 	if sz, err := imageio.SpeckleSize(g); err != nil {
 		res.SpeckleError = err.Error()
 	} else {
@@ -259,18 +259,18 @@ func readAllLimited(w http.ResponseWriter, r *http.Request, limit int64) ([]byte
 	return buf.Bytes(), err
 }
 
-// inspectParams are the query parameters of the image check: the target
+// checkParams are the query parameters of the image check: the target
 // displacement std (px), the noise σ (0 = estimate from the image), the
 // step (0 = a third of the subset) and the strain window of the VSG.
-type inspectParams struct {
+type checkParams struct {
 	target, noise float64
 	step, window  int
 }
 
-// inspectQuery reads target_std, noise_sigma, step and strain_window; a
+// checkQuery reads target_std, noise_sigma, step and strain_window; a
 // bad value is a 400 problem naming the parameter.
-func inspectQuery(r *http.Request) (inspectParams, *Problem) {
-	q := inspectParams{target: 0.01, window: analysis.Defaults().StrainWindow}
+func checkQuery(r *http.Request) (checkParams, *Problem) {
+	q := checkParams{target: 0.01, window: analysis.Defaults().StrainWindow}
 	var fields []FieldProblem
 	num := func(name string, dst *float64, ok func(float64) bool, want string) {
 		if v := r.URL.Query().Get(name); v != "" {
@@ -297,10 +297,10 @@ func inspectQuery(r *http.Request) (inspectParams, *Problem) {
 	return q, nil
 }
 
-// inspectQuality adds the quality report and the subset recommendation to
+// checkQuality adds the quality report and the subset recommendation to
 // res. Only a cancelled request is an error: a measure or recommendation
 // that cannot be made is reported in res.
-func inspectQuality(ctx context.Context, res *Inspection, g *imageio.Gray, q inspectParams) error {
+func checkQuality(ctx context.Context, res *ImageCheck, g *imageio.Gray, q checkParams) error {
 	rep, err := quality.Assess(g, nil, "image", nil, quality.Thresholds{})
 	if err == nil {
 		res.Quality = &rep
