@@ -6,11 +6,13 @@ import (
 	"context"
 	"fmt"
 	"io"
+	"log/slog"
 	"net/http"
 	"os"
 	"path/filepath"
 	"regexp"
 	"strings"
+	"sync"
 	"testing"
 	"time"
 
@@ -26,6 +28,7 @@ import (
 type lab struct {
 	*testServer
 	path   string // the token file
+	log    *syncBuffer
 	tokens map[string]string
 	recs   []*access.Record
 }
@@ -58,8 +61,10 @@ func newLab(t *testing.T, mod func(*service.Config)) *lab {
 	if err != nil {
 		t.Fatal(err)
 	}
+	l.log = &syncBuffer{}
 	l.testServer = newServer(t, func(c *service.Config) {
 		c.TokenFile = f
+		c.Logger = slog.New(slog.NewJSONHandler(l.log, nil))
 		if mod != nil {
 			mod(c)
 		}
@@ -110,7 +115,44 @@ func (l *lab) call(t *testing.T, who, method, path string, hdr map[string]string
 		return resp.StatusCode, nil
 	}
 	b, _ := io.ReadAll(resp.Body)
+	for name, tok := range l.tokens {
+		if bytes.Contains(b, []byte(tok)) || strings.Contains(fmt.Sprint(resp.Header), tok) {
+			t.Errorf("%s %s: the answer holds %s's token", method, path, name)
+		}
+	}
 	return resp.StatusCode, b
+}
+
+// noTokensLogged fails if the server's log holds a token.
+func (l *lab) noTokensLogged(t *testing.T) {
+	t.Helper()
+	log := l.log.String()
+	if len(log) == 0 {
+		t.Fatal("the server logged nothing; the check would be empty")
+	}
+	for name, tok := range l.tokens {
+		if strings.Contains(log, tok) {
+			t.Errorf("the server log holds %s's token", name)
+		}
+	}
+}
+
+// syncBuffer is a bytes.Buffer safe for the server's concurrent logging.
+type syncBuffer struct {
+	mu sync.Mutex
+	b  bytes.Buffer
+}
+
+func (s *syncBuffer) Write(p []byte) (int, error) {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.Write(p)
+}
+
+func (s *syncBuffer) String() string {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	return s.b.String()
 }
 
 // fixture is what the lab holds in one project.
@@ -278,6 +320,7 @@ func TestAccessMatrix(t *testing.T) {
 			t.Errorf("%s %s without a token: %d, want 401", rt.method, rt.pattern, st)
 		}
 	}
+	l.noTokensLogged(t)
 }
 
 // TestAccessLists: lists hold only the caller's projects, and a job
@@ -369,6 +412,7 @@ func TestRevokeWhileStreaming(t *testing.T) {
 	if st, _ := l.call(t, "rig", "GET", "/v1/series", nil, "", nil); st != 200 {
 		t.Errorf("other tokens after a revocation: %d, want 200", st)
 	}
+	l.noTokensLogged(t)
 	// The open stream still carries events (it was authorized when opened).
 	events := make(chan string, 16)
 	go func() {
