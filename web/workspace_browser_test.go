@@ -140,12 +140,18 @@ func multipartImages(t *testing.T, w io.Writer, imgs map[string]*imageio.Gray, p
 	return "multipart/form-data; boundary=" + boundary
 }
 
+// shelfSettled is true when no reload of the list of earlier work is under
+// way (shelf.js counts them in the list's data-pending).
+const shelfSettled = `document.getElementById('work-list').dataset.pending === '0'`
+
 // openFromShelf clicks Open on the list item with that id.
 func openFromShelf(b *browser, id string) {
 	b.t.Helper()
 	b.run("refresh the list", chromedp.Click(chromedp.ID("shelf-refresh")))
 	sel := fmt.Sprintf(`#work-list .work-item[data-id="%s"]`, id)
-	b.wait(fmt.Sprintf(`!!document.querySelector('%s')`, sel), "the item is not in the list of earlier work")
+	// Wait for the reload to be drawn: a click on an item of the list
+	// being replaced finds no node.
+	b.wait(fmt.Sprintf(`%s && !!document.querySelector('%s')`, shelfSettled, sel), "the item is not in the list of earlier work")
 	b.run("open it from the list", eval(`document.body.dataset.result = ""`), chromedp.Click(chromedp.CSS(sel+" .work-acts button")))
 	b.waitResult()
 }
@@ -544,7 +550,7 @@ func checkShelf(b *browser, base, aid, full, resumed string) {
 	t := b.t
 	t.Helper()
 	b.run("refresh the list", chromedp.Click(chromedp.ID("shelf-refresh")))
-	b.wait(`document.querySelectorAll('#work-list .work-item').length >= 3 && [...document.querySelectorAll('#work-list img')].every(i => i.complete && i.naturalWidth > 0)`, "the list or its thumbnails did not load")
+	b.wait(shelfSettled+` && document.querySelectorAll('#work-list .work-item').length >= 3 && [...document.querySelectorAll('#work-list img')].every(i => i.complete && i.naturalWidth > 0)`, "the list or its thumbnails did not load")
 	names := value[map[string]string](b, `Object.fromEntries([...document.querySelectorAll('#work-list .work-item')].map(li => [li.dataset.id, li.dataset.kind + ': ' + li.querySelector('.work-name').textContent + ' | ' + li.querySelector('.work-meta').textContent]))`)
 	for id, want := range map[string]string{aid: "analysis: Translation check", full: "series: Coupon A7 tension", resumed: "series: Coupon A7 resumed"} {
 		if !strings.HasPrefix(names[id], want) || !strings.Contains(names[id], "160 × 128 px") {
@@ -558,6 +564,7 @@ func checkShelf(b *browser, base, aid, full, resumed string) {
 	// the bare image.
 	b.run("show u", setValue("#q-select", "u"))
 	checkMapDrawn(b)
+	b.wait(shelfSettled, "the list of earlier work did not settle")
 	b.run("open the series from the list", eval(`document.body.dataset.result = ""`),
 		chromedp.Click(chromedp.CSS(fmt.Sprintf(`#work-list .work-item[data-id="%s"] .work-acts button`, full))))
 	b.waitResult()
@@ -565,6 +572,7 @@ func checkShelf(b *browser, base, aid, full, resumed string) {
 	checkMapDrawn(b)
 
 	item := fmt.Sprintf(`#work-list .work-item[data-id="%s"]`, resumed)
+	b.wait(shelfSettled, "the list of earlier work did not settle")
 	b.run("rename by keyboard", chromedp.Click(chromedp.CSS(item+` .work-acts button:nth-child(2)`)),
 		eval(fmt.Sprintf(`document.querySelector('%s .rename input').value = ''`, item)),
 		chromedp.SendKeys(chromedp.CSS(item+" .rename input"), "Coupon A7, second pull"),

@@ -20,6 +20,14 @@ export class Shelf {
 
   /** refresh reloads the list from the server. */
   async refresh() {
+    // ul.dataset.pending counts the reloads under way, so that a reader
+    // (and the browser tests) can tell a settled list from one about to be
+    // drawn again.
+    this.pending = (this.pending || 0) + 1; this.ul.dataset.pending = String(this.pending);
+    try { await this.reload(); } finally { this.pending--; this.ul.dataset.pending = String(this.pending); }
+  }
+
+  async reload() {
     let an = [], sr = [];
     try {
       an = (await getJSON(`${API}/analyses?limit=100`)).analyses || [];
