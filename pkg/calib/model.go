@@ -7,8 +7,8 @@
 // OpenCV documents. The fit starts from the closed form of Zhang 2000 ("A
 // flexible new technique for camera calibration", IEEE TPAMI 22(11):1330)
 // and refines all parameters and poses by Levenberg–Marquardt (Moré 1978,
-// "The Levenberg–Marquardt algorithm: implementation and theory", Lecture
-// Notes in Mathematics 630).
+// "The Levenberg–Marquardt algorithm: implementation and theory", in
+// Numerical Analysis, Springer LNM 630).
 //
 // Pixel coordinates have pixel centres at integers, x to the right and y
 // down, as everywhere in Mottle. Target (plane) coordinates are in mm.
