@@ -181,6 +181,22 @@ func (j *jsonField) field() (*Field, error) {
 	if f.Units == nil {
 		f.Units = map[string]string{}
 	}
+	// WriteJSON writes a field without statuses as "status": [], so an
+	// empty list reads as no statuses, as a missing one does (found by
+	// FuzzReadJSON: a document without a status list was accepted but its
+	// written copy was refused).
+	if len(f.Status) == 0 {
+		f.Status = nil
+	}
+	// Likewise empty cautions, which WriteJSON omits; the extra metadata is
+	// always a map (empty when the document has none), so callers can add
+	// to it.
+	if len(f.Meta.Cautions) == 0 {
+		f.Meta.Cautions = nil
+	}
+	if f.Meta.Extra == nil {
+		f.Meta.Extra = map[string]any{}
+	}
 	if len(j.Params) > 0 && !bytes.Equal(j.Params, []byte("null")) {
 		f.Params = j.Params
 	}
