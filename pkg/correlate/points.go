@@ -7,6 +7,7 @@ import (
 	"math"
 
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/quality"
 	"github.com/mottledic/mottle/pkg/roi"
 )
 
@@ -92,32 +93,14 @@ func RunPoints(ctx context.Context, ref, def *imageio.Gray, pts [][2]float64, gu
 // mask (nil = whole image); the mean difference (a brightness change) is
 // removed first (common practice; iDICs 2018 guide, noise floor from
 // stationary images). Any motion between the images inflates the estimate.
+// The computation is quality.NoiseFromPair's.
 func EstimateNoise(a, b *imageio.Gray, mask *roi.Mask) (float64, error) {
 	if err := checkImages(a, b, 1); err != nil {
 		return 0, err
 	}
-	if mask != nil && (mask.W != a.W || mask.H != a.H) {
-		return 0, fmt.Errorf("correlate: mask is %d×%d but the images are %d×%d", mask.W, mask.H, a.W, a.H)
+	s, err := quality.NoiseFromPair(a, b, mask)
+	if err != nil {
+		return 0, fmt.Errorf("correlate: %w", err)
 	}
-	var n, s, ss float64
-	for y := 0; y < a.H; y++ {
-		for x := 0; x < a.W; x++ {
-			if mask != nil && !mask.Inside(x, y) {
-				continue
-			}
-			d := float64(a.Pix[y*a.Stride+x]) - float64(b.Pix[y*b.Stride+x])
-			n++
-			s += d
-			ss += d * d
-		}
-	}
-	if n < 2 {
-		return 0, errors.New("correlate: noise estimate needs at least two pixels")
-	}
-	mean := s / n
-	v := (ss - n*mean*mean) / (n - 1)
-	if math.IsNaN(v) || math.IsInf(v, 0) {
-		return 0, errors.New("correlate: noise estimate is not finite: check the images for invalid values")
-	}
-	return math.Sqrt(math.Max(v, 0) / 2), nil
+	return s, nil
 }

@@ -14,9 +14,8 @@ import (
 // mask (nil = whole image), after removing the mean difference (a change of
 // brightness). This is the noise floor from stationary images that the
 // iDICs Good Practices Guide (2018) asks for. Any motion or change of
-// lighting between the images inflates the estimate. The formula is the
-// same as correlate.EstimateNoise, repeated here so that quality needs no
-// correlation package.
+// lighting between the images inflates the estimate. correlate.EstimateNoise
+// calls this.
 func NoiseFromPair(a, b *imageio.Gray, mask *roi.Mask) (float64, error) {
 	if a == nil || b == nil || a.W*a.H == 0 || b.W*b.H == 0 {
 		return 0, fmt.Errorf("%w: static pair: both images are needed", ErrEmpty)
