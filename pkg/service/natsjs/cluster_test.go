@@ -337,7 +337,17 @@ func startCluster(t testing.TB) *cluster {
 			os.Args[0], "-test.run=^$"))
 	}
 	for _, n := range c.nodes {
-		waitFor(t, n.name+" ready", func() bool { return strings.Contains(n.out.String(), "ready") })
+		waitFor(t, n.name+" ready", func() bool {
+			select {
+			case <-n.done:
+				// A node that exited (a cluster port taken between
+				// freePorts and its listen, say) never gets ready: fail
+				// now with its output rather than at the time limit.
+				t.Fatalf("%s exited before it was ready:\n%s", n.name, tail(n.out.String(), 1500))
+			default:
+			}
+			return strings.Contains(n.out.String(), "ready")
+		})
 	}
 	return c
 }

@@ -561,7 +561,30 @@ func TestQueueNak(t *testing.T) {
 }
 
 // runCluster starts three in-process JetStream servers in one cluster.
+// The cluster ports are chosen free before the servers listen on them, so
+// another process can take one in between (seen once in CI: a server then
+// never became ready and the test waited for the package's whole time
+// limit). A start that is not ready within clusterReady is therefore shut
+// down and tried again on new ports.
 func runCluster(t testing.TB) []*server.Server {
+	t.Helper()
+	const attempts = 4
+	for range attempts {
+		if srvs := startServers(t); srvs != nil {
+			return srvs
+		}
+	}
+	t.Fatalf("nats cluster not ready after %d starts of %s each", attempts, clusterReady)
+	return nil
+}
+
+// clusterReady bounds the wait for one start of the test cluster; on an
+// idle machine the servers listen within milliseconds.
+const clusterReady = 30 * time.Second
+
+// startServers starts the three servers once and returns them when all
+// listen within clusterReady; otherwise it shuts them down and returns nil.
+func startServers(t testing.TB) []*server.Server {
 	t.Helper()
 	ports := freePorts(t, 3)
 	var routes []string
@@ -579,13 +602,20 @@ func runCluster(t testing.TB) []*server.Server {
 			t.Fatal(err)
 		}
 		go s.Start()
-		t.Cleanup(s.Shutdown)
 		srvs = append(srvs, s)
 	}
+	deadline := time.Now().Add(clusterReady)
 	for _, s := range srvs {
-		if !s.ReadyForConnections(untilEnd(t)) {
-			t.Fatal("nats server not ready")
+		if !s.ReadyForConnections(time.Until(deadline)) {
+			t.Logf("nats cluster on ports %v not ready within %s; starting again", ports, clusterReady)
+			for _, s := range srvs {
+				s.Shutdown()
+			}
+			return nil
 		}
+	}
+	for _, s := range srvs {
+		t.Cleanup(s.Shutdown)
 	}
 	return srvs
 }
