@@ -23,9 +23,9 @@ func TestLayering(t *testing.T) {
 		"pkg/maps":       {"pkg/correlate", "pkg/kinematics", "pkg/field", "pkg/results", "pkg/analysis", "pkg/series", "pkg/service"},
 		// The one results pipeline sits on correlation, kinematics, the
 		// field and its maps, below the analysis that calls it.
-		"pkg/results":  {"pkg/analysis", "pkg/series", "pkg/service", "pkg/demo"},
-		"pkg/analysis": {"pkg/series", "pkg/service", "pkg/demo"},
-		"pkg/series":   {"pkg/service"},
+		"pkg/results":  {"pkg/analysis", "pkg/series", "pkg/service", "pkg/runner", "pkg/demo"},
+		"pkg/analysis": {"pkg/series", "pkg/service", "pkg/runner", "pkg/demo"},
+		"pkg/series":   {"pkg/service", "pkg/runner"},
 	}
 	for pkg, bad := range forbidden {
 		deps, err := exec.Command("go", "list", "-deps", "-f", `{{.ImportPath}}`, "../../"+pkg).Output()
@@ -56,6 +56,65 @@ func TestLayering(t *testing.T) {
 			if d == "net/http" {
 				t.Errorf("%s depends on net/http; only pkg/service may", p)
 			}
+		}
+	}
+	checkServiceSplit(t, mod)
+}
+
+// checkServiceSplit checks the split of the service by job (issue 13):
+// pkg/service holds the HTTP handlers and is the only package besides the
+// commands that imports net/http; the job runner (pkg/runner) and the job
+// backends (pkg/service/jobs, embedded, natsjs) import no handler code;
+// the backends do not import the runner, and the runner reaches the
+// backends only through the interfaces of pkg/service/jobs.
+func checkServiceSplit(t *testing.T, mod string) {
+	out, err := exec.Command("go", "list", "-f", `{{.ImportPath}}|{{join .Imports " "}}|{{join .Deps " "}}`, "../../...").Output()
+	if err != nil {
+		t.Fatalf("go list ../../...: %v", err)
+	}
+	const http = "net/http"
+	// natsjs reaches net/http only through the NATS client library (its
+	// WebSocket transport); it must not import net/http itself.
+	viaLibrary := map[string]bool{"pkg/service/natsjs": true}
+	handlers := func(rel string) bool { return rel == "pkg/service" }
+	forbidden := map[string]func(rel string) bool{
+		"pkg/runner": func(rel string) bool {
+			return handlers(rel) || rel == "pkg/service/embedded" || rel == "pkg/service/natsjs" || rel == "pkg/service/access"
+		},
+		"pkg/service/jobs":     func(rel string) bool { return handlers(rel) || strings.HasPrefix(rel, "pkg/runner") },
+		"pkg/service/embedded": func(rel string) bool { return handlers(rel) || strings.HasPrefix(rel, "pkg/runner") },
+		"pkg/service/natsjs":   func(rel string) bool { return handlers(rel) || strings.HasPrefix(rel, "pkg/runner") },
+	}
+	seen := map[string]bool{}
+	for _, line := range strings.Split(strings.TrimSpace(string(out)), "\n") {
+		parts := strings.Split(line, "|")
+		if len(parts) != 3 {
+			t.Fatalf("go list: unexpected line %q", line)
+		}
+		rel, ok := strings.CutPrefix(parts[0], mod)
+		if !ok {
+			continue
+		}
+		seen[rel] = true
+		httpOK := handlers(rel) || strings.HasPrefix(rel, "cmd/")
+		for _, d := range strings.Fields(parts[1]) {
+			if d == http && !httpOK {
+				t.Errorf("%s imports net/http; only the HTTP package pkg/service (and the commands) may", rel)
+			}
+		}
+		bad := forbidden[rel]
+		for _, d := range strings.Fields(parts[2]) {
+			if d == http && !httpOK && !viaLibrary[rel] {
+				t.Errorf("%s depends on net/http; only the HTTP package pkg/service (and the commands) may", rel)
+			}
+			if dr, ok := strings.CutPrefix(d, mod); ok && bad != nil && bad(dr) {
+				t.Errorf("%s depends on %s: the runner and the backends import no handler code, and the backends not the runner", rel, dr)
+			}
+		}
+	}
+	for p := range forbidden {
+		if !seen[p] {
+			t.Errorf("package %s not found by go list; update the layering test", p)
 		}
 	}
 }

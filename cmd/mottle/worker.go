@@ -9,7 +9,7 @@ import (
 	"time"
 
 	"github.com/mottledic/mottle/pkg/imageio"
-	"github.com/mottledic/mottle/pkg/service"
+	"github.com/mottledic/mottle/pkg/runner"
 	"github.com/mottledic/mottle/pkg/service/embedded"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 	"github.com/mottledic/mottle/pkg/service/natsjs"
@@ -54,15 +54,15 @@ func runWorker(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	defer be.Close()
-	srv, err := service.New(service.Config{
-		Backend: be, Analyzer: service.Pipeline{}, Logger: log,
+	run, err := runner.New(runner.Config{
+		Backend: be, Analyzer: runner.Pipeline{}, Logger: log,
 		Workers: *workers, JobThreads: *threads, JobTimeout: *jobTimeout, ShutdownGrace: *grace,
-		MaxPixels: *maxPixels, MaxBodyBytes: *maxBody << 20,
+		MaxPixels: *maxPixels, MaxBytes: *maxBody << 20,
 	})
 	if err != nil {
 		return err
 	}
-	stop, err := srv.Start(ctx)
+	stop, err := run.Start(ctx)
 	if err != nil {
 		return err
 	}

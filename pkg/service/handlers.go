@@ -268,14 +268,12 @@ func (s *Server) queueFull(w http.ResponseWriter, r *http.Request) bool {
 // retrySeconds estimates when a queue slot frees: the queue's share per
 // worker times the mean job time.
 func (s *Server) retrySeconds() float64 {
-	m := s.metrics
-	m.mu.Lock()
-	n := m.finished[jobs.Succeeded]
+	st := s.run.Stats()
+	n := st.Finished[jobs.Succeeded]
 	mean := 1.0
 	if n > 0 {
-		mean = m.computeS / float64(n)
+		mean = st.ComputeSeconds / float64(n)
 	}
-	m.mu.Unlock()
 	return mean * float64(s.queue.Len()/s.cfg.Workers+1) / 2
 }
 

@@ -27,20 +27,14 @@ type routeKey struct{ method, route string }
 // metrics are the counters behind /metrics, written by hand in the
 // Prometheus text exposition format (version 0.0.4).
 type metrics struct {
-	mu        sync.Mutex
-	latency   map[routeKey]*histogram
-	requests  map[int]uint64 // by status code
-	finished  map[jobs.State]uint64
-	points    uint64
-	computeS  float64
-	rate      float64 // exponentially weighted points per second of recent jobs
-	busy      int
-	rejected  uint64
-	recovered uint64
+	mu       sync.Mutex
+	latency  map[routeKey]*histogram
+	requests map[int]uint64 // by status code
+	rejected uint64
 }
 
 func newMetrics() *metrics {
-	return &metrics{latency: map[routeKey]*histogram{}, requests: map[int]uint64{}, finished: map[jobs.State]uint64{}}
+	return &metrics{latency: map[routeKey]*histogram{}, requests: map[int]uint64{}}
 }
 
 func (m *metrics) observeRequest(method, route string, status int, d time.Duration) {
@@ -63,28 +57,6 @@ func (m *metrics) observeRequest(method, route string, status int, d time.Durati
 	m.requests[status]++
 }
 
-func (m *metrics) jobDone(state jobs.State, points int, seconds float64) {
-	m.mu.Lock()
-	defer m.mu.Unlock()
-	m.finished[state]++
-	if state == jobs.Succeeded && seconds > 0 {
-		m.points += uint64(points)
-		m.computeS += seconds
-		r := float64(points) / seconds
-		if m.rate == 0 {
-			m.rate = r
-		} else {
-			m.rate = 0.8*m.rate + 0.2*r
-		}
-	}
-}
-
-func (m *metrics) setBusy(delta int) {
-	m.mu.Lock()
-	m.busy += delta
-	m.mu.Unlock()
-}
-
 func (m *metrics) reject() {
 	m.mu.Lock()
 	m.rejected++
@@ -97,6 +69,7 @@ func (s *Server) writeMetrics(ctx context.Context, w io.Writer) error {
 	if err != nil {
 		return err
 	}
+	js := s.run.Stats()
 	m := s.metrics
 	m.mu.Lock()
 	defer m.mu.Unlock()
@@ -104,20 +77,20 @@ func (s *Server) writeMetrics(ctx context.Context, w io.Writer) error {
 	p("# HELP mottle_queue_depth Jobs waiting for a worker.\n# TYPE mottle_queue_depth gauge\nmottle_queue_depth %d\n", s.queue.Len())
 	p("# HELP mottle_queue_capacity Largest queue depth accepted before answering 429.\n# TYPE mottle_queue_capacity gauge\nmottle_queue_capacity %d\n", s.queue.Cap())
 	p("# HELP mottle_workers Size of the worker pool.\n# TYPE mottle_workers gauge\nmottle_workers %d\n", s.cfg.Workers)
-	p("# HELP mottle_workers_busy Workers computing a job now.\n# TYPE mottle_workers_busy gauge\nmottle_workers_busy %d\n", m.busy)
+	p("# HELP mottle_workers_busy Workers computing a job now.\n# TYPE mottle_workers_busy gauge\nmottle_workers_busy %d\n", js.Busy)
 	p("# HELP mottle_jobs Jobs in the store by state.\n# TYPE mottle_jobs gauge\n")
 	for _, st := range jobs.States() {
 		p("mottle_jobs{state=%q} %d\n", st, counts[st])
 	}
 	p("# HELP mottle_jobs_finished_total Jobs finished by this process, by final state.\n# TYPE mottle_jobs_finished_total counter\n")
 	for _, st := range []jobs.State{jobs.Succeeded, jobs.Failed, jobs.Canceled} {
-		p("mottle_jobs_finished_total{state=%q} %d\n", st, m.finished[st])
+		p("mottle_jobs_finished_total{state=%q} %d\n", st, js.Finished[st])
 	}
 	p("# HELP mottle_jobs_rejected_total Submissions answered 429 because the queue was full.\n# TYPE mottle_jobs_rejected_total counter\nmottle_jobs_rejected_total %d\n", m.rejected)
-	p("# HELP mottle_jobs_recovered_total Jobs put back in the queue at start from an earlier run.\n# TYPE mottle_jobs_recovered_total counter\nmottle_jobs_recovered_total %d\n", m.recovered)
-	p("# HELP mottle_points_total Grid points computed by succeeded jobs.\n# TYPE mottle_points_total counter\nmottle_points_total %d\n", m.points)
-	p("# HELP mottle_compute_seconds_total Compute time of succeeded jobs.\n# TYPE mottle_compute_seconds_total counter\nmottle_compute_seconds_total %s\n", fmtFloat(m.computeS))
-	p("# HELP mottle_points_per_second Grid points per second per job, averaged over recent jobs.\n# TYPE mottle_points_per_second gauge\nmottle_points_per_second %s\n", fmtFloat(m.rate))
+	p("# HELP mottle_jobs_recovered_total Jobs put back in the queue at start from an earlier run.\n# TYPE mottle_jobs_recovered_total counter\nmottle_jobs_recovered_total %d\n", js.Recovered)
+	p("# HELP mottle_points_total Grid points computed by succeeded jobs.\n# TYPE mottle_points_total counter\nmottle_points_total %d\n", js.Points)
+	p("# HELP mottle_compute_seconds_total Compute time of succeeded jobs.\n# TYPE mottle_compute_seconds_total counter\nmottle_compute_seconds_total %s\n", fmtFloat(js.ComputeSeconds))
+	p("# HELP mottle_points_per_second Grid points per second per job, averaged over recent jobs.\n# TYPE mottle_points_per_second gauge\nmottle_points_per_second %s\n", fmtFloat(js.Rate))
 
 	codes := make([]int, 0, len(m.requests))
 	for c := range m.requests {

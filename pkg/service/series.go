@@ -371,16 +371,6 @@ func (s *Server) listFrames(w http.ResponseWriter, r *http.Request, sr *jobs.Ser
 	writeJSON(w, http.StatusOK, map[string]any{"frames": out})
 }
 
-// frames returns the frame jobs of sr in frame order.
-func (s *Server) frames(ctx context.Context, sr *jobs.Series) ([]*jobs.Job, error) {
-	list, err := s.store.Jobs(ctx, jobs.Filter{Series: sr.ID})
-	if err != nil {
-		return nil, err
-	}
-	sort.Slice(list, func(a, b int) bool { return list[a].FrameIndex < list[b].FrameIndex })
-	return list, nil
-}
-
 // curveRow is one frame of a series curve.
 type curveRow struct {
 	Frame         int        `json:"frame"`

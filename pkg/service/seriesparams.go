@@ -4,10 +4,10 @@ import (
 	"bytes"
 	"encoding/json"
 	"errors"
-	"fmt"
 	"net/http"
 
 	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/runner"
 	"github.com/mottledic/mottle/pkg/series"
 )
 
@@ -51,10 +51,4 @@ func (s *Server) parseSeriesParams(raw []byte, w, h int) (series.Params, error) 
 func flatSeriesParams(p series.Params) ([]byte, error) { return p.FlatJSON() }
 
 // decodeSeriesParams reads a document written by flatSeriesParams.
-func decodeSeriesParams(b []byte) (series.Params, error) {
-	p, err := series.ParseParams(b)
-	if err != nil {
-		return p, fmt.Errorf("stored series parameters: %w", err)
-	}
-	return p, nil
-}
+func decodeSeriesParams(b []byte) (series.Params, error) { return runner.DecodeSeriesParams(b) }

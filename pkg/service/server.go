@@ -11,12 +11,13 @@ import (
 	"strings"
 	"sync"
 	"sync/atomic"
-	"time"
 
+	"github.com/mottledic/mottle/pkg/runner"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
-// Server is the Mottle HTTP service with its worker pool.
+// Server is the Mottle HTTP service; its jobs are computed by a
+// runner.Runner it starts with it.
 type Server struct {
 	cfg     Config
 	log     *slog.Logger
@@ -27,17 +28,13 @@ type Server struct {
 	tickets tickets
 	rates   rates
 	metrics *metrics
+	run     *runner.Runner
 	handler http.Handler
 
 	draining atomic.Bool
 	// stopping is closed when shutdown begins: event streams and waits end.
 	stopping chan struct{}
 	stopOnce sync.Once
-
-	mu      sync.Mutex
-	running map[string]context.CancelCauseFunc
-
-	clock clock // of the frame gate; wallClock except in its test
 
 	// checking bounds the image checks computed at once (they run
 	// on the request goroutine, outside the job queue).
@@ -57,6 +54,13 @@ func New(cfg Config) (*Server, error) {
 		return nil, err
 	}
 	cfg.defaults()
+	run, err := runner.New(runner.Config{Backend: cfg.Backend, Analyzer: cfg.Analyzer, Logger: cfg.Logger,
+		Workers: cfg.Workers, JobThreads: cfg.JobThreads, MaxAttempts: cfg.MaxAttempts,
+		MaxPixels: cfg.MaxPixels, MaxBytes: cfg.MaxBodyBytes, JobTimeout: cfg.JobTimeout,
+		ShutdownGrace: cfg.ShutdownGrace, Retention: cfg.Retention, BeforeCompute: cfg.BeforeCompute})
+	if err != nil {
+		return nil, err
+	}
 	s := &Server{
 		cfg:      cfg,
 		log:      cfg.Logger,
@@ -64,9 +68,8 @@ func New(cfg Config) (*Server, error) {
 		blobs:    cfg.Backend.Blobs,
 		queue:    cfg.Backend.Queue,
 		metrics:  newMetrics(),
+		run:      run,
 		stopping: make(chan struct{}),
-		running:  map[string]context.CancelCauseFunc{},
-		clock:    wallClock{},
 
 		checking: make(chan struct{}, cfg.Workers),
 	}
@@ -81,68 +84,23 @@ func New(cfg Config) (*Server, error) {
 // Handler returns the HTTP handler of the service.
 func (s *Server) Handler() http.Handler { return s.handler }
 
-// Errors that stop a job, told apart by context.Cause.
-var (
-	errShutdown   = errors.New("server shutting down")
-	errCanceled   = errors.New("canceled by a client")
-	errJobTimeout = errors.New("job timeout")
-)
+// errShutdown ends the waits of requests when shutdown begins.
+var errShutdown = errors.New("server shutting down")
 
-// Start recovers jobs left by an earlier run and starts the workers and the
-// retention janitor. It returns a function that stops them: it stops taking
-// new jobs, lets running ones go on for up to Config.ShutdownGrace, then
-// stops those and puts them back in the queue, and returns when every
-// worker has ended.
+// Start starts the server's runner (runner.Runner.Start): it recovers jobs
+// left by an earlier run and starts the workers and the retention janitor.
+// It returns a function that stops them: it ends event streams and waits,
+// stops taking new jobs, lets running ones go on for up to
+// Config.ShutdownGrace, then stops those and puts them back in the queue,
+// and returns when every worker has ended.
 func (s *Server) Start(ctx context.Context) (stop func(), err error) {
-	if rec := s.cfg.Backend.Recover; rec != nil {
-		n, err := rec(ctx)
-		if err != nil {
-			return nil, fmt.Errorf("recover jobs: %w", err)
-		}
-		s.metrics.mu.Lock()
-		s.metrics.recovered += uint64(n)
-		s.metrics.mu.Unlock()
-		if n > 0 {
-			s.log.Info("recovered jobs from an earlier run", "jobs", n)
-		}
+	rstop, err := s.run.Start(ctx)
+	if err != nil {
+		return nil, err
 	}
-	dequeueCtx, stopDequeue := context.WithCancel(context.Background())
-	jobCtx, stopJobs := context.WithCancelCause(context.Background())
-	var wg sync.WaitGroup
-	for i := 0; i < s.cfg.Workers; i++ {
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			s.work(dequeueCtx, jobCtx)
-		}()
-	}
-	janitorCtx, stopJanitor := context.WithCancel(context.Background())
-	var jwg sync.WaitGroup
-	if s.cfg.Retention > 0 {
-		jwg.Add(1)
-		go func() {
-			defer jwg.Done()
-			s.janitor(janitorCtx)
-		}()
-	}
-	var once sync.Once
 	return func() {
-		once.Do(func() {
-			s.beginStop()
-			stopDequeue()
-			stopJanitor()
-			done := make(chan struct{})
-			go func() { wg.Wait(); close(done) }()
-			select {
-			case <-done:
-			case <-time.After(s.cfg.ShutdownGrace):
-				s.log.Warn("shutdown grace over: stopping running jobs and putting them back in the queue")
-				stopJobs(errShutdown)
-				<-done
-			}
-			stopJobs(errShutdown)
-			jwg.Wait()
-		})
+		s.beginStop()
+		rstop()
 	}, nil
 }
 

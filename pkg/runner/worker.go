@@ -1,4 +1,4 @@
-package service
+package runner
 
 import (
 	"bytes"
@@ -18,7 +18,7 @@ import (
 // work takes jobs from the queue until dequeueCtx is done. Jobs run under
 // jobCtx, which is canceled (cause errShutdown) when the shutdown grace
 // period is over.
-func (s *Server) work(dequeueCtx, jobCtx context.Context) {
+func (s *Runner) work(dequeueCtx, jobCtx context.Context) {
 	for dequeueCtx.Err() == nil {
 		d, err := s.queue.Dequeue(dequeueCtx)
 		if err != nil {
@@ -44,7 +44,7 @@ func (s *Server) work(dequeueCtx, jobCtx context.Context) {
 var errSkip = errors.New("skip")
 
 // runJob computes one delivered job and records the outcome.
-func (s *Server) runJob(base context.Context, d jobs.Delivery) {
+func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 	id := d.ID()
 	ctx := context.Background()
 	l := s.log.With("job", id)
@@ -122,7 +122,7 @@ func (s *Server) runJob(base context.Context, d jobs.Delivery) {
 		// The new state goes in before the frame counts as done; the state
 		// it was made from is kept until then, so a crash in between
 		// repeats the frame from the same start.
-		err = s.blobs.Put(ctx, stateKey(j.Series, j.FrameIndex), bytes.NewReader(res.State))
+		err = s.blobs.Put(ctx, StateKey(j.Series, j.FrameIndex), bytes.NewReader(res.State))
 	}
 	cause := context.Cause(jctx)
 	if err != nil && jctx.Err() == nil {
@@ -216,7 +216,7 @@ const frameQueuedWait = time.Second
 // frameQueuedWait while the previous frame of its series has not started,
 // and frameWait in all, telling the queue from time to time that the
 // delivery is still held. It reports whether the job may run.
-func (s *Server) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
+func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
 	start := s.clock.Now()
 	beat := start
 	var idle time.Time // since when the previous frame has been seen not running
@@ -265,7 +265,7 @@ const (
 // (succeeded, failed or canceled), so that the frames of one series run
 // one at a time and in order while different series run in parallel.
 // If it may not, it tells whether frame n−1 is running.
-func (s *Server) frameReady(ctx context.Context, id string) gate {
+func (s *Runner) frameReady(ctx context.Context, id string) gate {
 	j, err := s.store.Job(ctx, id)
 	if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
 		return gateOpen // the normal path deals with it
@@ -307,15 +307,15 @@ type wallClock struct{}
 func (wallClock) Now() time.Time                         { return time.Now() }
 func (wallClock) After(d time.Duration) <-chan time.Time { return time.After(d) }
 
-// stateKey is the blob key of a series' tracker state after frame n.
-func stateKey(seriesID string, n int) string {
+// StateKey is the blob key of a series' tracker state after frame n.
+func StateKey(seriesID string, n int) string {
 	return jobs.SeriesKey(seriesID, fmt.Sprintf("state/%06d.json", n))
 }
 
 // lastDone returns the last succeeded frame of j's series before j, or nil
 // when there is none: the frame whose tracker state j continues from.
-func (s *Server) lastDone(ctx context.Context, j *jobs.Job) (*jobs.Job, error) {
-	list, err := s.frames(ctx, &jobs.Series{ID: j.Series})
+func (s *Runner) lastDone(ctx context.Context, j *jobs.Job) (*jobs.Job, error) {
+	list, err := s.Frames(ctx, j.Series)
 	if err != nil {
 		return nil, err
 	}
@@ -330,10 +330,10 @@ func (s *Server) lastDone(ctx context.Context, j *jobs.Job) (*jobs.Job, error) {
 
 // dropOldState removes the tracker state j was computed from, now that
 // j's own state is stored and j is recorded as done.
-func (s *Server) dropOldState(ctx context.Context, j *jobs.Job) {
+func (s *Runner) dropOldState(ctx context.Context, j *jobs.Job) {
 	last, err := s.lastDone(ctx, j)
 	if err == nil && last != nil {
-		err = s.blobs.Delete(ctx, stateKey(j.Series, last.FrameIndex))
+		err = s.blobs.Delete(ctx, StateKey(j.Series, last.FrameIndex))
 	}
 	if err != nil {
 		s.log.Warn("remove old series state", "job", j.ID, "error", err)
@@ -342,7 +342,7 @@ func (s *Server) dropOldState(ctx context.Context, j *jobs.Job) {
 
 // computeFrame runs series frame j through the series engine, from the
 // state after the last frame that succeeded before it.
-func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer, progress func(done, total int)) (*Result, error) {
+func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer, progress func(done, total int)) (*Result, error) {
 	in := FrameInput{Params: j.Params, Name: j.Name, Time: j.Time, Load: j.Load, Formats: j.Formats,
 		Threads: s.cfg.JobThreads, Progress: progress, RefName: "reference"}
 	if in.Name == "" {
@@ -352,11 +352,11 @@ func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 		in.RefName = sr.ReferenceName
 	}
 	var err error
-	if in.Ref, err = s.loadImage(ctx, jobs.SeriesKey(j.Series, "reference")); err != nil {
+	if in.Ref, err = s.LoadImage(ctx, jobs.SeriesKey(j.Series, "reference")); err != nil {
 		return nil, err
 	}
 	in.Orientation = in.Ref.Orientation
-	if in.Def, err = s.loadImageAs(ctx, jobs.InputKey(j.ID, "deformed"), in.Orientation); err != nil {
+	if in.Def, err = s.LoadImageAs(ctx, jobs.InputKey(j.ID, "deformed"), in.Orientation); err != nil {
 		return nil, err
 	}
 	last, err := s.lastDone(ctx, j)
@@ -365,15 +365,15 @@ func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 	}
 	if last == nil && j.HasMask {
 		// The engine keeps the mask in its state after the first frame.
-		if in.Mask, err = s.loadImage(ctx, jobs.SeriesKey(j.Series, "mask")); err != nil {
+		if in.Mask, err = s.LoadImage(ctx, jobs.SeriesKey(j.Series, "mask")); err != nil {
 			return nil, err
 		}
 	}
 	if last != nil {
-		if in.State, err = s.readBlob(ctx, stateKey(j.Series, last.FrameIndex)); err != nil {
+		if in.State, err = s.ReadBlob(ctx, StateKey(j.Series, last.FrameIndex)); err != nil {
 			return nil, fmt.Errorf("series state after frame %d: %w; the series cannot continue, start a new series", last.FrameIndex, err)
 		}
-		if in.Last, err = s.loadImageAs(ctx, jobs.InputKey(last.ID, "deformed"), in.Orientation); err != nil {
+		if in.Last, err = s.LoadImageAs(ctx, jobs.InputKey(last.ID, "deformed"), in.Orientation); err != nil {
 			return nil, err
 		}
 	}
@@ -381,7 +381,7 @@ func (s *Server) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 }
 
 // compute loads the inputs of j and runs the analyzer.
-func (s *Server) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Result, error) {
+func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Result, error) {
 	var last, beat time.Time
 	progress := func(done, total int) {
 		now := time.Now()
@@ -408,24 +408,24 @@ func (s *Server) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 		refKey, maskKey = jobs.SeriesKey(j.Series, "reference"), jobs.SeriesKey(j.Series, "mask")
 	}
 	var err error
-	if in.Ref, err = s.loadImage(ctx, refKey); err != nil {
+	if in.Ref, err = s.LoadImage(ctx, refKey); err != nil {
 		return nil, err
 	}
 	in.Orientation = in.Ref.Orientation
-	if in.Def, err = s.loadImageAs(ctx, jobs.InputKey(j.ID, "deformed"), in.Orientation); err != nil {
+	if in.Def, err = s.LoadImageAs(ctx, jobs.InputKey(j.ID, "deformed"), in.Orientation); err != nil {
 		return nil, err
 	}
 	if j.HasMask {
-		if in.Mask, err = s.loadImage(ctx, maskKey); err != nil {
+		if in.Mask, err = s.LoadImage(ctx, maskKey); err != nil {
 			return nil, err
 		}
 	}
 	return s.cfg.Analyzer.Run(ctx, in, progress)
 }
 
-// loadImage decodes the stored image under key, turned upright by its own
+// LoadImage decodes the stored image under key, turned upright by its own
 // EXIF orientation (see upright).
-func (s *Server) loadImage(ctx context.Context, key string) (*imageio.Gray, error) {
+func (s *Runner) LoadImage(ctx context.Context, key string) (*imageio.Gray, error) {
 	g, err := s.loadStored(ctx, key)
 	if err != nil {
 		return nil, err
@@ -433,11 +433,11 @@ func (s *Server) loadImage(ctx context.Context, key string) (*imageio.Gray, erro
 	return upright(key, g, g.Orientation)
 }
 
-// loadImageAs decodes the stored image under key turned by o, the
+// LoadImageAs decodes the stored image under key turned by o, the
 // orientation of its series or pair reference: the camera does not turn
 // during a test, so every frame takes the reference's turn whatever its
 // own tag says (imageio.OrientSeries).
-func (s *Server) loadImageAs(ctx context.Context, key string, o imageio.Orientation) (*imageio.Gray, error) {
+func (s *Runner) LoadImageAs(ctx context.Context, key string, o imageio.Orientation) (*imageio.Gray, error) {
 	g, err := s.loadStored(ctx, key)
 	if err != nil {
 		return nil, err
@@ -446,13 +446,13 @@ func (s *Server) loadImageAs(ctx context.Context, key string, o imageio.Orientat
 }
 
 // loadStored decodes the stored image under key as stored.
-func (s *Server) loadStored(ctx context.Context, key string) (*imageio.Gray, error) {
+func (s *Runner) loadStored(ctx context.Context, key string) (*imageio.Gray, error) {
 	rc, err := s.blobs.Get(ctx, key)
 	if err != nil {
 		return nil, fmt.Errorf("stored image: %w", err)
 	}
 	defer rc.Close()
-	g, err := imageio.Decode(rc, s.limits())
+	g, err := imageio.Decode(rc, s.Limits())
 	if err != nil {
 		return nil, fmt.Errorf("stored image %s: %w", key, err)
 	}
@@ -465,18 +465,19 @@ func (s *Server) loadStored(ctx context.Context, key string) (*imageio.Gray, err
 func upright(what string, g *imageio.Gray, o imageio.Orientation) (*imageio.Gray, error) {
 	t, err := imageio.Orient(g, o)
 	if err != nil {
-		return nil, asProblem(fmt.Errorf("%s: %w", what, err), what)
+		return nil, fmt.Errorf("%s: %w", what, err)
 	}
 	return t, nil
 }
 
-func (s *Server) limits() imageio.Limits {
-	return imageio.Limits{MaxPixels: s.cfg.MaxPixels, MaxBytes: s.cfg.MaxBodyBytes}
+// Limits are the decoding limits of stored images.
+func (s *Runner) Limits() imageio.Limits {
+	return imageio.Limits{MaxPixels: s.cfg.MaxPixels, MaxBytes: s.cfg.MaxBytes}
 }
 
 // storeResults puts every result file in the blob store and returns the
 // sorted names.
-func (s *Server) storeResults(ctx context.Context, id string, res *Result) ([]string, error) {
+func (s *Runner) storeResults(ctx context.Context, id string, res *Result) ([]string, error) {
 	names := make([]string, 0, len(res.Files))
 	for name := range res.Files {
 		if !jobs.ValidKey(name) {
@@ -493,9 +494,9 @@ func (s *Server) storeResults(ctx context.Context, id string, res *Result) ([]st
 	return names, nil
 }
 
-// cancelJob cancels a queued job at once, or asks the worker running it to
+// Cancel cancels a queued job at once, or asks the worker running it to
 // stop. Finished jobs are left as they are.
-func (s *Server) cancelJob(ctx context.Context, id string) (*jobs.Job, error) {
+func (s *Runner) Cancel(ctx context.Context, id string) (*jobs.Job, error) {
 	now := time.Now().UTC()
 	j, err := s.store.UpdateJob(ctx, id, func(j *jobs.Job) error {
 		switch j.State {
@@ -519,9 +520,9 @@ func (s *Server) cancelJob(ctx context.Context, id string) (*jobs.Job, error) {
 	return j, nil
 }
 
-// deleteJob cancels the job if needed and removes its record and blobs.
-func (s *Server) deleteJob(ctx context.Context, id string) error {
-	if _, err := s.cancelJob(ctx, id); err != nil {
+// DeleteJob cancels the job if needed and removes its record and blobs.
+func (s *Runner) DeleteJob(ctx context.Context, id string) error {
+	if _, err := s.Cancel(ctx, id); err != nil {
 		return err
 	}
 	if err := s.blobs.Delete(ctx, jobs.JobKey(id)); err != nil {
@@ -534,7 +535,7 @@ func (s *Server) deleteJob(ctx context.Context, id string) error {
 }
 
 // janitor applies the retention setting periodically.
-func (s *Server) janitor(ctx context.Context) {
+func (s *Runner) janitor(ctx context.Context) {
 	every := min(max(s.cfg.Retention/4, time.Second), 10*time.Minute)
 	t := time.NewTicker(every)
 	defer t.Stop()
@@ -554,7 +555,7 @@ func (s *Server) janitor(ctx context.Context) {
 
 // sweep removes analyses finished before t and series last updated before
 // t whose frames are all finished. It returns the number of records removed.
-func (s *Server) sweep(ctx context.Context, t time.Time) (int, error) {
+func (s *Runner) sweep(ctx context.Context, t time.Time) (int, error) {
 	n := 0
 	old, err := s.store.Jobs(ctx, jobs.Filter{Kind: jobs.Analysis, FinishedBefore: t})
 	if err != nil {
@@ -562,7 +563,7 @@ func (s *Server) sweep(ctx context.Context, t time.Time) (int, error) {
 	}
 	var errs []error
 	for _, j := range old {
-		if err := s.deleteJob(ctx, j.ID); err != nil {
+		if err := s.DeleteJob(ctx, j.ID); err != nil {
 			errs = append(errs, err)
 			continue
 		}
@@ -576,7 +577,7 @@ func (s *Server) sweep(ctx context.Context, t time.Time) (int, error) {
 		if !sr.Updated.Before(t) {
 			continue
 		}
-		m, err := s.deleteSeries(ctx, sr.ID, true)
+		m, err := s.DeleteSeries(ctx, sr.ID, true)
 		n += m
 		if err != nil {
 			errs = append(errs, err)
@@ -585,9 +586,9 @@ func (s *Server) sweep(ctx context.Context, t time.Time) (int, error) {
 	return n, errors.Join(errs...)
 }
 
-// deleteSeries removes a series, its frames and their blobs. With
+// DeleteSeries removes a series, its frames and their blobs. With
 // onlyIdle, a series with an unfinished frame is left alone.
-func (s *Server) deleteSeries(ctx context.Context, id string, onlyIdle bool) (int, error) {
+func (s *Runner) DeleteSeries(ctx context.Context, id string, onlyIdle bool) (int, error) {
 	frames, err := s.store.Jobs(ctx, jobs.Filter{Series: id})
 	if err != nil {
 		return 0, err
@@ -601,7 +602,7 @@ func (s *Server) deleteSeries(ctx context.Context, id string, onlyIdle bool) (in
 	}
 	n := 0
 	for _, f := range frames {
-		if err := s.deleteJob(ctx, f.ID); err != nil {
+		if err := s.DeleteJob(ctx, f.ID); err != nil {
 			return n, err
 		}
 		n++
@@ -615,12 +616,22 @@ func (s *Server) deleteSeries(ctx context.Context, id string, onlyIdle bool) (in
 	return n + 1, nil
 }
 
-// readAll reads a result blob fully.
-func (s *Server) readBlob(ctx context.Context, key string) ([]byte, error) {
+// ReadBlob reads a stored blob fully.
+func (s *Runner) ReadBlob(ctx context.Context, key string) ([]byte, error) {
 	rc, err := s.blobs.Get(ctx, key)
 	if err != nil {
 		return nil, err
 	}
 	defer rc.Close()
 	return io.ReadAll(rc)
+}
+
+// Frames returns the frame jobs of series id in frame order.
+func (s *Runner) Frames(ctx context.Context, id string) ([]*jobs.Job, error) {
+	list, err := s.store.Jobs(ctx, jobs.Filter{Series: id})
+	if err != nil {
+		return nil, err
+	}
+	sort.Slice(list, func(a, b int) bool { return list[a].FrameIndex < list[b].FrameIndex })
+	return list, nil
 }

@@ -1,4 +1,4 @@
-package service
+package runner
 
 import (
 	"bytes"
@@ -100,7 +100,7 @@ func EncodeFormats(f *field.Field, formats string) (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
-	files, err := encodeFiles(f, set)
+	files, err := EncodeFiles(f, set)
 	if err != nil {
 		return nil, err
 	}
@@ -133,9 +133,9 @@ func EncodeFormats(f *field.Field, formats string) (*Result, error) {
 	return &Result{Files: files, Summary: sum}, nil
 }
 
-// encodeFiles encodes the formats in set of f by the names the service
+// EncodeFiles encodes the formats in set of f by the names the service
 // stores them under.
-func encodeFiles(f *field.Field, set results.Set) (map[string][]byte, error) {
+func EncodeFiles(f *field.Field, set results.Set) (map[string][]byte, error) {
 	enc, err := results.Encode(context.Background(), f, results.Sources{}, set)
 	if err != nil {
 		return nil, err
@@ -153,8 +153,8 @@ func encodeFiles(f *field.Field, set results.Set) (map[string][]byte, error) {
 	return files, nil
 }
 
-// formatOf returns the format of a stored result file name, or "".
-func formatOf(name string) string {
+// FormatOf returns the format of a stored result file name, or "".
+func FormatOf(name string) string {
 	switch {
 	case name == "field.npz":
 		return results.NPZ
@@ -174,16 +174,16 @@ func formatOf(name string) string {
 // with pkg/maps over bg. Over the deformed image each point is drawn at
 // x = X + u, converting u from mm to px when the field is scaled.
 func (Pipeline) Map(ctx context.Context, open func(name string) (io.ReadCloser, error), req MapRequest, bg *imageio.Gray) ([]byte, error) {
-	f, err := readStored(open)
+	f, err := ReadStored(open)
 	if err != nil {
 		return nil, err
 	}
 	return RenderMap(f, req, bg)
 }
 
-// readStored reads a job's stored result: field.npz, or field.json for
+// ReadStored reads a job's stored result: field.npz, or field.json for
 // results stored before field.npz held the metadata.
-func readStored(open func(name string) (io.ReadCloser, error)) (*field.Field, error) {
+func ReadStored(open func(name string) (io.ReadCloser, error)) (*field.Field, error) {
 	rc, err := open("field.npz")
 	if err == nil {
 		b, err := io.ReadAll(rc)
@@ -243,7 +243,7 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 	var err error
 	if in.State == nil {
 		var p series.Params
-		if p, err = decodeSeriesParams(in.Params); err != nil {
+		if p, err = DecodeSeriesParams(in.Params); err != nil {
 			return nil, err
 		}
 		p.Analysis.Threads = in.Threads
@@ -323,4 +323,14 @@ func frameSummary(base jobs.Summary, sm series.Summary) jobs.Summary {
 		out.Gauges = g
 	}
 	return out
+}
+
+// DecodeSeriesParams reads a series' stored parameter document (the flat
+// document of series.Params.FlatJSON).
+func DecodeSeriesParams(b []byte) (series.Params, error) {
+	p, err := series.ParseParams(b)
+	if err != nil {
+		return p, fmt.Errorf("stored series parameters: %w", err)
+	}
+	return p, nil
 }
