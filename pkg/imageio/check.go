@@ -21,13 +21,22 @@ func Stats(g *Gray) (mean, std, min, max float64) {
 	}
 	min, max = math.Inf(1), math.Inf(-1)
 	var s float64
+	nan := false
 	for y := 0; y < g.H; y++ {
 		for _, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
 			f := float64(v)
 			s += f
-			min = math.Min(min, f)
-			max = math.Max(max, f)
+			if f < min {
+				min = f
+			}
+			if f > max {
+				max = f
+			}
+			nan = nan || f != f
 		}
+	}
+	if nan { // as math.Min and math.Max would give
+		min, max = math.NaN(), math.NaN()
 	}
 	mean = s / float64(n)
 	var ss float64

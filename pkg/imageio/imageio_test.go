@@ -345,6 +345,73 @@ func TestAutocorrelation(t *testing.T) {
 	}
 }
 
+// TestHWHMEqualsFFT: HWHM sums the lags directly and stops at the half
+// crossing; it must find the crossing that the FFT autocorrelation of the
+// same (windowed) image gives, to rounding, along both axes, for smooth
+// blobs of several sizes and for an image larger than the window.
+func TestHWHMEqualsFFT(t *testing.T) {
+	cross := func(a []float64) float64 {
+		for h := 1; h < len(a); h++ {
+			if a[h] <= 0.5 {
+				return float64(h-1) + (a[h-1]-0.5)/(a[h-1]-a[h])
+			}
+		}
+		return math.NaN()
+	}
+	for _, tc := range []struct{ w, h, rx, ry int }{{120, 90, 2, 3}, {200, 160, 5, 1}, {700, 560, 3, 3}} {
+		rng := rand.New(rand.NewPCG(uint64(tc.w), 7))
+		g := NewGray(tc.w, tc.h)
+		for i := range g.Pix {
+			g.Pix[i] = float32(rng.NormFloat64())
+		}
+		// Box sums of (2rx+1)×(2ry+1) make blobs of that size.
+		b := NewGray(tc.w, tc.h)
+		for y := 0; y < tc.h; y++ {
+			for x := 0; x < tc.w; x++ {
+				var s float32
+				for dy := -tc.ry; dy <= tc.ry; dy++ {
+					for dx := -tc.rx; dx <= tc.rx; dx++ {
+						xx, yy := min(max(x+dx, 0), tc.w-1), min(max(y+dy, 0), tc.h-1)
+						s += g.Pix[yy*tc.w+xx]
+					}
+				}
+				b.Pix[y*tc.w+x] = 100 + 10*s
+			}
+		}
+		hx, hy, err := HWHM(b)
+		if err != nil {
+			t.Fatalf("%v: %v", tc, err)
+		}
+		win := b
+		if b.W > MaxSpeckleWindow || b.H > MaxSpeckleWindow {
+			w, h := min(b.W, MaxSpeckleWindow), min(b.H, MaxSpeckleWindow)
+			win = b.Sub((b.W-w)/2, (b.H-h)/2, w, h)
+		}
+		ax, ay, err := Autocorrelation(win, min(64, win.W/4, win.H/4))
+		if err != nil {
+			t.Fatal(err)
+		}
+		if fx, fy := cross(ax), cross(ay); math.Abs(hx-fx) > 1e-9 || math.Abs(hy-fy) > 1e-9 {
+			t.Errorf("%v: direct HWHM (%.12g, %.12g), from the FFT (%.12g, %.12g)", tc, hx, hy, fx, fy)
+		}
+	}
+}
+
+// TestStatsNaN: a NaN pixel makes the range NaN, as math.Min/Max would.
+func TestStatsNaN(t *testing.T) {
+	g := NewGray(4, 3)
+	for i := range g.Pix {
+		g.Pix[i] = float32(i)
+	}
+	if m, s, lo, hi := Stats(g); m != 5.5 || lo != 0 || hi != 11 || math.Abs(s-math.Sqrt(143.0/12)) > 1e-12 {
+		t.Errorf("stats %v %v %v %v; want 5.5, √(143/12), 0, 11", m, s, lo, hi)
+	}
+	g.Pix[5] = float32(math.NaN())
+	if _, _, lo, hi := Stats(g); !math.IsNaN(lo) || !math.IsNaN(hi) {
+		t.Errorf("range with a NaN pixel: %v–%v, want NaN", lo, hi)
+	}
+}
+
 func TestSub(t *testing.T) {
 	g := NewGray(10, 8)
 	for i := range g.Pix {

@@ -102,6 +102,12 @@ const MaxSpeckleWindow = 512
 // MaxSpeckleWindow px in either direction are analysed in a centred window
 // of that size. Image noise lowers ρ at every non-zero lag and so shortens
 // the estimate slightly.
+//
+// The lags are summed directly, one at a time, until ρ has fallen to ½
+// along both axes (at most 64 lags): the same unbiased, mean-removed
+// estimate that Autocorrelation computes with FFTs, equal to it up to
+// rounding, at a cost of a few passes over the window for speckles a few
+// px across instead of a padded 2D transform.
 func HWHM(g *Gray) (hx, hy float64, err error) {
 	if g == nil {
 		return 0, 0, fmt.Errorf("%w: no image", ErrTooSmall)
@@ -110,13 +116,16 @@ func HWHM(g *Gray) (hx, hy float64, err error) {
 		w, h := min(g.W, MaxSpeckleWindow), min(g.H, MaxSpeckleWindow)
 		g = g.Sub((g.W-w)/2, (g.H-h)/2, w, h)
 	}
-	maxLag := min(64, g.W/4, g.H/4)
-	ax, ay, err := Autocorrelation(g, maxLag)
-	if err != nil {
-		return 0, 0, err
+	if g.W < 2 || g.H < 2 {
+		return 0, 0, fmt.Errorf("%w: autocorrelation needs an image at least 2×2 px", ErrTooSmall)
 	}
-	hx, okx := halfCross(ax)
-	hy, oky := halfCross(ay)
+	maxLag := min(64, g.W/4, g.H/4, g.W-1, g.H-1)
+	mean, std, _, _ := Stats(g)
+	if std == 0 {
+		return 0, 0, fmt.Errorf("%w: uniform image has no autocorrelation", ErrNoContrast)
+	}
+	hx, okx := halfLag(func(h int) float64 { return lagSum(g, mean, h, 1) / float64((g.W-h)*g.H) }, maxLag)
+	hy, oky := halfLag(func(h int) float64 { return lagSum(g, mean, h, g.Stride) / float64(g.W*(g.H-h)) }, maxLag)
 	if !okx || !oky {
 		return hx, hy, fmt.Errorf("%w: the autocorrelation stays above ½ up to %d px: speckles too large for a %d×%d px image",
 			ErrTooSmall, maxLag, g.W, g.H)
@@ -124,13 +133,43 @@ func HWHM(g *Gray) (hx, hy float64, err error) {
 	return hx, hy, nil
 }
 
-func halfCross(a []float64) (float64, bool) {
-	for h := 1; h < len(a); h++ {
-		if a[h] <= 0.5 {
-			return float64(h-1) + (a[h-1]-0.5)/(a[h-1]-a[h]), true
+// halfLag evaluates the autocovariance c(h) for h = 0, 1, … up to maxLag
+// and returns where c(h)/c(0) first falls to ½, linearly interpolated
+// between integer lags, stopping there.
+func halfLag(c func(h int) float64, maxLag int) (float64, bool) {
+	c0 := c(0)
+	prev := 1.0
+	for h := 1; h <= maxLag; h++ {
+		r := c(h) / c0
+		if r <= 0.5 {
+			return float64(h-1) + (prev-0.5)/(prev-r), true
 		}
+		prev = r
 	}
 	return math.NaN(), false
+}
+
+// lagSum returns Σ (g(p) − mean)·(g(p + h·d) − mean) over the pixel pairs
+// of g at lag h along the axis whose index step is d (1 = x, Stride = y).
+func lagSum(g *Gray, mean float64, h, d int) float64 {
+	w, ht := g.W, g.H
+	if d == 1 {
+		w -= h
+	} else {
+		ht -= h
+	}
+	off := h * d
+	var s float64
+	for y := 0; y < ht; y++ {
+		a := g.Pix[y*g.Stride : y*g.Stride+w]
+		b := g.Pix[y*g.Stride+off : y*g.Stride+off+w]
+		var rs float64
+		for x, v := range a {
+			rs += (float64(v) - mean) * (float64(b[x]) - mean)
+		}
+		s += rs
+	}
+	return s
 }
 
 // SpeckleSize returns the autocorrelation speckle size of g in px: twice

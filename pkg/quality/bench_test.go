@@ -2,7 +2,9 @@ package quality_test
 
 import (
 	"context"
+	"syscall"
 	"testing"
+	"time"
 
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/quality"
@@ -45,4 +47,30 @@ func BenchmarkChooseSubset1024(b *testing.B) {
 			b.Fatal(err)
 		}
 	}
+}
+
+// BenchmarkMeasure512 measures every quality measure of a 512² image, the
+// size of the service's latency benchmark (pkg/service
+// BenchmarkLatency512).
+//
+// It also reports the process CPU time (user + sys) per measure, the
+// figure to compare on a shared machine.
+func BenchmarkMeasure512(b *testing.B) {
+	g := benchImage(b).Sub(256, 256, 512, 512)
+	c0 := cpuTime()
+	for b.Loop() {
+		if _, err := quality.Measure(g, nil); err != nil {
+			b.Fatal(err)
+		}
+	}
+	b.ReportMetric(float64((cpuTime()-c0).Microseconds())/1000/float64(b.N), "cpu-ms/op")
+}
+
+// cpuTime returns the user + system CPU time of the process so far.
+func cpuTime() time.Duration {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return 0
+	}
+	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
 }

@@ -100,6 +100,7 @@ func Measure(g *imageio.Gray, mask *roi.Mask) (Measures, error) {
 			mask.W, mask.H, g.W, g.H)
 	}
 	in := func(x, y int) bool { return mask == nil || mask.Inside(x, y) }
+	whole := mask == nil
 	m := Measures{Width: g.W, Height: g.H, Bits: g.Bits, SpeckleSize: math.NaN(), EdgeWidth: math.NaN(), Noise: math.NaN()}
 
 	// Pass 1: count, moments, range, and the common power-of-two step of
@@ -112,7 +113,7 @@ func Measure(g *imageio.Gray, mask *roi.Mask) (Measures, error) {
 	for y := 0; y < g.H; y++ {
 		row := g.Pix[y*g.Stride : y*g.Stride+g.W]
 		for x, v := range row {
-			if !in(x, y) {
+			if !whole && !in(x, y) {
 				continue
 			}
 			f := float64(v)
@@ -121,7 +122,12 @@ func Measure(g *imageio.Gray, mask *roi.Mask) (Measures, error) {
 			}
 			n++
 			s += f
-			lo, hi = math.Min(lo, f), math.Max(hi, f)
+			if f < lo {
+				lo = f
+			}
+			if f > hi {
+				hi = f
+			}
 			if integer {
 				if f != math.Trunc(f) || f < 0 || f > 65535 {
 					integer = false
@@ -138,7 +144,7 @@ func Measure(g *imageio.Gray, mask *roi.Mask) (Measures, error) {
 	m.Mean, m.Min, m.Max = s/float64(n), lo, hi
 	for y := 0; y < g.H; y++ {
 		for x, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
-			if in(x, y) {
+			if whole || in(x, y) {
 				d := float64(v) - m.Mean
 				ss += d * d
 			}
@@ -167,7 +173,7 @@ func Measure(g *imageio.Gray, mask *roi.Mask) (Measures, error) {
 	var sat, clip int
 	for y := 0; y < g.H; y++ {
 		for x, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
-			if !in(x, y) {
+			if !whole && !in(x, y) {
 				continue
 			}
 			f := float64(v)
@@ -270,10 +276,14 @@ func sobelStats(g *imageio.Gray, mask *roi.Mask) (mean, p99 float64) {
 		return math.NaN(), 0
 	}
 	p, st := g.Pix, g.Stride
-	each := func(f func(v float64)) {
+	// each calls f with the magnitudes of one row, so the loop over the
+	// pixels has no call in it; mag holds them.
+	mag := make([]float64, g.W)
+	each := func(f func(row []float64)) {
 		for y := 1; y < g.H-1; y++ {
+			row := mag[:0]
 			for x := 1; x < g.W-1; x++ {
-				if !insideR(mask, g.W, g.H, x, y, 1) {
+				if mask != nil && !insideR(mask, g.W, g.H, x, y, 1) {
 					continue
 				}
 				i := y*st + x
@@ -282,20 +292,33 @@ func sobelStats(g *imageio.Gray, mask *roi.Mask) (mean, p99 float64) {
 				q, h, k := float64(p[i+st-1]), float64(p[i+st]), float64(p[i+st+1])
 				gx := (c + 2*e + k - a - 2*d - q) / 8
 				gy := (q + 2*h + k - a - 2*b - c) / 8
-				f(math.Hypot(gx, gy))
+				row = append(row, math.Sqrt(gx*gx+gy*gy))
 			}
+			f(row)
 		}
 	}
 	var s, top float64
 	n := 0
-	each(func(v float64) { s += v; top = math.Max(top, v); n++ })
+	each(func(row []float64) {
+		for _, v := range row {
+			s += v
+			if v > top {
+				top = v
+			}
+		}
+		n += len(row)
+	})
 	if n == 0 {
 		return math.NaN(), 0
 	}
 	if top > 0 {
 		const nbin = 1 << 14
 		hist := make([]int, nbin)
-		each(func(v float64) { hist[min(nbin-1, int(v/top*(nbin-1)+0.5))]++ })
+		each(func(row []float64) {
+			for _, v := range row {
+				hist[min(nbin-1, int(v/top*(nbin-1)+0.5))]++
+			}
+		})
 		p99 = float64(percentile(hist, n, 0.99)) * top / (nbin - 1)
 	}
 	return s / float64(n), p99
