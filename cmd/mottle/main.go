@@ -106,8 +106,13 @@ func run(ctx context.Context, e *env, args []string) int {
 func usage(w io.Writer) {
 	fmt.Fprintln(w, "Mottle: digital image correlation for materials testing.")
 	fmt.Fprintln(w, "\nUsage: mottle <command> [flags]\n\nCommands:")
-	for _, c := range commands() {
-		fmt.Fprintf(w, "  %-8s %s\n", c.name, c.summary)
+	cmds := commands()
+	width := 0
+	for _, c := range cmds {
+		width = max(width, len(c.name))
+	}
+	for _, c := range cmds {
+		fmt.Fprintf(w, "  %-*s  %s\n", width, c.name, c.summary)
 	}
 	fmt.Fprintln(w, "\nRun \"mottle <command> --help\" for the flags of a command.")
 }

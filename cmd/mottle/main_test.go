@@ -35,6 +35,34 @@ func TestHelp(t *testing.T) {
 	}
 }
 
+// TestUsageAligned checks that the command list of "mottle help" starts
+// every summary in one column, whatever the longest command name is.
+func TestUsageAligned(t *testing.T) {
+	var b bytes.Buffer
+	usage(&b)
+	col := -1
+	n := 0
+	for _, line := range strings.Split(b.String(), "\n") {
+		for _, c := range commands() {
+			if !strings.HasPrefix(line, "  "+c.name+" ") {
+				continue
+			}
+			i := strings.Index(line, c.summary)
+			if i < 0 {
+				t.Fatalf("line %q lacks the summary of %s", line, c.name)
+			}
+			if col >= 0 && i != col {
+				t.Errorf("summary of %s starts at column %d, others at %d:\n%s", c.name, i, col, b.String())
+			}
+			col = i
+			n++
+		}
+	}
+	if n != len(commands()) {
+		t.Errorf("%d of %d commands listed:\n%s", n, len(commands()), b.String())
+	}
+}
+
 // TestAnalyzeAndMap runs analyze on an exactly rendered uniform stretch
 // (pkg/synth) and checks the written field against the closed form
 // E11 = (λ² − 1)/2 (Holzapfel 2000), then re-renders a map with map.
