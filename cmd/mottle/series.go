@@ -3,7 +3,6 @@ package main
 import (
 	"context"
 	"encoding/csv"
-	"encoding/json"
 	"errors"
 	"flag"
 	"fmt"
@@ -14,10 +13,9 @@ import (
 	"sort"
 	"strconv"
 	"strings"
-	"time"
+	"sync"
 
 	"github.com/mottledic/mottle/pkg/calib"
-	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/results"
 	"github.com/mottledic/mottle/pkg/series"
@@ -269,16 +267,30 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	if refImg, err = imageio.Orient(refImg, orient); err != nil {
 		return fmt.Errorf("reference %s: %w", *ref, err)
 	}
-	if !orient.Upright() {
-		fmt.Fprintf(e.stdout, "orientation: the reference's EXIF orientation %d (%s) applied to every frame\n", int(orient), orient)
+	// Notes go to stdout, or to stderr in live mode, where stdout holds
+	// the live CSV lines only; a live run reads each frame twice (live
+	// values, then the full field), from two goroutines.
+	notes := e.stdout
+	if *live {
+		notes = e.stderr
 	}
+	if !orient.Upright() {
+		fmt.Fprintf(notes, "orientation: the reference's EXIF orientation %d (%s) applied to every frame\n", int(orient), orient)
+	}
+	var noteMu sync.Mutex
+	noted := map[string]bool{}
 	readFrame := func(path string) (*imageio.Gray, error) {
 		g, err := imageio.ReadFile(path, lim)
 		if err != nil {
 			return nil, limitHint(err, lim.MaxPixels)
 		}
 		if g.Orientation != orient && !(g.Orientation.Upright() && orient.Upright()) {
-			fmt.Fprintf(e.stdout, "orientation: %s carries EXIF orientation %d, the reference %d; the reference's is used\n", filepath.Base(path), int(g.Orientation), int(orient))
+			noteMu.Lock()
+			if !noted[path] {
+				noted[path] = true
+				fmt.Fprintf(notes, "orientation: %s carries EXIF orientation %d, the reference %d; the reference's is used\n", filepath.Base(path), int(g.Orientation), int(orient))
+			}
+			noteMu.Unlock()
 		}
 		t, err := imageio.Orient(g, orient)
 		if err != nil {
@@ -309,42 +321,20 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 
-	if err := os.MkdirAll(filepath.Join(*outDir, "frames"), 0o755); err != nil {
-		return err
-	}
-	statePath := filepath.Join(*outDir, "state.json")
-	var tr *series.Tracker
-	var lv *series.Live
-	first := 0
 	if *live && *resume {
 		return fmt.Errorf("--live with --resume: a live run starts from the reference; leave one out")
 	}
+	var tr *series.Tracker
+	var lv *series.Live
+	first := 0
 	if *resume {
 		if *maskFile != "" {
 			return fmt.Errorf("--mask with --resume: the saved state already holds the series' mask; leave --mask out")
 		}
-		b, err := os.ReadFile(statePath)
-		if err != nil {
+		if tr, first, err = series.Resume(*outDir, refImg, frames, readFrame); err != nil {
 			return fmt.Errorf("--resume: %w", err)
 		}
-		var st series.State
-		if err := json.Unmarshal(b, &st); err != nil {
-			return fmt.Errorf("--resume %s: %w", statePath, err)
-		}
-		done := len(st.Curve) - 1
-		if done > len(frames) {
-			return fmt.Errorf("--resume: the state has %d frames but only %d are given", done, len(frames))
-		}
-		var last *imageio.Gray
-		if done > 0 {
-			if last, err = readFrame(frames[done-1]); err != nil {
-				return err
-			}
-		}
-		if tr, err = series.Restore(refImg, last, st); err != nil {
-			return err
-		}
-		p, first = tr.Params(), done
+		p = tr.Params()
 	} else {
 		var opt series.Options
 		if *maskFile != "" {
@@ -352,15 +342,11 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 				return fmt.Errorf("--mask: %w", err)
 			}
 		}
+		var lo *series.LiveOptions
 		if *live {
-			if lv, err = series.NewLive(refImg, metas[0], p, opt, series.LiveOptions{MaxJump: *liveJump}); err != nil {
-				return err
-			}
-			tr = lv.Tracker()
-		} else if tr, err = series.NewWith(refImg, metas[0], p, opt); err != nil {
-			return err
+			lo = &series.LiveOptions{MaxJump: *liveJump}
 		}
-		if err := writeState(statePath, tr); err != nil {
+		if tr, lv, err = series.Start(*outDir, refImg, metas[0], p, opt, lo); err != nil {
 			return err
 		}
 	}
@@ -377,91 +363,26 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	if *mapQ == "" {
 		quantities = nil
 	}
-	every := *mapEvery
-	if every <= 0 {
-		every = max(1, (len(frames)+4)/5)
-	}
 	pr := newBar(e, "", "frames")
 	pr.done0 = first
-	var reportMaps []series.ReportMap
-	var runErr error
-	var (
-		todo    <-chan int
-		liveErr <-chan error
-	)
-	liveCtx, stopLive := context.WithCancel(ctx)
-	defer stopLive()
-	if lv != nil {
-		todo, liveErr = liveFrames(liveCtx, e, lv, frames, metas, lim)
-	}
-	for i := first; i < len(frames); i++ {
-		if todo != nil {
-			n, ok := <-todo
-			if !ok {
-				break
-			}
-			i = n
-		}
-		pr.show(i, len(frames), metas[i+1].Name)
-		img, err := readFrame(frames[i])
-		if err != nil {
-			runErr = err
-			break
-		}
-		meta := metas[i+1]
-		meta.Orientation = orient
-		meta.Progress = func(done, total int) {
-			pr.show(i, len(frames), fmt.Sprintf("%s %d/%d points", metas[i+1].Name, done, total))
-		}
-		var fr *series.Frame
-		if lv != nil {
-			fr, err = lv.FullField(ctx, i+1, img)
-		} else {
-			fr, err = tr.Add(ctx, img, meta)
-		}
-		if err != nil {
-			runErr = err
-			break
-		}
-		dir := filepath.Join(*outDir, "frames", fmt.Sprintf("%04d", i+1))
-		var mq []string
-		if (i+1)%every == 0 || i == len(frames)-1 {
-			mq = quantities
-		}
-		if _, err := series.WriteFrameFormats(ctx, dir, fr, p, filepath.Base(*ref), metas[i+1], img, set, mq); err != nil {
-			runErr = err
-			break
-		}
-		for _, q := range mq {
-			reportMaps = append(reportMaps, series.ReportMap{
-				Path:    filepath.ToSlash(filepath.Join("frames", fmt.Sprintf("%04d", i+1), "map_"+q+".png")),
-				Caption: fmt.Sprintf("%s, frame %d %s (%s)", q, i+1, metas[i+1].Name, fr.Summary.Mode)})
-		}
-		if err := writeState(statePath, tr); err != nil {
-			runErr = err
-			break
-		}
-	}
-	pr.show(tr.Len(), len(frames), "")
-	pr.done()
+	cfg := series.RunConfig{Out: *outDir, Frames: frames, Metas: metas, RefName: filepath.Base(*ref),
+		Orientation: orient, Formats: set, Maps: quantities, MapEvery: *mapEvery, First: first, Noise: noise,
+		Read: readFrame, Progress: pr.show}
 	out := e.stdout
-	c := tr.Curve()
 	if lv != nil {
-		if runErr != nil {
-			stopLive()
-		}
-		if err := <-liveErr; err != nil && runErr == nil {
-			runErr = err
-		}
 		// stdout holds the live CSV lines only.
-		out, c = e.stderr, lv.Curve()
+		out = e.stderr
+		w := csv.NewWriter(e.stdout)
+		cfg.Live, cfg.LiveRecord = lv, func(rec []string) error {
+			if err := w.Write(rec); err != nil {
+				return err
+			}
+			w.Flush()
+			return w.Error()
+		}
 	}
-	if noise != nil && c.Noise == nil {
-		c.Noise = noise
-	}
-	if err := writeSeriesOutputs(*outDir, c, reportMaps); err != nil {
-		return errors.Join(runErr, err)
-	}
+	c, runErr := series.Run(ctx, tr, cfg)
+	pr.done()
 	if runErr != nil {
 		if ctx.Err() != nil {
 			return fmt.Errorf("stopped after %d of %d frames; finished frames and the report are in %s (continue with --resume)", tr.Len(), len(frames), *outDir)
@@ -489,56 +410,6 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	}
 	printSkipped(out, props.Skipped)
 	return nil
-}
-
-// liveFrames runs the live path of --live on its own goroutine: each
-// frame is read and its live values printed on stdout as a CSV line (a
-// header first), and its index is then sent on the channel for the full
-// field. The error channel gets one value (nil when every frame was done)
-// when it ends; the index channel is closed.
-func liveFrames(ctx context.Context, e *env, lv *series.Live, frames []string, metas []series.FrameMeta, lim imageio.Limits) (<-chan int, <-chan error) {
-	todo := make(chan int, len(frames))
-	errc := make(chan error, 1)
-	go func() {
-		defer close(todo)
-		w := csv.NewWriter(e.stdout)
-		write := func(rec []string) error {
-			if err := w.Write(rec); err != nil {
-				return err
-			}
-			w.Flush()
-			return w.Error()
-		}
-		if err := write(series.LiveCSVHeader(lv.Params())); err != nil {
-			errc <- fmt.Errorf("live output: %w", err)
-			return
-		}
-		for i, f := range frames {
-			img, err := imageio.ReadFile(f, lim)
-			if err != nil {
-				errc <- limitHint(err, lim.MaxPixels)
-				return
-			}
-			if err := ctx.Err(); err != nil {
-				errc <- err
-				return
-			}
-			v, err := lv.Frame(ctx, img, metas[i+1])
-			if err != nil {
-				errc <- err
-				return
-			}
-			if err := write(v.CSVRecord()); err != nil {
-				errc <- fmt.Errorf("live output: %w", err)
-				return
-			}
-			if v.Full {
-				todo <- i
-			}
-		}
-		errc <- nil
-	}()
-	return todo, errc
 }
 
 // skipHints names the flag that supplies what a skipped property lacks.
@@ -569,41 +440,8 @@ func printSkipped(w io.Writer, skipped map[string]string) {
 // flagT is the flag type Visit passes.
 type flagT = flag.Flag
 
-func writeState(path string, tr *series.Tracker) error {
-	b, err := json.Marshal(tr.State())
-	if err != nil {
-		return err
-	}
-	return field.WriteFileAtomic(path, 0o644, func(w io.Writer) error { _, err := w.Write(b); return err })
-}
-
-// writeSeriesOutputs writes the curve files, plots and the report.
-func writeSeriesOutputs(out string, c series.Curve, maps []series.ReportMap) error {
-	if _, err := series.WriteCurve(out, c); err != nil {
-		return err
-	}
-	plotDir := filepath.Join(out, "plots")
-	if err := os.MkdirAll(plotDir, 0o755); err != nil {
-		return err
-	}
-	plots, err := series.WritePlots(plotDir, c, c.Properties())
-	if err != nil {
-		return err
-	}
-	for i, p := range plots {
-		rel, err := filepath.Rel(out, p)
-		if err != nil {
-			return err
-		}
-		plots[i] = filepath.ToSlash(rel)
-	}
-	return field.WriteFileAtomic(filepath.Join(out, "report.html"), 0o644, func(w io.Writer) error {
-		return series.WriteReport(w, series.ReportInput{Title: "Test series report", Software: "mottle series", Created: time.Now(), Curve: c, Plots: plots, Maps: maps})
-	})
-}
-
-// staticPairNoise analyses two images of the unloaded specimen and
-// returns their noise floor.
+// staticPairNoise reads two images of the unloaded specimen and returns
+// their noise floor (series.StaticPairNoise).
 func staticPairNoise(ctx context.Context, a, b string, p series.Params, lim imageio.Limits) (*series.NoiseFloor, error) {
 	ia, err := imageio.ReadFile(a, lim)
 	if err != nil {
@@ -613,14 +451,5 @@ func staticPairNoise(ctx context.Context, a, b string, p series.Params, lim imag
 	if err != nil {
 		return nil, limitHint(err, lim.MaxPixels)
 	}
-	p.Extensometers, p.Gauges, p.Properties = nil, nil, series.PropsParams{}
-	p.StaticFrames = 1
-	tr, err := series.New(ia, series.FrameMeta{Name: filepath.Base(a)}, p)
-	if err != nil {
-		return nil, err
-	}
-	if _, err := tr.Add(ctx, ib, series.FrameMeta{Name: filepath.Base(b)}); err != nil {
-		return nil, err
-	}
-	return tr.NoiseFloor(), nil
+	return series.StaticPairNoise(ctx, ia, ib, filepath.Base(a), filepath.Base(b), p)
 }
