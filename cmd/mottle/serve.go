@@ -47,6 +47,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	rate := fs.Float64("principal-rate", 0, "requests a second one principal may send, bursts of twice that (0 = no limit); with tokens only")
 	cors := fs.String("cors", "", "comma-separated origins allowed to call the API from a browser (\"*\" for any); empty = no CORS")
 	noUI := fs.Bool("no-ui", false, "do not serve the browser preview")
+	minFree := fs.Int64("min-free-mb", 256, "free space of the data directory, MiB, below which new uploads are answered 507 and /readyz is not ready (embedded backend)")
 	if err := parseFlags(e, fs, args); err != nil {
 		return err
 	}
@@ -70,6 +71,9 @@ func runServe(ctx context.Context, e *env, args []string) error {
 		JobTimeout: *jobTimeout, ReadTimeout: *readTimeout, WriteTimeout: *writeTimeout,
 		ShutdownGrace: *grace, Retention: *retention, Tokens: tokens, TokenFile: tf, Demo: demo.Pair,
 		MaxQueuedPerPrincipal: *maxQueued, RateLimit: *rate,
+	}
+	if !natsjs.IsURL(*backend) {
+		cfg.DataDir, cfg.MinFreeBytes = *data, *minFree<<20
 	}
 	if *cors != "" {
 		for _, o := range strings.Split(*cors, ",") {

@@ -184,6 +184,10 @@ func failureFor(err, cause error, timeout time.Duration) *jobs.Failure {
 		return &jobs.Failure{Title: "Job timeout", Detail: fmt.Sprintf(
 			"the job ran longer than the %v limit; use a larger step or a smaller ROI, or ask the operator for a longer --job-timeout", timeout)}
 	}
+	if jobs.IsNoSpace(err) {
+		return &jobs.Failure{Title: "Insufficient storage", Detail: err.Error() +
+			"; the job's results could not be stored and nothing stored earlier was changed. Free space on the server (or ask the operator), then submit the job again"}
+	}
 	var fe *FieldError
 	if errors.As(err, &fe) {
 		return &jobs.Failure{Title: "Invalid input", Detail: fe.Detail, Field: fe.Field}

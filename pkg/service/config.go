@@ -84,6 +84,22 @@ type Config struct {
 	// with the parameters to analyse it.
 	Demo func(ctx context.Context) (ref, def *imageio.Gray, p analysis.Params, err error)
 
+	// DataDir, if not empty, is the directory the backend keeps its files
+	// in (the embedded backend's data directory). The service then watches
+	// its free space: while less than MinFreeBytes is free, /readyz
+	// reports not ready and requests that would store new data are
+	// answered 507; /metrics shows the free space. ReserveBytes are held
+	// in a reserve file there, given up when a write fails for lack of
+	// space so that the outcome of the jobs in flight can still be
+	// recorded, and made again when space returns. Without DataDir (a
+	// remote backend) only the writes themselves report a full disk (507).
+	DataDir string
+	// MinFreeBytes is the free-space threshold; default 256 MiB.
+	MinFreeBytes int64
+	// ReserveBytes is the size of the reserve file; default 8 MiB,
+	// negative for none.
+	ReserveBytes int64
+
 	// BeforeCompute, if not nil, is called by a worker after it has
 	// recorded job j as running and before it loads the inputs and
 	// computes, with the job's context (canceled when the job is canceled,
@@ -115,6 +131,12 @@ func (c *Config) defaults() {
 	}
 	if c.MaxPoints <= 0 {
 		c.MaxPoints = 1_000_000
+	}
+	if c.MinFreeBytes <= 0 {
+		c.MinFreeBytes = 256 << 20
+	}
+	if c.ReserveBytes == 0 {
+		c.ReserveBytes = 8 << 20
 	}
 	def := func(d *time.Duration, v time.Duration) {
 		if *d <= 0 {

@@ -122,6 +122,7 @@ func (s *Server) writeMetrics(ctx context.Context, w io.Writer) error {
 		p("mottle_http_request_duration_seconds_sum{%s} %s\n", lbl, fmtFloat(h.sum))
 		p("mottle_http_request_duration_seconds_count{%s} %d\n", lbl, h.count)
 	}
+	s.writeLimitMetrics(w)
 	return nil
 }
 

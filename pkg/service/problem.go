@@ -88,6 +88,9 @@ func asProblem(err error, field string) *Problem {
 		return problem(http.StatusUnprocessableEntity, "invalid-parameters", "Invalid parameters",
 			fmt.Sprintf("%d parameter problem(s); see errors", len(fields)), fields...)
 	}
+	if isNoSpace(err) {
+		return noSpaceProblem(err)
+	}
 	var mbe *http.MaxBytesError
 	if errors.As(err, &mbe) {
 		return problem(http.StatusRequestEntityTooLarge, "body-too-large", "Request body too large",

@@ -19,7 +19,7 @@ const (
 
 func (s *Server) routes() http.Handler {
 	r := chi.NewRouter()
-	r.Use(s.observe, s.cors)
+	r.Use(s.observe, s.cors, s.admission)
 	notFound := func(w http.ResponseWriter, r *http.Request) {
 		writeProblem(w, r, problem(http.StatusNotFound, "not-found", "Not found", "no route matches "+r.URL.Path+"; see /v1/openapi.json"))
 	}
@@ -100,6 +100,10 @@ func (s *Server) healthz(w http.ResponseWriter, r *http.Request) {
 func (s *Server) readyz(w http.ResponseWriter, r *http.Request) {
 	if s.draining.Load() {
 		writeProblem(w, r, problem(http.StatusServiceUnavailable, "draining", "Shutting down", "the server is shutting down and takes no new work"))
+		return
+	}
+	if p := s.notReady(); p != nil {
+		writeProblem(w, r, p)
 		return
 	}
 	ctx, cancel := context.WithTimeout(r.Context(), 2*1e9)

@@ -45,6 +45,9 @@ type Server struct {
 
 	// keyLocks serialises requests of one Idempotency-Key.
 	keyLocks keyLocks
+
+	// disk watches the free space of Config.DataDir (nil without one).
+	disk *diskGuard
 }
 
 // New checks cfg and returns a server. It starts nothing: call Serve, or
@@ -54,6 +57,8 @@ func New(cfg Config) (*Server, error) {
 		return nil, err
 	}
 	cfg.defaults()
+	disk := newDiskGuard(&cfg)
+	cfg.Backend = guardBackend(cfg.Backend, disk)
 	run, err := runner.New(runner.Config{Backend: cfg.Backend, Analyzer: cfg.Analyzer, Logger: cfg.Logger,
 		Workers: cfg.Workers, JobThreads: cfg.JobThreads, MaxAttempts: cfg.MaxAttempts,
 		MaxPixels: cfg.MaxPixels, MaxBytes: cfg.MaxBodyBytes, JobTimeout: cfg.JobTimeout,
@@ -72,6 +77,7 @@ func New(cfg Config) (*Server, error) {
 		stopping: make(chan struct{}),
 
 		checking: make(chan struct{}, cfg.Workers),
+		disk:     disk,
 	}
 	for _, t := range cfg.Tokens {
 		s.tokens = append(s.tokens, sha256.Sum256([]byte(strings.TrimSpace(t))))
@@ -94,6 +100,9 @@ var errShutdown = errors.New("server shutting down")
 // Config.ShutdownGrace, then stops those and puts them back in the queue,
 // and returns when every worker has ended.
 func (s *Server) Start(ctx context.Context) (stop func(), err error) {
+	if err := s.beforeStart(ctx); err != nil {
+		return nil, err
+	}
 	rstop, err := s.run.Start(ctx)
 	if err != nil {
 		return nil, err

@@ -1,0 +1,5 @@
+//go:build !unix
+
+package jobs
+
+func isQuota(err error) bool { return false }

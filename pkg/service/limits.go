@@ -1,0 +1,57 @@
+package service
+
+import (
+	"context"
+	"fmt"
+	"io"
+	"net/http"
+)
+
+// admission refuses requests that would store data while the data
+// directory is low on space (507, before the body is read).
+func (s *Server) admission(next http.Handler) http.Handler {
+	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		if s.disk != nil && storesData(r) {
+			if low, free := s.disk.low(); low {
+				retryAfter(w, 60)
+				writeProblem(w, r, s.disk.lowDiskProblem(free))
+				return
+			}
+		}
+		next.ServeHTTP(w, r)
+	})
+}
+
+// notReady returns why /readyz should answer 503 for lack of resources,
+// or nil.
+func (s *Server) notReady() *Problem {
+	if s.disk != nil {
+		if low, free := s.disk.low(); low {
+			p := s.disk.lowDiskProblem(free)
+			p.Status, p.Type = http.StatusServiceUnavailable, "urn:mottle:problem:low-disk-space"
+			return p
+		}
+	}
+	return nil
+}
+
+// writeLimitMetrics writes the metrics of the resource limits.
+func (s *Server) writeLimitMetrics(w io.Writer) {
+	p := func(format string, args ...any) { fmt.Fprintf(w, format, args...) }
+	if g := s.disk; g != nil {
+		_, free := g.low()
+		p("# HELP mottle_data_free_bytes Bytes free in the data directory's file system (-1 when it cannot be read).\n# TYPE mottle_data_free_bytes gauge\nmottle_data_free_bytes %d\n", free)
+		p("# HELP mottle_data_min_free_bytes Free space below which the service takes no new uploads and is not ready.\n# TYPE mottle_data_min_free_bytes gauge\nmottle_data_min_free_bytes %d\n", g.minFree)
+		p("# HELP mottle_data_reserve_bytes Bytes held in the reserve file, given up when a write finds the disk full.\n# TYPE mottle_data_reserve_bytes gauge\nmottle_data_reserve_bytes %d\n", g.reserveHeld())
+		p("# HELP mottle_storage_full_total Writes that failed for lack of space.\n# TYPE mottle_storage_full_total counter\nmottle_storage_full_total %d\n", g.full.Load())
+	}
+}
+
+// beforeStart prepares the resource limits when the service starts: it
+// makes the disk reserve.
+func (s *Server) beforeStart(ctx context.Context) error {
+	if s.disk != nil {
+		s.disk.refresh()
+	}
+	return nil
+}
