@@ -7,6 +7,7 @@ import (
 	"math"
 	"runtime"
 	"sort"
+	"sync"
 	"sync/atomic"
 
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -236,7 +237,7 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning
 		return nil, err
 	}
 
-	minStd := 0.01 * maskStd(r.ref, r.mask)
+	minStd := 0.01 * maskStd(r.ref, r.mask, r.threads)
 	r.minStd = minStd
 	r.solvers = make([]*solver, r.threads)
 	r.tmpl = make([][]float64, r.threads)
@@ -276,24 +277,53 @@ func (r *run) tabulate(ctx context.Context, npts int) error {
 	return nil
 }
 
-// maskStd is the grey-level standard deviation of g inside the mask.
-func maskStd(g *imageio.Gray, m *roi.Mask) float64 {
-	var n, s, ss float64
-	for y := 0; y < g.H; y++ {
-		for x := 0; x < g.W; x++ {
-			if m.Inside(x, y) {
-				v := float64(g.Pix[y*g.Stride+x])
-				n++
-				s += v
-				ss += v * v
+// maskStd is the grey-level standard deviation of g inside the mask,
+// computed with up to threads goroutines: sums per row, then over the rows
+// in order, so the value does not depend on threads.
+func maskStd(g *imageio.Gray, m *roi.Mask, threads int) float64 {
+	rows := make([][3]float64, g.H)
+	parallelFor(g.H, threads, func(y0, y1 int) {
+		for y := y0; y < y1; y++ {
+			var n, s, ss float64
+			for x, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
+				if m.Inside(x, y) {
+					f := float64(v)
+					n++
+					s += f
+					ss += f * f
+				}
 			}
+			rows[y] = [3]float64{n, s, ss}
 		}
+	})
+	var n, s, ss float64
+	for _, r := range rows {
+		n += r[0]
+		s += r[1]
+		ss += r[2]
 	}
 	if n < 2 {
 		return 0
 	}
 	mean := s / n
 	return math.Sqrt(math.Max(ss/n-mean*mean, 0))
+}
+
+// parallelFor splits [0, n) into contiguous blocks, one per goroutine, up
+// to threads of them, and waits for f to finish on all. Each index is
+// handled by exactly one call.
+func parallelFor(n, threads int, f func(i0, i1 int)) {
+	threads = min(threads, n)
+	if threads <= 1 {
+		f(0, n)
+		return
+	}
+	var wg sync.WaitGroup
+	for t := 0; t < threads; t++ {
+		i0, i1 := n*t/threads, n*(t+1)/threads
+		wg.Go(func() { f(i0, i1) })
+	}
+	wg.Wait()
 }
 
 func (r *run) stop() {
@@ -434,25 +464,29 @@ func (r *run) setupGrid() error {
 		return fmt.Errorf("correlate: Start has %d points but the grid has %d (%d×%d): it must come from a run with the same images size, subset, step and ROI", len(r.opt.Start), n, g.Nx, g.Ny)
 	}
 	r.alloc(n)
-	for j := 0; j < g.Ny; j++ {
-		for i := 0; i < g.Nx; i++ {
-			x, y := g.At(i, j)
-			k := g.Index(i, j)
-			r.pts[k].X, r.pts[k].Y = float64(x), float64(y)
-			switch {
-			case !r.mask.RectInside(x-m, y-m, x+m, y+m):
-				r.pts[k].Status = Outside
-			case subsetStd(r.ref, x, y, m) < r.minStd:
-				// Low contrast is a property of the reference subset
-				// alone: flag it now, so that blank areas are reported
-				// as such rather than as unreached.
-				r.pts[k].Status = LowContrast
-				r.state[k] = stFailed
-			default:
-				r.state[k] = stPending
+	// Each grid point depends on its own subset only: rows of the grid are
+	// shared out among the threads.
+	parallelFor(g.Ny, r.threads, func(j0, j1 int) {
+		for j := j0; j < j1; j++ {
+			for i := 0; i < g.Nx; i++ {
+				x, y := g.At(i, j)
+				k := g.Index(i, j)
+				r.pts[k].X, r.pts[k].Y = float64(x), float64(y)
+				switch {
+				case !r.mask.RectInside(x-m, y-m, x+m, y+m):
+					r.pts[k].Status = Outside
+				case subsetStd(r.ref, x, y, m) < r.minStd:
+					// Low contrast is a property of the reference subset
+					// alone: flag it now, so that blank areas are reported
+					// as such rather than as unreached.
+					r.pts[k].Status = LowContrast
+					r.state[k] = stFailed
+				default:
+					r.state[k] = stPending
+				}
 			}
 		}
-	}
+	})
 	r.label()
 	return nil
 }

@@ -402,3 +402,80 @@ func BenchmarkLineCubic(b *testing.B) {
 	}
 	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N*len(out)), "ns/sample")
 }
+
+// The blocked column filter and the row-reusing gradient sums must give
+// bitwise the values of the plain forms they replace: filter1D on each
+// column copied out, and each pixel's (2r+1)² neighbourhood summed directly.
+func TestBlockedFiltersMatchPlain(t *testing.T) {
+	g := randomImage(53, 41, 9) // 53 columns: three full blocks and a partial one
+	for _, order := range []Order{Cubic, Quintic} {
+		s, err := NewContext(context.Background(), g, order, 3)
+		if err != nil {
+			t.Fatal(err)
+		}
+		// Plain: rows then each column on its own.
+		cs, w, h := s.cs, g.W, g.H
+		c := make([]float64, len(s.c))
+		for y := 0; y < h; y++ {
+			row := c[(y+pad)*cs+pad : (y+pad)*cs+pad+w]
+			for x := range row {
+				row[x] = float64(g.Pix[y*g.Stride+x])
+			}
+			filter1D(row, 1, w, polesOf(order))
+		}
+		for x := 0; x < w; x++ {
+			col := make([]float64, h)
+			for y := range col {
+				col[y] = c[(y+pad)*cs+pad+x]
+			}
+			filter1D(col, 1, h, polesOf(order))
+			for y := range col {
+				c[(y+pad)*cs+pad+x] = col[y]
+			}
+		}
+		for y := 0; y < h; y++ {
+			for x := 0; x < w; x++ {
+				k := (y+pad)*cs + pad + x
+				if math.Float64bits(c[k]) != math.Float64bits(s.c[k]) {
+					t.Fatalf("%v: coefficient (%d, %d) is %v, plain column filter %v", order, x, y, s.c[k], c[k])
+				}
+			}
+		}
+		// Plain gradient sums over the neighbourhood of each pixel.
+		var wv, wd []float64
+		if order == Cubic {
+			var a, b [4]float64
+			cubicWeights(0, &a)
+			cubicDerivWeights(0, &b)
+			wv, wd = a[:3], b[:3]
+		} else {
+			var a, b [6]float64
+			quinticWeights(0, &a)
+			quinticDerivWeights(0, &b)
+			wv, wd = a[:5], b[:5]
+		}
+		r := len(wv) / 2
+		gx, gy, err := s.SampleGradients(context.Background(), 2)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for y := 0; y < h; y++ {
+			for x := 0; x < w; x++ {
+				var sx, sy float64
+				for j := -r; j <= r; j++ {
+					row := s.c[(y+j+pad)*cs+x+pad-r : (y+j+pad)*cs+x+pad+r+1]
+					var v, d float64
+					for i := range row {
+						v += wv[i] * row[i]
+						d += wd[i] * row[i]
+					}
+					sx += wv[j+r] * d
+					sy += wd[j+r] * v
+				}
+				if gx[y*w+x] != float32(sx) || gy[y*w+x] != float32(sy) {
+					t.Fatalf("%v: gradient at (%d, %d) is (%v, %v), plain sum (%v, %v)", order, x, y, gx[y*w+x], gy[y*w+x], sx, sy)
+				}
+			}
+		}
+	}
+}
