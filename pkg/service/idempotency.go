@@ -13,6 +13,8 @@ import (
 	"sync"
 	"time"
 
+	"github.com/go-chi/chi/v5"
+
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
@@ -97,6 +99,15 @@ func newID(r *http.Request) string {
 	return jobs.NewID()
 }
 
+// idemResource returns the resource id chosen under the request's
+// Idempotency-Key, and whether the request has one.
+func idemResource(r *http.Request) (string, bool) {
+	if in, ok := r.Context().Value(idemCtx{}).(*idem); ok {
+		return in.id, true
+	}
+	return "", false
+}
+
 // created tells the Idempotency-Key handling that the resource of r now
 // exists: a repeat of the request waiting for the first one goes on, and
 // is answered from the resource.
@@ -151,7 +162,8 @@ func (l *keyLocks) lock(ctx context.Context, id string) (unlock func(), err erro
 }
 
 // idempotent wraps a POST handler that creates a resource of kind
-// ("analysis", "series" or "frame") with the handling of the
+// ("analysis", "series", "frame" or "live-frame": a frame taken by a live
+// session, whose first answer the session keeps for repeats) with the handling of the
 // Idempotency-Key header: the first request with a key does the work under
 // a resource id recorded with the key before anything is created; a repeat
 // with the same method, path, query and body is answered from that
@@ -189,6 +201,9 @@ func (s *Server) idempotent(kind string, h http.HandlerFunc) http.HandlerFunc {
 		k, err := s.store.Key(ctx, id)
 		if errors.Is(err, jobs.ErrNotFound) {
 			k = &jobs.Key{ID: id, Fingerprint: fp, Kind: kind, Resource: jobs.NewID(), Created: time.Now().UTC()}
+			if kind == "live-frame" {
+				k.Series = chi.URLParam(r, "id")
+			}
 			if err = s.store.CreateKey(ctx, k); errors.Is(err, jobs.ErrExists) {
 				k, err = s.store.Key(ctx, id) // another instance was first
 			}
@@ -257,6 +272,9 @@ func keyScope(r *http.Request) string {
 
 func (s *Server) resourceExists(ctx context.Context, k *jobs.Key) bool {
 	var err error
+	if k.Kind == "live-frame" {
+		return s.liveFrameExists(k)
+	}
 	if k.Kind == "series" {
 		_, err = s.store.Series(ctx, k.Resource)
 	} else {
@@ -270,6 +288,9 @@ func (s *Server) resourceExists(ctx context.Context, k *jobs.Key) bool {
 // record. It returns false if the resource does not exist (yet).
 func (s *Server) replay(w http.ResponseWriter, r *http.Request, k *jobs.Key) bool {
 	ctx := r.Context()
+	if k.Kind == "live-frame" {
+		return s.liveReplay(w, r, k)
+	}
 	if k.Kind == "series" {
 		sr, err := s.store.Series(ctx, k.Resource)
 		if err != nil {

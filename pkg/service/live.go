@@ -20,9 +20,20 @@ import (
 
 // liveSession is the live mode of one series: the live engine, the values
 // of every frame so far (for late subscribers), the frame jobs of the
-// frames that got a full field, and the event subscribers. It lives in
-// this process only; a restart ends it (the frame jobs and their curve
-// stay).
+// frames that got a full field, and the event subscribers.
+//
+// It lives in the process that started it. The live engine's state (the
+// last solution of every live point, the readings' last trusted values)
+// changes with every frame, and writing it out per frame would cost more
+// than the frame's answer is allowed to take, so it is not persisted.
+// What is persisted, when the session starts, is a mark (liveMark at
+// series/{id}/live.json) naming the process. A restarted service, or
+// another instance of a cluster, finds the mark without the session and
+// refuses the series' live routes with a 409 problem document of type
+// live-ended, instead of silently starting a second live session whose
+// frame numbers would clash with the first. The frame jobs queued for the
+// full field, their results and their curve rows stay; the values of live
+// frames without a full field are lost with the process.
 type liveSession struct {
 	mu     sync.Mutex // one live frame at a time, in order
 	live   *series.Live
@@ -32,6 +43,40 @@ type liveSession struct {
 	lastQueue int // last live index queued for the full field
 	frames    map[int]liveFrame
 	subs      map[chan series.LiveValues]bool
+	// answers holds the answer of each frame sent with an
+	// Idempotency-Key, by the resource id chosen under the key, for
+	// repeats of the request.
+	answers map[string]liveAnswer
+}
+
+// liveMark is the persisted record of a live session: which server
+// process started it, when, and with which options.
+type liveMark struct {
+	Instance string             `json:"instance"`
+	Started  time.Time          `json:"started"`
+	Options  series.LiveOptions `json:"options"`
+}
+
+// liveMarkKey is the blob key of a series' liveMark.
+func liveMarkKey(id string) string { return jobs.SeriesKey(id, "live.json") }
+
+// liveEnded returns the problem of a series whose live session was started
+// by another process (this one restarted since, or another instance holds
+// it), or nil if the series has no live mark.
+func (s *Server) liveEnded(ctx context.Context, id string) *Problem {
+	b, err := s.run.ReadBlob(ctx, liveMarkKey(id))
+	if err != nil {
+		return nil
+	}
+	var m liveMark
+	_ = json.Unmarshal(b, &m)
+	p := problem(http.StatusConflict, "live-ended", "Live session ended",
+		fmt.Sprintf("the live session of this series was started at %s by another service process (instance %q; this one is %q): "+
+			"the service restarted since, or another instance holds it. Live sessions are kept in memory and do not survive a restart; "+
+			"the full-field frame jobs and their curve rows stay, the live values of other frames are lost",
+			m.Started.Format(time.RFC3339), m.Instance, s.instance),
+		FieldProblem{"id", "create a new series with the same reference (POST /v1/series) and start its live mode, or send further frames to /v1/series/{id}/frames"})
+	return p
 }
 
 // liveFrame is a frame kept for a full field on request.
@@ -59,6 +104,9 @@ func (s *Server) liveSession(id string) *liveSession {
 
 // startLive makes the live session of sr with options lo.
 func (s *Server) startLive(ctx context.Context, sr *jobs.Series, lo series.LiveOptions) (*liveSession, error) {
+	if p := s.liveEnded(ctx, sr.ID); p != nil {
+		return nil, p
+	}
 	p, err := decodeSeriesParams(sr.Params)
 	if err != nil {
 		return nil, err
@@ -78,11 +126,32 @@ func (s *Server) startLive(ctx context.Context, sr *jobs.Series, lo series.LiveO
 	if err != nil {
 		return nil, &FieldError{Field: "live", Detail: err.Error()}
 	}
-	ls := &liveSession{live: l, job: []int{-1}, frames: map[int]liveFrame{}, subs: map[chan series.LiveValues]bool{}}
+	ls := &liveSession{live: l, job: []int{-1}, frames: map[int]liveFrame{}, subs: map[chan series.LiveValues]bool{},
+		answers: map[string]liveAnswer{}}
 	if old, loaded := s.lives.LoadOrStore(sr.ID, ls); loaded {
 		return old.(*liveSession), nil
 	}
+	mark, _ := json.Marshal(liveMark{Instance: s.instance, Started: time.Now().UTC(), Options: l.Options()})
+	if err := s.blobs.Put(ctx, liveMarkKey(sr.ID), bytes.NewReader(mark)); err != nil {
+		s.lives.Delete(sr.ID)
+		return nil, fmt.Errorf("live session of series %s: store its mark: %w", sr.ID, err)
+	}
 	return ls, nil
+}
+
+// liveOrEnded returns the live session of sr, or writes the problem of a
+// series without one (live-ended after a restart, else not-live) and
+// returns nil.
+func (s *Server) liveOrEnded(w http.ResponseWriter, r *http.Request, sr *jobs.Series, notLive string) *liveSession {
+	if ls := s.liveSession(sr.ID); ls != nil {
+		return ls
+	}
+	if p := s.liveEnded(r.Context(), sr.ID); p != nil {
+		writeProblem(w, r, p)
+		return nil
+	}
+	writeProblem(w, r, problem(http.StatusNotFound, "not-live", "Not live", notLive))
+	return nil
 }
 
 // postLive starts the live mode of a series with the options in the JSON
@@ -92,6 +161,10 @@ func (s *Server) postLive(w http.ResponseWriter, r *http.Request, sr *jobs.Serie
 	if s.liveSession(sr.ID) != nil {
 		writeProblem(w, r, problem(http.StatusConflict, "live-started", "Live mode already started",
 			"the series is already live; send frames to its live/frames route"))
+		return
+	}
+	if p := s.liveEnded(r.Context(), sr.ID); p != nil {
+		writeProblem(w, r, p)
 		return
 	}
 	var lo series.LiveOptions
@@ -179,6 +252,7 @@ func (s *Server) postLiveFrame(w http.ResponseWriter, r *http.Request, sr *jobs.
 		return
 	}
 	ans := liveAnswer{LiveValues: v, DecodeMS: ms(decode), LiveMS: ms(time.Since(t1))}
+	key, keyed := idemResource(r)
 	ls.values = append(ls.values, v)
 	ls.job = append(ls.job, -1)
 	for c := range ls.subs {
@@ -199,7 +273,45 @@ func (s *Server) postLiveFrame(w http.ResponseWriter, r *http.Request, sr *jobs.
 		ls.frames[v.Index] = liveFrame{body, name, tm, load}
 		delete(ls.frames, v.Index-onRequestKeep)
 	}
+	if keyed {
+		ls.answers[key] = ans
+		created(r)
+	}
 	writeJSON(w, http.StatusOK, ans)
+}
+
+// liveReplay answers a repeat of a live frame sent under an
+// Idempotency-Key with the first answer. It returns false when the frame
+// of resource id was not taken (yet); a series whose live session ended
+// with a restart is answered with the live-ended problem.
+func (s *Server) liveReplay(w http.ResponseWriter, r *http.Request, k *jobs.Key) bool {
+	ls := s.liveSession(k.Series)
+	if ls == nil {
+		if p := s.liveEnded(r.Context(), k.Series); p != nil && k.Done {
+			writeProblem(w, r, p)
+			return true
+		}
+		return false
+	}
+	ls.mu.Lock()
+	ans, ok := ls.answers[k.Resource]
+	ls.mu.Unlock()
+	if ok {
+		writeJSON(w, http.StatusOK, ans)
+	}
+	return ok
+}
+
+// liveFrameExists reports whether the live frame of key k was taken.
+func (s *Server) liveFrameExists(k *jobs.Key) bool {
+	ls := s.liveSession(k.Series)
+	if ls == nil {
+		return false
+	}
+	ls.mu.Lock()
+	defer ls.mu.Unlock()
+	_, ok := ls.answers[k.Resource]
+	return ok
 }
 
 func ms(d time.Duration) float64 { return float64(d.Microseconds()) / 1000 }
@@ -218,9 +330,8 @@ func (s *Server) queueLive(ctx context.Context, sr *jobs.Series, ls *liveSession
 // postLiveFull asks for the full field of live frame {n} (series with the
 // full field on request, or a frame not due under the policy).
 func (s *Server) postLiveFull(w http.ResponseWriter, r *http.Request, sr *jobs.Series) {
-	ls := s.liveSession(sr.ID)
+	ls := s.liveOrEnded(w, r, sr, "the series has no live mode in this server")
 	if ls == nil {
-		writeProblem(w, r, problem(http.StatusNotFound, "not-live", "Not live", "the series has no live mode in this server"))
 		return
 	}
 	n, err := strconv.Atoi(chi.URLParam(r, "n"))
@@ -266,9 +377,8 @@ func (s *Server) liveEvents(w http.ResponseWriter, r *http.Request, sr *jobs.Ser
 		}
 		after = n
 	}
-	ls := s.liveSession(sr.ID)
+	ls := s.liveOrEnded(w, r, sr, "the series has no live mode in this server; POST a frame to its live/frames route first")
 	if ls == nil {
-		writeProblem(w, r, problem(http.StatusNotFound, "not-live", "Not live", "the series has no live mode in this server; POST a frame to its live/frames route first"))
 		return
 	}
 	ch := make(chan series.LiveValues, liveBacklog)

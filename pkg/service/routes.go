@@ -71,7 +71,7 @@ func (s *Server) routes() http.Handler {
 		r.Get("/v1/series/{id}/curve.csv", s.series(s.curveCSV))
 		r.Get("/v1/series/{id}/events", s.series(s.seriesEvents))
 		r.Post("/v1/series/{id}/live", s.series(s.postLive))
-		r.Post("/v1/series/{id}/live/frames", s.series(s.postLiveFrame))
+		r.Post("/v1/series/{id}/live/frames", s.idempotent("live-frame", s.series(s.postLiveFrame)))
 		r.Post("/v1/series/{id}/live/frames/{n}/full", s.series(s.postLiveFull))
 		r.Get("/v1/series/{id}/live/events", s.series(s.liveEvents))
 

@@ -42,6 +42,9 @@ type Server struct {
 
 	// lives holds the live sessions by series id (*liveSession).
 	lives sync.Map
+	// instance names this server process in the marks of its live
+	// sessions (liveMark).
+	instance string
 
 	// keyLocks serialises requests of one Idempotency-Key.
 	keyLocks keyLocks
@@ -75,6 +78,7 @@ func New(cfg Config) (*Server, error) {
 		metrics:  newMetrics(),
 		run:      run,
 		stopping: make(chan struct{}),
+		instance: jobs.NewID(),
 
 		checking: make(chan struct{}, cfg.Workers),
 		disk:     disk,
