@@ -38,7 +38,8 @@ type upload struct {
 // application/octet-stream leaves the format to the decoder's sniffing.
 var imageTypes = map[string]bool{
 	"image/png": true, "image/tiff": true, "image/tif": true, "image/jpeg": true, "image/jpg": true,
-	"image/bmp": true, "image/x-ms-bmp": true, "image/x-bmp": true, "application/octet-stream": true, "": true,
+	"image/bmp": true, "image/x-ms-bmp": true, "image/x-bmp": true, "image/x-portable-graymap": true,
+	"application/octet-stream": true, "": true,
 }
 
 func checkImageType(field, ct string) error {
@@ -51,7 +52,7 @@ func checkImageType(field, ct string) error {
 	}
 	if !imageTypes[strings.ToLower(mt)] {
 		return problem(http.StatusUnsupportedMediaType, "unsupported-media-type", "Unsupported media type",
-			fmt.Sprintf("%s has Content-Type %q; send image/png, image/tiff, image/jpeg, image/bmp or application/octet-stream", field, ct),
+			fmt.Sprintf("%s has Content-Type %q; send image/png, image/tiff, image/jpeg, image/bmp, image/x-portable-graymap or application/octet-stream", field, ct),
 			FieldProblem{field, fmt.Sprintf("Content-Type %q is not an image type", ct)})
 	}
 	return nil
