@@ -13,6 +13,7 @@ import (
 	"regexp"
 	"strings"
 	"sync"
+	"syscall"
 	"testing"
 	"time"
 
@@ -20,6 +21,7 @@ import (
 
 	"github.com/mottledic/mottle/pkg/service"
 	"github.com/mottledic/mottle/pkg/service/access"
+	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
 // lab is a server with two projects and the principals of a shared lab
@@ -28,9 +30,19 @@ import (
 type lab struct {
 	*testServer
 	path   string // the token file
-	log    *syncBuffer
+	log    func() string
 	tokens map[string]string
 	recs   []*access.Record
+
+	// For a lab in a server process (newLabProc):
+	dir  string
+	proc *proc
+
+	// nreq numbers the requests (their X-Request-Id); want lists the
+	// audit entries the test's changes should have left, in order.
+	nreq    int
+	lastReq string
+	want    []auditWant
 }
 
 var labPrincipals = []struct {
@@ -46,30 +58,82 @@ var labPrincipals = []struct {
 
 func newLab(t *testing.T, mod func(*service.Config)) *lab {
 	t.Helper()
-	l := &lab{path: filepath.Join(t.TempDir(), "tokens.jsonl"), tokens: map[string]string{}}
-	now := time.Now()
-	for _, p := range labPrincipals {
-		tok, rec, err := access.NewToken(p.name, []access.Grant{{Project: p.project, Role: p.role}}, now, nil)
-		if err != nil {
-			t.Fatal(err)
-		}
-		l.tokens[p.name] = tok
-		l.recs = append(l.recs, rec)
-	}
-	l.write(t)
+	l := labTokens(t, t.TempDir())
 	f, err := access.OpenFile(l.path)
 	if err != nil {
 		t.Fatal(err)
 	}
-	l.log = &syncBuffer{}
+	log := &syncBuffer{}
+	l.log = log.String
 	l.testServer = newServer(t, func(c *service.Config) {
 		c.TokenFile = f
-		c.Logger = slog.New(slog.NewJSONHandler(l.log, nil))
+		c.Logger = slog.New(slog.NewJSONHandler(log, nil))
 		if mod != nil {
 			mod(c)
 		}
 	})
 	return l
+}
+
+// labTokens writes the token file of the lab's principals in dir.
+func labTokens(t *testing.T, dir string) *lab {
+	t.Helper()
+	l := &lab{path: filepath.Join(dir, "tokens.jsonl"), tokens: map[string]string{}}
+	for _, p := range labPrincipals {
+		l.addToken(t, p.name, access.Grant{Project: p.project, Role: p.role})
+	}
+	l.write(t)
+	return l
+}
+
+func (l *lab) addToken(t *testing.T, name string, g access.Grant) *access.Record {
+	t.Helper()
+	tok, rec, err := access.NewToken(name, []access.Grant{g}, time.Now(), nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	l.tokens[name] = tok
+	l.recs = append(l.recs, rec)
+	return rec
+}
+
+// newLabProc is a lab served by a server process (see startProc) on a
+// data directory of its own, which restart can kill and start again.
+func newLabProc(t *testing.T) *lab {
+	t.Helper()
+	dir := t.TempDir()
+	l := labTokens(t, dir)
+	l.dir = dir
+	t.Setenv("MOTTLE_TEST_TOKENS", l.path)
+	l.start(t)
+	return l
+}
+
+func (l *lab) start(t *testing.T) {
+	t.Helper()
+	l.proc = startProc(t, l.dir, false, time.Second)
+	l.testServer = l.proc.ts
+	l.log = func() string {
+		var b strings.Builder
+		logs, _ := filepath.Glob(filepath.Join(l.dir, "log-*"))
+		for _, name := range logs {
+			data, _ := os.ReadFile(name)
+			b.Write(data)
+		}
+		return b.String()
+	}
+}
+
+// kill ends the server process with SIGKILL.
+func (l *lab) kill(t *testing.T) {
+	t.Helper()
+	if err := l.proc.cmd.Process.Signal(syscall.SIGKILL); err != nil {
+		t.Fatal(err)
+	}
+	if err := <-l.proc.done; err == nil || !strings.Contains(err.Error(), "killed") {
+		t.Fatalf("server exit: %v, want killed", err)
+	}
+	l.proc.done <- nil // for the cleanup
 }
 
 func (l *lab) write(t *testing.T) {
@@ -100,6 +164,9 @@ func (l *lab) call(t *testing.T, who, method, path string, hdr map[string]string
 	if who != "" {
 		req.Header.Set("Authorization", "Bearer "+l.tokens[who])
 	}
+	l.nreq++
+	l.lastReq = fmt.Sprintf("req-%d", l.nreq)
+	req.Header.Set("X-Request-Id", l.lastReq)
 	if ctype != "" {
 		req.Header.Set("Content-Type", ctype)
 	}
@@ -126,7 +193,7 @@ func (l *lab) call(t *testing.T, who, method, path string, hdr map[string]string
 // noTokensLogged fails if the server's log holds a token.
 func (l *lab) noTokensLogged(t *testing.T) {
 	t.Helper()
-	log := l.log.String()
+	log := l.log()
 	if len(log) == 0 {
 		t.Fatal("the server logged nothing; the check would be empty")
 	}
@@ -166,7 +233,9 @@ func (l *lab) newAnalysis(t *testing.T, who, project string) string {
 	if st != 200 {
 		t.Fatalf("%s creates an analysis in %s: %d %s", who, project, st, b)
 	}
-	return decodeJSON[jobDoc](t, b).ID
+	id := decodeJSON[jobDoc](t, b).ID
+	l.expect(jobs.AuditCreate, jobs.AuditAnalysis, id, "", who, l.projectOf(who, project))
+	return id
 }
 
 func (l *lab) newSeries(t *testing.T, who, project string) string {
@@ -177,10 +246,12 @@ func (l *lab) newSeries(t *testing.T, who, project string) string {
 		t.Fatalf("%s creates a series in %s: %d %s", who, project, st, b)
 	}
 	id := decodeJSON[jobDoc](t, b).ID
+	l.expect(jobs.AuditCreate, jobs.AuditSeries, id, "", who, l.projectOf(who, project))
 	st, b = l.call(t, who, "POST", "/v1/series/"+id+"/frames?wait=true", nil, "image/png", encodePNG(t, speckle(40, 40, 1, 0, 5)))
 	if st != 200 {
 		t.Fatalf("%s posts a frame: %d %s", who, st, b)
 	}
+	l.expect(jobs.AuditCreate, jobs.AuditFrame, decodeJSON[jobDoc](t, b).ID, id, who, l.projectOf(who, project))
 	return id
 }
 
@@ -221,15 +292,20 @@ var paramRE = regexp.MustCompile(`\{[a-z]+\}`)
 // lab-a, against lab-a's and lab-b's resources: another project's ids
 // answer 404, a role too low 403 (a display deleting in its own
 // project), and an allowed request anything but 401, 403, 404 or 500.
+// The server is a process: at the end it is killed with SIGKILL, a token
+// revoked while it is down and one added after its restart, and the
+// audit trail must hold an entry for every change, in order (see
+// checkAudit).
 func TestAccessMatrix(t *testing.T) {
-	l := newLab(t, nil)
+	l := newLabProc(t)
+	l.expectTokens(l.recs...)
 	fx := map[string]fixture{
 		"lab-a": {l.newAnalysis(t, "lead", "lab-a"), l.newSeries(t, "lead", "lab-a")},
 		"lab-b": {l.newAnalysis(t, "lead-b", "lab-b"), l.newSeries(t, "lead-b", "lab-b")},
 	}
 	type route struct{ method, pattern string }
 	var routes []route
-	err := chi.Walk(l.srv.Handler().(chi.Routes), func(method, pattern string, _ http.Handler, _ ...func(http.Handler) http.Handler) error {
+	err := chi.Walk(newServer(t, nil).srv.Handler().(chi.Routes), func(method, pattern string, _ http.Handler, _ ...func(http.Handler) http.Handler) error {
 		if pattern == "/healthz" || pattern == "/readyz" || pattern == "/*" || method == "OPTIONS" || method == "HEAD" {
 			return nil
 		}
@@ -288,6 +364,9 @@ func TestAccessMatrix(t *testing.T) {
 				}
 				st, b := l.call(t, who, rt.method, path, hdr, ctype, body)
 				name := fmt.Sprintf("%s %s as %s in %s", rt.method, rt.pattern, who, proj)
+				if st/100 == 2 && rt.method != "GET" {
+					l.expectChange(t, name, rt.method, rt.pattern, f, who, proj)
+				}
 				switch {
 				case proj == "lab-b" && resource:
 					if st != 404 {
@@ -320,6 +399,7 @@ func TestAccessMatrix(t *testing.T) {
 			t.Errorf("%s %s without a token: %d, want 401", rt.method, rt.pattern, st)
 		}
 	}
+	l.checkAudit(t)
 	l.noTokensLogged(t)
 }
 

@@ -138,6 +138,7 @@ func (s *Server) authenticate(next http.Handler) http.Handler {
 		if s.authOn() {
 			given, bearer := strings.CutPrefix(r.Header.Get("Authorization"), "Bearer ")
 			p = s.principalOf(strings.TrimSpace(given))
+			s.auditTokens(r.Context())
 			if p == nil && !bearer && strings.HasSuffix(pattern, "/events") {
 				p = s.tickets.redeem(r.URL.Query().Get("ticket"), time.Now())
 			}

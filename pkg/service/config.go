@@ -157,8 +157,8 @@ func (c *Config) defaults() {
 // Validate reports every problem with the configuration at once.
 func (c *Config) Validate() error {
 	var errs []error
-	if c.Backend == nil || c.Backend.Store == nil || c.Backend.Blobs == nil || c.Backend.Queue == nil {
-		errs = append(errs, errors.New("config: Backend with Store, Blobs and Queue is required"))
+	if c.Backend == nil || c.Backend.Store == nil || c.Backend.Blobs == nil || c.Backend.Queue == nil || c.Backend.Audit == nil {
+		errs = append(errs, errors.New("config: Backend with Store, Blobs, Queue and Audit is required"))
 	}
 	if c.Analyzer == nil {
 		errs = append(errs, errors.New("config: Analyzer is required"))

@@ -16,6 +16,7 @@ import (
 	"time"
 
 	"github.com/mottledic/mottle/pkg/service"
+	"github.com/mottledic/mottle/pkg/service/access"
 	"github.com/mottledic/mottle/pkg/service/embedded"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
@@ -52,8 +53,15 @@ func serveForTest() error {
 		// shutdown grace is over.
 		hold = func(ctx context.Context, _ jobs.Job) { <-ctx.Done() }
 	}
-	s, err := service.New(service.Config{Backend: be, Analyzer: an, Workers: 2, BeforeCompute: hold,
-		ShutdownGrace: grace, Logger: slog.New(slog.NewJSONHandler(os.Stderr, nil))})
+	cfg := service.Config{Backend: be, Analyzer: an, Workers: 2, BeforeCompute: hold,
+		ShutdownGrace: grace, Logger: slog.New(slog.NewJSONHandler(os.Stderr, nil))}
+	if path := os.Getenv("MOTTLE_TEST_TOKENS"); path != "" {
+		// The token file of an access test.
+		if cfg.TokenFile, err = access.OpenFile(path); err != nil {
+			return err
+		}
+	}
+	s, err := service.New(cfg)
 	if err != nil {
 		return err
 	}

@@ -212,6 +212,8 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Param
 	} else if err != nil {
 		s.answerAcceptErr(w, r, err)
 		return
+	} else {
+		s.recordJob(r.Context(), jobs.AuditCreate, j, "")
 	}
 	created(r)
 	logger(r.Context()).Info("analysis accepted", "job", j.ID, "width", j.Width, "height", j.Height)
@@ -384,6 +386,7 @@ func (s *Server) deleteAnalysis(w http.ResponseWriter, r *http.Request, j *jobs.
 		writeProblem(w, r, asProblem(err, "id"))
 		return
 	}
+	s.recordJob(r.Context(), jobs.AuditDelete, j, "")
 	w.WriteHeader(http.StatusNoContent)
 }
 
@@ -393,6 +396,7 @@ func (s *Server) cancelAnalysis(w http.ResponseWriter, r *http.Request, j *jobs.
 		writeProblem(w, r, asProblem(err, "id"))
 		return
 	}
+	s.recordJob(r.Context(), jobs.AuditCancel, j, cancelDetail(j))
 	writeJSON(w, http.StatusAccepted, viewJob(j))
 }
 

@@ -46,6 +46,8 @@ func (s *Server) routes() http.Handler {
 		r.Get("/metrics", s.getMetrics)
 		r.Post("/v1/stream-tickets", s.postStreamTicket)
 		r.Get("/v1/openapi.json", s.openapi)
+		r.Get("/v1/audit", s.getAudit)
+		r.Get("/v1/audit.jsonl", s.getAuditJSONL)
 
 		r.Post("/v1/analyses", s.idempotent("analysis", s.postAnalysis))
 		r.Get("/v1/analyses", s.listAnalyses)

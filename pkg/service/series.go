@@ -123,6 +123,8 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 		s.blobs.Delete(r.Context(), jobs.SeriesKey(sr.ID, ""))
 		writeProblem(w, r, asProblem(err, ""))
 		return
+	} else {
+		s.recordSeries(r.Context(), jobs.AuditCreate, sr, "")
 	}
 	created(r)
 	logger(r.Context()).Info("series created", "series", sr.ID, "width", sr.Width, "height", sr.Height)
@@ -151,10 +153,12 @@ func (s *Server) getSeries(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 }
 
 func (s *Server) deleteSeriesH(w http.ResponseWriter, r *http.Request, sr *jobs.Series) {
-	if _, err := s.deleteSeries(r.Context(), sr.ID, false); err != nil {
+	n, err := s.deleteSeries(r.Context(), sr.ID, false)
+	if err != nil {
 		writeProblem(w, r, asProblem(err, "id"))
 		return
 	}
+	s.recordSeries(r.Context(), jobs.AuditDelete, sr, fmt.Sprintf("with %d frame jobs", n))
 	s.lives.Delete(sr.ID)
 	w.WriteHeader(http.StatusNoContent)
 }
@@ -201,6 +205,7 @@ func (s *Server) queueFrame(ctx context.Context, sr *jobs.Series, id string, ind
 		s.releaseFrame(sr.ID, j)
 		return nil, 0, err
 	}
+	s.recordJob(ctx, jobs.AuditCreate, j, "")
 	return j, 0, nil
 }
 

@@ -24,12 +24,15 @@ type Server struct {
 	store   jobs.Store
 	blobs   jobs.Blobs
 	queue   jobs.Queue
+	audit   jobs.Audit
 	tokens  [][sha256.Size]byte
 	tickets tickets
-	rates   rates
-	metrics *metrics
-	run     *runner.Runner
-	handler http.Handler
+	// tokAudit: the token-file changes recorded in the audit trail.
+	tokAudit tokenAudit
+	rates    rates
+	metrics  *metrics
+	run      *runner.Runner
+	handler  http.Handler
 
 	draining atomic.Bool
 	// stopping is closed when shutdown begins: event streams and waits end.
@@ -75,6 +78,7 @@ func New(cfg Config) (*Server, error) {
 		store:    cfg.Backend.Store,
 		blobs:    cfg.Backend.Blobs,
 		queue:    cfg.Backend.Queue,
+		audit:    cfg.Backend.Audit,
 		metrics:  newMetrics(),
 		run:      run,
 		stopping: make(chan struct{}),
@@ -111,6 +115,7 @@ func (s *Server) Start(ctx context.Context) (stop func(), err error) {
 	if err != nil {
 		return nil, err
 	}
+	s.auditTokens(ctx)
 	return func() {
 		s.beginStop()
 		rstop()

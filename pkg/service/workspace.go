@@ -13,6 +13,7 @@ import (
 	"image/png"
 	"io"
 	"net/http"
+	"strconv"
 	"strings"
 	"time"
 	"unicode"
@@ -90,6 +91,7 @@ func (s *Server) renameAnalysis(w http.ResponseWriter, r *http.Request, j *jobs.
 		writeProblem(w, r, asProblem(err, "id"))
 		return
 	}
+	s.recordJob(r.Context(), jobs.AuditRename, j, "to "+strconv.Quote(name))
 	writeJSON(w, http.StatusOK, viewJob(j))
 }
 
@@ -107,6 +109,7 @@ func (s *Server) renameSeries(w http.ResponseWriter, r *http.Request, sr *jobs.S
 		writeProblem(w, r, asProblem(err, "id"))
 		return
 	}
+	s.recordSeries(r.Context(), jobs.AuditRename, sr, "to "+strconv.Quote(name))
 	writeJSON(w, http.StatusOK, s.viewSeries(r.Context(), sr, true))
 }
 

@@ -313,6 +313,7 @@ type File struct {
 	size int64
 	recs map[string]*Record
 	err  error
+	gen  uint64
 }
 
 // OpenFile reads the token file at path.
@@ -348,6 +349,7 @@ func (f *File) reload() error {
 		m[r.SHA256] = r
 	}
 	f.recs, f.mod, f.size = m, st.ModTime(), st.Size()
+	f.gen++
 	return nil
 }
 
@@ -363,6 +365,15 @@ func (f *File) Lookup(token string, now time.Time) (*Record, error) {
 		return nil, err
 	}
 	return r, err
+}
+
+// Generation counts the reads of the file that found it changed: it is
+// 1 after OpenFile and grows by one each time the records are replaced.
+// It does not read the file.
+func (f *File) Generation() uint64 {
+	f.mu.Lock()
+	defer f.mu.Unlock()
+	return f.gen
 }
 
 // Records returns the records last read, in no order.

@@ -49,6 +49,7 @@ func OpenWith(dataDir string, o Options) (*jobs.Backend, error) {
 		Store:   st,
 		Blobs:   bl,
 		Queue:   q,
+		Audit:   st.Audit(),
 		Recover: func(ctx context.Context) (int, error) { return recoverJobs(ctx, st, q) },
 		Close:   st.Close,
 	}, nil

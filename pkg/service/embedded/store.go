@@ -5,7 +5,8 @@
 //
 // Layout of the data directory:
 //
-//	mottle.db     bbolt database: buckets "jobs" and "series", JSON records
+//	mottle.db     bbolt database: buckets "jobs", "series" and "keys", JSON
+//	              records, and the append-only audit trail (see Audit)
 //	blobs/...     one file per blob key, written to a temporary file and renamed
 package embedded
 
@@ -48,7 +49,7 @@ func OpenStore(path string) (*Store, error) {
 		return nil, fmt.Errorf("open job database %s: %w (is another mottle serve using this data directory?)", path, err)
 	}
 	err = db.Update(func(tx *bolt.Tx) error {
-		for _, b := range [][]byte{bucketJobs, bucketSeries, bucketKeys} {
+		for _, b := range [][]byte{bucketJobs, bucketSeries, bucketKeys, bucketAudit, bucketAuditIndex} {
 			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
 				return err
 			}

@@ -142,11 +142,13 @@ type Delivery interface {
 	InProgress() error
 }
 
-// Backend bundles the three parts of a job model implementation.
+// Backend bundles the parts of a job model implementation.
 type Backend struct {
 	Store Store
 	Blobs Blobs
 	Queue Queue
+	// Audit keeps the audit trail.
+	Audit Audit
 	// Recover, if non-nil, is called once when the service starts, before
 	// any worker runs: the embedded backend re-enqueues the jobs its
 	// records show as queued or running. It returns the number requeued.

@@ -19,6 +19,9 @@
 //	dead letters stream <PREFIX>_DEAD, subjects <prefix>.dead.<kind>: one
 //	            message per job that failed or ran out of deliveries, with
 //	            the failure reason
+//	jobs.Audit  stream <PREFIX>_AUDIT, subjects <prefix>.audit.<resource>:
+//	            the append-only audit trail (no limits, deletes and purges
+//	            refused), an entry's Seq its stream sequence
 //
 // Delivery is at least once. It is made safe thus: a job is claimed by a
 // compare-and-swap of its record from queued to running, so two workers
@@ -235,17 +238,18 @@ func IsURL(spec string) bool {
 
 // names are the JetStream resources of one prefix.
 type names struct {
-	prefix     string
-	jobStream  string // work-queue stream
-	deadStream string // dead letters
-	consumer   string
-	kv         string
-	objects    string
+	prefix      string
+	jobStream   string // work-queue stream
+	deadStream  string // dead letters
+	auditStream string // the audit trail
+	consumer    string
+	kv          string
+	objects     string
 }
 
 func namesFor(prefix string) names {
 	up := strings.ToUpper(prefix)
-	return names{prefix: prefix, jobStream: up + "_JOBS", deadStream: up + "_DEAD",
+	return names{prefix: prefix, jobStream: up + "_JOBS", deadStream: up + "_DEAD", auditStream: up + "_AUDIT",
 		consumer: "workers", kv: prefix + "-state", objects: prefix + "-blobs"}
 }
 
@@ -254,7 +258,8 @@ func (n names) frameSubject(ser string) string { return n.prefix + ".jobs.frame.
 func (n names) progressSubject(id string) string {
 	return n.prefix + ".progress." + id
 }
-func (n names) deadSubject(kind jobs.Kind) string { return n.prefix + ".dead." + string(kind) }
+func (n names) deadSubject(kind jobs.Kind) string   { return n.prefix + ".dead." + string(kind) }
+func (n names) auditSubject(resource string) string { return n.prefix + ".audit." + resource }
 
 // Backend is an open connection to the JetStream resources of one prefix.
 // Its Store, Blobs and Queue implement the jobs interfaces; Jobs bundles
@@ -267,6 +272,7 @@ type Backend struct {
 	store *Store
 	blobs *Blobs
 	queue *Queue
+	audit *Audit
 }
 
 // Open connects to the servers, creates or updates the streams, the
@@ -370,6 +376,9 @@ func (b *Backend) setupOnce(ctx context.Context) error {
 	if err != nil {
 		return fmt.Errorf("dead-letter stream %s: %w", n.deadStream, err)
 	}
+	if _, err := js.CreateOrUpdateStream(rctx, auditConfig(n, r)); err != nil {
+		return fmt.Errorf("audit stream %s: %w", n.auditStream, err)
+	}
 	cons, err := js.CreateOrUpdateConsumer(rctx, n.jobStream, jetstream.ConsumerConfig{
 		Durable:       n.consumer,
 		Description:   "Mottle workers",
@@ -424,6 +433,7 @@ func (b *Backend) setupOnce(ctx context.Context) error {
 	b.store = newStore(b.nc, kv, n, o.Logger)
 	b.blobs = &Blobs{obj: obj, stream: objStream, bucket: n.objects}
 	b.queue = &Queue{b: b, cons: cons}
+	b.audit = &Audit{js: js, stream: n.auditStream, n: n}
 	return nil
 }
 
@@ -460,7 +470,7 @@ func (b *Backend) Conn() *nats.Conn { return b.nc }
 // Jobs returns the backend as a jobs.Backend for service.Config. It has
 // no Recover: the job stream is durable and redelivers by itself.
 func (b *Backend) Jobs() *jobs.Backend {
-	return &jobs.Backend{Store: b.store, Blobs: b.blobs, Queue: b.queue, Close: b.Close}
+	return &jobs.Backend{Store: b.store, Blobs: b.blobs, Queue: b.queue, Audit: b.audit, Close: b.Close}
 }
 
 // Close stops watches and closes the connection after flushing what was
