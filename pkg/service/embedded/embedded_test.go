@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"github.com/mottledic/mottle/pkg/service/jobs"
+	"github.com/mottledic/mottle/pkg/service/jobs/jobstest"
 )
 
 func TestBlobKeysCannotEscape(t *testing.T) {
@@ -129,5 +130,27 @@ func TestStoreUpdateWatchRecover(t *testing.T) {
 	counts, _ := be.Store.Counts(ctx)
 	if counts[jobs.Queued] != 2 {
 		t.Errorf("counts %v", counts)
+	}
+}
+
+// TestAudit checks the audit trail's contract, and that it reads back
+// the same after the database is closed and opened again.
+func TestAudit(t *testing.T) {
+	dir := t.TempDir()
+	be, err := Open(dir, 4)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer func() { be.Close() }()
+	diff, err := jobstest.CheckAudit(context.Background(), be.Audit, func() (jobs.Audit, error) {
+		be.Close()
+		be, err = Open(dir, 4)
+		if err != nil {
+			return nil, err
+		}
+		return be.Audit, nil
+	})
+	if err != nil || diff != "" {
+		t.Fatalf("%s %v", diff, err)
 	}
 }

@@ -94,6 +94,10 @@ func (a *Audit) Append(ctx context.Context, e *jobs.AuditEntry) error {
 	return nil
 }
 
+// sinceMargin is how much earlier than AuditFilter.Since a read starts
+// by stream time, for clock differences between API nodes and servers.
+const sinceMargin = time.Hour
+
 // auditBatch is the most entries fetched in one request.
 const auditBatch = 256
 
@@ -111,7 +115,9 @@ func (a *Audit) AuditEntries(ctx context.Context, f jobs.AuditFilter) ([]*jobs.A
 	case f.After > 0:
 		cfg.DeliverPolicy, cfg.OptStartSeq = jetstream.DeliverByStartSequencePolicy, f.After+1
 	case !f.Since.IsZero():
-		since := f.Since
+		// The stream starts by its own receive time, the entry's Time is
+		// the API node's clock: start an hour early, filter exactly below.
+		since := f.Since.Add(-sinceMargin)
 		cfg.DeliverPolicy, cfg.OptStartTime = jetstream.DeliverByStartTimePolicy, &since
 	}
 	if f.Resource != "" {
@@ -138,33 +144,44 @@ func (a *Audit) AuditEntries(ctx context.Context, f jobs.AuditFilter) ([]*jobs.A
 	pending := cons.CachedInfo().NumPending
 	var out []*jobs.AuditEntry
 	for pending > 0 && (f.Limit <= 0 || len(out) < f.Limit) {
-		batch, err := cons.Fetch(int(min(pending, auditBatch)), jetstream.FetchMaxWait(attemptTimeout), jetstream.FetchContext(ctx))
-		if err != nil {
-			return nil, fmt.Errorf("audit trail: read %s: %w", a.stream, err)
-		}
-		got := 0
-		for m := range batch.Messages() {
-			got++
-			meta, err := m.Metadata()
-			if err != nil {
-				return nil, fmt.Errorf("audit trail: %w", err)
-			}
-			pending = meta.NumPending
-			var e jobs.AuditEntry
-			if err := json.Unmarshal(m.Data(), &e); err != nil {
-				return nil, fmt.Errorf("audit trail: entry %d: corrupt record: %w", meta.Sequence.Stream, err)
-			}
-			e.Seq = meta.Sequence.Stream
-			if f.Match(&e) && (f.Limit <= 0 || len(out) < f.Limit) {
-				out = append(out, &e)
-			}
-		}
-		if err := batch.Error(); err != nil && !errors.Is(err, jetstream.ErrNoMessages) {
-			return nil, fmt.Errorf("audit trail: read %s: %w", a.stream, err)
-		}
-		if got == 0 {
-			return nil, fmt.Errorf("audit trail: read %s: no entries delivered within %v although %d are pending", a.stream, attemptTimeout, pending)
+		if out, pending, err = a.fetch(ctx, cons, pending, f, out); err != nil {
+			return nil, err
 		}
 	}
 	return out, nil
+}
+
+// fetch reads the next batch of at most pending entries from cons,
+// appends those matching f to out, and returns the count still pending.
+func (a *Audit) fetch(ctx context.Context, cons jetstream.Consumer, pending uint64, f jobs.AuditFilter, out []*jobs.AuditEntry) ([]*jobs.AuditEntry, uint64, error) {
+	fctx, cancel := context.WithTimeout(ctx, attemptTimeout)
+	defer cancel()
+	batch, err := cons.Fetch(int(min(pending, auditBatch)), jetstream.FetchContext(fctx))
+	if err != nil {
+		return nil, 0, fmt.Errorf("audit trail: read %s: %w", a.stream, err)
+	}
+	got := 0
+	for m := range batch.Messages() {
+		got++
+		meta, err := m.Metadata()
+		if err != nil {
+			return nil, 0, fmt.Errorf("audit trail: %w", err)
+		}
+		pending = meta.NumPending
+		var e jobs.AuditEntry
+		if err := json.Unmarshal(m.Data(), &e); err != nil {
+			return nil, 0, fmt.Errorf("audit trail: entry %d: corrupt record: %w", meta.Sequence.Stream, err)
+		}
+		e.Seq = meta.Sequence.Stream
+		if f.Match(&e) && (f.Limit <= 0 || len(out) < f.Limit) {
+			out = append(out, &e)
+		}
+	}
+	if err := batch.Error(); err != nil && !errors.Is(err, jetstream.ErrNoMessages) {
+		return nil, 0, fmt.Errorf("audit trail: read %s: %w", a.stream, err)
+	}
+	if got == 0 {
+		return nil, 0, fmt.Errorf("audit trail: read %s: no entries delivered within %v although %d are pending", a.stream, attemptTimeout, pending)
+	}
+	return out, pending, nil
 }
