@@ -18,6 +18,12 @@ const (
 	rowCalib       = "camera calibration on 12 rendered views"
 	rowCalibCV     = "camera calibration against OpenCV"
 	rowFalseStrain = "false strain of a rigid translation"
+	rowStereoCalib = "stereo rig calibration"
+	rowStereoCV    = "stereo against OpenCV"
+	rowStereoShape = "stereo shape"
+	rowStereoOOP   = "stereo, 1 mm out-of-plane translation"
+	rowStereoTilt  = "stereo, 0.5 % stretch of a plane tilted 20°"
+	rowStereoBulge = "stereo, bulged plate"
 )
 
 // up is a figure with an upper bound; row "" means asserted but not quoted.
@@ -176,6 +182,48 @@ func All() []Figure {
 		in("falsestrain/without", rowFalseStrain, 0.0012, 0.0005, 0.002),
 		up("falsestrain/with", rowFalseStrain, 3.8e-5, 5e-5),
 		up("falsestrain/true-lens", rowFalseStrain, 3.7e-5, 5e-5),
+
+		// pkg/calib TestStereoCalibrateTruth and TestStereoOpenCV (one
+		// rendered set of 10 pairs, 640×480): the larger reprojection RMS
+		// of the two cameras (px), the baseline error (%) and the error
+		// of the angle between the axes (degrees) against the renderer's
+		// rig; the largest |ours − OpenCV stereoCalibrate| over the 21 free
+		// parameters in units of our standard deviation (bound: 1 std).
+		// pkg/stereo TestTriangulateOpenCV: the largest distance between
+		// our and OpenCV's triangulatePoints on the same undistorted
+		// pairs, as a fraction of the 500 mm working distance (bound: the
+		// issue's 1e-6).
+		up("stereo/calib/rms", rowStereoCalib, 0.0077, 0.012),
+		up("stereo/calib/baseline", rowStereoCalib, 0.0058, 0.009),
+		up("stereo/calib/angle", rowStereoCalib, 0.03, 0.045),
+		up("stereo/calib/opencv/params-in-std", rowStereoCV, 0.0026, 1),
+		up("stereo/opencv/triangulate/noisy", rowStereoCV, 6.5e-14, 1e-6),
+		up("stereo/opencv/triangulate/corrected", "", 6.1e-14, 1e-6),
+
+		// pkg/stereo TestFigures (central 448×320 px of 1024×768 pairs of
+		// the invented bench): shape RMS error (mm) of a plane and of a
+		// cylinder; 1 mm out-of-plane translation: RMS error (mm), false
+		// surface strain (largest |mean| or RMS of a component) and the
+		// mean false strain of 2D correlation of the left camera (held to
+		// [0.0015, 0.0025] around w/Z = 0.002); a 0.5 % stretch of a plane
+		// tilted 20° (largest |mean| or RMS of the principal-strain
+		// errors); a bulged plate (RMS error of the principal strains, and
+		// of w in mm). Bounds of the first four are the stereo issue's.
+		up("stereo/shape/plane/mean", rowStereoShape, 0.00097, 0.005),
+		up("stereo/shape/plane/worst", rowStereoShape, 0.001, 0.005),
+		up("stereo/shape/cylinder/mean", rowStereoShape, 0.0011, 0.005),
+		up("stereo/shape/cylinder/worst", rowStereoShape, 0.0012, 0.005),
+		up("stereo/out-of-plane/displacement/mean", rowStereoOOP, 0.0012, 0.005),
+		up("stereo/out-of-plane/displacement/worst", rowStereoOOP, 0.0013, 0.005),
+		up("stereo/out-of-plane/strain/mean", rowStereoOOP, 1.8e-5, 1e-4),
+		up("stereo/out-of-plane/strain/worst", rowStereoOOP, 2.2e-5, 1e-4),
+		in("stereo/out-of-plane/2d-strain", rowStereoOOP, 0.0019, 0.0015, 0.0025),
+		up("stereo/tilted/strain/mean", rowStereoTilt, 3e-5, 1e-4),
+		up("stereo/tilted/strain/worst", rowStereoTilt, 3.2e-5, 1e-4),
+		up("stereo/bulge/strain/mean", rowStereoBulge, 0.00014, 0.0002),
+		up("stereo/bulge/strain/worst", rowStereoBulge, 0.00014, 0.00021),
+		up("stereo/bulge/w/mean", rowStereoBulge, 0.0012, 0.0018),
+		up("stereo/bulge/w/worst", rowStereoBulge, 0.0013, 0.002),
 
 		in("challenge/first/p10-per-subset", rowChallenge, 3.8, 3.72, 4.26),
 		up("challenge/first/p10-deviation/worst", rowChallenge, 0.056, 0.084),

@@ -13,6 +13,7 @@ import (
 	"sync"
 	"testing"
 
+	"github.com/mottledic/mottle/internal/figures"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/synth"
 )
@@ -146,6 +147,9 @@ func TestStereoCalibrateTruth(t *testing.T) {
 	tr := benchRig()
 	t.Logf("RMS left %.4f px, right %.4f px; baseline %.3f mm (true %.3f), angle %.4f° (true %.4f)",
 		res.RMSLeft, res.RMSRight, res.Rig.Baseline(), tr.Baseline(), res.Rig.Angle(), tr.Angle())
+	figures.Check(t, "stereo/calib/rms", math.Max(res.RMSLeft, res.RMSRight))
+	figures.Check(t, "stereo/calib/baseline", 100*math.Abs(res.Rig.Baseline()-tr.Baseline())/tr.Baseline())
+	figures.Check(t, "stereo/calib/angle", math.Abs(res.Rig.Angle()-tr.Angle()))
 	if res.RMSLeft > 0.1 || res.RMSRight > 0.1 {
 		t.Errorf("RMS %.4f / %.4f px: want below 0.1 px on noise-1 renderings", res.RMSLeft, res.RMSRight)
 	}
@@ -227,16 +231,19 @@ func TestStereoOpenCV(t *testing.T) {
 	cvRig := Rig{Left: c.Left.Camera(), Right: c.Right.Camera(), R: c.R, T: c.T}
 	t.Logf("OpenCV %s: RMS %.5f px (ours %.5f)", cv.Version, c.RMS, res.RMS)
 	ours, theirs := rigVector(&res.Rig), rigVector(&cvRig)
+	var worst float64
 	for i, n := range RigParamNames() {
 		d := math.Abs(ours[i] - theirs[i])
 		if res.Std[i] == 0 {
 			continue // fixed
 		}
+		worst = math.Max(worst, d/res.Std[i])
 		t.Logf("%s: ours %.8g ± %.3g, OpenCV %.8g, difference %.2f std", n, ours[i], res.Std[i], theirs[i], d/res.Std[i])
 		if d > res.Std[i] {
 			t.Errorf("%s: ours %.8g and OpenCV's %.8g differ by %.3g, more than our standard deviation %.3g", n, ours[i], theirs[i], d, res.Std[i])
 		}
 	}
+	figures.Check(t, "stereo/calib/opencv/params-in-std", worst)
 }
 
 // runRef runs a reference driver of scripts/ with the request req and

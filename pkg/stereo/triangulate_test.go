@@ -4,7 +4,10 @@ import (
 	"errors"
 	"math"
 	"math/rand/v2"
+	"strings"
 	"testing"
+
+	"github.com/mottledic/mottle/internal/figures"
 )
 
 // TestTriangulateExact: points projected by the exact cameras of the bench
@@ -178,6 +181,7 @@ func TestTriangulateOpenCV(t *testing.T) {
 				t.Errorf("noisy pairs: our optimal triangulation (RMS %.5f mm) is further from the truth than OpenCV's linear (%.5f mm)", eo, ec)
 			}
 		}
+		figures.Check(t, "stereo/opencv/triangulate/"+strings.Fields(c.name)[0], worst/500)
 		if worst > 1e-6*500 {
 			t.Errorf("%s: ours and OpenCV's triangulation differ by %.3g mm, more than 1e-6 of the working distance", c.name, worst)
 		}

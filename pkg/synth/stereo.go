@@ -3,6 +3,7 @@ package synth
 import (
 	"errors"
 	"fmt"
+	"image"
 	"math"
 
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -292,6 +293,37 @@ func RenderSurface(s Surface, p Placement, c Cam, o RenderOptions) (*imageio.Gra
 		return nil, Report{}, fmt.Errorf("render surface: focal lengths %g, %g px: use positive values", c.Lens.Fx, c.Lens.Fy)
 	}
 	return render(s, newSurfaceView(c, p), o)
+}
+
+// RenderSurfaceWindow is RenderSurface restricted to the pixels of win
+// (x0 ≤ x < x1, y0 ≤ y < y1): the samples of every other pixel see o.Void
+// without being cast, so that a test measuring part of a large image pays
+// only for that part. Samples outside win count as void in the Report.
+func RenderSurfaceWindow(s Surface, p Placement, c Cam, o RenderOptions, win image.Rectangle) (*imageio.Gray, Report, error) {
+	if win.Empty() {
+		return nil, Report{}, fmt.Errorf("render surface: empty window %v: give x0 < x1 and y0 < y1", win)
+	}
+	if s == nil || p.Shape == nil || !(c.Lens.Fx > 0 && c.Lens.Fy > 0) {
+		return RenderSurface(s, p, c, o)
+	}
+	return render(s, windowView{newSurfaceView(c, p), win}, o)
+}
+
+// windowView is a surfaceView seen only through a window of pixels.
+type windowView struct {
+	v   surfaceView
+	win image.Rectangle
+}
+
+// errOutsideWindow marks the samples of pixels outside the window.
+var errOutsideWindow = fmt.Errorf("%w: outside the rendered window", ErrNoMaterial)
+
+func (w windowView) Inverse(x, y float64) (float64, float64, error) {
+	px, py := math.Round(x), math.Round(y)
+	if px < float64(w.win.Min.X) || py < float64(w.win.Min.Y) || px >= float64(w.win.Max.X) || py >= float64(w.win.Max.Y) {
+		return 0, 0, errOutsideWindow
+	}
+	return w.v.Inverse(x, y)
 }
 
 // SeenAt returns the reference material point that camera c sees at the

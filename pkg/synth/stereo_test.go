@@ -1,6 +1,7 @@
 package synth
 
 import (
+	"image"
 	"math"
 	"testing"
 )
@@ -53,5 +54,45 @@ func TestSurfaceRoundTrip(t *testing.T) {
 	// A ray that misses the cylinder is reported, not invented.
 	if _, _, err := SeenAt(Placement{Shape: Cylinder{R: 5}}, l, 1000, 10); err == nil {
 		t.Error("a ray past a 5 mm cylinder: want an error")
+	}
+}
+
+// TestRenderSurfaceWindow: a windowed render is the full render inside the
+// window, pixel for pixel, and the void grey outside; an empty window is
+// an error.
+func TestRenderSurfaceWindow(t *testing.T) {
+	l, _ := BenchRig(160, 120)
+	p, err := NewPattern(PatternOptions{Diameter: 4, Seed: 3, Bounds: Rect{X0: -60, Y0: -60, X1: 60, Y1: 60}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pl := Placement{Shape: Cylinder{R: 60}}
+	o := RenderOptions{W: 160, H: 120, Supersample: 2, Void: 0.25}
+	full, _, err := RenderSurface(p, pl, l, o)
+	if err != nil {
+		t.Fatal(err)
+	}
+	win := image.Rect(30, 20, 110, 90)
+	part, rep, err := RenderSurfaceWindow(p, pl, l, o, win)
+	if err != nil {
+		t.Fatal(err)
+	}
+	void := float32(math.Round(0.25 * 255))
+	for y := range 120 {
+		for x := range 160 {
+			want := void
+			if (image.Point{X: x, Y: y}).In(win) {
+				want = full.At(x, y)
+			}
+			if got := part.At(x, y); got != want {
+				t.Fatalf("pixel (%d, %d): %g, want %g", x, y, got, want)
+			}
+		}
+	}
+	if want := (160*120 - 80*70) * 4; rep.Void != want {
+		t.Errorf("void samples %d, want %d", rep.Void, want)
+	}
+	if _, _, err := RenderSurfaceWindow(p, pl, l, o, image.Rectangle{}); err == nil {
+		t.Error("empty window: want an error")
 	}
 }
