@@ -15,6 +15,7 @@ import (
 	"strings"
 	"sync"
 
+	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/results"
@@ -49,13 +50,14 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 		"Analyses a test series: every frame is correlated with the reference (the first frame\n"+
 			"unless --ref is given), switching to incremental correlation when that degrades. Writes\n"+
 			"a results folder per frame, curve.csv/json, curve plots, state.json and report.html.")
+	ad := analysis.Defaults()
 	var (
 		ref        = fs.String("ref", "", "reference image (default: the first frame)")
 		outDir     = fs.String("out", "series_results", "output folder")
 		paramsFile = fs.String("params", "", "series parameters as JSON (flags below override it)")
-		subset     = fs.Int("subset", 0, "subset side in px, odd (default 31)")
-		step       = fs.Int("step", 0, "grid step in px (default 8)")
-		window     = fs.Int("strain-window", 0, "strain window in grid points, odd (default 5)")
+		subset     = fs.Int("subset", 0, fmt.Sprintf("subset side in px, odd (default %d)", ad.Subset))
+		step       = fs.Int("step", 0, fmt.Sprintf("grid step in px (default %d)", ad.Step))
+		window     = fs.Int("strain-window", 0, fmt.Sprintf("strain window in grid points, odd (default %d)", ad.StrainWindow))
 		roiRect    = fs.String("roi", "", roiHelp)
 		maxPix     = fs.Int64("max-pixels", imageio.DefaultMaxPixels, "refuse images with more pixels than this (width × height)")
 		mmPerPx    = fs.Float64("mm-per-px", 0, "scale in mm per px (0 = px)")

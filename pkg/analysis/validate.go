@@ -10,6 +10,9 @@ import (
 	"reflect"
 	"sort"
 	"strings"
+
+	"github.com/mottledic/mottle/pkg/correlate"
+	"github.com/mottledic/mottle/pkg/kinematics"
 )
 
 // Problem is one thing wrong with a parameter: which field (its JSON name),
@@ -39,25 +42,28 @@ func (e *ValidationError) Error() string {
 // radius 40 px, ZNCC threshold 0.8, 50 iterations, tolerance 1e-4 px,
 // strain window 5 points with a plane fit.
 func Defaults() Params {
+	// One set of defaults: the correlator's (correlate.Defaults) and the
+	// strain fit's (kinematics.DefaultWindow, plane).
+	c := correlate.Defaults()
 	return Params{
-		Subset:        31,
-		Step:          8,
+		Subset:        c.Subset,
+		Step:          c.Step,
 		Shape:         "first",
 		Interpolation: "cubic",
-		Search:        40,
-		MinZNCC:       0.8,
-		MaxIter:       50,
-		Tolerance:     1e-4,
-		StrainWindow:  5,
+		Search:        c.Search,
+		MinZNCC:       c.MinZNCC,
+		MaxIter:       c.MaxIter,
+		Tolerance:     c.Tol,
+		StrainWindow:  kinematics.DefaultWindow,
 		StrainFit:     "plane",
 	}
 }
 
 // Limits on parameters, so that a request cannot ask for unbounded work.
 const (
-	MaxSubset       = 401
-	MaxSearch       = 2000
-	MaxIterations   = 1000
+	MaxSubset       = correlate.MaxSubset
+	MaxSearch       = correlate.MaxSearch
+	MaxIterations   = correlate.MaxMaxIter
 	MaxStrainWindow = 51
 	MaxSeeds        = 64
 	MaxThreads      = 1024

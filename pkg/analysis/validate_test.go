@@ -9,6 +9,8 @@ import (
 	"strings"
 	"testing"
 
+	"github.com/mottledic/mottle/pkg/correlate"
+	"github.com/mottledic/mottle/pkg/kinematics"
 	"github.com/mottledic/mottle/pkg/roi"
 )
 
@@ -150,4 +152,53 @@ func withoutEmptyLists(p Params) Params {
 		p.ROI = &r
 	}
 	return p
+}
+
+// TestOneSetOfDefaults checks that the analysis defaults are the
+// correlator's and the strain fit's (issue 13: one set of defaults): the
+// options built from analysis.Defaults equal correlate.Defaults in every
+// field the parameters carry, the parameter limits are the correlator's,
+// and the strain window is kinematics'. The values are the project's
+// choices (common practice), so the check is that there is one source.
+func TestOneSetOfDefaults(t *testing.T) {
+	d := Defaults()
+	got, err := CorrelationOptions(d, 64, 64, nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	want := correlate.Defaults()
+	type key struct {
+		Subset, Step, Search, MaxIter int
+		MinZNCC, Tol                  float64
+		Shape                         correlate.Shape
+	}
+	g := key{got.Subset, got.Step, got.Search, got.MaxIter, got.MinZNCC, got.Tol, got.Shape}
+	w := key{want.Subset, want.Step, want.Search, want.MaxIter, want.MinZNCC, want.Tol, want.Shape}
+	if g != w || got.Interp != want.Interp {
+		t.Errorf("options from analysis.Defaults %+v (interp %v), correlate.Defaults %+v (interp %v)", g, got.Interp, w, want.Interp)
+	}
+	if d.StrainWindow != kinematics.DefaultWindow {
+		t.Errorf("strain window %d, kinematics.DefaultWindow %d", d.StrainWindow, kinematics.DefaultWindow)
+	}
+	// The limits: the largest value analysis accepts passes the
+	// correlator's check, and one more fails it.
+	for _, c := range []struct {
+		name string
+		set  func(o *correlate.Options, v int)
+		max  int
+	}{
+		{"max_iterations", func(o *correlate.Options, v int) { o.MaxIter = v }, MaxIterations},
+		{"search", func(o *correlate.Options, v int) { o.Search = v }, MaxSearch},
+		{"subset", func(o *correlate.Options, v int) { o.Subset = v }, MaxSubset},
+	} {
+		o := correlate.Defaults()
+		c.set(&o, c.max)
+		if err := o.Validate(); err != nil {
+			t.Errorf("%s = %d, the analysis limit: correlate refuses it: %v", c.name, c.max, err)
+		}
+		c.set(&o, c.max+2)
+		if err := o.Validate(); err == nil {
+			t.Errorf("%s = %d, past the analysis limit: correlate accepts it", c.name, c.max+2)
+		}
+	}
 }

@@ -25,7 +25,7 @@ const (
 	MinSubset  = 7
 	MaxSubset  = 401
 	MaxSearch  = 2000
-	MaxMaxIter = 10000
+	MaxMaxIter = 1000
 )
 
 // Options controls a correlation run. The zero value of every field selects

@@ -100,10 +100,16 @@ type GradientOptions struct {
 	Threads int
 }
 
+// DefaultWindow is the default strain window side in grid points
+// (GradientOptions.Window): the smallest odd window that fits a plane
+// over more than its three terms in both directions with a margin
+// (common practice).
+const DefaultWindow = 5
+
 // withDefaults returns o with zero fields replaced by their defaults.
 func (o GradientOptions) withDefaults() GradientOptions {
 	if o.Window == 0 {
-		o.Window = 5
+		o.Window = DefaultWindow
 	}
 	if o.Fit == 0 {
 		o.Fit = Plane
