@@ -42,6 +42,7 @@ type lab struct {
 	// audit entries the test's changes should have left, in order.
 	nreq    int
 	lastReq string
+	lastHdr http.Header // of the last answer
 	want    []auditWant
 }
 
@@ -178,6 +179,7 @@ func (l *lab) call(t *testing.T, who, method, path string, hdr map[string]string
 		t.Fatal(err)
 	}
 	defer resp.Body.Close()
+	l.lastHdr = resp.Header
 	if strings.HasPrefix(resp.Header.Get("Content-Type"), "text/event-stream") {
 		return resp.StatusCode, nil
 	}

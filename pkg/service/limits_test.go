@@ -1,0 +1,60 @@
+package service_test
+
+import (
+	"strconv"
+	"testing"
+
+	"github.com/mottledic/mottle/pkg/service"
+)
+
+// TestPrincipalRate: a principal over its request rate is answered 429
+// with Retry-After, and another principal is not slowed by it.
+func TestPrincipalRate(t *testing.T) {
+	// 0.01 requests a second: the bucket does not refill within the test.
+	l := newLab(t, func(c *service.Config) { c.RateLimit, c.RateBurst = 0.01, 3 })
+	for i := 0; i < 3; i++ {
+		if st, b := l.call(t, "rig", "GET", "/v1/series", nil, "", nil); st != 200 {
+			t.Fatalf("request %d within the burst: %d %s", i+1, st, b)
+		}
+	}
+	st, b := l.call(t, "rig", "GET", "/v1/series", nil, "", nil)
+	if st != 429 || decodeJSON[problemDoc](t, b).Type != "urn:mottle:problem:rate-limited" {
+		t.Fatalf("request past the burst: %d %s, want 429 rate-limited", st, b)
+	}
+	// One request refills in 1/0.01 s.
+	if ra, err := strconv.Atoi(l.lastHdr.Get("Retry-After")); err != nil || ra < 90 || ra > 100 {
+		t.Errorf("Retry-After %q, want about 100 s", l.lastHdr.Get("Retry-After"))
+	}
+	if st, b := l.call(t, "display", "GET", "/v1/series", nil, "", nil); st != 200 {
+		t.Errorf("another principal: %d %s, want 200", st, b)
+	}
+}
+
+// TestPrincipalQueued: a principal with MaxQueuedPerPrincipal jobs
+// waiting is answered 429 with Retry-After for the next, while another
+// principal still submits.
+func TestPrincipalQueued(t *testing.T) {
+	h := newHolder()
+	l := newLab(t, func(c *service.Config) { c.MaxQueuedPerPrincipal, c.Workers, c.BeforeCompute = 1, 1, h.hook })
+	t.Cleanup(h.release)
+	ref, def := pair(t, 40, 40, 1, 0, 3)
+	ct, body := multipartBody(t, analysisParts(ref, def, `{"subset": 15}`)...)
+	submit := func(who string) (int, []byte) { return l.call(t, who, "POST", "/v1/analyses", nil, ct, body) }
+	if st, b := submit("rig"); st != 202 {
+		t.Fatalf("first: %d %s", st, b)
+	}
+	h.next(t) // running (held): no longer waiting
+	if st, b := submit("rig"); st != 202 {
+		t.Fatalf("second (the one waiting): %d %s", st, b)
+	}
+	st, b := submit("rig")
+	if st != 429 || decodeJSON[problemDoc](t, b).Type != "urn:mottle:problem:principal-queue-full" {
+		t.Fatalf("third: %d %s, want 429 principal-queue-full", st, b)
+	}
+	if ra, err := strconv.ParseFloat(l.lastHdr.Get("Retry-After"), 64); err != nil || ra < 1 {
+		t.Errorf("Retry-After %q, want a whole number of seconds ≥ 1", l.lastHdr.Get("Retry-After"))
+	}
+	if st, b := submit("lead"); st != 202 {
+		t.Errorf("another principal: %d %s, want 202", st, b)
+	}
+}
