@@ -100,6 +100,17 @@ type Config struct {
 	// negative for none.
 	ReserveBytes int64
 
+	// MaxMemory is the memory budget, in bytes, shared by the uploads
+	// being decoded and the jobs being computed (each estimated from its
+	// image size). An upload that does not fit waits up to MemoryWait and
+	// is then answered 503 with Retry-After (413 if it alone needs more
+	// than the budget); a job waits in the queue until its memory is
+	// free. 0 takes DefaultMaxMemory (from GOMEMLIMIT or the machine's
+	// memory); negative turns the budget off.
+	MaxMemory int64
+	// MemoryWait is how long an upload waits for memory; default 10 s.
+	MemoryWait time.Duration
+
 	// BeforeCompute, if not nil, is called by a worker after it has
 	// recorded job j as running and before it loads the inputs and
 	// computes, with the job's context (canceled when the job is canceled,
@@ -132,6 +143,9 @@ func (c *Config) defaults() {
 	if c.MaxPoints <= 0 {
 		c.MaxPoints = 1_000_000
 	}
+	if c.MaxMemory == 0 {
+		c.MaxMemory = DefaultMaxMemory()
+	}
 	if c.MinFreeBytes <= 0 {
 		c.MinFreeBytes = 256 << 20
 	}
@@ -149,6 +163,7 @@ func (c *Config) defaults() {
 	def(&c.IdleTimeout, 2*time.Minute)
 	def(&c.JobTimeout, 30*time.Minute)
 	def(&c.ShutdownGrace, 30*time.Second)
+	def(&c.MemoryWait, 10*time.Second)
 	if c.RateLimit > 0 && c.RateBurst < 1 {
 		c.RateBurst = max(1, 2*c.RateLimit)
 	}

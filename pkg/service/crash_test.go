@@ -61,6 +61,9 @@ func serveForTest() error {
 			return err
 		}
 	}
+	if err := limitsFromEnv(&cfg); err != nil {
+		return err
+	}
 	s, err := service.New(cfg)
 	if err != nil {
 		return err
@@ -91,8 +94,8 @@ type proc struct {
 
 // startProc starts a server subprocess on dir; with hold, every job it
 // starts stays running until the process is killed or its shutdown grace
-// is over.
-func startProc(t *testing.T, dir string, hold bool, grace time.Duration) *proc {
+// is over. env adds variables (see limitsFromEnv).
+func startProc(t *testing.T, dir string, hold bool, grace time.Duration, env ...string) *proc {
 	t.Helper()
 	os.Remove(filepath.Join(dir, "addr"))
 	cmd := exec.Command(os.Args[0], "-test.run=^$")
@@ -100,6 +103,7 @@ func startProc(t *testing.T, dir string, hold bool, grace time.Duration) *proc {
 	if hold {
 		cmd.Env = append(cmd.Env, "MOTTLE_TEST_HOLD=1")
 	}
+	cmd.Env = append(cmd.Env, env...)
 	logName := filepath.Join(dir, "log-"+strconv.FormatInt(time.Now().UnixNano(), 10))
 	logf, err := os.Create(logName)
 	if err != nil {

@@ -242,6 +242,9 @@ func (s *Server) readRawImage(w http.ResponseWriter, r *http.Request, what strin
 	if err != nil {
 		return nil, nil, asProblem(bodyErr(err, "body"), "body")
 	}
+	if err := s.admitDecode(r, map[string][]byte{"body": body}); err != nil {
+		return nil, nil, s.memoryErr(w, err)
+	}
 	g, err := s.decode("body", body)
 	if err != nil {
 		return nil, nil, err

@@ -8,7 +8,8 @@ import (
 )
 
 // admission refuses requests that would store data while the data
-// directory is low on space (507, before the body is read).
+// directory is low on space (507, before the body is read), and gives
+// every POST its hold of the memory budget, released when it ends.
 func (s *Server) admission(next http.Handler) http.Handler {
 	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
 		if s.disk != nil && storesData(r) {
@@ -17,6 +18,13 @@ func (s *Server) admission(next http.Handler) http.Handler {
 				writeProblem(w, r, s.disk.lowDiskProblem(free))
 				return
 			}
+		}
+		if s.mem != nil && r.Method == http.MethodPost {
+			var h *memHold
+			if r, h = s.holdMemory(w, r); h == nil {
+				return
+			}
+			defer h.release()
 		}
 		next.ServeHTTP(w, r)
 	})
@@ -44,6 +52,18 @@ func (s *Server) writeLimitMetrics(w io.Writer) {
 		p("# HELP mottle_data_min_free_bytes Free space below which the service takes no new uploads and is not ready.\n# TYPE mottle_data_min_free_bytes gauge\nmottle_data_min_free_bytes %d\n", g.minFree)
 		p("# HELP mottle_data_reserve_bytes Bytes held in the reserve file, given up when a write finds the disk full.\n# TYPE mottle_data_reserve_bytes gauge\nmottle_data_reserve_bytes %d\n", g.reserveHeld())
 		p("# HELP mottle_storage_full_total Writes that failed for lack of space.\n# TYPE mottle_storage_full_total counter\nmottle_storage_full_total %d\n", g.full.Load())
+	}
+	if s.mem != nil {
+		st := s.mem.stats()
+		p("# HELP mottle_memory_budget_bytes Memory budget of uploads being decoded and jobs being computed.\n# TYPE mottle_memory_budget_bytes gauge\nmottle_memory_budget_bytes %d\n", st.total)
+		p("# HELP mottle_memory_held_bytes Memory of the budget held now (estimated from image sizes).\n# TYPE mottle_memory_held_bytes gauge\nmottle_memory_held_bytes %d\n", st.used)
+		p("# HELP mottle_memory_held_peak_bytes Largest memory of the budget held at once since start.\n# TYPE mottle_memory_held_peak_bytes gauge\nmottle_memory_held_peak_bytes %d\n", st.peak)
+		p("# HELP mottle_memory_waiting Uploads and jobs waiting for memory now.\n# TYPE mottle_memory_waiting gauge\nmottle_memory_waiting %d\n", st.waiting)
+		p("# HELP mottle_memory_waits_total Uploads and jobs that had to wait for memory.\n# TYPE mottle_memory_waits_total counter\nmottle_memory_waits_total %d\n", st.waits)
+		p("# HELP mottle_memory_refused_total Uploads answered 503 or 413 by the memory budget.\n# TYPE mottle_memory_refused_total counter\nmottle_memory_refused_total %d\n", st.refused)
+	}
+	if rss := residentBytes(); rss >= 0 {
+		p("# HELP mottle_process_resident_bytes Resident memory of the server process.\n# TYPE mottle_process_resident_bytes gauge\nmottle_process_resident_bytes %d\n", rss)
 	}
 }
 

@@ -54,6 +54,8 @@ type Server struct {
 
 	// disk watches the free space of Config.DataDir (nil without one).
 	disk *diskGuard
+	// mem is the memory budget (nil when turned off).
+	mem *memBudget
 }
 
 // New checks cfg and returns a server. It starts nothing: call Serve, or
@@ -65,6 +67,8 @@ func New(cfg Config) (*Server, error) {
 	cfg.defaults()
 	disk := newDiskGuard(&cfg)
 	cfg.Backend = guardBackend(cfg.Backend, disk)
+	mem := newMemBudget(&cfg)
+	cfg.Backend = budgetBackend(cfg.Backend, mem)
 	run, err := runner.New(runner.Config{Backend: cfg.Backend, Analyzer: cfg.Analyzer, Logger: cfg.Logger,
 		Workers: cfg.Workers, JobThreads: cfg.JobThreads, MaxAttempts: cfg.MaxAttempts,
 		MaxPixels: cfg.MaxPixels, MaxBytes: cfg.MaxBodyBytes, JobTimeout: cfg.JobTimeout,
@@ -86,6 +90,7 @@ func New(cfg Config) (*Server, error) {
 
 		checking: make(chan struct{}, cfg.Workers),
 		disk:     disk,
+		mem:      mem,
 	}
 	for _, t := range cfg.Tokens {
 		s.tokens = append(s.tokens, sha256.Sum256([]byte(strings.TrimSpace(t))))

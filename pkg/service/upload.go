@@ -149,6 +149,9 @@ func (s *Server) readMultipart(w http.ResponseWriter, r *http.Request, images []
 	if len(missing) > 0 {
 		return nil, problem(http.StatusBadRequest, "missing-part", "Missing part", "required parts are missing; see errors", missing...)
 	}
+	if err := s.admitDecode(r, u.raw); err != nil {
+		return nil, s.memoryErr(w, err)
+	}
 	for name, b := range u.raw {
 		g, err := s.decode(name, b)
 		if err != nil {
