@@ -26,6 +26,10 @@ func TestLayering(t *testing.T) {
 		"pkg/results":  {"pkg/analysis", "pkg/series", "pkg/service", "pkg/runner", "pkg/demo"},
 		"pkg/analysis": {"pkg/series", "pkg/service", "pkg/runner", "pkg/demo"},
 		"pkg/series":   {"pkg/service", "pkg/runner"},
+		// Stereo matching, triangulation and surface strain sit beside
+		// kinematics; the stereo series on them and on pkg/series.
+		"pkg/stereo":   {"pkg/field", "pkg/maps", "pkg/results", "pkg/analysis", "pkg/series", "pkg/service", "pkg/runner"},
+		"pkg/series3d": {"pkg/service", "pkg/runner"},
 	}
 	for pkg, bad := range forbidden {
 		deps, err := exec.Command("go", "list", "-deps", "-f", `{{.ImportPath}}`, "../../"+pkg).Output()

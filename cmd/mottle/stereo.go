@@ -41,10 +41,18 @@ Caution: the rig calibration's uncertainty adds to every value; confirm
 critical strains with a calibrated extensometer and leave design decisions
 to the applicable codes and a licensed engineer.
 
+A series of pairs, with extensometers and gauges measured in space and
+material properties: mottle stereo --series (see mottle stereo --series --help).
+
 Example:
   mottle stereo --rig rig.json L0.png R0.png L5.png R5.png --out run5`
 
 func runStereo(ctx context.Context, e *env, args []string) error {
+	for _, a := range args {
+		if a == "--series" || a == "-series" {
+			return runStereoSeries(ctx, e, args)
+		}
+	}
 	fs := newFlags(e, "stereo", "--rig FILE LEFT_REF RIGHT_REF [LEFT_DEF RIGHT_DEF] [flags]", stereoDescription)
 	rigPath := fs.String("rig", "", "rig `file` written by mottle calibrate --stereo (required)")
 	out := fs.String("out", "stereo", "results `folder`")
