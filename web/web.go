@@ -13,7 +13,10 @@
 //
 // The modules under static/js:
 //
-//	api.js       requests, bearer token, RFC 9457 problem documents
+//	api.js       requests, sign-in (bearer token and project kept in
+//	             sessionStorage, GET /v1/principal, roles), event streams
+//	             through single-use stream tickets, RFC 9457 problem
+//	             documents
 //	field.js     field.json parsing, nearest point, bilinear samples
 //	colormap.js  the server's colour maps (js/cmaps.js, made from pkg/maps
 //	             by ColormapsJS), interpolated and normalised as pkg/maps does
@@ -30,7 +33,14 @@
 // with chromedp (the cancel step uses a server in the test process that
 // holds its job until it is canceled); screenshots go to
 // $MOTTLE_ARTIFACTS. Any console error or failed request that the test
-// does not list as expected fails it.
+// does not list as expected fails it. The sign-in test
+// (access_browser_test.go) serves a token file of two projects from the
+// test process.
+//
+// Signed in, the page shows the principal, the project and the role,
+// hides what the role in the chosen project does not allow (sections
+// marked needs-submit; Rename and Delete by each listed item's project),
+// and sends the chosen project as X-Mottle-Project.
 package web
 
 import (

@@ -265,7 +265,7 @@ func (l *lab) newSeries(t *testing.T, who, project string) string {
 // this rule does not know: a new route must be added here.
 func expected(method, pattern string) (role access.Role, resource, global, ok bool) {
 	resource = strings.HasPrefix(pattern, "/v1/analyses/{id}") || strings.HasPrefix(pattern, "/v1/series/{id}")
-	global = pattern == "/metrics" || pattern == "/v1/openapi.json" || pattern == "/v1/stream-tickets"
+	global = pattern == "/metrics" || pattern == "/v1/openapi.json" || pattern == "/v1/stream-tickets" || pattern == "/v1/principal"
 	role, resource, ok = expectedRole(method, pattern, resource)
 	return role, resource, global, ok
 }

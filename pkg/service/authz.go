@@ -52,6 +52,7 @@ var routeNeeds = map[string]need{
 	"GET /metrics":                              {access.Read, scopeAny, false},
 	"GET /v1/openapi.json":                      {access.Read, scopeAny, false},
 	"POST /v1/stream-tickets":                   {access.Read, scopeAny, false},
+	"GET /v1/principal":                         {access.Read, scopeAny, false},
 	"POST /v1/analyses":                         {access.Submit, scopeCreate, false},
 	"GET /v1/analyses":                          {access.Read, scopeList, false},
 	"POST /v1/demo":                             {access.Submit, scopeCreate, false},
@@ -313,6 +314,19 @@ func (s *Server) postStreamTicket(w http.ResponseWriter, r *http.Request) {
 	id, exp := s.tickets.issue(caller(r.Context()), time.Now())
 	writeJSON(w, http.StatusCreated, map[string]any{"ticket": id, "expires": exp.UTC(),
 		"use": "append ?ticket=<ticket> to one events URL within " + ticketLife.String() + "; each ticket opens one stream"})
+}
+
+// getPrincipal answers who the caller is: the principal, its grants and
+// the project new work goes to, so that a page can show them and hide
+// what the roles do not allow. It never holds the token.
+func (s *Server) getPrincipal(w http.ResponseWriter, r *http.Request) {
+	p := caller(r.Context())
+	grants := p.Grants
+	if grants == nil {
+		grants = []access.Grant{}
+	}
+	writeJSON(w, http.StatusOK, map[string]any{"principal": p.Name, "grants": grants,
+		"default_project": p.Default(), "tokens_required": s.authOn()})
 }
 
 // rates is a token bucket per principal: RateLimit requests a second,

@@ -2,6 +2,7 @@ package service_test
 
 import (
 	"strconv"
+	"strings"
 	"testing"
 
 	"github.com/mottledic/mottle/pkg/service"
@@ -56,5 +57,27 @@ func TestPrincipalQueued(t *testing.T) {
 	}
 	if st, b := submit("lead"); st != 202 {
 		t.Errorf("another principal: %d %s, want 202", st, b)
+	}
+}
+
+// TestPrincipalDoc: GET /v1/principal names the caller, its grants and
+// default project (call checks that the answer holds no token).
+func TestPrincipalDoc(t *testing.T) {
+	l := newLab(t, nil)
+	st, b := l.call(t, "rig", "GET", "/v1/principal", nil, "", nil)
+	doc := decodeJSON[struct {
+		Principal      string
+		Grants         []struct{ Project, Role string }
+		DefaultProject string `json:"default_project"`
+		TokensRequired bool   `json:"tokens_required"`
+	}](t, b)
+	if st != 200 || doc.Principal != "rig" || len(doc.Grants) != 1 || doc.Grants[0].Project != "lab-a" || doc.Grants[0].Role != "submit" ||
+		doc.DefaultProject != "lab-a" || !doc.TokensRequired {
+		t.Errorf("rig's principal: %d %s", st, b)
+	}
+	open := newServer(t, nil)
+	_, b = open.do(t, "GET", "/v1/principal", "", nil)
+	if !strings.Contains(string(b), `"principal": "local"`) || !strings.Contains(string(b), `"project": "*"`) || !strings.Contains(string(b), `"tokens_required": false`) {
+		t.Errorf("without tokens: %s", b)
 	}
 }

@@ -45,6 +45,7 @@ func (s *Server) routes() http.Handler {
 		r.Use(s.authenticate)
 		r.Get("/metrics", s.getMetrics)
 		r.Post("/v1/stream-tickets", s.postStreamTicket)
+		r.Get("/v1/principal", s.getPrincipal)
 		r.Get("/v1/openapi.json", s.openapi)
 		r.Get("/v1/audit", s.getAudit)
 		r.Get("/v1/audit.jsonl", s.getAuditJSONL)

@@ -24,13 +24,69 @@ export function setToken(t) {
   try { if (t) sessionStorage.setItem(tokenKey, t); else sessionStorage.removeItem(tokenKey); } catch { /* storage off */ }
 }
 
-/** withAuth adds the bearer token, if any, to fetch options. */
+const projectKey = 'mottle-project';
+
+/** project returns the project chosen for this tab ('' for the token's default; lists then show every project). */
+export function project() {
+  try { return sessionStorage.getItem(projectKey) || ''; } catch { return ''; }
+}
+
+/** setProject keeps the chosen project for the rest of the tab's session. */
+export function setProject(p) {
+  try { if (p) sessionStorage.setItem(projectKey, p); else sessionStorage.removeItem(projectKey); } catch { /* storage off */ }
+}
+
+/** withAuth adds the bearer token and the chosen project, if any, to fetch options. */
 export function withAuth(opts = {}) {
-  const t = token();
-  if (!t) return opts;
+  const t = token(), p = project();
+  if (!t && !p) return opts;
   const headers = new Headers(opts.headers || {});
-  headers.set('Authorization', `Bearer ${t}`);
+  if (t) headers.set('Authorization', `Bearer ${t}`);
+  if (p) headers.set('X-Mottle-Project', p);
   return { ...opts, headers };
+}
+
+// ---- who is signed in --------------------------------------------------------
+
+/** roleRank orders the roles as the service does: each includes the ones before. */
+export const roleRank = { none: 0, read: 1, submit: 2, manage: 3 };
+
+let who = null;
+
+/** principal is the answer of GET /v1/principal last read (null before, or when the token is refused). */
+export function principal() { return who; }
+
+/** loadPrincipal asks the service who the token is; it throws ApiError (401 for a refused token). */
+export async function loadPrincipal() {
+  who = null;
+  who = await getJSON('/v1/principal');
+  return who;
+}
+
+/** roleIn returns the caller's role in project p ('' = where new work goes), as a name. */
+export function roleIn(p) {
+  if (!who) return 'none';
+  const proj = p || project() || who.default_project;
+  let best = 0;
+  for (const g of who.grants || []) if (g.project === proj || g.project === '*') best = Math.max(best, roleRank[g.role] || 0);
+  return Object.keys(roleRank).find(k => roleRank[k] === best);
+}
+
+/** can reports whether the caller has at least role in project p. */
+export function can(role, p) { return roleRank[roleIn(p)] >= roleRank[role]; }
+
+/**
+ * openEvents opens an EventSource on url. An EventSource cannot send a
+ * header, so with a token it first trades the token for a single-use
+ * stream ticket (POST /v1/stream-tickets) and puts the ticket, never the
+ * token, in the URL. A ticket opens one stream: when the stream breaks,
+ * the browser's reconnection is refused and the caller falls back to
+ * polling or opens a new one.
+ */
+export async function openEvents(url) {
+  if (!token()) return new EventSource(url);
+  const t = await getJSON('/v1/stream-tickets', { method: 'POST' });
+  return new EventSource(`${url}${url.includes('?') ? '&' : '?'}ticket=${encodeURIComponent(t.ticket)}`);
 }
 
 /** request fetches url and throws ApiError for any status outside 2xx. */
@@ -87,7 +143,7 @@ export function describe(err) {
     }
   }
   if (err instanceof ApiError && err.status === 401 && !p.detail) p.detail = 'This server asks for an access token.';
-  if (err instanceof ApiError && err.status === 401) items.push({ field: 'token', message: 'enter the access token under “Connection” at the top of the page' });
+  if (err instanceof ApiError && err.status === 401) items.push({ field: 'token', message: 'sign in with your access token under “Connection” at the top of the page' });
   let title = p.title || 'Request failed';
   if (err instanceof ApiError && err.status) title += ` (HTTP ${err.status})`;
   return { title, detail: p.detail || '', items };

@@ -1,6 +1,6 @@
 // Mottle preview: wires the page to the HTTP API.
 
-import { ApiError, absolute, describe, getJSON, request, setToken, token, withAuth } from './api.js';
+import { ApiError, absolute, describe, getJSON, loadPrincipal, openEvents, principal, project, request, roleIn, setProject, setToken, token, withAuth } from './api.js';
 import { parseField } from './field.js';
 import { fmt, linePlot } from './plot.js';
 import { RoiEditor } from './roi.js';
@@ -324,10 +324,10 @@ function track(id, first) {
     if (job.state && ['succeeded', 'failed', 'canceled'].includes(job.state)) finish();
   };
   if (first && first.state) seen(first);
-  try {
-    // EventSource cannot send a bearer token: with one, polling alone.
-    if (token()) throw new Error('token');
-    es = new EventSource(`${url}/events`);
+  // Server-sent events (through a stream ticket when signed in with a token).
+  openEvents(`${url}/events`).then(src => {
+    if (done) { src.close(); return; }
+    es = src;
     const onEvent = ev => {
       state.events = (state.events || 0) + 1;
       try { seen(JSON.parse(ev.data)); } catch { /* not JSON */ }
@@ -335,7 +335,7 @@ function track(id, first) {
     es.onmessage = onEvent;
     for (const name of ['progress', 'state', 'status', 'done', 'end', 'succeeded', 'failed', 'canceled']) es.addEventListener(name, onEvent);
     es.onerror = () => { if (es) es.close(); es = null; };
-  } catch { es = null; }
+  }).catch(() => { es = null; });
   // Poll as well, slowly while events arrive and faster without them.
   const poll = async () => {
     if (done) return;
@@ -500,6 +500,55 @@ function calibration(id) {
 
 function refreshLists() { return shelf.refresh(); }
 
+// ---- sign-in ------------------------------------------------------------------
+
+// showPrincipal draws who is signed in and the project chooser, and hides
+// the actions the role in the chosen project does not allow: body
+// data-role is that role (style.css hides .needs-submit for read); the
+// list of earlier work checks each item's own project.
+function showPrincipal() {
+  const who = principal();
+  const sel = $('project');
+  sel.textContent = '';
+  const all = document.createElement('option');
+  all.value = '';
+  all.textContent = who ? `all my projects (new work goes to ${who.default_project})` : '—';
+  sel.appendChild(all);
+  for (const g of who ? who.grants || [] : []) {
+    if (g.project === '*') continue;
+    const o = document.createElement('option');
+    o.value = g.project; o.textContent = `${g.project} (${g.role})`;
+    sel.appendChild(o);
+  }
+  if (project() && ![...sel.options].some(o => o.value === project())) setProject('');
+  sel.value = project();
+  sel.disabled = !who;
+  const role = roleIn('');
+  document.body.dataset.role = role;
+  const where = project() || (who ? who.default_project : '');
+  $('who').textContent = who ? `${who.principal} · ${where} · ${role}` : 'not signed in';
+  $('who').dataset.principal = who ? who.principal : '';
+  $('btn-signout').hidden = !token();
+}
+
+// signIn asks the service who the token (or, without one, the server's
+// implicit principal) is, then redraws the page for that principal.
+async function signIn() {
+  const msg = $('signin-msg');
+  try {
+    const who = await loadPrincipal();
+    msg.textContent = who.tokens_required ? `Signed in as ${who.principal}.` : 'This server asks for no token: every action is allowed.';
+  } catch (err) {
+    const refused = err instanceof ApiError && err.status === 401;
+    msg.textContent = !refused ? describe(err).title
+      : token() ? 'The server did not accept this token (unknown, revoked or expired).' : 'This server asks for an access token: enter it and sign in.';
+    if (refused) $('conn').open = true;
+  }
+  showPrincipal();
+  document.body.dataset.signedIn = principal() ? 'true' : 'false';
+  refreshLists();
+}
+
 // ---- series -------------------------------------------------------------------
 
 function flatten(row, out = {}, prefix = '') {
@@ -585,7 +634,7 @@ async function loadProperties() {
 function watchSeries() {
   const s = state.series;
   if (s.events) s.events.close();
-  if (token()) return; // EventSource cannot send a bearer token
+  s.events = null;
   let timer = 0;
   const refresh = () => {
     clearTimeout(timer);
@@ -602,11 +651,12 @@ function watchSeries() {
       } catch { /* keep the last curve */ }
     }, 500);
   };
-  try {
-    s.events = new EventSource(`${s.base}/events`);
-    s.events.addEventListener('frame', refresh);
-    s.events.onerror = () => { s.events.close(); };
-  } catch { /* no live updates */ }
+  openEvents(`${s.base}/events`).then(src => {
+    if (state.series !== s) { src.close(); return; }
+    s.events = src;
+    src.addEventListener('frame', refresh);
+    src.onerror = () => { src.close(); };
+  }).catch(() => { /* no live updates */ });
 }
 
 async function loadCurve() {
@@ -689,7 +739,11 @@ const view = new MapView({
 });
 
 $('token').value = token();
-$('token').addEventListener('change', e => setToken(e.target.value.trim()));
+const signInWith = () => { setToken($('token').value.trim()); signIn(); };
+$('btn-signin').addEventListener('click', signInWith);
+$('token').addEventListener('keydown', e => { if (e.key === 'Enter') signInWith(); });
+$('btn-signout').addEventListener('click', () => { setToken(''); setProject(''); $('token').value = ''; signIn(); });
+$('project').addEventListener('change', e => { setProject(e.target.value); showPrincipal(); refreshLists(); });
 wireDrop('reference');
 wireDrop('deformed');
 $('btn-demo').addEventListener('click', () => submit('demo'));
@@ -732,7 +786,6 @@ $('btn-profile').addEventListener('click', () => {
   view.opts.on = prevOn;
   view.profile();
 });
-$('token').addEventListener('change', refreshLists);
 $('shelf-refresh').addEventListener('click', refreshLists);
 $('frame-slider').addEventListener('change', e => showFrame(+e.target.value));
 $('frame-slider').addEventListener('input', e => { $('frame-out').textContent = e.target.value; drawCurve(); });
@@ -741,7 +794,7 @@ $('curve-y').addEventListener('change', drawCurve);
 window.addEventListener('resize', () => { if (view.field) { view.fit(); view.render(); } });
 updateAdvice();
 syncRoiJSON(editor.value());
-refreshLists();
+signIn();
 
 // Open a result or a series named in the address: ?analysis=ID or ?series=ID.
 const qs = new URLSearchParams(location.search);

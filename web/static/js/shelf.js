@@ -2,7 +2,7 @@
 // with its name, date, size, state and a thumbnail; open, rename and
 // delete from the list, so that nobody has to type an id.
 
-import { getJSON, request, token, withAuth } from './api.js';
+import { can, getJSON, request, token, withAuth } from './api.js';
 
 const API = '/v1';
 
@@ -34,9 +34,9 @@ export class Shelf {
       sr = (await getJSON(`${API}/series`)).series || [];
     } catch (err) { this.ul.textContent = ''; this.note('The list could not be loaded.'); return; }
     const items = [
-      ...an.map(j => ({ kind: 'analysis', id: j.id, name: j.name || '', created: j.created, state: j.state,
+      ...an.map(j => ({ kind: 'analysis', id: j.id, name: j.name || '', project: j.project || 'default', created: j.created, state: j.state,
         size: `${j.width} × ${j.height} px`, thumb: `${API}/analyses/${j.id}/thumb.png?state=${j.state}`, base: `${API}/analyses/${j.id}` })),
-      ...sr.map(s => ({ kind: 'series', id: s.id, name: s.name || s.reference_name || '', created: s.created,
+      ...sr.map(s => ({ kind: 'series', id: s.id, name: s.name || s.reference_name || '', project: s.project || 'default', created: s.created,
         state: `${s.frame_count ?? (s.frames || []).length} frames`, size: `${s.width} × ${s.height} px`,
         thumb: `${API}/series/${s.id}/thumb.png`, base: `${API}/series/${s.id}` })),
     ].sort((a, b) => String(b.created || '').localeCompare(String(a.created || '')));
@@ -68,7 +68,7 @@ export class Shelf {
     const title = document.createElement('p'); title.className = 'work-name';
     title.textContent = it.name || '(no name)';
     const meta = document.createElement('p'); meta.className = 'work-meta';
-    meta.textContent = `${it.kind} · ${when(it.created)} · ${it.size} · ${it.state}`;
+    meta.textContent = `${it.kind} · ${it.project} · ${when(it.created)} · ${it.size} · ${it.state}`;
     const acts = document.createElement('div'); acts.className = 'work-acts';
     const label = it.name || it.kind;
     const btn = (text, aria, fn) => {
@@ -76,12 +76,16 @@ export class Shelf {
       b.setAttribute('aria-label', `${aria} ${label}`); b.addEventListener('click', fn); acts.appendChild(b); return b;
     };
     btn('Open', 'Open', () => this.open(it.kind, it.id));
-    btn('Rename', 'Rename', () => this.rename(li, it, title));
+    // Renaming and deleting need the role manage in the item's project.
+    const manage = can('manage', it.project);
+    li.dataset.project = it.project;
+    btn('Rename', 'Rename', () => this.rename(li, it, title)).hidden = !manage;
     const del = btn('Delete', 'Delete', () => {
       if (del.dataset.armed) { this.remove(it); return; }
       del.dataset.armed = '1'; del.textContent = 'Confirm delete'; del.classList.add('danger');
       setTimeout(() => { delete del.dataset.armed; del.textContent = 'Delete'; del.classList.remove('danger'); }, 6000);
     });
+    del.hidden = !manage;
     body.append(title, meta, acts);
     li.append(img, body);
     return li;
