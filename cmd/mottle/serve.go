@@ -32,6 +32,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	data := fs.String("data", envOr("MOTTLE_DATA", "mottle-data"), "data directory for the job database, images and results (env MOTTLE_DATA)")
 	backend := fs.String("backend", "embedded", backendHelp+" (with nats://, jobs are computed only when --workers is given)")
 	workers := fs.Int("workers", runtime.NumCPU(), "jobs computed at once")
+	inFlight := fs.Int("frames-in-flight", 4, "frames of one series computed at once, across all workers: frames of a direct-mode series are correlated side by side, each from the nearest finished frame, and added in order (1 = one at a time)")
 	queue := fs.Int("queue", 64, "jobs that may wait for a worker; more are answered 429 with Retry-After")
 	maxBody := fs.Int64("max-body-mb", 256, "largest request body, MiB")
 	maxPixels := fs.Int64("max-pixels", imageio.DefaultMaxPixels, "largest image, pixels (checked from the header before decoding)")
@@ -69,7 +70,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	defer be.Close()
 	cfg := service.Config{
 		Backend: be, Analyzer: service.Pipeline{}, Logger: log,
-		Workers: *workers, MaxBodyBytes: *maxBody << 20, MaxPixels: *maxPixels, MaxPoints: *maxPoints,
+		Workers: *workers, MaxFramesInFlight: *inFlight, MaxBodyBytes: *maxBody << 20, MaxPixels: *maxPixels, MaxPoints: *maxPoints,
 		JobTimeout: *jobTimeout, ReadTimeout: *readTimeout, WriteTimeout: *writeTimeout,
 		ShutdownGrace: *grace, Retention: *retention, Tokens: tokens, TokenFile: tf, Demo: demo.Pair,
 		MaxQueuedPerPrincipal: *maxQueued, RateLimit: *rate,

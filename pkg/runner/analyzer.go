@@ -96,6 +96,45 @@ type FrameInput struct {
 	// the number known so far (the total may grow when a frame takes
 	// another pass; done never decreases).
 	Progress func(done, total int)
+	// Solved, if not nil, is the frame's solution from FrameSolver.Solve,
+	// computed before its predecessor finished; the engine uses it when it
+	// would correlate the frame directly and the solution converged.
+	Solved []byte
+}
+
+// FrameSolver is a FrameAnalyzer that can also correlate a frame of a
+// series before the frames ahead of it are done: in direct (total) mode a
+// frame is correlated with the reference, so the order of the frames only
+// supplies initial guesses. The runner solves such frames side by side
+// and then adds them to the series state in frame order with
+// FrameInput.Solved.
+type FrameSolver interface {
+	FrameAnalyzer
+	// SolvesAhead reports whether the frames of a series with the stored
+	// parameter document params may be solved ahead.
+	SolvesAhead(params json.RawMessage) (bool, error)
+	// Solve correlates in.Def with in.Ref and returns the frame's
+	// solution, an opaque document. It stops early with ctx.Err() when
+	// ctx is done.
+	Solve(ctx context.Context, in SolveInput) ([]byte, error)
+}
+
+// SolveInput is what a frame is solved ahead from.
+type SolveInput struct {
+	// Ref is the series reference and Def the frame, turned by
+	// Orientation; Mask the series' ROI mask image, if any.
+	Ref, Def, Mask *imageio.Gray
+	Orientation    imageio.Orientation
+	// Params is the series' stored parameter document.
+	Params json.RawMessage
+	// Guess is the solution of the nearest frame already solved, or nil;
+	// GuessState, when Guess is nil, the engine state after the last
+	// finished frame, or nil (then the seed search starts the frame).
+	Guess, GuessState []byte
+	// Threads caps the worker goroutines of the correlation.
+	Threads int
+	// Progress is called as in FrameInput.
+	Progress func(done, total int)
 }
 
 // MapRequest asks for a PNG map of one quantity.

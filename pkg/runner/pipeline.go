@@ -264,7 +264,14 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 		return nil, err
 	}
 	meta := series.FrameMeta{Name: in.Name, Time: in.Time, Load: in.Load, Progress: in.Progress, Orientation: in.Orientation}
-	fr, err := tr.Add(ctx, in.Def, meta)
+	var sol *series.Solution
+	if in.Solved != nil {
+		sol = new(series.Solution)
+		if err := json.Unmarshal(in.Solved, sol); err != nil {
+			sol = nil // unreadable: correlate the frame in sequence
+		}
+	}
+	fr, err := tr.AddSolved(ctx, in.Def, meta, sol)
 	meta.Progress = nil
 	if err != nil {
 		return nil, err
@@ -333,4 +340,45 @@ func DecodeSeriesParams(b []byte) (series.Params, error) {
 		return p, fmt.Errorf("stored series parameters: %w", err)
 	}
 	return p, nil
+}
+
+// SolvesAhead implements FrameSolver: every mode but incremental-always
+// starts a frame with a direct correlation (series.SolvesAhead).
+func (Pipeline) SolvesAhead(params json.RawMessage) (bool, error) {
+	p, err := DecodeSeriesParams(params)
+	if err != nil {
+		return false, err
+	}
+	return series.SolvesAhead(p), nil
+}
+
+// Solve implements FrameSolver with series.Solve.
+func (Pipeline) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
+	p, err := DecodeSeriesParams(in.Params)
+	if err != nil {
+		return nil, err
+	}
+	p.Analysis.Threads = in.Threads
+	var guess *series.Solution
+	switch {
+	case in.Guess != nil:
+		guess = new(series.Solution)
+		if err := json.Unmarshal(in.Guess, guess); err != nil {
+			guess = nil
+		}
+	case in.GuessState != nil:
+		var st series.State
+		if err := json.Unmarshal(in.GuessState, &st); err == nil {
+			guess = st.Solution()
+		}
+	}
+	sol, err := series.Solve(ctx, in.Ref, in.Def, p, series.Options{Mask: in.Mask}, guess, in.Progress)
+	if err != nil {
+		return nil, err
+	}
+	b, err := json.Marshal(sol)
+	if err != nil {
+		return nil, fmt.Errorf("encode frame solution: %w", err)
+	}
+	return b, nil
 }

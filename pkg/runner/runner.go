@@ -211,6 +211,14 @@ type Stats struct {
 	// Recovered counts the jobs put back in the queue at start from an
 	// earlier run.
 	Recovered uint64
+	// InFlight holds, by series id, the frames of the series this runner
+	// is computing now (solving ahead or adding to the state); series with
+	// none are left out.
+	InFlight map[string]int
+	// SolvedAhead counts the frames solved before their predecessor
+	// finished, and SolveSeconds their compute time.
+	SolvedAhead  uint64
+	SolveSeconds float64
 }
 
 // Stats returns a copy of the job counters.
@@ -223,6 +231,10 @@ func (s *Runner) Stats() Stats {
 	for k, v := range m.Finished {
 		st.Finished[k] = v
 	}
+	st.InFlight = make(map[string]int, len(m.InFlight))
+	for k, v := range m.InFlight {
+		st.InFlight[k] = v
+	}
 	return st
 }
 
@@ -233,7 +245,7 @@ type metrics struct {
 }
 
 func newMetrics() *metrics {
-	return &metrics{Stats: Stats{Finished: map[jobs.State]uint64{}}}
+	return &metrics{Stats: Stats{Finished: map[jobs.State]uint64{}, InFlight: map[string]int{}}}
 }
 
 func (m *metrics) jobDone(state jobs.State, points int, seconds float64) {
@@ -261,5 +273,21 @@ func (m *metrics) setBusy(delta int) {
 func (m *metrics) recover(n int) {
 	m.mu.Lock()
 	m.Recovered += uint64(n)
+	m.mu.Unlock()
+}
+
+// inFlight counts a frame of series id starting (delta 1) or ending (−1).
+func (m *metrics) inFlight(id string, delta int) {
+	m.mu.Lock()
+	defer m.mu.Unlock()
+	if m.InFlight[id] += delta; m.InFlight[id] <= 0 {
+		delete(m.InFlight, id)
+	}
+}
+
+func (m *metrics) solved(seconds float64) {
+	m.mu.Lock()
+	m.SolvedAhead++
+	m.SolveSeconds += seconds
 	m.mu.Unlock()
 }

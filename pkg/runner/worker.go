@@ -48,6 +48,7 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 	id := d.ID()
 	ctx := context.Background()
 	l := s.log.With("job", id)
+	s.solveAhead(base, id, d)
 	if !s.waitPrevious(base, id, d) {
 		// Frame n of a series needs frame n−1's tracker state: put it back
 		// until the previous frame has finished.
@@ -94,7 +95,13 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 	s.running[id] = cancel
 	s.mu.Unlock()
 	s.metrics.setBusy(1)
+	if j.Kind == jobs.Frame {
+		s.metrics.inFlight(j.Series, 1)
+	}
 	defer func() {
+		if j.Kind == jobs.Frame {
+			s.metrics.inFlight(j.Series, -1)
+		}
 		s.metrics.setBusy(-1)
 		s.mu.Lock()
 		delete(s.running, id)
@@ -143,6 +150,7 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 		s.metrics.jobDone(final, sum.Points, secs)
 		if err == nil && res.State != nil {
 			s.dropOldState(ctx, j)
+			s.dropSolved(ctx, j)
 		}
 	case errors.Is(cause, errShutdown):
 		l.Info("job interrupted by shutdown: back in the queue")
@@ -381,6 +389,7 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 			return nil, err
 		}
 	}
+	in.Solved = s.solvedFor(ctx, j)
 	return fa.Frame(ctx, in)
 }
 

@@ -71,6 +71,9 @@ type Tracker struct {
 	prev *imageio.Gray
 	corr correlator
 	st   State
+	// solved, if not nil, is the direct correlation of the frame being
+	// added, solved ahead (AddSolved).
+	solved *Solution
 }
 
 // ErrSize is returned by Add when a frame's size differs from the
@@ -230,7 +233,11 @@ func (t *Tracker) Add(ctx context.Context, img *imageio.Gray, meta FrameMeta) (*
 		}
 	default:
 		mode = ModeDirect
-		pts, err = t.directStep(ctx, img, t.st.Points, prog)
+		if t.solved != nil {
+			pts = t.solved.Points
+		} else {
+			pts, err = t.directStep(ctx, img, t.st.Points, prog)
+		}
 		if err == nil && p.Incremental == IncrementalAuto && index > 1 {
 			z, tracked := t.quality(pts)
 			if z < p.SwitchZNCC || tracked < p.SwitchValid {
@@ -314,20 +321,29 @@ func (t *Tracker) quality(pts []PointState) (zncc, tracked float64) {
 // its solution in from (the previous frame's, or this frame's composed
 // one); points not valid there are reached by propagation.
 func (t *Tracker) directStep(ctx context.Context, img *imageio.Gray, from []PointState, prog *progress) ([]PointState, error) {
-	g := t.st.Grid
-	start := make([]guess, len(from))
+	return directPoints(ctx, t.corr, t.st.Grid, img, from, prog.pass())
+}
+
+// directPoints correlates the reference with img on grid g, starting
+// every point valid in from from its solution there; with from nil, the
+// correlator's seed search starts the whole grid.
+func directPoints(ctx context.Context, c correlator, g lattice, img *imageio.Gray, from []PointState, progress func(done, total int)) ([]PointState, error) {
+	var start []guess
+	if from != nil {
+		start = make([]guess, len(from))
+	}
 	for k, q := range from {
 		if q.Valid {
 			X, Y := g.pos(k)
 			start[k] = guess{U: q.X - X, V: q.Y - Y, Ux: q.F[0] - 1, Uy: q.F[1], Vx: q.F[2], Vy: q.F[3] - 1, OK: true}
 		}
 	}
-	ms, err := t.corr.direct(ctx, img, start, prog.pass())
+	ms, err := c.direct(ctx, img, start, progress)
 	if err != nil {
 		return nil, err
 	}
-	if len(ms) != len(start) {
-		return nil, fmt.Errorf("correlation returned %d points, want %d", len(ms), len(start))
+	if n := g.Nx * g.Ny; len(ms) != n {
+		return nil, fmt.Errorf("correlation returned %d points, want %d", len(ms), n)
 	}
 	out := make([]PointState, len(ms))
 	for k, m := range ms {

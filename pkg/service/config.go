@@ -31,6 +31,13 @@ type Config struct {
 	// Workers jobs keep the cores busy without oversubscribing them.
 	// Results never depend on it.
 	JobThreads int
+	// MaxFramesInFlight is the bound on frames computed at once that each
+	// new series gets (jobs.Series.MaxInFlight): frames of a direct-mode
+	// series within that many of the last finished one are correlated
+	// side by side and added to the series in order (package runner).
+	// Default 1: one frame at a time, each started from the previous
+	// frame's solution.
+	MaxFramesInFlight int
 	// MaxAttempts is how many times a job is started before it is failed
 	// (a job that crashes the process is not retried for ever); default 3.
 	MaxAttempts int
@@ -133,6 +140,9 @@ func (c *Config) defaults() {
 	}
 	if c.MaxAttempts <= 0 {
 		c.MaxAttempts = 3
+	}
+	if c.MaxFramesInFlight <= 0 {
+		c.MaxFramesInFlight = 1
 	}
 	if c.MaxBodyBytes <= 0 {
 		c.MaxBodyBytes = 256 << 20

@@ -88,6 +88,17 @@ func (s *Server) writeMetrics(ctx context.Context, w io.Writer) error {
 	}
 	p("# HELP mottle_jobs_rejected_total Submissions answered 429 because the queue was full.\n# TYPE mottle_jobs_rejected_total counter\nmottle_jobs_rejected_total %d\n", m.rejected)
 	p("# HELP mottle_jobs_recovered_total Jobs put back in the queue at start from an earlier run.\n# TYPE mottle_jobs_recovered_total counter\nmottle_jobs_recovered_total %d\n", js.Recovered)
+	p("# HELP mottle_frames_solved_ahead_total Series frames correlated before their predecessor finished.\n# TYPE mottle_frames_solved_ahead_total counter\nmottle_frames_solved_ahead_total %d\n", js.SolvedAhead)
+	p("# HELP mottle_series_max_frames_in_flight Bound on the frames of one new series computed at once.\n# TYPE mottle_series_max_frames_in_flight gauge\nmottle_series_max_frames_in_flight %d\n", s.cfg.MaxFramesInFlight)
+	p("# HELP mottle_series_frames_in_flight Frames of a series this process is computing now, by series.\n# TYPE mottle_series_frames_in_flight gauge\n")
+	ids := make([]string, 0, len(js.InFlight))
+	for id := range js.InFlight {
+		ids = append(ids, id)
+	}
+	sort.Strings(ids)
+	for _, id := range ids {
+		p("mottle_series_frames_in_flight{series=%q} %d\n", id, js.InFlight[id])
+	}
 	p("# HELP mottle_points_total Grid points computed by succeeded jobs.\n# TYPE mottle_points_total counter\nmottle_points_total %d\n", js.Points)
 	p("# HELP mottle_compute_seconds_total Compute time of succeeded jobs.\n# TYPE mottle_compute_seconds_total counter\nmottle_compute_seconds_total %s\n", fmtFloat(js.ComputeSeconds))
 	p("# HELP mottle_points_per_second Grid points per second per job, averaged over recent jobs.\n# TYPE mottle_points_per_second gauge\nmottle_points_per_second %s\n", fmtFloat(js.Rate))

@@ -104,7 +104,8 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 	now := time.Now().UTC()
 	proj, _ := chosenProject(r, caller(r.Context())) // checked by authenticate
 	sr := &jobs.Series{ID: newID(r), Name: label, Project: proj, Owner: caller(r.Context()).Name, Params: params, Width: ref.W, Height: ref.H, HasMask: u.raw["mask"] != nil,
-		ReferenceName: refName, Formats: formats.String(), Created: now, Updated: now, Frames: []string{}}
+		ReferenceName: refName, Formats: formats.String(), Created: now, Updated: now, Frames: []string{},
+		MaxInFlight: s.cfg.MaxFramesInFlight}
 	for name, b := range u.raw {
 		if err := s.blobs.Put(r.Context(), jobs.SeriesKey(sr.ID, name), bytes.NewReader(b)); err != nil {
 			s.blobs.Delete(r.Context(), jobs.SeriesKey(sr.ID, ""))

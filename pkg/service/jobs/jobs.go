@@ -179,6 +179,10 @@ type Series struct {
 	Updated time.Time `json:"updated"`
 	// Frames holds the job id of each frame, by frame index.
 	Frames []string `json:"frames"`
+	// MaxInFlight bounds the frames of the series computed at once (the
+	// frames ahead of the last finished one that may be correlated before
+	// it, see package runner); 0 or 1 computes them one at a time.
+	MaxInFlight int `json:"max_frames_in_flight,omitempty"`
 }
 
 // Errors a backend returns; callers test them with errors.Is.

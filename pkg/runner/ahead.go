@@ -1,0 +1,155 @@
+package runner
+
+import (
+	"bytes"
+	"context"
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/series"
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+// Frames solved ahead (issue 21). A frame of a series whose predecessor
+// has not finished may be correlated at once, before its turn, when
+//   - the analyzer is a FrameSolver and the series' parameters allow it
+//     (direct or auto mode, SolvesAhead), and the last finished frame did
+//     not go incremental;
+//   - the series allows more than one frame in flight (MaxInFlight) and the
+//     frame is within that many frames of the last finished one: frame n
+//     waits while frame n−MaxInFlight is unfinished, so at most
+//     MaxInFlight frames of one series are computed at once, across every
+//     worker of a cluster, and the rest of the workers serve other series
+//     (the queue hands frames out first come, first served);
+//   - it has not been solved already.
+// The solution (a blob of the series) is stored, and the frame then waits
+// for its predecessor as any frame does. In its turn it is added to the
+// series state from the solution (FrameInput.Solved), in frame order, so
+// the state is assembled in order whatever order the frames finish in; a
+// frame whose solution did not converge is correlated again in sequence.
+// Nothing about the frame's record changes while it is solved, so a
+// worker that dies meanwhile loses only the solution.
+
+// SolveKey is the blob key of the solution of frame n of a series.
+func SolveKey(seriesID string, n int) string {
+	return jobs.SeriesKey(seriesID, fmt.Sprintf("solved/%06d.json", n))
+}
+
+// solveAhead solves job id ahead of its turn when the rules above allow
+// it, and reports whether it did.
+func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) bool {
+	fs, ok := s.cfg.Analyzer.(FrameSolver)
+	if !ok {
+		return false
+	}
+	bg := context.Background()
+	j, err := s.store.Job(bg, id)
+	if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
+		return false
+	}
+	sr, err := s.store.Series(bg, j.Series)
+	if err != nil || sr.MaxInFlight <= 1 || j.FrameIndex > len(sr.Frames) {
+		return false
+	}
+	n := j.FrameIndex
+	if s.frameReady(bg, id) == gateOpen {
+		return false // its turn: the normal path computes it
+	}
+	if n >= sr.MaxInFlight {
+		back, err := s.store.Job(bg, sr.Frames[n-sr.MaxInFlight])
+		if err != nil || !back.State.Terminal() {
+			return false
+		}
+	}
+	if ok, err := fs.SolvesAhead(sr.Params); err != nil || !ok {
+		return false
+	}
+	key := SolveKey(sr.ID, n)
+	if rc, err := s.blobs.Get(bg, key); err == nil {
+		rc.Close()
+		return false // solved already
+	}
+	in := SolveInput{Params: sr.Params, Threads: s.cfg.JobThreads}
+	// The guess: the nearest frame before n already solved, else the state
+	// after the last finished frame.
+	for k := n - 1; k > max(0, n-sr.MaxInFlight-1) && in.Guess == nil; k-- {
+		if b, err := s.ReadBlob(bg, SolveKey(sr.ID, k)); err == nil {
+			in.Guess = b
+		}
+	}
+	if in.Guess == nil {
+		last, err := s.lastDone(bg, j)
+		if err != nil {
+			return false
+		}
+		if last != nil {
+			if last.Summary != nil && last.Summary.Mode == series.ModeIncremental {
+				return false // the series went incremental: frames chain
+			}
+			if in.GuessState, err = s.ReadBlob(bg, StateKey(sr.ID, last.FrameIndex)); err != nil {
+				in.GuessState = nil
+			}
+		}
+	}
+
+	s.metrics.inFlight(sr.ID, 1)
+	defer s.metrics.inFlight(sr.ID, -1)
+	l := s.log.With("job", id, "series", sr.ID, "frame", n)
+	jctx, cancel := context.WithTimeoutCause(ctx, s.cfg.JobTimeout, errJobTimeout)
+	defer cancel()
+	var beat time.Time
+	in.Progress = func(done, total int) {
+		if now := time.Now(); now.Sub(beat) > 5*time.Second {
+			beat = now
+			_ = d.InProgress()
+		}
+	}
+	if in.Ref, err = s.LoadImage(jctx, jobs.SeriesKey(sr.ID, "reference")); err != nil {
+		l.Warn("solve ahead: reference", "error", err)
+		return false
+	}
+	in.Orientation = in.Ref.Orientation
+	if in.Def, err = s.LoadImageAs(jctx, jobs.InputKey(j.ID, "deformed"), in.Orientation); err != nil {
+		l.Warn("solve ahead: frame", "error", err)
+		return false
+	}
+	if j.HasMask {
+		if in.Mask, err = s.LoadImage(jctx, jobs.SeriesKey(sr.ID, "mask")); err != nil {
+			l.Warn("solve ahead: mask", "error", err)
+			return false
+		}
+	}
+	start := time.Now()
+	b, err := fs.Solve(jctx, in)
+	if err != nil {
+		if !errors.Is(err, context.Canceled) && !errors.Is(err, context.DeadlineExceeded) {
+			l.Info("solve ahead failed: the frame is computed in its turn", "error", err)
+		}
+		return false
+	}
+	if err := s.blobs.Put(bg, key, bytes.NewReader(b)); err != nil {
+		l.Warn("store frame solution", "error", err)
+		return false
+	}
+	s.metrics.solved(time.Since(start).Seconds())
+	l.Debug("frame solved ahead", "seconds", time.Since(start).Seconds())
+	return true
+}
+
+// solvedFor returns the stored solution of frame j, or nil.
+func (s *Runner) solvedFor(ctx context.Context, j *jobs.Job) []byte {
+	b, err := s.ReadBlob(ctx, SolveKey(j.Series, j.FrameIndex))
+	if err != nil {
+		return nil
+	}
+	return b
+}
+
+// dropSolved removes the solution of frame j once j is in the series
+// state: later frames take their guess from that state.
+func (s *Runner) dropSolved(ctx context.Context, j *jobs.Job) {
+	if err := s.blobs.Delete(ctx, SolveKey(j.Series, j.FrameIndex)); err != nil && !errors.Is(err, jobs.ErrNotFound) {
+		s.log.Warn("remove frame solution", "job", j.ID, "error", err)
+	}
+}

@@ -1,0 +1,232 @@
+package runner
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"io"
+	"log/slog"
+	"math"
+	"sync"
+	"testing"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/series"
+	"github.com/mottledic/mottle/pkg/service/embedded"
+	"github.com/mottledic/mottle/pkg/service/jobs"
+	"github.com/mottledic/mottle/pkg/synth"
+)
+
+// counting wraps Pipeline and records how many frames of the series are
+// computed at once (solved ahead or added to the state).
+type counting struct {
+	Pipeline
+	mu       sync.Mutex
+	now, max int
+	solves   int
+}
+
+func (c *counting) enter(solve bool) func() {
+	c.mu.Lock()
+	c.now++
+	c.max = max(c.max, c.now)
+	if solve {
+		c.solves++
+	}
+	c.mu.Unlock()
+	return func() { c.mu.Lock(); c.now--; c.mu.Unlock() }
+}
+
+func (c *counting) Frame(ctx context.Context, in FrameInput) (*Result, error) {
+	defer c.enter(false)()
+	return c.Pipeline.Frame(ctx, in)
+}
+
+func (c *counting) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
+	defer c.enter(true)()
+	return c.Pipeline.Solve(ctx, in)
+}
+
+// aheadSeries renders a direct-mode series (a strip stretched and shifted
+// a little more in each frame) with the exact renderer of pkg/synth.
+func aheadSeries(t *testing.T, n int) (*imageio.Gray, []*imageio.Gray, series.Params) {
+	t.Helper()
+	const W, H = 128, 96
+	all := []synth.Motion{synth.Identity{}}
+	for k := 1; k <= n; k++ {
+		e := 0.004 * float64(k)
+		all = append(all, synth.Affine{F: [2][2]float64{{1 + e, 0}, {0, 1 - 0.3*e}}, CX: W / 2, CY: H / 2, U: 0.7 * float64(k), V: -0.2 * float64(k)})
+	}
+	var fr []synth.Frame
+	for _, m := range all {
+		fr = append(fr, synth.Frame{Motion: m})
+	}
+	pat, err := synth.NewPattern(synth.PatternOptions{Diameter: 4, Seed: 5, Bounds: synth.BoundsForSeries(fr, W, H, 12)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var imgs []*imageio.Gray
+	for _, m := range all {
+		g, _, err := synth.Render(pat, m, synth.RenderOptions{W: W, H: H, Bits: 8, Supersample: 2})
+		if err != nil {
+			t.Fatal(err)
+		}
+		imgs = append(imgs, g)
+	}
+	p := series.Defaults()
+	p.Analysis.Subset, p.Analysis.Step = 21, 8
+	p.Incremental = series.IncrementalNever
+	p.Extensometers = []series.Extensometer{{Name: "axial", A: [2]float64{24, 48}, B: [2]float64{104, 48}}}
+	return imgs[0], imgs[1:], p
+}
+
+func png(t *testing.T, g *imageio.Gray) []byte {
+	t.Helper()
+	var b bytes.Buffer
+	if err := imageio.WritePNG(&b, g, 8); err != nil {
+		t.Fatal(err)
+	}
+	return b.Bytes()
+}
+
+// TestFramesInFlight runs one direct-mode series on three workers with at
+// most three frames in flight (issue 21), holding the first frame until
+// two later frames are solved ahead, and checks: every frame succeeds, at
+// most MaxInFlight frames are computed at once, the state holds each frame
+// once and in order, and its curve is the sequential run's within the
+// bound of package series (2e-3 px, 2e-5 strain; see series.TestSolveAhead
+// for its source).
+func TestFramesInFlight(t *testing.T) {
+	const nFrames, limit = 6, 3
+	ref, imgs, p := aheadSeries(t, nFrames)
+	be, err := embedded.Open(t.TempDir(), 64)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer be.Close()
+	ctx := context.Background()
+	an := &counting{}
+	release := make(chan struct{})
+	var held sync.Once
+	rn, err := New(Config{Backend: be, Analyzer: an, Workers: 3, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil)),
+		BeforeCompute: func(ctx context.Context, j jobs.Job) {
+			if j.FrameIndex == 0 {
+				held.Do(func() {
+					select {
+					case <-release:
+					case <-ctx.Done():
+					case <-time.After(time.Minute):
+					}
+				})
+			}
+		}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	params, err := p.FlatJSON()
+	if err != nil {
+		t.Fatal(err)
+	}
+	now := time.Now().UTC()
+	sr := &jobs.Series{ID: jobs.NewID(), Params: params, Width: ref.W, Height: ref.H, Created: now, Updated: now, MaxInFlight: limit}
+	if err := be.Blobs.Put(ctx, jobs.SeriesKey(sr.ID, "reference"), bytes.NewReader(png(t, ref))); err != nil {
+		t.Fatal(err)
+	}
+	var ids []string
+	for _, im := range imgs {
+		id := jobs.NewID()
+		ids = append(ids, id)
+		if err := be.Blobs.Put(ctx, jobs.InputKey(id, "deformed"), bytes.NewReader(png(t, im))); err != nil {
+			t.Fatal(err)
+		}
+	}
+	sr.Frames = ids
+	if err := be.Store.CreateSeries(ctx, sr); err != nil {
+		t.Fatal(err)
+	}
+	for k, id := range ids {
+		j := &jobs.Job{ID: id, Kind: jobs.Frame, State: jobs.Queued, Params: params, Width: ref.W, Height: ref.H, Series: sr.ID, FrameIndex: k, Created: now}
+		if err := be.Store.CreateJob(ctx, j); err != nil {
+			t.Fatal(err)
+		}
+		if err := be.Queue.Enqueue(ctx, id); err != nil {
+			t.Fatal(err)
+		}
+	}
+	stop, err := rn.Start(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer stop()
+
+	deadline := time.Now().Add(2 * time.Minute)
+	for rn.Stats().SolvedAhead < 2 && time.Now().Before(deadline) {
+		time.Sleep(10 * time.Millisecond)
+	}
+	if n := rn.Stats().SolvedAhead; n < 2 {
+		t.Errorf("%d frames solved ahead while frame 0 was held, want at least 2", n)
+	}
+	close(release)
+	var last *jobs.Job
+	for time.Now().Before(deadline) {
+		if last, err = be.Store.Job(ctx, ids[nFrames-1]); err == nil && last.State.Terminal() {
+			break
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	for k, id := range ids {
+		j, err := be.Store.Job(ctx, id)
+		if err != nil || j.State != jobs.Succeeded {
+			t.Fatalf("frame %d: %v %+v", k, err, j)
+		}
+	}
+	an.mu.Lock()
+	mx := an.max
+	an.mu.Unlock()
+	if mx > limit {
+		t.Errorf("%d frames of the series computed at once, bound %d", mx, limit)
+	}
+	b, err := rn.ReadBlob(ctx, StateKey(sr.ID, nFrames-1))
+	if err != nil {
+		t.Fatal(err)
+	}
+	var st series.State
+	if err := json.Unmarshal(b, &st); err != nil {
+		t.Fatal(err)
+	}
+	got := series.CurveOf(st)
+	if len(got.Rows) != nFrames+1 {
+		t.Fatalf("state has %d curve rows, want %d (each frame once)", len(got.Rows), nFrames+1)
+	}
+	for i, r := range got.Rows {
+		if r.Index != i {
+			t.Errorf("curve row %d has index %d: frames out of order or repeated", i, r.Index)
+		}
+	}
+	seq, err := series.New(ref, series.FrameMeta{Name: "reference"}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, im := range imgs {
+		if _, err := seq.Add(ctx, im, series.FrameMeta{}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	want := seq.Curve()
+	for i := range want.Rows {
+		for _, q := range series.MeanNames {
+			d := math.Abs(got.Rows[i].Mean[q] - want.Rows[i].Mean[q])
+			bound := 2e-5
+			if q == "u" || q == "v" {
+				bound = 2e-3
+			}
+			if d > bound {
+				t.Errorf("frame %d %s: %g, sequential %g (bound %g)", i, q, got.Rows[i].Mean[q], want.Rows[i].Mean[q], bound)
+			}
+		}
+	}
+	if _, err := be.Blobs.Get(ctx, SolveKey(sr.ID, 1)); err == nil {
+		t.Errorf("the solution of frame 1 is kept after the frame was added")
+	}
+}

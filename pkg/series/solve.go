@@ -1,0 +1,105 @@
+package series
+
+import (
+	"context"
+	"errors"
+	"fmt"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+)
+
+// Solution is the direct correlation of one frame with the reference,
+// computed on its own, before the frames ahead of it are added: in direct
+// mode a frame is correlated with the reference, so the order of the
+// frames only supplies its initial guess, and frames can be solved side
+// by side. AddSolved adds the frame with its solution, in frame order.
+type Solution struct {
+	// Grid is the lattice of material points the solution is on.
+	Grid lattice `json:"grid"`
+	// Points are the solved points, row-major on Grid.
+	Points []PointState `json:"points"`
+}
+
+// SolvesAhead reports whether the frames of a series with parameters p
+// may be solved ahead (Solve): every mode but incremental-always starts a
+// frame with a direct correlation.
+func SolvesAhead(p Params) bool { return p.withDefaults().Incremental != IncrementalAlways }
+
+// Solve correlates img with the reference ref of a series with parameters
+// p (and ROI mask opt.Mask), starting every point from guess, the solution
+// of a nearby frame already solved (nil: the seed search of a first
+// frame). progress is called as in FrameMeta. The result is the same
+// whatever the order frames are solved in; it differs from a frame added
+// in sequence (Add) only through the guess, within the correlation's
+// convergence tolerance.
+func Solve(ctx context.Context, ref, img *imageio.Gray, p Params, opt Options, guess *Solution, progress func(done, total int)) (*Solution, error) {
+	if ref == nil || img == nil || img.W != ref.W || img.H != ref.H {
+		return nil, fmt.Errorf("solve frame: the frame and the reference differ in size: %w", ErrSize)
+	}
+	p = p.withDefaults()
+	var pm *packedMask
+	if opt.Mask != nil {
+		var err error
+		if pm, err = packMask(opt.Mask, ref.W, ref.H); err != nil {
+			return nil, fmt.Errorf("solve frame: %w", err)
+		}
+	}
+	c, err := newCorrelator(ref, p, pm)
+	if err != nil {
+		return nil, err
+	}
+	return solve(ctx, c, img, guess, progress)
+}
+
+func solve(ctx context.Context, c correlator, img *imageio.Gray, guess *Solution, progress func(done, total int)) (*Solution, error) {
+	g := c.grid()
+	var from []PointState
+	if guess != nil {
+		if guess.Grid != g || len(guess.Points) != g.Nx*g.Ny {
+			return nil, errors.New("solve frame: the guess is on another grid; solve without one")
+		}
+		from = guess.Points
+	}
+	pts, err := directPoints(ctx, c, g, img, from, progress)
+	if err != nil {
+		return nil, err
+	}
+	return &Solution{Grid: g, Points: pts}, nil
+}
+
+// AddSolved adds the next frame as Add does, taking its direct
+// correlation from sol when the tracker would correlate it directly
+// (direct mode, or auto mode before it switched) and sol is good enough:
+// on the tracker's grid, with a mean ZNCC and a tracked fraction at least
+// the switch thresholds. Otherwise (no solution, a frame that did not
+// converge well from its guess) the frame is correlated from the previous
+// frame's solution, exactly as Add does.
+func (t *Tracker) AddSolved(ctx context.Context, img *imageio.Gray, meta FrameMeta, sol *Solution) (*Frame, error) {
+	if sol != nil && !t.accepts(sol) {
+		sol = nil
+	}
+	t.solved = sol
+	defer func() { t.solved = nil }()
+	return t.Add(ctx, img, meta)
+}
+
+// accepts reports whether sol may stand for the direct correlation of the
+// next frame.
+func (t *Tracker) accepts(sol *Solution) bool {
+	if sol.Grid != t.st.Grid || len(sol.Points) != len(t.st.Points) {
+		return false
+	}
+	p := t.st.Params
+	z, tracked := t.quality(sol.Points)
+	return z >= p.SwitchZNCC && tracked >= p.SwitchValid
+}
+
+// Solution returns the tracked points of the state as a solution, the
+// guess for frames solved ahead of the next one (nil before the first
+// frame, when the points are the reference grid itself).
+func (s State) Solution() *Solution {
+	if len(s.Curve) < 2 || len(s.Points) == 0 {
+		return nil
+	}
+	return &Solution{Grid: s.Grid, Points: s.Points}
+}
