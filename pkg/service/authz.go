@@ -58,6 +58,8 @@ var routeNeeds = map[string]need{
 	"POST /v1/demo":                             {access.Submit, scopeCreate, false},
 	"POST /v1/images/check":                     {access.Submit, scopeCreate, false},
 	"POST /v1/calibrations":                     {access.Submit, scopeCreate, false},
+	"POST /v1/stereo":                           {access.Submit, scopeCreate, false},
+	"POST /v1/stereo/series":                    {access.Submit, scopeCreate, false},
 	"DELETE " + analysisPath:                    {access.Manage, scopeResource, false},
 	"PATCH " + analysisPath:                     {access.Manage, scopeResource, false},
 	"POST " + analysisPath + "/cancel":          {access.Manage, scopeResource, true},

@@ -1,0 +1,161 @@
+package service_test
+
+import (
+	"bytes"
+	"encoding/json"
+	"fmt"
+	"math"
+	"strings"
+	"testing"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/calib"
+	"github.com/mottledic/mottle/pkg/field"
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/service"
+	"github.com/mottledic/mottle/pkg/synth"
+)
+
+type tenthMM struct{ p *synth.Pattern }
+
+func (s tenthMM) Value(X, Y float64) float64 { return s.p.Value(10*X, 10*Y) }
+
+// stereoRig returns the rig file of the exact bench of synth.BenchRig(w, h).
+func stereoRig(t *testing.T, w, h int) []byte {
+	t.Helper()
+	l, r := synth.BenchRig(w, h)
+	var R [3][3]float64
+	for i := range 3 {
+		for j := range 3 {
+			for k := range 3 {
+				R[i][j] += r.Pose.R[i][k] * l.Pose.R[j][k]
+			}
+		}
+	}
+	var T [3]float64
+	for i := range 3 {
+		T[i] = r.Pose.T[i] - (R[i][0]*l.Pose.T[0] + R[i][1]*l.Pose.T[1] + R[i][2]*l.Pose.T[2])
+	}
+	cam := func(c synth.Lens) calib.Camera {
+		return calib.Camera{Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy, K1: c.K1, K2: c.K2, K3: c.K3, P1: c.P1, P2: c.P2}
+	}
+	res := &calib.StereoResult{Rig: calib.Rig{Left: cam(l.Lens), Right: cam(r.Lens), R: R, T: T, W: w, H: h}, Rot: calib.PoseFromMatrix(R, T).Rot}
+	var b bytes.Buffer
+	if err := calib.NewRigFile(res, nil, nil, time.Date(2026, 3, 14, 9, 30, 0, 0, time.UTC)).Write(&b); err != nil {
+		t.Fatal(err)
+	}
+	return b.Bytes()
+}
+
+// stereoPair renders the plane at placement pl in both cameras as PNG parts
+// named ln and rn.
+func stereoPair(t *testing.T, w, h int, pl synth.Placement, seed int64, ln, rn string) []part {
+	t.Helper()
+	p, err := synth.NewPattern(synth.PatternOptions{Diameter: 11, Seed: 4, Bounds: synth.Rect{X0: -750, Y0: -600, X1: 750, Y1: 600}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	lc, rc := synth.BenchRig(w, h)
+	var out []part
+	for k, c := range []synth.Cam{lc, rc} {
+		g, _, err := synth.RenderSurface(tenthMM{p}, pl, c, synth.RenderOptions{W: w, H: h, Supersample: 2, Noise: 0.5, Seed: seed + int64(k)})
+		if err != nil {
+			t.Fatal(err)
+		}
+		var b bytes.Buffer
+		if err := imageio.WritePNG(&b, g, 8); err != nil {
+			t.Fatal(err)
+		}
+		out = append(out, part{[]string{ln, rn}[k], fmt.Sprintf("%s%d.png", []string{"L", "R"}[k], seed), "image/png", b.Bytes()})
+	}
+	return out
+}
+
+// TestStereoRoutes: POST /v1/stereo measures a state from four images (a
+// plane moved 1 mm toward the cameras: w = 1 mm), POST /v1/stereo/series
+// a series posted as left and right frames (a stretch read by an
+// extensometer in space), and bad input gets problem documents naming the
+// part: left and right of different sizes, a rig for other images,
+// frames not in pairs, bad params.
+func TestStereoRoutes(t *testing.T) {
+	const w, h = 320, 240
+	ts := newServer(t, nil)
+	rig := part{"rig", "rig.json", "application/json", stereoRig(t, w, h)}
+	flat := synth.Placement{Shape: synth.Plane{}}
+	ref := stereoPair(t, w, h, flat, 0, "left_reference", "right_reference")
+	def := stereoPair(t, w, h, synth.Placement{Shape: synth.Plane{}, Pose: synth.Pose{T: [3]float64{0, 0, 1}}}, 2, "left_deformed", "right_deformed")
+	params := part{"params", "", "application/json", []byte(`{"step": 12}`)}
+	ct, body := multipartBody(t, append(append([]part{rig, params}, ref...), def...)...)
+	resp, b := ts.do(t, "POST", "/v1/stereo", ct, body)
+	if resp.StatusCode != 200 {
+		t.Fatalf("POST /v1/stereo: %d %s", resp.StatusCode, b)
+	}
+	f, err := field.ReadJSON(bytes.NewReader(b))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if s, err := f.Summary("w"); err != nil || s.Count < 100 || math.Abs(s.Mean-1) > 0.01 {
+		t.Errorf("w: %+v, %v: want 1 mm over 100+ points", s, err)
+	}
+
+	// A series: three pairs, the plane stretched 0.3 % and 0.6 % along x.
+	var sp []part
+	for k, ea := range []float64{0, 0.003, 0.006} {
+		pl := synth.Placement{Shape: synth.Plane{}, Motion: synth.Affine{F: [2][2]float64{{1 + ea, 0}, {0, 1}}}}
+		sp = append(sp, stereoPair(t, w, h, pl, int64(10+2*k), "left", "right")...)
+	}
+	sparams := part{"params", "", "application/json", []byte(`{"step": 12, "extensometers": [{"name": "axial", "a": [70, 120], "b": [250, 120]}], "area_mm2": 10}`)}
+	loads := part{"loads", "loads.csv", "text/csv", []byte("frame,load_N\n0,0\n1,1500\n2,3000\n")}
+	ct, body = multipartBody(t, append([]part{rig, sparams, loads}, sp...)...)
+	resp, b = ts.do(t, "POST", "/v1/stereo/series", ct, body)
+	if resp.StatusCode != 200 {
+		t.Fatalf("POST /v1/stereo/series: %d %s", resp.StatusCode, b)
+	}
+	var sr service.StereoSeriesResult
+	if err := json.Unmarshal(b, &sr); err != nil {
+		t.Fatal(err)
+	}
+	if len(sr.Curve.Rows) != 3 {
+		t.Fatalf("%d curve rows, want 3", len(sr.Curve.Rows))
+	}
+	for k, want := range []float64{0, 0.003, 0.006} {
+		x := sr.Curve.Rows[k].Extensometers[0]
+		if !x.Valid || math.Abs(x.Eng-want) > 2e-4 || sr.Curve.Rows[k].Stress == nil {
+			t.Errorf("row %d: axial strain %.5f (valid %v), stress %v: want %.3f and a stress", k, x.Eng, x.Valid, sr.Curve.Rows[k].Stress, want)
+		}
+	}
+
+	// Bad input.
+	small := stereoPair(t, 240, 180, flat, 0, "left_reference", "right_reference")
+	bad := []struct {
+		name  string
+		path  string
+		parts []part
+		code  int
+		want  string
+		field string
+	}{
+		{"sizes differ", "/v1/stereo", []part{rig, ref[0], small[1]}, 422, "pair-size-mismatch", "right_reference"},
+		{"rig for other images", "/v1/stereo", append([]part{rig}, small...), 422, "rig-size-mismatch", "rig"},
+		{"no rig", "/v1/stereo", ref, 400, "missing-part", "rig"},
+		{"not a rig", "/v1/stereo", append([]part{{"rig", "rig.json", "application/json", []byte(`{"format": "x"}`)}}, ref...), 422, "invalid-rig", "rig"},
+		{"one deformed image", "/v1/stereo", append(append([]part{rig}, ref...), def[0]), 400, "missing-part", "right_deformed"},
+		{"bad params", "/v1/stereo", append([]part{rig, {"params", "", "application/json", []byte(`{"strain_window": 4}`)}}, ref...), 422, "invalid-params", "params"},
+		{"unknown param", "/v1/stereo", append([]part{rig, {"params", "", "application/json", []byte(`{"subsett": 31}`)}}, ref...), 400, "bad-params", "params"},
+		{"not in pairs", "/v1/stereo/series", append([]part{rig}, sp[:3]...), 400, "unpaired-frames", "right"},
+		{"extensometer off the image", "/v1/stereo/series", append([]part{rig, {"params", "", "application/json", []byte(`{"extensometers": [{"name": "a", "a": [10, 10], "b": [900, 10]}]}`)}}, sp...), 422, "invalid-params", "params"},
+	}
+	for _, c := range bad {
+		ct, body := multipartBody(t, c.parts...)
+		resp, b := ts.do(t, "POST", c.path, ct, body)
+		var p service.Problem
+		json.Unmarshal(b, &p)
+		hit := false
+		for _, e := range p.Errors {
+			hit = hit || e.Field == c.field
+		}
+		if resp.StatusCode != c.code || !strings.HasSuffix(p.Type, c.want) || !hit {
+			t.Errorf("%s: %d %s; want %d %s naming %s", c.name, resp.StatusCode, b, c.code, c.want, c.field)
+		}
+	}
+}
