@@ -49,6 +49,9 @@ type seriesView struct {
 	FrameCount int                `json:"frame_count"`
 	States     map[jobs.State]int `json:"states,omitempty"`
 	Links      map[string]string  `json:"links"`
+	// Live is true while the series has a live session in this server
+	// (its live/events stream then delivers each live frame's values).
+	Live bool `json:"live,omitempty"`
 }
 
 func (s *Server) viewSeries(ctx context.Context, sr *jobs.Series, counts bool) *seriesView {
@@ -56,6 +59,10 @@ func (s *Server) viewSeries(ctx context.Context, sr *jobs.Series, counts bool) *
 	v := &seriesView{Series: sr, FrameCount: len(sr.Frames), Links: map[string]string{
 		"self": p, "frames": p + "/frames", "events": p + "/events", "curve.csv": p + "/curve.csv", "curve.json": p + "/curve.json",
 		"thumb": p + "/thumb.png", "properties": p + "/properties.json", "report": p + "/report.html"}}
+	if s.liveSession(sr.ID) != nil {
+		v.Live = true
+		v.Links["live_frames"], v.Links["live_events"] = p+"/live/frames", p+"/live/events"
+	}
 	if counts {
 		if list, err := s.store.Jobs(ctx, jobs.Filter{Series: sr.ID}); err == nil {
 			v.States = map[jobs.State]int{}

@@ -9,6 +9,7 @@ import { MapView } from './viewer.js';
 import { Shelf } from './shelf.js';
 import { forQuantity } from './colormap.js';
 import { SeriesRunner } from './seriesrun.js';
+import { LivePlot } from './live.js';
 
 const $ = id => document.getElementById(id);
 const API = '/v1';
@@ -574,7 +575,9 @@ async function openSeries(id) {
   try { rec = await getJSON(base); } catch (err) { showError(err); return; }
   const frames = Array.isArray(rec.frames) ? rec.frames.length : (rec.frame_count || 0);
   if (state.series && state.series.events) state.series.events.close();
+  if (state.series && state.series.liveEvents) state.series.liveEvents.close();
   state.series = { id, base, rec, frames };
+  livePlot.reset(id);
   $('series-body').hidden = false;
   $('series-title').textContent = `Series “${rec.name || rec.reference_name || id}”: ${frames} frames`;
   $('props').textContent = ''; $('report-links').textContent = '';
@@ -585,7 +588,21 @@ async function openSeries(id) {
   await loadCurve();
   if (frames > 0) await showFrame(+sl.value);
   watchSeries();
+  if (rec.live) watchLive();
   if (frames > 0) await loadProperties();
+}
+
+// watchLive follows the live values of the open series (frames sent to its
+// live route by the page or by the lab's automation) into the live plot.
+function watchLive() {
+  const s = state.series;
+  if (!s || s.liveEvents) return;
+  if (token()) return; // EventSource cannot send a bearer token; the page's own answers still plot
+  try {
+    s.liveEvents = new EventSource(`${s.base}/live/events`);
+    s.liveEvents.addEventListener('live', e => { try { livePlot.add(JSON.parse(e.data)); } catch { /* not JSON */ } });
+    s.liveEvents.onerror = () => { s.liveEvents.close(); };
+  } catch { /* no live updates */ }
 }
 
 // frameDone follows a frame sent by the page: the curve grows, the slider
@@ -720,10 +737,13 @@ const shelf = new Shelf($('work-list'), {
     stopTracking(); track(id); $('results').scrollIntoView({ block: 'start' });
   },
   onError: showError,
-  onDeleted: it => { say(`Deleted ${it.name || it.kind}.`); if (state.series && state.series.id === it.id) { if (state.series.events) state.series.events.close(); $('series-body').hidden = true; state.series = null; } },
+  onDeleted: it => { say(`Deleted ${it.name || it.kind}.`); if (state.series && state.series.id === it.id) { if (state.series.events) state.series.events.close(); if (state.series.liveEvents) state.series.liveEvents.close(); $('series-body').hidden = true; state.series = null; } },
 });
+const livePlot = new LivePlot({ panel: $('live-panel'), canvas: $('live-canvas'), x: $('live-x'), pick: $('live-pick'), text: $('live-text') });
 const runner = new SeriesRunner({
   openSeries, showError, say, calibration, frameDone,
+  liveStarted: () => watchLive(),
+  liveValues: v => { if (state.series) livePlot.add(v); },
   refresh: refreshLists,
   seriesFinished: async () => { await frameDone(); await loadProperties(); },
 });
@@ -803,7 +823,7 @@ if (qs.get('series')) openSeries(qs.get('series'));
 
 // A small hook for the browser tests and for scripting the page.
 window.mottlePreview = {
-  view, editor, state, shelf, runner, openSeries,
+  view, editor, state, shelf, runner, openSeries, livePlot,
   toClient: (x, y) => view.toClient(x, y),
   roiToClient: (x, y) => {
     const c = editor.canvas, r = c.getBoundingClientRect();

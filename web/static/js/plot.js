@@ -85,3 +85,86 @@ export function linePlot(canvas, xs, ys, opts = {}) {
   }
   return fin.length;
 }
+
+// Line colours of multi-line plots: the colour-universal palette of Okabe
+// & Ito (2008), distinguishable with the common colour-vision deficiencies.
+export const lineColours = ['#0072b2', '#d55e00', '#009e73', '#cc79a7', '#e69f00', '#56b4e9', '#000000'];
+
+/**
+ * linesPlot draws several lines against one x axis on canvas: series is a
+ * list of {label, ys} (NaN leaves a gap), each in the next colour of
+ * lineColours with a dot per value and a legend. opts: {xlabel, ylabel}.
+ * It returns the number of finite points drawn per line.
+ */
+export function linesPlot(canvas, xs, series, opts = {}) {
+  const ctx = canvas.getContext('2d');
+  const W = canvas.width, H = canvas.height;
+  const m = { l: 78, r: 14, t: 12, b: 42 };
+  ctx.clearRect(0, 0, W, H);
+  ctx.fillStyle = '#fff'; ctx.fillRect(0, 0, W, H);
+  ctx.fillStyle = '#1b2229'; ctx.font = '12px system-ui, sans-serif';
+  const counts = series.map(() => 0);
+  let x0 = Infinity, x1 = -Infinity, y0 = Infinity, y1 = -Infinity;
+  series.forEach((s, k) => {
+    for (let i = 0; i < xs.length; i++) {
+      if (!Number.isFinite(xs[i]) || !Number.isFinite(s.ys[i])) continue;
+      counts[k]++;
+      x0 = Math.min(x0, xs[i]); x1 = Math.max(x1, xs[i]); y0 = Math.min(y0, s.ys[i]); y1 = Math.max(y1, s.ys[i]);
+    }
+  });
+  if (!counts.some(n => n > 0)) {
+    ctx.fillText(series.length ? 'no trusted value yet' : 'choose a reading to plot', m.l, H / 2);
+    return counts;
+  }
+  if (y1 - y0 < 1e-12 * Math.max(1, Math.abs(y0))) { const d = Math.abs(y0) * 0.05 || 1e-6; y0 -= d; y1 += d; }
+  const pad = (y1 - y0) * 0.06; y0 -= pad; y1 += pad;
+  if (!(x1 > x0)) { x0 -= 0.5; x1 += 0.5; }
+  const px = x => m.l + (x - x0) / (x1 - x0) * (W - m.l - m.r);
+  const py = y => H - m.b - (y - y0) / (y1 - y0) * (H - m.t - m.b);
+  ctx.strokeStyle = '#d9d4c9'; ctx.lineWidth = 1;
+  ctx.textAlign = 'right'; ctx.textBaseline = 'middle';
+  for (const t of niceTicks(y0, y1)) {
+    if (t < y0 || t > y1) continue;
+    ctx.beginPath(); ctx.moveTo(m.l, py(t)); ctx.lineTo(W - m.r, py(t)); ctx.stroke();
+    ctx.fillText(fmt(t), m.l - 6, py(t));
+  }
+  ctx.textAlign = 'center'; ctx.textBaseline = 'top';
+  for (const t of niceTicks(x0, x1, 6)) {
+    if (t < x0 || t > x1) continue;
+    ctx.beginPath(); ctx.moveTo(px(t), m.t); ctx.lineTo(px(t), H - m.b); ctx.stroke();
+    ctx.fillText(fmt(t), px(t), H - m.b + 4);
+  }
+  ctx.strokeStyle = '#1b2229';
+  ctx.strokeRect(m.l, m.t, W - m.l - m.r, H - m.t - m.b);
+  if (opts.xlabel) ctx.fillText(opts.xlabel, (m.l + W - m.r) / 2, H - 18);
+  if (opts.ylabel) {
+    ctx.save(); ctx.translate(14, (m.t + H - m.b) / 2); ctx.rotate(-Math.PI / 2);
+    ctx.textBaseline = 'middle'; ctx.fillText(opts.ylabel, 0, 0); ctx.restore();
+  }
+  series.forEach((s, k) => {
+    const col = lineColours[k % lineColours.length];
+    ctx.strokeStyle = col; ctx.fillStyle = col; ctx.lineWidth = 2;
+    ctx.beginPath();
+    let pen = false;
+    for (let i = 0; i < xs.length; i++) {
+      if (!Number.isFinite(xs[i]) || !Number.isFinite(s.ys[i])) { pen = false; continue; }
+      if (pen) ctx.lineTo(px(xs[i]), py(s.ys[i])); else ctx.moveTo(px(xs[i]), py(s.ys[i]));
+      pen = true;
+    }
+    ctx.stroke();
+    for (let i = 0; i < xs.length; i++) {
+      if (!Number.isFinite(xs[i]) || !Number.isFinite(s.ys[i])) continue;
+      ctx.beginPath(); ctx.arc(px(xs[i]), py(s.ys[i]), 3, 0, 2 * Math.PI); ctx.fill();
+    }
+  });
+  // Legend, top left inside the axes.
+  ctx.textAlign = 'left'; ctx.textBaseline = 'middle'; ctx.font = '12px system-ui, sans-serif';
+  series.forEach((s, k) => {
+    const y = m.t + 12 + 16 * k;
+    ctx.fillStyle = lineColours[k % lineColours.length];
+    ctx.fillRect(m.l + 8, y - 2, 18, 4);
+    ctx.fillStyle = '#1b2229';
+    ctx.fillText(s.label, m.l + 32, y);
+  });
+  return counts;
+}

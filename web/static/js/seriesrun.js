@@ -10,7 +10,7 @@ import { getJSON, request, token } from './api.js';
 
 const API = '/v1';
 const pendingKey = 'mottle-series-upload';
-const imageExt = /\.(png|tiff?|jpe?g|bmp)$/i;
+const imageExt = /\.(png|tiff?|jpe?g|bmp|pgm)$/i;
 
 /** naturalLess orders names so that "f2" comes before "f10" (as the CLI). */
 export function naturalLess(a, b) {
@@ -371,24 +371,41 @@ export class SeriesRunner {
     all.max = p.total; all.value = from;
     const byName = new Map(this.files.map(f => [f.name, f]));
     let ok = true;
-    for (let k = from; k < p.total && !this.stop; k++) {
+    // Live gauges: the frames go through the live route, whose answer
+    // holds the readings; every frame still gets its full field.
+    const live = $('s-live').checked;
+    if (live) {
+      try {
+        await request(`${API}/series/${p.series}/live`, { method: 'POST', headers: { 'Content-Type': 'application/json' }, body: '{"full": "every"}' });
+      } catch (err) {
+        if (!(err && err.status === 409 && /live-started/.test((err.problem && err.problem.type) || ''))) { this.app.showError(err); ok = false; }
+      }
+      if (ok) this.app.liveStarted();
+    }
+    for (let k = from; ok && k < p.total && !this.stop; k++) {
       const i = k + 1, file = byName.get(p.names[i]);
       if (!file) { this.app.showError(new Error(`${p.names[i]} is not among the chosen files`)); ok = false; break; }
-      const q = new URLSearchParams({ name: p.names[i], wait: 'true' });
+      const q = new URLSearchParams(live ? { name: p.names[i] } : { name: p.names[i], wait: 'true' });
       if (p.times[i] != null) q.set('time', String(p.times[i]));
       if (p.loads[i] != null) q.set('load', String(p.loads[i]));
       one.value = 0; one.max = 1;
       txt.textContent = `frame ${k + 1} of ${p.total}: sending ${p.names[i]}`;
       try {
-        const job = await sendFrame(`${API}/series/${p.series}/frames?${q}`, file, `${p.series}-frame-${k}`, f => {
+        const url = live ? `${API}/series/${p.series}/live/frames?${q}` : `${API}/series/${p.series}/frames?${q}`;
+        const job = await sendFrame(url, file, `${p.series}-${live ? 'live' : 'frame'}-${k}`, f => {
           one.value = 0.5 * f;
           if (f >= 1) txt.textContent = `frame ${k + 1} of ${p.total}: analysing ${p.names[i]}`;
         });
         one.value = 1;
         all.value = k + 1;
-        txt.textContent = `${k + 1} of ${p.total} frames done` + (job && job.state && job.state !== 'succeeded' ? ` (frame ${k + 1} ${job.state})` : '');
+        if (live) {
+          this.app.liveValues(job);
+          txt.textContent = `${k + 1} of ${p.total} frames answered live` + (job && job.trusted === false ? ` (frame ${k + 1}: a reading is not trusted)` : '');
+        } else {
+          txt.textContent = `${k + 1} of ${p.total} frames done` + (job && job.state && job.state !== 'succeeded' ? ` (frame ${k + 1} ${job.state})` : '');
+        }
         document.body.dataset.seriesDone = String(k + 1);
-        await this.app.frameDone();
+        if (!live) await this.app.frameDone();
       } catch (err) {
         ok = false;
         if (err && err.aborted) txt.textContent = `stopped after ${all.value} of ${p.total} frames`;
