@@ -77,16 +77,17 @@ func NoiseFromImage(g *imageio.Gray, mask *roi.Mask) (float64, error) {
 	for (g.W/k)*(g.H/k) > 1<<22 {
 		k++
 	}
+	clipLo, clipHi := lo <= 0, looksFullScale(hi)
 	for y := 1; y < g.H-1; y += k {
 		for x := 1; x < g.W-1; x += k {
-			if !insideR(mask, g.W, g.H, x, y, 1) {
+			if mask != nil && !insideR(mask, g.W, g.H, x, y, 1) {
 				continue
 			}
 			i := y*st + x
 			a, b, c := float64(p[i-st-1]), float64(p[i-st]), float64(p[i-st+1])
 			d, e, f := float64(p[i-1]), float64(p[i]), float64(p[i+1])
 			q, h, j := float64(p[i+st-1]), float64(p[i+st]), float64(p[i+st+1])
-			if (e == lo && lo <= 0) || (e == hi && looksFullScale(hi)) {
+			if (e == lo && clipLo) || (e == hi && clipHi) {
 				continue
 			}
 			gx := c + 2*f + j - a - 2*d - q
@@ -102,7 +103,9 @@ func NoiseFromImage(g *imageio.Gray, mask *roi.Mask) (float64, error) {
 	// gradient (a sort of millions of pixels would dominate the cost).
 	var top float64
 	for _, v := range r {
-		top = math.Max(top, v.grad)
+		if v.grad > top {
+			top = v.grad
+		}
 	}
 	cut := math.Inf(1)
 	if top > 0 {
