@@ -101,6 +101,8 @@ type Runner struct {
 	running map[string]context.CancelCauseFunc
 
 	clock clock // of the frame gate; wallClock except in its test
+
+	primed primedSet // images decoded by the handlers (Prime)
 }
 
 // New checks cfg and returns a runner. It starts nothing: call Start.

@@ -460,6 +460,9 @@ func (s *Runner) LoadImageAs(ctx context.Context, key string, o imageio.Orientat
 
 // loadStored decodes the stored image under key as stored.
 func (s *Runner) loadStored(ctx context.Context, key string) (*imageio.Gray, error) {
+	if g := s.takePrimed(key); g != nil {
+		return g, nil
+	}
 	rc, err := s.blobs.Get(ctx, key)
 	if err != nil {
 		return nil, fmt.Errorf("stored image: %w", err)

@@ -182,12 +182,14 @@ func (s *Server) postAnalysis(w http.ResponseWriter, r *http.Request) {
 		writeProblem(w, r, perr)
 		return
 	}
-	s.submit(w, r, p, ref, u.raw, name)
+	s.submit(w, r, p, ref, u.raw, u.img, name)
 }
 
 // submit stores the inputs and record of a new analysis, enqueues it and
-// answers 202 (or, with ?wait=true, the finished job).
-func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Params, ref *imageio.Gray, raw map[string][]byte, name string) {
+// answers 202 (or, with ?wait=true, the finished job). decoded, if not
+// nil, holds the images decoded from raw (s.decode), which the runner
+// then takes instead of decoding the stored bytes again.
+func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Params, ref *imageio.Gray, raw map[string][]byte, decoded map[string]*imageio.Gray, name string) {
 	wait, err := boolQuery(r, "wait", false)
 	if err != nil {
 		writeProblem(w, r, err.(*Problem))
@@ -202,7 +204,9 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Param
 	proj, _ := chosenProject(r, caller(r.Context())) // checked by authenticate
 	j := &jobs.Job{ID: newID(r), Kind: jobs.Analysis, State: jobs.Queued, Params: params, Name: name, Project: proj, Owner: caller(r.Context()).Name,
 		Width: ref.W, Height: ref.H, HasMask: raw["mask"] != nil, Formats: formats.String(), Created: time.Now().UTC()}
+	primed := s.prime(j.ID, raw, decoded)
 	if err := s.accept(r.Context(), j, raw); errors.Is(err, jobs.ErrExists) {
+		s.run.Unprime(primed...)
 		// A repeat under an Idempotency-Key that another instance
 		// created meanwhile.
 		if j, err = s.store.Job(r.Context(), j.ID); err != nil {
@@ -210,6 +214,7 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Param
 			return
 		}
 	} else if err != nil {
+		s.run.Unprime(primed...)
 		s.answerAcceptErr(w, r, err)
 		return
 	} else {
@@ -218,6 +223,23 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Param
 	created(r)
 	logger(r.Context()).Info("analysis accepted", "job", j.ID, "width", j.Width, "height", j.Height)
 	s.answerJob(w, r, j, wait)
+}
+
+// prime hands the runner the images of job id decoded from raw, so the
+// job reads each stored image once instead of decoding it again; only
+// images that were not turned by an EXIF orientation are the stored
+// pixels as they are. It returns their blob keys.
+func (s *Server) prime(id string, raw map[string][]byte, decoded map[string]*imageio.Gray) []string {
+	var keys []string
+	for name, g := range decoded {
+		if _, ok := raw[name]; !ok || g == nil || !g.Orientation.Upright() {
+			continue
+		}
+		k := jobs.InputKey(id, name)
+		s.run.Prime(k, g)
+		keys = append(keys, k)
+	}
+	return keys
 }
 
 // accept stores the inputs and the record and enqueues the job. If the
@@ -430,7 +452,7 @@ func (s *Server) postDemo(w http.ResponseWriter, r *http.Request) {
 		writeProblem(w, r, perr)
 		return
 	}
-	s.submit(w, r, p, ref, raw, name)
+	s.submit(w, r, p, ref, raw, nil, name)
 }
 
 func pngBits(g *imageio.Gray) int {
