@@ -8,6 +8,7 @@ import (
 	"log/slog"
 	"net/http/httptest"
 	"sort"
+	"syscall"
 	"testing"
 	"time"
 
@@ -24,6 +25,7 @@ import (
 // storing the inputs), the job itself (started → finished) and after it
 // (reading the result, writing the answer). "sync" is the default
 // backend, which fsyncs every write; "nosync" shows what the fsyncs cost.
+// cpu-ms/req is the process's CPU time per request (user + sys).
 func BenchmarkLatency512(b *testing.B) {
 	for _, c := range []struct {
 		name   string
@@ -50,6 +52,7 @@ func benchLatency(b *testing.B, noSync bool) {
 	ref, def := realPair(b, 512, 2.4, -1.7)
 	ct, body := multipartBody(b, analysisParts(ref, def, `{"subset": 31, "step": 16}`)...)
 	var lat, before, job, after []time.Duration
+	c0 := cpuTime()
 	b.ResetTimer()
 	for i := 0; i < b.N; i++ {
 		t0 := time.Now()
@@ -69,6 +72,7 @@ func benchLatency(b *testing.B, noSync bool) {
 		before, job, after = append(before, v.Started.Sub(t0)), append(job, v.Finished.Sub(v.Started)), append(after, t1.Sub(v.Finished))
 	}
 	b.StopTimer()
+	cpu := cpuTime() - c0
 	pct := func(d []time.Duration, p float64) float64 {
 		sort.Slice(d, func(i, j int) bool { return d[i] < d[j] })
 		return float64(d[min(len(d)-1, int(p*float64(len(d))))].Microseconds()) / 1000
@@ -78,4 +82,15 @@ func benchLatency(b *testing.B, noSync bool) {
 	b.ReportMetric(pct(before, 0.5), "before-ms")
 	b.ReportMetric(pct(job, 0.5), "job-ms")
 	b.ReportMetric(pct(after, 0.5), "after-ms")
+	b.ReportMetric(float64(cpu.Microseconds())/1000/float64(b.N), "cpu-ms/req")
+}
+
+// cpuTime returns the user + system CPU time of the process so far: on a
+// shared machine, CPU per request is the figure to compare.
+func cpuTime() time.Duration {
+	var ru syscall.Rusage
+	if err := syscall.Getrusage(syscall.RUSAGE_SELF, &ru); err != nil {
+		return 0
+	}
+	return time.Duration(ru.Utime.Nano() + ru.Stime.Nano())
 }

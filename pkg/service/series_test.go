@@ -194,7 +194,14 @@ func TestMetricsAndHealth(t *testing.T) {
 	ref, def := pair(t, 32, 32, 1, 0, 13)
 	ct, body := multipartBody(t, analysisParts(ref, def, `{"subset": 15}`)...)
 	ts.do(t, "POST", "/v1/analyses?wait=true", ct, body)
-	resp, b := ts.do(t, "GET", "/metrics", "", nil)
+	// The runner counts a job's points just after it records the job as
+	// finished, which ends the wait: the count may follow the answer.
+	var resp *http.Response
+	var b []byte
+	poll(t, "the finished job's points in the metrics", func() bool {
+		resp, b = ts.do(t, "GET", "/metrics", "", nil)
+		return strings.Contains(string(b), "mottle_points_total 1")
+	})
 	if resp.StatusCode != 200 || !strings.HasPrefix(resp.Header.Get("Content-Type"), "text/plain; version=0.0.4") {
 		t.Fatalf("metrics: %d %q", resp.StatusCode, resp.Header.Get("Content-Type"))
 	}
