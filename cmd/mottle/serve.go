@@ -50,6 +50,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	noUI := fs.Bool("no-ui", false, "do not serve the browser preview")
 	maxMem := fs.Int64("max-memory-mb", 0, "memory budget of uploads being decoded and jobs being computed, MiB; beyond it jobs wait and uploads wait --memory-wait, then get 503 (0 = 3/4 of GOMEMLIMIT if set, else half the machine's memory; -1 = no budget)")
 	memWait := fs.Duration("memory-wait", 10*time.Second, "how long an upload waits for memory before it is answered 503 with Retry-After")
+	minRate := fs.Int64("min-upload-rate", 16, "slowest a request body may arrive after its first 10 s, KiB/s; slower ones are cut off with 408 (-1 = no minimum)")
 	minFree := fs.Int64("min-free-mb", 256, "free space of the data directory, MiB, below which new uploads are answered 507 and /readyz is not ready (embedded backend)")
 	if err := parseFlags(e, fs, args); err != nil {
 		return err
@@ -74,7 +75,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 		JobTimeout: *jobTimeout, ReadTimeout: *readTimeout, WriteTimeout: *writeTimeout,
 		ShutdownGrace: *grace, Retention: *retention, Tokens: tokens, TokenFile: tf, Demo: demo.Pair,
 		MaxQueuedPerPrincipal: *maxQueued, RateLimit: *rate,
-		MaxMemory: *maxMem << 20, MemoryWait: *memWait,
+		MaxMemory: *maxMem << 20, MemoryWait: *memWait, MinBodyRate: *minRate << 10,
 	}
 	if !natsjs.IsURL(*backend) {
 		cfg.DataDir, cfg.MinFreeBytes = *data, *minFree<<20

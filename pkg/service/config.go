@@ -56,6 +56,12 @@ type Config struct {
 	// streams and ?wait=true requests lift the write deadline for as
 	// long as they need (waits are bounded by JobTimeout).
 	ReadHeaderTimeout, ReadTimeout, WriteTimeout, IdleTimeout time.Duration
+	// MinBodyRate is the slowest a request body may arrive, bytes a
+	// second, once BodyRateGrace has passed since its first read; a
+	// slower body is cut off and answered 408 (its upload leaves no job).
+	// Default 16 KiB/s with a grace of 10 s; negative turns the rule off.
+	MinBodyRate   int64
+	BodyRateGrace time.Duration
 	// JobTimeout bounds the compute time of one job; default 30 min.
 	JobTimeout time.Duration
 	// ShutdownGrace is how long running jobs may go on after shutdown
@@ -174,6 +180,10 @@ func (c *Config) defaults() {
 	def(&c.JobTimeout, 30*time.Minute)
 	def(&c.ShutdownGrace, 30*time.Second)
 	def(&c.MemoryWait, 10*time.Second)
+	def(&c.BodyRateGrace, 10*time.Second)
+	if c.MinBodyRate == 0 {
+		c.MinBodyRate = 16 << 10
+	}
 	if c.RateLimit > 0 && c.RateBurst < 1 {
 		c.RateBurst = max(1, 2*c.RateLimit)
 	}

@@ -7,11 +7,15 @@ import (
 	"net/http"
 )
 
-// admission refuses requests that would store data while the data
+// admission counts the requests in flight, puts the minimum-rate rule
+// on request bodies, refuses requests that would store data while the data
 // directory is low on space (507, before the body is read), and gives
 // every POST its hold of the memory budget, released when it ends.
 func (s *Server) admission(next http.Handler) http.Handler {
 	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		s.inflight.Add(1)
+		defer s.inflight.Add(-1)
+		r = s.limitRate(w, r)
 		if s.disk != nil && storesData(r) {
 			if low, free := s.disk.low(); low {
 				retryAfter(w, 60)
@@ -62,6 +66,7 @@ func (s *Server) writeLimitMetrics(w io.Writer) {
 		p("# HELP mottle_memory_waits_total Uploads and jobs that had to wait for memory.\n# TYPE mottle_memory_waits_total counter\nmottle_memory_waits_total %d\n", st.waits)
 		p("# HELP mottle_memory_refused_total Uploads answered 503 or 413 by the memory budget.\n# TYPE mottle_memory_refused_total counter\nmottle_memory_refused_total %d\n", st.refused)
 	}
+	p("# HELP mottle_http_requests_in_flight Requests being served now, event streams included.\n# TYPE mottle_http_requests_in_flight gauge\nmottle_http_requests_in_flight %d\n", s.inflight.Load())
 	if rss := residentBytes(); rss >= 0 {
 		p("# HELP mottle_process_resident_bytes Resident memory of the server process.\n# TYPE mottle_process_resident_bytes gauge\nmottle_process_resident_bytes %d\n", rss)
 	}

@@ -56,6 +56,8 @@ type Server struct {
 	disk *diskGuard
 	// mem is the memory budget (nil when turned off).
 	mem *memBudget
+	// inflight counts the requests being served.
+	inflight atomic.Int64
 }
 
 // New checks cfg and returns a server. It starts nothing: call Serve, or

@@ -61,7 +61,12 @@ func checkImageType(field, ct string) error {
 // readMultipart reads a multipart/form-data body with the image parts
 // images (required unless listed in optional) and an optional "params"
 // part, decoding every image with the pixel limit checked from its header.
-func (s *Server) readMultipart(w http.ResponseWriter, r *http.Request, images []string, optional ...string) (*upload, error) {
+func (s *Server) readMultipart(w http.ResponseWriter, r *http.Request, images []string, optional ...string) (_ *upload, rerr error) {
+	defer func() {
+		if rerr != nil {
+			rerr = slowErr(r, rerr)
+		}
+	}()
 	mt, _, err := mime.ParseMediaType(r.Header.Get("Content-Type"))
 	if err != nil || mt != "multipart/form-data" {
 		return nil, problem(http.StatusUnsupportedMediaType, "unsupported-media-type", "Unsupported media type",
@@ -174,6 +179,9 @@ func (s *Server) decode(field string, b []byte) (*imageio.Gray, error) {
 }
 
 func bodyErr(err error, field string) error {
+	if errors.Is(err, errTooSlow) {
+		return slowProblem(err, field)
+	}
 	var mbe *http.MaxBytesError
 	if errors.As(err, &mbe) {
 		return asProblem(err, field)
