@@ -584,6 +584,8 @@ func (s *Runner) sweep(ctx context.Context, t time.Time) (int, error) {
 			continue
 		}
 		n++
+		s.auditRetention(ctx, jobs.AuditEntry{Resource: jobs.AuditAnalysis, ID: j.ID, Project: j.Project,
+			Detail: "by the retention setting: finished before " + t.UTC().Format(time.RFC3339)})
 	}
 	all, err := s.store.AllSeries(ctx)
 	if err != nil {
@@ -597,9 +599,34 @@ func (s *Runner) sweep(ctx context.Context, t time.Time) (int, error) {
 		n += m
 		if err != nil {
 			errs = append(errs, err)
+		} else if m > 0 {
+			s.auditRetention(ctx, jobs.AuditEntry{Resource: jobs.AuditSeries, ID: sr.ID, Project: sr.Project,
+				Detail: fmt.Sprintf("by the retention setting: not updated since %s; with %d frame jobs", t.UTC().Format(time.RFC3339), m-1)})
 		}
 	}
 	return n, errors.Join(errs...)
+}
+
+// retentionPrincipal is the principal of the audit entries of deletions
+// by the retention setting.
+const retentionPrincipal = "retention"
+
+// auditRetention records a deletion by the retention setting in the
+// backend's audit trail, if it has one; a failure is logged with the
+// entry.
+func (s *Runner) auditRetention(ctx context.Context, e jobs.AuditEntry) {
+	a := s.cfg.Backend.Audit
+	if a == nil {
+		return
+	}
+	e.Time, e.Action, e.Principal = time.Now().UTC(), jobs.AuditDelete, retentionPrincipal
+	if e.Project == "" {
+		e.Project = "default"
+	}
+	if err := a.Append(ctx, &e); err != nil {
+		s.log.Error("audit entry not stored", "error", err.Error(), "action", e.Action, "principal", e.Principal,
+			"project", e.Project, "resource", e.Resource, "id", e.ID, "detail", e.Detail)
+	}
 }
 
 // DeleteSeries removes a series, its frames and their blobs. With

@@ -10,6 +10,7 @@ import (
 	"time"
 
 	"github.com/mottledic/mottle/pkg/service"
+	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
 func TestSeries(t *testing.T) {
@@ -171,6 +172,7 @@ func TestRetention(t *testing.T) {
 		c.Workers = 1
 		c.BeforeCompute = h.hook
 	})
+	t.Cleanup(h.release) // before the server's stop: no wait for the shutdown grace
 	ref, def := pair(t, 32, 32, 1, 0, 12)
 	ct, body := multipartBody(t, analysisParts(ref, def, `{"subset": 15}`)...)
 	h.free.Store(1) // the first job runs through, the second is held
@@ -186,6 +188,25 @@ func TestRetention(t *testing.T) {
 	})
 	if resp, b := ts.do(t, "GET", "/v1/analyses/"+running, "", nil); resp.StatusCode != 200 || decodeJSON[jobDoc](t, b).State != "running" {
 		t.Errorf("running analysis removed or finished: %d %s", resp.StatusCode, b)
+	}
+	// The audit trail holds the removal, by the principal "retention"
+	// (recorded just after the record is gone).
+	var deleted []string
+	poll(t, "the removal in the audit trail", func() bool {
+		_, b = ts.do(t, "GET", "/v1/audit?limit=1000", "", nil)
+		deleted = nil
+		for _, e := range decodeJSON[struct{ Entries []jobs.AuditEntry }](t, b).Entries {
+			if e.Action == jobs.AuditDelete {
+				deleted = append(deleted, e.Principal+" "+e.Resource+" "+e.ID+" "+e.Project)
+				if !strings.HasPrefix(e.Detail, "by the retention setting") {
+					t.Errorf("retention entry detail %q", e.Detail)
+				}
+			}
+		}
+		return len(deleted) > 0
+	})
+	if want := "retention analysis " + done + " default"; len(deleted) != 1 || deleted[0] != want {
+		t.Errorf("deletions in the audit trail: %q, want only %q", deleted, want)
 	}
 }
 
