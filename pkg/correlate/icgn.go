@@ -45,6 +45,7 @@ type solver struct {
 	fx, fy []float64     // reference gradients over the subset
 	gbuf   []float64     // interpolated deformed values, one row
 	xs, ys []float64     // warped positions, one row (second order)
+	xis    []float64     // ξ = −m … m
 	xc, yc float64       // subset centre
 	fmean  float64       // f̄
 	df     float64       // ‖f − f̄‖
@@ -75,6 +76,10 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 	}
 	if s.shape == Second {
 		s.np = 12
+	}
+	s.xis = make([]float64, side)
+	for i := range s.xis {
+		s.xis[i] = float64(i - m)
 	}
 	if opt.Prefilter > 0 {
 		s.kern = spline.GaussianKernel(opt.Prefilter)
@@ -129,21 +134,28 @@ func (s *solver) prepare(xc, yc float64) Status {
 		return Outside
 	}
 	var sum float64
+	side := 2*m + 1
 	k := 0
 	for j := -m; j <= m; j++ {
-		for i := -m; i <= m; i++ {
-			var v, gx, gy float64
-			if onGrid {
-				o := (iy+j)*s.ref.W + ix + i
-				v = float64(s.ref.Pix[(iy+j)*s.ref.Stride+ix+i])
-				gx, gy = float64(s.gx[o]), float64(s.gy[o])
-			} else {
-				v, gx, gy = s.refSp.Grad(xc+float64(i), yc+float64(j))
+		f, fx, fy := s.f[k:k+side], s.fx[k:k+side], s.fy[k:k+side]
+		if onGrid {
+			o := (iy+j)*s.ref.Stride + ix - m
+			pix := s.ref.Pix[o : o+side]
+			o = (iy+j)*s.ref.W + ix - m
+			gx, gy := s.gx[o:o+side], s.gy[o:o+side]
+			pix, gx, gy = pix[:len(f)], gx[:len(f)], gy[:len(f)]
+			fx, fy = fx[:len(f)], fy[:len(f)]
+			for i, v := range pix {
+				f[i], fx[i], fy[i] = float64(v), float64(gx[i]), float64(gy[i])
+				sum += f[i]
 			}
-			s.f[k], s.fx[k], s.fy[k] = v, gx, gy
-			sum += v
-			k++
+		} else {
+			for i := range f {
+				f[i], fx[i], fy[i] = s.refSp.Grad(xc+float64(i-m), yc+float64(j))
+				sum += f[i]
+			}
 		}
+		k += side
 	}
 	s.fmean = sum / float64(s.n)
 	var ss float64

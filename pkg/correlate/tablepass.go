@@ -11,6 +11,22 @@ import "math"
 // pass interpolates a subset row and then accumulates it, in two loops that
 // each keep their variables in registers.
 
+// Fixed-point coordinates: a warped position x is held as the integer
+// round(x·2^fixBits), so that stepping along a subset row is an exact
+// integer addition and the cell index and fractional offset are a shift
+// and a mask. With 40 fractional bits the resolution is 9e-13 px, finer
+// than the float32 offset the table is evaluated at, and positions up to
+// 2^23 px fit.
+const (
+	fixBits  = 40
+	fixOne   = 1 << fixBits
+	fixMask  = fixOne - 1
+	fixScale = float32(1.0 / fixOne)
+)
+
+// fix converts a coordinate x ≥ 0 to fixed point.
+func fix(x float64) int64 { return int64(x*fixOne + 0.5) }
+
 // pass1t is pass1 for a solver with a table.
 func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	m := s.m
@@ -30,33 +46,36 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	w := s.tab.W
 	var tg, tgg, tfg, tx0, tx1, tx2, ty0, ty1, ty2 float64
 	fmean := s.fmean
+	// Steps along a row in fixed point; the error of rounding them is
+	// below 1e-12 px per step.
+	dx, dy := int64(math.Round(a11*fixOne)), int64(math.Round(a21*fixOne))
+	xis := s.xis[:side]
 	k := 0
 	for j := -m; j <= m; j++ {
 		eta := float64(j)
-		x := cx - a11*fm + a12*eta
-		y := cy - a21*fm + a22*eta
+		x := fix(cx - a11*fm + a12*eta)
+		y := fix(cy - a21*fm + a22*eta)
 		// Two loops per row, interpolation then accumulation, so that
 		// each keeps its variables in registers.
 		g := s.gbuf[:side]
 		for i := range g {
-			ix, iy := int(x), int(y)
-			tx, ty := float32(x-float64(ix)), float32(y-float64(iy))
-			o := 16 * (iy*w + ix)
+			tx := float32(x&fixMask) * fixScale
+			ty := float32(y&fixMask) * fixScale
+			o := 16 * (int(y>>fixBits)*w + int(x>>fixBits))
 			c := (*[16]float32)(tab[o : o+16])
 			r0 := c[0] + tx*(c[1]+tx*(c[2]+tx*c[3]))
 			r1 := c[4] + tx*(c[5]+tx*(c[6]+tx*c[7]))
 			r2 := c[8] + tx*(c[9]+tx*(c[10]+tx*c[11]))
 			r3 := c[12] + tx*(c[13]+tx*(c[14]+tx*c[15]))
 			g[i] = float64(r0 + ty*(r1+ty*(r2+ty*r3)))
-			x += a11
-			y += a21
+			x += dx
+			y += dy
 		}
 		f := s.f[k : k+side]
 		fx := s.fx[k : k+side]
 		fy := s.fy[k : k+side]
-		f, fx, fy = f[:len(g)], fx[:len(g)], fy[:len(g)]
+		f, fx, fy, xi := f[:len(g)], fx[:len(g)], fy[:len(g)], xis[:len(g)]
 		var rx0, rx1, ry0, ry1 float64
-		xi := -fm
 		for i, gv := range g {
 			v := gv - fmean
 			tg += v
@@ -64,10 +83,9 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 			tfg += f[i] * v
 			a, b := fx[i]*v, fy[i]*v
 			rx0 += a
-			rx1 += a * xi
+			rx1 += a * xi[i]
 			ry0 += b
-			ry1 += b * xi
-			xi++
+			ry1 += b * xi[i]
 		}
 		tx0 += rx0
 		tx1 += rx1
@@ -92,19 +110,25 @@ func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	side := 2*m + 1
 	tab := s.tab.Coefficients()
 	w := s.tab.W
-	lo, hx, hy := s.lo, s.defW, s.defH
+	// The usable area in fixed point (fix rounds, so a position exactly on
+	// the border stays inside).
+	lo, hx, hy := fix(s.lo), fix(s.defW), fix(s.defH)
 	var tg, tgg, tfg float64
 	var acc [12]float64
 	fmean := s.fmean
+	ddx, ddy := int64(math.Round(p[Uxx]*fixOne)), int64(math.Round(p[Vxx]*fixOne))
 	k := 0
 	for j := -m; j <= m; j++ {
 		eta := float64(j)
 		du, dv := Displacement(p, -fm, eta)
-		x, y := s.xc-fm+du, s.yc+eta+dv
+		xf, yf := s.xc-fm+du, s.yc+eta+dv
+		if !(xf >= s.lo && yf >= s.lo) { // also keeps fix's argument ≥ 0
+			return false
+		}
+		x, y := fix(xf), fix(yf)
 		// First differences at ξ = −m: u(ξ+1) − u(ξ) = Ux + Uxx(ξ + ½) + Uxy η.
-		dx := 1 + p[Ux] + p[Uxx]*(0.5-fm) + p[Uxy]*eta
-		dy := p[Vx] + p[Vxx]*(0.5-fm) + p[Vxy]*eta
-		ddx, ddy := p[Uxx], p[Vxx]
+		dx := int64(math.Round((1 + p[Ux] + p[Uxx]*(0.5-fm) + p[Uxy]*eta) * fixOne))
+		dy := int64(math.Round((p[Vx] + p[Vxx]*(0.5-fm) + p[Vxy]*eta) * fixOne))
 		f := s.f[k : k+side]
 		fx := s.fx[k : k+side]
 		fy := s.fy[k : k+side]
@@ -115,9 +139,9 @@ func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 			if !(x >= lo && x <= hx && y >= lo && y <= hy) {
 				return false
 			}
-			ix, iy := int(x), int(y)
-			tx, ty := float32(x-float64(ix)), float32(y-float64(iy))
-			o := 16 * (iy*w + ix)
+			tx := float32(x&fixMask) * fixScale
+			ty := float32(y&fixMask) * fixScale
+			o := 16 * (int(y>>fixBits)*w + int(x>>fixBits))
 			c := (*[16]float32)(tab[o : o+16])
 			r0 := c[0] + tx*(c[1]+tx*(c[2]+tx*c[3]))
 			r1 := c[4] + tx*(c[5]+tx*(c[6]+tx*c[7]))
