@@ -154,6 +154,7 @@ func BenchmarkSolve(b *testing.B) {
 		tun   tuning
 	}{
 		{"first", First, tuning{}},
+		{"first-portable", First, tuning{portable: true}}, // the same as first without GOEXPERIMENT=simd
 		{"first-direct", First, tuning{direct: true}},
 		{"second", Second, tuning{}},
 		{"second-direct", Second, tuning{direct: true}},

@@ -26,37 +26,43 @@ import (
 // solver holds the images and the per-point reference-subset data. One
 // solver belongs to one goroutine; it does not allocate after newSolver.
 type solver struct {
-	ref    *imageio.Gray // reference samples
-	gx, gy []float32     // reference gradients at pixel centres
-	refSp  *spline.Image // reference spline, for centres off the pixel grid (may be nil)
-	def    *spline.Image // deformed-image spline (nil when tab is set)
-	tab    *spline.Table // deformed-image coefficient table, or nil
-	lo     float64       // smallest allowed warped coordinate (edge margin)
-	defW   float64       // largest allowed warped x: W−1 − margin
-	defH   float64       // largest allowed warped y: H−1 − margin
-	shape  Shape         // First or Second
-	np     int           // number of parameters, 6 or 12
-	m      int           // subset half-width
-	n      int           // pixels per subset, (2m+1)²
-	maxIt  int           // iteration cap
-	tol    float64       // convergence threshold, px
-	minStd float64       // subsets with a smaller grey-level std are LowContrast
-	f      []float64     // f − f̄
-	fx, fy []float64     // reference gradients over the subset
-	gbuf   []float64     // interpolated deformed values, one row
-	xs, ys []float64     // warped positions, one row (second order)
-	xis    []float64     // ξ = −m … m
-	xc, yc float64       // subset centre
-	fmean  float64       // f̄
-	df     float64       // ‖f − f̄‖
-	chol   [12 * 12]float64
-	b0, sj [12]float64 // Σ J f̃ and Σ J
-	hUU    float64     // (H⁻¹)[U][U], for the predicted std
-	hVV    float64
-	sssig  float64   // min(Σfx², Σfy²), sum of squared subset intensity gradients
-	kern   []float64 // Gaussian prefilter kernel, nil when off
-	wpad   []float64 // scratch for smoothedVar
-	wtmp   []float64
+	ref      *imageio.Gray // reference samples
+	gx, gy   []float32     // reference gradients at pixel centres
+	refSp    *spline.Image // reference spline, for centres off the pixel grid (may be nil)
+	def      *spline.Image // deformed-image spline (nil when tab is set)
+	tab      *spline.Table // deformed-image coefficient table, or nil
+	portable bool          // use the portable table pass even where a vector one exists
+	// scratch of the vector pass (tablepass_simd.go)
+	rowX, rowY []int64    // fixed-point start of each subset row
+	etas       []float64  // η of each row, four times
+	lastW      [4]float64 // weights of the last group of four pixels of a row
+	vout       [9][4]float64
+	lo         float64   // smallest allowed warped coordinate (edge margin)
+	defW       float64   // largest allowed warped x: W−1 − margin
+	defH       float64   // largest allowed warped y: H−1 − margin
+	shape      Shape     // First or Second
+	np         int       // number of parameters, 6 or 12
+	m          int       // subset half-width
+	n          int       // pixels per subset, (2m+1)²
+	maxIt      int       // iteration cap
+	tol        float64   // convergence threshold, px
+	minStd     float64   // subsets with a smaller grey-level std are LowContrast
+	f          []float64 // f − f̄
+	fx, fy     []float64 // reference gradients over the subset
+	gbuf       []float64 // interpolated deformed values, one row
+	xs, ys     []float64 // warped positions, one row (second order)
+	xis        []float64 // ξ = −m … m
+	xc, yc     float64   // subset centre
+	fmean      float64   // f̄
+	df         float64   // ‖f − f̄‖
+	chol       [12 * 12]float64
+	b0, sj     [12]float64 // Σ J f̃ and Σ J
+	hUU        float64     // (H⁻¹)[U][U], for the predicted std
+	hVV        float64
+	sssig      float64   // min(Σfx², Σfy²), sum of squared subset intensity gradients
+	kern       []float64 // Gaussian prefilter kernel, nil when off
+	wpad       []float64 // scratch for smoothedVar
+	wtmp       []float64
 }
 
 func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, opt *Options, minStd float64) *solver {
@@ -76,6 +82,9 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 	}
 	if s.shape == Second {
 		s.np = 12
+	}
+	if vectorPass {
+		s.initVector()
 	}
 	s.xis = make([]float64, side)
 	for i := range s.xis {
@@ -392,7 +401,7 @@ func (s *solver) solve(p0 [12]float64) attempt {
 		var ok bool
 		switch {
 		case s.tab != nil && s.np == 6:
-			ok = s.pass1t(&p, &sg, &sgg, &sfg, &sjg)
+			ok = s.pass1fast(&p, &sg, &sgg, &sfg, &sjg)
 		case s.tab != nil:
 			ok = s.pass2t(&p, &sg, &sgg, &sfg, &sjg)
 		case s.np == 6:

@@ -144,7 +144,8 @@ func Run(ctx context.Context, ref, def *imageio.Gray, opt Options) (*Result, err
 // compare them with the default in the same run; the zero value is what Run
 // uses.
 type tuning struct {
-	direct bool // interpolate from the B-spline coefficients even when a table would be used
+	direct   bool // interpolate from the B-spline coefficients even when a table would be used
+	portable bool // use the portable table pass even in builds with a vector one
 }
 
 // runWith is Run with the given tuning.
@@ -243,6 +244,7 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning
 	r.tmpl = make([][]float64, r.threads)
 	for i := range r.solvers {
 		r.solvers[i] = newSolver(r.ref, r.gx, r.gy, r.refSp, r.defSp, &r.opt, minStd)
+		r.solvers[i].portable = tun.portable
 		r.tmpl[i] = make([]float64, r.solvers[i].n)
 	}
 	if r.threads > 1 {

@@ -1,0 +1,14 @@
+//go:build !(goexperiment.simd && amd64)
+
+package correlate
+
+// vectorPass reports whether this build and CPU use a vector pass: not in
+// builds without GOEXPERIMENT=simd (see tablepass_simd.go).
+const vectorPass = false
+
+// pass1fast is the first-order table pass Run uses.
+func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
+	return s.pass1t(p, sg, sgg, sfg, sjg)
+}
+
+func (s *solver) initVector() {}

@@ -1,0 +1,112 @@
+//go:build goexperiment.simd && amd64
+
+package correlate
+
+import (
+	"context"
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"github.com/mottledic/mottle/pkg/synth"
+)
+
+// The vector pass must give the sums of the portable pass to float
+// rounding, for any warp and subset size (including sides that are not a
+// multiple of four), and a run with it the same measurement as a run with
+// the portable pass.
+func TestVectorPassMatchesPortable(t *testing.T) {
+	if !vectorPass {
+		t.Skip("this CPU has no AVX-512 and FMA: the vector pass is not used")
+	}
+	m := synth.Affine{F: [2][2]float64{{1.006, 0.003}, {-0.002, 0.996}}, CX: 120, CY: 110, U: 2.7, V: -1.4}
+	ref, def := pair(t, m, 240, 220, 8, 1, 11)
+	rng := rand.New(rand.NewPCG(3, 4))
+	for _, subset := range []int{21, 25, 31, 33} {
+		r, err := newRun(context.Background(), ref, def, Options{Subset: subset, Threads: 1}, tuning{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := r.tabulate(context.Background(), 1<<30); err != nil {
+			t.Fatal(err)
+		}
+		s := r.solvers[0]
+		for trial := 0; trial < 200; trial++ {
+			xc, yc := float64(40+rng.IntN(160)), float64(40+rng.IntN(140))
+			if s.prepare(xc, yc) != OK {
+				continue
+			}
+			var p [12]float64
+			p[U], p[V] = 4*rng.Float64()-2, 4*rng.Float64()-2
+			p[Ux], p[Uy], p[Vx], p[Vy] = 0.04*rng.Float64()-0.02, 0.04*rng.Float64()-0.02, 0.04*rng.Float64()-0.02, 0.04*rng.Float64()-0.02
+			var a, b [12]float64
+			var ag, agg, afg, bg, bgg, bfg float64
+			oka := s.pass1t(&p, &ag, &agg, &afg, &a)
+			okb := s.pass1v(&p, &bg, &bgg, &bfg, &b)
+			if oka != okb {
+				t.Fatalf("subset %d: portable pass reports %v, vector pass %v", subset, oka, okb)
+			}
+			if !oka {
+				continue
+			}
+			// Each term is a weight times g − f̄, and g is interpolated in
+			// float32: the passes differ by about 1e-7·|g| per term (other
+			// evaluation order, fused multiply-adds), times the sum of the
+			// absolute weights (1 for Σg, 2|g − f̄| for Σg², |f̃| for Σf̃g, |J|
+			// for ΣJg).
+			n := float64(s.n)
+			delta := 1e-6 * (math.Abs(s.fmean) + 6*math.Sqrt(agg/n))
+			var wf, wfx, wfy, wxx, wxy, wyx, wyy float64
+			for k := range s.f {
+				xi, eta := float64(k%(2*s.m+1)-s.m), float64(k/(2*s.m+1)-s.m)
+				wf += math.Abs(s.f[k])
+				wfx += math.Abs(s.fx[k])
+				wfy += math.Abs(s.fy[k])
+				wxx += math.Abs(s.fx[k] * xi)
+				wxy += math.Abs(s.fx[k] * eta)
+				wyx += math.Abs(s.fy[k] * xi)
+				wyy += math.Abs(s.fy[k] * eta)
+			}
+			for _, d := range []struct {
+				name string
+				x, y float64
+				w    float64
+			}{
+				{"Σg", ag, bg, n}, {"Σg²", agg, bgg, 12 * math.Sqrt(agg*n)}, {"Σf̃g", afg, bfg, wf},
+				{"ΣJg[U]", a[U], b[U], wfx}, {"ΣJg[Ux]", a[Ux], b[Ux], wxx}, {"ΣJg[Uy]", a[Uy], b[Uy], wxy},
+				{"ΣJg[V]", a[V], b[V], wfy}, {"ΣJg[Vx]", a[Vx], b[Vx], wyx}, {"ΣJg[Vy]", a[Vy], b[Vy], wyy},
+			} {
+				if math.Abs(d.x-d.y) > delta*d.w {
+					t.Fatalf("subset %d trial %d: %s portable %v, vector %v, differ by more than %.2g", subset, trial, d.name, d.x, d.y, delta*d.w)
+				}
+			}
+		}
+		r.stop()
+	}
+	// A whole run: same statuses, displacements within 5e-6 px (float32
+	// rounding of the interpolated values moves noisy points by up to
+	// ~1e-6 px, as in TestFastPathsMatchDirect).
+	opt := Options{Subset: 25, Step: 6}
+	v, err := runWith(context.Background(), ref, def, opt, tuning{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pt, err := runWith(context.Background(), ref, def, opt, tuning{portable: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var worst float64
+	for i, p := range v.Points {
+		q := pt.Points[i]
+		if p.Status != q.Status {
+			t.Fatalf("point %d: status %v with the vector pass, %v with the portable one", i, p.Status, q.Status)
+		}
+		if p.Status == OK {
+			worst = math.Max(worst, math.Hypot(p.P[U]-q.P[U], p.P[V]-q.P[V]))
+		}
+	}
+	t.Logf("%d points, largest displacement difference %.2g px", v.Stats.OK, worst)
+	if v.Stats.OK < v.Stats.Total/2 || worst > 5e-6 {
+		t.Errorf("%d of %d points, vector and portable passes differ by up to %.2g px, want ≤ 5e-6", v.Stats.OK, v.Stats.Total, worst)
+	}
+}
