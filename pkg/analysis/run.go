@@ -41,6 +41,11 @@ type Job struct {
 	// assessed by the caller (quality.AssessPair over the same ROI); nil =
 	// RunJob assesses it.
 	Quality []quality.Report
+	// RefMeasures, if not nil (and Quality is nil), are the reference's
+	// quality measures from an earlier analysis of the same reference
+	// image over the same ROI (Output.RefMeasures): only the deformed image
+	// is measured then. The reports are the same.
+	RefMeasures *quality.Measures
 }
 
 // Output is the result of an analysis: the field and the correlation result
@@ -51,6 +56,11 @@ type Output struct {
 	// Quality holds the image quality of the reference and the deformed
 	// image (package quality), also stored in Field.Meta.Extra["image_quality"].
 	Quality []quality.Report
+	// RefMeasures are the reference's quality measures as quality.Measure
+	// gives them (before the report cleans them), for Job.RefMeasures of a
+	// later analysis of the same reference and ROI; zero when the caller
+	// gave Job.Quality.
+	RefMeasures quality.Measures
 	// Elapsed is the wall time of correlation and kinematics.
 	Elapsed time.Duration
 }
@@ -88,6 +98,7 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 	// reads them only); a quality error stops the correlation and is the
 	// job's error.
 	qual := j.Quality
+	var refM quality.Measures
 	var qerr error
 	qdone := make(chan struct{})
 	cctx, cancel := context.WithCancel(ctx)
@@ -95,7 +106,7 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 	if qual == nil {
 		go func() {
 			defer close(qdone)
-			if qual, qerr = quality.AssessPair(j.Ref, j.Def, opt.Mask, quality.Thresholds{}); qerr != nil {
+			if qual, refM, qerr = quality.AssessPairWith(j.Ref, j.RefMeasures, j.Def, opt.Mask, quality.Thresholds{}); qerr != nil {
 				cancel()
 			}
 		}()
@@ -122,7 +133,7 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 	if s := elapsed.Seconds(); s > 0 {
 		f.Meta.Extra["points_per_second"] = math.Round(float64(res.Grid.Len()) / s)
 	}
-	return &Output{Field: f, Correlation: res, Quality: qual, Elapsed: elapsed}, nil
+	return &Output{Field: f, Correlation: res, Quality: qual, RefMeasures: refM, Elapsed: elapsed}, nil
 }
 
 // CorrelationOptions turns the parameters into correlator options for

@@ -17,6 +17,17 @@ import (
 // The two images are measured side by side (the deformed image in a second
 // goroutine); the reports are the same as from Assess on each in turn.
 func AssessPair(ref, def *imageio.Gray, mask *roi.Mask, t Thresholds) ([]Report, error) {
+	rs, _, err := AssessPairWith(ref, nil, def, mask, t)
+	return rs, err
+}
+
+// AssessPairWith is AssessPair that can reuse the reference's measures:
+// refM, if not nil, must be what Measure(ref, mask) gave (for instance in
+// an earlier analysis of the same reference and ROI), and then only the
+// deformed image is measured. It also returns the reference's measures as
+// Measure gives them (before Report cleans them), for the next analysis
+// of that reference. The reports are AssessPair's in either case.
+func AssessPairWith(ref *imageio.Gray, refM *Measures, def *imageio.Gray, mask *roi.Mask, t Thresholds) ([]Report, Measures, error) {
 	var dm Measures
 	var derr error
 	done := make(chan struct{})
@@ -24,17 +35,24 @@ func AssessPair(ref, def *imageio.Gray, mask *roi.Mask, t Thresholds) ([]Report,
 		defer close(done)
 		dm, derr = Measure(def, mask)
 	}()
-	r, err := Assess(ref, mask, "reference", nil, t)
+	var rm Measures
+	var err error
+	if refM != nil {
+		rm = *refM
+	} else if rm, err = Measure(ref, mask); err != nil {
+		err = fmt.Errorf("reference image: %w", err)
+	}
 	<-done
 	if err != nil {
-		return nil, err
+		return nil, Measures{}, err
 	}
 	if derr != nil {
-		return nil, fmt.Errorf("deformed image: %w", derr)
+		return nil, Measures{}, fmt.Errorf("deformed image: %w", derr)
 	}
+	r := report(rm, "reference", nil, t)
 	// The report's measures are cleaned (NaN → 0); Compare treats a zero
 	// reference value as "no change", as it treats NaN.
-	return []Report{r, report(dm, "deformed", &r.Measures, t)}, nil
+	return []Report{r, report(dm, "deformed", &r.Measures, t)}, rm, nil
 }
 
 // Warnings returns the warnings of all reports, in order; an empty (not

@@ -3,9 +3,11 @@ package quality_test
 import (
 	"context"
 	"math"
+	"reflect"
 	"slices"
 	"testing"
 
+	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/quality"
 	"github.com/mottledic/mottle/pkg/synth"
 )
@@ -36,6 +38,43 @@ func TestAssessPair(t *testing.T) {
 // estimated from the image (about 10 % high, so a subset at most one or
 // two sizes larger than with the true σ), the VSG by its definition, and an
 // unreachable target reported rather than failed.
+// AssessPairWith given the reference's measures from an earlier call
+// reports exactly what AssessPair does, for a usable reference and for a
+// uniform one (no speckle size, NaN in its measures), and returns the
+// measures Measure gives.
+func TestAssessPairWith(t *testing.T) {
+	po := synth.PatternOptions{Seed: 3}
+	flat := imageio.NewGray(96, 96)
+	for i := range flat.Pix {
+		flat.Pix[i] = 100
+	}
+	for _, ref := range []*imageio.Gray{render(t, po, synth.RenderOptions{}, 96), flat} {
+		def := render(t, po, synth.RenderOptions{Gain: 0.6 * 255}, 96)
+		want, err := quality.AssessPair(ref, def, nil, quality.Thresholds{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		first, m, err := quality.AssessPairWith(ref, nil, def, nil, quality.Thresholds{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		direct, err := quality.Measure(ref, nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if m.Clean() != direct.Clean() || math.IsNaN(m.SpeckleSize) != math.IsNaN(direct.SpeckleSize) {
+			t.Errorf("returned reference measures %+v, Measure gives %+v", m, direct)
+		}
+		again, _, err := quality.AssessPairWith(nil, &m, def, nil, quality.Thresholds{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !reflect.DeepEqual(first, want) || !reflect.DeepEqual(again, want) {
+			t.Errorf("reports with the reference measured %+v\nand reused %+v\nwant %+v", first, again, want)
+		}
+	}
+}
+
 func TestRecommend(t *testing.T) {
 	g := render(t, synth.PatternOptions{Seed: 4, Contrast: 0.2}, synth.RenderOptions{Noise: 1}, 192)
 	ctx := context.Background()

@@ -8,6 +8,7 @@ import (
 
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/quality"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
@@ -40,6 +41,11 @@ type Input struct {
 	// Formats are the result formats to write (results.ParseFormats); ""
 	// means the service's default, the stored result alone.
 	Formats string
+	// RefMeasures, if not nil, are the reference's image quality measures
+	// from an earlier job on the same reference pixels, parameters and
+	// mask (the runner keeps them, see Result.RefMeasures); an Analyzer
+	// may use them instead of measuring the reference again.
+	RefMeasures *quality.Measures
 }
 
 // Result is what an analysis produced.
@@ -53,6 +59,10 @@ type Result struct {
 	// only): an opaque document the service stores and hands back with the
 	// next frame.
 	State []byte
+	// RefMeasures, if not nil, are the reference's quality measures
+	// (quality.Measure), which the runner hands to later jobs of the same
+	// reference as Input.RefMeasures.
+	RefMeasures *quality.Measures
 }
 
 // FrameAnalyzer is an Analyzer that also tracks the frames of a series

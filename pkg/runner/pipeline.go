@@ -30,7 +30,7 @@ var summaryQuantities = []string{"u", "v", "E11", "E22", "E12", "eps11", "eps22"
 // Run implements Analyzer.
 func (Pipeline) Run(ctx context.Context, in Input, progress func(done, total int)) (*Result, error) {
 	out, err := analysis.RunJob(ctx, analysis.Job{Ref: in.Ref, Def: in.Def, RefName: "reference", DefName: "deformed",
-		Mask: in.Mask, Params: in.Params, Progress: progress})
+		Mask: in.Mask, Params: in.Params, Progress: progress, RefMeasures: in.RefMeasures})
 	if err != nil {
 		return nil, err
 	}
@@ -46,6 +46,9 @@ func (Pipeline) Run(ctx context.Context, in Input, progress func(done, total int
 	}
 	if ws := quality.Warnings(out.Quality); len(ws) > 0 {
 		res.Summary.Warnings = ws
+	}
+	if rm := out.RefMeasures; rm.Pixels > 0 {
+		res.RefMeasures = &rm
 	}
 	return res, nil
 }

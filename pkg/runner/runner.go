@@ -102,7 +102,8 @@ type Runner struct {
 
 	clock clock // of the frame gate; wallClock except in its test
 
-	primed primedSet // images decoded by the handlers (Prime)
+	primed primedSet  // images decoded by the handlers (Prime)
+	refq   refQuality // the quality measures of recent references
 }
 
 // New checks cfg and returns a runner. It starts nothing: call Start.

@@ -433,7 +433,13 @@ func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 			return nil, err
 		}
 	}
-	return s.cfg.Analyzer.Run(ctx, in, progress)
+	key := refQualityKey(in.Ref, in.Mask, j.Params)
+	in.RefMeasures = s.refq.get(key)
+	res, err := s.cfg.Analyzer.Run(ctx, in, progress)
+	if err == nil && res.RefMeasures != nil {
+		s.refq.put(key, *res.RefMeasures)
+	}
+	return res, err
 }
 
 // LoadImage decodes the stored image under key, turned upright by its own
