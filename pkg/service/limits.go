@@ -55,6 +55,7 @@ func (s *Server) writeLimitMetrics(w io.Writer) {
 		p("# HELP mottle_data_free_bytes Bytes free in the data directory's file system (-1 when it cannot be read).\n# TYPE mottle_data_free_bytes gauge\nmottle_data_free_bytes %d\n", free)
 		p("# HELP mottle_data_min_free_bytes Free space below which the service takes no new uploads and is not ready.\n# TYPE mottle_data_min_free_bytes gauge\nmottle_data_min_free_bytes %d\n", g.minFree)
 		p("# HELP mottle_data_reserve_bytes Bytes held in the reserve file, given up when a write finds the disk full.\n# TYPE mottle_data_reserve_bytes gauge\nmottle_data_reserve_bytes %d\n", g.reserveHeld())
+		p("# HELP mottle_data_damaged_jobs Jobs marked failed at start because their stored files were damaged or gone.\n# TYPE mottle_data_damaged_jobs gauge\nmottle_data_damaged_jobs %d\n", s.damaged.Load())
 		p("# HELP mottle_storage_full_total Writes that failed for lack of space.\n# TYPE mottle_storage_full_total counter\nmottle_storage_full_total %d\n", g.full.Load())
 	}
 	if s.mem != nil {
@@ -72,11 +73,16 @@ func (s *Server) writeLimitMetrics(w io.Writer) {
 	}
 }
 
-// beforeStart prepares the resource limits when the service starts: it
-// makes the disk reserve.
+// beforeStart runs when the service starts, before the workers: with a
+// data directory it makes the disk reserve and checks the stored jobs
+// (checkData). A check that cannot list the records is logged and the
+// service starts anyway, serving what it can.
 func (s *Server) beforeStart(ctx context.Context) error {
 	if s.disk != nil {
 		s.disk.refresh()
+		if _, err := s.checkData(ctx); err != nil {
+			s.log.Error("damaged data", "error", err)
+		}
 	}
 	return nil
 }

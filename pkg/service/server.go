@@ -58,6 +58,8 @@ type Server struct {
 	mem *memBudget
 	// inflight counts the requests being served.
 	inflight atomic.Int64
+	// damaged is the number of jobs checkData marked failed.
+	damaged atomic.Int64
 }
 
 // New checks cfg and returns a server. It starts nothing: call Serve, or
