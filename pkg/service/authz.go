@@ -253,6 +253,23 @@ func (s *Server) allowed(w http.ResponseWriter, r *http.Request, proj, owner str
 	return true
 }
 
+// mayReplay checks, for a repeat under an Idempotency-Key, that the
+// caller may still create in project proj of the resource the first
+// request created: the token's grants may have changed since. It answers
+// as allowed does (404 without a role there, 403 below submit).
+func (s *Server) mayReplay(w http.ResponseWriter, r *http.Request, proj string) bool {
+	p := caller(r.Context())
+	switch role := p.Role(projectOf(proj)); {
+	case role == access.None:
+		writeProblem(w, r, asProblem(jobs.ErrNotFound, "id"))
+		return false
+	case role < access.Submit:
+		forbid(w, r, p, access.Submit, "project "+projectOf(proj))
+		return false
+	}
+	return true
+}
+
 // readable reports whether the caller may see records of project proj in
 // a list, honouring a project the request names.
 func readable(r *http.Request, proj string) bool {

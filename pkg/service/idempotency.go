@@ -296,6 +296,9 @@ func (s *Server) replay(w http.ResponseWriter, r *http.Request, k *jobs.Key) boo
 		if err != nil {
 			return false
 		}
+		if !s.mayReplay(w, r, sr.Project) {
+			return true
+		}
 		w.Header().Set("Location", "/v1/series/"+sr.ID)
 		writeJSON(w, http.StatusCreated, s.viewSeries(ctx, sr, false))
 		return true
@@ -303,6 +306,9 @@ func (s *Server) replay(w http.ResponseWriter, r *http.Request, k *jobs.Key) boo
 	j, err := s.store.Job(ctx, k.Resource)
 	if err != nil {
 		return false
+	}
+	if !s.mayReplay(w, r, j.Project) {
+		return true
 	}
 	wait, err := boolQuery(r, "wait", k.Kind == "frame")
 	if err != nil {

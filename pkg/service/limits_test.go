@@ -6,6 +6,7 @@ import (
 	"testing"
 
 	"github.com/mottledic/mottle/pkg/service"
+	"github.com/mottledic/mottle/pkg/service/access"
 )
 
 // TestPrincipalRate: a principal over its request rate is answered 429
@@ -79,5 +80,35 @@ func TestPrincipalDoc(t *testing.T) {
 	_, b = open.do(t, "GET", "/v1/principal", "", nil)
 	if !strings.Contains(string(b), `"principal": "local"`) || !strings.Contains(string(b), `"project": "*"`) || !strings.Contains(string(b), `"tokens_required": false`) {
 		t.Errorf("without tokens: %s", b)
+	}
+}
+
+// TestReplayAfterGrantChange: a repeat under an Idempotency-Key is
+// answered from what the first request created only while the token may
+// still create in its project: 403 once the token can only read there,
+// 404 (as an unknown id) once it has no role there.
+func TestReplayAfterGrantChange(t *testing.T) {
+	l := newLab(t, nil)
+	ct, body := multipartBody(t, part{"reference", "ref.png", "image/png", encodePNG(t, speckle(40, 40, 0, 0, 5))})
+	key := map[string]string{"Idempotency-Key": "rig-run-7"}
+	if st, b := l.call(t, "rig", "POST", "/v1/series", key, ct, body); st != 201 {
+		t.Fatalf("first: %d %s", st, b)
+	}
+	if st, b := l.call(t, "rig", "POST", "/v1/series", key, ct, body); st != 201 {
+		t.Fatalf("repeat: %d %s", st, b)
+	}
+	rig := l.recs[1]
+	if rig.Principal != "rig" {
+		t.Fatalf("record 1 is %s", rig.Principal)
+	}
+	for _, c := range []struct {
+		grant access.Grant
+		want  int
+	}{{access.Grant{Project: "lab-a", Role: access.Read}, 403}, {access.Grant{Project: "lab-b", Role: access.Submit}, 404}} {
+		rig.Grants = []access.Grant{c.grant}
+		l.write(t)
+		if st, b := l.call(t, "rig", "POST", "/v1/series", key, ct, body); st != c.want {
+			t.Errorf("repeat with the grant %v: %d %s, want %d", c.grant, st, b, c.want)
+		}
 	}
 }
