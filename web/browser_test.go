@@ -64,7 +64,7 @@ func TestBrowserPreview(t *testing.T) {
 		base = startServer(t)
 	}
 	ctx := newBrowser(t)
-	b := newPage(t, ctx, art, previewAllowed)
+	b := newPage(t, ctx, art, append(previewAllowed, stereoAllowed...))
 
 	// Each step below depends on the one before, so they run in order on
 	// one page and the first failure stops the test.
@@ -173,6 +173,9 @@ func TestBrowserPreview(t *testing.T) {
 
 	b.step("camera calibration: per-view errors and the distortion plot")
 	checkCalibration(b)
+
+	b.step("stereo: shape and w maps and the 3D view")
+	checkStereo(b)
 	b.finish()
 }
 

@@ -1,0 +1,129 @@
+package web_test
+
+import (
+	"bytes"
+	"fmt"
+	"math"
+	"os"
+	"path/filepath"
+	"regexp"
+	"strings"
+	"time"
+
+	"github.com/chromedp/chromedp"
+
+	"github.com/mottledic/mottle/pkg/calib"
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/synth"
+)
+
+type tenthMM struct{ p *synth.Pattern }
+
+func (s tenthMM) Value(X, Y float64) float64 { return s.p.Value(10*X, 10*Y) }
+
+// writeRig writes the exact rig of synth.BenchRig(w, h) as a rig file.
+func writeRig(b *browser, path string, w, h int) {
+	l, r := synth.BenchRig(w, h)
+	var R [3][3]float64
+	for i := range 3 {
+		for j := range 3 {
+			for k := range 3 {
+				R[i][j] += r.Pose.R[i][k] * l.Pose.R[j][k]
+			}
+		}
+	}
+	var T [3]float64
+	for i := range 3 {
+		T[i] = r.Pose.T[i] - (R[i][0]*l.Pose.T[0] + R[i][1]*l.Pose.T[1] + R[i][2]*l.Pose.T[2])
+	}
+	cam := func(c synth.Lens) calib.Camera {
+		return calib.Camera{Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy, K1: c.K1, K2: c.K2, K3: c.K3, P1: c.P1, P2: c.P2}
+	}
+	res := &calib.StereoResult{Rig: calib.Rig{Left: cam(l.Lens), Right: cam(r.Lens), R: R, T: T, W: w, H: h}, Rot: calib.PoseFromMatrix(R, T).Rot}
+	var buf bytes.Buffer
+	if err := calib.NewRigFile(res, nil, nil, time.Date(2026, 3, 14, 9, 30, 0, 0, time.UTC)).Write(&buf); err != nil {
+		b.t.Fatal(err)
+	}
+	if err := os.WriteFile(path, buf.Bytes(), 0o644); err != nil {
+		b.t.Fatal(err)
+	}
+}
+
+// stereoAllowed are the failed requests checkStereo causes on purpose.
+var stereoAllowed = []allowance{
+	{regexp.MustCompile(`^request POST \S+/v1/stereo: 422 `),
+		"checkStereo sends a rig calibrated on other images: the service answers 422 with a problem document, which the page shows"},
+	{regexp.MustCompile(`^console error \(network\): Failed to load resource: the server responded with a status of 422 \(Unprocessable Entity\) \S+/v1/stereo$`),
+		"Chromium logs the 422 answer of checkStereo as a failed resource"},
+}
+
+// checkStereo renders a plane seen by the invented bench (320×240 px)
+// before and after it moves 1 mm toward the cameras, measures it from the
+// page's stereo section, and checks the shape and w maps and the 3D view
+// (drawn, and turned by the slider), that the page reads the scene's 1 mm
+// of w, that a quarter turn about the vertical makes the specimen's x axis
+// point away from the viewer, and that a rig for other images is refused
+// with the service's message.
+func checkStereo(b *browser) {
+	b.t.Helper()
+	const w, h = 320, 240
+	dir := b.t.TempDir()
+	rig := filepath.Join(dir, "rig.json")
+	writeRig(b, rig, w, h)
+	other := filepath.Join(dir, "rig640.json")
+	writeRig(b, other, 640, 480)
+	p, err := synth.NewPattern(synth.PatternOptions{Diameter: 11, Seed: 4, Bounds: synth.Rect{X0: -750, Y0: -600, X1: 750, Y1: 600}})
+	if err != nil {
+		b.t.Fatal(err)
+	}
+	lc, rc := synth.BenchRig(w, h)
+	var files []string
+	for k, pl := range []synth.Placement{{Shape: synth.Plane{}}, {Shape: synth.Plane{}, Pose: synth.Pose{T: [3]float64{0, 0, 1}}}} {
+		for s, c := range []synth.Cam{lc, rc} {
+			g, _, err := synth.RenderSurface(tenthMM{p}, pl, c, synth.RenderOptions{W: w, H: h, Supersample: 2, Noise: 0.5, Seed: int64(2*k + s)})
+			if err != nil {
+				b.t.Fatal(err)
+			}
+			f := filepath.Join(dir, fmt.Sprintf("%s%d.png", []string{"L", "R"}[s], k))
+			if err := imageio.WriteFile(f, g, 8); err != nil {
+				b.t.Fatal(err)
+			}
+			files = append(files, f)
+		}
+	}
+	b.run("choose the rig and the four images",
+		chromedp.SetUploadFiles(chromedp.ID("st-rig"), []string{rig}),
+		chromedp.SetUploadFiles(chromedp.ID("st-lref"), []string{files[0]}),
+		chromedp.SetUploadFiles(chromedp.ID("st-rref"), []string{files[1]}),
+		chromedp.SetUploadFiles(chromedp.ID("st-ldef"), []string{files[2]}),
+		chromedp.SetUploadFiles(chromedp.ID("st-rdef"), []string{files[3]}))
+	b.run("measure", chromedp.Click(chromedp.ID("st-run")))
+	b.wait(`document.getElementById("st-status").textContent === "done"`, "the stereo measurement did not finish")
+	if mw := b.number(`mottleStereo.meanW`); math.Abs(mw-1) > 0.01 {
+		b.t.Errorf("the page reads a mean w of %.4f mm; the scene moved 1 mm", mw)
+	}
+	for _, c := range []string{"st-shape", "st-w", "st-3d"} {
+		if n := b.number(fmt.Sprintf(`distinctColours(document.getElementById(%q))`, c)); n < 3 {
+			b.t.Errorf("%s has %v colours, want a drawn plot", c, n)
+		}
+	}
+	if q := b.number(`mottleStereo.quads`); q < 50 {
+		b.t.Errorf("the 3D view drew %v quads, want the surface", q)
+	}
+	b.shot("stereo.png", "#stereo")
+	before := b.str(`document.getElementById("st-3d").toDataURL()`)
+	b.run("turn the 3D view", setValue("#st-yaw", "60"))
+	if after := b.str(`document.getElementById("st-3d").toDataURL()`); after == before {
+		b.t.Error("the 3D view did not change when the turn slider moved")
+	}
+	r := b.str(`(() => { const v = mottleStereo.view; const s = [v.yaw, v.pitch]; v.yaw = 90; v.pitch = 0; const [cx, cy, cz] = v.centre; const p = v.rotate(cx + 1, cy, cz); v.yaw = s[0]; v.pitch = s[1]; return p.map(x => x.toFixed(9)).join(","); })()`)
+	if r != "0.000000000,0.000000000,-1.000000000" {
+		b.t.Errorf("a quarter turn takes the specimen's x axis to %s in view coordinates, want 0,0,-1 (away from the viewer)", r)
+	}
+	b.run("choose a rig calibrated on 640×480 images", chromedp.SetUploadFiles(chromedp.ID("st-rig"), []string{other}))
+	b.run("measure again", chromedp.Click(chromedp.ID("st-run")))
+	b.wait(`document.getElementById("st-status").textContent === "failed"`, "a rig for other images was not refused")
+	if msg := b.text("#st-error"); !strings.Contains(msg, "640×480") {
+		b.t.Errorf("error box %q does not say the rig was calibrated on 640×480 images", msg)
+	}
+}
