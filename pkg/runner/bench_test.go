@@ -1,0 +1,163 @@
+package runner
+
+import (
+	"bytes"
+	"context"
+	"encoding/json"
+	"fmt"
+	"io"
+	"log/slog"
+	"testing"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/service/embedded"
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+// delayed is a FrameSolver whose compute is stood in by sleeps: a frame
+// solved ahead takes solve, its addition to the state from the solution
+// add, and a frame computed in its turn without a solution solve+add.
+// Many such workers share this machine's cores without loading them, so
+// the benchmark shows what the runner's hand-over costs (queue, store,
+// the frame gate's polling) do to the throughput of one series as the
+// workers grow, as a larger cluster would see it.
+type delayed struct {
+	solve, add time.Duration
+}
+
+func (d delayed) Run(ctx context.Context, in Input, progress func(done, total int)) (*Result, error) {
+	return nil, fmt.Errorf("delayed: not an analysis")
+}
+
+func (d delayed) Map(ctx context.Context, open func(name string) (io.ReadCloser, error), req MapRequest, bg *imageio.Gray) ([]byte, error) {
+	return nil, fmt.Errorf("delayed: no maps")
+}
+
+func sleep(ctx context.Context, d time.Duration) error {
+	select {
+	case <-ctx.Done():
+		return ctx.Err()
+	case <-time.After(d):
+		return nil
+	}
+}
+
+func (d delayed) Frame(ctx context.Context, in FrameInput) (*Result, error) {
+	w := d.add
+	if in.Solved == nil {
+		w += d.solve
+	}
+	if err := sleep(ctx, w); err != nil {
+		return nil, err
+	}
+	n := 0
+	if in.State != nil {
+		_ = json.Unmarshal(in.State, &n)
+	}
+	st, _ := json.Marshal(n + 1)
+	return &Result{Files: map[string][]byte{"field.json": []byte("{}")}, Summary: jobs.Summary{Points: 1, Valid: 1}, State: st}, nil
+}
+
+func (d delayed) SolvesAhead(json.RawMessage) (bool, error) { return true, nil }
+
+func (d delayed) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
+	if err := sleep(ctx, d.solve); err != nil {
+		return nil, err
+	}
+	return []byte("{}"), nil
+}
+
+// runSimulated runs one series of n frames through a runner of w workers
+// on the embedded backend with at most inFlight frames in flight and
+// returns the frames per second.
+func runSimulated(b *testing.B, an FrameSolver, n, w, inFlight int) float64 {
+	be, err := embedded.Open(b.TempDir(), 4*n)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer be.Close()
+	ctx := context.Background()
+	img := imageio.NewGray(16, 16)
+	for i := range img.Pix {
+		img.Pix[i] = float32(i * 37 % 251)
+	}
+	var pb bytesBuffer
+	if err := imageio.WritePNG(&pb, img, 8); err != nil {
+		b.Fatal(err)
+	}
+	now := time.Now().UTC()
+	sr := &jobs.Series{ID: jobs.NewID(), Params: []byte(`{}`), Width: 16, Height: 16, Created: now, Updated: now, MaxInFlight: inFlight}
+	if err := be.Blobs.Put(ctx, jobs.SeriesKey(sr.ID, "reference"), pb.reader()); err != nil {
+		b.Fatal(err)
+	}
+	for k := 0; k < n; k++ {
+		id := jobs.NewID()
+		sr.Frames = append(sr.Frames, id)
+		if err := be.Blobs.Put(ctx, jobs.InputKey(id, "deformed"), pb.reader()); err != nil {
+			b.Fatal(err)
+		}
+	}
+	if err := be.Store.CreateSeries(ctx, sr); err != nil {
+		b.Fatal(err)
+	}
+	for k, id := range sr.Frames {
+		j := &jobs.Job{ID: id, Kind: jobs.Frame, State: jobs.Queued, Params: sr.Params, Width: 16, Height: 16, Series: sr.ID, FrameIndex: k, Created: now}
+		if err := be.Store.CreateJob(ctx, j); err != nil {
+			b.Fatal(err)
+		}
+		if err := be.Queue.Enqueue(ctx, id); err != nil {
+			b.Fatal(err)
+		}
+	}
+	rn, err := New(Config{Backend: be, Analyzer: an, Workers: w, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
+	if err != nil {
+		b.Fatal(err)
+	}
+	start := time.Now()
+	stop, err := rn.Start(ctx)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer stop()
+	last := sr.Frames[n-1]
+	for deadline := start.Add(10 * time.Minute); time.Now().Before(deadline); time.Sleep(2 * time.Millisecond) {
+		if j, err := be.Store.Job(ctx, last); err == nil && j.State.Terminal() {
+			if j.State != jobs.Succeeded {
+				b.Fatalf("last frame %s: %+v", j.State, j.Error)
+			}
+			return float64(n) / time.Since(start).Seconds()
+		}
+	}
+	b.Fatal("the series did not finish within 10 minutes")
+	return 0
+}
+
+// BenchmarkSimulatedCluster shows how the throughput of one series grows
+// with the workers when compute is stood in by a delay (solve 200 ms, add
+// to the state 10 ms per frame: a 512×512 frame's proportions, measured
+// by BenchmarkClusterSeries), up to 16 workers with as many frames in
+// flight, against the one-at-a-time rule (frames in flight 1) and one
+// worker in the same run. Run with
+//
+//	go test -run '^$' -bench SimulatedCluster -benchtime 1x ./pkg/runner
+func BenchmarkSimulatedCluster(b *testing.B) {
+	const n = 64
+	an := delayed{solve: 200 * time.Millisecond, add: 10 * time.Millisecond}
+	for i := 0; i < b.N; i++ {
+		base := runSimulated(b, an, n, 1, 1)
+		b.ReportMetric(base, "frames/s(w=1)")
+		seq := runSimulated(b, an, n, 4, 1)
+		b.ReportMetric(seq/base, "x(w=4,one-at-a-time)")
+		for _, w := range []int{2, 4, 8, 16} {
+			r := runSimulated(b, an, n, w, w)
+			b.ReportMetric(r/base, fmt.Sprintf("x(w=%d)", w))
+		}
+	}
+}
+
+// bytesBuffer holds a PNG and hands out readers of it.
+type bytesBuffer struct{ b []byte }
+
+func (p *bytesBuffer) Write(b []byte) (int, error) { p.b = append(p.b, b...); return len(b), nil }
+func (p *bytesBuffer) reader() io.Reader           { return bytes.NewReader(p.b) }
