@@ -11,6 +11,7 @@ import (
 	"time"
 
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/spline"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
@@ -67,9 +68,18 @@ func BenchmarkRun1024Second(b *testing.B) { benchRun(b, Second, tuning{}) }
 // to be measured in the same run.
 func BenchmarkRun1024Direct(b *testing.B) { benchRun(b, First, tuning{direct: true}) }
 
+// BenchmarkRun1024Series is BenchmarkRun1024 with the series defaults of
+// pkg/series: quintic B-splines and a Gaussian prefilter of σ = 0.8 px.
+func BenchmarkRun1024Series(b *testing.B) {
+	benchRunOpt(b, Options{Subset: 31, Step: 8, Interp: spline.Quintic, Prefilter: 0.8}, tuning{})
+}
+
 func benchRun(b *testing.B, shape Shape, tun tuning) {
+	benchRunOpt(b, Options{Subset: 31, Step: 8, Shape: shape}, tun)
+}
+
+func benchRunOpt(b *testing.B, opt Options, tun tuning) {
 	ref, def := benchImages(b)
-	opt := Options{Subset: 31, Step: 8, Shape: shape}
 	runtime.GC()
 	var ms runtime.MemStats
 	runtime.ReadMemStats(&ms)

@@ -92,9 +92,10 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 	}
 	if opt.Prefilter > 0 {
 		s.kern = spline.GaussianKernel(opt.Prefilter)
-		ext := side + len(s.kern) - 1
-		s.wpad = make([]float64, ext*ext)
-		s.wtmp = make([]float64, ext*ext)
+		r := len(s.kern) / 2
+		ext, wide := side+2*r, side+4*r
+		s.wpad = make([]float64, 2*side*wide)
+		s.wtmp = make([]float64, 2*wide*ext)
 	}
 	s.f = make([]float64, s.n)
 	s.fx = make([]float64, s.n)
@@ -187,77 +188,82 @@ func (s *solver) prepare(xc, yc float64) Status {
 	if !cholesky(&h, np, &s.chol) {
 		return LowContrast
 	}
-	var e [12]float64
-	e[U] = 1
-	cholSolve(&s.chol, np, &e)
-	s.hUU = e[U]
+	var eu, ev [12]float64
+	eu[U], ev[V] = 1, 1
+	cholSolve(&s.chol, np, &eu)
+	cholSolve(&s.chol, np, &ev)
+	s.hUU, s.hVV = eu[U], ev[V]
 	if s.kern != nil {
-		s.hUU = s.smoothedVar(&e)
-	}
-	e = [12]float64{}
-	e[V] = 1
-	cholSolve(&s.chol, np, &e)
-	s.hVV = e[V]
-	if s.kern != nil {
-		s.hVV = s.smoothedVar(&e)
+		s.hUU, s.hVV = s.smoothedVars(&eu, &ev)
 	}
 	return OK
 }
 
-// smoothedVar returns Var(hᵀΔp)/(2σ²) when both images were smoothed by
-// the separable kernel s.kern before correlation, σ being the noise of the
+// smoothedVars returns Var(hᵀΔp)/(2σ²) for the two combinations cu and cv
+// (the rows of H⁻¹ for u and v) when both images were smoothed by the
+// separable kernel s.kern before correlation, σ being the noise of the
 // unsmoothed images. The linearised IC-GN update is Δp = H⁻¹ Jᵀ G(n₁ − n₂)
 // with G the smoothing, so the variance of the combination c = H⁻¹h-weighted
 // steepest-descent image w = J·c is 2σ²‖Gw‖² (G symmetric). Without
 // smoothing this reduces to hᵀH⁻¹h, the usual (H⁻¹)_uu.
-func (s *solver) smoothedVar(c *[12]float64) float64 {
+//
+// Gw is computed over the subset grown by the kernel radius r on every
+// side: a horizontal pass over the subset's rows, then a vertical pass.
+// The scratch planes carry r zero samples beyond each end, so no index is
+// tested in the loops; each output sample is the sum over the kernel in
+// order, as it would be with the out-of-range terms left out.
+func (s *solver) smoothedVars(cu, cv *[12]float64) (vu, vv float64) {
 	m := s.m
 	side := 2*m + 1
-	r := len(s.kern) / 2
+	kern := s.kern
+	r := len(kern) / 2
 	ext := side + 2*r
-	w := s.wpad[:ext*ext]
-	for k := range w {
-		w[k] = 0
-	}
+	wide := ext + 2*r
+	// wu, wv: side rows of width wide, w at column 2r + i (i = 0 … side−1).
+	wu, wv := s.wpad[:side*wide], s.wpad[side*wide:2*side*wide]
 	var jv [12]float64
 	k := 0
-	for j := -m; j <= m; j++ {
-		for i := -m; i <= m; i++ {
-			s.jacobian(s.fx[k], s.fy[k], float64(i), float64(j), &jv)
-			var v float64
-			for a := 0; a < s.np; a++ {
-				v += jv[a] * c[a]
+	for j := 0; j < side; j++ {
+		ru, rv := wu[j*wide+2*r:j*wide+2*r+side], wv[j*wide+2*r:j*wide+2*r+side]
+		for i := range ru {
+			s.jacobian(s.fx[k], s.fy[k], float64(i-m), float64(j-m), &jv)
+			var a, b float64
+			for q := 0; q < s.np; q++ {
+				a += jv[q] * cu[q]
+				b += jv[q] * cv[q]
 			}
-			w[(j+m+r)*ext+i+m+r] = v
+			ru[i], rv[i] = a, b
 			k++
 		}
 	}
-	// Horizontal then vertical convolution over the extended square.
-	t := s.wtmp[:ext*ext]
-	for y := 0; y < ext; y++ {
-		for x := 0; x < ext; x++ {
-			var v float64
-			for q, kv := range s.kern {
-				if xx := x + q - r; xx >= 0 && xx < ext {
-					v += kv * w[y*ext+xx]
-				}
+	// tu, tv: ext + 2r rows of width ext; the horizontal pass of subset
+	// row j goes to row 2r + j, the others stay zero.
+	tu, tv := s.wtmp[:wide*ext], s.wtmp[wide*ext:2*wide*ext]
+	for j := 0; j < side; j++ {
+		su, sv := wu[j*wide:(j+1)*wide], wv[j*wide:(j+1)*wide]
+		du, dv := tu[(2*r+j)*ext:(2*r+j+1)*ext], tv[(2*r+j)*ext:(2*r+j+1)*ext]
+		for x := range du {
+			xu, xv := su[x:x+len(kern)], sv[x:x+len(kern)]
+			var a, b float64
+			for q, kq := range kern {
+				a += kq * xu[q]
+				b += kq * xv[q]
 			}
-			t[y*ext+x] = v
+			du[x], dv[x] = a, b
 		}
 	}
-	var sum float64
 	for y := 0; y < ext; y++ {
 		for x := 0; x < ext; x++ {
-			var v float64
-			for q, kv := range s.kern {
-				if yy := y + q - r; yy >= 0 && yy < ext {
-					v += kv * t[yy*ext+x]
-				}
+			var a, b float64
+			for q, kq := range kern {
+				a += kq * tu[(y+q)*ext+x]
+				b += kq * tv[(y+q)*ext+x]
 			}
-			sum += v * v
+			vu += a * a
+			vv += b * b
 		}
 	}
-	return sum
+	return vu, vv
 }
 
 // hessian1 accumulates the upper triangle of H = Σ JᵀJ, Σ J f̃ and Σ J for

@@ -151,3 +151,80 @@ func TestStoppingRuleWithinTol(t *testing.T) {
 		}
 	}
 }
+
+// smoothedVarPlain is the direct form of the predicted variance with a
+// prefilter (2σ²‖Gw‖², G the separable smoothing, w the steepest-descent
+// image weighted by c), with every index tested: the reference for
+// smoothedVars.
+func smoothedVarPlain(s *solver, c *[12]float64) float64 {
+	m := s.m
+	side := 2*m + 1
+	r := len(s.kern) / 2
+	ext := side + 2*r
+	w := make([]float64, ext*ext)
+	var jv [12]float64
+	k := 0
+	for j := -m; j <= m; j++ {
+		for i := -m; i <= m; i++ {
+			s.jacobian(s.fx[k], s.fy[k], float64(i), float64(j), &jv)
+			var v float64
+			for a := 0; a < s.np; a++ {
+				v += jv[a] * c[a]
+			}
+			w[(j+m+r)*ext+i+m+r] = v
+			k++
+		}
+	}
+	t := make([]float64, ext*ext)
+	for y := 0; y < ext; y++ {
+		for x := 0; x < ext; x++ {
+			var v float64
+			for q, kv := range s.kern {
+				if xx := x + q - r; xx >= 0 && xx < ext {
+					v += kv * w[y*ext+xx]
+				}
+			}
+			t[y*ext+x] = v
+		}
+	}
+	var sum float64
+	for y := 0; y < ext; y++ {
+		for x := 0; x < ext; x++ {
+			var v float64
+			for q, kv := range s.kern {
+				if yy := y + q - r; yy >= 0 && yy < ext {
+					v += kv * t[yy*ext+x]
+				}
+			}
+			sum += v * v
+		}
+	}
+	return sum
+}
+
+// The predicted variances with a prefilter, computed for u and v together
+// over zero-padded planes, are bitwise those of the direct form.
+func TestSmoothedVarsMatchPlain(t *testing.T) {
+	id := func(x, y float64) (float64, float64) { return x, y }
+	img := gaussImage(80, 80, 1, id)
+	for _, c := range []struct {
+		shape Shape
+		sigma float64
+		sub   int
+	}{{First, 0.8, 21}, {Second, 0.8, 31}, {First, 1.7, 15}} {
+		s := newTestSolver(t, img, img, Options{Subset: c.sub, Shape: c.shape, Prefilter: c.sigma})
+		for _, p := range [][2]float64{{40, 40}, {33, 45}, {47, 36}} {
+			if s.prepare(p[0], p[1]) != OK {
+				t.Fatal("prepare failed")
+			}
+			var eu, ev [12]float64
+			eu[U], ev[V] = 1, 1
+			cholSolve(&s.chol, s.np, &eu)
+			cholSolve(&s.chol, s.np, &ev)
+			wu, wv := smoothedVarPlain(s, &eu), smoothedVarPlain(s, &ev)
+			if s.hUU != wu || s.hVV != wv {
+				t.Fatalf("shape %d σ %v at %v: (%v, %v), direct form (%v, %v)", c.shape, c.sigma, p, s.hUU, s.hVV, wu, wv)
+			}
+		}
+	}
+}
