@@ -319,10 +319,11 @@ func (s *Server) answerJob(w http.ResponseWriter, r *http.Request, j *jobs.Job, 
 	v := viewJob(done)
 	switch done.State {
 	case jobs.Succeeded:
-		if b, err := s.readBlob(r.Context(), jobs.ResultKey(done.ID, "field.json")); err == nil && json.Valid(b) {
-			v.Field = b
+		b, err := s.readBlob(r.Context(), jobs.ResultKey(done.ID, "field.json"))
+		if err != nil || !json.Valid(b) {
+			b = nil
 		}
-		writeJSON(w, http.StatusOK, v)
+		writeJobField(w, http.StatusOK, v, b)
 	case jobs.Failed:
 		p := problem(http.StatusUnprocessableEntity, "analysis-failed", done.Error.Title, done.Error.Detail)
 		if done.Error.Field != "" {

@@ -2,6 +2,7 @@ package service_test
 
 import (
 	"bytes"
+	"encoding/json"
 	"image/png"
 	"math"
 	"strings"
@@ -71,6 +72,16 @@ func TestPipeline(t *testing.T) {
 		resp, b := ts.do(t, "GET", base+f.path, "", nil)
 		if resp.StatusCode != 200 || !strings.HasPrefix(string(b), f.magic) || len(b) < 10 {
 			t.Errorf("GET %s: %d %.40q", f.path, resp.StatusCode, b)
+		}
+		if f.path == "/field.json" {
+			// The answer carries field.json as it is stored.
+			var got, want bytes.Buffer
+			if err := json.Compact(&got, j.Field); err != nil {
+				t.Errorf("the answer's field: %v", err)
+			}
+			if err := json.Compact(&want, b); err != nil || got.String() != want.String() {
+				t.Errorf("the answer's field (%d bytes compact) is not field.json (%d bytes): %v", got.Len(), want.Len(), err)
+			}
 		}
 	}
 	for _, on := range []string{"reference", "deformed"} {

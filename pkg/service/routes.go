@@ -1,6 +1,7 @@
 package service
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"net/http"
@@ -131,6 +132,27 @@ func (s *Server) openapi(w http.ResponseWriter, r *http.Request) {
 	w.Header().Set("Content-Type", "application/json")
 	w.Header().Set("Cache-Control", "no-cache")
 	_, _ = w.Write(api.OpenAPI())
+}
+
+// writeJobField writes the job view v (its Field empty) with field, the
+// stored field.json, as its "field" member, copied as it is: re-indenting
+// the field (hundreds of kB for a few thousand points) through
+// encoding/json took longer than the rest of the answer. field must be
+// valid JSON, or nil for none.
+func writeJobField(w http.ResponseWriter, status int, v *jobView, field []byte) {
+	v.Field = nil
+	b, err := json.MarshalIndent(v, "", "  ")
+	if err != nil || len(field) == 0 {
+		writeJSON(w, status, v)
+		return
+	}
+	b = bytes.TrimRight(b, " \n")
+	b = append(b[:len(b)-1], ",\n  \"field\": "...) // drop the closing brace
+	w.Header().Set("Content-Type", "application/json")
+	w.WriteHeader(status)
+	w.Write(b)
+	w.Write(bytes.TrimSpace(field))
+	w.Write([]byte("\n}\n"))
 }
 
 func writeJSON(w http.ResponseWriter, status int, v any) {
