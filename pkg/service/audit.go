@@ -41,6 +41,7 @@ func (s *Server) record(ctx context.Context, e jobs.AuditEntry) {
 	actx, cancel := context.WithTimeout(context.WithoutCancel(ctx), auditTimeout)
 	defer cancel()
 	if err := s.audit.Append(actx, &e); err != nil {
+		s.metrics.auditFailed()
 		s.log.Error("audit entry not stored", "error", err.Error(), "action", e.Action, "principal", e.Principal,
 			"project", e.Project, "resource", e.Resource, "id", e.ID, "series", e.Series, "request_id", e.RequestID, "detail", e.Detail)
 	}
@@ -137,6 +138,7 @@ func (s *Server) auditTokens(ctx context.Context) {
 		e.Principal, e.Resource = tokenFilePrincipal, jobs.AuditToken
 		e.Dedupe = fmt.Sprintf("token %d %s %s %s", last, e.Action, e.ID, e.Detail)
 		if err := s.audit.Append(actx, &e); err != nil {
+			s.metrics.auditFailed()
 			s.log.Error("audit trail: token change not recorded (tried again at the next request)", "error", err.Error(), "action", e.Action, "id", e.ID)
 			return
 		}

@@ -3,13 +3,17 @@ package service_test
 import (
 	"bufio"
 	"bytes"
+	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
+	"log/slog"
 	"slices"
 	"strings"
 	"testing"
 	"time"
 
+	"github.com/mottledic/mottle/pkg/service"
 	"github.com/mottledic/mottle/pkg/service/access"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
@@ -222,5 +226,50 @@ func (l *lab) checkAudit(t *testing.T) {
 	}
 	if st, b := l.call(t, "rig", "GET", "/v1/audit", nil, "", nil); st != 403 {
 		t.Errorf("rig (submit) reads the audit trail: %d %s, want 403", st, b)
+	}
+}
+
+// brokenAudit is an audit trail whose store is down.
+type brokenAudit struct{}
+
+func (brokenAudit) Append(context.Context, *jobs.AuditEntry) error {
+	return errors.New("audit store unavailable")
+}
+
+func (brokenAudit) AuditEntries(context.Context, jobs.AuditFilter) ([]*jobs.AuditEntry, error) {
+	return nil, errors.New("audit store unavailable")
+}
+
+// TestAuditStoreDown: when an entry cannot be stored the change still
+// happens, the whole entry goes to the log at level ERROR, and
+// /metrics counts it; reading the trail answers an error document.
+func TestAuditStoreDown(t *testing.T) {
+	log := &syncBuffer{}
+	ts := newServer(t, func(c *service.Config) {
+		c.Backend.Audit = brokenAudit{}
+		c.Logger = slog.New(slog.NewJSONHandler(log, nil))
+	})
+	ref, def := pair(t, 32, 32, 1, 0, 21)
+	ct, body := multipartBody(t, analysisParts(ref, def, `{"subset": 15}`)...)
+	resp, b := ts.do(t, "POST", "/v1/analyses", ct, body)
+	if resp.StatusCode != 202 {
+		t.Fatalf("create with the audit store down: %d %s", resp.StatusCode, b)
+	}
+	id := decodeJSON[jobDoc](t, b).ID
+	var line map[string]any
+	for _, l := range strings.Split(log.String(), "\n") {
+		if strings.Contains(l, "audit entry not stored") {
+			json.Unmarshal([]byte(l), &line)
+		}
+	}
+	if line["level"] != "ERROR" || line["id"] != id || line["action"] != "create" || line["principal"] != "local" || line["request_id"] == "" {
+		t.Errorf("log line of the lost entry: %v", line)
+	}
+	_, b = ts.do(t, "GET", "/metrics", "", nil)
+	if !strings.Contains(string(b), "mottle_audit_failures_total 1\n") {
+		t.Errorf("metrics do not count the lost entry")
+	}
+	if resp, b := ts.do(t, "GET", "/v1/audit", "", nil); resp.StatusCode < 500 || !strings.Contains(string(b), `"type"`) {
+		t.Errorf("reading the trail with its store down: %d %s", resp.StatusCode, b)
 	}
 }

@@ -31,6 +31,8 @@ type metrics struct {
 	latency  map[routeKey]*histogram
 	requests map[int]uint64 // by status code
 	rejected uint64
+	// auditFailures counts audit entries that could not be stored.
+	auditFailures uint64
 }
 
 func newMetrics() *metrics {
@@ -55,6 +57,12 @@ func (m *metrics) observeRequest(method, route string, status int, d time.Durati
 	h.count++
 	h.sum += sec
 	m.requests[status]++
+}
+
+func (m *metrics) auditFailed() {
+	m.mu.Lock()
+	m.auditFailures++
+	m.mu.Unlock()
 }
 
 func (m *metrics) reject() {
@@ -87,6 +95,7 @@ func (s *Server) writeMetrics(ctx context.Context, w io.Writer) error {
 		p("mottle_jobs_finished_total{state=%q} %d\n", st, js.Finished[st])
 	}
 	p("# HELP mottle_jobs_rejected_total Submissions answered 429 because the queue was full.\n# TYPE mottle_jobs_rejected_total counter\nmottle_jobs_rejected_total %d\n", m.rejected)
+	p("# HELP mottle_audit_failures_total Audit entries of changes that happened but could not be stored (each logged in full at level ERROR).\n# TYPE mottle_audit_failures_total counter\nmottle_audit_failures_total %d\n", m.auditFailures)
 	p("# HELP mottle_jobs_recovered_total Jobs put back in the queue at start from an earlier run.\n# TYPE mottle_jobs_recovered_total counter\nmottle_jobs_recovered_total %d\n", js.Recovered)
 	p("# HELP mottle_frames_solved_ahead_total Series frames correlated before their predecessor finished.\n# TYPE mottle_frames_solved_ahead_total counter\nmottle_frames_solved_ahead_total %d\n", js.SolvedAhead)
 	p("# HELP mottle_series_max_frames_in_flight Bound on the frames of one new series computed at once.\n# TYPE mottle_series_max_frames_in_flight gauge\nmottle_series_max_frames_in_flight %d\n", s.cfg.MaxFramesInFlight)
