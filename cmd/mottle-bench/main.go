@@ -12,7 +12,7 @@
 //
 // Usage:
 //
-//	mottle-bench [-out DIR] [-quick]
+//	mottle-bench [-out DIR] [-quick] [-stereo]
 //
 // It needs Debian's /usr/bin/python3 with python3-opencv, python3-skimage,
 // python3-scipy and python3-numpy, and must run inside the source tree
@@ -52,8 +52,23 @@ func run(ctx context.Context, args []string, stdout io.Writer) error {
 	quick := fs.Bool("quick", false, "one small pair only (for a smoke test)")
 	worker := fs.String("worker", "", "internal: run Mottle on this request file and print the response")
 	threads := fs.Int("threads", 0, "internal, with -worker: correlation threads (0 = all cores)")
+	stereoOnly := fs.Bool("stereo", false, "only the stereo speed section (written to stereo.md with -out)")
 	if err := fs.Parse(args); err != nil {
 		return err
+	}
+	if *stereoOnly {
+		var b strings.Builder
+		w := io.MultiWriter(stdout, &b)
+		fmt.Fprintf(w, "Measured %s on %s.\n", time.Now().UTC().Format("2006-01-02 15:04 UTC"), machine())
+		if err := stereoSpeed(ctx, w, *quick); err != nil {
+			return err
+		}
+		if *out != "" {
+			if err := os.MkdirAll(*out, 0o755); err != nil {
+				return err
+			}
+		}
+		return save(*out, "stereo.md", b.String())
 	}
 	if *worker != "" {
 		return runWorker(ctx, *worker, *threads, stdout)
