@@ -71,6 +71,15 @@ type engine struct {
 // two iterations per point (zero motion converges at once), which also
 // checks that the reference can be correlated at all.
 func newCorrelator(ref *imageio.Gray, p Params, mask *packedMask) (correlator, error) {
+	return newCorrelatorOn(ref, p, mask, nil)
+}
+
+// newCorrelatorOn is newCorrelator on a grid already known (from a saved
+// state or a frame's solution), or laid out by the reference's correlation
+// with itself when lat is nil. With a known grid the reference is not
+// correlated: every direct correlation checks that it lays out the same
+// grid.
+func newCorrelatorOn(ref *imageio.Gray, p Params, mask *packedMask, lat *lattice) (correlator, error) {
 	var mi *imageio.Gray
 	if mask != nil {
 		var err error
@@ -82,6 +91,17 @@ func newCorrelator(ref *imageio.Gray, p Params, mask *packedMask) (correlator, e
 	if err != nil {
 		return nil, fmt.Errorf("series: %w", err)
 	}
+	inc := opt
+	inc.Mask, inc.Seeds = nil, nil
+	if lat != nil {
+		g := correlate.Grid{X0: int(lat.X0), Y0: int(lat.Y0), Step: int(lat.Step), Nx: lat.Nx, Ny: lat.Ny}
+		m := opt.Subset / 2
+		if g.Nx < 1 || g.Ny < 1 || g.X0 < m || g.Y0 < m || g.X0+(g.Nx-1)*g.Step+m >= ref.W || g.Y0+(g.Ny-1)*g.Step+m >= ref.H ||
+			float64(g.X0) != lat.X0 || float64(g.Y0) != lat.Y0 || float64(g.Step) != lat.Step {
+			return nil, fmt.Errorf("series: the saved grid %+v does not fit the %d×%d px reference with subset %d; is it the same reference image?", *lat, ref.W, ref.H, opt.Subset)
+		}
+		return &engine{ref: ref, opt: opt, inc: inc, cg: g, lat: *lat}, nil
+	}
 	self := opt
 	self.MaxIter, self.Progress, self.Start = 2, nil, nil
 	res, err := correlate.Run(context.Background(), ref, ref, self)
@@ -89,8 +109,6 @@ func newCorrelator(ref *imageio.Gray, p Params, mask *packedMask) (correlator, e
 		return nil, fmt.Errorf("series: reference image: %w", err)
 	}
 	g := res.Grid
-	inc := opt
-	inc.Mask, inc.Seeds = nil, nil
 	return &engine{ref: ref, opt: opt, inc: inc, cg: g,
 		lat: lattice{X0: float64(g.X0), Y0: float64(g.Y0), Step: float64(g.Step), Nx: g.Nx, Ny: g.Ny}}, nil
 }

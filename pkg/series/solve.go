@@ -44,7 +44,11 @@ func Solve(ctx context.Context, ref, img *imageio.Gray, p Params, opt Options, g
 			return nil, fmt.Errorf("solve frame: %w", err)
 		}
 	}
-	c, err := newCorrelator(ref, p, pm)
+	var lat *lattice
+	if guess != nil {
+		lat = &guess.Grid
+	}
+	c, err := newCorrelatorOn(ref, p, pm, lat)
 	if err != nil {
 		return nil, err
 	}

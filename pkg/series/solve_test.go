@@ -139,3 +139,39 @@ func TestSolveAhead(t *testing.T) {
 		t.Errorf("other guesses: the curve differs from the sequential run's by %.2g px, %.2g strain; bound %g, %g", worstU, worstE, solveTolU, solveTolE)
 	}
 }
+
+// TestRestoreGridCheck checks that Restore, which takes the grid from the
+// state instead of correlating the reference with itself, refuses a
+// reference the saved grid does not fit, and that a restored tracker adds
+// a frame exactly as the tracker it was saved from.
+func TestRestoreGridCheck(t *testing.T) {
+	ref, imgs, p := solveSeries(t)
+	ctx := context.Background()
+	tr, err := New(ref, FrameMeta{Name: "ref"}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := tr.Add(ctx, imgs[0], FrameMeta{}); err != nil {
+		t.Fatal(err)
+	}
+	st := tr.State()
+	small := imageio.NewGray(64, 64)
+	if _, err := Restore(small, small, st); err == nil {
+		t.Errorf("restored a 128×96 px series' state on a 64×64 px reference")
+	}
+	rt, err := Restore(ref, imgs[0], st)
+	if err != nil {
+		t.Fatal(err)
+	}
+	a, err := tr.Add(ctx, imgs[1], FrameMeta{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	b, err := rt.Add(ctx, imgs[1], FrameMeta{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !reflect.DeepEqual(a.Summary, b.Summary) {
+		t.Errorf("restored tracker: %+v\nsaved tracker: %+v", b.Summary, a.Summary)
+	}
+}

@@ -238,7 +238,7 @@ func Restore(ref, last *imageio.Gray, s State) (*Tracker, error) {
 	if ref == nil || ref.W < 1 || ref.H < 1 {
 		return nil, errors.New("restore series: reference image is empty")
 	}
-	c, err := newCorrelator(ref, s.Params, s.Mask)
+	c, err := newCorrelatorOn(ref, s.Params, s.Mask, &s.Grid)
 	if err != nil {
 		return nil, fmt.Errorf("restore series: %w", err)
 	}
