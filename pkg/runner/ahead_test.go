@@ -124,6 +124,45 @@ func TestFramesInFlight(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
+	sr, ids := submitSeries(t, be, ref, imgs, p, limit)
+	stop, err := rn.Start(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer stop()
+
+	deadline := time.Now().Add(2 * time.Minute)
+	for rn.Stats().SolvedAhead < 2 && time.Now().Before(deadline) {
+		time.Sleep(10 * time.Millisecond)
+	}
+	if n := rn.Stats().SolvedAhead; n < 2 {
+		t.Errorf("%d frames solved ahead while frame 0 was held, want at least 2", n)
+	}
+	close(release)
+	var last *jobs.Job
+	for time.Now().Before(deadline) {
+		if last, err = be.Store.Job(ctx, ids[nFrames-1]); err == nil && last.State.Terminal() {
+			break
+		}
+		time.Sleep(20 * time.Millisecond)
+	}
+	an.mu.Lock()
+	mx := an.max
+	an.mu.Unlock()
+	if mx > limit {
+		t.Errorf("%d frames of the series computed at once, bound %d", mx, limit)
+	}
+	checkSeries(t, seriesState(t, rn, sr.ID, nFrames), ref, imgs, p, be, ids)
+	if _, err := be.Blobs.Get(ctx, SolveKey(sr.ID, 1)); err == nil {
+		t.Errorf("the solution of frame 1 is kept after the frame was added")
+	}
+}
+
+// submitSeries stores a series of frames with the given bound on frames
+// in flight in the backend and queues its frames, as the service does.
+func submitSeries(t *testing.T, be *jobs.Backend, ref *imageio.Gray, imgs []*imageio.Gray, p series.Params, limit int) (*jobs.Series, []string) {
+	t.Helper()
+	ctx := context.Background()
 	params, err := p.FlatJSON()
 	if err != nil {
 		t.Fatal(err)
@@ -154,40 +193,78 @@ func TestFramesInFlight(t *testing.T) {
 			t.Fatal(err)
 		}
 	}
-	stop, err := rn.Start(ctx)
+	return sr, ids
+}
+
+// TestFramesInFlightRestart stops the runner (as a worker process is
+// stopped) while a series with frames solved ahead is being added, and
+// finishes it with a new runner on the reopened backend: every frame
+// succeeds, the state holds each frame once and in order, and the curve
+// is the sequential run's within the bound of TestFramesInFlight.
+func TestFramesInFlightRestart(t *testing.T) {
+	const nFrames, limit = 5, 3
+	ref, imgs, p := aheadSeries(t, nFrames)
+	dir := t.TempDir()
+	be, err := embedded.Open(dir, 64)
 	if err != nil {
 		t.Fatal(err)
 	}
-	defer stop()
+	ctx := context.Background()
+	sr, ids := submitSeries(t, be, ref, imgs, p, limit)
+	atTwo := make(chan struct{})
+	var once sync.Once
+	quiet := slog.New(slog.NewJSONHandler(io.Discard, nil))
+	r1, err := New(Config{Backend: be, Analyzer: Pipeline{}, Workers: 2, Logger: quiet, ShutdownGrace: 10 * time.Millisecond,
+		BeforeCompute: func(ctx context.Context, j jobs.Job) {
+			if j.FrameIndex == 2 {
+				once.Do(func() { close(atTwo) })
+				select { // held until the runner is stopped
+				case <-ctx.Done():
+				case <-time.After(time.Minute):
+				}
+			}
+		}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	stop1, err := r1.Start(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	select {
+	case <-atTwo:
+	case <-time.After(2 * time.Minute):
+		t.Fatal("frame 2 did not start within 2 minutes")
+	}
+	stop1()
+	be.Close()
 
+	if be, err = embedded.Open(dir, 64); err != nil {
+		t.Fatal(err)
+	}
+	defer be.Close()
+	r2, err := New(Config{Backend: be, Analyzer: Pipeline{}, Workers: 2, Logger: quiet})
+	if err != nil {
+		t.Fatal(err)
+	}
+	stop2, err := r2.Start(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer stop2()
 	deadline := time.Now().Add(2 * time.Minute)
-	for rn.Stats().SolvedAhead < 2 && time.Now().Before(deadline) {
-		time.Sleep(10 * time.Millisecond)
-	}
-	if n := rn.Stats().SolvedAhead; n < 2 {
-		t.Errorf("%d frames solved ahead while frame 0 was held, want at least 2", n)
-	}
-	close(release)
-	var last *jobs.Job
 	for time.Now().Before(deadline) {
-		if last, err = be.Store.Job(ctx, ids[nFrames-1]); err == nil && last.State.Terminal() {
+		if j, err := be.Store.Job(ctx, ids[nFrames-1]); err == nil && j.State.Terminal() {
 			break
 		}
 		time.Sleep(20 * time.Millisecond)
 	}
-	for k, id := range ids {
-		j, err := be.Store.Job(ctx, id)
-		if err != nil || j.State != jobs.Succeeded {
-			t.Fatalf("frame %d: %v %+v", k, err, j)
-		}
-	}
-	an.mu.Lock()
-	mx := an.max
-	an.mu.Unlock()
-	if mx > limit {
-		t.Errorf("%d frames of the series computed at once, bound %d", mx, limit)
-	}
-	b, err := rn.ReadBlob(ctx, StateKey(sr.ID, nFrames-1))
+	checkSeries(t, seriesState(t, r2, sr.ID, nFrames), ref, imgs, p, be, ids)
+}
+
+func seriesState(t *testing.T, rn *Runner, id string, n int) series.State {
+	t.Helper()
+	b, err := rn.ReadBlob(context.Background(), StateKey(id, n-1))
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -195,9 +272,24 @@ func TestFramesInFlight(t *testing.T) {
 	if err := json.Unmarshal(b, &st); err != nil {
 		t.Fatal(err)
 	}
+	return st
+}
+
+// checkSeries checks that every frame succeeded, that the state holds
+// each frame once and in order, and that its curve is the sequential
+// run's within 2e-3 px and 2e-5 strain.
+func checkSeries(t *testing.T, st series.State, ref *imageio.Gray, imgs []*imageio.Gray, p series.Params, be *jobs.Backend, ids []string) {
+	t.Helper()
+	ctx := context.Background()
+	for k, id := range ids {
+		j, err := be.Store.Job(ctx, id)
+		if err != nil || j.State != jobs.Succeeded {
+			t.Fatalf("frame %d: %v %+v", k, err, j)
+		}
+	}
 	got := series.CurveOf(st)
-	if len(got.Rows) != nFrames+1 {
-		t.Fatalf("state has %d curve rows, want %d (each frame once)", len(got.Rows), nFrames+1)
+	if len(got.Rows) != len(imgs)+1 {
+		t.Fatalf("state has %d curve rows, want %d (each frame once)", len(got.Rows), len(imgs)+1)
 	}
 	for i, r := range got.Rows {
 		if r.Index != i {
@@ -225,8 +317,5 @@ func TestFramesInFlight(t *testing.T) {
 				t.Errorf("frame %d %s: %g, sequential %g (bound %g)", i, q, got.Rows[i].Mean[q], want.Rows[i].Mean[q], bound)
 			}
 		}
-	}
-	if _, err := be.Blobs.Get(ctx, SolveKey(sr.ID, 1)); err == nil {
-		t.Errorf("the solution of frame 1 is kept after the frame was added")
 	}
 }
