@@ -85,7 +85,7 @@ func firstLine(s string) string {
 // files and empty patterns are refused before any frame is analysed.
 func TestFrameList(t *testing.T) {
 	dir := t.TempDir()
-	for _, n := range []string{"frame_002.png", "frame_010.png", "frame_001.png", "reference.png", "truth.json", "notes.txt"} {
+	for _, n := range []string{"frame_002.png", "frame_010.png", "frame_001.png", "reference.png", "frame_011.pgm", "truth.json", "notes.txt"} {
 		if err := os.WriteFile(filepath.Join(dir, n), []byte("x"), 0o644); err != nil {
 			t.Fatal(err)
 		}
@@ -98,7 +98,7 @@ func TestFrameList(t *testing.T) {
 	for _, g := range got {
 		names = append(names, filepath.Base(g))
 	}
-	if want := []string{"reference.png", "frame_001.png", "frame_002.png", "frame_010.png"}; !reflect.DeepEqual(names, want) {
+	if want := []string{"reference.png", "frame_001.png", "frame_002.png", "frame_010.png", "frame_011.pgm"}; !reflect.DeepEqual(names, want) {
 		t.Errorf("folder order %q, want %q", names, want)
 	}
 	for _, tc := range []struct {

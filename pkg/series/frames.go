@@ -39,7 +39,7 @@ func naturalLess(a, b string) bool {
 	return len(a) < len(b)
 }
 
-var imageExt = map[string]bool{".png": true, ".tif": true, ".tiff": true, ".jpg": true, ".jpeg": true, ".bmp": true}
+var imageExt = map[string]bool{".png": true, ".tif": true, ".tiff": true, ".jpg": true, ".jpeg": true, ".bmp": true, ".pgm": true}
 
 // ListFrames expands the arguments (a folder, globs or files) into image
 // paths in natural order. In a folder, an image named reference.* (as
@@ -60,7 +60,7 @@ func ListFrames(args []string) ([]string, error) {
 				}
 			}
 			if len(names) == 0 {
-				return nil, fmt.Errorf("folder %s holds no PNG, TIFF, JPEG or BMP image", a)
+				return nil, fmt.Errorf("folder %s holds no PNG, TIFF, JPEG, BMP or PGM image", a)
 			}
 			sort.Slice(names, func(i, j int) bool {
 				ri, rj := isReferenceName(names[i]), isReferenceName(names[j])
