@@ -17,9 +17,16 @@ import (
 )
 
 // limitsFromEnv sets the resource limits of a server subprocess from
-// MOTTLE_TEST_WORKERS, MOTTLE_TEST_MAXMEM (bytes; -1 = no budget) and
-// MOTTLE_TEST_MEMWAIT (a duration).
+// MOTTLE_TEST_WORKERS, MOTTLE_TEST_MAXMEM (bytes; -1 = no budget),
+// MOTTLE_TEST_MEMWAIT and MOTTLE_TEST_RETENTION (durations).
 func limitsFromEnv(cfg *service.Config) error {
+	if v := os.Getenv("MOTTLE_TEST_RETENTION"); v != "" {
+		d, err := time.ParseDuration(v)
+		if err != nil {
+			return fmt.Errorf("MOTTLE_TEST_RETENTION: %w", err)
+		}
+		cfg.Retention = d
+	}
 	if v := os.Getenv("MOTTLE_TEST_WORKERS"); v != "" {
 		n, err := strconv.Atoi(v)
 		if err != nil {
@@ -72,12 +79,18 @@ func valueNoise(w, h, dx, dy int, seed uint64) *image.Gray {
 // peakRSS returns the peak resident memory (VmHWM) of process pid, bytes.
 func peakRSS(t *testing.T, pid int) int64 {
 	t.Helper()
+	return procStatus(t, pid, "VmHWM")
+}
+
+// procStatus returns the field (in kB there) of /proc/pid/status, bytes.
+func procStatus(t *testing.T, pid int, field string) int64 {
+	t.Helper()
 	b, err := os.ReadFile(fmt.Sprintf("/proc/%d/status", pid))
 	if err != nil {
 		t.Fatal(err)
 	}
 	for _, line := range strings.Split(string(b), "\n") {
-		if v, ok := strings.CutPrefix(line, "VmHWM:"); ok {
+		if v, ok := strings.CutPrefix(line, field+":"); ok {
 			kb, err := strconv.ParseInt(strings.TrimSpace(strings.TrimSuffix(strings.TrimSpace(v), "kB")), 10, 64)
 			if err != nil {
 				t.Fatal(err)
@@ -85,7 +98,7 @@ func peakRSS(t *testing.T, pid int) int64 {
 			return kb << 10
 		}
 	}
-	t.Fatal("no VmHWM in /proc/pid/status")
+	t.Fatalf("no %s in /proc/%d/status", field, pid)
 	return 0
 }
 
