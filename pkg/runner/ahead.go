@@ -37,7 +37,9 @@ func SolveKey(seriesID string, n int) string {
 }
 
 // solveAhead solves job id ahead of its turn when the rules above allow
-// it, and reports whether it did.
+// it, and reports whether it did. waitPrevious tries it at each look at
+// the previous frame, so that a frame held beyond the bound is solved as
+// soon as the bound lets it, in its place in the queue.
 func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) bool {
 	fs, ok := s.cfg.Analyzer.(FrameSolver)
 	if !ok {

@@ -51,12 +51,17 @@ func (c *counting) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
 // aheadSeries renders a direct-mode series (a strip stretched and shifted
 // a little more in each frame) with the exact renderer of pkg/synth.
 func aheadSeries(t *testing.T, n int) (*imageio.Gray, []*imageio.Gray, series.Params) {
+	return aheadSeriesSize(t, n, 128)
+}
+
+// aheadSeriesSize is aheadSeries on W×(3W/4) px frames.
+func aheadSeriesSize(t testing.TB, n, W int) (*imageio.Gray, []*imageio.Gray, series.Params) {
 	t.Helper()
-	const W, H = 128, 96
+	H := 3 * W / 4
 	all := []synth.Motion{synth.Identity{}}
 	for k := 1; k <= n; k++ {
 		e := 0.004 * float64(k)
-		all = append(all, synth.Affine{F: [2][2]float64{{1 + e, 0}, {0, 1 - 0.3*e}}, CX: W / 2, CY: H / 2, U: 0.7 * float64(k), V: -0.2 * float64(k)})
+		all = append(all, synth.Affine{F: [2][2]float64{{1 + e, 0}, {0, 1 - 0.3*e}}, CX: float64(W) / 2, CY: float64(H) / 2, U: 0.7 * float64(k), V: -0.2 * float64(k)})
 	}
 	var fr []synth.Frame
 	for _, m := range all {
@@ -81,7 +86,7 @@ func aheadSeries(t *testing.T, n int) (*imageio.Gray, []*imageio.Gray, series.Pa
 	return imgs[0], imgs[1:], p
 }
 
-func png(t *testing.T, g *imageio.Gray) []byte {
+func png(t testing.TB, g *imageio.Gray) []byte {
 	t.Helper()
 	var b bytes.Buffer
 	if err := imageio.WritePNG(&b, g, 8); err != nil {
@@ -160,7 +165,7 @@ func TestFramesInFlight(t *testing.T) {
 
 // submitSeries stores a series of frames with the given bound on frames
 // in flight in the backend and queues its frames, as the service does.
-func submitSeries(t *testing.T, be *jobs.Backend, ref *imageio.Gray, imgs []*imageio.Gray, p series.Params, limit int) (*jobs.Series, []string) {
+func submitSeries(t testing.TB, be *jobs.Backend, ref *imageio.Gray, imgs []*imageio.Gray, p series.Params, limit int) (*jobs.Series, []string) {
 	t.Helper()
 	ctx := context.Background()
 	params, err := p.FlatJSON()

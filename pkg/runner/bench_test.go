@@ -161,3 +161,56 @@ type bytesBuffer struct{ b []byte }
 
 func (p *bytesBuffer) Write(b []byte) (int, error) { p.b = append(p.b, b...); return len(b), nil }
 func (p *bytesBuffer) reader() io.Reader           { return bytes.NewReader(p.b) }
+
+// BenchmarkSeriesInFlight runs one direct-mode series of 512×512 frames
+// (subset 21, step 8) through the real pipeline on the embedded backend,
+// with one and two workers of one compute thread each, one frame at a
+// time and with two frames in flight: the embedded backend's own pool
+// under the same rule as a cluster. It reports frames per second and the
+// frames solved ahead. Run with
+//
+//	go test -run '^$' -bench SeriesInFlight -benchtime 1x ./pkg/runner
+func BenchmarkSeriesInFlight(b *testing.B) {
+	const n = 16
+	ref, imgs, p := aheadSeriesSize(b, n, 512)
+	for _, c := range []struct{ workers, inFlight int }{{1, 1}, {2, 1}, {2, 2}} {
+		b.Run(fmt.Sprintf("workers=%d/in-flight=%d", c.workers, c.inFlight), func(b *testing.B) {
+			var el time.Duration
+			var ahead uint64
+			for i := 0; i < b.N; i++ {
+				be, err := embedded.Open(b.TempDir(), 4*n)
+				if err != nil {
+					b.Fatal(err)
+				}
+				_, ids := submitSeries(b, be, ref, imgs, p, c.inFlight)
+				rn, err := New(Config{Backend: be, Analyzer: Pipeline{}, Workers: c.workers, JobThreads: 1, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
+				if err != nil {
+					b.Fatal(err)
+				}
+				start := time.Now()
+				stop, err := rn.Start(context.Background())
+				if err != nil {
+					b.Fatal(err)
+				}
+				for deadline := start.Add(20 * time.Minute); ; time.Sleep(10 * time.Millisecond) {
+					j, err := be.Store.Job(context.Background(), ids[n-1])
+					if err == nil && j.State.Terminal() {
+						if j.State != jobs.Succeeded {
+							b.Fatalf("last frame %s %+v", j.State, j.Error)
+						}
+						break
+					}
+					if time.Now().After(deadline) {
+						b.Fatal("series not finished within 20 minutes")
+					}
+				}
+				el += time.Since(start)
+				ahead += rn.Stats().SolvedAhead
+				stop()
+				be.Close()
+			}
+			b.ReportMetric(float64(b.N*n)/el.Seconds(), "frames/s")
+			b.ReportMetric(float64(ahead)/float64(b.N*n), "solved-ahead/frame")
+		})
+	}
+}

@@ -48,7 +48,6 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 	id := d.ID()
 	ctx := context.Background()
 	l := s.log.With("job", id)
-	s.solveAhead(base, id, d)
 	if !s.waitPrevious(base, id, d) {
 		// Frame n of a series needs frame n−1's tracker state: put it back
 		// until the previous frame has finished.
@@ -234,13 +233,21 @@ const framePoll = 50 * time.Millisecond
 // waitPrevious waits until job id may run (see frameReady): for at most
 // frameQueuedWait while the previous frame of its series has not started,
 // and frameWait in all, telling the queue from time to time that the
-// delivery is still held. It reports whether the job may run.
+// delivery is still held. Meanwhile it solves the frame ahead of its turn
+// once the rules of solveAhead allow it, and the waits start again after
+// the solve. It reports whether the job may run.
 func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
 	start := s.clock.Now()
 	beat := start
 	var idle time.Time // since when the previous frame has been seen not running
+	solved := false
 	for wait := 10 * time.Millisecond; ; wait = min(2*wait, framePoll) {
 		g := s.frameReady(context.Background(), id)
+		if g != gateOpen && !solved && s.solveAhead(ctx, id, d) {
+			solved = true
+			start, beat, idle, wait = s.clock.Now(), s.clock.Now(), time.Time{}, 5*time.Millisecond
+			continue
+		}
 		now := s.clock.Now()
 		switch {
 		case g == gateOpen:

@@ -8,6 +8,8 @@ import (
 	"syscall"
 	"testing"
 	"time"
+
+	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
 // BenchmarkClusterFrames measures series frames per second through a
@@ -89,6 +91,85 @@ func BenchmarkClusterFrames(b *testing.B) {
 			// The compute time of one frame as its worker measured it: the
 			// rest of 1/(frames/s)·workers is messaging, storage and waiting.
 			b.ReportMetric(compute/float64(b.N*frames*c.series), "compute-s/frame")
+			api.signal(syscall.SIGTERM)
+			for _, w := range ws {
+				w.signal(syscall.SIGTERM)
+			}
+		})
+	}
+}
+
+// BenchmarkClusterSeries measures one 60-frame series of 512×512 frames
+// (subset 21, step 8, direct mode: 3 600 points a frame) through a
+// three-node JetStream cluster, one API node and 1, 2 or 4 workers (real
+// processes, one job at a time each, one compute thread per job, so that
+// this 2-core machine can show the gain), with the frames of the series
+// solved ahead (--frames-in-flight equal to the workers) and, as the
+// baseline of the same run, one frame at a time on one and two workers.
+// Run with
+//
+//	go test -run '^$' -bench ClusterSeries -benchtime 1x ./pkg/service/natsjs
+func BenchmarkClusterSeries(b *testing.B) {
+	const frames = 60
+	sc := render(b, frames, 512)
+	sc.params = []byte(`{"subset":21,"step":8,"incremental":"never"}`)
+	bin := mottleBinary(b)
+	for _, c := range []struct{ workers, inFlight int }{{1, 1}, {2, 1}, {2, 2}, {4, 4}} {
+		b.Run(fmt.Sprintf("workers=%d/in-flight=%d", c.workers, c.inFlight), func(b *testing.B) {
+			cl := startCluster(b)
+			obs := open(b, cl.url(""), func(o *Options) { o.Work = false })
+			backend := cl.url("")
+			port := freePorts(b, 1)[0]
+			api := startProc(b, "api", nil, bin, "serve", "--backend", backend, "--addr", fmt.Sprintf("127.0.0.1:%d", port),
+				"--no-ui", "--data", b.TempDir(), "--queue", "256", "--frames-in-flight", fmt.Sprint(c.inFlight))
+			base := fmt.Sprintf("http://127.0.0.1:%d", port)
+			waitFor(b, "API ready", func() bool {
+				res, err := http.Get(base + "/readyz")
+				if err == nil {
+					res.Body.Close()
+				}
+				return err == nil && res.StatusCode == 200
+			})
+			var ws []*proc
+			for i := 0; i < c.workers; i++ {
+				w := startProc(b, fmt.Sprintf("worker-%d", i), nil, bin, "worker", "--backend", backend, "--workers", "1", "--threads", "1")
+				waitFor(b, "worker ready", func() bool { return strings.Contains(w.out.String(), "computing up to") })
+				ws = append(ws, w)
+			}
+			hc := client{b, base}
+			ctx := context.Background()
+			b.ResetTimer()
+			var el time.Duration
+			var compute float64
+			for i := 0; i < b.N; i++ {
+				id := hc.multipart("/v1/series", map[string][]byte{"reference": sc.reference, "params": sc.params}, http.StatusCreated)
+				// The frames are uploaded first, then the workers may take
+				// them: the measure is the series' compute, not the upload.
+				start := time.Now()
+				for k, f := range sc.frames {
+					hc.frame(id, f, k)
+				}
+				waitFor(b, "the series", func() bool {
+					sr, err := obs.Store().Series(ctx, id)
+					if err != nil || len(sr.Frames) != frames {
+						return false
+					}
+					j, err := obs.Store().Job(ctx, sr.Frames[frames-1])
+					return err == nil && j.State.Terminal()
+				})
+				el += time.Since(start)
+				sr, _ := obs.Store().Series(ctx, id)
+				for k, fid := range sr.Frames {
+					j, err := obs.Store().Job(ctx, fid)
+					if err != nil || j.State != jobs.Succeeded {
+						b.Fatalf("frame %d: %v %+v", k, err, j)
+					}
+					compute += j.Summary.Seconds
+				}
+			}
+			b.StopTimer()
+			b.ReportMetric(float64(b.N*frames)/el.Seconds(), "frames/s")
+			b.ReportMetric(compute/float64(b.N*frames), "add-s/frame")
 			api.signal(syscall.SIGTERM)
 			for _, w := range ws {
 				w.signal(syscall.SIGTERM)
