@@ -11,6 +11,7 @@ import (
 	"strconv"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/mottledic/mottle/pkg/service/access"
@@ -65,11 +66,16 @@ func (s *Server) recordSeries(ctx context.Context, action string, sr *jobs.Serie
 }
 
 // tokenAudit remembers the generation of the token file last compared
-// with the trail.
+// with the trail, and when to try again after a failure.
 type tokenAudit struct {
-	mu  sync.Mutex
-	gen uint64
+	gen   atomic.Uint64
+	mu    sync.Mutex // held while comparing
+	retry time.Time  // no new attempt before (mu held)
 }
+
+// tokenAuditRetry is the pause after a failed comparison: a trail that
+// cannot be read must not slow every request.
+const tokenAuditRetry = 10 * time.Second
 
 // tokenFilePrincipal is the principal of token entries: the token file is
 // edited outside the service (mottle token add|revoke), which sees only
@@ -89,16 +95,22 @@ func (s *Server) auditTokens(ctx context.Context) {
 		return
 	}
 	g := f.Generation()
-	s.tokAudit.mu.Lock()
-	defer s.tokAudit.mu.Unlock()
-	if g == s.tokAudit.gen {
+	ta := &s.tokAudit
+	if g == ta.gen.Load() || !ta.mu.TryLock() {
+		// Nothing new, or another request is recording it: this request
+		// goes on (its token was checked against the file as it is now).
+		return
+	}
+	defer ta.mu.Unlock()
+	if g == ta.gen.Load() || time.Now().Before(ta.retry) {
 		return
 	}
 	actx, cancel := context.WithTimeout(context.WithoutCancel(ctx), auditTimeout)
 	defer cancel()
 	trail, err := s.audit.AuditEntries(actx, jobs.AuditFilter{Resource: jobs.AuditToken})
 	if err != nil {
-		s.log.Error("audit trail: token changes not recorded (tried again at the next request)", "error", err.Error())
+		ta.retry = time.Now().Add(tokenAuditRetry)
+		s.log.Error("audit trail: token changes not recorded (tried again in 10 s, at a request)", "error", err.Error())
 		return
 	}
 	known := map[string]string{}
@@ -138,12 +150,13 @@ func (s *Server) auditTokens(ctx context.Context) {
 		e.Principal, e.Resource = tokenFilePrincipal, jobs.AuditToken
 		e.Dedupe = fmt.Sprintf("token %d %s %s %s", last, e.Action, e.ID, e.Detail)
 		if err := s.audit.Append(actx, &e); err != nil {
+			ta.retry = time.Now().Add(tokenAuditRetry)
 			s.metrics.auditFailed()
-			s.log.Error("audit trail: token change not recorded (tried again at the next request)", "error", err.Error(), "action", e.Action, "id", e.ID)
+			s.log.Error("audit trail: token change not recorded (tried again in 10 s, at a request)", "error", err.Error(), "action", e.Action, "id", e.ID)
 			return
 		}
 	}
-	s.tokAudit.gen = g
+	ta.gen.Store(g)
 }
 
 // tokenDetail describes a token record for the trail (never the token
