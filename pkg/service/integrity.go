@@ -35,6 +35,11 @@ type damage struct {
 // number of jobs it marked failed.
 func (s *Server) checkData(ctx context.Context) (int, error) {
 	start := time.Now()
+	// Records the backend could not read were moved aside when it opened,
+	// so that the lists below work; say which.
+	for _, a := range s.cfg.Backend.SetAside {
+		s.log.Warn("damaged data: record set aside", "record", a)
+	}
 	list, err := s.store.Jobs(ctx, jobs.Filter{})
 	if err != nil {
 		return 0, fmt.Errorf("check the data directory: %w", err)
@@ -71,6 +76,7 @@ func (s *Server) checkData(ctx context.Context) (int, error) {
 	}
 	s.damaged.Store(int64(marked))
 	s.log.Info("data directory checked", "jobs", len(list), "series", len(all), "damaged", marked,
+		"set_aside", len(s.cfg.Backend.SetAside),
 		"seconds", time.Since(start).Seconds())
 	return marked, nil
 }

@@ -46,12 +46,13 @@ func OpenWith(dataDir string, o Options) (*jobs.Backend, error) {
 	bl.noSync = o.NoSync
 	q := NewQueue(queueCap)
 	return &jobs.Backend{
-		Store:   st,
-		Blobs:   bl,
-		Queue:   q,
-		Audit:   st.Audit(),
-		Recover: func(ctx context.Context) (int, error) { return recoverJobs(ctx, st, q) },
-		Close:   st.Close,
+		Store:    st,
+		Blobs:    bl,
+		Queue:    q,
+		Audit:    st.Audit(),
+		SetAside: st.SetAside(),
+		Recover:  func(ctx context.Context) (int, error) { return recoverJobs(ctx, st, q) },
+		Close:    st.Close,
 	}, nil
 }
 

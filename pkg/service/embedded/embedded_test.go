@@ -12,6 +12,7 @@ import (
 
 	"github.com/mottledic/mottle/pkg/service/jobs"
 	"github.com/mottledic/mottle/pkg/service/jobs/jobstest"
+	bolt "go.etcd.io/bbolt"
 )
 
 func TestBlobKeysCannotEscape(t *testing.T) {
@@ -153,4 +154,81 @@ func TestAudit(t *testing.T) {
 	if err != nil || diff != "" {
 		t.Fatalf("%s %v", diff, err)
 	}
+}
+
+// TestUnreadableRecordSetAside damages one job record and one series
+// record in the database the way a disk error or a hand edit would: on the
+// next open both are moved to the damaged bucket (bytes kept), the lists
+// work and hold the rest, reading the damaged job says it was set aside,
+// and the backend reports both for the service's start log.
+func TestUnreadableRecordSetAside(t *testing.T) {
+	dir := t.TempDir()
+	ctx := context.Background()
+	be, err := Open(dir, 4)
+	if err != nil {
+		t.Fatal(err)
+	}
+	now := time.Now().UTC()
+	var ids []string
+	for range 3 {
+		j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Analysis, State: jobs.Succeeded, Created: now}
+		if err := be.Store.CreateJob(ctx, j); err != nil {
+			t.Fatal(err)
+		}
+		ids = append(ids, j.ID)
+	}
+	sr := &jobs.Series{ID: jobs.NewID(), Created: now}
+	if err := be.Store.CreateSeries(ctx, sr); err != nil {
+		t.Fatal(err)
+	}
+	be.Close()
+
+	garbage := []byte(`{"id": "` + ids[1] + `", "state": `) // cut short
+	db, err := bolt.Open(filepath.Join(dir, "mottle.db"), 0o600, &bolt.Options{Timeout: time.Second})
+	if err != nil {
+		t.Fatal(err)
+	}
+	err = db.Update(func(tx *bolt.Tx) error {
+		if err := tx.Bucket(bucketJobs).Put([]byte(ids[1]), garbage); err != nil {
+			return err
+		}
+		return tx.Bucket(bucketSeries).Put([]byte(sr.ID), []byte("\x00\x01"))
+	})
+	db.Close()
+	if err != nil {
+		t.Fatal(err)
+	}
+
+	be, err = Open(dir, 4)
+	if err != nil {
+		t.Fatalf("open with an unreadable record: %v", err)
+	}
+	defer be.Close()
+	if len(be.SetAside) != 2 || !strings.Contains(be.SetAside[0], ids[1]) || !strings.Contains(be.SetAside[1], sr.ID) {
+		t.Errorf("SetAside = %q, want the job %s and the series %s", be.SetAside, ids[1], sr.ID)
+	}
+	list, err := be.Store.Jobs(ctx, jobs.Filter{})
+	if err != nil {
+		t.Fatalf("list after setting aside: %v", err)
+	}
+	if len(list) != 2 || list[0].ID == ids[1] || list[1].ID == ids[1] {
+		t.Errorf("list holds %d jobs, want the 2 readable ones", len(list))
+	}
+	if all, err := be.Store.AllSeries(ctx); err != nil || len(all) != 0 {
+		t.Errorf("series list: %d, %v; want none and no error", len(all), err)
+	}
+	if counts, err := be.Store.Counts(ctx); err != nil || counts[jobs.Succeeded] != 2 {
+		t.Errorf("counts %v, %v; want 2 succeeded", counts, err)
+	}
+	_, err = be.Store.Job(ctx, ids[1])
+	if !errors.Is(err, jobs.ErrNotFound) || !strings.Contains(err.Error(), "set aside") {
+		t.Errorf("reading the damaged job: %v, want not found saying it was set aside", err)
+	}
+	st := be.Store.(*Store)
+	st.db.View(func(tx *bolt.Tx) error {
+		if got := tx.Bucket(bucketDamaged).Get([]byte("jobs/" + ids[1])); string(got) != string(garbage) {
+			t.Errorf("damaged bucket holds %q, want the record's bytes %q", got, garbage)
+		}
+		return nil
+	})
 }

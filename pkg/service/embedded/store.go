@@ -6,7 +6,9 @@
 // Layout of the data directory:
 //
 //	mottle.db     bbolt database: buckets "jobs", "series" and "keys", JSON
-//	              records, and the append-only audit trail (see Audit)
+//	              records, the append-only audit trail (see Audit), and
+//	              "damaged": records found unreadable at open, set aside
+//	              with their bytes (see SetAside)
 //	blobs/...     one file per blob key, written to a temporary file and renamed
 package embedded
 
@@ -28,6 +30,9 @@ var (
 	bucketJobs   = []byte("jobs")
 	bucketSeries = []byte("series")
 	bucketKeys   = []byte("keys")
+	// bucketDamaged holds, under "<bucket>/<id>", the bytes of records that
+	// could not be read when the store opened (set aside, never deleted).
+	bucketDamaged = []byte("damaged")
 )
 
 // Store is a jobs.Store on a bbolt database. Progress is kept in memory
@@ -39,6 +44,8 @@ type Store struct {
 	mu       sync.Mutex
 	progress map[string]jobs.Progress
 	watchers jobs.Watchers
+	// aside lists the records set aside as unreadable at open.
+	aside []string
 }
 
 // OpenStore opens (creating if needed) the bbolt database at path. It fails
@@ -48,20 +55,68 @@ func OpenStore(path string) (*Store, error) {
 	if err != nil {
 		return nil, fmt.Errorf("open job database %s: %w (is another mottle serve using this data directory?)", path, err)
 	}
+	var aside []string
 	err = db.Update(func(tx *bolt.Tx) error {
-		for _, b := range [][]byte{bucketJobs, bucketSeries, bucketKeys, bucketAudit, bucketAuditIndex} {
+		for _, b := range [][]byte{bucketJobs, bucketSeries, bucketKeys, bucketAudit, bucketAuditIndex, bucketDamaged} {
 			if _, err := tx.CreateBucketIfNotExists(b); err != nil {
 				return err
 			}
 		}
-		return nil
+		var err error
+		aside, err = setAside(tx)
+		return err
 	})
 	if err != nil {
 		db.Close()
 		return nil, fmt.Errorf("initialise job database %s: %w", path, err)
 	}
-	return &Store{db: db, progress: map[string]jobs.Progress{}}, nil
+	return &Store{db: db, progress: map[string]jobs.Progress{}, aside: aside}, nil
 }
+
+// setAside moves every job, series and key record that does not decode
+// into the damaged bucket (a disk error or a hand edit outside Mottle), so
+// that one unreadable record cannot make every list fail, and says what
+// it moved. Nothing is deleted: the bytes stay under "<bucket>/<id>".
+func setAside(tx *bolt.Tx) ([]string, error) {
+	kinds := []struct {
+		bucket []byte
+		what   string
+		decode func([]byte) error
+	}{
+		{bucketJobs, "job", func(v []byte) error { var j jobs.Job; return json.Unmarshal(v, &j) }},
+		{bucketSeries, "series", func(v []byte) error { var sr jobs.Series; return json.Unmarshal(v, &sr) }},
+		{bucketKeys, "idempotency key", func(v []byte) error { var k jobs.Key; return json.Unmarshal(v, &k) }},
+	}
+	damaged := tx.Bucket(bucketDamaged)
+	var aside []string
+	for _, k := range kinds {
+		b := tx.Bucket(k.bucket)
+		var bad [][]byte
+		err := b.ForEach(func(id, v []byte) error {
+			if err := k.decode(v); err != nil {
+				bad = append(bad, id)
+				aside = append(aside, fmt.Sprintf("%s %s: record unreadable (%v); set aside as %s/%s in the damaged bucket", k.what, id, err, k.bucket, id))
+			}
+			return nil
+		})
+		if err != nil {
+			return nil, err
+		}
+		for _, id := range bad {
+			if err := damaged.Put(append(append(append([]byte{}, k.bucket...), '/'), id...), b.Get(id)); err != nil {
+				return nil, err
+			}
+			if err := b.Delete(id); err != nil {
+				return nil, err
+			}
+		}
+	}
+	return aside, nil
+}
+
+// SetAside lists the records that could not be read when the store
+// opened and were moved to the damaged bucket, one sentence each.
+func (s *Store) SetAside() []string { return s.aside }
 
 // Close closes the database and ends every watch.
 func (s *Store) Close() error {
@@ -87,6 +142,9 @@ func (s *Store) get(bucket []byte, id string, v any) error {
 	return s.db.View(func(tx *bolt.Tx) error {
 		data := tx.Bucket(bucket).Get([]byte(id))
 		if data == nil {
+			if tx.Bucket(bucketDamaged).Get([]byte(string(bucket)+"/"+id)) != nil {
+				return fmt.Errorf("%s %s: its record was unreadable when the service started and was set aside: %w", bucket, id, jobs.ErrNotFound)
+			}
 			return fmt.Errorf("%s %s: %w", bucket, id, jobs.ErrNotFound)
 		}
 		return json.Unmarshal(data, v)

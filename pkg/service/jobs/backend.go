@@ -153,6 +153,10 @@ type Backend struct {
 	// any worker runs: the embedded backend re-enqueues the jobs its
 	// records show as queued or running. It returns the number requeued.
 	Recover func(ctx context.Context) (int, error)
+	// SetAside lists, one sentence each, the records the backend found
+	// unreadable when it opened and moved aside (kept, not deleted), so
+	// that the service can report them at start.
+	SetAside []string
 	// Close releases everything.
 	Close func() error
 }
