@@ -422,6 +422,9 @@ func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 			_ = d.InProgress()
 		}
 	}
+	if j.Kind == jobs.Stereo {
+		return s.computeStereo(ctx, j)
+	}
 	if fa, ok := s.cfg.Analyzer.(FrameAnalyzer); ok && j.Kind == jobs.Frame {
 		return s.computeFrame(ctx, j, fa, progress)
 	}
@@ -597,6 +600,11 @@ func (s *Runner) sweep(ctx context.Context, t time.Time) (int, error) {
 	if err != nil {
 		return 0, err
 	}
+	st, err := s.store.Jobs(ctx, jobs.Filter{Kind: jobs.Stereo, FinishedBefore: t})
+	if err != nil {
+		return 0, err
+	}
+	old = append(old, st...)
 	var errs []error
 	for _, j := range old {
 		if err := s.DeleteJob(ctx, j.ID); err != nil {

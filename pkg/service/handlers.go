@@ -43,7 +43,7 @@ func (s *Server) analysis(h jobHandler) http.HandlerFunc {
 			return
 		}
 		j, err := s.store.Job(r.Context(), id)
-		if err == nil && j.Kind != jobs.Analysis {
+		if err == nil && j.Kind != jobs.Analysis && j.Kind != jobs.Stereo {
 			err = jobs.ErrNotFound
 		}
 		if err != nil {
@@ -96,7 +96,7 @@ func viewJob(j *jobs.Job) *jobView {
 	p := jobPath(j)
 	l := map[string]string{"self": p, "events": p + "/events",
 		"map": p + "/map.png", "reference": p + "/images/reference.png", "deformed": p + "/images/deformed.png"}
-	if j.Kind == jobs.Analysis {
+	if j.Kind != jobs.Frame {
 		l["cancel"] = p + "/cancel"
 		l["thumb"] = p + "/thumb.png"
 	} else {
@@ -114,6 +114,15 @@ func (s *Server) getJob(w http.ResponseWriter, r *http.Request, j *jobs.Job) {
 
 func (s *Server) listAnalyses(w http.ResponseWriter, r *http.Request) {
 	f := jobs.Filter{Kind: jobs.Analysis}
+	switch k := r.URL.Query().Get("kind"); k {
+	case "", string(jobs.Analysis):
+	case string(jobs.Stereo):
+		f.Kind = jobs.Stereo
+	default:
+		writeProblem(w, r, problem(http.StatusBadRequest, "bad-query", "Invalid query", "kind "+strconv.Quote(k)+" is unknown",
+			FieldProblem{"kind", "use analysis (2D, the default) or stereo"}))
+		return
+	}
 	if st := r.URL.Query().Get("state"); st != "" {
 		ok := false
 		for _, v := range jobs.States() {
@@ -204,6 +213,12 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Param
 	proj, _ := chosenProject(r, caller(r.Context())) // checked by authenticate
 	j := &jobs.Job{ID: newID(r), Kind: jobs.Analysis, State: jobs.Queued, Params: params, Name: name, Project: proj, Owner: caller(r.Context()).Name,
 		Width: ref.W, Height: ref.H, HasMask: raw["mask"] != nil, Formats: formats.String(), Created: time.Now().UTC()}
+	s.submitJob(w, r, j, raw, decoded, wait)
+}
+
+// submitJob stores the inputs raw and the record of the new job j (an
+// analysis or a stereo measurement), enqueues it and answers as submit.
+func (s *Server) submitJob(w http.ResponseWriter, r *http.Request, j *jobs.Job, raw map[string][]byte, decoded map[string]*imageio.Gray, wait bool) {
 	primed := s.prime(j.ID, raw, decoded)
 	if err := s.accept(r.Context(), j, raw); errors.Is(err, jobs.ErrExists) {
 		s.run.Unprime(primed...)
@@ -221,7 +236,7 @@ func (s *Server) submit(w http.ResponseWriter, r *http.Request, p analysis.Param
 		s.recordJob(r.Context(), jobs.AuditCreate, j, "")
 	}
 	created(r)
-	logger(r.Context()).Info("analysis accepted", "job", j.ID, "width", j.Width, "height", j.Height)
+	logger(r.Context()).Info("analysis accepted", "job", j.ID, "kind", j.Kind, "width", j.Width, "height", j.Height)
 	s.answerJob(w, r, j, wait)
 }
 

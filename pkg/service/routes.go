@@ -56,7 +56,7 @@ func (s *Server) routes() http.Handler {
 		r.Post("/v1/demo", s.idempotent("analysis", s.postDemo))
 		r.Post("/v1/images/check", s.checkImage)
 		r.Post("/v1/calibrations", s.postCalibration)
-		r.Post("/v1/stereo", s.postStereo)
+		r.Post("/v1/stereo", s.idempotent("stereo", s.postStereo))
 		r.Post("/v1/stereo/series", s.postStereoSeries)
 		r.Delete(analysisPath, s.analysis(s.deleteAnalysis))
 		r.Patch(analysisPath, s.analysis(s.renameAnalysis))

@@ -9,14 +9,14 @@ import (
 	"mime"
 	"net/http"
 	"strings"
+	"time"
 
 	"github.com/mottledic/mottle/pkg/calib"
-	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
-	"github.com/mottledic/mottle/pkg/results"
+	"github.com/mottledic/mottle/pkg/runner"
 	"github.com/mottledic/mottle/pkg/series"
 	"github.com/mottledic/mottle/pkg/series3d"
-	"github.com/mottledic/mottle/pkg/stereo"
+	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
 // maxStereoPairs bounds the pairs of one stereo series request.
@@ -30,6 +30,9 @@ type stereoUpload struct {
 	names  map[string][]string
 	params series3d.Params
 	loads  []byte
+	// raw holds the bytes of the rig and of each image part given once
+	// (a request without repeated parts), to be stored with a job.
+	raw map[string][]byte
 }
 
 // readStereo reads a multipart stereo request whose image parts are
@@ -47,7 +50,7 @@ func (s *Server) readStereo(w http.ResponseWriter, r *http.Request, images []str
 	if err != nil {
 		return nil, problem(http.StatusBadRequest, "bad-multipart", "Malformed multipart body", err.Error())
 	}
-	u := &stereoUpload{img: map[string][]*imageio.Gray{}, names: map[string][]string{}}
+	u := &stereoUpload{img: map[string][]*imageio.Gray{}, names: map[string][]string{}, raw: map[string][]byte{}}
 	isImage := map[string]bool{}
 	for _, n := range images {
 		isImage[n] = true
@@ -108,6 +111,9 @@ func (s *Server) readStereo(w http.ResponseWriter, r *http.Request, images []str
 				return nil, derr
 			}
 			u.img[name] = append(u.img[name], g)
+			if !repeat {
+				u.raw[name] = b
+			}
 			fn := part.FileName()
 			if fn == "" {
 				fn = field
@@ -126,6 +132,7 @@ func (s *Server) readStereo(w http.ResponseWriter, r *http.Request, images []str
 		return nil, problem(http.StatusBadRequest, "missing-part", "Missing part", "the rig part is required",
 			FieldProblem{"rig", "required: the rig file written by mottle calibrate --stereo"})
 	}
+	u.raw["rig"] = rig
 	if u.rig, err = calib.ParseRig(rig); err != nil {
 		return nil, problem(http.StatusUnprocessableEntity, "invalid-rig", "Invalid rig file", err.Error(), FieldProblem{"rig", err.Error()})
 	}
@@ -193,42 +200,70 @@ func computeFailed(r *http.Request, err error, what string) *Problem {
 	return problem(http.StatusUnprocessableEntity, "stereo-failed", what+" failed", err.Error())
 }
 
-// postStereo handles POST /v1/stereo: one stereo state measured in the
-// request. Parts: "rig" (the rig file of mottle calibrate --stereo),
+// postStereo handles POST /v1/stereo: a stereo measurement of one state,
+// stored and computed as a job like a 2D analysis (kind "stereo", served
+// under /v1/analyses/{id}: record, events, cancel, delete and the result
+// files). Parts: "rig" (the rig file of mottle calibrate --stereo),
 // "left_reference" and "right_reference", optionally "left_deformed" and
 // "right_deformed" (both or neither: four images for a state), and an
 // optional "params" JSON (subset, step, strain_window, prefilter_px,
-// min_depth_mm, max_depth_mm, roi). It answers 200 with the field (the
+// min_depth_mm, max_depth_mm, roi). It answers 202 with the job and its
+// Location, or with ?wait=true the finished job with its field (the
 // field.json of mottle stereo: shape, 3D displacement and surface strain
-// in the specimen frame, mm). Nothing is stored.
+// in the specimen frame, mm). Bad input is answered at once with a
+// problem document naming the part.
 func (s *Server) postStereo(w http.ResponseWriter, r *http.Request) {
-	release, ok := s.stereoBusy(w, r)
-	if !ok {
+	if s.queueFull(w, r) {
 		return
 	}
-	defer release()
-	f, err := s.stereoState(w, r)
+	u, p, err := s.stereoState(w, r)
 	if err != nil {
 		writeProblem(w, r, asProblem(err, "body"))
 		return
 	}
-	var b bytes.Buffer
-	if err := field.WriteJSON(&b, f); err != nil {
-		writeProblem(w, r, asProblem(err, "body"))
+	wait, err := boolQuery(r, "wait", false)
+	if err != nil {
+		writeProblem(w, r, err.(*Problem))
 		return
 	}
-	w.Header().Set("Content-Type", "application/json")
-	w.Header().Set("Cache-Control", "no-store")
-	w.WriteHeader(http.StatusOK)
-	w.Write(b.Bytes())
+	formats, err := ParseFormats(r.URL.Query().Get("formats"))
+	if err != nil {
+		writeProblem(w, r, asProblem(err, "formats"))
+		return
+	}
+	def := "shape"
+	if p.Deformed {
+		def = p.DeformedName
+	}
+	name, perr := nameQuery(r, "stereo: "+p.Reference+" → "+def)
+	if perr != nil {
+		writeProblem(w, r, perr)
+		return
+	}
+	raw := map[string][]byte{runner.StereoRig: u.raw["rig"]}
+	decoded := map[string]*imageio.Gray{}
+	for part, key := range map[string]string{"left_reference": runner.StereoLeftReference, "right_reference": runner.StereoRightReference,
+		"left_deformed": runner.StereoLeftDeformed, "right_deformed": runner.StereoRightDeformed} {
+		if b, ok := u.raw[part]; ok {
+			raw[key], decoded[key] = b, u.img[part][0]
+		}
+	}
+	params, _ := json.Marshal(p)
+	l0 := u.img["left_reference"][0]
+	proj, _ := chosenProject(r, caller(r.Context())) // checked by authenticate
+	j := &jobs.Job{ID: newID(r), Kind: jobs.Stereo, State: jobs.Queued, Params: params, Name: name, Project: proj, Owner: caller(r.Context()).Name,
+		Width: l0.W, Height: l0.H, Formats: formats.String(), Created: time.Now().UTC()}
+	s.submitJob(w, r, j, raw, decoded, wait)
 }
 
-func (s *Server) stereoState(w http.ResponseWriter, r *http.Request) (*field.Field, error) {
+// stereoState reads and checks a POST /v1/stereo request.
+func (s *Server) stereoState(w http.ResponseWriter, r *http.Request) (*stereoUpload, runner.StereoParams, error) {
 	const parts = "rig (the rig file), left_reference and right_reference, optionally left_deformed and right_deformed (both), and an optional params part (JSON)"
+	var sp runner.StereoParams
 	imgs := []string{"left_reference", "right_reference", "left_deformed", "right_deformed"}
 	u, err := s.readStereo(w, r, imgs, false, false, parts)
 	if err != nil {
-		return nil, err
+		return nil, sp, err
 	}
 	var missing []FieldProblem
 	for _, n := range imgs[:2] {
@@ -245,56 +280,26 @@ func (s *Server) stereoState(w http.ResponseWriter, r *http.Request) (*field.Fie
 		missing = append(missing, FieldProblem{n, "required with the other deformed image: a deformed state is a left and a right image taken together"})
 	}
 	if len(missing) > 0 {
-		return nil, problem(http.StatusBadRequest, "missing-part", "Missing part", "required parts are missing; see errors", missing...)
+		return nil, sp, problem(http.StatusBadRequest, "missing-part", "Missing part", "required parts are missing; see errors", missing...)
 	}
 	rig := u.rig.Rig()
 	l0, r0 := u.img["left_reference"][0], u.img["right_reference"][0]
 	if err := checkStereoPair(rig, l0, r0, "left_reference", "right_reference"); err != nil {
-		return nil, err
+		return nil, sp, err
 	}
 	if ld {
 		if err := checkStereoPair(rig, u.img["left_deformed"][0], u.img["right_deformed"][0], "left_deformed", "right_deformed"); err != nil {
-			return nil, err
+			return nil, sp, err
 		}
 	}
 	if err := stereoParams(u.params, l0.W, l0.H); err != nil {
-		return nil, err
+		return nil, sp, err
 	}
-	o, _ := u.params.Options(l0.W, l0.H)
-	ctx := r.Context()
-	ref, err := stereo.Match(ctx, rig, l0, r0, o)
-	if err != nil {
-		return nil, computeFailed(r, err, "Stereo matching")
-	}
-	fr, err := stereo.SpecimenFrame(ref)
-	if err != nil {
-		return nil, computeFailed(r, err, "Stereo matching")
-	}
-	sw := u.params.StrainWindow
-	if sw == 0 {
-		sw = 5
-	}
-	in := results.StereoInput{Ref: ref, Frame: fr, StrainWindow: sw}
+	sp = runner.StereoParams{Params: u.params, Deformed: ld, Reference: u.names["left_reference"][0]}
 	if ld {
-		st, err := ref.Track(ctx, l0, r0, u.img["left_deformed"][0], u.img["right_deformed"][0])
-		if err != nil {
-			return nil, computeFailed(r, err, "Stereo tracking")
-		}
-		sf, err := stereo.Strain(ref, st, stereo.StrainOptions{Window: sw})
-		if err != nil {
-			return nil, computeFailed(r, err, "Surface strain")
-		}
-		in.State, in.Surface = st, sf
+		sp.DeformedName = u.names["left_deformed"][0]
 	}
-	f, err := results.BuildStereo(in, map[string]any{"rig_baseline_mm": rig.Baseline(), "rig_angle_deg": rig.Angle(), "params": u.params}, "mottle serve")
-	if err != nil {
-		return nil, computeFailed(r, err, "Stereo results")
-	}
-	f.Meta.Reference = u.names["left_reference"][0]
-	if ld {
-		f.Meta.Deformed = u.names["left_deformed"][0]
-	}
-	return f, nil
+	return u, sp, nil
 }
 
 // StereoSeriesResult is the answer of POST /v1/stereo/series.

@@ -25,6 +25,10 @@ const (
 	Analysis Kind = "analysis"
 	// Frame correlates one frame of a series against the series reference.
 	Frame Kind = "frame"
+	// Stereo measures one stereo state from the left and right reference
+	// images (and, for a deformed state, the left and right deformed
+	// images) with a rig file; served under /v1/analyses like Analysis.
+	Stereo Kind = "stereo"
 )
 
 // State is where a job is in its life.
