@@ -51,9 +51,9 @@ func writeRig(b *browser, path string, w, h int) {
 
 // stereoAllowed are the failed requests checkStereo causes on purpose.
 var stereoAllowed = []allowance{
-	{regexp.MustCompile(`^request POST \S+/v1/stereo: 422 `),
+	{regexp.MustCompile(`^request POST \S+/v1/stereo(\?wait=true)?: 422 `),
 		"checkStereo sends a rig calibrated on other images: the service answers 422 with a problem document, which the page shows"},
-	{regexp.MustCompile(`^console error \(network\): Failed to load resource: the server responded with a status of 422 \(Unprocessable Entity\) \S+/v1/stereo$`),
+	{regexp.MustCompile(`^console error \(network\): Failed to load resource: the server responded with a status of 422 \(Unprocessable Entity\) \S+/v1/stereo(\?wait=true)?$`),
 		"Chromium logs the 422 answer of checkStereo as a failed resource"},
 }
 

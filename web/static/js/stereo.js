@@ -179,8 +179,11 @@ async function measure() {
   if (step > 0) fd.append('params', new Blob([JSON.stringify({ step })], { type: 'application/json' }));
   $('st-status').textContent = 'measuring…';
   try {
-    const resp = await request('/v1/stereo', { method: 'POST', body: fd });
-    show(await resp.json());
+    // A stereo measurement is a stored job; wait for it and draw its field.
+    const resp = await request('/v1/stereo?wait=true', { method: 'POST', body: fd });
+    const job = await resp.json();
+    if (!job.field) throw new Error(`the stereo job ${job.id} is ${job.state}; its results will be at /v1/analyses/${job.id}`);
+    show(job.field);
     $('st-status').textContent = 'done';
   } catch (err) {
     $('st-status').textContent = 'failed';
