@@ -31,6 +31,7 @@ import (
 func TestStereoJob(t *testing.T) {
 	const w, h = 320, 240
 	l := newLab(t, func(c *service.Config) {
+		c.Analyzer = service.Pipeline{} // the real maps of the stored field
 		c.BeforeCompute = func(ctx context.Context, j jobs.Job) {
 			if j.Name == "held" {
 				<-ctx.Done()
@@ -89,8 +90,12 @@ func TestStereoJob(t *testing.T) {
 			t.Errorf("GET %s: %d, %d bytes; want 200 and the %d bytes of the direct computation", name, st, len(got), len(want[name]))
 		}
 	}
-	if st, _ := l.call(t, "display", "GET", loc+"/arrays/w.npy", nil, "", nil); st != 200 {
-		t.Errorf("GET arrays/w.npy: %d", st)
+	// The other routes of an analysis: an array, the map of w over the
+	// left reference, the thumbnail and the left images.
+	for _, p := range []string{"/arrays/w.npy", "/map.png?quantity=w", "/thumb.png", "/images/reference.png", "/images/deformed.png"} {
+		if st, b := l.call(t, "display", "GET", loc+p, nil, "", nil); st != 200 {
+			t.Errorf("GET %s: %d %.300s", p, st, b)
+		}
 	}
 
 	// A repeat under the same key is the same job; lists and the trail.
