@@ -287,10 +287,8 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
-	st := tr.State()
-	st.Params.Analysis.Threads = 0 // a setting of the server, not of the series
-	if res.State, err = json.Marshal(st); err != nil {
-		return nil, fmt.Errorf("encode series state: %w", err)
+	if res.State, err = tr.StateJSON(); err != nil {
+		return nil, err
 	}
 	res.Summary = frameSummary(res.Summary, fr.Summary)
 	return res, nil

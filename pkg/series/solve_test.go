@@ -1,7 +1,9 @@
 package series
 
 import (
+	"bytes"
 	"context"
+	"encoding/json"
 	"math"
 	"reflect"
 	"testing"
@@ -173,5 +175,37 @@ func TestRestoreGridCheck(t *testing.T) {
 	}
 	if !reflect.DeepEqual(a.Summary, b.Summary) {
 		t.Errorf("restored tracker: %+v\nsaved tracker: %+v", b.Summary, a.Summary)
+	}
+}
+
+// TestStateJSON checks that StateJSON writes the very bytes of encoding
+// the copy State makes, with the thread count left out.
+func TestStateJSON(t *testing.T) {
+	ref, imgs, p := solveSeries(t)
+	p.Analysis.Threads = 2
+	tr, err := New(ref, FrameMeta{Name: "ref"}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, im := range imgs[:3] {
+		if _, err := tr.Add(context.Background(), im, FrameMeta{}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	st := tr.State()
+	st.Params.Analysis.Threads = 0
+	want, err := json.Marshal(st)
+	if err != nil {
+		t.Fatal(err)
+	}
+	got, err := tr.StateJSON()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(got, want) {
+		t.Errorf("StateJSON differs from encoding State(): %d and %d bytes", len(got), len(want))
+	}
+	if tr.Params().Analysis.Threads != 2 {
+		t.Errorf("StateJSON changed the tracker's thread count to %d", tr.Params().Analysis.Threads)
 	}
 }

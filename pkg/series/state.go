@@ -197,6 +197,20 @@ func (t *Tracker) State() State {
 	return s
 }
 
+// StateJSON returns the tracker's state as the JSON that State decodes
+// from, without the copy State makes (a series frame in the service
+// stores it after every frame), and with the thread count left out: a
+// setting of the machine, not of the series.
+func (t *Tracker) StateJSON() ([]byte, error) {
+	st := t.st
+	st.Params.Analysis.Threads = 0
+	b, err := json.Marshal(st)
+	if err != nil {
+		return nil, fmt.Errorf("encode series state: %w", err)
+	}
+	return b, nil
+}
+
 // check reports what is inconsistent in a decoded state.
 func (s State) check() error {
 	var errs []error
