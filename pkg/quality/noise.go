@@ -93,7 +93,11 @@ func NoiseFromImage(g *imageio.Gray, mask *roi.Mask) (float64, error) {
 			gx := c + 2*f + j - a - 2*d - q
 			gy := q + 2*h + j - a - 2*b - c
 			n := a + c + q + j - 2*(b+d+f+h) + 4*e
-			r = append(r, resp{gx*gx + gy*gy, math.Abs(n)})
+			g2 := gx*gx + gy*gy
+			if math.IsNaN(g2) || math.IsInf(g2, 0) || math.IsNaN(n) || math.IsInf(n, 0) {
+				continue // a NaN or infinite grey level tells nothing of the noise
+			}
+			r = append(r, resp{g2, math.Abs(n)})
 		}
 	}
 	if len(r) < 50 {
