@@ -121,7 +121,13 @@ func FuzzImage(f *testing.F) {
 			f.Fatal(err)
 		}
 		f.Add(b.Bytes())
+		b.Reset()
+		if err := imageio.WritePGM(&b, g, bits); err != nil {
+			f.Fatal(err)
+		}
+		f.Add(b.Bytes())
 	}
+	f.Add([]byte("P5\n# a comment\n4 4\n65535\n"))
 	lim := imageio.Limits{MaxPixels: 1 << 16}
 	ts := newServerWith(f, true, func(c *service.Config) { c.MaxPixels = lim.MaxPixels; c.JobTimeout = time.Second })
 	ct, body := multipartBody(f, part{"reference", "r.png", "image/png", ref}, part{"params", "", "", []byte(`{"subset": 15}`)})
@@ -172,6 +178,10 @@ func FuzzImage(f *testing.F) {
 // depth that the header of data declares, and grey levels within it.
 func checkHeader(t *testing.T, data []byte, g *imageio.Gray) {
 	t.Helper()
+	if bytes.HasPrefix(data, []byte("P5")) {
+		checkPGMHeader(t, data, g)
+		return
+	}
 	cfg, format, err := image.DecodeConfig(bytes.NewReader(data))
 	if err != nil {
 		t.Fatalf("imageio.Decode read an image whose header image.DecodeConfig refuses: %v", err)
@@ -192,6 +202,58 @@ func checkHeader(t *testing.T, data []byte, g *imageio.Gray) {
 		for x := 0; x < g.W; x++ {
 			if v := g.At(x, y); !(v >= 0 && v <= top) {
 				t.Fatalf("%s: grey level %v at (%d, %d) outside 0–%v of %d bits", format, v, x, y, top, bits)
+			}
+		}
+	}
+}
+
+// checkPGMHeader checks a decoded binary PGM against its header, read
+// here from the format's description (Netpbm pgm(5): "P5", then width,
+// height and maxval as ASCII decimals separated by whitespace, "#" starting
+// a comment to the end of the line): the size, 8 bits for maxval < 256 and
+// 16 otherwise, and every grey level within 0–maxval. Go's image package
+// registers no PGM decoder to compare with.
+func checkPGMHeader(t *testing.T, data []byte, g *imageio.Gray) {
+	t.Helper()
+	var v []int
+	i := 2
+	for len(v) < 3 && i < len(data) {
+		switch c := data[i]; {
+		case c == '#':
+			for i < len(data) && data[i] != '\n' && data[i] != '\r' {
+				i++
+			}
+		case c == ' ' || c == '\t' || c == '\n' || c == '\r' || c == '\v' || c == '\f':
+			i++
+		case c >= '0' && c <= '9':
+			n := 0
+			for i < len(data) && data[i] >= '0' && data[i] <= '9' {
+				n = min(n*10+int(data[i]-'0'), 1<<30)
+				i++
+			}
+			v = append(v, n)
+		default:
+			t.Fatalf("pgm: imageio.Decode read a file whose header has %q at byte %d", c, i)
+		}
+	}
+	if len(v) < 3 {
+		t.Fatalf("pgm: imageio.Decode read a file whose header holds %d of its 3 numbers", len(v))
+	}
+	w, h, maxval := v[0], v[1], v[2]
+	if g.W != w || g.H != h || len(g.Pix) < g.W*g.H {
+		t.Fatalf("pgm: decoded %d×%d (%d values), header %d×%d", g.W, g.H, len(g.Pix), w, h)
+	}
+	bits := 8
+	if maxval > 255 {
+		bits = 16
+	}
+	if g.Bits != bits {
+		t.Fatalf("pgm: decoded with %d bits, the header's maxval %d means %d", g.Bits, maxval, bits)
+	}
+	for y := 0; y < g.H; y++ {
+		for x := 0; x < g.W; x++ {
+			if v := g.At(x, y); !(v >= 0 && v <= float32(maxval)) {
+				t.Fatalf("pgm: grey level %v at (%d, %d) outside 0–%d", v, x, y, maxval)
 			}
 		}
 	}
