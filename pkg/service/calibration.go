@@ -78,21 +78,7 @@ func (s *Server) calibrate(w http.ResponseWriter, r *http.Request) (*calib.File,
 			return nil, bodyErr(err, "body")
 		}
 		name := part.FormName()
-		readJSON := func(dst *[]byte) error {
-			if *dst != nil {
-				return problem(http.StatusBadRequest, "duplicate-part", "Duplicate part", name+" given twice", FieldProblem{name, "give it once"})
-			}
-			b, err := io.ReadAll(io.LimitReader(part, maxParamsBytes+1))
-			if err != nil {
-				return bodyErr(err, name)
-			}
-			if len(b) > maxParamsBytes {
-				return problem(http.StatusRequestEntityTooLarge, "params-too-large", "Part too large",
-					fmt.Sprintf("the %s part exceeds %d bytes", name, maxParamsBytes), FieldProblem{name, "too large"})
-			}
-			*dst = b
-			return nil
-		}
+		readJSON := func(dst *[]byte) error { return readSmallPart(part, name, dst) }
 		switch name {
 		case "target":
 			err = readJSON(&target)

@@ -7,6 +7,7 @@ import (
 	"fmt"
 	"io"
 	"mime"
+	"mime/multipart"
 	"net/http"
 	"strings"
 
@@ -253,4 +254,23 @@ func withCalibration(params []byte, u *upload) ([]byte, error) {
 	nb, _ := json.Marshal(name)
 	m["calibration"], m["calibration_name"] = cb, nb
 	return json.Marshal(m)
+}
+
+// readSmallPart reads the multipart part name (a JSON document: rig,
+// target, options…) into *dst, refusing a second part of that name and one
+// of more than maxParamsBytes with problem documents naming it.
+func readSmallPart(part *multipart.Part, name string, dst *[]byte) error {
+	if *dst != nil {
+		return problem(http.StatusBadRequest, "duplicate-part", "Duplicate part", name+" given twice", FieldProblem{name, "give it once"})
+	}
+	b, err := io.ReadAll(io.LimitReader(part, maxParamsBytes+1))
+	if err != nil {
+		return bodyErr(err, name)
+	}
+	if len(b) > maxParamsBytes {
+		return problem(http.StatusRequestEntityTooLarge, "params-too-large", "Part too large",
+			fmt.Sprintf("the %s part exceeds %d bytes", name, maxParamsBytes), FieldProblem{name, "too large"})
+	}
+	*dst = b
+	return nil
 }
