@@ -177,15 +177,9 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	if set["static"] {
 		p.StaticFrames = *static
 	}
-	for _, s := range exts {
-		name, rest, ok := strings.Cut(s, ":")
-		v, err := parseFloats(rest, 4, "--ext "+name)
-		if !ok || err != nil {
-			errs = append(errs, fmt.Errorf("--ext %q: want name:xA,yA,xB,yB", s))
-			continue
-		}
-		p.Extensometers = append(p.Extensometers, series.Extensometer{Name: name, A: [2]float64{v[0], v[1]}, B: [2]float64{v[2], v[3]}})
-	}
+	ext, extErrs := parseExtensometers(exts)
+	p.Extensometers = append(p.Extensometers, ext...)
+	errs = append(errs, extErrs...)
 	for _, s := range gs {
 		name, rest, ok := strings.Cut(s, ":")
 		if !ok {
@@ -454,4 +448,21 @@ func staticPairNoise(ctx context.Context, a, b string, p series.Params, lim imag
 		return nil, limitHint(err, lim.MaxPixels)
 	}
 	return series.StaticPairNoise(ctx, ia, ib, filepath.Base(a), filepath.Base(b), p)
+}
+
+// parseExtensometers reads --ext values, name:xA,yA,xB,yB each, for
+// series and stereo series; a malformed value gives an error naming it.
+func parseExtensometers(exts []string) ([]series.Extensometer, []error) {
+	var out []series.Extensometer
+	var errs []error
+	for _, s := range exts {
+		name, rest, ok := strings.Cut(s, ":")
+		v, err := parseFloats(rest, 4, "--ext "+name)
+		if !ok || err != nil {
+			errs = append(errs, fmt.Errorf("--ext %q: want name:xA,yA,xB,yB", s))
+			continue
+		}
+		out = append(out, series.Extensometer{Name: name, A: [2]float64{v[0], v[1]}, B: [2]float64{v[2], v[3]}})
+	}
+	return out, errs
 }

@@ -109,15 +109,9 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 			p.ROI = spec
 		}
 	}
-	for _, s := range exts {
-		name, rest, ok := strings.Cut(s, ":")
-		v, err := parseFloats(rest, 4, "--ext "+name)
-		if !ok || err != nil {
-			errs = append(errs, fmt.Errorf("--ext %q: want name:xA,yA,xB,yB", s))
-			continue
-		}
-		p.Extensometers = append(p.Extensometers, series.Extensometer{Name: name, A: [2]float64{v[0], v[1]}, B: [2]float64{v[2], v[3]}})
-	}
+	ext, extErrs := parseExtensometers(exts)
+	p.Extensometers = append(p.Extensometers, ext...)
+	errs = append(errs, extErrs...)
 	for _, s := range gs {
 		name, rest, ok := strings.Cut(s, ":")
 		v, err := parseFloats(rest, 4, "--gauge "+name)
