@@ -21,25 +21,11 @@ export function fmt(v) {
 }
 
 /**
- * linePlot draws ys against xs on canvas (NaN leaves a gap), with labelled
- * axes. opts: {xlabel, ylabel, marker: x value to mark, points: draw dots}.
- * It returns the number of finite points drawn.
+ * axes pads the value ranges [x0, x1] and [y0, y1], draws the grid, tick
+ * labels, frame and axis labels (opts.xlabel, opts.ylabel) of a plot with
+ * margins m on a W×H canvas, and returns the maps from values to pixels.
  */
-export function linePlot(canvas, xs, ys, opts = {}) {
-  const ctx = canvas.getContext('2d');
-  const W = canvas.width, H = canvas.height;
-  const m = { l: 70, r: 14, t: 12, b: 42 };
-  ctx.clearRect(0, 0, W, H);
-  ctx.fillStyle = '#fff'; ctx.fillRect(0, 0, W, H);
-  const fin = [];
-  for (let i = 0; i < xs.length; i++) if (Number.isFinite(xs[i]) && Number.isFinite(ys[i])) fin.push(i);
-  ctx.fillStyle = '#1b2229'; ctx.font = '12px system-ui, sans-serif';
-  if (!fin.length) {
-    ctx.fillText('no valid values along this path', m.l, H / 2);
-    return 0;
-  }
-  let x0 = Infinity, x1 = -Infinity, y0 = Infinity, y1 = -Infinity;
-  for (const i of fin) { x0 = Math.min(x0, xs[i]); x1 = Math.max(x1, xs[i]); y0 = Math.min(y0, ys[i]); y1 = Math.max(y1, ys[i]); }
+function axes(ctx, W, H, m, x0, x1, y0, y1, opts) {
   if (y1 - y0 < 1e-12 * Math.max(1, Math.abs(y0))) { const d = Math.abs(y0) * 0.05 || 1e-6; y0 -= d; y1 += d; }
   const pad = (y1 - y0) * 0.06; y0 -= pad; y1 += pad;
   if (!(x1 > x0)) { x0 -= 0.5; x1 += 0.5; }
@@ -65,6 +51,30 @@ export function linePlot(canvas, xs, ys, opts = {}) {
     ctx.save(); ctx.translate(14, (m.t + H - m.b) / 2); ctx.rotate(-Math.PI / 2);
     ctx.textBaseline = 'middle'; ctx.fillText(opts.ylabel, 0, 0); ctx.restore();
   }
+  return { px, py };
+}
+
+/**
+ * linePlot draws ys against xs on canvas (NaN leaves a gap), with labelled
+ * axes. opts: {xlabel, ylabel, marker: x value to mark, points: draw dots}.
+ * It returns the number of finite points drawn.
+ */
+export function linePlot(canvas, xs, ys, opts = {}) {
+  const ctx = canvas.getContext('2d');
+  const W = canvas.width, H = canvas.height;
+  const m = { l: 70, r: 14, t: 12, b: 42 };
+  ctx.clearRect(0, 0, W, H);
+  ctx.fillStyle = '#fff'; ctx.fillRect(0, 0, W, H);
+  const fin = [];
+  for (let i = 0; i < xs.length; i++) if (Number.isFinite(xs[i]) && Number.isFinite(ys[i])) fin.push(i);
+  ctx.fillStyle = '#1b2229'; ctx.font = '12px system-ui, sans-serif';
+  if (!fin.length) {
+    ctx.fillText('no valid values along this path', m.l, H / 2);
+    return 0;
+  }
+  let x0 = Infinity, x1 = -Infinity, y0 = Infinity, y1 = -Infinity;
+  for (const i of fin) { x0 = Math.min(x0, xs[i]); x1 = Math.max(x1, xs[i]); y0 = Math.min(y0, ys[i]); y1 = Math.max(y1, ys[i]); }
+  const { px, py } = axes(ctx, W, H, m, x0, x1, y0, y1, opts);
   ctx.strokeStyle = '#0b5d66'; ctx.lineWidth = 2;
   ctx.beginPath();
   let pen = false;
@@ -116,31 +126,7 @@ export function linesPlot(canvas, xs, series, opts = {}) {
     ctx.fillText(series.length ? 'no trusted value yet' : 'choose a reading to plot', m.l, H / 2);
     return counts;
   }
-  if (y1 - y0 < 1e-12 * Math.max(1, Math.abs(y0))) { const d = Math.abs(y0) * 0.05 || 1e-6; y0 -= d; y1 += d; }
-  const pad = (y1 - y0) * 0.06; y0 -= pad; y1 += pad;
-  if (!(x1 > x0)) { x0 -= 0.5; x1 += 0.5; }
-  const px = x => m.l + (x - x0) / (x1 - x0) * (W - m.l - m.r);
-  const py = y => H - m.b - (y - y0) / (y1 - y0) * (H - m.t - m.b);
-  ctx.strokeStyle = '#d9d4c9'; ctx.lineWidth = 1;
-  ctx.textAlign = 'right'; ctx.textBaseline = 'middle';
-  for (const t of niceTicks(y0, y1)) {
-    if (t < y0 || t > y1) continue;
-    ctx.beginPath(); ctx.moveTo(m.l, py(t)); ctx.lineTo(W - m.r, py(t)); ctx.stroke();
-    ctx.fillText(fmt(t), m.l - 6, py(t));
-  }
-  ctx.textAlign = 'center'; ctx.textBaseline = 'top';
-  for (const t of niceTicks(x0, x1, 6)) {
-    if (t < x0 || t > x1) continue;
-    ctx.beginPath(); ctx.moveTo(px(t), m.t); ctx.lineTo(px(t), H - m.b); ctx.stroke();
-    ctx.fillText(fmt(t), px(t), H - m.b + 4);
-  }
-  ctx.strokeStyle = '#1b2229';
-  ctx.strokeRect(m.l, m.t, W - m.l - m.r, H - m.t - m.b);
-  if (opts.xlabel) ctx.fillText(opts.xlabel, (m.l + W - m.r) / 2, H - 18);
-  if (opts.ylabel) {
-    ctx.save(); ctx.translate(14, (m.t + H - m.b) / 2); ctx.rotate(-Math.PI / 2);
-    ctx.textBaseline = 'middle'; ctx.fillText(opts.ylabel, 0, 0); ctx.restore();
-  }
+  const { px, py } = axes(ctx, W, H, m, x0, x1, y0, y1, opts);
   series.forEach((s, k) => {
     const col = lineColours[k % lineColours.length];
     ctx.strokeStyle = col; ctx.fillStyle = col; ctx.lineWidth = 2;
