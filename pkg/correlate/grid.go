@@ -1,0 +1,163 @@
+package correlate
+
+import (
+	"fmt"
+	"math"
+
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/roi"
+)
+
+// setupGrid lays the grid over the mask's bounding box and marks the
+// points whose subset is wholly inside the mask.
+func (r *run) setupGrid() error {
+	m, step := r.m, r.opt.Step
+	bx0, by0, bx1, by1 := r.mask.Bounds()
+	// Keep subsets the interpolation edge margin inside the image, so that
+	// a point near the border is not rejected for any small motion.
+	e := int(edgeMargin(r.opt.Interp))
+	bx0, by0 = max(bx0, e), max(by0, e)
+	bx1, by1 = min(bx1, r.ref.W-e), min(by1, r.ref.H-e)
+	g := Grid{X0: bx0 + m, Y0: by0 + m, Step: step}
+	if bx1-1-m < g.X0 || by1-1-m < g.Y0 {
+		return fmt.Errorf("correlate: the region of interest (%d×%d px bounding box) is smaller than the %d px subset", bx1-bx0, by1-by0, r.opt.Subset)
+	}
+	g.Nx = (bx1-1-m-g.X0)/step + 1
+	g.Ny = (by1-1-m-g.Y0)/step + 1
+	r.grid = g
+	n := g.Len()
+	if r.opt.Start != nil && len(r.opt.Start) != n {
+		return fmt.Errorf("correlate: Start has %d points but the grid has %d (%d×%d): it must come from a run with the same images size, subset, step and ROI", len(r.opt.Start), n, g.Nx, g.Ny)
+	}
+	r.alloc(n)
+	// Each grid point depends on its own subset only: rows of the grid are
+	// shared out among the threads.
+	parallelFor(g.Ny, r.threads, func(j0, j1 int) {
+		for j := j0; j < j1; j++ {
+			for i := 0; i < g.Nx; i++ {
+				x, y := g.At(i, j)
+				k := g.Index(i, j)
+				r.pts[k].X, r.pts[k].Y = float64(x), float64(y)
+				switch {
+				case !r.mask.RectInside(x-m, y-m, x+m, y+m):
+					r.pts[k].Status = Outside
+				case subsetStd(r.ref, x, y, m) < r.minStd:
+					// Low contrast is a property of the reference subset
+					// alone: flag it now, so that blank areas are reported
+					// as such rather than as unreached.
+					r.pts[k].Status = LowContrast
+					r.state[k] = stFailed
+				default:
+					r.state[k] = stPending
+				}
+			}
+		}
+	})
+	r.label()
+	return nil
+}
+
+// label splits the computable points into 4-connected components.
+func (r *run) label() {
+	r.comp = make([]int32, len(r.pts))
+	for k := range r.comp {
+		r.comp[k] = -1
+	}
+	var stack []int32
+	var nb [4]int32
+	for k := range r.pts {
+		if r.state[k] != stPending || r.comp[k] >= 0 {
+			continue
+		}
+		c := int32(len(r.compN))
+		size := 0
+		r.comp[k] = c
+		stack = append(stack[:0], int32(k))
+		for len(stack) > 0 {
+			x := stack[len(stack)-1]
+			stack = stack[:len(stack)-1]
+			size++
+			for _, y := range nb[:r.neighbours(int(x), &nb)] {
+				if r.state[y] == stPending && r.comp[y] < 0 {
+					r.comp[y] = c
+					stack = append(stack, y)
+				}
+			}
+		}
+		r.compN = append(r.compN, size)
+	}
+}
+
+// untouchedComponent returns the largest component (lowest label on ties)
+// of at least 10 points with no computed point and not yet tried, or −1.
+func (r *run) untouchedComponent(tried map[int]bool) int {
+	touched := make([]bool, len(r.compN))
+	for k, c := range r.comp {
+		if c >= 0 && r.state[k] != stPending {
+			touched[c] = true
+		}
+	}
+	best := -1
+	for c, n := range r.compN {
+		if !touched[c] && !tried[c] && n >= 10 && (best < 0 || n > r.compN[best]) {
+			best = c
+		}
+	}
+	return best
+}
+
+func (r *run) alloc(n int) {
+	r.pts = make([]Point, n)
+	r.state = make([]uint8, n)
+	r.hUU = make([]float64, n)
+	r.hVV = make([]float64, n)
+	r.s2 = make([]float64, n)
+}
+
+// maskStd is the grey-level standard deviation of g inside the mask,
+// computed with up to threads goroutines: sums per row, then over the rows
+// in order, so the value does not depend on threads.
+func maskStd(g *imageio.Gray, m *roi.Mask, threads int) float64 {
+	rows := make([][3]float64, g.H)
+	parallelFor(g.H, threads, func(y0, y1 int) {
+		for y := y0; y < y1; y++ {
+			var n, s, ss float64
+			for x, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
+				if m.Inside(x, y) {
+					f := float64(v)
+					n++
+					s += f
+					ss += f * f
+				}
+			}
+			rows[y] = [3]float64{n, s, ss}
+		}
+	})
+	var n, s, ss float64
+	for _, r := range rows {
+		n += r[0]
+		s += r[1]
+		ss += r[2]
+	}
+	if n < 2 {
+		return 0
+	}
+	mean := s / n
+	return math.Sqrt(math.Max(ss/n-mean*mean, 0))
+}
+
+// subsetStd returns the grey-level standard deviation of the subset of
+// half-width m centred at pixel (x, y), which must lie inside g.
+func subsetStd(g *imageio.Gray, x, y, m int) float64 {
+	var s, ss float64
+	for j := y - m; j <= y+m; j++ {
+		for _, v := range g.Pix[j*g.Stride+x-m : j*g.Stride+x+m+1] {
+			f := float64(v)
+			s += f
+			ss += f * f
+		}
+	}
+	n := float64((2*m + 1) * (2*m + 1))
+	mean := s / n
+	return math.Sqrt(math.Max(ss/n-mean*mean, 0))
+}
