@@ -51,7 +51,7 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 		return false
 	}
 	sr, err := s.store.Series(bg, j.Series)
-	if err != nil || sr.MaxInFlight <= 1 || j.FrameIndex > len(sr.Frames) {
+	if err != nil || sr.MaxInFlight <= 1 || j.FrameIndex > len(sr.Frames) || sr.Kind == jobs.Stereo {
 		return false
 	}
 	n := j.FrameIndex

@@ -66,11 +66,7 @@ func StereoField(ctx context.Context, rig *calib.Rig, im StereoImages, p StereoP
 	if err != nil {
 		return nil, fmt.Errorf("stereo matching: %w", err)
 	}
-	sw := p.Params.StrainWindow
-	if sw == 0 {
-		sw = 5
-	}
-	in := results.StereoInput{Ref: ref, Frame: fr, StrainWindow: sw}
+	in := stereoInput{Ref: ref, Frame: fr, StrainWindow: p.Params.StrainWindow}
 	if p.Deformed {
 		if im.LeftDef == nil || im.RightDef == nil {
 			return nil, fmt.Errorf("stereo tracking: the deformed pair is incomplete; give the left and the right deformed image")
@@ -79,19 +75,42 @@ func StereoField(ctx context.Context, rig *calib.Rig, im StereoImages, p StereoP
 		if err != nil {
 			return nil, fmt.Errorf("stereo tracking: %w", err)
 		}
-		sf, err := stereo.Strain(ref, st, stereo.StrainOptions{Window: sw})
+		sf, err := stereo.Strain(ref, st, stereo.StrainOptions{Window: in.window()})
 		if err != nil {
 			return nil, fmt.Errorf("surface strain: %w", err)
 		}
 		in.State, in.Surface = st, sf
 	}
-	f, err := results.BuildStereo(in, map[string]any{"rig_baseline_mm": rig.Baseline(), "rig_angle_deg": rig.Angle(), "params": p.Params}, "mottle serve")
+	f, err := in.build(rig, p.Params)
 	if err != nil {
-		return nil, fmt.Errorf("stereo results: %w", err)
+		return nil, err
 	}
 	f.Meta.Reference = p.Reference
 	if p.Deformed {
 		f.Meta.Deformed = p.DeformedName
+	}
+	return f, nil
+}
+
+// stereoInput is results.StereoInput whose strain window 0 means the
+// default of series3d (5 grid points).
+type stereoInput results.StereoInput
+
+func (in *stereoInput) window() int {
+	if in.StrainWindow == 0 {
+		in.StrainWindow = 5
+	}
+	return in.StrainWindow
+}
+
+// build is the one result field of a stereo state (a stereo job or a
+// frame of a stereo series): results.BuildStereo with the rig's baseline
+// and angle and the parameters in the metadata.
+func (in *stereoInput) build(rig *calib.Rig, p series3d.Params) (*field.Field, error) {
+	in.window()
+	f, err := results.BuildStereo(results.StereoInput(*in), map[string]any{"rig_baseline_mm": rig.Baseline(), "rig_angle_deg": rig.Angle(), "params": p}, "mottle serve")
+	if err != nil {
+		return nil, fmt.Errorf("stereo results: %w", err)
 	}
 	return f, nil
 }
@@ -102,20 +121,10 @@ func (s *Runner) computeStereo(ctx context.Context, j *jobs.Job) (*Result, error
 	if err := json.Unmarshal(j.Params, &p); err != nil {
 		return nil, fmt.Errorf("stored stereo parameters: %w", err)
 	}
-	rc, err := s.blobs.Get(ctx, jobs.InputKey(j.ID, StereoRig))
+	rig, err := s.loadRig(ctx, jobs.InputKey(j.ID, StereoRig))
 	if err != nil {
-		return nil, fmt.Errorf("stored rig file: %w", err)
+		return nil, err
 	}
-	b, err := io.ReadAll(io.LimitReader(rc, 1<<20))
-	rc.Close()
-	if err != nil {
-		return nil, fmt.Errorf("stored rig file: %w", err)
-	}
-	rf, err := calib.ParseRig(b)
-	if err != nil {
-		return nil, &FieldError{Field: "rig", Detail: err.Error()}
-	}
-	rig := rf.Rig()
 	var im StereoImages
 	names := []string{StereoLeftReference, StereoRightReference}
 	dst := []**imageio.Gray{&im.LeftRef, &im.RightRef}
@@ -136,4 +145,22 @@ func (s *Runner) computeStereo(ctx context.Context, j *jobs.Job) (*Result, error
 		return nil, err
 	}
 	return EncodeFormats(f, j.Formats)
+}
+
+// loadRig reads and parses the stored rig file under key.
+func (s *Runner) loadRig(ctx context.Context, key string) (*calib.Rig, error) {
+	rc, err := s.blobs.Get(ctx, key)
+	if err != nil {
+		return nil, fmt.Errorf("stored rig file: %w", err)
+	}
+	b, err := io.ReadAll(io.LimitReader(rc, 1<<20))
+	rc.Close()
+	if err != nil {
+		return nil, fmt.Errorf("stored rig file: %w", err)
+	}
+	rf, err := calib.ParseRig(b)
+	if err != nil {
+		return nil, &FieldError{Field: "rig", Detail: err.Error()}
+	}
+	return rf.Rig(), nil
 }

@@ -425,6 +425,11 @@ func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 	if j.Kind == jobs.Stereo {
 		return s.computeStereo(ctx, j)
 	}
+	if j.Kind == jobs.Frame {
+		if sr, err := s.store.Series(ctx, j.Series); err == nil && sr.Kind == jobs.Stereo {
+			return s.computeStereoFrame(ctx, j, sr)
+		}
+	}
 	if fa, ok := s.cfg.Analyzer.(FrameAnalyzer); ok && j.Kind == jobs.Frame {
 		return s.computeFrame(ctx, j, fa, progress)
 	}

@@ -57,6 +57,9 @@ type Params struct {
 	Area float64 `json:"area_mm2,omitempty"`
 	// Properties select the material properties (see series.PropsParams).
 	Properties series.PropsParams `json:"properties"`
+	// Threads caps the correlation's goroutines (0 = all cores); results
+	// do not depend on it, and it is not stored.
+	Threads int `json:"-"`
 }
 
 // components are the gauge components a stereo gauge can average.
@@ -71,6 +74,7 @@ func (p Params) Options(w, h int) (stereo.Options, error) {
 	}
 	o := stereo.Options{Correlate: correlate.Options{Subset: p.Subset, Step: p.Step, Interp: spline.Quintic, Prefilter: pf},
 		MinDepth: p.MinDepth, MaxDepth: p.MaxDepth}
+	o.Correlate.Threads = p.Threads
 	if p.ROI != nil {
 		m, err := p.ROI.Mask(w, h)
 		if err != nil {
@@ -217,7 +221,7 @@ func New(ctx context.Context, rig *calib.Rig, left, right *imageio.Gray, meta se
 		return nil, fmt.Errorf("stereo series: %w", err)
 	}
 	s := &Series{p: p, ref: ref, frame: fr, l0: left, r0: right}
-	s.curve.Params = series.Params{Extensometers: p.Extensometers, Gauges: p.Gauges, Area: p.Area, Properties: p.Properties, Units: "px"}
+	s.curve.Params = curveParams(p)
 	row := s.row(0, meta, nil, nil)
 	s.curve.Rows = append(s.curve.Rows, row)
 	return s, nil

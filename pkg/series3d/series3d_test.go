@@ -1,7 +1,9 @@
 package series3d
 
 import (
+	"bytes"
 	"context"
+	"encoding/json"
 	"image"
 	"math"
 	"strings"
@@ -119,17 +121,45 @@ func TestTensileSeries(t *testing.T) {
 		Properties: series.PropsParams{Axial: "axial", Transverse: "width", ModulusRange: [2]float64{0.0005, 0.0045}},
 	}
 	ctx := context.Background()
-	l, r := render(t, pat, 0, 0)
+	l0, r0 := render(t, pat, 0, 0)
 	// The mask of the ROI.
-	s, err := New(ctx, rg, l, r, series.FrameMeta{Name: "f0", Load: new(float64)}, withROI(t, p))
+	s, err := New(ctx, rg, l0, r0, series.FrameMeta{Name: "f0", Load: new(float64)}, withROI(t, p))
 	if err != nil {
 		t.Fatal(err)
 	}
+	var saved []byte
 	for i := 1; i <= 5; i++ {
 		ea := 0.001 * float64(i)
 		load := modulus * ea * area
 		l, r := render(t, pat, ea, i)
-		if _, _, err := s.Add(ctx, l, r, series.FrameMeta{Name: "f" + string(rune('0'+i)), Load: &load}); err != nil {
+		meta := series.FrameMeta{Name: "f" + string(rune('0'+i)), Load: &load}
+		if i == 5 {
+			// A series restored from its saved state in another process
+			// (series3d.Restore: nothing matched again) goes on exactly
+			// as the one it was saved from.
+			st, err := UnmarshalState(saved)
+			if err != nil {
+				t.Fatal(err)
+			}
+			again, err := Restore(rg, l0, r0, withROI(t, p), st)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if _, _, err := again.Add(ctx, l, r, meta); err != nil {
+				t.Fatal(err)
+			}
+			defer func() {
+				a, _ := json.Marshal(again.Curve().Rows)
+				b, _ := json.Marshal(s.Curve().Rows)
+				if !bytes.Equal(a, b) || len(a) < 1000 {
+					t.Errorf("restored series' curve differs from the original's:\n%s\n%s", a, b)
+				}
+			}()
+		}
+		if _, _, err := s.Add(ctx, l, r, meta); err != nil {
+			t.Fatal(err)
+		}
+		if saved, err = s.MarshalState(); err != nil {
 			t.Fatal(err)
 		}
 	}

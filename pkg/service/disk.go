@@ -161,7 +161,7 @@ func storesData(r *http.Request) bool {
 	}
 	p := r.URL.Path
 	switch {
-	case p == "/v1/stream-tickets", p == "/v1/images/check", p == "/v1/calibrations", p == "/v1/stereo/series", strings.HasSuffix(p, "/cancel"):
+	case p == "/v1/stream-tickets", p == "/v1/images/check", p == "/v1/calibrations", strings.HasSuffix(p, "/cancel"):
 		return false
 	}
 	return strings.HasPrefix(p, "/v1/")

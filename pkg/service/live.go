@@ -158,6 +158,12 @@ func (s *Server) liveOrEnded(w http.ResponseWriter, r *http.Request, sr *jobs.Se
 // body (series.LiveOptions; empty = defaults). A series already live
 // keeps its session: 409.
 func (s *Server) postLive(w http.ResponseWriter, r *http.Request, sr *jobs.Series) {
+	if sr.Kind == jobs.Stereo {
+		writeProblem(w, r, problem(http.StatusConflict, "live-stereo", "No live mode for stereo series",
+			"live mode tracks frames of one camera; a stereo series takes its pairs at /v1/series/"+sr.ID+"/frames (a left and a right part each)",
+			FieldProblem{"id", "use a 2D series for live mode, or post the pairs as frames"}))
+		return
+	}
 	if s.liveSession(sr.ID) != nil {
 		writeProblem(w, r, problem(http.StatusConflict, "live-started", "Live mode already started",
 			"the series is already live; send frames to its live/frames route"))
@@ -318,7 +324,7 @@ func ms(d time.Duration) float64 { return float64(d.Microseconds()) / 1000 }
 
 // queueLive appends live frame index as a frame job (ls.mu held).
 func (s *Server) queueLive(ctx context.Context, sr *jobs.Series, ls *liveSession, index int, f liveFrame) (*jobs.Job, error) {
-	j, _, err := s.queueFrame(ctx, sr, jobs.NewID(), nil, f.body, f.name, f.t, f.l)
+	j, _, err := s.queueFrame(ctx, sr, jobs.NewID(), nil, map[string][]byte{"deformed": f.body}, f.name, f.t, f.l)
 	if err != nil {
 		return nil, err
 	}

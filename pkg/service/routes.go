@@ -57,7 +57,7 @@ func (s *Server) routes() http.Handler {
 		r.Post("/v1/images/check", s.checkImage)
 		r.Post("/v1/calibrations", s.postCalibration)
 		r.Post("/v1/stereo", s.idempotent("stereo", s.postStereo))
-		r.Post("/v1/stereo/series", s.postStereoSeries)
+		r.Post("/v1/stereo/series", s.idempotent("series", s.postStereoSeries))
 		r.Delete(analysisPath, s.analysis(s.deleteAnalysis))
 		r.Patch(analysisPath, s.analysis(s.renameAnalysis))
 		r.Get(analysisPath+"/thumb.png", s.analysis(s.analysisThumb))

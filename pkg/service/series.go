@@ -179,10 +179,11 @@ var errReserve = errors.New("reserving the frame index")
 // queueFrame reserves the next frame index of sr for a new frame job with
 // id (newID of the request), stores the job and enqueues it. With index
 // not nil the frame must get that index, else errIndex (and next, the
-// index that comes next). A job of that id already among the frames (a
+// index that comes next). inputs are the frame's images by input name
+// ("deformed"; a stereo frame also "right_deformed"). A job of that id already among the frames (a
 // repeat under an Idempotency-Key whose first request died after
 // reserving) keeps its index; one already stored is returned as it is.
-func (s *Server) queueFrame(ctx context.Context, sr *jobs.Series, id string, index *int, body []byte, name string, tm, load *float64) (j *jobs.Job, next int, err error) {
+func (s *Server) queueFrame(ctx context.Context, sr *jobs.Series, id string, index *int, inputs map[string][]byte, name string, tm, load *float64) (j *jobs.Job, next int, err error) {
 	j = &jobs.Job{ID: id, Kind: jobs.Frame, State: jobs.Queued, Project: sr.Project, Owner: caller(ctx).Name, Params: sr.Params, Width: sr.Width, Height: sr.Height,
 		HasMask: sr.HasMask, Series: sr.ID, Time: tm, Load: load, Name: name, Formats: sr.Formats, Created: time.Now().UTC()}
 	// Reserve the next frame index; give it back if the job is not accepted.
@@ -206,7 +207,7 @@ func (s *Server) queueFrame(ctx context.Context, sr *jobs.Series, id string, ind
 	if err != nil {
 		return nil, 0, fmt.Errorf("%w: %w", errReserve, err)
 	}
-	if err := s.accept(ctx, j, map[string][]byte{"deformed": body}); errors.Is(err, jobs.ErrExists) {
+	if err := s.accept(ctx, j, inputs); errors.Is(err, jobs.ErrExists) {
 		j, err = s.store.Job(ctx, j.ID)
 		return j, 0, err
 	} else if err != nil {
@@ -247,30 +248,27 @@ func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 		writeProblem(w, r, err.(*Problem))
 		return
 	}
-	body, g, err := s.readRawImage(w, r, "the frame")
+	inputs, fname, err := s.readFrame(w, r, sr)
 	if err != nil {
 		writeProblem(w, r, asProblem(err, "body"))
 		return
 	}
-	if g.W != sr.Width || g.H != sr.Height {
-		writeProblem(w, r, problem(http.StatusUnprocessableEntity, "unusable-images", "Images cannot be correlated",
-			fmt.Sprintf("the frame is %d×%d px but the series reference is %d×%d px", g.W, g.H, sr.Width, sr.Height),
-			FieldProblem{"body", "send frames from the same camera at the same resolution and crop as the reference"}))
-		return
+	if name == "" {
+		name = fname
 	}
 	ctx := r.Context()
 	if index != nil && *index < len(sr.Frames) {
-		s.storedFrame(w, r, sr, *index, body, opts.wait)
+		s.storedFrame(w, r, sr, *index, inputs, opts.wait)
 		return
 	}
 	if p := s.checkFrameTime(ctx, sr, opts.time); p != nil {
 		writeProblem(w, r, p)
 		return
 	}
-	j, next, err := s.queueFrame(ctx, sr, newID(r), index, body, name, opts.time, opts.load)
+	j, next, err := s.queueFrame(ctx, sr, newID(r), index, inputs, name, opts.time, opts.load)
 	switch {
 	case errors.Is(err, errIndex) && *index < next: // another request stored it meanwhile
-		s.storedFrame(w, r, sr, *index, body, opts.wait)
+		s.storedFrame(w, r, sr, *index, inputs, opts.wait)
 		return
 	case errors.Is(err, errIndex):
 		writeProblem(w, r, indexProblem(*index, next))
@@ -287,6 +285,25 @@ func (s *Server) postFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Seri
 	s.answerJob(w, r, j, opts.wait)
 }
 
+// readFrame reads the images of a frame of sr: the raw body of a 2D
+// series, or the left and right parts of a stereo series. It returns them
+// by input name and the file name the frame came with, if any.
+func (s *Server) readFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Series) (map[string][]byte, string, error) {
+	if sr.Kind == jobs.Stereo {
+		return s.readStereoFrame(w, r, sr)
+	}
+	body, g, err := s.readRawImage(w, r, "the frame")
+	if err != nil {
+		return nil, "", err
+	}
+	if g.W != sr.Width || g.H != sr.Height {
+		return nil, "", problem(http.StatusUnprocessableEntity, "unusable-images", "Images cannot be correlated",
+			fmt.Sprintf("the frame is %d×%d px but the series reference is %d×%d px", g.W, g.H, sr.Width, sr.Height),
+			FieldProblem{"body", "send frames from the same camera at the same resolution and crop as the reference"})
+	}
+	return map[string][]byte{"deformed": body}, "", nil
+}
+
 var errIndex = errors.New("frame index out of order")
 
 func indexProblem(index, next int) *Problem {
@@ -297,7 +314,7 @@ func indexProblem(index, next int) *Problem {
 
 // storedFrame answers a frame sent with ?index= of a frame already stored:
 // with that frame if the image is the same (a repeat), else 409.
-func (s *Server) storedFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Series, index int, body []byte, wait bool) {
+func (s *Server) storedFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Series, index int, inputs map[string][]byte, wait bool) {
 	ctx := r.Context()
 	cur, err := s.store.Series(ctx, sr.ID)
 	if err != nil {
@@ -309,16 +326,20 @@ func (s *Server) storedFrame(w http.ResponseWriter, r *http.Request, sr *jobs.Se
 		return
 	}
 	j, err := s.store.Job(ctx, cur.Frames[index])
-	var stored []byte
-	if err == nil {
-		stored, err = s.readBlob(ctx, jobs.InputKey(j.ID, "deformed"))
+	same := true
+	for name, body := range inputs {
+		var stored []byte
+		if err == nil {
+			stored, err = s.readBlob(ctx, jobs.InputKey(j.ID, name))
+		}
+		same = same && bytes.Equal(stored, body)
 	}
 	if err != nil {
 		// Reserved but not (yet) stored: not a frame to answer with.
 		writeProblem(w, r, indexProblem(index, len(cur.Frames)))
 		return
 	}
-	if !bytes.Equal(stored, body) {
+	if !same {
 		p := indexProblem(index, len(cur.Frames))
 		p.Detail = fmt.Sprintf("frame %d is stored already with another image; the next index is %d", index, len(cur.Frames))
 		writeProblem(w, r, p)
@@ -456,6 +477,10 @@ func frameName(file, def string) string {
 // the last frame that succeeded, or, for an analyzer without a series
 // engine, rows made from the frames' summaries.
 func (s *Server) seriesCurve(ctx context.Context, sr *jobs.Series) (series.Curve, error) {
+	if sr.Kind == jobs.Stereo {
+		c, _, err := s.stereoSeriesCurve(ctx, sr)
+		return c, err
+	}
 	p, err := decodeSeriesParams(sr.Params)
 	if err != nil {
 		return series.Curve{}, err

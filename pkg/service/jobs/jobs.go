@@ -163,6 +163,10 @@ type Job struct {
 // SeriesKey(ID, "reference")), parameters, and its frames in order.
 type Series struct {
 	ID string `json:"id"`
+	// Kind is what the series measures: empty for a 2D series (one
+	// camera, frames of one image), Stereo for a stereo series (a rig,
+	// a reference pair and frames of a left and a right image).
+	Kind Kind `json:"kind,omitempty"`
 	// Project and Owner are those of Job.
 	Project string `json:"project,omitempty"`
 	Owner   string `json:"owner,omitempty"`
