@@ -19,7 +19,7 @@ type Saved struct {
 	W, H int
 	// Values holds savedValues numbers per point, in the order of
 	// savedValues' comment; Status and Match the point's statuses.
-	Values        Floats  `json:"values"`
+	Values        Floats `json:"values"`
 	Status, Match []uint8
 }
 

@@ -475,6 +475,20 @@ func TestQueueDeadLetters(t *testing.T) {
 	if err := d.Ack(); err != nil {
 		t.Fatal(err)
 	}
+	// A failed stereo job goes under its own kind, not "unknown".
+	st := newJob(jobs.Stereo, "", 0)
+	w2.Store().CreateJob(ctx, st)
+	w2.Queue().Enqueue(ctx, st.ID)
+	d = mustDequeue(t, w2.Queue(), "the stereo job")
+	fin2 := time.Now().UTC()
+	w2.Store().UpdateJob(ctx, st.ID, func(j *jobs.Job) error {
+		j.State, j.Finished = jobs.Failed, &fin2
+		j.Error = &jobs.Failure{Title: "Invalid input", Detail: "rig: calibrated on 640×480 px images", Field: "rig"}
+		return nil
+	})
+	if err := d.Ack(); err != nil {
+		t.Fatal(err)
+	}
 
 	// A job whose worker dies on every delivery is failed on the last one.
 	j := newJob(jobs.Frame, jobs.NewID(), 3)
@@ -500,11 +514,16 @@ func TestQueueDeadLetters(t *testing.T) {
 		t.Fatalf("record after the last delivery: %+v %+v", got, got.Error)
 	}
 	dls, err := w2.DeadLetters(ctx)
-	if err != nil || len(dls) != 2 {
-		t.Fatalf("dead letters %+v, %v; want 2", dls, err)
+	if err != nil || len(dls) != 3 {
+		t.Fatalf("dead letters %+v, %v; want 3", dls, err)
 	}
-	if dls[0].Job != bad.ID || dls[0].Error.Field != "params.subset" || dls[1].Job != j.ID || dls[1].Kind != jobs.Frame || dls[1].Deliveries != 2 {
-		t.Errorf("dead letters %+v %+v", dls[0], dls[1])
+	if dls[0].Job != bad.ID || dls[0].Error.Field != "params.subset" || dls[2].Job != j.ID || dls[2].Kind != jobs.Frame || dls[2].Deliveries != 2 {
+		t.Errorf("dead letters %+v %+v", dls[0], dls[2])
+	}
+	for k, kind := range []jobs.Kind{jobs.Analysis, jobs.Stereo, jobs.Frame} {
+		if dl := dls[k]; dl.Kind != kind || !strings.HasSuffix(dl.Subject, ".dead."+string(kind)) {
+			t.Errorf("dead letter %d: kind %s on subject %q; want %s on <prefix>.dead.%[3]s", k, dl.Kind, dl.Subject, kind)
+		}
 	}
 	if n, _ := w2.Pending(ctx); n != 0 {
 		t.Errorf("stream holds %d messages, want 0", n)

@@ -20,7 +20,7 @@ import (
 const (
 	// HeaderJob carries the job id.
 	HeaderJob = "Mottle-Job"
-	// HeaderKind carries the job kind ("analysis" or "frame").
+	// HeaderKind carries the job kind ("analysis", "frame" or "stereo").
 	HeaderKind = "Mottle-Kind"
 	// HeaderReason carries a dead letter's failure reason.
 	HeaderReason = "Mottle-Reason"
@@ -85,6 +85,9 @@ type DeadLetter struct {
 	Deliveries uint64        `json:"deliveries"`
 	Error      *jobs.Failure `json:"error"`
 	Time       time.Time     `json:"time"`
+	// Subject is the subject the dead letter was stored under (filled
+	// in by DeadLetters, not part of the body).
+	Subject string `json:"-"`
 }
 
 // Enqueue implements jobs.Queue: it publishes the id on the subject of the
@@ -368,7 +371,9 @@ func (q *Queue) deadLetter(ctx context.Context, j *jobs.Job, delivered uint64) e
 		return err
 	}
 	kind := j.Kind
-	if kind != jobs.Analysis && kind != jobs.Frame {
+	switch kind {
+	case jobs.Analysis, jobs.Frame, jobs.Stereo:
+	default:
 		kind = "unknown"
 	}
 	m := &nats.Msg{Subject: q.b.n.deadSubject(kind), Data: data, Header: nats.Header{}}
@@ -417,6 +422,7 @@ func (b *Backend) DeadLetters(ctx context.Context) ([]DeadLetter, error) {
 		if err := json.Unmarshal(m.Data, &dl); err != nil {
 			return out, fmt.Errorf("dead letter %d: %w", seq, err)
 		}
+		dl.Subject = m.Subject
 		out = append(out, dl)
 	}
 	return out, nil
