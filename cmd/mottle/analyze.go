@@ -192,6 +192,26 @@ func limitHint(err error, limit int64) error {
 	return err
 }
 
+// readPair decodes the reference and the deformed image files, both at
+// once; an error names the image (the reference's first when both fail).
+func readPair(ref, def string, lim imageio.Limits) (r, d *imageio.Gray, err error) {
+	var derr error
+	done := make(chan struct{})
+	go func() {
+		defer close(done)
+		d, derr = imageio.ReadFile(def, lim)
+	}()
+	r, err = imageio.ReadFile(ref, lim)
+	<-done
+	if err != nil {
+		return nil, nil, fmt.Errorf("reference image: %w", limitHint(err, lim.MaxPixels))
+	}
+	if derr != nil {
+		return nil, nil, fmt.Errorf("deformed image: %w", limitHint(derr, lim.MaxPixels))
+	}
+	return r, d, nil
+}
+
 // checkWritable creates the folder dir if needed and makes sure a file can
 // be written in it, so that a long run does not fail only at the end.
 func checkWritable(dir string) error {
@@ -240,13 +260,9 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	}
 	lim := imageio.DefaultLimits()
 	lim.MaxPixels = *maxPix
-	r, err := imageio.ReadFile(*ref, lim)
+	r, d, err := readPair(*ref, *def, lim)
 	if err != nil {
-		return fmt.Errorf("reference image: %w", limitHint(err, lim.MaxPixels))
-	}
-	d, err := imageio.ReadFile(*def, lim)
-	if err != nil {
-		return fmt.Errorf("deformed image: %w", limitHint(err, lim.MaxPixels))
+		return err
 	}
 	orient, err := orientPair(e.stdout, &r, &d, *def)
 	if err != nil {
@@ -266,10 +282,8 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 			return err
 		}
 	}
-	if job.Quality, err = assessImages(job); err != nil {
-		return err
-	}
-	printQuality(e.stdout, job.Quality)
+	// RunJob assesses the image quality while it correlates (the checks
+	// only read the images); the report is printed when both are done.
 	pb := newBar(e, "correlating", "points")
 	job.Progress = pb.update
 	res, err := analysis.RunJob(ctx, job)
@@ -277,6 +291,7 @@ func runAnalyze(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
+	printQuality(e.stdout, res.Quality)
 	recordSources(res.Field, *ref, *def)
 	if !orient.Upright() {
 		res.Field.Meta.Extra["orientation"] = orient.Meta()

@@ -172,17 +172,6 @@ func writeChoice(dir string, c *quality.SubsetChoice) error {
 	return errors.Join(cw.Error(), f.Close())
 }
 
-// assessImages assesses the two images of job over its ROI. When the
-// parameters do not make a valid ROI it returns nil, so that the analysis
-// reports the parameter problems itself.
-func assessImages(job analysis.Job) ([]quality.Report, error) {
-	opt, err := analysis.CorrelationOptions(job.Params, job.Ref.W, job.Ref.H, job.Mask)
-	if err != nil {
-		return nil, nil
-	}
-	return quality.AssessPair(job.Ref, job.Def, opt.Mask, quality.Thresholds{})
-}
-
 // printFlagged prints the frames of a series flagged for a drop of image
 // quality, with the first warning of each.
 func printFlagged(w io.Writer, c series.Curve) {

@@ -228,6 +228,12 @@ func grayToImage(g *imageio.Gray) *image.Gray {
 	for y := 0; y < g.H; y++ {
 		row := g.Pix[y*g.Stride : y*g.Stride+g.W]
 		for x, v := range row {
+			if k == 1 && lo == 0 && v >= 0 && v <= 255 && v == float32(uint8(v)) {
+				// An 8-bit level is its own grey (what the general
+				// formula gives, without its float rounding).
+				out.Pix[y*out.Stride+x] = uint8(v)
+				continue
+			}
 			f := (float64(v) - lo) * k
 			if math.IsNaN(f) {
 				f = 0

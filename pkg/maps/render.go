@@ -126,7 +126,24 @@ type Options struct {
 	// nothing. Render and Overlay also do this, with the automatic range
 	// [0, 1], for the quantities where Binary(Quantity) is true.
 	Steps bool
+	// Indexed draws an opaque map (Opacity 0 or 1) on a palette of 256
+	// colours (Map.Indexed instead of Map.Image), which is drawn and
+	// encoded to PNG several times faster than full colour. The precision
+	// it gives up: the colour map in IndexedSteps steps (each value takes
+	// the colour of the nearest step; the full-colour map interpolates the
+	// colour map continuously), every grey (background image, text, paper)
+	// on one of 65 levels, within 2 of the 256 levels of 8 bits. A map
+	// with another opacity is drawn in full colour.
+	Indexed bool
 }
+
+// IndexedSteps is the number of colours of the colour map in an indexed
+// map (Options.Indexed): odd, so that a diverging map's neutral centre is
+// one of them.
+const IndexedSteps = 191
+
+// indexedGreys is the number of grey levels of an indexed map's palette.
+const indexedGreys = 256 - IndexedSteps
 
 // steps reports whether the map is drawn as nearest-point steps.
 func (o Options) steps() bool { return o.Steps || Binary(o.Quantity) }
@@ -171,8 +188,12 @@ func (o Options) colormap() Colormap {
 
 // Map is a rendered map and where its parts lie in the image.
 type Map struct {
-	// Image is the whole rendered map.
+	// Image is the whole rendered map in full colour; nil when the map was
+	// drawn indexed (Indexed).
 	Image *image.RGBA
+	// Indexed is the whole rendered map on a palette of 256 colours when
+	// Options.Indexed drew it so; nil otherwise.
+	Indexed *image.Paletted
 	// Picture is the rectangle of Image holding the (scaled) background.
 	Picture image.Rectangle
 	// ScaleX and ScaleY are output pixels per image pixel along x and y.
@@ -186,6 +207,15 @@ type Map struct {
 	AutoRange bool
 	// Colormap is the colour map used.
 	Colormap Colormap
+}
+
+// Raster returns the rendered map: Indexed when it was drawn indexed,
+// else Image.
+func (m *Map) Raster() image.Image {
+	if m.Indexed != nil {
+		return m.Indexed
+	}
+	return m.Image
 }
 
 // ImagePoint returns the background-image coordinates of the centre of
@@ -275,13 +305,26 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 		title = opt.Quantity
 	}
 	textW := max(textWidth(face, title), textWidth(face, opt.Note))
-	m := &Map{Image: lay.canvas(fixedW, textW, opt.MaxWidth), Picture: lay.pic, ScaleX: lay.sx, ScaleY: lay.sy, Range: [2]float64{lo, hi}, AutoRange: auto, Colormap: cm}
-	dst := m.Image
-	lay.drawBackground(dst, bg)
-
-	// Field: values per output pixel, then colours, then composite.
-	field := colorize(rasterize(l, lay, opt.steps()), lay.pic.Dx(), lay.pic.Dy(), cm, norm)
-	draw.DrawMask(dst, lay.pic, field, image.Point{}, image.NewUniform(color.Alpha{A: uint8(math.Round(opacity * 255))}), image.Point{}, draw.Over)
+	m := &Map{Picture: lay.pic, ScaleX: lay.sx, ScaleY: lay.sy, Range: [2]float64{lo, hi}, AutoRange: auto, Colormap: cm}
+	var dst draw.Image
+	// bar fills r with the colour of position t of the colour map.
+	var bar func(r image.Rectangle, t float64)
+	if opt.Indexed && opacity == 1 {
+		pal := newIndexed(cm)
+		m.Indexed = pal.canvas(lay.size(fixedW, textW, opt.MaxWidth))
+		dst = m.Indexed
+		pal.drawBackground(m.Indexed, lay, bg)
+		pal.drawField(m.Indexed, lay.pic, rasterize(l, lay, opt.steps()), norm)
+		bar = func(r image.Rectangle, t float64) { pal.fill(m.Indexed, r, pal.color(t)) }
+	} else {
+		m.Image = lay.canvas(fixedW, textW, opt.MaxWidth)
+		dst = m.Image
+		lay.drawBackground(m.Image, bg)
+		// Field: values per output pixel, then colours, then composite.
+		field := colorize(rasterize(l, lay, opt.steps()), lay.pic.Dx(), lay.pic.Dy(), cm, norm)
+		draw.DrawMask(m.Image, lay.pic, field, image.Point{}, image.NewUniform(color.Alpha{A: uint8(math.Round(opacity * 255))}), image.Point{}, draw.Over)
+		bar = func(r image.Rectangle, t float64) { fillRect(m.Image, r, cm.At(t)) }
+	}
 
 	// Title.
 	lh, asc := lineHeight(face)
@@ -298,7 +341,7 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 	bh := barBot - barTop
 	for r := 0; r < bh; r++ {
 		v := hi - (float64(r)+0.5)/float64(bh)*(hi-lo)
-		fillRect(dst, image.Rect(x0, barTop+r, x0+barWidth, barTop+r+1), cm.At(norm.T(v)))
+		bar(image.Rect(x0, barTop+r, x0+barWidth, barTop+r+1), norm.T(v))
 	}
 	strokeRect(dst, m.ColorBar, frame)
 	for _, t := range ticks {
@@ -367,14 +410,19 @@ func newLayout(w, h, fixedW, maxWidth int, face font.Face, title bool) (*layout,
 // The width grows to fit text lines of width textW (title, note) up to
 // maxWidth when that is set.
 func (l *layout) canvas(fixedW, textW, maxWidth int) *image.RGBA {
+	img := image.NewRGBA(l.size(fixedW, textW, maxWidth))
+	fillRect(img, img.Bounds(), paper)
+	return img
+}
+
+// size returns the bounds of the output image (see canvas).
+func (l *layout) size(fixedW, textW, maxWidth int) image.Rectangle {
 	W := max(l.pic.Max.X+fixedW-pad, pad+textW+pad)
 	if maxWidth > 0 {
 		W = min(W, max(maxWidth, l.pic.Max.X+fixedW-pad))
 	}
 	H := l.top + l.contentH + l.footH + pad
-	img := image.NewRGBA(image.Rect(0, 0, W, H))
-	fillRect(img, img.Bounds(), paper)
-	return img
+	return image.Rect(0, 0, W, H)
 }
 
 // drawBackground draws bg scaled into the picture rectangle (Catmull–Rom,
@@ -393,7 +441,7 @@ func (l *layout) drawBackground(dst *image.RGBA, bg *imageio.Gray) {
 }
 
 // drawFooter draws the scale bar and the note under the picture row.
-func (l *layout) drawFooter(dst *image.RGBA, face font.Face, sb ScaleBar, w int, note string) {
+func (l *layout) drawFooter(dst draw.Image, face font.Face, sb ScaleBar, w int, note string) {
 	lh, asc := lineHeight(face)
 	y := l.top + l.contentH + 8
 	if !sb.Hide {
@@ -556,6 +604,10 @@ func fillCell(vals []float64, pw, ph int, q [4][2]float64, v [4]float64, steps b
 	// image) inverts in closed form; other cells by Newton's method.
 	rect := q[0][1] == q[1][1] && q[3][1] == q[2][1] && q[0][0] == q[3][0] && q[1][0] == q[2][0] &&
 		q[1][0] > q[0][0] && q[3][1] > q[0][1]
+	if rect && x1 >= x0 {
+		fillRectCell(vals, pw, x0, x1, y0, y1, q, v, steps)
+		return
+	}
 	for py := y0; py <= y1; py++ {
 		for px := x0; px <= x1; px++ {
 			idx := py*pw + px
@@ -578,6 +630,30 @@ func fillCell(vals []float64, pw, ph int, q [4][2]float64, v [4]float64, steps b
 				continue
 			}
 			vals[idx] = (1-a)*(1-b)*v[0] + a*(1-b)*v[1] + a*b*v[2] + (1-a)*b*v[3]
+		}
+	}
+}
+
+// fillRectCell is fillCell for an axis-aligned rectangular cell q over the
+// pixels x0..x1, y0..y1: the same values, with each column's a and each
+// row's b computed once.
+func fillRectCell(vals []float64, pw, x0, x1, y0, y1 int, q [4][2]float64, v [4]float64, steps bool) {
+	as := make([]float64, x1-x0+1)
+	for px := x0; px <= x1; px++ {
+		as[px-x0] = math.Max(0, math.Min(1, (float64(px)-q[0][0])/(q[1][0]-q[0][0])))
+	}
+	for py := y0; py <= y1; py++ {
+		b := math.Max(0, math.Min(1, (float64(py)-q[0][1])/(q[3][1]-q[0][1])))
+		row := vals[py*pw+x0 : py*pw+x1+1]
+		for i, a := range as {
+			if !math.IsNaN(row[i]) {
+				continue
+			}
+			if steps {
+				row[i] = v[[2][2]int{{0, 3}, {1, 2}}[int(math.Round(a))][int(math.Round(b))]]
+				continue
+			}
+			row[i] = (1-a)*(1-b)*v[0] + a*(1-b)*v[1] + a*b*v[2] + (1-a)*b*v[3]
 		}
 	}
 }

@@ -268,7 +268,7 @@ func Outputs(f *field.Field, src Sources, set Set) []Output {
 				}
 				seen[name] = true
 				add(fm.Name, name, func(w io.Writer) error {
-					b, err := RenderMap(f, bg, MapRequest{Quantity: q, OnDeformed: on, MaxWidth: MapWidth})
+					b, err := RenderMap(f, bg, MapRequest{Quantity: q, OnDeformed: on, MaxWidth: MapWidth, Indexed: true})
 					if err == nil {
 						_, err = w.Write(b)
 					}
@@ -302,8 +302,18 @@ func WriteImagePNG(w io.Writer, g *imageio.Gray) error {
 
 // run calls fn for every output on up to GOMAXPROCS goroutines and returns
 // the errors in output order. Outputs are independent, so the files do
-// not depend on the scheduling.
+// not depend on the scheduling. The PNG pictures, the slowest outputs,
+// start first, so that the data files fill the gaps beside them instead
+// of keeping a picture waiting.
 func run(ctx context.Context, outs []Output, fn func(Output) error) []error {
+	order := make([]int, 0, len(outs))
+	for pass := range 2 {
+		for i, o := range outs {
+			if strings.HasSuffix(o.Name, ".png") == (pass == 0) {
+				order = append(order, i)
+			}
+		}
+	}
 	errs := make([]error, len(outs))
 	next := make(chan int)
 	var wg sync.WaitGroup
@@ -316,7 +326,7 @@ func run(ctx context.Context, outs []Output, fn func(Output) error) []error {
 			}
 		}()
 	}
-	for i := range outs {
+	for _, i := range order {
 		if err := ctx.Err(); err != nil {
 			errs[i] = err
 			continue

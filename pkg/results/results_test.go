@@ -4,6 +4,8 @@ import (
 	"bytes"
 	"context"
 	"errors"
+	"image"
+	"image/png"
 	"io/fs"
 	"math"
 	"os"
@@ -202,6 +204,45 @@ func TestOnDemand(t *testing.T) {
 	})
 	if err != nil || n < 40 {
 		t.Errorf("compared %d files (%v)", n, err)
+	}
+}
+
+// The maps of a results folder are indexed PNGs (RenderMap's Indexed),
+// and a map asked for on its own is in full colour; both show the same
+// field within the indexed map's documented precision (pkg/maps checks
+// that pixel by pixel).
+func TestFolderMapsIndexed(t *testing.T) {
+	f, bg := benchCase(t, 200, 160, 8)
+	set, _ := ParseFormats("default")
+	files, err := Encode(context.Background(), f, Sources{Ref: bg, Def: bg}, set)
+	if err != nil {
+		t.Fatal(err)
+	}
+	n := 0
+	for name, b := range files {
+		if !strings.HasSuffix(name, ".png") {
+			continue
+		}
+		n++
+		img, err := png.Decode(bytes.NewReader(b))
+		if err != nil {
+			t.Fatalf("%s: %v", name, err)
+		}
+		if p, ok := img.(*image.Paletted); !ok || len(p.Palette) != 256 {
+			t.Errorf("%s decodes to %T; want a 256-colour paletted image", name, img)
+		}
+	}
+	if n == 0 {
+		t.Fatalf("the default set wrote no map: %v", files)
+	}
+	b, err := RenderMap(f, bg, MapRequest{Quantity: "E11", MaxWidth: MapWidth})
+	if err != nil {
+		t.Fatal(err)
+	}
+	if img, err := png.Decode(bytes.NewReader(b)); err != nil {
+		t.Fatal(err)
+	} else if _, ok := img.(*image.Paletted); ok {
+		t.Errorf("RenderMap without Indexed gave a paletted PNG; want full colour")
 	}
 }
 

@@ -97,11 +97,11 @@ func WriteFrameFormats(ctx context.Context, dir string, fr *Frame, p Params, ref
 }
 
 // writeMap draws quantity q of the frame field f over img, at the deformed
-// positions, with the one map renderer.
+// positions, with the one map renderer, indexed as a results folder's maps.
 func writeMap(path string, f *field.Field, img *imageio.Gray, q string) error {
 	title := fmt.Sprintf("%s, frame %v (%v)", q, f.Meta.Extra["frame_index"], f.Meta.Extra["mode"])
 	b, err := results.RenderMap(f, img, results.MapRequest{Quantity: q, OnDeformed: true, MaxWidth: 900, Title: title,
-		Note: "measurement uncertainty applies; see the noise floor in the report"})
+		Note: "measurement uncertainty applies; see the noise floor in the report", Indexed: true})
 	if err != nil {
 		return err
 	}
