@@ -4,7 +4,6 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
-	"math"
 
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/quality"
@@ -134,29 +133,19 @@ type nfloats []float64
 
 // MarshalJSON writes NaN and ±Inf as null.
 func (f nfloats) MarshalJSON() ([]byte, error) {
-	p := make([]*float64, len(f))
-	for i := range f {
-		if finite(f[i]) {
-			p[i] = &f[i]
-		}
-	}
-	return json.Marshal(p)
+	return appendFloats(make([]byte, 0, 2+20*len(f)), f), nil
 }
 
 // UnmarshalJSON reads null as NaN.
 func (f *nfloats) UnmarshalJSON(b []byte) error {
-	var p []*float64
-	if err := json.Unmarshal(b, &p); err != nil {
+	out, err := decodeFloats(b, nil)
+	if err != nil {
 		return err
 	}
-	*f = make(nfloats, len(p))
-	for i, v := range p {
-		if v == nil {
-			(*f)[i] = math.NaN()
-		} else {
-			(*f)[i] = *v
-		}
+	if out == nil {
+		out = nfloats{}
 	}
+	*f = out
 	return nil
 }
 
@@ -167,13 +156,15 @@ func (q PointState) MarshalJSON() ([]byte, error) {
 	if q.Valid {
 		v = 1
 	}
-	return json.Marshal(nfloats{q.X, q.Y, q.F[0], q.F[1], q.F[2], q.F[3], q.ZNCC, q.StdU, q.StdV, v})
+	f := [10]float64{q.X, q.Y, q.F[0], q.F[1], q.F[2], q.F[3], q.ZNCC, q.StdU, q.StdV, v}
+	return appendFloats(make([]byte, 0, 200), f[:]), nil
 }
 
 // UnmarshalJSON reads the form written by MarshalJSON.
 func (q *PointState) UnmarshalJSON(b []byte) error {
-	var f nfloats
-	if err := json.Unmarshal(b, &f); err != nil {
+	var buf [10]float64
+	f, err := decodeFloats(b, buf[:0])
+	if err != nil {
 		return err
 	}
 	if len(f) != 10 {
