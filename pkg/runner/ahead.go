@@ -107,12 +107,12 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 			_ = d.InProgress()
 		}
 	}
-	if in.Ref, err = s.LoadImage(jctx, jobs.SeriesKey(sr.ID, "reference")); err != nil {
+	if in.Ref, err = s.loadSeriesImage(jctx, jobs.SeriesKey(sr.ID, "reference"), nil); err != nil {
 		l.Warn("solve ahead: reference", "error", err)
 		return false
 	}
 	in.Orientation = in.Ref.Orientation
-	if in.Def, err = s.LoadImageAs(jctx, jobs.InputKey(j.ID, "deformed"), in.Orientation); err != nil {
+	if in.Def, err = s.loadSeriesImage(jctx, jobs.InputKey(j.ID, "deformed"), &in.Orientation); err != nil {
 		l.Warn("solve ahead: frame", "error", err)
 		return false
 	}
@@ -137,6 +137,15 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 	s.metrics.solved(time.Since(start).Seconds())
 	l.Debug("frame solved ahead", "seconds", time.Since(start).Seconds())
 	return true
+}
+
+// solveAheadHeld is solveAhead for a frame held since *held: the time a
+// solve takes does not count as held (Stats.HeldSeconds).
+func (s *Runner) solveAheadHeld(ctx context.Context, id string, d jobs.Delivery, held *time.Time) bool {
+	start := time.Now()
+	ok := s.solveAhead(ctx, id, d)
+	*held = held.Add(time.Since(start))
+	return ok
 }
 
 // solvedFor returns the stored solution of frame j, or nil.

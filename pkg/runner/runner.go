@@ -104,6 +104,8 @@ type Runner struct {
 
 	primed primedSet  // images decoded by the handlers (Prime)
 	refq   refQuality // the quality measures of recent references
+	// decoded holds the images of series frames decoded lately.
+	decoded decodedSet
 }
 
 // New checks cfg and returns a runner. It starts nothing: call Start.
@@ -222,6 +224,14 @@ type Stats struct {
 	// finished, and SolveSeconds their compute time.
 	SolvedAhead  uint64
 	SolveSeconds float64
+	// AddedSolved counts the frames added to their series' state from a
+	// solution found ahead, and AddSeconds their compute time: the part
+	// of a frame done in frame order.
+	AddedSolved uint64
+	AddSeconds  float64
+	// HeldSeconds adds up the time frames were held waiting for their
+	// predecessor (solving ahead not counted): workers' idle time.
+	HeldSeconds float64
 }
 
 // Stats returns a copy of the job counters.
@@ -286,6 +296,19 @@ func (m *metrics) inFlight(id string, delta int) {
 	if m.InFlight[id] += delta; m.InFlight[id] <= 0 {
 		delete(m.InFlight, id)
 	}
+}
+
+func (m *metrics) added(seconds float64) {
+	m.mu.Lock()
+	m.AddedSolved++
+	m.AddSeconds += seconds
+	m.mu.Unlock()
+}
+
+func (m *metrics) held(seconds float64) {
+	m.mu.Lock()
+	m.HeldSeconds += seconds
+	m.mu.Unlock()
 }
 
 func (m *metrics) solved(seconds float64) {

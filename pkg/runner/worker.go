@@ -241,9 +241,11 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 	beat := start
 	var idle time.Time // since when the previous frame has been seen not running
 	solved := false
+	held := time.Now() // since when the frame has been held, not solving
+	defer func() { s.metrics.held(time.Since(held).Seconds()) }()
 	for wait := 10 * time.Millisecond; ; wait = min(2*wait, framePoll) {
 		g := s.frameReady(context.Background(), id)
-		if g != gateOpen && !solved && s.solveAhead(ctx, id, d) {
+		if g != gateOpen && !solved && s.solveAheadHeld(ctx, id, d, &held) {
 			solved = true
 			start, beat, idle, wait = s.clock.Now(), s.clock.Now(), time.Time{}, 5*time.Millisecond
 			continue
@@ -378,11 +380,11 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 		in.RefName = sr.ReferenceName
 	}
 	var err error
-	if in.Ref, err = s.LoadImage(ctx, jobs.SeriesKey(j.Series, "reference")); err != nil {
+	if in.Ref, err = s.loadSeriesImage(ctx, jobs.SeriesKey(j.Series, "reference"), nil); err != nil {
 		return nil, err
 	}
 	in.Orientation = in.Ref.Orientation
-	if in.Def, err = s.LoadImageAs(ctx, jobs.InputKey(j.ID, "deformed"), in.Orientation); err != nil {
+	if in.Def, err = s.loadSeriesImage(ctx, jobs.InputKey(j.ID, "deformed"), &in.Orientation); err != nil {
 		return nil, err
 	}
 	last, err := s.lastDone(ctx, j)
@@ -399,11 +401,14 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 		if in.State, err = s.ReadBlob(ctx, StateKey(j.Series, last.FrameIndex)); err != nil {
 			return nil, fmt.Errorf("series state after frame %d: %w; the series cannot continue, start a new series", last.FrameIndex, err)
 		}
-		if in.Last, err = s.LoadImageAs(ctx, jobs.InputKey(last.ID, "deformed"), in.Orientation); err != nil {
+		if in.Last, err = s.loadSeriesImage(ctx, jobs.InputKey(last.ID, "deformed"), &in.Orientation); err != nil {
 			return nil, err
 		}
 	}
-	in.Solved = s.solvedFor(ctx, j)
+	if in.Solved = s.solvedFor(ctx, j); in.Solved != nil {
+		start := time.Now()
+		defer func() { s.metrics.added(time.Since(start).Seconds()) }()
+	}
 	return fa.Frame(ctx, in)
 }
 
