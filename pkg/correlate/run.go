@@ -5,7 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"runtime"
-	"sync/atomic"
+	"time"
 
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/roi"
@@ -36,11 +36,8 @@ type run struct {
 	compN   []int   // size of each component
 	solvers []*solver
 	tmpl    [][]float64 // per-solver template scratch
-	// worker pool
-	items []item
-	next  atomic.Int64
-	start []chan struct{}
-	done  chan struct{}
+	items   []item      // the batch being computed
+	pool    pool
 }
 
 // Run correlates def against ref on a regular grid over the region of
@@ -57,23 +54,31 @@ func Run(ctx context.Context, ref, def *imageio.Gray, opt Options) (*Result, err
 // compare them with the default in the same run; the zero value is what Run
 // uses.
 type tuning struct {
-	direct   bool // interpolate from the B-spline coefficients even when a table would be used
-	portable bool // use the portable table pass even in builds with a vector one
+	direct   bool       // interpolate from the B-spline coefficients even when a table would be used
+	portable bool       // use the portable table pass even in builds with a vector one
+	trace    *poolTrace // record phase and batch timings (benchmarks)
 }
 
 // runWith is Run with the given tuning.
 func runWith(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning) (*Result, error) {
+	tr := tun.trace
+	if tr != nil {
+		tr.t0 = time.Now()
+	}
 	r, err := newRun(ctx, ref, def, opt, tun)
 	if err != nil {
 		return nil, err
 	}
 	defer r.stop()
+	tr.mark("newRun")
 	if err := r.setupGrid(); err != nil {
 		return nil, err
 	}
+	tr.mark("setupGrid")
 	if err := r.tabulate(ctx, r.grid.Len()); err != nil {
 		return nil, err
 	}
+	tr.mark("tabulate")
 	seeds, err := r.seedIndices()
 	if err != nil {
 		return nil, err
@@ -81,9 +86,14 @@ func runWith(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tunin
 	if err := r.propagateAll(ctx, seeds); err != nil {
 		return nil, err
 	}
+	tr.mark("propagate")
+	if tr != nil {
+		tr.sleeps, tr.waits = r.pool.sleeps.Load(), r.pool.waits
+	}
 	res := &Result{Grid: r.grid, Points: r.pts, Options: r.opt}
 	res.Seeds = r.seedLog
 	r.finish(res)
+	tr.mark("finish")
 	return res, nil
 }
 
@@ -160,11 +170,9 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning
 		r.solvers[i].portable = tun.portable
 		r.tmpl[i] = make([]float64, r.solvers[i].n)
 	}
+	r.pool.init()
 	if r.threads > 1 {
-		r.done = make(chan struct{})
-		r.start = make([]chan struct{}, r.threads)
-		for w := range r.start {
-			r.start[w] = make(chan struct{})
+		for w := 1; w < r.threads; w++ {
 			go r.worker(w)
 		}
 	}

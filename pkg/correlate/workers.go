@@ -23,43 +23,6 @@ func parallelFor(n, threads int, f func(i0, i1 int)) {
 	wg.Wait()
 }
 
-func (r *run) stop() {
-	for _, c := range r.start {
-		close(c)
-	}
-}
-
-func (r *run) worker(w int) {
-	s := r.solvers[w]
-	for range r.start[w] {
-		for {
-			k := int(r.next.Add(1) - 1)
-			if k >= len(r.items) {
-				break
-			}
-			r.compute(s, w, &r.items[k])
-		}
-		r.done <- struct{}{}
-	}
-}
-
-// runBatch computes r.items on all workers and waits for them.
-func (r *run) runBatch() {
-	if r.threads <= 1 {
-		for k := range r.items {
-			r.compute(r.solvers[0], 0, &r.items[k])
-		}
-		return
-	}
-	r.next.Store(0)
-	for _, c := range r.start {
-		c <- struct{}{}
-	}
-	for range r.start {
-		<-r.done
-	}
-}
-
 // classify applies the ZNCC threshold to a converged attempt.
 func (r *run) classify(a *attempt) {
 	if a.status == OK && a.zncc < r.opt.MinZNCC {
