@@ -520,3 +520,45 @@ func TestRevokeWhileStreaming(t *testing.T) {
 		t.Error("no event on the open stream")
 	}
 }
+
+// TestListLimitAfterAccess checks that ?limit counts the analyses the
+// caller may read: lab-b's lead asks for the newest two and gets its own
+// two, newest first, although lab-a's three analyses are newer; and the
+// same listing without a limit holds no job of lab-a.
+func TestListLimitAfterAccess(t *testing.T) {
+	l := newLab(t, nil)
+	var b1, b2 string
+	b1 = l.newAnalysis(t, "lead-b", "lab-b")
+	b2 = l.newAnalysis(t, "lead-b", "lab-b")
+	for range 3 {
+		l.newAnalysis(t, "rig", "lab-a")
+	}
+	type list struct {
+		Analyses []jobDoc `json:"analyses"`
+	}
+	for _, c := range []struct {
+		query string
+		want  []string
+	}{
+		{"?limit=2", []string{b2, b1}},
+		{"?limit=1", []string{b2}},
+		{"", []string{b2, b1}},
+	} {
+		st, b := l.call(t, "lead-b", "GET", "/v1/analyses"+c.query, nil, "", nil)
+		if st != 200 {
+			t.Fatalf("list%s: %d %s", c.query, st, b)
+		}
+		var got []string
+		for _, j := range decodeJSON[list](t, b).Analyses {
+			got = append(got, j.ID)
+		}
+		if fmt.Sprint(got) != fmt.Sprint(c.want) {
+			t.Errorf("lead-b lists%s: %v, want %v (its own, newest first)", c.query, got, c.want)
+		}
+	}
+	// lab-a's display sees lab-a's three newest, not lab-b's.
+	st, b := l.call(t, "display", "GET", "/v1/analyses?limit=5", nil, "", nil)
+	if n := len(decodeJSON[list](t, b).Analyses); st != 200 || n != 3 {
+		t.Errorf("display lists ?limit=5: %d, %d analyses, want 200 and 3", st, n)
+	}
+}

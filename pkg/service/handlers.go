@@ -145,16 +145,15 @@ func (s *Server) listAnalyses(w http.ResponseWriter, r *http.Request) {
 		}
 		limit = n
 	}
+	f.Limit, f.Newest = limit, true
+	f.Keep = func(j *jobs.Job) bool { return readable(r, j.Project) }
 	list, err := s.store.Jobs(r.Context(), f)
 	if err != nil {
 		writeProblem(w, r, asProblem(err, ""))
 		return
 	}
-	out := []*jobView{}
-	for i := len(list) - 1; i >= 0 && len(out) < limit; i-- { // newest first
-		if !readable(r, list[i].Project) {
-			continue
-		}
+	out := make([]*jobView, 0, len(list))
+	for i := len(list) - 1; i >= 0; i-- { // newest first
 		out = append(out, viewJob(list[i]))
 	}
 	writeJSON(w, http.StatusOK, map[string]any{"analyses": out})

@@ -262,31 +262,21 @@ func (s *Store) DeleteJob(ctx context.Context, id string) error {
 
 // Jobs implements jobs.Store.
 func (s *Store) Jobs(ctx context.Context, f jobs.Filter) ([]*jobs.Job, error) {
-	var out []*jobs.Job
+	pick := f.Picker()
 	err := s.db.View(func(tx *bolt.Tx) error {
 		return tx.Bucket(bucketJobs).ForEach(func(k, v []byte) error {
 			var j jobs.Job
 			if err := json.Unmarshal(v, &j); err != nil {
 				return fmt.Errorf("job %s: corrupt record: %w", k, err)
 			}
-			if f.Match(&j) {
-				out = append(out, &j)
-			}
+			pick.Add(&j)
 			return nil
 		})
 	})
 	if err != nil {
 		return nil, err
 	}
-	sort.SliceStable(out, func(a, b int) bool {
-		if !out[a].Created.Equal(out[b].Created) {
-			return out[a].Created.Before(out[b].Created)
-		}
-		return out[a].ID < out[b].ID
-	})
-	if f.Limit > 0 && len(out) > f.Limit {
-		out = out[:f.Limit]
-	}
+	out := pick.Jobs()
 	for _, j := range out {
 		s.overlay(j)
 	}

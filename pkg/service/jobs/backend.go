@@ -3,6 +3,7 @@ package jobs
 import (
 	"context"
 	"io"
+	"sort"
 	"time"
 )
 
@@ -68,8 +69,15 @@ type Filter struct {
 	Series string
 	// FinishedBefore selects terminal jobs that finished before this time.
 	FinishedBefore time.Time
-	// Limit caps the number returned (0 = no cap).
+	// Limit caps the number returned (0 = no cap): the oldest Limit
+	// matches, or the newest with Newest.
 	Limit int
+	// Newest makes Limit keep the newest matches instead of the oldest.
+	// The list is still sorted oldest first.
+	Newest bool
+	// Keep, if not nil, is one more test a job must pass, applied before
+	// Limit (for example the caller's read access to the job's project).
+	Keep func(*Job) bool
 }
 
 // Match reports whether j passes the filter.
@@ -92,7 +100,60 @@ func (f Filter) Match(j *Job) bool {
 	if !f.FinishedBefore.IsZero() && (j.Finished == nil || !j.Finished.Before(f.FinishedBefore)) {
 		return false
 	}
+	return f.Keep == nil || f.Keep(j)
+}
+
+// A Picker collects the jobs a Filter selects from a store's records read
+// one by one. With a Limit it holds at most twice Limit of them at any
+// time, so a listing's memory does not grow with the number of stored
+// jobs.
+type Picker struct {
+	f   Filter
+	out []*Job
+}
+
+// Picker returns an empty Picker for f.
+func (f Filter) Picker() *Picker { return &Picker{f: f} }
+
+// Add keeps j if it passes the filter and reports whether it did. The
+// Picker keeps j itself, not a copy.
+func (p *Picker) Add(j *Job) bool {
+	if !p.f.Match(j) {
+		return false
+	}
+	p.out = append(p.out, j)
+	if p.f.Limit > 0 && len(p.out) >= 2*p.f.Limit {
+		p.trim()
+	}
 	return true
+}
+
+// Jobs returns the jobs kept, oldest first (by Created, then ID), at most
+// Limit of them.
+func (p *Picker) Jobs() []*Job {
+	p.trim()
+	return p.out
+}
+
+// trim sorts the jobs kept and drops those beyond Limit.
+func (p *Picker) trim() {
+	sort.SliceStable(p.out, func(a, b int) bool { return Older(p.out[a], p.out[b]) })
+	if n := p.f.Limit; n > 0 && len(p.out) > n {
+		if p.f.Newest {
+			p.out = append(p.out[:0], p.out[len(p.out)-n:]...)
+		} else {
+			p.out = p.out[:n]
+		}
+	}
+}
+
+// Older reports whether a was created before b (by ID when created at the
+// same time): the order of job listings.
+func Older(a, b *Job) bool {
+	if !a.Created.Equal(b.Created) {
+		return a.Created.Before(b.Created)
+	}
+	return a.ID < b.ID
 }
 
 // Blobs keeps images and result files under slash-separated keys (see

@@ -315,13 +315,13 @@ func (s *Store) Jobs(ctx context.Context, f jobs.Filter) ([]*jobs.Job, error) {
 			return nil, err
 		}
 	} else {
+		pick := f.Picker()
 		s.mu.Lock()
 		for _, e := range s.jobs {
-			if f.Match(e.j) {
-				out = append(out, e.j)
-			}
+			pick.Add(e.j)
 		}
 		s.mu.Unlock()
+		out = pick.Jobs()
 	}
 	s.mu.Lock()
 	for i, j := range out {
@@ -332,15 +332,6 @@ func (s *Store) Jobs(ctx context.Context, f jobs.Filter) ([]*jobs.Job, error) {
 		out[i] = &c
 	}
 	s.mu.Unlock()
-	sort.Slice(out, func(a, b int) bool {
-		if !out[a].Created.Equal(out[b].Created) {
-			return out[a].Created.Before(out[b].Created)
-		}
-		return out[a].ID < out[b].ID
-	})
-	if f.Limit > 0 && len(out) > f.Limit {
-		out = out[:f.Limit]
-	}
 	return out, nil
 }
 
@@ -416,7 +407,7 @@ func (s *Store) scan(ctx context.Context, f jobs.Filter) ([]*jobs.Job, error) {
 			return nil, fmt.Errorf("list jobs: %w", err)
 		}
 	}
-	var out []*jobs.Job
+	pick := f.Picker()
 	for _, id := range ids {
 		j, _, err := s.getJob(ctx, id)
 		if errors.Is(err, jobs.ErrNotFound) {
@@ -425,11 +416,9 @@ func (s *Store) scan(ctx context.Context, f jobs.Filter) ([]*jobs.Job, error) {
 		if err != nil {
 			return nil, err
 		}
-		if f.Match(j) {
-			out = append(out, j)
-		}
+		pick.Add(j)
 	}
-	return out, nil
+	return pick.Jobs(), nil
 }
 
 // Counts implements jobs.Store from the mirror.
