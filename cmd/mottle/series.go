@@ -180,33 +180,9 @@ func runSeries(ctx context.Context, e *env, args []string) error {
 	ext, extErrs := parseExtensometers(exts)
 	p.Extensometers = append(p.Extensometers, ext...)
 	errs = append(errs, extErrs...)
-	for _, s := range gs {
-		name, rest, ok := strings.Cut(s, ":")
-		if !ok {
-			errs = append(errs, fmt.Errorf("--gauge %q: want name:x0,y0,x1,y1 or name:poly:x1,y1,…", s))
-			continue
-		}
-		if poly, isPoly := strings.CutPrefix(rest, "poly:"); isPoly {
-			n := strings.Count(poly, ",") + 1
-			v, err := parseFloats(poly, n, "--gauge "+name)
-			if err != nil || n%2 != 0 {
-				errs = append(errs, fmt.Errorf("--gauge %q: polygon needs pairs x,y", s))
-				continue
-			}
-			g := series.Gauge{Name: name}
-			for i := 0; i < n; i += 2 {
-				g.Polygon = append(g.Polygon, [2]float64{v[i], v[i+1]})
-			}
-			p.Gauges = append(p.Gauges, g)
-			continue
-		}
-		v, err := parseFloats(rest, 4, "--gauge "+name)
-		if err != nil {
-			errs = append(errs, err)
-			continue
-		}
-		p.Gauges = append(p.Gauges, series.Gauge{Name: name, Rect: &[4]float64{v[0], v[1], v[2], v[3]}})
-	}
+	gauges, gaugeErrs := parseGauges(gs)
+	p.Gauges = append(p.Gauges, gauges...)
+	errs = append(errs, gaugeErrs...)
 	pp := &p.Properties
 	if *axial != "" {
 		pp.Axial = *axial
@@ -448,6 +424,42 @@ func staticPairNoise(ctx context.Context, a, b string, p series.Params, lim imag
 		return nil, limitHint(err, lim.MaxPixels)
 	}
 	return series.StaticPairNoise(ctx, ia, ib, filepath.Base(a), filepath.Base(b), p)
+}
+
+// parseGauges reads --gauge values, name:x0,y0,x1,y1 (a rectangle) or
+// name:poly:x1,y1,x2,y2,… (a polygon) each, for series and stereo series;
+// a malformed value gives an error naming it.
+func parseGauges(gs []string) ([]series.Gauge, []error) {
+	var out []series.Gauge
+	var errs []error
+	for _, s := range gs {
+		name, rest, ok := strings.Cut(s, ":")
+		if !ok {
+			errs = append(errs, fmt.Errorf("--gauge %q: want name:x0,y0,x1,y1 or name:poly:x1,y1,…", s))
+			continue
+		}
+		if poly, isPoly := strings.CutPrefix(rest, "poly:"); isPoly {
+			n := strings.Count(poly, ",") + 1
+			v, err := parseFloats(poly, n, "--gauge "+name)
+			if err != nil || n%2 != 0 {
+				errs = append(errs, fmt.Errorf("--gauge %q: polygon needs pairs x,y", s))
+				continue
+			}
+			g := series.Gauge{Name: name}
+			for i := 0; i < n; i += 2 {
+				g.Polygon = append(g.Polygon, [2]float64{v[i], v[i+1]})
+			}
+			out = append(out, g)
+			continue
+		}
+		v, err := parseFloats(rest, 4, "--gauge "+name)
+		if err != nil {
+			errs = append(errs, err)
+			continue
+		}
+		out = append(out, series.Gauge{Name: name, Rect: &[4]float64{v[0], v[1], v[2], v[3]}})
+	}
+	return out, errs
 }
 
 // parseExtensometers reads --ext values, name:xA,yA,xB,yB each, for

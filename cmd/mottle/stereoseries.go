@@ -64,7 +64,7 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	poisRange := fs.String("poisson-range", "", "axial strain range lo,hi for Poisson's ratio (default the modulus range)")
 	var exts, gs listFlag
 	fs.Var(&exts, "ext", "virtual extensometer name:xA,yA,xB,yB in left reference px (repeatable)")
-	fs.Var(&gs, "gauge", "virtual gauge name:x0,y0,x1,y1 in left reference px (repeatable)")
+	fs.Var(&gs, "gauge", "virtual gauge name:x0,y0,x1,y1 rectangle, or name:poly:x1,y1,x2,y2,..., in left reference px (repeatable)")
 	pos, err := parseArgs(e, fs, args)
 	if err != nil {
 		return err
@@ -112,15 +112,9 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	ext, extErrs := parseExtensometers(exts)
 	p.Extensometers = append(p.Extensometers, ext...)
 	errs = append(errs, extErrs...)
-	for _, s := range gs {
-		name, rest, ok := strings.Cut(s, ":")
-		v, err := parseFloats(rest, 4, "--gauge "+name)
-		if !ok || err != nil {
-			errs = append(errs, fmt.Errorf("--gauge %q: want name:x0,y0,x1,y1", s))
-			continue
-		}
-		p.Gauges = append(p.Gauges, series.Gauge{Name: name, Rect: &[4]float64{v[0], v[1], v[2], v[3]}})
-	}
+	gauges, gaugeErrs := parseGauges(gs)
+	p.Gauges = append(p.Gauges, gauges...)
+	errs = append(errs, gaugeErrs...)
 	if *axial != "" {
 		p.Properties.Axial = *axial
 	}
