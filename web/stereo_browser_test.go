@@ -1,18 +1,16 @@
 package web_test
 
 import (
-	"bytes"
 	"fmt"
 	"math"
 	"os"
 	"path/filepath"
 	"regexp"
 	"strings"
-	"time"
 
 	"github.com/chromedp/chromedp"
 
-	"github.com/mottledic/mottle/pkg/calib"
+	"github.com/mottledic/mottle/internal/stereobench"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/synth"
 )
@@ -23,28 +21,11 @@ func (s tenthMM) Value(X, Y float64) float64 { return s.p.Value(10*X, 10*Y) }
 
 // writeRig writes the exact rig of synth.BenchRig(w, h) as a rig file.
 func writeRig(b *browser, path string, w, h int) {
-	l, r := synth.BenchRig(w, h)
-	var R [3][3]float64
-	for i := range 3 {
-		for j := range 3 {
-			for k := range 3 {
-				R[i][j] += r.Pose.R[i][k] * l.Pose.R[j][k]
-			}
-		}
-	}
-	var T [3]float64
-	for i := range 3 {
-		T[i] = r.Pose.T[i] - (R[i][0]*l.Pose.T[0] + R[i][1]*l.Pose.T[1] + R[i][2]*l.Pose.T[2])
-	}
-	cam := func(c synth.Lens) calib.Camera {
-		return calib.Camera{Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy, K1: c.K1, K2: c.K2, K3: c.K3, P1: c.P1, P2: c.P2}
-	}
-	res := &calib.StereoResult{Rig: calib.Rig{Left: cam(l.Lens), Right: cam(r.Lens), R: R, T: T, W: w, H: h}, Rot: calib.PoseFromMatrix(R, T).Rot}
-	var buf bytes.Buffer
-	if err := calib.NewRigFile(res, nil, nil, time.Date(2026, 3, 14, 9, 30, 0, 0, time.UTC)).Write(&buf); err != nil {
+	rig, err := stereobench.RigFile(w, h)
+	if err != nil {
 		b.t.Fatal(err)
 	}
-	if err := os.WriteFile(path, buf.Bytes(), 0o644); err != nil {
+	if err := os.WriteFile(path, rig, 0o644); err != nil {
 		b.t.Fatal(err)
 	}
 }

@@ -7,8 +7,8 @@ import (
 	"path/filepath"
 	"strings"
 	"testing"
-	"time"
 
+	"github.com/mottledic/mottle/internal/stereobench"
 	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -19,33 +19,15 @@ type tenth struct{ p *synth.Pattern }
 
 func (s tenth) Value(X, Y float64) float64 { return s.p.Value(10*X, 10*Y) }
 
-// benchRigFile writes the exact rig of synth.BenchRig(w, h) as a rig file.
+// benchRigFile writes the exact rig of synth.BenchRig(w, h) as a rig file (stereobench.RigFile).
 func benchRigFile(t *testing.T, dir string, w, h int) string {
 	t.Helper()
-	l, r := synth.BenchRig(w, h)
-	var R [3][3]float64
-	for i := range 3 {
-		for j := range 3 {
-			for k := range 3 {
-				R[i][j] += r.Pose.R[i][k] * l.Pose.R[j][k]
-			}
-		}
-	}
-	var T [3]float64
-	for i := range 3 {
-		T[i] = r.Pose.T[i] - (R[i][0]*l.Pose.T[0] + R[i][1]*l.Pose.T[1] + R[i][2]*l.Pose.T[2])
-	}
-	cam := func(c synth.Lens) calib.Camera {
-		return calib.Camera{Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy, K1: c.K1, K2: c.K2, K3: c.K3, P1: c.P1, P2: c.P2}
-	}
-	res := &calib.StereoResult{Rig: calib.Rig{Left: cam(l.Lens), Right: cam(r.Lens), R: R, T: T, W: w, H: h},
-		Rot: calib.PoseFromMatrix(R, T).Rot}
-	var b bytes.Buffer
-	if err := calib.NewRigFile(res, nil, nil, time.Date(2026, 3, 14, 9, 30, 0, 0, time.UTC)).Write(&b); err != nil {
+	rig, err := stereobench.RigFile(w, h)
+	if err != nil {
 		t.Fatal(err)
 	}
 	p := filepath.Join(dir, "rig.json")
-	if err := os.WriteFile(p, b.Bytes(), 0o644); err != nil {
+	if err := os.WriteFile(p, rig, 0o644); err != nil {
 		t.Fatal(err)
 	}
 	return p

@@ -9,6 +9,7 @@ import (
 	"strings"
 	"testing"
 
+	"github.com/mottledic/mottle/internal/stereobench"
 	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/roi"
@@ -32,29 +33,12 @@ const (
 // roiRect is the left region the test measures; only what it reaches is rendered.
 var roiRect = image.Rect(160, 140, 480, 340)
 
-type scaled struct{ p *synth.Pattern }
-
-func (s scaled) Value(X, Y float64) float64 { return s.p.Value(10*X, 10*Y) }
+// scaled is a speckle pattern in mm (stereobench.Scaled).
+type scaled = stereobench.Scaled
 
 // rig returns the bench cameras and their exact rig.
 func rig() (l, r synth.Cam, rg *calib.Rig) {
-	l, r = synth.BenchRig(imW, imH)
-	cam := func(c synth.Lens) calib.Camera {
-		return calib.Camera{Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy, K1: c.K1, K2: c.K2, K3: c.K3, P1: c.P1, P2: c.P2}
-	}
-	var R [3][3]float64
-	for i := range 3 {
-		for j := range 3 {
-			for k := range 3 {
-				R[i][j] += r.Pose.R[i][k] * l.Pose.R[j][k]
-			}
-		}
-	}
-	var T [3]float64
-	for i := range 3 {
-		T[i] = r.Pose.T[i] - (R[i][0]*l.Pose.T[0] + R[i][1]*l.Pose.T[1] + R[i][2]*l.Pose.T[2])
-	}
-	return l, r, &calib.Rig{Left: cam(l.Lens), Right: cam(r.Lens), R: R, T: T, W: imW, H: imH}
+	return stereobench.Rig(imW, imH)
 }
 
 // placement is frame i's specimen: axial engineering strain ea.
@@ -107,7 +91,7 @@ func TestTensileSeries(t *testing.T) {
 	if err != nil {
 		t.Fatal(err)
 	}
-	pat := scaled{p0}
+	pat := scaled{P: p0}
 	lc, _, rg := rig()
 	cx, cy := float64(roiRect.Min.X+roiRect.Max.X)/2, float64(roiRect.Min.Y+roiRect.Max.Y)/2
 	pf := 0.7

@@ -6,43 +6,24 @@ import (
 	"fmt"
 	"strings"
 	"testing"
-	"time"
 
-	"github.com/mottledic/mottle/pkg/calib"
+	"github.com/mottledic/mottle/internal/stereobench"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/service"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
-type tenthMM struct{ p *synth.Pattern }
-
-func (s tenthMM) Value(X, Y float64) float64 { return s.p.Value(10*X, 10*Y) }
+// tenthMM is a speckle pattern in mm (stereobench.Scaled).
+type tenthMM = stereobench.Scaled
 
 // stereoRig returns the rig file of the exact bench of synth.BenchRig(w, h).
 func stereoRig(t *testing.T, w, h int) []byte {
 	t.Helper()
-	l, r := synth.BenchRig(w, h)
-	var R [3][3]float64
-	for i := range 3 {
-		for j := range 3 {
-			for k := range 3 {
-				R[i][j] += r.Pose.R[i][k] * l.Pose.R[j][k]
-			}
-		}
-	}
-	var T [3]float64
-	for i := range 3 {
-		T[i] = r.Pose.T[i] - (R[i][0]*l.Pose.T[0] + R[i][1]*l.Pose.T[1] + R[i][2]*l.Pose.T[2])
-	}
-	cam := func(c synth.Lens) calib.Camera {
-		return calib.Camera{Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy, K1: c.K1, K2: c.K2, K3: c.K3, P1: c.P1, P2: c.P2}
-	}
-	res := &calib.StereoResult{Rig: calib.Rig{Left: cam(l.Lens), Right: cam(r.Lens), R: R, T: T, W: w, H: h}, Rot: calib.PoseFromMatrix(R, T).Rot}
-	var b bytes.Buffer
-	if err := calib.NewRigFile(res, nil, nil, time.Date(2026, 3, 14, 9, 30, 0, 0, time.UTC)).Write(&b); err != nil {
+	b, err := stereobench.RigFile(w, h)
+	if err != nil {
 		t.Fatal(err)
 	}
-	return b.Bytes()
+	return b
 }
 
 // stereoPair renders the plane at placement pl in both cameras as PNG parts
@@ -56,7 +37,7 @@ func stereoPair(t *testing.T, w, h int, pl synth.Placement, seed int64, ln, rn s
 	lc, rc := synth.BenchRig(w, h)
 	var out []part
 	for k, c := range []synth.Cam{lc, rc} {
-		g, _, err := synth.RenderSurface(tenthMM{p}, pl, c, synth.RenderOptions{W: w, H: h, Supersample: 2, Noise: 0.5, Seed: seed + int64(k)})
+		g, _, err := synth.RenderSurface(tenthMM{P: p}, pl, c, synth.RenderOptions{W: w, H: h, Supersample: 2, Noise: 0.5, Seed: seed + int64(k)})
 		if err != nil {
 			t.Fatal(err)
 		}

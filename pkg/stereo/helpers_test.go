@@ -8,6 +8,7 @@ import (
 	"path/filepath"
 	"testing"
 
+	"github.com/mottledic/mottle/internal/stereobench"
 	"github.com/mottledic/mottle/pkg/calib"
 	"github.com/mottledic/mottle/pkg/synth"
 )
@@ -19,16 +20,7 @@ const python = "/usr/bin/python3"
 // bench returns the cameras of the invented bench (synth.BenchRig) and the
 // exact rig they form.
 func bench(w, h int) (l, r synth.Cam, rig *calib.Rig) {
-	l, r = synth.BenchRig(w, h)
-	cam := func(c synth.Lens) calib.Camera {
-		return calib.Camera{Fx: c.Fx, Fy: c.Fy, Cx: c.Cx, Cy: c.Cy, K1: c.K1, K2: c.K2, K3: c.K3, P1: c.P1, P2: c.P2}
-	}
-	R := mul(r.Pose.R, transpose(l.Pose.R))
-	var T [3]float64
-	for i := range 3 {
-		T[i] = r.Pose.T[i] - (R[i][0]*l.Pose.T[0] + R[i][1]*l.Pose.T[1] + R[i][2]*l.Pose.T[2])
-	}
-	return l, r, &calib.Rig{Left: cam(l.Lens), Right: cam(r.Lens), R: R, T: T, W: w, H: h}
+	return stereobench.Rig(w, h)
 }
 
 // toLeft returns the world point P in the left camera's frame.
