@@ -9,7 +9,9 @@ import (
 	"mime"
 	"mime/multipart"
 	"net/http"
+	"slices"
 	"strings"
+	"sync"
 
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/calib"
@@ -158,12 +160,27 @@ func (s *Server) readMultipart(w http.ResponseWriter, r *http.Request, images []
 	if err := s.admitDecode(r, u.raw); err != nil {
 		return nil, s.memoryErr(w, err)
 	}
-	for name, b := range u.raw {
-		g, err := s.decode(name, b)
-		if err != nil {
-			return nil, err
+	// The images are decoded at the same time (their memory was admitted
+	// together); the first failing one in the order of the parts' names
+	// is the error.
+	var names []string
+	for _, n := range slices.Concat(images, optional) {
+		if _, ok := u.raw[n]; ok {
+			names = append(names, n)
 		}
-		u.img[name] = g
+	}
+	imgs := make([]*imageio.Gray, len(names))
+	errs := make([]error, len(names))
+	var wg sync.WaitGroup
+	for i, name := range names {
+		wg.Go(func() { imgs[i], errs[i] = s.decode(name, u.raw[name]) })
+	}
+	wg.Wait()
+	for i, name := range names {
+		if errs[i] != nil {
+			return nil, errs[i]
+		}
+		u.img[name] = imgs[i]
 	}
 	return u, nil
 }
