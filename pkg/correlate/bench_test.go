@@ -22,7 +22,7 @@ var benchPair struct {
 
 // benchImages renders the 1024×1024 benchmark pair once: 8-bit, noise σ = 1
 // grey level, a small homogeneous strain with a translation.
-func benchImages(b *testing.B) (ref, def *imageio.Gray) {
+func benchImages(b testing.TB) (ref, def *imageio.Gray) {
 	benchPair.once.Do(func() {
 		m := synth.Affine{F: [2][2]float64{{1.005, 0.002}, {-0.001, 0.997}}, CX: 512, CY: 512, U: 4.3, V: -2.6}
 		benchPair.ref, benchPair.def = pair(b, m, 1024, 1024, 8, 1, 7)

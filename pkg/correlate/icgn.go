@@ -282,63 +282,67 @@ func (s *solver) hessian1(h *[144]float64) {
 		f := s.f[k : k+side]
 		fx := s.fx[k : k+side]
 		fy := s.fy[k : k+side]
+		fx, fy = fx[:len(f)], fy[:len(f)]
 		// r[q][a] = Σ_row w_q ξ^a, by running sums from the right end of
 		// the row: after pixel i, c0 = Σ_{i'≥i} w, c1 = Σ_{i'≥i} c0 and
 		// c2 = Σ_{i'≥i} c1, so that at the left end c1 = Σ (i+1) w and
 		// c2 = Σ (i+1)(i+2)/2 w, from which the moments in ξ = i − m
 		// follow. Three additions per weight and pixel instead of two
-		// multiplications and three additions.
-		var c0, c1, c2 [3]float64
-		var d0, d1 [4]float64 // the same for fx f̃, fy f̃, fx, fy, up to ξ¹
+		// multiplications and three additions. The sums are scalars, in
+		// two loops of at most nine, so that they stay in registers (the
+		// compiler keeps arrays in memory).
+		var xx0, xx1, xx2, xy0, xy1, xy2, yy0, yy1, yy2 float64
 		for i := len(f) - 1; i >= 0; i-- {
 			gx, gy := fx[i], fy[i]
-			xx, xy, yy := gx*gx, gx*gy, gy*gy
-			c0[0] += xx
-			c1[0] += c0[0]
-			c2[0] += c1[0]
-			c0[1] += xy
-			c1[1] += c0[1]
-			c2[1] += c1[1]
-			c0[2] += yy
-			c1[2] += c0[2]
-			c2[2] += c1[2]
-			fv := f[i]
-			d0[0] += gx * fv
-			d1[0] += d0[0]
-			d0[1] += gy * fv
-			d1[1] += d0[1]
-			d0[2] += gx
-			d1[2] += d0[2]
-			d0[3] += gy
-			d1[3] += d0[3]
+			xx0 += gx * gx
+			xx1 += xx0
+			xx2 += xx1
+			xy0 += gx * gy
+			xy1 += xy0
+			xy2 += xy1
+			yy0 += gy * gy
+			yy1 += yy0
+			yy2 += yy1
+		}
+		// The same for fx f̃, fy f̃, fx, fy, up to ξ¹.
+		var bx0, bx1, by0, by1, jx0, jx1, jy0, jy1 float64
+		for i := len(f) - 1; i >= 0; i-- {
+			gx, gy, fv := fx[i], fy[i], f[i]
+			bx0 += gx * fv
+			bx1 += bx0
+			by0 += gy * fv
+			by1 += by0
+			jx0 += gx
+			jx1 += jx0
+			jy0 += gy
+			jy1 += jy0
 		}
 		// With u = i + 1 = ξ + c: Σ u w = S1 + c S0 and
 		// Σ u(u+1)/2 w = (S2 + (2c+1) S1 + c(c+1) S0)/2.
 		cc := float64(m + 1)
-		var r [3][3]float64
-		for q := range r {
-			s0 := c0[q]
-			s1 := c1[q] - cc*s0
-			r[q] = [3]float64{s0, s1, 2*c2[q] - (2*cc+1)*s1 - cc*(cc+1)*s0}
-		}
-		var rb [4][2]float64
-		for q := range rb {
-			rb[q] = [2]float64{d0[q], d1[q] - cc*d0[q]}
-		}
 		e2 := eta * eta
-		for q, dst := range []*[3][3]float64{&hxx, &hxy, &hyy} {
-			dst[0][0] += r[q][0]
-			dst[1][0] += r[q][1]
-			dst[2][0] += r[q][2]
-			dst[0][1] += r[q][0] * eta
-			dst[1][1] += r[q][1] * eta
-			dst[0][2] += r[q][0] * e2
+		add2 := func(dst *[3][3]float64, s0, c1, c2 float64) {
+			s1 := c1 - cc*s0
+			s2 := 2*c2 - (2*cc+1)*s1 - cc*(cc+1)*s0
+			dst[0][0] += s0
+			dst[1][0] += s1
+			dst[2][0] += s2
+			dst[0][1] += s0 * eta
+			dst[1][1] += s1 * eta
+			dst[0][2] += s0 * e2
 		}
-		for q, dst := range []*[2][2]float64{&bx, &by, &jx, &jy} {
-			dst[0][0] += rb[q][0]
-			dst[1][0] += rb[q][1]
-			dst[0][1] += rb[q][0] * eta
+		add2(&hxx, xx0, xx1, xx2)
+		add2(&hxy, xy0, xy1, xy2)
+		add2(&hyy, yy0, yy1, yy2)
+		add1 := func(dst *[2][2]float64, d0, d1 float64) {
+			dst[0][0] += d0
+			dst[1][0] += d1 - cc*d0
+			dst[0][1] += d0 * eta
 		}
+		add1(&bx, bx0, bx1)
+		add1(&by, by0, by1)
+		add1(&jx, jx0, jx1)
+		add1(&jy, jy0, jy1)
 		k += side
 	}
 	// J = [fx, fx ξ, fx η, fy, fy ξ, fy η]: entry (a, b) is Σ w ξ^(pa+pb) η^(qa+qb).

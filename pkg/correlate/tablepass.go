@@ -27,7 +27,30 @@ const (
 // fix converts a coordinate x ≥ 0 to fixed point.
 func fix(x float64) int64 { return int64(x*fixOne + 0.5) }
 
+// segLen returns how many further steps of r (|r| < fixOne) keep the
+// fractional part f (0 ≤ f < fixOne) of a fixed-point coordinate inside
+// [0, fixOne), that is, in the same cell.
+func segLen(f, r int64) int {
+	switch {
+	case r > 0:
+		return int(min((fixOne-1-f)/r, math.MaxInt32))
+	case r < 0:
+		return int(min(f/-r, math.MaxInt32))
+	}
+	return math.MaxInt32
+}
+
 // pass1t is pass1 for a solver with a table.
+//
+// Along a subset row the warped position advances by (a11, a21) per
+// pixel. Written as a whole number of cells (nx, ny), the nearest, plus a
+// fractional rest (rx, ry), each row falls into a few segments (usually
+// one to three) in which every step moves to the cell nx, ny away and
+// adds rx, ry to the fractional offsets. Inside a segment the cell index
+// advances by a constant and the offsets by a float64 addition, which is
+// exact (multiples of 2⁻⁴⁰ below 1 have at most 40 significant bits), so
+// the offsets are the same numbers as the fixed-point ones and the sums
+// the same as with the coordinates computed per pixel.
 func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	m := s.m
 	fm := float64(m)
@@ -49,43 +72,53 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	// Steps along a row in fixed point; the error of rounding them is
 	// below 1e-12 px per step.
 	dx, dy := int64(math.Round(a11*fixOne)), int64(math.Round(a21*fixOne))
+	nx, ny := (dx+fixOne/2)>>fixBits, (dy+fixOne/2)>>fixBits
+	rx, ry := dx-nx<<fixBits, dy-ny<<fixBits
+	step := 16 * (int(ny)*w + int(nx))
+	const unit = 1.0 / fixOne
+	drx, dry := float64(rx)*unit, float64(ry)*unit
 	xis := s.xis[:side]
 	k := 0
 	for j := -m; j <= m; j++ {
 		eta := float64(j)
 		x := fix(cx - a11*fm + a12*eta)
 		y := fix(cy - a21*fm + a22*eta)
-		// Two loops per row, interpolation then accumulation, so that
-		// each keeps its variables in registers.
-		g := s.gbuf[:side]
-		for i := range g {
-			tx := float32(x&fixMask) * fixScale
-			ty := float32(y&fixMask) * fixScale
-			o := 16 * (int(y>>fixBits)*w + int(x>>fixBits))
-			c := (*[16]float32)(tab[o : o+16])
-			r0 := c[0] + tx*(c[1]+tx*(c[2]+tx*c[3]))
-			r1 := c[4] + tx*(c[5]+tx*(c[6]+tx*c[7]))
-			r2 := c[8] + tx*(c[9]+tx*(c[10]+tx*c[11]))
-			r3 := c[12] + tx*(c[13]+tx*(c[14]+tx*c[15]))
-			g[i] = float64(r0 + ty*(r1+ty*(r2+ty*r3)))
-			x += dx
-			y += dy
-		}
 		f := s.f[k : k+side]
 		fx := s.fx[k : k+side]
 		fy := s.fy[k : k+side]
-		f, fx, fy, xi := f[:len(g)], fx[:len(g)], fy[:len(g)], xis[:len(g)]
+		fx, fy, xi := fx[:len(f)], fy[:len(f)], xis[:len(f)]
 		var rx0, rx1, ry0, ry1 float64
-		for i, gv := range g {
-			v := gv - fmean
-			tg += v
-			tgg += v * v
-			tfg += f[i] * v
-			a, b := fx[i]*v, fy[i]*v
-			rx0 += a
-			rx1 += a * xi[i]
-			ry0 += b
-			ry1 += b * xi[i]
+		for i := 0; i < len(f); {
+			fxr, fyr := x&fixMask, y&fixMask
+			n := min(min(segLen(fxr, rx), segLen(fyr, ry))+1, len(f)-i)
+			o := 16 * (int(y>>fixBits)*w + int(x>>fixBits))
+			tx, ty := float64(fxr)*unit, float64(fyr)*unit
+			for e := i + n; i < e; i++ {
+				c := (*[16]float32)(tab[o : o+16])
+				t, u := float32(tx), float32(ty)
+				// Horner in ty over the four rows, highest first, so
+				// that only two row values are live at a time.
+				r := c[12] + t*(c[13]+t*(c[14]+t*c[15]))
+				q := c[8] + t*(c[9]+t*(c[10]+t*c[11]))
+				r = q + u*r
+				q = c[4] + t*(c[5]+t*(c[6]+t*c[7]))
+				r = q + u*r
+				q = c[0] + t*(c[1]+t*(c[2]+t*c[3]))
+				v := float64(q+u*r) - fmean
+				tg += v
+				tgg += v * v
+				tfg += f[i] * v
+				a, b := fx[i]*v, fy[i]*v
+				rx0 += a
+				rx1 += a * xi[i]
+				ry0 += b
+				ry1 += b * xi[i]
+				tx += drx
+				ty += dry
+				o += step
+			}
+			x += int64(n) * dx
+			y += int64(n) * dy
 		}
 		tx0 += rx0
 		tx1 += rx1
