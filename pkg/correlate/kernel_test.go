@@ -5,6 +5,8 @@ import (
 	"math"
 	"testing"
 
+	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/spline"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
@@ -227,4 +229,101 @@ func TestSmoothedVarsMatchPlain(t *testing.T) {
 			}
 		}
 	}
+}
+
+// pass1tPixel is pass1t with the warped coordinates computed per pixel in
+// fixed point, the form before the row segments: the reference of
+// TestPass1tSegmentsExact.
+func (s *solver) pass1tPixel(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) {
+	m := s.m
+	fm := float64(m)
+	a11, a12, a21, a22 := 1+p[Ux], p[Uy], p[Vx], 1+p[Vy]
+	cx, cy := s.xc+p[U], s.yc+p[V]
+	tab := s.tab.Coefficients()
+	var tg, tgg, tfg float64
+	var acc [12]float64
+	dx, dy := int64(math.Round(a11*fixOne)), int64(math.Round(a21*fixOne))
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		x := fix(cx - a11*fm + a12*eta)
+		y := fix(cy - a21*fm + a22*eta)
+		var rx0, rx1, ry0, ry1 float64
+		for i := -m; i <= m; i++ {
+			tx := float32(x&fixMask) * fixScale
+			ty := float32(y&fixMask) * fixScale
+			o := 16 * (int(y>>fixBits)*s.tab.W + int(x>>fixBits))
+			c := (*[16]float32)(tab[o : o+16])
+			r0 := c[0] + tx*(c[1]+tx*(c[2]+tx*c[3]))
+			r1 := c[4] + tx*(c[5]+tx*(c[6]+tx*c[7]))
+			r2 := c[8] + tx*(c[9]+tx*(c[10]+tx*c[11]))
+			r3 := c[12] + tx*(c[13]+tx*(c[14]+tx*c[15]))
+			v := float64(r0+ty*(r1+ty*(r2+ty*r3))) - s.fmean
+			tg += v
+			tgg += v * v
+			tfg += s.f[k] * v
+			a, b := s.fx[k]*v, s.fy[k]*v
+			rx0 += a
+			rx1 += a * float64(i)
+			ry0 += b
+			ry1 += b * float64(i)
+			x += dx
+			y += dy
+			k++
+		}
+		acc[U] += rx0
+		acc[Ux] += rx1
+		acc[Uy] += rx0 * eta
+		acc[V] += ry0
+		acc[Vx] += ry1
+		acc[Vy] += ry0 * eta
+	}
+	*sg, *sgg, *sfg, *sjg = tg, tgg, tfg, acc
+}
+
+// The row segments of pass1t (a constant cell step and exactly advanced
+// offsets) give bitwise the sums of the per-pixel fixed-point coordinates,
+// for small strains and for warps whose cell steps are 0, ±1 or 2 and whose
+// fractional rest is negative, positive or zero.
+func TestPass1tSegmentsExact(t *testing.T) {
+	id := func(x, y float64) (float64, float64) { return x, y }
+	img := gaussImage(120, 120, 5, id)
+	s := newTestSolver(t, img, img, Options{Subset: 21})
+	s.useTable(mustTable(t, img))
+	if s.prepare(60, 59) != OK {
+		t.Fatal("prepare failed")
+	}
+	c, sn := math.Cos(2), math.Sin(2) // a rotation by 115°
+	for _, p := range [][12]float64{
+		{U: 4.3, Ux: 0.005, Uy: 0.002, V: -2.6, Vx: -0.001, Vy: -0.003},
+		{U: -3.1, Ux: -0.004, Uy: -0.01, V: 2.2, Vx: 0.003, Vy: 0.02},
+		{U: 0.5, V: 0.25},
+		{U: 1, Ux: 0.3, Uy: 0.2, V: -2, Vx: -0.2, Vy: 0.1},
+		{U: 0.7, Ux: 0.49, V: 0.3, Vx: 0.51},
+		{U: 2.5, Ux: c - 1, Uy: -sn, V: -1.5, Vx: sn, Vy: c - 1},
+		{U: -1.2, Ux: -1.25, Uy: 0.3, V: 0.4, Vx: -0.5, Vy: -1.5},
+	} {
+		var a, b [3]float64
+		var ja, jb [12]float64
+		if !s.pass1t(&p, &a[0], &a[1], &a[2], &ja) {
+			t.Fatalf("warp %v: pass1t left the image", p[:6])
+		}
+		s.pass1tPixel(&p, &b[0], &b[1], &b[2], &jb)
+		if a != b || ja != jb {
+			t.Errorf("warp %v: segments %v %v, per pixel %v %v", p[:6], a, ja[:6], b, jb[:6])
+		}
+	}
+}
+
+func mustTable(t *testing.T, g *imageio.Gray) *spline.Table {
+	t.Helper()
+	sp, err := spline.New(g, spline.Cubic)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tab, err := spline.NewTable(t.Context(), sp, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return tab
 }
