@@ -57,6 +57,7 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	window := fs.Int("strain-window", 0, "strain window, grid points (odd; default 5)")
 	roiRect := fs.String("roi", "", roiHelp)
 	area := fs.Float64("area", 0, "initial cross-section in mm² (gives stress in MPa from load in N)")
+	static := fs.Int("static", 0, "number of pairs after the reference taken without load or motion: their spread is the noise floor (u, v, w in mm, surface strains) in the curve")
 	table := fs.String("table", "", "CSV of loads and times with a header row (see mottle series --help)")
 	axial := fs.String("axial", "", "axial strain source: an extensometer name or gauge:NAME:E11 (default the first extensometer)")
 	transverse := fs.String("transverse", "", "transverse strain source (Poisson, r): an extensometer or gauge:NAME:E22")
@@ -101,6 +102,9 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	}
 	if set["area"] {
 		p.Area = *area
+	}
+	if set["static"] {
+		p.StaticFrames = *static
 	}
 	if *roiRect != "" {
 		if spec, err := parseROI(*roiRect); err != nil {
@@ -227,7 +231,13 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 		return err
 	}
 	props := s.Properties()
-	pj, _ := json.MarshalIndent(map[string]any{"rig": *rigPath, "params": s.Params(), "properties": props}, "", "  ")
+	doc := map[string]any{"rig": *rigPath, "params": s.Params(), "properties": props}
+	if c.Noise != nil {
+		doc["noise_floor"] = c.Noise
+		fmt.Fprintf(e.stdout, "noise floor of %d static pairs (std): u %.5f, v %.5f, w %.5f mm; E11 %.2g, E22 %.2g, E12 %.2g\n", c.Noise.Frames,
+			c.Noise.Std["u"], c.Noise.Std["v"], c.Noise.Std["w"], c.Noise.Std["E11"], c.Noise.Std["E22"], c.Noise.Std["E12"])
+	}
+	pj, _ := json.MarshalIndent(doc, "", "  ")
 	if err := os.WriteFile(filepath.Join(*out, "properties.json"), append(pj, '\n'), 0o644); err != nil {
 		return err
 	}

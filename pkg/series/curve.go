@@ -38,8 +38,14 @@ type NoiseFloor struct {
 	Mean   map[string]float64 `json:"mean"`
 }
 
-// noiseNames are the quantities the noise floor is reported for.
-var noiseNames = []string{"u", "v", "E11", "E22", "E12", "eps11", "eps22", "eps12"}
+// noiseNames are the quantities the noise floor is reported for (those a
+// frame has: a stereo series has w and no eps).
+var noiseNames = []string{"u", "v", "w", "E11", "E22", "E12", "eps11", "eps22", "eps12"}
+
+// StaticStats returns the spatial statistics of one static frame from its
+// quantities by name (NaN where invalid), for NoiseFromFrames; a series
+// engine of its own (pkg/series3d) keeps them per static frame.
+func StaticStats(q map[string][]float64) map[string]QStat { return staticStats(q) }
 
 // staticStats returns the spatial statistics of one static frame.
 func staticStats(q map[string][]float64) map[string]QStat {

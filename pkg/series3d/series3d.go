@@ -57,6 +57,11 @@ type Params struct {
 	Area float64 `json:"area_mm2,omitempty"`
 	// Properties select the material properties (see series.PropsParams).
 	Properties series.PropsParams `json:"properties"`
+	// StaticFrames is the number of frames, after the reference pair,
+	// taken without load or motion: their spread gives the noise floor of
+	// the curve (series.NoiseFloor, u, v, w in mm and the surface
+	// strains). Default 0.
+	StaticFrames int `json:"static_frames,omitempty"`
 	// Threads caps the correlation's goroutines (0 = all cores); results
 	// do not depend on it, and it is not stored.
 	Threads int `json:"-"`
@@ -100,6 +105,9 @@ func (p Params) Validate(w, h int) error {
 	}
 	if p.Prefilter != nil && !(*p.Prefilter >= 0 && *p.Prefilter <= 5) {
 		bad("prefilter_px %g: want 0 (off) to 5 px", *p.Prefilter)
+	}
+	if p.StaticFrames < 0 {
+		bad("static_frames %d: want 0 or more frames without load or motion after the reference pair", p.StaticFrames)
 	}
 	if !(p.Area >= 0) || math.IsInf(p.Area, 0) {
 		bad("area_mm2 %g: want a positive cross-section in mm² (0 for no stress)", p.Area)
@@ -190,6 +198,8 @@ type Series struct {
 	l0, r0 *imageio.Gray
 	curve  series.Curve
 	last   *Frame
+	// static holds the statistics of each static frame (noise floor).
+	static []map[string]series.QStat
 }
 
 // Frame is the full measurement of one frame: the tracked state and its
@@ -222,7 +232,7 @@ func New(ctx context.Context, rig *calib.Rig, left, right *imageio.Gray, meta se
 	}
 	s := &Series{p: p, ref: ref, frame: fr, l0: left, r0: right}
 	s.curve.Params = curveParams(p)
-	row := s.row(0, meta, nil, nil)
+	row, _ := s.row(0, meta, nil, nil)
 	s.curve.Rows = append(s.curve.Rows, row)
 	return s, nil
 }
@@ -247,27 +257,35 @@ func (s *Series) Add(ctx context.Context, left, right *imageio.Gray, meta series
 		return nil, series.Summary{}, fmt.Errorf("stereo series: frame %d: %w", len(s.curve.Rows), err)
 	}
 	i := len(s.curve.Rows)
-	row := s.row(i, meta, st, sf)
+	row, q := s.row(i, meta, st, sf)
 	s.curve.Rows = append(s.curve.Rows, row)
+	if row.Static {
+		s.static = append(s.static, series.StaticStats(q))
+	}
 	s.last = &Frame{Index: i, State: st, Surface: sf}
 	return s.last, row, nil
 }
 
-// Curve returns the curve so far, one row per frame, the reference first.
+// Curve returns the curve so far, one row per frame, the reference first,
+// with the noise floor of the static frames.
 func (s *Series) Curve() series.Curve {
 	c := s.curve
 	c.Rows = append([]series.Summary(nil), s.curve.Rows...)
+	c.Noise = series.NoiseFromFrames(s.static)
 	return c
 }
 
 // Properties returns the material properties of the curve so far.
 func (s *Series) Properties() series.Properties { return s.Curve().Properties() }
 
-// row builds the summary of frame i (st nil: the reference).
-func (s *Series) row(i int, meta series.FrameMeta, st *stereo.State, sf []stereo.Surface) series.Summary {
+// row builds the summary of frame i (st nil: the reference) and returns
+// it with the frame's quantities per point (NaN where not measured).
+func (s *Series) row(i int, meta series.FrameMeta, st *stereo.State, sf []stereo.Surface) (series.Summary, map[string][]float64) {
 	r := series.Summary{Index: i, Name: meta.Name, Time: meta.Time, Load: meta.Load, Mode: series.ModeDirect, Mean: map[string]float64{}}
 	if st == nil {
 		r.Mode = series.ModeReference
+	} else if i <= s.p.StaticFrames {
+		r.Static = true
 	}
 	if meta.Load != nil && s.p.Area > 0 {
 		v := *meta.Load / s.p.Area
@@ -349,7 +367,24 @@ func (s *Series) row(i int, meta series.FrameMeta, st *stereo.State, sf []stereo
 			r.Gauges = append(r.Gauges, gr)
 		}
 	}
-	return r
+	return r, masked(q, qok)
+}
+
+// masked returns q with NaN at the points not ok.
+func masked(q map[string][]float64, ok []bool) map[string][]float64 {
+	out := make(map[string][]float64, len(q))
+	for name, vals := range q {
+		m := make([]float64, len(vals))
+		for k, v := range vals {
+			if ok[k] {
+				m[k] = v
+			} else {
+				m[k] = math.NaN()
+			}
+		}
+		out[name] = m
+	}
+	return out
 }
 
 // stereoMeasures are the surface quantities a gauge can average.

@@ -54,8 +54,15 @@ func placement(ea float64, i int) synth.Placement {
 // render renders frame i in both cameras.
 func render(t *testing.T, pat synth.Surface, ea float64, i int) (l, r *imageio.Gray) {
 	t.Helper()
+	return renderAt(t, pat, placement(ea, i), int64(10*i))
+}
+
+// renderAt renders the specimen at placement p in both cameras, with the
+// noise of seed.
+func renderAt(t *testing.T, pat synth.Surface, p synth.Placement, seed int64) (l, r *imageio.Gray) {
+	t.Helper()
 	lc, rc, _ := rig()
-	ref, p := placement(0, 0), placement(ea, i)
+	ref := placement(0, 0)
 	var out [2]*imageio.Gray
 	for k, c := range []synth.Cam{lc, rc} {
 		// The pixels that can see the material of the left ROI.
@@ -71,7 +78,7 @@ func render(t *testing.T, pat synth.Surface, ea float64, i int) (l, r *imageio.G
 			}
 		}
 		win := image.Rect(int(x0)-48, int(y0)-48, int(x1)+48, int(y1)+48)
-		g, _, err := synth.RenderSurfaceWindow(pat, p, c, synth.RenderOptions{W: imW, H: imH, Supersample: 2, Noise: 0.5, Seed: int64(10*i + k)}, win)
+		g, _, err := synth.RenderSurfaceWindow(pat, p, c, synth.RenderOptions{W: imW, H: imH, Supersample: 2, Noise: 0.5, Seed: seed + int64(k)}, win)
 		if err != nil {
 			t.Fatal(err)
 		}
@@ -203,6 +210,65 @@ func TestTensileSeries(t *testing.T) {
 	}
 }
 
+// TestNoiseFloor: two static pairs after the reference (the specimen
+// unmoved, new camera noise) give the noise floor of the curve, and a
+// series restored from its state keeps it. The truth of a static pair is
+// no motion at all, so the mean of each quantity is its bias and the
+// spread its noise: both within the issue's bounds for a stereo
+// measurement (0.005 mm of displacement, 1e-4 of false strain), and the
+// moved frame after them is not counted.
+func TestNoiseFloor(t *testing.T) {
+	p0, err := synth.NewPattern(synth.PatternOptions{Diameter: 7, Seed: 5, Bounds: synth.Rect{X0: -600, Y0: -450, X1: 600, Y1: 450}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pat := scaled{P: p0}
+	_, _, rg := rig()
+	ctx := context.Background()
+	p := withROI(t, Params{Subset: 31, Step: 16, StaticFrames: 2})
+	l0, r0 := render(t, pat, 0, 0)
+	s, err := New(ctx, rg, l0, r0, series.FrameMeta{Name: "ref"}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k, seed := range []int64{101, 203} {
+		l, r := renderAt(t, pat, placement(0, 0), seed)
+		if _, row, err := s.Add(ctx, l, r, series.FrameMeta{Name: "static"}); err != nil || !row.Static {
+			t.Fatalf("static frame %d: static %v, %v", k+1, row.Static, err)
+		}
+	}
+	l, r := render(t, pat, 0.002, 1)
+	if _, row, err := s.Add(ctx, l, r, series.FrameMeta{Name: "moved"}); err != nil || row.Static {
+		t.Fatalf("moved frame: static %v, %v; want not static", row.Static, err)
+	}
+	nf := s.Curve().Noise
+	if nf == nil || nf.Frames != 2 {
+		t.Fatalf("noise floor %+v, want one of 2 frames", nf)
+	}
+	t.Logf("noise floor: std %v, mean %v", nf.Std, nf.Mean)
+	for _, q := range []string{"u", "v", "w"} {
+		if s, m := nf.Std[q], nf.Mean[q]; !(s > 0 && s < 0.005 && math.Abs(m) < 0.005) {
+			t.Errorf("%s: noise %.6f mm, bias %.6f mm: want a positive noise and both below 0.005 mm", q, s, m)
+		}
+	}
+	for _, q := range []string{"E11", "E22", "E12"} {
+		if s, m := nf.Std[q], nf.Mean[q]; !(s > 0 && s < 1e-4 && math.Abs(m) < 1e-4) {
+			t.Errorf("%s: noise %.3g, bias %.3g: want a positive noise and both below 1e-4", q, s, m)
+		}
+	}
+	b, err := s.MarshalState()
+	if err != nil {
+		t.Fatal(err)
+	}
+	st, err := UnmarshalState(b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if c := CurveOf(p, st); c.Noise == nil || c.Noise.Std["w"] != nf.Std["w"] {
+		t.Errorf("noise floor of the stored state %+v, want %+v", c.Noise, nf)
+	}
+}
+
 // withROI is p restricted to the left ROI of the test through its mask.
 func withROI(t *testing.T, p Params) Params {
 	t.Helper()
@@ -215,7 +281,7 @@ func withROI(t *testing.T, p Params) Params {
 // error, not numbers.
 func TestBadParams(t *testing.T) {
 	bad := -1.0
-	p := Params{StrainWindow: 4, Prefilter: &bad, Area: -2,
+	p := Params{StrainWindow: 4, Prefilter: &bad, Area: -2, StaticFrames: -1,
 		Extensometers: []series.Extensometer{{Name: "a", A: [2]float64{10, 10}, B: [2]float64{900, 10}}, {Name: "a", A: [2]float64{5, 5}, B: [2]float64{5, 5}}},
 		Gauges:        []series.Gauge{{Name: "g", Rect: &[4]float64{50, 50, 10, 60}, Components: []string{"E33"}}, {Name: "h"}},
 		Properties:    series.PropsParams{Axial: "gauge:g:E12", Transverse: "nope"},
@@ -224,7 +290,7 @@ func TestBadParams(t *testing.T) {
 	if err == nil {
 		t.Fatal("want errors")
 	}
-	for _, want := range []string{"strain_window 4", "prefilter_px -1", "area_mm2 -2", "outside the 640×480", "a name of its own", "two distinct points",
+	for _, want := range []string{"static_frames -1", "strain_window 4", "prefilter_px -1", "area_mm2 -2", "outside the 640×480", "a name of its own", "two distinct points",
 		"x0 < x1", `component "E33"`, "gauges[1] (h): give a rect", "properties.axial \"gauge:g:E12\": component E12", `properties.transverse "nope"`} {
 		if !strings.Contains(err.Error(), want) {
 			t.Errorf("error %q lacks %q", err, want)

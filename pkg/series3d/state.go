@@ -19,11 +19,13 @@ type State struct {
 	Ref   stereo.Saved
 	Frame stereo.Frame
 	Rows  []series.Summary
+	// Static holds the statistics of each static frame (noise floor).
+	Static []map[string]series.QStat `json:",omitempty"`
 }
 
 // State returns the series' state after its last frame.
 func (s *Series) State() State {
-	return State{Ref: s.ref.Save(), Frame: s.frame, Rows: append([]series.Summary(nil), s.curve.Rows...)}
+	return State{Ref: s.ref.Save(), Frame: s.frame, Rows: append([]series.Summary(nil), s.curve.Rows...), Static: s.static}
 }
 
 // MarshalState encodes the series' state as JSON.
@@ -65,15 +67,16 @@ func Restore(rig *calib.Rig, left, right *imageio.Gray, p Params, st State) (*Se
 	if len(st.Rows) == 0 {
 		return nil, errors.New("stereo series: the state has no curve rows")
 	}
-	s := &Series{p: p, ref: ref, frame: st.Frame, l0: left, r0: right}
+	s := &Series{p: p, ref: ref, frame: st.Frame, l0: left, r0: right, static: st.Static}
 	s.curve = CurveOf(p, st)
+	s.curve.Noise = nil // Curve adds it from static
 	return s, nil
 }
 
 // CurveOf returns the curve of a series with parameters p whose state
 // after its last frame is st, without its images.
 func CurveOf(p Params, st State) series.Curve {
-	c := series.Curve{Params: curveParams(p)}
+	c := series.Curve{Params: curveParams(p), Noise: series.NoiseFromFrames(st.Static)}
 	c.Rows = append([]series.Summary(nil), st.Rows...)
 	return c
 }
