@@ -57,6 +57,7 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	window := fs.Int("strain-window", 0, "strain window, grid points (odd; default 5)")
 	roiRect := fs.String("roi", "", roiHelp)
 	area := fs.Float64("area", 0, "initial cross-section in mm² (gives stress in MPa from load in N)")
+	resume := fs.Bool("resume", false, "continue a stereo series stopped earlier from <out>/state.json (its parameters are used; the reference pair must be the same)")
 	static := fs.Int("static", 0, "number of pairs after the reference taken without load or motion: their spread is the noise floor (u, v, w in mm, surface strains) in the curve")
 	table := fs.String("table", "", "CSV of loads and times with a header row (see mottle series --help)")
 	axial := fs.String("axial", "", "axial strain source: an extensometer name or gauge:NAME:E11 (default the first extensometer)")
@@ -91,6 +92,13 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	}
 	set := map[string]bool{}
 	fs.Visit(func(f *flagT) { set[f.Name] = true })
+	if *resume {
+		for _, n := range []string{"params", "subset", "step", "strain-window", "roi", "area", "static", "ext", "gauge", "axial", "transverse", "modulus-range", "poisson-range"} {
+			if set[n] {
+				errs = append(errs, fmt.Errorf("--%s with --resume: the series goes on with the parameters it was started with (in %s); leave --%[1]s out", n, stereoStateFile))
+			}
+		}
+	}
 	if set["subset"] {
 		p.Subset = *subset
 	}
@@ -194,20 +202,38 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	if err != nil {
 		return err
 	}
-	s, err := series3d.New(ctx, rig, l0, r0, metas[0], p)
-	if err != nil {
-		return fmt.Errorf("%s + %s: %w", lf[0], rf[0], err)
+	if err := os.MkdirAll(*out, 0o755); err != nil {
+		return err
 	}
-	fmt.Fprintf(e.stdout, "reference: %d of %d points matched and triangulated\n", s.Reference().OK(), len(s.Reference().Points))
+	var s *series3d.Series
+	start := 1
+	if *resume {
+		if s, start, err = resumeStereoSeries(*out, rig, l0, r0, lf, rf); err != nil {
+			return fmt.Errorf("--resume: %w", err)
+		}
+		p = s.Params()
+		fmt.Fprintf(e.stdout, "resuming after pair %d of %d from %s\n", start-1, len(lf)-1, filepath.Join(*out, stereoStateFile))
+	} else {
+		if s, err = series3d.New(ctx, rig, l0, r0, metas[0], p); err != nil {
+			return fmt.Errorf("%s + %s: %w", lf[0], rf[0], err)
+		}
+		fmt.Fprintf(e.stdout, "reference: %d of %d points matched and triangulated\n", s.Reference().OK(), len(s.Reference().Points))
+	}
 	var last *series3d.Frame
 	var lastL *imageio.Gray
-	for k := 1; k < len(lf); k++ {
+	for k := start; k < len(lf); k++ {
 		l, r, err := read(k)
 		if err != nil {
 			return err
 		}
 		fr, row, err := s.Add(ctx, l, r, metas[k])
 		if err != nil {
+			if ctx.Err() != nil {
+				return fmt.Errorf("stopped after %d of %d pairs; continue with --resume: %w", k-1, len(lf)-1, err)
+			}
+			return err
+		}
+		if err := saveStereoSeries(*out, s, lf[0], rf[0]); err != nil {
 			return err
 		}
 		last, lastL = fr, l
@@ -218,9 +244,6 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 			}
 		}
 		fmt.Fprintln(e.stdout, line)
-	}
-	if err := os.MkdirAll(*out, 0o755); err != nil {
-		return err
 	}
 	c := s.Curve()
 	var b strings.Builder
@@ -265,4 +288,62 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	}
 	fmt.Fprintf(e.stdout, "wrote curve.csv, properties.json and final/ to %s\n", *out)
 	return nil
+}
+
+// stereoStateFile is the state of a stereo series in its results folder,
+// rewritten after each pair, from which --resume continues.
+const stereoStateFile = "state.json"
+
+// stereoSaved is the document of stereoStateFile: the reference pair's
+// file names, the parameters and the series3d state.
+type stereoSaved struct {
+	LeftReference  string          `json:"left_reference"`
+	RightReference string          `json:"right_reference"`
+	Params         series3d.Params `json:"params"`
+	State          series3d.State  `json:"state"`
+}
+
+// saveStereoSeries writes the state of s to out/state.json, replacing the
+// old one only once the new one is complete.
+func saveStereoSeries(out string, s *series3d.Series, left, right string) error {
+	b, err := json.Marshal(stereoSaved{LeftReference: filepath.Base(left), RightReference: filepath.Base(right), Params: s.Params(), State: s.State()})
+	if err != nil {
+		return fmt.Errorf("stereo series state: %w", err)
+	}
+	path := filepath.Join(out, stereoStateFile)
+	if err := os.WriteFile(path+".tmp", b, 0o644); err != nil {
+		return err
+	}
+	return os.Rename(path+".tmp", path)
+}
+
+// resumeStereoSeries restores the stereo series saved in out/state.json
+// on the reference pair l0, r0 (the files lf[0], rf[0]) and returns it with
+// the index of the next pair to add.
+func resumeStereoSeries(out string, rig *calib.Rig, l0, r0 *imageio.Gray, lf, rf []string) (*series3d.Series, int, error) {
+	path := filepath.Join(out, stereoStateFile)
+	b, err := os.ReadFile(path)
+	if err != nil {
+		return nil, 0, fmt.Errorf("the state of the stopped series: %w", err)
+	}
+	var sv stereoSaved
+	if err := json.Unmarshal(b, &sv); err != nil {
+		return nil, 0, fmt.Errorf("%s: %w", path, err)
+	}
+	if sv.LeftReference != filepath.Base(lf[0]) || sv.RightReference != filepath.Base(rf[0]) {
+		return nil, 0, fmt.Errorf("%s was made with the reference pair %s + %s, but the first pair given is %s + %s: give the same --left and --right",
+			path, sv.LeftReference, sv.RightReference, filepath.Base(lf[0]), filepath.Base(rf[0]))
+	}
+	done := len(sv.State.Rows) - 1
+	if done < 0 {
+		return nil, 0, fmt.Errorf("%s holds no reference; start the series again without --resume", path)
+	}
+	if done >= len(lf)-1 {
+		return nil, 0, fmt.Errorf("%s holds %d pairs after the reference and %d are given: nothing left to add (add the new pairs to --left and --right)", path, done, len(lf)-1)
+	}
+	s, err := series3d.Restore(rig, l0, r0, sv.Params, sv.State)
+	if err != nil {
+		return nil, 0, fmt.Errorf("%s: %w", path, err)
+	}
+	return s, done + 1, nil
 }

@@ -88,6 +88,28 @@ func TestStereoSeriesCommand(t *testing.T) {
 	if _, err := os.Stat(filepath.Join(out, "final", "field.vts")); err != nil {
 		t.Errorf("final/field.vts: %v", err)
 	}
+	// A series stopped after three pairs and resumed with the fourth
+	// (--resume: from the saved state, nothing matched again) ends with
+	// the curve of the run straight through, byte for byte.
+	part := filepath.Join(dir, "part")
+	pargs := append([]string{}, args...)
+	pargs[5], pargs[7], pargs[len(pargs)-1] = filepath.Join(dir, "left", "f[0-2].png"), filepath.Join(dir, "right", "f[0-2].png"), part
+	if code, stdout, stderr := runCmd(t, pargs...); code != 0 {
+		t.Fatalf("three pairs: exit %d: %s %s", code, stdout, stderr)
+	}
+	rargs := []string{"stereo", "--series", "--resume", "--rig", rig, "--left", filepath.Join(dir, "left"), "--right", filepath.Join(dir, "right"),
+		"--table", filepath.Join(dir, "loads.csv"), "--out", part}
+	code, stdout, stderr = runCmd(t, rargs...)
+	resumed, _ := os.ReadFile(filepath.Join(part, "curve.csv"))
+	if code != 0 || !strings.Contains(stdout, "resuming after pair 2 of 3") || string(resumed) != string(csv) {
+		t.Errorf("--resume: exit %d, %s %s; curve\n%s\nwant the straight run's\n%s", code, stdout, stderr, resumed, csv)
+	}
+	if code, _, stderr := runCmd(t, rargs...); code != 1 || !strings.Contains(stderr, "nothing left to add") {
+		t.Errorf("--resume of a finished series: exit %d, %q; want exit 1 and nothing left to add", code, stderr)
+	}
+	if code, _, stderr := runCmd(t, append(rargs, "--step", "8")...); code != 2 || !strings.Contains(stderr, "--step with --resume") {
+		t.Errorf("--resume with --step: exit %d, %q; want exit 2 naming --step", code, stderr)
+	}
 	os.Remove(filepath.Join(dir, "right", "f3.png"))
 	bad := []struct {
 		args []string
