@@ -135,7 +135,7 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 		return false
 	}
 	s.metrics.solved(time.Since(start).Seconds())
-	l.Debug("frame solved ahead", "seconds", time.Since(start).Seconds())
+	l.Info("frame solved ahead", "seconds", time.Since(start).Seconds())
 	return true
 }
 
