@@ -86,35 +86,43 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 	if err := p.Validate(j.Ref.W, j.Ref.H); err != nil {
 		return nil, err
 	}
-	if err := imageio.CheckPair(j.Ref, j.Def, p.Subset); err != nil {
-		return nil, err
-	}
 	opt, err := CorrelationOptions(p, j.Ref.W, j.Ref.H, j.Mask)
 	if err != nil {
+		if perr := imageio.CheckPair(j.Ref, j.Def, p.Subset); perr != nil {
+			return nil, perr
+		}
 		return nil, err
 	}
 	opt.Start, opt.Progress = j.Start, j.Progress
-	// The image quality is assessed while the images are correlated (it
-	// reads them only); a quality error stops the correlation and is the
-	// job's error.
+	// The pair checks (sizes, contrast) and the image quality are done
+	// while the images are correlated (they read them only; the correlator
+	// checks the sizes it needs itself). A failed check or a quality error
+	// stops the correlation and is the job's error, a failed check first,
+	// as if they had run before it.
 	qual := j.Quality
 	var refM quality.Measures
-	var qerr error
+	var perr, qerr error
 	qdone := make(chan struct{})
 	cctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	if qual == nil {
-		go func() {
-			defer close(qdone)
-			if qual, refM, qerr = quality.AssessPairWith(j.Ref, j.RefMeasures, j.Def, opt.Mask, quality.Thresholds{}); qerr != nil {
-				cancel()
-			}
-		}()
-	} else {
-		close(qdone)
-	}
+	go func() {
+		defer close(qdone)
+		if perr = imageio.CheckPair(j.Ref, j.Def, p.Subset); perr != nil {
+			cancel()
+			return
+		}
+		if qual != nil {
+			return
+		}
+		if qual, refM, qerr = quality.AssessPairWith(j.Ref, j.RefMeasures, j.Def, opt.Mask, quality.Thresholds{}); qerr != nil {
+			cancel()
+		}
+	}()
 	res, err := correlate.Run(cctx, j.Ref, j.Def, opt)
 	<-qdone
+	if perr != nil {
+		return nil, perr
+	}
 	if qerr != nil {
 		return nil, qerr
 	}

@@ -2,16 +2,19 @@ package analysis
 
 import (
 	"context"
+	"errors"
 	"fmt"
 	"math"
 	"os"
 	"path/filepath"
+	"strings"
 	"testing"
 
 	"github.com/mottledic/mottle/internal/figures"
 	"github.com/mottledic/mottle/pkg/field"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/kinematics"
+	"github.com/mottledic/mottle/pkg/quality"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
@@ -205,5 +208,77 @@ func TestRunStoresImageQuality(t *testing.T) {
 	}
 	if _, ok := out.Field.Meta.Extra["image_quality"]; !ok {
 		t.Error("field metadata has no image_quality")
+	}
+}
+
+// The pair checks run beside the correlation, yet a pair they refuse gets
+// their error (every problem, each naming its image, wrapping
+// imageio.ErrTooSmall, ErrNoContrast or ErrSizeMismatch), with or without
+// quality reports from the caller, and never a correlation error, a
+// panic or a hang.
+func TestRunJobChecksPair(t *testing.T) {
+	po := synth.PatternOptions{Seed: 3}
+	ref, def, err := synth.Pair(po, synth.Translation{U: 0.5}, synth.RenderOptions{W: 96, H: 96})
+	if err != nil {
+		t.Fatal(err)
+	}
+	flat := func(w, h int) *imageio.Gray {
+		g := imageio.NewGray(w, h)
+		g.Bits = 8
+		for i := range g.Pix {
+			g.Pix[i] = 100
+		}
+		return g
+	}
+	small, _, err := synth.Pair(po, nil, synth.RenderOptions{W: 15, H: 15})
+	if err != nil {
+		t.Fatal(err)
+	}
+	other, _, err := synth.Pair(po, nil, synth.RenderOptions{W: 96, H: 80})
+	if err != nil {
+		t.Fatal(err)
+	}
+	p := Defaults()
+	p.Subset, p.Step = 21, 12
+	for _, c := range []struct {
+		name     string
+		ref, def *imageio.Gray
+		want     []error
+		text     []string
+	}{
+		{"flat deformed", ref, flat(96, 96), []error{imageio.ErrNoContrast}, []string{"deformed image"}},
+		{"both flat", flat(96, 96), flat(96, 96), []error{imageio.ErrNoContrast}, []string{"reference image", "deformed image"}},
+		{"sizes differ", ref, other, []error{imageio.ErrSizeMismatch}, []string{"96×96", "96×80"}},
+		{"deformed smaller than a subset", ref, small, []error{imageio.ErrTooSmall, imageio.ErrSizeMismatch}, []string{"deformed image", "21×21 px subset"}},
+	} {
+		for _, given := range []bool{false, true} {
+			t.Run(fmt.Sprintf("%s/quality given %v", c.name, given), func(t *testing.T) {
+				j := Job{Ref: c.ref, Def: c.def, Params: p}
+				if given {
+					j.Quality = []quality.Report{{}, {}}
+				}
+				_, err := RunJob(context.Background(), j)
+				if err == nil {
+					t.Fatal("no error")
+				}
+				for _, w := range c.want {
+					if !errors.Is(err, w) {
+						t.Errorf("error %q does not wrap %v", err, w)
+					}
+				}
+				for _, s := range c.text {
+					if !strings.Contains(err.Error(), s) {
+						t.Errorf("error %q does not name %q", err, s)
+					}
+				}
+				if strings.Contains(err.Error(), "correlat") {
+					t.Errorf("error %q comes from the correlation, not the pair check", err)
+				}
+			})
+		}
+	}
+	// A good pair passes.
+	if _, err := RunJob(context.Background(), Job{Ref: ref, Def: def, Params: p}); err != nil {
+		t.Fatal(err)
 	}
 }
