@@ -143,6 +143,18 @@ func (s *solver) prepare(xc, yc float64) Status {
 	if !onGrid && s.refSp == nil {
 		return Outside
 	}
+	if onGrid && s.np == 6 {
+		return s.prepare1(ix, iy)
+	}
+	return s.prepareAny(onGrid)
+}
+
+// prepareAny is prepare for any centre (on the pixel grid or not, given
+// by onGrid) and either warp, after the checks of prepare.
+func (s *solver) prepareAny(onGrid bool) Status {
+	m := s.m
+	xc, yc := s.xc, s.yc
+	ix, iy := int(xc), int(yc)
 	var sum float64
 	side := 2*m + 1
 	k := 0
@@ -177,15 +189,21 @@ func (s *solver) prepare(xc, yc float64) Status {
 	if !(s.df > 0) || s.df/math.Sqrt(float64(s.n)) < s.minStd {
 		return LowContrast
 	}
-	np := s.np
 	var h [12 * 12]float64
 	s.b0, s.sj = [12]float64{}, [12]float64{}
-	if np == 6 {
+	if s.np == 6 {
 		s.hessian1(&h)
 	} else {
 		s.hessian2m(&h)
 	}
-	if !cholesky(&h, np, &s.chol) {
+	return s.factor(&h)
+}
+
+// factor factors the Hessian h (upper triangle) and sets the entries of its
+// inverse used for the predicted std. It returns OK or LowContrast.
+func (s *solver) factor(h *[144]float64) Status {
+	np := s.np
+	if !cholesky(h, np, &s.chol) {
 		return LowContrast
 	}
 	var eu, ev [12]float64
@@ -197,6 +215,145 @@ func (s *solver) prepare(xc, yc float64) Status {
 		s.hUU, s.hVV = s.smoothedVars(&eu, &ev)
 	}
 	return OK
+}
+
+// prepare1 is prepare for the first-order warp and a subset centred on the
+// pixel (ix, iy), the case of every grid point: it reads the subset once
+// for the samples, their sums and the Hessian's row sums (hessian1's
+// running sums, here fused with the copy so that the chains of additions
+// run side by side instead of one loop after another), and once more for
+// Σ J f and Σ J, with f not yet centred: Σ J f̃ = Σ J f − f̄ Σ J.
+func (s *solver) prepare1(ix, iy int) Status {
+	m := s.m
+	side := 2*m + 1
+	cc := float64(m + 1)
+	var sum float64
+	var hxx, hxy, hyy [3][3]float64
+	var bx, by, jx, jy [2][2]float64 // a+b ≤ 1
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		f, fx, fy := s.f[k:k+side], s.fx[k:k+side], s.fy[k:k+side]
+		o := (iy+j)*s.ref.Stride + ix - m
+		pix := s.ref.Pix[o : o+side]
+		o = (iy+j)*s.ref.W + ix - m
+		gxs, gys := s.gx[o:o+side], s.gy[o:o+side]
+		pix, gxs, gys = pix[:len(f)], gxs[:len(f)], gys[:len(f)]
+		fx, fy = fx[:len(f)], fy[:len(f)]
+		// Running sums from the right end of the row, as in hessian1.
+		var rs, xx0, xx1, xx2, xy0, xy1, xy2, yy0, yy1, yy2 float64
+		for i := len(f) - 1; i >= 0; i-- {
+			v, gx, gy := float64(pix[i]), float64(gxs[i]), float64(gys[i])
+			f[i], fx[i], fy[i] = v, gx, gy
+			rs += v
+			xx0 += gx * gx
+			xx1 += xx0
+			xx2 += xx1
+			xy0 += gx * gy
+			xy1 += xy0
+			xy2 += xy1
+			yy0 += gy * gy
+			yy1 += yy0
+			yy2 += yy1
+		}
+		sum += rs
+		var bx0, bx1, by0, by1, jx0, jx1, jy0, jy1 float64
+		for i := len(f) - 1; i >= 0; i-- {
+			gx, gy, v := fx[i], fy[i], f[i]
+			bx0 += gx * v
+			bx1 += bx0
+			by0 += gy * v
+			by1 += by0
+			jx0 += gx
+			jx1 += jx0
+			jy0 += gy
+			jy1 += jy0
+		}
+		e2 := eta * eta
+		add2 := func(dst *[3][3]float64, s0, c1, c2 float64) {
+			s1 := c1 - cc*s0
+			s2 := 2*c2 - (2*cc+1)*s1 - cc*(cc+1)*s0
+			dst[0][0] += s0
+			dst[1][0] += s1
+			dst[2][0] += s2
+			dst[0][1] += s0 * eta
+			dst[1][1] += s1 * eta
+			dst[0][2] += s0 * e2
+		}
+		add2(&hxx, xx0, xx1, xx2)
+		add2(&hxy, xy0, xy1, xy2)
+		add2(&hyy, yy0, yy1, yy2)
+		add1 := func(dst *[2][2]float64, d0, d1 float64) {
+			dst[0][0] += d0
+			dst[1][0] += d1 - cc*d0
+			dst[0][1] += d0 * eta
+		}
+		add1(&bx, bx0, bx1)
+		add1(&by, by0, by1)
+		add1(&jx, jx0, jx1)
+		add1(&jy, jy0, jy1)
+		k += side
+	}
+	n := float64(s.n)
+	s.fmean = sum / n
+	fm := s.fmean
+	// Centre the samples; two partial sums of squares, so that the
+	// additions do not wait for each other.
+	var ss0, ss1 float64
+	f := s.f[:s.n]
+	for k := 0; k+1 < len(f); k += 2 {
+		a, b := f[k]-fm, f[k+1]-fm
+		f[k], f[k+1] = a, b
+		ss0 += a * a
+		ss1 += b * b
+	}
+	if len(f)%2 == 1 {
+		a := f[len(f)-1] - fm
+		f[len(f)-1] = a
+		ss0 += a * a
+	}
+	s.df = math.Sqrt(ss0 + ss1)
+	if !(s.df > 0) || s.df/math.Sqrt(n) < s.minStd {
+		return LowContrast
+	}
+	var h [144]float64
+	s.setHessian1(&h, &hxx, &hxy, &hyy)
+	for a, pw := range pow1 {
+		bb, jj := &bx, &jx
+		if a >= 3 {
+			bb, jj = &by, &jy
+		}
+		sj := jj[pw[0]][pw[1]]
+		s.sj[a] = sj
+		s.b0[a] = bb[pw[0]][pw[1]] - fm*sj
+	}
+	for a := 6; a < 12; a++ {
+		s.b0[a], s.sj[a] = 0, 0
+	}
+	return s.factor(&h)
+}
+
+// pow1 lists the powers of ξ and η in the first-order steepest-descent
+// vector J = [fx, fx ξ, fx η, fy, fy ξ, fy η].
+var pow1 = [6][2]int{{0, 0}, {1, 0}, {0, 1}, {0, 0}, {1, 0}, {0, 1}}
+
+// setHessian1 fills the upper triangle of the first-order H from the
+// moments Σ w ξ^a η^b of w = fx², fx fy, fy², and sets sssig.
+func (s *solver) setHessian1(h *[144]float64, hxx, hxy, hyy *[3][3]float64) {
+	// Entry (a, b) is Σ w ξ^(pa+pb) η^(qa+qb).
+	for a := 0; a < 6; a++ {
+		for b := a; b < 6; b++ {
+			src := hxx
+			switch {
+			case a < 3 && b >= 3:
+				src = hxy
+			case a >= 3:
+				src = hyy
+			}
+			h[a*12+b] = src[pow1[a][0]+pow1[b][0]][pow1[a][1]+pow1[b][1]]
+		}
+	}
+	s.sssig = math.Min(hxx[0][0], hyy[0][0])
 }
 
 // smoothedVars returns Var(hᵀΔp)/(2σ²) for the two combinations cu and cv
@@ -345,29 +502,15 @@ func (s *solver) hessian1(h *[144]float64) {
 		add1(&jy, jy0, jy1)
 		k += side
 	}
-	// J = [fx, fx ξ, fx η, fy, fy ξ, fy η]: entry (a, b) is Σ w ξ^(pa+pb) η^(qa+qb).
-	pw := [6][2]int{{0, 0}, {1, 0}, {0, 1}, {0, 0}, {1, 0}, {0, 1}}
-	for a := 0; a < 6; a++ {
-		for b := a; b < 6; b++ {
-			src := &hxx
-			switch {
-			case a < 3 && b >= 3:
-				src = &hxy
-			case a >= 3:
-				src = &hyy
-			}
-			h[a*12+b] = src[pw[a][0]+pw[b][0]][pw[a][1]+pw[b][1]]
-		}
-	}
-	for a := 0; a < 6; a++ {
+	s.setHessian1(h, &hxx, &hxy, &hyy)
+	for a, pw := range pow1 {
 		bb, jj := &bx, &jx
 		if a >= 3 {
 			bb, jj = &by, &jy
 		}
-		s.b0[a] = bb[pw[a][0]][pw[a][1]]
-		s.sj[a] = jj[pw[a][0]][pw[a][1]]
+		s.b0[a] = bb[pw[0]][pw[1]]
+		s.sj[a] = jj[pw[0]][pw[1]]
 	}
-	s.sssig = math.Min(hxx[0][0], hyy[0][0])
 }
 
 // hessian2 is hessian1 for the second-order warp, by explicit outer products.
