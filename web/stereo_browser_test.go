@@ -44,7 +44,10 @@ var stereoAllowed = []allowance{
 // (drawn, and turned by the slider), that the page reads the scene's 1 mm
 // of w, that a quarter turn about the vertical makes the specimen's x axis
 // point away from the viewer, and that a rig for other images is refused
-// with the service's message.
+// with the service's message; then it measures a series of the
+// reference pair and two later pairs (1 mm and 0.5 mm toward the
+// cameras), and checks the page's curve of mean w and the state it shows
+// from the list.
 func checkStereo(b *browser) {
 	b.t.Helper()
 	const w, h = 320, 240
@@ -59,7 +62,8 @@ func checkStereo(b *browser) {
 	}
 	lc, rc := synth.BenchRig(w, h)
 	var files []string
-	for k, pl := range []synth.Placement{{Shape: synth.Plane{}}, {Shape: synth.Plane{}, Pose: synth.Pose{T: [3]float64{0, 0, 1}}}} {
+	at := func(w float64) synth.Placement { return synth.Placement{Shape: synth.Plane{}, Pose: synth.Pose{T: [3]float64{0, 0, w}}} }
+	for k, pl := range []synth.Placement{at(0), at(1), at(0.5)} {
 		for s, c := range []synth.Cam{lc, rc} {
 			g, _, err := synth.RenderSurface(tenthMM{p}, pl, c, synth.RenderOptions{W: w, H: h, Supersample: 2, Noise: 0.5, Seed: int64(2*k + s)})
 			if err != nil {
@@ -101,6 +105,32 @@ func checkStereo(b *browser) {
 	if r != "0.000000000,0.000000000,-1.000000000" {
 		b.t.Errorf("a quarter turn takes the specimen's x axis to %s in view coordinates, want 0,0,-1 (away from the viewer)", r)
 	}
+	// A series: the reference pair, then the plane 1 mm and 0.5 mm toward
+	// the cameras (the right images chosen in another order: the page
+	// pairs them by name).
+	b.run("choose the later pairs of a series",
+		chromedp.SetUploadFiles(chromedp.ID("st-sleft"), []string{files[2], files[4]}),
+		chromedp.SetUploadFiles(chromedp.ID("st-sright"), []string{files[5], files[3]}))
+	b.run("measure the series", chromedp.Click(chromedp.ID("st-srun")))
+	b.wait(`document.getElementById("st-sstatus").textContent === "done"`, "the stereo series did not finish")
+	for k, want := range []float64{0, 1, 0.5} {
+		if got := b.number(fmt.Sprintf(`mottleStereo.series.meanW[%d]`, k)); math.Abs(got-want) > 0.01 {
+			b.t.Errorf("series state %d: the page reads a mean w of %.4f mm; the scene moved %.1f mm", k, got, want)
+		}
+	}
+	if n := b.number(`mottleStereo.curvePoints`); n != 3 {
+		b.t.Errorf("the series plot drew %v points, want 3", n)
+	}
+	if mw := b.number(`mottleStereo.meanW`); math.Abs(mw-1) > 0.01 {
+		b.t.Errorf("the first state of the series shows a mean w of %.4f mm, want 1", mw)
+	}
+	b.run("show the second state", setValue("#st-state", "1"))
+	b.wait(`mottleStereo.series.shown === 1`, "the second state of the series was not shown")
+	if mw := b.number(`mottleStereo.meanW`); math.Abs(mw-0.5) > 0.01 {
+		b.t.Errorf("the second state of the series shows a mean w of %.4f mm, want 0.5", mw)
+	}
+	b.shot("stereo-series.png", "#stereo")
+
 	b.run("choose a rig calibrated on 640×480 images", chromedp.SetUploadFiles(chromedp.ID("st-rig"), []string{other}))
 	b.run("measure again", chromedp.Click(chromedp.ID("st-run")))
 	b.wait(`document.getElementById("st-status").textContent === "failed"`, "a rig for other images was not refused")

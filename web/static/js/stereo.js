@@ -1,11 +1,12 @@
 // Stereo measurement in the preview: send a rig file and a left and right
-// reference (and deformed) image to POST /v1/stereo, then draw the shape
+// reference (and deformed) image to POST /v1/stereo, or the reference pair
+// and later pairs to POST /v1/stereo/series, then draw the shape
 // (z) and the out-of-plane displacement (w) as maps over the left
 // reference grid, and the measured surface in 3D on a canvas that turns
 // with the sliders or by dragging.
 
-import { describe, request } from './api.js';
-import { fmt } from './plot.js';
+import { describe, getJSON, request } from './api.js';
+import { fmt, linePlot } from './plot.js';
 import { rgb } from './colormap.js';
 
 const $ = id => document.getElementById(id);
@@ -191,6 +192,60 @@ async function measure() {
   }
 }
 
+// A stereo series in the page: the reference pair above and later pairs
+// (the k-th left image with the k-th right, in file-name order) go to
+// POST /v1/stereo/series?wait=true, which stores the series and measures
+// every pair; the page plots the mean out-of-plane displacement w of each
+// state and shows the state chosen in the list with the maps and the 3D
+// view of a single state, from the frame's stored field.json.
+function byName(files) { return [...files].sort((a, b) => a.name.localeCompare(b.name)); }
+
+async function measureSeries() {
+  $('st-error').hidden = true;
+  const rig = $('st-rig').files[0], l0 = $('st-lref').files[0], r0 = $('st-rref').files[0];
+  const ls = byName($('st-sleft').files), rs = byName($('st-sright').files);
+  const st = window.mottleStereo;
+  if (!rig || !l0 || !r0 || !ls.length || ls.length !== rs.length) {
+    $('st-sstatus').textContent = 'failed';
+    fail(new Error(`give the rig, the reference pair and as many later left images as later right images (${ls.length} left, ${rs.length} right)`));
+    return;
+  }
+  const fd = new FormData();
+  fd.append('rig', rig, rig.name);
+  for (const [l, r] of [[l0, r0], ...ls.map((l, k) => [l, rs[k]])]) {
+    fd.append('left', l, l.name);
+    fd.append('right', r, r.name);
+  }
+  const step = +$('st-step').value;
+  if (step > 0) fd.append('params', new Blob([JSON.stringify({ step })], { type: 'application/json' }));
+  $('st-sstatus').textContent = 'measuring…';
+  try {
+    const resp = await request('/v1/stereo/series?wait=true', { method: 'POST', body: fd });
+    const res = await resp.json();
+    if (!res.curve) throw new Error(`the series ${res.id} is still being measured; its results will be at /v1/series/${res.id}`);
+    const rows = res.curve.rows;
+    st.series = { id: res.series, meanW: rows.map(r => (r.mean && Number.isFinite(r.mean.w) ? r.mean.w : NaN)) };
+    $('st-sbody').hidden = false;
+    $('st-ssummary').textContent = `series ${res.series}: ${res.matched} of ${res.points} points matched in the reference pair; ${rows.length - 1} later states. ${res.cautions.join('; ')}.`;
+    st.curvePoints = linePlot($('st-curve'), rows.map((r, k) => k), st.series.meanW, { xlabel: 'state (0 = reference)', ylabel: 'mean w, mm', points: true });
+    const sel = $('st-state');
+    sel.replaceChildren(...rows.slice(1).map((r, k) => new Option(`${k + 1}: ${r.name}`, String(k))));
+    await showState(0);
+    $('st-sstatus').textContent = 'done';
+  } catch (err) {
+    $('st-sstatus').textContent = 'failed';
+    fail(err);
+  }
+}
+
+/** showState shows frame n of the series (state n + 1) from its field.json. */
+async function showState(n) {
+  const st = window.mottleStereo;
+  const doc = await getJSON(`/v1/series/${st.series.id}/frames/${n}/field.json`);
+  show(doc);
+  st.series.shown = n;
+}
+
 function turn() {
   const v = window.mottleStereo.view;
   v.yaw = +$('st-yaw').value; v.pitch = +$('st-pitch').value; v.exaggerate = +$('st-exag').value;
@@ -203,6 +258,10 @@ function init() {
   window.mottleStereo = { view: canvas ? new View3D(canvas) : null, doc: null, grid, mean, range };
   if (!$('st-run')) return;
   $('st-run').addEventListener('click', measure);
+  $('st-srun').addEventListener('click', measureSeries);
+  $('st-state').addEventListener('change', () => {
+    showState(+$('st-state').value).catch(fail);
+  });
   for (const id of ['st-yaw', 'st-pitch', 'st-exag']) $(id).addEventListener('input', turn);
   let drag = null;
   canvas.addEventListener('pointerdown', e => { drag = [e.clientX, e.clientY, +$('st-yaw').value, +$('st-pitch').value]; canvas.setPointerCapture(e.pointerId); });
