@@ -62,7 +62,9 @@ func checkStereo(b *browser) {
 	}
 	lc, rc := synth.BenchRig(w, h)
 	var files []string
-	at := func(w float64) synth.Placement { return synth.Placement{Shape: synth.Plane{}, Pose: synth.Pose{T: [3]float64{0, 0, w}}} }
+	at := func(w float64) synth.Placement {
+		return synth.Placement{Shape: synth.Plane{}, Pose: synth.Pose{T: [3]float64{0, 0, w}}}
+	}
 	for k, pl := range []synth.Placement{at(0), at(1), at(0.5)} {
 		for s, c := range []synth.Cam{lc, rc} {
 			g, _, err := synth.RenderSurface(tenthMM{p}, pl, c, synth.RenderOptions{W: w, H: h, Supersample: 2, Noise: 0.5, Seed: int64(2*k + s)})
