@@ -15,7 +15,10 @@ import (
 // has not finished may be correlated at once, before its turn, when
 //   - the analyzer is a FrameSolver and the series' parameters allow it
 //     (direct or auto mode, SolvesAhead), and the last finished frame did
-//     not go incremental;
+//     not go incremental, or the parameters split an incremental chain at
+//     a frame that returns to direct correlation (auto mode with
+//     return_direct: then the frames after the return need only its state,
+//     so stretches of a series run side by side);
 //   - the series allows more than one frame in flight (MaxInFlight) and the
 //     frame is within that many frames of the last finished one: frame n
 //     waits while frame n−MaxInFlight is unfinished, so at most
@@ -64,9 +67,6 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 			return false
 		}
 	}
-	if ok, err := fs.SolvesAhead(sr.Params); err != nil || !ok {
-		return false
-	}
 	key := SolveKey(sr.ID, n)
 	if rc, err := s.blobs.Get(bg, key); err == nil {
 		rc.Close()
@@ -80,18 +80,19 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 			in.Guess = b
 		}
 	}
-	if in.Guess == nil {
-		last, err := s.lastDone(bg, j)
-		if err != nil {
-			return false
-		}
-		if last != nil {
-			if last.Summary != nil && last.Summary.Mode == series.ModeIncremental {
-				return false // the series went incremental: frames chain
-			}
-			if in.GuessState, err = s.ReadBlob(bg, StateKey(sr.ID, last.FrameIndex)); err != nil {
-				in.GuessState = nil
-			}
+	last, err := s.lastDone(bg, j)
+	if err != nil {
+		return false
+	}
+	// After a frame that went incremental the frames chain, unless the
+	// parameters let a frame return to direct correlation.
+	incremental := last != nil && last.Summary != nil && last.Summary.Mode == series.ModeIncremental
+	if ok, err := fs.SolvesAhead(sr.Params, incremental); err != nil || !ok {
+		return false
+	}
+	if in.Guess == nil && last != nil {
+		if in.GuessState, err = s.ReadBlob(bg, StateKey(sr.ID, last.FrameIndex)); err != nil {
+			in.GuessState = nil
 		}
 	}
 

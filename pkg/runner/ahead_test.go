@@ -324,3 +324,42 @@ func checkSeries(t *testing.T, st series.State, ref *imageio.Gray, imgs []*image
 		}
 	}
 }
+
+// chained is a delayed FrameSolver whose frames all go incremental, and
+// whose parameters split an incremental chain (a frame may return to
+// direct correlation) when split is set.
+type chained struct {
+	delayed
+	split bool
+}
+
+func (c chained) Frame(ctx context.Context, in FrameInput) (*Result, error) {
+	r, err := c.delayed.Frame(ctx, in)
+	if err == nil {
+		r.Summary.Mode = series.ModeIncremental
+	}
+	return r, err
+}
+
+func (c chained) SolvesAhead(_ json.RawMessage, incremental bool) (bool, error) {
+	return !incremental || c.split, nil
+}
+
+// TestSolveAheadAfterIncremental checks the runner's rule for a series
+// that went incremental (issue 21): its frames chain one by one (none is
+// solved ahead once a frame finished incremental, at most frame 1 before
+// that), unless its parameters split the chain at a frame that returns to
+// direct correlation; then the frames after the incremental ones are
+// solved ahead as in direct mode, within the bound on frames in flight.
+func TestSolveAheadAfterIncremental(t *testing.T) {
+	const n = 8
+	d := delayed{solve: 60 * time.Millisecond, add: 20 * time.Millisecond}
+	_, chain := runSimulatedStats(t, chained{delayed: d}, n, 2, 2)
+	if chain.SolvedAhead > 1 {
+		t.Errorf("%d frames of an incremental chain solved ahead, want at most frame 1 (before a frame finished)", chain.SolvedAhead)
+	}
+	_, split := runSimulatedStats(t, chained{delayed: d, split: true}, n, 2, 2)
+	if split.SolvedAhead < n/2 {
+		t.Errorf("%d of %d frames solved ahead with the chain split at returns to direct, want at least %d", split.SolvedAhead, n, n/2)
+	}
+}

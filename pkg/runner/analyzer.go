@@ -121,8 +121,10 @@ type FrameInput struct {
 type FrameSolver interface {
 	FrameAnalyzer
 	// SolvesAhead reports whether the frames of a series with the stored
-	// parameter document params may be solved ahead.
-	SolvesAhead(params json.RawMessage) (bool, error)
+	// parameter document params may be solved ahead; with incremental,
+	// when the last frame finished went incremental (a frame solved then
+	// may return to direct correlation and split the incremental chain).
+	SolvesAhead(params json.RawMessage, incremental bool) (bool, error)
 	// Solve correlates in.Def with in.Ref and returns the frame's
 	// solution, an opaque document. It stops early with ctx.Err() when
 	// ctx is done.

@@ -59,7 +59,7 @@ func (d delayed) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 	return &Result{Files: map[string][]byte{"field.json": []byte("{}")}, Summary: jobs.Summary{Points: 1, Valid: 1}, State: st}, nil
 }
 
-func (d delayed) SolvesAhead(json.RawMessage) (bool, error) { return true, nil }
+func (d delayed) SolvesAhead(json.RawMessage, bool) (bool, error) { return true, nil }
 
 func (d delayed) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
 	if err := sleep(ctx, d.solve); err != nil {
@@ -71,7 +71,13 @@ func (d delayed) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
 // runSimulated runs one series of n frames through a runner of w workers
 // on the embedded backend with at most inFlight frames in flight and
 // returns the frames per second.
-func runSimulated(b *testing.B, an FrameSolver, n, w, inFlight int) float64 {
+func runSimulated(b testing.TB, an FrameSolver, n, w, inFlight int) float64 {
+	r, _ := runSimulatedStats(b, an, n, w, inFlight)
+	return r
+}
+
+// runSimulatedStats is runSimulated that also returns the runner's Stats.
+func runSimulatedStats(b testing.TB, an FrameSolver, n, w, inFlight int) (float64, Stats) {
 	be, err := embedded.Open(b.TempDir(), 4*n)
 	if err != nil {
 		b.Fatal(err)
@@ -121,16 +127,16 @@ func runSimulated(b *testing.B, an FrameSolver, n, w, inFlight int) float64 {
 	}
 	defer stop()
 	last := sr.Frames[n-1]
-	for deadline := start.Add(10 * time.Minute); time.Now().Before(deadline); time.Sleep(2 * time.Millisecond) {
+	for deadline := start.Add(2 * time.Minute); time.Now().Before(deadline); time.Sleep(2 * time.Millisecond) {
 		if j, err := be.Store.Job(ctx, last); err == nil && j.State.Terminal() {
 			if j.State != jobs.Succeeded {
 				b.Fatalf("last frame %s: %+v", j.State, j.Error)
 			}
-			return float64(n) / time.Since(start).Seconds()
+			return float64(n) / time.Since(start).Seconds(), rn.Stats()
 		}
 	}
-	b.Fatal("the series did not finish within 10 minutes")
-	return 0
+	b.Fatal("the series did not finish within 2 minutes")
+	return 0, Stats{}
 }
 
 // BenchmarkSimulatedCluster shows how the throughput of one series grows

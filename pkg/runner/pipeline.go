@@ -344,11 +344,16 @@ func DecodeSeriesParams(b []byte) (series.Params, error) {
 }
 
 // SolvesAhead implements FrameSolver: every mode but incremental-always
-// starts a frame with a direct correlation (series.SolvesAhead).
-func (Pipeline) SolvesAhead(params json.RawMessage) (bool, error) {
+// starts a frame with a direct correlation (series.SolvesAhead), and
+// after a series went incremental, auto mode with return_direct splits
+// the chain at a frame that returns (series.SplitsAtReturn).
+func (Pipeline) SolvesAhead(params json.RawMessage, incremental bool) (bool, error) {
 	p, err := DecodeSeriesParams(params)
 	if err != nil {
 		return false, err
+	}
+	if incremental {
+		return series.SplitsAtReturn(p), nil
 	}
 	return series.SolvesAhead(p), nil
 }

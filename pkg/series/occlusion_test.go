@@ -31,6 +31,38 @@ func blank(g *imageio.Gray, x0, y0, s int) *imageio.Gray {
 	return &out
 }
 
+// The occlusion scenario: frame occFrame of occFrames has a square of
+// the pattern blanked out around (occCX, occCY).
+const (
+	occCX, occCY        = 96.0, 56.0
+	occFrames, occFrame = 7, 3
+)
+
+// occlusionSeries renders the scenario of TestOcclusionReacquired: the
+// reference, the frames, their motions and the parameters (subset 19,
+// step 6, a rectangular ROI; the mode is the caller's).
+func occlusionSeries(t *testing.T) (*imageio.Gray, []*imageio.Gray, []synth.Affine, Params) {
+	t.Helper()
+	const W, H = 192, 112
+	var ms []synth.Affine
+	var motions []synth.Motion
+	for n := 1; n <= occFrames; n++ {
+		l := 1 + 0.004*float64(n)
+		a := synth.Affine{F: [2][2]float64{{l, 0}, {0, 1 - 0.3*(l-1)}}, CX: occCX, CY: occCY, U: 0.3 * float64(n)}
+		ms = append(ms, a)
+		motions = append(motions, a)
+	}
+	ref, imgs := renderFrames(t, W, H, 3, motions, 0)
+	// The square sits over the middle of the ROI in frame 3's image.
+	imgs[occFrame-1] = blank(imgs[occFrame-1], int(occCX)-20, int(occCY)-20, 40)
+
+	base := Defaults()
+	base.Analysis = analysis.Defaults()
+	base.Analysis.Subset, base.Analysis.Step = 19, 6
+	base.Analysis.ROI = roiRect([4]int{int(occCX) - 70, int(occCY) - 40, int(occCX) + 70, int(occCY) + 40})
+	return ref, imgs, ms, base
+}
+
 // TestOcclusionReacquired renders a strip stretched a little more in each
 // of seven frames (an invented scenario) with a 40 px square of the
 // pattern blanked out in frame 3 only. The points under it are lost in
@@ -45,24 +77,9 @@ func blank(g *imageio.Gray, x0, y0, s int) *imageio.Gray {
 //     left), frame 4 is checked against the reference and returns to
 //     direct correlation with every point.
 func TestOcclusionReacquired(t *testing.T) {
-	const W, H, cx, cy = 192, 112, 96.0, 56.0
-	const frames, occluded = 7, 3
-	var ms []synth.Affine
-	var motions []synth.Motion
-	for n := 1; n <= frames; n++ {
-		l := 1 + 0.004*float64(n)
-		a := synth.Affine{F: [2][2]float64{{l, 0}, {0, 1 - 0.3*(l-1)}}, CX: cx, CY: cy, U: 0.3 * float64(n)}
-		ms = append(ms, a)
-		motions = append(motions, a)
-	}
-	ref, imgs := renderFrames(t, W, H, 3, motions, 0)
-	// The square sits over the middle of the ROI in frame 3's image.
-	imgs[occluded-1] = blank(imgs[occluded-1], int(cx)-20, int(cy)-20, 40)
-
-	base := Defaults()
-	base.Analysis = analysis.Defaults()
-	base.Analysis.Subset, base.Analysis.Step = 19, 6
-	base.Analysis.ROI = roiRect([4]int{int(cx) - 70, int(cy) - 40, int(cx) + 70, int(cy) + 40})
+	const cx, cy = occCX, occCY
+	const occluded = occFrame
+	ref, imgs, ms, base := occlusionSeries(t)
 
 	cases := []struct {
 		name         string
@@ -129,7 +146,7 @@ func TestOcclusionReacquired(t *testing.T) {
 						t.Errorf("frame %d: %d points re-acquired, want the %d lost", index, s.Reacquired, len(lost))
 					}
 				}
-				if index == frames {
+				if index == occFrames {
 					// Truth from the rendered motion. Direct frames must
 					// meet 0.02 px, a few times the random error of 19 px
 					// subsets on these 12-bit renders (measured ~0.005

@@ -25,6 +25,16 @@ type Solution struct {
 // frame with a direct correlation.
 func SolvesAhead(p Params) bool { return p.withDefaults().Incremental != IncrementalAlways }
 
+// SplitsAtReturn reports whether the frames of a series with parameters p
+// that has gone incremental may still be solved ahead: in auto mode with
+// ReturnDirect, a frame whose direct solution is good enough returns to
+// direct correlation (AddSolved), so the incremental chain before it and
+// the frames after it run side by side.
+func SplitsAtReturn(p Params) bool {
+	p = p.withDefaults()
+	return p.Incremental == IncrementalAuto && p.ReturnDirect
+}
+
 // Solve correlates img with the reference ref of a series with parameters
 // p (and ROI mask opt.Mask), starting every point from guess, the solution
 // of a nearby frame already solved (nil: the seed search of a first
@@ -72,12 +82,20 @@ func solve(ctx context.Context, c correlator, img *imageio.Gray, guess *Solution
 }
 
 // AddSolved adds the next frame as Add does, taking its direct
-// correlation from sol when the tracker would correlate it directly
-// (direct mode, or auto mode before it switched) and sol is good enough:
-// on the tracker's grid, with a mean ZNCC and a tracked fraction at least
-// the switch thresholds. Otherwise (no solution, a frame that did not
-// converge well from its guess) the frame is correlated from the previous
-// frame's solution, exactly as Add does.
+// correlation from sol when sol is good enough: on the tracker's grid,
+// with a mean ZNCC and a tracked fraction at least the switch thresholds.
+// Before an auto-mode series has switched (and in direct mode) the frame
+// is then not correlated again; after it switched, with ReturnDirect, the
+// frame returns to direct correlation with sol, as Add's check against
+// the reference would have it, without its incremental step. Otherwise
+// (no solution, a frame that did not converge well from its guess) the
+// frame is computed exactly as Add does.
+//
+// The bound against frames added in sequence is the one of Solve; for a
+// frame that returns to direct it holds when the sequential run returns
+// at that frame too (Add checks the direct correlation from the composed
+// incremental mapping, which may fall on the other side of the
+// thresholds when the frame is near them).
 func (t *Tracker) AddSolved(ctx context.Context, img *imageio.Gray, meta FrameMeta, sol *Solution) (*Frame, error) {
 	if sol != nil && !t.accepts(sol) {
 		sol = nil

@@ -209,3 +209,102 @@ func TestStateJSON(t *testing.T) {
 		t.Errorf("StateJSON changed the tracker's thread count to %d", tr.Params().Analysis.Threads)
 	}
 }
+
+// counted counts the correlations of a tracker's correlator.
+type counted struct {
+	correlator
+	n int
+}
+
+func (c *counted) direct(ctx context.Context, def *imageio.Gray, start []guess, progress func(done, total int)) ([]match, error) {
+	c.n++
+	return c.correlator.direct(ctx, def, start, progress)
+}
+
+func (c *counted) at(ctx context.Context, src, dst *imageio.Gray, pts [][2]float64, start []guess, progress func(done, total int)) ([]match, error) {
+	c.n++
+	return c.correlator.at(ctx, src, dst, pts, start, progress)
+}
+
+// TestSolveAheadReturn checks the split of an incremental chain at a frame
+// that returns to direct correlation (issue 21) on the occlusion scenario
+// in auto mode with ReturnDirect: frame 3 is partly blanked out, so the
+// series goes incremental there, and frame 4 returns to direct. Every
+// frame solved ahead (from the solution two frames back, a seed search
+// for the first two) and added in order: frame 3's poor solution is set
+// aside and the frame computed as in sequence (it goes incremental, from
+// points within solveTol of the sequential ones); frame 4 returns
+// to direct with its solution and no correlation at all in its turn, so
+// the frames after it need nothing of the chain before it but its state;
+// every row has the sequential run's mode and return flag and its means
+// within solveTol.
+func TestSolveAheadReturn(t *testing.T) {
+	ref, imgs, _, p := occlusionSeries(t)
+	p.Incremental, p.ReturnDirect = IncrementalAuto, true
+	if !SplitsAtReturn(p) || !SolvesAhead(p) {
+		t.Fatal("an auto-mode series with ReturnDirect does not solve ahead after it switched")
+	}
+	ctx := context.Background()
+	seq, err := New(ref, FrameMeta{}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, im := range imgs {
+		if _, err := seq.Add(ctx, im, FrameMeta{}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	want := seq.Curve()
+	if r := want.Rows[occFrame]; r.Mode != ModeIncremental {
+		t.Fatalf("sequential frame %d: mode %s, want incremental (the scenario changed)", occFrame, r.Mode)
+	}
+	if r := want.Rows[occFrame+1]; !r.ReturnedDirect {
+		t.Fatalf("sequential frame %d did not return to direct (the scenario changed)", occFrame+1)
+	}
+
+	sols := make([]*Solution, len(imgs))
+	for k := range imgs {
+		var g *Solution
+		if k >= 2 {
+			g = sols[k-2]
+		}
+		if sols[k], err = Solve(ctx, ref, imgs[k], p, Options{}, g, nil); err != nil {
+			t.Fatal(err)
+		}
+	}
+	tr, err := New(ref, FrameMeta{}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	c := &counted{correlator: tr.corr}
+	tr.corr = c
+	for k, im := range imgs {
+		before := c.n
+		fr, err := tr.AddSolved(ctx, im, FrameMeta{}, sols[k])
+		if err != nil {
+			t.Fatal(err)
+		}
+		if index := k + 1; index == occFrame+1 && c.n != before {
+			t.Errorf("frame %d returned to direct with %d correlations in its turn, want none (its solution)", index, c.n-before)
+		}
+		if k+1 == occFrame && !fr.Summary.ReturnedDirect && fr.Summary.Mode == ModeIncremental && c.n == before {
+			t.Errorf("frame %d went incremental without correlating", k+1)
+		}
+	}
+	got := tr.Curve()
+	for i := range want.Rows {
+		g, w := got.Rows[i], want.Rows[i]
+		if g.Mode != w.Mode || g.ReturnedDirect != w.ReturnedDirect {
+			t.Errorf("frame %d: mode %s returned %v, sequential %s %v", i, g.Mode, g.ReturnedDirect, w.Mode, w.ReturnedDirect)
+		}
+		for _, q := range MeanNames {
+			bound := solveTolE
+			if q == "u" || q == "v" {
+				bound = solveTolU
+			}
+			if d := math.Abs(g.Mean[q] - w.Mean[q]); !(d <= bound) {
+				t.Errorf("frame %d %s: %g, sequential %g (bound %g)", i, q, g.Mean[q], w.Mean[q], bound)
+			}
+		}
+	}
+}

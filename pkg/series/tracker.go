@@ -220,6 +220,11 @@ func (t *Tracker) Add(ctx context.Context, img *imageio.Gray, meta FrameMeta) (*
 	switch {
 	case p.Incremental == IncrementalAlways:
 		incremental()
+	case p.Incremental == IncrementalAuto && switched && p.ReturnDirect && t.solved != nil:
+		// Solved ahead, directly from another frame's guess, and good
+		// enough to return (AddSolved): the check against the reference
+		// is done, and the incremental chain is split here (issue 21).
+		pts, mode, switched, returned = t.solved.Points, ModeDirect, false, true
 	case p.Incremental == IncrementalAuto && switched:
 		incremental()
 		if err == nil && p.ReturnDirect {
