@@ -363,3 +363,93 @@ func TestSolveAheadAfterIncremental(t *testing.T) {
 		t.Errorf("%d of %d frames solved ahead with the chain split at returns to direct, want at least %d", split.SolvedAhead, n, n/2)
 	}
 }
+
+// tagged is a delayed FrameSolver that records, by series (its parameter
+// document), how many frames are computed at once at most and when each
+// frame was added to its series.
+type tagged struct {
+	delayed
+	mu    sync.Mutex
+	now   map[string]int
+	peak  map[string]int
+	added map[string][]time.Time
+}
+
+func (c *tagged) enter(series string) func() {
+	c.mu.Lock()
+	c.now[series]++
+	c.peak[series] = max(c.peak[series], c.now[series])
+	c.mu.Unlock()
+	return func() { c.mu.Lock(); c.now[series]--; c.mu.Unlock() }
+}
+
+func (c *tagged) Frame(ctx context.Context, in FrameInput) (*Result, error) {
+	defer c.enter(string(in.Params))()
+	r, err := c.delayed.Frame(ctx, in)
+	if err == nil {
+		c.mu.Lock()
+		c.added[string(in.Params)] = append(c.added[string(in.Params)], time.Now())
+		c.mu.Unlock()
+	}
+	return r, err
+}
+
+func (c *tagged) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
+	defer c.enter(string(in.Params))()
+	return c.delayed.Solve(ctx, in)
+}
+
+// TestSeriesShareWorkers checks the sharing of workers between series
+// (issue 21): two series of 12 frames, each allowed 2 frames in flight,
+// the second created after the first (so every frame of the first is
+// ahead of it in the queue), on 4 workers. Neither series ever has more
+// than 2 frames computed at once (solved ahead or added), and the second
+// is not kept waiting for the first: its first half is added before the
+// first series' last frame.
+func TestSeriesShareWorkers(t *testing.T) {
+	const n, bound = 12, 2
+	be, err := embedded.Open(t.TempDir(), 64)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer be.Close()
+	t0 := time.Now().UTC()
+	a := simSeries(t, be, n, bound, []byte(`{"series":"a"}`), t0)
+	b := simSeries(t, be, n, bound, []byte(`{"series":"b"}`), t0.Add(time.Second))
+	an := &tagged{delayed: delayed{solve: 80 * time.Millisecond, add: 10 * time.Millisecond},
+		now: map[string]int{}, peak: map[string]int{}, added: map[string][]time.Time{}}
+	rn, err := New(Config{Backend: be, Analyzer: an, Workers: 4, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx := context.Background()
+	stop, err := rn.Start(ctx)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer stop()
+	finished := func(sr *jobs.Series) bool {
+		j, err := be.Store.Job(ctx, sr.Frames[n-1])
+		return err == nil && j.State.Terminal()
+	}
+	for end := time.Now().Add(2 * time.Minute); !(finished(a) && finished(b)); time.Sleep(5 * time.Millisecond) {
+		if time.Now().After(end) {
+			t.Fatal("the two series did not finish within 2 minutes")
+		}
+	}
+	an.mu.Lock()
+	defer an.mu.Unlock()
+	for _, sr := range []*jobs.Series{a, b} {
+		tag := string(sr.Params)
+		if p := an.peak[tag]; p > bound {
+			t.Errorf("series %s: %d frames computed at once, bound %d", tag, p, bound)
+		}
+		if len(an.added[tag]) != n {
+			t.Fatalf("series %s: %d frames added, want %d", tag, len(an.added[tag]), n)
+		}
+	}
+	ta, tb := an.added[string(a.Params)], an.added[string(b.Params)]
+	if !tb[n/2-1].Before(ta[n-1]) {
+		t.Errorf("the second series added its frame %d %v after the first series' last; it waited for the first series", n/2, tb[n/2-1].Sub(ta[n-1]))
+	}
+}

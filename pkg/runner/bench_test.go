@@ -76,13 +76,13 @@ func runSimulated(b testing.TB, an FrameSolver, n, w, inFlight int) float64 {
 	return r
 }
 
-// runSimulatedStats is runSimulated that also returns the runner's Stats.
-func runSimulatedStats(b testing.TB, an FrameSolver, n, w, inFlight int) (float64, Stats) {
-	be, err := embedded.Open(b.TempDir(), 4*n)
-	if err != nil {
-		b.Fatal(err)
-	}
-	defer be.Close()
+// simSeries stores a series of n frames of a 16×16 px image with the
+// parameter document params, created at t0 and its frames uploaded in
+// order 1 ms apart, and returns its record. The runner's Start queues
+// the frames (Backend.Recover): queued here too, each would be
+// delivered twice.
+func simSeries(b testing.TB, be *jobs.Backend, n, inFlight int, params []byte, t0 time.Time) *jobs.Series {
+	b.Helper()
 	ctx := context.Background()
 	img := imageio.NewGray(16, 16)
 	for i := range img.Pix {
@@ -92,8 +92,7 @@ func runSimulatedStats(b testing.TB, an FrameSolver, n, w, inFlight int) (float6
 	if err := imageio.WritePNG(&pb, img, 8); err != nil {
 		b.Fatal(err)
 	}
-	now := time.Now().UTC()
-	sr := &jobs.Series{ID: jobs.NewID(), Params: []byte(`{}`), Width: 16, Height: 16, Created: now, Updated: now, MaxInFlight: inFlight}
+	sr := &jobs.Series{ID: jobs.NewID(), Params: params, Width: 16, Height: 16, Created: t0, Updated: t0, MaxInFlight: inFlight}
 	if err := be.Blobs.Put(ctx, jobs.SeriesKey(sr.ID, "reference"), pb.reader()); err != nil {
 		b.Fatal(err)
 	}
@@ -109,13 +108,23 @@ func runSimulatedStats(b testing.TB, an FrameSolver, n, w, inFlight int) (float6
 	}
 	for k, id := range sr.Frames {
 		j := &jobs.Job{ID: id, Kind: jobs.Frame, State: jobs.Queued, Params: sr.Params, Width: 16, Height: 16, Series: sr.ID, FrameIndex: k,
-			Created: now.Add(time.Duration(k) * time.Millisecond)} // uploaded in frame order
+			Created: t0.Add(time.Duration(k+1) * time.Millisecond)}
 		if err := be.Store.CreateJob(ctx, j); err != nil {
 			b.Fatal(err)
 		}
-		// Start queues it (Backend.Recover): queued here too, it would
-		// be delivered twice.
 	}
+	return sr
+}
+
+// runSimulatedStats is runSimulated that also returns the runner's Stats.
+func runSimulatedStats(b testing.TB, an FrameSolver, n, w, inFlight int) (float64, Stats) {
+	be, err := embedded.Open(b.TempDir(), 4*n)
+	if err != nil {
+		b.Fatal(err)
+	}
+	defer be.Close()
+	ctx := context.Background()
+	sr := simSeries(b, be, n, inFlight, []byte(`{}`), time.Now().UTC())
 	rn, err := New(Config{Backend: be, Analyzer: an, Workers: w, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
 	if err != nil {
 		b.Fatal(err)

@@ -243,6 +243,7 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 	solved := false
 	held := time.Now() // since when the frame has been held, not solving
 	defer func() { s.metrics.held(time.Since(held).Seconds()) }()
+	var looked time.Time // when yieldFrame last looked
 	for wait := 10 * time.Millisecond; ; wait = min(2*wait, framePoll) {
 		g := s.frameReady(context.Background(), id)
 		if g != gateOpen && !solved && s.solveAheadHeld(ctx, id, d, &held) {
@@ -251,6 +252,12 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 			continue
 		}
 		now := s.clock.Now()
+		if g != gateOpen && !solved && now.Sub(looked) >= yieldLook {
+			looked = now
+			if s.yieldFrame(context.Background(), id) {
+				return false
+			}
+		}
 		switch {
 		case g == gateOpen:
 			return true
@@ -272,6 +279,51 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 		case <-s.clock.After(wait):
 		}
 	}
+}
+
+// yieldLook is how often a held frame looks whether it should give its
+// worker to other work (yieldFrame).
+const yieldLook = 250 * time.Millisecond
+
+// yieldFrame reports whether job id, a frame held waiting, should be put
+// back to let its worker serve other series (fair sharing, issue 21): it
+// cannot be computed now, not even solved ahead (frame n−bound of its
+// series has not finished, with bound its series' MaxInFlight, at least
+// 1), and the queue holds more jobs than the frames after it in its own
+// series that are still queued, so some other job is waiting. Put back,
+// it goes behind that job. A lone series never yields: its later frames
+// could not be computed either.
+func (s *Runner) yieldFrame(ctx context.Context, id string) bool {
+	q := s.queue.Len()
+	if q == 0 {
+		return false
+	}
+	j, err := s.store.Job(ctx, id)
+	if err != nil || j.Kind != jobs.Frame || j.State != jobs.Queued {
+		return false
+	}
+	sr, err := s.store.Series(ctx, j.Series)
+	if err != nil || j.FrameIndex > len(sr.Frames) {
+		return false
+	}
+	n, b := j.FrameIndex, max(1, sr.MaxInFlight)
+	if n < b {
+		return false
+	}
+	if back, err := s.store.Job(ctx, sr.Frames[n-b]); err != nil || back.State.Terminal() {
+		return false
+	}
+	list, err := s.store.Jobs(ctx, jobs.Filter{Series: sr.ID})
+	if err != nil {
+		return false
+	}
+	own := 0
+	for _, f := range list {
+		if f.FrameIndex > n && f.State == jobs.Queued {
+			own++
+		}
+	}
+	return q > own
 }
 
 // missingFrameWait is how long a frame waits for the record of its
