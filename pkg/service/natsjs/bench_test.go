@@ -2,8 +2,11 @@ package natsjs
 
 import (
 	"context"
+	"encoding/json"
 	"fmt"
 	"net/http"
+	"os"
+	"strconv"
 	"strings"
 	"syscall"
 	"testing"
@@ -106,74 +109,136 @@ func BenchmarkClusterFrames(b *testing.B) {
 // this 2-core machine can show the gain), with the frames of the series
 // solved ahead (--frames-in-flight equal to the workers) and, as the
 // baseline of the same run, one frame at a time on one and two workers.
-// Run with
+// Other processes on the machine lengthen the wall time, so it also
+// reports figures of the structure: the workers' CPU seconds per frame
+// (user+sys, /proc), and the seconds per frame they spent computing as
+// their logs give them (jobs, and frames solved ahead) and idle (the rest
+// of wall time × workers). With MOTTLE_BENCH_BASE set to the path of
+// another mottle binary (an earlier commit's), every case runs with it
+// too, interleaved in the same run (bin=base). Run with
 //
 //	go test -run '^$' -bench ClusterSeries -benchtime 1x ./pkg/service/natsjs
 func BenchmarkClusterSeries(b *testing.B) {
 	const frames = 60
 	sc := render(b, frames, 512)
 	sc.params = []byte(`{"subset":21,"step":8,"incremental":"never"}`)
-	bin := mottleBinary(b)
-	for _, c := range []struct{ workers, inFlight int }{{1, 1}, {2, 1}, {2, 2}, {4, 4}} {
-		b.Run(fmt.Sprintf("workers=%d/in-flight=%d", c.workers, c.inFlight), func(b *testing.B) {
-			cl := startCluster(b)
-			obs := open(b, cl.url(""), func(o *Options) { o.Work = false })
-			backend := cl.url("")
-			port := freePorts(b, 1)[0]
-			api := startProc(b, "api", nil, bin, "serve", "--backend", backend, "--addr", fmt.Sprintf("127.0.0.1:%d", port),
-				"--no-ui", "--data", b.TempDir(), "--queue", "256", "--frames-in-flight", fmt.Sprint(c.inFlight))
-			base := fmt.Sprintf("http://127.0.0.1:%d", port)
-			waitFor(b, "API ready", func() bool {
-				res, err := http.Get(base + "/readyz")
-				if err == nil {
-					res.Body.Close()
-				}
-				return err == nil && res.StatusCode == 200
-			})
-			var ws []*proc
-			for i := 0; i < c.workers; i++ {
-				w := startProc(b, fmt.Sprintf("worker-%d", i), nil, bin, "worker", "--backend", backend, "--workers", "1", "--threads", "1")
-				waitFor(b, "worker ready", func() bool { return strings.Contains(w.out.String(), "computing up to") })
-				ws = append(ws, w)
-			}
-			hc := client{b, base}
-			ctx := context.Background()
-			b.ResetTimer()
-			var el time.Duration
-			var compute float64
-			for i := 0; i < b.N; i++ {
-				id := hc.multipart("/v1/series", map[string][]byte{"reference": sc.reference, "params": sc.params}, http.StatusCreated)
-				// The frames are uploaded first, then the workers may take
-				// them: the measure is the series' compute, not the upload.
-				start := time.Now()
-				for k, f := range sc.frames {
-					hc.frame(id, f, k)
-				}
-				waitFor(b, "the series", func() bool {
-					sr, err := obs.Store().Series(ctx, id)
-					if err != nil || len(sr.Frames) != frames {
-						return false
-					}
-					j, err := obs.Store().Job(ctx, sr.Frames[frames-1])
-					return err == nil && j.State.Terminal()
-				})
-				el += time.Since(start)
-				sr, _ := obs.Store().Series(ctx, id)
-				for k, fid := range sr.Frames {
-					j, err := obs.Store().Job(ctx, fid)
-					if err != nil || j.State != jobs.Succeeded {
-						b.Fatalf("frame %d: %v %+v", k, err, j)
-					}
-					compute += j.Summary.Seconds
-				}
-			}
-			b.StopTimer()
-			b.ReportMetric(float64(b.N*frames)/el.Seconds(), "frames/s")
-			b.ReportMetric(compute/float64(b.N*frames), "add-s/frame")
-			api.signal(syscall.SIGTERM)
-			for _, w := range ws {
-				w.signal(syscall.SIGTERM)
-			}
-		})
+	bins := []struct{ name, path string }{{"new", mottleBinary(b)}}
+	if p := os.Getenv("MOTTLE_BENCH_BASE"); p != "" {
+		bins = append([]struct{ name, path string }{{"base", p}}, bins...)
 	}
+	for _, c := range []struct{ workers, inFlight int }{{1, 1}, {2, 1}, {2, 2}, {4, 4}} {
+		for _, bn := range bins {
+			bin := bn.path
+			b.Run(fmt.Sprintf("bin=%s/workers=%d/in-flight=%d", bn.name, c.workers, c.inFlight), func(b *testing.B) {
+				cl := startCluster(b)
+				obs := open(b, cl.url(""), func(o *Options) { o.Work = false })
+				backend := cl.url("")
+				port := freePorts(b, 1)[0]
+				api := startProc(b, "api", nil, bin, "serve", "--backend", backend, "--addr", fmt.Sprintf("127.0.0.1:%d", port),
+					"--no-ui", "--data", b.TempDir(), "--queue", "256", "--frames-in-flight", fmt.Sprint(c.inFlight))
+				base := fmt.Sprintf("http://127.0.0.1:%d", port)
+				waitFor(b, "API ready", func() bool {
+					res, err := http.Get(base + "/readyz")
+					if err == nil {
+						res.Body.Close()
+					}
+					return err == nil && res.StatusCode == 200
+				})
+				var ws []*proc
+				for i := 0; i < c.workers; i++ {
+					w := startProc(b, fmt.Sprintf("worker-%d", i), nil, bin, "worker", "--backend", backend, "--workers", "1", "--threads", "1")
+					waitFor(b, "worker ready", func() bool { return strings.Contains(w.out.String(), "computing up to") })
+					ws = append(ws, w)
+				}
+				hc := client{b, base}
+				ctx := context.Background()
+				b.ResetTimer()
+				var el time.Duration
+				var compute float64
+				cpu0 := 0.0
+				for _, w := range ws {
+					cpu0 += procCPU(w)
+				}
+				for i := 0; i < b.N; i++ {
+					id := hc.multipart("/v1/series", map[string][]byte{"reference": sc.reference, "params": sc.params}, http.StatusCreated)
+					start := time.Now()
+					for k, f := range sc.frames {
+						hc.frame(id, f, k)
+					}
+					waitFor(b, "the series", func() bool {
+						sr, err := obs.Store().Series(ctx, id)
+						if err != nil || len(sr.Frames) != frames {
+							return false
+						}
+						j, err := obs.Store().Job(ctx, sr.Frames[frames-1])
+						return err == nil && j.State.Terminal()
+					})
+					el += time.Since(start)
+					sr, _ := obs.Store().Series(ctx, id)
+					for k, fid := range sr.Frames {
+						j, err := obs.Store().Job(ctx, fid)
+						if err != nil || j.State != jobs.Succeeded {
+							b.Fatalf("frame %d: %v %+v", k, err, j)
+						}
+						compute += j.Summary.Seconds
+					}
+				}
+				b.StopTimer()
+				cpu, solve := -cpu0, 0.0
+				for _, w := range ws {
+					cpu += procCPU(w)
+					solve += logSeconds(w.out.String(), "frame solved ahead")
+				}
+				n := float64(b.N * frames)
+				b.ReportMetric(n/el.Seconds(), "frames/s")
+				b.ReportMetric(cpu/n, "cpu-s/frame")
+				b.ReportMetric(compute/n, "add-s/frame")
+				b.ReportMetric(solve/n, "solve-s/frame")
+				b.ReportMetric(max(0, el.Seconds()*float64(c.workers)-compute-solve)/n, "idle-s/frame")
+				api.signal(syscall.SIGTERM)
+				for _, w := range ws {
+					w.signal(syscall.SIGTERM)
+				}
+			})
+		}
+	}
+}
+
+// procCPU returns the user+system CPU seconds of a running process so far
+// (proc(5): fields 14 and 15 of /proc/<pid>/stat, in clock ticks of
+// 1/100 s, Linux's USER_HZ), or 0 when they cannot be read.
+func procCPU(p *proc) float64 {
+	b, err := os.ReadFile(fmt.Sprintf("/proc/%d/stat", p.cmd.Process.Pid))
+	if err != nil {
+		return 0
+	}
+	s := string(b)
+	if i := strings.LastIndexByte(s, ')'); i >= 0 {
+		s = s[i+1:] // the command name may hold spaces
+	}
+	f := strings.Fields(s) // f[0] is field 3 (state)
+	if len(f) < 13 {
+		return 0
+	}
+	u, _ := strconv.ParseFloat(f[11], 64)
+	st, _ := strconv.ParseFloat(f[12], 64)
+	return (u + st) / 100
+}
+
+// logSeconds adds up the "seconds" of a worker's JSON log lines whose
+// message is msg.
+func logSeconds(log, msg string) float64 {
+	sum := 0.0
+	for _, line := range strings.Split(log, "\n") {
+		if !strings.Contains(line, `"msg":"`+msg+`"`) {
+			continue
+		}
+		var v struct {
+			Seconds float64 `json:"seconds"`
+		}
+		if json.Unmarshal([]byte(line), &v) == nil {
+			sum += v.Seconds
+		}
+	}
+	return sum
 }
