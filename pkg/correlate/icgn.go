@@ -37,24 +37,25 @@ type solver struct {
 	etas       []float64  // η of each row, four times
 	lastW      [4]float64 // weights of the last group of four pixels of a row
 	vout       [9][4]float64
-	lo         float64   // smallest allowed warped coordinate (edge margin)
-	defW       float64   // largest allowed warped x: W−1 − margin
-	defH       float64   // largest allowed warped y: H−1 − margin
-	shape      Shape     // First or Second
-	np         int       // number of parameters, 6 or 12
-	m          int       // subset half-width
-	n          int       // pixels per subset, (2m+1)²
-	maxIt      int       // iteration cap
-	tol        float64   // convergence threshold, px
-	minStd     float64   // subsets with a smaller grey-level std are LowContrast
-	f          []float64 // f − f̄
-	fx, fy     []float64 // reference gradients over the subset
-	gbuf       []float64 // interpolated deformed values, one row
-	xs, ys     []float64 // warped positions, one row (second order)
-	xis        []float64 // ξ = −m … m
-	xc, yc     float64   // subset centre
-	fmean      float64   // f̄
-	df         float64   // ‖f − f̄‖
+	lo         float64       // smallest allowed warped coordinate (edge margin)
+	defW       float64       // largest allowed warped x: W−1 − margin
+	defH       float64       // largest allowed warped y: H−1 − margin
+	shape      Shape         // First or Second
+	np         int           // number of parameters, 6 or 12
+	m          int           // subset half-width
+	n          int           // pixels per subset, (2m+1)²
+	maxIt      int           // iteration cap
+	tol        float64       // convergence threshold, px
+	minStd     float64       // subsets with a smaller grey-level std are LowContrast
+	f          []float64     // f − f̄
+	fx, fy     []float64     // reference gradients over the subset
+	gbuf       []float64     // interpolated deformed values, one row
+	xs, ys     []float64     // warped positions, one row (second order)
+	xis        []float64     // ξ = −m … m
+	fromRising [5][5]float64 // ξ^a = Σ_k fromRising[a][k]·C(i+k, k), ξ = i − m
+	xc, yc     float64       // subset centre
+	fmean      float64       // f̄
+	df         float64       // ‖f − f̄‖
 	chol       [12 * 12]float64
 	b0, sj     [12]float64 // Σ J f̃ and Σ J
 	hUU        float64     // (H⁻¹)[U][U], for the predicted std
@@ -90,6 +91,7 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 	for i := range s.xis {
 		s.xis[i] = float64(i - m)
 	}
+	s.fromRising = risingToPowers(m)
 	if opt.Prefilter > 0 {
 		s.kern = spline.GaussianKernel(opt.Prefilter)
 		r := len(s.kern) / 2
@@ -101,6 +103,33 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 	s.fx = make([]float64, s.n)
 	s.fy = make([]float64, s.n)
 	return s
+}
+
+// risingToPowers returns the matrix a with (i − m)^p = Σ_k a[p][k]·C(i+k, k)
+// for every integer i and p ≤ 4. C(i+k, k), a polynomial of degree k in i,
+// vanishes at i = −1 … −k, so at the points i = −1 … −5 the system is
+// lower triangular and is solved by forward substitution; every entry is
+// an integer, exact in float64 for the subset sizes allowed.
+func risingToPowers(m int) [5][5]float64 {
+	binom := func(n, k int) float64 { // C(n, k) as a polynomial in n
+		v := 1.0
+		for t := 0; t < k; t++ {
+			v *= float64(n-t) / float64(t+1)
+		}
+		return v
+	}
+	var a [5][5]float64
+	for p := 0; p < 5; p++ {
+		for j := 0; j < 5; j++ { // at i = −(j+1), C(i+k, k) = 0 for k > j
+			i := -(j + 1)
+			rhs := math.Pow(float64(i-m), float64(p))
+			for k := 0; k < j; k++ {
+				rhs -= a[p][k] * binom(i+k, k)
+			}
+			a[p][j] = math.Round(rhs / binom(i+j, j))
+		}
+	}
+	return a
 }
 
 // useTable makes the solver interpolate the deformed image from tab, the

@@ -58,29 +58,32 @@ func TestFastPathsMatchDirect(t *testing.T) {
 // 56(3):221; second-order shape function of Lu & Cary 2000).
 func TestHessian2MomentsMatchExplicit(t *testing.T) {
 	id := func(x, y float64) (float64, float64) { return x, y }
-	img := gaussImage(60, 60, 1, id)
-	s := newTestSolver(t, img, img, Options{Subset: 21, Shape: Second})
-	if s.prepare(30, 29) != OK {
-		t.Fatal("prepare failed")
-	}
-	var h1, h2 [144]float64
-	s.b0, s.sj = [12]float64{}, [12]float64{}
-	s.hessian2(&h2)
-	b2, j2, ss2 := s.b0, s.sj, s.sssig
-	s.b0, s.sj = [12]float64{}, [12]float64{}
-	s.hessian2m(&h1)
-	for a := 0; a < 12; a++ {
-		for b := a; b < 12; b++ {
-			if d := math.Abs(h1[a*12+b] - h2[a*12+b]); d > 1e-9*math.Abs(h2[a*12+b])+1e-9 {
-				t.Errorf("H[%d][%d]: moments %v, explicit %v", a, b, h1[a*12+b], h2[a*12+b])
+	for _, c := range []struct{ size, subset int }{{60, 21}, {120, 101}} {
+		img := gaussImage(c.size, c.size, 1, id)
+		s := newTestSolver(t, img, img, Options{Subset: c.subset, Shape: Second})
+		if s.prepare(float64(c.size/2), float64(c.size/2-1)) != OK {
+			t.Fatal("prepare failed")
+		}
+		var h1, h2 [144]float64
+		s.b0, s.sj = [12]float64{}, [12]float64{}
+		s.hessian2(&h2)
+		b2, j2, ss2 := s.b0, s.sj, s.sssig
+		s.b0, s.sj = [12]float64{}, [12]float64{}
+		s.hessian2m(&h1)
+		// Each entry to 1e-12 of the scale √(H_aa H_bb) that bounds it.
+		for a := 0; a < 12; a++ {
+			for b := a; b < 12; b++ {
+				if d := math.Abs(h1[a*12+b] - h2[a*12+b]); d > 1e-12*math.Sqrt(h2[a*13]*h2[b*13]) {
+					t.Errorf("subset %d: H[%d][%d]: moments %v, explicit %v", c.subset, a, b, h1[a*12+b], h2[a*12+b])
+				}
+			}
+			if math.Abs(b2[a]-s.b0[a]) > 1e-12*math.Sqrt(h2[a*13]*s.df*s.df) || math.Abs(j2[a]-s.sj[a]) > 1e-12*math.Sqrt(h2[a*13]*float64(s.n)) {
+				t.Errorf("subset %d: b0/ΣJ[%d]: moments %v/%v, explicit %v/%v", c.subset, a, s.b0[a], s.sj[a], b2[a], j2[a])
 			}
 		}
-		if math.Abs(b2[a]-s.b0[a]) > 1e-9*math.Abs(b2[a])+1e-6 || math.Abs(j2[a]-s.sj[a]) > 1e-9*math.Abs(j2[a])+1e-6 {
-			t.Errorf("b0/ΣJ[%d]: moments %v/%v, explicit %v/%v", a, s.b0[a], s.sj[a], b2[a], j2[a])
+		if math.Abs(ss2-s.sssig) > 1e-12*ss2 {
+			t.Errorf("subset %d: SSSIG: moments %v, explicit %v", c.subset, s.sssig, ss2)
 		}
-	}
-	if math.Abs(ss2-s.sssig) > 1e-9*ss2 {
-		t.Errorf("SSSIG: moments %v, explicit %v", s.sssig, ss2)
 	}
 }
 
