@@ -58,6 +58,7 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	roiRect := fs.String("roi", "", roiHelp)
 	area := fs.Float64("area", 0, "initial cross-section in mm² (gives stress in MPa from load in N)")
 	resume := fs.Bool("resume", false, "continue a stereo series stopped earlier from <out>/state.json (its parameters are used; the reference pair must be the same)")
+	incremental := fs.String("incremental", "", "how each pair is tracked: never (from the reference pair, the default), always (from the previous pair) or auto (from the previous pair once a frame keeps fewer than 90 % of the points or its mean ZNCC falls below 0.9)")
 	static := fs.Int("static", 0, "number of pairs after the reference taken without load or motion: their spread is the noise floor (u, v, w in mm, surface strains) in the curve")
 	table := fs.String("table", "", "CSV of loads and times with a header row (see mottle series --help)")
 	axial := fs.String("axial", "", "axial strain source: an extensometer name or gauge:NAME:E11 (default the first extensometer)")
@@ -93,7 +94,7 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	set := map[string]bool{}
 	fs.Visit(func(f *flagT) { set[f.Name] = true })
 	if *resume {
-		for _, n := range []string{"params", "subset", "step", "strain-window", "roi", "area", "static", "ext", "gauge", "axial", "transverse", "modulus-range", "poisson-range"} {
+		for _, n := range []string{"params", "subset", "step", "strain-window", "roi", "area", "static", "incremental", "ext", "gauge", "axial", "transverse", "modulus-range", "poisson-range"} {
 			if set[n] {
 				errs = append(errs, fmt.Errorf("--%s with --resume: the series goes on with the parameters it was started with (in %s); leave --%[1]s out", n, stereoStateFile))
 			}
@@ -113,6 +114,9 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 	}
 	if set["static"] {
 		p.StaticFrames = *static
+	}
+	if set["incremental"] {
+		p.Incremental = *incremental
 	}
 	if *roiRect != "" {
 		if spec, err := parseROI(*roiRect); err != nil {
@@ -212,6 +216,13 @@ func runStereoSeries(ctx context.Context, e *env, args []string) error {
 			return fmt.Errorf("--resume: %w", err)
 		}
 		p = s.Params()
+		if s.NeedsPrevious() {
+			lp, rp, err := read(start - 1)
+			if err != nil {
+				return err
+			}
+			s.SetPrevious(lp, rp)
+		}
 		fmt.Fprintf(e.stdout, "resuming after pair %d of %d from %s\n", start-1, len(lf)-1, filepath.Join(*out, stereoStateFile))
 	} else {
 		if s, err = series3d.New(ctx, rig, l0, r0, metas[0], p); err != nil {

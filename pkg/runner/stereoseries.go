@@ -81,6 +81,15 @@ func (s *Runner) computeStereoFrame(ctx context.Context, j *jobs.Job, sr *jobs.S
 		if st, err = series3d.UnmarshalState(b); err == nil {
 			ser, err = series3d.Restore(rig, l0, r0, p, st)
 		}
+		if err == nil && ser.NeedsPrevious() {
+			// Incremental tracking goes on from the last pair's images.
+			var lp, rp *imageio.Gray
+			if lp, err = s.LoadImageAs(ctx, jobs.InputKey(last.ID, StereoLeftDeformed), l0.Orientation); err == nil {
+				if rp, err = s.LoadImageAs(ctx, jobs.InputKey(last.ID, StereoRightDeformed), r0.Orientation); err == nil {
+					ser.SetPrevious(lp, rp)
+				}
+			}
+		}
 	}
 	if err != nil {
 		return nil, err

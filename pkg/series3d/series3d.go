@@ -62,6 +62,13 @@ type Params struct {
 	// the curve (series.NoiseFloor, u, v, w in mm and the surface
 	// strains). Default 0.
 	StaticFrames int `json:"static_frames,omitempty"`
+	// Incremental is how each pair is tracked, with the policies of a 2D
+	// series: "never" (the default: from the reference pair, so that no
+	// error is carried from frame to frame), "always" (from the previous
+	// pair: stereo.TrackFrom) or "auto" (from the reference pair until a
+	// frame keeps fewer than switchValid of the points or its mean ZNCC
+	// falls below switchZNCC, then from the previous pair).
+	Incremental string `json:"incremental,omitempty"`
 	// Threads caps the correlation's goroutines (0 = all cores); results
 	// do not depend on it, and it is not stored.
 	Threads int `json:"-"`
@@ -105,6 +112,11 @@ func (p Params) Validate(w, h int) error {
 	}
 	if p.Prefilter != nil && !(*p.Prefilter >= 0 && *p.Prefilter <= 5) {
 		bad("prefilter_px %g: want 0 (off) to 5 px", *p.Prefilter)
+	}
+	switch p.Incremental {
+	case "", series.IncrementalNever, series.IncrementalAlways, series.IncrementalAuto:
+	default:
+		bad("incremental %q: want never (from the reference pair), always (from the previous pair) or auto", p.Incremental)
 	}
 	if p.StaticFrames < 0 {
 		bad("static_frames %d: want 0 or more frames without load or motion after the reference pair", p.StaticFrames)
@@ -200,7 +212,18 @@ type Series struct {
 	last   *Frame
 	// static holds the statistics of each static frame (noise floor).
 	static []map[string]series.QStat
+	// lPrev and rPrev are the last pair added (for incremental
+	// tracking); incr is true once auto mode has switched.
+	lPrev, rPrev *imageio.Gray
+	incr         bool
 }
+
+// The switch of auto mode, those of a 2D series (series.Params
+// SwitchValid and SwitchZNCC defaults).
+const (
+	switchValid = 0.9
+	switchZNCC  = 0.9
+)
 
 // Frame is the full measurement of one frame: the tracked state and its
 // surface strain (nil for the reference).
@@ -246,9 +269,10 @@ func (s *Series) SpecimenFrame() stereo.Frame { return s.frame }
 // Params returns the parameters.
 func (s *Series) Params() Params { return s.p }
 
-// Add tracks the next pair from the reference pair and appends its row.
+// Add tracks the next pair (from the reference pair, or from the previous
+// pair as Params.Incremental says) and appends its row.
 func (s *Series) Add(ctx context.Context, left, right *imageio.Gray, meta series.FrameMeta) (*Frame, series.Summary, error) {
-	st, err := s.ref.Track(ctx, s.l0, s.r0, left, right)
+	st, mode, err := s.track(ctx, left, right)
 	if err != nil {
 		return nil, series.Summary{}, fmt.Errorf("stereo series: frame %d (%s): %w", len(s.curve.Rows), meta.Name, err)
 	}
@@ -258,13 +282,73 @@ func (s *Series) Add(ctx context.Context, left, right *imageio.Gray, meta series
 	}
 	i := len(s.curve.Rows)
 	row, q := s.row(i, meta, st, sf)
+	row.Mode = mode
 	s.curve.Rows = append(s.curve.Rows, row)
 	if row.Static {
 		s.static = append(s.static, series.StaticStats(q))
 	}
 	s.last = &Frame{Index: i, State: st, Surface: sf}
+	s.lPrev, s.rPrev = left, right
 	return s.last, row, nil
 }
+
+// track tracks a pair as Params.Incremental says and returns the state
+// with its mode.
+func (s *Series) track(ctx context.Context, left, right *imageio.Gray) (*stereo.State, string, error) {
+	pol := s.p.Incremental
+	prev := s.last != nil && s.last.State != nil
+	if prev && (pol == series.IncrementalAlways || pol == series.IncrementalAuto && s.incr) {
+		st, err := s.fromPrevious(ctx, left, right)
+		return st, series.ModeIncremental, err
+	}
+	st, err := s.ref.Track(ctx, s.l0, s.r0, left, right)
+	if err != nil || pol != series.IncrementalAuto || !prev {
+		return st, series.ModeDirect, err
+	}
+	if kept, zncc := s.quality(st); kept >= switchValid && zncc >= switchZNCC {
+		return st, series.ModeDirect, nil
+	}
+	inc, err := s.fromPrevious(ctx, left, right)
+	if err != nil {
+		return nil, "", err
+	}
+	s.incr = true
+	return inc, series.ModeIncremental, nil
+}
+
+// fromPrevious tracks a pair from the previous one.
+func (s *Series) fromPrevious(ctx context.Context, left, right *imageio.Gray) (*stereo.State, error) {
+	if s.lPrev == nil || s.rPrev == nil {
+		return nil, errors.New("incremental tracking needs the images of the previous pair; give them to a restored series with SetPrevious")
+	}
+	return s.ref.TrackFrom(ctx, s.last.State, s.lPrev, s.rPrev, left, right)
+}
+
+// quality returns the fraction of the reference's matched points that st
+// keeps and their mean ZNCC.
+func (s *Series) quality(st *stereo.State) (kept, zncc float64) {
+	n, ok := 0, 0
+	for k, p := range s.ref.Points {
+		if p.Status != stereo.OK {
+			continue
+		}
+		n++
+		if q := st.Points[k]; q.Status == stereo.OK {
+			ok++
+			zncc += q.ZNCC
+		}
+	}
+	return float64(ok) / float64(max(n, 1)), zncc / float64(max(ok, 1))
+}
+
+// NeedsPrevious reports whether the next Add may track from the previous
+// pair, whose images a restored series must then be given (SetPrevious).
+func (s *Series) NeedsPrevious() bool {
+	return s.last != nil && s.last.State != nil && (s.p.Incremental == series.IncrementalAlways || s.p.Incremental == series.IncrementalAuto)
+}
+
+// SetPrevious gives a restored series the images of its last pair.
+func (s *Series) SetPrevious(left, right *imageio.Gray) { s.lPrev, s.rPrev = left, right }
 
 // Curve returns the curve so far, one row per frame, the reference first,
 // with the noise floor of the static frames.

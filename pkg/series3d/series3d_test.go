@@ -269,6 +269,115 @@ func TestNoiseFloor(t *testing.T) {
 	}
 }
 
+// TestIncremental: the specimen slides 4 mm per frame across the field
+// (about 26 px in the left image, within correlate's 40 px integer
+// search), so the second frame, 8 mm from the reference, is beyond the
+// search from the reference pair. Tracked only from the reference pair
+// ("never") it keeps few points; "auto" tracks it from the first frame
+// instead (stereo.TrackFrom) and measures the rigid slide: its in-plane
+// and out-of-plane parts within 0.01 mm, with no false strain above 2e-4 (the truth of a rigid motion is
+// zero strain). A series restored with the first frame's images goes on
+// exactly as the original.
+func TestIncremental(t *testing.T) {
+	p0, err := synth.NewPattern(synth.PatternOptions{Diameter: 7, Seed: 5, Bounds: synth.Rect{X0: -600, Y0: -450, X1: 600, Y1: 450}})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pat := scaled{P: p0}
+	_, _, rg := rig()
+	ctx := context.Background()
+	at := func(x float64) synth.Placement {
+		pl := placement(0, 0)
+		pl.Pose.T[0] += x
+		return pl
+	}
+	l0, r0 := render(t, pat, 0, 0)
+	l1, r1 := renderAt(t, pat, at(4), 11)
+	l2, r2 := renderAt(t, pat, at(8), 21)
+	run := func(mode string) (*Series, []series.Summary) {
+		s, err := New(ctx, rg, l0, r0, series.FrameMeta{Name: "ref"}, withROI(t, Params{Subset: 31, Step: 16, Incremental: mode}))
+		if err != nil {
+			t.Fatal(err)
+		}
+		var rows []series.Summary
+		for _, f := range [][2]*imageio.Gray{{l1, r1}, {l2, r2}} {
+			_, row, err := s.Add(ctx, f[0], f[1], series.FrameMeta{})
+			if err != nil {
+				t.Fatal(err)
+			}
+			rows = append(rows, row)
+		}
+		return s, rows
+	}
+	_, direct := run(series.IncrementalNever)
+	s, auto := run(series.IncrementalAuto)
+	t.Logf("from the reference: tracked %.3f, %.3f; auto: %s %.3f, %s %.3f", direct[0].Tracked, direct[1].Tracked, auto[0].Mode, auto[0].Tracked, auto[1].Mode, auto[1].Tracked)
+	if direct[1].Tracked > 0.5 {
+		t.Errorf("8 mm from the reference pair tracked %.2f of the points; the test needs a slide beyond the search", direct[1].Tracked)
+	}
+	if auto[0].Mode != series.ModeDirect || auto[1].Mode != series.ModeIncremental || auto[1].Tracked < 0.9 {
+		t.Fatalf("auto: modes %s, %s, second frame tracked %.2f: want direct, then incremental keeping 90 %%", auto[0].Mode, auto[1].Mode, auto[1].Tracked)
+	}
+	m := auto[1].Mean
+	t.Logf("incremental, 8 mm slide: u %.5f, v %.5f, w %.5f mm; E11 %.2g, E22 %.2g, E12 %.2g", m["u"], m["v"], m["w"], m["E11"], m["E22"], m["E12"])
+	// The slide is along the world x axis and the specimen is turned 20°
+	// about the vertical, so in the specimen frame it is 8 cos 20° in its
+	// plane and 8 sin 20° out of it.
+	c, sn := 8*math.Cos(20*math.Pi/180), 8*math.Sin(20*math.Pi/180)
+	if math.Abs(math.Abs(m["u"])-c) > 0.01 || math.Abs(m["v"]) > 0.01 || math.Abs(math.Abs(m["w"])-sn) > 0.01 {
+		t.Errorf("incremental: mean displacement u %.4f, v %.4f, w %.4f mm; want ±%.4f, 0, ±%.4f within 0.01 mm", m["u"], m["v"], m["w"], c, sn)
+	}
+	for _, q := range []string{"E11", "E22", "E12"} {
+		if math.Abs(m[q]) > 2e-4 {
+			t.Errorf("incremental: mean %s %.2g of a rigid slide, want below 2e-4", q, m[q])
+		}
+	}
+	// Restored after the first frame, with its images, the series goes on
+	// as the original.
+	s1, err := New(ctx, rg, l0, r0, series.FrameMeta{Name: "ref"}, withROI(t, Params{Subset: 31, Step: 16, Incremental: series.IncrementalAlways}))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, _, err := s1.Add(ctx, l1, r1, series.FrameMeta{}); err != nil {
+		t.Fatal(err)
+	}
+	b, err := s1.MarshalState()
+	if err != nil {
+		t.Fatal(err)
+	}
+	st, err := UnmarshalState(b)
+	if err != nil {
+		t.Fatal(err)
+	}
+	again, err := Restore(rg, l0, r0, withROI(t, Params{Subset: 31, Step: 16, Incremental: series.IncrementalAlways}), st)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !again.NeedsPrevious() {
+		t.Fatal("a restored incremental series does not ask for the previous pair")
+	}
+	if _, _, err := again.Add(ctx, l2, r2, series.FrameMeta{}); err == nil || !strings.Contains(err.Error(), "SetPrevious") {
+		t.Errorf("incremental frame without the previous images: %v, want an error naming SetPrevious", err)
+	}
+	again.SetPrevious(l1, r1)
+	_, ra, err := again.Add(ctx, l2, r2, series.FrameMeta{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	_, ro, err := s1.Add(ctx, l2, r2, series.FrameMeta{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ja, _ := json.Marshal(ra)
+	jo, _ := json.Marshal(ro)
+	if !bytes.Equal(ja, jo) {
+		t.Errorf("restored incremental series' frame differs from the original's:\n%s\n%s", ja, jo)
+	}
+	if st := s.State(); st.Last == nil || !st.Switched {
+		t.Errorf("the state of an auto series that switched: last %v, switched %v; want both kept", st.Last != nil, st.Switched)
+	}
+}
+
 // withROI is p restricted to the left ROI of the test through its mask.
 func withROI(t *testing.T, p Params) Params {
 	t.Helper()

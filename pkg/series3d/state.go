@@ -21,11 +21,21 @@ type State struct {
 	Rows  []series.Summary
 	// Static holds the statistics of each static frame (noise floor).
 	Static []map[string]series.QStat `json:",omitempty"`
+	// Last is the state of the last pair, kept when the series may track
+	// from it (Params.Incremental always or auto); Switched is true once
+	// auto mode has switched to it.
+	Last     *stereo.SavedState `json:",omitempty"`
+	Switched bool               `json:",omitempty"`
 }
 
 // State returns the series' state after its last frame.
 func (s *Series) State() State {
-	return State{Ref: s.ref.Save(), Frame: s.frame, Rows: append([]series.Summary(nil), s.curve.Rows...), Static: s.static}
+	st := State{Ref: s.ref.Save(), Frame: s.frame, Rows: append([]series.Summary(nil), s.curve.Rows...), Static: s.static, Switched: s.incr}
+	if s.NeedsPrevious() {
+		l := s.last.State.Save()
+		st.Last = &l
+	}
+	return st
 }
 
 // MarshalState encodes the series' state as JSON.
@@ -51,7 +61,8 @@ func UnmarshalState(b []byte) (State, error) {
 
 // Restore continues a series from its state st, with the parameters p,
 // the rig and the reference pair it was started with: nothing is matched
-// again, and the series goes on exactly as the one st was taken from.
+// again, and the series goes on exactly as the one st was taken from
+// (given, when NeedsPrevious, the last pair's images with SetPrevious).
 func Restore(rig *calib.Rig, left, right *imageio.Gray, p Params, st State) (*Series, error) {
 	if left == nil || right == nil {
 		return nil, errors.New("stereo series: the reference pair is missing an image")
@@ -67,7 +78,14 @@ func Restore(rig *calib.Rig, left, right *imageio.Gray, p Params, st State) (*Se
 	if len(st.Rows) == 0 {
 		return nil, errors.New("stereo series: the state has no curve rows")
 	}
-	s := &Series{p: p, ref: ref, frame: st.Frame, l0: left, r0: right, static: st.Static}
+	s := &Series{p: p, ref: ref, frame: st.Frame, l0: left, r0: right, static: st.Static, incr: st.Switched}
+	if st.Last != nil {
+		last, err := st.Last.State(len(ref.Points))
+		if err != nil {
+			return nil, fmt.Errorf("stereo series: %w", err)
+		}
+		s.last = &Frame{Index: len(st.Rows) - 1, State: last}
+	}
 	s.curve = CurveOf(p, st)
 	s.curve.Noise = nil // Curve adds it from static
 	return s, nil

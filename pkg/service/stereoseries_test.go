@@ -22,7 +22,8 @@ import (
 // Idempotency-Key takes no second frame); the series, a frame queued just
 // before the server stops, and the reference match survive a restart on
 // the same data directory, and the next frame continues from the stored
-// state. The plane is stretched along x by 0, 0.3, 0.6 and 0.9 %: the
+// state (in auto mode, which keeps the last pair's state and reads its
+// images back to go on). The plane is stretched along x by 0, 0.3, 0.6 and 0.9 %: the
 // extensometer, measured in space, reads each within 2e-4 (the imposed
 // homogeneous stretch is the closed-form truth of the rendered scene), and
 // the stored curve equals a series3d run in the test process on the same
@@ -39,7 +40,7 @@ func TestStereoSeriesStored(t *testing.T) {
 		pl := synth.Placement{Shape: synth.Plane{}, Motion: synth.Affine{F: [2][2]float64{{1 + ea, 0}, {0, 1}}}}
 		pairs = append(pairs, stereoPair(t, w, h, pl, int64(10+2*k), "left", "right"))
 	}
-	const paramsDoc = `{"step": 12, "extensometers": [{"name": "axial", "a": [70, 120], "b": [250, 120]}], "area_mm2": 10, "properties": {"axial": "axial", "modulus_range": [0.001, 0.0095]}}`
+	const paramsDoc = `{"step": 12, "incremental": "auto", "extensometers": [{"name": "axial", "a": [70, 120], "b": [250, 120]}], "area_mm2": 10, "properties": {"axial": "axial", "modulus_range": [0.001, 0.0095]}}`
 	params := part{"params", "", "application/json", []byte(paramsDoc)}
 	loads := part{"loads", "loads.csv", "text/csv", []byte("frame,load_N\n0,0\n1,1000\n")}
 	ct, body := multipartBody(t, append([]part{rig, params, loads}, append(pairs[0], pairs[1]...)...)...)

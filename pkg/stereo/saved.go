@@ -127,3 +127,51 @@ func Restore(rig *calib.Rig, s Saved, o Options) (*Reference, error) {
 	}
 	return r, nil
 }
+
+// SavedState is a State in the form of Saved: per point, its numbers and
+// its two statuses.
+type SavedState struct {
+	// Values holds savedStateValues numbers per point: XL, YL, XR, YR,
+	// Pos[0..2], Disp[0..2], Std[0..2], ZNCC, Gap.
+	Values        Floats `json:"values"`
+	Status, Match []uint8
+}
+
+const savedStateValues = 4 + 3 + 3 + 3 + 2
+
+// Save returns the saved form of s.
+func (s *State) Save() SavedState {
+	out := SavedState{Values: make(Floats, 0, savedStateValues*len(s.Points)), Status: make([]uint8, len(s.Points)), Match: make([]uint8, len(s.Points))}
+	for k, p := range s.Points {
+		out.Values = append(out.Values, p.XL, p.YL, p.XR, p.YR)
+		out.Values = append(out.Values, p.Pos[:]...)
+		out.Values = append(out.Values, p.Disp[:]...)
+		out.Values = append(out.Values, p.Std[:]...)
+		out.Values = append(out.Values, p.ZNCC, p.Gap)
+		out.Status[k], out.Match[k] = uint8(p.Status), uint8(p.Match)
+	}
+	return out
+}
+
+// State returns the State that s was saved from, which must have n
+// points (those of its reference).
+func (s SavedState) State(n int) (*State, error) {
+	if len(s.Values) != savedStateValues*n || len(s.Status) != n || len(s.Match) != n {
+		return nil, fmt.Errorf("stereo: saved state: %d values and %d statuses for %d points; the saved state is damaged, start the series again", len(s.Values), len(s.Status), n)
+	}
+	st := &State{Points: make([]StatePoint, n)}
+	for k := range st.Points {
+		v := s.Values[savedStateValues*k : savedStateValues*(k+1)]
+		p := &st.Points[k]
+		p.XL, p.YL, p.XR, p.YR = v[0], v[1], v[2], v[3]
+		copy(p.Pos[:], v[4:7])
+		copy(p.Disp[:], v[7:10])
+		copy(p.Std[:], v[10:13])
+		p.ZNCC, p.Gap = v[13], v[14]
+		p.Status, p.Match = Status(s.Status[k]), correlate.Status(s.Match[k])
+		if p.Status > NoRay {
+			return nil, fmt.Errorf("stereo: saved state: point %d has an unknown status %d; the saved state is damaged, start the series again", k, s.Status[k])
+		}
+	}
+	return st, nil
+}

@@ -2,6 +2,7 @@ package stereo
 
 import (
 	"context"
+	"errors"
 	"math"
 
 	"github.com/mottledic/mottle/pkg/correlate"
@@ -72,13 +73,7 @@ func (r *Reference) Track(ctx context.Context, leftRef, rightRef, leftDef, right
 			pr[k] = pl[k]
 		}
 	}
-	lt, err := matchAll(ctx, leftRef, leftDef, pl, idx, r.Grid, nil, co, r.Options.SeedSpacing)
-	if err != nil {
-		return nil, err
-	}
-	cr := co
-	cr.Mask = nil // the mask belongs to the left image
-	rt, err := matchAll(ctx, rightRef, rightDef, pr, idx, r.Grid, nil, cr, r.Options.SeedSpacing)
+	lt, rt, err := r.follow(ctx, pl, pr, idx, leftRef, rightRef, leftDef, rightDef, co)
 	if err != nil {
 		return nil, err
 	}
@@ -89,29 +84,108 @@ func (r *Reference) Track(ctx context.Context, leftRef, rightRef, leftDef, right
 		if p.Status != OK {
 			continue
 		}
-		a, b := lt[k], rt[k]
-		q.ZNCC = math.Min(a.ZNCC, b.ZNCC)
-		if a.Status != correlate.OK {
-			q.Status, q.Match = LeftTrack, a.Status
+		r.advance(q, p, lt[k], rt[k], [4]float64{p.X, p.Y, p.XR, p.YR}, p.StdMatch, p.Std)
+	}
+	return st, nil
+}
+
+// follow correlates the left points pl from lFrom into lTo and the right
+// points pr from rFrom into rTo, at the points idx, seeded by correlate's
+// integer search and propagated as in Match; co's mask belongs to the left
+// image lFrom.
+func (r *Reference) follow(ctx context.Context, pl, pr [][2]float64, idx []int, lFrom, rFrom, lTo, rTo *imageio.Gray, co correlate.Options) (lt, rt []correlate.Point, err error) {
+	if lt, err = matchAll(ctx, lFrom, lTo, pl, idx, r.Grid, nil, co, r.Options.SeedSpacing); err != nil {
+		return nil, nil, err
+	}
+	cr := co
+	cr.Mask = nil // the mask belongs to the left image
+	if rt, err = matchAll(ctx, rFrom, rTo, pr, idx, r.Grid, nil, cr, r.Options.SeedSpacing); err != nil {
+		return nil, nil, err
+	}
+	return lt, rt, nil
+}
+
+// advance sets q from the left and right matches a and b of reference
+// point p, found at the image positions from = (xl, yl, xr, yr): the new
+// positions, the triangulated position and the displacement from the
+// reference. The right match's std adds extra (px) in quadrature, and the
+// displacement's std adds std0 (mm, per axis), the std of what q starts
+// from.
+func (r *Reference) advance(q *StatePoint, p Point, a, b correlate.Point, from [4]float64, extra float64, std0 [3]float64) {
+	q.ZNCC = math.Min(a.ZNCC, b.ZNCC)
+	if a.Status != correlate.OK {
+		q.Status, q.Match = LeftTrack, a.Status
+		return
+	}
+	if b.Status != correlate.OK {
+		q.Status, q.Match = RightTrack, b.Status
+		return
+	}
+	q.XL, q.YL = from[0]+a.P[correlate.U], from[1]+a.P[correlate.V]
+	q.XR, q.YR = from[2]+b.P[correlate.U], from[3]+b.P[correlate.V]
+	sl := math.Hypot(a.StdU, a.StdV) / math.Sqrt2
+	sr := math.Hypot(math.Hypot(b.StdU, b.StdV)/math.Sqrt2, extra)
+	t, c, s := triangulate(r.tri, q.XL, q.YL, q.XR, q.YR, sl, sr, r.Options.MaxGap)
+	q.Pos, q.Gap, q.Status = t.X, t.Gap, s
+	if s != OK {
+		return
+	}
+	for i := range 3 {
+		q.Disp[i] = q.Pos[i] - p.Pos[i]
+		q.Std[i] = math.Sqrt(c[i][i] + std0[i]*std0[i])
+	}
+}
+
+// TrackFrom follows the points of prev, the state of the pair lPrev,
+// rPrev, into the pair lDef, rDef: incremental tracking, for motions and
+// strains too large to find from the reference pair. Each camera's
+// subsets are square around the points' positions in the previous pair
+// (the updated reference subsets of incremental correlation), found by
+// correlate's integer search and propagation as in Track, and the
+// positions advance by the increments; the new pair is triangulated and
+// the displacement taken from the reference as in Track. Points lost in
+// prev stay lost. The displacement's std adds each increment's to prev's
+// in quadrature: the errors of successive increments are independent and
+// accumulate as a random walk (common practice for incremental
+// correlation).
+func (r *Reference) TrackFrom(ctx context.Context, prev *State, lPrev, rPrev, lDef, rDef *imageio.Gray) (*State, error) {
+	rig := r.tri.Rig()
+	if prev == nil || len(prev.Points) != len(r.Points) {
+		return nil, errors.New("stereo: incremental tracking needs the state of the previous pair, with a point for each reference point")
+	}
+	if err := checkPair(rig, lPrev, rPrev, "previous pair"); err != nil {
+		return nil, err
+	}
+	if err := checkPair(rig, lDef, rDef, "deformed pair"); err != nil {
+		return nil, err
+	}
+	co := r.Options.Correlate
+	co.Seeds, co.Start, co.Progress = nil, nil, nil
+	co.Mask = nil // the points are chosen; the mask is of the left reference image
+	n := len(r.Points)
+	pl := make([][2]float64, n)
+	pr := make([][2]float64, n)
+	var idx []int
+	for k, p := range r.Points {
+		q := prev.Points[k]
+		pl[k], pr[k] = [2]float64{p.X, p.Y}, [2]float64{p.X, p.Y}
+		if q.Status == OK {
+			pl[k], pr[k] = [2]float64{q.XL, q.YL}, [2]float64{q.XR, q.YR}
+			idx = append(idx, k)
+		}
+	}
+	lt, rt, err := r.follow(ctx, pl, pr, idx, lPrev, rPrev, lDef, rDef, co)
+	if err != nil {
+		return nil, err
+	}
+	st := &State{Points: make([]StatePoint, n)}
+	for k, p := range r.Points {
+		q, was := &st.Points[k], prev.Points[k]
+		q.Status, q.Match = was.Status, was.Match
+		if was.Status != OK {
 			continue
 		}
-		if b.Status != correlate.OK {
-			q.Status, q.Match = RightTrack, b.Status
-			continue
-		}
-		q.XL, q.YL = p.X+a.P[correlate.U], p.Y+a.P[correlate.V]
-		q.XR, q.YR = p.XR+b.P[correlate.U], p.YR+b.P[correlate.V]
-		sl := math.Hypot(a.StdU, a.StdV) / math.Sqrt2
-		sr := math.Hypot(math.Hypot(b.StdU, b.StdV)/math.Sqrt2, p.StdMatch)
-		t, c, s := triangulate(r.tri, q.XL, q.YL, q.XR, q.YR, sl, sr, r.Options.MaxGap)
-		q.Pos, q.Gap, q.Status = t.X, t.Gap, s
-		if s != OK {
-			continue
-		}
-		for i := range 3 {
-			q.Disp[i] = q.Pos[i] - p.Pos[i]
-			q.Std[i] = math.Sqrt(c[i][i] + p.Std[i]*p.Std[i])
-		}
+		r.advance(q, p, lt[k], rt[k], [4]float64{was.XL, was.YL, was.XR, was.YR}, 0, was.Std)
 	}
 	return st, nil
 }
