@@ -61,7 +61,6 @@ func RunPoints(ctx context.Context, ref, def *imageio.Gray, pts [][2]float64, gu
 		return nil, err
 	}
 	const chunk = 16 * batchSize
-	r.items = make([]item, 0, chunk)
 	for c := 0; c < len(todo); c += chunk {
 		if err := ctx.Err(); err != nil {
 			return nil, fmt.Errorf("correlate: %w", err)
@@ -69,15 +68,15 @@ func RunPoints(ctx context.Context, ref, def *imageio.Gray, pts [][2]float64, gu
 		if r.opt.Progress != nil {
 			r.opt.Progress(c, len(todo))
 		}
-		r.items = r.items[:0]
+		items := r.nextBatch()
 		for _, k := range todo[c:min(c+chunk, len(todo))] {
 			it := item{idx: int32(k), x: pts[k][0], y: pts[k][1], search: true}
 			if guesses != nil {
 				it.hasStart, it.start = true, guesses[k]
 			}
-			r.items = append(r.items, it)
+			items = append(items, it)
 		}
-		r.runBatch()
+		r.runBatch(items)
 	}
 	if r.opt.Progress != nil {
 		r.opt.Progress(len(todo), len(todo))

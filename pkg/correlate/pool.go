@@ -7,26 +7,25 @@ import (
 	"time"
 )
 
-// The worker pool. A batch (run.items) is computed by the goroutine that
-// calls runBatch and by threads−1 helper goroutines, each with its own
-// solver. Items are handed out one at a time through a single atomic
-// cursor, so the fast ones take more; the schedule changes which goroutine
-// computes an item, never what it computes.
+// The worker pool. Batches of items are computed by the goroutine that
+// forms them and by threads−1 helper goroutines, each with its own solver.
+// Two batches can be in flight: while the helpers compute one, the caller
+// accepts the previous one and forms the next, and it computes items too
+// whenever it waits. Items are handed out one at a time, in batch order,
+// through one atomic cursor, so fast workers take more; the schedule
+// changes which goroutine computes an item, never what it computes.
 //
-// Between batches the reliability-guided loop accepts the results and
-// forms the next batch, a few tens of microseconds of serial work. Helpers
-// that run out of items spin for up to poolSpin, yielding to other
-// goroutines, before they sleep: waking a sleeping thread on another core
-// costs as much as that gap or more (60 µs to 1 ms measured on the 2-core
-// virtual machine), and a pool that put every worker to sleep after every
-// batch of 64 points paid it twice per batch. The caller computes items
-// too, and spins for the last ones before it sleeps.
+// A helper that finds nothing to do spins for up to poolSpin, yielding to
+// other goroutines, before it sleeps: waking a sleeping thread on another
+// core costs 60 µs to 1 ms on the 2-core virtual machine, and a pool that
+// put every worker to sleep after every 64-point batch paid that twice per
+// batch. The caller likewise spins before it sleeps.
 const poolSpin = 200 * time.Microsecond
 
-// cursor packs the batch generation (upper 32 bits), the batch length
-// (next 16) and the next item to hand out (lower 16). One compare-and-swap
-// takes an item of the current batch and nothing else: a helper that is
-// late from an earlier batch fails it, because the generation moved.
+// cursor packs the generation of the batch being handed out (upper 32
+// bits), its length (next 16) and its next item (lower 16). One
+// compare-and-swap takes an item of that batch and nothing else: a worker
+// that read an older cursor fails it.
 const (
 	cursorGenShift = 32
 	cursorLenShift = 16
@@ -34,19 +33,26 @@ const (
 	maxBatch       = cursorMask // longest batch the cursor can describe
 )
 
-// pool is the synchronisation state of the worker pool.
+// pool is the synchronisation state of the worker pool. Batch g lives in
+// slot g%2 until it has been awaited; slot writes happen only then, and
+// workers read a slot only while they hold one of its items.
 type pool struct {
 	cursor   atomic.Uint64
-	left     atomic.Int64 // items of the current batch not yet finished
+	pub      atomic.Uint64 // newest published generation
+	n        [2]atomic.Int64
+	left     [2]atomic.Int64 // items of each slot's batch not yet finished
+	items    [2][]item
+	trace    [2]*traceBatch
+	gen      uint64 // newest published generation (caller only)
+	awaited  uint64 // newest generation awaited (caller only)
 	closed   atomic.Bool
 	sleepers atomic.Int32 // helpers waiting on cond
 	sleeps   atomic.Int64 // times a helper went to sleep (for traces)
 	waits    int64        // times the caller went to sleep (for traces)
 	mu       sync.Mutex
 	cond     sync.Cond
-	waiting  atomic.Bool   // the caller sleeps until done is signalled
+	waitGen  atomic.Uint64 // generation the caller sleeps on, 0: none
 	done     chan struct{} // capacity 1
-	gen      uint64        // generation of the current batch (caller only)
 }
 
 func (p *pool) init() {
@@ -54,50 +60,43 @@ func (p *pool) init() {
 	p.done = make(chan struct{}, 1)
 }
 
-// take returns the next item of generation gen, or false when that
-// batch has no item left to hand out or a newer one is current.
-func (p *pool) take(gen uint64) (int, bool) {
+// take returns an item to compute: its generation and index.
+func (p *pool) take() (uint64, int, bool) {
 	for {
 		c := p.cursor.Load()
-		k, n := c&cursorMask, c>>cursorLenShift&cursorMask
-		if c>>cursorGenShift != gen || k >= n {
-			return 0, false
+		g, k, n := c>>cursorGenShift, c&cursorMask, c>>cursorLenShift&cursorMask
+		if k < n {
+			if p.cursor.CompareAndSwap(c, c+1) {
+				return g, int(k), true
+			}
+			continue
 		}
-		if p.cursor.CompareAndSwap(c, c+1) {
-			return int(k), true
+		if p.pub.Load() <= g {
+			return 0, 0, false
 		}
+		// Batch g is handed out and g+1 is published: move on to it.
+		nn := uint64(p.n[(g+1)%2].Load())
+		p.cursor.CompareAndSwap(c, (g+1)<<cursorGenShift|nn<<cursorLenShift)
 	}
 }
 
-// finished records the end of one item; the last one wakes the caller if
-// it sleeps.
-func (p *pool) finished() {
-	if p.left.Add(-1) == 0 && p.waiting.CompareAndSwap(true, false) {
+// available reports whether take could succeed.
+func (p *pool) available() bool {
+	c := p.cursor.Load()
+	return c&cursorMask < c>>cursorLenShift&cursorMask || p.pub.Load() > c>>cursorGenShift
+}
+
+// finished records the end of an item of generation g; the last one wakes
+// the caller if it sleeps on g.
+func (p *pool) finished(g uint64) {
+	if p.left[g%2].Add(-1) == 0 && p.waitGen.CompareAndSwap(g, 0) {
 		p.done <- struct{}{}
 	}
 }
 
-// await waits for a generation newer than seen with items to hand out and
-// returns it, or false once the pool is closed.
-func (p *pool) await(seen uint64) (uint64, bool) {
-	ready := func() (uint64, bool) {
-		c := p.cursor.Load()
-		g := c >> cursorGenShift
-		return g, g != seen && c&cursorMask < c>>cursorLenShift&cursorMask
-	}
-	t0 := time.Now()
-	for i := 0; ; i++ {
-		if p.closed.Load() {
-			return 0, false
-		}
-		if g, ok := ready(); ok {
-			return g, true
-		}
-		if i%16 == 15 && time.Since(t0) > poolSpin {
-			break
-		}
-		runtime.Gosched()
-	}
+// sleep parks a helper until an item is available or the pool is closed,
+// which it reports.
+func (p *pool) sleep() bool {
 	p.mu.Lock()
 	defer p.mu.Unlock()
 	p.sleepers.Add(1)
@@ -105,44 +104,33 @@ func (p *pool) await(seen uint64) (uint64, bool) {
 	defer p.sleepers.Add(-1)
 	for {
 		if p.closed.Load() {
-			return 0, false
+			return false
 		}
-		if g, ok := ready(); ok {
-			return g, true
+		if p.available() {
+			return true
 		}
 		p.cond.Wait()
 	}
 }
 
-// publish makes items [0, n) of the next generation available and wakes
-// sleeping helpers.
-func (p *pool) publish(n int) uint64 {
-	p.gen++
-	p.left.Store(int64(n))
-	p.cursor.Store(p.gen<<cursorGenShift | uint64(n)<<cursorLenShift)
+// publish makes items the next generation's batch, wakes sleeping helpers
+// and returns the generation.
+func (p *pool) publish(items []item, tb *traceBatch) uint64 {
+	g := p.gen + 1
+	if g > p.awaited+2 {
+		panic("correlate: a third batch in flight would overwrite the oldest")
+	}
+	p.gen = g
+	p.items[g%2], p.trace[g%2] = items, tb
+	p.left[g%2].Store(int64(len(items)))
+	p.n[g%2].Store(int64(len(items)))
+	p.pub.Store(g)
 	if p.sleepers.Load() > 0 {
 		p.mu.Lock()
 		p.cond.Broadcast()
 		p.mu.Unlock()
 	}
-	return p.gen
-}
-
-// wait returns when every item of the current batch has finished.
-func (p *pool) wait() {
-	t0 := time.Now()
-	for i := 0; p.left.Load() != 0; i++ {
-		if i%16 == 15 && time.Since(t0) > poolSpin {
-			p.waits++
-			p.waiting.Store(true)
-			if p.left.Load() == 0 && p.waiting.CompareAndSwap(true, false) {
-				return
-			}
-			<-p.done
-			return
-		}
-		runtime.Gosched()
-	}
+	return g
 }
 
 func (p *pool) close() {
@@ -153,70 +141,106 @@ func (p *pool) close() {
 }
 
 // stop ends the helper goroutines.
-func (r *run) stop() {
-	if r.threads > 1 {
-		r.pool.close()
+func (r *run) stop() { r.pool.close() }
+
+// compute1 computes item k of generation g with solver w and records it
+// as finished.
+func (r *run) compute1(g uint64, k, w int) {
+	p := &r.pool
+	it := &p.items[g%2][k]
+	if tb := p.trace[g%2]; tb == nil {
+		r.compute(r.solvers[w], w, it)
+	} else {
+		tr := r.tun.trace
+		tw := &tb.w[w]
+		t := tr.now()
+		if tw.n == 0 {
+			tw.first = t
+		}
+		r.compute(r.solvers[w], w, it)
+		tw.last = tr.now()
+		tb.cost[k] = tw.last - t
+		tw.busy += tb.cost[k]
+		tw.n++
 	}
+	p.finished(g)
 }
 
-// worker is helper w: it computes items of each batch with solver w.
+// worker is helper w: it computes items with solver w until the pool
+// closes.
 func (r *run) worker(w int) {
-	var seen uint64
+	p := &r.pool
 	for {
-		g, ok := r.pool.await(seen)
-		if !ok {
-			return
+		if g, k, ok := p.take(); ok {
+			r.compute1(g, k, w)
+			continue
 		}
-		seen = g
-		r.drain(g, w)
-	}
-}
-
-// drain computes items of generation gen with solver w until none is left
-// to hand out.
-func (r *run) drain(gen uint64, w int) {
-	s := r.solvers[w]
-	tr := r.tun.trace
-	for {
-		k, ok := r.pool.take(gen)
-		if !ok {
-			return
-		}
-		if tr == nil {
-			r.compute(s, w, &r.items[k])
-		} else {
-			b := &tr.batches[len(tr.batches)-1]
-			tw := &b.w[w]
-			t := tr.now()
-			if tw.n == 0 {
-				tw.first = t
+		t0 := time.Now()
+		for i := 1; !p.available(); i++ {
+			if p.closed.Load() {
+				return
 			}
-			r.compute(s, w, &r.items[k])
-			tw.last = tr.now()
-			b.cost[k] = tw.last - t
-			tw.busy += b.cost[k]
-			tw.n++
+			if i%16 == 0 && time.Since(t0) > poolSpin {
+				if !p.sleep() {
+					return
+				}
+				break
+			}
+			runtime.Gosched()
 		}
-		r.pool.finished()
 	}
 }
 
-// runBatch computes r.items (at most maxBatch) on the calling goroutine
-// and the helpers, and returns when all are done.
-func (r *run) runBatch() {
-	tr := r.tun.trace
-	if tr != nil {
-		tr.batches = append(tr.batches, traceBatch{n: len(r.items), send: tr.now(),
-			w: make([]traceWorker, r.threads), cost: make([]time.Duration, len(r.items))})
-		defer func() { tr.batches[len(tr.batches)-1].done = tr.now() }()
-	}
-	if len(r.items) == 0 {
-		return
-	}
-	if len(r.items) > maxBatch {
+// nextBatch returns the empty slice to form the next batch in; it does not
+// share memory with a batch in flight.
+func (r *run) nextBatch() []item {
+	return r.pool.items[(r.pool.gen+1)%2][:0]
+}
+
+// startBatch hands out items (at most maxBatch, from nextBatch) and
+// returns their generation, for awaitBatch.
+func (r *run) startBatch(items []item) uint64 {
+	if len(items) > maxBatch {
 		panic("correlate: batch longer than the pool's cursor can hold")
 	}
-	g := r.pool.publish(len(r.items))
-	r.drain(g, 0)
-	r.pool.wait()
+	var tb *traceBatch
+	if tr := r.tun.trace; tr != nil {
+		tr.batches = append(tr.batches, &traceBatch{n: len(items), send: tr.now(),
+			w: make([]traceWorker, r.threads), cost: make([]time.Duration, len(items))})
+		tb = tr.batches[len(tr.batches)-1]
+	}
+	return r.pool.publish(items, tb)
 }
+
+// awaitBatch computes items (of batch g or a later one) on the calling
+// goroutine until every item of batch g has finished, and returns them.
+func (r *run) awaitBatch(g uint64) []item {
+	p := &r.pool
+	left := &p.left[g%2]
+	t0 := time.Now()
+	for i := 1; left.Load() != 0; i++ {
+		if gg, k, ok := p.take(); ok {
+			r.compute1(gg, k, 0)
+			t0, i = time.Now(), 0
+			continue
+		}
+		if i%16 == 0 && time.Since(t0) > poolSpin {
+			p.waits++
+			p.waitGen.Store(g)
+			if left.Load() == 0 && p.waitGen.CompareAndSwap(g, 0) {
+				break
+			}
+			<-p.done
+			break
+		}
+		runtime.Gosched()
+	}
+	if tb := p.trace[g%2]; tb != nil {
+		tb.done = r.tun.trace.now()
+	}
+	p.awaited = max(p.awaited, g)
+	return p.items[g%2]
+}
+
+// runBatch computes items and returns them when all have finished.
+func (r *run) runBatch(items []item) []item { return r.awaitBatch(r.startBatch(items)) }

@@ -15,11 +15,12 @@ import (
 //
 // To use every core and still give results that do not depend on the number
 // of goroutines, points are taken from the priority queue in batches of
-// batchSize. A batch is formed from the state left by the previous batches
-// only, each of its points starts from its best already-converged
-// neighbours (in order of ZNCC, then index), and the points of a batch are
-// independent of each other, so any schedule computes the same numbers.
-// The batch size is a constant, never derived from the thread count.
+// batchSize. Batch k is formed from the state left by batches 1 to k−2 only
+// (batch k−1 is still being computed then), each of its points starts
+// from its best already-converged neighbours (in order of ZNCC, then
+// index), and the points of a batch are independent of each other, so any
+// schedule computes the same numbers. The batch size is a constant, never
+// derived from the thread count.
 const batchSize = 64
 
 // Point states during a run.
@@ -93,6 +94,35 @@ func (r *run) accept(k int, q *queue, key []float64) {
 	}
 }
 
+// formBatch takes up to batchSize pending points off the queue, best
+// first, each with its converged neighbours to start from, best first
+// (ZNCC descending, then index), and marks them queued.
+func (r *run) formBatch(q *queue, key []float64) []item {
+	items := r.nextBatch()
+	for q.len() > 0 && len(items) < batchSize {
+		kk, x := q.pop()
+		if r.state[x] != stPending || kk < key[x] {
+			continue
+		}
+		r.state[x] = stQueued
+		it := item{idx: x, x: r.pts[x].X, y: r.pts[x].Y}
+		var nb [4]int32
+		for _, y := range nb[:r.neighbours(int(x), &nb)] {
+			if r.state[y] == stDone {
+				it.nb[it.nnb] = y
+				it.nnb++
+			}
+		}
+		for a := 1; a < int(it.nnb); a++ {
+			for b := a; b > 0 && r.before(it.nb[b], it.nb[b-1]); b-- {
+				it.nb[b], it.nb[b-1] = it.nb[b-1], it.nb[b]
+			}
+		}
+		items = append(items, it)
+	}
+	return items
+}
+
 // propagateAll runs the start guesses, the seeds, the reliability-guided
 // propagation and, while a sizeable part of the ROI is still unreached,
 // automatic re-seeding in it.
@@ -116,7 +146,6 @@ func (r *run) propagateAll(ctx context.Context, seeds []int) error {
 	for i := range key {
 		key[i] = math.Inf(-1)
 	}
-	r.items = make([]item, 0, batchSize)
 
 	// Start guesses: independent points, in chunks for progress reports.
 	if r.opt.Start != nil {
@@ -126,18 +155,16 @@ func (r *run) propagateAll(ctx context.Context, seeds []int) error {
 				idx = append(idx, k)
 			}
 		}
-		chunk := 16 * batchSize
-		r.items = make([]item, 0, chunk)
+		const chunk = 16 * batchSize
 		for c := 0; c < len(idx); c += chunk {
 			if err := ctx.Err(); err != nil {
 				return fmt.Errorf("correlate: %w", err)
 			}
-			r.items = r.items[:0]
+			items := r.nextBatch()
 			for _, k := range idx[c:min(c+chunk, len(idx))] {
-				r.items = append(r.items, item{idx: int32(k), hasStart: true, start: r.opt.Start[k].P, x: r.pts[k].X, y: r.pts[k].Y})
+				items = append(items, item{idx: int32(k), hasStart: true, start: r.opt.Start[k].P, x: r.pts[k].X, y: r.pts[k].Y})
 			}
-			r.runBatch()
-			for _, it := range r.items {
+			for _, it := range r.runBatch(items) {
 				k := int(it.idx)
 				if r.pts[k].Status == OK {
 					done++
@@ -177,39 +204,36 @@ func (r *run) propagateAll(ctx context.Context, seeds []int) error {
 
 	tried := map[int]bool{}
 	for {
-		for q.len() > 0 {
+		// Batch k is formed from the state left by batches up to k−2 and
+		// computed while batch k−1 is accepted and k+1 formed, so that
+		// the workers never wait for that serial step. Which batch a point
+		// falls in, and so its starting neighbours, depends on the queue
+		// alone.
+		var inflight uint64 // generation of the batch in flight, 0: none
+		for {
 			if err := ctx.Err(); err != nil {
+				if inflight != 0 {
+					r.awaitBatch(inflight)
+				}
 				return fmt.Errorf("correlate: %w", err)
 			}
-			r.items = r.items[:0]
-			for q.len() > 0 && len(r.items) < batchSize {
-				kk, x := q.pop()
-				if r.state[x] != stPending || kk < key[x] {
-					continue
-				}
-				r.state[x] = stQueued
-				it := item{idx: x, x: r.pts[x].X, y: r.pts[x].Y}
-				var nb [4]int32
-				for _, y := range nb[:r.neighbours(int(x), &nb)] {
-					if r.state[y] == stDone {
-						it.nb[it.nnb] = y
-						it.nnb++
-					}
-				}
-				// Best neighbour first: ZNCC descending, then index.
-				for a := 1; a < int(it.nnb); a++ {
-					for b := a; b > 0 && r.before(it.nb[b], it.nb[b-1]); b-- {
-						it.nb[b], it.nb[b-1] = it.nb[b-1], it.nb[b]
-					}
-				}
-				r.items = append(r.items, it)
+			items := r.formBatch(&q, key)
+			if len(items) == 0 && inflight == 0 {
+				break
 			}
-			r.runBatch()
-			for _, it := range r.items {
-				r.accept(int(it.idx), &q, key)
+			var g uint64
+			if len(items) > 0 {
+				g = r.startBatch(items)
 			}
-			done += len(r.items)
-			progress()
+			if inflight != 0 {
+				its := r.awaitBatch(inflight)
+				for _, it := range its {
+					r.accept(int(it.idx), &q, key)
+				}
+				done += len(its)
+				progress()
+			}
+			inflight = g
 		}
 		// Re-seed a separate piece of the ROI that propagation could not
 		// reach because no computed point touches it. Pockets enclosed by

@@ -11,7 +11,7 @@ type poolTrace struct {
 	t0      time.Time
 	clock   func() time.Duration // time source; nil: time.Since(t0)
 	phases  []tracePhase
-	batches []traceBatch
+	batches []*traceBatch
 	sleeps  int64 // times a helper went to sleep waiting for a batch
 	waits   int64 // times the caller went to sleep waiting for the last items
 }
