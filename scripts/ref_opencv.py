@@ -106,7 +106,7 @@ def main():
     crit = criteria(req)
     cv2.setNumThreads(1)
     out = []
-    t0 = time.perf_counter()
+    t0, c0 = time.perf_counter(), time.process_time()
     for (x, y), (gu, gv) in zip(req["points"], req["guess"]):
         gu, gv = int(round(gu)), int(round(gv))
         try:
@@ -121,13 +121,13 @@ def main():
         except cv2.error as e:
             msg = str(e).strip().splitlines()[-1] if str(e).strip() else "cv2.error"
             out.append(rc.point_result(x, y, error="findTransformECC: " + msg))
-    dt = time.perf_counter() - t0
+    dt, cpu = time.perf_counter() - t0, time.process_time() - c0
     settings = {"subset": req["subset"], "search": r}
     if method != "template":
         settings.update({"motion": "MOTION_AFFINE", "margin": MARGIN,
                          "gaussFiltSize": GAUSS, "max_iter": crit[1],
                          "eps": crit[2], "threads": 1})
-    rc.write_response("opencv", cv2.__version__, method, settings, dt, out)
+    rc.write_response("opencv", cv2.__version__, method, settings, dt, out, cpu)
 
 
 if __name__ == "__main__":

@@ -17,6 +17,7 @@ Response (JSON on stdout):
 
     {"library": "...", "version": "...", "method": "...", "settings": {...},
      "seconds": <wall time of the per-point loop only>,
+     "cpu_seconds": <CPU time (user + system) of the process during that loop; optional>,
      "points": [{"x":..,"y":..,"u":..,"v":..,"ok":true,"score":..,"error":""}]}
 
 u, v are the displacement of the subset centre (deformed − reference) in px,
@@ -100,10 +101,12 @@ def load_image(path):
     return np.ascontiguousarray(a, dtype=np.float32)
 
 
-def write_response(library, version, method, settings, seconds, points):
-    json.dump({"library": library, "version": version, "method": method,
-               "settings": settings, "seconds": seconds, "points": points},
-              sys.stdout)
+def write_response(library, version, method, settings, seconds, points, cpu_seconds=None):
+    out = {"library": library, "version": version, "method": method,
+           "settings": settings, "seconds": seconds, "points": points}
+    if cpu_seconds is not None:
+        out["cpu_seconds"] = cpu_seconds
+    json.dump(out, sys.stdout)
     sys.stdout.write("\n")
 
 

@@ -67,7 +67,8 @@ func (c BenchCase) Files(dir string) (ref, def string, err error) {
 // MottleResponse runs Mottle (MottleTracker with the given options) on a
 // driver Request whose images are files Mottle can read, and answers in
 // the drivers' Response format, Seconds being the time of the tracking
-// alone (image decoding excluded, as in the drivers). cmd/mottle-bench runs
+// alone (image decoding excluded, as in the drivers) and CPUSeconds the
+// process's CPU time during it. cmd/mottle-bench runs
 // it in a child process so that its peak memory is measured like the
 // drivers'.
 func MottleResponse(ctx context.Context, req Request, opt correlate.Options) (*Response, error) {
@@ -79,13 +80,13 @@ func MottleResponse(ctx context.Context, req Request, opt correlate.Options) (*R
 	if err != nil {
 		return nil, fmt.Errorf("mottle worker: %w", err)
 	}
-	start := time.Now()
+	start, c0 := time.Now(), processCPU()
 	d, err := MottleTracker(opt)(ctx, ref, def, req.Points, req.Subset)
-	secs := time.Since(start).Seconds()
+	secs, cpu := time.Since(start).Seconds(), (processCPU() - c0).Seconds()
 	if err != nil {
 		return nil, err
 	}
-	resp := &Response{Library: "mottle", Method: "icgn", Seconds: secs,
+	resp := &Response{Library: "mottle", Method: "icgn", Seconds: secs, CPUSeconds: cpu,
 		Settings: map[string]any{"subset": req.Subset, "threads": opt.Threads, "shape": int(opt.Shape)}}
 	for i, p := range req.Points {
 		resp.Points = append(resp.Points, RefPoint{X: p[0], Y: p[1], U: d[i].U, V: d[i].V, OK: d[i].OK})
@@ -99,6 +100,7 @@ type BenchRow struct {
 	Method  string
 	Points  int
 	Seconds float64       // time of the per-point work (loop) only
+	CPU     float64       // CPU seconds of that work, all its threads or processes (0: unknown)
 	Wall    time.Duration // whole process
 	PeakRSS int64         // bytes
 	Err     ErrorStats    // against the exact truth
@@ -107,43 +109,73 @@ type BenchRow struct {
 // PointsPerSecond returns Points / Seconds.
 func (r BenchRow) PointsPerSecond() float64 { return float64(r.Points) / r.Seconds }
 
+// PointsPerCPUSecond returns Points / CPU, NaN if the CPU time is unknown.
+func (r BenchRow) PointsPerCPUSecond() float64 {
+	if r.CPU <= 0 {
+		return math.NaN()
+	}
+	return float64(r.Points) / r.CPU
+}
+
 // RowFrom summarises a response against the truth.
 func RowFrom(c BenchCase, method string, resp *Response, truth [][2]float64) (BenchRow, error) {
 	e, err := Errors(resp.Disp(), truth)
 	if err != nil {
 		return BenchRow{}, err
 	}
-	return BenchRow{Case: c, Method: method, Points: len(resp.Points), Seconds: resp.Seconds,
+	return BenchRow{Case: c, Method: method, Points: len(resp.Points), Seconds: resp.Seconds, CPU: resp.CPUSeconds,
 		Wall: resp.Wall, PeakRSS: resp.PeakRSS, Err: e}, nil
 }
 
-// BenchTable formats benchmark rows as Markdown, with the speed ratio of
-// each Mottle row to the OpenCV ECC row of the same case.
+// BenchTable formats benchmark rows as Markdown. Each Mottle row gets its
+// speed ratio to the OpenCV ECC row (default stop) of the same case with
+// as many cores: the one-process row for one thread, the ECC2Label row
+// for all cores, both in points per second and in points per CPU second.
 func BenchTable(rows []BenchRow) string {
 	var b strings.Builder
-	b.WriteString("| pair | subset | points | method | points/s | vs ECC default stop | RMS error (px) | max error (px) | failed | peak RSS (MiB) | process wall (s) |\n")
-	b.WriteString("|---|---:|---:|---|---:|---:|---:|---:|---:|---:|---:|\n")
+	b.WriteString("| pair | subset | points | method | points/s | points/CPU-s | vs ECC default stop, same cores (points/s; CPU) | RMS error (px) | max error (px) | failed | peak RSS (MiB) | process wall (s) |\n")
+	b.WriteString("|---|---:|---:|---|---:|---:|---:|---:|---:|---:|---:|---:|\n")
 	for _, r := range rows {
 		ratio := "–"
-		for _, o := range rows {
-			if sameCase(o.Case, r.Case) && o.Method == ECCLabel && strings.HasPrefix(r.Method, "Mottle") {
-				ratio = fmt.Sprintf("%.1f×", r.PointsPerSecond()/o.PointsPerSecond())
-			}
+		if o, ok := eccRow(rows, r); ok {
+			ratio = fmt.Sprintf("%.1f×; %.1f×", r.PointsPerSecond()/o.PointsPerSecond(), r.PointsPerCPUSecond()/o.PointsPerCPUSecond())
 		}
-		fmt.Fprintf(&b, "| %s | %d | %d | %s | %.0f | %s | %.4f | %.4f | %d | %.0f | %.2f |\n",
-			r.Case.Name, r.Case.Subset, r.Points, r.Method, r.PointsPerSecond(), ratio,
+		fmt.Fprintf(&b, "| %s | %d | %d | %s | %.0f | %.0f | %s | %.4f | %.4f | %d | %.0f | %.2f |\n",
+			r.Case.Name, r.Case.Subset, r.Points, r.Method, r.PointsPerSecond(), r.PointsPerCPUSecond(), ratio,
 			r.Err.RMS, r.Err.Max, r.Err.Failed, float64(r.PeakRSS)/(1<<20), r.Wall.Seconds())
 	}
 	return b.String()
 }
 
+// eccRow returns the OpenCV ECC row (default stop) that Mottle row r is
+// compared with: same case, and ECC2Label for a row with "threads" (all
+// cores) in its method, ECCLabel otherwise.
+func eccRow(rows []BenchRow, r BenchRow) (BenchRow, bool) {
+	if !strings.HasPrefix(r.Method, "Mottle") {
+		return BenchRow{}, false
+	}
+	want := ECCLabel
+	if strings.Contains(r.Method, "threads") {
+		want = ECC2Label
+	}
+	for _, o := range rows {
+		if sameCase(o.Case, r.Case) && o.Method == want {
+			return o, true
+		}
+	}
+	return BenchRow{}, false
+}
+
 // Method names of the OpenCV ECC rows in BenchTable. Speed ratios are
 // taken against ECCLabel: ECC with OpenCV's own default stop (50
 // iterations or a change of the correlation coefficient below 1e-3), the
-// faster of the two, so the ratio does not flatter Mottle. ECCTightLabel
-// is the accurate stop of the cross-checks (200 iterations, 1e-8).
+// faster of the two, so the ratio does not flatter Mottle; ECC2Label is
+// the same loop on all cores (the points split over one driver process per
+// core, run at once). ECCTightLabel is the accurate stop of the
+// cross-checks (200 iterations, 1e-8).
 const (
 	ECCLabel      = "OpenCV ECC affine, default stop (1 thread)"
+	ECC2Label     = "OpenCV ECC affine, default stop (1 process per core)"
 	ECCTightLabel = "OpenCV ECC affine, tight stop (1 thread)"
 )
 
@@ -160,20 +192,20 @@ func geoMean(xs []float64) float64 {
 }
 
 // SpeedRatio returns the geometric mean over cases of the points/s of the
-// rows named method over those of OpenCV ECC on the same case.
-func SpeedRatio(rows []BenchRow, method string) float64 {
-	var rs []float64
+// rows named method over those of the OpenCV ECC row they are compared
+// with (see BenchTable), and the same for points per CPU second.
+func SpeedRatio(rows []BenchRow, method string) (wall, cpu float64) {
+	var rs, cs []float64
 	for _, r := range rows {
 		if r.Method != method {
 			continue
 		}
-		for _, o := range rows {
-			if sameCase(o.Case, r.Case) && o.Method == ECCLabel {
-				rs = append(rs, r.PointsPerSecond()/o.PointsPerSecond())
-			}
+		if o, ok := eccRow(rows, r); ok {
+			rs = append(rs, r.PointsPerSecond()/o.PointsPerSecond())
+			cs = append(cs, r.PointsPerCPUSecond()/o.PointsPerCPUSecond())
 		}
 	}
-	return geoMean(rs)
+	return geoMean(rs), geoMean(cs)
 }
 
 func sameCase(a, b BenchCase) bool {

@@ -61,21 +61,31 @@ func TestBenchTableAndRatio(t *testing.T) {
 	a := BenchCase{Name: "a", Size: 10, Subset: 21}
 	b := BenchCase{Name: "b", Size: 10, Subset: 21}
 	rows := []BenchRow{
-		{Case: a, Method: "Mottle IC-GN (1 thread)", Points: 100, Seconds: 0.1, Wall: time.Second},
-		{Case: a, Method: ECCLabel, Points: 100, Seconds: 1},
+		{Case: a, Method: "Mottle IC-GN (1 thread)", Points: 100, Seconds: 0.1, CPU: 0.1, Wall: time.Second},
+		{Case: a, Method: "Mottle IC-GN (2 threads)", Points: 100, Seconds: 0.05, CPU: 0.1},
+		{Case: a, Method: ECCLabel, Points: 100, Seconds: 1, CPU: 2},
+		{Case: a, Method: ECC2Label, Points: 100, Seconds: 0.8, CPU: 2},
 		{Case: a, Method: ECCTightLabel, Points: 100, Seconds: 10},
-		{Case: b, Method: "Mottle IC-GN (1 thread)", Points: 100, Seconds: 0.1},
-		{Case: b, Method: ECCLabel, Points: 100, Seconds: 0.4},
+		{Case: b, Method: "Mottle IC-GN (1 thread)", Points: 100, Seconds: 0.1, CPU: 0.1},
+		{Case: b, Method: ECCLabel, Points: 100, Seconds: 0.4, CPU: 0.4},
 	}
-	// Ratios 10 and 4: geometric mean √40.
-	if got := SpeedRatio(rows, "Mottle IC-GN (1 thread)"); math.Abs(got-math.Sqrt(40)) > 1e-9 {
-		t.Errorf("SpeedRatio = %v, want %v", got, math.Sqrt(40))
+	// Ratios 10 and 4 in points/s (geometric mean √40), 20 and 4 per CPU
+	// second (√80).
+	w, c := SpeedRatio(rows, "Mottle IC-GN (1 thread)")
+	if math.Abs(w-math.Sqrt(40)) > 1e-9 || math.Abs(c-math.Sqrt(80)) > 1e-9 {
+		t.Errorf("SpeedRatio = %v, %v, want %v, %v", w, c, math.Sqrt(40), math.Sqrt(80))
 	}
-	if got := SpeedRatio(rows, "nobody"); !math.IsNaN(got) {
-		t.Errorf("SpeedRatio of no rows = %v, want NaN", got)
+	// All cores are compared with ECC on all cores: 2000/125 = 16.
+	if w, _ := SpeedRatio(rows, "Mottle IC-GN (2 threads)"); math.Abs(w-16) > 1e-9 {
+		t.Errorf("SpeedRatio, all cores = %v, want 16", w)
+	}
+	if w, _ := SpeedRatio(rows, "nobody"); !math.IsNaN(w) {
+		t.Errorf("SpeedRatio of no rows = %v, want NaN", w)
 	}
 	tab := BenchTable(rows)
-	for _, w := range []string{"| a | 21 | 100 | Mottle IC-GN (1 thread) | 1000 | 10.0× |", "| b | 21 | 100 | Mottle IC-GN (1 thread) | 1000 | 4.0× |", ECCTightLabel + " | 10 | – |"} {
+	for _, w := range []string{"| a | 21 | 100 | Mottle IC-GN (1 thread) | 1000 | 1000 | 10.0×; 20.0× |",
+		"| a | 21 | 100 | Mottle IC-GN (2 threads) | 2000 | 1000 | 16.0×; 20.0× |",
+		"| b | 21 | 100 | Mottle IC-GN (1 thread) | 1000 | 1000 | 4.0×; 4.0× |", ECCTightLabel + " | 10 | NaN | – |"} {
 		if !strings.Contains(tab, w) {
 			t.Errorf("table lacks %q:\n%s", w, tab)
 		}

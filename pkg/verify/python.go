@@ -159,7 +159,11 @@ type Response struct {
 	Method   Method         `json:"method"`
 	Settings map[string]any `json:"settings"`
 	Seconds  float64        `json:"seconds"` // time of the per-point loop only
-	Points   []RefPoint     `json:"points"`
+	// CPUSeconds is the CPU time (user and system) of the process during
+	// that loop, 0 if the driver does not report it. On a shared machine
+	// it is the figure that other processes do not inflate.
+	CPUSeconds float64    `json:"cpu_seconds,omitempty"`
+	Points     []RefPoint `json:"points"`
 
 	// Filled by Runner.Run, not by the driver:
 	Wall    time.Duration `json:"-"` // whole process, including start-up and image loading
