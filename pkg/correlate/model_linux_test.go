@@ -1,8 +1,10 @@
 package correlate
 
 import (
+	"cmp"
 	"context"
 	"runtime"
+	"slices"
 	"syscall"
 	"testing"
 	"time"
@@ -41,20 +43,30 @@ func makespan(cost []time.Duration, threads int) time.Duration {
 }
 
 // pipeline returns the time two workers need for the batches of a
-// one-thread trace when the caller forms batch k+1 while the helper
-// computes batch k (the pool of pool.go): serial[k] is the caller's work
-// before it publishes batch k (accepting batch k−2 and forming k), and
-// every free worker takes the next published point in order; the caller
-// takes points only while it waits for the batch before the newest one.
-func pipeline(bs []*traceBatch, serial []time.Duration) time.Duration {
+// one-thread trace scheduled as the pool does. The caller's operations
+// are replayed in their one-thread order: publishing a batch, after the
+// serial work since its previous operation (accepting results, forming
+// the batch), and awaiting one, during which it computes points too;
+// every free worker takes the next published point in order.
+func pipeline(bs []*traceBatch) time.Duration {
 	K := len(bs)
+	type op struct {
+		at    time.Duration
+		batch int
+		pub   bool
+	}
+	var ops []op
+	for k, b := range bs {
+		ops = append(ops, op{b.send, k, true}, op{b.done, k, false})
+	}
+	slices.SortStableFunc(ops, func(a, b op) int { return cmp.Compare(a.at, b.at) })
 	pub := make([]time.Duration, K)
 	end := make([]time.Duration, K) // when the last point of each batch ends
 	got := make([]int, K)           // points of each batch handed out
 	var t, h time.Duration          // when the caller and the helper are free
-	nb, nj := 0, 0                  // next point: batch and index
-	give := func(limit int, stop func() bool) {
-		for nb <= limit && !stop() {
+	nb, nj, npub := 0, 0, 0         // next point (batch, index); batches published
+	give := func(stop func() bool) {
+		for nb < npub && !stop() {
 			if nj == len(bs[nb].cost) {
 				nb, nj = nb+1, 0
 				continue
@@ -74,22 +86,25 @@ func pipeline(bs []*traceBatch, serial []time.Duration) time.Duration {
 			nj++
 		}
 	}
-	for k := 0; k < K; k++ {
-		if k >= 2 {
-			t = max(t, end[k-2])
+	var prev time.Duration
+	for _, o := range ops {
+		gap := o.at - prev // the caller's own work before this operation
+		prev = o.at
+		if o.pub {
+			t += gap
+			pub[o.batch] = t
+			npub = o.batch + 1
+			continue
 		}
-		t += serial[k]
-		pub[k] = t
-		if k >= 1 {
-			w := k - 1
-			give(k, func() bool { return got[w] == len(bs[w].cost) && t >= end[w] })
-			if got[w] < len(bs[w].cost) {
-				panic("model: batch not handed out")
-			}
+		for _, c := range bs[o.batch].cost {
+			gap -= c // computing the batch is not serial work
 		}
+		t += max(gap, 0)
+		w := o.batch
+		give(func() bool { return got[w] == len(bs[w].cost) && t >= end[w] })
+		t = max(t, end[w])
 	}
-	give(K-1, func() bool { return false })
-	return max(t, h, end[K-1])
+	return max(t, h)
 }
 
 // BenchmarkRun1024Model runs BenchmarkRun1024 on one thread with every
@@ -103,7 +118,9 @@ func pipeline(bs []*traceBatch, serial []time.Duration) time.Duration {
 // before it forms the next (the pool before the pipeline), serial% the
 // share of the one-thread time that does not split, crit% the excess of
 // the barrier pool's per-batch makespans over an even split. The figures
-// depend on the costs of the points, not on the machine's load.
+// depend on the costs of the points, not on the machine's load. A traced
+// run on two threads adds the share of the points the helper computed and
+// how often it slept per batch.
 func BenchmarkRun1024Model(b *testing.B) {
 	ref, def := benchImages(b)
 	runtime.LockOSThread()
@@ -133,21 +150,12 @@ func BenchmarkRun1024Model(b *testing.B) {
 			prev = p.at
 		}
 		var inBatches, ms time.Duration
-		ser := make([]time.Duration, len(tr.batches))
-		for i, bt := range tr.batches {
+		for _, bt := range tr.batches {
 			var sum time.Duration
 			for _, c := range bt.cost {
 				sum += c
 			}
 			inBatches += sum
-			switch i {
-			case 0:
-				ser[i] = bt.send - prop0
-			case 1:
-				ser[i] = bt.send - tr.batches[0].send
-			default:
-				ser[i] = bt.send - tr.batches[i-2].done
-			}
 			m := makespan(bt.cost, 2)
 			ms += m
 			excess += m - sum/2
@@ -158,23 +166,36 @@ func BenchmarkRun1024Model(b *testing.B) {
 			}
 		}
 		rest := prop - inBatches // serial work of the propagation loop
+		// The replay covers the loop from the first batch to the last
+		// await; before and after it the work is serial.
+		first, last := tr.batches[0].send, tr.batches[len(tr.batches)-1].done
+		pp := pipeline(tr.batches) - first
+		if testing.Verbose() {
+			b.Logf("setup %v prop %v points %v rest %v replay %v barrier %v", setup, prop, inBatches, rest, pp, ms)
+		}
 		t1 += setup + prop
-		t2 += setup/2 + (rest - sum(ser)) + pipeline(tr.batches, ser)
+		t2 += setup/2 + (first - prop0) + pp + (prop0 + prop - last)
 		tb += setup/2 + rest + ms
 		serial += rest
 	}
+	// The same run on two threads, for the division of the points and the
+	// helper's sleeps; on a loaded machine the wall time says little.
+	tr := &poolTrace{}
+	if _, err := runWith(context.Background(), ref, def, Options{Subset: 31, Step: 8, Threads: 2}, tuning{trace: tr}); err != nil {
+		b.Fatal(err)
+	}
+	var helper, all int
+	for _, bt := range tr.batches {
+		helper += bt.w[1].n
+		all += bt.n
+	}
+	b.ReportMetric(float64(helper)/float64(all), "helper-share")
+	b.ReportMetric(float64(tr.sleeps)/float64(len(tr.batches)), "sleeps/batch")
+	b.ReportMetric(float64(tr.spun.Microseconds())/float64(len(tr.batches)), "spin-µs/batch")
 	b.ReportMetric(float64(t1)/float64(2*t2), "eff2")
 	b.ReportMetric(float64(t1)/float64(2*tb), "eff2-barrier")
 	b.ReportMetric(100*float64(serial)/float64(t1), "serial%")
 	b.ReportMetric(100*float64(excess)/float64(t1), "crit%")
 	b.ReportMetric(float64(points)/float64(batches), "points/batch")
 	b.ReportMetric(float64(short)/float64(b.N), "short-batches/run")
-}
-
-func sum(ds []time.Duration) time.Duration {
-	var s time.Duration
-	for _, d := range ds {
-		s += d
-	}
-	return s
 }

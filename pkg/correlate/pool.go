@@ -15,12 +15,15 @@ import (
 // through one atomic cursor, so fast workers take more; the schedule
 // changes which goroutine computes an item, never what it computes.
 //
-// A helper that finds nothing to do spins for up to poolSpin, yielding to
-// other goroutines, before it sleeps: waking a sleeping thread on another
-// core costs 60 µs to 1 ms on the 2-core virtual machine, and a pool that
-// put every worker to sleep after every 64-point batch paid that twice per
-// batch. The caller likewise spins before it sleeps.
-const poolSpin = 200 * time.Microsecond
+// A helper that finds nothing to do checks again poolSpin times, yielding
+// to other goroutines in between (some 10–50 µs when nothing else runs),
+// before it sleeps: waking a sleeping thread on another core costs 60 µs
+// to 1 ms on the 2-core virtual machine, and a pool that put every worker
+// to sleep after every 64-point batch paid that twice per batch. The
+// caller likewise spins before it sleeps. The bound is a count, not a
+// time, so that a spinning thread that the system preempts does not spin
+// on when it runs again.
+const poolSpin = 64
 
 // cursor packs the generation of the batch being handed out (upper 32
 // bits), its length (next 16) and its next item (lower 16). One
@@ -48,6 +51,7 @@ type pool struct {
 	closed   atomic.Bool
 	sleepers atomic.Int32 // helpers waiting on cond
 	sleeps   atomic.Int64 // times a helper went to sleep (for traces)
+	spun     atomic.Int64 // nanoseconds spent spinning, all goroutines (for traces)
 	waits    int64        // times the caller went to sleep (for traces)
 	mu       sync.Mutex
 	cond     sync.Cond
@@ -180,14 +184,17 @@ func (r *run) worker(w int) {
 			if p.closed.Load() {
 				return
 			}
-			if i%16 == 0 && time.Since(t0) > poolSpin {
+			if i > poolSpin {
+				p.spun.Add(int64(time.Since(t0)))
 				if !p.sleep() {
 					return
 				}
+				t0 = time.Now()
 				break
 			}
 			runtime.Gosched()
 		}
+		p.spun.Add(int64(time.Since(t0)))
 	}
 }
 
@@ -220,11 +227,15 @@ func (r *run) awaitBatch(g uint64) []item {
 	t0 := time.Now()
 	for i := 1; left.Load() != 0; i++ {
 		if gg, k, ok := p.take(); ok {
+			if i > 1 {
+				p.spun.Add(int64(time.Since(t0)))
+			}
 			r.compute1(gg, k, 0)
 			t0, i = time.Now(), 0
 			continue
 		}
-		if i%16 == 0 && time.Since(t0) > poolSpin {
+		if i > poolSpin {
+			p.spun.Add(int64(time.Since(t0)))
 			p.waits++
 			p.waitGen.Store(g)
 			if left.Load() == 0 && p.waitGen.CompareAndSwap(g, 0) {

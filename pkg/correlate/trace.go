@@ -12,8 +12,9 @@ type poolTrace struct {
 	clock   func() time.Duration // time source; nil: time.Since(t0)
 	phases  []tracePhase
 	batches []*traceBatch
-	sleeps  int64 // times a helper went to sleep waiting for a batch
-	waits   int64 // times the caller went to sleep waiting for the last items
+	sleeps  int64         // times a helper went to sleep waiting for a batch
+	waits   int64         // times the caller went to sleep waiting for the last items
+	spun    time.Duration // time spent spinning for work, all goroutines
 }
 
 func (t *poolTrace) now() time.Duration {
