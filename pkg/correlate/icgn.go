@@ -46,6 +46,7 @@ type solver struct {
 	n          int           // pixels per subset, (2m+1)²
 	maxIt      int           // iteration cap
 	tol        float64       // convergence threshold, px
+	tailFrac   float64       // share of tol for tailBelow: 1/8 first order, 1/16 second
 	minStd     float64       // subsets with a smaller grey-level std are LowContrast
 	f          []float64     // f − f̄
 	fx, fy     []float64     // reference gradients over the subset
@@ -81,8 +82,10 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 		maxIt: opt.MaxIter, tol: opt.Tol, minStd: minStd,
 		gbuf: make([]float64, side), xs: make([]float64, side), ys: make([]float64, side),
 	}
+	s.tailFrac = 1.0 / 8
 	if s.shape == Second {
 		s.np = 12
+		s.tailFrac = 1.0 / 16
 	}
 	if vectorPass {
 		s.initVector()
@@ -643,18 +646,19 @@ func (s *solver) solve(p0 [12]float64) attempt {
 			a.p, a.status = p, Diverged
 			return a
 		}
-		if d < s.tol || s.np == 6 && it > 1 && tailBelow(dprev, d, s.tol) {
+		if d < s.tol || it > 1 && tailBelow(dprev, d, s.tol*s.tailFrac) {
 			a.p, a.converged, a.status = p, true, OK
 			return a
 		}
 		dprev = d
-		// (Rules tried and dropped: tailBelow for the second-order warp,
-		// which left points up to 1.4e-4 px from the limit on a 512²
-		// pair like BenchmarkRun1024's, and without the factor 1/8 up to
-		// 3e-4 px in TestStoppingRuleWithinTol; the largest displacement
-		// change on the subset boundary as the step size, stricter than
-		// paramNorm, which cost iterations: 2.70 instead of 2.54 per point
-		// on BenchmarkRun1024; an exit after five iterations without
+		// (Rules tried and dropped: tailBelow with tol/8 for the
+		// second-order warp, which left points up to 1.4e-4 px from the
+		// limit on a 512² pair like BenchmarkRun1024's (tol/16: 8.5e-5),
+		// and without a factor up to 3e-4 px in
+		// TestStoppingRuleWithinTol; the largest displacement change on
+		// the subset boundary as the step size, stricter than paramNorm,
+		// which cost iterations: 2.70 instead of 2.54 per point on
+		// BenchmarkRun1024; an exit after five iterations without
 		// progress, which turned a few slowly converging points into
 		// Diverged.)
 	}
@@ -665,16 +669,17 @@ func (s *solver) solve(p0 [12]float64) attempt {
 // tailBelow reports whether the steps shrink so fast that what is left of
 // the iteration is far below tol: with the contraction ρ = d/dprev of the
 // last two steps, a geometric tail would add ρ/(1−ρ)·d, and the rule asks
-// for that to be below tol/8. It saves the last step of most points that
-// the plain rule, d < tol, takes three steps for: their second step is a
-// few 1e-4 px and the steps contract by 0.01–0.1 each. On a 512² pair like
-// BenchmarkRun1024's, first order, the true tail (the later steps of the
-// plain rule) of the points it stopped was up to 12× the geometric
-// estimate and at most 5e-5 px; TestStoppingRuleWithinTol bounds the
-// distance to the limit by tol.
-func tailBelow(dprev, d, tol float64) bool {
+// for that to be below lim, tol/8 for the first-order warp and tol/16 for
+// the second-order one (solver.tailFrac). It saves the last step of most
+// points that the plain rule, d < tol, takes three steps for: their second
+// step is a few 1e-4 px and the steps contract by 0.01–0.1 each. On a 512²
+// pair like BenchmarkRun1024's the true tail (the later steps of the plain
+// rule) of the points it stopped was up to 12× (first order) and 20×
+// (second) the geometric estimate, and at most 5e-5 px and 8.5e-5 px;
+// TestStoppingRuleWithinTol bounds the distance to the limit by tol.
+func tailBelow(dprev, d, lim float64) bool {
 	r := d / dprev
-	return r < 0.5 && d*r < (1-r)*tol/8
+	return r < 0.5 && d*r < (1-r)*lim
 }
 
 // paramNorm is the step size in px: the Euclidean norm of the parameter
