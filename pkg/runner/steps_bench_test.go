@@ -52,6 +52,12 @@ func BenchmarkFrameSteps(b *testing.B) {
 			return err
 		})
 	})
+	b.Run("solve-two-back", func(b *testing.B) {
+		perOp(b, func() error {
+			_, err := an.Solve(ctx, SolveInput{Ref: ref, Def: imgs[2], Params: params, GuessState: r0.State, Threads: 1})
+			return err
+		})
+	})
 	b.Run("add-solved", func(b *testing.B) {
 		in := in
 		in.Solved = sol
