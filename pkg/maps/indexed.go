@@ -114,3 +114,23 @@ func (p *indexed) drawField(dst *image.Paletted, pic image.Rectangle, vals []flo
 		}
 	}
 }
+
+// greyDst is an indexed map as the text and line drawing sees it: a grey
+// colour (the labels' ink blended over the paper) takes the nearest
+// palette grey directly instead of a search through the whole palette;
+// other colours are searched as image.Paletted does.
+type greyDst struct{ *image.Paletted }
+
+// Set implements draw.Image.
+func (d greyDst) Set(x, y int, c color.Color) {
+	d.SetRGBA64(x, y, color.RGBA64Model.Convert(c).(color.RGBA64))
+}
+
+// SetRGBA64 implements draw.RGBA64Image.
+func (d greyDst) SetRGBA64(x, y int, c color.RGBA64) {
+	if c.R == c.G && c.G == c.B && c.A == 0xffff {
+		d.SetColorIndex(x, y, grey(uint8(c.R>>8)))
+		return
+	}
+	d.Paletted.SetRGBA64(x, y, c)
+}

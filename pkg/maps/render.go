@@ -312,7 +312,7 @@ func Render(l Layer, bg *imageio.Gray, opt Options) (*Map, error) {
 	if opt.Indexed && opacity == 1 {
 		pal := newIndexed(cm)
 		m.Indexed = pal.canvas(lay.size(fixedW, textW, opt.MaxWidth))
-		dst = m.Indexed
+		dst = greyDst{m.Indexed}
 		pal.drawBackground(m.Indexed, lay, bg)
 		pal.drawField(m.Indexed, lay.pic, rasterize(l, lay, opt.steps()), norm)
 		bar = func(r image.Rectangle, t float64) { pal.fill(m.Indexed, r, pal.color(t)) }
