@@ -4,6 +4,7 @@ import (
 	"context"
 	"crypto/rand"
 	"encoding/base64"
+	"fmt"
 	"math"
 	"net/http"
 	"strconv"
@@ -391,6 +392,12 @@ var jobsQueued = jobs.Filter{States: []jobs.State{jobs.Queued}}
 // ownerQueueFull answers 429 when the caller already has
 // Config.MaxQueuedPerPrincipal jobs waiting.
 func (s *Server) ownerQueueFull(w http.ResponseWriter, r *http.Request) bool {
+	return s.ownerQueueFullN(w, r, 1)
+}
+
+// ownerQueueFullN answers 429 when k more jobs of the caller would be
+// more than Config.MaxQueuedPerPrincipal waiting.
+func (s *Server) ownerQueueFullN(w http.ResponseWriter, r *http.Request, k int) bool {
 	if s.cfg.MaxQueuedPerPrincipal <= 0 || !s.authOn() {
 		return false
 	}
@@ -406,11 +413,15 @@ func (s *Server) ownerQueueFull(w http.ResponseWriter, r *http.Request) bool {
 			n++
 		}
 	}
-	if n < s.cfg.MaxQueuedPerPrincipal {
+	if n+k <= s.cfg.MaxQueuedPerPrincipal {
 		return false
 	}
 	retryAfter(w, s.retrySeconds())
-	writeProblem(w, r, problem(http.StatusTooManyRequests, "principal-queue-full", "Too many queued jobs",
-		"principal "+name+" has "+strconv.Itoa(n)+" jobs waiting, its limit; retry when some have started"))
+	detail := "principal " + name + " has " + strconv.Itoa(n) + " jobs waiting, its limit; retry when some have started"
+	if k > 1 {
+		detail = fmt.Sprintf("principal %s has %d jobs waiting and the request would add %d, beyond its limit of %d; nothing was stored. Retry when some have started, or send fewer at once",
+			name, n, k, s.cfg.MaxQueuedPerPrincipal)
+	}
+	writeProblem(w, r, problem(http.StatusTooManyRequests, "principal-queue-full", "Too many queued jobs", detail))
 	return true
 }

@@ -9,6 +9,7 @@ import (
 	"net/http"
 	"slices"
 	"sort"
+	"strconv"
 	"strings"
 	"time"
 
@@ -141,6 +142,18 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 }
 
 func (s *Server) listSeries(w http.ResponseWriter, r *http.Request) {
+	// kind: 2D series by default (the preview's workspace and existing
+	// clients), stereo series with kind=stereo, as GET /v1/analyses.
+	var kind jobs.Kind
+	switch k := r.URL.Query().Get("kind"); k {
+	case "", "series":
+	case string(jobs.Stereo):
+		kind = jobs.Stereo
+	default:
+		writeProblem(w, r, problem(http.StatusBadRequest, "bad-query", "Invalid query", "kind "+strconv.Quote(k)+" is unknown",
+			FieldProblem{"kind", "use series (2D, the default) or stereo"}))
+		return
+	}
 	all, err := s.store.AllSeries(r.Context())
 	if err != nil {
 		writeProblem(w, r, asProblem(err, ""))
@@ -148,7 +161,7 @@ func (s *Server) listSeries(w http.ResponseWriter, r *http.Request) {
 	}
 	out := []*seriesView{}
 	for i := len(all) - 1; i >= 0; i-- {
-		if !readable(r, all[i].Project) {
+		if !readable(r, all[i].Project) || all[i].Kind != kind {
 			continue
 		}
 		out = append(out, s.viewSeries(r.Context(), all[i], false))

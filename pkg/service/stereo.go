@@ -338,6 +338,9 @@ func (s *Server) postStereoSeries(w http.ResponseWriter, r *http.Request) {
 		return
 	}
 	n := len(u.img["left"])
+	if n > 2 && s.ownerQueueFullN(w, r, n-1) {
+		return
+	}
 	if free := s.queue.Cap() - s.queue.Len(); n-1 > free {
 		retryAfter(w, s.retrySeconds())
 		writeProblem(w, r, problem(http.StatusTooManyRequests, "queue-full", "Queue full",

@@ -105,7 +105,7 @@ func TestStereoRoutes(t *testing.T) {
 	if resp, b := ts.do(t, "GET", "/v1/analyses?kind=stereo", "", nil); resp.StatusCode != 200 || bytes.Contains(b, []byte(`"id"`)) {
 		t.Errorf("stereo jobs after refused requests: %d %s; want none", resp.StatusCode, b)
 	}
-	if resp, b := ts.do(t, "GET", "/v1/series", "", nil); resp.StatusCode != 200 || bytes.Contains(b, []byte(`"id"`)) {
+	if resp, b := ts.do(t, "GET", "/v1/series?kind=stereo", "", nil); resp.StatusCode != 200 || bytes.Contains(b, []byte(`"id"`)) {
 		t.Errorf("series after refused requests: %d %s; want none", resp.StatusCode, b)
 	}
 }

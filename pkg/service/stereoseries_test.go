@@ -4,6 +4,7 @@ import (
 	"bytes"
 	"encoding/json"
 	"fmt"
+	"image"
 	"math"
 	"strings"
 	"testing"
@@ -180,6 +181,16 @@ func TestStereoSeriesStored(t *testing.T) {
 	if v := decodeJSON[struct{ Frames []string }](t, getOK(t, ts, loc)); len(v.Frames) != 3 {
 		t.Errorf("%d frames after the refused ones, want 3", len(v.Frames))
 	}
+	// The list of series: 2D by default, stereo with kind=stereo.
+	if b := getOK(t, ts, "/v1/series"); bytes.Contains(b, []byte(res.Series)) {
+		t.Errorf("GET /v1/series lists the stereo series: %s", b)
+	}
+	if b := getOK(t, ts, "/v1/series?kind=stereo"); !bytes.Contains(b, []byte(res.Series)) {
+		t.Errorf("GET /v1/series?kind=stereo does not list the stereo series: %s", b)
+	}
+	if resp, b := ts.do(t, "GET", "/v1/series?kind=3d", "", nil); resp.StatusCode != 400 || !bytes.Contains(b, []byte(`"kind"`)) {
+		t.Errorf("GET /v1/series?kind=3d: %d %s, want 400 naming kind", resp.StatusCode, b)
+	}
 	resp, b = ts.do(t, "POST", loc+"/live", "application/json", nil)
 	if resp.StatusCode != 409 || !bytes.Contains(b, []byte("live-stereo")) {
 		t.Errorf("live mode of a stereo series: %d %s, want 409 live-stereo", resp.StatusCode, b)
@@ -193,4 +204,26 @@ func getOK(t *testing.T, ts *testServer, path string) []byte {
 		t.Fatalf("GET %s: %d %s", path, resp.StatusCode, b)
 	}
 	return b
+}
+
+// TestStereoSeriesQuota: the pairs posted with a new stereo series count
+// against the principal's limit of waiting jobs all at once (each is a
+// frame job): four pairs (three frames) with a limit of two are refused
+// with 429 principal-queue-full before anything is stored.
+func TestStereoSeriesQuota(t *testing.T) {
+	const w, h = 320, 240
+	l := newLab(t, func(c *service.Config) { c.MaxQueuedPerPrincipal = 2 })
+	blank := encodePNG(t, image.NewGray(image.Rect(0, 0, w, h)))
+	parts := []part{{"rig", "rig.json", "application/json", stereoRig(t, w, h)}}
+	for k := range 4 {
+		parts = append(parts, part{"left", fmt.Sprintf("L%d.png", k), "image/png", blank}, part{"right", fmt.Sprintf("R%d.png", k), "image/png", blank})
+	}
+	ct, body := multipartBody(t, parts...)
+	st, b := l.call(t, "rig", "POST", "/v1/stereo/series", nil, ct, body)
+	if st != 429 || decodeJSON[problemDoc](t, b).Type != "urn:mottle:problem:principal-queue-full" || !bytes.Contains(b, []byte("would add 3")) {
+		t.Fatalf("four pairs with a limit of two waiting jobs: %d %s, want 429 principal-queue-full saying the request would add 3", st, b)
+	}
+	if st, b := l.call(t, "rig", "GET", "/v1/series?kind=stereo", nil, "", nil); st != 200 || bytes.Contains(b, []byte(`"id"`)) {
+		t.Errorf("stereo series after the refusal: %d %s, want none", st, b)
+	}
 }
