@@ -373,9 +373,8 @@ func (Pipeline) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
 			guess = nil
 		}
 	case in.GuessState != nil:
-		var st series.State
-		if err := json.Unmarshal(in.GuessState, &st); err == nil {
-			guess = st.Solution()
+		if g, err := series.SolutionOfState(in.GuessState); err == nil {
+			guess = g
 		}
 	}
 	sol, err := series.Solve(ctx, in.Ref, in.Def, p, series.Options{Mask: in.Mask}, guess, in.Progress)

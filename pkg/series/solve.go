@@ -2,6 +2,7 @@ package series
 
 import (
 	"context"
+	"encoding/json"
 	"errors"
 	"fmt"
 
@@ -124,4 +125,20 @@ func (s State) Solution() *Solution {
 		return nil
 	}
 	return &Solution{Grid: s.Grid, Points: s.Points}
+}
+
+// SolutionOfState returns State.Solution of the state encoded in b (the
+// JSON of StateJSON or of a State), reading only the grid, the points and
+// the number of curve rows: a frame solved ahead needs no more of the
+// state than its guess, and the history and curve rows are most of it.
+func SolutionOfState(b []byte) (*Solution, error) {
+	var s struct {
+		Grid   lattice           `json:"grid"`
+		Points []PointState      `json:"points"`
+		Curve  []json.RawMessage `json:"curve"`
+	}
+	if err := json.Unmarshal(b, &s); err != nil {
+		return nil, fmt.Errorf("series state: %w", err)
+	}
+	return State{Grid: s.Grid, Points: s.Points, Curve: make([]Summary, len(s.Curve))}.Solution(), nil
 }

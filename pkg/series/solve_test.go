@@ -308,3 +308,39 @@ func TestSolveAheadReturn(t *testing.T) {
 		}
 	}
 }
+
+// TestSolutionOfState checks that the guess read from a state's JSON
+// alone is State.Solution of the whole decoded state: nil before a frame
+// is added and the tracked points after.
+func TestSolutionOfState(t *testing.T) {
+	ref, imgs, p := solveSeries(t)
+	tr, err := New(ref, FrameMeta{Name: "ref"}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k := 0; k <= 2; k++ {
+		if k > 0 {
+			if _, err := tr.Add(context.Background(), imgs[k-1], FrameMeta{}); err != nil {
+				t.Fatal(err)
+			}
+		}
+		b, err := tr.StateJSON()
+		if err != nil {
+			t.Fatal(err)
+		}
+		var st State
+		if err := json.Unmarshal(b, &st); err != nil {
+			t.Fatal(err)
+		}
+		got, err := SolutionOfState(b)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if want := st.Solution(); !reflect.DeepEqual(got, want) || (k > 0) != (got != nil) {
+			t.Errorf("after %d frames: the guess from the state's JSON %v differs from State.Solution %v", k, got != nil, want != nil)
+		}
+	}
+	if _, err := SolutionOfState([]byte(`{"points": 3}`)); err == nil {
+		t.Error("a state whose points are not a list gave a guess")
+	}
+}
