@@ -148,9 +148,16 @@ function show(doc) {
   $('st-body').hidden = false;
   const z = gr.get('z_mm'), w = gr.get('w');
   const hasW = (doc.quantities.w || []).length > 0;
-  const ok = (doc.status || []).filter(s => s === 'ok').length;
+  // Points with a position (and, in a deformed state, a displacement);
+  // those at the edge of the grid have no surface strain (too few
+  // neighbours in the strain window) but are measured in 3D all the same.
+  st.measured = (hasW ? w : z).filter(Number.isFinite).length;
+  st.ok = (doc.status || []).filter(s => s === 'ok').length;
+  const edge = (doc.status || []).filter(s => s === 'too_few_neighbours').length;
   st.meanW = hasW ? mean(w) : NaN;
-  $('st-summary').textContent = `${ok} of ${gr.n} points measured in 3D; shape z ${fmt(range(z)[0])} … ${fmt(range(z)[1])} mm` +
+  $('st-summary').textContent = `${st.measured} of ${gr.n} points measured in 3D` +
+    (edge ? ` (${edge} at the edge of the grid without a surface strain: too few neighbours in the strain window)` : '') +
+    `; shape z ${fmt(range(z)[0])} … ${fmt(range(z)[1])} mm` +
     (hasW ? `; mean out-of-plane displacement w ${fmt(st.meanW)} mm` : '; give a deformed pair for the displacement and the surface strain');
   st.cells = drawMap($('st-shape'), gr, z, 'viridis', 'shape z', 'mm');
   const wc = $('st-w');
