@@ -68,6 +68,8 @@ func parseFloats(b []byte, dst []float64) (out []float64, ok bool, err error) {
 			j++
 		}
 		switch {
+		case j > i && !jsonNumber(b[i:j]):
+			return nil, false, nil
 		case j > i:
 			v, err := strconv.ParseFloat(string(b[i:j]), 64)
 			if err != nil {
@@ -93,6 +95,47 @@ func parseFloats(b []byte, dst []float64) (out []float64, ok bool, err error) {
 			return nil, false, nil
 		}
 	}
+}
+
+// jsonNumber reports whether b is a number by the grammar of RFC 8259,
+// section 6: -? (0 | [1-9][0-9]*) (. [0-9]+)? ([eE] [+-]? [0-9]+)?.
+// strconv.ParseFloat also takes "+1", ".5", "1." and "01", which JSON
+// does not.
+func jsonNumber(b []byte) bool {
+	i := 0
+	if i < len(b) && b[i] == '-' {
+		i++
+	}
+	digits := func() int {
+		n := 0
+		for i < len(b) && b[i] >= '0' && b[i] <= '9' {
+			i++
+			n++
+		}
+		return n
+	}
+	switch {
+	case i < len(b) && b[i] == '0':
+		i++
+	case digits() == 0:
+		return false
+	}
+	if i < len(b) && b[i] == '.' {
+		i++
+		if digits() == 0 {
+			return false
+		}
+	}
+	if i < len(b) && (b[i] == 'e' || b[i] == 'E') {
+		i++
+		if i < len(b) && (b[i] == '+' || b[i] == '-') {
+			i++
+		}
+		if digits() == 0 {
+			return false
+		}
+	}
+	return i == len(b)
 }
 
 // plainNumber reports whether c may be part of a JSON number.

@@ -62,6 +62,8 @@ func TestFloatCodec(t *testing.T) {
 	}{
 		{`[]`, true}, {` [ 1 , null ,2e-3 ] `, true}, {`null`, true}, {`[1,"x"]`, false}, {`[1,]`, false},
 		{`[1 2]`, false}, {`[true]`, false}, {`{}`, false}, {`[1e400]`, false}, {`[-]`, false}, {`[1]x`, false},
+		{`[+1]`, false}, {`[.5]`, false}, {`[1.]`, false}, {`[01]`, false}, {`[-01]`, false}, {`[1e]`, false}, {`[1e+]`, false},
+		{`[--1]`, false}, {`[0.5e-3, -0, 0E+2]`, true}, {`[1.5E3]`, true},
 	} {
 		var f nfloats
 		err := f.UnmarshalJSON([]byte(c.in))
@@ -75,4 +77,43 @@ func TestFloatCodec(t *testing.T) {
 			t.Errorf("%s: %d values, encoding/json %d", c.in, len(f), len(p))
 		}
 	}
+}
+
+// FuzzFloatCodec checks that the hand-written decoder of the state's float
+// lists accepts exactly what encoding/json accepts for a []*float64 and
+// reads the same values (null as NaN), and that a decoded list encodes
+// back to the bytes encoding/json writes for it.
+func FuzzFloatCodec(f *testing.F) {
+	for _, s := range []string{`[]`, `[1,null,-2.5e-7]`, `[+1]`, `[.5]`, `[01]`, `[1e400]`, `null`, ` [ 0 , -0 ] `, `[1,]`, `[1e-9,1e21]`} {
+		f.Add([]byte(s))
+	}
+	f.Fuzz(func(t *testing.T, b []byte) {
+		got, err := decodeFloats(b, nil)
+		var p []*float64
+		jerr := json.Unmarshal(b, &p)
+		if (err == nil) != (jerr == nil) {
+			t.Fatalf("%q: decodeFloats error %v, encoding/json %v", b, err, jerr)
+		}
+		if err != nil {
+			return
+		}
+		if len(got) != len(p) {
+			t.Fatalf("%q: %d values, encoding/json %d", b, len(got), len(p))
+		}
+		for i, v := range p {
+			if v == nil && !math.IsNaN(got[i]) || v != nil && (got[i] != *v || math.Signbit(got[i]) != math.Signbit(*v)) {
+				t.Fatalf("%q: value %d is %v, encoding/json reads %v", b, i, got[i], v)
+			}
+		}
+		want, err := json.Marshal(p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if len(p) == 0 {
+			want = []byte("[]")
+		}
+		if enc := appendFloats(nil, got); string(enc) != string(want) {
+			t.Fatalf("%q: encodes as %s, encoding/json writes %s", b, enc, want)
+		}
+	})
 }
