@@ -218,7 +218,13 @@ func Measure(g *imageio.Gray, mask *roi.Mask) (Measures, error) {
 	} else {
 		m.SpeckleSize = sz
 	}
-	if sigma, err := NoiseFromImage(g, mask); err == nil {
+	noise := NoiseFromImage
+	if whole {
+		// Over the whole image, pass 1's range is imageio.Stats's (the
+		// image holds no NaN or infinity, or pass 1 failed).
+		noise = func(g *imageio.Gray, mask *roi.Mask) (float64, error) { return noiseFromImage(g, mask, lo, hi) }
+	}
+	if sigma, err := noise(g, mask); err == nil {
 		m.Noise = sigma
 	}
 	return m, nil

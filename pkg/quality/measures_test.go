@@ -380,3 +380,42 @@ func TestSpeckleWindow(t *testing.T) {
 		}
 	}
 }
+
+// Measure's noise over the whole image reuses the range of its first pass;
+// it must be NoiseFromImage's value bit for bit, also for images whose
+// darkest or brightest pixels are cut off (left out of the estimate) and
+// for a masked ROI, where NoiseFromImage still takes the whole image's
+// range.
+func TestMeasureNoiseIsNoiseFromImage(t *testing.T) {
+	base := render(t, synth.PatternOptions{Seed: 3}, synth.RenderOptions{Noise: 2, Seed: 4}, 96)
+	clipped := &imageio.Gray{W: base.W, H: base.H, Stride: base.Stride, Bits: base.Bits, Pix: slices.Clone(base.Pix)}
+	for i, v := range clipped.Pix {
+		switch {
+		case v < 60:
+			clipped.Pix[i] = 0
+		case v > 200:
+			clipped.Pix[i] = 255
+		}
+	}
+	mask, err := (&roi.Spec{Rect: &[4]int{10, 12, 60, 52}}).Mask(base.W, base.H)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for _, c := range []struct {
+		name string
+		g    *imageio.Gray
+		mask *roi.Mask
+	}{{"plain", base, nil}, {"clipped", clipped, nil}, {"masked", clipped, mask}} {
+		m, err := quality.Measure(c.g, c.mask)
+		if err != nil {
+			t.Fatal(err)
+		}
+		want, err := quality.NoiseFromImage(c.g, c.mask)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if math.Float64bits(m.Noise) != math.Float64bits(want) {
+			t.Errorf("%s: Measure's noise %v, NoiseFromImage %v", c.name, m.Noise, want)
+		}
+	}
+}

@@ -68,6 +68,15 @@ func NoiseFromImage(g *imageio.Gray, mask *roi.Mask) (float64, error) {
 		return 0, fmt.Errorf("%w: noise estimate needs an image of at least 3×3 px", ErrEmpty)
 	}
 	_, _, lo, hi := imageio.Stats(g)
+	return noiseFromImage(g, mask, lo, hi)
+}
+
+// noiseFromImage is NoiseFromImage given the lowest and highest level of
+// the whole image g (imageio.Stats), which Measure has already found.
+func noiseFromImage(g *imageio.Gray, mask *roi.Mask, lo, hi float64) (float64, error) {
+	if g == nil || g.W < 3 || g.H < 3 {
+		return 0, fmt.Errorf("%w: noise estimate needs an image of at least 3×3 px", ErrEmpty)
+	}
 	type resp struct{ grad, n float64 }
 	r := make([]resp, 0, (g.W-2)*(g.H-2))
 	p, st := g.Pix, g.Stride

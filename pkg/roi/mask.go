@@ -150,7 +150,16 @@ func Full(w, h int) *Mask {
 	for i := range in {
 		in[i] = true
 	}
-	return newMask(w, h, in)
+	// newMask's running sums in closed form: (x+1)·(y+1) pixels lie in the
+	// rectangle up to (x, y).
+	m := &Mask{W: w, H: h, in: in, sum: make([]int32, (w+1)*(h+1)), n: w * h}
+	for y := 1; y <= h; y++ {
+		row := m.sum[y*(w+1)+1 : (y+1)*(w+1)]
+		for x := range row {
+			row[x] = int32((x + 1) * y)
+		}
+	}
+	return m
 }
 
 func newMask(w, h int, in []bool) *Mask {

@@ -123,3 +123,24 @@ func TestSpecErrors(t *testing.T) {
 		t.Errorf("empty Spec: %v, %v; want the whole image", m, err)
 	}
 }
+
+// Full's summed-area table, written in closed form, is the one newMask
+// builds from the pixels, and the mask counts every pixel.
+func TestFullSums(t *testing.T) {
+	for _, s := range [][2]int{{1, 1}, {1, 7}, {9, 1}, {13, 6}} {
+		w, h := s[0], s[1]
+		in := make([]bool, w*h)
+		for i := range in {
+			in[i] = true
+		}
+		got, want := Full(w, h), newMask(w, h, in)
+		if got.n != want.n || len(got.sum) != len(want.sum) {
+			t.Fatalf("%d×%d: %d pixels, %d sums; want %d, %d", w, h, got.n, len(got.sum), want.n, len(want.sum))
+		}
+		for i := range want.sum {
+			if got.sum[i] != want.sum[i] {
+				t.Fatalf("%d×%d: sum[%d] = %d, want %d", w, h, i, got.sum[i], want.sum[i])
+			}
+		}
+	}
+}
