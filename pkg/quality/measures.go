@@ -207,9 +207,23 @@ func Measure(g *imageio.Gray, mask *roi.Mask) (Measures, error) {
 	m.UsedLevels = int(math.Round(span/step)) + 1
 	m.UsedBits = math.Log2(float64(m.UsedLevels))
 
-	// Gradients.
+	// Gradients and noise. Up to 1<<22 px, where NoiseFromImage reads
+	// every pixel, one pass gives both their Sobel gradients.
 	var p99 float64
-	m.MeanGradient, p99 = sobelStats(g, mask)
+	var noise float64
+	var noiseErr error
+	if g.W >= 3 && g.H >= 3 && g.W*g.H <= 1<<22 {
+		nlo, nhi := lo, hi
+		if !whole { // NoiseFromImage takes the whole image's range
+			_, _, nlo, nhi = imageio.Stats(g)
+		}
+		r := responses(g, mask, nlo, nhi, true)
+		m.MeanGradient, p99 = sobelOf(r)
+		noise, noiseErr = noiseOf(r)
+	} else {
+		m.MeanGradient, p99 = sobelStats(g, mask)
+		noise, noiseErr = NoiseFromImage(g, mask)
+	}
 	if p99 > 0 {
 		m.EdgeWidth = span / p99
 	}
@@ -218,14 +232,8 @@ func Measure(g *imageio.Gray, mask *roi.Mask) (Measures, error) {
 	} else {
 		m.SpeckleSize = sz
 	}
-	noise := NoiseFromImage
-	if whole {
-		// Over the whole image, pass 1's range is imageio.Stats's (the
-		// image holds no NaN or infinity, or pass 1 failed).
-		noise = func(g *imageio.Gray, mask *roi.Mask) (float64, error) { return noiseFromImage(g, mask, lo, hi) }
-	}
-	if sigma, err := noise(g, mask); err == nil {
-		m.Noise = sigma
+	if noiseErr == nil {
+		m.Noise = noise
 	}
 	return m, nil
 }
@@ -283,6 +291,33 @@ func insideR(mask *roi.Mask, w, h, x, y, r int) bool {
 // neighbourhood is measured; NaN, 0 if there is none. Two passes (the
 // second fills a histogram up to the largest magnitude) keep the memory
 // independent of the image size.
+// sobelOf is sobelStats from the responses of every pixel whose 3×3
+// neighbourhood lies in the mask (responses with all set): the magnitude
+// √((gx/8)² + (gy/8)²) is √(grad/64) bit for bit, as the divisions by
+// powers of two are exact.
+func sobelOf(r []resp) (mean, p99 float64) {
+	if len(r) == 0 {
+		return math.NaN(), 0
+	}
+	var s, top float64
+	for _, v := range r {
+		mag := math.Sqrt(v.grad / 64)
+		s += mag
+		if mag > top {
+			top = mag
+		}
+	}
+	if top > 0 {
+		const nbin = 1 << 14
+		hist := make([]int, nbin)
+		for _, v := range r {
+			hist[min(nbin-1, int(math.Sqrt(v.grad/64)/top*(nbin-1)+0.5))]++
+		}
+		p99 = float64(percentile(hist, len(r), 0.99)) * top / (nbin - 1)
+	}
+	return s / float64(len(r)), p99
+}
+
 func sobelStats(g *imageio.Gray, mask *roi.Mask) (mean, p99 float64) {
 	if g.W < 3 || g.H < 3 {
 		return math.NaN(), 0

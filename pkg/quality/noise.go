@@ -77,13 +77,27 @@ func noiseFromImage(g *imageio.Gray, mask *roi.Mask, lo, hi float64) (float64, e
 	if g == nil || g.W < 3 || g.H < 3 {
 		return 0, fmt.Errorf("%w: noise estimate needs an image of at least 3×3 px", ErrEmpty)
 	}
-	type resp struct{ grad, n float64 }
+	return noiseOf(responses(g, mask, lo, hi, false))
+}
+
+// resp is one pixel's squared Sobel gradient, unscaled (gx² + gy² with the
+// kernels' integer weights), and its absolute response to N; a negative n
+// marks a pixel the noise estimate leaves out.
+type resp struct{ grad, n float64 }
+
+// responses returns the responses of the pixels of g whose 3×3
+// neighbourhood lies in the mask, in raster order, for NoiseFromImage
+// (every k-th row and column of a large image). With all set (Measure,
+// images of at most 1<<22 px) it keeps every such pixel of every row and
+// column and marks with n = −1 the ones the noise estimate leaves out, so
+// that sobelStats can take its gradients from the same pass.
+func responses(g *imageio.Gray, mask *roi.Mask, lo, hi float64, all bool) []resp {
 	r := make([]resp, 0, (g.W-2)*(g.H-2))
 	p, st := g.Pix, g.Stride
 	// Every k-th row and column of large images: a few million pixels
 	// fix the estimate well enough.
 	k := 1
-	for (g.W/k)*(g.H/k) > 1<<22 {
+	for !all && (g.W/k)*(g.H/k) > 1<<22 {
 		k++
 	}
 	clipLo, clipHi := lo <= 0, looksFullScale(hi)
@@ -96,27 +110,45 @@ func noiseFromImage(g *imageio.Gray, mask *roi.Mask, lo, hi float64) (float64, e
 			a, b, c := float64(p[i-st-1]), float64(p[i-st]), float64(p[i-st+1])
 			d, e, f := float64(p[i-1]), float64(p[i]), float64(p[i+1])
 			q, h, j := float64(p[i+st-1]), float64(p[i+st]), float64(p[i+st+1])
-			if (e == lo && clipLo) || (e == hi && clipHi) {
-				continue
-			}
 			gx := c + 2*f + j - a - 2*d - q
 			gy := q + 2*h + j - a - 2*b - c
-			n := a + c + q + j - 2*(b+d+f+h) + 4*e
 			g2 := gx*gx + gy*gy
+			if (e == lo && clipLo) || (e == hi && clipHi) {
+				if all {
+					r = append(r, resp{g2, -1})
+				}
+				continue
+			}
+			n := a + c + q + j - 2*(b+d+f+h) + 4*e
 			if math.IsNaN(g2) || math.IsInf(g2, 0) || math.IsNaN(n) || math.IsInf(n, 0) {
+				if all {
+					r = append(r, resp{g2, -1})
+				}
 				continue // a NaN or infinite grey level tells nothing of the noise
 			}
 			r = append(r, resp{g2, math.Abs(n)})
 		}
 	}
-	if len(r) < 50 {
+	return r
+}
+
+// noiseOf is NoiseFromImage's estimate from the responses r, leaving out
+// those with a negative n.
+func noiseOf(r []resp) (float64, error) {
+	used := 0
+	for _, v := range r {
+		if v.n >= 0 {
+			used++
+		}
+	}
+	if used < 50 {
 		return 0, fmt.Errorf("%w: noise estimate needs at least 50 measured pixels", ErrEmpty)
 	}
 	// The fifth with the smallest gradient, from a histogram of the
 	// gradient (a sort of millions of pixels would dominate the cost).
 	var top float64
 	for _, v := range r {
-		if v.grad > top {
+		if v.n >= 0 && v.grad > top {
 			top = v.grad
 		}
 	}
@@ -125,15 +157,17 @@ func noiseFromImage(g *imageio.Gray, mask *roi.Mask, lo, hi float64) (float64, e
 		const nbin = 1 << 14
 		hist := make([]int, nbin)
 		for _, v := range r {
-			hist[min(nbin-1, int(v.grad/top*nbin))]++
+			if v.n >= 0 {
+				hist[min(nbin-1, int(v.grad/top*nbin))]++
+			}
 		}
-		b := percentile(hist, len(r), 0.2)
+		b := percentile(hist, used, 0.2)
 		cut = float64(b+1) * top / nbin
 	}
 	var s float64
 	n := 0
 	for _, v := range r {
-		if v.grad < cut {
+		if v.n >= 0 && v.grad < cut {
 			s += v.n
 			n++
 		}
