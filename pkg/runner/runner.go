@@ -34,8 +34,11 @@ type Config struct {
 	// Workers is the number of jobs computed at once; default the number
 	// of CPUs.
 	Workers int
-	// JobThreads is the thread count each job uses; default 1. Results
-	// never depend on it.
+	// JobThreads is the thread count each job uses. The default (0) is 1,
+	// except that an analysis job (not a series frame) that starts while
+	// fewer jobs run than there are cores also takes the idle ones: it
+	// uses GOMAXPROCS / (jobs running), so one request on an idle server
+	// is correlated on every core. Results never depend on it.
 	JobThreads int
 	// MaxAttempts is how many times a job is started before it is failed
 	// (a job that crashes the process is not retried for ever); default 3.
@@ -59,6 +62,8 @@ type Config struct {
 	// computes, with the job's context; the job waits until it returns.
 	// It is a test hook; leave it nil in production.
 	BeforeCompute func(ctx context.Context, j jobs.Job)
+
+	spareThreads bool // JobThreads was left at 0: analysis jobs take idle cores
 }
 
 func (c *Config) defaults() {
@@ -69,7 +74,7 @@ func (c *Config) defaults() {
 		c.Workers = runtime.NumCPU()
 	}
 	if c.JobThreads <= 0 {
-		c.JobThreads = 1
+		c.JobThreads, c.spareThreads = 1, true
 	}
 	if c.MaxAttempts <= 0 {
 		c.MaxAttempts = 3

@@ -7,6 +7,7 @@ import (
 	"errors"
 	"fmt"
 	"io"
+	"runtime"
 	"sort"
 	"time"
 
@@ -495,6 +496,9 @@ func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 		return nil, fmt.Errorf("stored parameters: %w", err)
 	}
 	in.Params.Threads = s.cfg.JobThreads
+	if j.Kind == jobs.Analysis {
+		in.Params.Threads = s.analysisThreads()
+	}
 	refKey, maskKey := jobs.InputKey(j.ID, "reference"), jobs.InputKey(j.ID, "mask")
 	if j.Kind == jobs.Frame {
 		refKey, maskKey = jobs.SeriesKey(j.Series, "reference"), jobs.SeriesKey(j.Series, "mask")
@@ -519,6 +523,19 @@ func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 		s.refq.put(key, *res.RefMeasures)
 	}
 	return res, err
+}
+
+// analysisThreads is the thread count of an analysis job starting now:
+// JobThreads, or with the default JobThreads the cores split among the
+// running jobs (this one included), at least one each.
+func (s *Runner) analysisThreads() int {
+	if !s.cfg.spareThreads {
+		return s.cfg.JobThreads
+	}
+	s.mu.Lock()
+	n := len(s.running)
+	s.mu.Unlock()
+	return max(s.cfg.JobThreads, runtime.GOMAXPROCS(0)/max(n, 1))
 }
 
 // LoadImage decodes the stored image under key, turned upright by its own

@@ -27,9 +27,12 @@ type Config struct {
 	// Workers is the number of jobs computed at once; default the number
 	// of CPUs.
 	Workers int
-	// JobThreads is the thread count each job uses; default 1, so that
-	// Workers jobs keep the cores busy without oversubscribing them.
-	// Results never depend on it.
+	// JobThreads is the thread count each job uses. The default (0) is 1,
+	// so that Workers jobs keep the cores busy without oversubscribing
+	// them, except that an analysis that starts while fewer jobs run than
+	// there are cores also takes the idle ones (runner.Config.JobThreads):
+	// one request on an idle server is correlated on every core. Results
+	// never depend on it.
 	JobThreads int
 	// MaxFramesInFlight is the bound on frames computed at once that each
 	// new series gets (jobs.Series.MaxInFlight): frames of a direct-mode
@@ -141,8 +144,8 @@ func (c *Config) defaults() {
 	if c.Workers <= 0 {
 		c.Workers = runtime.NumCPU()
 	}
-	if c.JobThreads <= 0 {
-		c.JobThreads = 1
+	if c.JobThreads < 0 {
+		c.JobThreads = 0
 	}
 	if c.MaxAttempts <= 0 {
 		c.MaxAttempts = 3
