@@ -90,6 +90,38 @@ func FuzzRender(f *testing.F) {
 				t.Fatalf("colour range %v", m.Range)
 			}
 			checkPNG(t, m.Image)
+			// The same map drawn indexed (the results folder's maps): the
+			// same layout and range, an image of the same size, and a PNG
+			// that image/png decodes to the same pixels.
+			mi, err := Render(l, bg, Options{Indexed: true})
+			if err != nil {
+				t.Fatalf("full colour renders, indexed fails: %v", err)
+			}
+			if mi.Indexed == nil || mi.Picture != m.Picture || mi.ColorBar != m.ColorBar || mi.Range != m.Range {
+				t.Fatalf("indexed map: image %v, picture %v, bar %v, range %v; full colour %v, %v, %v",
+					mi.Indexed != nil, mi.Picture, mi.ColorBar, mi.Range, m.Picture, m.ColorBar, m.Range)
+			}
+			if mi.Indexed.Bounds() != m.Image.Bounds() {
+				t.Fatalf("indexed image %v, full colour %v", mi.Indexed.Bounds(), m.Image.Bounds())
+			}
+			data, err := EncodePNG(mi.Raster())
+			if err != nil {
+				t.Fatalf("encode indexed PNG: %v", err)
+			}
+			got, err := png.Decode(bytes.NewReader(data))
+			if err != nil || got.Bounds() != mi.Indexed.Bounds() {
+				t.Fatalf("indexed PNG decodes to %v, %v", got, err)
+			}
+			ib := mi.Indexed.Bounds()
+			for y := ib.Min.Y; y < ib.Max.Y; y++ {
+				for x := ib.Min.X; x < ib.Max.X; x++ {
+					r0, g0, b0, a0 := mi.Indexed.At(x, y).RGBA()
+					r1, g1, b1, a1 := got.At(x, y).RGBA()
+					if r0 != r1 || g0 != g1 || b0 != b1 || a0 != a1 {
+						t.Fatalf("indexed pixel (%d, %d) is %v in the map and %v in its PNG", x, y, mi.Indexed.At(x, y), got.At(x, y))
+					}
+				}
+			}
 		}
 		v := Vectors{Nx: l.Nx, Ny: l.Ny, X: l.X, Y: l.Y, U: l.Values, V: l.Values}
 		if m, err := RenderVectors(v, nil, VectorOptions{}); err == nil {
