@@ -46,6 +46,12 @@ type Job struct {
 	// image over the same ROI (Output.RefMeasures): only the deformed image
 	// is measured then. The reports are the same.
 	RefMeasures *quality.Measures
+	// Threads, if above 0, is the thread count the correlation and the
+	// field builder use instead of Params.Threads. The field records
+	// Params.Threads: results never depend on the thread count, so a job
+	// may take whatever cores are idle without a byte of its files
+	// changing.
+	Threads int
 }
 
 // Output is the result of an analysis: the field and the correlation result
@@ -94,6 +100,9 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 		return nil, err
 	}
 	opt.Start, opt.Progress = j.Start, j.Progress
+	if j.Threads > 0 {
+		opt.Threads = j.Threads
+	}
 	// The pair checks (sizes, contrast) and the image quality are done
 	// while the images are correlated (they read them only; the correlator
 	// checks the sizes it needs itself). A failed check or a quality error
@@ -129,7 +138,7 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 	if err != nil {
 		return nil, fmt.Errorf("correlation: %w", err)
 	}
-	f, err := Kinematics(ctx, res, p)
+	f, err := buildField(ctx, res, p, j.Threads)
 	if err != nil {
 		return nil, err
 	}
@@ -196,10 +205,19 @@ func CorrelationOptions(p Params, w, h int, maskImage *imageio.Gray) (correlate.
 // strain-window fit, every strain measure, rotation and principal values,
 // with the propagated uncertainty. Lengths are in mm when p sets a scale.
 func Kinematics(ctx context.Context, res *correlate.Result, p Params) (*field.Field, error) {
+	return buildField(ctx, res, p, 0)
+}
+
+// buildField is Kinematics on threads threads (0: p.Threads), recording p.
+func buildField(ctx context.Context, res *correlate.Result, p Params, threads int) (*field.Field, error) {
 	if _, err := kinematics.ParseFit(p.StrainFit); err != nil {
 		return nil, &ValidationError{[]Problem{{Field: "strain_fit", Message: err.Error()}}}
 	}
-	f, err := results.Build(ctx, results.FromCorrelation(res, p.Subset), BuildOptions(p))
+	o := BuildOptions(p)
+	if threads > 0 {
+		o.Threads = threads
+	}
+	f, err := results.Build(ctx, results.FromCorrelation(res, p.Subset), o)
 	if err != nil {
 		return nil, err
 	}

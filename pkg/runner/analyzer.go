@@ -46,6 +46,9 @@ type Input struct {
 	// mask (the runner keeps them, see Result.RefMeasures); an Analyzer
 	// may use them instead of measuring the reference again.
 	RefMeasures *quality.Measures
+	// Threads, if above 0, is the thread count to compute with instead of
+	// Params.Threads, which the results record (they never depend on it).
+	Threads int
 }
 
 // Result is what an analysis produced.

@@ -30,7 +30,7 @@ var summaryQuantities = []string{"u", "v", "E11", "E22", "E12", "eps11", "eps22"
 // Run implements Analyzer.
 func (Pipeline) Run(ctx context.Context, in Input, progress func(done, total int)) (*Result, error) {
 	out, err := analysis.RunJob(ctx, analysis.Job{Ref: in.Ref, Def: in.Def, RefName: "reference", DefName: "deformed",
-		Mask: in.Mask, Params: in.Params, Progress: progress, RefMeasures: in.RefMeasures})
+		Mask: in.Mask, Params: in.Params, Progress: progress, RefMeasures: in.RefMeasures, Threads: in.Threads})
 	if err != nil {
 		return nil, err
 	}

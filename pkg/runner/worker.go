@@ -497,7 +497,10 @@ func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 	}
 	in.Params.Threads = s.cfg.JobThreads
 	if j.Kind == jobs.Analysis {
-		in.Params.Threads = s.analysisThreads()
+		// The idle cores change how fast, not what: the files record
+		// JobThreads whatever the count (the cluster test compares them
+		// byte for byte with the embedded backend's).
+		in.Threads = s.analysisThreads()
 	}
 	refKey, maskKey := jobs.InputKey(j.ID, "reference"), jobs.InputKey(j.ID, "mask")
 	if j.Kind == jobs.Frame {
