@@ -301,29 +301,13 @@ func (s *solver) prepare1(ix, iy int) Status {
 			jy0 += gy
 			jy1 += jy0
 		}
-		e2 := eta * eta
-		add2 := func(dst *[3][3]float64, s0, c1, c2 float64) {
-			s1 := c1 - cc*s0
-			s2 := 2*c2 - (2*cc+1)*s1 - cc*(cc+1)*s0
-			dst[0][0] += s0
-			dst[1][0] += s1
-			dst[2][0] += s2
-			dst[0][1] += s0 * eta
-			dst[1][1] += s1 * eta
-			dst[0][2] += s0 * e2
-		}
-		add2(&hxx, xx0, xx1, xx2)
-		add2(&hxy, xy0, xy1, xy2)
-		add2(&hyy, yy0, yy1, yy2)
-		add1 := func(dst *[2][2]float64, d0, d1 float64) {
-			dst[0][0] += d0
-			dst[1][0] += d1 - cc*d0
-			dst[0][1] += d0 * eta
-		}
-		add1(&bx, bx0, bx1)
-		add1(&by, by0, by1)
-		add1(&jx, jx0, jx1)
-		add1(&jy, jy0, jy1)
+		addRow2(&hxx, cc, eta, xx0, xx1, xx2)
+		addRow2(&hxy, cc, eta, xy0, xy1, xy2)
+		addRow2(&hyy, cc, eta, yy0, yy1, yy2)
+		addRow1(&bx, cc, eta, bx0, bx1)
+		addRow1(&by, cc, eta, by0, by1)
+		addRow1(&jx, cc, eta, jx0, jx1)
+		addRow1(&jy, cc, eta, jy0, jy1)
 		k += side
 	}
 	n := float64(s.n)
@@ -458,6 +442,31 @@ func (s *solver) smoothedVars(cu, cv *[12]float64) (vu, vv float64) {
 // hessian1 accumulates the upper triangle of H = Σ JᵀJ, Σ J f̃ and Σ J for
 // the first-order warp. Every entry is a sum of w·ξ^a·η^b with w one of
 // fx², fx·fy, fy² (or fx f̃, fy f̃, fx, fy), so rows are summed over ξ first
+
+// addRow2 adds one subset row at η = eta to dst[a][b] = Σ w ξ^a η^b
+// (a+b ≤ 2), from the running sums of a weight w taken from the row's right
+// end (s0 = Σ w, c1 = Σ (i+1) w, c2 = Σ (i+1)(i+2)/2 w, see hessian1) and
+// cc = m + 1: with u = i + 1 = ξ + cc, Σ ξ w = c1 − cc s0 and
+// Σ ξ² w = 2 c2 − (2cc+1) Σ ξ w − cc(cc+1) s0.
+func addRow2(dst *[3][3]float64, cc, eta, s0, c1, c2 float64) {
+	s1 := c1 - cc*s0
+	s2 := 2*c2 - (2*cc+1)*s1 - cc*(cc+1)*s0
+	dst[0][0] += s0
+	dst[1][0] += s1
+	dst[2][0] += s2
+	dst[0][1] += s0 * eta
+	dst[1][1] += s1 * eta
+	dst[0][2] += s0 * (eta * eta)
+}
+
+// addRow1 is addRow2 up to a+b ≤ 1, from the running sums d0 = Σ w and
+// d1 = Σ (i+1) w.
+func addRow1(dst *[2][2]float64, cc, eta, d0, d1 float64) {
+	dst[0][0] += d0
+	dst[1][0] += d1 - cc*d0
+	dst[0][1] += d0 * eta
+}
+
 // and weighted by η afterwards.
 func (s *solver) hessian1(h *[144]float64) {
 	m := s.m
@@ -509,29 +518,13 @@ func (s *solver) hessian1(h *[144]float64) {
 		// With u = i + 1 = ξ + c: Σ u w = S1 + c S0 and
 		// Σ u(u+1)/2 w = (S2 + (2c+1) S1 + c(c+1) S0)/2.
 		cc := float64(m + 1)
-		e2 := eta * eta
-		add2 := func(dst *[3][3]float64, s0, c1, c2 float64) {
-			s1 := c1 - cc*s0
-			s2 := 2*c2 - (2*cc+1)*s1 - cc*(cc+1)*s0
-			dst[0][0] += s0
-			dst[1][0] += s1
-			dst[2][0] += s2
-			dst[0][1] += s0 * eta
-			dst[1][1] += s1 * eta
-			dst[0][2] += s0 * e2
-		}
-		add2(&hxx, xx0, xx1, xx2)
-		add2(&hxy, xy0, xy1, xy2)
-		add2(&hyy, yy0, yy1, yy2)
-		add1 := func(dst *[2][2]float64, d0, d1 float64) {
-			dst[0][0] += d0
-			dst[1][0] += d1 - cc*d0
-			dst[0][1] += d0 * eta
-		}
-		add1(&bx, bx0, bx1)
-		add1(&by, by0, by1)
-		add1(&jx, jx0, jx1)
-		add1(&jy, jy0, jy1)
+		addRow2(&hxx, cc, eta, xx0, xx1, xx2)
+		addRow2(&hxy, cc, eta, xy0, xy1, xy2)
+		addRow2(&hyy, cc, eta, yy0, yy1, yy2)
+		addRow1(&bx, cc, eta, bx0, bx1)
+		addRow1(&by, cc, eta, by0, by1)
+		addRow1(&jx, cc, eta, jx0, jx1)
+		addRow1(&jy, cc, eta, jy0, jy1)
 		k += side
 	}
 	s.setHessian1(h, &hxx, &hxy, &hyy)
