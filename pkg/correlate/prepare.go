@@ -1,0 +1,292 @@
+package correlate
+
+import "math"
+
+// jacobian writes the steepest-descent vector of one pixel at offset (ξ, η).
+func (s *solver) jacobian(fx, fy, xi, eta float64, j *[12]float64) {
+	j[U], j[Ux], j[Uy] = fx, fx*xi, fx*eta
+	j[V], j[Vx], j[Vy] = fy, fy*xi, fy*eta
+	if s.np == 12 {
+		xx, xy, yy := xi*xi/2, xi*eta, eta*eta/2
+		j[Uxx], j[Uxy], j[Uyy] = fx*xx, fx*xy, fx*yy
+		j[Vxx], j[Vxy], j[Vyy] = fy*xx, fy*xy, fy*yy
+	}
+}
+
+// prepare loads the reference subset centred at (xc, yc) and computes the
+// Hessian and its Cholesky factor. It returns OK, Outside (the subset leaves
+// the reference image) or LowContrast.
+func (s *solver) prepare(xc, yc float64) Status {
+	m := s.m
+	s.xc, s.yc = xc, yc
+	ix, iy := int(xc), int(yc)
+	onGrid := float64(ix) == xc && float64(iy) == yc
+	if xc-float64(m) < 0 || yc-float64(m) < 0 || xc+float64(m) > float64(s.ref.W-1) || yc+float64(m) > float64(s.ref.H-1) {
+		return Outside
+	}
+	if !onGrid && s.refSp == nil {
+		return Outside
+	}
+	if onGrid && s.np == 6 {
+		return s.prepare1(ix, iy)
+	}
+	return s.prepareAny(onGrid)
+}
+
+// prepareAny is prepare for any centre (on the pixel grid or not, given
+// by onGrid) and either warp, after the checks of prepare.
+func (s *solver) prepareAny(onGrid bool) Status {
+	m := s.m
+	xc, yc := s.xc, s.yc
+	ix, iy := int(xc), int(yc)
+	var sum float64
+	side := 2*m + 1
+	k := 0
+	for j := -m; j <= m; j++ {
+		f, fx, fy := s.f[k:k+side], s.fx[k:k+side], s.fy[k:k+side]
+		if onGrid {
+			o := (iy+j)*s.ref.Stride + ix - m
+			pix := s.ref.Pix[o : o+side]
+			o = (iy+j)*s.ref.W + ix - m
+			gx, gy := s.gx[o:o+side], s.gy[o:o+side]
+			pix, gx, gy = pix[:len(f)], gx[:len(f)], gy[:len(f)]
+			fx, fy = fx[:len(f)], fy[:len(f)]
+			for i, v := range pix {
+				f[i], fx[i], fy[i] = float64(v), float64(gx[i]), float64(gy[i])
+				sum += f[i]
+			}
+		} else {
+			for i := range f {
+				f[i], fx[i], fy[i] = s.refSp.Grad(xc+float64(i-m), yc+float64(j))
+				sum += f[i]
+			}
+		}
+		k += side
+	}
+	s.fmean = sum / float64(s.n)
+	var ss float64
+	for k := range s.f {
+		s.f[k] -= s.fmean
+		ss += s.f[k] * s.f[k]
+	}
+	s.df = math.Sqrt(ss)
+	if !(s.df > 0) || s.df/math.Sqrt(float64(s.n)) < s.minStd {
+		return LowContrast
+	}
+	var h [12 * 12]float64
+	s.b0, s.sj = [12]float64{}, [12]float64{}
+	if s.np == 6 {
+		s.hessian1(&h)
+	} else {
+		s.hessian2m(&h)
+	}
+	return s.factor(&h)
+}
+
+// factor factors the Hessian h (upper triangle) and sets the entries of its
+// inverse used for the predicted std. It returns OK or LowContrast.
+func (s *solver) factor(h *[144]float64) Status {
+	np := s.np
+	if !cholesky(h, np, &s.chol) {
+		return LowContrast
+	}
+	var eu, ev [12]float64
+	eu[U], ev[V] = 1, 1
+	cholSolve(&s.chol, np, &eu)
+	cholSolve(&s.chol, np, &ev)
+	s.hUU, s.hVV = eu[U], ev[V]
+	if s.kern != nil {
+		s.hUU, s.hVV = s.smoothedVars(&eu, &ev)
+	}
+	return OK
+}
+
+// prepare1 is prepare for the first-order warp and a subset centred on the
+// pixel (ix, iy), the case of every grid point: it reads the subset once
+// for the samples, their sums and the Hessian's row sums (hessian1's
+// running sums, here fused with the copy so that the chains of additions
+// run side by side instead of one loop after another), and once more for
+// Σ J f and Σ J, with f not yet centred: Σ J f̃ = Σ J f − f̄ Σ J.
+func (s *solver) prepare1(ix, iy int) Status {
+	m := s.m
+	side := 2*m + 1
+	cc := float64(m + 1)
+	var sum float64
+	var hxx, hxy, hyy [3][3]float64
+	var bx, by, jx, jy [2][2]float64 // a+b ≤ 1
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		f, fx, fy := s.f[k:k+side], s.fx[k:k+side], s.fy[k:k+side]
+		o := (iy+j)*s.ref.Stride + ix - m
+		pix := s.ref.Pix[o : o+side]
+		o = (iy+j)*s.ref.W + ix - m
+		gxs, gys := s.gx[o:o+side], s.gy[o:o+side]
+		pix, gxs, gys = pix[:len(f)], gxs[:len(f)], gys[:len(f)]
+		fx, fy = fx[:len(f)], fy[:len(f)]
+		// Running sums from the right end of the row, as in hessian1.
+		var rs, xx0, xx1, xx2, xy0, xy1, xy2, yy0, yy1, yy2 float64
+		for i := len(f) - 1; i >= 0; i-- {
+			v, gx, gy := float64(pix[i]), float64(gxs[i]), float64(gys[i])
+			f[i], fx[i], fy[i] = v, gx, gy
+			rs += v
+			xx0 += gx * gx
+			xx1 += xx0
+			xx2 += xx1
+			xy0 += gx * gy
+			xy1 += xy0
+			xy2 += xy1
+			yy0 += gy * gy
+			yy1 += yy0
+			yy2 += yy1
+		}
+		sum += rs
+		var bx0, bx1, by0, by1, jx0, jx1, jy0, jy1 float64
+		for i := len(f) - 1; i >= 0; i-- {
+			gx, gy, v := fx[i], fy[i], f[i]
+			bx0 += gx * v
+			bx1 += bx0
+			by0 += gy * v
+			by1 += by0
+			jx0 += gx
+			jx1 += jx0
+			jy0 += gy
+			jy1 += jy0
+		}
+		addRow2(&hxx, cc, eta, xx0, xx1, xx2)
+		addRow2(&hxy, cc, eta, xy0, xy1, xy2)
+		addRow2(&hyy, cc, eta, yy0, yy1, yy2)
+		addRow1(&bx, cc, eta, bx0, bx1)
+		addRow1(&by, cc, eta, by0, by1)
+		addRow1(&jx, cc, eta, jx0, jx1)
+		addRow1(&jy, cc, eta, jy0, jy1)
+		k += side
+	}
+	n := float64(s.n)
+	s.fmean = sum / n
+	fm := s.fmean
+	// Centre the samples; two partial sums of squares, so that the
+	// additions do not wait for each other.
+	var ss0, ss1 float64
+	f := s.f[:s.n]
+	for k := 0; k+1 < len(f); k += 2 {
+		a, b := f[k]-fm, f[k+1]-fm
+		f[k], f[k+1] = a, b
+		ss0 += a * a
+		ss1 += b * b
+	}
+	if len(f)%2 == 1 {
+		a := f[len(f)-1] - fm
+		f[len(f)-1] = a
+		ss0 += a * a
+	}
+	s.df = math.Sqrt(ss0 + ss1)
+	if !(s.df > 0) || s.df/math.Sqrt(n) < s.minStd {
+		return LowContrast
+	}
+	var h [144]float64
+	s.setHessian1(&h, &hxx, &hxy, &hyy)
+	for a, pw := range pow1 {
+		bb, jj := &bx, &jx
+		if a >= 3 {
+			bb, jj = &by, &jy
+		}
+		sj := jj[pw[0]][pw[1]]
+		s.sj[a] = sj
+		s.b0[a] = bb[pw[0]][pw[1]] - fm*sj
+	}
+	for a := 6; a < 12; a++ {
+		s.b0[a], s.sj[a] = 0, 0
+	}
+	return s.factor(&h)
+}
+
+// pow1 lists the powers of ξ and η in the first-order steepest-descent
+// vector J = [fx, fx ξ, fx η, fy, fy ξ, fy η].
+var pow1 = [6][2]int{{0, 0}, {1, 0}, {0, 1}, {0, 0}, {1, 0}, {0, 1}}
+
+// setHessian1 fills the upper triangle of the first-order H from the
+// moments Σ w ξ^a η^b of w = fx², fx fy, fy², and sets sssig.
+func (s *solver) setHessian1(h *[144]float64, hxx, hxy, hyy *[3][3]float64) {
+	// Entry (a, b) is Σ w ξ^(pa+pb) η^(qa+qb).
+	for a := 0; a < 6; a++ {
+		for b := a; b < 6; b++ {
+			src := hxx
+			switch {
+			case a < 3 && b >= 3:
+				src = hxy
+			case a >= 3:
+				src = hyy
+			}
+			h[a*12+b] = src[pow1[a][0]+pow1[b][0]][pow1[a][1]+pow1[b][1]]
+		}
+	}
+	s.sssig = math.Min(hxx[0][0], hyy[0][0])
+}
+
+// smoothedVars returns Var(hᵀΔp)/(2σ²) for the two combinations cu and cv
+// (the rows of H⁻¹ for u and v) when both images were smoothed by the
+// separable kernel s.kern before correlation, σ being the noise of the
+// unsmoothed images. The linearised IC-GN update is Δp = H⁻¹ Jᵀ G(n₁ − n₂)
+// with G the smoothing, so the variance of the combination c = H⁻¹h-weighted
+// steepest-descent image w = J·c is 2σ²‖Gw‖² (G symmetric). Without
+// smoothing this reduces to hᵀH⁻¹h, the usual (H⁻¹)_uu.
+//
+// Gw is computed over the subset grown by the kernel radius r on every
+// side: a horizontal pass over the subset's rows, then a vertical pass.
+// The scratch planes carry r zero samples beyond each end, so no index is
+// tested in the loops; each output sample is the sum over the kernel in
+// order, as it would be with the out-of-range terms left out.
+func (s *solver) smoothedVars(cu, cv *[12]float64) (vu, vv float64) {
+	m := s.m
+	side := 2*m + 1
+	kern := s.kern
+	r := len(kern) / 2
+	ext := side + 2*r
+	wide := ext + 2*r
+	// wu, wv: side rows of width wide, w at column 2r + i (i = 0 … side−1).
+	wu, wv := s.wpad[:side*wide], s.wpad[side*wide:2*side*wide]
+	var jv [12]float64
+	k := 0
+	for j := 0; j < side; j++ {
+		ru, rv := wu[j*wide+2*r:j*wide+2*r+side], wv[j*wide+2*r:j*wide+2*r+side]
+		for i := range ru {
+			s.jacobian(s.fx[k], s.fy[k], float64(i-m), float64(j-m), &jv)
+			var a, b float64
+			for q := 0; q < s.np; q++ {
+				a += jv[q] * cu[q]
+				b += jv[q] * cv[q]
+			}
+			ru[i], rv[i] = a, b
+			k++
+		}
+	}
+	// tu, tv: ext + 2r rows of width ext; the horizontal pass of subset
+	// row j goes to row 2r + j, the others stay zero.
+	tu, tv := s.wtmp[:wide*ext], s.wtmp[wide*ext:2*wide*ext]
+	for j := 0; j < side; j++ {
+		su, sv := wu[j*wide:(j+1)*wide], wv[j*wide:(j+1)*wide]
+		du, dv := tu[(2*r+j)*ext:(2*r+j+1)*ext], tv[(2*r+j)*ext:(2*r+j+1)*ext]
+		for x := range du {
+			xu, xv := su[x:x+len(kern)], sv[x:x+len(kern)]
+			var a, b float64
+			for q, kq := range kern {
+				a += kq * xu[q]
+				b += kq * xv[q]
+			}
+			du[x], dv[x] = a, b
+		}
+	}
+	for y := 0; y < ext; y++ {
+		for x := 0; x < ext; x++ {
+			var a, b float64
+			for q, kq := range kern {
+				a += kq * tu[(y+q)*ext+x]
+				b += kq * tv[(y+q)*ext+x]
+			}
+			vu += a * a
+			vv += b * b
+		}
+	}
+	return vu, vv
+}
