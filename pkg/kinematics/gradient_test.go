@@ -385,6 +385,12 @@ func BenchmarkGradients(b *testing.B) {
 	}{
 		{"plane_w5", GradientOptions{Window: 5, Threads: 1}},
 		{"quadratic_w9", GradientOptions{Window: 9, Fit: Quadratic, Threads: 1}},
+		// Subsets of 31 px on the 4 px grid: errors correlated 7 points
+		// out, the worst case of the correlated propagation.
+		{"plane_w5_subset31", GradientOptions{Window: 5, Threads: 1, Subset: 31}},
+		// The defaults' correlation reach (subset 31, step 8): 3 points.
+		{"plane_w5_subset15", GradientOptions{Window: 5, Threads: 1, Subset: 15}},
+		{"quadratic_w9_subset31", GradientOptions{Window: 9, Fit: Quadratic, Threads: 1, Subset: 31}},
 	} {
 		b.Run(c.name, func(b *testing.B) {
 			b.ReportAllocs()
@@ -395,5 +401,117 @@ func BenchmarkGradients(b *testing.B) {
 			}
 			b.ReportMetric(float64(g.Len())*float64(b.N)/b.Elapsed().Seconds(), "points/s")
 		})
+	}
+}
+
+// TestGradientStdCorrelated: with GradientOptions.Subset set, the
+// propagated std allows for the correlation of neighbouring points whose
+// subsets share pixels. The Monte Carlo errors are made that way: each
+// point's error is σ_k times the normalised sum of white noise over the
+// M×M pixels of its subset, so two points correlate exactly as the share
+// of pixels they have in common, the model of Gradients. The sample std
+// of each gradient and strain component must agree with the propagated
+// one within 5 % (4000 trials; the law of propagation of uncertainty with
+// correlated inputs, JCGM 100:2008, 5.2). Treating the errors as
+// independent (Subset 0) must understate the plane fit's std by more than
+// 10 % (for the quadratic fit at a corner it can also overstate it).
+func TestGradientStdCorrelated(t *testing.T) {
+	const step, m = 5, 13 // px: neighbours 1 and 2 steps apart share pixels
+	g := Grid{X0: m, Y0: m, Step: step, Nx: 7, Ny: 7}
+	u0, v0 := fillField(g,
+		func(x, y float64) float64 { return 0.05*x + 0.02*y },
+		func(x, y float64) float64 { return -0.01*x + 0.03*y })
+	su, sv := make([]float64, g.Len()), make([]float64, g.Len())
+	for p := range su {
+		su[p] = 0.01 + 0.002*float64(p%5)
+		sv[p] = 0.02 - 0.001*float64(p%7)
+	}
+	u0[2*7+4] = math.NaN() // a hole in the window, so the fit is irregular
+	probes := []int{3*7 + 3, 1*7 + 1, 6*7 + 1}
+	w, h := 2*m+(g.Nx-1)*step+1, 2*m+(g.Ny-1)*step+1 // pixels of the noise
+	// subsetNoise returns, per point, the sum of the pixel noise nz over
+	// its subset divided by m (unit variance).
+	subsetNoise := func(nz []float64) []float64 {
+		out := make([]float64, g.Len())
+		for j := range g.Ny {
+			for i := range g.Nx {
+				x, y := g.At(i, j)
+				s := 0.0
+				for yy := int(y) - m/2; yy <= int(y)+m/2; yy++ {
+					for xx := int(x) - m/2; xx <= int(x)+m/2; xx++ {
+						s += nz[yy*w+xx]
+					}
+				}
+				out[j*g.Nx+i] = s / m
+			}
+		}
+		return out
+	}
+	for _, fit := range []Fit{Plane, Quadratic} {
+		opt := GradientOptions{Window: 5, Fit: fit, Threads: 1, Subset: m}
+		pred, err := Gradients(context.Background(), g, u0, v0, su, sv, opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		indep := opt
+		indep.Subset = 0
+		lower, err := Gradients(context.Background(), g, u0, v0, su, sv, indep)
+		if err != nil {
+			t.Fatal(err)
+		}
+		r := rand.New(rand.NewPCG(11, uint64(fit)))
+		const trials = 4000
+		type acc struct{ s, s2 [6]float64 }
+		accs := make([]acc, len(probes))
+		u, v := make([]float64, g.Len()), make([]float64, g.Len())
+		nz := make([]float64, w*h)
+		for range trials {
+			for c, out := range [][]float64{u, v} {
+				for p := range nz {
+					nz[p] = r.NormFloat64()
+				}
+				z := subsetNoise(nz)
+				for p := range out {
+					if c == 0 {
+						out[p] = u0[p] + su[p]*z[p]
+					} else {
+						out[p] = v0[p] + sv[p]*z[p]
+					}
+				}
+			}
+			res, _ := Gradients(context.Background(), g, u, v, nil, nil, opt)
+			for k, p := range probes {
+				mm := Compute(res[p].F(), GreenLagrangeMeasure)
+				x := [6]float64{res[p].Ux, res[p].Uy, res[p].Vx, res[p].Vy, mm.E[0][0], mm.E[0][1]}
+				for c := range x {
+					accs[k].s[c] += x[c]
+					accs[k].s2[c] += x[c] * x[c]
+				}
+			}
+		}
+		for k, p := range probes {
+			pr, lo := pred[p], lower[p]
+			if pr.Status != GradOK {
+				t.Fatalf("%v probe %d: status %v", fit, p, pr.Status)
+			}
+			s11, _, s12 := pr.StdGreenLagrange()
+			l11, _, l12 := lo.StdGreenLagrange()
+			want := [6]float64{math.Sqrt(pr.VarUx), math.Sqrt(pr.VarUy), math.Sqrt(pr.VarVx), math.Sqrt(pr.VarVy), s11, s12}
+			indepStd := [6]float64{math.Sqrt(lo.VarUx), math.Sqrt(lo.VarUy), math.Sqrt(lo.VarVx), math.Sqrt(lo.VarVy), l11, l12}
+			names := [6]string{"Ux", "Uy", "Vx", "Vy", "E11", "E12"}
+			for c := range want {
+				mean := accs[k].s[c] / trials
+				sd := math.Sqrt((accs[k].s2[c] - trials*mean*mean) / (trials - 1))
+				if math.Abs(sd/want[c]-1) > 0.05 {
+					t.Errorf("%v point %d std %s: propagated %.4g, Monte Carlo %.4g", fit, p, names[c], want[c], sd)
+				}
+				if fit == Plane && !(indepStd[c] < 0.9*sd) {
+					t.Errorf("%v point %d std %s: independent errors give %.4g, Monte Carlo %.4g: want it understated", fit, p, names[c], indepStd[c], sd)
+				}
+			}
+			if k == 0 {
+				t.Logf("%v: std E11 propagated %.4g (independent %.4g), Monte Carlo %.4g", fit, s11, l11, math.Sqrt(accs[k].s2[4]/trials-math.Pow(accs[k].s[4]/trials, 2)))
+			}
+		}
 	}
 }

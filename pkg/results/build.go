@@ -194,7 +194,7 @@ func Build(ctx context.Context, in Input, opt Options) (*field.Field, error) {
 		}
 	}
 	kg := kinematics.Grid{X0: float64(g.X0), Y0: float64(g.Y0), Step: float64(g.Step), Nx: g.Nx, Ny: g.Ny}
-	grads, err := kinematics.Gradients(ctx, kg, u, v, su, sv, kinematics.GradientOptions{Window: opt.StrainWindow, Fit: fit, Threads: opt.Threads})
+	grads, err := kinematics.Gradients(ctx, kg, u, v, su, sv, kinematics.GradientOptions{Window: opt.StrainWindow, Fit: fit, Threads: opt.Threads, Subset: float64(in.Subset)})
 	if err != nil {
 		return nil, fmt.Errorf("strain fit: %w", err)
 	}
