@@ -607,10 +607,8 @@ func (s *Runner) storeResults(ctx context.Context, id string, res *Result) ([]st
 		names = append(names, name)
 	}
 	sort.Strings(names)
-	for _, name := range names {
-		if err := s.blobs.Put(ctx, jobs.ResultKey(id, name), bytes.NewReader(res.Files[name])); err != nil {
-			return nil, err
-		}
+	if err := jobs.PutAll(ctx, s.blobs, res.Files, func(name string) string { return jobs.ResultKey(id, name) }); err != nil {
+		return nil, err
 	}
 	return names, nil
 }

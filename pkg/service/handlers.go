@@ -261,11 +261,9 @@ func (s *Server) prime(id string, raw map[string][]byte, decoded map[string]*ima
 // the job was not accepted. ErrExists means a job with that id (chosen
 // under an Idempotency-Key) exists already, and is left as it is.
 func (s *Server) accept(ctx context.Context, j *jobs.Job, raw map[string][]byte) error {
-	for name, b := range raw {
-		if err := s.blobs.Put(ctx, jobs.InputKey(j.ID, name), bytes.NewReader(b)); err != nil {
-			s.blobs.Delete(ctx, jobs.JobKey(j.ID))
-			return err
-		}
+	if err := jobs.PutAll(ctx, s.blobs, raw, func(name string) string { return jobs.InputKey(j.ID, name) }); err != nil {
+		s.blobs.Delete(ctx, jobs.JobKey(j.ID))
+		return err
 	}
 	if err := s.store.CreateJob(ctx, j); errors.Is(err, jobs.ErrExists) {
 		return err // the inputs are the existing job's

@@ -158,7 +158,8 @@ func Older(a, b *Job) bool {
 
 // Blobs keeps images and result files under slash-separated keys (see
 // InputKey, ResultKey, SeriesKey). Put is atomic: a reader sees either the
-// old contents or the whole new contents, never a part.
+// old contents or the whole new contents, never a part. Every method is
+// safe for concurrent use.
 type Blobs interface {
 	// Put stores the contents of r under key, replacing any old contents.
 	Put(ctx context.Context, key string, r io.Reader) error
