@@ -41,11 +41,13 @@ type Job struct {
 	// assessed by the caller (quality.AssessPair over the same ROI); nil =
 	// RunJob assesses it.
 	Quality []quality.Report
-	// RefMeasures, if not nil (and Quality is nil), are the reference's
-	// quality measures from an earlier analysis of the same reference
-	// image over the same ROI (Output.RefMeasures): only the deformed image
-	// is measured then. The reports are the same.
-	RefMeasures *quality.Measures
+	// RefMeasures, if not nil (and Quality is nil), returns the
+	// reference's quality measures from an earlier analysis of the same
+	// reference image over the same ROI (Output.RefMeasures), or nil when
+	// there are none: only the deformed image is measured then. The
+	// reports are the same. RunJob calls it beside the correlation, so a
+	// look-up that reads the whole reference does not delay it.
+	RefMeasures func() *quality.Measures
 	// Threads, if above 0, is the thread count the correlation and the
 	// field builder use instead of Params.Threads. The field records
 	// Params.Threads: results never depend on the thread count, so a job
@@ -123,7 +125,11 @@ func RunJob(ctx context.Context, j Job) (*Output, error) {
 		if qual != nil {
 			return
 		}
-		if qual, refM, qerr = quality.AssessPairWith(j.Ref, j.RefMeasures, j.Def, opt.Mask, quality.Thresholds{}); qerr != nil {
+		var known *quality.Measures
+		if j.RefMeasures != nil {
+			known = j.RefMeasures()
+		}
+		if qual, refM, qerr = quality.AssessPairWith(j.Ref, known, j.Def, opt.Mask, quality.Thresholds{}); qerr != nil {
 			cancel()
 		}
 	}()

@@ -41,11 +41,13 @@ type Input struct {
 	// Formats are the result formats to write (results.ParseFormats); ""
 	// means the service's default, the stored result alone.
 	Formats string
-	// RefMeasures, if not nil, are the reference's image quality measures
-	// from an earlier job on the same reference pixels, parameters and
-	// mask (the runner keeps them, see Result.RefMeasures); an Analyzer
-	// may use them instead of measuring the reference again.
-	RefMeasures *quality.Measures
+	// RefMeasures, if not nil, returns the reference's image quality
+	// measures from an earlier job on the same reference pixels,
+	// parameters and mask (the runner keeps them, see Result.RefMeasures),
+	// or nil; an Analyzer may use them instead of measuring the reference
+	// again. The look-up hashes the reference's pixels: an Analyzer calls
+	// it beside its correlation, not before. It is safe for concurrent use.
+	RefMeasures func() *quality.Measures
 	// Threads, if above 0, is the thread count to compute with instead of
 	// Params.Threads, which the results record (they never depend on it).
 	Threads int

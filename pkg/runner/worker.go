@@ -9,10 +9,12 @@ import (
 	"io"
 	"runtime"
 	"sort"
+	"sync"
 	"time"
 
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/quality"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
@@ -519,11 +521,13 @@ func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 			return nil, err
 		}
 	}
-	key := refQualityKey(in.Ref, in.Mask, j.Params)
-	in.RefMeasures = s.refq.get(key)
+	// The key hashes every reference pixel: the analyzer asks for it
+	// beside the correlation, not before it.
+	key := sync.OnceValue(func() [32]byte { return refQualityKey(in.Ref, in.Mask, j.Params) })
+	in.RefMeasures = func() *quality.Measures { return s.refq.get(key()) }
 	res, err := s.cfg.Analyzer.Run(ctx, in, progress)
 	if err == nil && res.RefMeasures != nil {
-		s.refq.put(key, *res.RefMeasures)
+		s.refq.put(key(), *res.RefMeasures)
 	}
 	return res, err
 }
