@@ -4,12 +4,12 @@ import (
 	"context"
 	"math"
 	"runtime"
-	"runtime/metrics"
 	"sync"
 	"syscall"
 	"testing"
 	"time"
 
+	"github.com/mottledic/mottle/internal/heapwatch"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/spline"
 	"github.com/mottledic/mottle/pkg/synth"
@@ -28,29 +28,6 @@ func benchImages(b testing.TB) (ref, def *imageio.Gray) {
 		benchPair.ref, benchPair.def = pair(b, m, 1024, 1024, 8, 1, 7)
 	})
 	return benchPair.ref, benchPair.def
-}
-
-// peakHeap samples the live heap every millisecond until stop is closed
-// and returns the largest value seen.
-func peakHeap(stop <-chan struct{}) <-chan uint64 {
-	out := make(chan uint64, 1)
-	go func() {
-		s := []metrics.Sample{{Name: "/memory/classes/heap/objects:bytes"}}
-		var peak uint64
-		t := time.NewTicker(time.Millisecond)
-		defer t.Stop()
-		for {
-			metrics.Read(s)
-			peak = max(peak, s[0].Value.Uint64())
-			select {
-			case <-stop:
-				out <- peak
-				return
-			case <-t.C:
-			}
-		}
-	}()
-	return out
 }
 
 // BenchmarkRun1024 is the reference benchmark of the project: a 1024×1024
@@ -99,7 +76,7 @@ func benchRunOpt(b *testing.B, opt Options, tun tuning) {
 		runtime.ReadMemStats(&ms)
 		m0 := ms.Mallocs
 		stop := make(chan struct{})
-		pk := peakHeap(stop)
+		pk := heapwatch.Peak(stop)
 		res, err := runWith(context.Background(), ref, def, opt, tun)
 		close(stop)
 		cpu += cpuTime() - c0

@@ -3,10 +3,9 @@ package runner
 import (
 	"context"
 	"runtime"
-	rtm "runtime/metrics"
 	"testing"
-	"time"
 
+	"github.com/mottledic/mottle/internal/heapwatch"
 	"github.com/mottledic/mottle/internal/stereobench"
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -15,37 +14,12 @@ import (
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
-// peakHeap samples the heap's live objects every millisecond until stop
-// is closed and sends the largest value seen.
-func peakHeap(stop <-chan struct{}) <-chan uint64 {
-	out := make(chan uint64, 1)
-	go func() {
-		s := []rtm.Sample{{Name: "/memory/classes/heap/objects:bytes"}}
-		var peak uint64
-		t := time.NewTicker(time.Millisecond)
-		defer t.Stop()
-		for {
-			rtm.Read(s)
-			peak = max(peak, s[0].Value.Uint64())
-			select {
-			case <-stop:
-				out <- peak
-				return
-			case <-t.C:
-			}
-		}
-	}()
-	return out
-}
-
 // measure returns the peak heap of f above the heap before it, in bytes.
 func measure(b *testing.B, f func() error) uint64 {
 	runtime.GC()
-	s := []rtm.Sample{{Name: "/memory/classes/heap/objects:bytes"}}
-	rtm.Read(s)
-	base := s[0].Value.Uint64()
+	base := heapwatch.Now()
 	stop := make(chan struct{})
-	pk := peakHeap(stop)
+	pk := heapwatch.Peak(stop)
 	err := f()
 	close(stop)
 	if err != nil {
