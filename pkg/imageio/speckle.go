@@ -103,8 +103,9 @@ const MaxSpeckleWindow = 512
 // of that size. Image noise lowers ρ at every non-zero lag and so shortens
 // the estimate slightly.
 //
-// The lags are summed directly, one at a time, until ρ has fallen to ½
-// along both axes (at most 64 lags): the same unbiased, mean-removed
+// The lags are summed directly, four per pass along both axes (each in
+// its own accumulator, in one fixed order, see lagTable), until ρ has
+// fallen to ½ along both axes (at most 64 lags): the same unbiased, mean-removed
 // estimate that Autocorrelation computes with FFTs, equal to it up to
 // rounding, at a cost of a few passes over the window for speckles a few
 // px across instead of a padded 2D transform.
@@ -120,12 +121,12 @@ func HWHM(g *Gray) (hx, hy float64, err error) {
 		return 0, 0, fmt.Errorf("%w: autocorrelation needs an image at least 2×2 px", ErrTooSmall)
 	}
 	maxLag := min(64, g.W/4, g.H/4, g.W-1, g.H-1)
-	mean, std, _, _ := Stats(g)
-	if std == 0 {
+	t := newLagTable(g, maxLag)
+	if t.c0 == 0 { // every pixel is the mean
 		return 0, 0, fmt.Errorf("%w: uniform image has no autocorrelation", ErrNoContrast)
 	}
-	hx, okx := halfLag(func(h int) float64 { return lagSum(g, mean, h, 1) / float64((g.W-h)*g.H) }, maxLag)
-	hy, oky := halfLag(func(h int) float64 { return lagSum(g, mean, h, g.Stride) / float64(g.W*(g.H-h)) }, maxLag)
+	hx, okx := halfLag(func(h int) float64 { return t.x(h) / float64((g.W-h)*g.H) }, maxLag)
+	hy, oky := halfLag(func(h int) float64 { return t.y(h) / float64(g.W*(g.H-h)) }, maxLag)
 	if !okx || !oky {
 		return hx, hy, fmt.Errorf("%w: the autocorrelation stays above ½ up to %d px: speckles too large for a %d×%d px image",
 			ErrTooSmall, maxLag, g.W, g.H)
@@ -149,25 +150,160 @@ func halfLag(c func(h int) float64, maxLag int) (float64, bool) {
 	return math.NaN(), false
 }
 
-// lagSum returns Σ (g(p) − mean)·(g(p + h·d) − mean) over the pixel pairs
-// of g at lag h along the axis whose index step is d (1 = x, Stride = y).
-func lagSum(g *Gray, mean float64, h, d int) float64 {
-	w, ht := g.W, g.H
-	if d == 1 {
-		w -= h
-	} else {
-		ht -= h
-	}
-	off := h * d
+// lagBlock is the number of lags along each axis that lagTable sums in
+// one pass.
+const lagBlock = 4
+
+// lagTable holds the lag sums of an image (lagSum along x and along y)
+// as HWHM asks for them. They are summed lagBlock lags at a time in one
+// pass over the deviations from the mean, each lag's products in its own
+// accumulator in lagSum's order, so the sums are lagSum's bit for bit
+// while the accumulators' additions overlap instead of waiting on each
+// other. Lag 0 is the same along both axes.
+type lagTable struct {
+	d      []float64 // g(p) − mean, row by row with stride w
+	w, h   int
+	maxLag int
+	c0     float64
+	cx, cy []float64 // lags 1, 2, … summed so far
+}
+
+// newLagTable returns the lag table of g up to maxLag, with its mean
+// taken as Stats takes it and lag 0 summed (with the first block).
+func newLagTable(g *Gray, maxLag int) *lagTable {
+	w, h := g.W, g.H
 	var s float64
-	for y := 0; y < ht; y++ {
-		a := g.Pix[y*g.Stride : y*g.Stride+w]
-		b := g.Pix[y*g.Stride+off : y*g.Stride+off+w]
-		var rs float64
-		for x, v := range a {
-			rs += (float64(v) - mean) * (float64(b[x]) - mean)
+	for y := 0; y < h; y++ {
+		for _, v := range g.Pix[y*g.Stride : y*g.Stride+w] {
+			s += float64(v)
 		}
-		s += rs
+	}
+	mean := s / float64(w*h)
+	t := &lagTable{d: make([]float64, w*h), w: w, h: h, maxLag: maxLag}
+	for y := 0; y < h; y++ {
+		row := t.d[y*w : y*w+w]
+		for x, v := range g.Pix[y*g.Stride : y*g.Stride+w] {
+			row[x] = float64(v) - mean
+		}
+	}
+	if maxLag >= lagBlock {
+		t.next() // sums lag 0 too
+		return t
+	}
+	for y := 0; y < h; y++ {
+		a := t.d[y*w : y*w+w]
+		t.c0 += rowDot(a, a)
+	}
+	return t
+}
+
+// x returns lagSum(g, mean, h, 1).
+func (t *lagTable) x(h int) float64 {
+	if h == 0 {
+		return t.c0
+	}
+	for len(t.cx) < h {
+		t.next()
+	}
+	return t.cx[h-1]
+}
+
+// y returns lagSum(g, mean, h, g.Stride).
+func (t *lagTable) y(h int) float64 {
+	if h == 0 {
+		return t.c0
+	}
+	for len(t.cy) < h {
+		t.next()
+	}
+	return t.cy[h-1]
+}
+
+// next sums the next lagBlock lags along both axes (and lag 0 with the
+// first), or the next one near maxLag.
+func (t *lagTable) next() {
+	l := len(t.cx) + 1
+	if l+lagBlock-1 > t.maxLag {
+		t.cx, t.cy = append(t.cx, t.lagX(l)), append(t.cy, t.lagY(l))
+		return
+	}
+	w, h, d := t.w, t.h, t.d
+	var sx, sy [lagBlock]float64
+	var s0 float64              // lag 0, kept from the first block
+	n := w - (l + lagBlock - 1) // x below n has all lagBlock partners in its row
+	for y := 0; y < h; y++ {
+		a := d[y*w : y*w+w]
+		var r0, r1, r2, r3, rz float64
+		for x, v := range a[:n] {
+			b := a[x+l : x+l+lagBlock]
+			rz += v * v
+			r0 += v * b[0]
+			r1 += v * b[1]
+			r2 += v * b[2]
+			r3 += v * b[3]
+		}
+		for _, v := range a[n:] {
+			rz += v * v
+		}
+		s0 += rz
+		for x := n; x < w-l-2; x++ {
+			r2 += a[x] * a[x+l+2]
+		}
+		for x := n; x < w-l-1; x++ {
+			r1 += a[x] * a[x+l+1]
+		}
+		for x := n; x < w-l; x++ {
+			r0 += a[x] * a[x+l]
+		}
+		sx[0], sx[1], sx[2], sx[3] = sx[0]+r0, sx[1]+r1, sx[2]+r2, sx[3]+r3
+		if y+l+lagBlock-1 >= h {
+			for i := range lagBlock {
+				if y+l+i < h {
+					sy[i] += rowDot(a, d[(y+l+i)*w:(y+l+i)*w+w])
+				}
+			}
+			continue
+		}
+		b0, b1, b2, b3 := d[(y+l)*w:(y+l)*w+w], d[(y+l+1)*w:(y+l+1)*w+w], d[(y+l+2)*w:(y+l+2)*w+w], d[(y+l+3)*w:(y+l+3)*w+w]
+		var q0, q1, q2, q3 float64
+		for x, v := range a {
+			q0 += v * b0[x]
+			q1 += v * b1[x]
+			q2 += v * b2[x]
+			q3 += v * b3[x]
+		}
+		sy[0], sy[1], sy[2], sy[3] = sy[0]+q0, sy[1]+q1, sy[2]+q2, sy[3]+q3
+	}
+	if l == 1 {
+		t.c0 = s0
+	}
+	t.cx, t.cy = append(t.cx, sx[:]...), append(t.cy, sy[:]...)
+}
+
+// lagX is lagSum along x at lag l from the deviations.
+func (t *lagTable) lagX(l int) float64 {
+	var s float64
+	for y := 0; y < t.h; y++ {
+		a := t.d[y*t.w : y*t.w+t.w]
+		s += rowDot(a[:t.w-l], a[l:])
+	}
+	return s
+}
+
+// lagY is lagSum along y at lag l from the deviations.
+func (t *lagTable) lagY(l int) float64 {
+	var s float64
+	for y := 0; y+l < t.h; y++ {
+		s += rowDot(t.d[y*t.w:y*t.w+t.w], t.d[(y+l)*t.w:(y+l)*t.w+t.w])
+	}
+	return s
+}
+
+// rowDot returns Σ a[x]·b[x] over x < len(a), in order of x.
+func rowDot(a, b []float64) float64 {
+	var s float64
+	for x, v := range a {
+		s += v * b[x]
 	}
 	return s
 }
