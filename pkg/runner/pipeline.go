@@ -319,6 +319,9 @@ func frameSummary(base jobs.Summary, sm series.Summary) jobs.Summary {
 	for _, e := range sm.Extensometers {
 		if e.Valid {
 			g["ext_"+e.Name+"_eng"], g["ext_"+e.Name+"_true"], g["ext_"+e.Name+"_stretch"] = e.Eng, e.True, e.Stretch
+			if e.EngStd != nil {
+				g["ext_"+e.Name+"_eng_std"] = *e.EngStd
+			}
 		}
 	}
 	for _, r := range sm.Gauges {

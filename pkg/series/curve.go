@@ -100,7 +100,8 @@ func (t *Tracker) NoiseFloor() *NoiseFloor { return NoiseFromFrames(t.st.Static)
 
 // Column returns the values of a named curve column for every row (NaN
 // where missing): "time_s", "load_N", "stress_MPa", "mean_<q>",
-// "ext_<name>_eng", "ext_<name>_true", "ext_<name>_stretch",
+// "ext_<name>_eng", "ext_<name>_eng_std", "ext_<name>_true",
+// "ext_<name>_stretch",
 // "gauge_<name>_<component>_mean" or "_std".
 func (c Curve) Column(name string) []float64 {
 	out := make([]float64, len(c.Rows))
@@ -172,6 +173,12 @@ func (c Curve) columns() []column {
 			column{pre + "eng", func(s Summary) float64 {
 				if r := ext(s); r != nil {
 					return r.Eng
+				}
+				return math.NaN()
+			}},
+			column{pre + "eng_std", func(s Summary) float64 {
+				if r := ext(s); r != nil {
+					return ptr(r.EngStd)
 				}
 				return math.NaN()
 			}},

@@ -44,6 +44,10 @@ type ExtReading struct {
 	True    float64 `json:"true_strain"`
 	// Rate is d(True)/dt in 1/s, when the frames carry time stamps.
 	Rate *float64 `json:"true_strain_rate,omitempty"`
+	// EngStd is the predicted standard deviation of Eng from the
+	// displacement std at the two ends (see extStd), when the points carry
+	// one.
+	EngStd *float64 `json:"eng_strain_std,omitempty"`
 	// Valid is false when an end point could not be located (no valid
 	// measurement points around it); the strains are then 0.
 	Valid bool `json:"valid"`
@@ -296,6 +300,75 @@ func (l lattice) displacementAt(u, v []float64, valid []bool, x, y float64) (du,
 	return su[0], sv[0], true
 }
 
+// stdAt returns the displacement std at (x, y) px. Where displacementAt
+// interpolates bilinearly between the four grid points around the
+// position, it is the std of that weighted sum, with the errors of two
+// points correlated as the share of pixels their subsets (of side subset
+// px) have in common (the model of kinematics.Gradients, from the
+// linearised estimator of Wang, Li, Tong & Ruan 2007, Exp. Mech. 47:701).
+// Elsewhere it is the mean std of the valid points of the 4×4 block
+// around the position, which the plane fit there uses (an upper bound).
+// ok is false where no point there has a positive std.
+func (l lattice) stdAt(su, sv []float64, valid []bool, x, y, subset float64) (sx, sy float64, ok bool) {
+	fx, fy := (x-l.X0)/l.Step, (y-l.Y0)/l.Step
+	i0, j0 := int(math.Floor(fx)), int(math.Floor(fy))
+	idx := func(i, j int) (int, bool) {
+		if i < 0 || j < 0 || i >= l.Nx || j >= l.Ny {
+			return 0, false
+		}
+		k := j*l.Nx + i
+		return k, valid[k] && su[k] > 0 && sv[k] > 0
+	}
+	rho := func(d int) float64 { return max(0, 1-float64(d)*l.Step/subset) }
+	var ks [4]int
+	var w [4]float64
+	all := true
+	tx, ty := fx-float64(i0), fy-float64(j0)
+	for c := range 4 {
+		di, dj := c%2, c/2
+		k, good := idx(i0+di, j0+dj)
+		all = all && good
+		ks[c] = k
+		w[c] = (float64(1-di) + float64(2*di-1)*tx) * (float64(1-dj) + float64(2*dj-1)*ty)
+	}
+	if all {
+		var vx, vy float64
+		for a := range 4 {
+			for b := range 4 {
+				r := rho(abs(a%2-b%2)) * rho(abs(a/2-b/2))
+				vx += w[a] * w[b] * r * su[ks[a]] * su[ks[b]]
+				vy += w[a] * w[b] * r * sv[ks[a]] * sv[ks[b]]
+			}
+		}
+		return math.Sqrt(vx), math.Sqrt(vy), true
+	}
+	n := 0
+	for j := j0 - 1; j <= j0+2; j++ {
+		for i := i0 - 1; i <= i0+2; i++ {
+			if k, good := idx(i, j); good {
+				sx, sy, n = sx+su[k], sy+sv[k], n+1
+			}
+		}
+	}
+	if n == 0 {
+		return 0, 0, false
+	}
+	return sx / float64(n), sy / float64(n), true
+}
+
+func abs(d int) int { return max(d, -d) }
+
+// extStd returns the predicted std of an extensometer's engineering
+// strain from the displacement std (sx, sy) at each end, px, and the
+// reference length L0 px along the unit direction (nx, ny): only the
+// components along the extensometer change its length to first order,
+// and the ends' errors are taken as independent (ends further apart than
+// a subset share no pixels), so σ_ε² = Σ_ends (nx²σx² + ny²σy²) / L0²
+// (first-order propagation, JCGM 100:2008, 5.1).
+func extStd(a, b [2]float64, nx, ny, L0 float64) float64 {
+	return math.Sqrt(nx*nx*(a[0]*a[0]+b[0]*b[0])+ny*ny*(a[1]*a[1]+b[1]*b[1])) / L0
+}
+
 // solve3 solves the 3×3 system a·x = b by Cramer's rule; ok is false when
 // a is (nearly) singular.
 func solve3(a [3][3]float64, b [3]float64) ([3]float64, bool) {
@@ -330,7 +403,7 @@ type positionMap interface {
 // values; scale converts px to the output units (1 for px, mm/px for mm).
 // With a position map m, the lengths are those between the mapped end
 // points (and scale is not used).
-func (l lattice) readExtensometer(e Extensometer, u, v []float64, valid []bool, scale float64, m positionMap) ExtReading {
+func (l lattice) readExtensometer(e Extensometer, u, v, su, sv []float64, subset float64, valid []bool, scale float64, m positionMap) ExtReading {
 	r := ExtReading{Name: e.Name}
 	L0 := math.Hypot(e.B[0]-e.A[0], e.B[1]-e.A[1])
 	r.L0 = L0 * scale
@@ -338,6 +411,14 @@ func (l lattice) readExtensometer(e Extensometer, u, v []float64, valid []bool, 
 	ub, vb, ok2 := l.displacementAt(u, v, valid, e.B[0], e.B[1])
 	if !ok1 || !ok2 {
 		return r
+	}
+	if su != nil && sv != nil {
+		ax, ay, okA := l.stdAt(su, sv, valid, e.A[0], e.A[1], subset)
+		bx, by, okB := l.stdAt(su, sv, valid, e.B[0], e.B[1], subset)
+		if okA && okB {
+			s := extStd([2]float64{ax, ay}, [2]float64{bx, by}, (e.B[0]-e.A[0])/L0, (e.B[1]-e.A[1])/L0, L0)
+			r.EngStd = &s
+		}
 	}
 	L := math.Hypot(e.B[0]+ub-e.A[0]-ua, e.B[1]+vb-e.A[1]-va)
 	if m != nil {

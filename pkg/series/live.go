@@ -584,7 +584,7 @@ func (l *Live) readings(ctx context.Context, index int, meta FrameMeta) (LiveVal
 		return nOK, n, z
 	}
 	for e, epx := range l.ext {
-		rd := l.lat.readExtensometer(epx, l.u, l.v, l.valid, scale, mapping)
+		rd := l.lat.readExtensometer(epx, l.u, l.v, nil, nil, 0, l.valid, scale, mapping)
 		r := LiveReading{Name: epx.Name, Component: "eng"}
 		var nOK, n int
 		var z float64
@@ -611,7 +611,7 @@ func (l *Live) readings(ctx context.Context, index int, meta FrameMeta) (LiveVal
 		L0 := math.Hypot(epx.B[0]-epx.A[0], epx.B[1]-epx.A[1])
 		nx, ny := (epx.B[0]-epx.A[0])/L0, (epx.B[1]-epx.A[1])/L0
 		if sd[0][0] > 0 && sd[1][0] > 0 {
-			s := math.Sqrt(nx*nx*(sd[0][0]*sd[0][0]+sd[1][0]*sd[1][0])+ny*ny*(sd[0][1]*sd[0][1]+sd[1][1]*sd[1][1])) / L0
+			s := extStd(sd[0], sd[1], nx, ny, L0)
 			r.Std = &s
 		}
 		judge(&r, rd.Eng, nOK, n, z)

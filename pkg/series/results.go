@@ -104,7 +104,7 @@ func (t *Tracker) results(ctx context.Context, pts []PointState, meta FrameMeta,
 	ls := 1 / p.lengthScale() // coordinate units → px
 	for _, e := range p.Extensometers {
 		epx := Extensometer{Name: e.Name, A: [2]float64{e.A[0] * ls, e.A[1] * ls}, B: [2]float64{e.B[0] * ls, e.B[1] * ls}}
-		s.Extensometers = append(s.Extensometers, g.readExtensometer(epx, in.U, in.V, valid, scale, mapping))
+		s.Extensometers = append(s.Extensometers, g.readExtensometer(epx, in.U, in.V, in.StdU, in.StdV, float64(p.Analysis.Subset), valid, scale, mapping))
 	}
 	for _, gg := range p.Gauges {
 		gpx := gg.scaled(ls)

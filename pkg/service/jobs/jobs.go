@@ -72,7 +72,7 @@ type Summary struct {
 	Mean map[string]float64 `json:"mean,omitempty"`
 	// Gauges holds named gauge values (extensometers, virtual gauges) when
 	// the engine computes them, under the column names of a series curve:
-	// "ext_<name>_eng", "ext_<name>_true", "ext_<name>_stretch",
+	// "ext_<name>_eng", "ext_<name>_eng_std", "ext_<name>_true", "ext_<name>_stretch",
 	// "gauge_<name>_<component>_mean" and "_std".
 	Gauges map[string]float64 `json:"gauges,omitempty"`
 	// Mode says how the series engine correlated a frame: "direct" (with
