@@ -161,7 +161,7 @@ func (s *Runner) solvedFor(ctx context.Context, j *jobs.Job) []byte {
 // dropSolved removes the solution of frame j once j is in the series
 // state: later frames take their guess from that state.
 func (s *Runner) dropSolved(ctx context.Context, j *jobs.Job) {
-	if err := s.blobs.Delete(ctx, SolveKey(j.Series, j.FrameIndex)); err != nil && !errors.Is(err, jobs.ErrNotFound) {
+	if err := jobs.DeleteKey(ctx, s.blobs, SolveKey(j.Series, j.FrameIndex)); err != nil && !errors.Is(err, jobs.ErrNotFound) {
 		s.log.Warn("remove frame solution", "job", j.ID, "error", err)
 	}
 }

@@ -416,7 +416,7 @@ func (s *Runner) lastDone(ctx context.Context, j *jobs.Job) (*jobs.Job, error) {
 func (s *Runner) dropOldState(ctx context.Context, j *jobs.Job) {
 	last, err := s.lastDone(ctx, j)
 	if err == nil && last != nil {
-		err = s.blobs.Delete(ctx, StateKey(j.Series, last.FrameIndex))
+		err = jobs.DeleteKey(ctx, s.blobs, StateKey(j.Series, last.FrameIndex))
 	}
 	if err != nil {
 		s.log.Warn("remove old series state", "job", j.ID, "error", err)

@@ -170,6 +170,26 @@ type Blobs interface {
 	Delete(ctx context.Context, prefix string) error
 }
 
+// KeyDeleter is implemented by Blobs whose Delete of a prefix costs more
+// than the removal of one blob: Delete must look for the keys under the
+// prefix, which in a distributed store means listing it, at a cost that
+// grows with everything stored.
+type KeyDeleter interface {
+	// DeleteKey removes the blob under key alone, not the keys under
+	// key + "/". Deleting nothing is not an error.
+	DeleteKey(ctx context.Context, key string) error
+}
+
+// DeleteKey removes the blob under key, a key with no blobs under it (a
+// file, not a folder, such as a series state): by b's DeleteKey when b has
+// one, else by Delete.
+func DeleteKey(ctx context.Context, b Blobs, key string) error {
+	if d, ok := b.(KeyDeleter); ok {
+		return d.DeleteKey(ctx, key)
+	}
+	return b.Delete(ctx, key)
+}
+
 // Queue hands job ids to workers. A delivered id must be acknowledged
 // (done, success or failure recorded in the Store) or negatively
 // acknowledged (put back for another attempt). An id delivered and never

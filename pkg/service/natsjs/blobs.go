@@ -200,6 +200,21 @@ func (b *Blobs) Delete(ctx context.Context, prefix string) error {
 	return errors.Join(errs...)
 }
 
+// DeleteKey implements jobs.KeyDeleter: it removes the object named key
+// with no listing of the store, whose cost Delete pays for every call and
+// which grows with the objects stored (a long series deletes the state it
+// continued from at every frame).
+func (b *Blobs) DeleteKey(ctx context.Context, key string) error {
+	if !jobs.ValidKey(key) {
+		return fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", key)
+	}
+	err := retry(ctx, func(ctx context.Context) error { return b.obj.Delete(ctx, key) })
+	if err != nil && !errors.Is(err, jetstream.ErrObjectNotFound) {
+		return fmt.Errorf("delete blob %s: %w", key, err)
+	}
+	return nil
+}
+
 // Keys returns the keys under prefix, sorted (for inspection and tests).
 func (b *Blobs) Keys(ctx context.Context, prefix string) ([]string, error) {
 	list, err := b.list(ctx)

@@ -322,6 +322,32 @@ func TestBlobs(t *testing.T) {
 	if err := bl.Delete(ctx, jobs.JobKey(id)); err != nil {
 		t.Errorf("Delete of nothing: %v", err)
 	}
+
+	// DeleteKey removes one key, not the keys under it, and deleting a
+	// missing or deleted key is no error.
+	file, under := jobs.SeriesKey(id, "state/000001.json"), jobs.SeriesKey(id, "state/000001.json/x")
+	for _, k := range []string{file, under} {
+		if err := bl.Put(ctx, k, strings.NewReader(big)); err != nil {
+			t.Fatal(err)
+		}
+	}
+	for range 2 {
+		if err := jobs.DeleteKey(ctx, bl, file); err != nil {
+			t.Fatal(err)
+		}
+	}
+	if _, err := bl.Get(ctx, file); !errors.Is(err, jobs.ErrNotFound) {
+		t.Errorf("Get after DeleteKey: %v, want not found", err)
+	}
+	if keys, _ := bl.Keys(ctx, ""); len(keys) != 1 || keys[0] != under {
+		t.Errorf("after DeleteKey: %v, want only %s", keys, under)
+	}
+	if err := bl.DeleteKey(ctx, jobs.SeriesKey(jobs.NewID(), "state/000001.json")); err != nil {
+		t.Errorf("DeleteKey of nothing: %v", err)
+	}
+	if err := bl.DeleteKey(ctx, "../x"); err == nil {
+		t.Error("DeleteKey with key ../x: no error")
+	}
 }
 
 // dequeue pulls one delivery before ctx ends, or returns nil.
