@@ -2,7 +2,9 @@ package runner
 
 import (
 	"context"
+	"fmt"
 	"runtime"
+	"runtime/debug"
 	"testing"
 
 	"github.com/mottledic/mottle/internal/heapwatch"
@@ -102,4 +104,39 @@ func BenchmarkStereoMemory(b *testing.B) {
 	b.ReportMetric(float64(job)/px, "stereo-B/px")
 	b.ReportMetric(float64(frame)/px, "stereo-frame-B/px")
 	b.ReportMetric(float64(job)/float64(twoD), "stereo/2D")
+}
+
+// BenchmarkAnalysisMemory measures the memory a 2D analysis job holds
+// while computed, its results encoded as the job does (the peak heap
+// above the two decoded images, per image pixel): the figure behind the
+// memory budget's charge of a job (pkg/service memory.go). With the
+// collector at GOGC 5 the heap holds little garbage, so its peak is close
+// to the live peak; GOGC 100 is the default. Subset 31 and the given
+// step on a rendered 4 px speckle, on one and two threads.
+func BenchmarkAnalysisMemory(b *testing.B) {
+	ctx := context.Background()
+	for _, c := range []struct{ size, step int }{{512, 16}, {512, 8}, {1024, 8}} {
+		ref, def, err := synth.Pair(synth.PatternOptions{Diameter: 4, Seed: 3}, synth.Translation{U: 2.4, V: -1.7},
+			synth.RenderOptions{W: c.size, H: c.size, Bits: 8})
+		if err != nil {
+			b.Fatal(err)
+		}
+		for _, threads := range []int{1, 2} {
+			for _, gogc := range []int{5, 100} {
+				b.Run(fmt.Sprintf("%dpx/step%d/threads%d/gogc%d", c.size, c.step, threads, gogc), func(b *testing.B) {
+					defer debug.SetGCPercent(debug.SetGCPercent(gogc))
+					var peak uint64
+					for b.Loop() {
+						peak = max(peak, measure(b, func() error {
+							p := analysis.Defaults()
+							p.Subset, p.Step = 31, c.step
+							_, err := Pipeline{}.Run(ctx, Input{Ref: ref, Def: def, Params: p, Threads: threads}, nil)
+							return err
+						}))
+					}
+					b.ReportMetric(float64(peak)/float64(c.size*c.size), "B/px")
+				})
+			}
+		}
+	}
 }

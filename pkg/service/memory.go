@@ -18,19 +18,23 @@ import (
 )
 
 // Bytes a job or an upload holds per pixel, for the memory budget. The job
-// figure is measured: the pipeline's live heap peaks at about 64 B/px of
-// the image above its two decoded float32 images (8 B/px) for the default
-// parameters (B-spline coefficients, gradients and the correlation's
-// buffers); 80 B/px leaves room for the stored image being decoded. A frame
-// also holds the previous frame. A stereo job or a frame of a stereo series
-// holds four decoded images and prepares one camera's pair at a time, on
-// the crop its points reach: BenchmarkStereoMemory (pkg/runner) measures
-// its peak, four images included, at 0.82–0.87 of a 2D analysis' on the
-// same 640×480 images in the same run (146 and 137 against 167 B/px), so
-// both are charged as a 2D analysis. See README, "Reliability".
+// figure is measured: BenchmarkAnalysisMemory (pkg/runner) puts the peak
+// heap of a 2D analysis, its results encoded, above its two decoded
+// float32 images (8 B/px) at 100–128 B/px in 11 of 12 runs and 139 once
+// with the collector at GOGC 5 (close to the live heap), and 138–175 B/px
+// at the default GOGC 100, on 512² and 1024² pairs at steps 8 and 16 on
+// one and two threads (B-spline coefficients, gradients and the
+// correlation's buffers). The charge, 144 B/px, is the images and the
+// live peak. A frame also holds the previous frame (16 B/px more). A
+// stereo job or a frame of a stereo series holds four decoded images and
+// prepares one camera's pair at a time, on the crop its points reach:
+// BenchmarkStereoMemory (pkg/runner) measures its peak, four images
+// included, at 0.82–0.87 of a 2D analysis' on the same 640×480 images in
+// the same run (146 and 137 against 167 B/px), so both are charged as a
+// 2D analysis. See README, "Reliability".
 const (
-	jobBytesPerPixel   = 80
-	frameBytesPerPixel = 96
+	jobBytesPerPixel   = 144
+	frameBytesPerPixel = 160
 	maskBytesPerPixel  = 4
 	// decodeBytesPerPixel is the float32 image plus its upright turn;
 	// the decoder's own pixels are added by colour model (srcBytes).

@@ -105,12 +105,12 @@ func procStatus(t *testing.T, pid int, field string) int64 {
 // TestMemoryBudget sends six concurrent uploads of 1500×1500 px pairs to
 // a server process with four workers, running the real pipeline, under
 // GOMEMLIMIT=400MiB and the budget derived from it (300 MiB). Each job
-// needs about 180 MiB by the service's estimate, so at most one computes
-// at a time and the uploads wait for each other. Every upload is accepted
+// needs about 310 MiB by the service's estimate, more than the budget, so
+// it takes all of it and computes alone, and the uploads wait for it. Every upload is accepted
 // or answered 503 with Retry-After, every accepted job succeeds, the
 // budget is never exceeded, and the process's peak resident memory stays
 // under the Go memory limit plus a fixed margin for the runtime and the
-// binary. (A 60 Mpx pair would hold 4.8 GB a job the same way; the test
+// binary. (A 60 Mpx pair would hold 8.6 GB a job the same way; the test
 // keeps CI's images small.) The same uploads without a budget are run
 // for the log, as the baseline of the figure in README.
 func TestMemoryBudget(t *testing.T) {
