@@ -67,11 +67,12 @@ func benchRunOpt(b *testing.B, opt Options, tun tuning) {
 	var points, iters, okPts int
 	var peak uint64
 	var mallocs uint64
-	var cpu time.Duration
+	var cpu, wait time.Duration
 	for b.Loop() {
 		b.StopTimer()
 		runtime.GC() // peak below counts this run's memory, not earlier garbage
 		b.StartTimer()
+		w0 := runqueueWait()
 		c0 := cpuTime()
 		runtime.ReadMemStats(&ms)
 		m0 := ms.Mallocs
@@ -80,6 +81,7 @@ func benchRunOpt(b *testing.B, opt Options, tun tuning) {
 		res, err := runWith(context.Background(), ref, def, opt, tun)
 		close(stop)
 		cpu += cpuTime() - c0
+		wait += runqueueWait() - w0
 		if err != nil {
 			b.Fatal(err)
 		}
@@ -100,6 +102,13 @@ func benchRunOpt(b *testing.B, opt Options, tun tuning) {
 	px := float64(ref.W * ref.H)
 	b.ReportMetric(float64(points)/b.Elapsed().Seconds(), "points/s")
 	b.ReportMetric(float64(points)/cpu.Seconds(), "points/cpu-s")
+	// cpus is the mean number of cores the run kept busy (CPU time over
+	// wall time) and rqwait% the time its threads were ready but waiting
+	// for a core, per cent of the wall time: a run on cores of its own
+	// has rqwait% near 0, and only then are points/s and their 1→2-thread
+	// ratio figures of the program rather than of the machine's load.
+	b.ReportMetric(cpu.Seconds()/b.Elapsed().Seconds(), "cpus")
+	b.ReportMetric(100*wait.Seconds()/b.Elapsed().Seconds(), "rqwait%")
 	b.ReportMetric(float64(iters)/float64(okPts), "iter/point")
 	b.ReportMetric(float64(mallocs)/float64(points), "allocs/point")
 	b.ReportMetric(float64(peak-min(peak, base))/px, "peakB/px")
@@ -204,8 +213,8 @@ func BenchmarkSolve(b *testing.B) {
 }
 
 // BenchmarkSeedSearch times the integer search at a seed (subset 31,
-// radius 40, one thread) on the BenchmarkRun1024 pair: ns per shift tried
-// (wall and CPU). BenchmarkSeedSearchDirect forces the direct dot
+// radius 40, on GOMAXPROCS threads as in a Run: -cpu 1,2 for both) on the
+// BenchmarkRun1024 pair: ns per shift tried (wall and CPU). BenchmarkSeedSearchDirect forces the direct dot
 // products, the baseline of the FFT path, to be measured in the same run.
 func BenchmarkSeedSearch(b *testing.B)       { benchSeedSearch(b, false) }
 func BenchmarkSeedSearchDirect(b *testing.B) { benchSeedSearch(b, true) }
@@ -233,7 +242,7 @@ func benchSeedSearch(b *testing.B, direct bool) {
 	var sr searchResult
 	c0 := cpuTime()
 	for b.Loop() {
-		sr, _ = searchWith(context.Background(), def, t, m, x, y, r, 1, direct)
+		sr, _ = searchWith(context.Background(), def, t, m, x, y, r, runtime.GOMAXPROCS(0), direct)
 	}
 	cpu := cpuTime() - c0
 	if !sr.ok || sr.du != 4 && sr.du != 5 {

@@ -3,6 +3,7 @@ package correlate
 import (
 	"cmp"
 	"context"
+	"math"
 	"runtime"
 	"slices"
 	"syscall"
@@ -139,7 +140,7 @@ func BenchmarkRun1024Model(b *testing.B) {
 			switch p.name {
 			case "propagate":
 				prop, prop0 = p.at-prev, prev
-			case "finish":
+			case "seeds", "finish":
 				serial += p.at - prev
 				t1 += p.at - prev
 				t2 += p.at - prev
@@ -198,4 +199,98 @@ func BenchmarkRun1024Model(b *testing.B) {
 	b.ReportMetric(100*float64(excess)/float64(t1), "crit%")
 	b.ReportMetric(float64(points)/float64(batches), "points/batch")
 	b.ReportMetric(float64(short)/float64(b.N), "short-batches/run")
+}
+
+// BenchmarkRun1024Contention measures what running the second worker
+// costs the first through the hardware they share (caches, memory
+// bandwidth, a physical core's execution units if the two CPUs are
+// hyperthreads of one core), independently of the machine's load. Each
+// round computes the BenchmarkRun1024 pair on one thread and then on
+// two, every item timed by its thread's CPU clock. A point is computed
+// the same way on one thread and on two (the same starting guesses and
+// iterations), so the CPU time of an item of the two-thread run over the
+// same point's time in the one-thread run is its slow-down. Only items
+// that kept their CPU throughout (CPU time at least 95 % of the wall
+// time) are compared, split by what the other worker did meanwhile:
+// co-run (it was computing and on a CPU the whole time) or alone (it
+// computed nothing). contention is the ratio of the two medians: 1 when
+// the two workers do not slow each other down, about 1.6–2 for
+// hyperthreads of one core on this floating-point work.
+func BenchmarkRun1024Contention(b *testing.B) {
+	ref, def := benchImages(b)
+	runtime.LockOSThread()
+	defer runtime.UnlockOSThread()
+	type rec struct {
+		w      int32
+		t0, t1 time.Duration
+		cpu    time.Duration
+	}
+	held := func(x rec) bool { return float64(x.cpu) >= 0.95*float64(x.t1-x.t0) }
+	collect := func(th int) map[int32]rec {
+		runtime.GC()
+		tr := &poolTrace{clock: threadCPU}
+		if _, err := runWith(context.Background(), ref, def, Options{Subset: 31, Step: 8, Threads: th}, tuning{trace: tr}); err != nil {
+			b.Fatal(err)
+		}
+		out := map[int32]rec{}
+		for _, bt := range tr.batches {
+			for k, it := range bt.item {
+				out[it.idx] = rec{it.w, it.t0, it.t1, bt.cost[k]}
+			}
+		}
+		return out
+	}
+	// cover returns how much of [a, b) the spans s (sorted by start, not
+	// overlapping) cover.
+	type span struct{ t0, t1 time.Duration }
+	cover := func(s []span, a, b time.Duration) time.Duration {
+		i, _ := slices.BinarySearchFunc(s, a, func(x span, t time.Duration) int { return cmp.Compare(x.t1, t) })
+		var c time.Duration
+		for ; i < len(s) && s[i].t0 < b; i++ {
+			c += min(s[i].t1, b) - max(s[i].t0, a)
+		}
+		return max(c, 0)
+	}
+	var co, alone []float64
+	for b.Loop() {
+		one, two := collect(1), collect(2)
+		var all, kept [2][]span
+		for _, x := range two {
+			all[x.w] = append(all[x.w], span{x.t0, x.t1})
+			if held(x) {
+				kept[x.w] = append(kept[x.w], span{x.t0, x.t1})
+			}
+		}
+		for w := range all {
+			for _, s := range [][]span{all[w], kept[w]} {
+				slices.SortFunc(s, func(p, q span) int { return cmp.Compare(p.t0, q.t0) })
+			}
+		}
+		for idx, x := range two {
+			o, ok := one[idx]
+			if !ok || !held(x) || !held(o) || o.cpu <= 0 {
+				continue
+			}
+			d, other := x.t1-x.t0, 1-x.w
+			ratio := float64(x.cpu) / float64(o.cpu)
+			switch {
+			case cover(kept[other], x.t0, x.t1) >= d*95/100:
+				co = append(co, ratio)
+			case cover(all[other], x.t0, x.t1) == 0:
+				alone = append(alone, ratio)
+			}
+		}
+	}
+	med := func(x []float64) float64 {
+		if len(x) == 0 {
+			return math.NaN()
+		}
+		slices.Sort(x)
+		return x[len(x)/2]
+	}
+	b.ReportMetric(med(co), "co-run-slowdown")
+	b.ReportMetric(med(alone), "alone-slowdown")
+	b.ReportMetric(med(co)/med(alone), "contention")
+	b.ReportMetric(float64(len(co))/float64(b.N), "co-run-items/round")
+	b.ReportMetric(float64(len(alone))/float64(b.N), "alone-items/round")
 }

@@ -161,8 +161,15 @@ func (r *run) compute1(g uint64, k, w int) {
 		if tw.n == 0 {
 			tw.first = t
 		}
+		var w0 time.Duration
+		if tr.clock != nil {
+			w0 = time.Since(tr.t0)
+		}
 		r.compute(r.solvers[w], w, it)
 		tw.last = tr.now()
+		if tr.clock != nil {
+			tb.item[k] = traceItem{idx: it.idx, w: int32(w), t0: w0, t1: time.Since(tr.t0)}
+		}
 		tb.cost[k] = tw.last - t
 		tw.busy += tb.cost[k]
 		tw.n++
@@ -174,6 +181,12 @@ func (r *run) compute1(g uint64, k, w int) {
 // closes.
 func (r *run) worker(w int) {
 	p := &r.pool
+	if tr := r.tun.trace; tr != nil && tr.clock != nil {
+		// A thread clock times an item only if the goroutine stays on
+		// its thread.
+		runtime.LockOSThread()
+		defer runtime.UnlockOSThread()
+	}
 	for {
 		if g, k, ok := p.take(); ok {
 			r.compute1(g, k, w)
@@ -213,7 +226,7 @@ func (r *run) startBatch(items []item) uint64 {
 	var tb *traceBatch
 	if tr := r.tun.trace; tr != nil {
 		tr.batches = append(tr.batches, &traceBatch{n: len(items), send: tr.now(),
-			w: make([]traceWorker, r.threads), cost: make([]time.Duration, len(items))})
+			w: make([]traceWorker, r.threads), cost: make([]time.Duration, len(items)), item: make([]traceItem, len(items))})
 		tb = tr.batches[len(tr.batches)-1]
 	}
 	return r.pool.publish(items, tb)

@@ -201,6 +201,7 @@ func (r *run) propagateAll(ctx context.Context, seeds []int) error {
 		}
 		progress()
 	}
+	r.tun.trace.mark("seeds")
 
 	tried := map[int]bool{}
 	for {

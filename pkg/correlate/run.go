@@ -150,16 +150,21 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning
 			return nil, fmt.Errorf("correlate: deformed image: %w", err)
 		}
 	}
+	tr := tun.trace
+	tr.mark("check")
 	var err error
 	if r.refSp, err = spline.NewContext(ctx, r.ref, opt.Interp, r.threads); err != nil {
 		return nil, fmt.Errorf("correlate: reference image: %w", err)
 	}
+	tr.mark("refSpline")
 	if r.defSp, err = spline.NewContext(ctx, r.def, opt.Interp, r.threads); err != nil {
 		return nil, fmt.Errorf("correlate: deformed image: %w", err)
 	}
+	tr.mark("defSpline")
 	if r.gx, r.gy, err = r.refSp.SampleGradients(ctx, r.threads); err != nil {
 		return nil, err
 	}
+	tr.mark("gradients")
 
 	minStd := 0.01 * maskStd(r.ref, r.mask, r.threads)
 	r.minStd = minStd

@@ -37,6 +37,15 @@ type traceBatch struct {
 	send, done time.Duration
 	w          []traceWorker
 	cost       []time.Duration // time of each item, in batch order
+	item       []traceItem     // each item's point, worker and wall-clock span (clocked traces only)
+}
+
+// traceItem is one item of a clocked trace: its point, the worker that
+// computed it and when, by the wall clock, from the start of the run.
+type traceItem struct {
+	idx    int32
+	w      int32
+	t0, t1 time.Duration
 }
 
 // traceWorker is one worker's share of a batch: the start of its first
