@@ -34,8 +34,8 @@ type searchResult struct {
 // ZNCC of tmpl (side 2m+1, zero mean, unit norm) against img at centre
 // (cx+du, cy+dv). Shifts that put the window off the image are skipped.
 // The direct dot products are split by rows of shifts over up to threads
-// goroutines; the FFT path, taken when it is cheaper (a choice by sizes
-// alone), runs on the calling goroutine. The result does not depend on
+// goroutines, and so are the transforms of the FFT path, taken when it is
+// cheaper (a choice by sizes alone). The result does not depend on
 // threads.
 func searchInteger(ctx context.Context, img *imageio.Gray, tmpl []float64, m, cx, cy, r, threads int) searchResult {
 	sr, _ := searchWith(ctx, img, tmpl, m, cx, cy, r, threads, false)
@@ -61,7 +61,7 @@ func searchWith(ctx context.Context, img *imageio.Gray, tmpl []float64, m, cx, c
 	nx, ny, useFFT := w.fftSizes()
 	useFFT = useFFT && !direct
 	if useFFT {
-		w.numFFT(num, tmpl, nx, ny)
+		w.numFFT(num, tmpl, nx, ny, threads)
 	} else {
 		parallelFor(w.rows, threads, func(r0, r1 int) {
 			for ri := r0; ri < r1 && ctx.Err() == nil; ri++ {
@@ -161,52 +161,86 @@ func smooth235(n int) int {
 // numFFT fills num (rows×cols) with the dot products of tmpl with the
 // region at every shift, by the cross-correlation theorem on nx×ny
 // transforms (zero padding; nx ≥ rw and ny ≥ rh, so no valid shift
-// wraps around).
-func (w *searchWindow) numFFT(num, tmpl []float64, nx, ny int) {
-	rx, cy := fourier.NewFFT(nx), fourier.NewCmplxFFT(ny)
+// wraps around). With threads ≥ 2 the two forward transforms run at once
+// and the inverse is split by columns, then by rows; every 1-D transform
+// is the same whichever goroutine computes it, so num does not depend on
+// threads.
+func (w *searchWindow) numFFT(num, tmpl []float64, nx, ny, threads int) {
 	nc := nx/2 + 1
-	// spectrum returns the 2-D transform, column-major (nc columns of ny),
-	// of the h rows of width wd of src (stride wd), zero-padded.
-	row := make([]float64, nx)
-	coef := make([]complex128, nc)
-	col := make([]complex128, ny)
-	spectrum := func(src []float64, wd, h int) []complex128 {
-		out := make([]complex128, nc*ny)
-		for y := 0; y < h; y++ {
-			copy(row, src[y*wd:y*wd+wd])
-			clear(row[wd:])
-			rx.Coefficients(coef, row)
-			for u, c := range coef {
-				out[u*ny+y] = c
+	var R, T []complex128
+	if threads >= 2 {
+		done := make(chan struct{})
+		go func() {
+			T = newTransforms(nx, ny).spectrum(tmpl, w.side, w.side)
+			close(done)
+		}()
+		R = newTransforms(nx, ny).spectrum(w.reg, w.rw, w.rh)
+		<-done
+	} else {
+		f := newTransforms(nx, ny)
+		R = f.spectrum(w.reg, w.rw, w.rh)
+		T = f.spectrum(tmpl, w.side, w.side)
+	}
+	parallelFor(nc, threads, func(u0, u1 int) {
+		f := newTransforms(nx, ny)
+		for u := u0; u < u1; u++ {
+			c, t := R[u*ny:u*ny+ny], T[u*ny:u*ny+ny]
+			for i := range c {
+				c[i] *= complex(real(t[i]), -imag(t[i]))
+			}
+			f.cy.Sequence(f.col, c)
+			copy(c, f.col)
+		}
+	})
+	scale := 1 / float64(nx*ny)
+	parallelFor(w.rows, threads, func(y0, y1 int) {
+		f := newTransforms(nx, ny)
+		for y := y0; y < y1; y++ {
+			for u := 0; u < nc; u++ {
+				f.coef[u] = R[u*ny+y]
+			}
+			f.rx.Sequence(f.row, f.coef)
+			for x := 0; x < w.cols; x++ {
+				num[y*w.cols+x] = f.row[x] * scale
 			}
 		}
-		for u := 0; u < nc; u++ {
-			c := out[u*ny : u*ny+ny]
-			cy.Coefficients(col, c)
-			copy(c, col)
+	})
+}
+
+// transforms are the 1-D transforms of an nx×ny 2-D real FFT and their
+// scratch, for one goroutine (gonum's transforms keep work space).
+type transforms struct {
+	rx   *fourier.FFT
+	cy   *fourier.CmplxFFT
+	row  []float64
+	coef []complex128
+	col  []complex128
+}
+
+func newTransforms(nx, ny int) *transforms {
+	return &transforms{rx: fourier.NewFFT(nx), cy: fourier.NewCmplxFFT(ny),
+		row: make([]float64, nx), coef: make([]complex128, nx/2+1), col: make([]complex128, ny)}
+}
+
+// spectrum returns the 2-D transform, column-major (nx/2+1 columns of
+// ny), of the h rows of width wd of src (stride wd), zero-padded.
+func (f *transforms) spectrum(src []float64, wd, h int) []complex128 {
+	nc, ny := len(f.coef), len(f.col)
+	out := make([]complex128, nc*ny)
+	for y := 0; y < h; y++ {
+		copy(f.row, src[y*wd:y*wd+wd])
+		clear(f.row[wd:])
+		f.rx.Coefficients(f.coef, f.row)
+		for u, c := range f.coef {
+			out[u*ny+y] = c
 		}
-		return out
-	}
-	R := spectrum(w.reg, w.rw, w.rh)
-	T := spectrum(tmpl, w.side, w.side)
-	for i, t := range T {
-		R[i] *= complex(real(t), -imag(t))
 	}
 	for u := 0; u < nc; u++ {
-		c := R[u*ny : u*ny+ny]
-		cy.Sequence(col, c)
-		copy(c, col)
+		c := out[u*ny : u*ny+ny]
+		f.cy.Coefficients(f.col, c)
+		copy(c, f.col)
 	}
-	scale := 1 / float64(nx*ny)
-	for y := 0; y < w.rows; y++ {
-		for u := 0; u < nc; u++ {
-			coef[u] = R[u*ny+y]
-		}
-		rx.Sequence(row, coef)
-		for x := 0; x < w.cols; x++ {
-			num[y*w.cols+x] = row[x] * scale
-		}
-	}
+	return out
 }
 
 // dot returns Σ t[j·side+i]·g[j·stride+i] over a side×side window, with

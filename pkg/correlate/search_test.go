@@ -14,7 +14,8 @@ import (
 // rounding, and so finds the same shift: for templates cut from a speckle
 // image at a known offset, near the image border (clipped searches),
 // with radii on both sides of the switch between the paths, and for a
-// template of noise that matches nowhere well.
+// template of noise that matches nowhere well. Both paths give the same
+// bits on any number of threads.
 func TestSearchFFTMatchesDirect(t *testing.T) {
 	m := synth.Translation{U: 3, V: -5}
 	ref, def := pair(t, m, 200, 160, 8, 1, 4)
@@ -58,6 +59,13 @@ func TestSearchFFTMatchesDirect(t *testing.T) {
 		want, _ := searchWith(context.Background(), def, tm, c.half, c.x, c.y, c.r, 1, true)
 		got, fft := searchWith(context.Background(), def, tm, c.half, c.x, c.y, c.r, 1, false)
 		paths[fft]++
+		// The FFT path splits its transforms over threads; the same
+		// transforms in any order give the same bits.
+		for _, th := range []int{2, 3} {
+			if g, _ := searchWith(context.Background(), def, tm, c.half, c.x, c.y, c.r, th, false); g != got {
+				t.Errorf("%s: %d threads found %+v, one thread %+v", c.name, th, g, got)
+			}
+		}
 		if !want.ok || got.du != want.du || got.dv != want.dv || math.Abs(got.zncc-want.zncc) > 1e-9 {
 			t.Errorf("%s: FFT path found (%d, %d) ZNCC %.12f, direct (%d, %d) %.12f", c.name, got.du, got.dv, got.zncc, want.du, want.dv, want.zncc)
 		}
