@@ -510,6 +510,27 @@ func (s *Series) extensometer(e series.Extensometer, st *stereo.State, ok []bool
 	r.Eng = r.Stretch - 1
 	r.True = math.Log(r.Stretch)
 	r.Valid = true
+	if st != nil {
+		// The std of the strain: the ends' displacement std (per axis,
+		// interpolated as the positions are: an upper bound, since the
+		// neighbours' errors are correlated) along the extensometer's
+		// reference direction, the ends taken as independent (first-order
+		// propagation, JCGM 100:2008, 5.1; cross-axis covariances, which
+		// the state does not keep, are left out).
+		stdOf := func(k int) [3]float64 { return st.Points[k].Std }
+		sa, okA := s.positionAt(e.A, ok, stdOf)
+		sb, okB := s.positionAt(e.B, ok, stdOf)
+		if okA && okB {
+			var v float64
+			for i := range 3 {
+				n := (b0[i] - a0[i]) / r.L0
+				v += n * n * (sa[i]*sa[i] + sb[i]*sb[i])
+			}
+			if sd := math.Sqrt(v) / r.L0; sd > 0 {
+				r.EngStd = &sd
+			}
+		}
+	}
 	return r
 }
 
