@@ -28,7 +28,7 @@ func runWorker(ctx context.Context, e *env, args []string) error {
 			"a worker that dies has its job delivered to another after the acknowledgement deadline (ack_wait).")
 	backend := fs.String("backend", envOr("MOTTLE_BACKEND", ""), "NATS servers and options, as for mottle serve --backend (env MOTTLE_BACKEND)")
 	workers := fs.Int("workers", runtime.NumCPU(), "jobs computed at once")
-	threads := fs.Int("threads", 1, "threads each job uses (results never depend on it)")
+	threads := fs.Int("threads", 0, "threads each job uses; 0 = 1, and an analysis that starts while fewer jobs run than there are cores also takes the idle ones, as in mottle serve (results never depend on it)")
 	jobTimeout := fs.Duration("job-timeout", 30*time.Minute, "longest compute time of one job")
 	grace := fs.Duration("shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish before they are put back in the queue")
 	maxPixels := fs.Int64("max-pixels", imageio.DefaultMaxPixels, "largest image to decode, pixels")
@@ -44,8 +44,8 @@ func runWorker(ctx context.Context, e *env, args []string) error {
 		fmt.Fprintf(e.stderr, "mottle worker: --backend %q: give the NATS servers, e.g. --backend nats://127.0.0.1:4222\n", *backend)
 		return errUsage
 	}
-	if *workers < 1 || *threads < 1 {
-		fmt.Fprintf(e.stderr, "mottle worker: --workers %d, --threads %d: use at least 1\n", *workers, *threads)
+	if *workers < 1 || *threads < 0 {
+		fmt.Fprintf(e.stderr, "mottle worker: --workers %d, --threads %d: use at least 1 worker and 0 (idle cores) or more threads\n", *workers, *threads)
 		return errUsage
 	}
 	log := slog.New(slog.NewJSONHandler(e.stderr, nil))
