@@ -28,7 +28,7 @@ func (s *solver) prepare(xc, yc float64) Status {
 		return Outside
 	}
 	if onGrid && s.np == 6 {
-		return s.prepare1(ix, iy)
+		return s.prepare1fast(ix, iy)
 	}
 	return s.prepareAny(onGrid)
 }

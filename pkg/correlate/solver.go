@@ -21,6 +21,12 @@ type solver struct {
 	etas       []float64  // η of each row, four times
 	lastW      [4]float64 // weights of the last group of four pixels of a row
 	vout       [9][4]float64
+	// scratch of the vector prepare (prepare_simd.go)
+	etas8      []float64 // η of each row, eight times
+	lastBits8  uint8     // lanes of a row's last group of eight not in the group before
+	tailBits8  uint8     // the same for the last group of eight of the whole subset
+	pout       [31][8]float64
+	cc8        [3][8]float64 // m+1, 2(m+1)+1, (m+1)(m+2), eight times
 	lo         float64       // smallest allowed warped coordinate (edge margin)
 	defW       float64       // largest allowed warped x: W−1 − margin
 	defH       float64       // largest allowed warped y: H−1 − margin

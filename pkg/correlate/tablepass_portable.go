@@ -12,3 +12,6 @@ func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float
 }
 
 func (s *solver) initVector() {}
+
+// prepare1fast is the first-order grid-point prepare Run uses.
+func (s *solver) prepare1fast(ix, iy int) Status { return s.prepare1(ix, iy) }

@@ -187,6 +187,22 @@ func (s *solver) initVector() {
 			s.etas[4*j+l] = float64(j - s.m)
 		}
 	}
+	s.etas8 = make([]float64, 8*side)
+	for j := 0; j < side; j++ {
+		for l := 0; l < 8; l++ {
+			s.etas8[8*j+l] = float64(j - s.m)
+		}
+	}
+	cc := float64(s.m + 1)
+	for l := 0; l < 8; l++ {
+		s.cc8[0][l], s.cc8[1][l], s.cc8[2][l] = cc, 2*cc+1, cc*(cc+1)
+		if side-8+l >= side&^7 {
+			s.lastBits8 |= 1 << l
+		}
+		if s.n-8+l >= s.n&^7 {
+			s.tailBits8 |= 1 << l
+		}
+	}
 	nv, last := side&^3, side-4
 	for l := range s.lastW {
 		if last+l >= nv {

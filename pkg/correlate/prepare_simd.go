@@ -1,0 +1,188 @@
+//go:build goexperiment.simd && amd64
+
+package correlate
+
+import (
+	"math"
+	"simd/archsimd"
+)
+
+// prepare1fast is the first-order grid-point prepare Run uses.
+func (s *solver) prepare1fast(ix, iy int) Status {
+	if vectorPass && !s.portable && 2*s.m+1 >= 8 {
+		return s.prepare1v(ix, iy)
+	}
+	return s.prepare1(ix, iy)
+}
+
+// prepare1v is prepare1 with vector instructions, eight columns of the
+// subset at a time: each lane walks down its column from the last row to
+// the first with hessian1's running sums (now in η: c0 += w, c1 += c0,
+// c2 += c1, no multiplications), for the weights w of the Hessian (fx²,
+// fx·fy, fy²) and those of Σ J f and Σ J (fx·f, fy·f, fx, fy); the moments
+// in η follow per lane as in addRow2, and the powers of ξ are applied once
+// per group of columns. The last group overlaps the one before unless the
+// side is a multiple of eight, its repeated lanes weighted by zero. The
+// sums differ from prepare1's by rounding only (another order, fused
+// multiply-adds), which TestPrepare1MatchesGeneral bounds. Each loop keeps
+// at most 14 vectors live (the compiler's register set), and, as in
+// pass1v, no scalar floating-point instruction runs between the first
+// vector instruction and ClearAVXUpperBits.
+func (s *solver) prepare1v(ix, iy int) Status {
+	m := s.m
+	side := 2*m + 1
+	last := side - 8
+	stride, w := s.ref.Stride, s.ref.W
+	pixAll, gxAll, gyAll := s.ref.Pix, s.gx, s.gy
+	xis := s.xis[:side]
+	fAll, fxAll, fyAll := s.f[:s.n], s.fx[:s.n], s.fy[:s.n]
+	lastMask := archsimd.Mask64x8FromBits(s.lastBits8)
+	ccv := s.cc8
+	cc := archsimd.LoadFloat64x8(&ccv[0])  // m + 1
+	cc2 := archsimd.LoadFloat64x8(&ccv[1]) // 2(m+1) + 1
+	cc3 := archsimd.LoadFloat64x8(&ccv[2]) // (m+1)(m+2)
+	out := &s.pout
+	// out[q][l]: lane sums. 0: Σf; 1–6, 7–12, 13–18: Σ w·(1, ξ, ξ², η,
+	// ξη, η²) for fx², fx fy, fy²; 19–21, 22–24, 25–27, 28–30: Σ w·(1, ξ,
+	// η) for fx f, fy f, fx, fy.
+	*out = [31][8]float64{}
+	for g := 0; g < side; g += 8 {
+		full := true
+		if g > last {
+			g, full = last, false
+		}
+		xi := archsimd.LoadFloat64x8Slice(xis[g:])
+		// Pass 1: copy, and the Hessian's weights.
+		var a0, a1, a2, b0, b1, b2, c0, c1, c2 archsimd.Float64x8
+		for j := side - 1; j >= 0; j-- {
+			o := (iy+j-m)*stride + ix - m + g
+			po := (iy+j-m)*w + ix - m + g
+			k := j*side + g
+			v := archsimd.LoadFloat32x8Slice(pixAll[o : o+8]).ConvertToFloat64()
+			gx := archsimd.LoadFloat32x8Slice(gxAll[po : po+8]).ConvertToFloat64()
+			gy := archsimd.LoadFloat32x8Slice(gyAll[po : po+8]).ConvertToFloat64()
+			v.StoreSlice(fAll[k : k+8])
+			gx.StoreSlice(fxAll[k : k+8])
+			gy.StoreSlice(fyAll[k : k+8])
+			if !full {
+				gx, gy = gx.Masked(lastMask), gy.Masked(lastMask)
+			}
+			a0 = gx.MulAdd(gx, a0)
+			a1 = a1.Add(a0)
+			a2 = a2.Add(a1)
+			b0 = gx.MulAdd(gy, b0)
+			b1 = b1.Add(b0)
+			b2 = b2.Add(b1)
+			c0 = gy.MulAdd(gy, c0)
+			c1 = c1.Add(c0)
+			c2 = c2.Add(c1)
+		}
+		colMoments((*[6][8]float64)(out[1:7]), a0, a1, a2, xi, cc, cc2, cc3)
+		colMoments((*[6][8]float64)(out[7:13]), b0, b1, b2, xi, cc, cc2, cc3)
+		colMoments((*[6][8]float64)(out[13:19]), c0, c1, c2, xi, cc, cc2, cc3)
+		// Pass 2: Σf and the weights of Σ J f and Σ J.
+		var rs, p0, p1, q0, q1, u0, u1, w0, w1 archsimd.Float64x8
+		for j := side - 1; j >= 0; j-- {
+			k := j*side + g
+			v := archsimd.LoadFloat64x8Slice(fAll[k : k+8])
+			gx := archsimd.LoadFloat64x8Slice(fxAll[k : k+8])
+			gy := archsimd.LoadFloat64x8Slice(fyAll[k : k+8])
+			if !full {
+				v, gx, gy = v.Masked(lastMask), gx.Masked(lastMask), gy.Masked(lastMask)
+			}
+			rs = rs.Add(v)
+			p0 = gx.MulAdd(v, p0)
+			p1 = p1.Add(p0)
+			q0 = gy.MulAdd(v, q0)
+			q1 = q1.Add(q0)
+			u0 = u0.Add(gx)
+			u1 = u1.Add(u0)
+			w0 = w0.Add(gy)
+			w1 = w1.Add(w0)
+		}
+		archsimd.LoadFloat64x8(&out[0]).Add(rs).Store(&out[0])
+		colMoments1((*[3][8]float64)(out[19:22]), p0, p1, xi, cc)
+		colMoments1((*[3][8]float64)(out[22:25]), q0, q1, xi, cc)
+		colMoments1((*[3][8]float64)(out[25:28]), u0, u1, xi, cc)
+		colMoments1((*[3][8]float64)(out[28:31]), w0, w1, xi, cc)
+	}
+	archsimd.ClearAVXUpperBits()
+	var sum [31]float64
+	for q := range out {
+		o := &out[q]
+		sum[q] = ((o[0] + o[1]) + (o[2] + o[3])) + ((o[4] + o[5]) + (o[6] + o[7]))
+	}
+	n := float64(s.n)
+	s.fmean = sum[0] / n
+	fm := s.fmean
+	// Centre the samples, eight at a time (the last group of the subset
+	// overlaps the one before: its repeated lanes are centred once and
+	// weighted by zero in the sum of squares).
+	fmv := [8]float64{fm, fm, fm, fm, fm, fm, fm, fm}
+	f := s.f[:s.n]
+	lastAll := s.n - 8
+	fm8 := archsimd.LoadFloat64x8(&fmv)
+	var ss archsimd.Float64x8
+	for i := 0; i < len(f); i += 8 {
+		if i > lastAll {
+			i = lastAll
+			// Lanes below the previous group's end are centred already.
+			mk := archsimd.Mask64x8FromBits(s.tailBits8)
+			v := archsimd.LoadFloat64x8Slice(f[i:])
+			c := v.Sub(fm8).Masked(mk)
+			ss = c.MulAdd(c, ss)
+			v.Sub(fm8).Merge(v, mk).StoreSlice(f[i:])
+			break
+		}
+		c := archsimd.LoadFloat64x8Slice(f[i:]).Sub(fm8)
+		c.StoreSlice(f[i:])
+		ss = c.MulAdd(c, ss)
+	}
+	ss.Store(&out[0])
+	archsimd.ClearAVXUpperBits()
+	o := &out[0]
+	s.df = math.Sqrt(((o[0] + o[1]) + (o[2] + o[3])) + ((o[4] + o[5]) + (o[6] + o[7])))
+	if !(s.df > 0) || s.df/math.Sqrt(n) < s.minStd {
+		return LowContrast
+	}
+	hxx := [3][3]float64{{sum[1], sum[4], sum[6]}, {sum[2], sum[5]}, {sum[3]}}
+	hxy := [3][3]float64{{sum[7], sum[10], sum[12]}, {sum[8], sum[11]}, {sum[9]}}
+	hyy := [3][3]float64{{sum[13], sum[16], sum[18]}, {sum[14], sum[17]}, {sum[15]}}
+	var h [144]float64
+	s.setHessian1(&h, &hxx, &hxy, &hyy)
+	// Σ J f̃ = Σ J f − f̄ Σ J, in the order of pow1: (1, ξ, η).
+	for a := 0; a < 3; a++ {
+		s.sj[a], s.sj[3+a] = sum[25+a], sum[28+a]
+		s.b0[a] = sum[19+a] - fm*sum[25+a]
+		s.b0[3+a] = sum[22+a] - fm*sum[28+a]
+	}
+	for a := 6; a < 12; a++ {
+		s.b0[a], s.sj[a] = 0, 0
+	}
+	return s.factor(&h)
+}
+
+// colMoments adds to d[0..5] the moments Σ w·(1, ξ, ξ², η, ξη, η²) of the
+// columns of one group, from the running sums s0 = Σ w, c1 = Σ (j+1) w,
+// c2 = Σ (j+1)(j+2)/2 w down each column (j = 0 … 2m, η = j − m) as in
+// addRow2, and the columns' ξ; cc = m + 1, cc2 = 2cc + 1, cc3 = cc(cc+1).
+func colMoments(d *[6][8]float64, s0, c1, c2, xi, cc, cc2, cc3 archsimd.Float64x8) {
+	s1 := c1.Sub(cc.Mul(s0))                           // Σ η w
+	s2 := c2.Add(c2).Sub(cc2.Mul(s1)).Sub(cc3.Mul(s0)) // Σ η² w
+	t := xi.Mul(s0)
+	archsimd.LoadFloat64x8(&d[0]).Add(s0).Store(&d[0])
+	archsimd.LoadFloat64x8(&d[1]).Add(t).Store(&d[1])
+	t.MulAdd(xi, archsimd.LoadFloat64x8(&d[2])).Store(&d[2])
+	archsimd.LoadFloat64x8(&d[3]).Add(s1).Store(&d[3])
+	s1.MulAdd(xi, archsimd.LoadFloat64x8(&d[4])).Store(&d[4])
+	archsimd.LoadFloat64x8(&d[5]).Add(s2).Store(&d[5])
+}
+
+// colMoments1 is colMoments for Σ w·(1, ξ, η), from s0 = Σ w and
+// c1 = Σ (j+1) w.
+func colMoments1(d *[3][8]float64, s0, c1, xi, cc archsimd.Float64x8) {
+	s1 := c1.Sub(cc.Mul(s0))
+	archsimd.LoadFloat64x8(&d[0]).Add(s0).Store(&d[0])
+	s0.MulAdd(xi, archsimd.LoadFloat64x8(&d[1])).Store(&d[1])
+	archsimd.LoadFloat64x8(&d[2]).Add(s1).Store(&d[2])
+}
