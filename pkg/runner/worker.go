@@ -240,6 +240,9 @@ const framePoll = 50 * time.Millisecond
 // once the rules of solveAhead allow it, and the waits start again after
 // the solve. It reports whether the job may run.
 func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
+	wctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	done := s.framesDone(wctx, id)
 	start := s.clock.Now()
 	beat := start
 	var idle time.Time // since when the previous frame has been seen not running
@@ -279,9 +282,40 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 		select {
 		case <-ctx.Done():
 			return false
+		case <-done:
 		case <-s.clock.After(wait):
 		}
 	}
+}
+
+// framesDone returns a channel that receives when a frame of job id's
+// series finishes, until ctx ends: the frame gate looks again at once
+// rather than at its next poll, so that the hand-over from a frame to the
+// next, solved ahead and waiting, does not wait for the poll interval.
+// It returns nil (a channel that never receives: the gate polls only)
+// for a job that is not a later frame of a series, or when the store
+// cannot watch the series.
+func (s *Runner) framesDone(ctx context.Context, id string) <-chan struct{} {
+	j, err := s.store.Job(ctx, id)
+	if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
+		return nil
+	}
+	w, err := s.store.Watch(ctx, j.Series)
+	if err != nil {
+		return nil
+	}
+	out := make(chan struct{}, 1)
+	go func() {
+		for f := range w {
+			if f.FrameIndex < j.FrameIndex && f.State.Terminal() {
+				select {
+				case out <- struct{}{}:
+				default: // a look is due already
+				}
+			}
+		}
+	}()
+	return out
 }
 
 // yieldLook is how often a held frame looks whether it should give its
