@@ -1,10 +1,12 @@
 package correlate
 
 import (
+	"cmp"
 	"context"
 	"encoding/json"
 	"errors"
 	"math"
+	"slices"
 	"strings"
 	"testing"
 
@@ -205,5 +207,62 @@ func TestEstimateNoise(t *testing.T) {
 	s, err := EstimateNoise(imgs[0], imgs[1], nil)
 	if err != nil || math.Abs(s/50-1) > 0.05 {
 		t.Errorf("EstimateNoise = %v, %v; want 50 ± 5 %%", s, err)
+	}
+}
+
+// seedCandidates picks the 25 pending points nearest the centroid of the
+// pending points, nearest first, ties by index (then reorders them by
+// texture): the same set as sorting every pending point. On the whole grid
+// the distances tie in groups of four or eight, so the 25th place is shared
+// and the index decides; a second case leaves an irregular pending set.
+func TestSeedCandidatesNearest(t *testing.T) {
+	ref, def := pair(t, synth.Translation{U: 1.5, V: -0.5}, 160, 128, 8, 1, 3)
+	tied := false
+	for _, irregular := range []bool{false, true} {
+		r, err := newRun(context.Background(), ref, def, Options{Subset: 15, Step: 4, Threads: 1}, tuning{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		defer r.stop()
+		if err := r.setupGrid(); err != nil {
+			t.Fatal(err)
+		}
+		for k := range r.state {
+			if irregular && r.state[k] == stPending && (k%7 == 0 || k%11 == 3) {
+				r.state[k] = stDone
+			}
+		}
+		var cx, cy, n float64
+		var all []int
+		for k, s := range r.state {
+			if s == stPending {
+				cx += r.pts[k].X
+				cy += r.pts[k].Y
+				n++
+				all = append(all, k)
+			}
+		}
+		cx, cy = cx/n, cy/n
+		d := func(k int) float64 {
+			dx, dy := r.pts[k].X-cx, r.pts[k].Y-cy
+			return dx*dx + dy*dy
+		}
+		slices.SortFunc(all, func(a, b int) int {
+			if c := cmp.Compare(d(a), d(b)); c != 0 {
+				return c
+			}
+			return cmp.Compare(a, b)
+		})
+		tied = tied || d(all[24]) == d(all[25])
+		want := slices.Clone(all[:25])
+		got := r.seedCandidates(-1)
+		slices.Sort(want)
+		slices.Sort(got)
+		if !slices.Equal(got, want) {
+			t.Errorf("irregular %v: candidates %v, want the 25 nearest %v", irregular, got, want)
+		}
+	}
+	if !tied {
+		t.Error("no case has a tie at the 25th place: the test does not check the order of ties")
 	}
 }
