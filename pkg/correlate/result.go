@@ -2,7 +2,8 @@ package correlate
 
 import (
 	"math"
-	"sort"
+	"math/bits"
+	"slices"
 
 	"github.com/mottledic/mottle/pkg/spline"
 )
@@ -115,15 +116,67 @@ func (r *run) finish(res *Result) {
 	}
 }
 
-// median returns the median of v, reordering v.
+// median returns the median of v, reordering v: the middle value, or the
+// mean of the two middle values, of v sorted. It selects them instead of
+// sorting (finish is serial work of every run: three sorts of 15,000
+// values took about 4 ms on a 1024² grid); v must hold no NaN.
 func median(v []float64) float64 {
 	if len(v) == 0 {
 		return 0
 	}
-	sort.Float64s(v)
 	h := len(v) / 2
+	selectKth(v, h)
 	if len(v)%2 == 1 {
 		return v[h]
 	}
-	return (v[h-1] + v[h]) / 2
+	// v[h] is the (h+1)-th smallest and v[:h] holds the h smaller ones.
+	return (slices.Max(v[:h]) + v[h]) / 2
+}
+
+// selectKth reorders v so that v[k] is the value it would have if v were
+// sorted, with no larger value before it and no smaller one after it
+// (Hoare's selection with a median-of-three pivot; a range that does not
+// shrink fast enough is sorted instead).
+func selectKth(v []float64, k int) {
+	lo, hi := 0, len(v)-1
+	for budget := 2 * bits.Len(uint(len(v))); hi > lo; budget-- {
+		if budget == 0 {
+			slices.Sort(v[lo : hi+1])
+			return
+		}
+		m := lo + (hi-lo)/2
+		if v[m] < v[lo] {
+			v[m], v[lo] = v[lo], v[m]
+		}
+		if v[hi] < v[lo] {
+			v[hi], v[lo] = v[lo], v[hi]
+		}
+		if v[hi] < v[m] {
+			v[hi], v[m] = v[m], v[hi]
+		}
+		p := v[m]
+		i, j := lo, hi
+		for i <= j {
+			for v[i] < p {
+				i++
+			}
+			for v[j] > p {
+				j--
+			}
+			if i <= j {
+				v[i], v[j] = v[j], v[i]
+				i++
+				j--
+			}
+		}
+		// Now v[lo:j+1] ≤ p ≤ v[i:hi+1] and v[j+1:i] == p.
+		switch {
+		case k <= j:
+			hi = j
+		case k >= i:
+			lo = i
+		default:
+			return
+		}
+	}
 }
