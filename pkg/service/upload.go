@@ -26,11 +26,10 @@ const maxCalibrationBytes = 8 << 20
 
 // upload is a parsed multipart submission.
 type upload struct {
-	raw     map[string][]byte        // encoded images by part name
-	files   map[string]string        // file names of the parts that gave one
-	img     map[string]*imageio.Gray // decoded images by part name
-	params  []byte
-	hasJSON bool
+	raw    map[string][]byte        // encoded images by part name
+	files  map[string]string        // file names of the parts that gave one
+	img    map[string]*imageio.Gray // decoded images by part name
+	params []byte                   // the params part, nil without one
 	// calibration is the optional "calibration" part (a mottle-camera/1
 	// file) and calName its file name.
 	calibration []byte
@@ -101,31 +100,14 @@ func (s *Server) readMultipart(w http.ResponseWriter, r *http.Request, images []
 		name := part.FormName()
 		switch {
 		case name == "params":
-			if u.hasJSON {
-				return nil, problem(http.StatusBadRequest, "duplicate-part", "Duplicate part", "params given twice", FieldProblem{"params", "give it once"})
+			if err := readPart(part, name, maxParamsBytes, "Parameters too large", &u.params); err != nil {
+				return nil, err
 			}
-			b, err := io.ReadAll(io.LimitReader(part, maxParamsBytes+1))
-			if err != nil {
-				return nil, bodyErr(err, "params")
-			}
-			if len(b) > maxParamsBytes {
-				return nil, problem(http.StatusRequestEntityTooLarge, "params-too-large", "Parameters too large",
-					fmt.Sprintf("the params part exceeds %d bytes", maxParamsBytes), FieldProblem{"params", "too large"})
-			}
-			u.params, u.hasJSON = b, true
 		case name == "calibration":
-			if u.calibration != nil {
-				return nil, problem(http.StatusBadRequest, "duplicate-part", "Duplicate part", "calibration given twice", FieldProblem{"calibration", "give it once"})
+			if err := readPart(part, name, maxCalibrationBytes, "Calibration too large", &u.calibration); err != nil {
+				return nil, err
 			}
-			b, err := io.ReadAll(io.LimitReader(part, maxCalibrationBytes+1))
-			if err != nil {
-				return nil, bodyErr(err, "calibration")
-			}
-			if len(b) > maxCalibrationBytes {
-				return nil, problem(http.StatusRequestEntityTooLarge, "params-too-large", "Calibration too large",
-					fmt.Sprintf("the calibration part exceeds %d bytes", maxCalibrationBytes), FieldProblem{"calibration", "too large"})
-			}
-			u.calibration, u.calName = b, part.FileName()
+			u.calName = part.FileName()
 		case want[name]:
 			if _, dup := u.raw[name]; dup {
 				return nil, problem(http.StatusBadRequest, "duplicate-part", "Duplicate part", name+" given twice", FieldProblem{name, "give it once"})
@@ -277,16 +259,24 @@ func withCalibration(params []byte, u *upload) ([]byte, error) {
 // target, options…) into *dst, refusing a second part of that name and one
 // of more than maxParamsBytes with problem documents naming it.
 func readSmallPart(part *multipart.Part, name string, dst *[]byte) error {
+	return readPart(part, name, maxParamsBytes, "Part too large", dst)
+}
+
+// readPart reads the multipart part name into *dst (never nil after
+// it), refusing a second part of that name (*dst already set) and one of
+// more than limit bytes (413, with title) with problem documents naming
+// it.
+func readPart(part *multipart.Part, name string, limit int64, title string, dst *[]byte) error {
 	if *dst != nil {
 		return problem(http.StatusBadRequest, "duplicate-part", "Duplicate part", name+" given twice", FieldProblem{name, "give it once"})
 	}
-	b, err := io.ReadAll(io.LimitReader(part, maxParamsBytes+1))
+	b, err := io.ReadAll(io.LimitReader(part, limit+1))
 	if err != nil {
 		return bodyErr(err, name)
 	}
-	if len(b) > maxParamsBytes {
-		return problem(http.StatusRequestEntityTooLarge, "params-too-large", "Part too large",
-			fmt.Sprintf("the %s part exceeds %d bytes", name, maxParamsBytes), FieldProblem{name, "too large"})
+	if int64(len(b)) > limit {
+		return problem(http.StatusRequestEntityTooLarge, "params-too-large", title,
+			fmt.Sprintf("the %s part exceeds %d bytes", name, limit), FieldProblem{name, "too large"})
 	}
 	*dst = b
 	return nil
