@@ -36,7 +36,7 @@ import (
 
 // SolveKey is the blob key of the solution of frame n of a series.
 func SolveKey(seriesID string, n int) string {
-	return jobs.SeriesKey(seriesID, fmt.Sprintf("solved/%06d.json", n))
+	return jobs.SeriesKey(seriesID, fmt.Sprintf("solved/%06d.bin", n))
 }
 
 // solveAhead solves job id ahead of its turn when the rules above allow

@@ -269,8 +269,7 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 	meta := series.FrameMeta{Name: in.Name, Time: in.Time, Load: in.Load, Progress: in.Progress, Orientation: in.Orientation}
 	var sol *series.Solution
 	if in.Solved != nil {
-		sol = new(series.Solution)
-		if err := json.Unmarshal(in.Solved, sol); err != nil {
+		if sol, err = series.DecodeSolution(in.Solved); err != nil {
 			sol = nil // unreadable: correlate the frame in sequence
 		}
 	}
@@ -371,8 +370,7 @@ func (Pipeline) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
 	var guess *series.Solution
 	switch {
 	case in.Guess != nil:
-		guess = new(series.Solution)
-		if err := json.Unmarshal(in.Guess, guess); err != nil {
+		if guess, err = series.DecodeSolution(in.Guess); err != nil {
 			guess = nil
 		}
 	case in.GuessState != nil:
@@ -384,7 +382,7 @@ func (Pipeline) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
 	if err != nil {
 		return nil, err
 	}
-	b, err := json.Marshal(sol)
+	b, err := sol.MarshalBinary()
 	if err != nil {
 		return nil, fmt.Errorf("encode frame solution: %w", err)
 	}

@@ -80,3 +80,41 @@ func BenchmarkGuessDecode(b *testing.B) {
 		}
 	})
 }
+
+// BenchmarkSolutionCodec encodes and decodes the solution of a 512×512
+// frame at step 8 (3 600 points, solved values of a stretch) in the JSON
+// form of earlier versions and in the binary form the runner stores, in
+// the same run. Run with
+//
+//	go test -run '^$' -bench SolutionCodec ./pkg/series
+func BenchmarkSolutionCodec(b *testing.B) {
+	const n = 60
+	sol := &Solution{Grid: lattice{X0: 24, Y0: 24, Step: 8, Nx: n, Ny: n}}
+	for k := range n * n {
+		x, y := float64(24+8*(k%n)), float64(24+8*(k/n))
+		sol.Points = append(sol.Points, PointState{X: x*1.0123456789 + 0.3, Y: y*0.99654321 - 0.1,
+			F: [4]float64{1.0123456789, 1.3e-5, -2.1e-5, 0.99654321}, ZNCC: 0.99812345, StdU: 0.0123456, StdV: 0.0134567, Valid: true})
+	}
+	for _, c := range []struct {
+		name string
+		enc  func() ([]byte, error)
+	}{
+		{"json", func() ([]byte, error) { return json.Marshal(sol) }},
+		{"binary", sol.MarshalBinary},
+	} {
+		b.Run(c.name, func(b *testing.B) {
+			var size int
+			for range b.N {
+				data, err := c.enc()
+				if err != nil {
+					b.Fatal(err)
+				}
+				if _, err := DecodeSolution(data); err != nil {
+					b.Fatal(err)
+				}
+				size = len(data)
+			}
+			b.ReportMetric(float64(size), "bytes")
+		})
+	}
+}
