@@ -66,6 +66,18 @@ type Config struct {
 	spareThreads bool // JobThreads was left at 0: analysis jobs take idle cores
 }
 
+// WithDefaults returns c with its zero fields set to their documented
+// defaults, the one set of them: the service takes its worker count,
+// attempts, pixel limit, job timeout and shutdown grace from here.
+// JobThreads stays as it is (0: one thread, and the idle cores for a lone
+// analysis, decided when the runner is made).
+func (c Config) WithDefaults() Config {
+	threads := c.JobThreads
+	c.defaults()
+	c.JobThreads, c.spareThreads = threads, false
+	return c
+}
+
 func (c *Config) defaults() {
 	if c.Logger == nil {
 		c.Logger = slog.Default()

@@ -6,16 +6,18 @@ import (
 	"fmt"
 	"io/fs"
 	"log/slog"
-	"runtime"
 	"time"
 
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
+	"github.com/mottledic/mottle/pkg/runner"
 	"github.com/mottledic/mottle/pkg/service/access"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
-// Config configures a Server. Zero fields take the documented defaults.
+// Config configures a Server. Zero fields take the documented defaults;
+// Workers, MaxAttempts, MaxPixels, JobTimeout and ShutdownGrace take
+// those of runner.Config (runner.Config.WithDefaults).
 type Config struct {
 	// Backend keeps jobs; required (see package embedded for the default).
 	Backend *jobs.Backend
@@ -141,23 +143,19 @@ func (c *Config) defaults() {
 	if c.Logger == nil {
 		c.Logger = slog.Default()
 	}
-	if c.Workers <= 0 {
-		c.Workers = runtime.NumCPU()
-	}
+	// The runner's defaults, the one set of them.
+	rc := runner.Config{Workers: c.Workers, MaxAttempts: c.MaxAttempts, MaxPixels: c.MaxPixels,
+		JobTimeout: c.JobTimeout, ShutdownGrace: c.ShutdownGrace}.WithDefaults()
+	c.Workers, c.MaxAttempts, c.MaxPixels = rc.Workers, rc.MaxAttempts, rc.MaxPixels
+	c.JobTimeout, c.ShutdownGrace = rc.JobTimeout, rc.ShutdownGrace
 	if c.JobThreads < 0 {
 		c.JobThreads = 0
-	}
-	if c.MaxAttempts <= 0 {
-		c.MaxAttempts = 3
 	}
 	if c.MaxFramesInFlight <= 0 {
 		c.MaxFramesInFlight = 1
 	}
 	if c.MaxBodyBytes <= 0 {
 		c.MaxBodyBytes = 256 << 20
-	}
-	if c.MaxPixels <= 0 {
-		c.MaxPixels = imageio.DefaultMaxPixels
 	}
 	if c.MaxPoints <= 0 {
 		c.MaxPoints = 1_000_000
@@ -180,8 +178,6 @@ func (c *Config) defaults() {
 	def(&c.ReadTimeout, 2*time.Minute)
 	def(&c.WriteTimeout, 2*time.Minute)
 	def(&c.IdleTimeout, 2*time.Minute)
-	def(&c.JobTimeout, 30*time.Minute)
-	def(&c.ShutdownGrace, 30*time.Second)
 	def(&c.MemoryWait, 10*time.Second)
 	def(&c.BodyRateGrace, 10*time.Second)
 	if c.MinBodyRate == 0 {
