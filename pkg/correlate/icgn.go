@@ -54,7 +54,7 @@ func (s *solver) solve(p0 [12]float64) attempt {
 		case s.tab != nil && s.np == 6:
 			ok = s.pass1fast(&p, &sg, &sgg, &sfg, &sjg)
 		case s.tab != nil:
-			ok = s.pass2t(&p, &sg, &sgg, &sfg, &sjg)
+			ok = s.pass2fast(&p, &sg, &sgg, &sfg, &sjg)
 		case s.np == 6:
 			ok = s.pass1(&p, &sg, &sgg, &sfg, &sjg)
 		default:

@@ -21,6 +21,13 @@ type solver struct {
 	etas       []float64  // η of each row, four times
 	lastW      [4]float64 // weights of the last group of four pixels of a row
 	vout       [9][4]float64
+	// scratch of the second-order vector pass
+	rowDX, rowDY []int64   // fixed-point first differences at each row's start
+	etas2h       []float64 // η²/2 of each row, four times
+	lanes        [8]int64
+	lanes2       [8]int64
+	half4        [4]float64
+	vout2        [15][4]float64
 	// scratch of the vector prepare (prepare_simd.go)
 	etas8      []float64 // η of each row, eight times
 	lastBits8  uint8     // lanes of a row's last group of eight not in the group before

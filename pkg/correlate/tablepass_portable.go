@@ -15,3 +15,8 @@ func (s *solver) initVector() {}
 
 // prepare1fast is the first-order grid-point prepare Run uses.
 func (s *solver) prepare1fast(ix, iy int) Status { return s.prepare1(ix, iy) }
+
+// pass2fast is the second-order table pass Run uses.
+func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
+	return s.pass2t(p, sg, sgg, sfg, sjg)
+}

@@ -168,3 +168,110 @@ func TestVectorPrepareMatchesPortable(t *testing.T) {
 		r.stop()
 	}
 }
+
+// The second-order vector pass gives the sums of pass2t to float rounding
+// and reports leaving the usable area exactly when pass2t does, for random
+// second-order warps (some reaching past the image edges) and sides that
+// are not a multiple of four; a second-order run with it gives the
+// portable run's measurement.
+func TestVectorPass2MatchesPortable(t *testing.T) {
+	if !vectorPass {
+		t.Skip("this CPU has no AVX-512 and FMA: the vector pass is not used")
+	}
+	m := synth.Affine{F: [2][2]float64{{1.006, 0.003}, {-0.002, 0.996}}, CX: 120, CY: 110, U: 2.7, V: -1.4}
+	ref, def := pair(t, m, 240, 220, 8, 1, 11)
+	rng := rand.New(rand.NewPCG(7, 8))
+	var left int
+	for _, subset := range []int{21, 25, 31, 33} {
+		r, err := newRun(context.Background(), ref, def, Options{Subset: subset, Shape: Second, Threads: 1}, tuning{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := r.tabulate(context.Background(), 1<<30); err != nil {
+			t.Fatal(err)
+		}
+		s := r.solvers[0]
+		for trial := 0; trial < 300; trial++ {
+			xc, yc := float64(20+rng.IntN(200)), float64(20+rng.IntN(180))
+			if s.prepare(xc, yc) != OK {
+				continue
+			}
+			var p [12]float64
+			p[U], p[V] = 24*rng.Float64()-12, 24*rng.Float64()-12
+			for _, q := range []int{Ux, Uy, Vx, Vy} {
+				p[q] = 0.06*rng.Float64() - 0.03
+			}
+			for _, q := range []int{Uxx, Uxy, Uyy, Vxx, Vxy, Vyy} {
+				p[q] = 0.004*rng.Float64() - 0.002
+			}
+			var a, b [12]float64
+			var ag, agg, afg, bg, bgg, bfg float64
+			oka := s.pass2t(&p, &ag, &agg, &afg, &a)
+			okb := s.pass2v(&p, &bg, &bgg, &bfg, &b)
+			if oka != okb {
+				t.Fatalf("subset %d at (%v, %v), p %v: portable pass reports %v, vector pass %v", subset, xc, yc, p, oka, okb)
+			}
+			if !oka {
+				left++
+				continue
+			}
+			// As in TestVectorPassMatchesPortable: each term differs by
+			// about 1e-7·|g| times its weight.
+			n := float64(s.n)
+			delta := 1e-6 * (math.Abs(s.fmean) + 6*math.Sqrt(agg/n))
+			side := 2*s.m + 1
+			var wf, wj [12]float64
+			var jv [12]float64
+			for k := range s.f {
+				xi, eta := float64(k%side-s.m), float64(k/side-s.m)
+				s.jacobian(s.fx[k], s.fy[k], xi, eta, &jv)
+				for q := range jv {
+					wj[q] += math.Abs(jv[q])
+				}
+				wf[0] += math.Abs(s.f[k])
+			}
+			for _, d := range []struct {
+				name string
+				x, y float64
+				w    float64
+			}{{"Σg", ag, bg, n}, {"Σg²", agg, bgg, 12 * math.Sqrt(agg*n)}, {"Σf̃g", afg, bfg, wf[0]}} {
+				if math.Abs(d.x-d.y) > delta*d.w {
+					t.Fatalf("subset %d trial %d: %s portable %v, vector %v", subset, trial, d.name, d.x, d.y)
+				}
+			}
+			for q := 0; q < 12; q++ {
+				if math.Abs(a[q]-b[q]) > delta*wj[q] {
+					t.Fatalf("subset %d trial %d: ΣJg[%d] portable %v, vector %v, differ by more than %.2g", subset, trial, q, a[q], b[q], delta*wj[q])
+				}
+			}
+		}
+		r.stop()
+	}
+	t.Logf("%d warps left the usable area in both passes", left)
+	if left == 0 {
+		t.Error("no warp left the usable area: the edge case is not tested")
+	}
+	opt := Options{Subset: 25, Step: 6, Shape: Second}
+	v, err := runWith(context.Background(), ref, def, opt, tuning{})
+	if err != nil {
+		t.Fatal(err)
+	}
+	pt, err := runWith(context.Background(), ref, def, opt, tuning{portable: true})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var worst float64
+	for i, p := range v.Points {
+		q := pt.Points[i]
+		if p.Status != q.Status {
+			t.Fatalf("point %d: status %v with the vector pass, %v with the portable one", i, p.Status, q.Status)
+		}
+		if p.Status == OK {
+			worst = math.Max(worst, math.Hypot(p.P[U]-q.P[U], p.P[V]-q.P[V]))
+		}
+	}
+	t.Logf("%d points, largest displacement difference %.2g px", v.Stats.OK, worst)
+	if v.Stats.OK < v.Stats.Total/2 || worst > 5e-6 {
+		t.Errorf("%d of %d points, vector and portable passes differ by up to %.2g px, want ≤ 5e-6", v.Stats.OK, v.Stats.Total, worst)
+	}
+}
