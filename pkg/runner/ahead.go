@@ -75,9 +75,10 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 	in := SolveInput{Params: sr.Params, Threads: s.cfg.JobThreads}
 	// The guess: the nearest frame before n already solved, else the state
 	// after the last finished frame.
+	guess, from := guessNone, -1
 	for k := n - 1; k > max(0, n-sr.MaxInFlight-1) && in.Guess == nil; k-- {
 		if b, err := s.ReadBlob(bg, SolveKey(sr.ID, k)); err == nil {
-			in.Guess = b
+			in.Guess, guess, from = b, guessSolved, k
 		}
 	}
 	last, err := s.lastDone(bg, j)
@@ -93,6 +94,8 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 	if in.Guess == nil && last != nil {
 		if in.GuessState, err = s.ReadBlob(bg, StateKey(sr.ID, last.FrameIndex)); err != nil {
 			in.GuessState = nil
+		} else {
+			guess, from = guessState, last.FrameIndex
 		}
 	}
 
@@ -135,10 +138,17 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 		l.Warn("store frame solution", "error", err)
 		return false
 	}
-	s.metrics.solved(time.Since(start).Seconds())
-	l.Info("frame solved ahead", "seconds", time.Since(start).Seconds())
+	s.metrics.solved(time.Since(start).Seconds(), guess)
+	l.Info("frame solved ahead", "seconds", time.Since(start).Seconds(), "guess", guess, "guess_frame", from)
 	return true
 }
+
+// The sources of the guess of a frame solved ahead (Stats, the log).
+const (
+	guessSolved = "solution" // the solution of a frame before it
+	guessState  = "state"    // the series state after the last finished frame
+	guessNone   = "none"     // none: the seed search
+)
 
 // solveAheadHeld is solveAhead for a frame held since *held: the time a
 // solve takes does not count as held (Stats.HeldSeconds).
@@ -158,10 +168,18 @@ func (s *Runner) solvedFor(ctx context.Context, j *jobs.Job) []byte {
 	return b
 }
 
-// dropSolved removes the solution of frame j once j is in the series
-// state: later frames take their guess from that state.
+// dropSolved removes the solution of the frame before j once j is in the
+// series state. j's own solution stays until the next frame is added: a
+// frame solved ahead while the one before it is still being solved takes
+// its guess from it, a read of the binary solution instead of the series
+// state's JSON, which holds the same frame's points and four times the
+// bytes besides. The last frame's solution stays until the series is
+// deleted.
 func (s *Runner) dropSolved(ctx context.Context, j *jobs.Job) {
-	if err := jobs.DeleteKey(ctx, s.blobs, SolveKey(j.Series, j.FrameIndex)); err != nil && !errors.Is(err, jobs.ErrNotFound) {
+	if j.FrameIndex == 0 {
+		return
+	}
+	if err := jobs.DeleteKey(ctx, s.blobs, SolveKey(j.Series, j.FrameIndex-1)); err != nil && !errors.Is(err, jobs.ErrNotFound) {
 		s.log.Warn("remove frame solution", "job", j.ID, "error", err)
 	}
 }

@@ -230,6 +230,8 @@ func BenchmarkSeriesInFlight(b *testing.B) {
 				st.SolveSeconds += s.SolveSeconds
 				st.AddSeconds += s.AddSeconds
 				st.HeldSeconds += s.HeldSeconds
+				st.GuessState += s.GuessState
+				st.GuessNone += s.GuessNone
 				stop()
 				be.Close()
 			}
@@ -240,6 +242,8 @@ func BenchmarkSeriesInFlight(b *testing.B) {
 			b.ReportMetric(st.SolveSeconds/f, "solve-s/frame")
 			b.ReportMetric(st.AddSeconds/f, "add-s/frame")
 			b.ReportMetric(st.HeldSeconds/f, "held-s/frame")
+			b.ReportMetric(float64(st.GuessState)/f, "guess-state/frame")
+			b.ReportMetric(float64(st.GuessNone)/f, "guess-none/frame")
 		})
 	}
 }

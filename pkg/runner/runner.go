@@ -241,6 +241,11 @@ type Stats struct {
 	// finished, and SolveSeconds their compute time.
 	SolvedAhead  uint64
 	SolveSeconds float64
+	// GuessSolved, GuessState and GuessNone count the frames solved ahead
+	// by the source of their initial guess: the solution of a frame before
+	// them, the series state after the last finished frame, or none (the
+	// seed search).
+	GuessSolved, GuessState, GuessNone uint64
 	// AddedSolved counts the frames added to their series' state from a
 	// solution found ahead, and AddSeconds their compute time: the part
 	// of a frame done in frame order.
@@ -328,9 +333,17 @@ func (m *metrics) held(seconds float64) {
 	m.mu.Unlock()
 }
 
-func (m *metrics) solved(seconds float64) {
+func (m *metrics) solved(seconds float64, guess string) {
 	m.mu.Lock()
 	m.SolvedAhead++
 	m.SolveSeconds += seconds
+	switch guess {
+	case guessSolved:
+		m.GuessSolved++
+	case guessState:
+		m.GuessState++
+	default:
+		m.GuessNone++
+	}
 	m.mu.Unlock()
 }
