@@ -274,6 +274,14 @@ func (s *solver) hessian2m(h *[144]float64) {
 			}
 		}
 	}
+	s.setHessian2(h, &mw, &mb)
+}
+
+// setHessian2 fills the upper triangle of the second-order H, Σ J f̃ and
+// Σ J from the moments mw[q][a][b] = Σ w_q ξ^a η^b (a + b ≤ 4) of w = fx²,
+// fx fy, fy² and mb[q][a][b] (a + b ≤ 2) of fx f̃, fy f̃, fx, fy, and sets
+// sssig.
+func (s *solver) setHessian2(h *[144]float64, mw *[3][5][5]float64, mb *[4][3][3]float64) {
 	for p := 0; p < 12; p++ {
 		cp, tp := paramTerm[p][0], shapeMonomials[paramTerm[p][1]]
 		for q := p; q < 12; q++ {

@@ -30,7 +30,10 @@ func (s *solver) prepare(xc, yc float64) Status {
 	if onGrid && s.np == 6 {
 		return s.prepare1fast(ix, iy)
 	}
-	return s.prepareAny(onGrid)
+	if onGrid {
+		return s.prepare2fast(ix, iy)
+	}
+	return s.prepareAny(false)
 }
 
 // prepareAny is prepare for any centre (on the pixel grid or not, given

@@ -186,3 +186,254 @@ func colMoments1(d *[3][8]float64, s0, c1, xi, cc archsimd.Float64x8) {
 	s0.MulAdd(xi, archsimd.LoadFloat64x8(&d[1])).Store(&d[1])
 	archsimd.LoadFloat64x8(&d[2]).Add(s1).Store(&d[2])
 }
+
+// prepare2fast is the second-order grid-point prepare Run uses.
+func (s *solver) prepare2fast(ix, iy int) Status {
+	if vectorPass && !s.portable && 2*s.m+1 >= 8 {
+		return s.prepare2v(ix, iy)
+	}
+	return s.prepareAny(true)
+}
+
+// prepare2v is prepareAny for the second-order warp and a subset centred on
+// the pixel (ix, iy), with vector instructions: the copy and the centring
+// eight samples at a time, and the moments of hessian2m eight columns at a
+// time as in prepare1v, with running sums down each column up to the
+// fourth order in η (c_k = Σ_j C(j+k, k) w_j, turned into powers of η by
+// fromRising as hessian2m does in ξ) and the powers of ξ applied once per
+// group of columns. The sums differ from prepareAny's by rounding only,
+// which TestVectorPrepare2MatchesPortable bounds.
+func (s *solver) prepare2v(ix, iy int) Status {
+	m := s.m
+	side := 2*m + 1
+	last := side - 8
+	stride, w := s.ref.Stride, s.ref.W
+	pixAll, gxAll, gyAll := s.ref.Pix, s.gx, s.gy
+	fAll, fxAll, fyAll := s.f[:s.n], s.fx[:s.n], s.fy[:s.n]
+	lastMask := archsimd.Mask64x8FromBits(s.lastBits8)
+	out := &s.pout
+	var rs archsimd.Float64x8
+	for j := 0; j < side; j++ {
+		for i := 0; i < side; i += 8 {
+			full := true
+			if i > last {
+				i, full = last, false
+			}
+			o := (iy+j-m)*stride + ix - m + i
+			po := (iy+j-m)*w + ix - m + i
+			k := j*side + i
+			v := archsimd.LoadFloat32x8Slice(pixAll[o : o+8]).ConvertToFloat64()
+			archsimd.LoadFloat32x8Slice(gxAll[po : po+8]).ConvertToFloat64().StoreSlice(fxAll[k : k+8])
+			archsimd.LoadFloat32x8Slice(gyAll[po : po+8]).ConvertToFloat64().StoreSlice(fyAll[k : k+8])
+			v.StoreSlice(fAll[k : k+8])
+			if !full {
+				v = v.Masked(lastMask)
+			}
+			rs = rs.Add(v)
+		}
+	}
+	rs.Store(&out[0])
+	archsimd.ClearAVXUpperBits()
+	o := &out[0]
+	n := float64(s.n)
+	s.fmean = (((o[0] + o[1]) + (o[2] + o[3])) + ((o[4] + o[5]) + (o[6] + o[7]))) / n
+	if !s.centre() {
+		return LowContrast
+	}
+	var h [144]float64
+	s.hessian2v(&h)
+	return s.factor(&h)
+}
+
+// centre subtracts f̄ from the subset's samples and sets ‖f − f̄‖, eight
+// samples at a time; it reports false for a subset of too little contrast.
+func (s *solver) centre() bool {
+	fm := s.fmean
+	fmv := [8]float64{fm, fm, fm, fm, fm, fm, fm, fm}
+	f := s.f[:s.n]
+	lastAll := s.n - 8
+	out := &s.pout
+	fm8 := archsimd.LoadFloat64x8(&fmv)
+	var ss archsimd.Float64x8
+	for i := 0; i < len(f); i += 8 {
+		if i > lastAll {
+			i = lastAll
+			// Lanes below the previous group's end are centred already.
+			mk := archsimd.Mask64x8FromBits(s.tailBits8)
+			v := archsimd.LoadFloat64x8Slice(f[i:])
+			c := v.Sub(fm8).Masked(mk)
+			ss = c.MulAdd(c, ss)
+			v.Sub(fm8).Merge(v, mk).StoreSlice(f[i:])
+			break
+		}
+		c := archsimd.LoadFloat64x8Slice(f[i:]).Sub(fm8)
+		c.StoreSlice(f[i:])
+		ss = c.MulAdd(c, ss)
+	}
+	ss.Store(&out[0])
+	archsimd.ClearAVXUpperBits()
+	o := &out[0]
+	s.df = math.Sqrt(((o[0] + o[1]) + (o[2] + o[3])) + ((o[4] + o[5]) + (o[6] + o[7])))
+	return s.df > 0 && s.df/math.Sqrt(float64(s.n)) >= s.minStd
+}
+
+// hessian2v is hessian2m with vector instructions (see prepare2v), on the
+// centred subset.
+func (s *solver) hessian2v(h *[144]float64) {
+	m := s.m
+	side := 2*m + 1
+	last := side - 8
+	xis := s.xis[:side]
+	fAll, fxAll, fyAll := s.f[:s.n], s.fx[:s.n], s.fy[:s.n]
+	lastMask := archsimd.Mask64x8FromBits(s.lastBits8)
+	tw := &s.h2w // tw[q][a][b]: lane sums of w_q ξ^a η^b, a + b ≤ 4
+	tb := &s.h2b // tb[q][a][b] for fx f̃, fy f̃, fx, fy, a + b ≤ 2
+	*tw = [3][5][5][8]float64{}
+	*tb = [4][3][3][8]float64{}
+	for g := 0; g < side; g += 8 {
+		full := true
+		if g > last {
+			g, full = last, false
+		}
+		// Loop A: fx² and fx fy, to the fourth order.
+		var a0, a1, a2, a3, a4, b0, b1, b2, b3, b4 archsimd.Float64x8
+		for j := side - 1; j >= 0; j-- {
+			k := j*side + g
+			gx := archsimd.LoadFloat64x8Slice(fxAll[k : k+8])
+			gy := archsimd.LoadFloat64x8Slice(fyAll[k : k+8])
+			if !full {
+				gx = gx.Masked(lastMask)
+			}
+			a0 = gx.MulAdd(gx, a0)
+			a1 = a1.Add(a0)
+			a2 = a2.Add(a1)
+			a3 = a3.Add(a2)
+			a4 = a4.Add(a3)
+			b0 = gx.MulAdd(gy, b0)
+			b1 = b1.Add(b0)
+			b2 = b2.Add(b1)
+			b3 = b3.Add(b2)
+			b4 = b4.Add(b3)
+		}
+		xi := archsimd.LoadFloat64x8Slice(xis[g:])
+		s.colMoments4(&tw[0], a0, a1, a2, a3, a4, xi)
+		s.colMoments4(&tw[1], b0, b1, b2, b3, b4, xi)
+		// Loop B: fy² to the fourth order, fx f̃ to the second.
+		var d0, d1, d2 archsimd.Float64x8
+		a0, a1, a2, a3, a4 = archsimd.Float64x8{}, archsimd.Float64x8{}, archsimd.Float64x8{}, archsimd.Float64x8{}, archsimd.Float64x8{}
+		for j := side - 1; j >= 0; j-- {
+			k := j*side + g
+			gx := archsimd.LoadFloat64x8Slice(fxAll[k : k+8])
+			gy := archsimd.LoadFloat64x8Slice(fyAll[k : k+8])
+			v := archsimd.LoadFloat64x8Slice(fAll[k : k+8])
+			if !full {
+				gx, gy = gx.Masked(lastMask), gy.Masked(lastMask)
+			}
+			a0 = gy.MulAdd(gy, a0)
+			a1 = a1.Add(a0)
+			a2 = a2.Add(a1)
+			a3 = a3.Add(a2)
+			a4 = a4.Add(a3)
+			d0 = gx.MulAdd(v, d0)
+			d1 = d1.Add(d0)
+			d2 = d2.Add(d1)
+		}
+		xi = archsimd.LoadFloat64x8Slice(xis[g:])
+		s.colMoments4(&tw[2], a0, a1, a2, a3, a4, xi)
+		s.colMoments2(&tb[0], d0, d1, d2, xi)
+		// Loop C: fy f̃, fx and fy to the second order.
+		var e0, e1, e2, u0, u1, u2 archsimd.Float64x8
+		d0, d1, d2 = archsimd.Float64x8{}, archsimd.Float64x8{}, archsimd.Float64x8{}
+		for j := side - 1; j >= 0; j-- {
+			k := j*side + g
+			gx := archsimd.LoadFloat64x8Slice(fxAll[k : k+8])
+			gy := archsimd.LoadFloat64x8Slice(fyAll[k : k+8])
+			v := archsimd.LoadFloat64x8Slice(fAll[k : k+8])
+			if !full {
+				gx, gy = gx.Masked(lastMask), gy.Masked(lastMask)
+			}
+			d0 = gy.MulAdd(v, d0)
+			d1 = d1.Add(d0)
+			d2 = d2.Add(d1)
+			e0 = e0.Add(gx)
+			e1 = e1.Add(e0)
+			e2 = e2.Add(e1)
+			u0 = u0.Add(gy)
+			u1 = u1.Add(u0)
+			u2 = u2.Add(u1)
+		}
+		xi = archsimd.LoadFloat64x8Slice(xis[g:])
+		s.colMoments2(&tb[1], d0, d1, d2, xi)
+		s.colMoments2(&tb[2], e0, e1, e2, xi)
+		s.colMoments2(&tb[3], u0, u1, u2, xi)
+	}
+	archsimd.ClearAVXUpperBits()
+	lane := func(o *[8]float64) float64 {
+		return ((o[0] + o[1]) + (o[2] + o[3])) + ((o[4] + o[5]) + (o[6] + o[7]))
+	}
+	var mw [3][5][5]float64
+	var mb [4][3][3]float64
+	for q := range mw {
+		for a := 0; a < 5; a++ {
+			for b := 0; a+b < 5; b++ {
+				mw[q][a][b] = lane(&tw[q][a][b])
+			}
+		}
+	}
+	for q := range mb {
+		for a := 0; a < 3; a++ {
+			for b := 0; a+b < 3; b++ {
+				mb[q][a][b] = lane(&tb[q][a][b])
+			}
+		}
+	}
+	s.setHessian2(h, &mw, &mb)
+}
+
+// colMoments4 adds to d[a][b] (a + b ≤ 4) the moments Σ w ξ^a η^b of one
+// group of columns, from the running sums c_k = Σ_j C(j+k, k) w_j down
+// each column: Σ_j w_j η^b = Σ_k fromRising[b][k] c_k.
+func (s *solver) colMoments4(d *[5][5][8]float64, c0, c1, c2, c3, c4, xi archsimd.Float64x8) {
+	r := &s.rising8
+	e0 := c0
+	e1 := c1.Mul(archsimd.LoadFloat64x8(&r[1][1])).Add(c0.Mul(archsimd.LoadFloat64x8(&r[1][0])))
+	e2 := c2.Mul(archsimd.LoadFloat64x8(&r[2][2])).Add(c1.Mul(archsimd.LoadFloat64x8(&r[2][1]))).Add(c0.Mul(archsimd.LoadFloat64x8(&r[2][0])))
+	e3 := c3.Mul(archsimd.LoadFloat64x8(&r[3][3])).Add(c2.Mul(archsimd.LoadFloat64x8(&r[3][2]))).Add(c1.Mul(archsimd.LoadFloat64x8(&r[3][1]))).Add(c0.Mul(archsimd.LoadFloat64x8(&r[3][0])))
+	e4 := c4.Mul(archsimd.LoadFloat64x8(&r[4][4])).Add(c3.Mul(archsimd.LoadFloat64x8(&r[4][3]))).Add(c2.Mul(archsimd.LoadFloat64x8(&r[4][2]))).Add(c1.Mul(archsimd.LoadFloat64x8(&r[4][1]))).Add(c0.Mul(archsimd.LoadFloat64x8(&r[4][0])))
+	// d[a][b] += ξ^a e_b for a + b ≤ 4.
+	add := func(p *[8]float64, x archsimd.Float64x8) { archsimd.LoadFloat64x8(p).Add(x).Store(p) }
+	add(&d[0][0], e0)
+	add(&d[0][1], e1)
+	add(&d[0][2], e2)
+	add(&d[0][3], e3)
+	add(&d[0][4], e4)
+	e0, e1, e2, e3 = e0.Mul(xi), e1.Mul(xi), e2.Mul(xi), e3.Mul(xi)
+	add(&d[1][0], e0)
+	add(&d[1][1], e1)
+	add(&d[1][2], e2)
+	add(&d[1][3], e3)
+	e0, e1, e2 = e0.Mul(xi), e1.Mul(xi), e2.Mul(xi)
+	add(&d[2][0], e0)
+	add(&d[2][1], e1)
+	add(&d[2][2], e2)
+	e0, e1 = e0.Mul(xi), e1.Mul(xi)
+	add(&d[3][0], e0)
+	add(&d[3][1], e1)
+	add(&d[4][0], e0.Mul(xi))
+}
+
+// colMoments2 is colMoments4 to the second order.
+func (s *solver) colMoments2(d *[3][3][8]float64, c0, c1, c2, xi archsimd.Float64x8) {
+	r := &s.rising8
+	e0 := c0
+	e1 := c1.Mul(archsimd.LoadFloat64x8(&r[1][1])).Add(c0.Mul(archsimd.LoadFloat64x8(&r[1][0])))
+	e2 := c2.Mul(archsimd.LoadFloat64x8(&r[2][2])).Add(c1.Mul(archsimd.LoadFloat64x8(&r[2][1]))).Add(c0.Mul(archsimd.LoadFloat64x8(&r[2][0])))
+	add := func(p *[8]float64, x archsimd.Float64x8) { archsimd.LoadFloat64x8(p).Add(x).Store(p) }
+	add(&d[0][0], e0)
+	add(&d[0][1], e1)
+	add(&d[0][2], e2)
+	e0, e1 = e0.Mul(xi), e1.Mul(xi)
+	add(&d[1][0], e0)
+	add(&d[1][1], e1)
+	add(&d[2][0], e0.Mul(xi))
+}

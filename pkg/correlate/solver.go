@@ -33,7 +33,10 @@ type solver struct {
 	lastBits8  uint8     // lanes of a row's last group of eight not in the group before
 	tailBits8  uint8     // the same for the last group of eight of the whole subset
 	pout       [31][8]float64
-	cc8        [3][8]float64 // m+1, 2(m+1)+1, (m+1)(m+2), eight times
+	cc8        [3][8]float64    // m+1, 2(m+1)+1, (m+1)(m+2), eight times
+	rising8    [5][5][8]float64 // fromRising, eight times
+	h2w        [3][5][5][8]float64
+	h2b        [4][3][3][8]float64
 	lo         float64       // smallest allowed warped coordinate (edge margin)
 	defW       float64       // largest allowed warped x: W−1 − margin
 	defH       float64       // largest allowed warped y: H−1 − margin
@@ -84,14 +87,14 @@ func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, op
 		s.np = 12
 		s.tailFrac = 1.0 / 16
 	}
-	if vectorPass {
-		s.initVector()
-	}
 	s.xis = make([]float64, side)
 	for i := range s.xis {
 		s.xis[i] = float64(i - m)
 	}
 	s.fromRising = risingToPowers(m)
+	if vectorPass {
+		s.initVector()
+	}
 	if opt.Prefilter > 0 {
 		s.kern = spline.GaussianKernel(opt.Prefilter)
 		r := len(s.kern) / 2

@@ -20,3 +20,6 @@ func (s *solver) prepare1fast(ix, iy int) Status { return s.prepare1(ix, iy) }
 func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	return s.pass2t(p, sg, sgg, sfg, sjg)
 }
+
+// prepare2fast is the second-order grid-point prepare Run uses.
+func (s *solver) prepare2fast(ix, iy int) Status { return s.prepareAny(true) }

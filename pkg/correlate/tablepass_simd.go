@@ -199,6 +199,13 @@ func (s *solver) initVector() {
 			s.etas8[8*j+l] = float64(j - s.m)
 		}
 	}
+	for a := range s.rising8 {
+		for k := range s.rising8[a] {
+			for l := range s.rising8[a][k] {
+				s.rising8[a][k][l] = s.fromRising[a][k]
+			}
+		}
+	}
 	cc := float64(s.m + 1)
 	for l := 0; l < 8; l++ {
 		s.cc8[0][l], s.cc8[1][l], s.cc8[2][l] = cc, 2*cc+1, cc*(cc+1)

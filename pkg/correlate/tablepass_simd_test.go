@@ -169,6 +169,67 @@ func TestVectorPrepareMatchesPortable(t *testing.T) {
 	}
 }
 
+// The same for the second-order prepare against prepareAny.
+func TestVectorPrepare2MatchesPortable(t *testing.T) {
+	if !vectorPass {
+		t.Skip("this CPU has no AVX-512 and FMA: the vector prepare is not used")
+	}
+	m := synth.Affine{F: [2][2]float64{{1.006, 0.003}, {-0.002, 0.996}}, CX: 120, CY: 110, U: 2.7, V: -1.4}
+	ref, def := pair(t, m, 240, 220, 8, 1, 11)
+	rng := rand.New(rand.NewPCG(5, 6))
+	near := func(a, b, scale float64) bool { return math.Abs(a-b) <= 1e-12*scale }
+	for _, subset := range []int{21, 25, 31, 33} {
+		r, err := newRun(context.Background(), ref, def, Options{Subset: subset, Shape: Second, Threads: 1}, tuning{})
+		if err != nil {
+			t.Fatal(err)
+		}
+		s := r.solvers[0]
+		for trial := 0; trial < 50; trial++ {
+			ix, iy := 20+rng.IntN(200), 20+rng.IntN(180)
+			s.xc, s.yc = float64(ix), float64(iy)
+			st1 := s.prepareAny(true)
+			f1 := append([]float64(nil), s.f...)
+			fx1 := append([]float64(nil), s.fx...)
+			b1, j1, df1, mean1, hu1, hv1, ss1, ch1 := s.b0, s.sj, s.df, s.fmean, s.hUU, s.hVV, s.sssig, s.chol
+			st2 := s.prepare2v(ix, iy)
+			if st1 != st2 {
+				t.Fatalf("subset %d at (%d, %d): prepareAny %v, prepare2v %v", subset, ix, iy, st1, st2)
+			}
+			if st1 != OK {
+				continue
+			}
+			var bmax, jmax float64
+			for a := 0; a < 12; a++ {
+				bmax, jmax = math.Max(bmax, math.Abs(s.b0[a])), math.Max(jmax, math.Abs(s.sj[a]))
+			}
+			for a := 0; a < 12; a++ {
+				if !near(b1[a], s.b0[a], bmax) || !near(j1[a], s.sj[a], jmax) {
+					t.Fatalf("subset %d at (%d, %d): Σ J f̃[%d] %v / %v, Σ J[%d] %v / %v", subset, ix, iy, a, b1[a], s.b0[a], a, j1[a], s.sj[a])
+				}
+			}
+			for k := range f1 {
+				if !near(f1[k], s.f[k], s.df) || fx1[k] != s.fx[k] {
+					t.Fatalf("subset %d at (%d, %d): f̃[%d] %v / %v, fx %v / %v", subset, ix, iy, k, f1[k], s.f[k], fx1[k], s.fx[k])
+				}
+			}
+			for k := range ch1 {
+				// Entry (r, c) on the scale of its row's and column's
+				// diagonal entries (those of the second-order terms are
+				// ~m² larger).
+				r, c := k/12, k%12
+				if !near(ch1[k], s.chol[k], math.Max(math.Abs(s.chol[r*13]), math.Abs(s.chol[c*13]))) {
+					t.Fatalf("subset %d at (%d, %d): Cholesky factor [%d] %v / %v", subset, ix, iy, k, ch1[k], s.chol[k])
+				}
+			}
+			if !near(df1, s.df, s.df) || !near(mean1, s.fmean, s.fmean) || !near(hu1, s.hUU, s.hUU) || !near(hv1, s.hVV, s.hVV) || !near(ss1, s.sssig, s.sssig) {
+				t.Fatalf("subset %d at (%d, %d): ‖f̃‖ %v / %v, f̄ %v / %v, (H⁻¹)uu %v / %v, (H⁻¹)vv %v / %v, Σ∇f² %v / %v",
+					subset, ix, iy, df1, s.df, mean1, s.fmean, hu1, s.hUU, hv1, s.hVV, ss1, s.sssig)
+			}
+		}
+		r.stop()
+	}
+}
+
 // The second-order vector pass gives the sums of pass2t to float rounding
 // and reports leaving the usable area exactly when pass2t does, for random
 // second-order warps (some reaching past the image edges) and sides that
