@@ -31,7 +31,8 @@ type StereoInput struct {
 // y_mm, z_mm the reference position (the shape), std_z_mm its std along z;
 // with a state: u, v, w the 3D displacement and std_u, std_v, std_w, u_px
 // and v_px the left image displacement (for maps over the images),
-// E11, E22, E12 (Green–Lagrange), H11, H22, H12 (Hencky), E_max, E_min,
+// E11, E22, E12 (Green–Lagrange) and their std std_E11, std_E22, std_E12
+// (stereo.Strain), H11, H22, H12 (Hencky), E_max, E_min,
 // E_max_angle_deg, von_mises, rotation_deg in the local tangent plane
 // (axis 1 along the left image's x projected on the surface),
 // w_normal the displacement along the local surface normal,
@@ -114,7 +115,7 @@ func BuildStereo(in StereoInput, params any, software string) (*field.Field, err
 		}
 	}
 	if sf := in.Surface; sf != nil {
-		names := []string{"E11", "E22", "E12", "H11", "H22", "H12", "E_max", "E_min", "E_max_angle_deg", "von_mises", "rotation_deg", "w_normal", "normal_rotation_deg"}
+		names := []string{"E11", "E22", "E12", "std_E11", "std_E22", "std_E12", "H11", "H22", "H12", "E_max", "E_min", "E_max_angle_deg", "von_mises", "rotation_deg", "w_normal", "normal_rotation_deg"}
 		unit := map[string]string{"E_max_angle_deg": "deg", "rotation_deg": "deg", "normal_rotation_deg": "deg", "w_normal": "mm"}
 		cols := map[string][]float64{}
 		for _, nm := range names {
@@ -133,6 +134,7 @@ func BuildStereo(in StereoInput, params any, software string) (*field.Field, err
 			}
 			m := s.M
 			vals := map[string]float64{"E11": m.E[0][0], "E22": m.E[1][1], "E12": m.E[0][1],
+				"std_E11": s.StdE[0], "std_E22": s.StdE[1], "std_E12": s.StdE[2],
 				"H11": m.H[0][0], "H22": m.H[1][1], "H12": m.H[0][1], "E_max": m.EMax, "E_min": m.EMin,
 				"E_max_angle_deg": m.EMaxAngleDeg, "von_mises": m.VonMises, "rotation_deg": m.RotationDeg,
 				"w_normal": s.W, "normal_rotation_deg": s.NormalRotationDeg}

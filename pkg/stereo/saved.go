@@ -135,14 +135,19 @@ type SavedState struct {
 	// Pos[0..2], Disp[0..2], Std[0..2], ZNCC, Gap.
 	Values        Floats `json:"values"`
 	Status, Match []uint8
+	// Cov holds 3 numbers per point, StatePoint.Cov; states saved before
+	// it was kept lack it and read as uncorrelated axes.
+	Cov Floats `json:"cov,omitempty"`
 }
 
 const savedStateValues = 4 + 3 + 3 + 3 + 2
 
 // Save returns the saved form of s.
 func (s *State) Save() SavedState {
-	out := SavedState{Values: make(Floats, 0, savedStateValues*len(s.Points)), Status: make([]uint8, len(s.Points)), Match: make([]uint8, len(s.Points))}
+	out := SavedState{Values: make(Floats, 0, savedStateValues*len(s.Points)), Status: make([]uint8, len(s.Points)), Match: make([]uint8, len(s.Points)),
+		Cov: make(Floats, 0, 3*len(s.Points))}
 	for k, p := range s.Points {
+		out.Cov = append(out.Cov, p.Cov[:]...)
 		out.Values = append(out.Values, p.XL, p.YL, p.XR, p.YR)
 		out.Values = append(out.Values, p.Pos[:]...)
 		out.Values = append(out.Values, p.Disp[:]...)
@@ -156,8 +161,8 @@ func (s *State) Save() SavedState {
 // State returns the State that s was saved from, which must have n
 // points (those of its reference).
 func (s SavedState) State(n int) (*State, error) {
-	if len(s.Values) != savedStateValues*n || len(s.Status) != n || len(s.Match) != n {
-		return nil, fmt.Errorf("stereo: saved state: %d values and %d statuses for %d points; the saved state is damaged, start the series again", len(s.Values), len(s.Status), n)
+	if len(s.Values) != savedStateValues*n || len(s.Status) != n || len(s.Match) != n || (s.Cov != nil && len(s.Cov) != 3*n) {
+		return nil, fmt.Errorf("stereo: saved state: %d values, %d covariances and %d statuses for %d points; the saved state is damaged, start the series again", len(s.Values), len(s.Cov), len(s.Status), n)
 	}
 	st := &State{Points: make([]StatePoint, n)}
 	for k := range st.Points {
@@ -168,6 +173,9 @@ func (s SavedState) State(n int) (*State, error) {
 		copy(p.Disp[:], v[7:10])
 		copy(p.Std[:], v[10:13])
 		p.ZNCC, p.Gap = v[13], v[14]
+		if s.Cov != nil {
+			copy(p.Cov[:], s.Cov[3*k:3*k+3])
+		}
 		p.Status, p.Match = Status(s.Status[k]), correlate.Status(s.Match[k])
 		if p.Status > NoRay {
 			return nil, fmt.Errorf("stereo: saved state: point %d has an unknown status %d; the saved state is damaged, start the series again", k, s.Status[k])

@@ -36,9 +36,14 @@ type Surface struct {
 	// NormalRotationDeg is the angle between the reference and the
 	// deformed surface normal, degrees.
 	NormalRotationDeg float64
+	// StdE is the predicted std of the Green–Lagrange E11, E22 and E12
+	// (see Strain); NaN where the state carries no std.
+	StdE [3]float64
 	// N is the number of points in the window; OK whether it was computed.
 	N  int
 	OK bool
+	// defAxes are the deformed tangent frame's axes F was taken in.
+	defAxes [2][3]float64
 }
 
 // Strain computes the surface strain of a deformed state at every point
@@ -52,6 +57,14 @@ type Surface struct {
 // in-plane F is F₃ in the deformed tangent frame (the reference frame
 // carried by the smallest rotation from the old normal to the new).
 // Points with too few neighbours get OK = false.
+//
+// StdE propagates the displacement std of the window's points (per axis,
+// State.Std) through the fit to first order (JCGM 100:2008, "Guide to the
+// expression of uncertainty in measurement", 5.2): neighbours whose
+// subsets share pixels have correlated errors, as the share of pixels in
+// common (the model of kinematics.Gradients), with each point's 3×3
+// displacement covariance (State.Std, State.Cov) and the frames of the fit
+// held fixed.
 func Strain(ref *Reference, st *State, o StrainOptions) ([]Surface, error) {
 	if ref == nil || st == nil {
 		return nil, errors.New("stereo strain: missing reference or state")
@@ -75,18 +88,22 @@ func Strain(ref *Reference, st *State, o StrainOptions) ([]Surface, error) {
 	out := make([]Surface, len(ref.Points))
 	h := o.Window / 2
 	var nb []int
+	var ij [][2]int
+	rho := func(d int) float64 {
+		return max(0, 1-float64(max(d, -d))*float64(g.Step)/float64(ref.Options.Correlate.Subset))
+	}
 	for j := range g.Ny {
 		for i := range g.Nx {
 			k := g.Index(i, j)
 			if ref.Points[k].Status != OK || st.Points[k].Status != OK {
 				continue
 			}
-			nb = nb[:0]
+			nb, ij = nb[:0], ij[:0]
 			for b := max(0, j-h); b <= min(g.Ny-1, j+h); b++ {
 				for a := max(0, i-h); a <= min(g.Nx-1, i+h); a++ {
 					q := g.Index(a, b)
 					if ref.Points[q].Status == OK && st.Points[q].Status == OK {
-						nb = append(nb, q)
+						nb, ij = append(nb, q), append(ij, [2]int{a, b})
 					}
 				}
 			}
@@ -95,6 +112,9 @@ func Strain(ref *Reference, st *State, o StrainOptions) ([]Surface, error) {
 				continue
 			}
 			surface(ref, st, k, nb, &out[k])
+			if out[k].OK {
+				out[k].StdE = strainStd(ref, st, k, nb, ij, &out[k], rho)
+			}
 		}
 	}
 	return out, nil
@@ -161,11 +181,101 @@ func surface(ref *Reference, st *State, k int, nb []int, s *Surface) {
 	// rotation taking n to nd (Rodrigues).
 	r1, r2 := rotateOnto(n, nd, e1), rotateOnto(n, nd, e2)
 	F := kinematics.Tensor{{dot(r1, f1), dot(r1, f2)}, {dot(r2, f1), dot(r2, f2)}}
-	s.Normal, s.E1Dir, s.E2Dir = n, e1, e2
+	s.Normal, s.E1Dir, s.E2Dir, s.defAxes = n, e1, e2, [2][3]float64{r1, r2}
 	s.M = kinematics.Compute(F, kinematics.GreenLagrangeMeasure)
 	s.W = dot(st.Points[k].Disp, n)
 	s.NormalRotationDeg = math.Acos(math.Max(-1, math.Min(1, dot(n, nd)))) * 180 / math.Pi
 	s.OK = s.M.Invertible
+}
+
+// strainStd returns the std of E11, E22 and E12 of the surface s at
+// point k, fitted over the points nb at grid positions ij (see Strain);
+// rho is the error correlation of two points d grid steps apart along one
+// axis.
+func strainStd(ref *Reference, st *State, k int, nb []int, ij [][2]int, s *Surface, rho func(d int) float64) [3]float64 {
+	nan := [3]float64{math.NaN(), math.NaN(), math.NaN()}
+	n := len(nb)
+	p0 := ref.Points[k].Pos
+	// G = (AᵀA)⁻¹Aᵀ of the fit's design (1, a1, a2): rows 1 and 2 give
+	// the slopes F3[c][0] and F3[c][1] of each component c.
+	A := mat.NewDense(n, 3, nil)
+	for r, q := range nb {
+		d := sub(ref.Points[q].Pos, p0)
+		A.Set(r, 0, 1)
+		A.Set(r, 1, dot(d, s.E1Dir))
+		A.Set(r, 2, dot(d, s.E2Dir))
+	}
+	var N, Ni mat.Dense
+	N.Mul(A.T(), A)
+	if err := Ni.Inverse(&N); err != nil {
+		return nan
+	}
+	var G mat.Dense
+	G.Mul(&Ni, A.T())
+	// The displacement covariance of each point projected on the deformed
+	// tangent axes: P[r][a][a2] = r_aᵀ Σ_r r_a2.
+	ra := s.defAxes
+	P := make([][2][2]float64, n)
+	for r, q := range nb {
+		sp := st.Points[q]
+		if !(sp.Std[0] > 0 && sp.Std[1] > 0 && sp.Std[2] > 0) {
+			return nan
+		}
+		S := [3][3]float64{
+			{sp.Std[0] * sp.Std[0], sp.Cov[0], sp.Cov[1]},
+			{sp.Cov[0], sp.Std[1] * sp.Std[1], sp.Cov[2]},
+			{sp.Cov[1], sp.Cov[2], sp.Std[2] * sp.Std[2]},
+		}
+		for a := range 2 {
+			for a2 := range 2 {
+				var v float64
+				for x := range 3 {
+					for y := range 3 {
+						v += ra[a][x] * S[x][y] * ra[a2][y]
+					}
+				}
+				P[r][a][a2] = v
+			}
+		}
+	}
+	// C over (F11, F12, F21, F22), F_ab = r_a · (column b of F3): the
+	// cross-covariance of two points is ρ times the mean of their own.
+	var C [4][4]float64
+	for r := range n {
+		for l := range n {
+			w := rho(ij[r][0]-ij[l][0]) * rho(ij[r][1]-ij[l][1])
+			if w == 0 {
+				continue
+			}
+			for a := range 2 {
+				for a2 := range 2 {
+					pc := w * (P[r][a][a2] + P[l][a][a2]) / 2
+					for b := range 2 {
+						for b2 := range 2 {
+							C[2*a+b][2*a2+b2] += G.At(b+1, r) * G.At(b2+1, l) * pc
+						}
+					}
+				}
+			}
+		}
+	}
+	F := s.M.F
+	J := [3][4]float64{
+		{F[0][0], 0, F[1][0], 0},                             // E11 = ½(F11² + F21² − 1)
+		{0, F[0][1], 0, F[1][1]},                             // E22 = ½(F12² + F22² − 1)
+		{F[0][1] / 2, F[0][0] / 2, F[1][1] / 2, F[1][0] / 2}, // E12 = ½(F11F12 + F21F22)
+	}
+	var out [3]float64
+	for e := range 3 {
+		var v float64
+		for x := range 4 {
+			for y := range 4 {
+				v += J[e][x] * C[x][y] * J[e][y]
+			}
+		}
+		out[e] = math.Sqrt(v)
+	}
+	return out
 }
 
 // rotateOnto applies to v the smallest rotation taking the unit vector a

@@ -16,9 +16,11 @@ type StatePoint struct {
 	XL, YL, XR, YR float64
 	// Pos is its 3D position and Disp = Pos − reference Pos its
 	// displacement (U, V, W), mm, left camera frame; Std the std of Disp
-	// per axis (the reference and deformed positions taken as
-	// independent).
+	// per axis (see advance).
 	Pos, Disp, Std [3]float64
+	// Cov holds the covariances of Disp between the axes, xy, xz and yz,
+	// mm² (triangulation's error ellipsoid is long along the depth).
+	Cov [3]float64
 	// ZNCC is the lower of the two tracking matches; Gap the optimal
 	// correction of the deformed pair, px.
 	ZNCC, Gap float64
@@ -84,7 +86,7 @@ func (r *Reference) Track(ctx context.Context, leftRef, rightRef, leftDef, right
 		if p.Status != OK {
 			continue
 		}
-		r.advance(q, p, lt[k], rt[k], [4]float64{p.X, p.Y, p.XR, p.YR}, [3]float64{})
+		r.advance(q, p, lt[k], rt[k], [4]float64{p.X, p.Y, p.XR, p.YR}, nil)
 	}
 	return st, nil
 }
@@ -108,15 +110,15 @@ func (r *Reference) follow(ctx context.Context, pl, pr [][2]float64, idx []int, 
 // advance sets q from the left and right matches a and b of reference
 // point p, found at the image positions from = (xl, yl, xr, yr): the new
 // positions, the triangulated position and the displacement from the
-// reference. The displacement's std is the triangulated std of the two
-// tracking matches, with std0 (mm, per axis), the std of what q starts
-// from, added in quadrature. The stereo match's error in the right
+// reference. The displacement's covariance is the triangulated one of
+// the two tracking matches, plus that of prev (the state q starts from,
+// nil for the reference). The stereo match's error in the right
 // reference position (p.StdMatch) is not added: the right subset follows
 // the material the match found, so that error stands in the reference
 // and in the deformed position alike and cancels in the displacement
 // (JCGM 100:2008, 5.2, correlated inputs; TestDisplacementStd measures the
 // predicted std within 5 % of the scatter).
-func (r *Reference) advance(q *StatePoint, p Point, a, b correlate.Point, from [4]float64, std0 [3]float64) {
+func (r *Reference) advance(q *StatePoint, p Point, a, b correlate.Point, from [4]float64, prev *StatePoint) {
 	q.ZNCC = math.Min(a.ZNCC, b.ZNCC)
 	if a.Status != correlate.OK {
 		q.Status, q.Match = LeftTrack, a.Status
@@ -137,7 +139,17 @@ func (r *Reference) advance(q *StatePoint, p Point, a, b correlate.Point, from [
 	}
 	for i := range 3 {
 		q.Disp[i] = q.Pos[i] - p.Pos[i]
-		q.Std[i] = math.Sqrt(c[i][i] + std0[i]*std0[i])
+		v := c[i][i]
+		if prev != nil {
+			v += prev.Std[i] * prev.Std[i]
+		}
+		q.Std[i] = math.Sqrt(v)
+	}
+	q.Cov = [3]float64{c[0][1], c[0][2], c[1][2]}
+	if prev != nil {
+		for i := range 3 {
+			q.Cov[i] += prev.Cov[i]
+		}
 	}
 }
 
@@ -196,7 +208,7 @@ func (r *Reference) TrackFrom(ctx context.Context, prev *State, lPrev, rPrev, lD
 		if was.Status != OK {
 			continue
 		}
-		r.advance(q, p, lt[k], rt[k], [4]float64{was.XL, was.YL, was.XR, was.YR}, was.Std)
+		r.advance(q, p, lt[k], rt[k], [4]float64{was.XL, was.YL, was.XR, was.YR}, &was)
 	}
 	return st, nil
 }
