@@ -3,6 +3,7 @@ package stereo
 import (
 	"context"
 	"math"
+	"strings"
 	"testing"
 
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -131,5 +132,34 @@ func TestDisplacementStd(t *testing.T) {
 				t.Errorf("incremental pair %d, %s: predicted std %.6f mm for a scatter of %.6f mm (ratio %.2f): want 0.85–%.2f (a bound from above, at most 1.2·√%d)", k+1, a, pred[i], got[i], r, 1.2*w, k+1)
 			}
 		}
+	}
+}
+
+// TestSavedStateCov: a state's cross-axis covariances survive Save and
+// State; a state saved before they were kept (no Cov) reads with
+// uncorrelated axes, and covariances of the wrong length are reported as
+// damage, not read.
+func TestSavedStateCov(t *testing.T) {
+	st := &State{Points: []StatePoint{
+		{Status: OK, Std: [3]float64{1, 2, 3}, Cov: [3]float64{0.5, -0.25, 1.5}},
+		{Status: LeftTrack},
+	}}
+	sv := st.Save()
+	back, err := sv.State(2)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if back.Points[0].Cov != st.Points[0].Cov || back.Points[0].Std != st.Points[0].Std {
+		t.Errorf("restored %+v, want %+v", back.Points[0], st.Points[0])
+	}
+	old := sv
+	old.Cov = nil
+	if back, err = old.State(2); err != nil || back.Points[0].Cov != [3]float64{} {
+		t.Errorf("state without covariances: %+v, %v; want zero covariances and no error", back, err)
+	}
+	bad := sv
+	bad.Cov = bad.Cov[:4]
+	if _, err := bad.State(2); err == nil || !strings.Contains(err.Error(), "damaged") {
+		t.Errorf("4 covariances for 2 points: error %v, want one that says the state is damaged", err)
 	}
 }
