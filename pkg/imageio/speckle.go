@@ -156,13 +156,13 @@ const lagBlock = 4
 
 // lagTable holds the lag sums of an image (lagSum along x and along y)
 // as HWHM asks for them. They are summed lagBlock lags at a time in one
-// pass over the deviations from the mean, each lag's products in its own
-// accumulator in lagSum's order, so the sums are lagSum's bit for bit
-// while the accumulators' additions overlap instead of waiting on each
-// other. Lag 0 is the same along both axes.
+// pass over the image, each lag's products of deviations from the mean in
+// its own accumulator in lagSum's order, so the sums are lagSum's bit for
+// bit while the accumulators' additions overlap instead of waiting on
+// each other. Lag 0 is the same along both axes.
 type lagTable struct {
-	d      []float64 // g(p) − mean, row by row with stride w
-	w, h   int
+	g      *Gray
+	mean   float64
 	maxLag int
 	c0     float64
 	cx, cy []float64 // lags 1, 2, … summed so far
@@ -171,29 +171,18 @@ type lagTable struct {
 // newLagTable returns the lag table of g up to maxLag, with its mean
 // taken as Stats takes it and lag 0 summed (with the first block).
 func newLagTable(g *Gray, maxLag int) *lagTable {
-	w, h := g.W, g.H
 	var s float64
-	for y := 0; y < h; y++ {
-		for _, v := range g.Pix[y*g.Stride : y*g.Stride+w] {
+	for y := 0; y < g.H; y++ {
+		for _, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
 			s += float64(v)
 		}
 	}
-	mean := s / float64(w*h)
-	t := &lagTable{d: make([]float64, w*h), w: w, h: h, maxLag: maxLag}
-	for y := 0; y < h; y++ {
-		row := t.d[y*w : y*w+w]
-		for x, v := range g.Pix[y*g.Stride : y*g.Stride+w] {
-			row[x] = float64(v) - mean
-		}
-	}
+	t := &lagTable{g: g, mean: s / float64(g.W*g.H), maxLag: maxLag}
 	if maxLag >= lagBlock {
 		t.next() // sums lag 0 too
 		return t
 	}
-	for y := 0; y < h; y++ {
-		a := t.d[y*w : y*w+w]
-		t.c0 += rowDot(a, a)
-	}
+	t.c0 = t.lagX(0)
 	return t
 }
 
@@ -219,6 +208,11 @@ func (t *lagTable) y(h int) float64 {
 	return t.cy[h-1]
 }
 
+// row returns row y of the image.
+func (t *lagTable) row(y int) []float32 {
+	return t.g.Pix[y*t.g.Stride : y*t.g.Stride+t.g.W]
+}
+
 // next sums the next lagBlock lags along both axes (and lag 0 with the
 // first), or the next one near maxLag.
 func (t *lagTable) next() {
@@ -227,50 +221,53 @@ func (t *lagTable) next() {
 		t.cx, t.cy = append(t.cx, t.lagX(l)), append(t.cy, t.lagY(l))
 		return
 	}
-	w, h, d := t.w, t.h, t.d
+	w, h, m := t.g.W, t.g.H, t.mean
 	var sx, sy [lagBlock]float64
 	var s0 float64              // lag 0, kept from the first block
 	n := w - (l + lagBlock - 1) // x below n has all lagBlock partners in its row
 	for y := 0; y < h; y++ {
-		a := d[y*w : y*w+w]
+		a := t.row(y)
 		var r0, r1, r2, r3, rz float64
 		for x, v := range a[:n] {
 			b := a[x+l : x+l+lagBlock]
-			rz += v * v
-			r0 += v * b[0]
-			r1 += v * b[1]
-			r2 += v * b[2]
-			r3 += v * b[3]
+			d := float64(v) - m
+			rz += d * d
+			r0 += d * (float64(b[0]) - m)
+			r1 += d * (float64(b[1]) - m)
+			r2 += d * (float64(b[2]) - m)
+			r3 += d * (float64(b[3]) - m)
 		}
 		for _, v := range a[n:] {
-			rz += v * v
+			d := float64(v) - m
+			rz += d * d
 		}
 		s0 += rz
 		for x := n; x < w-l-2; x++ {
-			r2 += a[x] * a[x+l+2]
+			r2 += (float64(a[x]) - m) * (float64(a[x+l+2]) - m)
 		}
 		for x := n; x < w-l-1; x++ {
-			r1 += a[x] * a[x+l+1]
+			r1 += (float64(a[x]) - m) * (float64(a[x+l+1]) - m)
 		}
 		for x := n; x < w-l; x++ {
-			r0 += a[x] * a[x+l]
+			r0 += (float64(a[x]) - m) * (float64(a[x+l]) - m)
 		}
 		sx[0], sx[1], sx[2], sx[3] = sx[0]+r0, sx[1]+r1, sx[2]+r2, sx[3]+r3
 		if y+l+lagBlock-1 >= h {
 			for i := range lagBlock {
 				if y+l+i < h {
-					sy[i] += rowDot(a, d[(y+l+i)*w:(y+l+i)*w+w])
+					sy[i] += rowDot(a, t.row(y+l+i), m)
 				}
 			}
 			continue
 		}
-		b0, b1, b2, b3 := d[(y+l)*w:(y+l)*w+w], d[(y+l+1)*w:(y+l+1)*w+w], d[(y+l+2)*w:(y+l+2)*w+w], d[(y+l+3)*w:(y+l+3)*w+w]
+		b0, b1, b2, b3 := t.row(y+l), t.row(y+l+1), t.row(y+l+2), t.row(y+l+3)
 		var q0, q1, q2, q3 float64
 		for x, v := range a {
-			q0 += v * b0[x]
-			q1 += v * b1[x]
-			q2 += v * b2[x]
-			q3 += v * b3[x]
+			d := float64(v) - m
+			q0 += d * (float64(b0[x]) - m)
+			q1 += d * (float64(b1[x]) - m)
+			q2 += d * (float64(b2[x]) - m)
+			q3 += d * (float64(b3[x]) - m)
 		}
 		sy[0], sy[1], sy[2], sy[3] = sy[0]+q0, sy[1]+q1, sy[2]+q2, sy[3]+q3
 	}
@@ -280,30 +277,30 @@ func (t *lagTable) next() {
 	t.cx, t.cy = append(t.cx, sx[:]...), append(t.cy, sy[:]...)
 }
 
-// lagX is lagSum along x at lag l from the deviations.
+// lagX is lagSum along x at lag l.
 func (t *lagTable) lagX(l int) float64 {
 	var s float64
-	for y := 0; y < t.h; y++ {
-		a := t.d[y*t.w : y*t.w+t.w]
-		s += rowDot(a[:t.w-l], a[l:])
+	for y := 0; y < t.g.H; y++ {
+		a := t.row(y)
+		s += rowDot(a[:t.g.W-l], a[l:], t.mean)
 	}
 	return s
 }
 
-// lagY is lagSum along y at lag l from the deviations.
+// lagY is lagSum along y at lag l.
 func (t *lagTable) lagY(l int) float64 {
 	var s float64
-	for y := 0; y+l < t.h; y++ {
-		s += rowDot(t.d[y*t.w:y*t.w+t.w], t.d[(y+l)*t.w:(y+l)*t.w+t.w])
+	for y := 0; y+l < t.g.H; y++ {
+		s += rowDot(t.row(y), t.row(y+l), t.mean)
 	}
 	return s
 }
 
-// rowDot returns Σ a[x]·b[x] over x < len(a), in order of x.
-func rowDot(a, b []float64) float64 {
+// rowDot returns Σ (a[x] − m)·(b[x] − m) over x < len(a), in order of x.
+func rowDot(a, b []float32, m float64) float64 {
 	var s float64
 	for x, v := range a {
-		s += v * b[x]
+		s += (float64(v) - m) * (float64(b[x]) - m)
 	}
 	return s
 }
