@@ -292,20 +292,21 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 // series finishes, until ctx ends: the frame gate looks again at once
 // rather than at its next poll, so that the hand-over from a frame to the
 // next, solved ahead and waiting, does not wait for the poll interval.
-// It returns nil (a channel that never receives: the gate polls only)
-// for a job that is not a later frame of a series, or when the store
-// cannot watch the series.
+// The channel never receives (the gate polls only) for a job that is not
+// a later frame of a series, or when the store cannot watch the series.
+// The watch is set up in the background, so that a store slow to start
+// it (a distributed store loads its mirror first) never delays the gate.
 func (s *Runner) framesDone(ctx context.Context, id string) <-chan struct{} {
-	j, err := s.store.Job(ctx, id)
-	if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
-		return nil
-	}
-	w, err := s.store.Watch(ctx, j.Series)
-	if err != nil {
-		return nil
-	}
 	out := make(chan struct{}, 1)
 	go func() {
+		j, err := s.store.Job(ctx, id)
+		if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
+			return
+		}
+		w, err := s.store.Watch(ctx, j.Series)
+		if err != nil {
+			return
+		}
 		for f := range w {
 			if f.FrameIndex < j.FrameIndex && f.State.Terminal() {
 				select {
