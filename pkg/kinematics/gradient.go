@@ -334,11 +334,10 @@ type fitter struct {
 	step            float64
 	// Inverse normal matrix of a full window, shared read-only.
 	fullInv *[6][6]float64
-	// rho[d] is the error correlation of two points d grid steps apart
-	// along one axis (rho[0] = 1), shared read-only; nil when the errors
-	// are independent.
-	rho []float64
-	// kern is rho mirrored: rho[|d|] at kern[d + len(rho) − 1].
+	// kern[d + r] is the error correlation of two points d grid steps
+	// apart along one axis (SubsetCorrelation), for |d| ≤ r, the farthest
+	// that share pixels; shared read-only, nil when the errors are
+	// independent.
 	kern []float64
 	// Scratch.
 	ni  [6][6]float64
@@ -368,14 +367,13 @@ func newFitter(opt GradientOptions, step float64) *fitter {
 		f.fullInv = &inv
 	}
 	if m := opt.Subset; m > step {
-		f.rho = []float64{1}
-		for d := 1; float64(d)*step < m; d++ {
-			f.rho = append(f.rho, 1-float64(d)*step/m)
+		r := 0
+		for float64(r+1)*step < m {
+			r++
 		}
-		r := len(f.rho) - 1
 		f.kern = make([]float64, 2*r+1)
 		for d := -r; d <= r; d++ {
-			f.kern[d+r] = f.rho[max(d, -d)]
+			f.kern[d+r] = SubsetCorrelation(d, step, m)
 		}
 	}
 	f.scratch()
@@ -384,7 +382,7 @@ func newFitter(opt GradientOptions, step float64) *fitter {
 
 // scratch gives f its own scratch slices for correlated errors.
 func (f *fitter) scratch() {
-	if f.rho == nil {
+	if f.kern == nil {
 		return
 	}
 	n := (2*f.half + 1) * (2*f.half + 1)
@@ -400,42 +398,58 @@ func (f *fitter) clone() *fitter {
 	return &c
 }
 
-// correlated returns Σ_p Σ_q a_p b_q ρ(p − q) over an nx×ny window,
-// ρ(Δi, Δj) = rho[|Δi|]·rho[|Δj|] (zero beyond rho), computed as a
-// separable filter of b followed by a dot product with a; filt reuses the
-// filtered b when b is the same as in the previous call.
-func (f *fitter) correlated(a, b []float64, nx, ny int, filt bool) float64 {
-	r := len(f.rho) - 1
-	k := f.kern // rho[|d|] at k[d+r]
-	if filt {
-		for j := range ny {
-			row, out := b[j*nx:(j+1)*nx], f.t[j*nx:(j+1)*nx]
-			for i := range out {
-				lo, hi := max(i-r, 0), min(i+r, nx-1)
-				kk := k[lo-i+r : hi-i+r+1]
-				s := 0.0
-				for d, x := range row[lo : hi+1] {
-					s += kk[d] * x
-				}
-				out[i] = s
+// SubsetCorrelation returns the correlation of the displacement errors of
+// two grid points d steps apart along one axis, measured with square
+// subsets of side subset px on a grid of step px: the share of the
+// subsets' pixels along that axis that the two have in common,
+// max(0, 1 − |d|·step/subset). Two points (Δi, Δj) apart correlate as the
+// product of the two axes' values (the model of [Gradients]).
+func SubsetCorrelation(d int, step, subset float64) float64 {
+	if d == 0 {
+		return 1
+	}
+	return max(0, 1-float64(max(d, -d))*step/subset)
+}
+
+// filter returns the correlation-weighted sums c_p = Σ_q ρ(p − q) b_q
+// over an nx×ny window, ρ(Δi, Δj) = kern[Δi + r]·kern[Δj + r] (zero
+// beyond r), by a separable filter: along rows into f.t, then along
+// columns into f.c, which it returns.
+func (f *fitter) filter(b []float64, nx, ny int) []float64 {
+	k := f.kern
+	r := len(k) / 2
+	for j := range ny {
+		row, out := b[j*nx:(j+1)*nx], f.t[j*nx:(j+1)*nx]
+		for i := range out {
+			lo, hi := max(i-r, 0), min(i+r, nx-1)
+			kk := k[lo-i+r : hi-i+r+1]
+			s := 0.0
+			for d, x := range row[lo : hi+1] {
+				s += kk[d] * x
 			}
+			out[i] = s
 		}
-		c := f.c[:nx*ny]
-		clear(c)
-		for j := range ny {
-			lo, hi := max(j-r, 0), min(j+r, ny-1)
-			out := c[j*nx : (j+1)*nx]
-			for j2 := lo; j2 <= hi; j2++ {
-				w := k[j2-j+r]
-				for i, x := range f.t[j2*nx : (j2+1)*nx] {
-					out[i] += w * x
-				}
+	}
+	c := f.c[:nx*ny]
+	clear(c)
+	for j := range ny {
+		lo, hi := max(j-r, 0), min(j+r, ny-1)
+		out := c[j*nx : (j+1)*nx]
+		for j2 := lo; j2 <= hi; j2++ {
+			w := k[j2-j+r]
+			for i, x := range f.t[j2*nx : (j2+1)*nx] {
+				out[i] += w * x
 			}
 		}
 	}
+	return c
+}
+
+// dot returns Σ a_p c_p.
+func dot(a, c []float64) float64 {
 	s := 0.0
-	for p, x := range a[:nx*ny] {
-		s += x * f.c[p]
+	for p, x := range a {
+		s += x * c[p]
 	}
 	return s
 }
@@ -520,7 +534,7 @@ func (f *fitter) point(g Grid, i, j int, u, v, stdU, stdV []float64) Gradient {
 	var au, av [3]float64
 	var vu, vv [3]float64 // var of a1, var of a2, cov(a1, a2), for u and v
 	withStd := stdU != nil
-	corr := withStd && f.rho != nil
+	corr := withStd && f.kern != nil
 	nx, ny := i1-i0+1, j1-j0+1
 	if corr {
 		for a := range f.w {
@@ -564,11 +578,12 @@ func (f *fitter) point(g Grid, i, j int, u, v, stdU, stdV []float64) Gradient {
 	}
 	if corr {
 		w := f.w
+		// Var(a1) = a1ᵀρa1, Cov(a1, a2) = a1ᵀρa2, Var(a2) = a2ᵀρa2.
 		for c, out := range [2]*[3]float64{&vu, &vv} {
 			a1, a2 := w[2*c][:nx*ny], w[2*c+1][:nx*ny]
-			out[0] = f.correlated(a1, a1, nx, ny, true)
-			out[2] = f.correlated(a1, a2, nx, ny, true)
-			out[1] = f.correlated(a2, a2, nx, ny, false)
+			out[0] = dot(a1, f.filter(a1, nx, ny))
+			c2 := f.filter(a2, nx, ny)
+			out[2], out[1] = dot(a1, c2), dot(a2, c2)
 		}
 	}
 	s := f.step

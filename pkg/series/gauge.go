@@ -6,6 +6,7 @@ import (
 	"sort"
 
 	"github.com/mottledic/mottle/pkg/analysis"
+	"github.com/mottledic/mottle/pkg/kinematics"
 )
 
 // Extensometer is a virtual extensometer: two material points A and B
@@ -304,8 +305,8 @@ func (l lattice) displacementAt(u, v []float64, valid []bool, x, y float64) (du,
 // interpolates bilinearly between the four grid points around the
 // position, it is the std of that weighted sum, with the errors of two
 // points correlated as the share of pixels their subsets (of side subset
-// px) have in common (the model of kinematics.Gradients, from the
-// linearised estimator of Wang, Li, Tong & Ruan 2007, Exp. Mech. 47:701).
+// px) have in common (kinematics.SubsetCorrelation, from the linearised
+// estimator of Wang, Li, Tong & Ruan 2007, Exp. Mech. 47:701).
 // Elsewhere it is the mean std of the valid points of the 4×4 block
 // around the position, which the plane fit there uses (an upper bound).
 // ok is false where no point there has a positive std.
@@ -319,7 +320,6 @@ func (l lattice) stdAt(su, sv []float64, valid []bool, x, y, subset float64) (sx
 		k := j*l.Nx + i
 		return k, valid[k] && su[k] > 0 && sv[k] > 0
 	}
-	rho := func(d int) float64 { return max(0, 1-float64(d)*l.Step/subset) }
 	var ks [4]int
 	var w [4]float64
 	all := true
@@ -335,7 +335,7 @@ func (l lattice) stdAt(su, sv []float64, valid []bool, x, y, subset float64) (sx
 		var vx, vy float64
 		for a := range 4 {
 			for b := range 4 {
-				r := rho(abs(a%2-b%2)) * rho(abs(a/2-b/2))
+				r := kinematics.SubsetCorrelation(a%2-b%2, l.Step, subset) * kinematics.SubsetCorrelation(a/2-b/2, l.Step, subset)
 				vx += w[a] * w[b] * r * su[ks[a]] * su[ks[b]]
 				vy += w[a] * w[b] * r * sv[ks[a]] * sv[ks[b]]
 			}
@@ -355,8 +355,6 @@ func (l lattice) stdAt(su, sv []float64, valid []bool, x, y, subset float64) (sx
 	}
 	return sx / float64(n), sy / float64(n), true
 }
-
-func abs(d int) int { return max(d, -d) }
 
 // extStd returns the predicted std of an extensometer's engineering
 // strain from the displacement std (sx, sy) at each end, px, and the

@@ -62,7 +62,7 @@ type Surface struct {
 // State.Std) through the fit to first order (JCGM 100:2008, "Guide to the
 // expression of uncertainty in measurement", 5.2): neighbours whose
 // subsets share pixels have correlated errors, as the share of pixels in
-// common (the model of kinematics.Gradients), with each point's 3×3
+// common (kinematics.SubsetCorrelation), with each point's 3×3
 // displacement covariance (State.Std, State.Cov) and the frames of the fit
 // held fixed.
 func Strain(ref *Reference, st *State, o StrainOptions) ([]Surface, error) {
@@ -89,9 +89,8 @@ func Strain(ref *Reference, st *State, o StrainOptions) ([]Surface, error) {
 	h := o.Window / 2
 	var nb []int
 	var ij [][2]int
-	rho := func(d int) float64 {
-		return max(0, 1-float64(max(d, -d))*float64(g.Step)/float64(ref.Options.Correlate.Subset))
-	}
+	step, subset := float64(g.Step), float64(ref.Options.Correlate.Subset)
+	rho := func(d int) float64 { return kinematics.SubsetCorrelation(d, step, subset) }
 	for j := range g.Ny {
 		for i := range g.Nx {
 			k := g.Index(i, j)
