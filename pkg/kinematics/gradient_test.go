@@ -250,7 +250,38 @@ func TestTranslationInvariance(t *testing.T) {
 // std of 4000 trials has a relative standard error of about 1/√8000 ≈ 1.1 %,
 // so a 5 % tolerance leaves room for > 4 standard errors.
 func TestGradientStdMonteCarlo(t *testing.T) {
-	g := Grid{Step: 5, Nx: 7, Ny: 7}
+	g, u0, v0, su, sv, probes := stdCase(Grid{Step: 5, Nx: 7, Ny: 7})
+	for _, fit := range []Fit{Plane, Quadratic} {
+		opt := GradientOptions{Window: 5, Fit: fit, Threads: 1}
+		pred, err := Gradients(context.Background(), g, u0, v0, su, sv, opt)
+		if err != nil {
+			t.Fatal(err)
+		}
+		r := rand.New(rand.NewPCG(7, uint64(fit)))
+		sd := monteCarloStd(g, u0, v0, probes, opt, func(du, dv []float64) {
+			for p := range du {
+				du[p] = su[p] * r.NormFloat64()
+				dv[p] = sv[p] * r.NormFloat64()
+			}
+		})
+		for k, p := range probes {
+			if pred[p].Status != GradOK {
+				t.Fatalf("%v probe %d: status %v", fit, p, pred[p].Status)
+			}
+			want := propagatedStd(pred[p])
+			for c := range want {
+				if math.Abs(sd[k][c]/want[c]-1) > 0.05 {
+					t.Errorf("%v point %d std %s: propagated %.4g, Monte Carlo %.4g", fit, p, stdName(c), want[c], sd[k][c])
+				}
+			}
+		}
+	}
+}
+
+// stdCase is the field of the Monte Carlo tests on g (7×7): an affine
+// displacement with a hole in one window, per-point stds that vary, and
+// three probe points (inside, near a corner, at an edge).
+func stdCase(g Grid) (Grid, []float64, []float64, []float64, []float64, []int) {
 	u0, v0 := fillField(g,
 		func(x, y float64) float64 { return 0.05*x + 0.02*y },
 		func(x, y float64) float64 { return -0.01*x + 0.03*y })
@@ -260,50 +291,50 @@ func TestGradientStdMonteCarlo(t *testing.T) {
 		sv[p] = 0.02 - 0.001*float64(p%7)
 	}
 	u0[2*7+4] = math.NaN() // a hole in the window, so the fit is irregular
-	probes := []int{3*7 + 3, 1*7 + 1, 6*7 + 1}
-	for _, fit := range []Fit{Plane, Quadratic} {
-		opt := GradientOptions{Window: 5, Fit: fit, Threads: 1}
-		pred, err := Gradients(context.Background(), g, u0, v0, su, sv, opt)
-		if err != nil {
-			t.Fatal(err)
+	return g, u0, v0, su, sv, []int{3*7 + 3, 1*7 + 1, 6*7 + 1}
+}
+
+// stdName names component c of propagatedStd and monteCarloStd.
+func stdName(c int) string { return [6]string{"Ux", "Uy", "Vx", "Vy", "E11", "E12"}[c] }
+
+// propagatedStd returns the propagated std of Ux, Uy, Vx, Vy, E11 and E12.
+func propagatedStd(p Gradient) [6]float64 {
+	s11, _, s12 := p.StdGreenLagrange()
+	return [6]float64{math.Sqrt(p.VarUx), math.Sqrt(p.VarUy), math.Sqrt(p.VarVx), math.Sqrt(p.VarVy), s11, s12}
+}
+
+// monteCarloStd returns, per probe, the sample std of Ux, Uy, Vx, Vy,
+// E11 and E12 over 4000 fits of u0 + du, v0 + dv, draw filling the
+// errors du and dv of each trial.
+func monteCarloStd(g Grid, u0, v0 []float64, probes []int, opt GradientOptions, draw func(du, dv []float64)) [][6]float64 {
+	const trials = 4000
+	type acc struct{ s, s2 [6]float64 }
+	accs := make([]acc, len(probes))
+	u, v := make([]float64, g.Len()), make([]float64, g.Len())
+	du, dv := make([]float64, g.Len()), make([]float64, g.Len())
+	for range trials {
+		draw(du, dv)
+		for p := range u {
+			u[p], v[p] = u0[p]+du[p], v0[p]+dv[p]
 		}
-		r := rand.New(rand.NewPCG(7, uint64(fit)))
-		const trials = 4000
-		type acc struct{ s, s2 [6]float64 }
-		accs := make([]acc, len(probes))
-		u, v := make([]float64, g.Len()), make([]float64, g.Len())
-		for range trials {
-			for p := range u {
-				u[p] = u0[p] + su[p]*r.NormFloat64()
-				v[p] = v0[p] + sv[p]*r.NormFloat64()
-			}
-			res, _ := Gradients(context.Background(), g, u, v, nil, nil, opt)
-			for k, p := range probes {
-				m := Compute(res[p].F(), GreenLagrangeMeasure)
-				x := [6]float64{res[p].Ux, res[p].Uy, res[p].Vx, res[p].Vy, m.E[0][0], m.E[0][1]}
-				for c := range x {
-					accs[k].s[c] += x[c]
-					accs[k].s2[c] += x[c] * x[c]
-				}
-			}
-		}
+		res, _ := Gradients(context.Background(), g, u, v, nil, nil, opt)
 		for k, p := range probes {
-			pr := pred[p]
-			if pr.Status != GradOK {
-				t.Fatalf("%v probe %d: status %v", fit, p, pr.Status)
-			}
-			s11, _, s12 := pr.StdGreenLagrange()
-			want := [6]float64{math.Sqrt(pr.VarUx), math.Sqrt(pr.VarUy), math.Sqrt(pr.VarVx), math.Sqrt(pr.VarVy), s11, s12}
-			names := [6]string{"Ux", "Uy", "Vx", "Vy", "E11", "E12"}
-			for c := range want {
-				mean := accs[k].s[c] / trials
-				sd := math.Sqrt((accs[k].s2[c] - trials*mean*mean) / (trials - 1))
-				if math.Abs(sd/want[c]-1) > 0.05 {
-					t.Errorf("%v point %d std %s: propagated %.4g, Monte Carlo %.4g", fit, p, names[c], want[c], sd)
-				}
+			m := Compute(res[p].F(), GreenLagrangeMeasure)
+			x := [6]float64{res[p].Ux, res[p].Uy, res[p].Vx, res[p].Vy, m.E[0][0], m.E[0][1]}
+			for c := range x {
+				accs[k].s[c] += x[c]
+				accs[k].s2[c] += x[c] * x[c]
 			}
 		}
 	}
+	out := make([][6]float64, len(probes))
+	for k := range probes {
+		for c := range out[k] {
+			mean := accs[k].s[c] / trials
+			out[k][c] = math.Sqrt((accs[k].s2[c] - trials*mean*mean) / (trials - 1))
+		}
+	}
+	return out
 }
 
 // Results do not depend on the number of goroutines (project rule).
@@ -417,17 +448,7 @@ func BenchmarkGradients(b *testing.B) {
 // 10 % (for the quadratic fit at a corner it can also overstate it).
 func TestGradientStdCorrelated(t *testing.T) {
 	const step, m = 5, 13 // px: neighbours 1 and 2 steps apart share pixels
-	g := Grid{X0: m, Y0: m, Step: step, Nx: 7, Ny: 7}
-	u0, v0 := fillField(g,
-		func(x, y float64) float64 { return 0.05*x + 0.02*y },
-		func(x, y float64) float64 { return -0.01*x + 0.03*y })
-	su, sv := make([]float64, g.Len()), make([]float64, g.Len())
-	for p := range su {
-		su[p] = 0.01 + 0.002*float64(p%5)
-		sv[p] = 0.02 - 0.001*float64(p%7)
-	}
-	u0[2*7+4] = math.NaN() // a hole in the window, so the fit is irregular
-	probes := []int{3*7 + 3, 1*7 + 1, 6*7 + 1}
+	g, u0, v0, su, sv, probes := stdCase(Grid{X0: m, Y0: m, Step: step, Nx: 7, Ny: 7})
 	w, h := 2*m+(g.Nx-1)*step+1, 2*m+(g.Ny-1)*step+1 // pixels of the noise
 	// subsetNoise returns, per point, the sum of the pixel noise nz over
 	// its subset divided by m (unit variance).
@@ -460,57 +481,37 @@ func TestGradientStdCorrelated(t *testing.T) {
 			t.Fatal(err)
 		}
 		r := rand.New(rand.NewPCG(11, uint64(fit)))
-		const trials = 4000
-		type acc struct{ s, s2 [6]float64 }
-		accs := make([]acc, len(probes))
-		u, v := make([]float64, g.Len()), make([]float64, g.Len())
 		nz := make([]float64, w*h)
-		for range trials {
-			for c, out := range [][]float64{u, v} {
+		sd := monteCarloStd(g, u0, v0, probes, opt, func(du, dv []float64) {
+			for c, out := range [][]float64{du, dv} {
 				for p := range nz {
 					nz[p] = r.NormFloat64()
 				}
 				z := subsetNoise(nz)
+				sc := su
+				if c == 1 {
+					sc = sv
+				}
 				for p := range out {
-					if c == 0 {
-						out[p] = u0[p] + su[p]*z[p]
-					} else {
-						out[p] = v0[p] + sv[p]*z[p]
-					}
+					out[p] = sc[p] * z[p]
 				}
 			}
-			res, _ := Gradients(context.Background(), g, u, v, nil, nil, opt)
-			for k, p := range probes {
-				mm := Compute(res[p].F(), GreenLagrangeMeasure)
-				x := [6]float64{res[p].Ux, res[p].Uy, res[p].Vx, res[p].Vy, mm.E[0][0], mm.E[0][1]}
-				for c := range x {
-					accs[k].s[c] += x[c]
-					accs[k].s2[c] += x[c] * x[c]
-				}
-			}
-		}
+		})
 		for k, p := range probes {
-			pr, lo := pred[p], lower[p]
-			if pr.Status != GradOK {
-				t.Fatalf("%v probe %d: status %v", fit, p, pr.Status)
+			if pred[p].Status != GradOK {
+				t.Fatalf("%v probe %d: status %v", fit, p, pred[p].Status)
 			}
-			s11, _, s12 := pr.StdGreenLagrange()
-			l11, _, l12 := lo.StdGreenLagrange()
-			want := [6]float64{math.Sqrt(pr.VarUx), math.Sqrt(pr.VarUy), math.Sqrt(pr.VarVx), math.Sqrt(pr.VarVy), s11, s12}
-			indepStd := [6]float64{math.Sqrt(lo.VarUx), math.Sqrt(lo.VarUy), math.Sqrt(lo.VarVx), math.Sqrt(lo.VarVy), l11, l12}
-			names := [6]string{"Ux", "Uy", "Vx", "Vy", "E11", "E12"}
+			want, indepStd := propagatedStd(pred[p]), propagatedStd(lower[p])
 			for c := range want {
-				mean := accs[k].s[c] / trials
-				sd := math.Sqrt((accs[k].s2[c] - trials*mean*mean) / (trials - 1))
-				if math.Abs(sd/want[c]-1) > 0.05 {
-					t.Errorf("%v point %d std %s: propagated %.4g, Monte Carlo %.4g", fit, p, names[c], want[c], sd)
+				if math.Abs(sd[k][c]/want[c]-1) > 0.05 {
+					t.Errorf("%v point %d std %s: propagated %.4g, Monte Carlo %.4g", fit, p, stdName(c), want[c], sd[k][c])
 				}
-				if fit == Plane && !(indepStd[c] < 0.9*sd) {
-					t.Errorf("%v point %d std %s: independent errors give %.4g, Monte Carlo %.4g: want it understated", fit, p, names[c], indepStd[c], sd)
+				if fit == Plane && !(indepStd[c] < 0.9*sd[k][c]) {
+					t.Errorf("%v point %d std %s: independent errors give %.4g, Monte Carlo %.4g: want it understated", fit, p, stdName(c), indepStd[c], sd[k][c])
 				}
 			}
 			if k == 0 {
-				t.Logf("%v: std E11 propagated %.4g (independent %.4g), Monte Carlo %.4g", fit, s11, l11, math.Sqrt(accs[k].s2[4]/trials-math.Pow(accs[k].s[4]/trials, 2)))
+				t.Logf("%v: std E11 propagated %.4g (independent %.4g), Monte Carlo %.4g", fit, want[4], indepStd[4], sd[k][4])
 			}
 		}
 	}
