@@ -58,6 +58,12 @@ func CheckContrast(g *Gray) error {
 	if contrastShown(g) {
 		return nil
 	}
+	return contrastOfStats(g)
+}
+
+// contrastOfStats is CheckContrast's decision from the whole image's
+// statistics, without the shortcut over its first rows.
+func contrastOfStats(g *Gray) error {
 	mean, std, min, max := Stats(g)
 	if min == max {
 		return fmt.Errorf("%w: every pixel has grey level %g; photograph a speckle pattern "+
