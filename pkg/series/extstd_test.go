@@ -11,6 +11,27 @@ import (
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
+// staticFrames renders n frames of a static specimen (the reference
+// first) at w×h px, speckles of 4 px from pattern seed patSeed, sensor
+// noise σ = 3 grey levels from noise seed noiseSeed.
+func staticFrames(t *testing.T, w, h, n int, patSeed, noiseSeed int64) []*imageio.Gray {
+	t.Helper()
+	pat, err := synth.NewPattern(synth.PatternOptions{Diameter: 4, Seed: patSeed, Bounds: synth.ImageRect(w, h, 12)})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var imgs []*imageio.Gray
+	err = synth.RenderSeries(context.Background(), pat, synth.StaticSeries(nil, n, 1, 0), synth.RenderOptions{W: w, H: h, Noise: 3, Seed: noiseSeed},
+		func(_ synth.Frame, g *imageio.Gray, _ synth.Report) error {
+			imgs = append(imgs, g)
+			return nil
+		})
+	if err != nil {
+		t.Fatal(err)
+	}
+	return imgs
+}
+
 // TestExtensometerStd: on static frames rendered by pkg/synth (no motion,
 // sensor noise σ = 3 grey levels), every extensometer strain is an error,
 // so the RMS of the readings over the extensometers and frames is what
@@ -23,21 +44,7 @@ import (
 // ends took the mean std of their neighbours, ignoring how much of their
 // subsets the neighbours share).
 func TestExtensometerStd(t *testing.T) {
-	const W, H = 256, 256
-	frames := synth.StaticSeries(nil, 7, 1, 0)
-	pat, err := synth.NewPattern(synth.PatternOptions{Diameter: 4, Seed: 8, Bounds: synth.ImageRect(W, H, 12)})
-	if err != nil {
-		t.Fatal(err)
-	}
-	var imgs []*imageio.Gray
-	err = synth.RenderSeries(context.Background(), pat, frames, synth.RenderOptions{W: W, H: H, Noise: 3, Seed: 4},
-		func(_ synth.Frame, g *imageio.Gray, _ synth.Report) error {
-			imgs = append(imgs, g)
-			return nil
-		})
-	if err != nil {
-		t.Fatal(err)
-	}
+	imgs := staticFrames(t, 256, 256, 7, 8, 4)
 	p := Defaults()
 	p.Analysis = analysis.Defaults()
 	p.Analysis.Subset, p.Analysis.Step = 21, 8

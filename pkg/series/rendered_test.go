@@ -333,21 +333,7 @@ func roiRect(r [4]int) *roi.Spec { return &roi.Spec{Rect: &r} }
 // correlator predicts from the image gradients, σ_u ≈ √2·σ/√Σ(∂f/∂x)²
 // (Wang, Li, Tong & Ruan 2007, Exp. Mech. 47:701): within a factor 1.5.
 func TestNoiseFloorStatic(t *testing.T) {
-	const W, H = 128, 128
-	frames := synth.StaticSeries(nil, 4, 1, 0)
-	pat, err := synth.NewPattern(synth.PatternOptions{Diameter: 4, Seed: 5, Bounds: synth.ImageRect(W, H, 12)})
-	if err != nil {
-		t.Fatal(err)
-	}
-	var imgs []*imageio.Gray
-	err = synth.RenderSeries(context.Background(), pat, frames, synth.RenderOptions{W: W, H: H, Noise: 3, Seed: 1},
-		func(_ synth.Frame, g *imageio.Gray, _ synth.Report) error {
-			imgs = append(imgs, g)
-			return nil
-		})
-	if err != nil {
-		t.Fatal(err)
-	}
+	imgs := staticFrames(t, 128, 128, 4, 5, 1)
 	// Without prefilter: the prediction assumes white noise, which a
 	// Gaussian prefilter would correlate.
 	p := Defaults()
