@@ -1,0 +1,235 @@
+package runner
+
+import (
+	"context"
+	"errors"
+	"fmt"
+	"time"
+
+	"github.com/mottledic/mottle/pkg/service/jobs"
+)
+
+// waitPrevious waits until job id may run (see frameReady): for at most
+// frameQueuedWait while the previous frame of its series has not started,
+// and frameWait in all, telling the queue from time to time that the
+// delivery is still held. Meanwhile it solves the frame ahead of its turn
+// once the rules of solveAhead allow it, and the waits start again after
+// the solve. It reports whether the job may run.
+func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
+	wctx, cancel := context.WithCancel(ctx)
+	defer cancel()
+	done := s.framesDone(wctx, id)
+	start := s.clock.Now()
+	beat := start
+	var idle time.Time // since when the previous frame has been seen not running
+	solved := false
+	held := time.Now() // since when the frame has been held, not solving
+	defer func() { s.metrics.held(time.Since(held).Seconds()) }()
+	var looked time.Time // when yieldFrame last looked
+	for wait := 10 * time.Millisecond; ; wait = min(2*wait, framePoll) {
+		g := s.frameReady(context.Background(), id)
+		if g != gateOpen && !solved && s.solveAheadHeld(ctx, id, d, &held) {
+			solved = true
+			start, beat, idle, wait = s.clock.Now(), s.clock.Now(), time.Time{}, 5*time.Millisecond
+			continue
+		}
+		now := s.clock.Now()
+		if g != gateOpen && !solved && now.Sub(looked) >= yieldLook {
+			looked = now
+			if s.yieldFrame(context.Background(), id) {
+				return false
+			}
+		}
+		switch {
+		case g == gateOpen:
+			return true
+		case g == gateRunning:
+			idle = time.Time{}
+		case idle.IsZero():
+			idle = now
+		}
+		if now.Sub(start) > frameWait || !idle.IsZero() && now.Sub(idle) > frameQueuedWait {
+			return false
+		}
+		if now.Sub(beat) > 2*time.Second {
+			beat = now
+			_ = d.InProgress()
+		}
+		select {
+		case <-ctx.Done():
+			return false
+		case <-done:
+		case <-s.clock.After(wait):
+		}
+	}
+}
+
+// framesDone returns a channel that receives when a frame of job id's
+// series finishes, until ctx ends: the frame gate looks again at once
+// rather than at its next poll, so that the hand-over from a frame to the
+// next, solved ahead and waiting, does not wait for the poll interval.
+// The channel never receives (the gate polls only) for a job that is not
+// a later frame of a series, or when the store cannot watch the series.
+// The watch is set up in the background, so that a store slow to start
+// it (a distributed store loads its mirror first) never delays the gate.
+func (s *Runner) framesDone(ctx context.Context, id string) <-chan struct{} {
+	out := make(chan struct{}, 1)
+	go func() {
+		j, err := s.store.Job(ctx, id)
+		if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
+			return
+		}
+		w, err := s.store.Watch(ctx, j.Series)
+		if err != nil {
+			return
+		}
+		for f := range w {
+			if f.FrameIndex < j.FrameIndex && f.State.Terminal() {
+				select {
+				case out <- struct{}{}:
+				default: // a look is due already
+				}
+			}
+		}
+	}()
+	return out
+}
+
+// yieldLook is how often a held frame looks whether it should give its
+// worker to other work (yieldFrame).
+const yieldLook = 250 * time.Millisecond
+
+// yieldFrame reports whether job id, a frame held waiting, should be put
+// back to let its worker serve other series (fair sharing, issue 21): it
+// cannot be computed now, not even solved ahead (frame n−bound of its
+// series has not finished, with bound its series' MaxInFlight, at least
+// 1), and the queue holds more jobs than the frames after it in its own
+// series that are still queued, so some other job is waiting. Put back,
+// it goes behind that job. A lone series never yields: its later frames
+// could not be computed either.
+func (s *Runner) yieldFrame(ctx context.Context, id string) bool {
+	q := s.queue.Len()
+	if q == 0 {
+		return false
+	}
+	j, err := s.store.Job(ctx, id)
+	if err != nil || j.Kind != jobs.Frame || j.State != jobs.Queued {
+		return false
+	}
+	sr, err := s.store.Series(ctx, j.Series)
+	if err != nil || j.FrameIndex > len(sr.Frames) {
+		return false
+	}
+	n, b := j.FrameIndex, max(1, sr.MaxInFlight)
+	if n < b {
+		return false
+	}
+	if back, err := s.store.Job(ctx, sr.Frames[n-b]); err != nil || back.State.Terminal() {
+		return false
+	}
+	list, err := s.store.Jobs(ctx, jobs.Filter{Series: sr.ID})
+	if err != nil {
+		return false
+	}
+	own := 0
+	for _, f := range list {
+		if f.FrameIndex > n && f.State == jobs.Queued {
+			own++
+		}
+	}
+	return q > own
+}
+
+// missingFrameWait is how long a frame waits for the record of its
+// predecessor to appear (its index is reserved before the record is
+// written); after that the predecessor counts as never accepted.
+const missingFrameWait = time.Minute
+
+// gate is the answer of frameReady.
+type gate int
+
+const (
+	gateOpen    gate = iota // the job may run
+	gateRunning             // the previous frame is running (or its record cannot be read now)
+	gateQueued              // the previous frame has not started
+)
+
+// frameReady reports whether job id may run now: anything but a series
+// frame may; frame n of a series may once frame n−1 has finished
+// (succeeded, failed or canceled), so that the frames of one series run
+// one at a time and in order while different series run in parallel.
+// If it may not, it tells whether frame n−1 is running.
+func (s *Runner) frameReady(ctx context.Context, id string) gate {
+	j, err := s.store.Job(ctx, id)
+	if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
+		return gateOpen // the normal path deals with it
+	}
+	sr, err := s.store.Series(ctx, j.Series)
+	if err != nil || j.FrameIndex > len(sr.Frames) {
+		return gateOpen
+	}
+	prev, err := s.store.Job(ctx, sr.Frames[j.FrameIndex-1])
+	switch {
+	case errors.Is(err, jobs.ErrNotFound):
+		if s.clock.Now().Sub(j.Created) > missingFrameWait {
+			return gateOpen
+		}
+		return gateQueued
+	case err != nil:
+		// A store switching over: wait in place, as a put-back would
+		// likely fail too.
+		return gateRunning
+	case prev.State.Terminal():
+		return gateOpen
+	case prev.State == jobs.Running:
+		return gateRunning
+	}
+	return gateQueued
+}
+
+// clock is the time source of the frame gate (waitPrevious, frameReady):
+// the wall clock in production; the gate's test replaces it with one it
+// advances itself, so that the waits are checked without sleeping.
+type clock interface {
+	Now() time.Time
+	After(d time.Duration) <-chan time.Time
+}
+
+// wallClock is the real time.
+type wallClock struct{}
+
+func (wallClock) Now() time.Time                         { return time.Now() }
+func (wallClock) After(d time.Duration) <-chan time.Time { return time.After(d) }
+
+// StateKey is the blob key of a series' tracker state after frame n.
+func StateKey(seriesID string, n int) string {
+	return jobs.SeriesKey(seriesID, fmt.Sprintf("state/%06d.json", n))
+}
+
+// lastDone returns the last succeeded frame of j's series before j, or nil
+// when there is none: the frame whose tracker state j continues from.
+func (s *Runner) lastDone(ctx context.Context, j *jobs.Job) (*jobs.Job, error) {
+	list, err := s.Frames(ctx, j.Series)
+	if err != nil {
+		return nil, err
+	}
+	var last *jobs.Job
+	for _, f := range list {
+		if f.FrameIndex < j.FrameIndex && f.State == jobs.Succeeded {
+			last = f
+		}
+	}
+	return last, nil
+}
+
+// dropOldState removes the tracker state j was computed from, now that
+// j's own state is stored and j is recorded as done.
+func (s *Runner) dropOldState(ctx context.Context, j *jobs.Job) {
+	last, err := s.lastDone(ctx, j)
+	if err == nil && last != nil {
+		err = jobs.DeleteKey(ctx, s.blobs, StateKey(j.Series, last.FrameIndex))
+	}
+	if err != nil {
+		s.log.Warn("remove old series state", "job", j.ID, "error", err)
+	}
+}
