@@ -6,8 +6,13 @@ import (
 	"fmt"
 	"net/http"
 	"os"
+	"os/signal"
+	"path/filepath"
+	"runtime"
+	"runtime/pprof"
 	"strconv"
 	"strings"
+	"sync"
 	"syscall"
 	"testing"
 	"time"
@@ -104,114 +109,142 @@ func BenchmarkClusterFrames(b *testing.B) {
 
 // BenchmarkClusterSeries measures one 60-frame series of 512×512 frames
 // (subset 21, step 8, direct mode: 3 600 points a frame) through a
-// three-node JetStream cluster, one API node and 1, 2 or 4 workers (real
-// processes, one job at a time each, one compute thread per job, so that
-// this 2-core machine can show the gain), with the frames of the series
-// solved ahead (--frames-in-flight equal to the workers) and, as the
-// baseline of the same run, one frame at a time on one and two workers.
+// three-node JetStream cluster with three replicas of every stream
+// (nats=r3), one API node and 1, 2 or 4 workers (real processes, one job
+// at a time each, one compute thread per job, so that this 2-core machine
+// can show the gain), with the frames of the series solved ahead
+// (--frames-in-flight equal to the workers). As a second configuration,
+// nats=r1 runs the same on a single NATS server with one replica: the
+// hand-over cost without replication, not a faster cluster. In a real
+// cluster the NATS nodes run on machines of their own; here they share
+// the cores with the workers, so it reports their CPU per frame
+// (nats+api-cpu-s/frame, the three nodes and the API) and the bound it
+// sets: bound-frames/s = cores / (worker + NATS + API CPU seconds per
+// frame), which no number of workers on this machine can pass.
 // Other processes on the machine lengthen the wall time, so it also
 // reports figures of the structure: the workers' CPU seconds per frame
 // (user+sys, /proc), and the seconds per frame they spent computing as
 // their logs give them (jobs, and frames solved ahead) and idle (the rest
 // of wall time × workers). With MOTTLE_BENCH_BASE set to the path of
 // another mottle binary (an earlier commit's), every case runs with it
-// too, interleaved in the same run (bin=base). Run with
+// too, interleaved in the same run (bin=base); MOTTLE_BENCH_NEW, when set,
+// names the binary of bin=new instead of one built from this tree. Run with
 //
 //	go test -run '^$' -bench ClusterSeries -benchtime 1x ./pkg/service/natsjs
 func BenchmarkClusterSeries(b *testing.B) {
 	const frames = 60
 	sc := render(b, frames, 512)
 	sc.params = []byte(`{"subset":21,"step":8,"incremental":"never"}`)
-	bins := []struct{ name, path string }{{"new", mottleBinary(b)}}
+	newBin := os.Getenv("MOTTLE_BENCH_NEW")
+	if newBin == "" {
+		newBin = mottleBinary(b)
+	}
+	bins := []struct{ name, path string }{{"new", newBin}}
 	if p := os.Getenv("MOTTLE_BENCH_BASE"); p != "" {
 		bins = append([]struct{ name, path string }{{"base", p}}, bins...)
 	}
-	for _, c := range []struct{ workers, inFlight int }{{1, 1}, {2, 1}, {2, 2}, {4, 4}} {
-		for _, bn := range bins {
-			bin := bn.path
-			b.Run(fmt.Sprintf("bin=%s/workers=%d/in-flight=%d", bn.name, c.workers, c.inFlight), func(b *testing.B) {
-				cl := startCluster(b)
-				obs := open(b, cl.url(""), func(o *Options) { o.Work = false })
-				backend := cl.url("")
-				port := freePorts(b, 1)[0]
-				api := startProc(b, "api", nil, bin, "serve", "--backend", backend, "--addr", fmt.Sprintf("127.0.0.1:%d", port),
-					"--no-ui", "--data", b.TempDir(), "--queue", "256", "--frames-in-flight", fmt.Sprint(c.inFlight))
-				base := fmt.Sprintf("http://127.0.0.1:%d", port)
-				waitFor(b, "API ready", func() bool {
-					res, err := http.Get(base + "/readyz")
-					if err == nil {
-						res.Body.Close()
+	profile := os.Getenv(profileEnv)
+	for _, nodes := range []int{3, 1} {
+		for _, c := range []struct{ workers, inFlight int }{{1, 1}, {2, 2}, {4, 4}} {
+			for _, bn := range bins {
+				bin := bn.path
+				name := fmt.Sprintf("nats=r%d/bin=%s/workers=%d/in-flight=%d", nodes, bn.name, c.workers, c.inFlight)
+				b.Run(name, func(b *testing.B) {
+					prof := ""
+					if profile != "" {
+						prof = filepath.Join(profile, strings.NewReplacer("/", "_", "=", "").Replace(name))
 					}
-					return err == nil && res.StatusCode == 200
-				})
-				var ws []*proc
-				for i := 0; i < c.workers; i++ {
-					w := startProc(b, fmt.Sprintf("worker-%d", i), nil, bin, "worker", "--backend", backend, "--workers", "1", "--threads", "1")
-					waitFor(b, "worker ready", func() bool { return strings.Contains(w.out.String(), "computing up to") })
-					ws = append(ws, w)
-				}
-				hc := client{b, base}
-				ctx := context.Background()
-				b.ResetTimer()
-				var el time.Duration
-				var compute float64
-				cpu0 := 0.0
-				for _, w := range ws {
-					cpu0 += procCPU(w)
-				}
-				// The NATS nodes and the API share the cores with the
-				// workers: their CPU time bounds the gain as well.
-				others := append([]*proc{api}, cl.nodes...)
-				other0 := make([]float64, len(others))
-				for k, p := range others {
-					other0[k] = procCPU(p)
-				}
-				for i := 0; i < b.N; i++ {
-					id := hc.multipart("/v1/series", map[string][]byte{"reference": sc.reference, "params": sc.params}, http.StatusCreated)
-					start := time.Now()
-					for k, f := range sc.frames {
-						hc.frame(id, f, k)
-					}
-					waitFor(b, "the series", func() bool {
-						sr, err := obs.Store().Series(ctx, id)
-						if err != nil || len(sr.Frames) != frames {
-							return false
+					cl := startNodes(b, nodes, prof)
+					obs := open(b, cl.url(""), func(o *Options) { o.Work = false })
+					backend := cl.url("")
+					port := freePorts(b, 1)[0]
+					api := startProc(b, "api", nil, bin, "serve", "--backend", backend, "--addr", fmt.Sprintf("127.0.0.1:%d", port),
+						"--no-ui", "--data", b.TempDir(), "--queue", "256", "--frames-in-flight", fmt.Sprint(c.inFlight))
+					base := fmt.Sprintf("http://127.0.0.1:%d", port)
+					waitFor(b, "API ready", func() bool {
+						res, err := http.Get(base + "/readyz")
+						if err == nil {
+							res.Body.Close()
 						}
-						j, err := obs.Store().Job(ctx, sr.Frames[frames-1])
-						return err == nil && j.State.Terminal()
+						return err == nil && res.StatusCode == 200
 					})
-					el += time.Since(start)
-					sr, _ := obs.Store().Series(ctx, id)
-					for k, fid := range sr.Frames {
-						j, err := obs.Store().Job(ctx, fid)
-						if err != nil || j.State != jobs.Succeeded {
-							b.Fatalf("frame %d: %v %+v", k, err, j)
+					var ws []*proc
+					for i := 0; i < c.workers; i++ {
+						var env []string
+						if prof != "" {
+							env = []string{fmt.Sprintf("MOTTLE_CPUPROFILE=%s-worker-%d.pprof", prof, i)}
 						}
-						compute += j.Summary.Seconds
+						w := startProc(b, fmt.Sprintf("worker-%d", i), env, bin, "worker", "--backend", backend, "--workers", "1", "--threads", "1")
+						waitFor(b, "worker ready", func() bool { return strings.Contains(w.out.String(), "computing up to") })
+						ws = append(ws, w)
 					}
-				}
-				b.StopTimer()
-				cpu, solve := -cpu0, 0.0
-				for _, w := range ws {
-					cpu += procCPU(w)
-					solve += logSeconds(w.out.String(), "frame solved ahead")
-				}
-				nats := 0.0
-				for k, p := range others {
-					nats += procCPU(p) - other0[k]
-				}
-				n := float64(b.N * frames)
-				b.ReportMetric(n/el.Seconds(), "frames/s")
-				b.ReportMetric(cpu/n, "cpu-s/frame")
-				b.ReportMetric(nats/n, "nats+api-cpu-s/frame")
-				b.ReportMetric(compute/n, "add-s/frame")
-				b.ReportMetric(solve/n, "solve-s/frame")
-				b.ReportMetric(max(0, el.Seconds()*float64(c.workers)-compute-solve)/n, "idle-s/frame")
-				api.signal(syscall.SIGTERM)
-				for _, w := range ws {
-					w.signal(syscall.SIGTERM)
-				}
-			})
+					hc := client{b, base}
+					ctx := context.Background()
+					b.ResetTimer()
+					var el time.Duration
+					var compute float64
+					cpu0 := 0.0
+					for _, w := range ws {
+						cpu0 += procCPU(w)
+					}
+					// The NATS nodes and the API share the cores with the
+					// workers: their CPU time bounds the gain as well.
+					others := append([]*proc{api}, cl.nodes...)
+					other0 := make([]float64, len(others))
+					for k, p := range others {
+						other0[k] = procCPU(p)
+					}
+					for i := 0; i < b.N; i++ {
+						id := hc.multipart("/v1/series", map[string][]byte{"reference": sc.reference, "params": sc.params}, http.StatusCreated)
+						start := time.Now()
+						for k, f := range sc.frames {
+							hc.frame(id, f, k)
+						}
+						waitFor(b, "the series", func() bool {
+							sr, err := obs.Store().Series(ctx, id)
+							if err != nil || len(sr.Frames) != frames {
+								return false
+							}
+							j, err := obs.Store().Job(ctx, sr.Frames[frames-1])
+							return err == nil && j.State.Terminal()
+						})
+						el += time.Since(start)
+						sr, _ := obs.Store().Series(ctx, id)
+						for k, fid := range sr.Frames {
+							j, err := obs.Store().Job(ctx, fid)
+							if err != nil || j.State != jobs.Succeeded {
+								b.Fatalf("frame %d: %v %+v", k, err, j)
+							}
+							compute += j.Summary.Seconds
+						}
+					}
+					b.StopTimer()
+					if prof != "" {
+						stopProfiles(b, append(append([]*proc{}, cl.nodes...), ws...))
+					}
+					cpu, solve := -cpu0, 0.0
+					for _, w := range ws {
+						cpu += procCPU(w)
+						solve += logSeconds(w.out.String(), "frame solved ahead")
+					}
+					nats := 0.0
+					for k, p := range others {
+						nats += procCPU(p) - other0[k]
+					}
+					n := float64(b.N * frames)
+					b.ReportMetric(n/el.Seconds(), "frames/s")
+					b.ReportMetric(cpu/n, "cpu-s/frame")
+					b.ReportMetric(nats/n, "nats+api-cpu-s/frame")
+					b.ReportMetric(float64(runtime.NumCPU())*n/(cpu+nats), "bound-frames/s")
+					b.ReportMetric(compute/n, "add-s/frame")
+					b.ReportMetric(solve/n, "solve-s/frame")
+					b.ReportMetric(max(0, el.Seconds()*float64(c.workers)-compute-solve)/n, "idle-s/frame")
+					api.signal(syscall.SIGTERM)
+					for _, w := range ws {
+						w.signal(syscall.SIGTERM)
+					}
+				})
+			}
 		}
 	}
 }
@@ -293,5 +326,50 @@ func BenchmarkDeleteState(b *testing.B) {
 				}
 			})
 		}
+	}
+}
+
+// profileEnv names a directory: with it set, BenchmarkClusterSeries has
+// every NATS node write a CPU profile, from its start to the end of the
+// measured part, to it
+// (<case>-n<i>.pprof), and passes MOTTLE_CPUPROFILE=<case>-worker-<i>.pprof
+// to the workers, for a mottle binary built to honour it (the released
+// one does not: leave the variable unset with it). Read them with
+// go tool pprof.
+const profileEnv = "MOTTLE_BENCH_PROFILE"
+
+// profileUntilUSR1 writes this process's CPU profile to path from now
+// until SIGUSR1 (or the returned stop), then prints "profile written".
+func profileUntilUSR1(path string) (stop func(), err error) {
+	f, err := os.Create(path)
+	if err != nil {
+		return nil, fmt.Errorf("cpu profile: %w", err)
+	}
+	if err := pprof.StartCPUProfile(f); err != nil {
+		f.Close()
+		return nil, fmt.Errorf("cpu profile %s: %w", path, err)
+	}
+	var once sync.Once
+	stop = func() {
+		once.Do(func() {
+			pprof.StopCPUProfile()
+			f.Close()
+			fmt.Println("profile written")
+		})
+	}
+	usr1 := make(chan os.Signal, 1)
+	signal.Notify(usr1, syscall.SIGUSR1)
+	go func() { <-usr1; stop() }()
+	return stop, nil
+}
+
+// stopProfiles sends SIGUSR1 to ps and waits until each has written its
+// profile.
+func stopProfiles(b *testing.B, ps []*proc) {
+	for _, p := range ps {
+		p.signal(syscall.SIGUSR1)
+	}
+	for _, p := range ps {
+		waitFor(b, p.name+" profile", func() bool { return strings.Contains(p.out.String(), "profile written") })
 	}
 }

@@ -61,6 +61,9 @@ type nodeConfig struct {
 	ClusterPort int    `json:"cluster_port"`
 	Routes      string `json:"routes"`
 	Dir         string `json:"dir"`
+	// Profile, when set, is the file the node writes its CPU profile to
+	// on SIGUSR1 (runtime/pprof; for benchmarks, see profileEnv).
+	Profile string `json:"profile,omitempty"`
 }
 
 func TestMain(m *testing.M) {
@@ -127,9 +130,19 @@ func runNode(cfg string) int {
 		return 2
 	}
 	opts := &server.Options{ServerName: c.Name, Host: "127.0.0.1", Port: c.Port, JetStream: true, StoreDir: c.Dir,
-		NoSigs: true, NoLog: true,
-		Cluster: server.ClusterOpts{Name: "mottle-test", Host: "127.0.0.1", Port: c.ClusterPort},
-		Routes:  server.RoutesFromStr(c.Routes)}
+		NoSigs: true, NoLog: true}
+	if c.ClusterPort != 0 {
+		opts.Cluster = server.ClusterOpts{Name: "mottle-test", Host: "127.0.0.1", Port: c.ClusterPort}
+		opts.Routes = server.RoutesFromStr(c.Routes)
+	}
+	if c.Profile != "" {
+		stop, err := profileUntilUSR1(c.Profile)
+		if err != nil {
+			fmt.Fprintln(os.Stderr, "node:", err)
+			return 1
+		}
+		defer stop()
+	}
 	s, err := server.NewServer(opts)
 	if err != nil {
 		fmt.Fprintln(os.Stderr, "node:", err)
@@ -306,7 +319,8 @@ func mottleBinary(t testing.TB) string {
 	return buildOnce.bin
 }
 
-// cluster is a running three-node JetStream cluster.
+// cluster is a running three-node JetStream cluster (or, from
+// startNodes(t, 1, ""), a single server).
 type cluster struct {
 	nodes []*proc
 	urls  []string
@@ -320,19 +334,31 @@ func (c *cluster) url(query string) string {
 	return u
 }
 
-func startCluster(t testing.TB) *cluster {
+func startCluster(t testing.TB) *cluster { return startNodes(t, 3, "") }
+
+// startNodes starts n NATS servers with JetStream: a cluster of n, or
+// one server outside any cluster when n is 1 (its streams get one
+// replica). With profile set, node i writes its CPU profile to
+// profile+"-n<i>.pprof" on SIGUSR1 (see stopProfiles).
+func startNodes(t testing.TB, n int, profile string) *cluster {
 	t.Helper()
-	ports := freePorts(t, 6)
+	ports := freePorts(t, 2*n)
 	c := &cluster{}
 	var routes []string
-	for i := 0; i < 3; i++ {
-		routes = append(routes, fmt.Sprintf("nats://127.0.0.1:%d", ports[3+i]))
+	for i := 0; i < n; i++ {
+		routes = append(routes, fmt.Sprintf("nats://127.0.0.1:%d", ports[n+i]))
 		c.urls = append(c.urls, fmt.Sprintf("nats://127.0.0.1:%d", ports[i]))
 	}
 	dir := t.TempDir()
-	for i := 0; i < 3; i++ {
-		cfg, _ := json.Marshal(nodeConfig{Name: fmt.Sprintf("n%d", i+1), Port: ports[i], ClusterPort: ports[3+i],
-			Routes: strings.Join(routes, ","), Dir: filepath.Join(dir, fmt.Sprintf("n%d", i+1))})
+	for i := 0; i < n; i++ {
+		nc := nodeConfig{Name: fmt.Sprintf("n%d", i+1), Port: ports[i], Dir: filepath.Join(dir, fmt.Sprintf("n%d", i+1))}
+		if n > 1 {
+			nc.ClusterPort, nc.Routes = ports[n+i], strings.Join(routes, ",")
+		}
+		if profile != "" {
+			nc.Profile = fmt.Sprintf("%s-n%d.pprof", profile, i+1)
+		}
+		cfg, _ := json.Marshal(nc)
 		c.nodes = append(c.nodes, startProc(t, fmt.Sprintf("nats-n%d", i+1), []string{nodeEnv + "=" + string(cfg)},
 			os.Args[0], "-test.run=^$"))
 	}
