@@ -164,6 +164,26 @@ func acc4(d *[5][5]float64, c0, c1, c2, c3, c4, p1, p2, p3, p4 float64) {
 	d[4][0] += c4
 }
 
+// accPow adds c·η^b to d[b] for b ≤ 4, given η^b = p_b: one line of acc4,
+// small enough to be inlined (acc4 is not).
+func accPow(d *[5]float64, c, p1, p2, p3, p4 float64) {
+	d[0] += c
+	d[1] += c * p1
+	d[2] += c * p2
+	d[3] += c * p3
+	d[4] += c * p4
+}
+
+// acc4hi is acc4 for k = 2, 3, 4, small enough to be inlined.
+func acc4hi(d *[5][5]float64, c2, c3, c4, p1, p2 float64) {
+	d[2][0] += c2
+	d[2][1] += c2 * p1
+	d[2][2] += c2 * p2
+	d[3][0] += c3
+	d[3][1] += c3 * p1
+	d[4][0] += c4
+}
+
 // acc2 adds c_k·η^b to d[k][b] for k + b ≤ 2, given η^b = p_b.
 func acc2(d *[3][3]float64, c0, c1, c2, p1, p2 float64) {
 	d[0][0] += c0
@@ -253,6 +273,13 @@ func (s *solver) hessian2m(h *[144]float64) {
 		acc2(&rbw[3], h0, h1, h2, p1, p2)
 		k += side
 	}
+	s.risingToMoments(h, &rw, &rbw)
+}
+
+// risingToMoments turns the row sums of hessian2m, rw[q][k][b] (k + b ≤ 4)
+// and rbw[q][k][b] (k + b ≤ 2), still in the rising basis in ξ, into the
+// moments of setHessian2, and fills h, Σ J f̃ and Σ J from them.
+func (s *solver) risingToMoments(h *[144]float64, rw *[3][5][5]float64, rbw *[4][3][3]float64) {
 	// Moments in ξ: mw[q][a][b] = Σ_k fromRising[a][k]·rw[q][k][b].
 	var mw [3][5][5]float64 // mw[q][a][b] = Σ w_q ξ^a η^b, a + b ≤ 4
 	var mb [4][3][3]float64 // mb[q][a][b] for fx f̃, fy f̃, fx, fy, a + b ≤ 2

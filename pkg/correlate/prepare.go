@@ -105,29 +105,31 @@ func (s *solver) factor(h *[144]float64) Status {
 }
 
 // prepare1 is prepare for the first-order warp and a subset centred on the
-// pixel (ix, iy), the case of every grid point: it reads the subset once
-// for the samples, their sums and the Hessian's row sums (hessian1's
-// running sums, here fused with the copy so that the chains of additions
-// run side by side instead of one loop after another), and once more for
-// Σ J f and Σ J, with f not yet centred: Σ J f̃ = Σ J f − f̄ Σ J.
+// pixel (ix, iy), the case of every grid point. It reads the subset twice.
+// The first pass copies the samples and gradients, sums the samples and
+// takes the Hessian's row sums (hessian1's running sums from the right
+// end of each row); the second, once f̄ is known, centres the samples and
+// takes ‖f − f̄‖² and the row sums of Σ J f̃ and Σ J. With the running sums
+// each pass keeps at most 13 values live, so that they stay in registers. The sums differ from hessian1's by rounding
+// only, which TestPrepare1MatchesGeneral bounds.
 func (s *solver) prepare1(ix, iy int) Status {
 	m := s.m
 	side := 2*m + 1
 	cc := float64(m + 1)
+	n := float64(s.n)
+	stride, w := s.ref.Stride, s.ref.W
 	var sum float64
-	var hxx, hxy, hyy [3][3]float64
-	var bx, by, jx, jy [2][2]float64 // a+b ≤ 1
+	var rxx, rxy, ryy [3][3]float64 // rising basis in ξ, see fromRising2
 	k := 0
 	for j := -m; j <= m; j++ {
 		eta := float64(j)
 		f, fx, fy := s.f[k:k+side], s.fx[k:k+side], s.fy[k:k+side]
-		o := (iy+j)*s.ref.Stride + ix - m
+		o := (iy+j)*stride + ix - m
 		pix := s.ref.Pix[o : o+side]
-		o = (iy+j)*s.ref.W + ix - m
+		o = (iy+j)*w + ix - m
 		gxs, gys := s.gx[o:o+side], s.gy[o:o+side]
 		pix, gxs, gys = pix[:len(f)], gxs[:len(f)], gys[:len(f)]
 		fx, fy = fx[:len(f)], fy[:len(f)]
-		// Running sums from the right end of the row, as in hessian1.
 		var rs, xx0, xx1, xx2, xy0, xy1, xy2, yy0, yy1, yy2 float64
 		for i := len(f) - 1; i >= 0; i-- {
 			v, gx, gy := float64(pix[i]), float64(gxs[i]), float64(gys[i])
@@ -144,9 +146,26 @@ func (s *solver) prepare1(ix, iy int) Status {
 			yy2 += yy1
 		}
 		sum += rs
+		acc2(&rxx, xx0, xx1, xx2, eta, eta*eta)
+		acc2(&rxy, xy0, xy1, xy2, eta, eta*eta)
+		acc2(&ryy, yy0, yy1, yy2, eta, eta*eta)
+		k += side
+	}
+	hxx, hxy, hyy := fromRising2(&rxx, cc), fromRising2(&rxy, cc), fromRising2(&ryy, cc)
+	fm := sum / n
+	s.fmean = fm
+	var bx, by, jx, jy [2][2]float64 // a+b ≤ 1
+	var ss float64
+	k = 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		f, fx, fy := s.f[k:k+side], s.fx[k:k+side], s.fy[k:k+side]
+		fx, fy = fx[:len(f)], fy[:len(f)]
 		var bx0, bx1, by0, by1, jx0, jx1, jy0, jy1 float64
 		for i := len(f) - 1; i >= 0; i-- {
-			gx, gy, v := fx[i], fy[i], f[i]
+			gx, gy, v := fx[i], fy[i], f[i]-fm
+			f[i] = v
+			ss += v * v
 			bx0 += gx * v
 			bx1 += bx0
 			by0 += gy * v
@@ -156,34 +175,13 @@ func (s *solver) prepare1(ix, iy int) Status {
 			jy0 += gy
 			jy1 += jy0
 		}
-		addRow2(&hxx, cc, eta, xx0, xx1, xx2)
-		addRow2(&hxy, cc, eta, xy0, xy1, xy2)
-		addRow2(&hyy, cc, eta, yy0, yy1, yy2)
 		addRow1(&bx, cc, eta, bx0, bx1)
 		addRow1(&by, cc, eta, by0, by1)
 		addRow1(&jx, cc, eta, jx0, jx1)
 		addRow1(&jy, cc, eta, jy0, jy1)
 		k += side
 	}
-	n := float64(s.n)
-	s.fmean = sum / n
-	fm := s.fmean
-	// Centre the samples; two partial sums of squares, so that the
-	// additions do not wait for each other.
-	var ss0, ss1 float64
-	f := s.f[:s.n]
-	for k := 0; k+1 < len(f); k += 2 {
-		a, b := f[k]-fm, f[k+1]-fm
-		f[k], f[k+1] = a, b
-		ss0 += a * a
-		ss1 += b * b
-	}
-	if len(f)%2 == 1 {
-		a := f[len(f)-1] - fm
-		f[len(f)-1] = a
-		ss0 += a * a
-	}
-	s.df = math.Sqrt(ss0 + ss1)
+	s.df = math.Sqrt(ss)
 	if !(s.df > 0) || s.df/math.Sqrt(n) < s.minStd {
 		return LowContrast
 	}
@@ -194,14 +192,28 @@ func (s *solver) prepare1(ix, iy int) Status {
 		if a >= 3 {
 			bb, jj = &by, &jy
 		}
-		sj := jj[pw[0]][pw[1]]
-		s.sj[a] = sj
-		s.b0[a] = bb[pw[0]][pw[1]] - fm*sj
+		s.b0[a] = bb[pw[0]][pw[1]]
+		s.sj[a] = jj[pw[0]][pw[1]]
 	}
 	for a := 6; a < 12; a++ {
 		s.b0[a], s.sj[a] = 0, 0
 	}
 	return s.factor(&h)
+}
+
+// fromRising2 returns the moments h[a][b] = Σ w ξ^a η^b (a + b ≤ 2) from
+// the sums over the rows r[k][b] = Σ c_k η^b of the running sums c_k of
+// each row (c0 = Σ w, c1 = Σ (i+1) w, c2 = Σ (i+1)(i+2)/2 w) as addRow2
+// computes them row by row, here once for the whole subset (the change of
+// basis is linear); cc = m + 1.
+func fromRising2(r *[3][3]float64, cc float64) [3][3]float64 {
+	var h [3][3]float64
+	s0, s1 := r[0][0], r[1][0]-cc*r[0][0]
+	h[0][0], h[1][0] = s0, s1
+	h[2][0] = 2*r[2][0] - (2*cc+1)*s1 - cc*(cc+1)*s0
+	h[0][1], h[1][1] = r[0][1], r[1][1]-cc*r[0][1]
+	h[0][2] = r[0][2]
+	return h
 }
 
 // pow1 lists the powers of ξ and η in the first-order steepest-descent
@@ -292,4 +304,112 @@ func (s *solver) smoothedVars(cu, cv *[12]float64) (vu, vv float64) {
 		}
 	}
 	return vu, vv
+}
+
+// prepare2 is prepare for the second-order warp and a subset centred on
+// the pixel (ix, iy): prepareAny and hessian2m fused, as prepare1 fuses
+// prepareAny and hessian1. The first pass copies the samples and
+// gradients, sums the samples and takes hessian2m's running sums of fx²,
+// fx fy (one loop) and of fy², fx, fy (another) along each row; the
+// second, once f̄ is known, centres the samples and takes ‖f − f̄‖² and the
+// running sums of fx f̃ and fy f̃. The sums differ from hessian2m's by
+// rounding only, which TestPrepare2MatchesGeneral bounds.
+func (s *solver) prepare2(ix, iy int) Status {
+	m := s.m
+	side := 2*m + 1
+	n := float64(s.n)
+	stride, w := s.ref.Stride, s.ref.W
+	var rw [3][5][5]float64  // as in hessian2m
+	var rbw [4][3][3]float64 // as in hessian2m
+	var sum float64
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		f, fx, fy := s.f[k:k+side], s.fx[k:k+side], s.fy[k:k+side]
+		o := (iy+j)*stride + ix - m
+		pix := s.ref.Pix[o : o+side]
+		o = (iy+j)*w + ix - m
+		gxs, gys := s.gx[o:o+side], s.gy[o:o+side]
+		pix, gxs, gys = pix[:len(f)], gxs[:len(f)], gys[:len(f)]
+		fx, fy = fx[:len(f)], fy[:len(f)]
+		var rs, a0, a1, a2, a3, a4, b0, b1, b2, b3, b4 float64
+		for i := len(f) - 1; i >= 0; i-- {
+			v, gx, gy := float64(pix[i]), float64(gxs[i]), float64(gys[i])
+			f[i], fx[i], fy[i] = v, gx, gy
+			rs += v
+			a0 += gx * gx
+			a1 += a0
+			a2 += a1
+			a3 += a2
+			a4 += a3
+			b0 += gx * gy
+			b1 += b0
+			b2 += b1
+			b3 += b2
+			b4 += b3
+		}
+		sum += rs
+		var c0, c1, c2, c3, c4, g0, g1, g2, h0, h1, h2 float64
+		for i := len(f) - 1; i >= 0; i-- {
+			gx, gy := fx[i], fy[i]
+			c0 += gy * gy
+			c1 += c0
+			c2 += c1
+			c3 += c2
+			c4 += c3
+			g0 += gx
+			g1 += g0
+			g2 += g1
+			h0 += gy
+			h1 += h0
+			h2 += h1
+		}
+		p1 := eta
+		p2 := p1 * eta
+		p3 := p2 * eta
+		p4 := p3 * eta
+		accPow(&rw[0][0], a0, p1, p2, p3, p4)
+		accPow(&rw[0][1], a1, p1, p2, p3, p4)
+		acc4hi(&rw[0], a2, a3, a4, p1, p2)
+		accPow(&rw[1][0], b0, p1, p2, p3, p4)
+		accPow(&rw[1][1], b1, p1, p2, p3, p4)
+		acc4hi(&rw[1], b2, b3, b4, p1, p2)
+		accPow(&rw[2][0], c0, p1, p2, p3, p4)
+		accPow(&rw[2][1], c1, p1, p2, p3, p4)
+		acc4hi(&rw[2], c2, c3, c4, p1, p2)
+		acc2(&rbw[2], g0, g1, g2, p1, p2)
+		acc2(&rbw[3], h0, h1, h2, p1, p2)
+		k += side
+	}
+	fm := sum / n
+	s.fmean = fm
+	var ss float64
+	k = 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		f, fx, fy := s.f[k:k+side], s.fx[k:k+side], s.fy[k:k+side]
+		fx, fy = fx[:len(f)], fy[:len(f)]
+		var d0, d1, d2, e0, e1, e2 float64
+		for i := len(f) - 1; i >= 0; i-- {
+			v := f[i] - fm
+			f[i] = v
+			ss += v * v
+			d0 += fx[i] * v
+			d1 += d0
+			d2 += d1
+			e0 += fy[i] * v
+			e1 += e0
+			e2 += e1
+		}
+		acc2(&rbw[0], d0, d1, d2, eta, eta*eta)
+		acc2(&rbw[1], e0, e1, e2, eta, eta*eta)
+		k += side
+	}
+	s.df = math.Sqrt(ss)
+	if !(s.df > 0) || s.df/math.Sqrt(n) < s.minStd {
+		return LowContrast
+	}
+	var h [144]float64
+	s.risingToMoments(&h, &rw, &rbw)
+	return s.factor(&h)
 }

@@ -192,7 +192,7 @@ func (s *solver) prepare2fast(ix, iy int) Status {
 	if vectorPass && !s.portable && 2*s.m+1 >= 8 {
 		return s.prepare2v(ix, iy)
 	}
-	return s.prepareAny(true)
+	return s.prepare2(ix, iy)
 }
 
 // prepare2v is prepareAny for the second-order warp and a subset centred on

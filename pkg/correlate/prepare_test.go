@@ -1,0 +1,124 @@
+package correlate
+
+import (
+	"context"
+	"math"
+	"math/rand/v2"
+	"testing"
+
+	"github.com/mottledic/mottle/pkg/synth"
+)
+
+// prepBench returns a first- or second-order solver on a 240×220 pair and
+// 48 grid points (step 8, subset 31) for the prepare benchmarks.
+func prepBench(b *testing.B, shape Shape) (*solver, [][2]int) {
+	m := synth.Affine{F: [2][2]float64{{1.006, 0.003}, {-0.002, 0.996}}, CX: 120, CY: 110, U: 2.7, V: -1.4}
+	ref, def := pair(b, m, 240, 220, 8, 1, 11)
+	r, err := newRun(context.Background(), ref, def, Options{Subset: 31, Shape: shape, Threads: 1}, tuning{})
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Cleanup(r.stop)
+	var pts [][2]int
+	for y := 40; y < 40+6*8; y += 8 {
+		for x := 40; x < 40+8*8; x += 8 {
+			pts = append(pts, [2]int{x, y})
+		}
+	}
+	return r.solvers[0], pts
+}
+
+// BenchmarkPrepare1 times the portable first-order grid-point prepare
+// alone, per subset, on data in the cache.
+func BenchmarkPrepare1(b *testing.B) {
+	s, pts := prepBench(b, First)
+	for b.Loop() {
+		for _, p := range pts {
+			if s.prepare1(p[0], p[1]) != OK {
+				b.Fatal("prepare1 failed")
+			}
+		}
+	}
+	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N*len(pts)), "ns/subset")
+}
+
+// BenchmarkPrepare2 is BenchmarkPrepare1 for the second-order prepare.
+func BenchmarkPrepare2(b *testing.B) {
+	s, pts := prepBench(b, Second)
+	for b.Loop() {
+		for _, p := range pts {
+			if s.prepare2(p[0], p[1]) != OK {
+				b.Fatal("prepare2 failed")
+			}
+		}
+	}
+	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N*len(pts)), "ns/subset")
+}
+
+// The fused grid-point prepares of the portable build (prepare1 and
+// prepare2: one pass for the copy, Σ f and the Hessian's running sums,
+// one for the centring, ‖f − f̄‖, Σ J f̃ and Σ J) give the reference data
+// of the general path (prepareAny: copy, centre, then hessian1 or
+// hessian2m, which TestHessian1MatchesExplicit and
+// TestHessian2MomentsMatchExplicit check against the explicit Σ JᵀJ of
+// Baker & Matthews 2004, IJCV 56(3):221) to rounding, for both warps, for
+// sides 21, 25, 31 and 33 at random grid points.
+func TestPreparesMatchGeneral(t *testing.T) {
+	m := synth.Affine{F: [2][2]float64{{1.006, 0.003}, {-0.002, 0.996}}, CX: 120, CY: 110, U: 2.7, V: -1.4}
+	ref, def := pair(t, m, 240, 220, 8, 1, 11)
+	rng := rand.New(rand.NewPCG(7, 8))
+	near := func(a, b, scale float64) bool { return math.Abs(a-b) <= 1e-12*scale }
+	for _, shape := range []Shape{First, Second} {
+		for _, subset := range []int{21, 25, 31, 33} {
+			r, err := newRun(context.Background(), ref, def, Options{Subset: subset, Shape: shape, Threads: 1}, tuning{})
+			if err != nil {
+				t.Fatal(err)
+			}
+			s := r.solvers[0]
+			for trial := 0; trial < 20; trial++ {
+				ix, iy := 20+rng.IntN(200), 20+rng.IntN(180)
+				var st1 Status
+				if shape == First {
+					st1 = s.prepare1(ix, iy)
+				} else {
+					st1 = s.prepare2(ix, iy)
+				}
+				f1 := append([]float64(nil), s.f...)
+				fx1, fy1 := append([]float64(nil), s.fx...), append([]float64(nil), s.fy...)
+				b1, j1, df1, mean1, hu1, hv1, ss1, ch1 := s.b0, s.sj, s.df, s.fmean, s.hUU, s.hVV, s.sssig, s.chol
+				s.xc, s.yc = float64(ix), float64(iy)
+				st2 := s.prepareAny(true)
+				if st1 != st2 {
+					t.Fatalf("shape %v subset %d at (%d, %d): fused %v, general %v", shape, subset, ix, iy, st1, st2)
+				}
+				if st1 != OK {
+					continue
+				}
+				var bmax, jmax float64
+				for a := 0; a < s.np; a++ {
+					bmax, jmax = math.Max(bmax, math.Abs(s.b0[a])), math.Max(jmax, math.Abs(s.sj[a]))
+				}
+				for a := 0; a < 12; a++ {
+					if !near(b1[a], s.b0[a], bmax) || !near(j1[a], s.sj[a], jmax) {
+						t.Fatalf("shape %v subset %d at (%d, %d): Σ J f̃[%d] %v / %v, Σ J[%d] %v / %v", shape, subset, ix, iy, a, b1[a], s.b0[a], a, j1[a], s.sj[a])
+					}
+				}
+				for k := range f1 {
+					if !near(f1[k], s.f[k], s.df) || fx1[k] != s.fx[k] || fy1[k] != s.fy[k] {
+						t.Fatalf("shape %v subset %d at (%d, %d): f̃[%d] %v / %v, fx %v / %v, fy %v / %v", shape, subset, ix, iy, k, f1[k], s.f[k], fx1[k], s.fx[k], fy1[k], s.fy[k])
+					}
+				}
+				for k := range ch1 {
+					if !near(ch1[k], s.chol[k], math.Abs(s.chol[0])) {
+						t.Fatalf("shape %v subset %d at (%d, %d): Cholesky factor [%d] %v / %v", shape, subset, ix, iy, k, ch1[k], s.chol[k])
+					}
+				}
+				if !near(df1, s.df, s.df) || !near(mean1, s.fmean, s.fmean) || !near(hu1, s.hUU, s.hUU) || !near(hv1, s.hVV, s.hVV) || !near(ss1, s.sssig, s.sssig) {
+					t.Fatalf("shape %v subset %d at (%d, %d): ‖f̃‖ %v / %v, f̄ %v / %v, (H⁻¹)uu %v / %v, (H⁻¹)vv %v / %v, Σ∇f² %v / %v",
+						shape, subset, ix, iy, df1, s.df, mean1, s.fmean, hu1, s.hUU, hv1, s.hVV, ss1, s.sssig)
+				}
+			}
+			r.stop()
+		}
+	}
+}
