@@ -1,6 +1,7 @@
 package natsjs
 
 import (
+	"bytes"
 	"context"
 	"encoding/json"
 	"fmt"
@@ -16,6 +17,8 @@ import (
 	"syscall"
 	"testing"
 	"time"
+
+	"github.com/nats-io/nats.go/jetstream"
 
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
@@ -371,5 +374,68 @@ func stopProfiles(b *testing.B, ps []*proc) {
 	}
 	for _, p := range ps {
 		waitFor(b, p.name+" profile", func() bool { return strings.Contains(p.out.String(), "profile written") })
+	}
+}
+
+// BenchmarkBlobGet reads an object of 1.1 MB (a frame's series state as
+// JSON) from a single JetStream server in this process, so that ns/op
+// holds the server's side too: Get as it reads now (chunks of up to
+// maxChunk, answers decoded by nextChunk), and as the baseline of the
+// same run, the object written in the object store's default 128 KiB
+// chunks and read with jetstream.Stream.GetMsg per chunk (the read of
+// earlier versions). Run with
+//
+//	go test -run '^$' -bench BlobGet -benchmem ./pkg/service/natsjs
+func BenchmarkBlobGet(b *testing.B) {
+	be := open(b, runServer(b), func(o *Options) { o.Work = false })
+	bl := be.Blobs()
+	ctx := context.Background()
+	data := []byte(strings.Repeat(`{"u":[0.123456789012,-1.5e-3],"ok":true},`, 1_100_000/42))
+	key := jobs.InputKey(jobs.NewID(), "state")
+	if err := bl.Put(ctx, key, bytes.NewReader(data)); err != nil {
+		b.Fatal(err)
+	}
+	old := jobs.InputKey(jobs.NewID(), "state")
+	if _, err := bl.obj.Put(ctx, jetstream.ObjectMeta{Name: old}, bytes.NewReader(data)); err != nil {
+		b.Fatal(err)
+	}
+	st, err := be.js.Stream(ctx, bl.stream)
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Run("chunks=128KiB/GetMsg", func(b *testing.B) {
+		b.SetBytes(int64(len(data)))
+		for range b.N {
+			info, err := bl.obj.GetInfo(ctx, old)
+			if err != nil {
+				b.Fatal(err)
+			}
+			subject := "$O." + bl.bucket + ".C." + info.NUID
+			got := make([]byte, 0, info.Size)
+			seq := uint64(1)
+			for range info.Chunks {
+				m, err := st.GetMsg(ctx, seq, jetstream.WithGetMsgSubject(subject))
+				if err != nil {
+					b.Fatal(err)
+				}
+				got = append(got, m.Data...)
+				seq = m.Sequence + 1
+			}
+			if len(got) != len(data) {
+				b.Fatal("short read")
+			}
+		}
+	})
+	for _, c := range []struct{ name, key string }{{"chunks=128KiB/Get", old}, {"chunks=512KiB/Get", key}} {
+		b.Run(c.name, func(b *testing.B) {
+			b.SetBytes(int64(len(data)))
+			for range b.N {
+				rc, err := bl.Get(ctx, c.key)
+				if err != nil {
+					b.Fatal(err)
+				}
+				rc.Close()
+			}
+		})
 	}
 }

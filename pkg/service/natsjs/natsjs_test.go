@@ -270,7 +270,7 @@ func TestBlobs(t *testing.T) {
 		return string(data)
 	}
 	in := jobs.InputKey(id, "reference")
-	big := strings.Repeat("speckle ", 40000) // several object chunks
+	big := strings.Repeat("speckle ", 160000) // several object chunks (maxChunk)
 	if err := bl.Put(ctx, in, strings.NewReader(big)); err != nil {
 		t.Fatal(err)
 	}
@@ -744,7 +744,7 @@ func TestBlobsPutOverIncomplete(t *testing.T) {
 	b := open(t, runServer(t), nil)
 	bl := b.Blobs()
 	ctx := context.Background()
-	big := strings.Repeat("speckle ", 40000) // several object chunks
+	big := strings.Repeat("speckle ", 160000) // several object chunks (maxChunk)
 	for _, tc := range []struct {
 		name  string
 		key   string
@@ -765,7 +765,11 @@ func TestBlobsPutOverIncomplete(t *testing.T) {
 			}
 			subject := "$O." + b.blobs.bucket + ".C." + info.NUID
 			opts := append([]jetstream.StreamPurgeOpt{jetstream.WithPurgeSubject(subject)}, tc.purge...)
-			if err := b.blobs.stream.Purge(ctx, opts...); err != nil {
+			st, err := b.js.Stream(ctx, b.blobs.stream)
+			if err != nil {
+				t.Fatal(err)
+			}
+			if err := st.Purge(ctx, opts...); err != nil {
 				t.Fatal(err)
 			}
 			if _, err := bl.Get(ctx, tc.key); err == nil {
