@@ -11,8 +11,19 @@ import (
 // setupGrid lays the grid over the mask's bounding box and marks the
 // points whose subset is wholly inside the mask.
 func (r *run) setupGrid() error {
+	if err := r.layout(); err != nil {
+		return err
+	}
+	parallelFor(r.grid.Ny, r.threads, r.markRows)
+	r.label()
+	return nil
+}
+
+// layout lays the grid over the mask's bounding box and allocates the
+// per-point state.
+func (r *run) layout() error {
 	m, step := r.m, r.opt.Step
-	bx0, by0, bx1, by1 := r.mask.Bounds()
+	bx0, by0, bx1, by1 := r.bounds()
 	// Keep subsets the interpolation edge margin inside the image, so that
 	// a point near the border is not rejected for any small motion.
 	e := int(edgeMargin(r.opt.Interp))
@@ -30,31 +41,34 @@ func (r *run) setupGrid() error {
 		return fmt.Errorf("correlate: Start has %d points but the grid has %d (%d×%d): it must come from a run with the same images size, subset, step and ROI", len(r.opt.Start), n, g.Nx, g.Ny)
 	}
 	r.alloc(n)
-	// Each grid point depends on its own subset only: rows of the grid are
-	// shared out among the threads.
-	parallelFor(g.Ny, r.threads, func(j0, j1 int) {
-		for j := j0; j < j1; j++ {
-			for i := 0; i < g.Nx; i++ {
-				x, y := g.At(i, j)
-				k := g.Index(i, j)
-				r.pts[k].X, r.pts[k].Y = float64(x), float64(y)
-				switch {
-				case !r.mask.RectInside(x-m, y-m, x+m, y+m):
-					r.pts[k].Status = Outside
-				case subsetStd(r.ref, x, y, m) < r.minStd:
-					// Low contrast is a property of the reference subset
-					// alone: flag it now, so that blank areas are reported
-					// as such rather than as unreached.
-					r.pts[k].Status = LowContrast
-					r.state[k] = stFailed
-				default:
-					r.state[k] = stPending
-				}
+	return nil
+}
+
+// markRows marks the points of grid rows j0 ≤ j < j1 whose subset is
+// wholly inside the mask as pending, those of too little contrast as
+// failed. Each grid point depends on its own subset only, so rows can be
+// marked in any order by any goroutine.
+func (r *run) markRows(j0, j1 int) {
+	g, m := r.grid, r.m
+	for j := j0; j < j1; j++ {
+		for i := 0; i < g.Nx; i++ {
+			x, y := g.At(i, j)
+			k := g.Index(i, j)
+			r.pts[k].X, r.pts[k].Y = float64(x), float64(y)
+			switch {
+			case !r.rectInside(x-m, y-m, x+m, y+m):
+				r.pts[k].Status = Outside
+			case subsetStd(r.ref, x, y, m) < r.minStd:
+				// Low contrast is a property of the reference subset
+				// alone: flag it now, so that blank areas are reported
+				// as such rather than as unreached.
+				r.pts[k].Status = LowContrast
+				r.state[k] = stFailed
+			default:
+				r.state[k] = stPending
 			}
 		}
-	})
-	r.label()
-	return nil
+	}
 }
 
 // label splits the computable points into 4-connected components.
@@ -114,25 +128,45 @@ func (r *run) alloc(n int) {
 	r.s2 = make([]float64, n)
 }
 
-// maskStd is the grey-level standard deviation of g inside the mask,
-// computed with up to threads goroutines: sums per row, then over the rows
-// in order, so the value does not depend on threads.
-func maskStd(g *imageio.Gray, m *roi.Mask, threads int) float64 {
-	rows := make([][3]float64, g.H)
-	parallelFor(g.H, threads, func(y0, y1 int) {
-		for y := y0; y < y1; y++ {
-			var n, s, ss float64
-			for x, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
-				if m.Inside(x, y) {
-					f := float64(v)
-					n++
-					s += f
-					ss += f * f
-				}
+// bounds returns the bounding box of the mask, x0 ≤ x < x1, y0 ≤ y < y1:
+// the whole image without one.
+func (r *run) bounds() (x0, y0, x1, y1 int) {
+	if r.mask == nil {
+		return 0, 0, r.ref.W, r.ref.H
+	}
+	return r.mask.Bounds()
+}
+
+// rectInside reports whether every pixel x0 ≤ x ≤ x1, y0 ≤ y ≤ y1 is
+// inside the mask (roi.Mask.RectInside), or inside the image without one.
+func (r *run) rectInside(x0, y0, x1, y1 int) bool {
+	if r.mask == nil {
+		return x0 >= 0 && y0 >= 0 && x1 < r.ref.W && y1 < r.ref.H && x0 <= x1 && y0 <= y1
+	}
+	return r.mask.RectInside(x0, y0, x1, y1)
+}
+
+// maskSums sets rows[y] to the count, sum and sum of squares of the grey
+// levels of row y of g inside the mask m (nil: all of them), for
+// y0 ≤ y < y1.
+func maskSums(g *imageio.Gray, m *roi.Mask, rows [][3]float64, y0, y1 int) {
+	for y := y0; y < y1; y++ {
+		var n, s, ss float64
+		for x, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
+			if m == nil || m.Inside(x, y) {
+				f := float64(v)
+				n++
+				s += f
+				ss += f * f
 			}
-			rows[y] = [3]float64{n, s, ss}
 		}
-	})
+		rows[y] = [3]float64{n, s, ss}
+	}
+}
+
+// stdOfSums is the standard deviation from the row sums of maskSums,
+// added over the rows in order.
+func stdOfSums(rows [][3]float64) float64 {
 	var n, s, ss float64
 	for _, r := range rows {
 		n += r[0]

@@ -111,13 +111,15 @@ func pipeline(bs []*traceBatch) time.Duration {
 // BenchmarkRun1024Model runs BenchmarkRun1024 on one thread with every
 // phase, batch and point timed by the thread's CPU clock, and predicts
 // from those costs the wall time of the same run on two threads, with no
-// cost of synchronisation: the set-up phases split evenly (they are split
-// by rows), the serial work of the propagation loop (seeds, accepting
-// results, forming batches) and of finish as measured, and the batches
-// scheduled as the pool does (pipeline). eff2 is the predicted 1→2-thread
-// efficiency; eff2-barrier the same for a pool that waits for each batch
-// before it forms the next (the pool before the pipeline), serial% the
-// share of the one-thread time that does not split, crit% the excess of
+// cost of synchronisation: the parts of each set-up step shared out on
+// the pool scheduled as the pool hands them out (makespan) and the rest of
+// the set-up serial, the serial work of the propagation loop (seeds,
+// accepting results, forming batches) and of finish as measured, and the
+// batches scheduled as the pool does (pipeline). eff2 is the predicted
+// 1→2-thread efficiency; eff2-barrier the same for a pool that waits for
+// each batch before it forms the next (the pool before the pipeline),
+// serial% the share of the one-thread time that does not split (of which
+// setup-serial% in the set-up; setup% is the whole set-up), crit% the excess of
 // the barrier pool's per-batch makespans over an even split. The figures
 // depend on the costs of the points, not on the machine's load. A traced
 // run on two threads adds the share of the points the helper computed and
@@ -126,7 +128,7 @@ func BenchmarkRun1024Model(b *testing.B) {
 	ref, def := benchImages(b)
 	runtime.LockOSThread()
 	defer runtime.UnlockOSThread()
-	var t1, t2, tb, serial, excess time.Duration
+	var t1, t2, tb, serial, excess, setupSer, setupAll time.Duration
 	var batches, short, points int
 	for b.Loop() {
 		tr := &poolTrace{clock: threadCPU}
@@ -166,18 +168,30 @@ func BenchmarkRun1024Model(b *testing.B) {
 				short++
 			}
 		}
+		// The set-up steps shared out on the pool split as the pool
+		// schedules their parts; the rest of the set-up is serial.
+		var inRegions, regionSpan time.Duration
+		for _, rg := range tr.regions {
+			for _, c := range rg.cost {
+				inRegions += c
+			}
+			regionSpan += makespan(rg.cost, 2)
+		}
+		setupSerial := setup - inRegions
 		rest := prop - inBatches // serial work of the propagation loop
 		// The replay covers the loop from the first batch to the last
 		// await; before and after it the work is serial.
 		first, last := tr.batches[0].send, tr.batches[len(tr.batches)-1].done
 		pp := pipeline(tr.batches) - first
 		if testing.Verbose() {
-			b.Logf("setup %v prop %v points %v rest %v replay %v barrier %v", setup, prop, inBatches, rest, pp, ms)
+			b.Logf("setup %v (serial %v, parts %v in %d steps, span on 2 %v) prop %v points %v rest %v replay %v barrier %v", setup, setupSerial, inRegions, len(tr.regions), regionSpan, prop, inBatches, rest, pp, ms)
 		}
 		t1 += setup + prop
-		t2 += setup/2 + (first - prop0) + pp + (prop0 + prop - last)
-		tb += setup/2 + rest + ms
-		serial += rest
+		t2 += setupSerial + regionSpan + (first - prop0) + pp + (prop0 + prop - last)
+		tb += setupSerial + regionSpan + rest + ms
+		serial += rest + setupSerial
+		setupSer += setupSerial
+		setupAll += setup
 	}
 	// The same run on two threads, for the division of the points and the
 	// helper's sleeps; on a loaded machine the wall time says little.
@@ -196,6 +210,8 @@ func BenchmarkRun1024Model(b *testing.B) {
 	b.ReportMetric(float64(t1)/float64(2*t2), "eff2")
 	b.ReportMetric(float64(t1)/float64(2*tb), "eff2-barrier")
 	b.ReportMetric(100*float64(serial)/float64(t1), "serial%")
+	b.ReportMetric(100*float64(setupAll)/float64(t1), "setup%")
+	b.ReportMetric(100*float64(setupSer)/float64(t1), "setup-serial%")
 	b.ReportMetric(100*float64(excess)/float64(t1), "crit%")
 	b.ReportMetric(float64(points)/float64(batches), "points/batch")
 	b.ReportMetric(float64(short)/float64(b.N), "short-batches/run")

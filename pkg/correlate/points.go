@@ -51,7 +51,7 @@ func RunPoints(ctx context.Context, ref, def *imageio.Gray, pts [][2]float64, gu
 		r.pts[i].X, r.pts[i].Y = p[0], p[1]
 		x0, y0 := int(math.Floor(p[0]-m)), int(math.Floor(p[1]-m))
 		x1, y1 := int(math.Ceil(p[0]+m)), int(math.Ceil(p[1]+m))
-		if r.mask.RectInside(x0, y0, x1, y1) {
+		if r.rectInside(x0, y0, x1, y1) {
 			todo = append(todo, i)
 		} else {
 			r.pts[i].Status = Outside

@@ -45,6 +45,7 @@ type pool struct {
 	n        [2]atomic.Int64
 	left     [2]atomic.Int64 // items of each slot's batch not yet finished
 	items    [2][]item
+	fn       [2]func(k int) // a batch of set-up parts instead of items (shareOut), nil: items
 	trace    [2]*traceBatch
 	gen      uint64 // newest published generation (caller only)
 	awaited  uint64 // newest generation awaited (caller only)
@@ -120,14 +121,24 @@ func (p *pool) sleep() bool {
 // publish makes items the next generation's batch, wakes sleeping helpers
 // and returns the generation.
 func (p *pool) publish(items []item, tb *traceBatch) uint64 {
+	return p.publishN(items, nil, len(items), tb)
+}
+
+// publishN makes the next generation's batch n items, or with fn not nil
+// the n calls fn(0) … fn(n−1), wakes sleeping helpers and returns the
+// generation.
+func (p *pool) publishN(items []item, fn func(int), n int, tb *traceBatch) uint64 {
 	g := p.gen + 1
 	if g > p.awaited+2 {
 		panic("correlate: a third batch in flight would overwrite the oldest")
 	}
 	p.gen = g
-	p.items[g%2], p.trace[g%2] = items, tb
-	p.left[g%2].Store(int64(len(items)))
-	p.n[g%2].Store(int64(len(items)))
+	if fn == nil {
+		p.items[g%2] = items
+	}
+	p.fn[g%2], p.trace[g%2] = fn, tb
+	p.left[g%2].Store(int64(n))
+	p.n[g%2].Store(int64(n))
 	p.pub.Store(g)
 	if p.sleepers.Load() > 0 {
 		p.mu.Lock()
@@ -147,10 +158,24 @@ func (p *pool) close() {
 // stop ends the helper goroutines.
 func (r *run) stop() { r.pool.close() }
 
-// compute1 computes item k of generation g with solver w and records it
-// as finished.
+// compute1 computes item (or part) k of generation g with solver w and
+// records it as finished.
 func (r *run) compute1(g uint64, k, w int) {
 	p := &r.pool
+	if fn := p.fn[g%2]; fn != nil {
+		if tb := p.trace[g%2]; tb == nil {
+			fn(k)
+		} else {
+			tr := r.tun.trace
+			t := tr.now()
+			fn(k)
+			tb.cost[k] = tr.now() - t
+			tb.w[w].busy += tb.cost[k]
+			tb.w[w].n++
+		}
+		p.finished(g)
+		return
+	}
 	it := &p.items[g%2][k]
 	if tb := p.trace[g%2]; tb == nil {
 		r.compute(r.solvers[w], w, it)
@@ -264,6 +289,23 @@ func (r *run) awaitBatch(g uint64) []item {
 	}
 	p.awaited = max(p.awaited, g)
 	return p.items[g%2]
+}
+
+// shareOut calls fn(0) … fn(n−1) on the pool (the caller and the
+// threads−1 helpers, each taking the next part when it is free) and
+// returns when all have finished: the steps of the set-up, which so use
+// no goroutines beyond the pool's. With a trace it records each part's
+// time as a region.
+func (r *run) shareOut(n int, fn func(k int)) {
+	if n > maxBatch {
+		panic("correlate: more parts than the pool's cursor can hold")
+	}
+	var tb *traceBatch
+	if tr := r.tun.trace; tr != nil {
+		tr.regions = append(tr.regions, &traceBatch{n: n, send: tr.now(), w: make([]traceWorker, r.threads), cost: make([]time.Duration, n)})
+		tb = tr.regions[len(tr.regions)-1]
+	}
+	r.awaitBatch(r.pool.publishN(nil, fn, n, tb))
 }
 
 // runBatch computes items and returns them when all have finished.

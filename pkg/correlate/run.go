@@ -23,7 +23,7 @@ type run struct {
 	refSp   *spline.Image
 	defSp   *spline.Image
 	gx, gy  []float32
-	mask    *roi.Mask
+	mask    *roi.Mask // nil: the whole image (no mask is built for it)
 	grid    Grid
 	pts     []Point
 	state   []uint8
@@ -65,20 +65,11 @@ func runWith(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tunin
 	if tr != nil {
 		tr.t0 = time.Now()
 	}
-	r, err := newRun(ctx, ref, def, opt, tun)
+	r, err := start(ctx, ref, def, opt, tun, true)
 	if err != nil {
 		return nil, err
 	}
 	defer r.stop()
-	tr.mark("newRun")
-	if err := r.setupGrid(); err != nil {
-		return nil, err
-	}
-	tr.mark("setupGrid")
-	if err := r.tabulate(ctx, r.grid.Len()); err != nil {
-		return nil, err
-	}
-	tr.mark("tabulate")
 	seeds, err := r.seedIndices()
 	if err != nil {
 		return nil, err
@@ -120,9 +111,29 @@ func checkImages(ref, def *imageio.Gray, subset int) error {
 	return errors.Join(errs...)
 }
 
-// newRun validates the inputs, prefilters the images, builds the splines
-// and gradients and starts the workers.
+// newRun validates the inputs, prefilters the images, starts the workers
+// and builds the splines, the gradients and the solvers.
 func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning) (*run, error) {
+	return start(ctx, ref, def, opt, tun, false)
+}
+
+// start is newRun; with grid set it also lays out the grid, marks its
+// points (setupGrid) and tabulates the deformed image when that pays
+// (tabulate), in the same steps.
+//
+// The set-up runs in four steps, each a set of independent parts shared
+// out on the worker pool, so that no more than Threads goroutines ever
+// compute and a part of one chain (the reference image's spline and
+// gradients, the deformed image's spline and table, the grid) fills the
+// time another leaves idle: (1) the coefficient arrays are allocated
+// while the grey-level sums of the mask are taken; (2) both images are
+// checked and filtered along x; (3) both are filtered along y while the
+// table and the gradient arrays are allocated (the runtime zeroes them)
+// and the grid points are marked; (4) the gradients and the table are
+// computed while the points are split into connected components. Each
+// part computes the same numbers whichever goroutine runs it and in
+// whatever order, so results do not depend on Threads.
+func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning, grid bool) (*run, error) {
 	opt.fill()
 	if err := opt.Validate(); err != nil {
 		return nil, err
@@ -137,9 +148,6 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning
 	if r.threads == 0 {
 		r.threads = runtime.GOMAXPROCS(0)
 	}
-	if r.mask == nil {
-		r.mask = roi.Full(ref.W, ref.H)
-	}
 	r.ref, r.def = ref, def
 	if opt.Prefilter > 0 {
 		var err error
@@ -150,38 +158,168 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning
 			return nil, fmt.Errorf("correlate: deformed image: %w", err)
 		}
 	}
+	tab := false
+	if grid {
+		if err := r.layout(); err != nil {
+			return nil, err
+		}
+		tab = r.tabulates(r.grid.Len())
+	}
 	tr := tun.trace
 	tr.mark("check")
-	var err error
-	if r.refSp, err = spline.NewContext(ctx, r.ref, opt.Interp, r.threads); err != nil {
-		return nil, fmt.Errorf("correlate: reference image: %w", err)
+	r.pool.init()
+	for w := 1; w < r.threads; w++ {
+		go r.worker(w)
 	}
-	tr.mark("refSpline")
-	if r.defSp, err = spline.NewContext(ctx, r.def, opt.Interp, r.threads); err != nil {
-		return nil, fmt.Errorf("correlate: deformed image: %w", err)
+	ok := false
+	defer func() {
+		if !ok {
+			r.stop()
+		}
+	}()
+	cancelled := func() error {
+		if err := ctx.Err(); err != nil {
+			return fmt.Errorf("correlate: %w", err)
+		}
+		return nil
 	}
-	tr.mark("defSpline")
-	if r.gx, r.gy, err = r.refSp.SampleGradients(ctx, r.threads); err != nil {
+	const rows, blocks, gridRows = spline.RowChunk, spline.BlockChunk, 4
+	parts := func(n, chunk int) int { return (n + chunk - 1) / chunk }
+	h, w := r.ref.H, r.ref.W
+
+	// (1) The coefficient arrays and the sums for the contrast threshold.
+	var refB, defB *spline.Build
+	var refErr, defErr error
+	sums := make([][3]float64, h)
+	nSums := parts(h, rows)
+	r.shareOut(2+nSums, func(k int) {
+		switch {
+		case k == 0:
+			refB, refErr = spline.NewBuild(r.ref, opt.Interp)
+		case k == 1:
+			defB, defErr = spline.NewBuild(r.def, opt.Interp)
+		default:
+			k -= 2
+			maskSums(r.ref, r.mask, sums, k*rows, min((k+1)*rows, h))
+		}
+	})
+	if refErr != nil {
+		return nil, fmt.Errorf("correlate: reference image: %w", refErr)
+	}
+	if defErr != nil {
+		return nil, fmt.Errorf("correlate: deformed image: %w", defErr)
+	}
+	r.minStd = 0.01 * stdOfSums(sums)
+	tr.mark("alloc")
+
+	// (2) Both images checked and filtered along x.
+	nRows := parts(h, rows)
+	r.shareOut(2*nRows, func(k int) {
+		if ctx.Err() != nil {
+			return
+		}
+		b := refB
+		if k >= nRows {
+			b, k = defB, k-nRows
+		}
+		b.FilterRows(k*rows, min((k+1)*rows, h))
+	})
+	if err := cancelled(); err != nil {
 		return nil, err
 	}
-	tr.mark("gradients")
+	if err := refB.Err(); err != nil {
+		return nil, fmt.Errorf("correlate: reference image: %w", err)
+	}
+	if err := defB.Err(); err != nil {
+		return nil, fmt.Errorf("correlate: deformed image: %w", err)
+	}
+	tr.mark("rows")
 
-	minStd := 0.01 * maskStd(r.ref, r.mask, r.threads)
-	r.minStd = minStd
+	// (3) Both filtered along y; the table and gradients allocated; the
+	// grid marked.
+	var table *spline.Table
+	nBlocks := parts(refB.Blocks(), blocks)
+	nMark := 0
+	if grid {
+		nMark = parts(r.grid.Ny, gridRows)
+	}
+	r.shareOut(2+2*nBlocks+nMark, func(k int) {
+		if ctx.Err() != nil {
+			return
+		}
+		switch {
+		case k == 0:
+			if tab {
+				table = spline.AllocTable(w, h)
+			}
+		case k == 1:
+			r.gx, r.gy = make([]float32, w*h), make([]float32, w*h)
+		case k < 2+2*nBlocks:
+			k -= 2
+			b := refB
+			if k >= nBlocks {
+				b, k = defB, k-nBlocks
+			}
+			b.FilterColumns(k*blocks, min((k+1)*blocks, b.Blocks()))
+		default:
+			k -= 2 + 2*nBlocks
+			r.markRows(k*gridRows, min((k+1)*gridRows, r.grid.Ny))
+		}
+	})
+	if err := cancelled(); err != nil {
+		return nil, err
+	}
+	r.refSp, r.defSp = refB.Finish(), defB.Finish()
+	tr.mark("columns")
+
+	// (4) The gradients and the table; the grid's components.
+	nTable := 0
+	if tab {
+		nTable = nRows
+	}
+	r.shareOut(1+nRows+nTable, func(k int) {
+		if ctx.Err() != nil {
+			return
+		}
+		switch {
+		case k == 0:
+			if grid {
+				r.label()
+			}
+		case k <= nRows:
+			k--
+			r.refSp.GradientRows(r.gx, r.gy, k*rows, min((k+1)*rows, h))
+		default:
+			k -= 1 + nRows
+			table.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
+		}
+	})
+	if err := cancelled(); err != nil {
+		return nil, err
+	}
+	tr.mark("tables")
+
 	r.solvers = make([]*solver, r.threads)
 	r.tmpl = make([][]float64, r.threads)
 	for i := range r.solvers {
-		r.solvers[i] = newSolver(r.ref, r.gx, r.gy, r.refSp, r.defSp, &r.opt, minStd)
+		r.solvers[i] = newSolver(r.ref, r.gx, r.gy, r.refSp, r.defSp, &r.opt, r.minStd)
 		r.solvers[i].portable = tun.portable
 		r.tmpl[i] = make([]float64, r.solvers[i].n)
 	}
-	r.pool.init()
-	if r.threads > 1 {
-		for w := 1; w < r.threads; w++ {
-			go r.worker(w)
+	if table != nil {
+		for _, s := range r.solvers {
+			s.useTable(table)
 		}
+		r.defSp = nil
 	}
+	ok = true
 	return r, nil
+}
+
+// tabulates reports whether tabulate builds the table for npts subsets.
+func (r *run) tabulates(npts int) bool {
+	side := 2*r.m + 1
+	return r.opt.Interp == spline.Cubic && !r.tun.direct && npts*side*side >= 2*r.def.W*r.def.H
 }
 
 // tabulate replaces the cubic spline of the deformed image by its
@@ -191,15 +329,22 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning
 // it is built only when the subsets cover the image about twice or more.
 // Quintic splines are never tabulated.
 func (r *run) tabulate(ctx context.Context, npts int) error {
-	if r.opt.Interp != spline.Cubic || r.tun.direct || npts*r.solvers[0].n < 2*r.def.W*r.def.H {
+	if !r.tabulates(npts) {
 		return nil
 	}
-	tab, err := spline.NewTable(ctx, r.defSp, r.threads)
-	if err != nil {
+	h := r.def.H
+	table := spline.AllocTable(r.def.W, h)
+	const rows = spline.RowChunk
+	r.shareOut((h+rows-1)/rows, func(k int) {
+		if ctx.Err() == nil {
+			table.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
+		}
+	})
+	if err := ctx.Err(); err != nil {
 		return fmt.Errorf("correlate: deformed image: %w", err)
 	}
 	for _, s := range r.solvers {
-		s.useTable(tab)
+		s.useTable(table)
 	}
 	r.defSp = nil
 	return nil

@@ -12,6 +12,7 @@ type poolTrace struct {
 	clock   func() time.Duration // time source; nil: time.Since(t0)
 	phases  []tracePhase
 	batches []*traceBatch
+	regions []*traceBatch // the set-up steps shared out on the pool (shareOut), each part's time in cost
 	sleeps  int64         // times a helper went to sleep waiting for a batch
 	waits   int64         // times the caller went to sleep waiting for the last items
 	spun    time.Duration // time spent spinning for work, all goroutines

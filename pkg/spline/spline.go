@@ -16,6 +16,7 @@ import (
 	"math"
 	"runtime"
 	"sync"
+	"sync/atomic"
 
 	"github.com/mottledic/mottle/pkg/imageio"
 )
@@ -80,58 +81,128 @@ func New(g *imageio.Gray, order Order) (*Image, error) {
 // NewContext is New with cancellation and up to threads goroutines
 // (threads ≤ 0 means runtime.GOMAXPROCS(0)). The result does not depend on threads.
 func NewContext(ctx context.Context, g *imageio.Gray, order Order, threads int) (*Image, error) {
-	if err := check(g); err != nil {
+	b, err := NewBuild(g, order)
+	if err != nil {
+		return nil, err
+	}
+	if err := parallelRows(ctx, b.Rows(), RowChunk, threads, b.FilterRows); err != nil {
+		return nil, err
+	}
+	if err := b.Err(); err != nil {
+		return nil, err
+	}
+	if err := parallelRows(ctx, b.Blocks(), BlockChunk, threads, b.FilterColumns); err != nil {
+		return nil, err
+	}
+	return b.Finish(), nil
+}
+
+// Build is an Image under construction, in steps that a caller can share
+// out among goroutines together with other work: FilterRows over every
+// row, then Err, then FilterColumns over every column block, then Finish.
+// NewContext runs these steps. Each row and each column block goes through
+// the same operations whichever call handles it, so the result does not
+// depend on how the steps are split.
+type Build struct {
+	s     *Image
+	g     *imageio.Gray
+	poles []float64
+	bad   []int32 // per row: 1 + x of its first non-finite sample, 0: none
+}
+
+// NewBuild checks the size of g and the order and allocates the
+// coefficients; the samples are checked by FilterRows and Err.
+func NewBuild(g *imageio.Gray, order Order) (*Build, error) {
+	if err := checkShape(g); err != nil {
 		return nil, err
 	}
 	if order != Cubic && order != Quintic {
 		return nil, fmt.Errorf("spline: order %d: want 3 (cubic) or 5 (quintic)", int(order))
 	}
-	if threads <= 0 {
-		threads = runtime.GOMAXPROCS(0)
-	}
 	w, h := g.W, g.H
 	cs := w + 2*pad
 	s := &Image{W: w, H: h, order: order, cs: cs, c: make([]float64, cs*(h+2*pad))}
-	poles := polesOf(order)
-
-	// Rows: copy samples into the interior and filter along x.
-	err := parallelRows(ctx, h, threads, func(y0, y1 int) {
-		for y := y0; y < y1; y++ {
-			row := s.c[(y+pad)*cs+pad : (y+pad)*cs+pad+w]
-			src := g.Pix[y*g.Stride : y*g.Stride+w]
-			for x, v := range src {
-				row[x] = float64(v)
-			}
-			filter1D(row, 1, w, poles)
-		}
-	})
-	if err != nil {
-		return nil, err
-	}
-	// Columns: filter along y, a block of adjacent columns at a time so
-	// that the recursions run along contiguous rows of memory. Each column
-	// goes through exactly the operations of filter1D.
-	err = parallelRows(ctx, w, threads, func(x0, x1 int) {
-		for x := x0; x < x1; x += colBlock {
-			filterColumns(s.c[pad*cs+pad+x:], cs, min(colBlock, x1-x), h, poles)
-		}
-	})
-	if err != nil {
-		return nil, err
-	}
-	s.mirrorMargins()
-	return s, nil
+	return &Build{s: s, g: g, poles: polesOf(order), bad: make([]int32, h)}, nil
 }
 
+// Rows returns the number of image rows, the range of FilterRows.
+func (b *Build) Rows() int { return b.s.H }
+
+// Blocks returns the number of column blocks, the range of FilterColumns.
+func (b *Build) Blocks() int { return (b.s.W + colBlock - 1) / colBlock }
+
+// FilterRows copies the image rows y0 ≤ y < y1 into the coefficients,
+// notes their first non-finite sample for Err, and filters them along x.
+func (b *Build) FilterRows(y0, y1 int) {
+	s, g := b.s, b.g
+	cs, w := s.cs, s.W
+	for y := y0; y < y1; y++ {
+		row := s.c[(y+pad)*cs+pad : (y+pad)*cs+pad+w]
+		src := g.Pix[y*g.Stride : y*g.Stride+w]
+		bad := false
+		for x, v := range src {
+			f := float64(v)
+			row[x] = f
+			bad = bad || f-f != 0 // NaN or ±Inf
+		}
+		if bad {
+			for x, v := range src {
+				if f := float64(v); math.IsNaN(f) || math.IsInf(f, 0) {
+					b.bad[y] = int32(x + 1)
+					break
+				}
+			}
+		}
+		filter1D(row, 1, w, b.poles)
+	}
+}
+
+// Err reports the first non-finite sample, in row-major order, once
+// FilterRows has run over every row.
+func (b *Build) Err() error {
+	for y, x := range b.bad {
+		if x != 0 {
+			return fmt.Errorf("spline: pixel (%d, %d) is %v: want finite grey levels", x-1, y, b.g.Pix[y*b.g.Stride+int(x)-1])
+		}
+	}
+	return nil
+}
+
+// FilterColumns filters the column blocks k0 ≤ k < k1 along y, once
+// FilterRows has run over every row. The columns of a block run together
+// so that the recursions read contiguous rows of memory; each column goes
+// through exactly the operations of filter1D.
+func (b *Build) FilterColumns(k0, k1 int) {
+	s := b.s
+	cs, w := s.cs, s.W
+	for k := k0; k < k1; k++ {
+		x := k * colBlock
+		filterColumns(s.c[pad*cs+pad+x:], cs, min(colBlock, w-x), s.H, b.poles)
+	}
+}
+
+// Finish fills the mirrored margins, once FilterColumns has run over
+// every block, and returns the spline.
+func (b *Build) Finish() *Image {
+	b.s.mirrorMargins()
+	return b.s
+}
+
+// RowChunk and BlockChunk are the parts, in rows and in column blocks, in
+// which the steps of NewContext, NewTable and SampleGradients are shared
+// out: small enough that a goroutine that starts late is not waited for
+// long, large enough that the rows a part computes twice (the first of a
+// ring) cost little. They never depend on the number of goroutines.
+const (
+	RowChunk   = 32
+	BlockChunk = 2
+)
+
+// check rejects a nil, empty or inconsistent image and one with a
+// non-finite sample.
 func check(g *imageio.Gray) error {
-	if g == nil {
-		return errors.New("spline: nil image")
-	}
-	if g.W <= 0 || g.H <= 0 {
-		return fmt.Errorf("spline: image size %d×%d: want at least 1×1", g.W, g.H)
-	}
-	if g.Stride < g.W || len(g.Pix) < (g.H-1)*g.Stride+g.W {
-		return fmt.Errorf("spline: image %d×%d with stride %d has %d samples: inconsistent", g.W, g.H, g.Stride, len(g.Pix))
+	if err := checkShape(g); err != nil {
+		return err
 	}
 	for y := 0; y < g.H; y++ {
 		for x, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
@@ -144,28 +215,46 @@ func check(g *imageio.Gray) error {
 	return nil
 }
 
-// parallelRows splits [0, n) into contiguous blocks handled by up to threads
-// goroutines. Each index is processed by exactly one call, so results do not
-// depend on the number of goroutines.
-func parallelRows(ctx context.Context, n, threads int, f func(i0, i1 int)) error {
-	if threads > n {
-		threads = n
+// checkShape rejects a nil, empty or inconsistent image.
+func checkShape(g *imageio.Gray) error {
+	if g == nil {
+		return errors.New("spline: nil image")
 	}
-	if threads <= 1 {
-		f(0, n)
-		return ctx.Err()
+	if g.W <= 0 || g.H <= 0 {
+		return fmt.Errorf("spline: image size %d×%d: want at least 1×1", g.W, g.H)
+	}
+	if g.Stride < g.W || len(g.Pix) < (g.H-1)*g.Stride+g.W {
+		return fmt.Errorf("spline: image %d×%d with stride %d has %d samples: inconsistent", g.W, g.H, g.Stride, len(g.Pix))
+	}
+	return nil
+}
+
+// parallelRows calls f on the parts [i, min(i+chunk, n)), i = 0, chunk,
+// 2·chunk, …, with up to threads goroutines (≤ 0: GOMAXPROCS); each takes
+// the next part from a shared counter, so one that starts late takes
+// fewer. Each index is handled by exactly one call and the parts do not
+// depend on threads, so neither do results.
+func parallelRows(ctx context.Context, n, chunk, threads int, f func(i0, i1 int)) error {
+	if threads <= 0 {
+		threads = runtime.GOMAXPROCS(0)
+	}
+	parts := (n + chunk - 1) / chunk
+	threads = min(threads, parts)
+	var next atomic.Int64
+	work := func() {
+		for ctx.Err() == nil {
+			k := int(next.Add(1)) - 1
+			if k >= parts {
+				return
+			}
+			f(k*chunk, min((k+1)*chunk, n))
+		}
 	}
 	var wg sync.WaitGroup
-	for t := 0; t < threads; t++ {
-		i0, i1 := n*t/threads, n*(t+1)/threads
-		wg.Add(1)
-		go func() {
-			defer wg.Done()
-			if ctx.Err() == nil {
-				f(i0, i1)
-			}
-		}()
+	for t := 1; t < threads; t++ {
+		wg.Go(work)
 	}
+	work()
 	wg.Wait()
 	return ctx.Err()
 }
@@ -518,12 +607,20 @@ func bspline4(x float64) float64 {
 // centre, row-major with stride W, computed with up to threads goroutines
 // (≤ 0: GOMAXPROCS). The values do not depend on threads.
 func (s *Image) SampleGradients(ctx context.Context, threads int) (gx, gy []float32, err error) {
-	if threads <= 0 {
-		threads = runtime.GOMAXPROCS(0)
+	gx = make([]float32, s.W*s.H)
+	gy = make([]float32, s.W*s.H)
+	err = parallelRows(ctx, s.H, RowChunk, threads, func(y0, y1 int) { s.GradientRows(gx, gy, y0, y1) })
+	if err != nil {
+		return nil, nil, err
 	}
-	w, h := s.W, s.H
-	gx = make([]float32, w*h)
-	gy = make([]float32, w*h)
+	return gx, gy, nil
+}
+
+// GradientRows computes the values of SampleGradients for the rows
+// y0 ≤ y < y1 into gx and gy (W·H values each, row-major with stride W).
+// Each row gets the same values whichever call computes it.
+func (s *Image) GradientRows(gx, gy []float32, y0, y1 int) {
+	w := s.W
 	// At integer positions t = 0, so the weights are constants.
 	var wv, wd []float64
 	if s.order == Cubic {
@@ -540,57 +637,51 @@ func (s *Image) SampleGradients(ctx context.Context, threads int) (gx, gy []floa
 	}
 	r := len(wv) / 2 // support radius: nodes −r … r
 	cs := s.cs
-	err = parallelRows(ctx, h, threads, func(y0, y1 int) {
-		// The x sums of coefficient row y+j (value and derivative
-		// weights) are computed once per row and kept in a ring of 2r+1
-		// rows; the y sums then combine them in the order −r … r, the
-		// same operations as summing each pixel's neighbourhood directly.
-		nr := 2*r + 1
-		vs := make([][]float64, nr)
-		ds := make([][]float64, nr)
-		for k := range vs {
-			vs[k] = make([]float64, w)
-			ds[k] = make([]float64, w)
-		}
-		xsums := func(yy int, v, d []float64) {
-			base := (yy+pad)*cs + pad - r
-			for x := 0; x < w; x++ {
-				row := s.c[base+x : base+x+nr]
-				var a, b float64
-				for i := range row {
-					a += wv[i] * row[i]
-					b += wd[i] * row[i]
-				}
-				v[x], d[x] = a, b
-			}
-		}
-		for k := 0; k < nr-1; k++ {
-			xsums(y0-r+k, vs[k], ds[k])
-		}
-		for y := y0; y < y1; y++ {
-			k := (y - y0 + nr - 1) % nr
-			xsums(y+r, vs[k], ds[k])
-			var vr, dr [5][]float64 // rows y−r … y+r
-			for j := 0; j < nr; j++ {
-				q := (y - y0 + j) % nr
-				vr[j], dr[j] = vs[q], ds[q]
-			}
-			ox, oy := gx[y*w:(y+1)*w], gy[y*w:(y+1)*w]
-			for x := range ox {
-				var sx, sy float64
-				for j := 0; j < nr; j++ {
-					sx += wv[j] * dr[j][x]
-					sy += wd[j] * vr[j][x]
-				}
-				ox[x] = float32(sx)
-				oy[x] = float32(sy)
-			}
-		}
-	})
-	if err != nil {
-		return nil, nil, err
+	// The x sums of coefficient row y+j (value and derivative weights)
+	// are computed once per row and kept in a ring of 2r+1 rows; the y
+	// sums then combine them in the order −r … r, the same operations as
+	// summing each pixel's neighbourhood directly.
+	nr := 2*r + 1
+	var vs, ds [5][]float64
+	buf := make([]float64, 2*nr*w)
+	for k := 0; k < nr; k++ {
+		vs[k] = buf[2*k*w : (2*k+1)*w : (2*k+1)*w]
+		ds[k] = buf[(2*k+1)*w : (2*k+2)*w : (2*k+2)*w]
 	}
-	return gx, gy, nil
+	xsums := func(yy int, v, d []float64) {
+		base := (yy+pad)*cs + pad - r
+		for x := 0; x < w; x++ {
+			row := s.c[base+x : base+x+nr]
+			var a, b float64
+			for i := range row {
+				a += wv[i] * row[i]
+				b += wd[i] * row[i]
+			}
+			v[x], d[x] = a, b
+		}
+	}
+	for k := 0; k < nr-1; k++ {
+		xsums(y0-r+k, vs[k], ds[k])
+	}
+	for y := y0; y < y1; y++ {
+		k := (y - y0 + nr - 1) % nr
+		xsums(y+r, vs[k], ds[k])
+		var vr, dr [5][]float64 // rows y−r … y+r
+		for j := 0; j < nr; j++ {
+			q := (y - y0 + j) % nr
+			vr[j], dr[j] = vs[q], ds[q]
+		}
+		ox, oy := gx[y*w:(y+1)*w], gy[y*w:(y+1)*w]
+		for x := range ox {
+			var sx, sy float64
+			for j := 0; j < nr; j++ {
+				sx += wv[j] * dr[j][x]
+				sy += wd[j] * vr[j][x]
+			}
+			ox[x] = float32(sx)
+			oy[x] = float32(sy)
+		}
+	}
 }
 
 // Line evaluates the interpolant at the len(out) points (x + k·dx, y + k·dy),

@@ -3,7 +3,6 @@ package spline
 import (
 	"context"
 	"errors"
-	"runtime"
 )
 
 // Table holds, for every pixel cell [x, x+1)×[y, y+1) of a cubic spline
@@ -47,54 +46,67 @@ func NewTable(ctx context.Context, s *Image, threads int) (*Table, error) {
 	if s.order != Cubic {
 		return nil, ErrNotCubic
 	}
-	if threads <= 0 {
-		threads = runtime.GOMAXPROCS(0)
-	}
-	w, h := s.W, s.H
-	t := &Table{W: w, H: h, a: make([]float32, 16*w*h)}
-	cs := s.cs
-	err := parallelRows(ctx, h, threads, func(y0, y1 int) {
-		// rows[r][4x+k] = Σ_q B[q][k]·c[y−1+r][x−1+q]: the x polynomial of
-		// coefficient row y−1+r over cell x.
-		var rows [4][]float64
-		for r := range rows {
-			rows[r] = make([]float64, 4*w)
-		}
-		xpoly := func(y int, dst []float64) {
-			src := s.c[(y+pad)*cs+pad-1 : (y+pad)*cs+pad+w+2]
-			for x := 0; x < w; x++ {
-				c0, c1, c2, c3 := src[x], src[x+1], src[x+2], src[x+3]
-				d := dst[4*x : 4*x+4 : 4*x+4]
-				d[0] = (c0 + 4*c1 + c2) / 6
-				d[1] = (c2 - c0) / 2
-				d[2] = (c0 - 2*c1 + c2) / 2
-				d[3] = (c3 - c0 + 3*(c1-c2)) / 6
-			}
-		}
-		for r := 0; r < 3; r++ {
-			xpoly(y0-1+r, rows[r])
-		}
-		for y := y0; y < y1; y++ {
-			xpoly(y+2, rows[3])
-			r0, r1, r2, r3 := rows[0], rows[1], rows[2], rows[3]
-			out := t.a[16*y*w : 16*(y+1)*w]
-			for x := 0; x < w; x++ {
-				o := out[16*x : 16*x+16 : 16*x+16]
-				for i := 0; i < 4; i++ {
-					a0, a1, a2, a3 := r0[4*x+i], r1[4*x+i], r2[4*x+i], r3[4*x+i]
-					o[i] = float32((a0 + 4*a1 + a2) / 6)
-					o[4+i] = float32((a2 - a0) / 2)
-					o[8+i] = float32((a0 - 2*a1 + a2) / 2)
-					o[12+i] = float32((a3 - a0 + 3*(a1-a2)) / 6)
-				}
-			}
-			rows[0], rows[1], rows[2], rows[3] = r1, r2, r3, r0
-		}
-	})
-	if err != nil {
+	t := AllocTable(s.W, s.H)
+	if err := parallelRows(ctx, s.H, RowChunk, threads, func(y0, y1 int) { t.FillRows(s, y0, y1) }); err != nil {
 		return nil, err
 	}
 	return t, nil
+}
+
+// AllocTable allocates the table of a w×h cubic spline, for FillRows to
+// fill: NewTable in steps that a caller can share out among goroutines
+// together with other work (the allocation itself, which zeroes 64 bytes
+// per pixel, among them).
+func AllocTable(w, h int) *Table {
+	return &Table{W: w, H: h, a: make([]float32, 16*w*h)}
+}
+
+// FillRows computes the cells of rows y0 ≤ y < y1 from the cubic spline s
+// of the table's size (it panics for another spline). Each row gets the
+// same coefficients whichever call computes it.
+func (t *Table) FillRows(s *Image, y0, y1 int) {
+	if s.W != t.W || s.H != t.H || s.order != Cubic {
+		panic("spline: Table.FillRows: not the spline the table was allocated for")
+	}
+	w := s.W
+	cs := s.cs
+	// rows[r][4x+k] = Σ_q B[q][k]·c[y−1+r][x−1+q]: the x polynomial of
+	// coefficient row y−1+r over cell x.
+	var rows [4][]float64
+	buf := make([]float64, 16*w)
+	for r := range rows {
+		rows[r] = buf[4*r*w : 4*(r+1)*w : 4*(r+1)*w]
+	}
+	xpoly := func(y int, dst []float64) {
+		src := s.c[(y+pad)*cs+pad-1 : (y+pad)*cs+pad+w+2]
+		for x := 0; x < w; x++ {
+			c0, c1, c2, c3 := src[x], src[x+1], src[x+2], src[x+3]
+			d := dst[4*x : 4*x+4 : 4*x+4]
+			d[0] = (c0 + 4*c1 + c2) / 6
+			d[1] = (c2 - c0) / 2
+			d[2] = (c0 - 2*c1 + c2) / 2
+			d[3] = (c3 - c0 + 3*(c1-c2)) / 6
+		}
+	}
+	for r := 0; r < 3; r++ {
+		xpoly(y0-1+r, rows[r])
+	}
+	for y := y0; y < y1; y++ {
+		xpoly(y+2, rows[3])
+		r0, r1, r2, r3 := rows[0], rows[1], rows[2], rows[3]
+		out := t.a[16*y*w : 16*(y+1)*w]
+		for x := 0; x < w; x++ {
+			o := out[16*x : 16*x+16 : 16*x+16]
+			for i := 0; i < 4; i++ {
+				a0, a1, a2, a3 := r0[4*x+i], r1[4*x+i], r2[4*x+i], r3[4*x+i]
+				o[i] = float32((a0 + 4*a1 + a2) / 6)
+				o[4+i] = float32((a2 - a0) / 2)
+				o[8+i] = float32((a0 - 2*a1 + a2) / 2)
+				o[12+i] = float32((a3 - a0 + 3*(a1-a2)) / 6)
+			}
+		}
+		rows[0], rows[1], rows[2], rows[3] = r1, r2, r3, r0
+	}
 }
 
 // Cell returns the 16 coefficients of cell (x, y), 0 ≤ x < W, 0 ≤ y < H:

@@ -4,6 +4,7 @@ import (
 	"context"
 	"math"
 	"math/rand/v2"
+	"strings"
 	"testing"
 )
 
@@ -106,5 +107,86 @@ func BenchmarkNewTable1024(b *testing.B) {
 		if _, err := NewTable(context.Background(), s, 1); err != nil {
 			b.Fatal(err)
 		}
+	}
+}
+
+// The steps of a build give bitwise the same spline, gradients and table
+// whichever parts they are split in: here every row and block on its own,
+// in reverse order, against NewContext, SampleGradients and NewTable.
+func TestStepsIndependentOfParts(t *testing.T) {
+	g := randomImage(45, 38, 4)
+	for _, order := range []Order{Cubic, Quintic} {
+		want, err := NewContext(context.Background(), g, order, 1)
+		if err != nil {
+			t.Fatal(err)
+		}
+		b, err := NewBuild(g, order)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for y := b.Rows() - 1; y >= 0; y-- {
+			b.FilterRows(y, y+1)
+		}
+		if err := b.Err(); err != nil {
+			t.Fatal(err)
+		}
+		for k := b.Blocks() - 1; k >= 0; k-- {
+			b.FilterColumns(k, k+1)
+		}
+		got := b.Finish()
+		for i := range want.c {
+			if math.Float64bits(got.c[i]) != math.Float64bits(want.c[i]) {
+				t.Fatalf("%v: coefficient %d is %v, NewContext %v", order, i, got.c[i], want.c[i])
+			}
+		}
+		wx, wy, _ := want.SampleGradients(context.Background(), 1)
+		gx, gy := make([]float32, len(wx)), make([]float32, len(wy))
+		for y := g.H - 1; y >= 0; y-- {
+			got.GradientRows(gx, gy, y, y+1)
+		}
+		for i := range wx {
+			if gx[i] != wx[i] || gy[i] != wy[i] {
+				t.Fatalf("%v: gradient %d is (%v, %v), SampleGradients (%v, %v)", order, i, gx[i], gy[i], wx[i], wy[i])
+			}
+		}
+		if order != Cubic {
+			if _, err := NewTable(context.Background(), got, 1); err != ErrNotCubic {
+				t.Fatalf("NewTable of a quintic spline: %v, want ErrNotCubic", err)
+			}
+			continue
+		}
+		wt, _ := NewTable(context.Background(), want, 1)
+		tab := AllocTable(g.W, g.H)
+		for y := g.H - 1; y >= 0; y -= 2 {
+			tab.FillRows(got, max(y-1, 0), y+1)
+		}
+		for i := range wt.a {
+			if math.Float32bits(tab.a[i]) != math.Float32bits(wt.a[i]) {
+				t.Fatalf("table coefficient %d is %v, NewTable %v", i, tab.a[i], wt.a[i])
+			}
+		}
+	}
+}
+
+// The first non-finite sample in row-major order is the one reported,
+// whichever rows FilterRows ran first.
+func TestBuildReportsFirstBadSample(t *testing.T) {
+	g := randomImage(9, 7, 2)
+	g.Pix[5*g.Stride+1] = float32(math.Inf(1))
+	g.Pix[2*g.Stride+6] = float32(math.NaN())
+	g.Pix[2*g.Stride+7] = float32(math.NaN())
+	b, err := NewBuild(g, Cubic)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for y := b.Rows() - 1; y >= 0; y-- {
+		b.FilterRows(y, y+1)
+	}
+	err = b.Err()
+	if err == nil || !strings.Contains(err.Error(), "(6, 2)") {
+		t.Fatalf("Err() = %v, want the pixel (6, 2)", err)
+	}
+	if _, err := NewContext(context.Background(), g, Cubic, 3); err == nil || err.Error() != b.Err().Error() {
+		t.Fatalf("NewContext: %v, want %v", err, b.Err())
 	}
 }
