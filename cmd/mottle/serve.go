@@ -32,6 +32,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	data := fs.String("data", envOr("MOTTLE_DATA", "mottle-data"), "data directory for the job database, images and results (env MOTTLE_DATA)")
 	backend := fs.String("backend", "embedded", backendHelp+" (with nats://, jobs are computed only when --workers is given)")
 	workers := fs.Int("workers", runtime.NumCPU(), "jobs computed at once")
+	stateJSON := fs.Bool("state-json", false, "store each series state as JSON, readable by workers from before the binary state, instead of the binary form: set it on the new nodes of a cluster while workers of an earlier version still run (a rolling upgrade); either form is read")
 	inFlight := fs.Int("frames-in-flight", 1, "frames of one series computed at once, across all workers: with more than 1, frames of a direct-mode series are correlated side by side, each from the nearest finished frame's solution, and added to the series in order (curve within 2e-3 px and 2e-5 strain of the one-at-a-time run); 1 = one at a time, each from the previous frame")
 	queue := fs.Int("queue", 64, "jobs that may wait for a worker; more are answered 429 with Retry-After")
 	maxBody := fs.Int64("max-body-mb", 256, "largest request body, MiB")
@@ -71,7 +72,7 @@ func runServe(ctx context.Context, e *env, args []string) error {
 	defer be.Close()
 	cfg := service.Config{
 		Backend: be, Analyzer: service.Pipeline{}, Logger: log,
-		Workers: *workers, MaxFramesInFlight: *inFlight, MaxBodyBytes: *maxBody << 20, MaxPixels: *maxPixels, MaxPoints: *maxPoints,
+		Workers: *workers, MaxFramesInFlight: *inFlight, StateJSON: *stateJSON, MaxBodyBytes: *maxBody << 20, MaxPixels: *maxPixels, MaxPoints: *maxPoints,
 		JobTimeout: *jobTimeout, ReadTimeout: *readTimeout, WriteTimeout: *writeTimeout,
 		ShutdownGrace: *grace, Retention: *retention, Tokens: tokens, TokenFile: tf, Demo: demo.Pair,
 		MaxQueuedPerPrincipal: *maxQueued, RateLimit: *rate,

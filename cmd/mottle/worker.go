@@ -28,6 +28,7 @@ func runWorker(ctx context.Context, e *env, args []string) error {
 			"a worker that dies has its job delivered to another after the acknowledgement deadline (ack_wait).")
 	backend := fs.String("backend", envOr("MOTTLE_BACKEND", ""), "NATS servers and options, as for mottle serve --backend (env MOTTLE_BACKEND)")
 	workers := fs.Int("workers", runtime.NumCPU(), "jobs computed at once")
+	stateJSON := fs.Bool("state-json", false, "store each series state as JSON, readable by workers from before the binary state, instead of the binary form: set it on the new nodes of a cluster while workers of an earlier version still run (a rolling upgrade); either form is read")
 	threads := fs.Int("threads", 0, "threads each job uses; 0 = 1, and an analysis that starts while fewer jobs run than there are cores also takes the idle ones, as in mottle serve (results never depend on it)")
 	jobTimeout := fs.Duration("job-timeout", 30*time.Minute, "longest compute time of one job")
 	grace := fs.Duration("shutdown-grace", 30*time.Second, "on SIGTERM, how long running jobs may finish before they are put back in the queue")
@@ -57,7 +58,7 @@ func runWorker(ctx context.Context, e *env, args []string) error {
 	run, err := runner.New(runner.Config{
 		Backend: be, Analyzer: runner.Pipeline{}, Logger: log,
 		Workers: *workers, JobThreads: *threads, JobTimeout: *jobTimeout, ShutdownGrace: *grace,
-		MaxPixels: *maxPixels, MaxBytes: *maxBody << 20,
+		MaxPixels: *maxPixels, MaxBytes: *maxBody << 20, StateJSON: *stateJSON,
 	})
 	if err != nil {
 		return err

@@ -92,7 +92,7 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 		return false
 	}
 	if in.Guess == nil && last != nil {
-		if in.GuessState, err = s.ReadBlob(bg, StateKey(sr.ID, last.FrameIndex)); err != nil {
+		if in.GuessState, err = s.ReadState(bg, sr.ID, last.FrameIndex); err != nil {
 			in.GuessState = nil
 		} else {
 			guess, from = guessState, last.FrameIndex

@@ -269,12 +269,12 @@ func TestFramesInFlightRestart(t *testing.T) {
 
 func seriesState(t *testing.T, rn *Runner, id string, n int) series.State {
 	t.Helper()
-	b, err := rn.ReadBlob(context.Background(), StateKey(id, n-1))
+	b, err := rn.ReadBlob(context.Background(), BinaryStateKey(id, n-1))
 	if err != nil {
 		t.Fatal(err)
 	}
-	var st series.State
-	if err := json.Unmarshal(b, &st); err != nil {
+	st, err := series.DecodeState(b)
+	if err != nil {
 		t.Fatal(err)
 	}
 	return st

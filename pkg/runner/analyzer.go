@@ -68,6 +68,8 @@ type Result struct {
 	// (quality.Measure), which the runner hands to later jobs of the same
 	// reference as Input.RefMeasures.
 	RefMeasures *quality.Measures
+
+	stateFrom string // the key of the state the frame continued from
 }
 
 // FrameAnalyzer is an Analyzer that also tracks the frames of a series
@@ -96,6 +98,9 @@ type FrameInput struct {
 	Params json.RawMessage
 	// State is the engine state after Last, nil for the first frame.
 	State []byte
+	// StateJSON asks for the new state (Result.State) as JSON rather than
+	// in the engine's binary form (Config.StateJSON).
+	StateJSON bool
 	// Formats are the result formats to write, as for Input.
 	Formats string
 	// Name, Time and Load describe the frame; RefName names the reference.

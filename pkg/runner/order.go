@@ -6,6 +6,7 @@ import (
 	"fmt"
 	"time"
 
+	"github.com/mottledic/mottle/pkg/series"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
@@ -201,9 +202,52 @@ type wallClock struct{}
 func (wallClock) Now() time.Time                         { return time.Now() }
 func (wallClock) After(d time.Duration) <-chan time.Time { return time.After(d) }
 
-// StateKey is the blob key of a series' tracker state after frame n.
+// StateKey is the blob key of a series' tracker state after frame n as
+// JSON: the form of the stereo series, of workers from before the binary
+// state, and of a runner with Config.StateJSON.
 func StateKey(seriesID string, n int) string {
 	return jobs.SeriesKey(seriesID, fmt.Sprintf("state/%06d.json", n))
+}
+
+// BinaryStateKey is the blob key of a series' tracker state after frame n
+// in the binary form (series.State.MarshalBinary), which a frame stores
+// unless Config.StateJSON is set.
+func BinaryStateKey(seriesID string, n int) string {
+	return jobs.SeriesKey(seriesID, fmt.Sprintf("state/%06d.bin", n))
+}
+
+// stateKeyOf is the key state b after frame n is stored under: by its form.
+func stateKeyOf(seriesID string, n int, b []byte) string {
+	if series.IsBinaryState(b) {
+		return BinaryStateKey(seriesID, n)
+	}
+	return StateKey(seriesID, n)
+}
+
+// ReadState reads the tracker state of a series after frame n, in either
+// form (series.DecodeState reads both).
+func (s *Runner) ReadState(ctx context.Context, seriesID string, n int) ([]byte, error) {
+	b, _, err := s.readState(ctx, seriesID, n)
+	return b, err
+}
+
+// readState is ReadState that also returns the key read. It looks first
+// under the key of the form this runner writes, then under the other,
+// where a state stored by an earlier version (or by a worker of the other
+// setting) is.
+func (s *Runner) readState(ctx context.Context, seriesID string, n int) ([]byte, string, error) {
+	keys := [2]string{BinaryStateKey(seriesID, n), StateKey(seriesID, n)}
+	if s.cfg.StateJSON {
+		keys[0], keys[1] = keys[1], keys[0]
+	}
+	b, err := s.ReadBlob(ctx, keys[0])
+	if errors.Is(err, jobs.ErrNotFound) {
+		var err2 error
+		if b, err2 = s.ReadBlob(ctx, keys[1]); err2 == nil {
+			return b, keys[1], nil
+		}
+	}
+	return b, keys[0], err
 }
 
 // lastDone returns the last succeeded frame of j's series before j, or nil
@@ -222,14 +266,13 @@ func (s *Runner) lastDone(ctx context.Context, j *jobs.Job) (*jobs.Job, error) {
 	return last, nil
 }
 
-// dropOldState removes the tracker state j was computed from, now that
-// j's own state is stored and j is recorded as done.
-func (s *Runner) dropOldState(ctx context.Context, j *jobs.Job) {
-	last, err := s.lastDone(ctx, j)
-	if err == nil && last != nil {
-		err = jobs.DeleteKey(ctx, s.blobs, StateKey(j.Series, last.FrameIndex))
+// dropOldState removes the tracker state j was computed from (under key
+// from), now that j's own state is stored and j is recorded as done.
+func (s *Runner) dropOldState(ctx context.Context, j *jobs.Job, from string) {
+	if from == "" {
+		return // the first frame
 	}
-	if err != nil {
+	if err := jobs.DeleteKey(ctx, s.blobs, from); err != nil {
 		s.log.Warn("remove old series state", "job", j.ID, "error", err)
 	}
 }

@@ -257,7 +257,7 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 		tr, err = series.NewWith(in.Ref, series.FrameMeta{Name: ref}, p, series.Options{Mask: in.Mask})
 	} else {
 		var st series.State
-		if err = json.Unmarshal(in.State, &st); err != nil {
+		if st, err = series.DecodeState(in.State); err != nil {
 			return nil, fmt.Errorf("stored series state: %w", err)
 		}
 		st.Params.Analysis.Threads = in.Threads
@@ -286,7 +286,12 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
-	if res.State, err = tr.StateJSON(); err != nil {
+	if in.StateJSON {
+		res.State, err = tr.StateJSON()
+	} else {
+		res.State, err = tr.StateBinary()
+	}
+	if err != nil {
 		return nil, err
 	}
 	res.Summary = frameSummary(res.Summary, fr.Summary)

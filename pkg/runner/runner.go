@@ -56,6 +56,16 @@ type Config struct {
 	// Retention removes finished analyses, and series not updated, after
 	// this long; 0 keeps everything.
 	Retention time.Duration
+	// StateJSON stores the state of a series after each frame as JSON
+	// (StateKey) instead of the binary form (BinaryStateKey), which is
+	// about a third of the bytes and decodes and encodes without
+	// formatting numbers. Workers from before the binary form read only
+	// the JSON: one of them given the next frame of a series whose state is
+	// binary finds no state under StateKey and fails that frame ("the
+	// series cannot continue"). Set StateJSON on the new workers of a
+	// cluster while it still has such workers (a rolling upgrade), and
+	// clear it once none is left. Either way a runner reads both forms.
+	StateJSON bool
 
 	// BeforeCompute, if not nil, is called by a worker after it has
 	// recorded job j as running and before it loads the inputs and

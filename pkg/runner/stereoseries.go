@@ -116,5 +116,8 @@ func (s *Runner) computeStereoFrame(ctx context.Context, j *jobs.Job, sr *jobs.S
 		return nil, err
 	}
 	res.Summary = frameSummary(res.Summary, row)
+	if last != nil {
+		res.stateFrom = StateKey(sr.ID, last.FrameIndex)
+	}
 	return res, nil
 }

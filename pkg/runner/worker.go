@@ -131,7 +131,7 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 		// The new state goes in before the frame counts as done; the state
 		// it was made from is kept until then, so a crash in between
 		// repeats the frame from the same start.
-		err = s.blobs.Put(ctx, StateKey(j.Series, j.FrameIndex), bytes.NewReader(res.State))
+		err = s.blobs.Put(ctx, stateKeyOf(j.Series, j.FrameIndex, res.State), bytes.NewReader(res.State))
 	}
 	cause := context.Cause(jctx)
 	if err != nil && jctx.Err() == nil {
@@ -151,7 +151,7 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 		})
 		s.metrics.jobDone(final, sum.Points, secs)
 		if err == nil && res.State != nil {
-			s.dropOldState(ctx, j)
+			s.dropOldState(ctx, j, res.stateFrom)
 			s.dropSolved(ctx, j)
 		}
 	case errors.Is(cause, errShutdown):
@@ -237,7 +237,7 @@ const framePoll = 50 * time.Millisecond
 // state after the last frame that succeeded before it.
 func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer, progress func(done, total int)) (*Result, error) {
 	in := FrameInput{Params: j.Params, Name: j.Name, Time: j.Time, Load: j.Load, Formats: j.Formats,
-		Threads: s.cfg.JobThreads, Progress: progress, RefName: "reference"}
+		Threads: s.cfg.JobThreads, Progress: progress, RefName: "reference", StateJSON: s.cfg.StateJSON}
 	if in.Name == "" {
 		in.Name = fmt.Sprintf("frame_%d", j.FrameIndex)
 	}
@@ -262,8 +262,9 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 			return nil, err
 		}
 	}
+	var from string
 	if last != nil {
-		if in.State, err = s.ReadBlob(ctx, StateKey(j.Series, last.FrameIndex)); err != nil {
+		if in.State, from, err = s.readState(ctx, j.Series, last.FrameIndex); err != nil {
 			return nil, fmt.Errorf("series state after frame %d: %w; the series cannot continue, start a new series", last.FrameIndex, err)
 		}
 		if in.Last, err = s.loadSeriesImage(ctx, jobs.InputKey(last.ID, "deformed"), &in.Orientation); err != nil {
@@ -274,7 +275,11 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 		start := time.Now()
 		defer func() { s.metrics.added(time.Since(start).Seconds()) }()
 	}
-	return fa.Frame(ctx, in)
+	res, err := fa.Frame(ctx, in)
+	if res != nil {
+		res.stateFrom = from
+	}
+	return res, err
 }
 
 // compute loads the inputs of j and runs the analyzer.

@@ -118,3 +118,56 @@ func BenchmarkSolutionCodec(b *testing.B) {
 		})
 	}
 }
+
+// BenchmarkStateCodec encodes and decodes the state a service worker
+// stores after each frame of a 512×512 series at step 8 (3 600 points,
+// three frames of history, a tracker's real values; the curve padded to
+// the 60 rows of frame 59 of BenchmarkClusterSeries), in the JSON form
+// of earlier versions and in the binary form, in the same run. Run with
+//
+//	go test -run '^$' -bench StateCodec ./pkg/series
+func BenchmarkStateCodec(b *testing.B) {
+	var ms []synth.Motion
+	for _, e := range []float64{0.002, 0.004, 0.006} {
+		ms = append(ms, synth.Affine{F: [2][2]float64{{1 + e, 0}, {0, 1 - 0.3*e}}, CX: 256, CY: 256})
+	}
+	ref, imgs := renderFrames(b, 512, 512, 4, ms, 0)
+	p := Defaults()
+	p.Analysis.Subset, p.Analysis.Step = 21, 8
+	tr, err := New(ref, FrameMeta{}, p)
+	if err != nil {
+		b.Fatal(err)
+	}
+	for _, im := range imgs {
+		if _, err := tr.Add(context.Background(), im, FrameMeta{}); err != nil {
+			b.Fatal(err)
+		}
+	}
+	for len(tr.st.Curve) < 60 {
+		r := tr.st.Curve[len(tr.st.Curve)-1]
+		r.Index++
+		tr.st.Curve = append(tr.st.Curve, r)
+	}
+	for _, c := range []struct {
+		name string
+		enc  func() ([]byte, error)
+	}{
+		{"json", tr.StateJSON},
+		{"binary", tr.StateBinary},
+	} {
+		b.Run(c.name, func(b *testing.B) {
+			var size int
+			for range b.N {
+				data, err := c.enc()
+				if err != nil {
+					b.Fatal(err)
+				}
+				if _, err := DecodeState(data); err != nil {
+					b.Fatal(err)
+				}
+				size = len(data)
+			}
+			b.ReportMetric(float64(size), "bytes")
+		})
+	}
+}

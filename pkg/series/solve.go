@@ -128,10 +128,18 @@ func (s State) Solution() *Solution {
 }
 
 // SolutionOfState returns State.Solution of the state encoded in b (the
-// JSON of StateJSON or of a State), reading only the grid, the points and
-// the number of curve rows: a frame solved ahead needs no more of the
-// state than its guess, and the history and curve rows are most of it.
+// binary form of StateBinary, or the JSON of StateJSON or of a State).
+// Of the JSON it reads only the grid, the points and the number of curve
+// rows: a frame solved ahead needs no more of the state than its guess,
+// and the history and curve rows are most of it.
 func SolutionOfState(b []byte) (*Solution, error) {
+	if IsBinaryState(b) {
+		st, err := DecodeState(b)
+		if err != nil {
+			return nil, err
+		}
+		return st.Solution(), nil
+	}
 	var s struct {
 		Grid   lattice           `json:"grid"`
 		Points []PointState      `json:"points"`

@@ -43,6 +43,11 @@ type Config struct {
 	// Default 1: one frame at a time, each started from the previous
 	// frame's solution.
 	MaxFramesInFlight int
+	// StateJSON stores a series' state after each frame as JSON, the
+	// only form workers from before the binary state read, instead of the
+	// binary form (runner.Config.StateJSON): for the new nodes of a
+	// cluster during a rolling upgrade.
+	StateJSON bool
 	// MaxAttempts is how many times a job is started before it is failed
 	// (a job that crashes the process is not retried for ever); default 3.
 	MaxAttempts int

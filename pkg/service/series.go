@@ -3,7 +3,6 @@ package service
 import (
 	"bytes"
 	"context"
-	"encoding/json"
 	"errors"
 	"fmt"
 	"net/http"
@@ -507,13 +506,11 @@ func (s *Server) seriesCurve(ctx context.Context, sr *jobs.Series) (series.Curve
 		if j.State != jobs.Succeeded {
 			continue
 		}
-		rc, err := s.blobs.Get(ctx, stateKey(sr.ID, j.FrameIndex))
+		b, err := s.run.ReadState(ctx, sr.ID, j.FrameIndex)
 		if err != nil {
 			break
 		}
-		var st series.State
-		err = json.NewDecoder(rc).Decode(&st)
-		rc.Close()
+		st, err := series.DecodeState(b)
 		if err != nil {
 			return series.Curve{}, fmt.Errorf("stored series state: %w", err)
 		}

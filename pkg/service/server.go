@@ -76,7 +76,7 @@ func New(cfg Config) (*Server, error) {
 	run, err := runner.New(runner.Config{Backend: cfg.Backend, Analyzer: cfg.Analyzer, Logger: cfg.Logger,
 		Workers: cfg.Workers, JobThreads: cfg.JobThreads, MaxAttempts: cfg.MaxAttempts,
 		MaxPixels: cfg.MaxPixels, MaxBytes: cfg.MaxBodyBytes, JobTimeout: cfg.JobTimeout,
-		ShutdownGrace: cfg.ShutdownGrace, Retention: cfg.Retention, BeforeCompute: cfg.BeforeCompute})
+		ShutdownGrace: cfg.ShutdownGrace, Retention: cfg.Retention, BeforeCompute: cfg.BeforeCompute, StateJSON: cfg.StateJSON})
 	if err != nil {
 		return nil, err
 	}

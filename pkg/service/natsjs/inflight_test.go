@@ -119,7 +119,7 @@ func TestClusterFramesInFlight(t *testing.T) {
 	if retried < 1 {
 		t.Errorf("no frame took a second attempt, want at least the one worker-a held when it was killed")
 	}
-	rc, err := obs.Blobs().Get(ctx, jobs.SeriesKey(id, fmt.Sprintf("state/%06d.json", frames-1)))
+	rc, err := obs.Blobs().Get(ctx, jobs.SeriesKey(id, fmt.Sprintf("state/%06d.bin", frames-1)))
 	if err != nil {
 		t.Fatalf("state after the last frame: %v", err)
 	}
@@ -127,7 +127,7 @@ func TestClusterFramesInFlight(t *testing.T) {
 	rc.Close()
 	var st series.State
 	if err == nil {
-		err = json.Unmarshal(b, &st)
+		st, err = series.DecodeState(b)
 	}
 	if err != nil {
 		t.Fatal(err)
