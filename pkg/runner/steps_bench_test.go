@@ -63,6 +63,17 @@ func BenchmarkFrameSteps(b *testing.B) {
 		in.Solved = sol
 		perOp(b, func() error { _, err := an.Frame(ctx, in); return err })
 	})
+	// The same with the state read and written as JSON, the form of
+	// earlier versions (Config.StateJSON).
+	js, err := an.Frame(ctx, FrameInput{Ref: ref, Def: imgs[0], Params: params, Threads: 1, StateJSON: true})
+	if err != nil {
+		b.Fatal(err)
+	}
+	b.Run("add-solved-json", func(b *testing.B) {
+		in := in
+		in.Solved, in.State, in.StateJSON = sol, js.State, true
+		perOp(b, func() error { _, err := an.Frame(ctx, in); return err })
+	})
 	b.Run("add", func(b *testing.B) {
 		perOp(b, func() error { _, err := an.Frame(ctx, in); return err })
 	})
