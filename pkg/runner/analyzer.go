@@ -91,6 +91,10 @@ type FrameInput struct {
 	// Ref is the series reference; Last the last frame added before this
 	// one (nil for the first frame); Def the frame itself.
 	Ref, Last, Def *imageio.Gray
+	// LoadLast, when Last is nil, loads the last frame added before this
+	// one, if the engine needs it (series.RestoreLoading: a frame of a
+	// direct-mode series added from its solution does not).
+	LoadLast func() (*imageio.Gray, error)
 	// Orientation is the EXIF orientation the images were turned by (the
 	// series reference's).
 	Orientation imageio.Orientation

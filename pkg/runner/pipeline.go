@@ -261,7 +261,11 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 			return nil, fmt.Errorf("stored series state: %w", err)
 		}
 		st.Params.Analysis.Threads = in.Threads
-		tr, err = series.Restore(in.Ref, in.Last, st)
+		if in.Last == nil && in.LoadLast != nil {
+			tr, err = series.RestoreLoading(in.Ref, in.LoadLast, st)
+		} else {
+			tr, err = series.Restore(in.Ref, in.Last, st)
+		}
 	}
 	if err != nil {
 		return nil, err

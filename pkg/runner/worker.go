@@ -267,9 +267,10 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 		if in.State, from, err = s.readState(ctx, j.Series, last.FrameIndex); err != nil {
 			return nil, fmt.Errorf("series state after frame %d: %w; the series cannot continue, start a new series", last.FrameIndex, err)
 		}
-		if in.Last, err = s.loadSeriesImage(ctx, jobs.InputKey(last.ID, "deformed"), &in.Orientation); err != nil {
-			return nil, err
-		}
+		// The last frame is read only if the engine needs it (not for a
+		// frame of a direct-mode series added from its solution).
+		key := jobs.InputKey(last.ID, "deformed")
+		in.LoadLast = func() (*imageio.Gray, error) { return s.loadSeriesImage(ctx, key, &in.Orientation) }
 	}
 	if in.Solved = s.solvedFor(ctx, j); in.Solved != nil {
 		start := time.Now()

@@ -107,7 +107,11 @@ func (t *Tracker) reacquire(ctx context.Context, img *imageio.Gray, out []PointS
 		if len(idx) == 0 {
 			break
 		}
-		ms, err := t.corr.at(ctx, t.prev, img, pts, start, prog.pass())
+		last, err := t.previous()
+		if err != nil {
+			return 0, err
+		}
+		ms, err := t.corr.at(ctx, last, img, pts, start, prog.pass())
 		if err != nil {
 			return 0, err
 		}

@@ -250,7 +250,53 @@ func Restore(ref, last *imageio.Gray, s State) (*Tracker, error) {
 	return restore(ref, last, s, c)
 }
 
+// RestoreLoading is Restore with the last frame loaded by last when the
+// tracker first needs it, for an incremental step or a re-acquisition
+// (which correlate the last frame with the next), instead of at once: a
+// frame of a direct-mode series added from its solution (AddSolved) then
+// never reads it. An error of last, or a frame of another size than the
+// reference, is the error of that Add. last may be nil when no frame has
+// been added yet.
+func RestoreLoading(ref *imageio.Gray, last func() (*imageio.Gray, error), s State) (*Tracker, error) {
+	if err := s.check(); err != nil {
+		return nil, fmt.Errorf("restore series: %w", err)
+	}
+	if ref == nil || ref.W < 1 || ref.H < 1 {
+		return nil, errors.New("restore series: reference image is empty")
+	}
+	c, err := newCorrelatorOn(ref, s.Params, s.Mask, &s.Grid)
+	if err != nil {
+		return nil, fmt.Errorf("restore series: %w", err)
+	}
+	t, err := restoreOn(ref, s, c)
+	if err != nil {
+		return nil, err
+	}
+	if len(s.Curve) > 1 {
+		if last == nil {
+			return nil, fmt.Errorf("restore series: %d frames were added, so the last frame is needed", len(s.Curve)-1)
+		}
+		t.prev, t.loadPrev = nil, last
+	}
+	return t, nil
+}
+
 func restore(ref, last *imageio.Gray, s State, c correlator) (*Tracker, error) {
+	t, err := restoreOn(ref, s, c)
+	if err != nil {
+		return nil, err
+	}
+	if len(s.Curve) > 1 {
+		if last == nil || last.W != ref.W || last.H != ref.H {
+			return nil, fmt.Errorf("restore series: %d frames were added, so the last frame is needed, at the reference's size (%d×%d): %w", len(s.Curve)-1, ref.W, ref.H, ErrSize)
+		}
+		t.prev = last
+	}
+	return t, nil
+}
+
+// restoreOn is the part of restore that does not depend on the last frame.
+func restoreOn(ref *imageio.Gray, s State, c correlator) (*Tracker, error) {
 	if err := s.check(); err != nil {
 		return nil, fmt.Errorf("restore series: %w", err)
 	}
@@ -260,12 +306,6 @@ func restore(ref, last *imageio.Gray, s State, c correlator) (*Tracker, error) {
 	}
 	if t.st.Grid != s.Grid {
 		return nil, fmt.Errorf("restore series: the state's grid %+v differs from the one the parameters give for this reference %+v; is it the same reference image?", s.Grid, t.st.Grid)
-	}
-	if len(s.Curve) > 1 {
-		if last == nil || last.W != ref.W || last.H != ref.H {
-			return nil, fmt.Errorf("restore series: %d frames were added, so the last frame is needed, at the reference's size (%d×%d): %w", len(s.Curve)-1, ref.W, ref.H, ErrSize)
-		}
-		t.prev = last
 	}
 	t.st = s
 	return t, nil

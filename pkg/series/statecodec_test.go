@@ -4,12 +4,14 @@ import (
 	"bytes"
 	"context"
 	"encoding/json"
+	"errors"
 	"math"
 	"reflect"
 	"testing"
 	"time"
 
 	"github.com/mottledic/mottle/pkg/field"
+	"github.com/mottledic/mottle/pkg/imageio"
 )
 
 // sameBits reports whether a and b hold the same floats bit for bit.
@@ -313,4 +315,98 @@ func FuzzStateBinary(f *testing.F) {
 			t.Fatalf("re-encoding is not stable: %v", err)
 		}
 	})
+}
+
+// TestRestoreLoading checks that a tracker restored with RestoreLoading
+// reads the last frame only when it needs it: not for a frame of a
+// direct-mode series added from its solution, once for an incremental
+// step; that either way the frame's field.json and the state are byte for
+// byte those of a tracker restored with the last frame at once; and that
+// a failing load or a frame of another size is the error of Add.
+func TestRestoreLoading(t *testing.T) {
+	ref, imgs, p := solveSeries(t)
+	ctx := context.Background()
+	for _, mode := range []string{IncrementalNever, IncrementalAlways} {
+		p := p
+		p.Incremental = mode
+		tr, err := New(ref, FrameMeta{Name: "ref"}, p)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for _, im := range imgs[:2] {
+			if _, err := tr.Add(ctx, im, FrameMeta{}); err != nil {
+				t.Fatal(err)
+			}
+		}
+		b, err := tr.StateBinary()
+		if err != nil {
+			t.Fatal(err)
+		}
+		st, err := DecodeState(b)
+		if err != nil {
+			t.Fatal(err)
+		}
+		sol, err := Solve(ctx, ref, imgs[2], p, Options{}, st.Solution(), nil)
+		if err != nil {
+			t.Fatal(err)
+		}
+		add := func(tr *Tracker) ([]byte, []byte) {
+			t.Helper()
+			fr, err := tr.AddSolved(ctx, imgs[2], FrameMeta{}, sol)
+			if err != nil {
+				t.Fatal(err)
+			}
+			f, err := FrameField(fr, tr.Params(), "ref", FrameMeta{}, ref.W, ref.H)
+			if err != nil {
+				t.Fatal(err)
+			}
+			f.Meta.Created = time.Time{}
+			var js bytes.Buffer
+			if err := field.WriteJSON(&js, f); err != nil {
+				t.Fatal(err)
+			}
+			s, err := tr.StateBinary()
+			if err != nil {
+				t.Fatal(err)
+			}
+			return js.Bytes(), s
+		}
+		eager, err := Restore(ref, imgs[1], st)
+		if err != nil {
+			t.Fatal(err)
+		}
+		wantField, wantState := add(eager)
+		loads := 0
+		lazy, err := RestoreLoading(ref, func() (*imageio.Gray, error) { loads++; return imgs[1], nil }, st)
+		if err != nil {
+			t.Fatal(err)
+		}
+		gotField, gotState := add(lazy)
+		if want := map[string]int{IncrementalNever: 0, IncrementalAlways: 1}[mode]; loads != want {
+			t.Errorf("%s: the last frame was loaded %d times, want %d", mode, loads, want)
+		}
+		if !bytes.Equal(gotField, wantField) || !bytes.Equal(gotState, wantState) {
+			t.Errorf("%s: the frame differs from the one added with the last frame given at once", mode)
+		}
+		if mode != IncrementalAlways {
+			continue
+		}
+		bad := errors.New("no such blob")
+		for name, load := range map[string]func() (*imageio.Gray, error){
+			"error":      func() (*imageio.Gray, error) { return nil, bad },
+			"wrong size": func() (*imageio.Gray, error) { return imageio.NewGray(ref.W-1, ref.H), nil },
+		} {
+			tr, err := RestoreLoading(ref, load, st)
+			if err != nil {
+				t.Fatal(err)
+			}
+			_, err = tr.Add(ctx, imgs[2], FrameMeta{})
+			if want := map[string]error{"error": bad, "wrong size": ErrSize}[name]; !errors.Is(err, want) {
+				t.Errorf("%s: Add returned %v, want %v", name, err, want)
+			}
+		}
+	}
+	if _, err := RestoreLoading(ref, nil, trackedState(t, 1).st); err == nil {
+		t.Error("RestoreLoading without a loader after a frame: no error")
+	}
 }

@@ -69,7 +69,10 @@ type Frame struct {
 type Tracker struct {
 	ref  *imageio.Gray
 	prev *imageio.Gray
-	corr correlator
+	// loadPrev, if not nil, loads prev when it is first needed
+	// (RestoreLoading).
+	loadPrev func() (*imageio.Gray, error)
+	corr     correlator
 	st   State
 	// solved, if not nil, is the direct correlation of the frame being
 	// added, solved ahead (AddSolved).
@@ -282,8 +285,24 @@ func (t *Tracker) Add(ctx context.Context, img *imageio.Gray, meta FrameMeta) (*
 		t.st.Static = append(t.st.Static, staticStats(fr.Quantities))
 	}
 	t.st.Curve = append(t.st.Curve, fr.Summary)
-	t.prev = img
+	t.prev, t.loadPrev = img, nil
 	return fr, nil
+}
+
+// previous returns the last frame added, loading it first if the tracker
+// was restored with RestoreLoading.
+func (t *Tracker) previous() (*imageio.Gray, error) {
+	if t.prev == nil && t.loadPrev != nil {
+		g, err := t.loadPrev()
+		if err != nil {
+			return nil, fmt.Errorf("the series' last frame: %w", err)
+		}
+		if g == nil || g.W != t.ref.W || g.H != t.ref.H {
+			return nil, fmt.Errorf("the series' last frame is needed at the reference's size (%d×%d): %w", t.ref.W, t.ref.H, ErrSize)
+		}
+		t.prev, t.loadPrev = g, nil
+	}
+	return t.prev, nil
 }
 
 func countValid(pts []PointState) int {
@@ -398,7 +417,11 @@ func (t *Tracker) incremental(ctx context.Context, img *imageio.Gray, prog *prog
 	if len(idx) == 0 {
 		return out, nil
 	}
-	ms, err := t.corr.at(ctx, t.prev, img, pts, start, prog.pass())
+	prev, err := t.previous()
+	if err != nil {
+		return nil, err
+	}
+	ms, err := t.corr.at(ctx, prev, img, pts, start, prog.pass())
 	if err != nil {
 		return nil, err
 	}
