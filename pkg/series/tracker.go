@@ -73,7 +73,7 @@ type Tracker struct {
 	// (RestoreLoading).
 	loadPrev func() (*imageio.Gray, error)
 	corr     correlator
-	st   State
+	st       State
 	// solved, if not nil, is the direct correlation of the frame being
 	// added, solved ahead (AddSolved).
 	solved *Solution
