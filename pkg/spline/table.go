@@ -80,8 +80,9 @@ func (t *Table) FillRows(s *Image, y0, y1 int) {
 	xpoly := func(y int, dst []float64) {
 		src := s.c[(y+pad)*cs+pad-1 : (y+pad)*cs+pad+w+2]
 		for x := 0; x < w; x++ {
-			c0, c1, c2, c3 := src[x], src[x+1], src[x+2], src[x+3]
-			d := dst[4*x : 4*x+4 : 4*x+4]
+			c := (*[4]float64)(src[x:])
+			d := (*[4]float64)(dst[4*x:])
+			c0, c1, c2, c3 := c[0], c[1], c[2], c[3]
 			d[0] = (c0 + 4*c1 + c2) / 6
 			d[1] = (c2 - c0) / 2
 			d[2] = (c0 - 2*c1 + c2) / 2
@@ -96,9 +97,10 @@ func (t *Table) FillRows(s *Image, y0, y1 int) {
 		r0, r1, r2, r3 := rows[0], rows[1], rows[2], rows[3]
 		out := t.a[16*y*w : 16*(y+1)*w]
 		for x := 0; x < w; x++ {
-			o := out[16*x : 16*x+16 : 16*x+16]
+			o := (*[16]float32)(out[16*x:])
+			p0, p1, p2, p3 := (*[4]float64)(r0[4*x:]), (*[4]float64)(r1[4*x:]), (*[4]float64)(r2[4*x:]), (*[4]float64)(r3[4*x:])
 			for i := 0; i < 4; i++ {
-				a0, a1, a2, a3 := r0[4*x+i], r1[4*x+i], r2[4*x+i], r3[4*x+i]
+				a0, a1, a2, a3 := p0[i], p1[i], p2[i], p3[i]
 				o[i] = float32((a0 + 4*a1 + a2) / 6)
 				o[4+i] = float32((a2 - a0) / 2)
 				o[8+i] = float32((a0 - 2*a1 + a2) / 2)

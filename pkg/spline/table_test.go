@@ -190,3 +190,33 @@ func TestBuildReportsFirstBadSample(t *testing.T) {
 		t.Fatalf("NewContext: %v, want %v", err, b.Err())
 	}
 }
+
+// BenchmarkSteps1024 times each step of building a 1024×1024 cubic
+// spline, its gradients and its table on one goroutine: ns per pixel.
+func BenchmarkSteps1024(b *testing.B) {
+	g := randomImage(1024, 1024, 1)
+	bd, _ := NewBuild(g, Cubic)
+	bd.FilterRows(0, bd.Rows())
+	bd.FilterColumns(0, bd.Blocks())
+	s := bd.Finish()
+	gx, gy := make([]float32, 1024*1024), make([]float32, 1024*1024)
+	tab := AllocTable(1024, 1024)
+	px := float64(1024 * 1024)
+	for _, c := range []struct {
+		name string
+		f    func()
+	}{
+		{"check+rows", func() { bd.FilterRows(0, bd.Rows()) }},
+		{"columns", func() { bd.FilterColumns(0, bd.Blocks()) }},
+		{"gradients", func() { s.GradientRows(gx, gy, 0, 1024) }},
+		{"table", func() { tab.FillRows(s, 0, 1024) }},
+		{"table-alloc", func() { tab = AllocTable(1024, 1024) }},
+	} {
+		b.Run(c.name, func(b *testing.B) {
+			for b.Loop() {
+				c.f()
+			}
+			b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N)/px, "ns/px")
+		})
+	}
+}
