@@ -81,6 +81,13 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 			in.Guess, guess, from = b, guessSolved, k
 		}
 	}
+	if guess == guessSolved && from < n-1 && from > 1 {
+		// The frame just before n is not solved yet: move the guess on
+		// along the step from the frame before it, if its solution is kept.
+		if b, err := s.ReadBlob(bg, SolveKey(sr.ID, from-1)); err == nil {
+			in.GuessBefore, in.GuessRatio, guess = b, s.stepRatio(bg, sr, j, from), guessExtrapolated
+		}
+	}
 	last, err := s.lastDone(bg, j)
 	if err != nil {
 		return false
@@ -145,10 +152,33 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 
 // The sources of the guess of a frame solved ahead (Stats, the log).
 const (
-	guessSolved = "solution" // the solution of a frame before it
+	guessSolved       = "solution"     // the solution of a frame before it
+	guessExtrapolated = "extrapolated" // that moved on from the frame before it
 	guessState  = "state"    // the series state after the last finished frame
 	guessNone   = "none"     // none: the seed search
 )
+
+// stepRatio is the ratio of the distance from frame from to frame j over
+// the distance from frame from−1 to frame from: in time, when all three
+// have one and they increase, else in frame indices.
+func (s *Runner) stepRatio(ctx context.Context, sr *jobs.Series, j *jobs.Job, from int) float64 {
+	r := float64(j.FrameIndex - from)
+	if j.Time == nil {
+		return r
+	}
+	a, err := s.store.Job(ctx, sr.Frames[from-1])
+	if err != nil || a.Time == nil {
+		return r
+	}
+	b, err := s.store.Job(ctx, sr.Frames[from])
+	if err != nil || b.Time == nil {
+		return r
+	}
+	if ta, tb, tj := *a.Time, *b.Time, *j.Time; ta < tb && tb < tj {
+		return (tj - tb) / (tb - ta)
+	}
+	return r
+}
 
 // solveAheadHeld is solveAhead for a frame held since *held: the time a
 // solve takes does not count as held (Stats.HeldSeconds).
@@ -168,18 +198,18 @@ func (s *Runner) solvedFor(ctx context.Context, j *jobs.Job) []byte {
 	return b
 }
 
-// dropSolved removes the solution of the frame before j once j is in the
-// series state. j's own solution stays until the next frame is added: a
-// frame solved ahead while the one before it is still being solved takes
-// its guess from it, a read of the binary solution instead of the series
-// state's JSON, which holds the same frame's points and four times the
-// bytes besides. The last frame's solution stays until the series is
-// deleted.
+// dropSolved removes the solution of the frame two before j once j is in
+// the series state. The solutions of j and of the frame before it stay
+// until the next frame is added: a frame solved ahead while the one before
+// it is still being solved takes its guess from j's, moved on along the
+// step from the frame before j (series.Extrapolate), a read of two binary
+// solutions instead of the series state. The last two frames' solutions
+// stay until the series is deleted.
 func (s *Runner) dropSolved(ctx context.Context, j *jobs.Job) {
-	if j.FrameIndex == 0 {
+	if j.FrameIndex < 2 {
 		return
 	}
-	if err := jobs.DeleteKey(ctx, s.blobs, SolveKey(j.Series, j.FrameIndex-1)); err != nil && !errors.Is(err, jobs.ErrNotFound) {
+	if err := jobs.DeleteKey(ctx, s.blobs, SolveKey(j.Series, j.FrameIndex-2)); err != nil && !errors.Is(err, jobs.ErrNotFound) {
 		s.log.Warn("remove frame solution", "job", j.ID, "error", err)
 	}
 }

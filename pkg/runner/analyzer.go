@@ -157,6 +157,12 @@ type SolveInput struct {
 	// GuessState, when Guess is nil, the engine state after the last
 	// finished frame, or nil (then the seed search starts the frame).
 	Guess, GuessState []byte
+	// GuessBefore, if not nil with Guess, is the solution of the frame
+	// before Guess's, and GuessRatio the distance from Guess's frame to
+	// this one over the distance from GuessBefore's to Guess's: the guess
+	// is then moved on along that step (series.Extrapolate).
+	GuessBefore []byte
+	GuessRatio  float64
 	// Threads caps the worker goroutines of the correlation.
 	Threads int
 	// Progress is called as in FrameInput.

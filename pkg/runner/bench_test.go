@@ -243,6 +243,7 @@ func BenchmarkSeriesInFlight(b *testing.B) {
 			b.ReportMetric(st.AddSeconds/f, "add-s/frame")
 			b.ReportMetric(st.HeldSeconds/f, "held-s/frame")
 			b.ReportMetric(float64(st.GuessState)/f, "guess-state/frame")
+			b.ReportMetric(float64(st.GuessExtrapolated)/f, "guess-extrapolated/frame")
 			b.ReportMetric(float64(st.GuessNone)/f, "guess-none/frame")
 		})
 	}

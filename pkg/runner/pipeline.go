@@ -381,6 +381,10 @@ func (Pipeline) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
 	case in.Guess != nil:
 		if guess, err = series.DecodeSolution(in.Guess); err != nil {
 			guess = nil
+		} else if in.GuessBefore != nil {
+			if before, err := series.DecodeSolution(in.GuessBefore); err == nil {
+				guess = series.Extrapolate(before, guess, in.GuessRatio)
+			}
 		}
 	case in.GuessState != nil:
 		if g, err := series.SolutionOfState(in.GuessState); err == nil {

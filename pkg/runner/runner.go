@@ -251,11 +251,13 @@ type Stats struct {
 	// finished, and SolveSeconds their compute time.
 	SolvedAhead  uint64
 	SolveSeconds float64
-	// GuessSolved, GuessState and GuessNone count the frames solved ahead
-	// by the source of their initial guess: the solution of a frame before
-	// them, the series state after the last finished frame, or none (the
-	// seed search).
-	GuessSolved, GuessState, GuessNone uint64
+	// GuessSolved, GuessExtrapolated, GuessState and GuessNone count the
+	// frames solved ahead by the source of their initial guess: the
+	// solution of a frame before them, that solution moved on along the
+	// step from the frame before it (series.Extrapolate: the frame just
+	// before was not solved yet), the series state after the last finished
+	// frame, or none (the seed search).
+	GuessSolved, GuessExtrapolated, GuessState, GuessNone uint64
 	// AddedSolved counts the frames added to their series' state from a
 	// solution found ahead, and AddSeconds their compute time: the part
 	// of a frame done in frame order.
@@ -350,6 +352,8 @@ func (m *metrics) solved(seconds float64, guess string) {
 	switch guess {
 	case guessSolved:
 		m.GuessSolved++
+	case guessExtrapolated:
+		m.GuessExtrapolated++
 	case guessState:
 		m.GuessState++
 	default:

@@ -1,6 +1,7 @@
 package runner
 
 import (
+	"bytes"
 	"context"
 	"errors"
 	"io"
@@ -155,5 +156,84 @@ func TestStateForms(t *testing.T) {
 				}
 			}
 		})
+	}
+}
+
+// TestSolveGuessBefore checks that Pipeline.Solve given the solutions of
+// two earlier frames solves from their extrapolation (series.Extrapolate
+// with GuessRatio), bit for bit, and that stepRatio takes the ratio from
+// the frames' times when all three have increasing ones, else from their
+// indices.
+func TestSolveGuessBefore(t *testing.T) {
+	ref, imgs, p := aheadSeries(t, 3)
+	params, err := p.FlatJSON()
+	if err != nil {
+		t.Fatal(err)
+	}
+	ctx := context.Background()
+	an := Pipeline{}
+	var sols []*series.Solution
+	var blobs [][]byte
+	for _, im := range imgs[:2] {
+		b, err := an.Solve(ctx, SolveInput{Ref: ref, Def: im, Params: params, Threads: 1})
+		if err != nil {
+			t.Fatal(err)
+		}
+		s, err := series.DecodeSolution(b)
+		if err != nil {
+			t.Fatal(err)
+		}
+		blobs, sols = append(blobs, b), append(sols, s)
+	}
+	got, err := an.Solve(ctx, SolveInput{Ref: ref, Def: imgs[2], Params: params, Guess: blobs[1], GuessBefore: blobs[0], GuessRatio: 1, Threads: 1})
+	if err != nil {
+		t.Fatal(err)
+	}
+	ps, err := DecodeSeriesParams(params)
+	if err != nil {
+		t.Fatal(err)
+	}
+	ps.Analysis.Threads = 1
+	want, err := series.Solve(ctx, ref, imgs[2], ps, series.Options{}, series.Extrapolate(sols[0], sols[1], 1), nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	wb, err := want.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if !bytes.Equal(got, wb) {
+		t.Error("Solve with GuessBefore differs from a solve from the extrapolated guess")
+	}
+
+	be, err := embedded.Open(t.TempDir(), 64)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer be.Close()
+	rn, err := New(Config{Backend: be, Analyzer: an, Workers: 1, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	sr, ids := submitSeries(t, be, ref, imgs, p, 2)
+	at := func(id string, tm *float64) *jobs.Job {
+		j, err := be.Store.UpdateJob(ctx, id, func(j *jobs.Job) error { j.Time = tm; return nil })
+		if err != nil {
+			t.Fatal(err)
+		}
+		return j
+	}
+	f := func(v float64) *float64 { return &v }
+	at(ids[0], f(1))
+	at(ids[1], f(1.5))
+	if r := rn.stepRatio(ctx, sr, at(ids[2], f(3)), 1); r != 3 {
+		t.Errorf("times 1, 1.5, 3: ratio %g, want 3", r)
+	}
+	if r := rn.stepRatio(ctx, sr, at(ids[2], nil), 1); r != 1 {
+		t.Errorf("no time on the frame: ratio %g, want 1 (by index)", r)
+	}
+	at(ids[1], f(0.5))
+	if r := rn.stepRatio(ctx, sr, at(ids[2], f(3)), 1); r != 1 {
+		t.Errorf("times that do not increase: ratio %g, want 1 (by index)", r)
 	}
 }

@@ -29,8 +29,12 @@ func perOp(b *testing.B, f func() error) {
 }
 
 // BenchmarkFrameSteps: the steps of a solved-ahead frame on 512×384 px.
+// The last three solve frame 4 from the solution of frame 3 (one back),
+// of frame 2 (two back), and of frame 2 moved on along the step from
+// frame 1 (series.Extrapolate, the guess of a frame solved while the one
+// before it is still being solved).
 func BenchmarkFrameSteps(b *testing.B) {
-	ref, imgs, p := aheadSeriesSize(b, 3, 512)
+	ref, imgs, p := aheadSeriesSize(b, 4, 512)
 	params, err := p.FlatJSON()
 	if err != nil {
 		b.Fatal(err)
@@ -77,4 +81,25 @@ func BenchmarkFrameSteps(b *testing.B) {
 	b.Run("add", func(b *testing.B) {
 		perOp(b, func() error { _, err := an.Frame(ctx, in); return err })
 	})
+	sols := make([][]byte, 3)
+	for k := range sols {
+		if sols[k], err = an.Solve(ctx, SolveInput{Ref: ref, Def: imgs[k], Params: params, GuessState: r0.State, Threads: 1}); err != nil {
+			b.Fatal(err)
+		}
+	}
+	for _, c := range []struct {
+		name          string
+		guess, before []byte
+	}{
+		{"solve4-one-back", sols[2], nil},
+		{"solve4-two-back", sols[1], nil},
+		{"solve4-two-back-extrapolated", sols[1], sols[0]},
+	} {
+		b.Run(c.name, func(b *testing.B) {
+			perOp(b, func() error {
+				_, err := an.Solve(ctx, SolveInput{Ref: ref, Def: imgs[3], Params: params, Guess: c.guess, GuessBefore: c.before, GuessRatio: 2, Threads: 1})
+				return err
+			})
+		})
+	}
 }

@@ -5,6 +5,7 @@ import (
 	"encoding/json"
 	"errors"
 	"fmt"
+	"math"
 
 	"github.com/mottledic/mottle/pkg/imageio"
 )
@@ -149,4 +150,51 @@ func SolutionOfState(b []byte) (*Solution, error) {
 		return nil, fmt.Errorf("series state: %w", err)
 	}
 	return State{Grid: s.Grid, Points: s.Points, Curve: make([]Summary, len(s.Curve))}.Solution(), nil
+}
+
+// MaxExtrapolation is the most, in px, that Extrapolate moves a point's
+// guess beyond its position in the nearer frame: the farther it would
+// go, the more a turn of the loading (a hold, a reversal) makes the guess
+// worse than the nearer frame's own position, which IC-GN converges from
+// today. Within it, the guess stays where IC-GN converges to the same
+// optimum as from the sequential run's guess (solveTol; tested with a
+// ramp, a hold and a reversal in TestSolveExtrapolated).
+const MaxExtrapolation = 2.0
+
+// Extrapolate returns the guess for a frame solved while the frame before
+// it is still being solved (issue 21): from the solutions a and b of two
+// earlier frames, b the nearer, each point moves on along its last step,
+// x = x_b + r·(x_b − x_a) and likewise F, where r is the distance from b
+// to the frame over the distance from a to b (in frame indices, or in
+// time). The step added is limited to MaxExtrapolation px (F's in the
+// same proportion); a point not valid in both keeps b's state. It returns
+// b when a is on another grid or r is not a positive finite number.
+func Extrapolate(a, b *Solution, r float64) *Solution {
+	if a == nil || a.Grid != b.Grid || len(a.Points) != len(b.Points) || !(r > 0) || math.IsInf(r, 0) {
+		return b
+	}
+	out := &Solution{Grid: b.Grid, Points: append([]PointState(nil), b.Points...)}
+	for k := range out.Points {
+		p, q := a.Points[k], &out.Points[k]
+		if !p.Valid || !q.Valid {
+			continue
+		}
+		dx, dy := r*(q.X-p.X), r*(q.Y-p.Y)
+		s := 1.0
+		if d := math.Hypot(dx, dy); d > MaxExtrapolation {
+			s = MaxExtrapolation / d
+		}
+		if !finite(dx, dy) {
+			continue
+		}
+		var f [4]float64
+		for i := range f {
+			f[i] = q.F[i] + s*r*(q.F[i]-p.F[i])
+		}
+		if !finite(f[0], f[1], f[2], f[3]) {
+			continue
+		}
+		q.X, q.Y, q.F = q.X+s*dx, q.Y+s*dy, f
+	}
+	return out
 }

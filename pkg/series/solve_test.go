@@ -344,3 +344,106 @@ func TestSolutionOfState(t *testing.T) {
 		t.Error("a state whose points are not a list gave a guess")
 	}
 }
+
+// TestSolveExtrapolated checks the guess of a frame solved while the one
+// before it is still being solved (Extrapolate, issue 21) on a series that
+// ramps (1.2 px and 0.4 % more per frame), holds, and reverses at the
+// same rate: each frame from the third on is solved from the solutions
+// two and three frames back, extrapolated (r = 2), and the frames added
+// in order give the sequential run's curve within solveTol, with every
+// solution good enough to be used. On the ramp the extrapolated guess is
+// nearer the frame's solution than the solution two frames back, and no
+// guess moves a point more than MaxExtrapolation beyond it.
+func TestSolveExtrapolated(t *testing.T) {
+	const W, H = 128, 96
+	offsets := []float64{1, 2, 3, 4, 5, 5, 5, 4, 3, 2} // in steps of 1.2 px and 0.4 %
+	var ms []synth.Motion
+	for _, o := range offsets {
+		e := 0.004 * o
+		ms = append(ms, synth.Affine{F: [2][2]float64{{1 + e, 0}, {0, 1 - 0.3*e}}, CX: W / 2, CY: H / 2, U: 1.2 * o, V: -0.3 * o})
+	}
+	ref, imgs := renderFrames(t, W, H, 4, ms, 0)
+	p := Defaults()
+	p.Analysis.Subset, p.Analysis.Step = 21, 8
+	p.Incremental = IncrementalNever
+	ctx := context.Background()
+	seq, err := New(ref, FrameMeta{Name: "ref"}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	initial := &Solution{Grid: seq.st.Grid, Points: append([]PointState(nil), seq.st.Points...)}
+	for _, im := range imgs {
+		if _, err := seq.Add(ctx, im, FrameMeta{}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	want := seq.Curve()
+
+	meanDist := func(a, b *Solution) float64 {
+		s, n := 0.0, 0
+		for k, q := range a.Points {
+			if r := b.Points[k]; q.Valid && r.Valid {
+				s += math.Hypot(q.X-r.X, q.Y-r.Y)
+				n++
+			}
+		}
+		return s / float64(n)
+	}
+	sols := make([]*Solution, len(imgs))
+	for k := range imgs {
+		guess := initial
+		var back, before *Solution
+		switch {
+		case k == 1:
+			guess = sols[0]
+		case k >= 2:
+			back, before = sols[k-2], initial
+			if k >= 3 {
+				before = sols[k-3]
+			}
+			guess = Extrapolate(before, back, 2)
+			for i, q := range guess.Points {
+				if b := back.Points[i]; math.Hypot(q.X-b.X, q.Y-b.Y) > MaxExtrapolation+1e-12 {
+					t.Fatalf("frame %d point %d: the guess moves %.3g px beyond the frame two back, limit %g", k+1, i, math.Hypot(q.X-b.X, q.Y-b.Y), MaxExtrapolation)
+				}
+			}
+		}
+		if sols[k], err = Solve(ctx, ref, imgs[k], p, Options{}, guess, nil); err != nil {
+			t.Fatal(err)
+		}
+		if k >= 2 && k <= 4 { // the ramp
+			if e, b := meanDist(guess, sols[k]), meanDist(back, sols[k]); !(e < b) {
+				t.Errorf("frame %d on the ramp: the extrapolated guess is %.3g px from the solution, the frame two back %.3g", k+1, e, b)
+			}
+		}
+	}
+	tr, err := New(ref, FrameMeta{Name: "ref"}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	for k, im := range imgs {
+		if !tr.accepts(sols[k]) {
+			t.Fatalf("frame %d: the solution is not good enough to be used: the test checks nothing", k+1)
+		}
+		if _, err := tr.AddSolved(ctx, im, FrameMeta{}, sols[k]); err != nil {
+			t.Fatal(err)
+		}
+	}
+	got := tr.Curve()
+	worstU, worstE := 0.0, 0.0
+	for i := range want.Rows {
+		for _, q := range MeanNames {
+			d := math.Abs(got.Rows[i].Mean[q] - want.Rows[i].Mean[q])
+			switch {
+			case q == "u" || q == "v":
+				worstU = max(worstU, d)
+			case len(q) == 3 && q[0] == 'E':
+				worstE = max(worstE, d)
+			}
+		}
+	}
+	t.Logf("extrapolated guesses: worst curve difference %.2g px (u, v), %.2g (E)", worstU, worstE)
+	if worstU > solveTolU || worstE > solveTolE {
+		t.Errorf("extrapolated guesses: the curve differs from the sequential run's by %.2g px, %.2g strain; bound %g, %g", worstU, worstE, solveTolU, solveTolE)
+	}
+}
