@@ -154,8 +154,8 @@ func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) boo
 const (
 	guessSolved       = "solution"     // the solution of a frame before it
 	guessExtrapolated = "extrapolated" // that moved on from the frame before it
-	guessState  = "state"    // the series state after the last finished frame
-	guessNone   = "none"     // none: the seed search
+	guessState        = "state"        // the series state after the last finished frame
+	guessNone         = "none"         // none: the seed search
 )
 
 // stepRatio is the ratio of the distance from frame from to frame j over
