@@ -176,3 +176,32 @@ func TestFrameGate(t *testing.T) {
 		t.Errorf("frame 1 running for ever: waitPrevious returned %v after %v, want false just after %v", ok, el, frameWait)
 	}
 }
+
+// TestWakes checks which finished frames wake a held frame (framesDone):
+// its predecessor, and the frame the in-flight bound waits for, nothing
+// else (the service's design, issue 21, not a published method).
+func TestWakes(t *testing.T) {
+	frame := func(n int, st jobs.State) *jobs.Job { return &jobs.Job{Kind: jobs.Frame, FrameIndex: n, State: st} }
+	for _, c := range []struct {
+		name     string
+		f        *jobs.Job
+		n, bound int
+		want     bool
+	}{
+		{"predecessor succeeded", frame(4, jobs.Succeeded), 5, 1, true},
+		{"predecessor failed", frame(4, jobs.Failed), 5, 3, true},
+		{"predecessor running", frame(4, jobs.Running), 5, 3, false},
+		{"frame n-bound finished", frame(2, jobs.Succeeded), 5, 3, true},
+		{"between n-bound and n-1", frame(3, jobs.Succeeded), 5, 3, false},
+		{"before n-bound", frame(1, jobs.Succeeded), 5, 3, false},
+		{"earlier frame, one in flight", frame(3, jobs.Succeeded), 5, 1, false},
+		{"later frame", frame(6, jobs.Succeeded), 5, 3, false},
+		{"the frame itself", frame(5, jobs.Succeeded), 5, 3, false},
+		{"bound beyond the start", frame(0, jobs.Succeeded), 2, 8, false},
+		{"not a frame", &jobs.Job{Kind: jobs.Analysis, FrameIndex: 4, State: jobs.Succeeded}, 5, 1, false},
+	} {
+		if got := wakes(c.f, c.n, c.bound); got != c.want {
+			t.Errorf("%s: wakes = %v, want %v", c.name, got, c.want)
+		}
+	}
+}

@@ -66,11 +66,15 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 }
 
 // framesDone returns a channel that receives when a frame of job id's
-// series finishes, until ctx ends: the frame gate looks again at once
-// rather than at its next poll, so that the hand-over from a frame to the
-// next, solved ahead and waiting, does not wait for the poll interval.
-// The channel never receives (the gate polls only) for a job that is not
-// a later frame of a series, or when the store cannot watch the series.
+// series finishes that changes what the frame gate would find (wakes):
+// its predecessor, whose end opens the gate, or the frame MaxInFlight
+// before it, whose end lets it be solved ahead. The gate then looks again
+// at once rather than at its next poll, so that the hand-over from a frame
+// to the next, solved ahead and waiting, does not wait for the poll
+// interval; other frames finishing wake nothing (each look reads the
+// frame's, the series' and the predecessor's records). The channel never
+// receives (the gate polls only) for a job that is not a later frame of a
+// series, or when the store cannot watch the series, until ctx ends.
 // The watch is set up in the background, so that a store slow to start
 // it (a distributed store loads its mirror first) never delays the gate.
 func (s *Runner) framesDone(ctx context.Context, id string) <-chan struct{} {
@@ -80,12 +84,16 @@ func (s *Runner) framesDone(ctx context.Context, id string) <-chan struct{} {
 		if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
 			return
 		}
+		bound := 1
+		if sr, err := s.store.Series(ctx, j.Series); err == nil {
+			bound = sr.MaxInFlight
+		}
 		w, err := s.store.Watch(ctx, j.Series)
 		if err != nil {
 			return
 		}
 		for f := range w {
-			if f.FrameIndex < j.FrameIndex && f.State.Terminal() {
+			if wakes(f, j.FrameIndex, bound) {
 				select {
 				case out <- struct{}{}:
 				default: // a look is due already
@@ -94,6 +102,17 @@ func (s *Runner) framesDone(ctx context.Context, id string) <-chan struct{} {
 		}
 	}()
 	return out
+}
+
+// wakes reports whether the update f of a job of a series is the end of a
+// frame that frame n, held with at most bound frames of its series in
+// flight, waits for: frame n−1 (its turn) or frame n−bound (solving it
+// ahead, see solveAhead).
+func wakes(f *jobs.Job, n, bound int) bool {
+	if f.Kind != jobs.Frame || !f.State.Terminal() {
+		return false
+	}
+	return f.FrameIndex == n-1 || bound > 1 && f.FrameIndex == n-bound
 }
 
 // yieldLook is how often a held frame looks whether it should give its
