@@ -131,7 +131,9 @@ func BenchmarkClusterFrames(b *testing.B) {
 // of wall time × workers). With MOTTLE_BENCH_BASE set to the path of
 // another mottle binary (an earlier commit's), every case runs with it
 // too, interleaved in the same run (bin=base); MOTTLE_BENCH_NEW, when set,
-// names the binary of bin=new instead of one built from this tree. Run with
+// names the binary of bin=new instead of one built from this tree, and
+// MOTTLE_BENCH_COMPRESS set adds bin=new-compress, the new binary with
+// blobs deflated (the backend URL's compress=true). Run with
 //
 //	go test -run '^$' -bench ClusterSeries -benchtime 1x ./pkg/service/natsjs
 func BenchmarkClusterSeries(b *testing.B) {
@@ -142,9 +144,13 @@ func BenchmarkClusterSeries(b *testing.B) {
 	if newBin == "" {
 		newBin = mottleBinary(b)
 	}
-	bins := []struct{ name, path string }{{"new", newBin}}
+	type binary struct{ name, path, query string }
+	bins := []binary{{"new", newBin, ""}}
 	if p := os.Getenv("MOTTLE_BENCH_BASE"); p != "" {
-		bins = append([]struct{ name, path string }{{"base", p}}, bins...)
+		bins = append([]binary{{"base", p, ""}}, bins...)
+	}
+	if os.Getenv("MOTTLE_BENCH_COMPRESS") != "" {
+		bins = append(bins, binary{"new-compress", newBin, "compress=true"})
 	}
 	profile := os.Getenv(profileEnv)
 	for _, nodes := range []int{3, 1} {
@@ -159,7 +165,7 @@ func BenchmarkClusterSeries(b *testing.B) {
 					}
 					cl := startNodes(b, nodes, prof)
 					obs := open(b, cl.url(""), func(o *Options) { o.Work = false })
-					backend := cl.url("")
+					backend := cl.url(bn.query)
 					port := freePorts(b, 1)[0]
 					api := startProc(b, "api", nil, bin, "serve", "--backend", backend, "--addr", fmt.Sprintf("127.0.0.1:%d", port),
 						"--no-ui", "--data", b.TempDir(), "--queue", "256", "--frames-in-flight", fmt.Sprint(c.inFlight))

@@ -2,6 +2,7 @@ package natsjs
 
 import (
 	"bytes"
+	"compress/flate"
 	"context"
 	"crypto/sha256"
 	"encoding/base64"
@@ -11,6 +12,7 @@ import (
 	"io"
 	"slices"
 	"sort"
+	"strconv"
 	"strings"
 
 	"github.com/nats-io/nats.go"
@@ -34,6 +36,82 @@ type Blobs struct {
 	stream string // the store's stream, read from its leader (direct reads off)
 	bucket string
 	chunk  uint32 // the chunk size of objects written (chunkSize)
+	// compress has Put deflate large blobs (Options.Compress).
+	compress bool
+}
+
+// Deflated objects (Options.Compress). The object store's metadata of
+// such an object holds its encoding and the size and SHA-256 digest of
+// the contents as written; its own size and digest are those of the
+// deflated bytes (RFC 1951, compress/flate) it stores.
+const (
+	metaEncoding = "mottle-encoding"
+	metaSize     = "mottle-size"
+	metaDigest   = "mottle-digest"
+	encDeflate   = "deflate"
+	// compressMin is the smallest blob Put deflates: below it the bytes
+	// saved are too few to pay for the work.
+	compressMin = 64 << 10
+	// compressLevel is flate.BestSpeed: on the JSON of results it stores
+	// about a third of the bytes, against three fifths by entropy coding
+	// alone (flate.HuffmanOnly), for about the same CPU (BenchmarkDeflate).
+	compressLevel = flate.BestSpeed
+)
+
+// deflate returns data deflated, or nil when that does not save at least
+// a fifth of its bytes.
+func deflate(data []byte) []byte {
+	var buf bytes.Buffer
+	buf.Grow(len(data) / 2)
+	w, err := flate.NewWriter(&buf, compressLevel)
+	if err != nil {
+		return nil
+	}
+	if _, err := w.Write(data); err != nil || w.Close() != nil {
+		return nil
+	}
+	if buf.Len() > len(data)*4/5 {
+		return nil
+	}
+	return buf.Bytes()
+}
+
+// contentDigest returns the digest of the contents as written of the
+// object described by info.
+func contentDigest(info *jetstream.ObjectInfo) string {
+	if info.Metadata[metaEncoding] != "" {
+		return info.Metadata[metaDigest]
+	}
+	return info.Digest
+}
+
+// decode returns the contents as written of an object described by info
+// whose stored bytes are data, checked against the size and digest its
+// metadata gives them.
+func decode(info *jetstream.ObjectInfo, data []byte) ([]byte, error) {
+	enc := info.Metadata[metaEncoding]
+	switch enc {
+	case "":
+		return data, nil
+	case encDeflate:
+	default:
+		return nil, fmt.Errorf("object encoding %q: this version reads deflate only", enc)
+	}
+	size, err := strconv.ParseInt(info.Metadata[metaSize], 10, 64)
+	if err != nil || size < 0 {
+		return nil, fmt.Errorf("deflated object: size %q in its metadata: %w", info.Metadata[metaSize], jetstream.ErrBadObjectMeta)
+	}
+	out := bytes.NewBuffer(make([]byte, 0, size))
+	r := flate.NewReader(bytes.NewReader(data))
+	if _, err := io.Copy(out, io.LimitReader(r, size+1)); err != nil {
+		return nil, fmt.Errorf("inflate: %w", err)
+	}
+	sum := sha256.Sum256(out.Bytes())
+	if int64(out.Len()) != size || digest(sum[:]) != info.Metadata[metaDigest] {
+		return nil, fmt.Errorf("inflated %d bytes, digest %s; metadata says %d bytes, digest %s",
+			out.Len(), digest(sum[:]), size, info.Metadata[metaDigest])
+	}
+	return out.Bytes(), nil
 }
 
 // maxChunk bounds the chunk size of objects written: four times the
@@ -80,13 +158,17 @@ func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
 		return fmt.Errorf("blob %s: %w", key, err)
 	}
 	sum := sha256.Sum256(data)
+	var z []byte
+	if b.compress && len(data) >= compressMin {
+		z = deflate(data)
+	}
 	err = retry(ctx, func(ctx context.Context) error {
 		info, err := b.obj.GetInfo(ctx, key)
 		switch {
 		case errors.Is(err, jetstream.ErrObjectNotFound):
 		case err != nil:
 			return err
-		case writeOnce(key) || info.Digest == digest(sum[:]):
+		case writeOnce(key) || contentDigest(info) == digest(sum[:]):
 			// Written before: keep the first answer, if it is whole.
 			_, err := b.readChunks(ctx, info)
 			if err == nil {
@@ -99,7 +181,13 @@ func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
 			// no answer: write the object again.
 		}
 		meta := jetstream.ObjectMeta{Name: key, Opts: &jetstream.ObjectMetaOptions{ChunkSize: b.chunk}}
-		_, err = b.obj.Put(ctx, meta, bytes.NewReader(data))
+		stored := data
+		if z != nil {
+			meta.Metadata = map[string]string{metaEncoding: encDeflate,
+				metaSize: strconv.Itoa(len(data)), metaDigest: digest(sum[:])}
+			stored = z
+		}
+		_, err = b.obj.Put(ctx, meta, bytes.NewReader(stored))
 		return err
 	})
 	if err != nil {
@@ -141,6 +229,9 @@ func (b *Blobs) Get(ctx context.Context, key string) (io.ReadCloser, error) {
 			return nil, fmt.Errorf("blob %s: %w", key, err)
 		}
 		data, err = b.readChunks(ctx, info)
+		if err == nil {
+			data, err = decode(info, data)
+		}
 		if !errors.Is(err, errChanged) {
 			break
 		}

@@ -97,6 +97,16 @@ type Options struct {
 	// On the last one a job that has not finished is failed and
 	// dead-lettered instead of started. Default 10, at least 2.
 	MaxDeliver int
+	// Compress, when true, has Put store blobs of 64 KiB or more deflated
+	// when that saves a fifth of their bytes or more (the JSON results and
+	// series states; images and archives are stored as they are), with
+	// the encoding in the object's metadata, so that fewer bytes are
+	// stored, replicated and read back. Get reads either form and returns
+	// the contents as written. Versions before this option read a deflated
+	// object as its deflated bytes: turn it on only once every process of
+	// the installation (API nodes and workers) is of this version or
+	// later. Default false.
+	Compress bool
 	// Work is true in a process that computes jobs. When false (an API
 	// node) Dequeue blocks until its context ends, so the service's
 	// worker pool stays idle.
@@ -176,7 +186,7 @@ func validPrefix(s string) bool {
 //
 // Query parameters (all optional): prefix, replicas, queue (QueueCap),
 // ack_wait (a Go duration such as 30s), max_deliver, creds (a
-// credentials file). The servers may also be given
+// credentials file), compress (true or false, see Options.Compress). The servers may also be given
 // without a scheme after the first ("nats://h1:4222,h2:4222").
 func ParseURL(spec string) (Options, error) {
 	var o Options
@@ -207,9 +217,9 @@ func ParseURL(spec string) (Options, error) {
 	}
 	for name := range q {
 		switch name {
-		case "prefix", "replicas", "queue", "ack_wait", "max_deliver", "creds":
+		case "prefix", "replicas", "queue", "ack_wait", "max_deliver", "creds", "compress":
 		default:
-			errs = append(errs, fmt.Errorf("nats backend: unknown parameter %q; use prefix, replicas, queue, ack_wait, max_deliver or creds", name))
+			errs = append(errs, fmt.Errorf("nats backend: unknown parameter %q; use prefix, replicas, queue, ack_wait, max_deliver, creds or compress", name))
 		}
 	}
 	o.Prefix = q.Get("prefix")
@@ -217,6 +227,13 @@ func ParseURL(spec string) (Options, error) {
 	num("replicas", &o.Replicas)
 	num("queue", &o.QueueCap)
 	num("max_deliver", &o.MaxDeliver)
+	if v := q.Get("compress"); v != "" {
+		c, err := strconv.ParseBool(v)
+		if err != nil {
+			errs = append(errs, fmt.Errorf("nats backend: compress=%q: use true or false", v))
+		}
+		o.Compress = c
+	}
 	if v := q.Get("ack_wait"); v != "" {
 		d, err := time.ParseDuration(v)
 		if err != nil {
@@ -427,7 +444,8 @@ func (b *Backend) setupOnce(ctx context.Context) error {
 		return fmt.Errorf("object store %s: %w", n.objects, err)
 	}
 	b.store = newStore(b.nc, kv, n, o.Logger)
-	b.blobs = &Blobs{obj: obj, nc: b.nc, stream: "OBJ_" + n.objects, bucket: n.objects, chunk: chunkSize(b.nc.MaxPayload())}
+	b.blobs = &Blobs{obj: obj, nc: b.nc, stream: "OBJ_" + n.objects, bucket: n.objects, chunk: chunkSize(b.nc.MaxPayload()),
+		compress: b.opt.Compress}
 	b.queue = &Queue{b: b, cons: cons}
 	b.audit = &Audit{js: js, stream: n.auditStream, n: n}
 	return nil

@@ -66,6 +66,9 @@ func TestParseURL(t *testing.T) {
 				return o.Prefix == "lab2" && o.Replicas == 3 && o.AckWait == 5*time.Second && o.MaxDeliver == 4 &&
 					o.QueueCap == 9 && o.Servers[2] == "nats://c:4222"
 			}},
+		{"nats://a:4222?compress=true", 1, true, func(o Options) bool { return o.Compress }},
+		{"nats://a:4222?compress=0", 1, true, func(o Options) bool { return !o.Compress }},
+		{"nats://a:4222?compress=gzip", 1, false, nil},
 		{"nats://a:4222?replicas=seven", 1, false, nil},
 		{"nats://a:4222?ack_wait=soon", 1, false, nil},
 		{"nats://a:4222?color=blue", 1, false, nil},
