@@ -251,7 +251,7 @@ func (s *solver) pass1tPixel(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]flo
 		eta := float64(j)
 		x := fix(cx - a11*fm + a12*eta)
 		y := fix(cy - a21*fm + a22*eta)
-		var rx0, rx1, ry0, ry1 float64
+		var a0, a1, b0, b1 float64
 		for i := -m; i <= m; i++ {
 			tx := float32(x&fixMask) * fixScale
 			ty := float32(y&fixMask) * fixScale
@@ -265,21 +265,21 @@ func (s *solver) pass1tPixel(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]flo
 			tg += v
 			tgg += v * v
 			tfg += s.f[k] * v
-			a, b := s.fx[k]*v, s.fy[k]*v
-			rx0 += a
-			rx1 += a * float64(i)
-			ry0 += b
-			ry1 += b * float64(i)
+			// The running sums of pass1t: a1 = Σa·(m+1−ξ).
+			a0 += s.fx[k] * v
+			a1 += a0
+			b0 += s.fy[k] * v
+			b1 += b0
 			x += dx
 			y += dy
 			k++
 		}
-		acc[U] += rx0
-		acc[Ux] += rx1
-		acc[Uy] += rx0 * eta
-		acc[V] += ry0
-		acc[Vx] += ry1
-		acc[Vy] += ry0 * eta
+		acc[U] += a0
+		acc[Ux] += (fm+1)*a0 - a1
+		acc[Uy] += a0 * eta
+		acc[V] += b0
+		acc[Vx] += (fm+1)*b0 - b1
+		acc[Vy] += b0 * eta
 	}
 	*sg, *sgg, *sfg, *sjg = tg, tgg, tfg, acc
 }

@@ -7,9 +7,14 @@ import "math"
 // weights, warped coordinates advanced incrementally along each subset row
 // (exact for the first-order warp, by second differences for the
 // second-order one), the bicubic piece evaluated inline by Horner's rule in
-// float32 (the table's precision), the sums kept in float64. The first-order
-// pass interpolates a subset row and then accumulates it, in two loops that
-// each keep their variables in registers.
+// float32 (the table's precision), the sums kept in float64. Each pass
+// interpolates a subset row into a buffer and then accumulates it, in two
+// loops that each keep their variables in registers (one loop needs more
+// than the 15 the compiler allocates, and spills). The moments in ξ of a
+// row are running sums: after c₀ += a, c₁ += c₀, c₂ += c₁ over the row
+// (ξ = −m … m), c₀ = Σa, c₁ = Σa·(m+1−ξ) and c₂ = Σa·(m+1−ξ)(m+2−ξ)/2, so
+// Σaξ = (m+1)c₀ − c₁ and Σaξ² = 2c₂ − (m+1)(m+2)c₀ + (2m+3)Σaξ: additions
+// in place of the multiplications by ξ, exact apart from rounding.
 
 // Fixed-point coordinates: a warped position x is held as the integer
 // round(x·2^fixBits), so that stepping along a subset row is an exact
@@ -77,7 +82,7 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	step := 16 * (int(ny)*w + int(nx))
 	const unit = 1.0 / fixOne
 	drx, dry := float64(rx)*unit, float64(ry)*unit
-	xis := s.xis[:side]
+	m1 := fm + 1
 	k := 0
 	for j := -m; j <= m; j++ {
 		eta := float64(j)
@@ -86,11 +91,10 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		f := s.f[k : k+side]
 		fx := s.fx[k : k+side]
 		fy := s.fy[k : k+side]
-		fx, fy, xi := fx[:len(f)], fy[:len(f)], xis[:len(f)]
-		var rx0, rx1, ry0, ry1 float64
-		for i := 0; i < len(f); {
+		fx, fy, g := fx[:len(f)], fy[:len(f)], s.gbuf[:len(f)]
+		for i := 0; i < len(g); {
 			fxr, fyr := x&fixMask, y&fixMask
-			n := min(min(segLen(fxr, rx), segLen(fyr, ry))+1, len(f)-i)
+			n := min(min(segLen(fxr, rx), segLen(fyr, ry))+1, len(g)-i)
 			o := 16 * (int(y>>fixBits)*w + int(x>>fixBits))
 			tx, ty := float64(fxr)*unit, float64(fyr)*unit
 			for e := i + n; i < e; i++ {
@@ -104,15 +108,7 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 				q = c[4] + t*(c[5]+t*(c[6]+t*c[7]))
 				r = q + u*r
 				q = c[0] + t*(c[1]+t*(c[2]+t*c[3]))
-				v := float64(q+u*r) - fmean
-				tg += v
-				tgg += v * v
-				tfg += f[i] * v
-				a, b := fx[i]*v, fy[i]*v
-				rx0 += a
-				rx1 += a * xi[i]
-				ry0 += b
-				ry1 += b * xi[i]
+				g[i] = float64(q+u*r) - fmean
 				tx += drx
 				ty += dry
 				o += step
@@ -120,12 +116,23 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 			x += int64(n) * dx
 			y += int64(n) * dy
 		}
-		tx0 += rx0
+		var a0, a1, b0, b1 float64
+		for i, v := range g {
+			tg += v
+			tgg += v * v
+			tfg += f[i] * v
+			a0 += fx[i] * v
+			a1 += a0
+			b0 += fy[i] * v
+			b1 += b0
+		}
+		rx1, ry1 := m1*a0-a1, m1*b0-b1 // Σaξ, Σbξ
+		tx0 += a0
 		tx1 += rx1
-		tx2 += rx0 * eta
-		ty0 += ry0
+		tx2 += a0 * eta
+		ty0 += b0
 		ty1 += ry1
-		ty2 += ry0 * eta
+		ty2 += b0 * eta
 		k += side
 	}
 	*sg, *sgg, *sfg = tg, tgg, tfg
@@ -150,6 +157,7 @@ func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	var acc [12]float64
 	fmean := s.fmean
 	ddx, ddy := int64(math.Round(p[Uxx]*fixOne)), int64(math.Round(p[Vxx]*fixOne))
+	m1, m3, mm := fm+1, 2*fm+3, (fm+1)*(fm+2)
 	k := 0
 	for j := -m; j <= m; j++ {
 		eta := float64(j)
@@ -165,10 +173,8 @@ func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		f := s.f[k : k+side]
 		fx := s.fx[k : k+side]
 		fy := s.fy[k : k+side]
-		fx, fy = fx[:len(f)], fy[:len(f)]
-		var rx0, rx1, rx2, ry0, ry1, ry2 float64
-		xi := -fm
-		for i := range f {
+		fx, fy, g := fx[:len(f)], fy[:len(f)], s.gbuf[:len(f)]
+		for i := range g {
 			if !(x >= lo && x <= hx && y >= lo && y <= hy) {
 				return false
 			}
@@ -176,40 +182,44 @@ func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 			ty := float32(y&fixMask) * fixScale
 			o := 16 * (int(y>>fixBits)*w + int(x>>fixBits))
 			c := (*[16]float32)(tab[o : o+16])
-			r0 := c[0] + tx*(c[1]+tx*(c[2]+tx*c[3]))
-			r1 := c[4] + tx*(c[5]+tx*(c[6]+tx*c[7]))
-			r2 := c[8] + tx*(c[9]+tx*(c[10]+tx*c[11]))
-			r3 := c[12] + tx*(c[13]+tx*(c[14]+tx*c[15]))
-			v := float64(r0+ty*(r1+ty*(r2+ty*r3))) - fmean
-			tg += v
-			tgg += v * v
-			tfg += f[i] * v
-			a, b := fx[i]*v, fy[i]*v
-			ax, bx := a*xi, b*xi
-			rx0 += a
-			rx1 += ax
-			rx2 += ax * xi
-			ry0 += b
-			ry1 += bx
-			ry2 += bx * xi
-			xi++
+			r := c[12] + tx*(c[13]+tx*(c[14]+tx*c[15]))
+			q := c[8] + tx*(c[9]+tx*(c[10]+tx*c[11]))
+			r = q + ty*r
+			q = c[4] + tx*(c[5]+tx*(c[6]+tx*c[7]))
+			r = q + ty*r
+			q = c[0] + tx*(c[1]+tx*(c[2]+tx*c[3]))
+			g[i] = float64(q+ty*r) - fmean
 			x += dx
 			y += dy
 			dx += ddx
 			dy += ddy
 		}
-		acc[U] += rx0
+		var a0, a1, a2, b0, b1, b2 float64
+		for i, v := range g {
+			tg += v
+			tgg += v * v
+			tfg += f[i] * v
+			a0 += fx[i] * v
+			a1 += a0
+			a2 += a1
+			b0 += fy[i] * v
+			b1 += b0
+			b2 += b1
+		}
+		rx1, ry1 := m1*a0-a1, m1*b0-b1                   // Σaξ, Σbξ
+		rx2, ry2 := 2*a2-mm*a0+m3*rx1, 2*b2-mm*b0+m3*ry1 // Σaξ², Σbξ²
+		acc[U] += a0
 		acc[Ux] += rx1
-		acc[Uy] += rx0 * eta
+		acc[Uy] += a0 * eta
 		acc[Uxx] += rx2 / 2
 		acc[Uxy] += rx1 * eta
-		acc[Uyy] += rx0 * eta * eta / 2
-		acc[V] += ry0
+		acc[Uyy] += a0 * eta * eta / 2
+		acc[V] += b0
 		acc[Vx] += ry1
-		acc[Vy] += ry0 * eta
+		acc[Vy] += b0 * eta
 		acc[Vxx] += ry2 / 2
 		acc[Vxy] += ry1 * eta
-		acc[Vyy] += ry0 * eta * eta / 2
+		acc[Vyy] += b0 * eta * eta / 2
 		k += side
 	}
 	*sg, *sgg, *sfg = tg, tgg, tfg
