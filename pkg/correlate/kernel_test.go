@@ -330,3 +330,96 @@ func mustTable(t *testing.T, g *imageio.Gray) *spline.Table {
 	}
 	return tab
 }
+
+// passTableDirect is pass1t or pass2t (second) summed the plain way: the
+// warped positions per pixel in fixed point, one spline.Eval per pixel and
+// every term of Σ J g (Baker & Matthews 2004, IJCV 56(3):221) multiplied
+// out by ξ and η, with Σ|term| per sum for the rounding bound.
+func (s *solver) passTableDirect(p *[12]float64, second bool) (sum, abs [15]float64) {
+	m := s.m
+	fm := float64(m)
+	ddx, ddy := int64(0), int64(0)
+	if second {
+		ddx, ddy = int64(math.Round(p[Uxx]*fixOne)), int64(math.Round(p[Vxx]*fixOne))
+	}
+	k := 0
+	for j := -m; j <= m; j++ {
+		eta := float64(j)
+		du, dv := Displacement(p, -fm, eta)
+		x, y := fix(s.xc-fm+du), fix(s.yc+eta+dv)
+		dx := int64(math.Round((1 + p[Ux] + p[Uxx]*(0.5-fm) + p[Uxy]*eta) * fixOne))
+		dy := int64(math.Round((p[Vx] + p[Vxx]*(0.5-fm) + p[Vxy]*eta) * fixOne))
+		for i := -m; i <= m; i++ {
+			xi := float64(i)
+			c := s.tab.Cell(int(x>>fixBits), int(y>>fixBits))
+			v := float64(spline.Eval(c, float32(x&fixMask)*fixScale, float32(y&fixMask)*fixScale)) - s.fmean
+			a, b := s.fx[k]*v, s.fy[k]*v
+			terms := [15]float64{
+				v, v * v, s.f[k] * v,
+				a, a * xi, a * eta, a * xi * xi / 2, a * xi * eta, a * eta * eta / 2,
+				b, b * xi, b * eta, b * xi * xi / 2, b * xi * eta, b * eta * eta / 2,
+			}
+			for n, t := range terms {
+				sum[n] += t
+				abs[n] += math.Abs(t)
+			}
+			x += dx
+			y += dy
+			dx += ddx
+			dy += ddy
+			k++
+		}
+	}
+	return sum, abs
+}
+
+// The running sums by which pass1t and pass2t take the moments in ξ of a
+// subset row give the plainly summed moments to rounding (a relative
+// 1e-12 of the sum of the terms' magnitudes), and Σg, Σg², Σf̃g as well.
+func TestTablePassMomentsMatchDirect(t *testing.T) {
+	id := func(x, y float64) (float64, float64) { return x, y }
+	img := gaussImage(120, 120, 5, id)
+	// Parameter indices of the 12 second-order sums in passTableDirect's order.
+	order := [12]int{U, Ux, Uy, Uxx, Uxy, Uyy, V, Vx, Vy, Vxx, Vxy, Vyy}
+	for _, shape := range []Shape{First, Second} {
+		s := newTestSolver(t, img, img, Options{Subset: 21, Shape: shape})
+		s.useTable(mustTable(t, img))
+		if s.prepare(60, 59) != OK {
+			t.Fatal("prepare failed")
+		}
+		for _, p := range [][12]float64{
+			{U: 4.3, Ux: 0.005, Uy: 0.002, V: -2.6, Vx: -0.001, Vy: -0.003},
+			{U: -3.1, Ux: -0.04, Uy: -0.01, V: 2.2, Vx: 0.03, Vy: 0.02, Uxx: 0.002, Uxy: -0.001, Uyy: 0.0005, Vxx: -0.003, Vxy: 0.001, Vyy: 0.002},
+			{U: 0.5, V: 0.25},
+		} {
+			if shape == First {
+				p[Uxx], p[Uxy], p[Uyy], p[Vxx], p[Vxy], p[Vyy] = 0, 0, 0, 0, 0, 0
+			}
+			var got [3]float64
+			var jg [12]float64
+			ok := false
+			if shape == First {
+				ok = s.pass1t(&p, &got[0], &got[1], &got[2], &jg)
+			} else {
+				ok = s.pass2t(&p, &got[0], &got[1], &got[2], &jg)
+			}
+			if !ok {
+				t.Fatalf("shape %d warp %v: left the image", shape, p)
+			}
+			want, abs := s.passTableDirect(&p, shape == Second)
+			var all [15]float64
+			copy(all[:3], got[:])
+			for n, q := range order {
+				all[3+n] = jg[q]
+			}
+			for n := range all {
+				if shape == First && (n-3)%6 >= 3 {
+					continue // second-order sums, not computed
+				}
+				if d := math.Abs(all[n] - want[n]); d > 1e-12*abs[n] {
+					t.Errorf("shape %d warp %v: sum %d is %v, plainly summed %v (|difference| %.2g of Σ|term| %.2g)", shape, p, n, all[n], want[n], d, abs[n])
+				}
+			}
+		}
+	}
+}
