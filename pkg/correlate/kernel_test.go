@@ -3,6 +3,7 @@ package correlate
 import (
 	"context"
 	"math"
+	"math/rand/v2"
 	"testing"
 
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -421,5 +422,50 @@ func TestTablePassMomentsMatchDirect(t *testing.T) {
 				}
 			}
 		}
+	}
+}
+
+// rowInside decides as stepping along the row pixel by pixel does, for
+// rows that stay inside, leave at an end, or leave and come back (a
+// quadratic sequence whose extreme lies inside the row), and for steps so
+// large that it steps itself.
+func TestRowInsideMatchesStepping(t *testing.T) {
+	step := func(x, dx, ddx int64, n int, lo, hi int64) bool {
+		for i := 0; i < n; i++ {
+			if !(x >= lo && x <= hi) {
+				return false
+			}
+			x += dx
+			dx += ddx
+		}
+		return true
+	}
+	rng := rand.New(rand.NewPCG(3, 14))
+	lo, hi := fix(2), fix(117)
+	var in, out int
+	for trial := 0; trial < 200000; trial++ {
+		n := 1 + rng.IntN(61)
+		x := lo + rng.Int64N(hi-lo+1)
+		if rng.IntN(8) == 0 {
+			x = []int64{lo, hi, lo - 1, hi + 1}[rng.IntN(4)]
+		}
+		scale := []float64{1e-3, 1, 10, 1e9}[rng.IntN(4)]
+		dx := int64((rng.Float64()*2 - 1) * scale * fixOne)
+		ddx := int64((rng.Float64()*2 - 1) * scale * fixOne / float64(n))
+		if rng.IntN(4) == 0 {
+			ddx = 0
+		}
+		want := step(x, dx, ddx, n, lo, hi)
+		if got := rowInside(x, dx, ddx, n, lo, hi); got != want {
+			t.Fatalf("x %d dx %d ddx %d n %d: rowInside %v, stepping %v", x, dx, ddx, n, got, want)
+		}
+		if want {
+			in++
+		} else {
+			out++
+		}
+	}
+	if in < 1000 || out < 1000 {
+		t.Errorf("cases inside %d, outside %d: the draw does not cover both", in, out)
 	}
 }

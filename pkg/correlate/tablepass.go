@@ -45,6 +45,48 @@ func segLen(f, r int64) int {
 	return math.MaxInt32
 }
 
+// rowInside reports whether the fixed-point positions x_i of a subset row
+// of n pixels stay in [lo, hi], where x_0 = x and each step adds the first
+// difference, which starts at dx and grows by ddx per step: x_i = x + i·dx
+// + ddx·i(i−1)/2 exactly. The positions are a quadratic sequence, whose
+// extremes are its ends and, if ddx ≠ 0, the first index with
+// dx + i·ddx of the sign of ddx, ⌈−dx/ddx⌉; the truncated quotient and its
+// neighbours cover it. Outside the range where the closed form cannot
+// overflow it steps along the row as the pass does.
+func rowInside(x, dx, ddx int64, n int, lo, hi int64) bool {
+	if !(x >= lo && x <= hi) {
+		return false
+	}
+	const lim = 1 << 60
+	nn := int64(n)
+	if hi >= lim || lo <= -lim || dx > lim/nn || dx < -lim/nn || ddx > lim/(nn*nn) || ddx < -lim/(nn*nn) {
+		for i := 0; i < n; i++ {
+			if !(x >= lo && x <= hi) {
+				return false
+			}
+			x += dx
+			dx += ddx
+		}
+		return true
+	}
+	at := func(i int64) bool {
+		v := x + i*dx + ddx*(i*(i-1)/2)
+		return v >= lo && v <= hi
+	}
+	if !at(nn - 1) {
+		return false
+	}
+	if ddx != 0 {
+		q := -dx / ddx
+		for i := max(q-1, 1); i <= min(q+1, nn-2); i++ {
+			if !at(i) {
+				return false
+			}
+		}
+	}
+	return true
+}
+
 // pass1t is pass1 for a solver with a table.
 //
 // Along a subset row the warped position advances by (a11, a21) per
@@ -174,10 +216,10 @@ func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		fx := s.fx[k : k+side]
 		fy := s.fy[k : k+side]
 		fx, fy, g := fx[:len(f)], fy[:len(f)], s.gbuf[:len(f)]
+		if !rowInside(x, dx, ddx, side, lo, hx) || !rowInside(y, dy, ddy, side, lo, hy) {
+			return false
+		}
 		for i := range g {
-			if !(x >= lo && x <= hx && y >= lo && y <= hy) {
-				return false
-			}
 			tx := float32(x&fixMask) * fixScale
 			ty := float32(y&fixMask) * fixScale
 			o := 16 * (int(y>>fixBits)*w + int(x>>fixBits))
