@@ -50,25 +50,102 @@ func (r *run) layout() error {
 // marked in any order by any goroutine.
 func (r *run) markRows(j0, j1 int) {
 	g, m := r.grid, r.m
+	var sl *slider
+	if r.refInt {
+		sl = newSlider(r.ref, g, m)
+	}
 	for j := j0; j < j1; j++ {
+		if sl != nil {
+			_, y := g.At(0, j)
+			sl.moveTo(y)
+		}
 		for i := 0; i < g.Nx; i++ {
 			x, y := g.At(i, j)
 			k := g.Index(i, j)
 			r.pts[k].X, r.pts[k].Y = float64(x), float64(y)
-			switch {
-			case !r.rectInside(x-m, y-m, x+m, y+m):
+			if !r.rectInside(x-m, y-m, x+m, y+m) {
 				r.pts[k].Status = Outside
-			case subsetStd(r.ref, x, y, m) < r.minStd:
+				continue
+			}
+			var std float64
+			if sl != nil {
+				std = sl.std(i * g.Step)
+			} else {
+				std = subsetStd(r.ref, x, y, m)
+			}
+			if std < r.minStd {
 				// Low contrast is a property of the reference subset
 				// alone: flag it now, so that blank areas are reported
 				// as such rather than as unreached.
 				r.pts[k].Status = LowContrast
 				r.state[k] = stFailed
-			default:
+			} else {
 				r.state[k] = stPending
 			}
 		}
 	}
+}
+
+// slider keeps, for the subsets of one grid row, the sums of the grey
+// levels and of their squares down every column of the subsets' rows, and
+// moves them down the image by adding and subtracting rows. For an image
+// of integer grey levels of at most 2¹⁶ in magnitude (checked by
+// maskSums) every such sum, and every subset's sum of them, is an integer
+// below 2⁵³ and so exact in float64 in any order: the standard deviations
+// are bitwise those of subsetStd, at about 1/(2m+1) of the cost.
+type slider struct {
+	g     *imageio.Gray
+	x0, m int // first column (of the first subset), half-width
+	y     int // centre row of the sums, −1: none yet
+	s, ss []float64
+	n     float64 // pixels per subset
+}
+
+func newSlider(g *imageio.Gray, grid Grid, m int) *slider {
+	w := (grid.Nx-1)*grid.Step + 2*m + 1
+	return &slider{g: g, x0: grid.X0 - m, m: m, y: -1, s: make([]float64, w), ss: make([]float64, w), n: float64((2*m + 1) * (2*m + 1))}
+}
+
+// add adds sign times row y to the column sums.
+func (sl *slider) add(y int, sign float64) {
+	row := sl.g.Pix[y*sl.g.Stride+sl.x0 : y*sl.g.Stride+sl.x0+len(sl.s)]
+	s, ss := sl.s[:len(row)], sl.ss[:len(row)]
+	for x, v := range row {
+		f := float64(v)
+		s[x] += sign * f
+		ss[x] += sign * (f * f)
+	}
+}
+
+// moveTo makes the sums those of rows y−m … y+m.
+func (sl *slider) moveTo(y int) {
+	m := sl.m
+	if sl.y < 0 || y < sl.y || y-sl.y > 2*m {
+		clear(sl.s)
+		clear(sl.ss)
+		for yy := y - m; yy <= y+m; yy++ {
+			sl.add(yy, 1)
+		}
+	} else {
+		for yy := sl.y - m; yy < y-m; yy++ {
+			sl.add(yy, -1)
+		}
+		for yy := sl.y + m + 1; yy <= y+m; yy++ {
+			sl.add(yy, 1)
+		}
+	}
+	sl.y = y
+}
+
+// std returns the standard deviation of the subset whose columns start at
+// offset c of the sums, as subsetStd computes it from the same sums.
+func (sl *slider) std(c int) float64 {
+	var s, ss float64
+	for k := c; k <= c+2*sl.m; k++ {
+		s += sl.s[k]
+		ss += sl.ss[k]
+	}
+	return stdOf(s, ss, sl.n)
 }
 
 // label splits the computable points into 4-connected components.
@@ -147,12 +224,18 @@ func (r *run) rectInside(x0, y0, x1, y1 int) bool {
 }
 
 // maskSums sets rows[y] to the count, sum and sum of squares of the grey
-// levels of row y of g inside the mask m (nil: all of them), for
-// y0 ≤ y < y1.
-func maskSums(g *imageio.Gray, m *roi.Mask, rows [][3]float64, y0, y1 int) {
+// levels of row y of g inside the mask m (nil: all of them), and ints[y]
+// to whether all grey levels of the row are integers of at most 2¹⁶ in
+// magnitude (see slider), for y0 ≤ y < y1.
+func maskSums(g *imageio.Gray, m *roi.Mask, rows [][3]float64, ints []bool, y0, y1 int) {
 	for y := y0; y < y1; y++ {
 		var n, s, ss float64
+		// frac collects the bits of every sample's fraction (NaN and
+		// out-of-range samples have one), top the largest |sample|.
+		var frac, top uint32
 		for x, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
+			frac |= math.Float32bits(v-float32(int32(v))) & 0x7fffffff
+			top = max(top, math.Float32bits(v)&0x7fffffff)
 			if m == nil || m.Inside(x, y) {
 				f := float64(v)
 				n++
@@ -161,6 +244,7 @@ func maskSums(g *imageio.Gray, m *roi.Mask, rows [][3]float64, y0, y1 int) {
 			}
 		}
 		rows[y] = [3]float64{n, s, ss}
+		ints[y] = frac == 0 && top <= math.Float32bits(1<<16)
 	}
 }
 
@@ -191,7 +275,12 @@ func subsetStd(g *imageio.Gray, x, y, m int) float64 {
 			ss += f * f
 		}
 	}
-	n := float64((2*m + 1) * (2*m + 1))
+	return stdOf(s, ss, float64((2*m+1)*(2*m+1)))
+}
+
+// stdOf is the standard deviation of n values from their sum and sum of
+// squares.
+func stdOf(s, ss, n float64) float64 {
 	mean := s / n
 	return math.Sqrt(math.Max(ss/n-mean*mean, 0))
 }

@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"runtime"
+	"slices"
 	"time"
 
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -32,6 +33,7 @@ type run struct {
 	s2      []float64 // per-point residual noise variance estimate
 	seedLog []Seed
 	minStd  float64 // subsets with a smaller grey-level std are LowContrast
+	refInt  bool    // ref holds integer grey levels of at most 2¹⁶ (slider)
 	comp    []int32 // connected component of each computable point, −1 outside
 	compN   []int   // size of each component
 	solvers []*solver
@@ -191,6 +193,7 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 	var refB, defB *spline.Build
 	var refErr, defErr error
 	sums := make([][3]float64, h)
+	ints := make([]bool, h)
 	nSums := parts(h, rows)
 	r.shareOut(2+nSums, func(k int) {
 		switch {
@@ -200,7 +203,7 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 			defB, defErr = spline.NewBuild(r.def, opt.Interp)
 		default:
 			k -= 2
-			maskSums(r.ref, r.mask, sums, k*rows, min((k+1)*rows, h))
+			maskSums(r.ref, r.mask, sums, ints, k*rows, min((k+1)*rows, h))
 		}
 	})
 	if refErr != nil {
@@ -210,6 +213,7 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 		return nil, fmt.Errorf("correlate: deformed image: %w", defErr)
 	}
 	r.minStd = 0.01 * stdOfSums(sums)
+	r.refInt = !slices.Contains(ints, false)
 	tr.mark("alloc")
 
 	// (2) Both images checked and filtered along x.
