@@ -192,6 +192,11 @@ func (s *solver) prepare2fast(ix, iy int) Status {
 	if vectorPass && !s.portable && 2*s.m+1 >= 8 {
 		return s.prepare2v(ix, iy)
 	}
+	if s.mom != nil {
+		if p := s.mom.at(ix, iy); p != nil {
+			return s.prepare2m(ix, iy, p)
+		}
+	}
 	return s.prepare2(ix, iy)
 }
 

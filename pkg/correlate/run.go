@@ -72,6 +72,10 @@ func runWith(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tunin
 		return nil, err
 	}
 	defer r.stop()
+	if err := r.gridMoments(ctx); err != nil {
+		return nil, err
+	}
+	tr.mark("gridMoments")
 	seeds, err := r.seedIndices()
 	if err != nil {
 		return nil, err

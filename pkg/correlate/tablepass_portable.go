@@ -22,4 +22,11 @@ func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float
 }
 
 // prepare2fast is the second-order grid-point prepare Run uses.
-func (s *solver) prepare2fast(ix, iy int) Status { return s.prepare2(ix, iy) }
+func (s *solver) prepare2fast(ix, iy int) Status {
+	if s.mom != nil {
+		if p := s.mom.at(ix, iy); p != nil {
+			return s.prepare2m(ix, iy, p)
+		}
+	}
+	return s.prepare2(ix, iy)
+}

@@ -1,0 +1,289 @@
+package correlate
+
+import (
+	"context"
+	"fmt"
+	"math"
+	"unsafe"
+)
+
+// The second-order moments of the reference subsets of a grid, computed
+// for all its points before the propagation. Subsets of grid points one
+// step apart in y share 2m+1−step of their 2m+1 rows (23 of 31 at subset
+// 31, step 8), and a row's running sums over a subset's columns (those of
+// hessian2m, which do not depend on the subset's centre row) are the same
+// for each of them: computed once per grid column and image row, they are
+// combined per point with the powers of η. prepare2m then reads the subset
+// once, to copy and centre it. Each grid column is summed by one goroutine
+// in a fixed order, so the moments do not depend on the number of threads;
+// prepare2m differs from prepare2 by rounding only. (The same table for
+// the first order saves less than it costs: prepare1's sums are a smaller
+// part of its work than the copy.)
+
+// rowSums2 holds the running sums of one row segment of 2m+1 pixels, from
+// its right end as in hessian2m: Σ f, then c_k = Σ C(i+k, k) w_i for
+// k ≤ 4 of w = fx², fx fy, fy² and for k ≤ 2 of fx f, fy f, fx, fy (f not
+// centred).
+type rowSums2 struct {
+	rs         float64
+	xx, xy, yy [5]float64
+	bx, by     [3]float64
+	jx, jy     [3]float64
+}
+
+// moments2 is the data of prepare2m for one grid point: the sums over the
+// rows of c_k η^b (hessian2m's rw, k + b ≤ 4, for fx², fx fy, fy², packed
+// by pack4; and rbw, k + b ≤ 2, for fx f, fy f, fx, fy, f not centred,
+// packed by pack2) and Σ f.
+type moments2 struct {
+	rw  [3][15]float64
+	rbw [4][6]float64
+	sum float64
+	ok  bool // computed (the point's subset was to be computed)
+}
+
+// pack4 and pack2 list the (k, b) of the packed entries, k + b ≤ 4 or 2.
+var (
+	pack4 = [15][2]int{{0, 0}, {0, 1}, {0, 2}, {0, 3}, {0, 4}, {1, 0}, {1, 1}, {1, 2}, {1, 3}, {2, 0}, {2, 1}, {2, 2}, {3, 0}, {3, 1}, {4, 0}}
+	pack2 = [6][2]int{{0, 0}, {0, 1}, {0, 2}, {1, 0}, {1, 1}, {2, 0}}
+)
+
+// momentTable holds moments2 for every point of a grid.
+type momentTable struct {
+	g  Grid
+	p2 []moments2
+}
+
+// at returns the moments of the grid point at pixel (ix, iy), or nil.
+func (t *momentTable) at(ix, iy int) *moments2 {
+	g := &t.g
+	dx, dy := ix-g.X0, iy-g.Y0
+	if dx < 0 || dy < 0 || dx%g.Step != 0 || dy%g.Step != 0 {
+		return nil
+	}
+	i, j := dx/g.Step, dy/g.Step
+	if i >= g.Nx || j >= g.Ny {
+		return nil
+	}
+	p := &t.p2[j*g.Nx+i]
+	if !p.ok {
+		return nil
+	}
+	return p
+}
+
+// momentBytes bounds the moment table's size per image pixel.
+const momentBytes = 16
+
+// gridMoments computes the moment table of the grid's pending points and
+// gives it to the solvers, where it serves: second order, the portable
+// prepare (the vector one is faster without it), subsets that overlap
+// (step < 2m+1) and a table of at most momentBytes per image pixel.
+func (r *run) gridMoments(ctx context.Context) error {
+	g := r.grid
+	side := 2*r.m + 1
+	s0 := r.solvers[0]
+	if r.opt.Shape != Second || g.Step >= side || (vectorPass && !r.tun.portable && side >= 8) ||
+		unsafe.Sizeof(moments2{}) > uintptr(momentBytes*g.Step*g.Step) {
+		return nil
+	}
+	t := &momentTable{g: g, p2: make([]moments2, g.Len())}
+	// Parts of four grid columns on the pool, each with its own scratch;
+	// a point's moments depend on its own column only.
+	const cols = 4
+	r.shareOut((g.Nx+cols-1)/cols, func(part int) {
+		if ctx.Err() != nil {
+			return
+		}
+		segs := make([]rowSums2, r.ref.H)
+		done := make([]int32, r.ref.H) // grid column + 1 whose sums segs holds
+		row := make([]float64, 3*side)
+		for i := part * cols; i < min((part+1)*cols, g.Nx); i++ {
+			for j := 0; j < g.Ny; j++ {
+				k := g.Index(i, j)
+				if r.state[k] != stPending {
+					continue
+				}
+				x, y := g.At(i, j)
+				s0.moments2(&t.p2[k], x, y, segs, done, int32(i+1), row)
+			}
+		}
+	})
+	if err := ctx.Err(); err != nil {
+		return fmt.Errorf("correlate: %w", err)
+	}
+	for _, s := range r.solvers {
+		s.mom = t
+	}
+	return nil
+}
+
+// moments2 sets p to the moments of the subset centred at pixel (ix, iy),
+// from the row sums in segs (computed where done[y] != tag, and marked;
+// row is scratch of 3(2m+1) values). It reads only the solver's reference
+// data, so several goroutines may call it.
+func (s *solver) moments2(p *moments2, ix, iy int, segs []rowSums2, done []int32, tag int32, row []float64) {
+	m := s.m
+	var rw [3][5][5]float64
+	var rbw [4][3][3]float64
+	var sum float64
+	for j := -m; j <= m; j++ {
+		y := iy + j
+		q := &segs[y]
+		if done[y] != tag {
+			s.rowSums2(q, ix-m, y, row)
+			done[y] = tag
+		}
+		p1 := float64(j)
+		p2 := p1 * p1
+		p3 := p2 * p1
+		p4 := p3 * p1
+		sum += q.rs
+		for w, c := range [3]*[5]float64{&q.xx, &q.xy, &q.yy} {
+			accPow(&rw[w][0], c[0], p1, p2, p3, p4)
+			accPow(&rw[w][1], c[1], p1, p2, p3, p4)
+			acc4hi(&rw[w], c[2], c[3], c[4], p1, p2)
+		}
+		acc2(&rbw[0], q.bx[0], q.bx[1], q.bx[2], p1, p2)
+		acc2(&rbw[1], q.by[0], q.by[1], q.by[2], p1, p2)
+		acc2(&rbw[2], q.jx[0], q.jx[1], q.jx[2], p1, p2)
+		acc2(&rbw[3], q.jy[0], q.jy[1], q.jy[2], p1, p2)
+	}
+	*p = moments2{sum: sum, ok: true}
+	for w := range rw {
+		for e, kb := range pack4 {
+			p.rw[w][e] = rw[w][kb[0]][kb[1]]
+		}
+	}
+	for w := range rbw {
+		for e, kb := range pack2 {
+			p.rbw[w][e] = rbw[w][kb[0]][kb[1]]
+		}
+	}
+}
+
+// rowSums2 sets q to the running sums of the 2m+1 pixels of image row y
+// from column x0 on; row is scratch of 3(2m+1) values.
+func (s *solver) rowSums2(q *rowSums2, x0, y int, row []float64) {
+	side := 2*s.m + 1
+	o := y*s.ref.Stride + x0
+	pix := s.ref.Pix[o : o+side]
+	o = y*s.ref.W + x0
+	gxs, gys := s.gx[o:o+side], s.gy[o:o+side]
+	gxs, gys = gxs[:len(pix)], gys[:len(pix)]
+	f, fx, fy := row[:side], row[side:2*side], row[2*side:3*side]
+	f, fx, fy = f[:len(pix)], fx[:len(pix)], fy[:len(pix)]
+	var rs, a0, a1, a2, a3, a4, b0, b1, b2, b3, b4 float64
+	for i := len(pix) - 1; i >= 0; i-- {
+		v, gx, gy := float64(pix[i]), float64(gxs[i]), float64(gys[i])
+		f[i], fx[i], fy[i] = v, gx, gy
+		rs += v
+		a0 += gx * gx
+		a1 += a0
+		a2 += a1
+		a3 += a2
+		a4 += a3
+		b0 += gx * gy
+		b1 += b0
+		b2 += b1
+		b3 += b2
+		b4 += b3
+	}
+	var c0, c1, c2, c3, c4, g0, g1, g2, h0, h1, h2 float64
+	for i := len(f) - 1; i >= 0; i-- {
+		gx, gy := fx[i], fy[i]
+		c0 += gy * gy
+		c1 += c0
+		c2 += c1
+		c3 += c2
+		c4 += c3
+		g0 += gx
+		g1 += g0
+		g2 += g1
+		h0 += gy
+		h1 += h0
+		h2 += h1
+	}
+	var d0, d1, d2, e0, e1, e2 float64
+	for i := len(f) - 1; i >= 0; i-- {
+		v := f[i]
+		d0 += fx[i] * v
+		d1 += d0
+		d2 += d1
+		e0 += fy[i] * v
+		e1 += e0
+		e2 += e1
+	}
+	*q = rowSums2{
+		rs: rs,
+		xx: [5]float64{a0, a1, a2, a3, a4}, xy: [5]float64{b0, b1, b2, b3, b4}, yy: [5]float64{c0, c1, c2, c3, c4},
+		bx: [3]float64{d0, d1, d2}, by: [3]float64{e0, e1, e2}, jx: [3]float64{g0, g1, g2}, jy: [3]float64{h0, h1, h2},
+	}
+}
+
+// prepare2m is prepare2 from the moments p of the grid point (ix, iy): it
+// reads the subset once, to copy and centre the samples and take
+// ‖f − f̄‖; Σ J f̃ = Σ J f − f̄ Σ J (in the rising basis, the change of
+// basis being linear).
+func (s *solver) prepare2m(ix, iy int, p *moments2) Status {
+	fm := p.sum / float64(s.n)
+	if !s.copyCentred(ix, iy, fm) {
+		return LowContrast
+	}
+	var rw [3][5][5]float64
+	var rbw [4][3][3]float64
+	for w := range rw {
+		for e, kb := range pack4 {
+			rw[w][kb[0]][kb[1]] = p.rw[w][e]
+		}
+	}
+	for e, kb := range pack2 {
+		jx, jy := p.rbw[2][e], p.rbw[3][e]
+		rbw[0][kb[0]][kb[1]] = p.rbw[0][e] - fm*jx
+		rbw[1][kb[0]][kb[1]] = p.rbw[1][e] - fm*jy
+		rbw[2][kb[0]][kb[1]] = jx
+		rbw[3][kb[0]][kb[1]] = jy
+	}
+	var h [144]float64
+	s.risingToMoments(&h, &rw, &rbw)
+	return s.factor(&h)
+}
+
+// copyCentred copies the subset centred on the pixel (ix, iy) into s.f (less
+// its mean fm), s.fx and s.fy, and sets s.fmean and s.df = ‖f − f̄‖. It
+// reports false for a subset of too little contrast.
+func (s *solver) copyCentred(ix, iy int, fm float64) bool {
+	m := s.m
+	side := 2*m + 1
+	stride, w := s.ref.Stride, s.ref.W
+	s.fmean = fm
+	// Two partial sums of squares, so that the additions do not wait for
+	// each other.
+	var ss0, ss1 float64
+	k := 0
+	for j := -m; j <= m; j++ {
+		f, fx, fy := s.f[k:k+side], s.fx[k:k+side], s.fy[k:k+side]
+		o := (iy+j)*stride + ix - m
+		pix := s.ref.Pix[o : o+side]
+		o = (iy+j)*w + ix - m
+		gxs, gys := s.gx[o:o+side], s.gy[o:o+side]
+		pix, gxs, gys = pix[:len(f)], gxs[:len(f)], gys[:len(f)]
+		fx, fy = fx[:len(f)], fy[:len(f)]
+		i := 0
+		for ; i+1 < len(f); i += 2 {
+			a, b := float64(pix[i])-fm, float64(pix[i+1])-fm
+			f[i], fx[i], fy[i] = a, float64(gxs[i]), float64(gys[i])
+			f[i+1], fx[i+1], fy[i+1] = b, float64(gxs[i+1]), float64(gys[i+1])
+			ss0 += a * a
+			ss1 += b * b
+		}
+		if i < len(f) {
+			a := float64(pix[i]) - fm
+			f[i], fx[i], fy[i] = a, float64(gxs[i]), float64(gys[i])
+			ss0 += a * a
+		}
+		k += side
+	}
+	s.df = math.Sqrt(ss0 + ss1)
+	return s.df > 0 && s.df/math.Sqrt(float64(s.n)) >= s.minStd
+}
