@@ -130,10 +130,7 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		eta := float64(j)
 		x := fix(cx - a11*fm + a12*eta)
 		y := fix(cy - a21*fm + a22*eta)
-		f := s.f[k : k+side]
-		fx := s.fx[k : k+side]
-		fy := s.fy[k : k+side]
-		fx, fy, g := fx[:len(f)], fy[:len(f)], s.gbuf[:len(f)]
+		g := s.gbuf[:side]
 		for i := 0; i < len(g); {
 			fxr, fyr := x&fixMask, y&fixMask
 			n := min(min(segLen(fxr, rx), segLen(fyr, ry))+1, len(g)-i)
@@ -159,15 +156,7 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 			y += int64(n) * dy
 		}
 		var a0, a1, b0, b1 float64
-		for i, v := range g {
-			tg += v
-			tgg += v * v
-			tfg += f[i] * v
-			a0 += fx[i] * v
-			a1 += a0
-			b0 += fy[i] * v
-			b1 += b0
-		}
+		tg, tgg, tfg, a0, a1, b0, b1 = s.rowSums(k, tg, tgg, tfg)
 		rx1, ry1 := m1*a0-a1, m1*b0-b1 // Σaξ, Σbξ
 		tx0 += a0
 		tx1 += rx1
@@ -181,6 +170,32 @@ func (s *solver) pass1t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	sjg[U], sjg[Ux], sjg[Uy] = tx0, tx1, tx2
 	sjg[V], sjg[Vx], sjg[Vy] = ty0, ty1, ty2
 	return true
+}
+
+// rowSums accumulates the subset row starting at pixel k, whose
+// interpolated values (less f̄) are in s.gbuf: it returns tg, tgg and tfg
+// plus the row's Σg, Σg² and Σf̃g, and the running sums a0, a1 of fx·g and
+// b0, b1 of fy·g. It is a function of its own so that its loop has the
+// registers to itself: inlined in pass1t, the compiler kept the pass's
+// constants in registers and the sums on the stack, a load and a
+// store per sum and pixel.
+//
+//go:noinline
+func (s *solver) rowSums(k int, tg, tgg, tfg float64) (_, _, _, a0, a1, b0, b1 float64) {
+	g := s.gbuf
+	f := s.f[k : k+len(g)]
+	fx := s.fx[k : k+len(g)]
+	fy := s.fy[k : k+len(g)]
+	for i, v := range g {
+		tg += v
+		tgg += v * v
+		tfg += f[i] * v
+		a0 += fx[i] * v
+		a1 += a0
+		b0 += fy[i] * v
+		b1 += b0
+	}
+	return tg, tgg, tfg, a0, a1, b0, b1
 }
 
 // pass2t is pass2 for a solver with a table. Along a subset row (η fixed)
