@@ -14,6 +14,7 @@ import (
 	"sort"
 	"strconv"
 	"strings"
+	"sync/atomic"
 
 	"github.com/nats-io/nats.go"
 	"github.com/nats-io/nats.go/jetstream"
@@ -38,6 +39,9 @@ type Blobs struct {
 	chunk  uint32 // the chunk size of objects written (chunkSize)
 	// compress has Put deflate large blobs (Options.Compress).
 	compress bool
+	cache    *readCache
+	// chunkReads counts the chunks read (for tests).
+	chunkReads atomic.Int64
 }
 
 // Deflated objects (Options.Compress). The object store's metadata of
@@ -187,10 +191,14 @@ func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
 				metaSize: strconv.Itoa(len(data)), metaDigest: digest(sum[:])}
 			stored = z
 		}
-		_, err = b.obj.Put(ctx, meta, bytes.NewReader(stored))
+		info, err = b.obj.Put(ctx, meta, bytes.NewReader(stored))
+		if err == nil && !writeOnce(key) {
+			b.cache.put(key, info.NUID, info.Digest, data)
+		}
 		return err
 	})
 	if err != nil {
+		b.cache.drop(key)
 		return fmt.Errorf("blob %s: %w", key, err)
 	}
 	return nil
@@ -209,6 +217,10 @@ func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
 // never created), so every read waited out its whole time limit while
 // key-value reads, plain requests to the stream leader, went on working.
 // Chunk reads here are such plain requests too (see readChunks).
+//
+// Contents this process wrote or read lately are kept (readCache) and
+// returned when the metadata names the same object, without reading its
+// chunks again; result files are not kept (they are read on download).
 func (b *Blobs) Get(ctx context.Context, key string) (io.ReadCloser, error) {
 	if !jobs.ValidKey(key) {
 		return nil, fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", key)
@@ -228,9 +240,15 @@ func (b *Blobs) Get(ctx context.Context, key string) (io.ReadCloser, error) {
 		if err != nil {
 			return nil, fmt.Errorf("blob %s: %w", key, err)
 		}
+		if data = b.cache.get(key, info.NUID, info.Digest); data != nil {
+			break
+		}
 		data, err = b.readChunks(ctx, info)
 		if err == nil {
 			data, err = decode(info, data)
+		}
+		if err == nil && !writeOnce(key) {
+			b.cache.put(key, info.NUID, info.Digest, data)
 		}
 		if !errors.Is(err, errChanged) {
 			break
@@ -266,6 +284,7 @@ func (b *Blobs) readChunks(ctx context.Context, info *jetstream.ObjectInfo) ([]b
 	for range info.Chunks {
 		n := len(data)
 		var next uint64
+		b.chunkReads.Add(1)
 		err := retry(ctx, func(ctx context.Context) error {
 			var err error
 			next, data, err = b.nextChunk(ctx, subject, seq, data[:n])
@@ -376,6 +395,7 @@ func (b *Blobs) Delete(ctx context.Context, prefix string) error {
 	for _, info := range list {
 		if info.Name == prefix || strings.HasPrefix(info.Name, prefix+"/") {
 			name := info.Name
+			b.cache.drop(name)
 			err := retry(ctx, func(ctx context.Context) error { return b.obj.Delete(ctx, name) })
 			if err != nil && !errors.Is(err, jetstream.ErrObjectNotFound) {
 				errs = append(errs, fmt.Errorf("delete blob %s: %w", info.Name, err))
@@ -393,6 +413,7 @@ func (b *Blobs) DeleteKey(ctx context.Context, key string) error {
 	if !jobs.ValidKey(key) {
 		return fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", key)
 	}
+	b.cache.drop(key)
 	err := retry(ctx, func(ctx context.Context) error { return b.obj.Delete(ctx, key) })
 	if err != nil && !errors.Is(err, jetstream.ErrObjectNotFound) {
 		return fmt.Errorf("delete blob %s: %w", key, err)

@@ -5,6 +5,7 @@ import (
 	"compress/flate"
 	"context"
 	"encoding/json"
+	"errors"
 	"fmt"
 	"math/rand/v2"
 	"strings"
@@ -262,5 +263,83 @@ func BenchmarkDeflate(b *testing.B) {
 				}
 			}
 		})
+	}
+}
+
+// TestBlobsReadCache checks that Get returns contents this process wrote
+// or read without reading the chunks again while the object is the same
+// (its NUID and digest), and reads the chunks of an object replaced or
+// deleted and written again by another process; results are never kept;
+// the cache stays within its bound, dropping the entry used least lately.
+func TestBlobsReadCache(t *testing.T) {
+	url := runServer(t)
+	a, other := open(t, url, nil), open(t, url, nil)
+	ctx := testCtx(t)
+	data := fieldJSON(900)
+	key := jobs.SeriesKey(jobs.NewID(), "state/000001.json")
+	reads := func(want int64, what string) {
+		t.Helper()
+		if got := a.blobs.chunkReads.Swap(0); got != want {
+			t.Errorf("%s: %d chunks read, want %d", what, got, want)
+		}
+	}
+	if err := a.Blobs().Put(ctx, key, bytes.NewReader(data)); err != nil {
+		t.Fatal(err)
+	}
+	a.blobs.chunkReads.Store(0)
+	if got := readAll(t, a.Blobs(), key); !bytes.Equal(got, data) {
+		t.Fatal("read back differs")
+	}
+	reads(0, "Get after Put")
+	// Replaced by another process: read again, then kept.
+	data2 := fieldJSON(901)
+	if err := other.Blobs().Put(ctx, key, bytes.NewReader(data2)); err != nil {
+		t.Fatal(err)
+	}
+	if got := readAll(t, a.Blobs(), key); !bytes.Equal(got, data2) {
+		t.Fatal("Get after another process replaced the object: old contents")
+	}
+	reads(1, "Get after a replacement")
+	readAll(t, a.Blobs(), key)
+	reads(0, "second Get")
+	// Deleted and written again with the same contents (a new object).
+	if err := other.Blobs().DeleteKey(ctx, key); err != nil {
+		t.Fatal(err)
+	}
+	if _, err := a.Blobs().Get(ctx, key); !errors.Is(err, jobs.ErrNotFound) {
+		t.Fatalf("Get of a deleted object: %v", err)
+	}
+	if err := other.Blobs().Put(ctx, key, bytes.NewReader(data2)); err != nil {
+		t.Fatal(err)
+	}
+	if got := readAll(t, a.Blobs(), key); !bytes.Equal(got, data2) {
+		t.Fatal("Get after delete and Put: differs")
+	}
+	reads(1, "Get of the object written again")
+	// Results are not kept.
+	res := jobs.ResultKey(jobs.NewID(), "field.json")
+	if err := a.Blobs().Put(ctx, res, bytes.NewReader(data)); err != nil {
+		t.Fatal(err)
+	}
+	readAll(t, a.Blobs(), res)
+	readAll(t, a.Blobs(), res)
+	reads(2, "two Gets of a result")
+
+	c := newReadCache(100)
+	c.put("a", "n1", "d1", make([]byte, 25))
+	c.put("b", "n2", "d2", make([]byte, 25))
+	c.put("c", "n3", "d3", make([]byte, 25))
+	c.get("a", "n1", "d1")
+	c.put("d", "n4", "d4", make([]byte, 25))
+	c.put("e", "n5", "d5", make([]byte, 25)) // over the bound: drops b, used least lately
+	if c.size > 100 || c.get("b", "n2", "d2") != nil || c.get("a", "n1", "d1") == nil || c.get("e", "n5", "d5") == nil {
+		t.Errorf("after eviction: size %d, keys %v", c.size, c.items)
+	}
+	if c.get("a", "n1", "other digest") != nil || c.get("a", "other nuid", "d1") != nil {
+		t.Error("an entry returned for another object")
+	}
+	c.put("big", "n6", "d6", make([]byte, 26))
+	if c.get("big", "n6", "d6") != nil {
+		t.Error("contents beyond a quarter of the bound kept")
 	}
 }

@@ -45,7 +45,10 @@
 // Reads: the key-value and object streams answer reads from their leader
 // only (direct reads from replicas are turned off), and listings wait for
 // the mirror to catch up with the bucket's last revision, so every read
-// sees every write acknowledged before it began.
+// sees every write acknowledged before it began. A process keeps the
+// contents of blobs it wrote or read lately and uses them when the
+// object's metadata, read from the leader, names the same object (see
+// Blobs.Get), so that this holds for blob reads too.
 package natsjs
 
 import (
@@ -445,7 +448,7 @@ func (b *Backend) setupOnce(ctx context.Context) error {
 	}
 	b.store = newStore(b.nc, kv, n, o.Logger)
 	b.blobs = &Blobs{obj: obj, nc: b.nc, stream: "OBJ_" + n.objects, bucket: n.objects, chunk: chunkSize(b.nc.MaxPayload()),
-		compress: b.opt.Compress}
+		compress: b.opt.Compress, cache: newReadCache(readCacheBytes)}
 	b.queue = &Queue{b: b, cons: cons}
 	b.audit = &Audit{js: js, stream: n.auditStream, n: n}
 	return nil
