@@ -127,11 +127,12 @@ func newRun(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning
 // points (setupGrid) and tabulates the deformed image when that pays
 // (tabulate), in the same steps.
 //
-// The set-up runs in four steps, each a set of independent parts shared
-// out on the worker pool, so that no more than Threads goroutines ever
-// compute and a part of one chain (the reference image's spline and
-// gradients, the deformed image's spline and table, the grid) fills the
-// time another leaves idle: (1) the coefficient arrays are allocated
+// The set-up runs in four steps (six with a prefilter), each a set of
+// independent parts shared out on the worker pool, so that no more than
+// Threads goroutines ever compute and a part of one chain (the reference
+// image's spline and gradients, the deformed image's spline and table, the
+// grid) fills the time another leaves idle: (0) with a prefilter, both
+// images are smoothed along x and then along y; (1) the coefficient arrays are allocated
 // while the grey-level sums of the mask are taken; (2) both images are
 // checked and filtered along x; (3) both are filtered along y while the
 // table and the gradient arrays are allocated (the runtime zeroes them)
@@ -155,15 +156,6 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 		r.threads = runtime.GOMAXPROCS(0)
 	}
 	r.ref, r.def = ref, def
-	if opt.Prefilter > 0 {
-		var err error
-		if r.ref, err = spline.Smooth(ref, opt.Prefilter); err != nil {
-			return nil, fmt.Errorf("correlate: reference image: %w", err)
-		}
-		if r.def, err = spline.Smooth(def, opt.Prefilter); err != nil {
-			return nil, fmt.Errorf("correlate: deformed image: %w", err)
-		}
-	}
 	tab := false
 	if grid {
 		if err := r.layout(); err != nil {
@@ -192,6 +184,48 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 	const rows, blocks, gridRows = spline.RowChunk, spline.BlockChunk, 4
 	parts := func(n, chunk int) int { return (n + chunk - 1) / chunk }
 	h, w := r.ref.H, r.ref.W
+	nRows := parts(h, rows)
+
+	// (0) The Gaussian prefilter, along x and then along y, both images
+	// at once.
+	if opt.Prefilter > 0 {
+		refS, err := spline.NewSmoothing(ref, opt.Prefilter)
+		if err != nil {
+			return nil, fmt.Errorf("correlate: reference image: %w", err)
+		}
+		defS, err := spline.NewSmoothing(def, opt.Prefilter)
+		if err != nil {
+			return nil, fmt.Errorf("correlate: deformed image: %w", err)
+		}
+		both := func(step func(sm *spline.Smoothing, y0, y1 int)) func(int) {
+			return func(k int) {
+				if ctx.Err() != nil {
+					return
+				}
+				sm := refS
+				if k >= nRows {
+					sm, k = defS, k-nRows
+				}
+				step(sm, k*rows, min((k+1)*rows, h))
+			}
+		}
+		r.shareOut(2*nRows, both((*spline.Smoothing).Rows))
+		if err := cancelled(); err != nil {
+			return nil, err
+		}
+		if err := refS.Err(); err != nil {
+			return nil, fmt.Errorf("correlate: reference image: %w", err)
+		}
+		if err := defS.Err(); err != nil {
+			return nil, fmt.Errorf("correlate: deformed image: %w", err)
+		}
+		r.shareOut(2*nRows, both((*spline.Smoothing).Columns))
+		if err := cancelled(); err != nil {
+			return nil, err
+		}
+		r.ref, r.def = refS.Result(), defS.Result()
+		tr.mark("prefilter")
+	}
 
 	// (1) The coefficient arrays and the sums for the contrast threshold.
 	var refB, defB *spline.Build
@@ -221,7 +255,6 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 	tr.mark("alloc")
 
 	// (2) Both images checked and filtered along x.
-	nRows := parts(h, rows)
 	r.shareOut(2*nRows, func(k int) {
 		if ctx.Err() != nil {
 			return

@@ -479,3 +479,61 @@ func TestBlockedFiltersMatchPlain(t *testing.T) {
 		}
 	}
 }
+
+// Smooth in steps, rows in any order, gives bitwise the plain convolution
+// it replaces (each pixel's taps summed in order, mirrored at the edges),
+// also for images narrower than the kernel.
+func TestSmoothingMatchesPlain(t *testing.T) {
+	for _, c := range []struct {
+		w, h  int
+		sigma float64
+	}{{37, 29, 0.8}, {5, 40, 2}, {30, 3, 1.3}, {12, 12, 0}} {
+		g := randomImage(c.w, c.h, 3)
+		sm, err := NewSmoothing(g, c.sigma)
+		if err != nil {
+			t.Fatal(err)
+		}
+		for y := c.h - 1; y >= 0; y-- {
+			sm.Rows(y, y+1)
+		}
+		if err := sm.Err(); err != nil {
+			t.Fatal(err)
+		}
+		for y := 0; y < c.h; y += 2 {
+			sm.Columns(y, min(y+2, c.h))
+		}
+		got := sm.Result()
+		k := GaussianKernel(c.sigma)
+		r := len(k) / 2
+		tmp := make([]float64, c.w*c.h)
+		for y := 0; y < c.h; y++ {
+			for x := 0; x < c.w; x++ {
+				var s float64
+				for i, kv := range k {
+					s += kv * float64(g.Pix[y*g.Stride+mirrorIndex(x+i-r, c.w)])
+				}
+				tmp[y*c.w+x] = s
+			}
+		}
+		for y := 0; y < c.h; y++ {
+			for x := 0; x < c.w; x++ {
+				var s float64
+				for i, kv := range k {
+					s += kv * tmp[mirrorIndex(y+i-r, c.h)*c.w+x]
+				}
+				want := float32(s)
+				if c.sigma == 0 {
+					want = g.Pix[y*g.Stride+x]
+				}
+				if math.Float32bits(got.Pix[y*c.w+x]) != math.Float32bits(want) {
+					t.Fatalf("%dx%d σ %v: pixel (%d, %d) is %v, plain %v", c.w, c.h, c.sigma, x, y, got.Pix[y*c.w+x], want)
+				}
+			}
+		}
+	}
+	nan := randomImage(6, 6, 1)
+	nan.Pix[3*nan.Stride+2] = float32(math.Inf(-1))
+	if _, err := Smooth(nan, 1); err == nil || !strings.Contains(err.Error(), "(2, 3)") {
+		t.Errorf("Smooth of an image with -Inf at (2, 3): %v", err)
+	}
+}
