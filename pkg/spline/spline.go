@@ -724,14 +724,27 @@ func (s *Image) GradientRows(gx, gy []float32, y0, y1 int) {
 			}
 			return
 		}
-		for x := 0; x < w; x++ {
-			row := s.c[base+x : base+x+nr]
-			var a, b float64
-			for i := range row {
-				a += wv[i] * row[i]
-				b += wd[i] * row[i]
+		// quintic
+		{
+			w0, w1, w2, w3, w4 := wv[0], wv[1], wv[2], wv[3], wv[4]
+			d0, d1, d2, d3, d4 := wd[0], wd[1], wd[2], wd[3], wd[4]
+			src := s.c[base : base+w+4]
+			v, d = v[:w], d[:w]
+			for x := range v {
+				c := (*[5]float64)(src[x:])
+				a, b := 0.0, 0.0
+				a += w0 * c[0]
+				b += d0 * c[0]
+				a += w1 * c[1]
+				b += d1 * c[1]
+				a += w2 * c[2]
+				b += d2 * c[2]
+				a += w3 * c[3]
+				b += d3 * c[3]
+				a += w4 * c[4]
+				b += d4 * c[4]
+				v[x], d[x] = a, b
 			}
-			v[x], d[x] = a, b
 		}
 	}
 	for k := 0; k < nr-1; k++ {
@@ -767,14 +780,31 @@ func (s *Image) GradientRows(gx, gy []float32, y0, y1 int) {
 			}
 			continue
 		}
-		for x := range ox {
-			var sx, sy float64
-			for j := 0; j < nr; j++ {
-				sx += wv[j] * dr[j][x]
-				sy += wd[j] * vr[j][x]
+		// quintic
+		{
+			w0, w1, w2, w3, w4 := wv[0], wv[1], wv[2], wv[3], wv[4]
+			d0, d1, d2, d3, d4 := wd[0], wd[1], wd[2], wd[3], wd[4]
+			v0, v1, v2, v3, v4 := vr[0], vr[1], vr[2], vr[3], vr[4]
+			e0, e1, e2, e3, e4 := dr[0], dr[1], dr[2], dr[3], dr[4]
+			n := len(ox)
+			oy = oy[:n]
+			v0, v1, v2, v3, v4 = v0[:n], v1[:n], v2[:n], v3[:n], v4[:n]
+			e0, e1, e2, e3, e4 = e0[:n], e1[:n], e2[:n], e3[:n], e4[:n]
+			for x := range ox {
+				sx, sy := 0.0, 0.0
+				sx += w0 * e0[x]
+				sy += d0 * v0[x]
+				sx += w1 * e1[x]
+				sy += d1 * v1[x]
+				sx += w2 * e2[x]
+				sy += d2 * v2[x]
+				sx += w3 * e3[x]
+				sy += d3 * v3[x]
+				sx += w4 * e4[x]
+				sy += d4 * v4[x]
+				ox[x] = float32(sx)
+				oy[x] = float32(sy)
 			}
-			ox[x] = float32(sx)
-			oy[x] = float32(sy)
 		}
 	}
 }

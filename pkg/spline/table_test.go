@@ -199,6 +199,7 @@ func BenchmarkSteps1024(b *testing.B) {
 	bd.FilterRows(0, bd.Rows())
 	bd.FilterColumns(0, bd.Blocks())
 	s := bd.Finish()
+	q, _ := NewContext(context.Background(), g, Quintic, 1)
 	gx, gy := make([]float32, 1024*1024), make([]float32, 1024*1024)
 	tab := AllocTable(1024, 1024)
 	px := float64(1024 * 1024)
@@ -209,6 +210,7 @@ func BenchmarkSteps1024(b *testing.B) {
 		{"check+rows", func() { bd.FilterRows(0, bd.Rows()) }},
 		{"columns", func() { bd.FilterColumns(0, bd.Blocks()) }},
 		{"gradients", func() { s.GradientRows(gx, gy, 0, 1024) }},
+		{"gradients-quintic", func() { q.GradientRows(gx, gy, 0, 1024) }},
 		{"table", func() { tab.FillRows(s, 0, 1024) }},
 		{"table-alloc", func() { tab = AllocTable(1024, 1024) }},
 	} {
