@@ -88,24 +88,44 @@ func (r *run) gridMoments(ctx context.Context) error {
 		return nil
 	}
 	t := &momentTable{g: g, p2: make([]moments2, g.Len())}
-	// Parts of four grid columns on the pool, each with its own scratch;
-	// a point's moments depend on its own column only.
-	const cols = 4
-	r.shareOut((g.Nx+cols-1)/cols, func(part int) {
-		if ctx.Err() != nil {
-			return
+	// Bands of grid rows on the pool, each walking down its image rows:
+	// a row's sums for every grid column that needs them, kept for the
+	// last 2m+1 rows, and a grid row's points combined when its last
+	// image row is done. Rows shared by two bands are summed in both, the
+	// same way; a point's moments depend on its own rows only, so the
+	// split does not change them.
+	parts := min(g.Ny, 2*r.threads)
+	band := (g.Ny + parts - 1) / parts
+	r.shareOut((g.Ny+band-1)/band, func(part int) {
+		j0, j1 := part*band, min((part+1)*band, g.Ny)
+		need := make([]bool, g.Nx)
+		for j := j0; j < j1; j++ {
+			for i := range need {
+				need[i] = need[i] || r.state[g.Index(i, j)] == stPending
+			}
 		}
-		segs := make([]rowSums2, r.ref.H)
-		done := make([]int32, r.ref.H) // grid column + 1 whose sums segs holds
+		ring := make([]rowSums2, side*g.Nx)
 		row := make([]float64, 3*side)
-		for i := part * cols; i < min((part+1)*cols, g.Nx); i++ {
-			for j := 0; j < g.Ny; j++ {
-				k := g.Index(i, j)
-				if r.state[k] != stPending {
-					continue
+		y0, y1 := g.Y0+j0*g.Step-r.m, g.Y0+(j1-1)*g.Step+r.m
+		for y := y0; y <= y1; y++ {
+			if (y-y0)%64 == 0 && ctx.Err() != nil {
+				return
+			}
+			q := ring[(y-y0)%side*g.Nx:][:g.Nx]
+			for i, ok := range need {
+				if ok {
+					s0.rowSums2(&q[i], g.X0+i*g.Step-r.m, y, row)
 				}
-				x, y := g.At(i, j)
-				s0.moments2(&t.p2[k], x, y, segs, done, int32(i+1), row)
+			}
+			d := y - r.m - g.Y0
+			if d%g.Step != 0 || d/g.Step < j0 {
+				continue
+			}
+			j := d / g.Step
+			for i := range need {
+				if k := g.Index(i, j); r.state[k] == stPending {
+					s0.moments2(&t.p2[k], y-r.m, ring, g.Nx, i, y0)
+				}
 			}
 		}
 	})
@@ -118,22 +138,18 @@ func (r *run) gridMoments(ctx context.Context) error {
 	return nil
 }
 
-// moments2 sets p to the moments of the subset centred at pixel (ix, iy),
-// from the row sums in segs (computed where done[y] != tag, and marked;
-// row is scratch of 3(2m+1) values). It reads only the solver's reference
+// moments2 sets p to the moments of the subset centred on row iy of grid
+// column i, from the row sums in ring (row y of the column at
+// ring[((y−y0) mod (2m+1))·nx + i]). It reads only the solver's reference
 // data, so several goroutines may call it.
-func (s *solver) moments2(p *moments2, ix, iy int, segs []rowSums2, done []int32, tag int32, row []float64) {
+func (s *solver) moments2(p *moments2, iy int, ring []rowSums2, nx, i, y0 int) {
 	m := s.m
+	side := 2*m + 1
 	var rw [3][5][5]float64
 	var rbw [4][3][3]float64
 	var sum float64
 	for j := -m; j <= m; j++ {
-		y := iy + j
-		q := &segs[y]
-		if done[y] != tag {
-			s.rowSums2(q, ix-m, y, row)
-			done[y] = tag
-		}
+		q := &ring[(iy+j-y0)%side*nx+i]
 		p1 := float64(j)
 		p2 := p1 * p1
 		p3 := p2 * p1
