@@ -7,18 +7,17 @@ import (
 	"unsafe"
 )
 
-// The second-order moments of the reference subsets of a grid, computed
-// for all its points before the propagation. Subsets of grid points one
-// step apart in y share 2m+1−step of their 2m+1 rows (23 of 31 at subset
-// 31, step 8), and a row's running sums over a subset's columns (those of
+// The moments of the reference subsets of a grid, computed for all its
+// points before the propagation. Subsets of grid points one step apart in
+// y share 2m+1−step of their 2m+1 rows (23 of 31 at subset 31, step 8),
+// and a row's running sums over a subset's columns (those of prepare1 and
 // hessian2m, which do not depend on the subset's centre row) are the same
 // for each of them: computed once per grid column and image row, they are
-// combined per point with the powers of η. prepare2m then reads the subset
-// once, to copy and centre it. Each grid column is summed by one goroutine
-// in a fixed order, so the moments do not depend on the number of threads;
-// prepare2m differs from prepare2 by rounding only. (The same table for
-// the first order saves less than it costs: prepare1's sums are a smaller
-// part of its work than the copy.)
+// combined per point with the powers of η. prepare1m and prepare2m then
+// read the subset once, to copy and centre it. The sums of a row and the
+// order of combination are fixed, so the moments do not depend on the
+// number of threads or on which goroutine computes them; prepare1m and
+// prepare2m differ from prepare1 and prepare2 by rounding only.
 
 // rowSums2 holds the running sums of one row segment of 2m+1 pixels, from
 // its right end as in hessian2m: Σ f, then c_k = Σ C(i+k, k) w_i for
@@ -48,46 +47,70 @@ var (
 	pack2 = [6][2]int{{0, 0}, {0, 1}, {0, 2}, {1, 0}, {1, 1}, {2, 0}}
 )
 
-// momentTable holds moments2 for every point of a grid.
+// momentTable holds moments1 (first order) or moments2 (second order) for
+// every point of a grid.
 type momentTable struct {
 	g  Grid
+	p1 []moments1
 	p2 []moments2
 }
 
-// at returns the moments of the grid point at pixel (ix, iy), or nil.
-func (t *momentTable) at(ix, iy int) *moments2 {
+// index returns the index of the grid point at pixel (ix, iy), or −1.
+func (t *momentTable) index(ix, iy int) int {
 	g := &t.g
 	dx, dy := ix-g.X0, iy-g.Y0
 	if dx < 0 || dy < 0 || dx%g.Step != 0 || dy%g.Step != 0 {
-		return nil
+		return -1
 	}
 	i, j := dx/g.Step, dy/g.Step
 	if i >= g.Nx || j >= g.Ny {
-		return nil
+		return -1
 	}
-	p := &t.p2[j*g.Nx+i]
-	if !p.ok {
-		return nil
+	return j*g.Nx + i
+}
+
+// at1 returns the first-order moments of the grid point at pixel (ix, iy),
+// or nil.
+func (t *momentTable) at1(ix, iy int) *moments1 {
+	if k := t.index(ix, iy); k >= 0 && t.p1 != nil && t.p1[k].ok {
+		return &t.p1[k]
 	}
-	return p
+	return nil
+}
+
+// at returns the second-order moments of the grid point at pixel (ix,
+// iy), or nil.
+func (t *momentTable) at(ix, iy int) *moments2 {
+	if k := t.index(ix, iy); k >= 0 && t.p2 != nil && t.p2[k].ok {
+		return &t.p2[k]
+	}
+	return nil
 }
 
 // momentBytes bounds the moment table's size per image pixel.
 const momentBytes = 16
 
 // gridMoments computes the moment table of the grid's pending points and
-// gives it to the solvers, where it serves: second order, the portable
-// prepare (the vector one is faster without it), subsets that overlap
-// (step < 2m+1) and a table of at most momentBytes per image pixel.
+// gives it to the solvers, where it serves: the portable prepares (the
+// vector ones are faster without it), subsets that overlap (step < 2m+1)
+// and a table of at most momentBytes per image pixel.
 func (r *run) gridMoments(ctx context.Context) error {
 	g := r.grid
 	side := 2*r.m + 1
 	s0 := r.solvers[0]
-	if r.opt.Shape != Second || g.Step >= side || (vectorPass && !r.tun.portable && side >= 8) ||
-		unsafe.Sizeof(moments2{}) > uintptr(momentBytes*g.Step*g.Step) {
+	size := unsafe.Sizeof(moments1{})
+	if r.opt.Shape == Second {
+		size = unsafe.Sizeof(moments2{})
+	}
+	if g.Step >= side || (vectorPass && !r.tun.portable && side >= 8) || size > uintptr(momentBytes*g.Step*g.Step) {
 		return nil
 	}
-	t := &momentTable{g: g, p2: make([]moments2, g.Len())}
+	t := &momentTable{g: g}
+	if r.opt.Shape == Second {
+		t.p2 = make([]moments2, g.Len())
+	} else {
+		t.p1 = make([]moments1, g.Len())
+	}
 	// Bands of grid rows on the pool, each walking down its image rows:
 	// a row's sums for every grid column that needs them, kept for the
 	// last 2m+1 rows, and a grid row's points combined when its last
@@ -104,17 +127,27 @@ func (r *run) gridMoments(ctx context.Context) error {
 				need[i] = need[i] || r.state[g.Index(i, j)] == stPending
 			}
 		}
-		ring := make([]rowSums2, side*g.Nx)
+		var ring1 []rowSums1
+		var ring2 []rowSums2
+		if t.p2 != nil {
+			ring2 = make([]rowSums2, side*g.Nx)
+		} else {
+			ring1 = make([]rowSums1, side*g.Nx)
+		}
 		row := make([]float64, 3*side)
 		y0, y1 := g.Y0+j0*g.Step-r.m, g.Y0+(j1-1)*g.Step+r.m
 		for y := y0; y <= y1; y++ {
 			if (y-y0)%64 == 0 && ctx.Err() != nil {
 				return
 			}
-			q := ring[(y-y0)%side*g.Nx:][:g.Nx]
+			slot := (y - y0) % side * g.Nx
 			for i, ok := range need {
-				if ok {
-					s0.rowSums2(&q[i], g.X0+i*g.Step-r.m, y, row)
+				switch {
+				case !ok:
+				case ring2 != nil:
+					s0.rowSums2(&ring2[slot+i], g.X0+i*g.Step-r.m, y, row)
+				default:
+					s0.rowSums1(&ring1[slot+i], g.X0+i*g.Step-r.m, y)
 				}
 			}
 			d := y - r.m - g.Y0
@@ -123,8 +156,13 @@ func (r *run) gridMoments(ctx context.Context) error {
 			}
 			j := d / g.Step
 			for i := range need {
-				if k := g.Index(i, j); r.state[k] == stPending {
-					s0.moments2(&t.p2[k], y-r.m, ring, g.Nx, i, y0)
+				k := g.Index(i, j)
+				switch {
+				case r.state[k] != stPending:
+				case ring2 != nil:
+					s0.moments2(&t.p2[k], y-r.m, ring2, g.Nx, i, y0)
+				default:
+					s0.moments1(&t.p1[k], y-r.m, ring1, g.Nx, i, y0)
 				}
 			}
 		}
@@ -302,4 +340,110 @@ func (s *solver) copyCentred(ix, iy int, fm float64) bool {
 	}
 	s.df = math.Sqrt(ss0 + ss1)
 	return s.df > 0 && s.df/math.Sqrt(float64(s.n)) >= s.minStd
+}
+
+// rowSums1 holds the running sums of one row segment of 2m+1 pixels taken
+// from its right end, as in prepare1: Σ f, and c0 = Σ w, c1 = Σ (i+1) w
+// (and c2 = Σ (i+1)(i+2)/2 w for the Hessian's weights) of w = fx², fx fy,
+// fy² and of fx f, fy f, fx, fy (f not centred).
+type rowSums1 struct {
+	rs, xx0, xx1, xx2, xy0, xy1, xy2, yy0, yy1, yy2 float64
+	bx0, bx1, by0, by1, jx0, jx1, jy0, jy1          float64
+}
+
+// moments1 is the data of prepare1m for one grid point: rxx, rxy, ryy as in
+// prepare1 (sums over the rows of c_k η^b, fromRising2's input), the
+// moments Σ w ξ^a η^b (a + b ≤ 1) of fx f, fy f, fx and fy (f not
+// centred), and Σ f.
+type moments1 struct {
+	rxx, rxy, ryy  [3][3]float64
+	bx, by, jx, jy [2][2]float64
+	sum            float64
+	ok             bool // computed (the point's subset was to be computed)
+}
+
+// moments1 sets p to the first-order moments of the subset centred on row
+// iy of grid column i, from the row sums in ring (as in moments2).
+func (s *solver) moments1(p *moments1, iy int, ring []rowSums1, nx, i, y0 int) {
+	m := s.m
+	side := 2*m + 1
+	cc := float64(m + 1)
+	*p = moments1{ok: true}
+	for j := -m; j <= m; j++ {
+		q := &ring[(iy+j-y0)%side*nx+i]
+		eta := float64(j)
+		p.sum += q.rs
+		acc2(&p.rxx, q.xx0, q.xx1, q.xx2, eta, eta*eta)
+		acc2(&p.rxy, q.xy0, q.xy1, q.xy2, eta, eta*eta)
+		acc2(&p.ryy, q.yy0, q.yy1, q.yy2, eta, eta*eta)
+		addRow1(&p.bx, cc, eta, q.bx0, q.bx1)
+		addRow1(&p.by, cc, eta, q.by0, q.by1)
+		addRow1(&p.jx, cc, eta, q.jx0, q.jx1)
+		addRow1(&p.jy, cc, eta, q.jy0, q.jy1)
+	}
+}
+
+// rowSums1 sets q to the running sums of the 2m+1 pixels of image row y
+// from column x0 on.
+func (s *solver) rowSums1(q *rowSums1, x0, y int) {
+	side := 2*s.m + 1
+	o := y*s.ref.Stride + x0
+	pix := s.ref.Pix[o : o+side]
+	o = y*s.ref.W + x0
+	gxs, gys := s.gx[o:o+side], s.gy[o:o+side]
+	gxs, gys = gxs[:len(pix)], gys[:len(pix)]
+	var rs, xx0, xx1, xx2, xy0, xy1, xy2, yy0, yy1, yy2 float64
+	for i := len(pix) - 1; i >= 0; i-- {
+		v, gx, gy := float64(pix[i]), float64(gxs[i]), float64(gys[i])
+		rs += v
+		xx0 += gx * gx
+		xx1 += xx0
+		xx2 += xx1
+		xy0 += gx * gy
+		xy1 += xy0
+		xy2 += xy1
+		yy0 += gy * gy
+		yy1 += yy0
+		yy2 += yy1
+	}
+	var bx0, bx1, by0, by1, jx0, jx1, jy0, jy1 float64
+	for i := len(pix) - 1; i >= 0; i-- {
+		v, gx, gy := float64(pix[i]), float64(gxs[i]), float64(gys[i])
+		bx0 += gx * v
+		bx1 += bx0
+		by0 += gy * v
+		by1 += by0
+		jx0 += gx
+		jx1 += jx0
+		jy0 += gy
+		jy1 += jy0
+	}
+	*q = rowSums1{rs, xx0, xx1, xx2, xy0, xy1, xy2, yy0, yy1, yy2, bx0, bx1, by0, by1, jx0, jx1, jy0, jy1}
+}
+
+// prepare1m is prepare1 from the moments p of the grid point (ix, iy): it
+// reads the subset once, to copy and centre the samples and take
+// ‖f − f̄‖; Σ J f̃ = Σ J f − f̄ Σ J.
+func (s *solver) prepare1m(ix, iy int, p *moments1) Status {
+	fm := p.sum / float64(s.n)
+	if !s.copyCentred(ix, iy, fm) {
+		return LowContrast
+	}
+	cc := float64(s.m + 1)
+	hxx, hxy, hyy := fromRising2(&p.rxx, cc), fromRising2(&p.rxy, cc), fromRising2(&p.ryy, cc)
+	var h [144]float64
+	s.setHessian1(&h, &hxx, &hxy, &hyy)
+	for a, pw := range pow1 {
+		bb, jj := &p.bx, &p.jx
+		if a >= 3 {
+			bb, jj = &p.by, &p.jy
+		}
+		sj := jj[pw[0]][pw[1]]
+		s.sj[a] = sj
+		s.b0[a] = bb[pw[0]][pw[1]] - fm*sj
+	}
+	for a := 6; a < 12; a++ {
+		s.b0[a], s.sj[a] = 0, 0
+	}
+	return s.factor(&h)
 }

@@ -12,6 +12,11 @@ func (s *solver) prepare1fast(ix, iy int) Status {
 	if vectorPass && !s.portable && 2*s.m+1 >= 8 {
 		return s.prepare1v(ix, iy)
 	}
+	if s.mom != nil {
+		if p := s.mom.at1(ix, iy); p != nil {
+			return s.prepare1m(ix, iy, p)
+		}
+	}
 	return s.prepare1(ix, iy)
 }
 

@@ -213,3 +213,94 @@ func TestMomentTableMatchesPrepare2(t *testing.T) {
 		r.stop()
 	}
 }
+
+// The first-order grid-point prepare from the moment table (prepare1m,
+// the row sums shared by the subsets of one grid column) gives prepare1's reference
+// data to rounding at every grid point, the table's sums do not depend on
+// the number of threads, and points off the grid have no entry.
+func TestMomentTableMatchesPrepare1(t *testing.T) {
+	m := synth.Affine{F: [2][2]float64{{1.006, 0.003}, {-0.002, 0.996}}, CX: 120, CY: 110, U: 2.7, V: -1.4}
+	ref, def := pair(t, m, 240, 220, 8, 1, 11)
+	near := func(a, b, scale float64) bool { return math.Abs(a-b) <= 1e-12*scale }
+	for _, c := range []struct{ subset, step, threads int }{{31, 8, 1}, {21, 5, 2}, {33, 7, 3}} {
+		r, err := newRun(context.Background(), ref, def, Options{Subset: c.subset, Step: c.step, Threads: c.threads}, tuning{portable: true})
+		if err != nil {
+			t.Fatal(err)
+		}
+		if err := r.setupGrid(); err != nil {
+			t.Fatal(err)
+		}
+		if err := r.gridMoments(context.Background()); err != nil {
+			t.Fatal(err)
+		}
+		s := r.solvers[0]
+		tab := s.mom
+		if tab == nil {
+			t.Fatalf("subset %d step %d: no moment table", c.subset, c.step)
+		}
+		// The same table computed on one thread, bit for bit.
+		r.threads = 1
+		if err := r.gridMoments(context.Background()); err != nil {
+			t.Fatal(err)
+		}
+		for k := range tab.p1 {
+			if tab.p1[k] != s.mom.p1[k] {
+				t.Fatalf("subset %d step %d: point %d: moments differ between %d threads and one", c.subset, c.step, k, c.threads)
+			}
+		}
+		g := r.grid
+		if s.mom.at1(g.X0+1, g.Y0) != nil || s.mom.at1(g.X0, g.Y0-g.Step) != nil || s.mom.at1(g.X0+g.Nx*g.Step, g.Y0) != nil || s.mom.at(g.X0, g.Y0) != nil {
+			t.Fatalf("subset %d step %d: an entry off the grid", c.subset, c.step)
+		}
+		checked := 0
+		for k := range r.pts {
+			if r.state[k] != stPending {
+				continue
+			}
+			x, y := g.At(k%g.Nx, k/g.Nx)
+			p := s.mom.at1(x, y)
+			if p == nil {
+				t.Fatalf("subset %d step %d: no entry at (%d, %d)", c.subset, c.step, x, y)
+			}
+			st1 := s.prepare1m(x, y, p)
+			f1 := append([]float64(nil), s.f...)
+			fx1, fy1 := append([]float64(nil), s.fx...), append([]float64(nil), s.fy...)
+			b1, j1, df1, mean1, hu1, hv1, ss1, ch1 := s.b0, s.sj, s.df, s.fmean, s.hUU, s.hVV, s.sssig, s.chol
+			st2 := s.prepare1(x, y)
+			if st1 != st2 {
+				t.Fatalf("subset %d at (%d, %d): table %v, prepare1 %v", c.subset, x, y, st1, st2)
+			}
+			if st1 != OK {
+				continue
+			}
+			checked++
+			var bmax, jmax float64
+			for a := 0; a < 6; a++ {
+				bmax, jmax = math.Max(bmax, math.Abs(s.b0[a])), math.Max(jmax, math.Abs(s.sj[a]))
+			}
+			for a := 0; a < 12; a++ {
+				if !near(b1[a], s.b0[a], bmax) || !near(j1[a], s.sj[a], jmax) {
+					t.Fatalf("subset %d at (%d, %d): Σ J f̃[%d] %v / %v, Σ J[%d] %v / %v", c.subset, x, y, a, b1[a], s.b0[a], a, j1[a], s.sj[a])
+				}
+			}
+			for k := range f1 {
+				if !near(f1[k], s.f[k], s.df) || fx1[k] != s.fx[k] || fy1[k] != s.fy[k] {
+					t.Fatalf("subset %d at (%d, %d): f̃[%d] %v / %v", c.subset, x, y, k, f1[k], s.f[k])
+				}
+			}
+			for k := range ch1 {
+				if !near(ch1[k], s.chol[k], math.Abs(s.chol[0])) {
+					t.Fatalf("subset %d at (%d, %d): Cholesky factor [%d] %v / %v", c.subset, x, y, k, ch1[k], s.chol[k])
+				}
+			}
+			if !near(df1, s.df, s.df) || !near(mean1, s.fmean, s.fmean) || !near(hu1, s.hUU, s.hUU) || !near(hv1, s.hVV, s.hVV) || !near(ss1, s.sssig, s.sssig) {
+				t.Fatalf("subset %d at (%d, %d): ‖f̃‖ %v / %v, f̄ %v / %v, (H⁻¹)uu %v / %v, (H⁻¹)vv %v / %v, Σ∇f² %v / %v",
+					c.subset, x, y, df1, s.df, mean1, s.fmean, hu1, s.hUU, hv1, s.hVV, ss1, s.sssig)
+			}
+		}
+		if checked < g.Len()/2 {
+			t.Errorf("subset %d step %d: %d of %d grid points checked", c.subset, c.step, checked, g.Len())
+		}
+		r.stop()
+	}
+}

@@ -16,7 +16,7 @@ type solver struct {
 	def      *spline.Image // deformed-image spline (nil when tab is set)
 	tab      *spline.Table // deformed-image coefficient table, or nil
 	portable bool          // use the portable table pass even where a vector one exists
-	mom      *momentTable  // second-order reference moments of the grid's subsets (moments.go), or nil
+	mom      *momentTable  // reference moments of the grid's subsets (moments.go), or nil
 	// scratch of the vector pass (tablepass_simd.go)
 	rowX, rowY []int64    // fixed-point start of each subset row
 	etas       []float64  // η of each row, four times

@@ -14,7 +14,14 @@ func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float
 func (s *solver) initVector() {}
 
 // prepare1fast is the first-order grid-point prepare Run uses.
-func (s *solver) prepare1fast(ix, iy int) Status { return s.prepare1(ix, iy) }
+func (s *solver) prepare1fast(ix, iy int) Status {
+	if s.mom != nil {
+		if p := s.mom.at1(ix, iy); p != nil {
+			return s.prepare1m(ix, iy, p)
+		}
+	}
+	return s.prepare1(ix, iy)
+}
 
 // pass2fast is the second-order table pass Run uses.
 func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
