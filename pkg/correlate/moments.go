@@ -193,15 +193,9 @@ func (s *solver) moments2(p *moments2, iy int, ring []rowSums2, nx, i, y0 int) {
 		p3 := p2 * p1
 		p4 := p3 * p1
 		sum += q.rs
-		for w, c := range [3]*[5]float64{&q.xx, &q.xy, &q.yy} {
-			accPow(&rw[w][0], c[0], p1, p2, p3, p4)
-			accPow(&rw[w][1], c[1], p1, p2, p3, p4)
-			acc4hi(&rw[w], c[2], c[3], c[4], p1, p2)
-		}
+		accRow2(&rw, &rbw, q, p1, p2, p3, p4)
 		acc2(&rbw[0], q.bx[0], q.bx[1], q.bx[2], p1, p2)
 		acc2(&rbw[1], q.by[0], q.by[1], q.by[2], p1, p2)
-		acc2(&rbw[2], q.jx[0], q.jx[1], q.jx[2], p1, p2)
-		acc2(&rbw[3], q.jy[0], q.jy[1], q.jy[2], p1, p2)
 	}
 	*p = moments2{sum: sum, ok: true}
 	for w := range rw {
@@ -223,9 +217,28 @@ func (s *solver) rowSums2(q *rowSums2, x0, y int, row []float64) {
 	o := y*s.ref.Stride + x0
 	pix := s.ref.Pix[o : o+side]
 	o = y*s.ref.W + x0
-	gxs, gys := s.gx[o:o+side], s.gy[o:o+side]
-	gxs, gys = gxs[:len(pix)], gys[:len(pix)]
 	f, fx, fy := row[:side], row[side:2*side], row[2*side:3*side]
+	copyRow2(q, pix, s.gx[o:o+side], s.gy[o:o+side], f, fx, fy)
+	f, fx, fy = f[:len(pix)], fx[:len(pix)], fy[:len(pix)]
+	var d0, d1, d2, e0, e1, e2 float64
+	for i := len(f) - 1; i >= 0; i-- {
+		v := f[i]
+		d0 += fx[i] * v
+		d1 += d0
+		d2 += d1
+		e0 += fy[i] * v
+		e1 += e0
+		e2 += e1
+	}
+	q.bx, q.by = [3]float64{d0, d1, d2}, [3]float64{e0, e1, e2}
+}
+
+// copyRow2 copies one subset row's samples and gradients (pix, gxs, gys,
+// of equal length) into f, fx and fy, and sets q's sums that do not need
+// f̄: rs, xx, xy, yy, jx and jy (see rowSums2). prepare2 and rowSums2
+// share it; its loops keep their sums in registers.
+func copyRow2(q *rowSums2, pix, gxs, gys []float32, f, fx, fy []float64) {
+	gxs, gys = gxs[:len(pix)], gys[:len(pix)]
 	f, fx, fy = f[:len(pix)], fx[:len(pix)], fy[:len(pix)]
 	var rs, a0, a1, a2, a3, a4, b0, b1, b2, b3, b4 float64
 	for i := len(pix) - 1; i >= 0; i-- {
@@ -258,21 +271,22 @@ func (s *solver) rowSums2(q *rowSums2, x0, y int, row []float64) {
 		h1 += h0
 		h2 += h1
 	}
-	var d0, d1, d2, e0, e1, e2 float64
-	for i := len(f) - 1; i >= 0; i-- {
-		v := f[i]
-		d0 += fx[i] * v
-		d1 += d0
-		d2 += d1
-		e0 += fy[i] * v
-		e1 += e0
-		e2 += e1
+	q.rs = rs
+	q.xx, q.xy, q.yy = [5]float64{a0, a1, a2, a3, a4}, [5]float64{b0, b1, b2, b3, b4}, [5]float64{c0, c1, c2, c3, c4}
+	q.jx, q.jy = [3]float64{g0, g1, g2}, [3]float64{h0, h1, h2}
+}
+
+// accRow2 adds one row's sums q that do not need f̄ (xx, xy, yy into rw;
+// jx, jy into rbw[2], rbw[3]) with the powers p1 … p4 of its η, as
+// hessian2m does; moments2 and prepare2 share it.
+func accRow2(rw *[3][5][5]float64, rbw *[4][3][3]float64, q *rowSums2, p1, p2, p3, p4 float64) {
+	for w, c := range [3]*[5]float64{&q.xx, &q.xy, &q.yy} {
+		accPow(&rw[w][0], c[0], p1, p2, p3, p4)
+		accPow(&rw[w][1], c[1], p1, p2, p3, p4)
+		acc4hi(&rw[w], c[2], c[3], c[4], p1, p2)
 	}
-	*q = rowSums2{
-		rs: rs,
-		xx: [5]float64{a0, a1, a2, a3, a4}, xy: [5]float64{b0, b1, b2, b3, b4}, yy: [5]float64{c0, c1, c2, c3, c4},
-		bx: [3]float64{d0, d1, d2}, by: [3]float64{e0, e1, e2}, jx: [3]float64{g0, g1, g2}, jy: [3]float64{h0, h1, h2},
-	}
+	acc2(&rbw[2], q.jx[0], q.jx[1], q.jx[2], p1, p2)
+	acc2(&rbw[3], q.jy[0], q.jy[1], q.jy[2], p1, p2)
 }
 
 // prepare2m is prepare2 from the moments p of the grid point (ix, iy): it

@@ -329,56 +329,14 @@ func (s *solver) prepare2(ix, iy int) Status {
 		o := (iy+j)*stride + ix - m
 		pix := s.ref.Pix[o : o+side]
 		o = (iy+j)*w + ix - m
-		gxs, gys := s.gx[o:o+side], s.gy[o:o+side]
-		pix, gxs, gys = pix[:len(f)], gxs[:len(f)], gys[:len(f)]
-		fx, fy = fx[:len(f)], fy[:len(f)]
-		var rs, a0, a1, a2, a3, a4, b0, b1, b2, b3, b4 float64
-		for i := len(f) - 1; i >= 0; i-- {
-			v, gx, gy := float64(pix[i]), float64(gxs[i]), float64(gys[i])
-			f[i], fx[i], fy[i] = v, gx, gy
-			rs += v
-			a0 += gx * gx
-			a1 += a0
-			a2 += a1
-			a3 += a2
-			a4 += a3
-			b0 += gx * gy
-			b1 += b0
-			b2 += b1
-			b3 += b2
-			b4 += b3
-		}
-		sum += rs
-		var c0, c1, c2, c3, c4, g0, g1, g2, h0, h1, h2 float64
-		for i := len(f) - 1; i >= 0; i-- {
-			gx, gy := fx[i], fy[i]
-			c0 += gy * gy
-			c1 += c0
-			c2 += c1
-			c3 += c2
-			c4 += c3
-			g0 += gx
-			g1 += g0
-			g2 += g1
-			h0 += gy
-			h1 += h0
-			h2 += h1
-		}
+		var q rowSums2
+		copyRow2(&q, pix, s.gx[o:o+side], s.gy[o:o+side], f, fx, fy)
+		sum += q.rs
 		p1 := eta
 		p2 := p1 * eta
 		p3 := p2 * eta
 		p4 := p3 * eta
-		accPow(&rw[0][0], a0, p1, p2, p3, p4)
-		accPow(&rw[0][1], a1, p1, p2, p3, p4)
-		acc4hi(&rw[0], a2, a3, a4, p1, p2)
-		accPow(&rw[1][0], b0, p1, p2, p3, p4)
-		accPow(&rw[1][1], b1, p1, p2, p3, p4)
-		acc4hi(&rw[1], b2, b3, b4, p1, p2)
-		accPow(&rw[2][0], c0, p1, p2, p3, p4)
-		accPow(&rw[2][1], c1, p1, p2, p3, p4)
-		acc4hi(&rw[2], c2, c3, c4, p1, p2)
-		acc2(&rbw[2], g0, g1, g2, p1, p2)
-		acc2(&rbw[3], h0, h1, h2, p1, p2)
+		accRow2(&rw, &rbw, &q, p1, p2, p3, p4)
 		k += side
 	}
 	fm := sum / n
