@@ -203,6 +203,10 @@ func BenchmarkClusterSeries(b *testing.B) {
 					for k, p := range others {
 						other0[k] = procCPU(p)
 					}
+					var tp *tap
+					if os.Getenv(tapEnv) != "" {
+						tp = startTap(b, obs.nc, obs.n.objects)
+					}
 					for i := 0; i < b.N; i++ {
 						id := hc.multipart("/v1/series", map[string][]byte{"reference": sc.reference, "params": sc.params}, http.StatusCreated)
 						start := time.Now()
@@ -228,6 +232,9 @@ func BenchmarkClusterSeries(b *testing.B) {
 						}
 					}
 					b.StopTimer()
+					if tp != nil {
+						fmt.Printf("%s, per frame, by kind:\n%s", name, tp.table(b.N*frames))
+					}
 					if prof != "" {
 						stopProfiles(b, append(append([]*proc{}, cl.nodes...), ws...))
 					}
