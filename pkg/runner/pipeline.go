@@ -63,6 +63,16 @@ const allDataFormats = "npz,json,csv,vts,npy"
 // field.npz on first request and kept.
 const DefaultFormats = results.NPZ + "," + results.JSON
 
+// SeriesDefaultFormats are the formats a frame of a 2D series writes when
+// the series' request names none: the stored result field.npz alone. A
+// frame's answer carries no field, and field.json rendered from field.npz
+// on first request is byte for byte the file the frame would have written
+// (the field is float32: field.Float32), so writing it with every frame
+// would only store, and in a replicated backend copy, its bytes (1.8 MB of
+// a 512×512 frame's 3.5 MB, see BenchmarkClusterSeries in
+// pkg/service/natsjs) for a file most frames never serve.
+const SeriesDefaultFormats = results.NPZ
+
 // servedFormats are the formats the download routes serve.
 var servedFormats = map[string]bool{results.NPZ: true, results.JSON: true, results.CSV: true, results.VTS: true, results.NPY: true}
 

@@ -58,3 +58,43 @@ func TestFormatsOnDemand(t *testing.T) {
 		t.Errorf("unknown format: %d %s", r.StatusCode, b)
 	}
 }
+
+// TestSeriesFormats: a series whose request names no formats has its
+// frames write field.npz alone (service.SeriesDefaultFormats), and a
+// frame's field.json is then rendered from it on request (byte for byte
+// the file written with the frame: runner.TestFrameJSONFromNPZ) and kept;
+// a series that asks for json has its frames write both.
+func TestSeriesFormats(t *testing.T) {
+	ts := newServer(t, func(c *service.Config) { c.Analyzer = service.Pipeline{} })
+	ref, def := realPair(t, 96, 1.2, -0.7)
+	for _, c := range []struct{ query, want string }{{"", "field.npz"}, {"?formats=npz,json", "field.json,field.npz"}} {
+		ct, body := multipartBody(t, part{"reference", "ref.png", "image/png", ref}, part{"params", "", "application/json", []byte(`{"subset": 21, "step": 8}`)})
+		resp, b := ts.do(t, "POST", "/v1/series"+c.query, ct, body)
+		if resp.StatusCode != 201 {
+			t.Fatalf("POST /v1/series%s: %d %s", c.query, resp.StatusCode, b)
+		}
+		sid := decodeJSON[struct{ ID string }](t, b).ID
+		resp, b = ts.do(t, "POST", "/v1/series/"+sid+"/frames", "image/png", def)
+		if resp.StatusCode != 200 {
+			t.Fatalf("frame: %d %s", resp.StatusCode, b)
+		}
+		fr := decodeJSON[struct {
+			State   string   `json:"state"`
+			Results []string `json:"results"`
+		}](t, b)
+		if fr.State != "succeeded" || strings.Join(fr.Results, ",") != c.want {
+			t.Errorf("series%s: frame %s with results %v, want %s", c.query, fr.State, fr.Results, c.want)
+		}
+		var first []byte
+		for k := range 2 { // rendered (or stored), then kept
+			r, b := ts.do(t, "GET", "/v1/series/"+sid+"/frames/0/field.json", "", nil)
+			if r.StatusCode != 200 || !bytes.Contains(b, []byte(`"precision":"float32"`)) {
+				t.Fatalf("series%s: field.json: %d %.200s", c.query, r.StatusCode, b)
+			}
+			if k == 1 && !bytes.Equal(b, first) {
+				t.Errorf("series%s: field.json changed between two requests", c.query)
+			}
+			first = b
+		}
+	}
+}

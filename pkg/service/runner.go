@@ -35,6 +35,9 @@ type (
 // DefaultFormats is runner.DefaultFormats.
 const DefaultFormats = runner.DefaultFormats
 
+// SeriesDefaultFormats is runner.SeriesDefaultFormats.
+const SeriesDefaultFormats = runner.SeriesDefaultFormats
+
 // ParseFormats is runner.ParseFormats.
 func ParseFormats(s string) (results.Set, error) { return runner.ParseFormats(s) }
 

@@ -96,7 +96,11 @@ func (s *Server) postSeries(w http.ResponseWriter, r *http.Request) {
 	}
 	var formats results.Set
 	if err == nil {
-		formats, err = ParseFormats(r.URL.Query().Get("formats"))
+		q := r.URL.Query().Get("formats")
+		if strings.TrimSpace(q) == "" {
+			q = SeriesDefaultFormats
+		}
+		formats, err = ParseFormats(q)
 	}
 	if err != nil {
 		writeProblem(w, r, asProblem(err, "params"))
