@@ -167,7 +167,11 @@ func BenchmarkClusterSeries(b *testing.B) {
 					obs := open(b, cl.url(""), func(o *Options) { o.Work = false })
 					backend := cl.url(bn.query)
 					port := freePorts(b, 1)[0]
-					api := startProc(b, "api", nil, bin, "serve", "--backend", backend, "--addr", fmt.Sprintf("127.0.0.1:%d", port),
+					var apiEnv []string
+					if prof != "" {
+						apiEnv = []string{fmt.Sprintf("MOTTLE_CPUPROFILE=%s-api.pprof", prof)}
+					}
+					api := startProc(b, "api", apiEnv, bin, "serve", "--backend", backend, "--addr", fmt.Sprintf("127.0.0.1:%d", port),
 						"--no-ui", "--data", b.TempDir(), "--queue", "256", "--frames-in-flight", fmt.Sprint(c.inFlight))
 					base := fmt.Sprintf("http://127.0.0.1:%d", port)
 					waitFor(b, "API ready", func() bool {
@@ -236,7 +240,7 @@ func BenchmarkClusterSeries(b *testing.B) {
 						fmt.Printf("%s, per frame, by kind:\n%s", name, tp.table(b.N*frames))
 					}
 					if prof != "" {
-						stopProfiles(b, append(append([]*proc{}, cl.nodes...), ws...))
+						stopProfiles(b, append(append([]*proc{api}, cl.nodes...), ws...))
 					}
 					cpu, solve := -cpu0, 0.0
 					for _, w := range ws {
@@ -349,7 +353,8 @@ func BenchmarkDeleteState(b *testing.B) {
 // every NATS node write a CPU profile, from its start to the end of the
 // measured part, to it
 // (<case>-n<i>.pprof), and passes MOTTLE_CPUPROFILE=<case>-worker-<i>.pprof
-// to the workers, for a mottle binary built to honour it (the released
+// to the workers and <case>-api.pprof to the API node, for a mottle binary
+// built to honour it (the released
 // one does not: leave the variable unset with it). Read them with
 // go tool pprof.
 const profileEnv = "MOTTLE_BENCH_PROFILE"
