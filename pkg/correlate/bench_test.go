@@ -45,6 +45,11 @@ func BenchmarkRun1024Second(b *testing.B) { benchRun(b, Second, tuning{}) }
 // to be measured in the same run.
 func BenchmarkRun1024Direct(b *testing.B) { benchRun(b, First, tuning{direct: true}) }
 
+// BenchmarkRun1024NoFetch is BenchmarkRun1024 without the prefetch of
+// each point's subsets (prefetch.go): its baseline, to be measured in the
+// same run.
+func BenchmarkRun1024NoFetch(b *testing.B) { benchRun(b, First, tuning{noFetch: true}) }
+
 // BenchmarkRun1024Series is BenchmarkRun1024 with the series defaults of
 // pkg/series: quintic B-splines and a Gaussian prefilter of σ = 0.8 px.
 func BenchmarkRun1024Series(b *testing.B) {

@@ -58,6 +58,7 @@ func Run(ctx context.Context, ref, def *imageio.Gray, opt Options) (*Result, err
 type tuning struct {
 	direct   bool       // interpolate from the B-spline coefficients even when a table would be used
 	portable bool       // use the portable table pass even in builds with a vector one
+	noFetch  bool       // no prefetch of a point's subsets (prefetch.go)
 	trace    *poolTrace // record phase and batch timings (benchmarks)
 }
 

@@ -52,6 +52,19 @@ func better(a, b *attempt) bool {
 func (r *run) compute(s *solver, w int, it *item) {
 	pt := &r.pts[it.idx]
 	pt.X, pt.Y = it.x, it.y
+	// Ask for both subsets' memory first (prefetch.go), the deformed one
+	// where the first guess puts it.
+	switch {
+	case r.tun.noFetch:
+	case it.hasStart:
+		s.prefetch(it.x, it.y, &it.start)
+	case it.nnb > 0:
+		nb := &r.pts[it.nb[0]]
+		p0 := Recentre(nb.P, it.x-nb.X, it.y-nb.Y)
+		s.prefetch(it.x, it.y, &p0)
+	default:
+		s.prefetch(it.x, it.y, nil)
+	}
 	st := s.prepare(it.x, it.y)
 	if st != OK {
 		pt.Status = st
