@@ -93,8 +93,11 @@ func startTap(t testing.TB, nc *nats.Conn, bucket string) *tap {
 				kind = "delete " + bk
 			}
 		case strings.HasPrefix(s, "$KV."):
-			f := strings.SplitN(s, ".", 4)
+			f := strings.SplitN(s, ".", 3)
 			kind = "record " + tapDigits.ReplaceAllString(f[len(f)-1], "N")
+			if st := recordState(m.Data); st != "" {
+				kind += " " + st
+			}
 		case strings.HasPrefix(s, "$JS.ACK."):
 			kind = "ack " + string(m.Data)
 			if len(kind) > 16 {
@@ -103,6 +106,23 @@ func startTap(t testing.TB, nc *nats.Conn, bucket string) *tap {
 		case strings.HasPrefix(s, "$JS.API."):
 			f := strings.Split(s, ".")
 			kind = "api " + strings.Join(f[2:min(len(f), 5)], ".")
+			if strings.HasPrefix(s, "$JS.API.STREAM.MSG.GET.") {
+				// What is read: a record, an object's metadata or a chunk.
+				var req struct {
+					Last string `json:"last_by_subj"`
+					Next string `json:"next_by_subj"`
+				}
+				_ = json.Unmarshal(m.Data, &req)
+				switch {
+				case strings.HasPrefix(req.Last, meta):
+					b, _ := base64.URLEncoding.DecodeString(req.Last[len(meta):])
+					kind += " meta " + blobKind(string(b))
+				case strings.HasPrefix(req.Next, chunks):
+					kind += " chunk " + tp.nuid[req.Next[len(chunks):]]
+				case req.Last != "":
+					kind += " record " + tapDigits.ReplaceAllString(req.Last, "N")
+				}
+			}
 		case strings.HasPrefix(s, "_INBOX.") || strings.HasPrefix(s, "$JS.") && strings.Contains(s, "INBOX"):
 			kind = "reply"
 		default:
@@ -117,6 +137,18 @@ func startTap(t testing.TB, nc *nats.Conn, bucket string) *tap {
 	}
 	tp.sub = sub
 	return tp
+}
+
+// recordState returns the state of a job record, or "".
+func recordState(data []byte) string {
+	var r struct {
+		Kind  string `json:"kind"`
+		State string `json:"state"`
+	}
+	if json.Unmarshal(data, &r) != nil || r.State == "" {
+		return ""
+	}
+	return r.State
 }
 
 func (tp *tap) count(kind string) *tapCount {
