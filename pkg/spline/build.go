@@ -112,16 +112,16 @@ func filterRows4(c []float64, stride, n int, poles []float64) {
 		r2[0] = causalInit(r2, 1, n, z)
 		r3[0] = causalInit(r3, 1, n, z)
 		for i := 1; i < len(r0); i++ {
-			r0[i] += z * r0[i-1]
-			r1[i] += z * r1[i-1]
-			r2[i] += z * r2[i-1]
-			r3[i] += z * r3[i-1]
+			r0[i] += float64(z * r0[i-1])
+			r1[i] += float64(z * r1[i-1])
+			r2[i] += float64(z * r2[i-1])
+			r3[i] += float64(z * r3[i-1])
 		}
-		f := z / (z*z - 1)
-		r0[last] = f * (z*r0[last-1] + r0[last])
-		r1[last] = f * (z*r1[last-1] + r1[last])
-		r2[last] = f * (z*r2[last-1] + r2[last])
-		r3[last] = f * (z*r3[last-1] + r3[last])
+		f := z / (float64(z*z) - 1)
+		r0[last] = f * (float64(z*r0[last-1]) + r0[last])
+		r1[last] = f * (float64(z*r1[last-1]) + r1[last])
+		r2[last] = f * (float64(z*r2[last-1]) + r2[last])
+		r3[last] = f * (float64(z*r3[last-1]) + r3[last])
 		for i := last - 1; i >= 0; i-- {
 			r0[i] = z * (r0[i+1] - r0[i])
 			r1[i] = z * (r1[i+1] - r1[i])
@@ -311,9 +311,9 @@ func filter1D(c []float64, stride, n int, poles []float64) {
 	for _, z := range poles {
 		c[0] = causalInit(c, stride, n, z)
 		for i := stride; i <= last; i += stride {
-			c[i] += z * c[i-stride]
+			c[i] += float64(z * c[i-stride])
 		}
-		c[last] = (z / (z*z - 1)) * (z*c[last-stride] + c[last])
+		c[last] = (z / (float64(z*z) - 1)) * (float64(z*c[last-stride]) + c[last])
 		for i := last - stride; i >= 0; i -= stride {
 			c[i] = z * (c[i+stride] - c[i])
 		}
@@ -350,12 +350,12 @@ func filterColumns(c []float64, stride, nc, n int, poles []float64) {
 		for i := stride; i <= last; i += stride {
 			cur, prev := c[i:i+nc], c[i-stride:i-stride+nc]
 			for k := range cur {
-				cur[k] += z * prev[k]
+				cur[k] += float64(z * prev[k])
 			}
 		}
 		end, prev := c[last:last+nc], c[last-stride:last-stride+nc]
 		for k := range end {
-			end[k] = (z / (z*z - 1)) * (z*prev[k] + end[k])
+			end[k] = (z / (float64(z*z) - 1)) * (float64(z*prev[k]) + end[k])
 		}
 		for i := last - stride; i >= 0; i -= stride {
 			cur, next := c[i:i+nc], c[i+stride:i+stride+nc]
