@@ -31,6 +31,7 @@ import (
 	"os/signal"
 	"path/filepath"
 	"runtime"
+	"runtime/debug"
 	"strings"
 	"sync"
 	"time"
@@ -330,7 +331,9 @@ func save(dir, name, text string) error {
 	return os.WriteFile(filepath.Join(dir, name), []byte(strings.TrimSpace(text)+"\n"), 0o644)
 }
 
-// machine describes the computer: CPU model, core count, OS/arch and Go.
+// machine describes the computer and the build: CPU model, core count,
+// OS/arch, Go, and the GOAMD64 level and experiments the binary was built
+// with.
 func machine() string {
 	cpu := "unknown CPU"
 	if b, err := os.ReadFile("/proc/cpuinfo"); err == nil {
@@ -341,5 +344,13 @@ func machine() string {
 			}
 		}
 	}
-	return fmt.Sprintf("%s, %d cores, %s/%s, %s", cpu, runtime.NumCPU(), runtime.GOOS, runtime.GOARCH, runtime.Version())
+	build := ""
+	if bi, ok := debug.ReadBuildInfo(); ok {
+		for _, st := range bi.Settings {
+			if st.Key == "GOAMD64" || st.Key == "GOEXPERIMENT" {
+				build += ", " + st.Key + "=" + st.Value
+			}
+		}
+	}
+	return fmt.Sprintf("%s, %d cores, %s/%s, %s%s", cpu, runtime.NumCPU(), runtime.GOOS, runtime.GOARCH, runtime.Version(), build)
 }
