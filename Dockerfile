@@ -7,7 +7,11 @@ WORKDIR /src
 COPY go.mod go.sum ./
 RUN go mod download
 COPY . .
-RUN CGO_ENABLED=0 go build -trimpath -ldflags "-s -w" -o /out/mottle ./cmd/mottle && mkdir -p /out/data
+# x86-64-v3 (AVX2, FMA): the correlator is about 1.3x faster in this build,
+# and the binary refuses to start on a CPU without them; for such a host,
+#   docker build --build-arg GOAMD64=v1 -t mottle .
+ARG GOAMD64=v3
+RUN CGO_ENABLED=0 GOAMD64=$GOAMD64 go build -trimpath -ldflags "-s -w" -o /out/mottle ./cmd/mottle && mkdir -p /out/data
 
 FROM gcr.io/distroless/static-debian12:nonroot
 COPY --from=build /out/mottle /usr/local/bin/mottle
