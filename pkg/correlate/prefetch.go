@@ -3,6 +3,8 @@ package correlate
 import (
 	"math"
 	"unsafe"
+
+	"github.com/mottledic/mottle/pkg/spline"
 )
 
 // Points are computed in the order of reliability-guided propagation, so
@@ -14,8 +16,9 @@ import (
 // after another as the passes reach them.
 
 // prefetch asks the processor for the cache lines of the reference subset
-// centred at (xc, yc) and, when the deformed image is a table, of the
-// table cells under that subset warped by p (nil: the reference only).
+// centred at (xc, yc) and of the deformed image under that subset warped
+// by p (nil: the reference only): the table cells, or the spline
+// coefficients when there is no table.
 // It changes no data, so it cannot change a result.
 func (s *solver) prefetch(xc, yc float64, p *[12]float64) {
 	m := s.m
@@ -29,7 +32,7 @@ func (s *solver) prefetch(xc, yc float64, p *[12]float64) {
 		prefetchSpan(unsafe.Pointer(&s.gx[o]), side, 4*s.ref.W, 4*side)
 		prefetchSpan(unsafe.Pointer(&s.gy[o]), side, 4*s.ref.W, 4*side)
 	}
-	if p == nil || s.tab == nil {
+	if p == nil || s.tab == nil && s.def == nil {
 		return
 	}
 	// The cells that the warped subset covers lie within hx, hy of its
@@ -41,14 +44,32 @@ func (s *solver) prefetch(xc, yc float64, p *[12]float64) {
 	hy := fm*(math.Abs(p[Vx])+math.Abs(1+p[Vy])) + q*(math.Abs(p[Vxx])+2*math.Abs(p[Vxy])+math.Abs(p[Vyy]))
 	hx, hy = min(hx, 2*fm), min(hy, 2*fm)
 	cx, cy := xc+p[U], yc+p[V]
-	w, h := s.tab.W, s.tab.H
+	var w, h int
+	if s.tab != nil {
+		w, h = s.tab.W, s.tab.H
+	} else {
+		w, h = s.def.W, s.def.H
+	}
 	if !(cx-hx >= 0 && cy-hy >= 0 && cx+hx < float64(w) && cy+hy < float64(h)) {
 		return // also NaN: the pass will reject the guess anyway
 	}
 	x0, x1 := int(cx-hx), int(cx+hx)
 	y0, y1 := int(cy-hy), int(cy+hy)
-	tab := s.tab.Coefficients()
-	prefetchSpan(unsafe.Pointer(&tab[16*(y0*w+x0)]), y1-y0+1, 64*w, 64*(x1-x0+1))
+	if s.tab != nil {
+		tab := s.tab.Coefficients()
+		prefetchSpan(unsafe.Pointer(&tab[16*(y0*w+x0)]), y1-y0+1, 64*w, 64*(x1-x0+1))
+		return
+	}
+	// The spline's coefficients: the support reaches r = 1 (cubic) or 2
+	// (quintic) cells before the cell of a position and r+1 after it, within
+	// the margins.
+	c, cs := s.def.Coefficients()
+	r := 1
+	if s.def.Order() == spline.Quintic {
+		r = 2
+	}
+	o := (y0-r+spline.Margin)*cs + x0 - r + spline.Margin
+	prefetchSpan(unsafe.Pointer(&c[o]), y1-y0+2*r+2, 8*cs, 8*(x1-x0+2*r+2))
 }
 
 // prefetchSpan prefetches rows rows of n bytes from p, each row stride

@@ -6,6 +6,7 @@ import (
 	"slices"
 	"testing"
 
+	"github.com/mottledic/mottle/pkg/spline"
 	"github.com/mottledic/mottle/pkg/synth"
 )
 
@@ -20,10 +21,15 @@ func TestPrefetchLeavesResults(t *testing.T) {
 			def.Set(x, y, 128)
 		}
 	}
-	for _, sh := range []Shape{First, Second} {
-		opt := Options{Subset: 21, Step: 5, Shape: sh, Threads: 2}
+	for _, c := range []struct {
+		sh     Shape
+		interp spline.Order
+		direct bool
+	}{{First, spline.Cubic, false}, {Second, spline.Cubic, false}, {First, spline.Cubic, true}, {Second, spline.Quintic, false}} {
+		sh := c.sh
+		opt := Options{Subset: 21, Step: 5, Shape: sh, Interp: c.interp, Threads: 2}
 		var want []uint64
-		for _, tun := range []tuning{{noFetch: true}, {}} {
+		for _, tun := range []tuning{{noFetch: true, direct: c.direct}, {direct: c.direct}} {
 			res, err := runWith(context.Background(), ref, def, opt, tun)
 			if err != nil {
 				t.Fatal(err)
@@ -34,30 +40,48 @@ func TestPrefetchLeavesResults(t *testing.T) {
 				continue
 			}
 			if !slices.Equal(got, want) {
-				t.Errorf("shape %v: the points differ with the prefetch", sh)
+				t.Errorf("%+v: the points differ with the prefetch", c)
 			}
 		}
 	}
 }
 
 // prefetch accepts any centre and any guess, also off the image, huge or
-// not a number, without a panic, and writes nothing to the table or the
-// reference data.
+// not a number, without a panic, and writes nothing to the table, the
+// deformed spline or the reference data.
 func TestPrefetchAnyGuess(t *testing.T) {
+	for _, c := range []struct {
+		interp spline.Order
+		table  bool
+	}{{spline.Cubic, true}, {spline.Cubic, false}, {spline.Quintic, false}} {
+		prefetchAnyGuess(t, c.interp, c.table)
+	}
+}
+
+func prefetchAnyGuess(t *testing.T, interp spline.Order, table bool) {
 	ref, def := pair(t, synth.Translation{U: 1.5, V: -0.5}, 64, 48, 8, 1, 5)
-	r, err := newRun(context.Background(), ref, def, Options{Subset: 21, Threads: 1}, tuning{})
+	r, err := newRun(context.Background(), ref, def, Options{Subset: 21, Interp: interp, Threads: 1}, tuning{})
 	if err != nil {
 		t.Fatal(err)
 	}
 	defer r.stop()
-	if err := r.tabulate(context.Background(), 1<<30); err != nil {
-		t.Fatal(err)
+	if table {
+		if err := r.tabulate(context.Background(), 1<<30); err != nil {
+			t.Fatal(err)
+		}
 	}
 	s := r.solvers[0]
-	if s.tab == nil {
-		t.Fatal("no table")
+	if (s.tab != nil) != table || (s.def != nil) == table {
+		t.Fatalf("table %v: solver has table %v, spline %v", table, s.tab != nil, s.def != nil)
 	}
-	tab0 := slices.Clone(s.tab.Coefficients())
+	var tab0 []float32
+	var sp0 []float64
+	if table {
+		tab0 = slices.Clone(s.tab.Coefficients())
+	} else {
+		c, _ := s.def.Coefficients()
+		sp0 = slices.Clone(c)
+	}
 	pix0, gx0, gy0 := slices.Clone(ref.Pix), slices.Clone(r.gx), slices.Clone(r.gy)
 	inf, nan := math.Inf(1), math.NaN()
 	centres := [][2]float64{{32, 24}, {10, 10}, {53, 37}, {0, 0}, {63, 47}, {-3, 20}, {70, 20}, {20, 60}, {10.5, 10.25}, {nan, 5}, {inf, -inf}, {inf, inf}, {1e300, 20}, {20, 1e19}}
@@ -69,7 +93,14 @@ func TestPrefetchAnyGuess(t *testing.T) {
 			s.prefetch(c[0], c[1], &g)
 		}
 	}
-	if !slices.Equal(s.tab.Coefficients(), tab0) || !slices.Equal(ref.Pix, pix0) || !slices.Equal(r.gx, gx0) || !slices.Equal(r.gy, gy0) {
-		t.Error("prefetch changed the table or the reference data")
+	same := slices.Equal(ref.Pix, pix0) && slices.Equal(r.gx, gx0) && slices.Equal(r.gy, gy0)
+	if table {
+		same = same && slices.Equal(s.tab.Coefficients(), tab0)
+	} else {
+		c, _ := s.def.Coefficients()
+		same = same && slices.Equal(c, sp0)
+	}
+	if !same {
+		t.Errorf("%v, table %v: prefetch changed the deformed image's data or the reference data", interp, table)
 	}
 }

@@ -67,6 +67,18 @@ type Image struct {
 // Order returns the spline degree.
 func (s *Image) Order() Order { return s.order }
 
+// Margin is the number of mirrored coefficient rows and columns an Image
+// stores on each side of the image.
+const Margin = pad
+
+// Coefficients returns the B-spline coefficients with their mirrored
+// margins, row after row, and the stride between rows: the coefficient of
+// (x, y), −Margin ≤ x < W+Margin and −Margin ≤ y < H+Margin, is
+// c[(y+Margin)·stride + x+Margin]. Evaluating at (x+tx, y+ty), 0 ≤ tx,
+// ty < 1, reads those of rows and columns x−1 … x+2 (cubic) or x−2 … x+3
+// (quintic). The caller must not modify them.
+func (s *Image) Coefficients() (c []float64, stride int) { return s.c, s.cs }
+
 // New computes the B-spline coefficients of g. It fails if g is empty,
 // inconsistent, contains non-finite values, or order is not Cubic or Quintic.
 func New(g *imageio.Gray, order Order) (*Image, error) {

@@ -222,3 +222,29 @@ func BenchmarkSteps1024(b *testing.B) {
 		})
 	}
 }
+
+// Coefficients indexes as documented: at a pixel centre the cubic B-spline
+// is (c[x−1] + 4c[x] + c[x+1])/6 in each direction, the values of the cubic
+// B-spline at −1, 0, 1 (Unser 1999, "Splines: a perfect fit for signal and
+// image processing", IEEE Signal Process. Mag. 16(6):22), and the mirrored
+// margins reach Margin rows and columns past the edges.
+func TestCoefficientsIndex(t *testing.T) {
+	s := mustNew(t, Cubic)
+	c, cs := s.Coefficients()
+	if len(c) != cs*(s.H+2*Margin) || cs != s.W+2*Margin {
+		t.Fatalf("%d coefficients with stride %d for a %d×%d image, margin %d", len(c), cs, s.W, s.H, Margin)
+	}
+	at := func(x, y int) float64 { return c[(y+Margin)*cs+x+Margin] }
+	b := [3]float64{1.0 / 6, 4.0 / 6, 1.0 / 6}
+	for _, p := range [][2]int{{0, 0}, {5, 7}, {19, 19}, {0, 19}, {12, 3}} {
+		var v float64
+		for j := -1; j <= 1; j++ {
+			for i := -1; i <= 1; i++ {
+				v += b[j+1] * b[i+1] * at(p[0]+i, p[1]+j)
+			}
+		}
+		if got := s.At(float64(p[0]), float64(p[1])); math.Abs(got-v) > 1e-9 {
+			t.Errorf("(%d, %d): At %v, from Coefficients %v", p[0], p[1], got, v)
+		}
+	}
+}
