@@ -180,7 +180,7 @@ func TestBrowserSignIn(t *testing.T) {
 	signIn := func(who string) {
 		t.Helper()
 		b.step("sign in as " + who)
-		b.run("enter the token of "+who, setValue("#token", toks[who]), chromedp.Click(chromedp.ID("btn-signin")))
+		b.run("enter the token of "+who, setValue("#token", toks[who]), b.click("#btn-signin"))
 		b.wait(fmt.Sprintf(`document.getElementById("who").dataset.principal === %q && %s`, who, shelfSettled), who+" was not signed in")
 	}
 	shown := func(sel string) bool {
@@ -218,8 +218,8 @@ func TestBrowserSignIn(t *testing.T) {
 		chromedp.SetUploadFiles(chromedp.ID("file-reference"), []string{refPath}),
 		chromedp.SetUploadFiles(chromedp.ID("file-deformed"), []string{defPath}))
 	b.wait(`/96 × 96 px/.test(document.getElementById("info-deformed").textContent) && /96 × 96 px/.test(document.getElementById("info-reference").textContent)`, "the chosen files were not read")
-	b.run("run", chromedp.Click(chromedp.ID("btn-roi-clear")), setValue("#p-subset", "21"), setValue("#p-step", "8"),
-		eval(`mottlePreview.state.events = 0`), chromedp.Click(chromedp.ID("btn-run")))
+	b.run("run", b.click("#btn-roi-clear"), setValue("#p-subset", "21"), setValue("#p-step", "8"),
+		eval(`mottlePreview.state.events = 0`), b.click("#btn-run"))
 	b.waitResult()
 	if n := b.number(`mottlePreview.state.events`); n < 1 {
 		t.Errorf("%v server-sent events reached the page signed in with a token", n)
@@ -232,14 +232,14 @@ func TestBrowserSignIn(t *testing.T) {
 	}
 
 	signIn("lead-a")
-	b.run("refresh the list", chromedp.Click(chromedp.ID("shelf-refresh")))
+	b.run("refresh the list", b.click("#shelf-refresh"))
 	b.wait(shelfSettled+` && document.querySelectorAll('#work-list .work-item').length >= 2`, "the lead's list did not load")
 	if got := listed(); !strings.Contains(got, created["lab-a"]+":lab-a:Open/Rename/Delete") || strings.Contains(got, created["lab-b"]) {
 		t.Errorf("the lead's list %q: want lab-a's items with Rename and Delete, nothing of lab-b", got)
 	}
 	b.step("the lead deletes lab-a's first analysis from the list")
 	del := fmt.Sprintf(`#work-list .work-item[data-id="%s"] button[aria-label^="Delete"]`, created["lab-a"])
-	b.run("delete and confirm", chromedp.Click(chromedp.CSS(del)), chromedp.Click(chromedp.CSS(del)))
+	b.run("delete and confirm", b.click(del), b.click(del))
 	b.wait(fmt.Sprintf(`!document.querySelector('#work-list .work-item[data-id="%s"]')`, created["lab-a"]), "the deleted item is still listed")
 	st, audit := apiAs(t, base, toks["lead-a"], "GET", "/v1/audit?project=lab-a", "", nil)
 	if st != 200 || !strings.Contains(string(audit), `"action": "delete"`) || !strings.Contains(string(audit), created["lab-a"]) {
@@ -250,7 +250,7 @@ func TestBrowserSignIn(t *testing.T) {
 	}
 
 	b.step("sign out")
-	b.run("sign out", chromedp.Click(chromedp.ID("btn-signout")))
+	b.run("sign out", b.click("#btn-signout"))
 	b.wait(`document.body.dataset.signedIn === "false" && sessionStorage.getItem("mottle-token") === null`, "signing out kept the token")
 	b.finish()
 	for _, u := range b.w.requests {

@@ -32,14 +32,17 @@ import (
 	"os/exec"
 	"path/filepath"
 	"regexp"
+	"runtime/pprof"
 	"strings"
 	"sync"
 	"testing"
 	"time"
 
+	"github.com/chromedp/cdproto/cdp"
 	"github.com/chromedp/cdproto/input"
 	cdplog "github.com/chromedp/cdproto/log"
 	"github.com/chromedp/cdproto/network"
+	"github.com/chromedp/cdproto/page"
 	"github.com/chromedp/cdproto/runtime"
 	"github.com/chromedp/chromedp"
 	"github.com/chromedp/chromedp/kb"
@@ -78,7 +81,7 @@ func TestBrowserPreview(t *testing.T) {
 	checkLargePreview(b)
 
 	b.step("run the demo")
-	b.run("click the demo button", chromedp.Click(chromedp.ID("btn-demo")))
+	b.run("click the demo button", b.click("#btn-demo"))
 	b.waitResult()
 	b.shot("demo-page.png", "")
 	b.shot("demo-map.png", "#map-canvas")
@@ -110,7 +113,7 @@ func TestBrowserPreview(t *testing.T) {
 	}
 
 	b.step("draw a profile with the line tool")
-	b.run("choose the line tool", chromedp.Click(chromedp.CSS(`input[name=tool][value=line]`)))
+	b.run("choose the line tool", b.click(`input[name=tool][value=line]`))
 	x0, y0, x1, y1 := b.fieldSpan()
 	b.drag(x0, y0, x1, y1)
 	b.wait(`+document.getElementById("profile-text").dataset.count > 10`, "no profile was plotted after dragging a line across the map")
@@ -118,27 +121,27 @@ func TestBrowserPreview(t *testing.T) {
 		t.Errorf("profile plot has %v colours, want a drawn plot", n)
 	}
 	b.shot("profile.png", ".profile")
-	b.run("back to the read tool", chromedp.Click(chromedp.CSS(`input[name=tool][value=read]`)))
+	b.run("back to the read tool", b.click(`input[name=tool][value=read]`))
 
 	b.step("vectors over the deformed image")
 	b.run("show vectors on the deformed image",
-		chromedp.Click(chromedp.CSS(`input[name=on][value=deformed]`)),
-		chromedp.Click(chromedp.ID("vectors")))
+		b.click(`input[name=on][value=deformed]`),
+		b.click("#vectors"))
 	checkMapDrawn(b)
 	b.shot("demo-deformed-vectors.png", "#map-canvas")
-	b.run("vectors relative to the mean", chromedp.Click(chromedp.ID("vec-relative")))
+	b.run("vectors relative to the mean", b.click("#vec-relative"))
 	if got := b.text("#vec-info"); !strings.Contains(got, "after removing the mean") {
 		t.Errorf("vector note %q does not say the mean was removed", got)
 	}
 	b.shot("demo-relative-vectors.png", "#map-canvas")
-	b.run("absolute vectors", chromedp.Click(chromedp.ID("vec-relative")))
+	b.run("absolute vectors", b.click("#vec-relative"))
 	b.run("back to the reference view",
-		chromedp.Click(chromedp.CSS(`input[name=on][value=reference]`)),
-		chromedp.Click(chromedp.ID("vectors")))
-	b.run("smooth map", chromedp.Click(chromedp.ID("smooth")))
+		b.click(`input[name=on][value=reference]`),
+		b.click("#vectors"))
+	b.run("smooth map", b.click("#smooth"))
 	checkMapDrawn(b)
 	b.shot("demo-smooth.png", "#map-canvas")
-	b.run("cell map", chromedp.Click(chromedp.ID("smooth")))
+	b.run("cell map", b.click("#smooth"))
 
 	b.step("upload a pair with a known homogeneous stretch")
 	checkKnownStretch(b)
@@ -164,7 +167,7 @@ func TestBrowserPreview(t *testing.T) {
 	b.step("reopen an earlier result from the list")
 	b.wait(`document.querySelectorAll('#work-list .work-item[data-kind=analysis]').length >= 2`, "the earlier results are not listed")
 	b.run("open the newest earlier analysis", eval(`document.body.dataset.result = ""`),
-		chromedp.Click(chromedp.CSS(`#work-list .work-item[data-kind=analysis] .work-acts button`)))
+		b.click(`#work-list .work-item[data-kind=analysis] .work-acts button`))
 	b.waitResult()
 	checkMapDrawn(b)
 
@@ -252,9 +255,9 @@ func checkSeries(b *browser, base string) {
 		b.step(fmt.Sprintf("series: frame %d appended", i))
 	}
 	b.step("series: frames appended")
-	b.run("refresh the list of earlier work", chromedp.Click(chromedp.ID("shelf-refresh")))
+	b.run("refresh the list of earlier work", b.click("#shelf-refresh"))
 	b.wait(fmt.Sprintf(`!!document.querySelector('#work-list .work-item[data-id="%s"]')`, sr.ID), "the series is not in the list of earlier work")
-	b.run("open the series from the list", chromedp.Click(chromedp.CSS(fmt.Sprintf(`#work-list .work-item[data-id="%s"] .work-acts button`, sr.ID))))
+	b.run("open the series from the list", b.click(fmt.Sprintf(`#work-list .work-item[data-id="%s"] .work-acts button`, sr.ID)))
 	b.wait(`/frame \d/.test(document.getElementById("results-source").textContent) && document.getElementById("curve-y").options.length > 0`, "the series did not open")
 	b.step("series: opened")
 	b.run("plot mean E11 against load", setValue("#curve-y", "mean E11"), setValue("#curve-x", "load"))
@@ -350,9 +353,9 @@ func checkKnownStretch(b *browser) {
 	}
 	roiJSON := func() string { return b.str(`document.getElementById("roi-json").value`) }
 	// A polygon closed with Enter and a hole closed with a double-click.
-	b.run("draw a polygon", chromedp.Click(chromedp.CSS(`input[name=roi-mode][value=polygon]`)),
+	b.run("draw a polygon", b.click(`input[name=roi-mode][value=polygon]`),
 		click(30, 30), click(150, 30), click(90, 130), chromedp.KeyEvent(kb.Enter))
-	b.run("draw a hole", chromedp.Click(chromedp.CSS(`input[name=roi-mode][value=hole]`)),
+	b.run("draw a hole", b.click(`input[name=roi-mode][value=hole]`),
 		click(80, 50), click(100, 50), click(90, 70))
 	hx, hy := at(90, 70)
 	b.run("close the hole", chromedp.MouseClickXY(hx, hy, chromedp.ClickCount(2)))
@@ -360,7 +363,7 @@ func checkKnownStretch(b *browser) {
 		t.Errorf("drawn polygon and hole give the region %s, want %s", got, want)
 	}
 	b.shot("roi-polygon.png", "#roi-canvas")
-	b.run("clear the region", chromedp.Click(chromedp.ID("btn-roi-clear")))
+	b.run("clear the region", b.click("#btn-roi-clear"))
 	if got := roiJSON(); got != "{}" {
 		t.Errorf("after clearing, the region is %s, want {}", got)
 	}
@@ -368,9 +371,9 @@ func checkKnownStretch(b *browser) {
 	roi := [4]float64{24, 20, 168, 140}
 	x0, y0 := at(roi[0], roi[1])
 	x1, y1 := at(roi[2], roi[3])
-	b.run("rectangle tool", chromedp.Click(chromedp.CSS(`input[name=roi-mode][value=rect]`)))
+	b.run("rectangle tool", b.click(`input[name=roi-mode][value=rect]`))
 	b.drag(x0, y0, x1, y1)
-	b.run("place a seed", chromedp.Click(chromedp.CSS(`input[name=roi-mode][value=seed]`)), click(96, 80))
+	b.run("place a seed", b.click(`input[name=roi-mode][value=seed]`), click(96, 80))
 	if got, want := roiJSON(), `{"rect":[24,20,168,140],"seeds":[[96,80]]}`; got != want {
 		t.Errorf("drawn rectangle and seed give the region %s, want %s", got, want)
 	}
@@ -386,7 +389,7 @@ func checkKnownStretch(b *browser) {
 	}
 	b.run("set the parameters",
 		setValue("#p-subset", "21"), setValue("#p-step", "8"), setValue("#p-window", "5"))
-	b.run("run", eval(`document.body.dataset.result = ""`), chromedp.Click(chromedp.ID("btn-run")))
+	b.run("run", eval(`document.body.dataset.result = ""`), b.click("#btn-run"))
 	b.waitResult()
 	b.shot("stretch-map.png", "#map-canvas")
 	// Every measured point's subset must lie inside the drawn rectangle,
@@ -486,9 +489,9 @@ func checkTIFFPair(b *browser) {
 	if !strings.Contains(b.text("#adv-subset"), "3 speckles across") {
 		t.Errorf("no subset advice for the TIFF: %q", b.text("#adv-subset"))
 	}
-	b.run("whole image, and run", chromedp.Click(chromedp.ID("btn-roi-clear")),
+	b.run("whole image, and run", b.click("#btn-roi-clear"),
 		setValue("#p-subset", "21"), setValue("#p-step", "8"), setValue("#p-window", "5"),
-		eval(`document.body.dataset.result = ""`), chromedp.Click(chromedp.ID("btn-run")))
+		eval(`document.body.dataset.result = ""`), b.click("#btn-run"))
 	b.waitResult()
 	checkMapDrawn(b)
 	b.shot("tiff-map.png", "#map-canvas")
@@ -508,7 +511,7 @@ func checkTIFFPair(b *browser) {
 // first progress report until it is canceled, waits for that progress to
 // arrive as server-sent events and cancels it. The job is certainly
 // running when the cancel button is pressed, however fast the machine.
-func checkCancel(b0 *browser, base string) {
+func checkCancel(b0 *browser, hs *holdServer) {
 	t := b0.t
 	t.Helper()
 	tab, closeTab := chromedp.NewContext(b0.ctx)
@@ -516,7 +519,16 @@ func checkCancel(b0 *browser, base string) {
 	b := newPage(t, tab, b0.art, nil)
 	b.n = b0.n
 	defer func() { b0.n = b.n }()
-	b.run("open the page of the holding server", chromedp.Navigate(base+"/"), chromedp.WaitVisible(chromedp.ID("btn-run")))
+	b.diag = func() string {
+		jobs := "?"
+		if resp, err := http.Get(hs.url + "/v1/analyses"); err == nil {
+			raw, _ := io.ReadAll(io.LimitReader(resp.Body, 8000))
+			resp.Body.Close()
+			jobs = string(raw)
+		}
+		return fmt.Sprintf("holding analyzer:\n%s\nrequests answered:\n%s\njobs: %s", hs.an.story(), tail(hs.log.String(), 6000), jobs)
+	}
+	b.run("open the page of the holding server", chromedp.Navigate(hs.url+"/"), chromedp.WaitVisible(chromedp.ID("btn-run")))
 	b.wait(`document.body.dataset.ready === "true"`, "the page's script did not start")
 	const w, h = holdSize, holdSize
 	m := synth.Affine{F: [2][2]float64{{1.002, 0}, {0, 1}}, CX: w / 2, CY: h / 2}
@@ -536,16 +548,22 @@ func checkCancel(b0 *browser, base string) {
 		chromedp.SetUploadFiles(chromedp.ID("file-deformed"), []string{defPath}))
 	b.wait(`/384 × 384 px/.test(document.getElementById("info-deformed").textContent) && /384 × 384 px/.test(document.getElementById("info-reference").textContent)`, "the chosen files were not read")
 	b.run("dense grid, whole image, and run",
-		chromedp.Click(chromedp.ID("btn-roi-clear")),
+		b.click("#btn-roi-clear"),
 		setValue("#p-subset", "21"), setValue("#p-step", "1"),
 		eval(`mottlePreview.state.events = 0`),
-		chromedp.Click(chromedp.ID("btn-run")))
+		b.click("#btn-run"))
 	b.wait(`mottlePreview.state.events > 0 && /running .*\([1-9][0-9]* of/.test(document.getElementById("progress-text").textContent)`, "no progress arrived as server-sent events")
 	b.shot("progress.png", ".run-row + .progress-row")
-	b.run("cancel", chromedp.Click(chromedp.ID("btn-cancel")))
+	b.run("cancel", b.click("#btn-cancel"))
 	b.wait(`/^canceled/.test(document.getElementById("progress-text").textContent)`, "the analysis was not canceled")
 	if ok := b.str(`document.getElementById("btn-run").disabled ? "disabled" : "enabled"`); ok != "enabled" {
 		t.Errorf("after cancel the run button is %s", ok)
+	}
+	// The hold ends through the job's context, canceled by the client.
+	story := hs.an.story()
+	t.Logf("holding analyzer:\n%s", story)
+	if !strings.Contains(story, "hold released: context canceled (cause canceled by a client)") {
+		t.Errorf("the held analysis did not end through the client's cancel:\n%s", story)
 	}
 	b.finish()
 }
@@ -558,32 +576,107 @@ const holdSize = 384
 // holdSize×holdSize pair stops at its first progress report (done > 0)
 // until its context ends (the job is canceled). Progress reports of 0
 // done are not passed on, so that the report held is the one the service
-// records and sends.
-type holdingAnalyzer struct{ service.Pipeline }
+// records and sends. It records when the hold began and ended and what
+// Run returned, for the test's message when the cancel does not arrive.
+type holdingAnalyzer struct {
+	service.Pipeline
+	mu     sync.Mutex
+	events []string
+}
 
-func (a holdingAnalyzer) Run(ctx context.Context, in service.Input, progress func(done, total int)) (*service.Result, error) {
+func (a *holdingAnalyzer) note(format string, args ...any) {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	a.events = append(a.events, time.Now().Format("15:04:05.000")+" "+fmt.Sprintf(format, args...))
+}
+
+// story returns what happened to the held analyses so far.
+func (a *holdingAnalyzer) story() string {
+	a.mu.Lock()
+	defer a.mu.Unlock()
+	return strings.Join(a.events, "\n")
+}
+
+func (a *holdingAnalyzer) Run(ctx context.Context, in service.Input, progress func(done, total int)) (*service.Result, error) {
 	if in.Ref.W != holdSize || in.Ref.H != holdSize {
 		return a.Pipeline.Run(ctx, in, progress)
 	}
+	a.note("analysis started")
 	var once sync.Once
-	return a.Pipeline.Run(ctx, in, func(done, total int) {
+	res, err := a.Pipeline.Run(ctx, in, func(done, total int) {
 		if done == 0 {
 			return
 		}
 		progress(done, total)
-		once.Do(func() { <-ctx.Done() })
+		once.Do(func() {
+			a.note("holding at %d of %d points", done, total)
+			<-ctx.Done()
+			a.note("hold released: %v (cause %v)", ctx.Err(), context.Cause(ctx))
+		})
+	})
+	a.note("analysis returned: %v", err)
+	return res, err
+}
+
+// holdServer is the server of startHoldingServer.
+type holdServer struct {
+	url string
+	an  *holdingAnalyzer
+	log *requestLog
+}
+
+// requestLog records the requests a server answered, with their status.
+type requestLog struct {
+	mu    sync.Mutex
+	lines []string
+}
+
+func (l *requestLog) wrap(h http.Handler) http.Handler {
+	return http.HandlerFunc(func(w http.ResponseWriter, r *http.Request) {
+		t0 := time.Now()
+		sw := &statusWriter{ResponseWriter: w, status: http.StatusOK}
+		l.add(fmt.Sprintf("%s %s %s: started", t0.Format("15:04:05.000"), r.Method, r.URL.Path))
+		h.ServeHTTP(sw, r)
+		l.add(fmt.Sprintf("%s %s %s: %d after %v", t0.Format("15:04:05.000"), r.Method, r.URL.Path, sw.status, time.Since(t0).Round(time.Millisecond)))
 	})
 }
 
+func (l *requestLog) add(s string) {
+	l.mu.Lock()
+	l.lines = append(l.lines, s)
+	l.mu.Unlock()
+}
+
+func (l *requestLog) String() string {
+	l.mu.Lock()
+	defer l.mu.Unlock()
+	return strings.Join(l.lines, "\n")
+}
+
+// statusWriter keeps the status of an answer. It flushes, for the event
+// streams (the service's own writer asserts http.Flusher on the writer it
+// wraps), and Unwrap lets http.ResponseController reach the rest.
+type statusWriter struct {
+	http.ResponseWriter
+	status int
+}
+
+func (w *statusWriter) WriteHeader(code int) { w.status = code; w.ResponseWriter.WriteHeader(code) }
+
+func (w *statusWriter) Flush() { _ = http.NewResponseController(w.ResponseWriter).Flush() }
+
+func (w *statusWriter) Unwrap() http.ResponseWriter { return w.ResponseWriter }
+
 // startHoldingServer serves the preview and the API from this process on
-// a fresh embedded backend with holdingAnalyzer, and returns its base URL.
-func startHoldingServer(t *testing.T) string {
+// a fresh embedded backend with holdingAnalyzer.
+func startHoldingServer(t *testing.T) *holdServer {
 	t.Helper()
 	be, err := embedded.Open(t.TempDir(), 8)
 	if err != nil {
 		t.Fatal(err)
 	}
-	srv, err := service.New(service.Config{Backend: be, Analyzer: holdingAnalyzer{}, Workers: 1, UI: web.Assets(),
+	hs := &holdServer{an: &holdingAnalyzer{}, log: &requestLog{}}
+	srv, err := service.New(service.Config{Backend: be, Analyzer: hs.an, Workers: 1, UI: web.Assets(),
 		ShutdownGrace: time.Second, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
 	if err != nil {
 		t.Fatal(err)
@@ -592,13 +685,14 @@ func startHoldingServer(t *testing.T) string {
 	if err != nil {
 		t.Fatal(err)
 	}
-	hs := httptest.NewServer(srv.Handler())
+	ts := httptest.NewServer(hs.log.wrap(srv.Handler()))
 	t.Cleanup(func() {
-		hs.Close()
+		ts.Close()
 		stop()
 		be.Close()
 	})
-	return hs.URL
+	hs.url = ts.URL
+	return hs
 }
 
 // checkColourMaps takes the page's colour tables and checks them with
@@ -753,7 +847,7 @@ func checkBadUpload(b *browser) {
 	}
 	b.run("choose a broken reference", chromedp.SetUploadFiles(chromedp.ID("file-reference"), []string{bad}))
 	b.wait(`/not_an_image/.test(document.getElementById("info-reference").textContent)`, "the broken file was not taken")
-	b.run("run", chromedp.Click(chromedp.ID("btn-run")))
+	b.run("run", b.click("#btn-run"))
 	b.wait(`!document.getElementById("error-box").hidden`, "no error was shown for a broken upload")
 	title := b.text("#error-box h2")
 	text := b.text("#error-box")
@@ -771,11 +865,14 @@ func checkBadUpload(b *browser) {
 type browser struct {
 	t     *testing.T
 	ctx   context.Context
-	end   time.Time // testDeadline: bounds every wait and action
+	end   time.Time // testDeadline: no wait or action goes beyond it
 	art   string
 	n     int
 	start time.Time
 	w     *pageWatch
+	// diag, if not nil, says more about the server when a wait or an
+	// action fails (see checkCancel).
+	diag func() string
 }
 
 // newPage returns a browser for the tab of ctx that fails the test on
@@ -786,7 +883,83 @@ func newPage(t *testing.T, ctx context.Context, art string, allow []allowance) *
 	if err != nil {
 		t.Fatalf("listen to the page: %v", err)
 	}
+	addLog := chromedp.Func(func(ctx context.Context, t *chromedp.Target) error {
+		_, err := cdp.Call(ctx, t, page.AddScriptToEvaluateOnNewDocument, page.AddScriptToEvaluateOnNewDocumentParams{Source: clickLog})
+		return err
+	})
+	if err := chromedp.Do(ctx, addLog); err != nil {
+		t.Fatalf("add the click log to the page: %v", err)
+	}
 	return &browser{t: t, ctx: ctx, end: testDeadline(t), art: art, start: time.Now(), w: w}
+}
+
+// clickLog keeps, in every document of a page, the last clicks: where
+// they landed (client coordinates) and on which element, for b.click and
+// the message of a failed wait.
+const clickLog = `if (!window.mottleClicks) {
+	window.mottleClicks = [];
+	window.mottleLastClick = null;
+	document.addEventListener('click', e => {
+		const t = e.target, id = t && t.closest && t.closest('[id]');
+		if (mottleLastClick === null) mottleLastClick = t; // the first click since b.click reset it
+		mottleClicks.push(Math.round(performance.now()) + ' ms: (' + Math.round(e.clientX) + ', ' + Math.round(e.clientY) + ') on ' + (t ? t.tagName : '?') + (id ? '#' + id.id : ''));
+		if (mottleClicks.length > 8) mottleClicks.shift();
+	}, true);
+}`
+
+// click is a mouse click on the first element that matches the CSS
+// selector sel, made sure to land on it. chromedp.Click reads where the
+// element is and then presses the mouse there; when the page moves the
+// element in between (a list of earlier work or an image check arriving
+// above it), the click lands on whatever is there instead and is lost,
+// more often the more loaded the machine. So click waits until the
+// element is shown and stays at the same place for 100 ms, clicks its
+// centre, and checks in the page's click log (clickLog) that the click
+// reached the element; a click that did not (it landed beside, or the
+// element was disabled) is logged and made again, up to 5 times. A click
+// that opens a new document counts as reached.
+func (b *browser) click(sel string) chromedp.Action[chromedp.Void] {
+	return chromedp.Func(func(ctx context.Context, t *chromedp.Target) error {
+		if _, err := chromedp.Evaluate[bool](clickLog+`; true`)(ctx, t); err != nil {
+			return err
+		}
+		settle := fmt.Sprintf(`new Promise(ok => {
+			let last = '', same = 0;
+			const look = () => {
+				const e = document.querySelector(%q);
+				const r = e && e.getBoundingClientRect();
+				if (r && r.width > 0 && r.height > 0) {
+					if (r.top < 0 || r.bottom > innerHeight || r.left < 0 || r.right > innerWidth) e.scrollIntoView({block: 'center', inline: 'center'});
+					const k = [r.left, r.top, r.width, r.height].join();
+					same = k === last ? same + 1 : 0;
+					last = k;
+					if (same >= 2) {
+						window.mottleClickOn = e; mottleLastClick = null;
+						return ok([r.left + r.width / 2, r.top + r.height / 2]);
+					}
+				}
+				setTimeout(look, 50);
+			};
+			look();
+		})`, sel)
+		for try := 1; ; try++ {
+			at, err := chromedp.Evaluate[[]float64](settle, chromedp.EvalAwaitPromise)(ctx, t)
+			if err != nil {
+				return fmt.Errorf("wait for %s to be shown and keep still: %w", sel, err)
+			}
+			if _, err := chromedp.MouseClickXY(at[0], at[1])(ctx, t); err != nil {
+				return err
+			}
+			hit, err := chromedp.Evaluate[string](`!window.mottleClickOn ? "new document" : mottleLastClick && mottleClickOn.contains(mottleLastClick) ? "" : mottleClicks.length ? "missed; clicks: " + mottleClicks.join("; ") : "missed; no click reached the page"`)(ctx, t)
+			if err != nil || hit == "" || hit == "new document" {
+				return nil // an evaluation fails too when the click navigates
+			}
+			b.t.Logf("click %d on %s at (%.0f, %.0f) %s", try, sel, at[0], at[1], hit)
+			if try == 5 {
+				return fmt.Errorf("%d clicks on %s did not reach it: %s", try, sel, hit)
+			}
+		}
+	})
 }
 
 // step logs the start of a step with the time since the test began,
@@ -805,7 +978,7 @@ func (b *browser) step(what string) {
 // (chromedp.Listen sees an event before the reply that follows it).
 func (b *browser) check() {
 	b.t.Helper()
-	ctx, cancel := context.WithDeadline(b.ctx, b.end)
+	ctx, cancel := b.bounded()
 	defer cancel()
 	_, _ = chromedp.Run(ctx, chromedp.Evaluate[bool](`true`))
 	for _, p := range b.w.take() {
@@ -829,28 +1002,77 @@ func (b *browser) finish() {
 	}
 }
 
+// waitBound bounds each wait for the page and each action in it. The
+// slowest wait of the browser tests (an analysis of the demo while the
+// rest of the suite loads both cores) takes some 20 s; the bound only
+// turns a hang into a failure, with its diagnostics, long before the
+// package's time limit, and is never reached because the machine is slow.
+const waitBound = 2 * time.Minute
+
+// bounded returns a context of b.ctx that ends after waitBound, or at the
+// end of the test's time if that is sooner.
+func (b *browser) bounded() (context.Context, context.CancelFunc) {
+	end := time.Now().Add(waitBound)
+	if b.end.Before(end) {
+		end = b.end
+	}
+	return context.WithDeadline(b.ctx, end)
+}
+
 func (b *browser) run(what string, actions ...chromedp.Action[chromedp.Void]) {
 	b.t.Helper()
-	ctx, cancel := context.WithDeadline(b.ctx, b.end)
+	ctx, cancel := b.bounded()
 	defer cancel()
 	if err := chromedp.Do(ctx, actions...); err != nil {
 		b.shot("failure.png", "")
+		b.diagnose()
 		b.t.Fatalf("%s: %v", what, err)
 	}
 }
 
-// wait polls the JavaScript condition cond until it is true (until the
-// end of the test's time at most).
+// wait polls the JavaScript condition cond until it is true (waitBound at
+// most).
 func (b *browser) wait(cond string, msg string) {
 	b.t.Helper()
-	ctx, cancel := context.WithDeadline(b.ctx, b.end)
+	ctx, cancel := b.bounded()
 	defer cancel()
-	_, err := chromedp.Run(ctx, chromedp.Poll[bool](cond, chromedp.WithPollingInterval(100*time.Millisecond)))
+	t0 := time.Now()
+	// chromedp's own limit of a poll (30 s by default) is off: ctx bounds it.
+	_, err := chromedp.Run(ctx, chromedp.Poll[bool](cond, chromedp.WithPollingInterval(100*time.Millisecond), chromedp.WithPollingTimeout(0)))
 	if err != nil {
-		errText, _ := chromedp.Run(b.ctx, chromedp.Evaluate[string](`document.getElementById("error-box").innerText + " | " + document.getElementById("progress-text").textContent`))
+		tctx, tcancel := context.WithTimeout(b.ctx, 10*time.Second)
+		errText, _ := chromedp.Run(tctx, chromedp.Evaluate[string](`document.getElementById("error-box").innerText + " | " + document.getElementById("progress-text").textContent + " | last clicks: " + (window.mottleClicks || []).join("; ")`))
+		tcancel()
 		b.shot("failure.png", "")
-		b.t.Fatalf("%s (%v); page says: %q", msg, err, errText)
+		b.diagnose()
+		b.t.Fatalf("%s (%v after %v); page says: %q", msg, err, time.Since(t0).Round(time.Millisecond), errText)
 	}
+}
+
+// diagnose logs what b.diag says about the server and the goroutines of
+// this process that run Mottle's code (the in-process servers' handlers,
+// runner and correlator), the whole dump going to the artefacts.
+func (b *browser) diagnose() {
+	b.t.Helper()
+	if b.diag != nil {
+		b.t.Logf("server side:\n%s", b.diag())
+	}
+	var buf bytes.Buffer
+	if err := pprof.Lookup("goroutine").WriteTo(&buf, 2); err != nil {
+		b.t.Logf("goroutine dump: %v", err)
+		return
+	}
+	p := filepath.Join(b.art, "goroutines.txt")
+	if err := os.WriteFile(p, buf.Bytes(), 0o644); err != nil {
+		b.t.Logf("goroutine dump: %v", err)
+	}
+	var ours []string
+	for _, g := range strings.Split(buf.String(), "\n\n") {
+		if strings.Contains(g, "mottledic/mottle/pkg/") {
+			ours = append(ours, g)
+		}
+	}
+	b.t.Logf("%d of the process's goroutines run Mottle's code (all in %s):\n%s", len(ours), p, tail(strings.Join(ours, "\n\n"), 30000))
 }
 
 // tryWait reports whether cond becomes true within d; it is only used to
@@ -858,7 +1080,7 @@ func (b *browser) wait(cond string, msg string) {
 func (b *browser) tryWait(cond string, d time.Duration) bool {
 	ctx, cancel := context.WithTimeout(b.ctx, d)
 	defer cancel()
-	_, err := chromedp.Run(ctx, chromedp.Poll[bool](cond, chromedp.WithPollingInterval(100*time.Millisecond)))
+	_, err := chromedp.Run(ctx, chromedp.Poll[bool](cond, chromedp.WithPollingInterval(100*time.Millisecond), chromedp.WithPollingTimeout(0)))
 	return err == nil
 }
 
@@ -876,11 +1098,12 @@ func (b *browser) waitResult() {
 // value evaluates expr in the page and decodes its JSON value.
 func value[T any](b *browser, expr string) T {
 	b.t.Helper()
-	ctx, cancel := context.WithDeadline(b.ctx, b.end)
+	ctx, cancel := b.bounded()
 	defer cancel()
 	v, err := chromedp.Run(ctx, chromedp.Evaluate[T](helpers+expr))
 	if err != nil {
 		b.shot("failure.png", "")
+		b.diagnose()
 		b.t.Fatalf("evaluate %s: %v", expr, err)
 	}
 	return v

@@ -60,7 +60,7 @@ func checkCalibration(b *browser) {
 		chromedp.SetUploadFiles(chromedp.ID("cal-target"), []string{tpath}),
 		chromedp.SetUploadFiles(chromedp.ID("cal-images"), imgs),
 		setValue("#cal-plane", "view2.png"))
-	b.run("calibrate", chromedp.Click(chromedp.ID("cal-run")))
+	b.run("calibrate", b.click("#cal-run"))
 	b.wait(`document.getElementById("cal-status").textContent === "done"`, "the calibration did not finish")
 	sum := b.text("#cal-summary")
 	if !strings.Contains(sum, "8 views") || !strings.Contains(sum, "view2.png") {

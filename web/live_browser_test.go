@@ -36,11 +36,11 @@ func TestBrowserLive(t *testing.T) {
 		setValue("#s-name", "Coupon A7 live"), setValue("#s-times", "pattern"), setValue("#s-pattern", "_t([0-9.]+)s"), setValue("#s-tscale", "1"),
 		setValue("#s-subset", "21"), setValue("#s-step", "8"),
 		setValue("#g-kind", "ext"), setValue("#g-x0", "30"), setValue("#g-y0", "64"), setValue("#g-x1", "130"), setValue("#g-y1", "64"),
-		chromedp.Click(chromedp.ID("g-add")),
+		b.click("#g-add"),
 		setValue("#g-kind", "gauge"), setValue("#g-x0", "48"), setValue("#g-y0", "40"), setValue("#g-x1", "112"), setValue("#g-y1", "88"),
-		chromedp.Click(chromedp.ID("g-add")),
-		chromedp.Click(chromedp.ID("s-live")))
-	b.run("start", eval(`delete document.body.dataset.props`), chromedp.Click(chromedp.ID("s-start")))
+		b.click("#g-add"),
+		b.click("#s-live"))
+	b.run("start", eval(`delete document.body.dataset.props`), b.click("#s-start"))
 	b.wait(`document.getElementById('live-text').dataset.frames === '5' && /all 5 frames done/.test(document.getElementById('s-progress-text').textContent)`,
 		"the live plot did not get the five frames")
 	id := b.str(`mottlePreview.state.series.id`)

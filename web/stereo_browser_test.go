@@ -84,7 +84,7 @@ func checkStereo(b *browser) {
 		chromedp.SetUploadFiles(chromedp.ID("st-rref"), []string{files[1]}),
 		chromedp.SetUploadFiles(chromedp.ID("st-ldef"), []string{files[2]}),
 		chromedp.SetUploadFiles(chromedp.ID("st-rdef"), []string{files[3]}))
-	b.run("measure", chromedp.Click(chromedp.ID("st-run")))
+	b.run("measure", b.click("#st-run"))
 	b.wait(`document.getElementById("st-status").textContent === "done"`, "the stereo measurement did not finish")
 	if mw := b.number(`mottleStereo.meanW`); math.Abs(mw-1) > 0.01 {
 		b.t.Errorf("the page reads a mean w of %.4f mm; the scene moved 1 mm", mw)
@@ -113,7 +113,7 @@ func checkStereo(b *browser) {
 	b.run("choose the later pairs of a series",
 		chromedp.SetUploadFiles(chromedp.ID("st-sleft"), []string{files[2], files[4]}),
 		chromedp.SetUploadFiles(chromedp.ID("st-sright"), []string{files[5], files[3]}))
-	b.run("measure the series", chromedp.Click(chromedp.ID("st-srun")))
+	b.run("measure the series", b.click("#st-srun"))
 	b.wait(`document.getElementById("st-sstatus").textContent === "done"`, "the stereo series did not finish")
 	for k, want := range []float64{0, 1, 0.5} {
 		if got := b.number(fmt.Sprintf(`mottleStereo.series.meanW[%d]`, k)); math.Abs(got-want) > 0.01 {
@@ -139,7 +139,7 @@ func checkStereo(b *browser) {
 	b.shot("stereo-series.png", "#stereo")
 
 	b.run("choose a rig calibrated on 640×480 images", chromedp.SetUploadFiles(chromedp.ID("st-rig"), []string{other}))
-	b.run("measure again", chromedp.Click(chromedp.ID("st-run")))
+	b.run("measure again", b.click("#st-run"))
 	b.wait(`document.getElementById("st-status").textContent === "failed"`, "a rig for other images was not refused")
 	if msg := b.text("#st-error"); !strings.Contains(msg, "640×480") {
 		b.t.Errorf("error box %q does not say the rig was calibrated on 640×480 images", msg)

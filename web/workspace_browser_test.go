@@ -148,12 +148,12 @@ const shelfSettled = `document.getElementById('work-list').dataset.pending === '
 // openFromShelf clicks Open on the list item with that id.
 func openFromShelf(b *browser, id string) {
 	b.t.Helper()
-	b.run("refresh the list", chromedp.Click(chromedp.ID("shelf-refresh")))
+	b.run("refresh the list", b.click("#shelf-refresh"))
 	sel := fmt.Sprintf(`#work-list .work-item[data-id="%s"]`, id)
 	// Wait for the reload to be drawn: a click on an item of the list
 	// being replaced finds no node.
 	b.wait(fmt.Sprintf(`%s && !!document.querySelector('%s')`, shelfSettled, sel), "the item is not in the list of earlier work")
-	b.run("open it from the list", eval(`document.body.dataset.result = ""`), chromedp.Click(chromedp.CSS(sel+" .work-acts button")))
+	b.run("open it from the list", eval(`document.body.dataset.result = ""`), b.click(sel+" .work-acts button"))
 	b.waitResult()
 }
 
@@ -201,7 +201,7 @@ func checkColourEquality(b *browser, base, id string) {
 			}
 		}
 	}
-	b.run("default range and opacity", setValue("#opacity", "0.8"), chromedp.Click(chromedp.ID("btn-autorange")))
+	b.run("default range and opacity", setValue("#opacity", "0.8"), b.click("#btn-autorange"))
 }
 
 // modalColour fetches map.png of quantity q with range [lo, hi] and
@@ -378,7 +378,7 @@ func setUpSeries(b *browser, name string) {
 		setValue("#s-name", name), setValue("#s-times", "pattern"), setValue("#s-pattern", "_t([0-9.]+)s"), setValue("#s-tscale", "1"),
 		setValue("#s-subset", "21"), setValue("#s-step", "8"), setValue("#s-area", fmt.Sprint(wsArea)),
 		setValue("#g-kind", "ext"), setValue("#g-x0", "30"), setValue("#g-y0", "64"), setValue("#g-x1", "130"), setValue("#g-y1", "64"),
-		chromedp.Click(chromedp.ID("g-add")))
+		b.click("#g-add"))
 	// Under a heavy load the page may still be laying out the reference
 	// when the first drag arrives, so that it adds nothing; the drag is
 	// then measured and sent again (at most three times), never when it
@@ -412,7 +412,7 @@ func runSeries(b *browser, base string, files []wsFile) string {
 	t.Helper()
 	dropFrames(b, files)
 	setUpSeries(b, "Coupon A7 tension")
-	b.run("start", eval(`delete document.body.dataset.props`), chromedp.Click(chromedp.ID("s-start")))
+	b.run("start", eval(`delete document.body.dataset.props`), b.click("#s-start"))
 	b.wait(`document.body.dataset.props === 'ready' && /all 5 frames done/.test(document.getElementById('s-progress-text').textContent)`, "the series did not finish")
 	if v := b.number(`document.getElementById('s-all-progress').value / document.getElementById('s-all-progress').max`); v != 1 {
 		t.Errorf("overall progress %v at the end, want 1", v)
@@ -484,7 +484,7 @@ func resumeSeries(b *browser, base string, files []wsFile) string {
 	b.wait(`document.body.dataset.ready === "true"`, "the page's script did not start")
 	dropFrames(b, files)
 	setUpSeries(b, "Coupon A7 resumed")
-	b.run("start", chromedp.Click(chromedp.ID("s-start")))
+	b.run("start", b.click("#s-start"))
 	b.wait(`+(document.body.dataset.seriesDone || 0) >= 3`, "three frames did not finish")
 	id := b.str(`mottlePreview.state.series.id`)
 	b.run("reload the page mid-way", chromedp.Reload())
@@ -560,7 +560,7 @@ func getJSON(t *testing.T, u string, v any) {
 func checkShelf(b *browser, base, aid, full, resumed string) {
 	t := b.t
 	t.Helper()
-	b.run("refresh the list", chromedp.Click(chromedp.ID("shelf-refresh")))
+	b.run("refresh the list", b.click("#shelf-refresh"))
 	b.wait(shelfSettled+` && document.querySelectorAll('#work-list .work-item').length >= 3 && [...document.querySelectorAll('#work-list img')].every(i => i.complete && i.naturalWidth > 0)`, "the list or its thumbnails did not load")
 	names := value[map[string]string](b, `Object.fromEntries([...document.querySelectorAll('#work-list .work-item')].map(li => [li.dataset.id, li.dataset.kind + ': ' + li.querySelector('.work-name').textContent + ' | ' + li.querySelector('.work-meta').textContent]))`)
 	for id, want := range map[string]string{aid: "analysis: Translation check", full: "series: Coupon A7 tension", resumed: "series: Coupon A7 resumed"} {
@@ -577,14 +577,14 @@ func checkShelf(b *browser, base, aid, full, resumed string) {
 	checkMapDrawn(b)
 	b.wait(shelfSettled, "the list of earlier work did not settle")
 	b.run("open the series from the list", eval(`document.body.dataset.result = ""`),
-		chromedp.Click(chromedp.CSS(fmt.Sprintf(`#work-list .work-item[data-id="%s"] .work-acts button`, full))))
+		b.click(fmt.Sprintf(`#work-list .work-item[data-id="%s"] .work-acts button`, full)))
 	b.waitResult()
 	b.wait(`/Coupon A7 tension/.test(document.getElementById('series-title').textContent)`, "the series did not open from the list")
 	checkMapDrawn(b)
 
 	item := fmt.Sprintf(`#work-list .work-item[data-id="%s"]`, resumed)
 	b.wait(shelfSettled, "the list of earlier work did not settle")
-	b.run("rename by keyboard", chromedp.Click(chromedp.CSS(item+` .work-acts button:nth-child(2)`)),
+	b.run("rename by keyboard", b.click(item+` .work-acts button:nth-child(2)`),
 		eval(fmt.Sprintf(`document.querySelector('%s .rename input').value = ''`, item)),
 		chromedp.SendKeys(chromedp.CSS(item+" .rename input"), "Coupon A7, second pull"),
 		chromedp.KeyEvent("\r"))
@@ -594,7 +594,7 @@ func checkShelf(b *browser, base, aid, full, resumed string) {
 	if sr.Name != "Coupon A7, second pull" {
 		t.Errorf("server has the name %q after renaming", sr.Name)
 	}
-	b.run("delete, then confirm", chromedp.Click(chromedp.CSS(item+` .work-acts button:nth-child(3)`)), chromedp.Click(chromedp.CSS(item+` .work-acts button:nth-child(3)`)))
+	b.run("delete, then confirm", b.click(item+` .work-acts button:nth-child(3)`), b.click(item+` .work-acts button:nth-child(3)`))
 	b.wait(fmt.Sprintf(`!document.querySelector('%s')`, item), "the deleted item stays in the list")
 	resp, err := http.Get(base + "/v1/series/" + resumed)
 	if err != nil {
