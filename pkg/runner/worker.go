@@ -96,6 +96,7 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 	s.mu.Lock()
 	s.running[id] = cancel
 	s.mu.Unlock()
+	go s.watchCancel(jctx, id, cancel)
 	s.metrics.setBusy(1)
 	if j.Kind == jobs.Frame {
 		s.metrics.inFlight(j.Series, 1)
@@ -433,8 +434,32 @@ func (s *Runner) storeResults(ctx context.Context, id string, res *Result) ([]st
 	return names, nil
 }
 
+// watchCancel cancels the job's context (cause errCanceled) once its
+// record asks for it (CancelRequested), until ctx ends. Cancel stops a job
+// that this runner runs directly; the record reaches the worker when the
+// cancel was answered by another runner on the same backend (another
+// node of a cluster), or by this one between the job's start and its
+// entry in s.running. The watch's first record is the record as it is
+// now, so a request made before the watch began is seen too.
+func (s *Runner) watchCancel(ctx context.Context, id string, cancel context.CancelCauseFunc) {
+	ch, err := s.store.Watch(ctx, id)
+	if err != nil {
+		if ctx.Err() == nil {
+			s.log.Warn("watch a running job for cancel requests", "job", id, "error", err)
+		}
+		return
+	}
+	for j := range ch {
+		if j.CancelRequested && j.State == jobs.Running {
+			cancel(errCanceled)
+			return
+		}
+	}
+}
+
 // Cancel cancels a queued job at once, or asks the worker running it to
-// stop. Finished jobs are left as they are.
+// stop (directly when this runner runs it, through the job's record
+// otherwise, see watchCancel). Finished jobs are left as they are.
 func (s *Runner) Cancel(ctx context.Context, id string) (*jobs.Job, error) {
 	now := time.Now().UTC()
 	j, err := s.store.UpdateJob(ctx, id, func(j *jobs.Job) error {
