@@ -707,7 +707,9 @@ func startHoldingServer(t *testing.T) *holdServer {
 func checkColourMaps(b *browser) {
 	t := b.t
 	t.Helper()
-	tables, err := chromedp.Run(b.ctx, chromedp.Evaluate[map[string][]int](
+	ctx, cancel := b.bounded()
+	defer cancel()
+	tables, err := chromedp.Run(ctx, chromedp.Evaluate[map[string][]int](
 		`import('./js/colormap.js').then(m => Object.fromEntries(m.names.map(n => [n, Array.from({length: 256}, (_, i) => m.rgb(n, i / 255)).flat()])))`,
 		chromedp.EvalAwaitPromise))
 	if err != nil {
@@ -726,7 +728,9 @@ for name, flat in tables.items():
 json.dump(out, sys.stdout)
 `
 	in, _ := json.Marshal(tables)
-	cmd := exec.Command("/usr/bin/python3", "-c", script)
+	pctx, pcancel := context.WithTimeout(context.Background(), waitBound)
+	defer pcancel()
+	cmd := exec.CommandContext(pctx, "/usr/bin/python3", "-c", script)
 	cmd.Stdin = bytes.NewReader(in)
 	raw, err := cmd.Output()
 	if err != nil {
@@ -821,7 +825,9 @@ sx = half((r[c - 1, c - 1:] + r[c - 1, c - 1::-1]) / 2)
 sy = half((r[c - 1:, c - 1] + r[c - 1::-1, c - 1]) / 2)
 print((sx + sy) / 2)
 `
-	out, err := exec.Command("/usr/bin/python3", "-c", script, path).CombinedOutput()
+	pctx, pcancel := context.WithTimeout(context.Background(), waitBound)
+	defer pcancel()
+	out, err := exec.CommandContext(pctx, "/usr/bin/python3", "-c", script, path).CombinedOutput()
 	if err != nil {
 		t.Fatalf("SciPy reference for the speckle size (needs Debian's python3-scipy and python3-opencv): %v\n%s", err, out)
 	}
@@ -1425,10 +1431,8 @@ func (w *pageWatch) unused() []allowance {
 }
 
 // testDeadline is a little before the test binary's -timeout would stop
-// the test (20 minutes from now when there is none). Waits are for events
-// in the page, never for a time: this bound only turns a hang into a
-// failure with a message, and is never reached because the machine is
-// slow.
+// the test (20 minutes from now when there is none): no wait goes beyond
+// it, and each is bounded by waitBound as well.
 func testDeadline(t *testing.T) time.Time {
 	if d, ok := t.Deadline(); ok {
 		return d.Add(-time.Until(d) / 20)
@@ -1474,7 +1478,11 @@ func startServer(t *testing.T) string {
 		}
 	})
 	base := "http://" + addr
-	end, cancel := context.WithDeadline(context.Background(), testDeadline(t))
+	until := time.Now().Add(waitBound)
+	if d := testDeadline(t); d.Before(until) {
+		until = d
+	}
+	end, cancel := context.WithDeadline(context.Background(), until)
 	defer cancel()
 	for {
 		select {
@@ -1492,7 +1500,7 @@ func startServer(t *testing.T) string {
 		}
 		select {
 		case <-end.Done():
-			t.Fatalf("mottle serve not ready at %s at the end of the test's time: %v\n%s", base, err, logs.String())
+			t.Fatalf("mottle serve not ready at %s after %v: %v\n%s", base, waitBound, err, logs.String())
 		case <-time.After(100 * time.Millisecond):
 		}
 	}
@@ -1543,7 +1551,9 @@ func checkLargePreview(b *browser) {
 	}
 	js := fmt.Sprintf(`fetch("data:image/png;base64,%s").then(r => r.blob()).then(createImageBitmap).then(bm => [bm.width, bm.height])`,
 		base64.StdEncoding.EncodeToString(png))
-	got, err := chromedp.Run(b.ctx, chromedp.Evaluate[[]int](js, chromedp.EvalAwaitPromise))
+	ctx, cancel := b.bounded()
+	defer cancel()
+	got, err := chromedp.Run(ctx, chromedp.Evaluate[[]int](js, chromedp.EvalAwaitPromise))
 	if err != nil {
 		t.Fatalf("the browser does not decode the preview: %v", err)
 	}

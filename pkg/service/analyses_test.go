@@ -224,7 +224,7 @@ func TestConcurrentClients(t *testing.T) {
 						// Back off; the queue drains as jobs finish.
 						select {
 						case <-ctx.Done():
-							errs <- fmt.Errorf("client %d: still answered 429 at the end of the test's time", c)
+							errs <- fmt.Errorf("client %d: still answered 429 when the wait ended (waitBound)", c)
 							return
 						case <-time.After(50 * time.Millisecond):
 						}

@@ -283,16 +283,24 @@ func (ts *testServer) waitDone(t testing.TB, path string) jobDoc {
 	return j
 }
 
-// testCtx returns a context that ends a little before the test binary's
-// -timeout would stop it (after 10 minutes when there is none). Tests
-// wait for events, never for a time: this bound only turns a hang into a
-// failure with a message, and is never reached because the machine is
-// slow.
+// waitBound bounds each wait of a test (testCtx). Tests wait for events,
+// never for a time: the slowest wait here (a stereo series or 64 analyses
+// of TestConcurrentClients with the rest of the suite loading both cores)
+// takes well under a minute, and the bound only turns a hang into a
+// failure with a message long before the package's time limit, which
+// would otherwise take most of CI's time.
+const waitBound = 3 * time.Minute
+
+// testCtx returns a context for one wait (or one request) that ends after
+// waitBound, or a little before the test binary's -timeout would stop the
+// test if that is sooner.
 func testCtx(t testing.TB) context.Context {
-	end := time.Now().Add(10 * time.Minute)
+	end := time.Now().Add(waitBound)
 	if dt, ok := t.(interface{ Deadline() (time.Time, bool) }); ok {
 		if d, ok := dt.Deadline(); ok {
-			end = d.Add(-time.Until(d) / 20) // leave time to report
+			if e := d.Add(-time.Until(d) / 20); e.Before(end) { // leave time to report
+				end = e
+			}
 		}
 	}
 	ctx, cancel := context.WithDeadline(context.Background(), end)
@@ -300,15 +308,15 @@ func testCtx(t testing.TB) context.Context {
 	return ctx
 }
 
-// poll checks cond every 20 ms until it holds; it fails the test only
-// when testCtx ends.
+// poll checks cond every 20 ms until it holds; it fails the test when
+// testCtx ends (waitBound).
 func poll(t testing.TB, what string, cond func() bool) {
 	t.Helper()
-	ctx := testCtx(t)
+	ctx, t0 := testCtx(t), time.Now()
 	for !cond() {
 		select {
 		case <-ctx.Done():
-			t.Fatalf("gave up waiting for %s at the end of the test's time", what)
+			t.Fatalf("gave up waiting for %s after %v", what, time.Since(t0).Round(time.Second))
 		case <-time.After(20 * time.Millisecond):
 		}
 	}

@@ -88,7 +88,19 @@ func TestLiveRoute(t *testing.T) {
 		answers = append(answers, v)
 	}
 	for n := range answers {
-		v := <-events
+		var v liveDoc
+		select {
+		case ev, ok := <-events:
+			if !ok {
+				t.Fatalf("the live event stream ended after %d of %d events", n, len(answers))
+			}
+			v = ev
+		case <-testCtx(t).Done():
+			t.Fatalf("the live event stream sent %d of %d events", n, len(answers))
+		}
+		if len(v.Readings) == 0 || v.Readings[0].Value == nil {
+			t.Fatalf("event %d has no reading: %+v", n, v)
+		}
 		if v.Index != n+1 || *v.Readings[0].Value != *answers[n].Readings[0].Value {
 			t.Errorf("event %d: index %d value %v, want frame %d's %v", n, v.Index, v.Readings[0].Value, n+1, *answers[n].Readings[0].Value)
 		}
