@@ -1231,9 +1231,30 @@ func (b *browser) drag(x0, y0, x1, y1 float64) {
 
 // shot saves a screenshot of the element sel (the whole page when sel is
 // empty) into the artefacts directory.
+//
+// A capture lays the page out for a view of the whole page (chromedp
+// captures beyond the viewport, and 100vh is then the page's height), and
+// the page returns to its own layout up to a second later, by which time
+// the next step may have read where an element is: the cancel button was
+// 43 px from where it stays for about a second after the progress
+// screenshot of checkCancel. So shot waits (5 s at most) until the page's
+// size and scroll position are those from before the capture.
 func (b *browser) shot(name, sel string) {
 	ctx, cancel := context.WithTimeout(b.ctx, 15*time.Second)
 	defer cancel()
+	const layout = `[document.documentElement.scrollWidth, document.documentElement.scrollHeight, Math.round(scrollX), Math.round(scrollY), innerWidth, innerHeight].join()`
+	before, _ := chromedp.Run(ctx, chromedp.Evaluate[string](layout))
+	defer func() {
+		if before == "" {
+			return
+		}
+		wctx, wcancel := context.WithTimeout(b.ctx, 6*time.Second)
+		defer wcancel()
+		if _, err := chromedp.Run(wctx, chromedp.Poll[bool](fmt.Sprintf(`%s === %q`, layout, before),
+			chromedp.WithPollingInterval(20*time.Millisecond), chromedp.WithPollingTimeout(5*time.Second))); err != nil {
+			b.t.Logf("screenshot %s: the page did not return to its layout (%s) within 5 s: %v", name, before, err)
+		}
+	}()
 	var buf []byte
 	var err error
 	if sel == "" {
