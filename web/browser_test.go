@@ -921,9 +921,9 @@ const clickLog = `if (!window.mottleClicks) {
 // more often the more loaded the machine. So click waits until the
 // element is shown and stays at the same place for 100 ms, clicks its
 // centre, and checks in the page's click log (clickLog) that the click
-// reached the element; a click that did not (it landed beside, or the
-// element was disabled) is logged and made again, up to 5 times. A click
-// that opens a new document counts as reached.
+// reached the element (or its label); a click that did not (it landed
+// beside, or the element was disabled) is logged and made again, up to 5
+// times. A click that opens a new document counts as reached.
 func (b *browser) click(sel string) chromedp.Action[chromedp.Void] {
 	return chromedp.Func(func(ctx context.Context, t *chromedp.Target) error {
 		if _, err := chromedp.Evaluate[bool](clickLog+`; true`)(ctx, t); err != nil {
@@ -956,7 +956,13 @@ func (b *browser) click(sel string) chromedp.Action[chromedp.Void] {
 			if _, err := chromedp.MouseClickXY(at[0], at[1])(ctx, t); err != nil {
 				return err
 			}
-			hit, err := chromedp.Evaluate[string](`!window.mottleClickOn ? "new document" : mottleLastClick && mottleClickOn.contains(mottleLastClick) ? "" : mottleClicks.length ? "missed; clicks: " + mottleClicks.join("; ") : "missed; no click reached the page"`)(ctx, t)
+			// A click on the element's label reaches it too.
+			hit, err := chromedp.Evaluate[string](`(() => {
+				if (!window.mottleClickOn) return "new document";
+				const c = mottleLastClick, l = c && c.closest && c.closest("label");
+				if (c && (mottleClickOn.contains(c) || (l && l.control === mottleClickOn))) return "";
+				return mottleClicks.length ? "missed; clicks: " + mottleClicks.join("; ") : "missed; no click reached the page";
+			})()`)(ctx, t)
 			if err != nil || hit == "" || hit == "new document" {
 				return nil // an evaluation fails too when the click navigates
 			}
@@ -1232,35 +1238,35 @@ func (b *browser) drag(x0, y0, x1, y1 float64) {
 // shot saves a screenshot of the element sel (the whole page when sel is
 // empty) into the artefacts directory.
 //
-// A capture lays the page out for a view of the whole page (chromedp
-// captures beyond the viewport, and 100vh is then the page's height), and
-// the page returns to its own layout up to a second later, by which time
-// the next step may have read where an element is: the cancel button was
-// 43 px from where it stays for about a second after the progress
-// screenshot of checkCancel. So shot waits (5 s at most) until the page's
-// size and scroll position are those from before the capture.
+// chromedp's screenshots capture beyond the viewport: the page is laid out
+// for a view of the whole page (100vh is then the page's height) and
+// returns to its own layout up to a second later, by which time the next
+// step may have read where an element is. Measured in the holding server's
+// page: after the progress screenshot of checkCancel the run and cancel
+// buttons sat 43 px higher for 0.8–1.1 s, then moved back; a cancel click
+// read in that state and pressed after the page moved back misses the
+// button. So an element's screenshot is taken within the viewport (the
+// element scrolled into view, the part in the viewport captured), which
+// leaves the layout alone; a screenshot of the whole page still captures
+// beyond the viewport, and waits (2 s at most) until the page's size and
+// scroll position are those from before.
 func (b *browser) shot(name, sel string) {
 	ctx, cancel := context.WithTimeout(b.ctx, 15*time.Second)
 	defer cancel()
-	const layout = `[document.documentElement.scrollWidth, document.documentElement.scrollHeight, Math.round(scrollX), Math.round(scrollY), innerWidth, innerHeight].join()`
-	before, _ := chromedp.Run(ctx, chromedp.Evaluate[string](layout))
-	defer func() {
-		if before == "" {
-			return
-		}
-		wctx, wcancel := context.WithTimeout(b.ctx, 6*time.Second)
-		defer wcancel()
-		if _, err := chromedp.Run(wctx, chromedp.Poll[bool](fmt.Sprintf(`%s === %q`, layout, before),
-			chromedp.WithPollingInterval(20*time.Millisecond), chromedp.WithPollingTimeout(5*time.Second))); err != nil {
-			b.t.Logf("screenshot %s: the page did not return to its layout (%s) within 5 s: %v", name, before, err)
-		}
-	}()
 	var buf []byte
 	var err error
 	if sel == "" {
+		const layout = `[document.documentElement.scrollWidth, document.documentElement.scrollHeight, Math.round(scrollX), Math.round(scrollY), innerWidth, innerHeight].join()`
+		before, _ := chromedp.Run(ctx, chromedp.Evaluate[string](layout))
 		buf, err = chromedp.Run(ctx, chromedp.FullScreenshot(100))
+		if before != "" {
+			wctx, wcancel := context.WithTimeout(b.ctx, 3*time.Second)
+			_, _ = chromedp.Run(wctx, chromedp.Poll[bool](fmt.Sprintf(`%s === %q`, layout, before),
+				chromedp.WithPollingInterval(20*time.Millisecond), chromedp.WithPollingTimeout(2*time.Second)))
+			wcancel()
+		}
 	} else {
-		buf, err = chromedp.Run(ctx, chromedp.Screenshot(chromedp.CSS(sel)))
+		buf, err = chromedp.Run(ctx, viewportShot(sel))
 	}
 	if err != nil {
 		b.t.Logf("screenshot %s: %v", name, err)
@@ -1270,6 +1276,37 @@ func (b *browser) shot(name, sel string) {
 	p := filepath.Join(b.art, fmt.Sprintf("%02d-%s", b.n, name))
 	if err := os.WriteFile(p, buf, 0o644); err != nil {
 		b.t.Logf("screenshot %s: %v", name, err)
+	}
+}
+
+// viewportShot captures the part in the viewport of the first element
+// that matches sel, scrolled into view if it is not wholly in it, without
+// capturing beyond the viewport (see shot).
+func viewportShot(sel string) chromedp.Action[[]byte] {
+	return func(ctx context.Context, t *chromedp.Target) ([]byte, error) {
+		box, err := chromedp.Evaluate[[]float64](fmt.Sprintf(`(() => {
+			const e = document.querySelector(%q);
+			if (!e) return [];
+			let r = e.getBoundingClientRect();
+			if (r.top < 0 || r.bottom > innerHeight || r.left < 0 || r.right > innerWidth) { e.scrollIntoView({block: 'nearest', inline: 'nearest'}); r = e.getBoundingClientRect(); }
+			const x0 = Math.max(0, Math.floor(r.left)), y0 = Math.max(0, Math.floor(r.top));
+			const x1 = Math.min(innerWidth, Math.ceil(r.right)), y1 = Math.min(innerHeight, Math.ceil(r.bottom));
+			return [x0 + scrollX, y0 + scrollY, x1 - x0, y1 - y0];
+		})()`, sel))(ctx, t)
+		if err != nil {
+			return nil, err
+		}
+		if len(box) != 4 || box[2] <= 0 || box[3] <= 0 {
+			return nil, fmt.Errorf("no element %s in the viewport", sel)
+		}
+		res, err := cdp.Call(ctx, t, page.CaptureScreenshot, page.CaptureScreenshotParams{
+			Format: page.CaptureScreenshotFormatPng,
+			Clip:   &page.Viewport{X: box[0], Y: box[1], Width: box[2], Height: box[3], Scale: 1},
+		})
+		if err != nil {
+			return nil, err
+		}
+		return res.Data, nil
 	}
 }
 
