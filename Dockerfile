@@ -7,7 +7,7 @@ WORKDIR /src
 COPY go.mod go.sum ./
 RUN go mod download
 COPY . .
-# x86-64-v3 (AVX2, FMA): the correlator is about 1.3x faster in this build,
+# x86-64-v3 (AVX2, FMA): the correlator is 1.1-1.3x faster in this build,
 # and the binary refuses to start on a CPU without them; for such a host,
 #   docker build --build-arg GOAMD64=v1 -t mottle .
 ARG GOAMD64=v3
