@@ -64,12 +64,7 @@ func (b *Build) FilterRows(y0, y1 int) {
 			top = max(top, math.Float32bits(v)&0x7fffffff)
 		}
 		if top >= 0x7f800000 {
-			for x, v := range src {
-				if f := float64(v); math.IsNaN(f) || math.IsInf(f, 0) {
-					b.bad[y] = int32(x + 1)
-					break
-				}
-			}
+			b.bad[y] = firstNonFinite(src)
 		}
 	}
 	// Four rows at a time: their recursions run side by side.
@@ -133,10 +128,25 @@ func filterRows4(c []float64, stride, n int, poles []float64) {
 
 // Err reports the first non-finite sample, in row-major order, once
 // FilterRows has run over every row.
-func (b *Build) Err() error {
-	for y, x := range b.bad {
+func (b *Build) Err() error { return badSample(b.bad, b.g) }
+
+// firstNonFinite returns 1 + the index of the first NaN or ±Inf in row,
+// or 0 if there is none: the per-row record of Build and Smoothing.
+func firstNonFinite(row []float32) int32 {
+	for x, v := range row {
+		if f := float64(v); math.IsNaN(f) || math.IsInf(f, 0) {
+			return int32(x + 1)
+		}
+	}
+	return 0
+}
+
+// badSample reports the first non-finite sample of g, in row-major order,
+// from bad, the per-row records of firstNonFinite.
+func badSample(bad []int32, g *imageio.Gray) error {
+	for y, x := range bad {
 		if x != 0 {
-			return fmt.Errorf("spline: pixel (%d, %d) is %v: want finite grey levels", x-1, y, b.g.Pix[y*b.g.Stride+int(x)-1])
+			return fmt.Errorf("spline: pixel (%d, %d) is %v: want finite grey levels", x-1, y, g.Pix[y*g.Stride+int(x)-1])
 		}
 	}
 	return nil
@@ -171,23 +181,6 @@ const (
 	RowChunk   = 32
 	BlockChunk = 2
 )
-
-// check rejects a nil, empty or inconsistent image and one with a
-// non-finite sample.
-func check(g *imageio.Gray) error {
-	if err := checkShape(g); err != nil {
-		return err
-	}
-	for y := 0; y < g.H; y++ {
-		for x, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
-			f := float64(v)
-			if math.IsNaN(f) || math.IsInf(f, 0) {
-				return fmt.Errorf("spline: pixel (%d, %d) is %v: want finite grey levels", x, y, v)
-			}
-		}
-	}
-	return nil
-}
 
 // checkShape rejects a nil, empty or inconsistent image.
 func checkShape(g *imageio.Gray) error {

@@ -72,12 +72,7 @@ func (sm *Smoothing) Rows(y0, y1 int) {
 			top = max(top, math.Float32bits(v)&0x7fffffff)
 		}
 		if top >= 0x7f800000 {
-			for x, v := range src {
-				if f := float64(v); math.IsNaN(f) || math.IsInf(f, 0) {
-					sm.bad[y] = int32(x + 1)
-					break
-				}
-			}
+			sm.bad[y] = firstNonFinite(src)
 		}
 		if k == nil {
 			copy(sm.out.Pix[y*w:(y+1)*w], src)
@@ -102,14 +97,7 @@ func (sm *Smoothing) Rows(y0, y1 int) {
 
 // Err reports the first non-finite sample, in row-major order, once Rows
 // has run over every row.
-func (sm *Smoothing) Err() error {
-	for y, x := range sm.bad {
-		if x != 0 {
-			return fmt.Errorf("spline: pixel (%d, %d) is %v: want finite grey levels", x-1, y, sm.g.Pix[y*sm.g.Stride+int(x)-1])
-		}
-	}
-	return nil
-}
+func (sm *Smoothing) Err() error { return badSample(sm.bad, sm.g) }
 
 // Columns convolves the rows y0 ≤ y < y1 of the result along y, once Rows
 // has run over every row.
