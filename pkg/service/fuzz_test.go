@@ -98,7 +98,8 @@ func FuzzParams(f *testing.F) {
 // of the standard library and golang.org/x/image (16 bits for the 16-bit
 // colour models, 8 for the others), and grey levels within that depth;
 // the service accepts the image exactly when it decodes with the size of
-// the 32×32 reference.
+// the 32×32 reference (a PNG frame of a series: when imageio.CheckPNG
+// passes it with that size, which it does for every PNG that decodes).
 func FuzzImage(f *testing.F) {
 	ref, def := pair(f, 32, 32, 1, 0, 22)
 	f.Add(def)
@@ -168,8 +169,20 @@ func FuzzImage(f *testing.F) {
 		rec = httptest.NewRecorder()
 		ts.srv.Handler().ServeHTTP(rec, req)
 		checkAnswer(t, rec)
-		if rec.Code == http.StatusAccepted && (err != nil || g.W != 32 || g.H != 32) {
-			t.Fatalf("frame: accepted an image that decodes with error %v: %s", err, rec.Body)
+		// A PNG frame is checked without inflating it (imageio.CheckPNG),
+		// any other frame decoded: the frame is taken only when that check
+		// passes with the reference's size, and is not refused when it
+		// does; every PNG that decodes passes the check.
+		fits := err == nil && g.W == 32 && g.H == 32
+		if imageio.IsPNG(img) {
+			h, cerr := imageio.CheckPNG(img, lim)
+			if fits && cerr != nil {
+				t.Fatalf("frame: CheckPNG refuses a PNG that decodes: %v", cerr)
+			}
+			fits = cerr == nil && h.W == 32 && h.H == 32
+		}
+		if rec.Code == http.StatusAccepted && !fits || fits && rec.Code/100 == 4 && rec.Code != http.StatusTooManyRequests {
+			t.Fatalf("frame: answer %d for an image that decodes with error %v: %s", rec.Code, err, rec.Body)
 		}
 	})
 }

@@ -229,18 +229,9 @@ func stretched(g *imageio.Gray, lo, hi float64) *imageio.Gray {
 // image header before decoding, the pixel limit. what names the body in
 // the messages ("the frame", "the image"). Errors are problems.
 func (s *Server) readRawImage(w http.ResponseWriter, r *http.Request, what string) ([]byte, *imageio.Gray, error) {
-	ct := r.Header.Get("Content-Type")
-	if mt, _, _ := mime.ParseMediaType(ct); ct == "" || strings.HasPrefix(mt, "multipart/") {
-		return nil, nil, problem(http.StatusUnsupportedMediaType, "unsupported-media-type", "Unsupported media type",
-			fmt.Sprintf("%s has Content-Type %q; send the image file as the raw body with its type, e.g. curl --data-binary @frame.tif -H 'Content-Type: image/tiff'", what, ct),
-			FieldProblem{"Content-Type", "use image/png, image/tiff, image/jpeg, image/bmp or application/octet-stream"})
-	}
-	if err := checkImageType("body", ct); err != nil {
-		return nil, nil, err
-	}
-	body, err := readAllLimited(w, r, s.cfg.MaxBodyBytes)
+	body, err := s.readRawBody(w, r, what)
 	if err != nil {
-		return nil, nil, asProblem(bodyErr(err, "body"), "body")
+		return nil, nil, err
 	}
 	if err := s.admitDecode(r, map[string][]byte{"body": body}); err != nil {
 		return nil, nil, s.memoryErr(w, err)
@@ -250,6 +241,25 @@ func (s *Server) readRawImage(w http.ResponseWriter, r *http.Request, what strin
 		return nil, nil, err
 	}
 	return body, g, nil
+}
+
+// readRawBody is readRawImage without the decode: the Content-Type and
+// the body limit.
+func (s *Server) readRawBody(w http.ResponseWriter, r *http.Request, what string) ([]byte, error) {
+	ct := r.Header.Get("Content-Type")
+	if mt, _, _ := mime.ParseMediaType(ct); ct == "" || strings.HasPrefix(mt, "multipart/") {
+		return nil, problem(http.StatusUnsupportedMediaType, "unsupported-media-type", "Unsupported media type",
+			fmt.Sprintf("%s has Content-Type %q; send the image file as the raw body with its type, e.g. curl --data-binary @frame.tif -H 'Content-Type: image/tiff'", what, ct),
+			FieldProblem{"Content-Type", "use image/png, image/tiff, image/jpeg, image/bmp or application/octet-stream"})
+	}
+	if err := checkImageType("body", ct); err != nil {
+		return nil, err
+	}
+	body, err := readAllLimited(w, r, s.cfg.MaxBodyBytes)
+	if err != nil {
+		return nil, asProblem(bodyErr(err, "body"), "body")
+	}
+	return body, nil
 }
 
 // readAllLimited reads the whole request body, at most limit bytes.
