@@ -278,8 +278,8 @@ func (t *Tracker) Add(ctx context.Context, img *imageio.Gray, meta FrameMeta) (*
 	t.st.Points = pts
 	t.st.Switched = switched
 	t.st.History = append(t.st.History, snap)
-	if len(t.st.History) > 3 {
-		t.st.History = t.st.History[len(t.st.History)-3:]
+	if len(t.st.History) > keptHistory {
+		t.st.History = t.st.History[len(t.st.History)-keptHistory:]
 	}
 	if fr.Summary.Static {
 		t.st.Static = append(t.st.Static, staticStats(fr.Quantities))

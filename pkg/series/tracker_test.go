@@ -3,7 +3,9 @@ package series
 import (
 	"context"
 	"encoding/json"
+	"fmt"
 	"math"
+	"strings"
 	"testing"
 
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -268,6 +270,71 @@ func TestStateRoundTrip(t *testing.T) {
 	}
 	if a.Rows[4].Mode != ModeIncremental || a.Rows[1].Mode != ModeDirect {
 		t.Errorf("modes %v", a.Modes())
+	}
+}
+
+// TestHistoryKept: a state keeps the snapshots of the last two frames
+// (keptHistory), and a series continued from a state with three, as
+// earlier versions wrote it, gives the same frames as one continued from
+// the same state with two and as one run straight through: the velocity
+// and acceleration (the quadratic through the last three frames' times)
+// and the incremental steps' guesses read only the last two.
+func TestHistoryKept(t *testing.T) {
+	var ms []motion
+	for n := 1; n <= 6; n++ {
+		s := float64(n)
+		z := 0.99
+		if n >= 3 {
+			z = 0.1 // incremental from frame 3 on
+		}
+		ms = append(ms, motion{l1: 1 + 0.02*s*s, l2: 1 - 0.004*s, s: 0.3 * s * s, directZ: z})
+	}
+	times := []float64{0, 0.5, 1.2, 1.5, 2.4, 2.6, 3.5}
+	run := func(stopAt, history int) []string {
+		f, imgs := newFake(ms)
+		tr, err := newTracker(f.ref, FrameMeta{Time: &times[0]}, testParams(), f)
+		if err != nil {
+			t.Fatal(err)
+		}
+		var snaps []Snapshot // every frame's snapshot, the reference's first
+		snaps = append(snaps, tr.State().History...)
+		var out []string
+		for n, im := range imgs {
+			if n == stopAt {
+				st := tr.State()
+				if len(st.History) != keptHistory {
+					t.Fatalf("after frame %d the state holds %d snapshots, want %d", n, len(st.History), keptHistory)
+				}
+				if history == 3 {
+					st.History = append([]Snapshot{snaps[len(snaps)-3]}, st.History...)
+				}
+				if tr, err = restore(f.ref, imgs[n-1], st, f); err != nil {
+					t.Fatal(err)
+				}
+			}
+			fr, err := tr.Add(context.Background(), im, FrameMeta{Time: &times[n+1]})
+			if err != nil {
+				t.Fatal(err)
+			}
+			h := tr.State().History
+			snaps = append(snaps, h[len(h)-1])
+			out = append(out, fmt.Sprint(fr.Quantities)) // shortest exact form, keys sorted
+
+		}
+		c, _ := json.Marshal(tr.Curve())
+		return append(out, string(c))
+	}
+	straight := run(-1, 0)
+	for _, stop := range []int{3, 4} {
+		two, three := run(stop, 2), run(stop, 3)
+		for k := range straight {
+			if two[k] != straight[k] || three[k] != straight[k] {
+				t.Errorf("stopped at %d, item %d (the last is the curve) differs: straight, from 2 snapshots, from 3:\n%s\n%s\n%s", stop, k, straight[k], two[k], three[k])
+			}
+		}
+	}
+	if !strings.Contains(straight[4], "acc_u") {
+		t.Error("frame 5 has no acceleration: the test does not reach the three-sample derivative")
 	}
 }
 
