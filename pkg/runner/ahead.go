@@ -39,28 +39,26 @@ func SolveKey(seriesID string, n int) string {
 	return jobs.SeriesKey(seriesID, fmt.Sprintf("solved/%06d.bin", n))
 }
 
-// solveAhead solves job id ahead of its turn when the rules above allow
-// it, and reports whether it did. waitPrevious tries it at each look at
-// the previous frame, so that a frame held beyond the bound is solved as
-// soon as the bound lets it, in its place in the queue.
-func (s *Runner) solveAhead(ctx context.Context, id string, d jobs.Delivery) bool {
+// solveAhead solves job j (its record as just read) ahead of its turn
+// when the rules above allow it, and reports whether it did.
+// waitPrevious tries it at each look at the previous frame that finds the
+// frame's turn not come yet, so that a frame held beyond the bound is
+// solved as soon as the bound lets it, in its place in the queue.
+func (s *Runner) solveAhead(ctx context.Context, j *jobs.Job, d jobs.Delivery) bool {
 	fs, ok := s.cfg.Analyzer.(FrameSolver)
 	if !ok {
 		return false
 	}
 	bg := context.Background()
-	j, err := s.store.Job(bg, id)
-	if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
+	if j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
 		return false
 	}
-	sr, err := s.store.Series(bg, j.Series)
+	id := j.ID
+	sr, err := s.seriesOf(bg, j)
 	if err != nil || sr.MaxInFlight <= 1 || j.FrameIndex > len(sr.Frames) || sr.Kind == jobs.Stereo {
 		return false
 	}
 	n := j.FrameIndex
-	if s.frameReady(bg, id) == gateOpen {
-		return false // its turn: the normal path computes it
-	}
 	if n >= sr.MaxInFlight {
 		back, err := s.store.Job(bg, sr.Frames[n-sr.MaxInFlight])
 		if err != nil || !back.State.Terminal() {
@@ -182,9 +180,9 @@ func (s *Runner) stepRatio(ctx context.Context, sr *jobs.Series, j *jobs.Job, fr
 
 // solveAheadHeld is solveAhead for a frame held since *held: the time a
 // solve takes does not count as held (Stats.HeldSeconds).
-func (s *Runner) solveAheadHeld(ctx context.Context, id string, d jobs.Delivery, held *time.Time) bool {
+func (s *Runner) solveAheadHeld(ctx context.Context, j *jobs.Job, d jobs.Delivery, held *time.Time) bool {
 	start := time.Now()
-	ok := s.solveAhead(ctx, id, d)
+	ok := s.solveAhead(ctx, j, d)
 	*held = held.Add(time.Since(start))
 	return ok
 }

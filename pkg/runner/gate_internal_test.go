@@ -205,3 +205,147 @@ func TestWakes(t *testing.T) {
 		}
 	}
 }
+
+// countingStore counts the reads of single records.
+type countingStore struct {
+	jobs.Store
+	series, job atomic.Int64
+}
+
+func (c *countingStore) Series(ctx context.Context, id string) (*jobs.Series, error) {
+	c.series.Add(1)
+	return c.Store.Series(ctx, id)
+}
+
+func (c *countingStore) Job(ctx context.Context, id string) (*jobs.Job, error) {
+	c.job.Add(1)
+	return c.Store.Job(ctx, id)
+}
+
+// TestSeriesOf checks the series records the runner keeps (seriesOf): a
+// record holding the frame is used again without a read; one that does
+// not (a frame reserved after it was read, or an index given back and
+// reserved again by another frame) is read anew.
+func TestSeriesOf(t *testing.T) {
+	be, err := embedded.Open(t.TempDir(), 8)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer be.Close()
+	s, err := New(Config{Backend: be, Analyzer: Pipeline{}, Workers: 1, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	cs := &countingStore{Store: be.Store}
+	s.store = cs
+	ctx := context.Background()
+	now := time.Now().UTC()
+	a, x, y := jobs.NewID(), jobs.NewID(), jobs.NewID()
+	ser := &jobs.Series{ID: jobs.NewID(), Params: []byte(`{}`), Width: 8, Height: 8, Created: now, Updated: now, Frames: []string{a}}
+	if err := be.Store.CreateSeries(ctx, ser); err != nil {
+		t.Fatal(err)
+	}
+	frame := func(id string, n int) *jobs.Job {
+		return &jobs.Job{ID: id, Kind: jobs.Frame, Series: ser.ID, FrameIndex: n}
+	}
+	look := func(j *jobs.Job, reads int64, what string) {
+		t.Helper()
+		before := cs.series.Load()
+		sr, err := s.seriesOf(ctx, j)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if got := cs.series.Load() - before; got != reads {
+			t.Errorf("%s: %d reads of the record, want %d", what, got, reads)
+		}
+		if j.FrameIndex >= len(sr.Frames) || sr.Frames[j.FrameIndex] != j.ID {
+			t.Errorf("%s: the record has frames %v, not frame %d %s", what, sr.Frames, j.FrameIndex, j.ID)
+		}
+	}
+	reserve := func(id string) {
+		t.Helper()
+		if _, err := be.Store.UpdateSeries(ctx, ser.ID, func(sr *jobs.Series) error { sr.Frames = append(sr.Frames, id); return nil }); err != nil {
+			t.Fatal(err)
+		}
+	}
+	look(frame(a, 0), 1, "first look")
+	look(frame(a, 0), 0, "second look")
+	reserve(x)
+	look(frame(x, 1), 1, "a frame reserved after the record was read")
+	look(frame(x, 1), 0, "that frame again")
+	// x's index is given back (its job was not accepted) and y takes it.
+	if _, err := be.Store.UpdateSeries(ctx, ser.ID, func(sr *jobs.Series) error { sr.Frames = sr.Frames[:1]; return nil }); err != nil {
+		t.Fatal(err)
+	}
+	reserve(y)
+	look(frame(y, 1), 1, "another frame at an index given back")
+	look(frame(a, 0), 0, "an earlier frame")
+}
+
+// TestLastDone checks which frame a frame continues from: the last one
+// before it that succeeded, skipping failed, canceled and never-stored
+// frames, found by reading the records from the nearest (one read when
+// the frame before succeeded), and by the listing of the series beyond
+// lastDoneWalk frames, with the same answer.
+func TestLastDone(t *testing.T) {
+	be, err := embedded.Open(t.TempDir(), 8)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer be.Close()
+	s, err := New(Config{Backend: be, Analyzer: Pipeline{}, Workers: 1, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	cs := &countingStore{Store: be.Store}
+	s.store = cs
+	ctx := context.Background()
+	now := time.Now().UTC()
+	n := lastDoneWalk + 6
+	ids := make([]string, n)
+	for i := range ids {
+		ids[i] = jobs.NewID()
+	}
+	ser := &jobs.Series{ID: jobs.NewID(), Params: []byte(`{}`), Width: 8, Height: 8, Created: now, Updated: now, Frames: ids}
+	if err := be.Store.CreateSeries(ctx, ser); err != nil {
+		t.Fatal(err)
+	}
+	// Frames 0 and 1 succeeded, 2 failed, 3 was never stored, 4 canceled,
+	// 5 succeeded, then every frame failed up to the last, which asks.
+	states := map[int]jobs.State{0: jobs.Succeeded, 1: jobs.Succeeded, 2: jobs.Failed, 4: jobs.Canceled, 5: jobs.Succeeded}
+	for i, id := range ids {
+		st, ok := states[i]
+		if !ok {
+			st = jobs.Failed
+		}
+		if i == 3 {
+			continue
+		}
+		if i == n-1 {
+			st = jobs.Queued
+		}
+		if err := be.Store.CreateJob(ctx, &jobs.Job{ID: id, Kind: jobs.Frame, State: st, Series: ser.ID, FrameIndex: i, Created: now}); err != nil {
+			t.Fatal(err)
+		}
+	}
+	ask := func(i int) *jobs.Job { return &jobs.Job{ID: ids[i], Kind: jobs.Frame, Series: ser.ID, FrameIndex: i} }
+	for _, c := range []struct {
+		frame, want int // want −1: none
+		reads       int64
+	}{
+		{0, -1, 0}, {1, 0, 1}, {2, 1, 1}, {3, 1, 2}, {5, 1, 4}, {6, 5, 1}, {n - 1, 5, lastDoneWalk},
+	} {
+		before := cs.job.Load()
+		got, err := s.lastDone(ctx, ask(c.frame))
+		if err != nil {
+			t.Fatal(err)
+		}
+		reads := cs.job.Load() - before
+		switch {
+		case c.want < 0 && got != nil, c.want >= 0 && (got == nil || got.ID != ids[c.want]):
+			t.Errorf("frame %d continues from %+v, want frame %d", c.frame, got, c.want)
+		case reads != c.reads:
+			t.Errorf("frame %d: %d record reads, want %d", c.frame, reads, c.reads)
+		}
+	}
+}

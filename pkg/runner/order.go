@@ -4,6 +4,7 @@ import (
 	"context"
 	"errors"
 	"fmt"
+	"sync"
 	"time"
 
 	"github.com/mottledic/mottle/pkg/series"
@@ -28,8 +29,15 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 	defer func() { s.metrics.held(time.Since(held).Seconds()) }()
 	var looked time.Time // when yieldFrame last looked
 	for wait := 10 * time.Millisecond; ; wait = min(2*wait, framePoll) {
-		g := s.frameReady(context.Background(), id)
-		if g != gateOpen && !solved && s.solveAheadHeld(ctx, id, d, &held) {
+		// One look: the frame's own record (a cancel shows there), and
+		// through the gate its predecessor's; solving ahead and yielding
+		// use the same record rather than reading it again.
+		j, err := s.store.Job(context.Background(), id)
+		g := gateOpen // a record that cannot be read: the normal path deals with it
+		if err == nil {
+			g = s.gateOf(context.Background(), j)
+		}
+		if g != gateOpen && !solved && s.solveAheadHeld(ctx, j, d, &held) {
 			solved = true
 			start, beat, idle, wait = s.clock.Now(), s.clock.Now(), time.Time{}, 5*time.Millisecond
 			continue
@@ -37,7 +45,7 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 		now := s.clock.Now()
 		if g != gateOpen && !solved && now.Sub(looked) >= yieldLook {
 			looked = now
-			if s.yieldFrame(context.Background(), id) {
+			if s.yieldFrame(context.Background(), j) {
 				return false
 			}
 		}
@@ -85,7 +93,7 @@ func (s *Runner) framesDone(ctx context.Context, id string) <-chan struct{} {
 			return
 		}
 		bound := 1
-		if sr, err := s.store.Series(ctx, j.Series); err == nil {
+		if sr, err := s.seriesOf(ctx, j); err == nil {
 			bound = sr.MaxInFlight
 		}
 		w, err := s.store.Watch(ctx, j.Series)
@@ -119,7 +127,7 @@ func wakes(f *jobs.Job, n, bound int) bool {
 // worker to other work (yieldFrame).
 const yieldLook = 250 * time.Millisecond
 
-// yieldFrame reports whether job id, a frame held waiting, should be put
+// yieldFrame reports whether job j, a frame held waiting, should be put
 // back to let its worker serve other series (fair sharing, issue 21): it
 // cannot be computed now, not even solved ahead (frame n−bound of its
 // series has not finished, with bound its series' MaxInFlight, at least
@@ -127,16 +135,15 @@ const yieldLook = 250 * time.Millisecond
 // series that are still queued, so some other job is waiting. Put back,
 // it goes behind that job. A lone series never yields: its later frames
 // could not be computed either.
-func (s *Runner) yieldFrame(ctx context.Context, id string) bool {
+func (s *Runner) yieldFrame(ctx context.Context, j *jobs.Job) bool {
 	q := s.queue.Len()
 	if q == 0 {
 		return false
 	}
-	j, err := s.store.Job(ctx, id)
-	if err != nil || j.Kind != jobs.Frame || j.State != jobs.Queued {
+	if j.Kind != jobs.Frame || j.State != jobs.Queued {
 		return false
 	}
-	sr, err := s.store.Series(ctx, j.Series)
+	sr, err := s.seriesOf(ctx, j)
 	if err != nil || j.FrameIndex > len(sr.Frames) {
 		return false
 	}
@@ -181,10 +188,18 @@ const (
 // If it may not, it tells whether frame n−1 is running.
 func (s *Runner) frameReady(ctx context.Context, id string) gate {
 	j, err := s.store.Job(ctx, id)
-	if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
+	if err != nil {
 		return gateOpen // the normal path deals with it
 	}
-	sr, err := s.store.Series(ctx, j.Series)
+	return s.gateOf(ctx, j)
+}
+
+// gateOf is frameReady for the record j just read.
+func (s *Runner) gateOf(ctx context.Context, j *jobs.Job) gate {
+	if j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
+		return gateOpen // the normal path deals with it
+	}
+	sr, err := s.seriesOf(ctx, j)
 	if err != nil || j.FrameIndex > len(sr.Frames) {
 		return gateOpen
 	}
@@ -270,8 +285,30 @@ func (s *Runner) readState(ctx context.Context, seriesID string, n int) ([]byte,
 }
 
 // lastDone returns the last succeeded frame of j's series before j, or nil
-// when there is none: the frame whose tracker state j continues from.
+// when there is none: the frame whose tracker state j continues from. It
+// reads the records of the frames before j one by one from the nearest,
+// usually one read (the frame before j succeeded), and lists the series
+// instead (one request for the bucket's state, then the mirror) after
+// lastDoneWalk frames that did not succeed, or when a read fails.
 func (s *Runner) lastDone(ctx context.Context, j *jobs.Job) (*jobs.Job, error) {
+	if sr, err := s.seriesOf(ctx, j); err == nil && j.FrameIndex <= len(sr.Frames) {
+		k := j.FrameIndex - 1
+		for ; k >= 0 && k >= j.FrameIndex-lastDoneWalk; k-- {
+			f, err := s.store.Job(ctx, sr.Frames[k])
+			if errors.Is(err, jobs.ErrNotFound) {
+				continue // never accepted: not a frame of the series
+			}
+			if err != nil {
+				break
+			}
+			if f.State == jobs.Succeeded {
+				return f, nil
+			}
+		}
+		if k < 0 {
+			return nil, nil
+		}
+	}
 	list, err := s.Frames(ctx, j.Series)
 	if err != nil {
 		return nil, err
@@ -283,6 +320,56 @@ func (s *Runner) lastDone(ctx context.Context, j *jobs.Job) (*jobs.Job, error) {
 		}
 	}
 	return last, nil
+}
+
+// lastDoneWalk is how many records of the frames before a frame lastDone
+// reads one by one before it lists the series.
+const lastDoneWalk = 8
+
+// seriesOf returns the record of j's series, a frame: the one this runner
+// read last if it holds j among its frames, else the stored one, which it
+// keeps for the next call. The frame gate, solving ahead and adding a
+// frame read only what a series record never changes once the frame is
+// reserved: the kind, parameters, bound and reference name of the series
+// and the ids of the frames before it (a reserved index is given back only
+// while it is the last one, so none before a reserved frame changes). The
+// record returned is shared: callers do not change it.
+func (s *Runner) seriesOf(ctx context.Context, j *jobs.Job) (*jobs.Series, error) {
+	if sr := s.seriesRecs.get(j.Series); sr != nil && j.FrameIndex < len(sr.Frames) && sr.Frames[j.FrameIndex] == j.ID {
+		return sr, nil
+	}
+	sr, err := s.store.Series(ctx, j.Series)
+	if err != nil {
+		return nil, err
+	}
+	s.seriesRecs.put(sr)
+	return sr, nil
+}
+
+// maxSeriesRecs bounds the series records a runner keeps (seriesOf).
+const maxSeriesRecs = 64
+
+// seriesRecs holds the series records read last, by id.
+type seriesRecs struct {
+	mu sync.Mutex
+	m  map[string]*jobs.Series
+}
+
+func (c *seriesRecs) get(id string) *jobs.Series {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	return c.m[id]
+}
+
+// put keeps sr, forgetting every other record first when the bound is
+// reached (the records are a few KB; the set is refilled from the store).
+func (c *seriesRecs) put(sr *jobs.Series) {
+	c.mu.Lock()
+	defer c.mu.Unlock()
+	if c.m == nil || len(c.m) >= maxSeriesRecs {
+		c.m = map[string]*jobs.Series{}
+	}
+	c.m[sr.ID] = sr
 }
 
 // dropOldState removes the tracker state j was computed from (under key

@@ -133,6 +133,8 @@ type Runner struct {
 	refq   refQuality // the quality measures of recent references
 	// decoded holds the images of series frames decoded lately.
 	decoded decodedSet
+	// seriesRecs holds the series records read lately (seriesOf).
+	seriesRecs seriesRecs
 }
 
 // New checks cfg and returns a runner. It starts nothing: call Start.

@@ -242,7 +242,7 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 	if in.Name == "" {
 		in.Name = fmt.Sprintf("frame_%d", j.FrameIndex)
 	}
-	if sr, err := s.store.Series(ctx, j.Series); err == nil && sr.ReferenceName != "" {
+	if sr, err := s.seriesOf(ctx, j); err == nil && sr.ReferenceName != "" {
 		in.RefName = sr.ReferenceName
 	}
 	var err error
@@ -303,7 +303,7 @@ func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 		return s.computeStereo(ctx, j)
 	}
 	if j.Kind == jobs.Frame {
-		if sr, err := s.store.Series(ctx, j.Series); err == nil && sr.Kind == jobs.Stereo {
+		if sr, err := s.seriesOf(ctx, j); err == nil && sr.Kind == jobs.Stereo {
 			return s.computeStereoFrame(ctx, j, sr)
 		}
 	}
