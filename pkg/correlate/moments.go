@@ -13,7 +13,10 @@ import (
 // and a row's running sums over a subset's columns (those of prepare1 and
 // hessian2m, which do not depend on the subset's centre row) are the same
 // for each of them: computed once per grid column and image row, they are
-// combined per point with the powers of η. prepare1m and prepare2m then
+// combined per point with the powers of η. Along x, the segments of grid
+// columns one step apart overlap the same way; for the first-order sums
+// each row is cut into blocks of one step, summed once and combined per
+// column (pieces1). prepare1m and prepare2m then
 // read the subset once, to copy and centre it. The sums of a row and the
 // order of combination are fixed, so the moments do not depend on the
 // number of threads or on which goroutine computes them; prepare1m and
@@ -129,10 +132,12 @@ func (r *run) gridMoments(ctx context.Context) error {
 		}
 		var ring1 []rowSums1
 		var ring2 []rowSums2
+		var pc pieces1
 		if t.p2 != nil {
 			ring2 = make([]rowSums2, side*g.Nx)
 		} else {
 			ring1 = make([]rowSums1, side*g.Nx)
+			pc.init(need, side, g.Step)
 		}
 		row := make([]float64, 3*side)
 		y0, y1 := g.Y0+j0*g.Step-r.m, g.Y0+(j1-1)*g.Step+r.m
@@ -141,13 +146,12 @@ func (r *run) gridMoments(ctx context.Context) error {
 				return
 			}
 			slot := (y - y0) % side * g.Nx
+			if ring1 != nil {
+				s0.rowPieces1(&pc, ring1[slot:slot+g.Nx], need, g.X0-r.m, y)
+			}
 			for i, ok := range need {
-				switch {
-				case !ok:
-				case ring2 != nil:
+				if ok && ring2 != nil {
 					s0.rowSums2(&ring2[slot+i], g.X0+i*g.Step-r.m, y, row)
-				default:
-					s0.rowSums1(&ring1[slot+i], g.X0+i*g.Step-r.m, y)
 				}
 			}
 			d := y - r.m - g.Y0
@@ -397,14 +401,115 @@ func (s *solver) moments1(p *moments1, iy int, ring []rowSums1, nx, i, y0 int) {
 	}
 }
 
-// rowSums1 sets q to the running sums of the 2m+1 pixels of image row y
-// from column x0 on.
-func (s *solver) rowSums1(q *rowSums1, x0, y int) {
-	side := 2*s.m + 1
-	o := y*s.ref.Stride + x0
-	pix := s.ref.Pix[o : o+side]
-	o = y*s.ref.W + x0
-	gxs, gys := s.gx[o:o+side], s.gy[o:o+side]
+// pieces1 is the scratch of rowPieces1 for one row of a grid: the
+// segment of grid column i, the 2m+1 pixels from x0 + i·step on, is made
+// of q = (2m+1)/step blocks of step pixels, those that start where the
+// segments of columns i … i+q−1 start, and the first rem = (2m+1) mod step
+// pixels of the block where the segment of column i+q starts. The sums of
+// each block and each such head are taken once per row and combined per
+// column (rowSums1.addShifted): every pixel of the row is read once
+// instead of about (2m+1)/step times.
+type pieces1 struct {
+	q, rem, step int
+	head, block  []rowSums1 // sums of the first rem pixels, and of all step pixels, of block b
+	needHead     []bool     // head or block b is needed
+	needBlock    []bool     // block b is needed
+}
+
+// init sizes p for a row of grid columns of which need are computed, with
+// segments of side pixels that start step pixels apart.
+func (p *pieces1) init(need []bool, side, step int) {
+	p.q, p.rem, p.step = side/step, side%step, step
+	nb := len(need) + p.q
+	p.head, p.block = make([]rowSums1, nb), make([]rowSums1, nb)
+	p.needHead, p.needBlock = make([]bool, nb), make([]bool, nb)
+	for i, ok := range need {
+		if !ok {
+			continue
+		}
+		p.needHead[i+p.q] = true
+		for k := 0; k < p.q; k++ {
+			p.needHead[i+k], p.needBlock[i+k] = true, true
+		}
+	}
+}
+
+// rowPieces1 sets out[i] to the running sums (rowSums1) of the segment of
+// image row y of every grid column i with need[i], the columns' segments
+// starting at x0 + i·step, from the blocks and heads of p. The sums are
+// those of rowSums1 over the whole segment to rounding; each is formed in
+// the same order whichever columns are needed.
+func (s *solver) rowPieces1(p *pieces1, out []rowSums1, need []bool, x0, y int) {
+	q, rem, st := p.q, p.rem, p.step
+	w := s.ref.W
+	pix := s.ref.Pix[y*s.ref.Stride : y*s.ref.Stride+w]
+	gxs, gys := s.gx[y*w:(y+1)*w], s.gy[y*w:(y+1)*w]
+	for b, ok := range p.needHead {
+		if !ok {
+			continue
+		}
+		x := x0 + b*st
+		h := &p.head[b]
+		h.set(pix[x:x+rem], gxs[x:x+rem], gys[x:x+rem])
+		if p.needBlock[b] {
+			// The rest of the block, each pixel with the weights of its
+			// place from the block's left end.
+			bl := &p.block[b]
+			*bl = *h
+			for j := rem; j < st; j++ {
+				bl.addPixel(float64(pix[x+j]), float64(gxs[x+j]), float64(gys[x+j]), float64(j+1))
+			}
+		}
+	}
+	out, need = out[:len(need)], need[:len(need)]
+	for i, ok := range need {
+		if !ok {
+			continue
+		}
+		o := &out[i]
+		*o = p.block[i]
+		for k := 1; k < q; k++ {
+			o.addShifted(&p.block[i+k], float64(k*st))
+		}
+		o.addShifted(&p.head[i+q], float64(q*st))
+	}
+}
+
+// addPixel adds to q the pixel of value v and gradient (gx, gy) that has
+// the weights c₁: a = i+1 and c₂: a(a+1)/2 (see rowSums1).
+func (q *rowSums1) addPixel(v, gx, gy, a float64) {
+	a2 := a * (a + 1) / 2
+	xx, xy, yy := gx*gx, gx*gy, gy*gy
+	q.rs += v
+	q.xx0, q.xx1, q.xx2 = q.xx0+xx, q.xx1+a*xx, q.xx2+a2*xx
+	q.xy0, q.xy1, q.xy2 = q.xy0+xy, q.xy1+a*xy, q.xy2+a2*xy
+	q.yy0, q.yy1, q.yy2 = q.yy0+yy, q.yy1+a*yy, q.yy2+a2*yy
+	bx, by := gx*v, gy*v
+	q.bx0, q.bx1 = q.bx0+bx, q.bx1+a*bx
+	q.by0, q.by1 = q.by0+by, q.by1+a*by
+	q.jx0, q.jx1 = q.jx0+gx, q.jx1+a*gx
+	q.jy0, q.jy1 = q.jy0+gy, q.jy1+a*gy
+}
+
+// addShifted adds to q the sums p of pixels o places further from the
+// segment's left end than their own: with i ↦ i + o (i counted from the
+// left, the loops of rowSums1 running from the right end), c₁ = Σ (i+1) w
+// gains o·c₀ and c₂ = Σ (i+1)(i+2)/2 w gains o·c₁ + o(o+1)/2·c₀.
+func (q *rowSums1) addShifted(p *rowSums1, o float64) {
+	h := o * (o + 1) / 2
+	q.rs += p.rs
+	q.xx0, q.xx1, q.xx2 = q.xx0+p.xx0, q.xx1+(p.xx1+o*p.xx0), q.xx2+(p.xx2+o*p.xx1+h*p.xx0)
+	q.xy0, q.xy1, q.xy2 = q.xy0+p.xy0, q.xy1+(p.xy1+o*p.xy0), q.xy2+(p.xy2+o*p.xy1+h*p.xy0)
+	q.yy0, q.yy1, q.yy2 = q.yy0+p.yy0, q.yy1+(p.yy1+o*p.yy0), q.yy2+(p.yy2+o*p.yy1+h*p.yy0)
+	q.bx0, q.bx1 = q.bx0+p.bx0, q.bx1+(p.bx1+o*p.bx0)
+	q.by0, q.by1 = q.by0+p.by0, q.by1+(p.by1+o*p.by0)
+	q.jx0, q.jx1 = q.jx0+p.jx0, q.jx1+(p.jx1+o*p.jx0)
+	q.jy0, q.jy1 = q.jy0+p.jy0, q.jy1+(p.jy1+o*p.jy0)
+}
+
+// set sets q to the running sums of the pixels pix with gradients gxs
+// and gys (of equal length).
+func (q *rowSums1) set(pix, gxs, gys []float32) {
 	gxs, gys = gxs[:len(pix)], gys[:len(pix)]
 	var rs, xx0, xx1, xx2, xy0, xy1, xy2, yy0, yy1, yy2 float64
 	for i := len(pix) - 1; i >= 0; i-- {
