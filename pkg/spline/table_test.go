@@ -202,6 +202,7 @@ func BenchmarkSteps1024(b *testing.B) {
 	q, _ := NewContext(context.Background(), g, Quintic, 1)
 	gx, gy := make([]float32, 1024*1024), make([]float32, 1024*1024)
 	tab := AllocTable(1024, 1024)
+	rt := AllocRowTable(1024, 1024)
 	px := float64(1024 * 1024)
 	for _, c := range []struct {
 		name string
@@ -213,6 +214,8 @@ func BenchmarkSteps1024(b *testing.B) {
 		{"gradients-quintic", func() { q.GradientRows(gx, gy, 0, 1024) }},
 		{"table", func() { tab.FillRows(s, 0, 1024) }},
 		{"table-alloc", func() { tab = AllocTable(1024, 1024) }},
+		{"rowtable", func() { rt.FillRows(s, 0, 1024) }},
+		{"rowtable-alloc", func() { rt = AllocRowTable(1024, 1024) }},
 	} {
 		b.Run(c.name, func(b *testing.B) {
 			for b.Loop() {
