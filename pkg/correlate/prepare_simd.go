@@ -117,37 +117,9 @@ func (s *solver) prepare1v(ix, iy int) Status {
 		o := &out[q]
 		sum[q] = ((o[0] + o[1]) + (o[2] + o[3])) + ((o[4] + o[5]) + (o[6] + o[7]))
 	}
-	n := float64(s.n)
-	s.fmean = sum[0] / n
+	s.fmean = sum[0] / float64(s.n)
 	fm := s.fmean
-	// Centre the samples, eight at a time (the last group of the subset
-	// overlaps the one before: its repeated lanes are centred once and
-	// weighted by zero in the sum of squares).
-	fmv := [8]float64{fm, fm, fm, fm, fm, fm, fm, fm}
-	f := s.f[:s.n]
-	lastAll := s.n - 8
-	fm8 := archsimd.LoadFloat64x8(&fmv)
-	var ss archsimd.Float64x8
-	for i := 0; i < len(f); i += 8 {
-		if i > lastAll {
-			i = lastAll
-			// Lanes below the previous group's end are centred already.
-			mk := archsimd.Mask64x8FromBits(s.tailBits8)
-			v := archsimd.LoadFloat64x8Slice(f[i:])
-			c := v.Sub(fm8).Masked(mk)
-			ss = c.MulAdd(c, ss)
-			v.Sub(fm8).Merge(v, mk).StoreSlice(f[i:])
-			break
-		}
-		c := archsimd.LoadFloat64x8Slice(f[i:]).Sub(fm8)
-		c.StoreSlice(f[i:])
-		ss = c.MulAdd(c, ss)
-	}
-	ss.Store(&out[0])
-	archsimd.ClearAVXUpperBits()
-	o := &out[0]
-	s.df = math.Sqrt(((o[0] + o[1]) + (o[2] + o[3])) + ((o[4] + o[5]) + (o[6] + o[7])))
-	if !(s.df > 0) || s.df/math.Sqrt(n) < s.minStd {
+	if !s.centre() {
 		return LowContrast
 	}
 	hxx := [3][3]float64{{sum[1], sum[4], sum[6]}, {sum[2], sum[5]}, {sum[3]}}

@@ -22,16 +22,14 @@ type solver struct {
 	etas       []float64  // η of each row, four times
 	lastW      [4]float64 // weights of the last group of four pixels of a row
 	vout       [9][4]float64
-	offs       [4]int64   // cell offsets of a group of four pixels (row1v)
-	lane1      [8]int64   // lane offsets in x and y of a group (row1v)
-	scale4     [4]float64 // 2⁻⁴⁰, four times
-	fmean4     [4]float64 // f̄, four times
-	lim        [3]int64   // usable area in fixed point: lo, x and y limits (row2v)
+	offs       [4]int64    // cell offsets of a group of four pixels (sampleRow)
+	rv         [8][4]int64 // fixed-point positions of a subset row's groups (sampleRow)
+	scale4     [4]float64  // 2⁻⁴⁰, four times
+	fmean4     [4]float64  // f̄, four times
+	lim        [3]int64    // usable area in fixed point: lo, x and y limits (row2v)
 	// scratch of the second-order vector pass
 	rowDX, rowDY []int64   // fixed-point first differences at each row's start
 	etas2h       []float64 // η²/2 of each row, four times
-	lanes        [8]int64
-	lanes2       [8]int64
 	half4        [4]float64
 	vout2        [15][4]float64
 	// scratch of the vector prepare (prepare_simd.go)

@@ -28,17 +28,6 @@ func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float
 	return s.pass1t(p, sg, sgg, sfg, sjg)
 }
 
-// cellRows evaluates the four rows of a cell's coefficients at ty (in
-// every lane) by Horner's rule: lane i is Σ_j c[4j+i]·ty^j.
-func cellRows(c []float32, ty archsimd.Float32x4) archsimd.Float32x4 {
-	c = c[:16]
-	r3 := archsimd.LoadFloat32x4((*[4]float32)(c[12:16]))
-	r2 := archsimd.LoadFloat32x4((*[4]float32)(c[8:12]))
-	r1 := archsimd.LoadFloat32x4((*[4]float32)(c[4:8]))
-	r0 := archsimd.LoadFloat32x4((*[4]float32)(c[0:4]))
-	return r3.MulAdd(ty, r2).MulAdd(ty, r1).MulAdd(ty, r0)
-}
-
 // initVector sets up the solver's scratch of pass1v.
 func (s *solver) initVector() {
 	side := 2*s.m + 1
@@ -97,8 +86,8 @@ func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float
 }
 
 // pass2v is pass2t with vector instructions, in the manner of pass1v: four
-// pixels of a subset row at a time, each row interpolated by row2v and
-// accumulated by acc2v. The fixed-point positions are pass2t's: along a
+// pixels of a subset row at a time, each row checked and set out by row2v,
+// interpolated by sampleRow and accumulated by acc2v. The fixed-point positions are pass2t's: along a
 // row x advances by a first difference that grows by the constant second
 // difference ddx, so pixel i of a group starting at x with first
 // difference d is at x + i·d + i(i−1)/2·ddx, exact in integers. Every
@@ -132,9 +121,6 @@ func (s *solver) pass2v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	}
 	s.fmean4 = [4]float64{s.fmean, s.fmean, s.fmean, s.fmean}
 	s.vout2 = [15][4]float64{}
-	dd4 := &s.lanes
-	dd4[0], dd4[1], dd4[2], dd4[3] = 0, 4*ddx, 8*ddx, 12*ddx
-	dd4[4], dd4[5], dd4[6], dd4[7] = 0, 4*ddy, 8*ddy, 12*ddy
 	k := 0
 	for j := 0; j < side; j++ {
 		if !s.row2v(rx[j], ry[j], rdx[j], rdy[j], ddx, ddy) {
@@ -159,73 +145,48 @@ func (s *solver) pass2v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 
 // row2v interpolates the second-order subset row starting at the
 // fixed-point position (x0, y0) with first differences (dx0, dy0) and
-// second differences (ddx, ddy) into s.gbuf, four pixels at a time, and
-// reports whether every position lies in the usable area s.lim.
+// second differences (ddx, ddy) into s.gbuf, and reports whether every
+// position lies in the usable area s.lim. Pixel i is at x0 + i·dx0 +
+// i(i−1)/2·ddx; from one group of four to the next, lane l advances by
+// 4·dx_l + 6·ddx, where dx_l is its first difference, and that step grows
+// by 16·ddx. The groups' positions are set out for sampleRow and checked
+// in a first loop, before any cell is read.
 //
 //go:noinline
 func (s *solver) row2v(x0, y0, dx0, dy0, ddx, ddy int64) bool {
-	g := s.gbuf[:2*s.m+1]
-	last := len(g) - 4
-	tab := s.tab.Coefficients()
-	w := s.tab.W
+	n := 2*s.m + 1
+	last := int64(n - 4)
+	rv := &s.rv
+	// The last group's first pixel, from the closed form.
+	t := last * (last - 1) / 2
+	xL, yL := x0+last*dx0+t*ddx, y0+last*dy0+t*ddy
+	dxL, dyL := dx0+last*ddx, dy0+last*ddy
+	for l := int64(0); l < 4; l++ {
+		t := l * (l - 1) / 2
+		rv[0][l], rv[1][l] = l*dx0+t*ddx, l*dy0+t*ddy
+		rv[2][l], rv[3][l] = l*dxL+t*ddx, l*dyL+t*ddy
+		rv[4][l], rv[5][l] = 4*dx0+(4*l+6)*ddx, 4*dy0+(4*l+6)*ddy
+		rv[6][l], rv[7][l] = 16*ddx, 16*ddy
+	}
+	xl := archsimd.BroadcastInt64x4(x0).Add(archsimd.LoadInt64x4(&rv[0]))
+	yl := archsimd.BroadcastInt64x4(y0).Add(archsimd.LoadInt64x4(&rv[1]))
+	dx, dy := archsimd.LoadInt64x4(&rv[4]), archsimd.LoadInt64x4(&rv[5])
+	ddx4, ddy4 := archsimd.LoadInt64x4(&rv[6]), archsimd.LoadInt64x4(&rv[7])
+	xmin := archsimd.BroadcastInt64x4(xL).Add(archsimd.LoadInt64x4(&rv[2]))
+	ymin := archsimd.BroadcastInt64x4(yL).Add(archsimd.LoadInt64x4(&rv[3]))
+	xmax, ymax := xmin, ymin
+	for i := 0; i+4 <= n; i += 4 {
+		xmin, xmax = xmin.Min(xl), xmax.Max(xl)
+		ymin, ymax = ymin.Min(yl), ymax.Max(yl)
+		xl, yl = xl.Add(dx), yl.Add(dy)
+		dx, dy = dx.Add(ddx4), dy.Add(ddy4)
+	}
 	lo4 := archsimd.BroadcastInt64x4(s.lim[0])
 	hx4, hy4 := archsimd.BroadcastInt64x4(s.lim[1]), archsimd.BroadcastInt64x4(s.lim[2])
-	w4 := archsimd.BroadcastInt64x4(int64(w)).AsUint32x8()
-	offs := &s.offs
-	pos := &s.lanes2 // lane offsets from a group's first pixel
-	dd4 := &s.lanes
-	mask := archsimd.BroadcastInt64x4(fixMask)
-	scale := archsimd.LoadFloat64x4(&s.scale4)
-	ddx4 := archsimd.LoadInt64x4((*[4]int64)(dd4[0:4]))
-	ddy4 := archsimd.LoadInt64x4((*[4]int64)(dd4[4:8]))
-	x, y, dx, dy := x0, y0, dx0, dy0
-	pos[0], pos[1], pos[2], pos[3] = 0, dx, 2*dx+ddx, 3*dx+3*ddx
-	pos[4], pos[5], pos[6], pos[7] = 0, dy, 2*dy+ddy, 3*dy+3*ddy
-	offx := archsimd.LoadInt64x4((*[4]int64)(pos[0:4]))
-	offy := archsimd.LoadInt64x4((*[4]int64)(pos[4:8]))
-	for i := 0; i < len(g); i += 4 {
-		if i > last {
-			// The last group overlaps the one before: restart it at
-			// pixel last, from the closed form.
-			i = last
-			t := int64(i) * int64(i-1) / 2
-			x, y = x0+int64(i)*dx0+t*ddx, y0+int64(i)*dy0+t*ddy
-			dx, dy = dx0+int64(i)*ddx, dy0+int64(i)*ddy
-			pos[0], pos[1], pos[2], pos[3] = 0, dx, 2*dx+ddx, 3*dx+3*ddx
-			pos[4], pos[5], pos[6], pos[7] = 0, dy, 2*dy+ddy, 3*dy+3*ddy
-			offx = archsimd.LoadInt64x4((*[4]int64)(pos[0:4]))
-			offy = archsimd.LoadInt64x4((*[4]int64)(pos[4:8]))
-		}
-		xl := archsimd.BroadcastInt64x4(x).Add(offx)
-		yl := archsimd.BroadcastInt64x4(y).Add(offy)
-		if xl.Less(lo4).Or(xl.Greater(hx4)).Or(yl.Less(lo4)).Or(yl.Greater(hy4)).ToBits() != 0 {
-			return false
-		}
-		offx, offy = offx.Add(ddx4), offy.Add(ddy4)
-		txs := xl.And(mask).ConvertToFloat64().Mul(scale).ConvertToFloat32()
-		tys := yl.And(mask).ConvertToFloat64().Mul(scale).ConvertToFloat32()
-		// Cell offsets 16·(⌊y⌋·w + ⌊x⌋): inside the usable area ⌊y⌋ and
-		// w fit in 32 bits.
-		yl.ShiftAllRight(fixBits).AsUint32x8().MulEvenWiden(w4).AsInt64x4().
-			Add(xl.ShiftAllRight(fixBits)).ShiftAllLeft(4).Store(offs)
-		o0, o1, o2, o3 := int(offs[0]), int(offs[1]), int(offs[2]), int(offs[3])
-		h0 := cell4(tab[o0:o0+16], tys.SelectFromPair(0, 0, 4, 4, tys))
-		h1 := cell4(tab[o1:o1+16], tys.SelectFromPair(1, 1, 5, 5, tys))
-		h2 := cell4(tab[o2:o2+16], tys.SelectFromPair(2, 2, 6, 6, tys))
-		h3 := cell4(tab[o3:o3+16], tys.SelectFromPair(3, 3, 7, 7, tys))
-		t0 := h0.SelectFromPair(0, 1, 4, 5, h1)
-		t1 := h0.SelectFromPair(2, 3, 6, 7, h1)
-		t2 := h2.SelectFromPair(0, 1, 4, 5, h3)
-		t3 := h2.SelectFromPair(2, 3, 6, 7, h3)
-		c0 := t0.SelectFromPair(0, 2, 4, 6, t2)
-		c1 := t0.SelectFromPair(1, 3, 5, 7, t2)
-		c2 := t1.SelectFromPair(0, 2, 4, 6, t3)
-		c3 := t1.SelectFromPair(1, 3, 5, 7, t3)
-		v := c3.MulAdd(txs, c2).MulAdd(txs, c1).MulAdd(txs, c0)
-		v.ConvertToFloat64().Store((*[4]float64)(g[i : i+4]))
-		x, y = x+4*dx+6*ddx, y+4*dy+6*ddy
-		dx, dy = dx+4*ddx, dy+4*ddy
+	if xmin.Less(lo4).Or(xmax.Greater(hx4)).Or(ymin.Less(lo4)).Or(ymax.Greater(hy4)).ToBits() != 0 {
+		return false
 	}
+	s.sampleRow(x0, y0, xL, yL)
 	return true
 }
 
@@ -247,32 +208,18 @@ func (s *solver) acc2v(k, j int) {
 	i := 0
 	for ; i+4 <= len(g); i += 4 {
 		v := archsimd.LoadFloat64x4((*[4]float64)(g[i : i+4])).Sub(fmean4)
-		vg = vg.Add(v)
-		vgg = v.MulAdd(v, vgg)
-		vfg = archsimd.LoadFloat64x4((*[4]float64)(f[i:i+4])).MulAdd(v, vfg)
-		xv := archsimd.LoadFloat64x4((*[4]float64)(xi[i : i+4]))
-		a := archsimd.LoadFloat64x4((*[4]float64)(fx[i : i+4])).Mul(v)
-		ax := a.Mul(xv)
-		rx0, rx1, rx2 = rx0.Add(a), rx1.Add(ax), ax.MulAdd(xv, rx2)
-		b := archsimd.LoadFloat64x4((*[4]float64)(fy[i : i+4])).Mul(v)
-		bx := b.Mul(xv)
-		ry0, ry1, ry2 = ry0.Add(b), ry1.Add(bx), bx.MulAdd(xv, ry2)
+		vg, vgg, vfg = v.Add(vg), v.MulAdd(v, vgg), archsimd.LoadFloat64x4((*[4]float64)(f[i:i+4])).MulAdd(v, vfg)
+		rx0, rx1, rx2 = accMoments2(v, (*[4]float64)(fx[i:i+4]), (*[4]float64)(xi[i:i+4]), rx0, rx1, rx2)
+		ry0, ry1, ry2 = accMoments2(v, (*[4]float64)(fy[i:i+4]), (*[4]float64)(xi[i:i+4]), ry0, ry1, ry2)
 	}
 	if i < len(g) {
 		// The last group overlaps the one before: its repeated pixels
 		// are weighted by zero.
 		i = len(g) - 4
 		v := archsimd.LoadFloat64x4((*[4]float64)(g[i : i+4])).Sub(fmean4).Mul(archsimd.LoadFloat64x4(&s.lastW))
-		vg = vg.Add(v)
-		vgg = v.MulAdd(v, vgg)
-		vfg = archsimd.LoadFloat64x4((*[4]float64)(f[i:i+4])).MulAdd(v, vfg)
-		xv := archsimd.LoadFloat64x4((*[4]float64)(xi[i : i+4]))
-		a := archsimd.LoadFloat64x4((*[4]float64)(fx[i : i+4])).Mul(v)
-		ax := a.Mul(xv)
-		rx0, rx1, rx2 = rx0.Add(a), rx1.Add(ax), ax.MulAdd(xv, rx2)
-		b := archsimd.LoadFloat64x4((*[4]float64)(fy[i : i+4])).Mul(v)
-		bx := b.Mul(xv)
-		ry0, ry1, ry2 = ry0.Add(b), ry1.Add(bx), bx.MulAdd(xv, ry2)
+		vg, vgg, vfg = v.Add(vg), v.MulAdd(v, vgg), archsimd.LoadFloat64x4((*[4]float64)(f[i:i+4])).MulAdd(v, vfg)
+		rx0, rx1, rx2 = accMoments2(v, (*[4]float64)(fx[i:i+4]), (*[4]float64)(xi[i:i+4]), rx0, rx1, rx2)
+		ry0, ry1, ry2 = accMoments2(v, (*[4]float64)(fy[i:i+4]), (*[4]float64)(xi[i:i+4]), ry0, ry1, ry2)
 	}
 	e := archsimd.LoadFloat64x4((*[4]float64)(s.etas[4*j : 4*j+4]))
 	e2 := archsimd.LoadFloat64x4((*[4]float64)(s.etas2h[4*j : 4*j+4]))
@@ -295,6 +242,16 @@ func (s *solver) acc2v(k, j int) {
 	addMulTo(&out[14], ry0, e2)
 }
 
+// accMoments2 adds a group of four pixels (v = g − f̄, and the subset's
+// gradient component d and ξ there) to the lane sums Σd·v, Σd·v·ξ and
+// Σd·v·ξ² of acc2v.
+func accMoments2(v archsimd.Float64x4, d, xi *[4]float64, r0, r1, r2 archsimd.Float64x4) (_, _, _ archsimd.Float64x4) {
+	xv := archsimd.LoadFloat64x4(xi)
+	a := archsimd.LoadFloat64x4(d).Mul(v)
+	ax := a.Mul(xv)
+	return r0.Add(a), r1.Add(ax), ax.MulAdd(xv, r2)
+}
+
 // addTo adds x to *d.
 func addTo(d *[4]float64, x archsimd.Float64x4) {
 	archsimd.LoadFloat64x4(d).Add(x).Store(d)
@@ -306,8 +263,8 @@ func addMulTo(d *[4]float64, x, y archsimd.Float64x4) {
 }
 
 // pass1v is pass1t with vector instructions. Each subset row is
-// interpolated by row1v and accumulated by acc1v, two functions of their
-// own, so that each loop has the registers to itself (inlined in one
+// interpolated by sampleRow (the same function as pass2v's, here with a
+// constant step) and accumulated by acc1v, two functions of their own, so that each loop has the registers to itself (inlined in one
 // function, the integer state of the first loop spilled to the stack on
 // every group of pixels). All scalar floating-point work is done before
 // the first vector instruction or after ClearAVXUpperBits: legacy SSE
@@ -338,14 +295,19 @@ func (s *solver) pass1v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		ry[j] = fix(cy - a21*fm + a22*eta)
 	}
 	dx, dy := int64(math.Round(a11*fixOne)), int64(math.Round(a21*fixOne))
-	l := &s.lane1
-	l[0], l[1], l[2], l[3] = 0, dx, 2*dx, 3*dx
-	l[4], l[5], l[6], l[7] = 0, dy, 2*dy, 3*dy
+	rv := &s.rv
+	last := int64(side - 4)
+	for l := range int64(4) {
+		rv[0][l], rv[1][l] = l*dx, l*dy
+		rv[2][l], rv[3][l] = l*dx, l*dy
+		rv[4][l], rv[5][l] = 4*dx, 4*dy
+		rv[6][l], rv[7][l] = 0, 0
+	}
 	s.vout = [9][4]float64{}
 	s.fmean4 = [4]float64{s.fmean, s.fmean, s.fmean, s.fmean}
 	k := 0
 	for j := 0; j < side; j++ {
-		s.row1v(rx[j], ry[j], dx, dy)
+		s.sampleRow(rx[j], ry[j], rx[j]+last*dx, ry[j]+last*dy)
 		s.acc1v(k, j)
 		k += side
 	}
@@ -361,35 +323,38 @@ func (s *solver) pass1v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	return true
 }
 
-// row1v interpolates the subset row starting at the fixed-point position
-// (x, y) and advancing by (dx, dy) per pixel into s.gbuf, four pixels at a
-// time (the last group overlapping the one before unless the side is a
-// multiple of four): each cell's bicubic is evaluated by Horner's rule in
-// ty on its four coefficient rows, the four results are transposed and
-// finished by Horner's rule in tx across the four pixels. The cells are
-// addressed from the vector coordinates, and the frac·2⁻⁴⁰ of each lane is
-// exact in float64, so rounding it to float32 gives pass1t's offsets.
+// sampleRow interpolates the table at the fixed-point positions of a
+// subset row (inside the table) into s.gbuf, four pixels at a time, the
+// last group overlapping the one before unless the side is a multiple of
+// four. The first group's first pixel is at (x, y), the last's at (xL,
+// yL); s.rv holds the offsets of the lanes from those (x, y of the first
+// group, x, y of the last), the step of each lane from one group to the next (x, y),
+// and that step's growth per group (x, y; zero for a first-order warp).
+// Each cell's bicubic is evaluated by Horner's rule in ty on its four
+// coefficient rows, the four results are transposed and finished by
+// Horner's rule in tx across the four pixels. The cells are addressed from
+// the vector coordinates, and the frac·2⁻⁴⁰ of each lane is exact in
+// float64, so rounding it to float32 gives the portable passes' offsets.
 //
 //go:noinline
-func (s *solver) row1v(x, y, dx, dy int64) {
+func (s *solver) sampleRow(x, y, xL, yL int64) {
 	g := s.gbuf[:2*s.m+1]
 	last := len(g) - 4
 	tab := s.tab.Coefficients()
 	w := s.tab.W
 	offs := &s.offs
+	rv := &s.rv
 	mask := archsimd.BroadcastInt64x4(fixMask)
 	scale := archsimd.LoadFloat64x4(&s.scale4)
-	offx := archsimd.LoadInt64x4((*[4]int64)(s.lane1[0:4]))
-	offy := archsimd.LoadInt64x4((*[4]int64)(s.lane1[4:8]))
-	xl := archsimd.BroadcastInt64x4(x).Add(offx)
-	yl := archsimd.BroadcastInt64x4(y).Add(offy)
-	dx4, dy4 := archsimd.BroadcastInt64x4(4*dx), archsimd.BroadcastInt64x4(4*dy)
+	xl := archsimd.BroadcastInt64x4(x).Add(archsimd.LoadInt64x4(&rv[0]))
+	yl := archsimd.BroadcastInt64x4(y).Add(archsimd.LoadInt64x4(&rv[1]))
+	dx, dy := archsimd.LoadInt64x4(&rv[4]), archsimd.LoadInt64x4(&rv[5])
 	w4 := archsimd.BroadcastInt64x4(int64(w)).AsUint32x8()
 	for i := 0; i < len(g); i += 4 {
 		if i > last {
 			i = last
-			xl = archsimd.BroadcastInt64x4(x + int64(i)*dx).Add(offx)
-			yl = archsimd.BroadcastInt64x4(y + int64(i)*dy).Add(offy)
+			xl = archsimd.BroadcastInt64x4(xL).Add(archsimd.LoadInt64x4(&rv[2]))
+			yl = archsimd.BroadcastInt64x4(yL).Add(archsimd.LoadInt64x4(&rv[3]))
 		}
 		txs := xl.And(mask).ConvertToFloat64().Mul(scale).ConvertToFloat32()
 		tys := yl.And(mask).ConvertToFloat64().Mul(scale).ConvertToFloat32()
@@ -411,7 +376,8 @@ func (s *solver) row1v(x, y, dx, dy int64) {
 		c3 := t1.SelectFromPair(1, 3, 5, 7, t3)
 		v := c3.MulAdd(txs, c2).MulAdd(txs, c1).MulAdd(txs, c0)
 		v.ConvertToFloat64().Store((*[4]float64)(g[i : i+4]))
-		xl, yl = xl.Add(dx4), yl.Add(dy4)
+		xl, yl = xl.Add(dx), yl.Add(dy)
+		dx, dy = dx.Add(archsimd.LoadInt64x4(&rv[6])), dy.Add(archsimd.LoadInt64x4(&rv[7]))
 	}
 }
 
@@ -432,32 +398,14 @@ func (s *solver) acc1v(k, j int) {
 	i := 0
 	for ; i+4 <= len(g); i += 4 {
 		v := archsimd.LoadFloat64x4((*[4]float64)(g[i : i+4])).Sub(fmean4)
-		vg = vg.Add(v)
-		vgg = v.MulAdd(v, vgg)
-		vfg = archsimd.LoadFloat64x4((*[4]float64)(f[i:i+4])).MulAdd(v, vfg)
-		a := archsimd.LoadFloat64x4((*[4]float64)(fx[i : i+4])).Mul(v)
-		b := archsimd.LoadFloat64x4((*[4]float64)(fy[i : i+4])).Mul(v)
-		xv := archsimd.LoadFloat64x4((*[4]float64)(xi[i : i+4]))
-		rx0 = rx0.Add(a)
-		rx1 = a.MulAdd(xv, rx1)
-		ry0 = ry0.Add(b)
-		ry1 = b.MulAdd(xv, ry1)
+		vg, vgg, vfg, rx0, rx1, ry0, ry1 = acc1(v, f[i:i+4], fx[i:i+4], fy[i:i+4], xi[i:i+4], vg, vgg, vfg, rx0, rx1, ry0, ry1)
 	}
 	if i < len(g) {
 		// The last group overlaps the one before: its repeated pixels
 		// are weighted by zero.
 		i = len(g) - 4
 		v := archsimd.LoadFloat64x4((*[4]float64)(g[i : i+4])).Sub(fmean4).Mul(archsimd.LoadFloat64x4(&s.lastW))
-		vg = vg.Add(v)
-		vgg = v.MulAdd(v, vgg)
-		vfg = archsimd.LoadFloat64x4((*[4]float64)(f[i:i+4])).MulAdd(v, vfg)
-		a := archsimd.LoadFloat64x4((*[4]float64)(fx[i : i+4])).Mul(v)
-		b := archsimd.LoadFloat64x4((*[4]float64)(fy[i : i+4])).Mul(v)
-		xv := archsimd.LoadFloat64x4((*[4]float64)(xi[i : i+4]))
-		rx0 = rx0.Add(a)
-		rx1 = a.MulAdd(xv, rx1)
-		ry0 = ry0.Add(b)
-		ry1 = b.MulAdd(xv, ry1)
+		vg, vgg, vfg, rx0, rx1, ry0, ry1 = acc1(v, f[i:i+4], fx[i:i+4], fy[i:i+4], xi[i:i+4], vg, vgg, vfg, rx0, rx1, ry0, ry1)
 	}
 	e := archsimd.LoadFloat64x4((*[4]float64)(s.etas[4*j : 4*j+4]))
 	out := &s.vout
@@ -472,7 +420,20 @@ func (s *solver) acc1v(k, j int) {
 	addMulTo(&out[8], ry0, e)
 }
 
-// cell4 is cellRows for a cell given as a slice of 16 coefficients,
+// acc1 adds a group of four pixels (v = g − f̄, and the subset's f̃, fx,
+// fy and ξ there) to the lane sums of acc1v: Σv, Σv², Σf̃v, Σfx·v,
+// Σfx·v·ξ, Σfy·v, Σfy·v·ξ.
+func acc1(v archsimd.Float64x4, f, fx, fy, xi []float64, vg, vgg, vfg, rx0, rx1, ry0, ry1 archsimd.Float64x4) (_, _, _, _, _, _, _ archsimd.Float64x4) {
+	vg, vgg = vg.Add(v), v.MulAdd(v, vgg)
+	vfg = archsimd.LoadFloat64x4((*[4]float64)(f)).MulAdd(v, vfg)
+	a := archsimd.LoadFloat64x4((*[4]float64)(fx)).Mul(v)
+	b := archsimd.LoadFloat64x4((*[4]float64)(fy)).Mul(v)
+	xv := archsimd.LoadFloat64x4((*[4]float64)(xi))
+	return vg, vgg, vfg, rx0.Add(a), a.MulAdd(xv, rx1), ry0.Add(b), b.MulAdd(xv, ry1)
+}
+
+// cell4 evaluates the four rows of a cell's 16 coefficients at ty (in
+// every lane) by Horner's rule: lane i is Σ_j c[4j+i]·ty^j. The slice is
 // converted once to an array pointer (one bounds check).
 func cell4(c []float32, ty archsimd.Float32x4) archsimd.Float32x4 {
 	a := (*[16]float32)(c)
