@@ -122,8 +122,11 @@ func pipeline(bs []*traceBatch) time.Duration {
 // setup-serial% in the set-up; setup% is the whole set-up), crit% the excess of
 // the barrier pool's per-batch makespans over an even split. The figures
 // depend on the costs of the points, not on the machine's load. A traced
-// run on two threads adds the share of the points the helper computed and
-// how often it slept per batch.
+// run on two threads adds the share of the points the helper computed, how
+// often it slept and the caller waited asleep for the last items per batch,
+// and asleep%, the time both spent asleep (from going to sleep to running
+// again) over twice the run's wall time: on idle cores, the capacity lost
+// to waking.
 func BenchmarkRun1024Model(b *testing.B) {
 	ref, def := benchImages(b)
 	runtime.LockOSThread()
@@ -196,9 +199,11 @@ func BenchmarkRun1024Model(b *testing.B) {
 	// The same run on two threads, for the division of the points and the
 	// helper's sleeps; on a loaded machine the wall time says little.
 	tr := &poolTrace{}
+	w0 := time.Now()
 	if _, err := runWith(context.Background(), ref, def, Options{Subset: 31, Step: 8, Threads: 2}, tuning{trace: tr}); err != nil {
 		b.Fatal(err)
 	}
+	wall := time.Since(w0)
 	var helper, all int
 	for _, bt := range tr.batches {
 		helper += bt.w[1].n
@@ -207,6 +212,8 @@ func BenchmarkRun1024Model(b *testing.B) {
 	b.ReportMetric(float64(helper)/float64(all), "helper-share")
 	b.ReportMetric(float64(tr.sleeps)/float64(len(tr.batches)), "sleeps/batch")
 	b.ReportMetric(float64(tr.spun.Microseconds())/float64(len(tr.batches)), "spin-µs/batch")
+	b.ReportMetric(float64(tr.waits)/float64(len(tr.batches)), "waits/batch")
+	b.ReportMetric(100*float64(tr.slept+tr.waited)/float64(2*wall), "asleep%")
 	b.ReportMetric(float64(t1)/float64(2*t2), "eff2")
 	b.ReportMetric(float64(t1)/float64(2*tb), "eff2-barrier")
 	b.ReportMetric(100*float64(serial)/float64(t1), "serial%")

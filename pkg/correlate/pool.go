@@ -52,8 +52,10 @@ type pool struct {
 	closed   atomic.Bool
 	sleepers atomic.Int32 // helpers waiting on cond
 	sleeps   atomic.Int64 // times a helper went to sleep (for traces)
+	slept    atomic.Int64 // nanoseconds helpers spent asleep (for traces)
 	spun     atomic.Int64 // nanoseconds spent spinning, all goroutines (for traces)
 	waits    int64        // times the caller went to sleep (for traces)
+	waited   int64        // nanoseconds the caller spent asleep (for traces)
 	mu       sync.Mutex
 	cond     sync.Cond
 	waitGen  atomic.Uint64 // generation the caller sleeps on, 0: none
@@ -102,11 +104,15 @@ func (p *pool) finished(g uint64) {
 // sleep parks a helper until an item is available or the pool is closed,
 // which it reports.
 func (p *pool) sleep() bool {
+	t0 := time.Now()
 	p.mu.Lock()
 	defer p.mu.Unlock()
 	p.sleepers.Add(1)
 	p.sleeps.Add(1)
-	defer p.sleepers.Add(-1)
+	defer func() {
+		p.sleepers.Add(-1)
+		p.slept.Add(int64(time.Since(t0)))
+	}()
 	for {
 		if p.closed.Load() {
 			return false
@@ -279,7 +285,9 @@ func (r *run) awaitBatch(g uint64) []item {
 			if left.Load() == 0 && p.waitGen.CompareAndSwap(g, 0) {
 				break
 			}
+			t1 := time.Now()
 			<-p.done
+			p.waited += int64(time.Since(t1))
 			break
 		}
 		runtime.Gosched()

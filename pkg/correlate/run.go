@@ -87,6 +87,7 @@ func runWith(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tunin
 	tr.mark("propagate")
 	if tr != nil {
 		tr.sleeps, tr.waits, tr.spun = r.pool.sleeps.Load(), r.pool.waits, time.Duration(r.pool.spun.Load())
+		tr.slept, tr.waited = time.Duration(r.pool.slept.Load()), time.Duration(r.pool.waited)
 	}
 	res := &Result{Grid: r.grid, Points: r.pts, Options: r.opt}
 	res.Seeds = r.seedLog

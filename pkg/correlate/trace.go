@@ -15,6 +15,8 @@ type poolTrace struct {
 	regions []*traceBatch // the set-up steps shared out on the pool (shareOut), each part's time in cost
 	sleeps  int64         // times a helper went to sleep waiting for a batch
 	waits   int64         // times the caller went to sleep waiting for the last items
+	slept   time.Duration // time helpers spent asleep, from going to sleep to running again
+	waited  time.Duration // the same for the caller
 	spun    time.Duration // time spent spinning for work, all goroutines
 }
 
