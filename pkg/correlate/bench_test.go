@@ -157,8 +157,10 @@ func BenchmarkSolve(b *testing.B) {
 		{"first", First, tuning{}},
 		{"first-portable", First, tuning{portable: true}}, // the same as first without GOEXPERIMENT=simd
 		{"first-direct", First, tuning{direct: true}},
+		{"first-rows", First, tuning{table: tableRows}},
 		{"second", Second, tuning{}},
 		{"second-direct", Second, tuning{direct: true}},
+		{"second-rows", Second, tuning{table: tableRows}},
 	} {
 		b.Run(c.name, func(b *testing.B) {
 			r, err := newRun(context.Background(), ref, def, Options{Subset: 31, Step: 8, Shape: c.shape, Threads: 1}, c.tun)
@@ -257,3 +259,13 @@ func benchSeedSearch(b *testing.B, direct bool) {
 	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/shifts, "ns/shift")
 	b.ReportMetric(float64(cpu.Nanoseconds())/shifts, "cpu-ns/shift")
 }
+
+// BenchmarkRun1024Rows and BenchmarkRun1024SecondRows are BenchmarkRun1024
+// and BenchmarkRun1024Second with the row table (spline.RowTable), and
+// BenchmarkRun1024Cells and BenchmarkRun1024SecondCells with the bicubic
+// table (spline.Table), whichever the build uses by default: the two
+// tables compared in one binary.
+func BenchmarkRun1024Rows(b *testing.B)        { benchRun(b, First, tuning{table: tableRows}) }
+func BenchmarkRun1024SecondRows(b *testing.B)  { benchRun(b, Second, tuning{table: tableRows}) }
+func BenchmarkRun1024Cells(b *testing.B)       { benchRun(b, First, tuning{table: tableCells}) }
+func BenchmarkRun1024SecondCells(b *testing.B) { benchRun(b, Second, tuning{table: tableCells}) }

@@ -51,9 +51,9 @@ func (s *solver) solve(p0 [12]float64) attempt {
 		var sjg [12]float64
 		var ok bool
 		switch {
-		case s.tab != nil && s.np == 6:
+		case s.tabled() && s.np == 6:
 			ok = s.pass1fast(&p, &sg, &sgg, &sfg, &sjg)
-		case s.tab != nil:
+		case s.tabled():
 			ok = s.pass2fast(&p, &sg, &sgg, &sfg, &sjg)
 		case s.np == 6:
 			ok = s.pass1(&p, &sg, &sgg, &sfg, &sjg)

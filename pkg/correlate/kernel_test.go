@@ -28,27 +28,35 @@ func TestFastPathsMatchDirect(t *testing.T) {
 		ref, def := pair(t, m, 240, 220, c.bits, c.noise, 11)
 		for _, shape := range []Shape{First, Second} {
 			opt := Options{Subset: 25, Step: 6, Shape: shape}
-			fast, err := runWith(context.Background(), ref, def, opt, tuning{})
-			if err != nil {
-				t.Fatal(err)
-			}
 			direct, err := runWith(context.Background(), ref, def, opt, tuning{direct: true})
 			if err != nil {
 				t.Fatal(err)
 			}
-			var worst float64
-			for i, p := range fast.Points {
-				q := direct.Points[i]
-				if p.Status != q.Status {
-					t.Fatalf("%d-bit shape %d: point %d status %v, direct %v", c.bits, shape, i, p.Status, q.Status)
+			// Both tables: the bicubic one and the row table
+			// (spline.RowTable), whose samples round differently.
+			for _, kind := range []tableKind{tableCells, tableRows} {
+				name := ""
+				if kind == tableRows {
+					name = ", row table"
 				}
-				if p.Status == OK {
-					worst = math.Max(worst, math.Hypot(p.P[U]-q.P[U], p.P[V]-q.P[V]))
+				fast, err := runWith(context.Background(), ref, def, opt, tuning{table: kind})
+				if err != nil {
+					t.Fatal(err)
 				}
-			}
-			t.Logf("%d-bit shape %d: %d points, max displacement difference %.2g px", c.bits, shape, fast.Stats.OK, worst)
-			if fast.Stats.OK < fast.Stats.Total/2 || worst > 2e-5 {
-				t.Errorf("%d-bit shape %d: %d of %d points, fast and direct paths differ by up to %.2g px, want ≤ 2e-5", c.bits, shape, fast.Stats.OK, fast.Stats.Total, worst)
+				var worst float64
+				for i, p := range fast.Points {
+					q := direct.Points[i]
+					if p.Status != q.Status {
+						t.Fatalf("%d-bit shape %d%s: point %d status %v, direct %v", c.bits, shape, name, i, p.Status, q.Status)
+					}
+					if p.Status == OK {
+						worst = math.Max(worst, math.Hypot(p.P[U]-q.P[U], p.P[V]-q.P[V]))
+					}
+				}
+				t.Logf("%d-bit shape %d%s: %d points, max displacement difference %.2g px", c.bits, shape, name, fast.Stats.OK, worst)
+				if fast.Stats.OK < fast.Stats.Total/2 || worst > 2e-5 {
+					t.Errorf("%d-bit shape %d%s: %d of %d points, fast and direct paths differ by up to %.2g px, want ≤ 2e-5", c.bits, shape, name, fast.Stats.OK, fast.Stats.Total, worst)
+				}
 			}
 		}
 	}
@@ -252,7 +260,6 @@ func (s *solver) pass1tPixel(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]flo
 	fm := float64(m)
 	a11, a12, a21, a22 := 1+p[Ux], p[Uy], p[Vx], 1+p[Vy]
 	cx, cy := s.xc+p[U], s.yc+p[V]
-	tab := s.tab.Coefficients()
 	var tg, tgg, tfg float64
 	var acc [12]float64
 	dx, dy := int64(math.Round(a11*fixOne)), int64(math.Round(a21*fixOne))
@@ -263,15 +270,7 @@ func (s *solver) pass1tPixel(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]flo
 		y := fix(cy - a21*fm + a22*eta)
 		var a0, a1, b0, b1 float64
 		for i := -m; i <= m; i++ {
-			tx := float32(x&fixMask) * fixScale
-			ty := float32(y&fixMask) * fixScale
-			o := 16 * (int(y>>fixBits)*s.tab.W + int(x>>fixBits))
-			c := (*[16]float32)(tab[o : o+16])
-			r0 := c[0] + tx*(c[1]+tx*(c[2]+tx*c[3]))
-			r1 := c[4] + tx*(c[5]+tx*(c[6]+tx*c[7]))
-			r2 := c[8] + tx*(c[9]+tx*(c[10]+tx*c[11]))
-			r3 := c[12] + tx*(c[13]+tx*(c[14]+tx*c[15]))
-			v := float64(r0+ty*(r1+ty*(r2+ty*r3))) - s.fmean
+			v := float64(s.tableAt(x, y)) - s.fmean
 			tg += v
 			tgg += v * v
 			tfg += s.f[k] * v
@@ -299,12 +298,25 @@ func (s *solver) pass1tPixel(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]flo
 // The row segments of pass1t (a constant cell step and exactly advanced
 // offsets) give bitwise the sums of the per-pixel fixed-point coordinates,
 // for small strains and for warps whose cell steps are 0, ±1 or 2 and whose
-// fractional rest is negative, positive or zero.
+// fractional rest is negative, positive or zero; and so do those of pass1r
+// on the row table.
 func TestPass1tSegmentsExact(t *testing.T) {
+	for _, rows := range []bool{false, true} {
+		pass1SegmentsExact(t, rows)
+	}
+}
+
+func pass1SegmentsExact(t *testing.T, rows bool) {
 	id := func(x, y float64) (float64, float64) { return x, y }
 	img := gaussImage(120, 120, 5, id)
 	s := newTestSolver(t, img, img, Options{Subset: 21})
-	s.useTable(mustTable(t, img))
+	pass := s.pass1t
+	if rows {
+		s.useRowTable(mustRowTable(t, img))
+		pass = s.pass1r
+	} else {
+		s.useTable(mustTable(t, img))
+	}
 	if s.prepare(60, 59) != OK {
 		t.Fatal("prepare failed")
 	}
@@ -320,8 +332,8 @@ func TestPass1tSegmentsExact(t *testing.T) {
 	} {
 		var a, b [3]float64
 		var ja, jb [12]float64
-		if !s.pass1t(&p, &a[0], &a[1], &a[2], &ja) {
-			t.Fatalf("warp %v: pass1t left the image", p[:6])
+		if !pass(&p, &a[0], &a[1], &a[2], &ja) {
+			t.Fatalf("warp %v, row table %v: the pass left the image", p[:6], rows)
 		}
 		mag := s.pass1tPixel(&p, &b[0], &b[1], &b[2], &jb)
 		// Bitwise where every product is rounded on its own. Where the
@@ -339,7 +351,7 @@ func TestPass1tSegmentsExact(t *testing.T) {
 			ok = ok && same(ja[q], jb[q])
 		}
 		if !ok {
-			t.Errorf("warp %v: segments %v %v, per pixel %v %v", p[:6], a, ja[:6], b, jb[:6])
+			t.Errorf("warp %v, row table %v: segments %v %v, per pixel %v %v", p[:6], rows, a, ja[:6], b, jb[:6])
 		}
 	}
 }
@@ -355,6 +367,31 @@ func mustTable(t *testing.T, g *imageio.Gray) *spline.Table {
 		t.Fatal(err)
 	}
 	return tab
+}
+
+func mustRowTable(t *testing.T, g *imageio.Gray) *spline.RowTable {
+	t.Helper()
+	sp, err := spline.New(g, spline.Cubic)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tab, err := spline.NewRowTable(t.Context(), sp, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return tab
+}
+
+// tableAt evaluates the solver's table (the row table if it has one) at
+// the fixed-point position (x, y), as the passes do: a sample of the
+// plain per-pixel forms below.
+func (s *solver) tableAt(x, y int64) float32 {
+	tx, ty := float32(x&fixMask)*fixScale, float32(y&fixMask)*fixScale
+	ix, iy := int(x>>fixBits), int(y>>fixBits)
+	if s.rtab != nil {
+		return spline.EvalRows(s.rtab.Coefficients(), 4*(iy*s.rtab.W+ix), 4*s.rtab.W, tx, ty)
+	}
+	return spline.Eval(s.tab.Cell(ix, iy), tx, ty)
 }
 
 // passTableDirect is pass1t or pass2t (second) summed the plain way: the
@@ -377,8 +414,7 @@ func (s *solver) passTableDirect(p *[12]float64, second bool) (sum, abs [15]floa
 		dy := int64(math.Round((p[Vx] + p[Vxx]*(0.5-fm) + p[Vxy]*eta) * fixOne))
 		for i := -m; i <= m; i++ {
 			xi := float64(i)
-			c := s.tab.Cell(int(x>>fixBits), int(y>>fixBits))
-			v := float64(spline.Eval(c, float32(x&fixMask)*fixScale, float32(y&fixMask)*fixScale)) - s.fmean
+			v := float64(s.tableAt(x, y)) - s.fmean
 			a, b := s.fx[k]*v, s.fy[k]*v
 			terms := [15]float64{
 				v, v * v, s.f[k] * v,
@@ -399,17 +435,30 @@ func (s *solver) passTableDirect(p *[12]float64, second bool) (sum, abs [15]floa
 	return sum, abs
 }
 
-// The running sums by which pass1t and pass2t take the moments in ξ of a
-// subset row give the plainly summed moments to rounding (a relative
-// 1e-12 of the sum of the terms' magnitudes), and Σg, Σg², Σf̃g as well.
+// The running sums by which pass1t and pass2t (and pass1r and pass2r on
+// the row table) take the moments in ξ of a subset row give the plainly
+// summed moments to rounding (a relative 1e-12 of the sum of the terms'
+// magnitudes), and Σg, Σg², Σf̃g as well.
 func TestTablePassMomentsMatchDirect(t *testing.T) {
+	for _, rows := range []bool{false, true} {
+		tablePassMomentsMatchDirect(t, rows)
+	}
+}
+
+func tablePassMomentsMatchDirect(t *testing.T, rows bool) {
 	id := func(x, y float64) (float64, float64) { return x, y }
 	img := gaussImage(120, 120, 5, id)
 	// Parameter indices of the 12 second-order sums in passTableDirect's order.
 	order := [12]int{U, Ux, Uy, Uxx, Uxy, Uyy, V, Vx, Vy, Vxx, Vxy, Vyy}
 	for _, shape := range []Shape{First, Second} {
 		s := newTestSolver(t, img, img, Options{Subset: 21, Shape: shape})
-		s.useTable(mustTable(t, img))
+		pass1, pass2 := s.pass1t, s.pass2t
+		if rows {
+			s.useRowTable(mustRowTable(t, img))
+			pass1, pass2 = s.pass1r, s.pass2r
+		} else {
+			s.useTable(mustTable(t, img))
+		}
 		if s.prepare(60, 59) != OK {
 			t.Fatal("prepare failed")
 		}
@@ -425,12 +474,12 @@ func TestTablePassMomentsMatchDirect(t *testing.T) {
 			var jg [12]float64
 			ok := false
 			if shape == First {
-				ok = s.pass1t(&p, &got[0], &got[1], &got[2], &jg)
+				ok = pass1(&p, &got[0], &got[1], &got[2], &jg)
 			} else {
-				ok = s.pass2t(&p, &got[0], &got[1], &got[2], &jg)
+				ok = pass2(&p, &got[0], &got[1], &got[2], &jg)
 			}
 			if !ok {
-				t.Fatalf("shape %d warp %v: left the image", shape, p)
+				t.Fatalf("shape %d warp %v, row table %v: left the image", shape, p, rows)
 			}
 			want, abs := s.passTableDirect(&p, shape == Second)
 			var all [15]float64
@@ -443,7 +492,7 @@ func TestTablePassMomentsMatchDirect(t *testing.T) {
 					continue // second-order sums, not computed
 				}
 				if d := math.Abs(all[n] - want[n]); d > 1e-12*abs[n] {
-					t.Errorf("shape %d warp %v: sum %d is %v, plainly summed %v (|difference| %.2g of Σ|term| %.2g)", shape, p, n, all[n], want[n], d, abs[n])
+					t.Errorf("shape %d warp %v, row table %v: sum %d is %v, plainly summed %v (|difference| %.2g of Σ|term| %.2g)", shape, p, rows, n, all[n], want[n], d, abs[n])
 				}
 			}
 		}

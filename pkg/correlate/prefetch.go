@@ -32,7 +32,7 @@ func (s *solver) prefetch(xc, yc float64, p *[12]float64) {
 		prefetchSpan(unsafe.Pointer(&s.gx[o]), side, 4*s.ref.W, 4*side)
 		prefetchSpan(unsafe.Pointer(&s.gy[o]), side, 4*s.ref.W, 4*side)
 	}
-	if p == nil || s.tab == nil && s.def == nil {
+	if p == nil || !s.tabled() && s.def == nil {
 		return
 	}
 	// The cells that the warped subset covers lie within hx, hy of its
@@ -47,6 +47,8 @@ func (s *solver) prefetch(xc, yc float64, p *[12]float64) {
 	var w, h int
 	if s.tab != nil {
 		w, h = s.tab.W, s.tab.H
+	} else if s.rtab != nil {
+		w, h = s.rtab.W, s.rtab.H
 	} else {
 		w, h = s.def.W, s.def.H
 	}
@@ -58,6 +60,13 @@ func (s *solver) prefetch(xc, yc float64, p *[12]float64) {
 	if s.tab != nil {
 		tab := s.tab.Coefficients()
 		prefetchSpan(unsafe.Pointer(&tab[16*(y0*w+x0)]), y1-y0+1, 64*w, 64*(x1-x0+1))
+		return
+	}
+	if s.rtab != nil {
+		// Cell rows y0 … y1 read coefficient rows y0−1 … y1+2, which
+		// start at table row y0.
+		tab := s.rtab.Coefficients()
+		prefetchSpan(unsafe.Pointer(&tab[4*(y0*w+x0)]), y1-y0+4, 16*w, 16*(x1-x0+1))
 		return
 	}
 	// The spline's coefficients: the support reaches r = 1 (cubic) or 2

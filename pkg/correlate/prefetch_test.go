@@ -25,11 +25,13 @@ func TestPrefetchLeavesResults(t *testing.T) {
 		sh     Shape
 		interp spline.Order
 		direct bool
-	}{{First, spline.Cubic, false}, {Second, spline.Cubic, false}, {First, spline.Cubic, true}, {Second, spline.Quintic, false}} {
+		table  tableKind
+	}{{First, spline.Cubic, false, tableCells}, {First, spline.Cubic, false, tableRows}, {Second, spline.Cubic, false, tableCells}, {Second, spline.Cubic, false, tableRows},
+		{First, spline.Cubic, true, 0}, {Second, spline.Quintic, false, 0}} {
 		sh := c.sh
 		opt := Options{Subset: 21, Step: 5, Shape: sh, Interp: c.interp, Threads: 2}
 		var want []uint64
-		for _, tun := range []tuning{{noFetch: true, direct: c.direct}, {direct: c.direct}} {
+		for _, tun := range []tuning{{noFetch: true, direct: c.direct, table: c.table}, {direct: c.direct, table: c.table}} {
 			res, err := runWith(context.Background(), ref, def, opt, tun)
 			if err != nil {
 				t.Fatal(err)
@@ -53,14 +55,15 @@ func TestPrefetchAnyGuess(t *testing.T) {
 	for _, c := range []struct {
 		interp spline.Order
 		table  bool
-	}{{spline.Cubic, true}, {spline.Cubic, false}, {spline.Quintic, false}} {
-		prefetchAnyGuess(t, c.interp, c.table)
+		kind   tableKind
+	}{{spline.Cubic, true, tableCells}, {spline.Cubic, true, tableRows}, {spline.Cubic, false, 0}, {spline.Quintic, false, 0}} {
+		prefetchAnyGuess(t, c.interp, c.table, c.kind)
 	}
 }
 
-func prefetchAnyGuess(t *testing.T, interp spline.Order, table bool) {
+func prefetchAnyGuess(t *testing.T, interp spline.Order, table bool, kind tableKind) {
 	ref, def := pair(t, synth.Translation{U: 1.5, V: -0.5}, 64, 48, 8, 1, 5)
-	r, err := newRun(context.Background(), ref, def, Options{Subset: 21, Interp: interp, Threads: 1}, tuning{})
+	r, err := newRun(context.Background(), ref, def, Options{Subset: 21, Interp: interp, Threads: 1}, tuning{table: kind})
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -71,13 +74,19 @@ func prefetchAnyGuess(t *testing.T, interp spline.Order, table bool) {
 		}
 	}
 	s := r.solvers[0]
-	if (s.tab != nil) != table || (s.def != nil) == table {
-		t.Fatalf("table %v: solver has table %v, spline %v", table, s.tab != nil, s.def != nil)
+	if (s.tab != nil) != (table && kind == tableCells) || (s.rtab != nil) != (table && kind == tableRows) || (s.def != nil) == table {
+		t.Fatalf("table %v %v: solver has table %v, row table %v, spline %v", table, kind, s.tab != nil, s.rtab != nil, s.def != nil)
 	}
 	var tab0 []float32
 	var sp0 []float64
+	coef := func() []float32 {
+		if s.rtab != nil {
+			return s.rtab.Coefficients()
+		}
+		return s.tab.Coefficients()
+	}
 	if table {
-		tab0 = slices.Clone(s.tab.Coefficients())
+		tab0 = slices.Clone(coef())
 	} else {
 		c, _ := s.def.Coefficients()
 		sp0 = slices.Clone(c)
@@ -95,12 +104,12 @@ func prefetchAnyGuess(t *testing.T, interp spline.Order, table bool) {
 	}
 	same := slices.Equal(ref.Pix, pix0) && slices.Equal(r.gx, gx0) && slices.Equal(r.gy, gy0)
 	if table {
-		same = same && slices.Equal(s.tab.Coefficients(), tab0)
+		same = same && slices.Equal(coef(), tab0)
 	} else {
 		c, _ := s.def.Coefficients()
 		same = same && slices.Equal(c, sp0)
 	}
 	if !same {
-		t.Errorf("%v, table %v: prefetch changed the deformed image's data or the reference data", interp, table)
+		t.Errorf("%v, table %v %v: prefetch changed the deformed image's data or the reference data", interp, table, kind)
 	}
 }

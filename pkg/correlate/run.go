@@ -55,10 +55,25 @@ func Run(ctx context.Context, ref, def *imageio.Gray, opt Options) (*Result, err
 // tuning selects alternative inner paths for tests and benchmarks that
 // compare them with the default in the same run; the zero value is what Run
 // uses.
+// tableKind chooses the deformed-image table.
+type tableKind int8
+
+const (
+	tableDefault tableKind = iota // the build's choice, rowsDefault
+	tableCells                    // the bicubic table (spline.Table)
+	tableRows                     // the row table (spline.RowTable)
+)
+
+// rows reports whether the run tabulates the deformed image as a row table.
+func (t tuning) rows() bool {
+	return t.table == tableRows || t.table == tableDefault && rowsDefault
+}
+
 type tuning struct {
 	direct   bool       // interpolate from the B-spline coefficients even when a table would be used
 	portable bool       // use the portable table pass even in builds with a vector one
 	noFetch  bool       // no prefetch of a point's subsets (prefetch.go)
+	table    tableKind  // which table to build where one pays
 	trace    *poolTrace // record phase and batch timings (benchmarks)
 }
 
@@ -281,6 +296,7 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 	// (3) Both filtered along y; the table and gradients allocated; the
 	// grid marked.
 	var table *spline.Table
+	var rtable *spline.RowTable
 	nBlocks := parts(refB.Blocks(), blocks)
 	nMark := 0
 	if grid {
@@ -292,7 +308,9 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 		}
 		switch {
 		case k == 0:
-			if tab {
+			if tab && tun.rows() {
+				rtable = spline.AllocRowTable(w, h)
+			} else if tab {
 				table = spline.AllocTable(w, h)
 			}
 		case k == 1:
@@ -334,7 +352,11 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 			r.refSp.GradientRows(r.gx, r.gy, k*rows, min((k+1)*rows, h))
 		default:
 			k -= 1 + nRows
-			table.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
+			if rtable != nil {
+				rtable.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
+			} else {
+				table.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
+			}
 		}
 	})
 	if err := cancelled(); err != nil {
@@ -352,6 +374,12 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 	if table != nil {
 		for _, s := range r.solvers {
 			s.useTable(table)
+		}
+		r.defSp = nil
+	}
+	if rtable != nil {
+		for _, s := range r.solvers {
+			s.useRowTable(rtable)
 		}
 		r.defSp = nil
 	}
@@ -376,8 +404,24 @@ func (r *run) tabulate(ctx context.Context, npts int) error {
 		return nil
 	}
 	h := r.def.H
-	table := spline.AllocTable(r.def.W, h)
 	const rows = spline.RowChunk
+	if r.tun.rows() {
+		rt := spline.AllocRowTable(r.def.W, h)
+		r.shareOut((h+rows-1)/rows, func(k int) {
+			if ctx.Err() == nil {
+				rt.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
+			}
+		})
+		if err := ctx.Err(); err != nil {
+			return fmt.Errorf("correlate: deformed image: %w", err)
+		}
+		for _, s := range r.solvers {
+			s.useRowTable(rt)
+		}
+		r.defSp = nil
+		return nil
+	}
+	table := spline.AllocTable(r.def.W, h)
 	r.shareOut((h+rows-1)/rows, func(k int) {
 		if ctx.Err() == nil {
 			table.FillRows(r.defSp, k*rows, min((k+1)*rows, h))

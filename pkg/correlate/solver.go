@@ -69,6 +69,8 @@ type solver struct {
 	kern       []float64 // Gaussian prefilter kernel, nil when off
 	wpad       []float64 // scratch for smoothedVar
 	wtmp       []float64
+
+	rtab *spline.RowTable // deformed-image row table, or nil (then tab may be set)
 }
 
 func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, opt *Options, minStd float64) *solver {
@@ -144,6 +146,15 @@ func risingToPowers(m int) [5][5]float64 {
 func (s *solver) useTable(tab *spline.Table) {
 	s.tab, s.def = tab, nil
 }
+
+// useRowTable makes the solver interpolate the deformed image from rt, the
+// row table of the spline it was built with.
+func (s *solver) useRowTable(rt *spline.RowTable) {
+	s.rtab, s.def = rt, nil
+}
+
+// tabled reports whether the solver interpolates from a table.
+func (s *solver) tabled() bool { return s.tab != nil || s.rtab != nil }
 
 // edgeMargin is the distance in pixels that warped subsets keep from the
 // image edges for the given spline order.

@@ -17,11 +17,19 @@ import (
 // from pass1t's by rounding only (fused multiply-adds, another order of
 // evaluation and summation), which TestVectorPassMatchesPortable bounds.
 
+// rowsDefault reports whether Run tabulates the deformed image as a row
+// table (spline.RowTable) rather than the bicubic table (spline.Table):
+// not until a vector pass reads the row table.
+const rowsDefault = false
+
 // vectorPass reports whether this build and CPU use pass1v.
 var vectorPass = archsimd.X86.AVX512() && archsimd.X86.FMA()
 
 // pass1fast is the first-order table pass Run uses.
 func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
+	if s.rtab != nil {
+		return s.pass1r(p, sg, sgg, sfg, sjg)
+	}
 	if vectorPass && !s.portable {
 		return s.pass1v(p, sg, sgg, sfg, sjg)
 	}
@@ -79,6 +87,9 @@ func (s *solver) initVector() {
 
 // pass2fast is the second-order table pass Run uses.
 func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
+	if s.rtab != nil {
+		return s.pass2r(p, sg, sgg, sfg, sjg)
+	}
 	if vectorPass && !s.portable {
 		return s.pass2v(p, sg, sgg, sfg, sjg)
 	}
