@@ -102,6 +102,14 @@ func (s *Runner) solveAhead(ctx context.Context, j *jobs.Job, d jobs.Delivery) b
 		} else {
 			guess, from = guessState, last.FrameIndex
 		}
+		if series.StateRefersSolution(in.GuessState) {
+			// The state's points are those of the frame's solution: the
+			// same guess, read from there.
+			in.GuessState = nil
+			if in.Guess, err = s.ReadBlob(bg, SolveKey(sr.ID, last.FrameIndex)); err != nil {
+				in.Guess, guess, from = nil, guessNone, -1
+			}
+		}
 	}
 
 	s.metrics.inFlight(sr.ID, 1)
@@ -202,7 +210,12 @@ func (s *Runner) solvedFor(ctx context.Context, j *jobs.Job) []byte {
 // it is still being solved takes its guess from j's, moved on along the
 // step from the frame before j (series.Extrapolate), a read of two binary
 // solutions instead of the series state. The last two frames' solutions
-// stay until the series is deleted.
+// stay until the series is deleted. A state that names its frame's
+// solution for its points (series.StateBinaryRef) thus finds it: the
+// solution of frame k goes only once a frame after k has been added, and
+// the state after k is then no longer the series' last (a frame repeated
+// after a crash between its state and its record starts from the state
+// before, whose solution the drop, which comes after the record, has kept).
 func (s *Runner) dropSolved(ctx context.Context, j *jobs.Job) {
 	if j.FrameIndex < 2 {
 		return

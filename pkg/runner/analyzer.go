@@ -102,8 +102,14 @@ type FrameInput struct {
 	Params json.RawMessage
 	// State is the engine state after Last, nil for the first frame.
 	State []byte
+	// StateSolution reads the solution of the frame State was made after,
+	// which holds its points when State names it (series.DecodeStateWith).
+	StateSolution func() ([]byte, error)
 	// StateJSON asks for the new state (Result.State) as JSON rather than
-	// in the engine's binary form (Config.StateJSON).
+	// in the engine's binary form (Config.StateJSON). In the binary form,
+	// a frame added from its solution (Solved) stores a state that names
+	// the solution instead of holding its points (series.StateBinaryRef);
+	// the runner keeps the solution while that state is the series' last.
 	StateJSON bool
 	// Formats are the result formats to write, as for Input.
 	Formats string

@@ -267,7 +267,7 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 		tr, err = series.NewWith(in.Ref, series.FrameMeta{Name: ref}, p, series.Options{Mask: in.Mask})
 	} else {
 		var st series.State
-		if st, err = series.DecodeState(in.State); err != nil {
+		if st, err = series.DecodeStateWith(in.State, in.StateSolution); err != nil {
 			return nil, fmt.Errorf("stored series state: %w", err)
 		}
 		st.Params.Analysis.Threads = in.Threads
@@ -300,9 +300,12 @@ func (Pipeline) Frame(ctx context.Context, in FrameInput) (*Result, error) {
 	if err != nil {
 		return nil, err
 	}
-	if in.StateJSON {
+	switch {
+	case in.StateJSON:
 		res.State, err = tr.StateJSON()
-	} else {
+	case sol != nil:
+		res.State, err = tr.StateBinaryRef(in.Solved)
+	default:
 		res.State, err = tr.StateBinary()
 	}
 	if err != nil {

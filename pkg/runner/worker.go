@@ -268,6 +268,8 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 		if in.State, from, err = s.readState(ctx, j.Series, last.FrameIndex); err != nil {
 			return nil, fmt.Errorf("series state after frame %d: %w; the series cannot continue, start a new series", last.FrameIndex, err)
 		}
+		solKey := SolveKey(j.Series, last.FrameIndex)
+		in.StateSolution = func() ([]byte, error) { return s.ReadBlob(ctx, solKey) }
 		// The last frame is read only if the engine needs it (not for a
 		// frame of a direct-mode series added from its solution).
 		key := jobs.InputKey(last.ID, "deformed")

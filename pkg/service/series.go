@@ -545,11 +545,11 @@ func (s *Server) seriesCurve(ctx context.Context, sr *jobs.Series) (series.Curve
 		if err != nil {
 			break
 		}
-		st, err := series.DecodeState(b)
+		c, err := series.CurveOfState(b)
 		if err != nil {
 			return series.Curve{}, fmt.Errorf("stored series state: %w", err)
 		}
-		return s.withLive(sr, series.CurveOf(st)), nil
+		return s.withLive(sr, c), nil
 	}
 	ref := sr.ReferenceName
 	if ref == "" {
