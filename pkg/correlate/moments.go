@@ -16,7 +16,7 @@ import (
 // combined per point with the powers of η. Along x, the segments of grid
 // columns one step apart overlap the same way; for the first-order sums
 // each row is cut into blocks of one step, summed once and combined per
-// column (pieces1). prepare1m and prepare2m then
+// column (pieces). prepare1m and prepare2m then
 // read the subset once, to copy and centre it. The sums of a row and the
 // order of combination are fixed, so the moments do not depend on the
 // number of threads or on which goroutine computes them; prepare1m and
@@ -132,14 +132,15 @@ func (r *run) gridMoments(ctx context.Context) error {
 		}
 		var ring1 []rowSums1
 		var ring2 []rowSums2
-		var pc pieces1
+		var pc1 pieces[rowSums1, *rowSums1]
+		var pc2 pieces[rowSums2, *rowSums2]
 		if t.p2 != nil {
 			ring2 = make([]rowSums2, side*g.Nx)
+			pc2.init(need, side, g.Step)
 		} else {
 			ring1 = make([]rowSums1, side*g.Nx)
-			pc.init(need, side, g.Step)
+			pc1.init(need, side, g.Step)
 		}
-		row := make([]float64, 3*side)
 		y0, y1 := g.Y0+j0*g.Step-r.m, g.Y0+(j1-1)*g.Step+r.m
 		for y := y0; y <= y1; y++ {
 			if (y-y0)%64 == 0 && ctx.Err() != nil {
@@ -147,12 +148,9 @@ func (r *run) gridMoments(ctx context.Context) error {
 			}
 			slot := (y - y0) % side * g.Nx
 			if ring1 != nil {
-				s0.rowPieces1(&pc, ring1[slot:slot+g.Nx], need, g.X0-r.m, y)
-			}
-			for i, ok := range need {
-				if ok && ring2 != nil {
-					s0.rowSums2(&ring2[slot+i], g.X0+i*g.Step-r.m, y, row)
-				}
+				pc1.sums(s0, ring1[slot:slot+g.Nx], need, g.X0-r.m, y)
+			} else {
+				pc2.sums(s0, ring2[slot:slot+g.Nx], need, g.X0-r.m, y)
 			}
 			d := y - r.m - g.Y0
 			if d%g.Step != 0 || d/g.Step < j0 {
@@ -214,16 +212,13 @@ func (s *solver) moments2(p *moments2, iy int, ring []rowSums2, nx, i, y0 int) {
 	}
 }
 
-// rowSums2 sets q to the running sums of the 2m+1 pixels of image row y
-// from column x0 on; row is scratch of 3(2m+1) values.
-func (s *solver) rowSums2(q *rowSums2, x0, y int, row []float64) {
-	side := 2*s.m + 1
-	o := y*s.ref.Stride + x0
-	pix := s.ref.Pix[o : o+side]
-	o = y*s.ref.W + x0
-	f, fx, fy := row[:side], row[side:2*side], row[2*side:3*side]
-	copyRow2(q, pix, s.gx[o:o+side], s.gy[o:o+side], f, fx, fy)
-	f, fx, fy = f[:len(pix)], fx[:len(pix)], fy[:len(pix)]
+// set sets q to the running sums of the pixels pix with gradients gxs and
+// gys (of equal length); row is scratch of three times their length.
+func (q *rowSums2) set(pix, gxs, gys []float32, row []float64) {
+	n := len(pix)
+	f, fx, fy := row[:n], row[n:2*n], row[2*n:3*n]
+	copyRow2(q, pix, gxs, gys, f, fx, fy)
+	fx, fy = fx[:len(f)], fy[:len(f)]
 	var d0, d1, d2, e0, e1, e2 float64
 	for i := len(f) - 1; i >= 0; i-- {
 		v := f[i]
@@ -235,6 +230,62 @@ func (s *solver) rowSums2(q *rowSums2, x0, y int, row []float64) {
 		e2 += e1
 	}
 	q.bx, q.by = [3]float64{d0, d1, d2}, [3]float64{e0, e1, e2}
+}
+
+// binomials returns C(a+k−1, k) for k = 0 … 4: for a = j+1 the weights
+// C(j+k, k) of the pixel at index j in the running sums c_k, and for a = o
+// the coefficients of a shift by o, c_k ← Σ_i C(o+i−1, i)·c_(k−i)
+// (Vandermonde's identity).
+func binomials(a float64) [5]float64 {
+	b1 := a
+	b2 := b1 * (a + 1) / 2
+	b3 := b2 * (a + 2) / 3
+	b4 := b3 * (a + 3) / 4
+	return [5]float64{1, b1, b2, b3, b4}
+}
+
+// addPixel adds to q the pixel of value v and gradient (gx, gy) at index j
+// from the left end (weight C(j+k, k) in c_k).
+func (q *rowSums2) addPixel(v, gx, gy float64, w *[5]float64) {
+	xx, xy, yy := gx*gx, gx*gy, gy*gy
+	q.rs += v
+	for k := range 5 {
+		q.xx[k] += w[k] * xx
+		q.xy[k] += w[k] * xy
+		q.yy[k] += w[k] * yy
+	}
+	bx, by := gx*v, gy*v
+	for k := range 3 {
+		q.bx[k] += w[k] * bx
+		q.by[k] += w[k] * by
+		q.jx[k] += w[k] * gx
+		q.jy[k] += w[k] * gy
+	}
+}
+
+// addShifted adds to q the sums p of pixels o places further from the left
+// end than their own (see binomials).
+func (q *rowSums2) addShifted(p *rowSums2, b *[5]float64) {
+	q.rs += p.rs
+	shift5 := func(d, c *[5]float64) {
+		d[0] += c[0]
+		d[1] += c[1] + b[1]*c[0]
+		d[2] += c[2] + b[1]*c[1] + b[2]*c[0]
+		d[3] += c[3] + b[1]*c[2] + b[2]*c[1] + b[3]*c[0]
+		d[4] += c[4] + b[1]*c[3] + b[2]*c[2] + b[3]*c[1] + b[4]*c[0]
+	}
+	shift3 := func(d, c *[3]float64) {
+		d[0] += c[0]
+		d[1] += c[1] + b[1]*c[0]
+		d[2] += c[2] + b[1]*c[1] + b[2]*c[0]
+	}
+	shift5(&q.xx, &p.xx)
+	shift5(&q.xy, &p.xy)
+	shift5(&q.yy, &p.yy)
+	shift3(&q.bx, &p.bx)
+	shift3(&q.by, &p.by)
+	shift3(&q.jx, &p.jx)
+	shift3(&q.jy, &p.jy)
 }
 
 // copyRow2 copies one subset row's samples and gradients (pix, gxs, gys,
@@ -401,28 +452,54 @@ func (s *solver) moments1(p *moments1, iy int, ring []rowSums1, nx, i, y0 int) {
 	}
 }
 
-// pieces1 is the scratch of rowPieces1 for one row of a grid: the
-// segment of grid column i, the 2m+1 pixels from x0 + i·step on, is made
-// of q = (2m+1)/step blocks of step pixels, those that start where the
+// rowSummer is the row-sum type of one warp order (*rowSums1, *rowSums2)
+// with what pieces needs of it.
+type rowSummer[T any] interface {
+	*T
+	// set sets the sums of the pixels pix with gradients gxs and gys (of
+	// equal length; row is scratch of three times their length).
+	set(pix, gxs, gys []float32, row []float64)
+	// addPixel adds the pixel of value v and gradient (gx, gy) at index
+	// j from the left end, given w = binomials(j+1).
+	addPixel(v, gx, gy float64, w *[5]float64)
+	// addShifted adds the sums p of pixels o places further from the left
+	// end than their own, given b = binomials(o).
+	addShifted(p *T, b *[5]float64)
+}
+
+// pieces is the scratch of sums for one row of a grid: the segment of
+// grid column i, the 2m+1 pixels from x0 + i·step on, is made of
+// q = (2m+1)/step blocks of step pixels, those that start where the
 // segments of columns i … i+q−1 start, and the first rem = (2m+1) mod step
-// pixels of the block where the segment of column i+q starts. The sums of
-// each block and each such head are taken once per row and combined per
-// column (rowSums1.addShifted): every pixel of the row is read once
-// instead of about (2m+1)/step times.
-type pieces1 struct {
+// pixels (the head) of the block where the segment of column i+q starts.
+// The sums of each block and head are taken once per row and combined per
+// column: every pixel of the row is read once instead of about
+// (2m+1)/step times.
+type pieces[T any, P rowSummer[T]] struct {
 	q, rem, step int
-	head, block  []rowSums1 // sums of the first rem pixels, and of all step pixels, of block b
-	needHead     []bool     // head or block b is needed
-	needBlock    []bool     // block b is needed
+	head, block  []T    // sums of the first rem pixels, and of all step pixels, of block b
+	needHead     []bool // head or block b is needed
+	needBlock    []bool // block b is needed
+	row          []float64
+	wts          [][5]float64 // binomials(j+1) of the pixels j = rem … step−1 of a block
+	shift        [][5]float64 // binomials(k·step), k = 1 … q
 }
 
 // init sizes p for a row of grid columns of which need are computed, with
 // segments of side pixels that start step pixels apart.
-func (p *pieces1) init(need []bool, side, step int) {
+func (p *pieces[T, P]) init(need []bool, side, step int) {
 	p.q, p.rem, p.step = side/step, side%step, step
 	nb := len(need) + p.q
-	p.head, p.block = make([]rowSums1, nb), make([]rowSums1, nb)
+	p.head, p.block = make([]T, nb), make([]T, nb)
 	p.needHead, p.needBlock = make([]bool, nb), make([]bool, nb)
+	p.row = make([]float64, 3*step)
+	for j := p.rem; j < step; j++ {
+		p.wts = append(p.wts, binomials(float64(j+1)))
+	}
+	p.shift = make([][5]float64, p.q+1)
+	for k := range p.shift {
+		p.shift[k] = binomials(float64(k * step))
+	}
 	for i, ok := range need {
 		if !ok {
 			continue
@@ -434,12 +511,12 @@ func (p *pieces1) init(need []bool, side, step int) {
 	}
 }
 
-// rowPieces1 sets out[i] to the running sums (rowSums1) of the segment of
-// image row y of every grid column i with need[i], the columns' segments
-// starting at x0 + i·step, from the blocks and heads of p. The sums are
-// those of rowSums1 over the whole segment to rounding; each is formed in
-// the same order whichever columns are needed.
-func (s *solver) rowPieces1(p *pieces1, out []rowSums1, need []bool, x0, y int) {
+// sums sets out[i] to the running sums of the segment of image row y of
+// every grid column i with need[i], the columns' segments starting at
+// x0 + i·step, from the blocks and heads. They are those of the whole
+// segment to rounding; each is formed in the same order whichever columns
+// are needed.
+func (p *pieces[T, P]) sums(s *solver, out []T, need []bool, x0, y int) {
 	q, rem, st := p.q, p.rem, p.step
 	w := s.ref.W
 	pix := s.ref.Pix[y*s.ref.Stride : y*s.ref.Stride+w]
@@ -449,15 +526,14 @@ func (s *solver) rowPieces1(p *pieces1, out []rowSums1, need []bool, x0, y int) 
 			continue
 		}
 		x := x0 + b*st
-		h := &p.head[b]
-		h.set(pix[x:x+rem], gxs[x:x+rem], gys[x:x+rem])
+		P(&p.head[b]).set(pix[x:x+rem], gxs[x:x+rem], gys[x:x+rem], p.row)
 		if p.needBlock[b] {
 			// The rest of the block, each pixel with the weights of its
 			// place from the block's left end.
 			bl := &p.block[b]
-			*bl = *h
+			*bl = p.head[b]
 			for j := rem; j < st; j++ {
-				bl.addPixel(float64(pix[x+j]), float64(gxs[x+j]), float64(gys[x+j]), float64(j+1))
+				P(bl).addPixel(float64(pix[x+j]), float64(gxs[x+j]), float64(gys[x+j]), &p.wts[j-rem])
 			}
 		}
 	}
@@ -466,19 +542,22 @@ func (s *solver) rowPieces1(p *pieces1, out []rowSums1, need []bool, x0, y int) 
 		if !ok {
 			continue
 		}
-		o := &out[i]
-		*o = p.block[i]
-		for k := 1; k < q; k++ {
-			o.addShifted(&p.block[i+k], float64(k*st))
+		o := P(&out[i])
+		var zero T
+		out[i] = zero
+		o.addShifted(&p.head[i+q], &p.shift[q])
+		for k := q - 1; k >= 1; k-- {
+			o.addShifted(&p.block[i+k], &p.shift[k])
 		}
-		o.addShifted(&p.head[i+q], float64(q*st))
+		o.addShifted(&p.block[i], &p.shift[0])
 	}
 }
 
-// addPixel adds to q the pixel of value v and gradient (gx, gy) that has
-// the weights c₁: a = i+1 and c₂: a(a+1)/2 (see rowSums1).
-func (q *rowSums1) addPixel(v, gx, gy, a float64) {
-	a2 := a * (a + 1) / 2
+// addPixel adds to q the pixel of value v and gradient (gx, gy) at index j
+// from the left end: weight a = j+1 in c₁ and a(a+1)/2 in c₂ (see rowSums1),
+// w[1] and w[2] of w = binomials(j+1).
+func (q *rowSums1) addPixel(v, gx, gy float64, w *[5]float64) {
+	a, a2 := w[1], w[2]
 	xx, xy, yy := gx*gx, gx*gy, gy*gy
 	q.rs += v
 	q.xx0, q.xx1, q.xx2 = q.xx0+xx, q.xx1+a*xx, q.xx2+a2*xx
@@ -494,9 +573,10 @@ func (q *rowSums1) addPixel(v, gx, gy, a float64) {
 // addShifted adds to q the sums p of pixels o places further from the
 // segment's left end than their own: with i ↦ i + o (i counted from the
 // left, the loops of rowSums1 running from the right end), c₁ = Σ (i+1) w
-// gains o·c₀ and c₂ = Σ (i+1)(i+2)/2 w gains o·c₁ + o(o+1)/2·c₀.
-func (q *rowSums1) addShifted(p *rowSums1, o float64) {
-	h := o * (o + 1) / 2
+// gains o·c₀ and c₂ = Σ (i+1)(i+2)/2 w gains o·c₁ + o(o+1)/2·c₀, with
+// b = binomials(o) = [1, o, o(o+1)/2, …].
+func (q *rowSums1) addShifted(p *rowSums1, b *[5]float64) {
+	o, h := b[1], b[2]
 	q.rs += p.rs
 	q.xx0, q.xx1, q.xx2 = q.xx0+p.xx0, q.xx1+(p.xx1+o*p.xx0), q.xx2+(p.xx2+o*p.xx1+h*p.xx0)
 	q.xy0, q.xy1, q.xy2 = q.xy0+p.xy0, q.xy1+(p.xy1+o*p.xy0), q.xy2+(p.xy2+o*p.xy1+h*p.xy0)
@@ -509,7 +589,7 @@ func (q *rowSums1) addShifted(p *rowSums1, o float64) {
 
 // set sets q to the running sums of the pixels pix with gradients gxs
 // and gys (of equal length).
-func (q *rowSums1) set(pix, gxs, gys []float32) {
+func (q *rowSums1) set(pix, gxs, gys []float32, _ []float64) {
 	gxs, gys = gxs[:len(pix)], gys[:len(pix)]
 	var rs, xx0, xx1, xx2, xy0, xy1, xy2, yy0, yy1, yy2 float64
 	for i := len(pix) - 1; i >= 0; i-- {
