@@ -19,19 +19,24 @@ import (
 
 // rowsDefault reports whether Run tabulates the deformed image as a row
 // table (spline.RowTable) rather than the bicubic table (spline.Table):
-// not until a vector pass reads the row table.
-const rowsDefault = false
+// where the vector passes are used. They read a quarter of the bytes of
+// the bicubic table for a few more operations per sample (sampleRows),
+// which is faster in a run (BenchmarkRun1024Rows against
+// BenchmarkRun1024Cells) and takes 16 bytes per pixel instead of 64; the
+// portable row passes are slower than the portable bicubic ones, so
+// elsewhere the bicubic table stays.
+var rowsDefault = vectorPass
 
 // vectorPass reports whether this build and CPU use pass1v.
 var vectorPass = archsimd.X86.AVX512() && archsimd.X86.FMA()
 
 // pass1fast is the first-order table pass Run uses.
 func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
-	if s.rtab != nil {
-		return s.pass1r(p, sg, sgg, sfg, sjg)
-	}
-	if vectorPass && !s.portable {
+	switch {
+	case vectorPass && !s.portable && 2*s.m+1 >= 4:
 		return s.pass1v(p, sg, sgg, sfg, sjg)
+	case s.rtab != nil:
+		return s.pass1r(p, sg, sgg, sfg, sjg)
 	}
 	return s.pass1t(p, sg, sgg, sfg, sjg)
 }
@@ -43,6 +48,9 @@ func (s *solver) initVector() {
 	s.rowY = make([]int64, side)
 	s.half4 = [4]float64{0.5, 0.5, 0.5, 0.5}
 	s.scale4 = [4]float64{1.0 / fixOne, 1.0 / fixOne, 1.0 / fixOne, 1.0 / fixOne}
+	for l := range s.scale8 {
+		s.scale8[l] = 1.0 / fixOne
+	}
 	s.rowDX = make([]int64, side)
 	s.rowDY = make([]int64, side)
 	s.etas = make([]float64, 4*side)
@@ -77,6 +85,13 @@ func (s *solver) initVector() {
 			s.tailBits8 |= 1 << l
 		}
 	}
+	for l := range 16 {
+		s.rowSpread[l] = uint32(4 + l/4)
+		s.three16[l] = 3
+		for i := range 4 {
+			s.rowPick[i][l] = uint32(4*(l%4) + i)
+		}
+	}
 	nv, last := side&^3, side-4
 	for l := range s.lastW {
 		if last+l >= nv {
@@ -87,11 +102,11 @@ func (s *solver) initVector() {
 
 // pass2fast is the second-order table pass Run uses.
 func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
-	if s.rtab != nil {
-		return s.pass2r(p, sg, sgg, sfg, sjg)
-	}
-	if vectorPass && !s.portable {
+	switch {
+	case vectorPass && !s.portable && 2*s.m+1 >= 4:
 		return s.pass2v(p, sg, sgg, sfg, sjg)
+	case s.rtab != nil:
+		return s.pass2r(p, sg, sgg, sfg, sjg)
 	}
 	return s.pass2t(p, sg, sgg, sfg, sjg)
 }
@@ -110,9 +125,6 @@ func (s *solver) pass2v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	m := s.m
 	fm := float64(m)
 	side := 2*m + 1
-	if side < 4 {
-		return s.pass2t(p, sg, sgg, sfg, sjg)
-	}
 	s.lim = [3]int64{fix(s.lo), fix(s.defW), fix(s.defH)}
 	ddx, ddy := int64(math.Round(p[Uxx]*fixOne)), int64(math.Round(p[Vxx]*fixOne))
 	// Scalar prologue: each row's fixed-point start and first differences
@@ -174,17 +186,17 @@ func (s *solver) row2v(x0, y0, dx0, dy0, ddx, ddy int64) bool {
 	dxL, dyL := dx0+last*ddx, dy0+last*ddy
 	for l := int64(0); l < 4; l++ {
 		t := l * (l - 1) / 2
-		rv[0][l], rv[1][l] = l*dx0+t*ddx, l*dy0+t*ddy
-		rv[2][l], rv[3][l] = l*dxL+t*ddx, l*dyL+t*ddy
-		rv[4][l], rv[5][l] = 4*dx0+(4*l+6)*ddx, 4*dy0+(4*l+6)*ddy
-		rv[6][l], rv[7][l] = 16*ddx, 16*ddy
+		rv[0][l], rv[0][4+l] = l*dx0+t*ddx, l*dy0+t*ddy
+		rv[1][l], rv[1][4+l] = l*dxL+t*ddx, l*dyL+t*ddy
+		rv[2][l], rv[2][4+l] = 4*dx0+(4*l+6)*ddx, 4*dy0+(4*l+6)*ddy
+		rv[3][l], rv[3][4+l] = 16*ddx, 16*ddy
 	}
-	xl := archsimd.BroadcastInt64x4(x0).Add(archsimd.LoadInt64x4(&rv[0]))
-	yl := archsimd.BroadcastInt64x4(y0).Add(archsimd.LoadInt64x4(&rv[1]))
-	dx, dy := archsimd.LoadInt64x4(&rv[4]), archsimd.LoadInt64x4(&rv[5])
-	ddx4, ddy4 := archsimd.LoadInt64x4(&rv[6]), archsimd.LoadInt64x4(&rv[7])
-	xmin := archsimd.BroadcastInt64x4(xL).Add(archsimd.LoadInt64x4(&rv[2]))
-	ymin := archsimd.BroadcastInt64x4(yL).Add(archsimd.LoadInt64x4(&rv[3]))
+	xl := archsimd.BroadcastInt64x4(x0).Add(archsimd.LoadInt64x4((*[4]int64)(rv[0][:4])))
+	yl := archsimd.BroadcastInt64x4(y0).Add(archsimd.LoadInt64x4((*[4]int64)(rv[0][4:])))
+	dx, dy := archsimd.LoadInt64x4((*[4]int64)(rv[2][:4])), archsimd.LoadInt64x4((*[4]int64)(rv[2][4:]))
+	ddx4, ddy4 := archsimd.LoadInt64x4((*[4]int64)(rv[3][:4])), archsimd.LoadInt64x4((*[4]int64)(rv[3][4:]))
+	xmin := archsimd.BroadcastInt64x4(xL).Add(archsimd.LoadInt64x4((*[4]int64)(rv[1][:4])))
+	ymin := archsimd.BroadcastInt64x4(yL).Add(archsimd.LoadInt64x4((*[4]int64)(rv[1][4:])))
 	xmax, ymax := xmin, ymin
 	for i := 0; i+4 <= n; i += 4 {
 		xmin, xmax = xmin.Min(xl), xmax.Max(xl)
@@ -197,7 +209,7 @@ func (s *solver) row2v(x0, y0, dx0, dy0, ddx, ddy int64) bool {
 	if xmin.Less(lo4).Or(xmax.Greater(hx4)).Or(ymin.Less(lo4)).Or(ymax.Greater(hy4)).ToBits() != 0 {
 		return false
 	}
-	s.sampleRow(x0, y0, xL, yL)
+	s.sample(x0, y0, xL, yL)
 	return true
 }
 
@@ -287,9 +299,6 @@ func (s *solver) pass1v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	m := s.m
 	fm := float64(m)
 	side := 2*m + 1
-	if side < 4 {
-		return s.pass1t(p, sg, sgg, sfg, sjg)
-	}
 	a11, a12, a21, a22 := 1+p[Ux], p[Uy], p[Vx], 1+p[Vy]
 	cx, cy := s.xc+p[U], s.yc+p[V]
 	for _, c := range [4][2]float64{{-fm, -fm}, {fm, -fm}, {-fm, fm}, {fm, fm}} {
@@ -309,16 +318,16 @@ func (s *solver) pass1v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	rv := &s.rv
 	last := int64(side - 4)
 	for l := range int64(4) {
-		rv[0][l], rv[1][l] = l*dx, l*dy
-		rv[2][l], rv[3][l] = l*dx, l*dy
-		rv[4][l], rv[5][l] = 4*dx, 4*dy
-		rv[6][l], rv[7][l] = 0, 0
+		rv[0][l], rv[0][4+l] = l*dx, l*dy
+		rv[1][l], rv[1][4+l] = l*dx, l*dy
+		rv[2][l], rv[2][4+l] = 4*dx, 4*dy
+		rv[3][l], rv[3][4+l] = 0, 0
 	}
 	s.vout = [9][4]float64{}
 	s.fmean4 = [4]float64{s.fmean, s.fmean, s.fmean, s.fmean}
 	k := 0
 	for j := 0; j < side; j++ {
-		s.sampleRow(rx[j], ry[j], rx[j]+last*dx, ry[j]+last*dy)
+		s.sample(rx[j], ry[j], rx[j]+last*dx, ry[j]+last*dy)
 		s.acc1v(k, j)
 		k += side
 	}
@@ -334,7 +343,17 @@ func (s *solver) pass1v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	return true
 }
 
-// sampleRow interpolates the table at the fixed-point positions of a
+// sample interpolates a subset row (see sampleRow) from the solver's
+// table: the row table if it has one (sampleRows), else the bicubic one.
+func (s *solver) sample(x, y, xL, yL int64) {
+	if s.rtab != nil {
+		s.sampleRows(x, y, xL, yL)
+		return
+	}
+	s.sampleRow(x, y, xL, yL)
+}
+
+// sampleRow interpolates the bicubic table at the fixed-point positions of a
 // subset row (inside the table) into s.gbuf, four pixels at a time, the
 // last group overlapping the one before unless the side is a multiple of
 // four. The first group's first pixel is at (x, y), the last's at (xL,
@@ -357,15 +376,15 @@ func (s *solver) sampleRow(x, y, xL, yL int64) {
 	rv := &s.rv
 	mask := archsimd.BroadcastInt64x4(fixMask)
 	scale := archsimd.LoadFloat64x4(&s.scale4)
-	xl := archsimd.BroadcastInt64x4(x).Add(archsimd.LoadInt64x4(&rv[0]))
-	yl := archsimd.BroadcastInt64x4(y).Add(archsimd.LoadInt64x4(&rv[1]))
-	dx, dy := archsimd.LoadInt64x4(&rv[4]), archsimd.LoadInt64x4(&rv[5])
+	xl := archsimd.BroadcastInt64x4(x).Add(archsimd.LoadInt64x4((*[4]int64)(rv[0][:4])))
+	yl := archsimd.BroadcastInt64x4(y).Add(archsimd.LoadInt64x4((*[4]int64)(rv[0][4:])))
+	dx, dy := archsimd.LoadInt64x4((*[4]int64)(rv[2][:4])), archsimd.LoadInt64x4((*[4]int64)(rv[2][4:]))
 	w4 := archsimd.BroadcastInt64x4(int64(w)).AsUint32x8()
 	for i := 0; i < len(g); i += 4 {
 		if i > last {
 			i = last
-			xl = archsimd.BroadcastInt64x4(xL).Add(archsimd.LoadInt64x4(&rv[2]))
-			yl = archsimd.BroadcastInt64x4(yL).Add(archsimd.LoadInt64x4(&rv[3]))
+			xl = archsimd.BroadcastInt64x4(xL).Add(archsimd.LoadInt64x4((*[4]int64)(rv[1][:4])))
+			yl = archsimd.BroadcastInt64x4(yL).Add(archsimd.LoadInt64x4((*[4]int64)(rv[1][4:])))
 		}
 		txs := xl.And(mask).ConvertToFloat64().Mul(scale).ConvertToFloat32()
 		tys := yl.And(mask).ConvertToFloat64().Mul(scale).ConvertToFloat32()
@@ -388,7 +407,7 @@ func (s *solver) sampleRow(x, y, xL, yL int64) {
 		v := c3.MulAdd(txs, c2).MulAdd(txs, c1).MulAdd(txs, c0)
 		v.ConvertToFloat64().Store((*[4]float64)(g[i : i+4]))
 		xl, yl = xl.Add(dx), yl.Add(dy)
-		dx, dy = dx.Add(archsimd.LoadInt64x4(&rv[6])), dy.Add(archsimd.LoadInt64x4(&rv[7]))
+		dx, dy = dx.Add(archsimd.LoadInt64x4((*[4]int64)(rv[3][:4]))), dy.Add(archsimd.LoadInt64x4((*[4]int64)(rv[3][4:])))
 	}
 }
 

@@ -1,0 +1,91 @@
+//go:build goexperiment.simd && amd64
+
+package correlate
+
+import "simd/archsimd"
+
+// The vector passes' interpolation from a row table (spline.RowTable):
+// for each pixel the four row polynomials of coefficient rows y−1 … y+2
+// over its cell, 4 float32 each (coefficients of tx⁰ … tx³). Four pixels
+// of a subset row are held in one 512-bit vector per table row, lanes
+// (pixel, power of tx): where the four cells are neighbours in one row
+// (almost always along a subset row of a small deformation), that vector
+// is one load of 64 bytes; otherwise it is put together from four 16-byte
+// loads. The rows are combined by the cubic B-spline basis in ty as in
+// spline.EvalRows (its coefficients e₀ … e₃ of ty's powers, here combined
+// per power of tx, then Horner's rule in ty), the result is transposed to
+// lanes per pixel and finished by Horner's rule in tx across the four
+// pixels. The operations are EvalRows' in another order, so the values
+// differ from it by float32 rounding only (TestVectorRowsMatchEvalRows).
+
+// sampleRows is sampleRow for the solver's row table: it interpolates the
+// subset row whose groups s.rv describe (see sampleRow) into s.gbuf.
+//
+//go:noinline
+func (s *solver) sampleRows(x, y, xL, yL int64) {
+	a, w := s.rtab.Coefficients(), s.rtab.W
+	g := s.gbuf[:2*s.m+1]
+	last := len(g) - 4
+	stride := 4 * w
+	offs := &s.offs
+	w4 := archsimd.BroadcastInt64x4(int64(w)).AsUint32x8()
+	rv := &s.rv
+	mask := archsimd.BroadcastInt64x8(fixMask)
+	scale := archsimd.LoadFloat64x8(&s.scale8)
+	lo := archsimd.Mask64x8FromBits(0x0f) // lanes 0–3: x
+	xy := archsimd.BroadcastInt64x8(x).Merge(archsimd.BroadcastInt64x8(y), lo).Add(archsimd.LoadInt64x8(&rv[0]))
+	dxy := archsimd.LoadInt64x8(&rv[2])
+	for i := 0; i < len(g); i += 4 {
+		if i > last {
+			i = last
+			xy = archsimd.BroadcastInt64x8(xL).Merge(archsimd.BroadcastInt64x8(yL), lo).Add(archsimd.LoadInt64x8(&rv[1]))
+		}
+		// Lanes 0–3 tx, 4–7 ty of the four pixels.
+		t := archsimd.Float32x16{}.SetLo(xy.And(mask).ConvertToFloat64().Mul(scale).ConvertToFloat32())
+		// Offsets 4·(⌊y⌋·w + ⌊x⌋) of the cells' first rows (y − 1).
+		cl := xy.ShiftAllRight(fixBits)
+		cl.GetHi().AsUint32x8().MulEvenWiden(w4).AsInt64x4().Add(cl.GetLo()).ShiftAllLeft(2).Store(offs)
+		o0, o1, o2, o3 := int(offs[0]), int(offs[1]), int(offs[2]), int(offs[3])
+		var r0, r1, r2, r3 archsimd.Float32x16
+		if (o1-o0-4)|(o2-o0-8)|(o3-o0-12) == 0 {
+			r0 = archsimd.LoadFloat32x16((*[16]float32)(a[o0 : o0+16]))
+			r1 = archsimd.LoadFloat32x16((*[16]float32)(a[o0+stride : o0+stride+16]))
+			r2 = archsimd.LoadFloat32x16((*[16]float32)(a[o0+2*stride : o0+2*stride+16]))
+			r3 = archsimd.LoadFloat32x16((*[16]float32)(a[o0+3*stride : o0+3*stride+16]))
+		} else {
+			r0 = gather4(a, o0, o1, o2, o3)
+			r1 = gather4(a, o0+stride, o1+stride, o2+stride, o3+stride)
+			r2 = gather4(a, o0+2*stride, o1+2*stride, o2+2*stride, o3+2*stride)
+			r3 = gather4(a, o0+3*stride, o1+3*stride, o2+3*stride, o3+3*stride)
+		}
+		ty := t.Permute(archsimd.LoadUint32x16(&s.rowSpread)) // ty in the four lanes of each pixel
+		three := archsimd.LoadFloat32x16(&s.three16)
+		// combineRows per power of tx: e0 = (r0 + r2) + 4r1, e1 = 3(r2 − r0),
+		// e2 = 3((r0 + r2) − 2r1), e3 = (r3 − r0) + 3(r1 − r2).
+		sum := r0.Add(r2)
+		b := r1.Add(r1)
+		e0 := sum.Add(b.Add(b))
+		e1 := r2.Sub(r0).Mul(three)
+		e2 := sum.Sub(b).Mul(three)
+		e3 := r1.Sub(r2).MulAdd(three, r3.Sub(r0))
+		c := e3.MulAdd(ty, e2).MulAdd(ty, e1).MulAdd(ty, e0)
+		// Horner in tx (lanes 0–3 of t) on the coefficients of each
+		// power, lane p for pixel p.
+		c0 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[0]))
+		c1 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[1]))
+		c2 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[2]))
+		c3 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[3]))
+		v := c3.MulAdd(t, c2).MulAdd(t, c1).MulAdd(t, c0)
+		v.GetLo().GetLo().ConvertToFloat64().Store((*[4]float64)(g[i : i+4]))
+		xy = xy.Add(dxy)
+		dxy = dxy.Add(archsimd.LoadInt64x8(&rv[3]))
+	}
+}
+
+// gather4 puts the four row polynomials at a[o0], a[o1], a[o2], a[o3]
+// into one vector, lanes (pixel, power of tx).
+func gather4(a []float32, o0, o1, o2, o3 int) archsimd.Float32x16 {
+	lo := archsimd.Float32x8{}.SetLo(archsimd.LoadFloat32x4((*[4]float32)(a[o0 : o0+4]))).SetHi(archsimd.LoadFloat32x4((*[4]float32)(a[o1 : o1+4])))
+	hi := archsimd.Float32x8{}.SetLo(archsimd.LoadFloat32x4((*[4]float32)(a[o2 : o2+4]))).SetHi(archsimd.LoadFloat32x4((*[4]float32)(a[o3 : o3+4])))
+	return archsimd.Float32x16{}.SetLo(lo).SetHi(hi)
+}
