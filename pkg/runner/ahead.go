@@ -147,6 +147,13 @@ func (s *Runner) solveAhead(ctx context.Context, j *jobs.Job, d jobs.Delivery) b
 		}
 		return false
 	}
+	// Store it only while the frame waits: once another worker has the
+	// frame (this one's delivery ran out while it stalled), that worker
+	// may be adding it from the solution stored before, and its state may
+	// name that one (keepSolution).
+	if cur, err := s.store.Job(bg, id); err != nil || cur.State != jobs.Queued {
+		return false
+	}
 	if err := s.blobs.Put(bg, key, bytes.NewReader(b)); err != nil {
 		l.Warn("store frame solution", "error", err)
 		return false

@@ -454,3 +454,76 @@ func TestSeriesShareWorkers(t *testing.T) {
 		t.Errorf("the second series added its frame %d %v after the first series' last; it waited for the first series", n/2, tb[n/2-1].Sub(ta[n-1]))
 	}
 }
+
+// TestKeepSolution: a frame added from its solution stores a state that
+// names it; when the stored solution is no longer the one the frame was
+// added from (a worker whose delivery ran out stored its own), the state
+// is stored again with its points (version 1), the same state, so the
+// series can continue; while it is the same, the state stays as it is.
+func TestKeepSolution(t *testing.T) {
+	ref, imgs, p := aheadSeries(t, 2)
+	ctx := context.Background()
+	tr, err := series.New(ref, series.FrameMeta{Name: "reference"}, p)
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := tr.Add(ctx, imgs[0], series.FrameMeta{}); err != nil {
+		t.Fatal(err)
+	}
+	sol, err := series.Solve(ctx, ref, imgs[1], p, series.Options{}, tr.State().Solution(), nil)
+	if err != nil {
+		t.Fatal(err)
+	}
+	sb, err := sol.MarshalBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	if _, err := tr.AddSolved(ctx, imgs[1], series.FrameMeta{}, sol); err != nil {
+		t.Fatal(err)
+	}
+	v1, err := tr.StateBinary()
+	if err != nil {
+		t.Fatal(err)
+	}
+	v2, err := tr.StateBinaryRef(sb)
+	if err != nil || !series.StateRefersSolution(v2) {
+		t.Fatalf("the state does not name the solution: %v", err)
+	}
+	be, err := embedded.Open(t.TempDir(), 8)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer be.Close()
+	s, err := New(Config{Backend: be, Analyzer: Pipeline{}, Workers: 1, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
+	if err != nil {
+		t.Fatal(err)
+	}
+	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Frame, Series: jobs.NewID(), FrameIndex: 1}
+	other := append([]byte(nil), sb...)
+	other[len(other)-1] ^= 1
+	for _, c := range []struct {
+		name   string
+		stored []byte
+		want   []byte
+	}{{"the same solution", sb, v2}, {"another solution", other, v1}} {
+		if err := be.Blobs.Put(ctx, SolveKey(j.Series, 1), bytes.NewReader(c.stored)); err != nil {
+			t.Fatal(err)
+		}
+		key := BinaryStateKey(j.Series, 1)
+		if err := be.Blobs.Put(ctx, key, bytes.NewReader(v2)); err != nil {
+			t.Fatal(err)
+		}
+		res := &Result{State: v2, solved: sb}
+		if err := s.keepSolution(ctx, j, res); err != nil {
+			t.Fatal(err)
+		}
+		got, err := s.ReadBlob(ctx, key)
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !bytes.Equal(got, c.want) || !bytes.Equal(res.State, c.want) {
+			t.Errorf("%s: the stored state is not the one expected (version 2 named %v, stored %v)", c.name,
+				series.StateRefersSolution(c.want), series.StateRefersSolution(got))
+		}
+	}
+}

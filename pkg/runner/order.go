@@ -5,6 +5,7 @@ import (
 	"errors"
 	"fmt"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/mottledic/mottle/pkg/series"
@@ -20,7 +21,7 @@ import (
 func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
 	wctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	done := s.framesDone(wctx, id)
+	done, watching := s.framesDone(wctx, id)
 	start := s.clock.Now()
 	beat := start
 	var idle time.Time // since when the previous frame has been seen not running
@@ -28,7 +29,7 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 	held := time.Now() // since when the frame has been held, not solving
 	defer func() { s.metrics.held(time.Since(held).Seconds()) }()
 	var looked time.Time // when yieldFrame last looked
-	for wait := 10 * time.Millisecond; ; wait = min(2*wait, framePoll) {
+	for wait := 10 * time.Millisecond; ; wait = nextWait(wait, watching.Load()) {
 		// One look: the frame's own record (a cancel shows there), and
 		// through the gate its predecessor's; solving ahead and yielding
 		// use the same record rather than reading it again.
@@ -76,17 +77,21 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 // framesDone returns a channel that receives when a frame of job id's
 // series finishes that changes what the frame gate would find (wakes):
 // its predecessor, whose end opens the gate, or the frame MaxInFlight
-// before it, whose end lets it be solved ahead. The gate then looks again
-// at once rather than at its next poll, so that the hand-over from a frame
-// to the next, solved ahead and waiting, does not wait for the poll
-// interval; other frames finishing wake nothing (each look reads the
-// frame's, the series' and the predecessor's records). The channel never
-// receives (the gate polls only) for a job that is not a later frame of a
-// series, or when the store cannot watch the series, until ctx ends.
-// The watch is set up in the background, so that a store slow to start
-// it (a distributed store loads its mirror first) never delays the gate.
-func (s *Runner) framesDone(ctx context.Context, id string) <-chan struct{} {
+// before it, whose end lets it be solved ahead; or when the job's own
+// record changes (a cancel). The gate then looks again at once rather
+// than at its next poll, so that the hand-over from a frame to the next,
+// solved ahead and waiting, does not wait for the poll interval; other
+// frames finishing wake nothing (each look reads the frame's and the
+// predecessor's records). The channel never receives (the gate polls
+// only) for a job that is not a later frame of a series, or when the
+// store cannot watch the series, until ctx ends. The watch is set up in
+// the background, so that a store slow to start it (a distributed store
+// loads its mirror first) never delays the gate; watching reports
+// whether it is on, and the gate then polls only as a safety net
+// (nextWait).
+func (s *Runner) framesDone(ctx context.Context, id string) (<-chan struct{}, *atomic.Bool) {
 	out := make(chan struct{}, 1)
+	watching := new(atomic.Bool)
 	go func() {
 		j, err := s.store.Job(ctx, id)
 		if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
@@ -100,8 +105,10 @@ func (s *Runner) framesDone(ctx context.Context, id string) <-chan struct{} {
 		if err != nil {
 			return
 		}
+		watching.Store(true)
+		defer watching.Store(false)
 		for f := range w {
-			if wakes(f, j.FrameIndex, bound) {
+			if f.ID == id || wakes(f, j.FrameIndex, bound) {
 				select {
 				case out <- struct{}{}:
 				default: // a look is due already
@@ -109,8 +116,24 @@ func (s *Runner) framesDone(ctx context.Context, id string) <-chan struct{} {
 			}
 		}
 	}()
-	return out
+	return out, watching
 }
+
+// nextWait is the pause before the gate's next look after a pause of
+// wait: doubling up to framePoll while the gate polls alone, and
+// framePollWatched while a watch of the series wakes it (framesDone).
+func nextWait(wait time.Duration, watching bool) time.Duration {
+	if watching {
+		return framePollWatched
+	}
+	return min(2*wait, framePoll)
+}
+
+// framePollWatched is the pause between two looks of a held frame while
+// a watch of its series wakes it at every change that matters: the looks
+// are then only a safety net, each two record reads that the nodes of a
+// cluster answer (with 50 ms, five to ten of them a frame).
+const framePollWatched = 250 * time.Millisecond
 
 // wakes reports whether the update f of a job of a series is the end of a
 // frame that frame n, held with at most bound frames of its series in
