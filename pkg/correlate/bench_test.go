@@ -269,3 +269,10 @@ func BenchmarkRun1024Rows(b *testing.B)        { benchRun(b, First, tuning{table
 func BenchmarkRun1024SecondRows(b *testing.B)  { benchRun(b, Second, tuning{table: tableRows}) }
 func BenchmarkRun1024Cells(b *testing.B)       { benchRun(b, First, tuning{table: tableCells}) }
 func BenchmarkRun1024SecondCells(b *testing.B) { benchRun(b, Second, tuning{table: tableCells}) }
+
+// BenchmarkRun1024SeriesDirect is BenchmarkRun1024Series without the
+// quintic row table (the spline evaluated directly): its baseline in the
+// same binary.
+func BenchmarkRun1024SeriesDirect(b *testing.B) {
+	benchRunOpt(b, Options{Subset: 31, Step: 8, Interp: spline.Quintic, Prefilter: 0.8}, tuning{direct: true})
+}

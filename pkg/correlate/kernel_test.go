@@ -28,18 +28,29 @@ func TestFastPathsMatchDirect(t *testing.T) {
 		ref, def := pair(t, m, 240, 220, c.bits, c.noise, 11)
 		for _, shape := range []Shape{First, Second} {
 			opt := Options{Subset: 25, Step: 6, Shape: shape}
+			optQ := opt
+			optQ.Interp = spline.Quintic
 			direct, err := runWith(context.Background(), ref, def, opt, tuning{direct: true})
 			if err != nil {
 				t.Fatal(err)
 			}
 			// Both tables: the bicubic one and the row table
-			// (spline.RowTable), whose samples round differently.
-			for _, kind := range []tableKind{tableCells, tableRows} {
-				name := ""
-				if kind == tableRows {
-					name = ", row table"
+			// (spline.RowTable), whose samples round differently; and
+			// the quintic row table against the quintic spline.
+			directQ, err := runWith(context.Background(), ref, def, optQ, tuning{direct: true})
+			if err != nil {
+				t.Fatal(err)
+			}
+			for kind := range 3 {
+				name, opt, direct := "", opt, direct
+				tun := tuning{table: tableCells}
+				switch kind {
+				case 1:
+					name, tun.table = ", row table", tableRows
+				case 2:
+					name, opt, direct = ", quintic row table", optQ, directQ
 				}
-				fast, err := runWith(context.Background(), ref, def, opt, tuning{table: kind})
+				fast, err := runWith(context.Background(), ref, def, opt, tun)
 				if err != nil {
 					t.Fatal(err)
 				}
@@ -299,24 +310,33 @@ func (s *solver) pass1tPixel(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]flo
 // offsets) give bitwise the sums of the per-pixel fixed-point coordinates,
 // for small strains and for warps whose cell steps are 0, ±1 or 2 and whose
 // fractional rest is negative, positive or zero; and so do those of pass1r
-// on the row table.
+// on the row table and pass1q on the quintic row table (kind 1, 2).
 func TestPass1tSegmentsExact(t *testing.T) {
-	for _, rows := range []bool{false, true} {
-		pass1SegmentsExact(t, rows)
+	for kind := range 3 {
+		pass1SegmentsExact(t, kind)
 	}
 }
 
-func pass1SegmentsExact(t *testing.T, rows bool) {
+func pass1SegmentsExact(t *testing.T, kind int) {
 	id := func(x, y float64) (float64, float64) { return x, y }
 	img := gaussImage(120, 120, 5, id)
-	s := newTestSolver(t, img, img, Options{Subset: 21})
+	opt := Options{Subset: 21}
+	if kind == 2 {
+		opt.Interp = spline.Quintic
+	}
+	s := newTestSolver(t, img, img, opt)
 	pass := s.pass1t
-	if rows {
+	switch kind {
+	case 0:
+		s.useTable(mustTable(t, img))
+	case 1:
 		s.useRowTable(mustRowTable(t, img))
 		pass = s.pass1r
-	} else {
-		s.useTable(mustTable(t, img))
+	case 2:
+		s.useQuinticRowTable(mustQuinticRowTable(t, img))
+		pass = s.pass1q
 	}
+	rows := kind
 	if s.prepare(60, 59) != OK {
 		t.Fatal("prepare failed")
 	}
@@ -333,7 +353,7 @@ func pass1SegmentsExact(t *testing.T, rows bool) {
 		var a, b [3]float64
 		var ja, jb [12]float64
 		if !pass(&p, &a[0], &a[1], &a[2], &ja) {
-			t.Fatalf("warp %v, row table %v: the pass left the image", p[:6], rows)
+			t.Fatalf("warp %v, table kind %d: the pass left the image", p[:6], rows)
 		}
 		mag := s.pass1tPixel(&p, &b[0], &b[1], &b[2], &jb)
 		// Bitwise where every product is rounded on its own. Where the
@@ -351,7 +371,7 @@ func pass1SegmentsExact(t *testing.T, rows bool) {
 			ok = ok && same(ja[q], jb[q])
 		}
 		if !ok {
-			t.Errorf("warp %v, row table %v: segments %v %v, per pixel %v %v", p[:6], rows, a, ja[:6], b, jb[:6])
+			t.Errorf("warp %v, table kind %d: segments %v %v, per pixel %v %v", p[:6], rows, a, ja[:6], b, jb[:6])
 		}
 	}
 }
@@ -363,6 +383,19 @@ func mustTable(t *testing.T, g *imageio.Gray) *spline.Table {
 		t.Fatal(err)
 	}
 	tab, err := spline.NewTable(t.Context(), sp, 1)
+	if err != nil {
+		t.Fatal(err)
+	}
+	return tab
+}
+
+func mustQuinticRowTable(t *testing.T, g *imageio.Gray) *spline.QuinticRowTable {
+	t.Helper()
+	sp, err := spline.New(g, spline.Quintic)
+	if err != nil {
+		t.Fatal(err)
+	}
+	tab, err := spline.NewQuinticRowTable(t.Context(), sp, 1)
 	if err != nil {
 		t.Fatal(err)
 	}
@@ -390,6 +423,9 @@ func (s *solver) tableAt(x, y int64) float32 {
 	ix, iy := int(x>>fixBits), int(y>>fixBits)
 	if s.rtab != nil {
 		return spline.EvalRows(s.rtab.Coefficients(), 4*(iy*s.rtab.W+ix), 4*s.rtab.W, tx, ty)
+	}
+	if s.qtab != nil {
+		return spline.EvalRows5(s.qtab.Coefficients(), 6*(iy*s.qtab.W+ix), 6*s.qtab.W, tx, ty)
 	}
 	return spline.Eval(s.tab.Cell(ix, iy), tx, ty)
 }
@@ -440,25 +476,36 @@ func (s *solver) passTableDirect(p *[12]float64, second bool) (sum, abs [15]floa
 // summed moments to rounding (a relative 1e-12 of the sum of the terms'
 // magnitudes), and Σg, Σg², Σf̃g as well.
 func TestTablePassMomentsMatchDirect(t *testing.T) {
-	for _, rows := range []bool{false, true} {
-		tablePassMomentsMatchDirect(t, rows)
+	for kind := range 3 {
+		tablePassMomentsMatchDirect(t, kind)
 	}
 }
 
-func tablePassMomentsMatchDirect(t *testing.T, rows bool) {
+// tablePassMomentsMatchDirect checks the bicubic table's passes (kind 0),
+// the row table's (1) or the quintic row table's (2).
+func tablePassMomentsMatchDirect(t *testing.T, kind int) {
 	id := func(x, y float64) (float64, float64) { return x, y }
 	img := gaussImage(120, 120, 5, id)
 	// Parameter indices of the 12 second-order sums in passTableDirect's order.
 	order := [12]int{U, Ux, Uy, Uxx, Uxy, Uyy, V, Vx, Vy, Vxx, Vxy, Vyy}
 	for _, shape := range []Shape{First, Second} {
-		s := newTestSolver(t, img, img, Options{Subset: 21, Shape: shape})
+		opt := Options{Subset: 21, Shape: shape}
+		if kind == 2 {
+			opt.Interp = spline.Quintic
+		}
+		s := newTestSolver(t, img, img, opt)
 		pass1, pass2 := s.pass1t, s.pass2t
-		if rows {
+		switch kind {
+		case 0:
+			s.useTable(mustTable(t, img))
+		case 1:
 			s.useRowTable(mustRowTable(t, img))
 			pass1, pass2 = s.pass1r, s.pass2r
-		} else {
-			s.useTable(mustTable(t, img))
+		case 2:
+			s.useQuinticRowTable(mustQuinticRowTable(t, img))
+			pass1, pass2 = s.pass1q, s.pass2q
 		}
+		rows := kind
 		if s.prepare(60, 59) != OK {
 			t.Fatal("prepare failed")
 		}
@@ -479,7 +526,7 @@ func tablePassMomentsMatchDirect(t *testing.T, rows bool) {
 				ok = pass2(&p, &got[0], &got[1], &got[2], &jg)
 			}
 			if !ok {
-				t.Fatalf("shape %d warp %v, row table %v: left the image", shape, p, rows)
+				t.Fatalf("shape %d warp %v, table kind %d: left the image", shape, p, rows)
 			}
 			want, abs := s.passTableDirect(&p, shape == Second)
 			var all [15]float64
@@ -492,7 +539,7 @@ func tablePassMomentsMatchDirect(t *testing.T, rows bool) {
 					continue // second-order sums, not computed
 				}
 				if d := math.Abs(all[n] - want[n]); d > 1e-12*abs[n] {
-					t.Errorf("shape %d warp %v, row table %v: sum %d is %v, plainly summed %v (|difference| %.2g of Σ|term| %.2g)", shape, p, rows, n, all[n], want[n], d, abs[n])
+					t.Errorf("shape %d warp %v, table kind %d: sum %d is %v, plainly summed %v (|difference| %.2g of Σ|term| %.2g)", shape, p, rows, n, all[n], want[n], d, abs[n])
 				}
 			}
 		}

@@ -49,6 +49,8 @@ func (s *solver) prefetch(xc, yc float64, p *[12]float64) {
 		w, h = s.tab.W, s.tab.H
 	} else if s.rtab != nil {
 		w, h = s.rtab.W, s.rtab.H
+	} else if s.qtab != nil {
+		w, h = s.qtab.W, s.qtab.H
 	} else {
 		w, h = s.def.W, s.def.H
 	}
@@ -67,6 +69,12 @@ func (s *solver) prefetch(xc, yc float64, p *[12]float64) {
 		// start at table row y0.
 		tab := s.rtab.Coefficients()
 		prefetchSpan(unsafe.Pointer(&tab[4*(y0*w+x0)]), y1-y0+4, 16*w, 16*(x1-x0+1))
+		return
+	}
+	if s.qtab != nil {
+		// Coefficient rows y0−2 … y1+3, from table row y0.
+		tab := s.qtab.Coefficients()
+		prefetchSpan(unsafe.Pointer(&tab[6*(y0*w+x0)]), y1-y0+6, 24*w, 24*(x1-x0+1))
 		return
 	}
 	// The spline's coefficients: the support reaches r = 1 (cubic) or 2

@@ -27,7 +27,7 @@ func TestPrefetchLeavesResults(t *testing.T) {
 		direct bool
 		table  tableKind
 	}{{First, spline.Cubic, false, tableCells}, {First, spline.Cubic, false, tableRows}, {Second, spline.Cubic, false, tableCells}, {Second, spline.Cubic, false, tableRows},
-		{First, spline.Cubic, true, 0}, {Second, spline.Quintic, false, 0}} {
+		{First, spline.Cubic, true, 0}, {Second, spline.Quintic, false, 0}, {First, spline.Quintic, true, 0}} {
 		sh := c.sh
 		opt := Options{Subset: 21, Step: 5, Shape: sh, Interp: c.interp, Threads: 2}
 		var want []uint64
@@ -56,7 +56,7 @@ func TestPrefetchAnyGuess(t *testing.T) {
 		interp spline.Order
 		table  bool
 		kind   tableKind
-	}{{spline.Cubic, true, tableCells}, {spline.Cubic, true, tableRows}, {spline.Cubic, false, 0}, {spline.Quintic, false, 0}} {
+	}{{spline.Cubic, true, tableCells}, {spline.Cubic, true, tableRows}, {spline.Cubic, false, 0}, {spline.Quintic, true, 0}, {spline.Quintic, false, 0}} {
 		prefetchAnyGuess(t, c.interp, c.table, c.kind)
 	}
 }
@@ -74,14 +74,19 @@ func prefetchAnyGuess(t *testing.T, interp spline.Order, table bool, kind tableK
 		}
 	}
 	s := r.solvers[0]
-	if (s.tab != nil) != (table && kind == tableCells) || (s.rtab != nil) != (table && kind == tableRows) || (s.def != nil) == table {
-		t.Fatalf("table %v %v: solver has table %v, row table %v, spline %v", table, kind, s.tab != nil, s.rtab != nil, s.def != nil)
+	quintic := interp == spline.Quintic
+	if (s.tab != nil) != (table && !quintic && kind == tableCells) || (s.rtab != nil) != (table && !quintic && kind == tableRows) ||
+		(s.qtab != nil) != (table && quintic) || (s.def != nil) == table {
+		t.Fatalf("%v table %v %v: solver has table %v, row table %v, quintic row table %v, spline %v", interp, table, kind, s.tab != nil, s.rtab != nil, s.qtab != nil, s.def != nil)
 	}
 	var tab0 []float32
 	var sp0 []float64
 	coef := func() []float32 {
 		if s.rtab != nil {
 			return s.rtab.Coefficients()
+		}
+		if s.qtab != nil {
+			return s.qtab.Coefficients()
 		}
 		return s.tab.Coefficients()
 	}

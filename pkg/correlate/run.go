@@ -295,8 +295,7 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 
 	// (3) Both filtered along y; the table and gradients allocated; the
 	// grid marked.
-	var table *spline.Table
-	var rtable *spline.RowTable
+	var table defTable
 	nBlocks := parts(refB.Blocks(), blocks)
 	nMark := 0
 	if grid {
@@ -308,10 +307,8 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 		}
 		switch {
 		case k == 0:
-			if tab && tun.rows() {
-				rtable = spline.AllocRowTable(w, h)
-			} else if tab {
-				table = spline.AllocTable(w, h)
+			if tab {
+				table = r.allocTable(w, h)
 			}
 		case k == 1:
 			r.gx, r.gy = make([]float32, w*h), make([]float32, w*h)
@@ -352,11 +349,7 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 			r.refSp.GradientRows(r.gx, r.gy, k*rows, min((k+1)*rows, h))
 		default:
 			k -= 1 + nRows
-			if rtable != nil {
-				rtable.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
-			} else {
-				table.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
-			}
+			table.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
 		}
 	})
 	if err := cancelled(); err != nil {
@@ -373,13 +366,7 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 	}
 	if table != nil {
 		for _, s := range r.solvers {
-			s.useTable(table)
-		}
-		r.defSp = nil
-	}
-	if rtable != nil {
-		for _, s := range r.solvers {
-			s.useRowTable(rtable)
+			s.useDefTable(table)
 		}
 		r.defSp = nil
 	}
@@ -390,38 +377,22 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 // tabulates reports whether tabulate builds the table for npts subsets.
 func (r *run) tabulates(npts int) bool {
 	side := 2*r.m + 1
-	return r.opt.Interp == spline.Cubic && !r.tun.direct && npts*side*side >= 2*r.def.W*r.def.H
+	return (r.opt.Interp == spline.Cubic || r.opt.Interp == spline.Quintic) && !r.tun.direct && npts*side*side >= 2*r.def.W*r.def.H
 }
 
-// tabulate replaces the cubic spline of the deformed image by its
-// coefficient table (spline.Table) in every solver when npts subsets are
-// to be computed: the table costs about as much to build as two or three
-// interpolations of every image pixel and then halves the cost of each, so
-// it is built only when the subsets cover the image about twice or more.
-// Quintic splines are never tabulated.
+// tabulate replaces the spline of the deformed image by its table
+// (allocTable) in every solver when npts subsets are to be computed: the
+// table costs about as much to build as two or three interpolations of
+// every image pixel and then halves the cost of each (cubic) or cuts it to
+// a third (quintic), so it is built only when the subsets cover the image
+// about twice or more.
 func (r *run) tabulate(ctx context.Context, npts int) error {
 	if !r.tabulates(npts) {
 		return nil
 	}
 	h := r.def.H
+	table := r.allocTable(r.def.W, h)
 	const rows = spline.RowChunk
-	if r.tun.rows() {
-		rt := spline.AllocRowTable(r.def.W, h)
-		r.shareOut((h+rows-1)/rows, func(k int) {
-			if ctx.Err() == nil {
-				rt.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
-			}
-		})
-		if err := ctx.Err(); err != nil {
-			return fmt.Errorf("correlate: deformed image: %w", err)
-		}
-		for _, s := range r.solvers {
-			s.useRowTable(rt)
-		}
-		r.defSp = nil
-		return nil
-	}
-	table := spline.AllocTable(r.def.W, h)
 	r.shareOut((h+rows-1)/rows, func(k int) {
 		if ctx.Err() == nil {
 			table.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
@@ -431,7 +402,7 @@ func (r *run) tabulate(ctx context.Context, npts int) error {
 		return fmt.Errorf("correlate: deformed image: %w", err)
 	}
 	for _, s := range r.solvers {
-		s.useTable(table)
+		s.useDefTable(table)
 	}
 	r.defSp = nil
 	return nil

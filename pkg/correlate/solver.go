@@ -75,7 +75,8 @@ type solver struct {
 	wpad       []float64 // scratch for smoothedVar
 	wtmp       []float64
 
-	rtab *spline.RowTable // deformed-image row table, or nil (then tab may be set)
+	rtab *spline.RowTable        // deformed-image row table, or nil (then tab may be set)
+	qtab *spline.QuinticRowTable // deformed-image quintic row table, or nil
 }
 
 func newSolver(ref *imageio.Gray, gx, gy []float32, refSp, def *spline.Image, opt *Options, minStd float64) *solver {
@@ -158,8 +159,14 @@ func (s *solver) useRowTable(rt *spline.RowTable) {
 	s.rtab, s.def = rt, nil
 }
 
+// useQuinticRowTable makes the solver interpolate the deformed image from
+// qt, the quintic row table of the spline it was built with.
+func (s *solver) useQuinticRowTable(qt *spline.QuinticRowTable) {
+	s.qtab, s.def = qt, nil
+}
+
 // tabled reports whether the solver interpolates from a table.
-func (s *solver) tabled() bool { return s.tab != nil || s.rtab != nil }
+func (s *solver) tabled() bool { return s.tab != nil || s.rowTabled() }
 
 // edgeMargin is the distance in pixels that warped subsets keep from the
 // image edges for the given spline order.

@@ -16,8 +16,8 @@ const rowsDefault = false
 
 // pass1fast is the first-order table pass Run uses.
 func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
-	if s.rtab != nil {
-		return s.pass1r(p, sg, sgg, sfg, sjg)
+	if s.rowTabled() {
+		return s.pass1rows(p, sg, sgg, sfg, sjg)
 	}
 	return s.pass1t(p, sg, sgg, sfg, sjg)
 }
@@ -36,8 +36,8 @@ func (s *solver) prepare1fast(ix, iy int) Status {
 
 // pass2fast is the second-order table pass Run uses.
 func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
-	if s.rtab != nil {
-		return s.pass2r(p, sg, sgg, sfg, sjg)
+	if s.rowTabled() {
+		return s.pass2rows(p, sg, sgg, sfg, sjg)
 	}
 	return s.pass2t(p, sg, sgg, sfg, sjg)
 }

@@ -33,6 +33,8 @@ var vectorPass = archsimd.X86.AVX512() && archsimd.X86.FMA()
 // pass1fast is the first-order table pass Run uses.
 func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	switch {
+	case s.qtab != nil:
+		return s.pass1q(p, sg, sgg, sfg, sjg)
 	case vectorPass && !s.portable && 2*s.m+1 >= 4:
 		return s.pass1v(p, sg, sgg, sfg, sjg)
 	case s.rtab != nil:
@@ -103,6 +105,8 @@ func (s *solver) initVector() {
 // pass2fast is the second-order table pass Run uses.
 func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	switch {
+	case s.qtab != nil:
+		return s.pass2q(p, sg, sgg, sfg, sjg)
 	case vectorPass && !s.portable && 2*s.m+1 >= 4:
 		return s.pass2v(p, sg, sgg, sfg, sjg)
 	case s.rtab != nil:
