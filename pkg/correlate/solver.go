@@ -22,16 +22,16 @@ type solver struct {
 	etas       []float64  // η of each row, four times
 	lastW      [4]float64 // weights of the last group of four pixels of a row
 	vout       [9][4]float64
-	offs       [4]int64      // cell offsets of a group of four pixels (sampleRow)
-	rv         [4][8]int64   // fixed-point positions of a subset row's groups, x then y (sampleRow)
-	rowSpread  [16]uint32    // sampleRows: lane (p, i) ← 4 + p
-	cells      [8]int64      // sampleRows: cells of a group, x then y
-	scale8     [8]float64    // 2⁻⁴⁰, eight times
-	rowPick    [4][16]uint32 // sampleRows: lane p ← (p, i), for each i
-	three16    [16]float32   // sampleRows: 3, sixteen times
-	scale4     [4]float64    // 2⁻⁴⁰, four times
-	fmean4     [4]float64    // f̄, four times
-	lim        [3]int64      // usable area in fixed point: lo, x and y limits (row2v)
+	offs       [4]int64       // cell offsets of a group of four pixels (sampleRow)
+	rv         [4][8]int64    // fixed-point positions of a subset row's groups, x then y (sampleRow)
+	rowSpread  [16]uint32     // sampleRows: lane (p, i) ← 4 + p
+	cells      [8]int64       // sampleRows: cells of a group, x then y
+	scale8     [8]float64     // 2⁻⁴⁰, eight times
+	rowPick    [4][16]uint32  // sampleRows: lane p ← (p, i), for each i
+	rowK       [3][16]float32 // sampleRows: 3, 4 and −2, sixteen times each
+	scale4     [4]float64     // 2⁻⁴⁰, four times
+	fmean4     [4]float64     // f̄, four times
+	lim        [3]int64       // usable area in fixed point: lo, x and y limits (row2v)
 	// scratch of the second-order vector pass
 	rowDX, rowDY []int64   // fixed-point first differences at each row's start
 	etas2h       []float64 // η²/2 of each row, four times

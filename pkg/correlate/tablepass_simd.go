@@ -46,6 +46,8 @@ func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float
 // initVector sets up the solver's scratch of pass1v.
 func (s *solver) initVector() {
 	side := 2*s.m + 1
+	// sampleRows stores eight lanes at a time, the last four unused.
+	s.gbuf = make([]float64, side, side+4)
 	s.rowX = make([]int64, side)
 	s.rowY = make([]int64, side)
 	s.half4 = [4]float64{0.5, 0.5, 0.5, 0.5}
@@ -89,7 +91,7 @@ func (s *solver) initVector() {
 	}
 	for l := range 16 {
 		s.rowSpread[l] = uint32(4 + l/4)
-		s.three16[l] = 3
+		s.rowK[0][l], s.rowK[1][l], s.rowK[2][l] = 3, 4, -2
 		for i := range 4 {
 			s.rowPick[i][l] = uint32(4*(l%4) + i)
 		}

@@ -24,8 +24,9 @@ import "simd/archsimd"
 //go:noinline
 func (s *solver) sampleRows(x, y, xL, yL int64) {
 	a, w := s.rtab.Coefficients(), s.rtab.W
-	g := s.gbuf[:2*s.m+1]
-	last := len(g) - 4
+	n := 2*s.m + 1
+	g := s.gbuf[:n+4] // initVector gave it 4 spare elements for the 8-lane stores
+	last := n - 4
 	stride := 4 * w
 	offs := &s.offs
 	w4 := archsimd.BroadcastInt64x4(int64(w)).AsUint32x8()
@@ -35,7 +36,8 @@ func (s *solver) sampleRows(x, y, xL, yL int64) {
 	lo := archsimd.Mask64x8FromBits(0x0f) // lanes 0–3: x
 	xy := archsimd.BroadcastInt64x8(x).Merge(archsimd.BroadcastInt64x8(y), lo).Add(archsimd.LoadInt64x8(&rv[0]))
 	dxy := archsimd.LoadInt64x8(&rv[2])
-	for i := 0; i < len(g); i += 4 {
+	low4 := archsimd.Mask64x8FromBits(0x0f)
+	for i := 0; i < n; i += 4 {
 		if i > last {
 			i = last
 			xy = archsimd.BroadcastInt64x8(xL).Merge(archsimd.BroadcastInt64x8(yL), lo).Add(archsimd.LoadInt64x8(&rv[1]))
@@ -59,14 +61,14 @@ func (s *solver) sampleRows(x, y, xL, yL int64) {
 			r3 = gather4(a, o0+3*stride, o1+3*stride, o2+3*stride, o3+3*stride)
 		}
 		ty := t.Permute(archsimd.LoadUint32x16(&s.rowSpread)) // ty in the four lanes of each pixel
-		three := archsimd.LoadFloat32x16(&s.three16)
+		k := &s.rowK
+		three := archsimd.LoadFloat32x16(&k[0])
 		// combineRows per power of tx: e0 = (r0 + r2) + 4r1, e1 = 3(r2 − r0),
 		// e2 = 3((r0 + r2) − 2r1), e3 = (r3 − r0) + 3(r1 − r2).
 		sum := r0.Add(r2)
-		b := r1.Add(r1)
-		e0 := sum.Add(b.Add(b))
+		e0 := r1.MulAdd(archsimd.LoadFloat32x16(&k[1]), sum)
 		e1 := r2.Sub(r0).Mul(three)
-		e2 := sum.Sub(b).Mul(three)
+		e2 := r1.MulAdd(archsimd.LoadFloat32x16(&k[2]), sum).Mul(three)
 		e3 := r1.Sub(r2).MulAdd(three, r3.Sub(r0))
 		c := e3.MulAdd(ty, e2).MulAdd(ty, e1).MulAdd(ty, e0)
 		// Horner in tx (lanes 0–3 of t) on the coefficients of each
@@ -76,7 +78,7 @@ func (s *solver) sampleRows(x, y, xL, yL int64) {
 		c2 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[2]))
 		c3 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[3]))
 		v := c3.MulAdd(t, c2).MulAdd(t, c1).MulAdd(t, c0)
-		v.GetLo().GetLo().ConvertToFloat64().Store((*[4]float64)(g[i : i+4]))
+		v.GetLo().ConvertToFloat64().StoreMasked((*[8]float64)(g[i:i+8]), low4)
 		xy = xy.Add(dxy)
 		dxy = dxy.Add(archsimd.LoadInt64x8(&rv[3]))
 	}
