@@ -17,26 +17,22 @@ type solver struct {
 	tab      *spline.Table // deformed-image coefficient table, or nil
 	portable bool          // use the portable table pass even where a vector one exists
 	mom      *momentTable  // reference moments of the grid's subsets (moments.go), or nil
-	// scratch of the vector pass (tablepass_simd.go)
-	rowX, rowY []int64    // fixed-point start of each subset row
-	etas       []float64  // η of each row, four times
-	lastW      [4]float64 // weights of the last group of four pixels of a row
-	vout       [9][4]float64
-	offs       [4]int64       // cell offsets of a group of four pixels (sampleRow)
-	rv         [4][8]int64    // fixed-point positions of a subset row's groups, x then y (sampleRow)
-	rowSpread  [16]uint32     // sampleRows: lane (p, i) ← 4 + p
-	cells      [8]int64       // sampleRows: cells of a group, x then y
-	scale8     [8]float64     // 2⁻⁴⁰, eight times
-	rowPick    [4][16]uint32  // sampleRows: lane p ← (p, i), for each i
-	rowK       [3][16]float32 // sampleRows: 3, 4 and −2, sixteen times each
-	scale4     [4]float64     // 2⁻⁴⁰, four times
-	fmean4     [4]float64     // f̄, four times
-	lim        [3]int64       // usable area in fixed point: lo, x and y limits (row2v)
-	// scratch of the second-order vector pass
-	rowDX, rowDY []int64   // fixed-point first differences at each row's start
-	etas2h       []float64 // η²/2 of each row, four times
-	half4        [4]float64
-	vout2        [15][4]float64
+	// scratch of the vector passes (tablepass_simd.go, tablepass_simd_rows.go)
+	rowX, rowY   []int64        // fixed-point start of each subset row
+	rowDX, rowDY []int64        // fixed-point first differences at each row's start (second order)
+	etas2h8      []float64      // η²/2 of each row, eight times
+	vout8        [9][8]float64  // lane sums of pass1v
+	vout2        [15][8]float64 // lane sums of pass2v
+	fmean8       [8]float64     // f̄, eight times
+	half8        [8]float64     // ½, eight times
+	offs         [4]int64       // cell offsets of a group of four pixels (sampleRow)
+	rv           [4][8]int64    // fixed-point positions of a subset row's groups, x then y (sampleRow)
+	scale4       [4]float64     // 2⁻⁴⁰, four times
+	scale8       [8]float64     // 2⁻⁴⁰, eight times
+	rowSpread    [16]uint32     // sampleRows: lane (p, i) ← 4 + p
+	rowPick      [4][16]uint32  // sampleRows: lane p ← (p, i), for each i
+	rowK         [3][16]float32 // sampleRows: 3, 4 and −2, sixteen times each
+	lim          [3]int64       // usable area in fixed point: lo, x and y limits (row2v)
 	// scratch of the vector prepare (prepare_simd.go)
 	etas8      []float64 // η of each row, eight times
 	lastBits8  uint8     // lanes of a row's last group of eight not in the group before

@@ -7,15 +7,18 @@ import (
 	"simd/archsimd"
 )
 
-// The first-order table pass with vector instructions (GOEXPERIMENT=simd,
-// simd/archsimd; used when the CPU has AVX-512 and FMA, the portable pass1t
-// otherwise). Four pixels of a subset row at a time: each cell's bicubic is
-// evaluated by Horner's rule in ty on its four coefficient rows, the four
-// results are transposed and finished by Horner's rule in tx across the
-// four pixels, and the sums are kept in four float64 lanes. The fractional
-// offsets are pass1t's (the same fixed-point coordinates); the sums differ
-// from pass1t's by rounding only (fused multiply-adds, another order of
-// evaluation and summation), which TestVectorPassMatchesPortable bounds.
+// The table passes with vector instructions (GOEXPERIMENT=simd,
+// simd/archsimd; used when the CPU has AVX-512 and FMA and the subset side
+// is at least 8, the portable passes otherwise). Four pixels of a subset
+// row are interpolated at a time from the bicubic table (sampleRow: each
+// cell's bicubic by Horner's rule in ty on its four coefficient rows, the
+// four results transposed and finished by Horner's rule in tx across the
+// four pixels) or from the row table (sampleRows, tablepass_simd_rows.go),
+// and the sums are kept in eight float64 lanes. The fractional offsets are
+// the portable passes' (the same fixed-point coordinates); the sums differ
+// from theirs by rounding only (fused multiply-adds, another order of
+// evaluation and summation), which TestVectorPassMatchesPortable and
+// TestVectorPass2MatchesPortable bound.
 
 // rowsDefault reports whether Run tabulates the deformed image as a row
 // table (spline.RowTable) rather than the bicubic table (spline.Table):
@@ -35,7 +38,7 @@ func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float
 	switch {
 	case s.qtab != nil:
 		return s.pass1q(p, sg, sgg, sfg, sjg)
-	case vectorPass && !s.portable && 2*s.m+1 >= 4:
+	case vectorPass && !s.portable && 2*s.m+1 >= 8:
 		return s.pass1v(p, sg, sgg, sfg, sjg)
 	case s.rtab != nil:
 		return s.pass1r(p, sg, sgg, sfg, sjg)
@@ -50,26 +53,20 @@ func (s *solver) initVector() {
 	s.gbuf = make([]float64, side, side+4)
 	s.rowX = make([]int64, side)
 	s.rowY = make([]int64, side)
-	s.half4 = [4]float64{0.5, 0.5, 0.5, 0.5}
+	s.half8 = [8]float64{0.5, 0.5, 0.5, 0.5, 0.5, 0.5, 0.5, 0.5}
 	s.scale4 = [4]float64{1.0 / fixOne, 1.0 / fixOne, 1.0 / fixOne, 1.0 / fixOne}
 	for l := range s.scale8 {
 		s.scale8[l] = 1.0 / fixOne
 	}
 	s.rowDX = make([]int64, side)
 	s.rowDY = make([]int64, side)
-	s.etas = make([]float64, 4*side)
-	s.etas2h = make([]float64, 4*side)
-	for j := 0; j < side; j++ {
-		for l := 0; l < 4; l++ {
-			eta := float64(j - s.m)
-			s.etas[4*j+l] = eta
-			s.etas2h[4*j+l] = eta * eta / 2
-		}
-	}
 	s.etas8 = make([]float64, 8*side)
+	s.etas2h8 = make([]float64, 8*side)
 	for j := 0; j < side; j++ {
+		eta := float64(j - s.m)
 		for l := 0; l < 8; l++ {
-			s.etas8[8*j+l] = float64(j - s.m)
+			s.etas8[8*j+l] = eta
+			s.etas2h8[8*j+l] = eta * eta / 2
 		}
 	}
 	for a := range s.rising8 {
@@ -96,12 +93,6 @@ func (s *solver) initVector() {
 			s.rowPick[i][l] = uint32(4*(l%4) + i)
 		}
 	}
-	nv, last := side&^3, side-4
-	for l := range s.lastW {
-		if last+l >= nv {
-			s.lastW[l] = 1
-		}
-	}
 }
 
 // pass2fast is the second-order table pass Run uses.
@@ -109,7 +100,7 @@ func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float
 	switch {
 	case s.qtab != nil:
 		return s.pass2q(p, sg, sgg, sfg, sjg)
-	case vectorPass && !s.portable && 2*s.m+1 >= 4:
+	case vectorPass && !s.portable && 2*s.m+1 >= 8:
 		return s.pass2v(p, sg, sgg, sfg, sjg)
 	case s.rtab != nil:
 		return s.pass2r(p, sg, sgg, sfg, sjg)
@@ -117,16 +108,16 @@ func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float
 	return s.pass2t(p, sg, sgg, sfg, sjg)
 }
 
-// pass2v is pass2t with vector instructions, in the manner of pass1v: four
-// pixels of a subset row at a time, each row checked and set out by row2v,
-// interpolated by sampleRow and accumulated by acc2v. The fixed-point positions are pass2t's: along a
-// row x advances by a first difference that grows by the constant second
-// difference ddx, so pixel i of a group starting at x with first
-// difference d is at x + i·d + i(i−1)/2·ddx, exact in integers. Every
-// position is checked against the usable area in integer arithmetic
-// before its cell is read, so pass2v reports false exactly when pass2t
-// does. The row sums are added to the totals at the end of each row
-// through memory.
+// pass2v is pass2t (or pass2r) with vector instructions, in the manner of
+// pass1v: each subset row is checked and set out by row2v, interpolated
+// four pixels at a time by sample and accumulated eight at a time by
+// acc2v. The fixed-point positions are pass2t's: along a row x advances by
+// a first difference that grows by the constant second difference ddx, so
+// pixel i of a group starting at x with first difference d is at
+// x + i·d + i(i−1)/2·ddx, exact in integers. Every position is checked
+// against the usable area in integer arithmetic before its cell is read,
+// so pass2v reports false exactly when pass2t does. The row sums are added
+// to the totals at the end of each row through memory.
 func (s *solver) pass2v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	m := s.m
 	fm := float64(m)
@@ -148,8 +139,9 @@ func (s *solver) pass2v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		rdx[j] = int64(math.Round((1 + p[Ux] + p[Uxx]*(0.5-fm) + p[Uxy]*eta) * fixOne))
 		rdy[j] = int64(math.Round((p[Vx] + p[Vxx]*(0.5-fm) + p[Vxy]*eta) * fixOne))
 	}
-	s.fmean4 = [4]float64{s.fmean, s.fmean, s.fmean, s.fmean}
-	s.vout2 = [15][4]float64{}
+	fmv := s.fmean
+	s.fmean8 = [8]float64{fmv, fmv, fmv, fmv, fmv, fmv, fmv, fmv}
+	s.vout2 = [15][8]float64{}
 	k := 0
 	for j := 0; j < side; j++ {
 		if !s.row2v(rx[j], ry[j], rdx[j], rdy[j], ddx, ddy) {
@@ -164,7 +156,7 @@ func (s *solver) pass2v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	var sum [15]float64
 	for q := range out {
 		o := &out[q]
-		sum[q] = (o[0] + o[1]) + (o[2] + o[3])
+		sum[q] = ((o[0] + o[1]) + (o[2] + o[3])) + ((o[4] + o[5]) + (o[6] + o[7]))
 	}
 	*sg, *sgg, *sfg = sum[0], sum[1], sum[2]
 	sjg[U], sjg[Ux], sjg[Uy], sjg[Uxx], sjg[Uxy], sjg[Uyy] = sum[3], sum[4], sum[5], sum[6], sum[7], sum[8]
@@ -232,75 +224,65 @@ func (s *solver) acc2v(k, j int) {
 	f := s.f[k : k+side]
 	fx, fy, xi := s.fx[k:k+side], s.fy[k:k+side], s.xis[:side]
 	f, fx, fy, xi = f[:len(g)], fx[:len(g)], fy[:len(g)], xi[:len(g)]
-	fmean4 := archsimd.LoadFloat64x4(&s.fmean4)
-	var vg, vgg, vfg, rx0, rx1, rx2, ry0, ry1, ry2 archsimd.Float64x4
+	fmean := archsimd.LoadFloat64x8(&s.fmean8)
+	var vg, vgg, vfg, rx0, rx1, rx2, ry0, ry1, ry2 archsimd.Float64x8
 	i := 0
-	for ; i+4 <= len(g); i += 4 {
-		v := archsimd.LoadFloat64x4((*[4]float64)(g[i : i+4])).Sub(fmean4)
-		vg, vgg, vfg = v.Add(vg), v.MulAdd(v, vgg), archsimd.LoadFloat64x4((*[4]float64)(f[i:i+4])).MulAdd(v, vfg)
-		rx0, rx1, rx2 = accMoments2(v, (*[4]float64)(fx[i:i+4]), (*[4]float64)(xi[i:i+4]), rx0, rx1, rx2)
-		ry0, ry1, ry2 = accMoments2(v, (*[4]float64)(fy[i:i+4]), (*[4]float64)(xi[i:i+4]), ry0, ry1, ry2)
+	for ; i+8 <= len(g); i += 8 {
+		v := archsimd.LoadFloat64x8((*[8]float64)(g[i : i+8])).Sub(fmean)
+		vg, vgg, vfg = v.Add(vg), v.MulAdd(v, vgg), archsimd.LoadFloat64x8((*[8]float64)(f[i:i+8])).MulAdd(v, vfg)
+		rx0, rx1, rx2 = accMoments2(v, (*[8]float64)(fx[i:i+8]), (*[8]float64)(xi[i:i+8]), rx0, rx1, rx2)
+		ry0, ry1, ry2 = accMoments2(v, (*[8]float64)(fy[i:i+8]), (*[8]float64)(xi[i:i+8]), ry0, ry1, ry2)
 	}
 	if i < len(g) {
 		// The last group overlaps the one before: its repeated pixels
-		// are weighted by zero.
-		i = len(g) - 4
-		v := archsimd.LoadFloat64x4((*[4]float64)(g[i : i+4])).Sub(fmean4).Mul(archsimd.LoadFloat64x4(&s.lastW))
-		vg, vgg, vfg = v.Add(vg), v.MulAdd(v, vgg), archsimd.LoadFloat64x4((*[4]float64)(f[i:i+4])).MulAdd(v, vfg)
-		rx0, rx1, rx2 = accMoments2(v, (*[4]float64)(fx[i:i+4]), (*[4]float64)(xi[i:i+4]), rx0, rx1, rx2)
-		ry0, ry1, ry2 = accMoments2(v, (*[4]float64)(fy[i:i+4]), (*[4]float64)(xi[i:i+4]), ry0, ry1, ry2)
+		// are weighted by zero (the side is at least 8).
+		i = len(g) - 8
+		v := archsimd.LoadFloat64x8((*[8]float64)(g[i : i+8])).Sub(fmean).Masked(archsimd.Mask64x8FromBits(s.lastBits8))
+		vg, vgg, vfg = v.Add(vg), v.MulAdd(v, vgg), archsimd.LoadFloat64x8((*[8]float64)(f[i:i+8])).MulAdd(v, vfg)
+		rx0, rx1, rx2 = accMoments2(v, (*[8]float64)(fx[i:i+8]), (*[8]float64)(xi[i:i+8]), rx0, rx1, rx2)
+		ry0, ry1, ry2 = accMoments2(v, (*[8]float64)(fy[i:i+8]), (*[8]float64)(xi[i:i+8]), ry0, ry1, ry2)
 	}
-	e := archsimd.LoadFloat64x4((*[4]float64)(s.etas[4*j : 4*j+4]))
-	e2 := archsimd.LoadFloat64x4((*[4]float64)(s.etas2h[4*j : 4*j+4]))
-	half := archsimd.LoadFloat64x4(&s.half4)
+	e := archsimd.LoadFloat64x8((*[8]float64)(s.etas8[8*j : 8*j+8]))
+	e2 := archsimd.LoadFloat64x8((*[8]float64)(s.etas2h8[8*j : 8*j+8]))
+	half := archsimd.LoadFloat64x8(&s.half8)
 	out := &s.vout2
-	addTo(&out[0], vg)
-	addTo(&out[1], vgg)
-	addTo(&out[2], vfg)
-	addTo(&out[3], rx0)
-	addTo(&out[4], rx1)
-	addMulTo(&out[5], rx0, e)
-	addMulTo(&out[6], rx2, half)
-	addMulTo(&out[7], rx1, e)
-	addMulTo(&out[8], rx0, e2)
-	addTo(&out[9], ry0)
-	addTo(&out[10], ry1)
-	addMulTo(&out[11], ry0, e)
-	addMulTo(&out[12], ry2, half)
-	addMulTo(&out[13], ry1, e)
-	addMulTo(&out[14], ry0, e2)
+	addTo8(&out[0], vg)
+	addTo8(&out[1], vgg)
+	addTo8(&out[2], vfg)
+	addTo8(&out[3], rx0)
+	addTo8(&out[4], rx1)
+	addMulTo8(&out[5], rx0, e)
+	addMulTo8(&out[6], rx2, half)
+	addMulTo8(&out[7], rx1, e)
+	addMulTo8(&out[8], rx0, e2)
+	addTo8(&out[9], ry0)
+	addTo8(&out[10], ry1)
+	addMulTo8(&out[11], ry0, e)
+	addMulTo8(&out[12], ry2, half)
+	addMulTo8(&out[13], ry1, e)
+	addMulTo8(&out[14], ry0, e2)
 }
 
-// accMoments2 adds a group of four pixels (v = g − f̄, and the subset's
+// accMoments2 adds a group of eight pixels (v = g − f̄, and the subset's
 // gradient component d and ξ there) to the lane sums Σd·v, Σd·v·ξ and
 // Σd·v·ξ² of acc2v.
-func accMoments2(v archsimd.Float64x4, d, xi *[4]float64, r0, r1, r2 archsimd.Float64x4) (_, _, _ archsimd.Float64x4) {
-	xv := archsimd.LoadFloat64x4(xi)
-	a := archsimd.LoadFloat64x4(d).Mul(v)
+func accMoments2(v archsimd.Float64x8, d, xi *[8]float64, r0, r1, r2 archsimd.Float64x8) (_, _, _ archsimd.Float64x8) {
+	xv := archsimd.LoadFloat64x8(xi)
+	a := archsimd.LoadFloat64x8(d).Mul(v)
 	ax := a.Mul(xv)
 	return r0.Add(a), r1.Add(ax), ax.MulAdd(xv, r2)
 }
 
-// addTo adds x to *d.
-func addTo(d *[4]float64, x archsimd.Float64x4) {
-	archsimd.LoadFloat64x4(d).Add(x).Store(d)
-}
-
-// addMulTo adds x·y to *d.
-func addMulTo(d *[4]float64, x, y archsimd.Float64x4) {
-	x.MulAdd(y, archsimd.LoadFloat64x4(d)).Store(d)
-}
-
-// pass1v is pass1t with vector instructions. Each subset row is
-// interpolated by sampleRow (the same function as pass2v's, here with a
-// constant step) and accumulated by acc1v, two functions of their own, so that each loop has the registers to itself (inlined in one
-// function, the integer state of the first loop spilled to the stack on
-// every group of pixels). All scalar floating-point work is done before
-// the first vector instruction or after ClearAVXUpperBits: legacy SSE
-// instructions while the upper halves of the vector registers are in use
-// are very slow on this hardware (the compiler also spills 128-bit vectors
-// with legacy moves, so the values that stay live across the loops are
-// 256-bit).
+// pass1v is pass1t (or pass1r) with vector instructions. Each subset row is
+// interpolated by sample (sampleRow or sampleRows, as for pass2v, here with
+// a constant step) and accumulated by acc1v, functions of their own, so
+// that each loop has the registers to itself (inlined in one function, the
+// integer state of the first loop spilled to the stack on every group of
+// pixels). All scalar floating-point work is done before the first vector
+// instruction or after ClearAVXUpperBits: legacy SSE instructions while
+// the upper halves of the vector registers are in use are very slow on
+// this hardware (the compiler also spills 128-bit vectors with legacy
+// moves, so the values that stay live across the loops are 256-bit).
 func (s *solver) pass1v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	m := s.m
 	fm := float64(m)
@@ -329,8 +311,9 @@ func (s *solver) pass1v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		rv[2][l], rv[2][4+l] = 4*dx, 4*dy
 		rv[3][l], rv[3][4+l] = 0, 0
 	}
-	s.vout = [9][4]float64{}
-	s.fmean4 = [4]float64{s.fmean, s.fmean, s.fmean, s.fmean}
+	s.vout8 = [9][8]float64{}
+	fmv := s.fmean
+	s.fmean8 = [8]float64{fmv, fmv, fmv, fmv, fmv, fmv, fmv, fmv}
 	k := 0
 	for j := 0; j < side; j++ {
 		s.sample(rx[j], ry[j], rx[j]+last*dx, ry[j]+last*dy)
@@ -338,10 +321,11 @@ func (s *solver) pass1v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		k += side
 	}
 	archsimd.ClearAVXUpperBits()
-	out := &s.vout
+	out := &s.vout8
 	var sum [9]float64
 	for q := range out {
-		sum[q] = (out[q][0] + out[q][1]) + (out[q][2] + out[q][3])
+		o := &out[q]
+		sum[q] = ((o[0] + o[1]) + (o[2] + o[3])) + ((o[4] + o[5]) + (o[6] + o[7]))
 	}
 	*sg, *sgg, *sfg = sum[0], sum[1], sum[2]
 	sjg[U], sjg[Ux], sjg[Uy] = sum[3], sum[4], sum[5]
@@ -418,9 +402,11 @@ func (s *solver) sampleRow(x, y, xL, yL int64) {
 }
 
 // acc1v adds row j of the subset (its pixels from k on, interpolated in
-// s.gbuf) to the lane sums s.vout of pass1v. The vectors are loaded
-// through array pointers of slices of one length, so that the loop carries
-// no bounds checks or pointer masks.
+// s.gbuf) to the lane sums s.vout8 of pass1v, eight pixels at a time (the
+// last group overlapping the one before unless the side is a multiple of
+// eight, its repeated lanes weighted by zero; the side is at least 8). The
+// vectors are loaded through array pointers of slices of one length, so
+// that the loop carries no bounds checks or pointer masks.
 //
 //go:noinline
 func (s *solver) acc1v(k, j int) {
@@ -429,42 +415,50 @@ func (s *solver) acc1v(k, j int) {
 	f := s.f[k : k+side]
 	fx, fy, xi := s.fx[k:k+side], s.fy[k:k+side], s.xis[:side]
 	f, fx, fy, xi = f[:len(g)], fx[:len(g)], fy[:len(g)], xi[:len(g)]
-	fmean4 := archsimd.LoadFloat64x4(&s.fmean4)
-	var vg, vgg, vfg, rx0, rx1, ry0, ry1 archsimd.Float64x4
+	fmean := archsimd.LoadFloat64x8(&s.fmean8)
+	var vg, vgg, vfg, rx0, rx1, ry0, ry1 archsimd.Float64x8
 	i := 0
-	for ; i+4 <= len(g); i += 4 {
-		v := archsimd.LoadFloat64x4((*[4]float64)(g[i : i+4])).Sub(fmean4)
-		vg, vgg, vfg, rx0, rx1, ry0, ry1 = acc1(v, f[i:i+4], fx[i:i+4], fy[i:i+4], xi[i:i+4], vg, vgg, vfg, rx0, rx1, ry0, ry1)
+	for ; i+8 <= len(g); i += 8 {
+		v := archsimd.LoadFloat64x8((*[8]float64)(g[i : i+8])).Sub(fmean)
+		vg, vgg, vfg, rx0, rx1, ry0, ry1 = acc1(v, f[i:i+8], fx[i:i+8], fy[i:i+8], xi[i:i+8], vg, vgg, vfg, rx0, rx1, ry0, ry1)
 	}
 	if i < len(g) {
-		// The last group overlaps the one before: its repeated pixels
-		// are weighted by zero.
-		i = len(g) - 4
-		v := archsimd.LoadFloat64x4((*[4]float64)(g[i : i+4])).Sub(fmean4).Mul(archsimd.LoadFloat64x4(&s.lastW))
-		vg, vgg, vfg, rx0, rx1, ry0, ry1 = acc1(v, f[i:i+4], fx[i:i+4], fy[i:i+4], xi[i:i+4], vg, vgg, vfg, rx0, rx1, ry0, ry1)
+		i = len(g) - 8
+		v := archsimd.LoadFloat64x8((*[8]float64)(g[i : i+8])).Sub(fmean).Masked(archsimd.Mask64x8FromBits(s.lastBits8))
+		vg, vgg, vfg, rx0, rx1, ry0, ry1 = acc1(v, f[i:i+8], fx[i:i+8], fy[i:i+8], xi[i:i+8], vg, vgg, vfg, rx0, rx1, ry0, ry1)
 	}
-	e := archsimd.LoadFloat64x4((*[4]float64)(s.etas[4*j : 4*j+4]))
-	out := &s.vout
-	addTo(&out[0], vg)
-	addTo(&out[1], vgg)
-	addTo(&out[2], vfg)
-	addTo(&out[3], rx0)
-	addTo(&out[4], rx1)
-	addMulTo(&out[5], rx0, e)
-	addTo(&out[6], ry0)
-	addTo(&out[7], ry1)
-	addMulTo(&out[8], ry0, e)
+	e := archsimd.LoadFloat64x8((*[8]float64)(s.etas8[8*j : 8*j+8]))
+	out := &s.vout8
+	addTo8(&out[0], vg)
+	addTo8(&out[1], vgg)
+	addTo8(&out[2], vfg)
+	addTo8(&out[3], rx0)
+	addTo8(&out[4], rx1)
+	addMulTo8(&out[5], rx0, e)
+	addTo8(&out[6], ry0)
+	addTo8(&out[7], ry1)
+	addMulTo8(&out[8], ry0, e)
 }
 
-// acc1 adds a group of four pixels (v = g − f̄, and the subset's f̃, fx,
+// addTo8 adds x to *d.
+func addTo8(d *[8]float64, x archsimd.Float64x8) {
+	archsimd.LoadFloat64x8(d).Add(x).Store(d)
+}
+
+// addMulTo8 adds x·y to *d.
+func addMulTo8(d *[8]float64, x, y archsimd.Float64x8) {
+	x.MulAdd(y, archsimd.LoadFloat64x8(d)).Store(d)
+}
+
+// acc1 adds a group of eight pixels (v = g − f̄, and the subset's f̃, fx,
 // fy and ξ there) to the lane sums of acc1v: Σv, Σv², Σf̃v, Σfx·v,
 // Σfx·v·ξ, Σfy·v, Σfy·v·ξ.
-func acc1(v archsimd.Float64x4, f, fx, fy, xi []float64, vg, vgg, vfg, rx0, rx1, ry0, ry1 archsimd.Float64x4) (_, _, _, _, _, _, _ archsimd.Float64x4) {
+func acc1(v archsimd.Float64x8, f, fx, fy, xi []float64, vg, vgg, vfg, rx0, rx1, ry0, ry1 archsimd.Float64x8) (_, _, _, _, _, _, _ archsimd.Float64x8) {
 	vg, vgg = vg.Add(v), v.MulAdd(v, vgg)
-	vfg = archsimd.LoadFloat64x4((*[4]float64)(f)).MulAdd(v, vfg)
-	a := archsimd.LoadFloat64x4((*[4]float64)(fx)).Mul(v)
-	b := archsimd.LoadFloat64x4((*[4]float64)(fy)).Mul(v)
-	xv := archsimd.LoadFloat64x4((*[4]float64)(xi))
+	vfg = archsimd.LoadFloat64x8((*[8]float64)(f)).MulAdd(v, vfg)
+	a := archsimd.LoadFloat64x8((*[8]float64)(fx)).Mul(v)
+	b := archsimd.LoadFloat64x8((*[8]float64)(fy)).Mul(v)
+	xv := archsimd.LoadFloat64x8((*[8]float64)(xi))
 	return vg, vgg, vfg, rx0.Add(a), a.MulAdd(xv, rx1), ry0.Add(b), b.MulAdd(xv, ry1)
 }
 
