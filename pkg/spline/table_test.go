@@ -203,6 +203,7 @@ func BenchmarkSteps1024(b *testing.B) {
 	gx, gy := make([]float32, 1024*1024), make([]float32, 1024*1024)
 	tab := AllocTable(1024, 1024)
 	rt := AllocRowTable(1024, 1024)
+	qt := AllocQuinticRowTable(1024, 1024)
 	px := float64(1024 * 1024)
 	for _, c := range []struct {
 		name string
@@ -216,6 +217,7 @@ func BenchmarkSteps1024(b *testing.B) {
 		{"table-alloc", func() { tab = AllocTable(1024, 1024) }},
 		{"rowtable", func() { rt.FillRows(s, 0, 1024) }},
 		{"rowtable-alloc", func() { rt = AllocRowTable(1024, 1024) }},
+		{"quintic-rowtable", func() { qt.FillRows(q, 0, 1024) }},
 	} {
 		b.Run(c.name, func(b *testing.B) {
 			for b.Loop() {
