@@ -430,15 +430,26 @@ func profileUntilUSR1(path string) (stop func(), err error) {
 }
 
 // stopProfiles sends SIGUSR1 to ps and waits until each has written its
-// profile.
+// profile, for at most profileWait: a mottle binary that does not honour
+// MOTTLE_CPUPROFILE (the one the benchmark builds does not) never says so,
+// and the benchmark then fails at once rather than at the end of its time.
 func stopProfiles(b *testing.B, ps []*proc) {
 	for _, p := range ps {
 		p.signal(syscall.SIGUSR1)
 	}
+	end := time.Now().Add(profileWait)
 	for _, p := range ps {
-		waitFor(b, p.name+" profile", func() bool { return strings.Contains(p.out.String(), "profile written") })
+		for !strings.Contains(p.out.String(), "profile written") {
+			if time.Now().After(end) {
+				b.Fatalf("%s wrote no profile within %v: %s needs a mottle binary built to honour MOTTLE_CPUPROFILE (MOTTLE_BENCH_NEW, MOTTLE_BENCH_BASE)", p.name, profileWait, profileEnv)
+			}
+			time.Sleep(20 * time.Millisecond)
+		}
 	}
 }
+
+// profileWait bounds the wait for a process's profile (stopProfiles).
+const profileWait = 30 * time.Second
 
 // BenchmarkBlobGet reads an object of 1.1 MB (a frame's series state as
 // JSON) from a single JetStream server in this process, so that ns/op
