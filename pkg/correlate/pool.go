@@ -161,6 +161,15 @@ func (p *pool) close() {
 	p.mu.Unlock()
 }
 
+// spin returns how many times a worker checks for work, yielding in
+// between, before it sleeps: poolSpin, or tuning.spin when set.
+func (r *run) spin() int {
+	if r.tun.spin > 0 {
+		return r.tun.spin
+	}
+	return poolSpin
+}
+
 // stop ends the helper goroutines.
 func (r *run) stop() { r.pool.close() }
 
@@ -228,7 +237,7 @@ func (r *run) worker(w int) {
 			if p.closed.Load() {
 				return
 			}
-			if i > poolSpin {
+			if i > r.spin() {
 				p.spun.Add(int64(time.Since(t0)))
 				if !p.sleep() {
 					return
@@ -278,7 +287,7 @@ func (r *run) awaitBatch(g uint64) []item {
 			t0, i = time.Now(), 0
 			continue
 		}
-		if i > poolSpin {
+		if i > r.spin() {
 			p.spun.Add(int64(time.Since(t0)))
 			p.waits++
 			p.waitGen.Store(g)

@@ -73,6 +73,7 @@ type tuning struct {
 	direct   bool       // interpolate from the B-spline coefficients even when a table would be used
 	portable bool       // use the portable table pass even in builds with a vector one
 	noFetch  bool       // no prefetch of a point's subsets (prefetch.go)
+	spin     int        // checks for work before a worker sleeps (pool.go); 0: poolSpin
 	table    tableKind  // which table to build where one pays
 	trace    *poolTrace // record phase and batch timings (benchmarks)
 }
