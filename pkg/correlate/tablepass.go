@@ -214,7 +214,6 @@ func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 	var acc [12]float64
 	fmean := s.fmean
 	ddx, ddy := int64(math.Round(p[Uxx]*fixOne)), int64(math.Round(p[Vxx]*fixOne))
-	m1, m3, mm := fm+1, 2*fm+3, (fm+1)*(fm+2)
 	k := 0
 	for j := -m; j <= m; j++ {
 		eta := float64(j)
@@ -227,10 +226,7 @@ func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		// First differences at ξ = −m: u(ξ+1) − u(ξ) = Ux + Uxx(ξ + ½) + Uxy η.
 		dx := int64(math.Round((1 + p[Ux] + p[Uxx]*(0.5-fm) + p[Uxy]*eta) * fixOne))
 		dy := int64(math.Round((p[Vx] + p[Vxx]*(0.5-fm) + p[Vxy]*eta) * fixOne))
-		f := s.f[k : k+side]
-		fx := s.fx[k : k+side]
-		fy := s.fy[k : k+side]
-		fx, fy, g := fx[:len(f)], fy[:len(f)], s.gbuf[:len(f)]
+		g := s.gbuf[:side]
 		if !rowInside(x, dx, ddx, side, lo, hx) || !rowInside(y, dy, ddy, side, lo, hy) {
 			return false
 		}
@@ -251,35 +247,52 @@ func (s *solver) pass2t(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 			dx += ddx
 			dy += ddy
 		}
-		var a0, a1, a2, b0, b1, b2 float64
-		for i, v := range g {
-			tg += v
-			tgg += v * v
-			tfg += f[i] * v
-			a0 += fx[i] * v
-			a1 += a0
-			a2 += a1
-			b0 += fy[i] * v
-			b1 += b0
-			b2 += b1
-		}
-		rx1, ry1 := m1*a0-a1, m1*b0-b1                   // Σaξ, Σbξ
-		rx2, ry2 := 2*a2-mm*a0+m3*rx1, 2*b2-mm*b0+m3*ry1 // Σaξ², Σbξ²
-		acc[U] += a0
-		acc[Ux] += rx1
-		acc[Uy] += a0 * eta
-		acc[Uxx] += rx2 / 2
-		acc[Uxy] += rx1 * eta
-		acc[Uyy] += a0 * eta * eta / 2
-		acc[V] += b0
-		acc[Vx] += ry1
-		acc[Vy] += b0 * eta
-		acc[Vxx] += ry2 / 2
-		acc[Vxy] += ry1 * eta
-		acc[Vyy] += b0 * eta * eta / 2
+		tg, tgg, tfg = s.rowSums2t(k, eta, tg, tgg, tfg, &acc)
 		k += side
 	}
 	*sg, *sgg, *sfg = tg, tgg, tfg
 	*sjg = acc
 	return true
+}
+
+// rowSums2t accumulates the subset row of a second-order table pass
+// (pass2t, pass2on) that starts at pixel k, in row η = eta, whose
+// interpolated values (less f̄) are in s.gbuf: it returns tg, tgg and tfg
+// and adds the row's terms of the twelve steepest-descent sums to acc. The
+// moments in ξ are the running sums of rowSums, one order further:
+// Σaξ² = 2c₂ − (m+1)(m+2)c₀ + (2m+3)Σaξ.
+func (s *solver) rowSums2t(k int, eta, tg, tgg, tfg float64, acc *[12]float64) (_, _, _ float64) {
+	fm := float64(s.m)
+	m1, m3, mm := fm+1, 2*fm+3, (fm+1)*(fm+2)
+	g := s.gbuf[:2*s.m+1]
+	f := s.f[k : k+len(g)]
+	fx := s.fx[k : k+len(g)]
+	fy := s.fy[k : k+len(g)]
+	var a0, a1, a2, b0, b1, b2 float64
+	for i, v := range g {
+		tg += v
+		tgg += v * v
+		tfg += f[i] * v
+		a0 += fx[i] * v
+		a1 += a0
+		a2 += a1
+		b0 += fy[i] * v
+		b1 += b0
+		b2 += b1
+	}
+	rx1, ry1 := m1*a0-a1, m1*b0-b1                   // Σaξ, Σbξ
+	rx2, ry2 := 2*a2-mm*a0+m3*rx1, 2*b2-mm*b0+m3*ry1 // Σaξ², Σbξ²
+	acc[U] += a0
+	acc[Ux] += rx1
+	acc[Uy] += a0 * eta
+	acc[Uxx] += rx2 / 2
+	acc[Uxy] += rx1 * eta
+	acc[Uyy] += a0 * eta * eta / 2
+	acc[V] += b0
+	acc[Vx] += ry1
+	acc[Vy] += b0 * eta
+	acc[Vxx] += ry2 / 2
+	acc[Vxy] += ry1 * eta
+	acc[Vyy] += b0 * eta * eta / 2
+	return tg, tgg, tfg
 }

@@ -10,11 +10,22 @@ import (
 // per sample the four row polynomials of rows y−1 … y+2 by Horner's rule in
 // tx, combined in ty by the cubic B-spline basis (spline.EvalRows).
 func (s *solver) pass1r(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
+	return s.pass1on(s.rtab.Coefficients(), s.rtab.W, 4, segRows, p, sg, sgg, sfg, sjg)
+}
+
+// segFunc interpolates one segment of a subset row from a row table
+// (segRows, segRows5).
+type segFunc func(base unsafe.Pointer, o, step, rs int, tx, ty, drx, dry int64, fmean float64, g []float64)
+
+// pass1on is the first-order pass on a row table tab of w cells a row and
+// nc float32 per cell and coefficient row, whose segments seg interpolates.
+func (s *solver) pass1on(tab []float32, w, nc int, seg segFunc, p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	m := s.m
 	fm := float64(m)
 	a11, a12, a21, a22 := 1+p[Ux], p[Uy], p[Vx], 1+p[Vy]
 	cx, cy := s.xc+p[U], s.yc+p[V]
-	// The warp is affine: the corners bound the warped subset.
+	// The warp is affine: the corners bound the warped subset, and inside
+	// the usable area every table read below is in bounds.
 	for _, c := range [4][2]float64{{-fm, -fm}, {fm, -fm}, {-fm, fm}, {fm, fm}} {
 		x := cx + a11*c[0] + a12*c[1]
 		y := cy + a21*c[0] + a22*c[1]
@@ -23,16 +34,14 @@ func (s *solver) pass1r(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		}
 	}
 	side := 2*m + 1
-	tab := s.rtab.Coefficients()
-	w := s.rtab.W
-	rs := 4 * w // from one coefficient row to the next
+	rs := nc * w // from one coefficient row to the next
 	base := unsafe.Pointer(&tab[0])
 	var tg, tgg, tfg, tx0, tx1, tx2, ty0, ty1, ty2 float64
 	fmean := s.fmean
 	dx, dy := int64(math.Round(a11*fixOne)), int64(math.Round(a21*fixOne))
 	nx, ny := (dx+fixOne/2)>>fixBits, (dy+fixOne/2)>>fixBits
 	rx, ry := dx-nx<<fixBits, dy-ny<<fixBits
-	step := 4 * (int(ny)*w + int(nx))
+	step := nc * (int(ny)*w + int(nx))
 	m1 := fm + 1
 	k := 0
 	for j := -m; j <= m; j++ {
@@ -43,8 +52,8 @@ func (s *solver) pass1r(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		for i := 0; i < len(g); {
 			fxr, fyr := x&fixMask, y&fixMask
 			n := min(min(segLen(fxr, rx), segLen(fyr, ry))+1, len(g)-i)
-			o := 4 * (int(y>>fixBits)*w + int(x>>fixBits))
-			segRows(base, o, step, rs, fxr, fyr, rx, ry, fmean, g[i:i+n])
+			o := nc * (int(y>>fixBits)*w + int(x>>fixBits))
+			seg(base, o, step, rs, fxr, fyr, rx, ry, fmean, g[i:i+n])
 			i += n
 			x += int64(n) * dx
 			y += int64(n) * dy
@@ -103,18 +112,25 @@ func segRows(base unsafe.Pointer, o, step, rs int, tx, ty, drx, dry int64, fmean
 // positions (first differences growing by Uxx and Vxx per pixel along a
 // row), each sample evaluated as in spline.EvalRows.
 func (s *solver) pass2r(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
+	return s.pass2on(s.rtab.Coefficients(), s.rtab.W, row2r, p, sg, sgg, sfg, sjg)
+}
+
+// rowFunc interpolates one subset row of a second-order pass from a row
+// table (row2r, row2q).
+type rowFunc func(base unsafe.Pointer, w int, x, y, dx, dy, ddx, ddy int64, fmean float64, g []float64)
+
+// pass2on is the second-order pass on a row table tab of w cells a row,
+// whose subset rows row interpolates.
+func (s *solver) pass2on(tab []float32, w int, row rowFunc, p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	m := s.m
 	fm := float64(m)
 	side := 2*m + 1
-	tab := s.rtab.Coefficients()
 	base := unsafe.Pointer(&tab[0])
-	w := s.rtab.W
 	lo, hx, hy := fix(s.lo), fix(s.defW), fix(s.defH)
 	var tg, tgg, tfg float64
 	var acc [12]float64
 	fmean := s.fmean
 	ddx, ddy := int64(math.Round(p[Uxx]*fixOne)), int64(math.Round(p[Vxx]*fixOne))
-	m1, m3, mm := fm+1, 2*fm+3, (fm+1)*(fm+2)
 	k := 0
 	for j := -m; j <= m; j++ {
 		eta := float64(j)
@@ -126,42 +142,13 @@ func (s *solver) pass2r(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 		x, y := fix(xf), fix(yf)
 		dx := int64(math.Round((1 + p[Ux] + p[Uxx]*(0.5-fm) + p[Uxy]*eta) * fixOne))
 		dy := int64(math.Round((p[Vx] + p[Vxx]*(0.5-fm) + p[Vxy]*eta) * fixOne))
-		f := s.f[k : k+side]
-		fx := s.fx[k : k+side]
-		fy := s.fy[k : k+side]
-		fx, fy, g := fx[:len(f)], fy[:len(f)], s.gbuf[:len(f)]
 		// Every position of the row inside the usable area, which lies
-		// inside the image: the table reads of row2r are in bounds.
+		// inside the image: the table reads of row are in bounds.
 		if !rowInside(x, dx, ddx, side, lo, hx) || !rowInside(y, dy, ddy, side, lo, hy) {
 			return false
 		}
-		row2r(base, w, x, y, dx, dy, ddx, ddy, fmean, g)
-		var a0, a1, a2, b0, b1, b2 float64
-		for i, v := range g {
-			tg += v
-			tgg += v * v
-			tfg += f[i] * v
-			a0 += fx[i] * v
-			a1 += a0
-			a2 += a1
-			b0 += fy[i] * v
-			b1 += b0
-			b2 += b1
-		}
-		rx1, ry1 := m1*a0-a1, m1*b0-b1                   // Σaξ, Σbξ
-		rx2, ry2 := 2*a2-mm*a0+m3*rx1, 2*b2-mm*b0+m3*ry1 // Σaξ², Σbξ²
-		acc[U] += a0
-		acc[Ux] += rx1
-		acc[Uy] += a0 * eta
-		acc[Uxx] += rx2 / 2
-		acc[Uxy] += rx1 * eta
-		acc[Uyy] += a0 * eta * eta / 2
-		acc[V] += b0
-		acc[Vx] += ry1
-		acc[Vy] += b0 * eta
-		acc[Vxx] += ry2 / 2
-		acc[Vxy] += ry1 * eta
-		acc[Vyy] += b0 * eta * eta / 2
+		row(base, w, x, y, dx, dy, ddx, ddy, fmean, s.gbuf[:side])
+		tg, tgg, tfg = s.rowSums2t(k, eta, tg, tgg, tfg, &acc)
 		k += side
 	}
 	*sg, *sgg, *sfg = tg, tgg, tfg

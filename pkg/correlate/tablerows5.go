@@ -1,7 +1,6 @@
 package correlate
 
 import (
-	"math"
 	"unsafe"
 
 	"github.com/mottledic/mottle/pkg/spline"
@@ -35,61 +34,7 @@ func (s *solver) pass2rows(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float
 
 // pass1q is pass1r on the quintic row table.
 func (s *solver) pass1q(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
-	m := s.m
-	fm := float64(m)
-	a11, a12, a21, a22 := 1+p[Ux], p[Uy], p[Vx], 1+p[Vy]
-	cx, cy := s.xc+p[U], s.yc+p[V]
-	// The warp is affine: the corners bound the warped subset, and inside
-	// the usable area every table read below is in bounds.
-	for _, c := range [4][2]float64{{-fm, -fm}, {fm, -fm}, {-fm, fm}, {fm, fm}} {
-		x := cx + a11*c[0] + a12*c[1]
-		y := cy + a21*c[0] + a22*c[1]
-		if !(x >= s.lo && x <= s.defW && y >= s.lo && y <= s.defH) {
-			return false
-		}
-	}
-	side := 2*m + 1
-	tab := s.qtab.Coefficients()
-	w := s.qtab.W
-	rs := 6 * w // from one coefficient row to the next
-	base := unsafe.Pointer(&tab[0])
-	var tg, tgg, tfg, tx0, tx1, tx2, ty0, ty1, ty2 float64
-	fmean := s.fmean
-	dx, dy := int64(math.Round(a11*fixOne)), int64(math.Round(a21*fixOne))
-	nx, ny := (dx+fixOne/2)>>fixBits, (dy+fixOne/2)>>fixBits
-	rx, ry := dx-nx<<fixBits, dy-ny<<fixBits
-	step := 6 * (int(ny)*w + int(nx))
-	m1 := fm + 1
-	k := 0
-	for j := -m; j <= m; j++ {
-		eta := float64(j)
-		x := fix(cx - a11*fm + a12*eta)
-		y := fix(cy - a21*fm + a22*eta)
-		g := s.gbuf[:side]
-		for i := 0; i < len(g); {
-			fxr, fyr := x&fixMask, y&fixMask
-			n := min(min(segLen(fxr, rx), segLen(fyr, ry))+1, len(g)-i)
-			o := 6 * (int(y>>fixBits)*w + int(x>>fixBits))
-			segRows5(base, o, step, rs, fxr, fyr, rx, ry, fmean, g[i:i+n])
-			i += n
-			x += int64(n) * dx
-			y += int64(n) * dy
-		}
-		var a0, a1, b0, b1 float64
-		tg, tgg, tfg, a0, a1, b0, b1 = s.rowSums(k, tg, tgg, tfg)
-		rx1, ry1 := m1*a0-a1, m1*b0-b1 // Σaξ, Σbξ
-		tx0 += a0
-		tx1 += rx1
-		tx2 += a0 * eta
-		ty0 += b0
-		ty1 += ry1
-		ty2 += b0 * eta
-		k += side
-	}
-	*sg, *sgg, *sfg = tg, tgg, tfg
-	sjg[U], sjg[Ux], sjg[Uy] = tx0, tx1, tx2
-	sjg[V], sjg[Vx], sjg[Vy] = ty0, ty1, ty2
-	return true
+	return s.pass1on(s.qtab.Coefficients(), s.qtab.W, 6, segRows5, p, sg, sgg, sfg, sjg)
 }
 
 // segRows5 is segRows on the quintic row table: per sample the six row
@@ -129,70 +74,7 @@ func segRows5(base unsafe.Pointer, o, step, rs int, tx, ty, drx, dry int64, fmea
 
 // pass2q is pass2r on the quintic row table.
 func (s *solver) pass2q(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
-	m := s.m
-	fm := float64(m)
-	side := 2*m + 1
-	tab := s.qtab.Coefficients()
-	base := unsafe.Pointer(&tab[0])
-	w := s.qtab.W
-	lo, hx, hy := fix(s.lo), fix(s.defW), fix(s.defH)
-	var tg, tgg, tfg float64
-	var acc [12]float64
-	fmean := s.fmean
-	ddx, ddy := int64(math.Round(p[Uxx]*fixOne)), int64(math.Round(p[Vxx]*fixOne))
-	m1, m3, mm := fm+1, 2*fm+3, (fm+1)*(fm+2)
-	k := 0
-	for j := -m; j <= m; j++ {
-		eta := float64(j)
-		du, dv := Displacement(p, -fm, eta)
-		xf, yf := s.xc-fm+du, s.yc+eta+dv
-		if !(xf >= s.lo && yf >= s.lo) { // also keeps fix's argument ≥ 0
-			return false
-		}
-		x, y := fix(xf), fix(yf)
-		dx := int64(math.Round((1 + p[Ux] + p[Uxx]*(0.5-fm) + p[Uxy]*eta) * fixOne))
-		dy := int64(math.Round((p[Vx] + p[Vxx]*(0.5-fm) + p[Vxy]*eta) * fixOne))
-		f := s.f[k : k+side]
-		fx := s.fx[k : k+side]
-		fy := s.fy[k : k+side]
-		fx, fy, g := fx[:len(f)], fy[:len(f)], s.gbuf[:len(f)]
-		// Every position of the row inside the usable area, which lies
-		// inside the image: the table reads of row2q are in bounds.
-		if !rowInside(x, dx, ddx, side, lo, hx) || !rowInside(y, dy, ddy, side, lo, hy) {
-			return false
-		}
-		row2q(base, w, x, y, dx, dy, ddx, ddy, fmean, g)
-		var a0, a1, a2, b0, b1, b2 float64
-		for i, v := range g {
-			tg += v
-			tgg += v * v
-			tfg += f[i] * v
-			a0 += fx[i] * v
-			a1 += a0
-			a2 += a1
-			b0 += fy[i] * v
-			b1 += b0
-			b2 += b1
-		}
-		rx1, ry1 := m1*a0-a1, m1*b0-b1                   // Σaξ, Σbξ
-		rx2, ry2 := 2*a2-mm*a0+m3*rx1, 2*b2-mm*b0+m3*ry1 // Σaξ², Σbξ²
-		acc[U] += a0
-		acc[Ux] += rx1
-		acc[Uy] += a0 * eta
-		acc[Uxx] += rx2 / 2
-		acc[Uxy] += rx1 * eta
-		acc[Uyy] += a0 * eta * eta / 2
-		acc[V] += b0
-		acc[Vx] += ry1
-		acc[Vy] += b0 * eta
-		acc[Vxx] += ry2 / 2
-		acc[Vxy] += ry1 * eta
-		acc[Vyy] += b0 * eta * eta / 2
-		k += side
-	}
-	*sg, *sgg, *sfg = tg, tgg, tfg
-	*sjg = acc
-	return true
+	return s.pass2on(s.qtab.Coefficients(), s.qtab.W, row2q, p, sg, sgg, sfg, sjg)
 }
 
 // row2q is row2r on the quintic row table.
