@@ -26,7 +26,8 @@ import (
 //     worker of a cluster, and the rest of the workers serve other series
 //     (the queue hands frames out first come, first served);
 //   - it has not been solved already.
-// The solution (a blob of the series) is stored, and the frame then waits
+// The solution (a blob of the series) is stored with Create, so the first
+// stored stays whoever else solves the frame, and the frame then waits
 // for its predecessor as any frame does. In its turn it is added to the
 // series state from the solution (FrameInput.Solved), in frame order, so
 // the state is assembled in order whatever order the frames finish in; a
@@ -147,14 +148,17 @@ func (s *Runner) solveAhead(ctx context.Context, j *jobs.Job, d jobs.Delivery) b
 		}
 		return false
 	}
-	// Store it only while the frame waits: once another worker has the
-	// frame (this one's delivery ran out while it stalled), that worker
-	// may be adding it from the solution stored before, and its state may
-	// name that one (keepSolution).
-	if cur, err := s.store.Job(bg, id); err != nil || cur.State != jobs.Queued {
-		return false
+	if h := s.cfg.beforeSolutionStore; h != nil {
+		h(*j)
 	}
-	if err := s.blobs.Put(bg, key, bytes.NewReader(b)); err != nil {
+	// The first solution stored stays: a frame added from it stores a
+	// state that names it, and a worker whose delivery ran out while it
+	// stalled here (another worker has the frame since, and may have added
+	// it) must not replace it.
+	if err := s.blobs.Create(bg, key, bytes.NewReader(b)); errors.Is(err, jobs.ErrExists) {
+		l.Info("frame solved ahead by another worker meanwhile: its solution is kept")
+		return false
+	} else if err != nil {
 		l.Warn("store frame solution", "error", err)
 		return false
 	}
@@ -222,7 +226,11 @@ func (s *Runner) solvedFor(ctx context.Context, j *jobs.Job) []byte {
 // solution of frame k goes only once a frame after k has been added, and
 // the state after k is then no longer the series' last (a frame repeated
 // after a crash between its state and its record starts from the state
-// before, whose solution the drop, which comes after the record, has kept).
+// before, whose solution the drop, which comes after the record, has kept),
+// and no write replaces it meanwhile (solveAhead stores with Create). A
+// worker that stalled while it solved frame k may store its solution
+// again after the drop: no state that is read names it then, and it goes
+// with the series.
 func (s *Runner) dropSolved(ctx context.Context, j *jobs.Job) {
 	if j.FrameIndex < 2 {
 		return

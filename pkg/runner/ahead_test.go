@@ -7,6 +7,7 @@ import (
 	"io"
 	"log/slog"
 	"math"
+	"runtime"
 	"sync"
 	"testing"
 	"time"
@@ -455,75 +456,173 @@ func TestSeriesShareWorkers(t *testing.T) {
 	}
 }
 
-// TestKeepSolution: a frame added from its solution stores a state that
-// names it; when the stored solution is no longer the one the frame was
-// added from (a worker whose delivery ran out stored its own), the state
-// is stored again with its points (version 1), the same state, so the
-// series can continue; while it is the same, the state stays as it is.
-func TestKeepSolution(t *testing.T) {
-	ref, imgs, p := aheadSeries(t, 2)
-	ctx := context.Background()
-	tr, err := series.New(ref, series.FrameMeta{Name: "reference"}, p)
-	if err != nil {
-		t.Fatal(err)
-	}
-	if _, err := tr.Add(ctx, imgs[0], series.FrameMeta{}); err != nil {
-		t.Fatal(err)
-	}
-	sol, err := series.Solve(ctx, ref, imgs[1], p, series.Options{}, tr.State().Solution(), nil)
-	if err != nil {
-		t.Fatal(err)
-	}
-	sb, err := sol.MarshalBinary()
-	if err != nil {
-		t.Fatal(err)
-	}
-	if _, err := tr.AddSolved(ctx, imgs[1], series.FrameMeta{}, sol); err != nil {
-		t.Fatal(err)
-	}
-	v1, err := tr.StateBinary()
-	if err != nil {
-		t.Fatal(err)
-	}
-	v2, err := tr.StateBinaryRef(sb)
-	if err != nil || !series.StateRefersSolution(v2) {
-		t.Fatalf("the state does not name the solution: %v", err)
-	}
+// seedSolver is Pipeline solving every frame ahead from the seed search,
+// whatever guess the runner gives it, as a worker that found no guess
+// would: its solution of a frame is another, equally good, than one from
+// the state before.
+// The last solution is kept in *out.
+type seedSolver struct {
+	Pipeline
+	out *[]byte
+}
+
+func (a seedSolver) Solve(ctx context.Context, in SolveInput) ([]byte, error) {
+	in.Guess, in.GuessState, in.GuessBefore = nil, nil, nil
+	b, err := a.Pipeline.Solve(ctx, in)
+	*a.out = b
+	return b, err
+}
+
+// plainDelivery is a delivery handed to runJob by a test.
+type plainDelivery string
+
+func (d plainDelivery) ID() string        { return string(d) }
+func (d plainDelivery) Ack() error        { return nil }
+func (d plainDelivery) Nak() error        { return nil }
+func (d plainDelivery) InProgress() error { return nil }
+
+// TestSolutionNotReplaced runs the interleaving that lost a series when
+// solutions were stored with Put (issue 21): worker A solves frame 1
+// ahead and stalls before it stores its solution (its delivery runs out);
+// worker B then solves frame 1, stores its solution and adds the frame,
+// whose state names B's solution; then A goes on and stores its own, from
+// another guess. The state must still find the solution it names: A's is
+// refused, B's kept, and frame 2 continues the series (with Put, A's
+// replaced B's and frame 2 failed: "the frame's solution is not the one
+// the state was made from").
+func TestSolutionNotReplaced(t *testing.T) {
+	ref, imgs, p := aheadSeries(t, 3)
 	be, err := embedded.Open(t.TempDir(), 8)
 	if err != nil {
 		t.Fatal(err)
 	}
 	defer be.Close()
-	s, err := New(Config{Backend: be, Analyzer: Pipeline{}, Workers: 1, Logger: slog.New(slog.NewJSONHandler(io.Discard, nil))})
+	ctx := context.Background()
+	logger := slog.New(slog.NewJSONHandler(io.Discard, nil))
+	stalled, release := make(chan struct{}), make(chan struct{})
+	var theirs []byte
+	a, err := New(Config{Backend: be, Analyzer: seedSolver{out: &theirs}, Workers: 1, Logger: logger,
+		beforeSolutionStore: func(jobs.Job) {
+			close(stalled)
+			select {
+			case <-release:
+			case <-time.After(time.Minute):
+			}
+		}})
 	if err != nil {
 		t.Fatal(err)
 	}
-	j := &jobs.Job{ID: jobs.NewID(), Kind: jobs.Frame, Series: jobs.NewID(), FrameIndex: 1}
-	other := append([]byte(nil), sb...)
-	other[len(other)-1] ^= 1
-	for _, c := range []struct {
-		name   string
-		stored []byte
-		want   []byte
-	}{{"the same solution", sb, v2}, {"another solution", other, v1}} {
-		if err := be.Blobs.Put(ctx, SolveKey(j.Series, 1), bytes.NewReader(c.stored)); err != nil {
-			t.Fatal(err)
-		}
-		key := BinaryStateKey(j.Series, 1)
-		if err := be.Blobs.Put(ctx, key, bytes.NewReader(v2)); err != nil {
-			t.Fatal(err)
-		}
-		res := &Result{State: v2, solved: sb}
-		if err := s.keepSolution(ctx, j, res); err != nil {
-			t.Fatal(err)
-		}
-		got, err := s.ReadBlob(ctx, key)
+	b, err := New(Config{Backend: be, Analyzer: Pipeline{}, Workers: 1, Logger: logger})
+	if err != nil {
+		t.Fatal(err)
+	}
+	sr, ids := submitSeries(t, be, ref, imgs, p, 3)
+	b.runJob(ctx, plainDelivery(ids[0]))
+	frame := func(k int) *jobs.Job {
+		t.Helper()
+		j, err := be.Store.Job(ctx, ids[k])
 		if err != nil {
 			t.Fatal(err)
 		}
-		if !bytes.Equal(got, c.want) || !bytes.Equal(res.State, c.want) {
-			t.Errorf("%s: the stored state is not the one expected (version 2 named %v, stored %v)", c.name,
-				series.StateRefersSolution(c.want), series.StateRefersSolution(got))
+		return j
+	}
+	j1 := frame(1)
+	aDone := make(chan bool)
+	go func() { aDone <- a.solveAhead(ctx, j1, plainDelivery(ids[1])) }()
+	select {
+	case <-stalled:
+	case <-time.After(time.Minute):
+		t.Fatal("worker A did not solve frame 1")
+	}
+	if !b.solveAhead(ctx, frame(1), plainDelivery(ids[1])) {
+		t.Fatal("worker B did not solve frame 1 ahead")
+	}
+	mine, err := b.ReadBlob(ctx, SolveKey(sr.ID, 1))
+	if err != nil {
+		t.Fatal(err)
+	}
+	if bytes.Equal(theirs, mine) {
+		t.Fatal("the two workers' solutions of frame 1 are the same: nothing to test")
+	}
+	b.runJob(ctx, plainDelivery(ids[1]))
+	st1, err := b.ReadBlob(ctx, BinaryStateKey(sr.ID, 1))
+	if err != nil || !series.StateRefersSolution(st1) {
+		t.Fatalf("frame 1's state does not name its solution (%v): nothing to test", err)
+	}
+	close(release)
+	if <-aDone {
+		t.Error("worker A stored its solution of frame 1 after B's")
+	}
+	if got, err := b.ReadBlob(ctx, SolveKey(sr.ID, 1)); err != nil || !bytes.Equal(got, mine) {
+		t.Errorf("the solution of frame 1 is not the one its state was made from (%v)", err)
+	}
+	b.runJob(ctx, plainDelivery(ids[2]))
+	if j := frame(2); j.State != jobs.Succeeded {
+		t.Fatalf("frame 2 after the stalled worker: %s %+v", j.State, j.Error)
+	}
+	checkSeries(t, seriesState(t, b, sr.ID, 3), ref, imgs, p, be, ids)
+}
+
+// TestRepeatAfterStateFindsSolution: each frame of a series is solved
+// ahead, then added by a worker that stops once the frame's state is
+// stored, before its record says so (a crash); the frame, put back in the
+// queue as after a restart (Backend.Recover), is added again from the
+// state before. It must find the solution it was added from the first
+// time, and store the same state; the next frame, whose start is a state
+// that names the solution of the frame before, must find that one too.
+func TestRepeatAfterStateFindsSolution(t *testing.T) {
+	const nFrames = 4
+	ref, imgs, p := aheadSeries(t, nFrames)
+	be, err := embedded.Open(t.TempDir(), 8)
+	if err != nil {
+		t.Fatal(err)
+	}
+	defer be.Close()
+	ctx := context.Background()
+	logger := slog.New(slog.NewJSONHandler(io.Discard, nil))
+	b, err := New(Config{Backend: be, Analyzer: Pipeline{}, Workers: 1, Logger: logger})
+	if err != nil {
+		t.Fatal(err)
+	}
+	crashing, err := New(Config{Backend: be, Analyzer: Pipeline{}, Workers: 1, Logger: logger,
+		afterState: func(jobs.Job) { runtime.Goexit() }})
+	if err != nil {
+		t.Fatal(err)
+	}
+	sr, ids := submitSeries(t, be, ref, imgs, p, 3)
+	b.runJob(ctx, plainDelivery(ids[0]))
+	for k := 1; k < nFrames; k++ {
+		j, err := be.Store.Job(ctx, ids[k])
+		if err != nil {
+			t.Fatal(err)
+		}
+		if !b.solveAhead(ctx, j, plainDelivery(ids[k])) {
+			t.Fatalf("frame %d not solved ahead", k)
+		}
+		stopped := make(chan struct{})
+		go func() {
+			defer close(stopped)
+			crashing.runJob(ctx, plainDelivery(ids[k]))
+		}()
+		<-stopped
+		first, err := b.ReadBlob(ctx, BinaryStateKey(sr.ID, k))
+		if err != nil || !series.StateRefersSolution(first) {
+			t.Fatalf("frame %d: the state stored before the crash does not name its solution (%v)", k, err)
+		}
+		if j, _ := be.Store.Job(ctx, ids[k]); j.State != jobs.Running {
+			t.Fatalf("frame %d after the crash: %s, want running", k, j.State)
+		}
+		if _, err := be.Recover(ctx); err != nil {
+			t.Fatal(err)
+		}
+		b.runJob(ctx, plainDelivery(ids[k]))
+		if j, _ := be.Store.Job(ctx, ids[k]); j.State != jobs.Succeeded {
+			t.Fatalf("frame %d repeated: %s %+v", k, j.State, j.Error)
+		}
+		again, err := b.ReadBlob(ctx, BinaryStateKey(sr.ID, k))
+		if err != nil || !bytes.Equal(again, first) {
+			t.Errorf("frame %d repeated stored another state than before the crash (%v)", k, err)
 		}
 	}
+	checkSeries(t, seriesState(t, b, sr.ID, nFrames), ref, imgs, p, be, ids)
 }

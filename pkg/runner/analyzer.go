@@ -70,7 +70,6 @@ type Result struct {
 	RefMeasures *quality.Measures
 
 	stateFrom string // the key of the state the frame continued from
-	solved    []byte // the solution the frame was added from, if any
 }
 
 // FrameAnalyzer is an Analyzer that also tracks the frames of a series

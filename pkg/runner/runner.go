@@ -74,6 +74,16 @@ type Config struct {
 	BeforeCompute func(ctx context.Context, j jobs.Job)
 
 	spareThreads bool // JobThreads was left at 0: analysis jobs take idle cores
+
+	// beforeSolutionStore, if not nil, is called by solveAhead with the
+	// frame's record as read before the solve, once the frame is solved
+	// and before its solution is stored (a test hook: a worker stalled
+	// there).
+	beforeSolutionStore func(j jobs.Job)
+	// afterState, if not nil, is called by runJob once the state of
+	// frame j is stored and before its outcome is recorded (a test hook:
+	// a worker that stops there).
+	afterState func(j jobs.Job)
 }
 
 // WithDefaults returns c with its zero fields set to their documented

@@ -15,7 +15,6 @@ import (
 	"github.com/mottledic/mottle/pkg/analysis"
 	"github.com/mottledic/mottle/pkg/imageio"
 	"github.com/mottledic/mottle/pkg/quality"
-	"github.com/mottledic/mottle/pkg/series"
 	"github.com/mottledic/mottle/pkg/service/jobs"
 )
 
@@ -133,9 +132,11 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 		// The new state goes in before the frame counts as done; the state
 		// it was made from is kept until then, so a crash in between
 		// repeats the frame from the same start.
+		// A state may name the frame's solution (series.StateBinaryRef):
+		// that solution was stored with Create, so nothing replaces it.
 		err = s.blobs.Put(ctx, stateKeyOf(j.Series, j.FrameIndex, res.State), bytes.NewReader(res.State))
-		if err == nil && series.StateRefersSolution(res.State) {
-			err = s.keepSolution(ctx, j, res)
+		if h := s.cfg.afterState; h != nil && err == nil {
+			h(*j)
 		}
 	}
 	cause := context.Cause(jctx)
@@ -192,27 +193,6 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 	}
 	l.Info("job finished", "state", final, "seconds", secs)
 	_ = d.Ack()
-}
-
-// keepSolution checks, after the state of frame j is stored naming the
-// frame's solution for its points, that the stored solution is still the
-// one the frame was added from. A worker that held the frame before (its
-// delivery ran out while it stalled) may have stored its own since, though
-// it stores one only while the frame's record says queued; then the state
-// is stored again with its points, as version 1 of the binary form.
-func (s *Runner) keepSolution(ctx context.Context, j *jobs.Job, res *Result) error {
-	if b, err := s.ReadBlob(ctx, SolveKey(j.Series, j.FrameIndex)); err == nil && bytes.Equal(b, res.solved) {
-		return nil
-	}
-	st, err := series.DecodeStateWith(res.State, func() ([]byte, error) { return res.solved, nil })
-	if err != nil {
-		return err
-	}
-	if res.State, err = st.MarshalBinary(); err != nil {
-		return err
-	}
-	s.log.Warn("the frame's solution was replaced: its state is stored with its points", "job", j.ID, "frame", j.FrameIndex)
-	return s.blobs.Put(ctx, stateKeyOf(j.Series, j.FrameIndex, res.State), bytes.NewReader(res.State))
 }
 
 func failureFor(err, cause error, timeout time.Duration) *jobs.Failure {
@@ -306,7 +286,7 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 	}
 	res, err := fa.Frame(ctx, in)
 	if res != nil {
-		res.stateFrom, res.solved = from, in.Solved
+		res.stateFrom = from
 	}
 	return res, err
 }

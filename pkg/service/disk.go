@@ -182,6 +182,15 @@ func (b guardedBlobs) Put(ctx context.Context, key string, r io.Reader) error {
 	return err
 }
 
+func (b guardedBlobs) Create(ctx context.Context, key string, r io.Reader) error {
+	err := b.Blobs.Create(ctx, key, r)
+	if isNoSpace(err) {
+		b.g.noSpace()
+		return noSpaceErr("storing "+key, err)
+	}
+	return err
+}
+
 // guardedStore reports record writes that fail for lack of space to the
 // guard. An update of an existing record (the outcome of a job, a frame
 // appended) is tried once more after the reserve is given up: the state

@@ -45,6 +45,28 @@ func (b *Blobs) path(key string) (string, error) {
 // Put implements jobs.Blobs: it writes to a temporary file in the same
 // directory, syncs it and renames it over the key's file.
 func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
+	return b.write(ctx, key, r, os.Rename)
+}
+
+// Create implements jobs.Blobs: as Put, but the temporary file is linked
+// to the key's name, which fails when that name exists (a rename would
+// replace it), and then removed.
+func (b *Blobs) Create(ctx context.Context, key string, r io.Reader) error {
+	return b.write(ctx, key, r, func(tmp, p string) error {
+		err := os.Link(tmp, p)
+		if errors.Is(err, fs.ErrExist) {
+			err = jobs.ErrExists
+		}
+		if err == nil {
+			err = os.Remove(tmp)
+		}
+		return err
+	})
+}
+
+// write writes the contents of r to a temporary file in the key's
+// directory, syncs it, and gives it the key's name with place(tmp, path).
+func (b *Blobs) write(ctx context.Context, key string, r io.Reader, place func(tmp, p string) error) error {
 	p, err := b.path(key)
 	if err != nil {
 		return err
@@ -66,7 +88,7 @@ func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
 		err = cerr
 	}
 	if err == nil {
-		err = os.Rename(tmp, p)
+		err = place(tmp, p)
 	}
 	if err != nil {
 		os.Remove(tmp)

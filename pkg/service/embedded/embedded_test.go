@@ -56,6 +56,16 @@ func TestBlobKeysCannotEscape(t *testing.T) {
 	}
 }
 
+func TestBlobsCreate(t *testing.T) {
+	b, err := OpenBlobs(t.TempDir())
+	if err != nil {
+		t.Fatal(err)
+	}
+	if diff, err := jobstest.CheckCreate(context.Background(), b, jobs.NewID()); err != nil || diff != "" {
+		t.Fatalf("%s %v", diff, err)
+	}
+}
+
 func TestStoreUpdateWatchRecover(t *testing.T) {
 	dir := t.TempDir()
 	be, err := Open(dir, 2)

@@ -163,6 +163,14 @@ func Older(a, b *Job) bool {
 type Blobs interface {
 	// Put stores the contents of r under key, replacing any old contents.
 	Put(ctx context.Context, key string, r io.Reader) error
+	// Create stores the contents of r under key only while the key holds
+	// none: when it does, Create returns ErrExists and leaves them as
+	// they are. Of Creates of one key at once, one stores its contents
+	// and the others return ErrExists. A key deleted may be created
+	// again. Blobs that nothing may replace once a record names them (a
+	// series frame's solution, named by the state made from it) are
+	// written with Create.
+	Create(ctx context.Context, key string, r io.Reader) error
 	// Get opens the blob under key; ErrNotFound if absent.
 	Get(ctx context.Context, key string) (io.ReadCloser, error)
 	// Delete removes every blob whose key is prefix or starts with

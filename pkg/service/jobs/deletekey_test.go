@@ -9,7 +9,8 @@ import (
 // callLog is a Blobs that records the deletions asked of it.
 type callLog struct{ calls []string }
 
-func (c *callLog) Put(context.Context, string, io.Reader) error { return nil }
+func (c *callLog) Put(context.Context, string, io.Reader) error    { return nil }
+func (c *callLog) Create(context.Context, string, io.Reader) error { return nil }
 func (c *callLog) Get(context.Context, string) (io.ReadCloser, error) {
 	return nil, ErrNotFound
 }

@@ -40,6 +40,10 @@ func (b *memBlobs) Put(ctx context.Context, key string, r io.Reader) error {
 	return nil
 }
 
+func (b *memBlobs) Create(ctx context.Context, key string, r io.Reader) error {
+	return errors.ErrUnsupported
+}
+
 func (b *memBlobs) Get(ctx context.Context, key string) (io.ReadCloser, error) {
 	return nil, ErrNotFound
 }

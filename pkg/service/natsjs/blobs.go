@@ -33,6 +33,8 @@ import (
 // the first answer kept.
 type Blobs struct {
 	obj    jetstream.ObjectStore
+	js     jetstream.JetStream
+	st     jetstream.Stream // the store's stream (Create's reads, writes and purges)
 	nc     *nats.Conn
 	stream string // the store's stream, read from its leader (direct reads off)
 	bucket string
@@ -202,6 +204,148 @@ func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
 		return fmt.Errorf("blob %s: %w", key, err)
 	}
 	return nil
+}
+
+// Create implements jobs.Blobs. It writes the object as the object
+// store's Put does, its chunks and then its metadata, but the metadata is
+// published on the condition that the last message of its subject is the
+// one Create read (none, or the metadata of a deleted object): the
+// stream's leader refuses it when another write came in between, and of
+// Creates at once the first to reach the leader is stored. The chunks of
+// a Create refused are purged. An object found whose chunks are not all
+// there (see Put) holds no contents, and Create writes over it.
+//
+// It costs what Put costs: one read of the metadata, the chunks and the
+// metadata written, and no more.
+func (b *Blobs) Create(ctx context.Context, key string, r io.Reader) error {
+	if !jobs.ValidKey(key) {
+		return fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", key)
+	}
+	data, err := io.ReadAll(r)
+	if err != nil {
+		return fmt.Errorf("blob %s: %w", key, err)
+	}
+	sum := sha256.Sum256(data)
+	stored, extra := data, map[string]string(nil)
+	if b.compress && len(data) >= compressMin {
+		if z := deflate(data); z != nil {
+			stored, extra = z, map[string]string{metaEncoding: encDeflate, metaSize: strconv.Itoa(len(data)), metaDigest: digest(sum[:])}
+		}
+	}
+	metaSubj := "$O." + b.bucket + ".M." + base64.URLEncoding.EncodeToString([]byte(key))
+	var mine []string // the objects this Create wrote: an answer lost on the way is no refusal
+	err = retry(ctx, func(ctx context.Context) error {
+		var last uint64
+		m, err := b.st.GetLastMsgForSubject(ctx, metaSubj)
+		switch {
+		case errors.Is(err, jetstream.ErrMsgNotFound):
+		case err != nil:
+			return err
+		default:
+			last = m.Sequence
+			var info jetstream.ObjectInfo
+			if err := json.Unmarshal(m.Data, &info); err != nil {
+				return fmt.Errorf("%w: %v", jetstream.ErrBadObjectMeta, err)
+			}
+			if slices.Contains(mine, info.NUID) {
+				if _, err := b.readChunks(ctx, &info); err == nil {
+					b.cache.put(key, info.NUID, info.Digest, data)
+					return nil
+				}
+			} else if !info.Deleted {
+				_, err := b.readChunks(ctx, &info)
+				if err == nil {
+					return jobs.ErrExists
+				}
+				if !errors.Is(err, errChanged) {
+					return err
+				}
+			}
+		}
+		info, err := b.write(ctx, key, metaSubj, stored, extra, last, &mine)
+		if err == nil {
+			b.cache.put(key, info.NUID, info.Digest, data)
+		}
+		return err
+	})
+	if err != nil {
+		b.cache.drop(key)
+		return fmt.Errorf("blob %s: %w", key, err)
+	}
+	return nil
+}
+
+// errRaced reports a conditional write of an object's metadata refused
+// because another write came first: Create reads the metadata again.
+var errRaced = errors.New("another write of the object came first")
+
+// write stores an object under key whose metadata subject is metaSubj:
+// its chunks of stored, then its metadata, on the condition that the
+// last message on metaSubj is sequence last (0: none). The object's NUID
+// is appended to *mine before anything is sent. It waits for every
+// acknowledgement; when one fails it purges the object's chunks.
+func (b *Blobs) write(ctx context.Context, key, metaSubj string, stored []byte, extra map[string]string, last uint64, mine *[]string) (*jetstream.ObjectInfo, error) {
+	id := jobs.NewID() // any name of a subject token: the object store's own is a NUID
+	*mine = append(*mine, id)
+	chunkSubj := "$O." + b.bucket + ".C." + id
+	info := &jetstream.ObjectInfo{Bucket: b.bucket, NUID: id,
+		ObjectMeta: jetstream.ObjectMeta{Name: key, Metadata: extra, Opts: &jetstream.ObjectMetaOptions{ChunkSize: b.chunk}}}
+	h := sha256.New()
+	var acks []jetstream.PubAckFuture // those not yet answered
+	fail := func(err error) (*jetstream.ObjectInfo, error) {
+		for _, a := range acks {
+			select { // the chunks sent must be stored or lost before the purge
+			case <-a.Ok():
+			case <-a.Err():
+			case <-ctx.Done():
+			}
+		}
+		pctx, cancel := context.WithTimeout(context.Background(), attemptTimeout)
+		defer cancel()
+		_ = b.st.Purge(pctx, jetstream.WithPurgeSubject(chunkSubj))
+		return nil, err
+	}
+	for rest := stored; len(rest) > 0; {
+		n := min(len(rest), int(b.chunk))
+		h.Write(rest[:n])
+		a, err := b.js.PublishMsgAsync(&nats.Msg{Subject: chunkSubj, Data: rest[:n]})
+		if err != nil {
+			return fail(err)
+		}
+		acks = append(acks, a)
+		info.Chunks++
+		info.Size += uint64(n)
+		rest = rest[n:]
+	}
+	info.Digest = jetstream.GetObjectDigestValue(h)
+	mb, err := json.Marshal(info)
+	if err != nil {
+		return fail(err)
+	}
+	mm := nats.NewMsg(metaSubj)
+	mm.Header.Set(jetstream.MsgRollup, jetstream.MsgRollupSubject)
+	mm.Data = mb
+	a, err := b.js.PublishMsgAsync(mm, jetstream.WithExpectLastSequencePerSubject(last))
+	if err != nil {
+		return fail(err)
+	}
+	for acks = append(acks, a); len(acks) > 0; {
+		a := acks[0]
+		acks = acks[1:]
+		select {
+		case <-a.Ok():
+		case err := <-a.Err():
+			var apiErr *jetstream.APIError
+			if errors.As(err, &apiErr) && (apiErr.ErrorCode == jetstream.JSErrCodeStreamWrongLastSequence ||
+				apiErr.ErrorCode == jetstream.JSErrCodeStreamWrongLastSequenceConstant) {
+				err = errRaced
+			}
+			return fail(err)
+		case <-ctx.Done():
+			return fail(ctx.Err())
+		}
+	}
+	return info, nil
 }
 
 // Get implements jobs.Blobs. The object is read whole: its metadata,

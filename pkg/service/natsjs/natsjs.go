@@ -446,8 +446,12 @@ func (b *Backend) setupOnce(ctx context.Context) error {
 	if err != nil {
 		return fmt.Errorf("object store %s: %w", n.objects, err)
 	}
+	objStream, err := js.Stream(rctx, "OBJ_"+n.objects)
+	if err != nil {
+		return fmt.Errorf("object store %s: %w", n.objects, err)
+	}
 	b.store = newStore(b.nc, kv, n, o.Logger)
-	b.blobs = &Blobs{obj: obj, nc: b.nc, stream: "OBJ_" + n.objects, bucket: n.objects, chunk: chunkSize(b.nc.MaxPayload()),
+	b.blobs = &Blobs{obj: obj, js: js, st: objStream, nc: b.nc, stream: "OBJ_" + n.objects, bucket: n.objects, chunk: chunkSize(b.nc.MaxPayload()),
 		compress: b.opt.Compress, cache: newReadCache(readCacheBytes)}
 	b.queue = &Queue{b: b, cons: cons}
 	b.audit = &Audit{js: js, stream: n.auditStream, n: n}

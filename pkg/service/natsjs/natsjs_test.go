@@ -16,6 +16,7 @@ import (
 	"github.com/nats-io/nats.go/jetstream"
 
 	"github.com/mottledic/mottle/pkg/service/jobs"
+	"github.com/mottledic/mottle/pkg/service/jobs/jobstest"
 )
 
 // runServer starts an in-process single-node JetStream server.
@@ -312,6 +313,9 @@ func TestBlobs(t *testing.T) {
 	}
 	if err := bl.Put(ctx, "../x", strings.NewReader("x")); err == nil {
 		t.Error("Put with key ../x: no error")
+	}
+	if diff, err := jobstest.CheckCreate(ctx, bl, jobs.NewID()); err != nil || diff != "" {
+		t.Errorf("Create: %s %v", diff, err)
 	}
 	if _, err := bl.Get(ctx, jobs.InputKey(jobs.NewID(), "reference")); !errors.Is(err, jobs.ErrNotFound) {
 		t.Errorf("Get(missing): %v", err)
@@ -695,6 +699,11 @@ func TestBlobsAfterNodeStops(t *testing.T) {
 	// The client knows only the leader; it learns the others from it.
 	b := open(t, lead.ClientURL(), nil)
 	id := jobs.NewID()
+	// Create on a replicated stream (its leader refuses a conditional
+	// write with a code of its own).
+	if diff, err := jobstest.CheckCreate(ctx, b.Blobs(), jobs.NewID()); err != nil || diff != "" {
+		t.Fatalf("Create on three nodes: %s %v", diff, err)
+	}
 	want := map[string]string{}
 	for i := range 4 {
 		key := jobs.ResultKey(id, fmt.Sprintf("f%d.json", i))
@@ -736,6 +745,9 @@ func TestBlobsAfterNodeStops(t *testing.T) {
 	if b.Conn().ConnectedServerName() == leader {
 		t.Errorf("client still on the stopped server %s", leader)
 	}
+	if diff, err := jobstest.CheckCreate(ctx, b.Blobs(), jobs.NewID()); err != nil || diff != "" {
+		t.Fatalf("Create after %s stopped: %s %v", leader, diff, err)
+	}
 }
 
 // TestBlobsPutOverIncomplete checks that Put writes again an object whose
@@ -758,13 +770,21 @@ func TestBlobsPutOverIncomplete(t *testing.T) {
 		key   string
 		data  string
 		purge []jetstream.StreamPurgeOpt // applied to the chunk subject
+		// create writes with Create: an object without its chunks holds
+		// nothing, so Create writes over it.
+		create bool
 	}{
-		{"result, no chunks", jobs.ResultKey(jobs.NewID(), "field.json"), `{"a":1}`, nil},
-		{"result, last chunk only", jobs.ResultKey(jobs.NewID(), "arrays/u.npy"), big, []jetstream.StreamPurgeOpt{jetstream.WithPurgeKeep(1)}},
-		{"input, same digest", jobs.InputKey(jobs.NewID(), "reference"), big, nil},
+		{"result, no chunks", jobs.ResultKey(jobs.NewID(), "field.json"), `{"a":1}`, nil, false},
+		{"result, last chunk only", jobs.ResultKey(jobs.NewID(), "arrays/u.npy"), big, []jetstream.StreamPurgeOpt{jetstream.WithPurgeKeep(1)}, false},
+		{"input, same digest", jobs.InputKey(jobs.NewID(), "reference"), big, nil, false},
+		{"created, no chunks", jobs.SeriesKey(jobs.NewID(), "solved/000001.bin"), big, nil, true},
 	} {
 		t.Run(tc.name, func(t *testing.T) {
-			if err := bl.Put(ctx, tc.key, strings.NewReader(tc.data)); err != nil {
+			put := bl.Put
+			if tc.create {
+				put = bl.Create
+			}
+			if err := put(ctx, tc.key, strings.NewReader(tc.data)); err != nil {
 				t.Fatal(err)
 			}
 			info, err := b.blobs.obj.GetInfo(ctx, tc.key)
@@ -783,7 +803,7 @@ func TestBlobsPutOverIncomplete(t *testing.T) {
 			if _, err := reader.Get(ctx, tc.key); err == nil {
 				t.Fatal("Get of an object without all its chunks: no error")
 			}
-			if err := bl.Put(ctx, tc.key, strings.NewReader(tc.data)); err != nil {
+			if err := put(ctx, tc.key, strings.NewReader(tc.data)); err != nil {
 				t.Fatal(err)
 			}
 			rc, err := bl.Get(ctx, tc.key)

@@ -27,7 +27,7 @@ func permanent(err error) bool {
 	for _, e := range []error{jetstream.ErrKeyNotFound, jetstream.ErrKeyDeleted, jetstream.ErrKeyExists,
 		jetstream.ErrKeyRevisionMismatch, jetstream.ErrObjectNotFound, jetstream.ErrNoObjectsFound,
 		jetstream.ErrInvalidKey, jetstream.ErrBadObjectMeta, jetstream.ErrMsgNotFound, jetstream.ErrStreamNotFound,
-		jetstream.ErrMaxBytesExceeded, nats.ErrConnectionClosed, jobs.ErrQueueFull, nats.ErrMaxPayload, nats.ErrBadSubject} {
+		jetstream.ErrMaxBytesExceeded, nats.ErrConnectionClosed, jobs.ErrQueueFull, jobs.ErrExists, nats.ErrMaxPayload, nats.ErrBadSubject} {
 		if errors.Is(err, e) {
 			return true
 		}
