@@ -36,10 +36,10 @@ var vectorPass = archsimd.X86.AVX512() && archsimd.X86.FMA()
 // pass1fast is the first-order table pass Run uses.
 func (s *solver) pass1fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	switch {
-	case s.qtab != nil:
-		return s.pass1q(p, sg, sgg, sfg, sjg)
 	case vectorPass && !s.portable && 2*s.m+1 >= 8:
 		return s.pass1v(p, sg, sgg, sfg, sjg)
+	case s.qtab != nil:
+		return s.pass1q(p, sg, sgg, sfg, sjg)
 	case s.rtab != nil:
 		return s.pass1r(p, sg, sgg, sfg, sjg)
 	}
@@ -98,10 +98,10 @@ func (s *solver) initVector() {
 // pass2fast is the second-order table pass Run uses.
 func (s *solver) pass2fast(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool {
 	switch {
-	case s.qtab != nil:
-		return s.pass2q(p, sg, sgg, sfg, sjg)
 	case vectorPass && !s.portable && 2*s.m+1 >= 8:
 		return s.pass2v(p, sg, sgg, sfg, sjg)
+	case s.qtab != nil:
+		return s.pass2q(p, sg, sgg, sfg, sjg)
 	case s.rtab != nil:
 		return s.pass2r(p, sg, sgg, sfg, sjg)
 	}
@@ -334,13 +334,17 @@ func (s *solver) pass1v(p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64)
 }
 
 // sample interpolates a subset row (see sampleRow) from the solver's
-// table: the row table if it has one (sampleRows), else the bicubic one.
+// table: the quintic or cubic row table if it has one (sampleRows5,
+// sampleRows), else the bicubic one.
 func (s *solver) sample(x, y, xL, yL int64) {
-	if s.rtab != nil {
+	switch {
+	case s.qtab != nil:
+		s.sampleRows5(x, y, xL, yL)
+	case s.rtab != nil:
 		s.sampleRows(x, y, xL, yL)
-		return
+	default:
+		s.sampleRow(x, y, xL, yL)
 	}
-	s.sampleRow(x, y, xL, yL)
 }
 
 // sampleRow interpolates the bicubic table at the fixed-point positions of a

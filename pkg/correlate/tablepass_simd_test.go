@@ -26,7 +26,7 @@ func TestVectorPassMatchesPortable(t *testing.T) {
 	rng := rand.New(rand.NewPCG(3, 4))
 	for _, tc := range tableCases() {
 		for _, subset := range []int{21, 25, 31, 33} {
-			r, err := newRun(context.Background(), ref, def, Options{Subset: subset, Threads: 1}, tuning{table: tc.kind})
+			r, err := newRun(context.Background(), ref, def, Options{Subset: subset, Threads: 1, Interp: tc.interp}, tuning{table: tc.kind})
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -34,8 +34,8 @@ func TestVectorPassMatchesPortable(t *testing.T) {
 				t.Fatal(err)
 			}
 			s := r.solvers[0]
-			if (s.rtab != nil) != (tc.kind == tableRows) {
-				t.Fatalf("%s: the run built the other table", tc.name)
+			if !tc.built(s) {
+				t.Fatalf("%s: the run built another table", tc.name)
 			}
 			for trial := 0; trial < 200; trial++ {
 				xc, yc := float64(40+rng.IntN(160)), float64(40+rng.IntN(140))
@@ -92,7 +92,7 @@ func TestVectorPassMatchesPortable(t *testing.T) {
 		// A whole run: same statuses, displacements within 5e-6 px (float32
 		// rounding of the interpolated values moves noisy points by up to
 		// ~1e-6 px, as in TestFastPathsMatchDirect).
-		opt := Options{Subset: 25, Step: 6}
+		opt := Options{Subset: 25, Step: 6, Interp: tc.interp}
 		v, err := runWith(context.Background(), ref, def, opt, tuning{table: tc.kind})
 		if err != nil {
 			t.Fatal(err)
@@ -123,14 +123,27 @@ func TestVectorPassMatchesPortable(t *testing.T) {
 type tableCase struct {
 	name         string
 	kind         tableKind
+	interp       spline.Order
 	pass1, pass2 func(s *solver, p *[12]float64, sg, sgg, sfg *float64, sjg *[12]float64) bool
 }
 
 func tableCases() []tableCase {
 	return []tableCase{
-		{"bicubic table", tableCells, (*solver).pass1t, (*solver).pass2t},
-		{"row table", tableRows, (*solver).pass1r, (*solver).pass2r},
+		{"bicubic table", tableCells, spline.Cubic, (*solver).pass1t, (*solver).pass2t},
+		{"row table", tableRows, spline.Cubic, (*solver).pass1r, (*solver).pass2r},
+		{"quintic row table", tableDefault, spline.Quintic, (*solver).pass1q, (*solver).pass2q},
 	}
+}
+
+// built reports whether the run's solver interpolates from the table of tc.
+func (tc tableCase) built(s *solver) bool {
+	switch {
+	case tc.interp == spline.Quintic:
+		return s.qtab != nil
+	case tc.kind == tableRows:
+		return s.rtab != nil && s.qtab == nil
+	}
+	return s.tab != nil
 }
 
 // The vector prepare gives prepare1's reference data to rounding, for
@@ -267,7 +280,7 @@ func TestVectorPass2MatchesPortable(t *testing.T) {
 	for _, tc := range tableCases() {
 		var left int
 		for _, subset := range []int{21, 25, 31, 33} {
-			r, err := newRun(context.Background(), ref, def, Options{Subset: subset, Shape: Second, Threads: 1}, tuning{table: tc.kind})
+			r, err := newRun(context.Background(), ref, def, Options{Subset: subset, Shape: Second, Threads: 1, Interp: tc.interp}, tuning{table: tc.kind})
 			if err != nil {
 				t.Fatal(err)
 			}
@@ -275,8 +288,8 @@ func TestVectorPass2MatchesPortable(t *testing.T) {
 				t.Fatal(err)
 			}
 			s := r.solvers[0]
-			if (s.rtab != nil) != (tc.kind == tableRows) {
-				t.Fatalf("%s: the run built the other table", tc.name)
+			if !tc.built(s) {
+				t.Fatalf("%s: the run built another table", tc.name)
 			}
 			for trial := 0; trial < 300; trial++ {
 				xc, yc := float64(20+rng.IntN(200)), float64(20+rng.IntN(180))
@@ -338,7 +351,7 @@ func TestVectorPass2MatchesPortable(t *testing.T) {
 		if left == 0 {
 			t.Errorf("%s: no warp left the usable area: the edge case is not tested", tc.name)
 		}
-		opt := Options{Subset: 25, Step: 6, Shape: Second}
+		opt := Options{Subset: 25, Step: 6, Shape: Second, Interp: tc.interp}
 		v, err := runWith(context.Background(), ref, def, opt, tuning{table: tc.kind})
 		if err != nil {
 			t.Fatal(err)
@@ -364,88 +377,152 @@ func TestVectorPass2MatchesPortable(t *testing.T) {
 	}
 }
 
-// The row-table interpolation of the vector passes gives spline.EvalRows'
-// values (the same operations in another order, float32) at every pixel
-// of a subset row, for first-order steps and steps that grow along the
-// row (second order), sides that are and are not a multiple of four, and
-// rows whose four-pixel groups fall on neighbouring cells of one table
-// row (one load per row polynomial) and groups that do not.
+// The row-table interpolations of the vector passes give the values of
+// spline.EvalRows and spline.EvalRows5 (the same rows combined in the same
+// basis, in another order, float32) at every pixel of a subset row, for
+// first-order steps and steps that grow along the row (second order),
+// sides that are and are not a multiple of four, and rows whose groups
+// fall on neighbouring cells of one table row (one load per row
+// polynomial) and groups that do not.
 func TestVectorRowsMatchEvalRows(t *testing.T) {
 	if !vectorPass {
 		t.Skip("this CPU has no AVX-512 and FMA: the vector pass is not used")
 	}
 	m := synth.Affine{F: [2][2]float64{{1.006, 0.003}, {-0.002, 0.996}}, CX: 120, CY: 110, U: 2.7, V: -1.4}
 	ref, def := pair(t, m, 240, 220, 8, 1, 11)
-	rng := rand.New(rand.NewPCG(9, 10))
-	for _, subset := range []int{21, 31, 33} {
-		r, err := newRun(context.Background(), ref, def, Options{Subset: subset, Threads: 1}, tuning{})
-		if err != nil {
-			t.Fatal(err)
-		}
-		rt, err := spline.NewRowTable(context.Background(), r.defSp, 1)
-		if err != nil {
-			t.Fatal(err)
-		}
-		a, w := rt.Coefficients(), rt.W
-		s := r.solvers[0]
-		s.useRowTable(rt)
-		n := 2*s.m + 1
-		last := int64(n - 4)
-		var worst, scale float64
-		var near, far int
-		for trial := 0; trial < 400; trial++ {
-			// First differences along the row near 1 (the usual case) or
-			// far from it, and for second-order rows a growth of up to
-			// ±2e-3 px per pixel.
-			a11, a21 := 1+0.02*rng.Float64()-0.01, 0.02*rng.Float64()-0.01
-			if trial%4 == 1 {
-				a11, a21 = 1+0.6*rng.Float64()-0.3, 0.6*rng.Float64()-0.3
+	const eps = 0x1p-24 // float32's unit roundoff
+	for _, tc := range []struct {
+		name   string
+		interp spline.Order
+		// use gives the solver its table and returns the sampler and the
+		// reference value at a fixed-point position with the bound on
+		// their difference there.
+		use func(t *testing.T, s *solver, sp *spline.Image) (sample func(x, y, xL, yL int64), eval func(x, y int64) (v, bound float64))
+		// near reports whether a group's pixels from i on take the
+		// single loads.
+		near func(cx, cy []int64, i int) bool
+	}{
+		{"row table", spline.Cubic,
+			func(t *testing.T, s *solver, sp *spline.Image) (func(x, y, xL, yL int64), func(x, y int64) (float64, float64)) {
+				rt, err := spline.NewRowTable(context.Background(), sp, 1)
+				if err != nil {
+					t.Fatal(err)
+				}
+				s.useRowTable(rt)
+				a, w := rt.Coefficients(), rt.W
+				// float32 evaluations of a cubic in each direction: some 20
+				// roundings of terms up to a few times the grey level (the
+				// bound of the first version of this test, 2e-6 of the
+				// largest value, here per sample: 2e-6 of 255).
+				return s.sampleRows, func(x, y int64) (float64, float64) {
+					o := 4 * (int(y>>fixBits)*w + int(x>>fixBits))
+					tx, ty := float32(x&fixMask)*fixScale, float32(y&fixMask)*fixScale
+					return float64(spline.EvalRows(a, o, 4*w, tx, ty)), 2e-6 * 255
+				}
+			},
+			func(cx, cy []int64, i int) bool {
+				return cy[i] == cy[i+3] && cx[i+1]-cx[i] == 1 && cx[i+2]-cx[i] == 2 && cx[i+3]-cx[i] == 3
+			}},
+		{"quintic row table", spline.Quintic,
+			func(t *testing.T, s *solver, sp *spline.Image) (func(x, y, xL, yL int64), func(x, y int64) (float64, float64)) {
+				qt, err := spline.NewQuinticRowTable(context.Background(), sp, 1)
+				if err != nil {
+					t.Fatal(err)
+				}
+				s.useQuinticRowTable(qt)
+				a, w := qt.Coefficients(), qt.W
+				// Both evaluate six row polynomials (5 roundings each) and
+				// combine them with weights of at most 166 (the sum of
+				// |coefficients| of a row's basis polynomial, quinticBasis5),
+				// a dozen roundings deep: each differs from the exact value
+				// by at most about 12·eps times Σ_q B_q·Σ_i |c_qi|, the
+				// magnitude of its terms; the bound is twice that.
+				return s.sampleRows5, func(x, y int64) (float64, float64) {
+					o := 6 * (int(y>>fixBits)*w + int(x>>fixBits))
+					tx, ty := float32(x&fixMask)*fixScale, float32(y&fixMask)*fixScale
+					var mag float64
+					for q, b := range quinticBasis5 {
+						var bq, cq float64
+						for i := range 6 {
+							bq += math.Abs(float64(b[i]))
+							cq += math.Abs(float64(a[o+q*6*w+i]))
+						}
+						mag += bq * cq
+					}
+					return float64(spline.EvalRows5(a, o, 6*w, tx, ty)), 24 * eps * mag
+				}
+			},
+			func(cx, cy []int64, i int) bool {
+				return cy[i] == cy[i+1] && cy[i+2] == cy[i+3] && cx[i+1]-cx[i] == 1 && cx[i+3]-cx[i+2] == 1
+			}},
+	} {
+		rng := rand.New(rand.NewPCG(9, 10))
+		for _, subset := range []int{21, 31, 33} {
+			r, err := newRun(context.Background(), ref, def, Options{Subset: subset, Threads: 1, Interp: tc.interp}, tuning{})
+			if err != nil {
+				t.Fatal(err)
 			}
-			var ddx, ddy int64
-			if trial%2 == 1 {
-				ddx, ddy = int64((0.004*rng.Float64()-0.002)*fixOne), int64((0.004*rng.Float64()-0.002)*fixOne)
-			}
-			dx0, dy0 := int64(a11*fixOne), int64(a21*fixOne)
-			x0, y0 := fix(30+170*rng.Float64()), fix(30+150*rng.Float64())
-			// Positions, the lane offsets and steps of sampleRow's s.rv.
-			px, py := make([]int64, n), make([]int64, n)
-			for i := range px {
-				t := int64(i) * int64(i-1) / 2
-				px[i], py[i] = x0+int64(i)*dx0+t*ddx, y0+int64(i)*dy0+t*ddy
-			}
-			rv := &s.rv
-			for l := range 4 {
-				rv[0][l], rv[0][4+l] = px[l]-px[0], py[l]-py[0]
-				rv[1][l], rv[1][4+l] = px[int(last)+l]-px[last], py[int(last)+l]-py[last]
-				rv[2][l], rv[2][4+l] = px[4+l]-px[l], py[4+l]-py[l]
-				rv[3][l], rv[3][4+l] = 16*ddx, 16*ddy
-			}
-			s.sampleRows(px[0], py[0], px[last], py[last])
-			archsimd.ClearAVXUpperBits()
-			for i := range px {
-				cx, cy := int(px[i]>>fixBits), int(py[i]>>fixBits)
-				tx, ty := float32(px[i]&fixMask)*fixScale, float32(py[i]&fixMask)*fixScale
-				want := float64(spline.EvalRows(a, 4*(cy*w+cx), 4*w, tx, ty))
-				worst = math.Max(worst, math.Abs(s.gbuf[i]-want))
-				scale = math.Max(scale, math.Abs(want))
-			}
-			for i := 0; i+4 <= n; i += 4 {
-				if py[i]>>fixBits == py[i+3]>>fixBits && px[i+3]>>fixBits-px[i]>>fixBits == 3 && px[i+1]>>fixBits-px[i]>>fixBits == 1 && px[i+2]>>fixBits-px[i]>>fixBits == 2 {
-					near++
-				} else {
-					far++
+			s := r.solvers[0]
+			sample, eval := tc.use(t, s, r.defSp)
+			n := 2*s.m + 1
+			last := int64(n - 4)
+			var worst, worstRel, scale float64
+			var near, far int
+			for trial := 0; trial < 400; trial++ {
+				// First differences along the row near 1 (the usual case) or
+				// far from it, and for second-order rows a growth of up to
+				// ±2e-3 px per pixel; every position inside the usable area
+				// of the quintic table (3 px from the edges).
+				a11, a21 := 1+0.02*rng.Float64()-0.01, 0.02*rng.Float64()-0.01
+				if trial%4 == 1 {
+					a11, a21 = 1+0.6*rng.Float64()-0.3, 0.6*rng.Float64()-0.3
+				}
+				var ddx, ddy int64
+				if trial%2 == 1 {
+					ddx, ddy = int64((0.004*rng.Float64()-0.002)*fixOne), int64((0.004*rng.Float64()-0.002)*fixOne)
+				}
+				dx0, dy0 := int64(a11*fixOne), int64(a21*fixOne)
+				x0, y0 := fix(30+150*rng.Float64()), fix(30+150*rng.Float64())
+				// Positions, the lane offsets and steps of sampleRow's s.rv.
+				px, py := make([]int64, n), make([]int64, n)
+				cx, cy := make([]int64, n), make([]int64, n)
+				for i := range px {
+					t := int64(i) * int64(i-1) / 2
+					px[i], py[i] = x0+int64(i)*dx0+t*ddx, y0+int64(i)*dy0+t*ddy
+					cx[i], cy[i] = px[i]>>fixBits, py[i]>>fixBits
+				}
+				rv := &s.rv
+				for l := range 4 {
+					rv[0][l], rv[0][4+l] = px[l]-px[0], py[l]-py[0]
+					rv[1][l], rv[1][4+l] = px[int(last)+l]-px[last], py[int(last)+l]-py[last]
+					rv[2][l], rv[2][4+l] = px[4+l]-px[l], py[4+l]-py[l]
+					rv[3][l], rv[3][4+l] = 16*ddx, 16*ddy
+				}
+				sample(px[0], py[0], px[last], py[last])
+				archsimd.ClearAVXUpperBits()
+				for i := range px {
+					want, bound := eval(px[i], py[i])
+					d := math.Abs(s.gbuf[i] - want)
+					worst, worstRel = math.Max(worst, d), math.Max(worstRel, d/bound)
+					scale = math.Max(scale, math.Abs(want))
+				}
+				for i := 0; i+4 <= n; i += 4 {
+					if tc.near(cx, cy, i) {
+						near++
+					} else {
+						far++
+					}
 				}
 			}
-		}
-		r.stop()
-		// float32 evaluations of a cubic in each direction: some 20
-		// roundings of terms up to a few times the grey level.
-		t.Logf("subset %d: worst difference %.2g of the largest value %.3g; groups on neighbouring cells %d, others %d", subset, worst, scale, near, far)
-		if worst > 2e-6*scale {
-			t.Errorf("subset %d: sampleRows and EvalRows differ by up to %.2g, want ≤ %.2g", subset, worst, 2e-6*scale)
-		}
-		if near == 0 || far == 0 {
-			t.Errorf("subset %d: %d groups on neighbouring cells, %d others: both kinds must be tested", subset, near, far)
+			r.stop()
+			t.Logf("%s, subset %d: worst difference %.2g (%.2g of its bound), largest value %.3g; groups on neighbouring cells %d, others %d",
+				tc.name, subset, worst, worstRel, scale, near, far)
+			if worstRel > 1 {
+				t.Errorf("%s, subset %d: the vector interpolation and the reference differ by up to %.2g of the bound", tc.name, subset, worstRel)
+			}
+			if near == 0 || far == 0 {
+				t.Errorf("%s, subset %d: %d groups on neighbouring cells, %d others: both kinds must be tested", tc.name, subset, near, far)
+			}
 		}
 	}
 }
