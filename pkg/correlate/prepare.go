@@ -261,29 +261,41 @@ func (s *solver) smoothedVars(cu, cv *[12]float64) (vu, vv float64) {
 	wide := ext + 2*r
 	// wu, wv: side rows of width wide, w at column 2r + i (i = 0 … side−1).
 	wu, wv := s.wpad[:side*wide], s.wpad[side*wide:2*side*wide]
-	var jv [12]float64
 	k := 0
 	for j := 0; j < side; j++ {
 		ru, rv := wu[j*wide+2*r:j*wide+2*r+side], wv[j*wide+2*r:j*wide+2*r+side]
-		for i := range ru {
-			s.jacobian(s.fx[k], s.fy[k], float64(i-m), float64(j-m), &jv)
-			var a, b float64
-			for q := 0; q < s.np; q++ {
-				a += jv[q] * cu[q]
-				b += jv[q] * cv[q]
-			}
-			ru[i], rv[i] = a, b
-			k++
-		}
+		s.steepestRow(cu, cv, s.fx[k:k+side], s.fy[k:k+side], float64(j-m), ru, rv)
+		k += side
 	}
 	// tu, tv: ext + 2r rows of width ext; the horizontal pass of subset
-	// row j goes to row 2r + j, the others stay zero.
+	// row j goes to row 2r + j, the others stay zero. Both passes take
+	// four outputs at a time, each summed over the kernel in order.
 	tu, tv := s.wtmp[:wide*ext], s.wtmp[wide*ext:2*wide*ext]
+	nk := len(kern)
 	for j := 0; j < side; j++ {
 		su, sv := wu[j*wide:(j+1)*wide], wv[j*wide:(j+1)*wide]
 		du, dv := tu[(2*r+j)*ext:(2*r+j+1)*ext], tv[(2*r+j)*ext:(2*r+j+1)*ext]
-		for x := range du {
-			xu, xv := su[x:x+len(kern)], sv[x:x+len(kern)]
+		x := 0
+		for ; x+4 <= len(du); x += 4 {
+			xu, xv := su[x:x+nk+3], sv[x:x+nk+3]
+			var a0, a1, a2, a3, b0, b1, b2, b3 float64
+			for q, kq := range kern {
+				yu, yv := xu[q:q+4], xv[q:q+4]
+				a0 += kq * yu[0]
+				a1 += kq * yu[1]
+				a2 += kq * yu[2]
+				a3 += kq * yu[3]
+				b0 += kq * yv[0]
+				b1 += kq * yv[1]
+				b2 += kq * yv[2]
+				b3 += kq * yv[3]
+			}
+			d, e := du[x:x+4], dv[x:x+4]
+			d[0], d[1], d[2], d[3] = a0, a1, a2, a3
+			e[0], e[1], e[2], e[3] = b0, b1, b2, b3
+		}
+		for ; x < len(du); x++ {
+			xu, xv := su[x:x+nk], sv[x:x+nk]
 			var a, b float64
 			for q, kq := range kern {
 				a += kq * xu[q]
@@ -292,18 +304,77 @@ func (s *solver) smoothedVars(cu, cv *[12]float64) (vu, vv float64) {
 			du[x], dv[x] = a, b
 		}
 	}
+	// Rows of tu outside 2r … 2r+side−1 are zero: the vertical pass of
+	// output row y leaves out their terms (adding +0 changes no sum).
 	for y := 0; y < ext; y++ {
-		for x := 0; x < ext; x++ {
+		qlo, qhi := max(0, 2*r-y), min(2*r, 2*r+side-1-y)
+		ky := kern[qlo : qhi+1]
+		x := 0
+		for ; x+4 <= ext; x += 4 {
+			var a0, a1, a2, a3, b0, b1, b2, b3 float64
+			o := (y+qlo)*ext + x
+			for _, kq := range ky {
+				yu, yv := tu[o:o+4], tv[o:o+4]
+				a0 += kq * yu[0]
+				a1 += kq * yu[1]
+				a2 += kq * yu[2]
+				a3 += kq * yu[3]
+				b0 += kq * yv[0]
+				b1 += kq * yv[1]
+				b2 += kq * yv[2]
+				b3 += kq * yv[3]
+				o += ext
+			}
+			vu += a0 * a0
+			vu += a1 * a1
+			vu += a2 * a2
+			vu += a3 * a3
+			vv += b0 * b0
+			vv += b1 * b1
+			vv += b2 * b2
+			vv += b3 * b3
+		}
+		for ; x < ext; x++ {
 			var a, b float64
-			for q, kq := range kern {
-				a += kq * tu[(y+q)*ext+x]
-				b += kq * tv[(y+q)*ext+x]
+			for q, kq := range ky {
+				a += kq * tu[(y+qlo+q)*ext+x]
+				b += kq * tv[(y+qlo+q)*ext+x]
 			}
 			vu += a * a
 			vv += b * b
 		}
 	}
 	return vu, vv
+}
+
+// steepestRow writes the combinations J·cu and J·cv of the steepest-descent
+// vector J (jacobian) of each pixel of the subset row η = eta, whose
+// gradients are fx and fy, to ru and rv: the products of jacobian summed in
+// the order of the parameters, as Σ_q J_q c_q term by term.
+func (s *solver) steepestRow(cu, cv *[12]float64, fx, fy []float64, eta float64, ru, rv []float64) {
+	fx, fy, rv = fx[:len(ru)], fy[:len(ru)], rv[:len(ru)]
+	xis := s.xis[:len(ru)]
+	if s.np == 6 {
+		for i, xi := range xis {
+			gx, gy := fx[i], fy[i]
+			j1, j2, j4, j5 := gx*xi, gx*eta, gy*xi, gy*eta
+			ru[i] = gx*cu[U] + j1*cu[Ux] + j2*cu[Uy] + gy*cu[V] + j4*cu[Vx] + j5*cu[Vy]
+			rv[i] = gx*cv[U] + j1*cv[Ux] + j2*cv[Uy] + gy*cv[V] + j4*cv[Vx] + j5*cv[Vy]
+		}
+		return
+	}
+	yy := eta * eta / 2
+	for i, xi := range xis {
+		gx, gy := fx[i], fy[i]
+		xx, xy := xi*xi/2, xi*eta
+		j1, j2, j4, j5 := gx*xi, gx*eta, gy*xi, gy*eta
+		j6, j7, j8 := gx*xx, gx*xy, gx*yy
+		j9, j10, j11 := gy*xx, gy*xy, gy*yy
+		ru[i] = gx*cu[U] + j1*cu[Ux] + j2*cu[Uy] + gy*cu[V] + j4*cu[Vx] + j5*cu[Vy] +
+			j6*cu[Uxx] + j7*cu[Uxy] + j8*cu[Uyy] + j9*cu[Vxx] + j10*cu[Vxy] + j11*cu[Vyy]
+		rv[i] = gx*cv[U] + j1*cv[Ux] + j2*cv[Uy] + gy*cv[V] + j4*cv[Vx] + j5*cv[Vy] +
+			j6*cv[Uxx] + j7*cv[Uxy] + j8*cv[Uyy] + j9*cv[Vxx] + j10*cv[Vxy] + j11*cv[Vyy]
+	}
 }
 
 // prepare2 is prepare for the second-order warp and a subset centred on
