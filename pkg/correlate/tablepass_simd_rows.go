@@ -2,7 +2,10 @@
 
 package correlate
 
-import "simd/archsimd"
+import (
+	"simd/archsimd"
+	"unsafe"
+)
 
 // The vector passes' interpolation from a row table (spline.RowTable):
 // for each pixel the four row polynomials of coefficient rows y−1 … y+2
@@ -28,11 +31,15 @@ func (s *solver) sampleRows(x, y, xL, yL int64) {
 	g := s.gbuf[:n+4] // initVector gave it 4 spare elements for the 8-lane stores
 	last := n - 4
 	stride := 4 * w
+	// The table is read without bounds checks: the caller has checked
+	// every position against the usable area, inside the image, and each
+	// cell's four row polynomials and the next three cells' lie in the table.
+	base, bs := unsafe.Pointer(unsafe.SliceData(a)), uintptr(4*stride)
 	offs := &s.offs
 	w4 := archsimd.BroadcastInt64x4(int64(w)).AsUint32x8()
 	rv := &s.rv
 	mask := archsimd.BroadcastInt64x8(fixMask)
-	scale := archsimd.LoadFloat64x8(&s.scale8)
+	scale := archsimd.BroadcastFloat32x8(fixScale)
 	lo := archsimd.Mask64x8FromBits(0x0f) // lanes 0–3: x
 	xy := archsimd.BroadcastInt64x8(x).Merge(archsimd.BroadcastInt64x8(y), lo).Add(archsimd.LoadInt64x8(&rv[0]))
 	dxy := archsimd.LoadInt64x8(&rv[2])
@@ -43,22 +50,25 @@ func (s *solver) sampleRows(x, y, xL, yL int64) {
 			xy = archsimd.BroadcastInt64x8(xL).Merge(archsimd.BroadcastInt64x8(yL), lo).Add(archsimd.LoadInt64x8(&rv[1]))
 		}
 		// Lanes 0–3 tx, 4–7 ty of the four pixels.
-		t := archsimd.Float32x16{}.SetLo(xy.And(mask).ConvertToFloat64().Mul(scale).ConvertToFloat32())
+		// (The fraction is rounded once to float32, then scaled exactly by
+		// 2⁻⁴⁰: the portable passes' float32(frac)·fixScale.)
+		t := archsimd.Float32x16{}.SetLo(xy.And(mask).ConvertToFloat32().Mul(scale))
 		// Offsets 4·(⌊y⌋·w + ⌊x⌋) of the cells' first rows (y − 1).
 		cl := xy.ShiftAllRight(fixBits)
 		cl.GetHi().AsUint32x8().MulEvenWiden(w4).AsInt64x4().Add(cl.GetLo()).ShiftAllLeft(2).Store(offs)
 		o0, o1, o2, o3 := int(offs[0]), int(offs[1]), int(offs[2]), int(offs[3])
 		var r0, r1, r2, r3 archsimd.Float32x16
 		if (o1-o0-4)|(o2-o0-8)|(o3-o0-12) == 0 {
-			r0 = archsimd.LoadFloat32x16((*[16]float32)(a[o0 : o0+16]))
-			r1 = archsimd.LoadFloat32x16((*[16]float32)(a[o0+stride : o0+stride+16]))
-			r2 = archsimd.LoadFloat32x16((*[16]float32)(a[o0+2*stride : o0+2*stride+16]))
-			r3 = archsimd.LoadFloat32x16((*[16]float32)(a[o0+3*stride : o0+3*stride+16]))
+			p := unsafe.Add(base, 4*o0)
+			r0 = archsimd.LoadFloat32x16((*[16]float32)(p))
+			r1 = archsimd.LoadFloat32x16((*[16]float32)(unsafe.Add(p, bs)))
+			r2 = archsimd.LoadFloat32x16((*[16]float32)(unsafe.Add(p, 2*bs)))
+			r3 = archsimd.LoadFloat32x16((*[16]float32)(unsafe.Add(p, 3*bs)))
 		} else {
-			r0 = gather4(a, o0, o1, o2, o3)
-			r1 = gather4(a, o0+stride, o1+stride, o2+stride, o3+stride)
-			r2 = gather4(a, o0+2*stride, o1+2*stride, o2+2*stride, o3+2*stride)
-			r3 = gather4(a, o0+3*stride, o1+3*stride, o2+3*stride, o3+3*stride)
+			r0 = gather4(base, o0, o1, o2, o3)
+			r1 = gather4(base, o0+stride, o1+stride, o2+stride, o3+stride)
+			r2 = gather4(base, o0+2*stride, o1+2*stride, o2+2*stride, o3+2*stride)
+			r3 = gather4(base, o0+3*stride, o1+3*stride, o2+3*stride, o3+3*stride)
 		}
 		ty := t.Permute(archsimd.LoadUint32x16(&s.rowSpread)) // ty in the four lanes of each pixel
 		k := &s.rowK
@@ -84,10 +94,15 @@ func (s *solver) sampleRows(x, y, xL, yL int64) {
 	}
 }
 
-// gather4 puts the four row polynomials at a[o0], a[o1], a[o2], a[o3]
-// into one vector, lanes (pixel, power of tx).
-func gather4(a []float32, o0, o1, o2, o3 int) archsimd.Float32x16 {
-	lo := archsimd.Float32x8{}.SetLo(archsimd.LoadFloat32x4((*[4]float32)(a[o0 : o0+4]))).SetHi(archsimd.LoadFloat32x4((*[4]float32)(a[o1 : o1+4])))
-	hi := archsimd.Float32x8{}.SetLo(archsimd.LoadFloat32x4((*[4]float32)(a[o2 : o2+4]))).SetHi(archsimd.LoadFloat32x4((*[4]float32)(a[o3 : o3+4])))
+// gather4 puts the four row polynomials at elements o0, o1, o2, o3 of the
+// table at base into one vector, lanes (pixel, power of tx).
+func gather4(base unsafe.Pointer, o0, o1, o2, o3 int) archsimd.Float32x16 {
+	lo := archsimd.Float32x8{}.SetLo(load4(base, o0)).SetHi(load4(base, o1))
+	hi := archsimd.Float32x8{}.SetLo(load4(base, o2)).SetHi(load4(base, o3))
 	return archsimd.Float32x16{}.SetLo(lo).SetHi(hi)
+}
+
+// load4 loads the four float32 at element o of the table at base.
+func load4(base unsafe.Pointer, o int) archsimd.Float32x4 {
+	return archsimd.LoadFloat32x4((*[4]float32)(unsafe.Add(base, 4*o)))
 }

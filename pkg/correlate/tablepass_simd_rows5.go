@@ -2,7 +2,10 @@
 
 package correlate
 
-import "simd/archsimd"
+import (
+	"simd/archsimd"
+	"unsafe"
+)
 
 // The vector passes' interpolation from a quintic row table
 // (spline.QuinticRowTable): for each pixel the six row polynomials of
@@ -74,12 +77,17 @@ func (s *solver) sampleRows5(x, y, xL, yL int64) {
 	g := s.gbuf[:n+4] // initVector gave it 4 spare elements for the 8-lane stores
 	last := n - 4
 	rs := 6 * w
+	// The table is read without bounds checks: the caller has checked
+	// every position against the usable area, 3 px inside the image, so
+	// each cell's six row polynomials and the next 10 floats lie in the
+	// table, and so do the 6 floats before each cell.
+	base, bs := unsafe.Pointer(unsafe.SliceData(a)), uintptr(4*rs)
 	offs := &s.offs
 	k := rows5
 	w4 := archsimd.BroadcastInt64x4(int64(w)).AsUint32x8()
 	rv := &s.rv
 	mask := archsimd.BroadcastInt64x8(fixMask)
-	scale := archsimd.LoadFloat64x8(&s.scale8)
+	scale := archsimd.BroadcastFloat32x8(fixScale)
 	lo := archsimd.Mask64x8FromBits(0x0f) // lanes 0–3: x
 	xy := archsimd.BroadcastInt64x8(x).Merge(archsimd.BroadcastInt64x8(y), lo).Add(archsimd.LoadInt64x8(&rv[0]))
 	dxy := archsimd.LoadInt64x8(&rv[2])
@@ -91,7 +99,9 @@ func (s *solver) sampleRows5(x, y, xL, yL int64) {
 			xy = archsimd.BroadcastInt64x8(xL).Merge(archsimd.BroadcastInt64x8(yL), lo).Add(archsimd.LoadInt64x8(&rv[1]))
 		}
 		// Lanes 0–3 tx, 4–7 ty of the four pixels.
-		t := archsimd.Float32x16{}.SetLo(xy.And(mask).ConvertToFloat64().Mul(scale).ConvertToFloat32())
+		// (The fraction is rounded once to float32, then scaled exactly by
+		// 2⁻⁴⁰: the portable passes' float32(frac)·fixScale.)
+		t := archsimd.Float32x16{}.SetLo(xy.And(mask).ConvertToFloat32().Mul(scale))
 		// Cells ⌊y⌋·w + ⌊x⌋; their first rows (y − 2) start at 6 times that.
 		cl := xy.ShiftAllRight(fixBits)
 		cl.GetHi().AsUint32x8().MulEvenWiden(w4).AsInt64x4().Add(cl.GetLo()).Store(offs)
@@ -102,11 +112,11 @@ func (s *solver) sampleRows5(x, y, xL, yL int64) {
 		o0, o1, o2, o3 := 6*c0, 6*c1, 6*c2, 6*c3
 		var pa, pb archsimd.Float32x16
 		if (c1-c0-1)|(c3-c2-1) == 0 {
-			pa = rowsNear5(a, o0, rs, wa, k)
-			pb = rowsNear5(a, o2, rs, wb, k)
+			pa = rowsNear5(unsafe.Add(base, 4*o0), bs, wa, k)
+			pb = rowsNear5(unsafe.Add(base, 4*o2), bs, wb, k)
 		} else {
-			pa = rowsFar5(a, o0, o1, rs, wa, first, k)
-			pb = rowsFar5(a, o2, o3, rs, wb, first, k)
+			pa = rowsFar5(unsafe.Add(base, 4*o0), unsafe.Add(base, 4*o1-24), bs, wa, first, k)
+			pb = rowsFar5(unsafe.Add(base, 4*o2), unsafe.Add(base, 4*o3-24), bs, wb, first, k)
 		}
 		// Horner in tx (lanes 0–3 of t) on the coefficients of each
 		// power, lane p for pixel p.
@@ -134,29 +144,32 @@ func weights5(ty archsimd.Float32x16, k *rows5Consts) archsimd.Float32x16 {
 }
 
 // rowsNear5 sums the six table rows of a pair of neighbouring cells, the
-// first's polynomials at a[o], row q at a[o + q·rs], with the pair's
+// first's polynomials at p, row q at p + q·bs bytes, with the pair's
 // weights wt: lanes (pixel, power of tx).
-func rowsNear5(a []float32, o, rs int, wt archsimd.Float32x16, k *rows5Consts) archsimd.Float32x16 {
+func rowsNear5(p unsafe.Pointer, bs uintptr, wt archsimd.Float32x16, k *rows5Consts) archsimd.Float32x16 {
 	sp := &k.spread
-	v := archsimd.LoadFloat32x16((*[16]float32)(a[o : o+16])).Mul(wt.Permute(archsimd.LoadUint32x16(&sp[0])))
-	v = archsimd.LoadFloat32x16((*[16]float32)(a[o+rs:o+rs+16])).MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[1])), v)
-	v = archsimd.LoadFloat32x16((*[16]float32)(a[o+2*rs:o+2*rs+16])).MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[2])), v)
-	v = archsimd.LoadFloat32x16((*[16]float32)(a[o+3*rs:o+3*rs+16])).MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[3])), v)
-	v = archsimd.LoadFloat32x16((*[16]float32)(a[o+4*rs:o+4*rs+16])).MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[4])), v)
-	return archsimd.LoadFloat32x16((*[16]float32)(a[o+5*rs:o+5*rs+16])).MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[5])), v)
+	v := load16(p, 0).Mul(wt.Permute(archsimd.LoadUint32x16(&sp[0])))
+	v = load16(p, bs).MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[1])), v)
+	v = load16(p, 2*bs).MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[2])), v)
+	v = load16(p, 3*bs).MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[3])), v)
+	v = load16(p, 4*bs).MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[4])), v)
+	return load16(p, 5*bs).MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[5])), v)
 }
 
 // rowsFar5 is rowsNear5 for cells that are not neighbours: the first
-// pixel's polynomials at a[o], the second's at a[o2], put together in
+// pixel's polynomials at p, the second's 24 bytes after p2, put together in
 // lanes 0–5 and 6–11 (first marks lanes 0–5).
-func rowsFar5(a []float32, o, o2, rs int, wt archsimd.Float32x16, first archsimd.Mask32x16, k *rows5Consts) archsimd.Float32x16 {
+func rowsFar5(p, p2 unsafe.Pointer, bs uintptr, wt archsimd.Float32x16, first archsimd.Mask32x16, k *rows5Consts) archsimd.Float32x16 {
 	sp := &k.spread
 	var v archsimd.Float32x16
-	for q := range 6 {
-		r := archsimd.LoadFloat32x16((*[16]float32)(a[o:o+16])).Merge(archsimd.LoadFloat32x16((*[16]float32)(a[o2-6:o2+10])), first)
+	for q := range uintptr(6) {
+		r := load16(p, q*bs).Merge(load16(p2, q*bs), first)
 		v = r.MulAdd(wt.Permute(archsimd.LoadUint32x16(&sp[q])), v)
-		o += rs
-		o2 += rs
 	}
 	return v
+}
+
+// load16 loads the 16 float32 at p + off bytes.
+func load16(p unsafe.Pointer, off uintptr) archsimd.Float32x16 {
+	return archsimd.LoadFloat32x16((*[16]float32)(unsafe.Add(p, off)))
 }
