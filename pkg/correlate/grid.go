@@ -233,14 +233,28 @@ func maskSums(g *imageio.Gray, m *roi.Mask, rows [][3]float64, ints []bool, y0, 
 		// frac collects the bits of every sample's fraction (NaN and
 		// out-of-range samples have one), top the largest |sample|.
 		var frac, top uint32
-		for x, v := range g.Pix[y*g.Stride : y*g.Stride+g.W] {
+		pix := g.Pix[y*g.Stride : y*g.Stride+g.W]
+		for _, v := range pix {
 			frac |= math.Float32bits(v-float32(int32(v))) & 0x7fffffff
 			top = max(top, math.Float32bits(v)&0x7fffffff)
-			if m == nil || m.Inside(x, y) {
+		}
+		if m == nil {
+			for _, v := range pix {
 				f := float64(v)
-				n++
 				s += f
 				ss += f * f
+			}
+			n = float64(len(pix))
+		} else {
+			in := m.Row(y)
+			in = in[:len(pix)]
+			for x, v := range pix {
+				if in[x] {
+					f := float64(v)
+					n++
+					s += f
+					ss += f * f
+				}
 			}
 		}
 		rows[y] = [3]float64{n, s, ss}

@@ -4,6 +4,7 @@ import (
 	"errors"
 	"fmt"
 	"math"
+	"slices"
 	"sort"
 
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -17,6 +18,7 @@ type Mask struct {
 	in   []bool  // row-major, stride W
 	sum  []int32 // (W+1)×(H+1) summed-area table of in
 	n    int
+	box  [4]int // Bounds: x0, y0, x1, y1 (all zero when n = 0)
 }
 
 // Validate reports every problem with the Spec for a w×h image.
@@ -66,8 +68,9 @@ func (s Spec) Mask(w, h int) (*Mask, error) {
 		x0, y0, x1, y1 = s.Rect[0], s.Rect[1], s.Rect[2], s.Rect[3]
 	}
 	for y := y0; y < y1; y++ {
-		for x := x0; x < x1; x++ {
-			in[y*w+x] = true
+		row := in[y*w+x0 : y*w+x1]
+		for x := range row {
+			row[x] = true
 		}
 	}
 	if s.Polygon != nil {
@@ -153,6 +156,9 @@ func Full(w, h int) *Mask {
 	// newMask's running sums in closed form: (x+1)·(y+1) pixels lie in the
 	// rectangle up to (x, y).
 	m := &Mask{W: w, H: h, in: in, sum: make([]int32, (w+1)*(h+1)), n: w * h}
+	if w > 0 && h > 0 {
+		m.box = [4]int{0, 0, w, h}
+	}
 	for y := 1; y <= h; y++ {
 		row := m.sum[y*(w+1)+1 : (y+1)*(w+1)]
 		for x := range row {
@@ -162,17 +168,35 @@ func Full(w, h int) *Mask {
 	return m
 }
 
+// newMask builds the summed-area table, the count and the bounds of in,
+// row by row.
 func newMask(w, h int, in []bool) *Mask {
 	m := &Mask{W: w, H: h, in: in, sum: make([]int32, (w+1)*(h+1))}
+	x0, y0, x1, y1 := w, h, 0, 0
 	for y := 0; y < h; y++ {
-		var row int32
-		for x := 0; x < w; x++ {
-			if in[y*w+x] {
-				row++
-				m.n++
+		row := in[y*w : y*w+w]
+		above := m.sum[y*(w+1)+1 : y*(w+1)+1+w]
+		cur := m.sum[(y+1)*(w+1)+1 : (y+1)*(w+1)+1+w]
+		above, cur = above[:len(row)], cur[:len(row)]
+		var n int32
+		for x, v := range row {
+			if v {
+				n++
 			}
-			m.sum[(y+1)*(w+1)+x+1] = m.sum[y*(w+1)+x+1] + row
+			cur[x] = above[x] + n
 		}
+		if n > 0 {
+			m.n += int(n)
+			first, last := slices.Index(row, true), len(row)-1
+			for !row[last] {
+				last--
+			}
+			x0, x1 = min(x0, first), max(x1, last+1)
+			y0, y1 = min(y0, y), y+1
+		}
+	}
+	if m.n > 0 {
+		m.box = [4]int{x0, y0, x1, y1}
 	}
 	return m
 }
@@ -196,6 +220,15 @@ func (m *Mask) Intersect(o *Mask) (*Mask, error) {
 // Count returns the number of pixels inside.
 func (m *Mask) Count() int { return m.n }
 
+// Row returns the inside flags of row y, 0 ≤ y < H (W values; it panics
+// for another y). The caller must not modify them.
+func (m *Mask) Row(y int) []bool {
+	if y < 0 || y >= m.H {
+		panic(fmt.Sprintf("roi: Mask.Row(%d) of a mask of %d rows", y, m.H))
+	}
+	return m.in[y*m.W : y*m.W+m.W : y*m.W+m.W]
+}
+
 // Inside reports whether pixel (x, y) is inside; pixels off the image are not.
 func (m *Mask) Inside(x, y int) bool {
 	if x < 0 || y < 0 || x >= m.W || y >= m.H {
@@ -218,19 +251,7 @@ func (m *Mask) RectInside(x0, y0, x1, y1 int) bool {
 // Bounds returns the smallest rectangle x0 ≤ x < x1, y0 ≤ y < y1 holding
 // every inside pixel (all zero for an empty mask).
 func (m *Mask) Bounds() (x0, y0, x1, y1 int) {
-	if m.n == 0 {
-		return 0, 0, 0, 0
-	}
-	x0, y0, x1, y1 = m.W, m.H, 0, 0
-	for y := 0; y < m.H; y++ {
-		for x := 0; x < m.W; x++ {
-			if m.in[y*m.W+x] {
-				x0, y0 = min(x0, x), min(y0, y)
-				x1, y1 = max(x1, x+1), max(y1, y+1)
-			}
-		}
-	}
-	return
+	return m.box[0], m.box[1], m.box[2], m.box[3]
 }
 
 // Centroid returns the mean position of the inside pixels.

@@ -2,6 +2,7 @@ package roi
 
 import (
 	"math"
+	"math/rand"
 	"testing"
 
 	"github.com/mottledic/mottle/pkg/imageio"
@@ -134,12 +135,65 @@ func TestFullSums(t *testing.T) {
 			in[i] = true
 		}
 		got, want := Full(w, h), newMask(w, h, in)
-		if got.n != want.n || len(got.sum) != len(want.sum) {
-			t.Fatalf("%d×%d: %d pixels, %d sums; want %d, %d", w, h, got.n, len(got.sum), want.n, len(want.sum))
+		if got.n != want.n || len(got.sum) != len(want.sum) || got.box != want.box {
+			t.Fatalf("%d×%d: %d pixels, %d sums, bounds %v; want %d, %d, %v", w, h, got.n, len(got.sum), got.box, want.n, len(want.sum), want.box)
 		}
 		for i := range want.sum {
 			if got.sum[i] != want.sum[i] {
 				t.Fatalf("%d×%d: sum[%d] = %d, want %d", w, h, i, got.sum[i], want.sum[i])
+			}
+		}
+	}
+}
+
+// newMask's count, bounds and summed-area table, built in one pass row by
+// row, are those of a direct scan of the pixels and of the definition
+// sum(x, y) = #{inside pixels x' < x, y' < y}; Row returns each row.
+// Random masks of several densities, with empty rows and columns, and an
+// empty one.
+func TestMaskBuildMatchesScan(t *testing.T) {
+	r := rand.New(rand.NewSource(3))
+	for _, c := range []struct {
+		w, h int
+		p    float64 // chance that a pixel is inside
+	}{{1, 1, 1}, {17, 9, 0.5}, {23, 31, 0.02}, {40, 12, 0.9}, {8, 8, 0}} {
+		in := make([]bool, c.w*c.h)
+		for i := range in {
+			in[i] = r.Float64() < c.p
+		}
+		m := newMask(c.w, c.h, in)
+		n, box := 0, [4]int{c.w, c.h, 0, 0}
+		for y := 0; y < c.h; y++ {
+			for x := 0; x < c.w; x++ {
+				if in[y*c.w+x] {
+					n++
+					box = [4]int{min(box[0], x), min(box[1], y), max(box[2], x+1), max(box[3], y+1)}
+				}
+			}
+			if got := m.Row(y); len(got) != c.w || &got[0] != &in[y*c.w] {
+				t.Fatalf("%d×%d: Row(%d) is not the mask's row", c.w, c.h, y)
+			}
+		}
+		if n == 0 {
+			box = [4]int{}
+		}
+		x0, y0, x1, y1 := m.Bounds()
+		if m.Count() != n || [4]int{x0, y0, x1, y1} != box {
+			t.Errorf("%d×%d p %v: count %d bounds %v, want %d %v", c.w, c.h, c.p, m.Count(), [4]int{x0, y0, x1, y1}, n, box)
+		}
+		for y := 0; y <= c.h; y++ {
+			for x := 0; x <= c.w; x++ {
+				var want int32
+				for yy := 0; yy < y; yy++ {
+					for xx := 0; xx < x; xx++ {
+						if in[yy*c.w+xx] {
+							want++
+						}
+					}
+				}
+				if got := m.sum[y*(c.w+1)+x]; got != want {
+					t.Fatalf("%d×%d p %v: sum(%d, %d) = %d, want %d", c.w, c.h, c.p, x, y, got, want)
+				}
 			}
 		}
 	}
