@@ -41,11 +41,12 @@ func SolveKey(seriesID string, n int) string {
 }
 
 // solveAhead solves job j (its record as just read) ahead of its turn
-// when the rules above allow it, and reports whether it did.
+// when the rules above allow it, and reports whether it did. prev, if
+// not nil, is the record of the frame before j as just read too.
 // waitPrevious tries it at each look at the previous frame that finds the
 // frame's turn not come yet, so that a frame held beyond the bound is
 // solved as soon as the bound lets it, in its place in the queue.
-func (s *Runner) solveAhead(ctx context.Context, j *jobs.Job, d jobs.Delivery) bool {
+func (s *Runner) solveAhead(ctx context.Context, j, prev *jobs.Job, d jobs.Delivery) bool {
 	fs, ok := s.cfg.Analyzer.(FrameSolver)
 	if !ok {
 		return false
@@ -60,9 +61,20 @@ func (s *Runner) solveAhead(ctx context.Context, j *jobs.Job, d jobs.Delivery) b
 		return false
 	}
 	n := j.FrameIndex
+	read := map[string]*jobs.Job{} // the records of frames before n read in this look
+	if prev != nil && prev.ID == sr.Frames[n-1] {
+		read[prev.ID] = prev
+	}
 	if n >= sr.MaxInFlight {
-		back, err := s.store.Job(bg, sr.Frames[n-sr.MaxInFlight])
-		if err != nil || !back.State.Terminal() {
+		id := sr.Frames[n-sr.MaxInFlight]
+		back, ok := read[id]
+		if !ok {
+			if back, err = s.store.Job(bg, id); err != nil {
+				return false
+			}
+			read[id] = back
+		}
+		if !back.State.Terminal() {
 			return false
 		}
 	}
@@ -87,7 +99,7 @@ func (s *Runner) solveAhead(ctx context.Context, j *jobs.Job, d jobs.Delivery) b
 			in.GuessBefore, in.GuessRatio, guess = b, s.stepRatio(bg, sr, j, from), guessExtrapolated
 		}
 	}
-	last, err := s.lastDone(bg, j)
+	last, err := s.lastDoneOf(bg, j, read)
 	if err != nil {
 		return false
 	}
@@ -199,9 +211,9 @@ func (s *Runner) stepRatio(ctx context.Context, sr *jobs.Series, j *jobs.Job, fr
 
 // solveAheadHeld is solveAhead for a frame held since *held: the time a
 // solve takes does not count as held (Stats.HeldSeconds).
-func (s *Runner) solveAheadHeld(ctx context.Context, j *jobs.Job, d jobs.Delivery, held *time.Time) bool {
+func (s *Runner) solveAheadHeld(ctx context.Context, j, prev *jobs.Job, d jobs.Delivery, held *time.Time) bool {
 	start := time.Now()
-	ok := s.solveAhead(ctx, j, d)
+	ok := s.solveAhead(ctx, j, prev, d)
 	*held = held.Add(time.Since(start))
 	return ok
 }

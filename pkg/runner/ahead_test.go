@@ -528,13 +528,13 @@ func TestSolutionNotReplaced(t *testing.T) {
 	}
 	j1 := frame(1)
 	aDone := make(chan bool)
-	go func() { aDone <- a.solveAhead(ctx, j1, plainDelivery(ids[1])) }()
+	go func() { aDone <- a.solveAhead(ctx, j1, nil, plainDelivery(ids[1])) }()
 	select {
 	case <-stalled:
 	case <-time.After(time.Minute):
 		t.Fatal("worker A did not solve frame 1")
 	}
-	if !b.solveAhead(ctx, frame(1), plainDelivery(ids[1])) {
+	if !b.solveAhead(ctx, frame(1), nil, plainDelivery(ids[1])) {
 		t.Fatal("worker B did not solve frame 1 ahead")
 	}
 	mine, err := b.ReadBlob(ctx, SolveKey(sr.ID, 1))
@@ -596,7 +596,7 @@ func TestRepeatAfterStateFindsSolution(t *testing.T) {
 		if err != nil {
 			t.Fatal(err)
 		}
-		if !b.solveAhead(ctx, j, plainDelivery(ids[k])) {
+		if !b.solveAhead(ctx, j, nil, plainDelivery(ids[k])) {
 			t.Fatalf("frame %d not solved ahead", k)
 		}
 		stopped := make(chan struct{})

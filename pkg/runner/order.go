@@ -21,7 +21,8 @@ import (
 func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
 	wctx, cancel := context.WithCancel(ctx)
 	defer cancel()
-	done, watching := s.framesDone(wctx, id)
+	var done <-chan struct{} // framesDone's, from the first look that waits
+	watching := new(atomic.Bool)
 	start := s.clock.Now()
 	beat := start
 	var idle time.Time // since when the previous frame has been seen not running
@@ -35,12 +36,27 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 		// use the same record rather than reading it again.
 		j, err := s.store.Job(context.Background(), id)
 		g := gateOpen // a record that cannot be read: the normal path deals with it
+		var prev *jobs.Job
 		if err == nil {
-			g = s.gateOf(context.Background(), j)
+			g, prev = s.gateOf(context.Background(), j)
 		}
-		if g != gateOpen && !solved && s.solveAheadHeld(ctx, j, d, &held) {
+		if g != gateOpen && done == nil {
+			done, watching = s.framesDone(wctx, *j)
+		}
+		if g != gateOpen && !solved && s.solveAheadHeld(ctx, j, prev, d, &held) {
 			solved = true
 			start, beat, idle, wait = s.clock.Now(), s.clock.Now(), time.Time{}, 5*time.Millisecond
+			if watching.Load() {
+				// The watch wakes the frame when its predecessor finishes,
+				// during the solve too (the wake waits in the channel): no
+				// look, two record reads, until then.
+				select {
+				case <-ctx.Done():
+					return false
+				case <-done:
+				case <-s.clock.After(framePollWatched):
+				}
+			}
 			continue
 		}
 		now := s.clock.Now()
@@ -74,8 +90,9 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 	}
 }
 
-// framesDone returns a channel that receives when a frame of job id's
-// series finishes that changes what the frame gate would find (wakes):
+// framesDone returns, for job j as read by the first look of the gate
+// that found it waiting (a frame whose gate opens at once sets up no
+// watch), a channel that receives when a frame of its series finishes that changes what the frame gate would find (wakes):
 // its predecessor, whose end opens the gate, or the frame MaxInFlight
 // before it, whose end lets it be solved ahead; or when the job's own
 // record changes (a cancel). The gate then looks again at once rather
@@ -89,16 +106,16 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 // loads its mirror first) never delays the gate; watching reports
 // whether it is on, and the gate then polls only as a safety net
 // (nextWait).
-func (s *Runner) framesDone(ctx context.Context, id string) (<-chan struct{}, *atomic.Bool) {
+func (s *Runner) framesDone(ctx context.Context, j jobs.Job) (<-chan struct{}, *atomic.Bool) {
 	out := make(chan struct{}, 1)
 	watching := new(atomic.Bool)
+	id := j.ID
 	go func() {
-		j, err := s.store.Job(ctx, id)
-		if err != nil || j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
+		if j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
 			return
 		}
 		bound := 1
-		if sr, err := s.seriesOf(ctx, j); err == nil {
+		if sr, err := s.seriesOf(ctx, &j); err == nil {
 			bound = sr.MaxInFlight
 		}
 		w, err := s.store.Watch(ctx, j.Series)
@@ -214,35 +231,37 @@ func (s *Runner) frameReady(ctx context.Context, id string) gate {
 	if err != nil {
 		return gateOpen // the normal path deals with it
 	}
-	return s.gateOf(ctx, j)
+	g, _ := s.gateOf(ctx, j)
+	return g
 }
 
-// gateOf is frameReady for the record j just read.
-func (s *Runner) gateOf(ctx context.Context, j *jobs.Job) gate {
+// gateOf is frameReady for the record j just read. It also returns the
+// record of the previous frame when it read it.
+func (s *Runner) gateOf(ctx context.Context, j *jobs.Job) (gate, *jobs.Job) {
 	if j.Kind != jobs.Frame || j.FrameIndex == 0 || j.State != jobs.Queued {
-		return gateOpen // the normal path deals with it
+		return gateOpen, nil // the normal path deals with it
 	}
 	sr, err := s.seriesOf(ctx, j)
 	if err != nil || j.FrameIndex > len(sr.Frames) {
-		return gateOpen
+		return gateOpen, nil
 	}
 	prev, err := s.store.Job(ctx, sr.Frames[j.FrameIndex-1])
 	switch {
 	case errors.Is(err, jobs.ErrNotFound):
 		if s.clock.Now().Sub(j.Created) > missingFrameWait {
-			return gateOpen
+			return gateOpen, nil
 		}
-		return gateQueued
+		return gateQueued, nil
 	case err != nil:
 		// A store switching over: wait in place, as a put-back would
 		// likely fail too.
-		return gateRunning
+		return gateRunning, nil
 	case prev.State.Terminal():
-		return gateOpen
+		return gateOpen, prev
 	case prev.State == jobs.Running:
-		return gateRunning
+		return gateRunning, prev
 	}
-	return gateQueued
+	return gateQueued, prev
 }
 
 // clock is the time source of the frame gate (waitPrevious, frameReady):
@@ -314,10 +333,20 @@ func (s *Runner) readState(ctx context.Context, seriesID string, n int) ([]byte,
 // instead (one request for the bucket's state, then the mirror) after
 // lastDoneWalk frames that did not succeed, or when a read fails.
 func (s *Runner) lastDone(ctx context.Context, j *jobs.Job) (*jobs.Job, error) {
+	return s.lastDoneOf(ctx, j, nil)
+}
+
+// lastDoneOf is lastDone taking the records in read, by id, as read
+// rather than reading them again (those its caller read a moment before).
+func (s *Runner) lastDoneOf(ctx context.Context, j *jobs.Job, read map[string]*jobs.Job) (*jobs.Job, error) {
 	if sr, err := s.seriesOf(ctx, j); err == nil && j.FrameIndex <= len(sr.Frames) {
 		k := j.FrameIndex - 1
 		for ; k >= 0 && k >= j.FrameIndex-lastDoneWalk; k-- {
-			f, err := s.store.Job(ctx, sr.Frames[k])
+			f, ok := read[sr.Frames[k]]
+			var err error
+			if !ok {
+				f, err = s.store.Job(ctx, sr.Frames[k])
+			}
 			if errors.Is(err, jobs.ErrNotFound) {
 				continue // never accepted: not a frame of the series
 			}

@@ -150,74 +150,39 @@ func writeOnce(key string) bool {
 // that the write can be retried through a node failure.
 //
 // An object found already written is kept only if it reads back whole:
-// every chunk present, with the size and digest its metadata names. The
-// object store's Put publishes the metadata before every chunk's
-// acknowledgement has come back; when one then fails (a node stopped), it
-// purges the chunks and reports the error, but the metadata may have been
-// stored. Such an object is written again, under a result key too.
+// every chunk present, with the size and digest its metadata names. A
+// write publishes the metadata before every chunk's acknowledgement has
+// come back; when one then fails (a node stopped), it purges the chunks
+// and reports the error, but the metadata may have been stored. Such an
+// object is written again, under a result key too.
+//
+// The object is written as the object store's Put writes it (chunks, then
+// the metadata, which replaces the old object's, then the old chunks
+// purged), by write: one read of the metadata per Put instead of two, and
+// no subscription for the acknowledgements per Put (the object store's Put
+// makes a JetStream context of its own each time, whose reply
+// subscription every node of a cluster learns of and forgets).
 func (b *Blobs) Put(ctx context.Context, key string, r io.Reader) error {
-	if !jobs.ValidKey(key) {
-		return fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", key)
-	}
-	data, err := io.ReadAll(r)
-	if err != nil {
-		return fmt.Errorf("blob %s: %w", key, err)
-	}
-	sum := sha256.Sum256(data)
-	var z []byte
-	if b.compress && len(data) >= compressMin {
-		z = deflate(data)
-	}
-	err = retry(ctx, func(ctx context.Context) error {
-		info, err := b.obj.GetInfo(ctx, key)
-		switch {
-		case errors.Is(err, jetstream.ErrObjectNotFound):
-		case err != nil:
-			return err
-		case writeOnce(key) || contentDigest(info) == digest(sum[:]):
-			// Written before: keep the first answer, if it is whole.
-			_, err := b.readChunks(ctx, info)
-			if err == nil {
-				return nil
-			}
-			if !errors.Is(err, errChanged) {
-				return err
-			}
-			// Metadata without all its chunks (see Put's doc comment) is
-			// no answer: write the object again.
-		}
-		meta := jetstream.ObjectMeta{Name: key, Opts: &jetstream.ObjectMetaOptions{ChunkSize: b.chunk}}
-		stored := data
-		if z != nil {
-			meta.Metadata = map[string]string{metaEncoding: encDeflate,
-				metaSize: strconv.Itoa(len(data)), metaDigest: digest(sum[:])}
-			stored = z
-		}
-		info, err = b.obj.Put(ctx, meta, bytes.NewReader(stored))
-		if err == nil && !writeOnce(key) {
-			b.cache.put(key, info.NUID, info.Digest, data)
-		}
-		return err
-	})
-	if err != nil {
-		b.cache.drop(key)
-		return fmt.Errorf("blob %s: %w", key, err)
-	}
-	return nil
+	return b.put(ctx, key, r, false)
 }
 
-// Create implements jobs.Blobs. It writes the object as the object
-// store's Put does, its chunks and then its metadata, but the metadata is
-// published on the condition that the last message of its subject is the
-// one Create read (none, or the metadata of a deleted object): the
-// stream's leader refuses it when another write came in between, and of
-// Creates at once the first to reach the leader is stored. The chunks of
-// a Create refused are purged. An object found whose chunks are not all
-// there (see Put) holds no contents, and Create writes over it.
+// Create implements jobs.Blobs. It writes the object as Put does, its
+// chunks and then its metadata, but the metadata is published on the
+// condition that the last message of its subject is the one Create read
+// (none, or the metadata of a deleted object): the stream's leader
+// refuses it when another write came in between, and of Creates at once
+// the first to reach the leader is stored. The chunks of a Create refused
+// are purged. An object found whose chunks are not all there (see Put)
+// holds no contents, and Create writes over it.
 //
 // It costs what Put costs: one read of the metadata, the chunks and the
-// metadata written, and no more.
+// metadata written.
 func (b *Blobs) Create(ctx context.Context, key string, r io.Reader) error {
+	return b.put(ctx, key, r, true)
+}
+
+// put is Put, or Create when create is set.
+func (b *Blobs) put(ctx context.Context, key string, r io.Reader, create bool) error {
 	if !jobs.ValidKey(key) {
 		return fmt.Errorf("blob key %q: not a list of names from [A-Za-z0-9._-] separated by /", key)
 	}
@@ -233,40 +198,51 @@ func (b *Blobs) Create(ctx context.Context, key string, r io.Reader) error {
 		}
 	}
 	metaSubj := "$O." + b.bucket + ".M." + base64.URLEncoding.EncodeToString([]byte(key))
-	var mine []string // the objects this Create wrote: an answer lost on the way is no refusal
+	var mine []string // the objects this call wrote: an answer lost on the way is no refusal
 	err = retry(ctx, func(ctx context.Context) error {
-		var last uint64
-		m, err := b.st.GetLastMsgForSubject(ctx, metaSubj)
-		switch {
-		case errors.Is(err, jetstream.ErrMsgNotFound):
-		case err != nil:
+		old, last, err := b.lastInfo(ctx, metaSubj)
+		if err != nil {
 			return err
-		default:
-			last = m.Sequence
-			var info jetstream.ObjectInfo
-			if err := json.Unmarshal(m.Data, &info); err != nil {
-				return fmt.Errorf("%w: %v", jetstream.ErrBadObjectMeta, err)
+		}
+		if old != nil && !old.Deleted {
+			keep := writeOnce(key) || contentDigest(old) == digest(sum[:])
+			if create {
+				keep = true
 			}
-			if slices.Contains(mine, info.NUID) {
-				if _, err := b.readChunks(ctx, &info); err == nil {
-					b.cache.put(key, info.NUID, info.Digest, data)
+			if ours := slices.Contains(mine, old.NUID); keep || ours {
+				// Written before: keep the first answer, if it is whole.
+				_, err := b.readChunks(ctx, old)
+				switch {
+				case err == nil && (ours || !create):
+					if ours && !writeOnce(key) {
+						b.cache.put(key, old.NUID, old.Digest, data)
+					}
 					return nil
-				}
-			} else if !info.Deleted {
-				_, err := b.readChunks(ctx, &info)
-				if err == nil {
+				case err == nil:
 					return jobs.ErrExists
-				}
-				if !errors.Is(err, errChanged) {
+				case !errors.Is(err, errChanged):
 					return err
 				}
+				// Metadata without all its chunks (see Put's doc
+				// comment) is no answer: write the object again.
 			}
 		}
-		info, err := b.write(ctx, key, metaSubj, stored, extra, last, &mine)
-		if err == nil {
+		cond := (*uint64)(nil)
+		if create {
+			cond = &last
+		}
+		info, err := b.write(ctx, key, metaSubj, stored, extra, cond, &mine)
+		if err != nil {
+			return err
+		}
+		if old != nil && !old.Deleted && !create {
+			// The old object's chunks, as the object store's Put purges them.
+			_ = b.st.Purge(ctx, jetstream.WithPurgeSubject("$O."+b.bucket+".C."+old.NUID))
+		}
+		if !writeOnce(key) {
 			b.cache.put(key, info.NUID, info.Digest, data)
 		}
-		return err
+		return nil
 	})
 	if err != nil {
 		b.cache.drop(key)
@@ -275,16 +251,36 @@ func (b *Blobs) Create(ctx context.Context, key string, r io.Reader) error {
 	return nil
 }
 
+// lastInfo reads the last message of an object's metadata subject: the
+// object (deleted or not) and the message's sequence, or nil and 0 when
+// there is none.
+func (b *Blobs) lastInfo(ctx context.Context, metaSubj string) (*jetstream.ObjectInfo, uint64, error) {
+	m, err := b.st.GetLastMsgForSubject(ctx, metaSubj)
+	if errors.Is(err, jetstream.ErrMsgNotFound) {
+		return nil, 0, nil
+	}
+	if err != nil {
+		return nil, 0, err
+	}
+	var info jetstream.ObjectInfo
+	if err := json.Unmarshal(m.Data, &info); err != nil {
+		return nil, 0, fmt.Errorf("%w: %v", jetstream.ErrBadObjectMeta, err)
+	}
+	return &info, m.Sequence, nil
+}
+
 // errRaced reports a conditional write of an object's metadata refused
 // because another write came first: Create reads the metadata again.
 var errRaced = errors.New("another write of the object came first")
 
 // write stores an object under key whose metadata subject is metaSubj:
-// its chunks of stored, then its metadata, on the condition that the
-// last message on metaSubj is sequence last (0: none). The object's NUID
-// is appended to *mine before anything is sent. It waits for every
-// acknowledgement; when one fails it purges the object's chunks.
-func (b *Blobs) write(ctx context.Context, key, metaSubj string, stored []byte, extra map[string]string, last uint64, mine *[]string) (*jetstream.ObjectInfo, error) {
+// its chunks of stored, then its metadata, which replaces the metadata
+// before it (a roll-up of the subject); when last is not nil, only on the
+// condition that the last message on metaSubj is sequence *last (0:
+// none), else it fails with errRaced. The object's id is appended to
+// *mine before anything is sent. It waits for every acknowledgement; when
+// one fails it purges the object's chunks.
+func (b *Blobs) write(ctx context.Context, key, metaSubj string, stored []byte, extra map[string]string, last *uint64, mine *[]string) (*jetstream.ObjectInfo, error) {
 	id := jobs.NewID() // any name of a subject token: the object store's own is a NUID
 	*mine = append(*mine, id)
 	chunkSubj := "$O." + b.bucket + ".C." + id
@@ -325,7 +321,11 @@ func (b *Blobs) write(ctx context.Context, key, metaSubj string, stored []byte, 
 	mm := nats.NewMsg(metaSubj)
 	mm.Header.Set(jetstream.MsgRollup, jetstream.MsgRollupSubject)
 	mm.Data = mb
-	a, err := b.js.PublishMsgAsync(mm, jetstream.WithExpectLastSequencePerSubject(last))
+	var opts []jetstream.PublishOpt
+	if last != nil {
+		opts = append(opts, jetstream.WithExpectLastSequencePerSubject(*last))
+	}
+	a, err := b.js.PublishMsgAsync(mm, opts...)
 	if err != nil {
 		return fail(err)
 	}

@@ -8,6 +8,7 @@ import (
 	"log/slog"
 	"strings"
 	"sync"
+	"sync/atomic"
 	"time"
 
 	"github.com/nats-io/nats.go"
@@ -211,8 +212,9 @@ func (q *Queue) accept(ctx context.Context, msg jetstream.Msg) jobs.Delivery {
 	if md, err := msg.Metadata(); err == nil {
 		delivered = md.NumDelivered
 	}
-	d := &delivery{q: q, msg: msg, id: id, delivered: delivered, at: time.Now().UTC(), done: make(chan struct{})}
-	go d.heartbeat(o.AckWait / 3)
+	d := &delivery{q: q, msg: msg, id: id, delivered: delivered, at: time.Now().UTC(), done: make(chan struct{}), every: o.AckWait / 3}
+	d.beat.Store(time.Now().UnixNano())
+	go d.heartbeat()
 	st := q.b.store
 	if delivered > 1 {
 		// Delivered again: the worker that had it died, lost its
@@ -266,20 +268,25 @@ type delivery struct {
 	at   time.Time
 	once sync.Once
 	done chan struct{}
+	// every is the heartbeat interval, and beat when the delivery came or
+	// its last heartbeat was sent (Unix nanoseconds).
+	every time.Duration
+	beat  atomic.Int64
 }
 
 func (d *delivery) ID() string { return d.id }
 
 // heartbeat sends in-progress acknowledgements until the delivery is
-// settled.
-func (d *delivery) heartbeat(every time.Duration) {
-	t := time.NewTicker(every)
+// settled, one every d.every.
+func (d *delivery) heartbeat() {
+	t := time.NewTicker(d.every)
 	defer t.Stop()
 	for {
 		select {
 		case <-d.done:
 			return
 		case <-t.C:
+			d.beat.Store(time.Now().UnixNano())
 			_ = d.msg.InProgress()
 		}
 	}
@@ -297,14 +304,19 @@ func (d *delivery) settle(fn func() error) error {
 
 // Ack implements jobs.Delivery. A job whose record says failed is
 // published on the dead-letter subject with its failure reason first.
-// The acknowledgement waits for the server's confirmation.
+// The record is read from the bucket unless this process's mirror holds
+// it succeeded or canceled (the worker's own last write, mostly), which no
+// later write changes. The acknowledgement waits for the server's
+// confirmation.
 func (d *delivery) Ack() error {
 	return d.settle(func() error {
 		ctx, cancel := context.WithTimeout(context.Background(), retryFor)
 		defer cancel()
-		if j, _, err := d.q.b.store.getJob(ctx, d.id); err == nil && j.State == jobs.Failed && (j.Finished == nil || !j.Finished.Before(d.at)) {
-			if err := d.q.deadLetter(ctx, j, d.delivered); err != nil {
-				d.q.b.opt.Logger.Error("dead letter", "job", d.id, "error", err)
+		if !d.q.b.store.finished(d.id) {
+			if j, _, err := d.q.b.store.getJob(ctx, d.id); err == nil && j.State == jobs.Failed && (j.Finished == nil || !j.Finished.Before(d.at)) {
+				if err := d.q.deadLetter(ctx, j, d.delivered); err != nil {
+					d.q.b.opt.Logger.Error("dead letter", "job", d.id, "error", err)
+				}
 			}
 		}
 		if err := d.msg.DoubleAck(ctx); err != nil {
@@ -356,8 +368,18 @@ func (d *delivery) Nak() error {
 	})
 }
 
-// InProgress implements jobs.Delivery.
-func (d *delivery) InProgress() error { return d.msg.InProgress() }
+// InProgress implements jobs.Delivery. The delivery's heartbeat already
+// sends one every AckWait/3, so InProgress sends one only when the last
+// is older than that (the heartbeat late, on a loaded machine): each is
+// a write of the replicated consumer's state on every node, and the
+// runner calls InProgress at the start of every solve and computation.
+func (d *delivery) InProgress() error {
+	if time.Since(time.Unix(0, d.beat.Load())) < d.every {
+		return nil
+	}
+	d.beat.Store(time.Now().UnixNano())
+	return d.msg.InProgress()
+}
 
 // deadLetter publishes j on <prefix>.dead.<kind>.
 func (q *Queue) deadLetter(ctx context.Context, j *jobs.Job, delivered uint64) error {

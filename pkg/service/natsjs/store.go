@@ -188,6 +188,16 @@ func (s *Store) Job(ctx context.Context, id string) (*jobs.Job, error) {
 	return j, nil
 }
 
+// finished reports whether the mirror holds job id succeeded or
+// canceled: a state no update changes. It is false when the mirror is
+// off, does not hold the job, or holds another state.
+func (s *Store) finished(id string) bool {
+	s.mu.Lock()
+	defer s.mu.Unlock()
+	e, ok := s.jobs[id]
+	return ok && s.stop != nil && (e.j.State == jobs.Succeeded || e.j.State == jobs.Canceled)
+}
+
 func (s *Store) overlay(j *jobs.Job) {
 	if j.State != jobs.Running {
 		return
@@ -437,11 +447,34 @@ func (s *Store) Counts(ctx context.Context) (map[jobs.State]int, error) {
 	return counts, nil
 }
 
-// Watch implements jobs.Store from the mirror.
+// Watch implements jobs.Store from the mirror. The first record is the
+// mirror's when it holds the topic (a job or a series), with no read of
+// the bucket: the watcher is added under the mirror's lock, so every later
+// change reaches it, and a mirror a little behind the bucket sends the
+// latest record as soon as it has it. Else the first record is read from
+// the bucket (a job created by another process a moment ago). A runner
+// watches every job it starts and every frame's series, so these are two
+// or three reads a frame fewer, of the bucket's leader.
 func (s *Store) Watch(ctx context.Context, topic string) (<-chan *jobs.Job, error) {
 	if err := s.start(ctx); err != nil {
 		return nil, err
 	}
+	s.mu.Lock()
+	if e, ok := s.jobs[topic]; ok {
+		c := *e.j
+		if p, ok := s.progress[topic]; ok && c.State == jobs.Running {
+			c.Progress = p
+		}
+		ch, err := s.watchers.Add(ctx, topic, &c)
+		s.mu.Unlock()
+		return ch, err
+	}
+	if _, ok := s.series[topic]; ok {
+		ch, err := s.watchers.Add(ctx, topic, nil)
+		s.mu.Unlock()
+		return ch, err
+	}
+	s.mu.Unlock()
 	var first *jobs.Job
 	if j, err := s.Job(ctx, topic); err == nil {
 		first = j
