@@ -94,19 +94,37 @@ func filterRows4(c []float64, stride, n int, poles []float64) {
 	for _, z := range poles {
 		gain *= (1 - z) * (1 - 1/z)
 	}
-	for i := range r0 {
+	// The gain goes first over the samples the first causal sum reads,
+	// and is then taken into the first causal recursion (fused).
+	g := gainedPrefix(n, poles[0])
+	for i := range r0[:g] {
 		r0[i] *= gain
 		r1[i] *= gain
 		r2[i] *= gain
 		r3[i] *= gain
 	}
 	last := n - 1
-	for _, z := range poles {
+	for p, z := range poles {
 		r0[0] = causalInit(r0, 1, n, z)
 		r1[0] = causalInit(r1, 1, n, z)
 		r2[0] = causalInit(r2, 1, n, z)
 		r3[0] = causalInit(r3, 1, n, z)
-		for i := 1; i < len(r0); i++ {
+		i := 1
+		if p == 0 {
+			for ; i < g; i++ {
+				r0[i] += float64(z * r0[i-1])
+				r1[i] += float64(z * r1[i-1])
+				r2[i] += float64(z * r2[i-1])
+				r3[i] += float64(z * r3[i-1])
+			}
+			for ; i < len(r0); i++ {
+				r0[i] = float64(r0[i]*gain) + float64(z*r0[i-1])
+				r1[i] = float64(r1[i]*gain) + float64(z*r1[i-1])
+				r2[i] = float64(r2[i]*gain) + float64(z*r2[i-1])
+				r3[i] = float64(r3[i]*gain) + float64(z*r3[i-1])
+			}
+		}
+		for ; i < len(r0); i++ {
 			r0[i] += float64(z * r0[i-1])
 			r1[i] += float64(z * r1[i-1])
 			r2[i] += float64(z * r2[i-1])
@@ -329,18 +347,37 @@ func filterColumns(c []float64, stride, nc, n int, poles []float64) {
 	for _, z := range poles {
 		gain *= (1 - z) * (1 - 1/z)
 	}
-	for i := 0; i < n; i++ {
+	// As in filterRows4: the gain over the rows the first causal sums
+	// read, then fused into the first causal recursion.
+	g := gainedPrefix(n, poles[0])
+	for i := 0; i < g; i++ {
 		row := c[i*stride : i*stride+nc]
 		for k := range row {
 			row[k] *= gain
 		}
 	}
 	last := (n - 1) * stride
-	for _, z := range poles {
+	for p, z := range poles {
 		for k := 0; k < nc; k++ {
 			c[k] = causalInit(c[k:], stride, n, z)
 		}
-		for i := stride; i <= last; i += stride {
+		i := stride
+		if p == 0 {
+			for ; i < g*stride; i += stride {
+				cur, prev := c[i:i+nc], c[i-stride:i-stride+nc]
+				for k := range cur {
+					cur[k] += float64(z * prev[k])
+				}
+			}
+			for ; i <= last; i += stride {
+				cur, prev := c[i:i+nc], c[i-stride:i-stride+nc]
+				prev = prev[:len(cur)]
+				for k := range cur {
+					cur[k] = float64(cur[k]*gain) + float64(z*prev[k])
+				}
+			}
+		}
+		for ; i <= last; i += stride {
 			cur, prev := c[i:i+nc], c[i-stride:i-stride+nc]
 			for k := range cur {
 				cur[k] += float64(z * prev[k])
@@ -359,12 +396,29 @@ func filterColumns(c []float64, stride, nc, n int, poles []float64) {
 	}
 }
 
+// horizon is the number of samples causalInit sums for pole z when the
+// signal is longer: the terms beyond are below 1e-17 relative.
+func horizon(z float64) int {
+	return int(math.Ceil(math.Log(1e-17) / math.Log(math.Abs(z))))
+}
+
+// gainedPrefix returns how many leading samples of a signal of n the
+// filters scale by the gain before the first causal recursion: those that
+// causalInit reads for the first pole z (all n when it reads them all).
+// The others are scaled inside that recursion, with the same two
+// roundings in the same order (the product, then the sum).
+func gainedPrefix(n int, z float64) int {
+	if h := horizon(z); h < n {
+		return h
+	}
+	return n
+}
+
 // causalInit returns c⁺(0) = Σ_{k=0}^{2n−3} z^k s(k) (mirror-extended s)
 // divided by 1 − z^(2n−2). Terms below 1e-17 relative are dropped, which is
 // exact in float64.
 func causalInit(c []float64, stride, n int, z float64) float64 {
-	horizon := int(math.Ceil(math.Log(1e-17) / math.Log(math.Abs(z))))
-	if horizon < n {
+	if horizon := horizon(z); horizon < n {
 		zn, sum := z, c[0]
 		for k := 1; k < horizon; k++ {
 			sum += zn * c[k*stride]

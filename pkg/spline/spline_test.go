@@ -408,18 +408,28 @@ func BenchmarkLineCubic(b *testing.B) {
 	b.ReportMetric(float64(b.Elapsed().Nanoseconds())/float64(b.N*len(out)), "ns/sample")
 }
 
-// The blocked column filter and the row-reusing gradient sums must give
-// bitwise the values of the plain forms they replace: filter1D on each
-// column copied out, and each pixel's (2r+1)² neighbourhood summed directly.
+// The blocked column filter, the four-row filter (both with the gain taken
+// into the first causal recursion past the samples the causal sum reads)
+// and the row-reusing gradient sums must give bitwise the values of the
+// plain forms they replace: filter1D on each row and column copied out, and
+// each pixel's (2r+1)² neighbourhood summed directly. The sizes put rows
+// and columns on both sides of the causal sums' horizons (30 samples
+// cubic, 47 and 12 quintic).
 func TestBlockedFiltersMatchPlain(t *testing.T) {
-	g := randomImage(53, 41, 9) // 53 columns: three full blocks and a partial one
+	for _, size := range [][2]int{{53, 41}, {131, 97}, {20, 29}} {
+		testBlockedFilters(t, size[0], size[1])
+	}
+}
+
+func testBlockedFilters(t *testing.T, w, h int) {
+	g := randomImage(w, h, 9) // 53 columns: three full blocks and a partial one (also 131, 20)
 	for _, order := range []Order{Cubic, Quintic} {
 		s, err := NewContext(context.Background(), g, order, 3)
 		if err != nil {
 			t.Fatal(err)
 		}
 		// Plain: rows then each column on its own.
-		cs, w, h := s.cs, g.W, g.H
+		cs := s.cs
 		c := make([]float64, len(s.c))
 		for y := 0; y < h; y++ {
 			row := c[(y+pad)*cs+pad : (y+pad)*cs+pad+w]
@@ -442,7 +452,7 @@ func TestBlockedFiltersMatchPlain(t *testing.T) {
 			for x := 0; x < w; x++ {
 				k := (y+pad)*cs + pad + x
 				if math.Float64bits(c[k]) != math.Float64bits(s.c[k]) {
-					t.Fatalf("%v: coefficient (%d, %d) is %v, plain column filter %v", order, x, y, s.c[k], c[k])
+					t.Fatalf("%d×%d %v: coefficient (%d, %d) is %v, plain filters %v", w, h, order, x, y, s.c[k], c[k])
 				}
 			}
 		}
