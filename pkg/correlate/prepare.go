@@ -99,7 +99,7 @@ func (s *solver) factor(h *[144]float64) Status {
 	cholSolve(&s.chol, np, &ev)
 	s.hUU, s.hVV = eu[U], ev[V]
 	if s.kern != nil {
-		s.hUU, s.hVV = s.smoothedVars(&eu, &ev)
+		s.hUU, s.hVV = s.smoothedVarsFast(&eu, &ev)
 	}
 	return OK
 }
