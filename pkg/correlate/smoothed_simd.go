@@ -2,13 +2,16 @@
 
 package correlate
 
-import "simd/archsimd"
+import (
+	"simd/archsimd"
+	"unsafe"
+)
 
 // smoothedVarsFast is the smoothedVars factor uses: smoothedVarsV where
 // the vector passes run (AVX-512 and FMA, side at least 8), else
 // smoothedVars.
 func (s *solver) smoothedVarsFast(cu, cv *[12]float64) (vu, vv float64) {
-	if vectorPass && !s.portable && 2*s.m+1 >= 8 {
+	if vectorPass && !s.portable && 2*s.m+1 >= 8 && len(s.kern) <= maxTaps {
 		return s.smoothedVarsV(cu, cv)
 	}
 	return s.smoothedVars(cu, cv)
@@ -33,6 +36,11 @@ func (s *solver) smoothedVarsV(cu, cv *[12]float64) (vu, vv float64) {
 	ext := side + 2*r
 	wide := ext + 2*r
 	second := s.np == 12
+	// The taps eight times each, before the first vector instruction.
+	var kb [maxTaps][8]float64
+	for q, k := range kern {
+		kb[q] = [8]float64{k, k, k, k, k, k, k, k}
+	}
 	wu, wv := s.wpad[:side*wide], s.wpad[side*wide:2*side*wide]
 	xis := s.xis[:side]
 	fxAll, fyAll := s.fx[:s.n], s.fy[:s.n]
@@ -72,22 +80,29 @@ func (s *solver) smoothedVarsV(cu, cv *[12]float64) (vu, vv float64) {
 			fy.MulAdd(qv, fx.Mul(pv)).StoreSlice(rowv[g:])
 		}
 	}
-	// The horizontal pass: row j of wu, wv to row 2r + j of tu, tv.
+	// The horizontal pass: row j of wu, wv to row 2r + j of tu, tv. The
+	// planes are read through pointers: every sample read lies in them,
+	// as in smoothedVars (rows of wide = ext + 2r samples for ext outputs,
+	// ext + 2r rows of ext samples for ext rows of outputs).
 	tu, tv := s.wtmp[:wide*ext], s.wtmp[wide*ext:2*wide*ext]
+	n := len(kern)
 	lastX := ext - 8
+	bu, bv := unsafe.Pointer(unsafe.SliceData(wu)), unsafe.Pointer(unsafe.SliceData(wv))
 	for j := 0; j < side; j++ {
-		su, sv := wu[j*wide:(j+1)*wide], wv[j*wide:(j+1)*wide]
 		du, dv := tu[(2*r+j)*ext:(2*r+j+1)*ext], tv[(2*r+j)*ext:(2*r+j+1)*ext]
-		for x := 0; x < ext; x += 8 {
+		x := 0
+		for ; x+16 <= ext; x += 16 {
+			o := uintptr(8 * (j*wide + x))
+			a0, a1, b0, b1 := conv4(unsafe.Add(bu, o), unsafe.Add(bv, o), 8, &kb, n)
+			a0.StoreSlice(du[x:])
+			a1.StoreSlice(du[x+8:])
+			b0.StoreSlice(dv[x:])
+			b1.StoreSlice(dv[x+8:])
+		}
+		for ; x < ext; x += 8 {
 			x = min(x, lastX)
-			k0 := archsimd.BroadcastFloat64x8(kern[0])
-			a := archsimd.LoadFloat64x8Slice(su[x:]).Mul(k0)
-			b := archsimd.LoadFloat64x8Slice(sv[x:]).Mul(k0)
-			for q := 1; q < len(kern); q++ {
-				kq := archsimd.BroadcastFloat64x8(kern[q])
-				a = archsimd.LoadFloat64x8Slice(su[x+q:]).MulAdd(kq, a)
-				b = archsimd.LoadFloat64x8Slice(sv[x+q:]).MulAdd(kq, b)
-			}
+			o := uintptr(8 * (j*wide + x))
+			a, b := conv2(unsafe.Add(bu, o), unsafe.Add(bv, o), 8, &kb, n)
 			a.StoreSlice(du[x:])
 			b.StoreSlice(dv[x:])
 		}
@@ -102,18 +117,21 @@ func (s *solver) smoothedVarsV(cu, cv *[12]float64) (vu, vv float64) {
 	}
 	tail := archsimd.Mask64x8FromBits(tailBits)
 	var ssu, ssv archsimd.Float64x8
+	cu0, cv0 := unsafe.Pointer(unsafe.SliceData(tu)), unsafe.Pointer(unsafe.SliceData(tv))
+	rowStep := uintptr(8 * ext)
 	for y := 0; y < ext; y++ {
-		for x := 0; x < ext; x += 8 {
+		x := 0
+		for ; x+16 <= ext; x += 16 {
+			o := uintptr(8 * (y*ext + x))
+			a0, a1, b0, b1 := conv4(unsafe.Add(cu0, o), unsafe.Add(cv0, o), rowStep, &kb, n)
+			ssu, ssv = a0.MulAdd(a0, ssu), b0.MulAdd(b0, ssv)
+			ssu, ssv = a1.MulAdd(a1, ssu), b1.MulAdd(b1, ssv)
+		}
+		for ; x < ext; x += 8 {
 			full := x <= lastX
 			x = min(x, lastX)
-			k0 := archsimd.BroadcastFloat64x8(kern[0])
-			a := archsimd.LoadFloat64x8Slice(tu[y*ext+x:]).Mul(k0)
-			b := archsimd.LoadFloat64x8Slice(tv[y*ext+x:]).Mul(k0)
-			for q := 1; q < len(kern); q++ {
-				kq := archsimd.BroadcastFloat64x8(kern[q])
-				a = archsimd.LoadFloat64x8Slice(tu[(y+q)*ext+x:]).MulAdd(kq, a)
-				b = archsimd.LoadFloat64x8Slice(tv[(y+q)*ext+x:]).MulAdd(kq, b)
-			}
+			o := uintptr(8 * (y*ext + x))
+			a, b := conv2(unsafe.Add(cu0, o), unsafe.Add(cv0, o), rowStep, &kb, n)
 			if !full {
 				a, b = a.Masked(tail), b.Masked(tail)
 			}
@@ -128,6 +146,45 @@ func (s *solver) smoothedVarsV(cu, cv *[12]float64) (vu, vv float64) {
 	vu = ((o[0] + o[1]) + (o[2] + o[3])) + ((o[4] + o[5]) + (o[6] + o[7]))
 	vv = ((p[0] + p[1]) + (p[2] + p[3])) + ((p[4] + p[5]) + (p[6] + p[7]))
 	return vu, vv
+}
+
+// maxTaps is the longest prefilter kernel smoothedVarsV takes (σ up to
+// 5 px); smoothedVarsFast leaves longer ones to smoothedVars.
+const maxTaps = 31
+
+// conv2 returns Σ_q kern[q]·x[q·step] for the eight samples at pu and at
+// pv (the same place in the other plane), kb holding the n taps eight
+// times each; step is in bytes.
+func conv2(pu, pv unsafe.Pointer, step uintptr, kb *[maxTaps][8]float64, n int) (a, b archsimd.Float64x8) {
+	k := archsimd.LoadFloat64x8(&kb[0])
+	a = archsimd.LoadFloat64x8((*[8]float64)(pu)).Mul(k)
+	b = archsimd.LoadFloat64x8((*[8]float64)(pv)).Mul(k)
+	for q := 1; q < n; q++ {
+		pu, pv = unsafe.Add(pu, step), unsafe.Add(pv, step)
+		k = archsimd.LoadFloat64x8(&kb[q])
+		a = archsimd.LoadFloat64x8((*[8]float64)(pu)).MulAdd(k, a)
+		b = archsimd.LoadFloat64x8((*[8]float64)(pv)).MulAdd(k, b)
+	}
+	return a, b
+}
+
+// conv4 is conv2 for the sixteen samples at pu and pv: a0, b0 the first
+// eight, a1, b1 the next (four independent sums share each tap's load).
+func conv4(pu, pv unsafe.Pointer, step uintptr, kb *[maxTaps][8]float64, n int) (a0, a1, b0, b1 archsimd.Float64x8) {
+	k := archsimd.LoadFloat64x8(&kb[0])
+	a0 = archsimd.LoadFloat64x8((*[8]float64)(pu)).Mul(k)
+	a1 = archsimd.LoadFloat64x8((*[8]float64)(unsafe.Add(pu, 64))).Mul(k)
+	b0 = archsimd.LoadFloat64x8((*[8]float64)(pv)).Mul(k)
+	b1 = archsimd.LoadFloat64x8((*[8]float64)(unsafe.Add(pv, 64))).Mul(k)
+	for q := 1; q < n; q++ {
+		pu, pv = unsafe.Add(pu, step), unsafe.Add(pv, step)
+		k = archsimd.LoadFloat64x8(&kb[q])
+		a0 = archsimd.LoadFloat64x8((*[8]float64)(pu)).MulAdd(k, a0)
+		a1 = archsimd.LoadFloat64x8((*[8]float64)(unsafe.Add(pu, 64))).MulAdd(k, a1)
+		b0 = archsimd.LoadFloat64x8((*[8]float64)(pv)).MulAdd(k, b0)
+		b1 = archsimd.LoadFloat64x8((*[8]float64)(unsafe.Add(pv, 64))).MulAdd(k, b1)
+	}
+	return a0, a1, b0, b1
 }
 
 // bc broadcasts x to eight lanes.
