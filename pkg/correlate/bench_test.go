@@ -51,12 +51,18 @@ func BenchmarkRun1024Direct(b *testing.B) { benchRun(b, First, tuning{direct: tr
 func BenchmarkRun1024NoFetch(b *testing.B) { benchRun(b, First, tuning{noFetch: true}) }
 
 // BenchmarkRun1024LongSpin is BenchmarkRun1024 with workers that check
-// for work 16,384 times (some milliseconds) instead of poolSpin times
-// before they sleep: a worker that sleeps halts its vCPU, and waking a
+// for work 16,384 times (some milliseconds), yielding to goroutines,
+// instead of poolSpin times before they yield their core and sleep: a worker that sleeps halts its vCPU, and waking a
 // halted vCPU of a virtual machine goes through the host's scheduler.
 // Run beside BenchmarkRun1024 -cpu 2 on quiet cores: if this one is
 // faster, the sleeps cost more than the spinning.
 func BenchmarkRun1024LongSpin(b *testing.B) { benchRun(b, First, tuning{spin: 1 << 14}) }
+
+// BenchmarkRun1024NoYield is BenchmarkRun1024 with workers that sleep
+// right after their poolSpin goroutine yields, without yielding their core
+// for up to poolYield first: the baseline of that wait, to be run beside
+// BenchmarkRun1024 -cpu 2 in the same process.
+func BenchmarkRun1024NoYield(b *testing.B) { benchRun(b, First, tuning{yield: -1}) }
 
 // BenchmarkRun1024Series is BenchmarkRun1024 with the series defaults of
 // pkg/series: quintic B-splines and a Gaussian prefilter of σ = 0.8 px.

@@ -17,13 +17,22 @@ import (
 //
 // A helper that finds nothing to do checks again poolSpin times, yielding
 // to other goroutines in between (some 10–50 µs when nothing else runs),
-// before it sleeps: waking a sleeping thread on another core costs 60 µs
-// to 1 ms on the 2-core virtual machine, and a pool that put every worker
-// to sleep after every 64-point batch paid that twice per batch. The
-// caller likewise spins before it sleeps. The bound is a count, not a
-// time, so that a spinning thread that the system preempts does not spin
-// on when it runs again.
-const poolSpin = 64
+// then goes on checking for up to poolYield, yielding its core to other
+// processes in between (sched_yield on Linux), before it sleeps: waking a
+// sleeping thread on another core costs 60 µs to 1 ms on the 2-core
+// virtual machine, and a pool that put every worker to sleep after every
+// 64-point batch paid that twice per batch. The caller likewise spins
+// before it sleeps. Where other processes want the core, the yield gives
+// it to them, so the waiting does not take CPU time from them (as the
+// 16,384 goroutine yields of BenchmarkRun1024LongSpin do: on a loaded
+// machine that ran 0.7–0.85× the points per CPU-second of the default);
+// on idle cores it keeps the thread from halting its vCPU between batches.
+// The time bound also stops a waiter that the system preempted from
+// waiting on when it runs again.
+const (
+	poolSpin  = 64
+	poolYield = time.Millisecond
+)
 
 // cursor packs the generation of the batch being handed out (upper 32
 // bits), its length (next 16) and its next item (lower 16). One
@@ -161,13 +170,34 @@ func (p *pool) close() {
 	p.mu.Unlock()
 }
 
-// spin returns how many times a worker checks for work, yielding in
-// between, before it sleeps: poolSpin, or tuning.spin when set.
+// spin returns how many times a worker checks for work, yielding to other
+// goroutines in between, before it yields its core: poolSpin, or
+// tuning.spin when set.
 func (r *run) spin() int {
 	if r.tun.spin > 0 {
 		return r.tun.spin
 	}
 	return poolSpin
+}
+
+// idle is what a worker does at its i-th check in a row that found no
+// work, the first at t0: it yields (to goroutines for the first spin()
+// checks, then its core for up to poolYield, or tuning.yield) and returns
+// false, or returns true when the worker should sleep.
+func (r *run) idle(i int, t0 time.Time) bool {
+	if i <= r.spin() {
+		runtime.Gosched()
+		return false
+	}
+	d := r.tun.yield
+	if d == 0 {
+		d = poolYield
+	}
+	if d < 0 || time.Since(t0) > d {
+		return true
+	}
+	osYield()
+	return false
 }
 
 // stop ends the helper goroutines.
@@ -237,7 +267,7 @@ func (r *run) worker(w int) {
 			if p.closed.Load() {
 				return
 			}
-			if i > r.spin() {
+			if r.idle(i, t0) {
 				p.spun.Add(int64(time.Since(t0)))
 				if !p.sleep() {
 					return
@@ -245,7 +275,6 @@ func (r *run) worker(w int) {
 				t0 = time.Now()
 				break
 			}
-			runtime.Gosched()
 		}
 		p.spun.Add(int64(time.Since(t0)))
 	}
@@ -287,7 +316,7 @@ func (r *run) awaitBatch(g uint64) []item {
 			t0, i = time.Now(), 0
 			continue
 		}
-		if i > r.spin() {
+		if r.idle(i, t0) {
 			p.spun.Add(int64(time.Since(t0)))
 			p.waits++
 			p.waitGen.Store(g)
@@ -299,7 +328,6 @@ func (r *run) awaitBatch(g uint64) []item {
 			p.waited += int64(time.Since(t1))
 			break
 		}
-		runtime.Gosched()
 	}
 	if tb := p.trace[g%2]; tb != nil {
 		tb.done = r.tun.trace.now()

@@ -70,12 +70,13 @@ func (t tuning) rows() bool {
 }
 
 type tuning struct {
-	direct   bool       // interpolate from the B-spline coefficients even when a table would be used
-	portable bool       // use the portable table pass even in builds with a vector one
-	noFetch  bool       // no prefetch of a point's subsets (prefetch.go)
-	spin     int        // checks for work before a worker sleeps (pool.go); 0: poolSpin
-	table    tableKind  // which table to build where one pays
-	trace    *poolTrace // record phase and batch timings (benchmarks)
+	direct   bool          // interpolate from the B-spline coefficients even when a table would be used
+	portable bool          // use the portable table pass even in builds with a vector one
+	noFetch  bool          // no prefetch of a point's subsets (prefetch.go)
+	spin     int           // checks for work, yielding to goroutines, before a worker yields its core (pool.go); 0: poolSpin
+	yield    time.Duration // how long a worker then yields its core before it sleeps; 0: poolYield, < 0: not at all
+	table    tableKind     // which table to build where one pays
+	trace    *poolTrace    // record phase and batch timings (benchmarks)
 }
 
 // runWith is Run with the given tuning.
