@@ -5,6 +5,7 @@ package correlate
 import (
 	"math"
 	"simd/archsimd"
+	"unsafe"
 )
 
 // prepare1fast is the first-order grid-point prepare Run uses.
@@ -38,9 +39,16 @@ func (s *solver) prepare1v(ix, iy int) Status {
 	side := 2*m + 1
 	last := side - 8
 	stride, w := s.ref.Stride, s.ref.W
-	pixAll, gxAll, gyAll := s.ref.Pix, s.gx, s.gy
+	// The subset's first sample (ix−m, iy−m) lies in the image and its
+	// last (ix+m, iy+m) too, checked by prepare; f, fx, fy hold s.n.
+	_ = s.ref.Pix[(iy+m)*stride+ix+m]
+	_ = s.gx[(iy+m)*w+ix+m]
+	_ = s.gy[(iy+m)*w+ix+m]
+	_, _, _ = s.f[s.n-1], s.fx[s.n-1], s.fy[s.n-1]
+	bPix, bGx, bGy := unsafe.Pointer(unsafe.SliceData(s.ref.Pix)), unsafe.Pointer(unsafe.SliceData(s.gx)), unsafe.Pointer(unsafe.SliceData(s.gy))
+	bF, bFx, bFy := unsafe.Pointer(unsafe.SliceData(s.f)), unsafe.Pointer(unsafe.SliceData(s.fx)), unsafe.Pointer(unsafe.SliceData(s.fy))
+	rowStride, rowW, rowSide := 4*uintptr(stride), 4*uintptr(w), 8*uintptr(side)
 	xis := s.xis[:side]
-	fAll, fxAll, fyAll := s.f[:s.n], s.fx[:s.n], s.fy[:s.n]
 	lastMask := archsimd.Mask64x8FromBits(s.lastBits8)
 	ccv := s.cc8
 	cc := archsimd.LoadFloat64x8(&ccv[0])  // m + 1
@@ -57,18 +65,24 @@ func (s *solver) prepare1v(ix, iy int) Status {
 			g, full = last, false
 		}
 		xi := archsimd.LoadFloat64x8Slice(xis[g:])
-		// Pass 1: copy, and the Hessian's weights.
+		// Pass 1: copy, and the Hessian's weights. The rows are walked
+		// through pointers (the subset lies in the image, checked by
+		// prepare, and g+8 ≤ side): byte offsets o, po, k of row j in the
+		// image, the gradients and the copies.
 		var a0, a1, a2, b0, b1, b2, c0, c1, c2 archsimd.Float64x8
+		o := 4 * uintptr((iy+m)*stride+ix-m+g)
+		po := 4 * uintptr((iy+m)*w+ix-m+g)
+		k := 8 * uintptr((side-1)*side+g)
 		for j := side - 1; j >= 0; j-- {
-			o := (iy+j-m)*stride + ix - m + g
-			po := (iy+j-m)*w + ix - m + g
-			k := j*side + g
-			v := archsimd.LoadFloat32x8Slice(pixAll[o : o+8]).ConvertToFloat64()
-			gx := archsimd.LoadFloat32x8Slice(gxAll[po : po+8]).ConvertToFloat64()
-			gy := archsimd.LoadFloat32x8Slice(gyAll[po : po+8]).ConvertToFloat64()
-			v.StoreSlice(fAll[k : k+8])
-			gx.StoreSlice(fxAll[k : k+8])
-			gy.StoreSlice(fyAll[k : k+8])
+			v := archsimd.LoadFloat32x8((*[8]float32)(unsafe.Add(bPix, o))).ConvertToFloat64()
+			gx := archsimd.LoadFloat32x8((*[8]float32)(unsafe.Add(bGx, po))).ConvertToFloat64()
+			gy := archsimd.LoadFloat32x8((*[8]float32)(unsafe.Add(bGy, po))).ConvertToFloat64()
+			v.Store((*[8]float64)(unsafe.Add(bF, k)))
+			gx.Store((*[8]float64)(unsafe.Add(bFx, k)))
+			gy.Store((*[8]float64)(unsafe.Add(bFy, k)))
+			o -= rowStride
+			po -= rowW
+			k -= rowSide
 			if !full {
 				gx, gy = gx.Masked(lastMask), gy.Masked(lastMask)
 			}
@@ -87,11 +101,12 @@ func (s *solver) prepare1v(ix, iy int) Status {
 		colMoments((*[6][8]float64)(out[13:19]), c0, c1, c2, xi, cc, cc2, cc3)
 		// Pass 2: Σf and the weights of Σ J f and Σ J.
 		var rs, p0, p1, q0, q1, u0, u1, w0, w1 archsimd.Float64x8
+		k = 8 * uintptr((side-1)*side+g)
 		for j := side - 1; j >= 0; j-- {
-			k := j*side + g
-			v := archsimd.LoadFloat64x8Slice(fAll[k : k+8])
-			gx := archsimd.LoadFloat64x8Slice(fxAll[k : k+8])
-			gy := archsimd.LoadFloat64x8Slice(fyAll[k : k+8])
+			v := archsimd.LoadFloat64x8((*[8]float64)(unsafe.Add(bF, k)))
+			gx := archsimd.LoadFloat64x8((*[8]float64)(unsafe.Add(bFx, k)))
+			gy := archsimd.LoadFloat64x8((*[8]float64)(unsafe.Add(bFy, k)))
+			k -= rowSide
 			if !full {
 				v, gx, gy = v.Masked(lastMask), gx.Masked(lastMask), gy.Masked(lastMask)
 			}
@@ -190,29 +205,35 @@ func (s *solver) prepare2v(ix, iy int) Status {
 	side := 2*m + 1
 	last := side - 8
 	stride, w := s.ref.Stride, s.ref.W
-	pixAll, gxAll, gyAll := s.ref.Pix, s.gx, s.gy
-	fAll, fxAll, fyAll := s.f[:s.n], s.fx[:s.n], s.fy[:s.n]
+	// The rows through pointers, as in prepare1v: byte offsets of row j's
+	// first sample in the image, the gradients and the copies.
+	_ = s.ref.Pix[(iy+m)*stride+ix+m]
+	_ = s.gx[(iy+m)*w+ix+m]
+	_ = s.gy[(iy+m)*w+ix+m]
+	_, _, _ = s.f[s.n-1], s.fx[s.n-1], s.fy[s.n-1]
+	bPix, bGx, bGy := unsafe.Pointer(unsafe.SliceData(s.ref.Pix)), unsafe.Pointer(unsafe.SliceData(s.gx)), unsafe.Pointer(unsafe.SliceData(s.gy))
+	bF, bFx, bFy := unsafe.Pointer(unsafe.SliceData(s.f)), unsafe.Pointer(unsafe.SliceData(s.fx)), unsafe.Pointer(unsafe.SliceData(s.fy))
 	lastMask := archsimd.Mask64x8FromBits(s.lastBits8)
 	out := &s.pout
 	var rs archsimd.Float64x8
+	ro, rpo, rk := 4*uintptr((iy-m)*stride+ix-m), 4*uintptr((iy-m)*w+ix-m), uintptr(0)
 	for j := 0; j < side; j++ {
 		for i := 0; i < side; i += 8 {
 			full := true
 			if i > last {
 				i, full = last, false
 			}
-			o := (iy+j-m)*stride + ix - m + i
-			po := (iy+j-m)*w + ix - m + i
-			k := j*side + i
-			v := archsimd.LoadFloat32x8Slice(pixAll[o : o+8]).ConvertToFloat64()
-			archsimd.LoadFloat32x8Slice(gxAll[po : po+8]).ConvertToFloat64().StoreSlice(fxAll[k : k+8])
-			archsimd.LoadFloat32x8Slice(gyAll[po : po+8]).ConvertToFloat64().StoreSlice(fyAll[k : k+8])
-			v.StoreSlice(fAll[k : k+8])
+			o, po, k := ro+4*uintptr(i), rpo+4*uintptr(i), rk+8*uintptr(i)
+			v := archsimd.LoadFloat32x8((*[8]float32)(unsafe.Add(bPix, o))).ConvertToFloat64()
+			archsimd.LoadFloat32x8((*[8]float32)(unsafe.Add(bGx, po))).ConvertToFloat64().Store((*[8]float64)(unsafe.Add(bFx, k)))
+			archsimd.LoadFloat32x8((*[8]float32)(unsafe.Add(bGy, po))).ConvertToFloat64().Store((*[8]float64)(unsafe.Add(bFy, k)))
+			v.Store((*[8]float64)(unsafe.Add(bF, k)))
 			if !full {
 				v = v.Masked(lastMask)
 			}
 			rs = rs.Add(v)
 		}
+		ro, rpo, rk = ro+4*uintptr(stride), rpo+4*uintptr(w), rk+8*uintptr(side)
 	}
 	rs.Store(&out[0])
 	archsimd.ClearAVXUpperBits()
