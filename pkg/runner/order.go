@@ -19,6 +19,14 @@ import (
 // once the rules of solveAhead allow it, and the waits start again after
 // the solve. It reports whether the job may run.
 func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) bool {
+	ok, _ := s.waitTurn(ctx, id, d)
+	return ok
+}
+
+// waitTurn is waitPrevious that also returns, when the job may run, the
+// record of the previous frame as the look that let it go read it
+// (finished then, so for good), or nil.
+func (s *Runner) waitTurn(ctx context.Context, id string, d jobs.Delivery) (bool, *jobs.Job) {
 	wctx, cancel := context.WithCancel(ctx)
 	defer cancel()
 	var done <-chan struct{} // framesDone's, from the first look that waits
@@ -52,7 +60,7 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 				// look, two record reads, until then.
 				select {
 				case <-ctx.Done():
-					return false
+					return false, nil
 				case <-done:
 				case <-s.clock.After(framePollWatched):
 				}
@@ -63,19 +71,19 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 		if g != gateOpen && !solved && now.Sub(looked) >= yieldLook {
 			looked = now
 			if s.yieldFrame(context.Background(), j) {
-				return false
+				return false, nil
 			}
 		}
 		switch {
 		case g == gateOpen:
-			return true
+			return true, prev
 		case g == gateRunning:
 			idle = time.Time{}
 		case idle.IsZero():
 			idle = now
 		}
 		if now.Sub(start) > frameWait || !idle.IsZero() && now.Sub(idle) > frameQueuedWait {
-			return false
+			return false, nil
 		}
 		if now.Sub(beat) > 2*time.Second {
 			beat = now
@@ -83,7 +91,7 @@ func (s *Runner) waitPrevious(ctx context.Context, id string, d jobs.Delivery) b
 		}
 		select {
 		case <-ctx.Done():
-			return false
+			return false, nil
 		case <-done:
 		case <-s.clock.After(wait):
 		}

@@ -51,7 +51,8 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 	id := d.ID()
 	ctx := context.Background()
 	l := s.log.With("job", id)
-	if !s.waitPrevious(base, id, d) {
+	turn, prev := s.waitTurn(base, id, d)
+	if !turn {
 		// Frame n of a series needs frame n−1's tracker state: put it back
 		// until the previous frame has finished.
 		l.Debug("frame held back: the previous frame has not finished")
@@ -121,7 +122,7 @@ func (s *Runner) runJob(base context.Context, d jobs.Delivery) {
 		err = jctx.Err() // a hold ended by cancellation, timeout or shutdown
 	}
 	if err == nil {
-		res, err = s.compute(jctx, j, d)
+		res, err = s.compute(jctx, j, d, prev)
 	}
 	secs := time.Since(start).Seconds()
 	var names []string
@@ -240,8 +241,10 @@ const frameQueuedWait = time.Second
 const framePoll = 50 * time.Millisecond
 
 // computeFrame runs series frame j through the series engine, from the
-// state after the last frame that succeeded before it.
-func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer, progress func(done, total int)) (*Result, error) {
+// state after the last frame that succeeded before it. prev, if not nil,
+// is the record of the frame before j as the gate read it finished, which
+// the search for that frame takes rather than reading it again.
+func (s *Runner) computeFrame(ctx context.Context, j, prev *jobs.Job, fa FrameAnalyzer, progress func(done, total int)) (*Result, error) {
 	in := FrameInput{Params: j.Params, Name: j.Name, Time: j.Time, Load: j.Load, Formats: j.Formats,
 		Threads: s.cfg.JobThreads, Progress: progress, RefName: "reference", StateJSON: s.cfg.StateJSON}
 	if in.Name == "" {
@@ -258,7 +261,11 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 	if in.Def, err = s.loadSeriesImage(ctx, jobs.InputKey(j.ID, "deformed"), &in.Orientation); err != nil {
 		return nil, err
 	}
-	last, err := s.lastDone(ctx, j)
+	var read map[string]*jobs.Job
+	if prev != nil {
+		read = map[string]*jobs.Job{prev.ID: prev}
+	}
+	last, err := s.lastDoneOf(ctx, j, read)
 	if err != nil {
 		return nil, err
 	}
@@ -291,8 +298,9 @@ func (s *Runner) computeFrame(ctx context.Context, j *jobs.Job, fa FrameAnalyzer
 	return res, err
 }
 
-// compute loads the inputs of j and runs the analyzer.
-func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Result, error) {
+// compute loads the inputs of j and runs the analyzer; prev is the
+// record of the frame before j as the frame gate last read it, or nil.
+func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery, prev *jobs.Job) (*Result, error) {
 	var last, beat time.Time
 	progress := func(done, total int) {
 		now := time.Now()
@@ -315,7 +323,7 @@ func (s *Runner) compute(ctx context.Context, j *jobs.Job, d jobs.Delivery) (*Re
 		}
 	}
 	if fa, ok := s.cfg.Analyzer.(FrameAnalyzer); ok && j.Kind == jobs.Frame {
-		return s.computeFrame(ctx, j, fa, progress)
+		return s.computeFrame(ctx, j, prev, fa, progress)
 	}
 	in := Input{Formats: j.Formats}
 	if err := json.Unmarshal(j.Params, &in.Params); err != nil {

@@ -406,15 +406,16 @@ func (s *Store) DeleteKey(ctx context.Context, id string) error {
 
 // Watch implements jobs.Store.
 func (s *Store) Watch(ctx context.Context, topic string) (<-chan *jobs.Job, error) {
-	var first *jobs.Job
-	if j, err := s.Job(ctx, topic); err == nil {
-		first = j
-	} else if !errors.Is(err, jobs.ErrNotFound) {
-		return nil, err
-	} else if _, err := s.Series(ctx, topic); err != nil {
-		return nil, fmt.Errorf("watch %s: %w", topic, jobs.ErrNotFound)
-	}
-	return s.watchers.Add(ctx, topic, first)
+	return s.watchers.AddCurrent(ctx, topic, func() (*jobs.Job, error) {
+		if j, err := s.Job(ctx, topic); err == nil {
+			return j, nil
+		} else if !errors.Is(err, jobs.ErrNotFound) {
+			return nil, err
+		} else if _, err := s.Series(ctx, topic); err != nil {
+			return nil, fmt.Errorf("watch %s: %w", topic, jobs.ErrNotFound)
+		}
+		return nil, nil
+	})
 }
 
 // publish sends a copy of j to the watchers of its id and of its series.

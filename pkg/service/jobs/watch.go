@@ -19,11 +19,25 @@ type Watchers struct {
 // not nil), then every published change, and is closed when ctx ends or
 // Close is called. It returns ErrClosed after Close.
 func (w *Watchers) Add(ctx context.Context, topic string, first *Job) (<-chan *Job, error) {
+	return w.AddCurrent(ctx, topic, func() (*Job, error) { return first, nil })
+}
+
+// AddCurrent is Add with the first record read by current while no change
+// is published: a change stored before the read is in the record read, and
+// one published after it reaches the watcher, so none falls between the
+// two (as one would between a read and Add). current's error is returned,
+// and no watcher added.
+func (w *Watchers) AddCurrent(ctx context.Context, topic string, current func() (*Job, error)) (<-chan *Job, error) {
 	ch := make(chan *Job, 16)
 	w.mu.Lock()
 	if w.closed {
 		w.mu.Unlock()
 		return nil, ErrClosed
+	}
+	first, err := current()
+	if err != nil {
+		w.mu.Unlock()
+		return nil, err
 	}
 	if w.subs == nil {
 		w.subs = map[string]map[chan *Job]struct{}{}

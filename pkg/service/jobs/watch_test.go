@@ -65,3 +65,46 @@ func TestWatchers(t *testing.T) {
 		t.Errorf("Add after Close: %v, want ErrClosed", err)
 	}
 }
+
+// TestAddCurrent: a change published while the watcher's first record is
+// read reaches the watcher after it. The read here starts a publish and
+// waits for it (50 ms at most): with the read inside AddCurrent's lock
+// the publish waits for the watcher to be added and then reaches it; a
+// read before the watcher is added (as a Store.Watch that reads and then
+// calls Add) would let it finish first, to nobody, and the watcher would
+// never see the change (a cancel asked meanwhile, lost).
+func TestAddCurrent(t *testing.T) {
+	var w Watchers
+	ctx, cancel := context.WithCancel(context.Background())
+	defer cancel()
+	ch, err := w.AddCurrent(ctx, "a", func() (*Job, error) {
+		done := make(chan struct{})
+		go func() {
+			w.Publish(&Job{ID: "a", State: Succeeded})
+			close(done)
+		}()
+		select {
+		case <-done:
+		case <-time.After(50 * time.Millisecond):
+		}
+		return &Job{ID: "a", State: Running}, nil
+	})
+	if err != nil {
+		t.Fatal(err)
+	}
+	var got []State
+	for len(got) < 2 {
+		select {
+		case j := <-ch:
+			got = append(got, j.State)
+		case <-time.After(5 * time.Second):
+			t.Fatalf("watcher got %v, want [running succeeded]", got)
+		}
+	}
+	if got[0] != Running || got[1] != Succeeded {
+		t.Errorf("watcher got %v, want [running succeeded]", got)
+	}
+	if _, err := w.AddCurrent(ctx, "b", func() (*Job, error) { return nil, ErrNotFound }); !errors.Is(err, ErrNotFound) {
+		t.Errorf("AddCurrent with a failing read: %v, want its error", err)
+	}
+}

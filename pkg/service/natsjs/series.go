@@ -56,10 +56,17 @@ func (s *Store) Series(ctx context.Context, id string) (*jobs.Series, error) {
 
 // UpdateSeries implements jobs.Store by compare-and-swap.
 func (s *Store) UpdateSeries(ctx context.Context, id string, fn func(*jobs.Series) error) (*jobs.Series, error) {
-	for {
-		sr, rev, err := s.getSeries(ctx, id)
-		if err != nil {
-			return nil, err
+	for try := 0; ; try++ {
+		// The first try from the mirror's record, as UpdateJob.
+		sr, rev, ok := new(jobs.Series), uint64(0), false
+		if try == 0 {
+			rev, ok = s.mirrored(func() (uint64, any, bool) { e, ok := s.series[id]; return e.rev, e.s, ok }, sr)
+		}
+		if !ok {
+			var err error
+			if sr, rev, err = s.getSeries(ctx, id); err != nil {
+				return nil, err
+			}
 		}
 		if err := fn(sr); err != nil {
 			return nil, err

@@ -213,15 +213,30 @@ func (s *Store) overlay(j *jobs.Job) {
 // is final: an update that would store another success over it (a job
 // computed twice after a redelivery) is dropped and the stored record
 // returned, so the first answer stays.
+//
+// The first try starts from the mirror's record and revision when the
+// mirror holds the job (see mirrored), with no read of the bucket: the
+// swap then succeeds only if no write came after that revision, and
+// else the record is read from the bucket and fn applied to it, as
+// before. A worker updates each job it runs twice (started, finished),
+// and the mirror holds its own last write.
 func (s *Store) UpdateJob(ctx context.Context, id string, fn func(*jobs.Job) error) (*jobs.Job, error) {
-	for {
-		j, rev, err := s.getJob(ctx, id)
-		if err != nil {
-			return nil, err
+	for try := 0; ; try++ {
+		var j jobs.Job
+		rev, ok := uint64(0), false
+		if try == 0 {
+			rev, ok = s.mirrored(func() (uint64, any, bool) { e, ok := s.jobs[id]; return e.rev, e.j, ok }, &j)
+		}
+		if !ok {
+			r, rv, err := s.getJob(ctx, id)
+			if err != nil {
+				return nil, err
+			}
+			j, rev = *r, rv
 		}
 		was := j.State
-		s.overlay(j)
-		if err := fn(j); err != nil {
+		s.overlay(&j)
+		if err := fn(&j); err != nil {
 			return nil, err
 		}
 		if j.ID != id {
@@ -250,10 +265,29 @@ func (s *Store) UpdateJob(ctx context.Context, id string, fn func(*jobs.Job) err
 			delete(s.progress, id)
 			s.mu.Unlock()
 		}
-		c := *j
+		c := j
 		s.applyJob(nrev, id, &c)
-		return j, nil
+		return &j, nil
 	}
+}
+
+// mirrored copies into dst the mirror's record that find returns (called
+// with s.mu held) and returns its revision; ok is false when the mirror
+// is off or does not hold it. The copy goes through JSON, as a record read
+// from the bucket would, so that an update changes nothing the mirror
+// holds.
+func (s *Store) mirrored(find func() (rev uint64, rec any, ok bool), dst any) (rev uint64, ok bool) {
+	s.mu.Lock()
+	rev, rec, ok := find()
+	var data []byte
+	if ok && s.stop != nil {
+		data, _ = json.Marshal(rec)
+	}
+	s.mu.Unlock()
+	if data == nil || json.Unmarshal(data, dst) != nil {
+		return 0, false
+	}
+	return rev, true
 }
 
 // progressMsg is the body of a progress message.
