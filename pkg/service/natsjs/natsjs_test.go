@@ -296,9 +296,12 @@ func TestBlobs(t *testing.T) {
 	if info2, _ := b.blobs.obj.GetInfo(ctx, in); info2.NUID != info1.NUID {
 		t.Error("a Put of identical contents rewrote the object")
 	}
-	// Inputs may be replaced.
+	// Inputs may be replaced, and the old object's chunks go.
 	if err := bl.Put(ctx, in, strings.NewReader("new")); err != nil || read(in) != "new" {
 		t.Fatalf("replace input: %v, %q", err, read(in))
+	}
+	if _, _, err := b.blobs.nextChunk(ctx, "$O."+b.blobs.bucket+".C."+info1.NUID, 1, nil); !errors.Is(err, jetstream.ErrMsgNotFound) {
+		t.Errorf("a chunk of the replaced object is still stored (%v)", err)
 	}
 	// Results are written once: the first answer stays.
 	out := jobs.ResultKey(id, "field.json")
