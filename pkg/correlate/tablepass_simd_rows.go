@@ -44,6 +44,12 @@ func (s *solver) sampleRows(x, y, xL, yL int64) {
 	xy := archsimd.BroadcastInt64x8(x).Merge(archsimd.BroadcastInt64x8(y), lo).Add(archsimd.LoadInt64x8(&rv[0]))
 	dxy := archsimd.LoadInt64x8(&rv[2])
 	low4 := archsimd.Mask64x8FromBits(0x0f)
+	// A group's coefficients wait for the next group: two neighbouring
+	// groups are finished together (finish8), a group without a
+	// neighbour after it alone (finish4). pi is the waiting group's first
+	// pixel, or −1.
+	var pc, pt archsimd.Float32x16
+	pi := -1
 	for i := 0; i < n; i += 4 {
 		if i > last {
 			i = last
@@ -81,18 +87,66 @@ func (s *solver) sampleRows(x, y, xL, yL int64) {
 		e2 := r1.MulAdd(archsimd.LoadFloat32x16(&k[2]), sum).Mul(three)
 		e3 := r1.Sub(r2).MulAdd(three, r3.Sub(r0))
 		c := e3.MulAdd(ty, e2).MulAdd(ty, e1).MulAdd(ty, e0)
-		// Horner in tx (lanes 0–3 of t) on the coefficients of each
-		// power, lane p for pixel p.
-		c0 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[0]))
-		c1 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[1]))
-		c2 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[2]))
-		c3 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[3]))
-		v := c3.MulAdd(t, c2).MulAdd(t, c1).MulAdd(t, c0)
-		v.GetLo().ConvertToFloat64().StoreMasked((*[8]float64)(g[i:i+8]), low4)
+		switch {
+		case pi < 0:
+			pc, pt, pi = c, t, i
+		case i == pi+4:
+			finish8(pc, c, pt, t).Store((*[8]float64)(g[pi : pi+8]))
+			pi = -1
+		default:
+			finish4(pc, pt, s).StoreMasked((*[8]float64)(g[pi:pi+8]), low4)
+			pc, pt, pi = c, t, i
+		}
 		xy = xy.Add(dxy)
 		dxy = dxy.Add(archsimd.LoadInt64x8(&rv[3]))
 	}
+	if pi >= 0 {
+		finish4(pc, pt, s).StoreMasked((*[8]float64)(g[pi:pi+8]), low4)
+	}
 }
+
+// finish4 finishes a group of four pixels: c holds the coefficients of
+// each power of tx in lanes (pixel, power), t the tx in lanes 0–3; the
+// coefficients are moved to lanes per pixel and summed by Horner's rule in
+// tx. The result, in lanes 0–3, in float64.
+func finish4(c, t archsimd.Float32x16, s *solver) archsimd.Float64x8 {
+	c0 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[0]))
+	c1 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[1]))
+	c2 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[2]))
+	c3 := c.Permute(archsimd.LoadUint32x16(&s.rowPick[3]))
+	return c3.MulAdd(t, c2).MulAdd(t, c1).MulAdd(t, c0).GetLo().ConvertToFloat64()
+}
+
+// finish8 is finish4 for two neighbouring groups at once, a's pixels in
+// lanes 0–3 of the result and b's in 4–7: the same operations on each
+// pixel's values, half the permutes and multiply-adds per pixel.
+func finish8(ca, cb, ta, tb archsimd.Float32x16) archsimd.Float64x8 {
+	k := &rows4
+	t := ta.ConcatPermute(tb, archsimd.LoadUint32x16(&k.tx))
+	c0 := ca.ConcatPermute(cb, archsimd.LoadUint32x16(&k.pick[0]))
+	c1 := ca.ConcatPermute(cb, archsimd.LoadUint32x16(&k.pick[1]))
+	c2 := ca.ConcatPermute(cb, archsimd.LoadUint32x16(&k.pick[2]))
+	c3 := ca.ConcatPermute(cb, archsimd.LoadUint32x16(&k.pick[3]))
+	return c3.MulAdd(t, c2).MulAdd(t, c1).MulAdd(t, c0).GetLo().ConvertToFloat64()
+}
+
+// rows4Consts holds finish8's index vectors.
+type rows4Consts struct {
+	tx   [16]uint32    // lanes 0–3 ← lanes 0–3 of a, 4–7 ← lanes 0–3 of b (16 on)
+	pick [4][16]uint32 // pick[i]: lane p ← lane (p, i) of a, lane 4 + p ← of b
+}
+
+// rows4 are finish8's constants; never modified.
+var rows4 = func() rows4Consts {
+	var k rows4Consts
+	for p := range 4 {
+		k.tx[p], k.tx[4+p] = uint32(p), uint32(16+p)
+		for i := range 4 {
+			k.pick[i][p], k.pick[i][4+p] = uint32(4*p+i), uint32(16+4*p+i)
+		}
+	}
+	return k
+}()
 
 // gather4 puts the four row polynomials at elements o0, o1, o2, o3 of the
 // table at base into one vector, lanes (pixel, power of tx).
