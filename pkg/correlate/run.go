@@ -75,6 +75,7 @@ type tuning struct {
 	noFetch  bool          // no prefetch of a point's subsets (prefetch.go)
 	spin     int           // checks for work, yielding to goroutines, before a worker yields its core (pool.go); 0: poolSpin
 	yield    time.Duration // how long a worker then yields its core before it sleeps; 0: poolYield, < 0: not at all
+	allGrads bool          // sample the reference gradients on every image row, not only the grid's (gradRows)
 	table    tableKind     // which table to build where one pays
 	trace    *poolTrace    // record phase and batch timings (benchmarks)
 }
@@ -337,7 +338,10 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 	if tab {
 		nTable = nRows
 	}
-	r.shareOut(1+nRows+nTable, func(k int) {
+	g0, g1 := r.gradRows(grid)
+	k0 := g0 / rows
+	nGrad := parts(g1, rows) - k0
+	r.shareOut(1+nGrad+nTable, func(k int) {
 		if ctx.Err() != nil {
 			return
 		}
@@ -346,11 +350,11 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 			if grid {
 				r.label()
 			}
-		case k <= nRows:
-			k--
-			r.refSp.GradientRows(r.gx, r.gy, k*rows, min((k+1)*rows, h))
+		case k <= nGrad:
+			k += k0 - 1
+			r.refSp.GradientRows(r.gx, r.gy, max(k*rows, g0), min((k+1)*rows, g1))
 		default:
-			k -= 1 + nRows
+			k -= 1 + nGrad
 			table.FillRows(r.defSp, k*rows, min((k+1)*rows, h))
 		}
 	})
@@ -374,6 +378,23 @@ func start(ctx context.Context, ref, def *imageio.Gray, opt Options, tun tuning,
 	}
 	ok = true
 	return r, nil
+}
+
+// gradRows returns the image rows g0 ≤ y < g1 whose reference gradients
+// the run reads. With a grid (grid set) every point computed is a grid
+// point whose whole subset lies in the image, so only the rows the grid's
+// subsets span are read: prepare, the moment tables and the prefetch read
+// the gradients of a point's own subset rows and nothing else (the seed
+// fallback warps the reference through the spline, not the gradients).
+// Without one (points anywhere, points.go) it is every row. Rows outside
+// keep zero gradients, which nothing reads.
+func (r *run) gradRows(grid bool) (g0, g1 int) {
+	h := r.ref.H
+	if !grid || r.tun.allGrads {
+		return 0, h
+	}
+	g := r.grid
+	return max(0, g.Y0-r.m), min(h, g.Y0+(g.Ny-1)*g.Step+r.m+1)
 }
 
 // tabulates reports whether tabulate builds the table for npts subsets.
