@@ -191,6 +191,14 @@ func (b guardedBlobs) Create(ctx context.Context, key string, r io.Reader) error
 	return err
 }
 
+// DeleteKey removes the blob under key alone by the guarded blobs' own
+// DeleteKey when they have one (jobs.KeyDeleter: a distributed store's,
+// which does not list the store), which the embedding would hide, so that
+// jobs.DeleteKey through the guard costs what it costs without it.
+func (b guardedBlobs) DeleteKey(ctx context.Context, key string) error {
+	return jobs.DeleteKey(ctx, b.Blobs, key)
+}
+
 // guardedStore reports record writes that fail for lack of space to the
 // guard. An update of an existing record (the outcome of a job, a frame
 // appended) is tried once more after the reserve is given up: the state
