@@ -287,7 +287,9 @@ func (s *solver) hessian2v(h *[144]float64) {
 	side := 2*m + 1
 	last := side - 8
 	xis := s.xis[:side]
-	fAll, fxAll, fyAll := s.f[:s.n], s.fx[:s.n], s.fy[:s.n]
+	// The copies are read through pointers: k + 8 ≤ s.n for every group.
+	_, _, _ = s.f[s.n-1], s.fx[s.n-1], s.fy[s.n-1]
+	bF, bFx, bFy := unsafe.Pointer(unsafe.SliceData(s.f)), unsafe.Pointer(unsafe.SliceData(s.fx)), unsafe.Pointer(unsafe.SliceData(s.fy))
 	lastMask := archsimd.Mask64x8FromBits(s.lastBits8)
 	tw := &s.h2w // tw[q][a][b]: lane sums of w_q ξ^a η^b, a + b ≤ 4
 	tb := &s.h2b // tb[q][a][b] for fx f̃, fy f̃, fx, fy, a + b ≤ 2
@@ -302,8 +304,8 @@ func (s *solver) hessian2v(h *[144]float64) {
 		var a0, a1, a2, a3, a4, b0, b1, b2, b3, b4 archsimd.Float64x8
 		for j := side - 1; j >= 0; j-- {
 			k := j*side + g
-			gx := archsimd.LoadFloat64x8Slice(fxAll[k : k+8])
-			gy := archsimd.LoadFloat64x8Slice(fyAll[k : k+8])
+			gx := load8(bFx, k)
+			gy := load8(bFy, k)
 			if !full {
 				gx = gx.Masked(lastMask)
 			}
@@ -326,9 +328,9 @@ func (s *solver) hessian2v(h *[144]float64) {
 		a0, a1, a2, a3, a4 = archsimd.Float64x8{}, archsimd.Float64x8{}, archsimd.Float64x8{}, archsimd.Float64x8{}, archsimd.Float64x8{}
 		for j := side - 1; j >= 0; j-- {
 			k := j*side + g
-			gx := archsimd.LoadFloat64x8Slice(fxAll[k : k+8])
-			gy := archsimd.LoadFloat64x8Slice(fyAll[k : k+8])
-			v := archsimd.LoadFloat64x8Slice(fAll[k : k+8])
+			gx := load8(bFx, k)
+			gy := load8(bFy, k)
+			v := load8(bF, k)
 			if !full {
 				gx, gy = gx.Masked(lastMask), gy.Masked(lastMask)
 			}
@@ -349,9 +351,9 @@ func (s *solver) hessian2v(h *[144]float64) {
 		d0, d1, d2 = archsimd.Float64x8{}, archsimd.Float64x8{}, archsimd.Float64x8{}
 		for j := side - 1; j >= 0; j-- {
 			k := j*side + g
-			gx := archsimd.LoadFloat64x8Slice(fxAll[k : k+8])
-			gy := archsimd.LoadFloat64x8Slice(fyAll[k : k+8])
-			v := archsimd.LoadFloat64x8Slice(fAll[k : k+8])
+			gx := load8(bFx, k)
+			gy := load8(bFy, k)
+			v := load8(bF, k)
 			if !full {
 				gx, gy = gx.Masked(lastMask), gy.Masked(lastMask)
 			}
@@ -439,4 +441,9 @@ func (s *solver) colMoments2(d *[3][3][8]float64, c0, c1, c2, xi archsimd.Float6
 	add(&d[1][0], e0)
 	add(&d[1][1], e1)
 	add(&d[2][0], e0.Mul(xi))
+}
+
+// load8 loads the eight float64 at element k of the array at b.
+func load8(b unsafe.Pointer, k int) archsimd.Float64x8 {
+	return archsimd.LoadFloat64x8((*[8]float64)(unsafe.Add(b, 8*k)))
 }
