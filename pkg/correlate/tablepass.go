@@ -60,9 +60,12 @@ func rowInside(x, dx, ddx int64, n int, lo, hi int64) bool {
 	if !(x >= lo && x <= hi) {
 		return false
 	}
+	// With n ≤ 2¹², |dx| ≤ 2⁴⁷ and |ddx| ≤ 2³⁵ the closed form stays below
+	// 2⁶² in magnitude (i·dx ≤ 2⁵⁹, ddx·i²/2 ≤ 2⁵⁸, |x| ≤ 2⁶⁰), bounds
+	// that need no division (a subset row steps about 2⁴⁰ per pixel).
 	const lim = 1 << 60
 	nn := int64(n)
-	if hi >= lim || lo <= -lim || dx > lim/nn || dx < -lim/nn || ddx > lim/(nn*nn) || ddx < -lim/(nn*nn) {
+	if nn > 1<<12 || hi >= lim || lo <= -lim || dx > 1<<47 || dx < -(1<<47) || ddx > 1<<35 || ddx < -(1<<35) {
 		for i := 0; i < n; i++ {
 			if !(x >= lo && x <= hi) {
 				return false
@@ -79,7 +82,14 @@ func rowInside(x, dx, ddx int64, n int, lo, hi int64) bool {
 	if !at(nn - 1) {
 		return false
 	}
-	if ddx != 0 {
+	if ddx != 0 && nn > 2 {
+		// The first differences dx + i·ddx (i = 0 … n−2) are linear in
+		// i: if the first and the last have the same sign, or one is
+		// zero, the sequence is monotone and its ends, checked, are its
+		// extremes (no division, the usual case).
+		if last := dx + (nn-2)*ddx; dx >= 0 && last >= 0 || dx <= 0 && last <= 0 {
+			return true
+		}
 		q := -dx / ddx
 		for i := max(q-1, 1); i <= min(q+1, nn-2); i++ {
 			if !at(i) {
