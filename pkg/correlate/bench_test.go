@@ -58,11 +58,12 @@ func BenchmarkRun1024NoFetch(b *testing.B) { benchRun(b, First, tuning{noFetch: 
 // faster, the sleeps cost more than the spinning.
 func BenchmarkRun1024LongSpin(b *testing.B) { benchRun(b, First, tuning{spin: 1 << 14}) }
 
-// BenchmarkRun1024NoYield is BenchmarkRun1024 with workers that sleep
-// right after their poolSpin goroutine yields, without yielding their core
-// for up to poolYield first: the baseline of that wait, to be run beside
-// BenchmarkRun1024 -cpu 2 in the same process.
-func BenchmarkRun1024NoYield(b *testing.B) { benchRun(b, First, tuning{yield: -1}) }
+// BenchmarkRun1024Yield is BenchmarkRun1024 with workers that, after their
+// poolSpin goroutine yields, go on checking for work for up to 1 ms with
+// sched_yield between checks before they sleep: the trial of that wait, to
+// be run beside BenchmarkRun1024 -cpu 2 in the same process (and on small
+// pairs through scripts/bench -speed, where it lost).
+func BenchmarkRun1024Yield(b *testing.B) { benchRun(b, First, tuning{yield: time.Millisecond}) }
 
 // BenchmarkRun1024Series is BenchmarkRun1024 with the series defaults of
 // pkg/series: quintic B-splines and a Gaussian prefilter of σ = 0.8 px.

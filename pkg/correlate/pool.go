@@ -17,21 +17,20 @@ import (
 //
 // A helper that finds nothing to do checks again poolSpin times, yielding
 // to other goroutines in between (some 10–50 µs when nothing else runs),
-// then goes on checking for up to poolYield, yielding its core to other
-// processes in between (sched_yield on Linux), before it sleeps: waking a
-// sleeping thread on another core costs 60 µs to 1 ms on the 2-core
-// virtual machine, and a pool that put every worker to sleep after every
-// 64-point batch paid that twice per batch. The caller likewise spins
-// before it sleeps. Where other processes want the core, the yield gives
-// it to them, so the waiting does not take CPU time from them (as the
-// 16,384 goroutine yields of BenchmarkRun1024LongSpin do: on a loaded
-// machine that ran 0.7–0.85× the points per CPU-second of the default);
-// on idle cores it keeps the thread from halting its vCPU between batches.
-// The time bound also stops a waiter that the system preempted from
-// waiting on when it runs again.
+// then sleeps. tuning.yield can make it go on checking for a while first,
+// yielding its core to other processes in between (sched_yield on Linux):
+// on idle cores that keeps the thread from halting its vCPU between
+// batches (waking a sleeping thread on another core costs 60 µs to 1 ms on
+// the 2-core virtual machine), and BenchmarkRun1024Yield measured 0.96–1.39×
+// with 1 ms of it. It is not the default (poolYield < 0) because on small
+// runs it costs far more than it saves: on scripts/bench's pairs (1,521–1,600
+// points), two threads gave 14,366–37,571 points/s with 1 ms of yielding
+// against 40,151–45,882 without, and 7,970–19,244 points per CPU-second
+// against 21,722–24,665, in the same session (GOAMD64=v3 build). The caller
+// likewise spins before it sleeps.
 const (
 	poolSpin  = 64
-	poolYield = time.Millisecond
+	poolYield = -1 // no yielding of the core by default (see above)
 )
 
 // cursor packs the generation of the batch being handed out (upper 32
